@@ -223,7 +223,9 @@ class Run:
         if "sample_index" not in shg:
             raise RunFormatError("per-shot column 'shots/sample_index' is missing", where=where,
                                  fix="give each shot its sample index")
-        self._check_alloc(shg["sample_index"].shape, 8, "per-shot columns")
+        # the per-shot table is held in memory: about 8 bytes per column (plus the sample-id column) per shot
+        n_cols = 2 + sum(1 for k in shg.keys() if k != "sample_index") + 2
+        self._check_alloc(shg["sample_index"].shape, 8 * n_cols, "the per-shot table")
         idx = np.asarray(shg["sample_index"][()])
         _checks.check_sample_index(idx, n_samp, self.n_shots, where)
         shots = {"sample_index": idx.astype(np.int64)}
