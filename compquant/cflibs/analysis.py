@@ -50,20 +50,37 @@ class CFWarning(UserWarning):
 _INSTR_KEYS = ("instrument_fwhm_nm", "resolution_fwhm_nm", "fwhm_nm", "resolution_nm")
 
 
-def _instrument_width(settings, instrument, warn) -> float:
+def _instrument_width(settings, instrument, warn):
+    """Instrumental FWHM as a function of wavelength (nm → nm).
+
+    From ``[cf] instrument_fwhm_nm`` or ``[cf] resolving_power`` (FWHM = λ/R), else the
+    run's instrument attributes (same names), else 0 with a warning.
+    """
     if settings.instrument_fwhm_nm is not None:
-        return float(settings.instrument_fwhm_nm)
+        v = float(settings.instrument_fwhm_nm)
+        return lambda wl: np.full(np.shape(wl), v)
+    if settings.resolving_power is not None:
+        r = float(settings.resolving_power)
+        return lambda wl: np.asarray(wl, float) / r
+    instrument = instrument or {}
     for k in _INSTR_KEYS:
-        if instrument and k in instrument:
+        if k in instrument:
             try:
                 v = float(instrument[k])
             except (TypeError, ValueError):
                 continue
             if math.isfinite(v) and v >= 0:
-                return v
-    warn("instrumental FWHM unknown ([cf] instrument_fwhm_nm or run instrument attrs): "
-         "width-based nₑ assumes 0")
-    return 0.0
+                return lambda wl, v=v: np.full(np.shape(wl), v)
+    if "resolving_power" in instrument:
+        try:
+            r = float(instrument["resolving_power"])
+        except (TypeError, ValueError):
+            r = float("nan")
+        if math.isfinite(r) and r > 0:
+            return lambda wl: np.asarray(wl, float) / r
+    warn("instrumental FWHM unknown ([cf] instrument_fwhm_nm / resolving_power or run instrument "
+         "attrs): width-based nₑ assumes 0")
+    return lambda wl: np.zeros(np.shape(wl))
 
 
 def _gate_delay_s(acquisition) -> float | None:
@@ -114,7 +131,8 @@ class _Analysis:
         self.flags: list[str] = []
         self.L, self.excluded, self.h_alpha = prepare_lines(rows, atomic, settings, where)
         self.acq = acquisition or {}
-        self.w_instr = _instrument_width(settings, instrument or {}, self._warn)
+        self.w_instr_fn = _instrument_width(settings, instrument or {}, self._warn)
+        self.w_instr = self.w_instr_fn(self.L.wl)  # per line
         self.one_point = one_point
         self._apply_one_point()
         L = self.L
@@ -151,7 +169,7 @@ class _Analysis:
         """All width/fixed estimators available (name → estimator)."""
         out = {}
         if self.h_alpha is not None:
-            h = HAlphaNe(self.h_alpha, self.w_instr, self.s)
+            h = HAlphaNe(self.h_alpha, float(self.w_instr_fn(self.h_alpha["wavelength_nm"])), self.s)
             if h.usable(T):
                 out["h_alpha"] = h
             else:
@@ -206,7 +224,7 @@ class _Analysis:
                                       self.s.stark_t_exponent)
         meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(meas):
-            wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
+            wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
             wl[meas] = lorentz_from_voigt(L.fwhm[meas] * sa[meas] ** (-EL_SHERBINI_ALPHA), wg)
         return wl
 

@@ -17,19 +17,18 @@
 * Stark width of a line with tabulated parameters (electron-impact width, linear in nₑ;
   Griem 1974, *Spectral Line Broadening by Plasmas*; Konjević 1999 Phys. Rep. 316, 339)::
 
-      w = w_ref · (nₑ / n_ref) · (T / T_ref)^{-α}  →  nₑ = n_ref · (w / w_ref) · (T / T_ref)^{α}
+      w = w_ref · (nₑ / n_ref) · (T / T_ref)^a  →  nₑ = n_ref · (w / w_ref) · (T / T_ref)^{−a}
 
-  with ``α`` the temperature exponent (0 = no temperature dependence).
+  with ``a`` the temperature exponent (0 = no temperature dependence), the same convention
+  as the forward model (:func:`compquant.plasma.profiles.stark_fwhm`).
 """
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
-from compquant.cflibs.constants import AMU, C_LIGHT, K_B
 from compquant.errors import PhysicsError
+from compquant.plasma.profiles import doppler_fwhm, stark_fwhm, voigt_fwhm
 
 #: Gigosos, González & Cardeñoso 2003 H-alpha FWHM relation (from memory of the paper's
 #: abstract/eq.; the form nₑ = 10¹⁷ (w/1.098)^{1.47135} is widely quoted, verify)
@@ -42,17 +41,8 @@ _OL_B = 0.2166
 
 
 def doppler_fwhm_nm(wavelength_nm, T, mass_u) -> np.ndarray:
-    """Doppler (Gaussian) FWHM in nm for a Maxwellian emitter of mass ``mass_u`` (u) at T (K)."""
-    T = np.asarray(T, dtype=float)
-    m = np.asarray(mass_u, dtype=float) * AMU
-    return np.asarray(wavelength_nm, dtype=float) * np.sqrt(8.0 * K_B * T * math.log(2.0) / (m * C_LIGHT**2))
-
-
-def voigt_fwhm(w_lorentz, w_gauss) -> np.ndarray:
-    """Olivero & Longbothum (1977) approximation of the Voigt FWHM."""
-    wl = np.asarray(w_lorentz, dtype=float)
-    wg = np.asarray(w_gauss, dtype=float)
-    return _OL_A * wl + np.sqrt(_OL_B * wl**2 + wg**2)
+    """Doppler (Gaussian) FWHM in nm (:func:`compquant.plasma.profiles.doppler_fwhm`)."""
+    return np.asarray(doppler_fwhm(wavelength_nm, T, mass_u), dtype=float)
 
 
 def lorentz_from_voigt(w_voigt, w_gauss) -> np.ndarray:
@@ -91,20 +81,17 @@ def h_alpha_width(ne_cm3) -> np.ndarray:
 
 
 def ne_stark_linear(w_stark_nm, w_ref_nm, ne_ref_cm3, T=None, T_ref=None, t_exponent: float = 0.0):
-    """nₑ (cm⁻³) from a Stark FWHM linear in nₑ (see module docstring)."""
-    w = np.asarray(w_stark_nm, dtype=float)
-    ne = np.asarray(ne_ref_cm3, dtype=float) * w / np.asarray(w_ref_nm, dtype=float)
-    if t_exponent and T is not None and T_ref is not None:
-        ne = ne * (np.asarray(T, dtype=float) / np.asarray(T_ref, dtype=float)) ** t_exponent
-    return ne
+    """nₑ (cm⁻³) from a Stark FWHM, inverse of :func:`compquant.plasma.profiles.stark_fwhm`.
+
+    ``w = w_ref (nₑ/n_ref) (T/T_ref)^a``  ⇒  ``nₑ = n_ref (w/w_ref) (T/T_ref)^{-a}``.
+    """
+    unit = stark_fwhm(np.asarray(w_ref_nm, float), 1.0, 1.0, T, T_ref, t_exponent)
+    return np.asarray(ne_ref_cm3, float) * np.asarray(w_stark_nm, float) / unit
 
 
 def stark_width_linear(ne_cm3, w_ref_nm, ne_ref_cm3, T=None, T_ref=None, t_exponent: float = 0.0):
-    """Stark FWHM (nm) at nₑ from tabulated parameters (inverse of :func:`ne_stark_linear`)."""
-    w = np.asarray(w_ref_nm, dtype=float) * np.asarray(ne_cm3, dtype=float) / np.asarray(ne_ref_cm3)
-    if t_exponent and T is not None and T_ref is not None:
-        w = w * (np.asarray(T, dtype=float) / np.asarray(T_ref, dtype=float)) ** (-t_exponent)
-    return w
+    """Stark FWHM (nm) at nₑ: :func:`compquant.plasma.profiles.stark_fwhm`."""
+    return np.asarray(stark_fwhm(w_ref_nm, ne_cm3, ne_ref_cm3, T, T_ref, t_exponent), dtype=float)
 
 
 __all__ = [

@@ -84,13 +84,13 @@ class StarkLinesNe:
         if sa is not None:  # El Sherbini et al. 2005: Δλ_thin = Δλ_obs · SA^{−α}, α = −0.54
             fw = fw * np.asarray(sa)[self.idx] ** (-EL_SHERBINI_ALPHA)
         self.fwhm = fw
+        self.w_instr = np.broadcast_to(np.asarray(w_instr_nm, float), L.wl.shape)[self.idx]
         self.w_ref = L.stark_w[self.idx]
         self.ne_ref = L.stark_ne[self.idx]
         self.t_ref = L.stark_t[self.idx]
         self.alpha = settings.stark_t_exponent
         self.u_w = settings.u_rel_fwhm
         self.u_par = settings.stark_param_u_rel
-        self.w_instr = w_instr_nm
 
     @staticmethod
     def eligible(lines, w_instr_nm, T, mass_u) -> np.ndarray:

@@ -90,12 +90,14 @@ def one_point_calibration(line_table, certified: dict[str, float], *, sample_id:
     for e, lx in zip(els, ln_x):
         lu1 = float(model.ln_u(species_name(e, 1), Tarr)[0])
         lu2 = float(model.ln_u(species_name(e, 2), Tarr)[0])
-        ln_r1 = ln_saha + lu2 - lu1 - model.ie1[e] / (K_B_EV * T)
+        low1 = float(model.lowering(Tarr, np.array([ne]), 1)[0])
+        low2 = float(model.lowering(Tarr, np.array([ne]), 2)[0])
+        ln_r1 = ln_saha + lu2 - lu1 - (model.ie1[e] - low1) / (K_B_EV * T)
         terms = [0.0, ln_r1]
         s3 = species_name(e, 3)
         if s.include_ion3 and model.ie2.get(e) is not None and model.has_u(s3):
             lu3 = float(model.ln_u(s3, Tarr)[0])
-            terms.append(ln_r1 + ln_saha + lu3 - lu2 - model.ie2[e] / (K_B_EV * T))
+            terms.append(ln_r1 + ln_saha + lu3 - lu2 - (model.ie2[e] - low2) / (K_B_EV * T))
         ln_n1 = lx - logsumexp(terms)
         ln_sp[species_name(e, 1)] = ln_n1 - lu1
         ln_sp[species_name(e, 2)] = ln_n1 + ln_r1 - lu2

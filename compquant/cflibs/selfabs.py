@@ -34,7 +34,9 @@ import math
 import numpy as np
 from scipy.special import i0e, i1e, voigt_profile
 
-from compquant.cflibs.constants import C_LIGHT, H_PLANCK, K_B, K_B_EV
+from compquant.cflibs.constants import K_B_EV
+from compquant.plasma.emission import line_absorption_integrated
+from compquant.plasma.profiles import voigt
 
 EL_SHERBINI_ALPHA = -0.54
 
@@ -88,19 +90,19 @@ def tau0_slab(
 ) -> np.ndarray:
     """Peak optical depth τ₀ of a line from a homogeneous slab (see module docstring).
 
-    n_species in cm⁻³, length in cm, widths (FWHM) in nm; broadcasts.
+    n_species in cm⁻³, length in cm, widths (FWHM) in nm; broadcasts.  The integrated
+    absorption is :func:`compquant.plasma.emission.line_absorption_integrated` (g_i cancels
+    against the lower-level population, so g_k A_ki is passed as one product) and the peak
+    of the area-normalised Voigt profile is :func:`compquant.plasma.profiles.voigt` at 0.
     """
-    lam = np.asarray(wavelength_nm, dtype=float) * 1e-9
     T = np.asarray(T, dtype=float)
-    stim = -np.expm1(-H_PLANCK * C_LIGHT / (lam * K_B * T))
-    pop = np.asarray(n_species_cm3, dtype=float) * 1e6 / np.asarray(u_species, dtype=float) * np.exp(
-        -np.asarray(ei_ev, dtype=float) / (K_B_EV * T))
-    k_int = lam**4 / (8.0 * math.pi * C_LIGHT) * np.asarray(gk_aki, dtype=float) * pop * stim  # ∫κ dλ
+    n_low = np.asarray(n_species_cm3, dtype=float) / np.asarray(u_species, dtype=float) * np.exp(
+        -np.asarray(ei_ev, dtype=float) / (K_B_EV * T))  # n_i / g_i
+    k_int = line_absorption_integrated(wavelength_nm, gk_aki, 1.0, 1.0, n_low, T)  # m⁻¹ nm
     wg = np.maximum(np.asarray(w_gauss_nm, dtype=float), 1e-12)
     wl = np.maximum(np.asarray(w_lorentz_nm, dtype=float), 0.0)
-    sigma = wg * 1e-9 / (2.0 * math.sqrt(2.0 * math.log(2.0)))
-    phi0 = voigt_profile(0.0, sigma, wl * 1e-9 / 2.0)  # m⁻¹
-    return np.asarray(length_cm, dtype=float) * 1e-2 * k_int * phi0
+    peak = voigt(0.0, 0.0, wg, wl)  # nm⁻¹
+    return np.asarray(length_cm, dtype=float) * 1e-2 * k_int * peak
 
 
 def sa_from_width(w_observed_nm, w_thin_nm, alpha: float = EL_SHERBINI_ALPHA) -> np.ndarray:

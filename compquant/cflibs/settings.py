@@ -36,6 +36,8 @@ class CFSettings:
     u_rel_floor: float = 0.005
     scale_by_chi2: bool = True
     include_ion3: bool = True
+    ionisation_lowering: bool = True
+    resolving_power: float | None = None
     t_start_k: float = 10000.0
     t_min_k: float = 3000.0
     t_max_k: float = 50000.0
@@ -107,7 +109,7 @@ class CFSettings:
 _FLOAT_POS = {"ne_fixed_u_rel", "u_rel_fwhm", "h_alpha_relation_u_rel", "stark_param_u_rel",
               "u_rel_floor", "t_start_k", "t_min_k", "t_max_k", "lte_f", "lte_gaunt",
               "lte_transient_ratio", "lte_diffusion_ratio"}
-_FLOAT_POS_OPT = {"ne_fixed_cm3", "plasma_length_mm", "gradient_length_mm"}
+_FLOAT_POS_OPT = {"ne_fixed_cm3", "plasma_length_mm", "gradient_length_mm", "resolving_power"}
 _FLOAT_NONNEG_OPT = {"instrument_fwhm_nm"}
 _FRACTION = {"sa_flag_below", "sa_min_factor"}
 
@@ -133,7 +135,7 @@ def _check(key, val, where):
         if not isinstance(val, str):
             raise MethodError("expected text", where=where, fix="quote the value")
         return val
-    if key in ("scale_by_chi2", "include_ion3"):
+    if key in ("scale_by_chi2", "include_ion3", "ionisation_lowering"):
         if not isinstance(val, bool):
             raise MethodError("expected true or false", where=where, fix="write true or false")
         return val

@@ -22,6 +22,9 @@ not known from line widths, ln nₑ is a fitted parameter shared by all elements
 on the ion rows).  The temperature enters the ion shift through T^{3/2}, so the fit is
 iterated to a fixed point (converges in a few steps).
 
+Ionisation energies are lowered by the Debye–Hückel term ΔE (Griem 1964 §6-3), as in the
+forward model: x* keeps E_ion,I and the ordinate shift gains ΔE/kT (iterated with nₑ).
+
 Closure (Ciucci et al. 1999): n_el ∝ U_I e^{q_el}·(1 + n_II/n_I + n_III/n_I) with the stage
 ratios from Saha at (T, nₑ); number fractions x_el = n_el/Σn; mass fractions
 w_el = x_el M_el / Σ x M.  All in log space (log-sum-exp), so no exponential overflows.
@@ -40,6 +43,7 @@ from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
 from compquant.cflibs.fitting import BatchFit, wls_batch
 from compquant.cflibs.lineset import LineSet
 from compquant.errors import AtomicDataError, PhysicsError
+from compquant.plasma.saha import ionisation_lowering_ev
 
 
 @dataclass
@@ -100,6 +104,13 @@ class Model:
                                fix="check the temperature range of the partition-function data")
         return np.log(u)
 
+    def lowering(self, T, ne, charge_produced: int) -> np.ndarray:
+        """Debye–Hückel lowering of the ionisation energy (eV), as in the forward model
+        (:func:`compquant.plasma.saha.ionisation_lowering_ev`; Griem 1964 §6-3); 0 when off."""
+        if not self.settings.ionisation_lowering:
+            return np.zeros(np.shape(T))
+        return ionisation_lowering_ev(np.asarray(T, float), np.asarray(ne, float), charge_produced)
+
     def has_u(self, species: str) -> bool:
         return bool(self.atomic.has_partition_function(species))
 
@@ -153,6 +164,7 @@ class Model:
         X, groups = self.design(ne_free)
         T = np.full(d, s.t_start_k) if T0 is None else np.array(T0, dtype=float).copy()
         ion = self.is_ion[None, :]
+        ne_prev = None  # for the ionisation-energy lowering when nₑ is fitted
         it = 0
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             while it < max_iter:
@@ -161,15 +173,25 @@ class Model:
                 if self.mode == "saha-boltzmann":
                     shift = LN_SAHA_PREFACTOR + 1.5 * np.log(Tc)
                     if not ne_free:
-                        ne = np.broadcast_to(ne_func(Tc), (d,))
-                        shift = shift - np.log(ne)
+                        ne_now = np.broadcast_to(ne_func(Tc), (d,))
+                        shift = shift - np.log(ne_now)
+                    else:
+                        ne_now = ne_prev
+                    if ne_now is not None:  # Debye–Hückel lowering: y* −= ΔE/kT on ion rows
+                        shift = shift + self.lowering(Tc, ne_now, 1) / (K_B_EV * Tc)
                     y = y_base - np.where(ion, shift[:, None], 0.0)
                 else:
                     y = y_base
                 fit = wls_batch(X, y, w, scale_by_chi2=s.scale_by_chi2)
                 m = fit.beta[:, 0]
                 T_new = np.where(m < 0, -1.0 / (K_B_EV * m), np.nan)
-                done = np.nanmax(np.abs(T_new / T - 1.0)) < 1e-9 if np.all(np.isfinite(T_new)) else False
+                done = bool(np.all(np.isfinite(T_new)) and np.nanmax(np.abs(T_new / T - 1.0)) < 1e-9)
+                if ne_free and self.mode == "saha-boltzmann":
+                    ne_fit = np.exp(np.clip(fit.beta[:, -1], -700, 700))
+                    if s.ionisation_lowering:
+                        done = done and ne_prev is not None and bool(
+                            np.nanmax(np.abs(ne_fit / ne_prev - 1.0)) < 1e-9)
+                    ne_prev = ne_fit
                 T = np.where(np.isfinite(T_new), T_new, T)
                 bad = ~np.isfinite(T_new)
                 if self.mode == "boltzmann" or done or np.all(bad):
@@ -223,19 +245,25 @@ class Model:
                 "electron density cannot be found from the Saha ratio: no element has both "
                 "neutral and ion lines", where="electron density",
                 fix="measure H-alpha or lines with Stark parameters, or set [cf] ne_method = 'fixed'")
-        ests, variances = [], []
         p0 = 1
+        diffs, variances, ies = [], [], []
         for e in self.both_stage_elements:
             i1 = p0 + groups.index(species_name(e, 1))
             i2 = p0 + groups.index(species_name(e, 2))
-            diff = fit.beta[:, i2] - fit.beta[:, i1]
+            diffs.append(fit.beta[:, i2] - fit.beta[:, i1])
             var = fit.cov[:, i1, i1] + fit.cov[:, i2, i2] - 2 * fit.cov[:, i1, i2]
-            ln_ne = LN_SAHA_PREFACTOR + 1.5 * np.log(T) - self.ie1[e] / (K_B_EV * T) - diff
-            ests.append(ln_ne)
             variances.append(np.maximum(var, 1e-30))
-        ests = np.array(ests)
+            ies.append(self.ie1[e])
         wts = 1.0 / np.array(variances)
-        ln_ne = np.sum(ests * wts, axis=0) / np.sum(wts, axis=0)
+        low = np.zeros_like(T)
+        for _ in range(20):  # lowering depends on nₑ: fixed point, converges in a few steps
+            ests = np.array([LN_SAHA_PREFACTOR + 1.5 * np.log(T) - (ie - low) / (K_B_EV * T) - df
+                             for ie, df in zip(ies, diffs)])
+            ln_ne = np.sum(ests * wts, axis=0) / np.sum(wts, axis=0)
+            new = self.lowering(T, np.exp(np.clip(ln_ne, -700, 700)), 1)
+            if np.all(np.abs(new - low) < 1e-12):
+                break
+            low = new
         return ln_ne, np.sqrt(1.0 / np.sum(wts, axis=0))
 
     def _composition(self, beta, groups, T, ne):
@@ -245,15 +273,17 @@ class Model:
         d = beta.shape[0]
         ln_saha = LN_SAHA_PREFACTOR + 1.5 * np.log(T) - np.log(ne)
         kT = K_B_EV * T
+        low1 = self.lowering(T, ne, 1)
+        low2 = self.lowering(T, ne, 2)
         out = np.empty((d, len(self.elements)))
         ln_sp = {}
         for j, e in enumerate(self.elements):
             s1, s2, s3 = species_name(e, 1), species_name(e, 2), species_name(e, 3)
             lu1 = self.ln_u(s1, T)
             lu2 = self.ln_u(s2, T)
-            ln_r1 = ln_saha + lu2 - lu1 - self.ie1[e] / kT
+            ln_r1 = ln_saha + lu2 - lu1 - (self.ie1[e] - low1) / kT
             use3 = s.include_ion3 and self.ie2.get(e) is not None and self.has_u(s3)
-            ln_r2 = (ln_saha + self.ln_u(s3, T) - lu2 - self.ie2[e] / kT) if use3 else None
+            ln_r2 = (ln_saha + self.ln_u(s3, T) - lu2 - (self.ie2[e] - low2) / kT) if use3 else None
             if self.mode == "saha-boltzmann":
                 ln_n1 = beta[:, p0 + groups.index(e)] + lu1
                 ln_n2 = ln_n1 + ln_r1
