@@ -199,9 +199,13 @@ class _Analysis:
         return m, cands[m]
 
     # -- central solve -----------------------------------------------------------------
-    def solve_central(self, sa, ne_name, ne_est) -> Solution:
+    def solve_central(self, sa, ne_name, ne_est, T0=None) -> Solution:
         ln_i = np.log(self.L.intensity) - np.log(sa) - self.ln_zeta
-        return self.model.solve(ln_i[None, :], 0.0, self.w, ne_est, strict=True)
+        T0 = getattr(self, "_T_warm", None) if T0 is None else T0
+        sol = self.model.solve(ln_i[None, :], 0.0, self.w, ne_est, strict=True,
+                               T0=None if T0 is None else np.array([T0]))
+        self._T_warm = float(sol.T[0])
+        return sol
 
     def absolute_species(self, sol: Solution, j: int = 0):
         """Absolute number density (cm⁻³) per species from nₑ and charge neutrality."""
@@ -241,19 +245,50 @@ class _Analysis:
         tau = tau0_slab(L.wl, L.gA, L.ei, T, n_sp, u_sp, length_cm, wg, wlz)
         return sa_factor(tau, wg, wlz), tau
 
-    def iterate_cog(self, length_cm, ne_pick, max_iter=60):
-        sa = np.ones(self.L.n)
-        sol = None
-        tau = np.zeros(self.L.n)
-        for _ in range(max_iter if length_cm > 0 else 0):
-            ne_name, ne_est = ne_pick(sa)
-            sol = self.solve_central(sa, ne_name, ne_est)
-            new, tau = self.sa_cog(sol, length_cm, sa)
-            new = np.maximum(new, self.s.sa_min_factor)
-            step = np.max(np.abs(np.log(new) - np.log(sa)))
-            sa = np.exp(0.5 * np.log(sa) + 0.5 * np.log(new))  # damped fixed point
-            if step < 1e-6:
-                break
+    def drop_lines(self, mask, reason: str):
+        """Remove lines (e.g. too optically thick to correct) and rebuild the model."""
+        keep = ~np.asarray(mask)
+        for lid in self.L.line_id[~keep]:
+            self.excluded.append({"line_id": str(lid), "reason": reason})
+        if not np.any(keep):
+            raise DataQualityError("no line left after removing " + reason, where=self.where,
+                                   fix="use weaker lines or a shorter plasma length")
+        gone = set(self.L.element) - set(self.L.element[keep])
+        self.L = self.L.subset(keep)
+        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa"):
+            setattr(self, name, getattr(self, name)[keep])
+        self.model = Model(self.L, self.atomic, self.s)
+        for e in sorted(gone):
+            self._warn(f"element {e}: no line left after removing lines ({reason})")
+
+    def iterate_cog(self, length_cm, ne_pick, max_iter=60, tol=1e-6, allow_drop=False):
+        """Fixed point SA → (T, nₑ, composition) → τ₀ → SA for a slab of length ``length_cm``.
+
+        With ``allow_drop``, lines whose converged SA is below ``[cf] sa_min_factor`` are
+        removed (their correction would be unreliable) and the iteration restarts.
+        """
+        while True:
+            sa = np.ones(self.L.n)
+            tau = np.zeros(self.L.n)
+            for _ in range(max_iter if length_cm > 0 else 0):
+                ne_name, ne_est = ne_pick(sa)
+                sol = self.solve_central(sa, ne_name, ne_est)
+                raw, tau = self.sa_cog(sol, length_cm, sa)
+                new = np.maximum(raw, self.s.sa_min_factor)
+                step = np.max(np.abs(np.log(new) - np.log(sa)))
+                sa = np.exp(0.5 * np.log(sa) + 0.5 * np.log(new))  # damped fixed point
+                if step < tol:
+                    break
+            thick = raw < self.s.sa_min_factor if length_cm > 0 else np.zeros(self.L.n, bool)
+            if allow_drop and np.any(thick) and self.L.n > 1:
+                # remove the thickest line only, then re-solve: the others may look thinner once
+                # the worst line no longer biases T and the composition
+                worst = np.zeros(self.L.n, bool)
+                worst[int(np.argmin(raw))] = True
+                self.sa = np.ones(self.L.n)
+                self.drop_lines(worst, f"too optically thick (SA < {self.s.sa_min_factor})")
+                continue
+            break
         ne_name, ne_est = ne_pick(sa)
         sol = self.solve_central(sa, ne_name, ne_est)
         return sa, sol, tau, ne_name, ne_est
@@ -279,16 +314,16 @@ class _Analysis:
         mode = s.self_absorption
         if mode == "curve_of_growth":
             length_cm = s.plasma_length_mm / 10.0
-            self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick)
+            self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
             self.sa_info.update(plasma_length_mm=s.plasma_length_mm, fitted=False)
         elif mode in ("columnar", "detect"):
-            length_cm, chi_thin, chi_best = self.fit_length(ne_pick)
+            length_cm, chi_thin, chi_best = self.fit_length(ne_pick, coarse=mode == "detect")
             self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
                                 chi2_thin=chi_thin, chi2_fitted=chi_best)
             if mode == "columnar":
-                self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick)
+                self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
             else:
-                sa_d, sol_d, tau, *_ = self.iterate_cog(length_cm, ne_pick)
+                sa_d, sol_d, tau, *_ = self.iterate_cog(length_cm, ne_pick, max_iter=15, tol=1e-3)
                 self.sa_detect_cog = sa_d
         elif mode == "reference_line":
             self.sa, sol, ne_name, ne_est = self.reference_line(sol, ne_pick)
@@ -298,20 +333,21 @@ class _Analysis:
         self.tau = tau
         return self.build(mc_draws, seed)
 
-    def fit_length(self, ne_pick):
+    def fit_length(self, ne_pick, coarse: bool = False):
         """Columnar density fit: plasma length L minimising the fit's χ² (Cristoforetti &
         Tognoni 2013 use the columnar density n·L as the free parameter; with nₑ and the
         closure fixing the densities, fitting L is the same)."""
         def chi2_of(ln_l):
             try:
-                sa, sol, *_ = self.iterate_cog(math.exp(ln_l), ne_pick, max_iter=30)
+                sa, sol, *_ = self.iterate_cog(math.exp(ln_l), ne_pick, max_iter=15 if coarse else 40,
+                                               tol=1e-3 if coarse else 1e-6)
             except PhysicsError:
                 return 1e300
             return float(sol.fit.chi2[0])
 
         lo, hi = math.log(1e-5), math.log(10.0)
         res = minimize_scalar(chi2_of, bounds=(lo, hi), method="bounded",
-                              options={"xatol": 0.02, "maxiter": 40})
+                              options={"xatol": 0.15 if coarse else 0.02, "maxiter": 15 if coarse else 40})
         chi_thin = float(self.solve_central(np.ones(self.L.n), *ne_pick(None)).fit.chi2[0])
         best = float(res.fun)
         if best >= chi_thin * (1 - 1e-9):

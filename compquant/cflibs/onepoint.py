@@ -22,12 +22,12 @@ import math
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
-from scipy.special import logsumexp
 
 from compquant.cflibs.analysis import _Analysis, _select_sample
 from compquant.cflibs.atomicdata import default_atomic_data, species_name
 from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
 from compquant.cflibs.settings import CFSettings
+from compquant.cflibs.solver import logsumexp
 from compquant.errors import CalibrationError
 
 SCHEMA = "compquant.cf-one-point/1"

@@ -36,7 +36,6 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import logsumexp
 
 from compquant.cflibs.atomicdata import species_name
 from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
@@ -44,6 +43,15 @@ from compquant.cflibs.fitting import BatchFit, wls_batch
 from compquant.cflibs.lineset import LineSet
 from compquant.errors import AtomicDataError, PhysicsError
 from compquant.plasma.saha import ionisation_lowering_ev
+
+
+def logsumexp(a, axis=None, keepdims=False):
+    """ln Σ exp(a) without overflow (plain numpy; scipy's version is slow for small arrays)."""
+    a = np.asarray(a, dtype=float)
+    m = np.max(a, axis=axis, keepdims=True)
+    m = np.where(np.isfinite(m), m, 0.0)
+    out = np.log(np.sum(np.exp(a - m), axis=axis, keepdims=True)) + m
+    return out if keepdims else np.squeeze(out, axis=axis) if axis is not None else out.reshape(())
 
 
 @dataclass
