@@ -20,11 +20,11 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 from scipy.optimize import minimize_scalar
+from scipy.special import chdtrc
 
 from compquant.cflibs.atomicdata import default_atomic_data, species_name
-from compquant.cflibs.constants import K_B_EV
+from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
 from compquant.cflibs.density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
 from compquant.cflibs.electron_density import FixedNe, HAlphaNe, StarkLinesNe
 from compquant.cflibs.fitting import wls_batch
@@ -229,7 +229,7 @@ class _Analysis:
         meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(meas):
             wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
-            wl[meas] = lorentz_from_voigt(L.fwhm[meas] * sa[meas] ** (-EL_SHERBINI_ALPHA), wg)
+            wl[meas] = lorentz_from_voigt(L.fwhm[meas], wg) * sa[meas] ** (-EL_SHERBINI_ALPHA)
         return wl
 
     def sa_cog(self, sol: Solution, length_cm: float, sa_prev):
@@ -293,6 +293,109 @@ class _Analysis:
         sol = self.solve_central(sa, ne_name, ne_est)
         return sa, sol, tau, ne_name, ne_est
 
+    def sa_of_beta(self, beta, length_cm, ne_est, groups):
+        """SA of every line implied by the fit parameters β (T, intercepts[, ln nₑ]) and L."""
+        m = beta[0]
+        T = np.array([-1.0 / (K_B_EV * m)])
+        ne = np.exp(np.array([beta[-1]])) if ne_est is None else np.atleast_1d(ne_est(T))[:1]
+        ln_n_el, ln_sp = self.model._composition(beta[None, :], groups, T, ne)
+        fake = Solution(T=T, ne=ne, u_ln_ne_fit=None, slope=np.array([m]), u_slope=np.zeros(1), fit=None,
+                        X=None, y=None, groups=groups, elements=self.model.elements, ln_n_el=ln_n_el,
+                        ln_n_species=ln_sp, number_fraction=None, mass_fraction=None,
+                        valid=np.ones(1, bool), iterations=0, ne_from_fit=ne_est is None)
+        return self.sa_cog(fake, length_cm, np.ones(self.L.n))[0], T[0], ne[0]
+
+    def nls_selfabs(self, length_cm, ne_pick, fit_length: bool, coarse: bool = False):
+        """Self-absorbed Saha–Boltzmann fit by nonlinear least squares.
+
+        The model ordinate of line i is the optically thin one plus ln SA_i, where SA_i
+        follows from the curve of growth of a homogeneous slab whose densities are those of
+        the current parameters (T, intercepts → closure, nₑ → absolute scale by charge
+        neutrality) and whose length L is given or fitted (columnar density n·L,
+        Cristoforetti & Tognoni 2013).  Minimises Σ w_i (y_i − ŷ_i)² with
+        :func:`scipy.optimize.least_squares`, started from the fixed-point solution and from
+        the optically thin solution (the fixed point alone can settle on a too-hot, too-thin
+        branch).  Returns ``(sa, sol, tau, ne_name, ne_est, length_cm, chi2)``.
+        """
+        from scipy.optimize import least_squares
+
+        s = self.s
+        sa = np.ones(self.L.n)
+        best = None
+        for _outer in range(2):
+            ne_name, ne_est = ne_pick(sa)
+            ne_free = ne_est is None
+            X, groups = self.model.design(ne_free)
+            y_raw = np.log(self.L.intensity) + self.model.y0 - self.ln_zeta
+            sw = np.sqrt(self.w)
+
+            def resid(theta, X=X, groups=groups, ne_est=ne_est, y_raw=y_raw, sw=sw, ne_free=ne_free,
+                      ion=self.model.is_ion):
+                beta = theta[:X.shape[1]]
+                L_cm = math.exp(theta[-1]) if fit_length else length_cm
+                m = beta[0]
+                if not (m < 0):
+                    return np.full(self.L.n, 1e6)
+                T = -1.0 / (K_B_EV * m)
+                if not (0.5 * s.t_min_k <= T <= 2.0 * s.t_max_k):
+                    return np.full(self.L.n, 1e6)
+                try:
+                    sa_i, T_, ne_ = self.sa_of_beta(beta, L_cm, ne_est, groups)
+                except PhysicsError:
+                    return np.full(self.L.n, 1e6)
+                shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T) + float(
+                    self.model.lowering(np.array([T]), np.array([ne_]), 1)[0]) / (K_B_EV * T)
+                if not ne_free:
+                    shift -= math.log(ne_)
+                pred = X @ beta + np.where(ion, shift, 0.0) + np.log(np.maximum(sa_i, 1e-300))
+                return sw * (y_raw - pred)
+
+            starts = []
+            thin = self.solve_central(np.ones(self.L.n), ne_name, ne_est)
+            fp = self.solve_central(sa, ne_name, ne_est)
+            for sol0, l0 in ((fp, length_cm if length_cm else 0.05), (thin, 1e-3)):
+                b0 = sol0.fit.beta[0].copy()
+                th = np.concatenate([b0, [math.log(max(l0, 1e-5))]]) if fit_length else b0
+                starts.append(th)
+            for th0 in starts:
+                try:
+                    res = least_squares(resid, th0, method="lm" if not fit_length else "trf",
+                                        x_scale="jac", max_nfev=80 if coarse else 300,
+                                        xtol=1e-6 if coarse else 1e-10, ftol=1e-6 if coarse else 1e-12)
+                except (ValueError, FloatingPointError):
+                    continue
+                chi2 = float(np.sum(res.fun**2))
+                if best is None or chi2 < best[0]:
+                    best = (chi2, res.x, X, groups, ne_name, ne_est)
+            chi2, th, X, groups, ne_name, ne_est = best
+            L_cm = math.exp(th[-1]) if fit_length else length_cm
+            sa_new, _, _ = self.sa_of_beta(th[:X.shape[1]], L_cm, ne_est, groups)
+            step = float(np.max(np.abs(np.log(np.maximum(sa_new, 1e-300)) - np.log(sa))))
+            sa = np.maximum(sa_new, 1e-300)
+            best = None
+            if step < 1e-4:
+                break
+        ne_name, ne_est = ne_pick(sa)
+        sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
+        _, tau = self.sa_cog(sol, L_cm, sa)
+        return sa, sol, tau, ne_name, ne_est, L_cm, chi2
+
+    def selfabs_corrected(self, length_cm, ne_pick, fit_length: bool):
+        """:meth:`nls_selfabs`, removing the thickest line while any SA < sa_min_factor."""
+        while True:
+            out = self.nls_selfabs(length_cm, ne_pick, fit_length)
+            sa = out[0]
+            if np.any(sa < self.s.sa_min_factor) and self.L.n > 2:
+                # hopeless lines (SA < sa_min/3) go at once; near the limit, the worst one only
+                worst = sa < self.s.sa_min_factor / 3.0
+                if not np.any(worst) or np.all(worst):
+                    worst = np.zeros(self.L.n, bool)
+                    worst[int(np.argmin(sa))] = True
+                self.sa = np.ones(self.L.n)
+                self.drop_lines(worst, f"too optically thick (SA < {self.s.sa_min_factor})")
+                continue
+            return out
+
     def run(self, mc_draws, seed) -> CFResult:
         s = self.s
 
@@ -314,17 +417,18 @@ class _Analysis:
         mode = s.self_absorption
         if mode == "curve_of_growth":
             length_cm = s.plasma_length_mm / 10.0
-            self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
+            self.sa, sol, tau, ne_name, ne_est, _, _ = self.selfabs_corrected(length_cm, ne_pick, False)
             self.sa_info.update(plasma_length_mm=s.plasma_length_mm, fitted=False)
         elif mode in ("columnar", "detect"):
-            length_cm, chi_thin, chi_best = self.fit_length(ne_pick, coarse=mode == "detect")
-            self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
-                                chi2_thin=chi_thin, chi2_fitted=chi_best)
+            chi_thin = float(sol.fit.chi2[0])
             if mode == "columnar":
-                self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
+                self.sa, sol, tau, ne_name, ne_est, length_cm, chi = self.selfabs_corrected(
+                    None, ne_pick, True)
             else:
-                sa_d, sol_d, tau, *_ = self.iterate_cog(length_cm, ne_pick, max_iter=15, tol=1e-3)
+                sa_d, _sol_d, tau, _n, _e, length_cm, chi = self.nls_selfabs(None, ne_pick, True, coarse=True)
                 self.sa_detect_cog = sa_d
+            self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
+                                chi2_thin=chi_thin, chi2_fitted=chi)
         elif mode == "reference_line":
             self.sa, sol, ne_name, ne_est = self.reference_line(sol, ne_pick)
         self._T_guess = float(sol.T[0])
@@ -502,7 +606,7 @@ class _Analysis:
         # fit quality
         fit = sol.fit
         chi2, dof = float(fit.chi2[0]), fit.dof
-        p = float(stats.chi2.sf(chi2, dof)) if dof > 0 else float("nan")
+        p = float(chdtrc(dof, chi2)) if dof > 0 else float("nan")  # χ² survival function
         if dof > 0 and p < 1e-3:
             self.flags.append("cf_fit_poor")
         det = self.detection(sol)
