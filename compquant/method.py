@@ -393,7 +393,7 @@ def _parse_measure(t: dict, src: str) -> MeasureConfig:
 def _lookup_line(element: str, ion: int, wl: float, where: str):
     """Find the line in the shipped line list; None when the atomic module is unavailable."""
     try:
-        from compquant.atomic import load_line_list  # noqa: PLC0415 - optional dependency in time
+        from compquant.atomic import load_line_list
     except ImportError:
         return None
     try:
