@@ -32,7 +32,8 @@ uncertainty of the mean (JCGM 100:2008, 4.2.3 type A)::
 
 where ``u_shape^2 = var_full(A) - var_fixed_shape(A)`` is the part of the fit
 covariance due to the fitted centres and widths (the pixel-noise part is already
-in the shot scatter).  A single-shot sample has no scatter: ``u`` is then the
+in the shot scatter), divided by the mean normalisation factor when spectra are
+normalised.  A single-shot sample has no scatter: ``u`` is then the
 pixel-noise propagation ``sigma * ||w||`` (window) or the full fit covariance
 (fit) and the line is flagged ``single_shot``.  ``snr = intensity / u``.
 """
@@ -557,10 +558,8 @@ def _aggregate(setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits,
                 j = setup.groups[gi].index(li)
                 var_full = float(gf.cov_areas[j, j])
                 u_shape2 = max(var_full - float(gf.var_areas_linear[j]), 0.0)
-                a_fit = float(gf.areas[j])
-                rel_shape2 = u_shape2 / (a_fit * a_fit) if a_fit != 0 else 0.0
                 if nv >= 2:
-                    u = math.sqrt(sd * sd / nv + rel_shape2 * intensity * intensity)
+                    u = math.sqrt(sd * sd / nv + u_shape2 / (f_mean * f_mean))
                 else:
                     u = math.sqrt(max(var_full, 0.0)) / f_mean
                 centre, fwhm = float(gf.centres[j]), float(gf.fwhm[j])
