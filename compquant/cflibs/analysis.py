@@ -225,7 +225,7 @@ class _Analysis:
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
         t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
         wl[have] = stark_width_linear(ne, L.stark_w[have], L.stark_ne[have], T, t_ref[have],
-                                      self.s.stark_t_exponent)
+                                      self.s.stark_t_exponent, L.stark_p[have])
         meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(meas):
             wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
@@ -517,7 +517,8 @@ class _Analysis:
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(have) and self.ne_name not in ("stark",):
             t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
-            w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent)
+            w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent,
+                                          L.stark_p)
             wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(L.wl, T, self.mass_line) ** 2)
             with np.errstate(invalid="ignore"):
                 w_obs_l = lorentz_from_voigt(L.fwhm, wg)

@@ -63,18 +63,22 @@ class PackageAtomicData:
         return float(self._atomic.element(element).mass_u)
 
     def aki_relative_uncertainty(self, grade) -> float:
-        return float(self._atomic.aki_relative_uncertainty(grade))
+        """Relative *standard* uncertainty of A_ki: the NIST grade bound read as the half-width
+        of a rectangular distribution, bound/√3 (GUM 4.3.7; compquant.atomic convention)."""
+        return float(self._atomic.aki_standard_uncertainty(str(grade)))
 
     def line_list(self) -> pd.DataFrame:
-        return self._atomic.load_line_list()
+        if not hasattr(self, "_lines"):
+            self._lines = self._atomic.load_line_list()
+        return self._lines
 
 
-#: NIST ASD accuracy grades → relative uncertainty of A_ki (NIST ASD "Accuracy" legend,
-#: from memory of the NIST Atomic Spectra Database documentation, verify)
-NIST_GRADE_U = {
+#: NIST ASD accuracy grades → relative *standard* uncertainty of A_ki: the grade's bound
+#: (NIST ASD "Accuracy" legend, from memory of the NIST Atomic Spectra Database
+#: documentation, verify) divided by √3 (rectangular distribution, GUM 4.3.7)
+NIST_GRADE_U = {g: b / 3**0.5 for g, b in {
     "AAA": 0.003, "AA": 0.01, "A+": 0.02, "A": 0.03, "B+": 0.07, "B": 0.10,
-    "C+": 0.18, "C": 0.25, "D+": 0.40, "D": 0.50, "E": 0.50,
-}
+    "C+": 0.18, "C": 0.25, "D+": 0.40, "D": 0.50, "E": 1.00}.items()}
 
 
 class TableAtomicData:

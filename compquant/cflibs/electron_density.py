@@ -89,6 +89,7 @@ class StarkLinesNe:
         self.w_ref = L.stark_w[self.idx]
         self.ne_ref = L.stark_ne[self.idx]
         self.t_ref = L.stark_t[self.idx]
+        self.p = L.stark_p[self.idx]
         self.alpha = settings.stark_t_exponent
         self.u_w = settings.u_rel_fwhm
         self.u_par = settings.stark_param_u_rel
@@ -108,7 +109,7 @@ class StarkLinesNe:
         wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(self.wl[None, :], T[:, None], self.mass[None, :]) ** 2)
         wl = np.maximum(lorentz_from_voigt(fwhm, wg), 1e-9) * self.sa_fac
         t_ref = np.where(np.isfinite(self.t_ref), self.t_ref, T[:, None])
-        return ne_stark_linear(wl, wref, self.ne_ref, T[:, None], t_ref, self.alpha)
+        return ne_stark_linear(wl, wref, self.ne_ref, T[:, None], t_ref, self.alpha, self.p)
 
     def _u_each(self, T):
         T = float(np.ravel(T)[0])
