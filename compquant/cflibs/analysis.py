@@ -498,37 +498,64 @@ class _Analysis:
 
     # -- detection -----------------------------------------------------------------------
     def detection(self, sol):
-        """Per-line SA estimates that do not change the result (docs: detection)."""
+        """Per-line SA estimates that do not change the result, each with a standard
+        uncertainty so that only significant departures are flagged (docs: detection).
+
+        * ``sa_ratio``: intensity ratio to the species' most nearly thin line (smallest
+          λ³ g_k A_ki e^{−E_i/kT} among lines measured to ≤ 10 %) over the optically thin
+          ratio at the fitted T (Sun & Yu 2009); u from both lines' ordinate u;
+        * ``sa_width``: El Sherbini et al. 2005 from the Stark width expected at nₑ (only when
+          nₑ came from another method); u from the width and Stark-parameter accuracy;
+        * ``sa_cog``: curve of growth at the fitted plasma length, counted only when fitting
+          the length lowered χ² by more than 4 (one extra parameter at about 2σ).
+        """
         L = self.L
         T = float(sol.T[0])
         ne = float(sol.ne[0])
-        out = {"sa_ratio": np.full(L.n, np.nan), "sa_width": np.full(L.n, np.nan),
-               "sa_cog": np.full(L.n, np.nan), "ref_line": [""] * L.n}
+        nan = np.full(L.n, np.nan)
+        out = {"sa_ratio": nan.copy(), "u_sa_ratio": nan.copy(), "sa_width": nan.copy(),
+               "u_sa_width": nan.copy(), "sa_cog": nan.copy(), "u_sa_cog": np.zeros(L.n),
+               "ref_line": [""] * L.n}
         corrected_i = L.intensity / self.sa / np.exp(self.ln_zeta)
         proxy = L.wl**3 * L.gA * np.exp(-L.ei / (K_B_EV * T))
+        rel_i = np.where(L.intensity > 0, L.u_intensity / L.intensity, np.inf)
         for sp in sorted(set(L.species)):
             idx = np.flatnonzero(L.species == sp)
             if len(idx) < 2:
                 continue
-            r = int(np.argmin(proxy[idx]))
+            good = idx[rel_i[idx] <= 0.1]
+            pool = good if len(good) else idx
+            ref = pool[int(np.argmin(proxy[pool]))]
+            r = int(np.flatnonzero(idx == ref)[0])
             out["sa_ratio"][idx] = sa_reference_line(corrected_i[idx], L.wl[idx], L.gA[idx], L.ek[idx], r, T)
+            out["u_sa_ratio"][idx] = out["sa_ratio"][idx] * np.sqrt(self.u_y[idx] ** 2 + self.u_y[ref] ** 2)
+            out["u_sa_ratio"][ref] = 0.0
             for i in idx:
-                out["ref_line"][i] = str(L.line_id[idx[r]])
+                out["ref_line"][i] = str(L.line_id[ref])
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(have) and self.ne_name not in ("stark",):
             t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
             w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent,
                                           L.stark_p)
             wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(L.wl, T, self.mass_line) ** 2)
-            with np.errstate(invalid="ignore"):
+            with np.errstate(invalid="ignore", divide="ignore"):
                 w_obs_l = lorentz_from_voigt(L.fwhm, wg)
                 est = sa_from_width(np.maximum(w_obs_l, 1e-12), w_thin_l)
-            out["sa_width"] = np.where(have & (w_obs_l > 0), est, np.nan)
+            ok = have & (w_obs_l > 0)
+            out["sa_width"] = np.where(ok, est, np.nan)
+            u_ln_ne = self.ne_est.u_ln(np.array([T])) if self.ne_est is not None else (
+                float(sol.u_ln_ne_fit[0]) if sol.u_ln_ne_fit is not None else 0.0)
+            u_ln_w = math.sqrt(self.s.u_rel_fwhm**2 + self.s.stark_param_u_rel**2 + u_ln_ne**2)
+            out["u_sa_width"] = np.where(ok, est * u_ln_w / abs(EL_SHERBINI_ALPHA), np.nan)
         cog = getattr(self, "sa_detect_cog", None)
-        if self.s.self_absorption in ("curve_of_growth", "columnar"):
+        info = self.sa_info
+        if self.s.self_absorption == "detect" and cog is not None:
+            if info.get("chi2_thin", 0.0) - info.get("chi2_fitted", 0.0) <= 4.0:
+                cog = None  # fitting a plasma length does not improve the fit significantly
+        if self.s.self_absorption in ("curve_of_growth", "columnar", "reference_line"):
             cog = self.sa
         if cog is not None:
-            out["sa_cog"] = cog
+            out["sa_cog"] = np.asarray(cog, dtype=float)
         return out
 
     # -- Monte Carlo -------------------------------------------------------------------
@@ -691,9 +718,12 @@ class _Analysis:
         rows = []
         for i in range(L.n):
             fl = []
-            sa_est = [v for v in (det["sa_cog"][i], det["sa_ratio"][i], det["sa_width"][i]) if np.isfinite(v)]
-            if self.sa[i] < self.s.sa_flag_below or (sa_est and min(sa_est) < self.s.sa_flag_below
-                                                     and self.s.self_absorption in ("detect", "none")):
+            lim = self.s.sa_flag_below
+            significant = [v for v, u in ((det["sa_cog"][i], det["u_sa_cog"][i]),
+                                          (det["sa_ratio"][i], det["u_sa_ratio"][i]),
+                                          (det["sa_width"][i], det["u_sa_width"][i]))
+                           if np.isfinite(v) and v < lim and (1.0 - v) > 2.0 * (u if np.isfinite(u) else 0.0)]
+            if self.sa[i] < lim or (significant and self.s.self_absorption in ("detect", "none")):
                 fl.append("self_absorbed")
             if self.sa[i] <= self.s.sa_min_factor + 1e-12:
                 fl.append("sa_correction_capped")
@@ -709,7 +739,8 @@ class _Analysis:
                 "one_point_factor": float(math.exp(self.ln_zeta[i])),
                 "tau0": None if self.tau is None else float(self.tau[i]),
                 "sa_cog": float(det["sa_cog"][i]), "sa_ratio": float(det["sa_ratio"][i]),
-                "sa_width": float(det["sa_width"][i]), "reference_line": det["ref_line"][i],
+                "u_sa_ratio": float(det["u_sa_ratio"][i]), "sa_width": float(det["sa_width"][i]),
+                "u_sa_width": float(det["u_sa_width"][i]), "reference_line": det["ref_line"][i],
                 "flags": fl,
             })
         return rows
