@@ -714,7 +714,12 @@ class _Analysis:
     def _line_rows(self, sol, det):
         L = self.L
         X, y = sol.X, sol.y[0]
-        yfit = X @ sol.fit.beta[0]
+        beta = sol.fit.beta[0]
+        yfit = X @ beta
+        if sol.ne_from_fit and self.s.fit == "saha-boltzmann":
+            # report the Saha–Boltzmann ordinate y* (ion rows with the fitted ln nₑ put back)
+            y = y - X[:, -1] * beta[-1]
+            yfit = X[:, :-1] @ beta[:-1]
         rows = []
         for i in range(L.n):
             fl = []
