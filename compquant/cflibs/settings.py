@@ -49,6 +49,7 @@ class CFSettings:
     fixed: dict[str, float] = field(default_factory=dict)
     missing: str = "omit"
     mc_draws: int = 300
+    mc_include_aki: bool = True
     seed: int = 20261201
     lte_f: float = 0.1
     lte_gaunt: float = 0.2
@@ -136,7 +137,8 @@ def _check(key, val, where):
         if not isinstance(val, str):
             raise MethodError("expected text", where=where, fix="quote the value")
         return val
-    if key in ("scale_by_chi2", "include_ion3", "ionisation_lowering", "sa_width_from_measured"):
+    if key in ("scale_by_chi2", "include_ion3", "ionisation_lowering", "sa_width_from_measured",
+               "mc_include_aki"):
         if not isinstance(val, bool):
             raise MethodError("expected true or false", where=where, fix="write true or false")
         return val
