@@ -584,12 +584,14 @@ class _Analysis:
                 if len(idx) < 2:
                     continue
                 r = idx[np.argmin(proxy[idx])]
-                refs[sp] = str(L.line_id[r])
+                refs[str(sp)] = str(L.line_id[r])
                 new[idx] = sa_reference_line(L.intensity[idx] / np.exp(self.ln_zeta[idx]), L.wl[idx],
                                              L.gA[idx], L.ek[idx], int(np.flatnonzero(idx == r)[0]), T)
             new = np.clip(new, self.s.sa_min_factor, 1.0)
-            # T from the reference lines (one per species, nearly thin) and single-line species
-            is_ref = np.isin(L.line_id, list(refs.values())) | ~np.isin(L.species, list(refs))
+            # T from the nearly thin lines: the reference lines, lines whose SA relative to them is
+            # ≥ sa_flag_below, and single-line species
+            is_ref = (np.isin(L.line_id, list(refs.values())) | ~np.isin(L.species, list(refs))
+                      | (new >= self.s.sa_flag_below))
             ne_name, ne_est = ne_pick(new)
             try:
                 sub = Model(L.subset(is_ref), self.atomic, self.s)
