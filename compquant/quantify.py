@@ -208,21 +208,15 @@ def quantify(
                 lt, st = apply_drift(lt, coefs, st)
                 drift.update(applied=True, coefficients=coefs, uncorrected_lines=missing)
             drift["reason"] = (
-                "no setup samples in the run"
-                if not coefs
-                else f"setup measurements missing for {', '.join(missing)}"
+                "no setup samples in the run" if not coefs else f"setup measurements missing for {', '.join(missing)}"
             )
             run_flags.append("no_drift_correction" if not coefs else "partial_drift_correction")
     curves = calibration.curves
     els = list(curves)
     resp = {}
     for el, c in curves.items():
-        resp[el] = sample_responses(
-            lt, c.line_id, c.internal_standard, st, where=f"quantify {el} ({c.line_id})"
-        )
-    sample_ids = [
-        s for s in dict.fromkeys(map(str, lt["sample_id"])) if smap.get(s, ("unknown", None))[0] != "setup"
-    ]
+        resp[el] = sample_responses(lt, c.line_id, c.internal_standard, st, where=f"quantify {el} ({c.line_id})")
+    sample_ids = [s for s in dict.fromkeys(map(str, lt["sample_id"])) if smap.get(s, ("unknown", None))[0] != "setup"]
     coverage = cfg.get("coverage", "k2")
     rows, not_reported, matrix_fraction = [], [], {}
     for sid in sample_ids:
@@ -267,9 +261,7 @@ def quantify(
         if not good:
             continue
         bases = np.array([curves[el].basis for el in good])
-        w, uw, wm, uwm, _ = _closure(
-            good, [preds[el]["x"] for el in good], [preds[el]["u"] for el in good], bases
-        )
+        w, uw, wm, uwm, _ = _closure(good, [preds[el]["x"] for el in good], [preds[el]["u"] for el in good], bases)
         if np.any(bases == "ratio"):
             matrix_fraction[sid] = (wm, uwm)
         for i, el in enumerate(good):
@@ -313,9 +305,7 @@ def quantify(
     results = pd.DataFrame(rows, columns=RESULT_COLUMNS)
     # check samples
     certs = (
-        certified_table(standards)
-        if standards is not None
-        else certified_table(pd.DataFrame(calibration.standards))
+        certified_table(standards) if standards is not None else certified_table(pd.DataFrame(calibration.standards))
     )
     spt = cfg.get("sigma_pt_rel")
     chk = []

@@ -34,9 +34,7 @@ def standard_map(line_table: pd.DataFrame, samples: pd.DataFrame | None) -> dict
     if samples is not None and len(samples):
         for r in samples.itertuples():
             ref = getattr(r, "standard_ref", None)
-            ref = (
-                None if ref is None or (isinstance(ref, float) and math.isnan(ref)) or ref == "" else str(ref)
-            )
+            ref = None if ref is None or (isinstance(ref, float) and math.isnan(ref)) or ref == "" else str(ref)
             out[str(r.sample_id)] = (str(r.role), ref)
     for sid, role in line_table[["sample_id", "role"]].drop_duplicates().itertuples(index=False):
         if str(sid) not in out:
@@ -77,9 +75,7 @@ def content(cert: dict, element: str, basis: str, matrix: str | None):
     return r, math.sqrt((u / wm) ** 2 + (w * um / wm**2) ** 2)
 
 
-def _curve_for(
-    a: AnalyteConfig, cfg: CalibrationConfig, line_table, shot_table, smap, certs, where: str
-) -> Curve:
+def _curve_for(a: AnalyteConfig, cfg: CalibrationConfig, line_table, shot_table, smap, certs, where: str) -> Curve:
     resp = sample_responses(line_table, a.line, a.internal_standard, shot_table, where=where)
     excl = {e["standard"]: e["reason"] for e in a.exclude}
     recs = []
@@ -134,9 +130,7 @@ def _curve_for(
     if blanks:
         means = [float(resp.loc[b, "y"]) for b in blanks if np.isfinite(resp.loc[b, "y"])]
         shots = resp.loc[blanks[0], "shots"]
-        bl = blank_sd(
-            means if len(means) >= 3 else None, shots if shots is not None and len(means) < 3 else None
-        )
+        bl = blank_sd(means if len(means) >= 3 else None, shots if shots is not None and len(means) < 3 else None)
     return curve_from_records(a, recs, outlier_alpha=cfg.outlier_alpha, blank=bl, where=where)
 
 
@@ -222,9 +216,7 @@ def curve_from_records(
     ux = np.array([r["u_x"] for r in use])
     kstat = uy**2 + (slope * ux) ** 2
     for el, _ in interf:
-        kstat = (
-            kstat + (np.asarray(d_dxi(fit.terms, beta, x, el)) * np.array([r[f"uxi:{el}"] for r in use])) ** 2
-        )
+        kstat = kstat + (np.asarray(d_dxi(fit.terms, beta, x, el)) * np.array([r[f"uxi:{el}"] for r in use])) ** 2
     scale_stated = float(np.mean(fit.w * kstat))
     scale_used = max(fit.scale, scale_stated)
     # scatter of a new sample about the curve beyond its own repeatability: the
@@ -373,8 +365,7 @@ def calibrate(
     refs = {ref for role, ref in smap.values() if ref}
     std_rows = standards[standards["standard_id"].isin(refs)].to_dict(orient="records")
     lines = sorted(
-        {c.line_id for c in curves.values()}
-        | {c.internal_standard for c in curves.values() if c.internal_standard}
+        {c.line_id for c in curves.values()} | {c.internal_standard for c in curves.values() if c.internal_standard}
     )
     return Calibration(
         method_id=method_id,

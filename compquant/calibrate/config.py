@@ -198,9 +198,7 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
                     fix='set internal_standard = "Cu I 510.554" in [calibration]',
                 )
             if not matrix:
-                raise MethodError(
-                    "basis 'ratio' needs matrix_element", where=base, fix='set matrix_element = "Cu"'
-                )
+                raise MethodError("basis 'ratio' needs matrix_element", where=base, fix='set matrix_element = "Cu"')
             if el == matrix:
                 raise MethodError(
                     "the matrix element cannot be an analyte of a ratio calibration",
@@ -215,9 +213,7 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
                 fix='write exclude = [{standard = "CRM-1", reason = "..."}]',
             )
         for e in excl:
-            check_keys(
-                e, {"standard", "reason"}, f"{w} exclude", MethodError, required={"standard", "reason"}
-            )
+            check_keys(e, {"standard", "reason"}, f"{w} exclude", MethodError, required={"standard", "reason"})
         intf = a.get("interferences", [])
         if not isinstance(intf, list):
             raise MethodError(
@@ -226,9 +222,7 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
                 fix='write interferences = [{element = "Fe", kind = "additive"}]',
             )
         for e in intf:
-            check_keys(
-                e, {"element", "kind"}, f"{w} interferences", MethodError, required={"element", "kind"}
-            )
+            check_keys(e, {"element", "kind"}, f"{w} interferences", MethodError, required={"element", "kind"})
             _element(e["element"], f"{w} interferences", "element")
             _choice(e["kind"], ("additive", "multiplicative"), f"{w} interferences", "kind")
             if e["element"] == el:
@@ -262,9 +256,7 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
         check_keys(ps, _PLS, w, MethodError, required={"analytes"})
         pa = ps["analytes"]
         if not isinstance(pa, list) or not pa:
-            raise MethodError(
-                "'analytes' must be a non-empty list of elements", where=w, fix='write analytes = ["Sn"]'
-            )
+            raise MethodError("'analytes' must be a non-empty list of elements", where=w, fix='write analytes = ["Sn"]')
         for el in pa:
             _element(el, w, "analytes")
         hw = ps.get("half_width_nm", 0.3)

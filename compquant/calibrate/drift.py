@@ -48,10 +48,7 @@ def drift_coefficients(reference: dict, line_table: pd.DataFrame) -> dict:
     ``line_table``.  Lines without a usable setup measurement are absent.
     """
     sub = line_table[line_table["role"] == "setup"]
-    meas = {
-        (str(r.sample_id), str(r.line_id)): (float(r.intensity), float(r.u_intensity))
-        for r in sub.itertuples()
-    }
+    meas = {(str(r.sample_id), str(r.line_id)): (float(r.intensity), float(r.u_intensity)) for r in sub.itertuples()}
     lines = sorted({lid for s in reference.values() for lid in s})
     out = {}
     for lid in lines:

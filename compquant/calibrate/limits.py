@@ -25,6 +25,7 @@ non-centrality parameter of the non-central t distribution for which
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -55,6 +56,7 @@ def blank_sd(blank_means=None, blank_shots=None) -> tuple[float, str, int] | Non
     return None
 
 
+@functools.lru_cache(maxsize=256)
 def noncentral_delta(nu: int, alpha: float = 0.05, beta: float = 0.05) -> float:
     """Non-centrality ``delta`` with ``P(T'(nu, delta) <= t_{1-alpha}(nu)) = beta``."""
     tc = stats.t.ppf(1 - alpha, nu)

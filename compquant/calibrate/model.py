@@ -104,9 +104,7 @@ class Curve:
         try:
             x0, dydx = invert(self.terms, beta, y0, xi)
         except CalibrationError as exc:
-            raise CalibrationError(
-                exc.what, where=where or f"{self.element} ({self.line_id})", fix=exc.fix
-            ) from None
+            raise CalibrationError(exc.what, where=where or f"{self.element} ({self.line_id})", fix=exc.fix) from None
         g = design_matrix(self.terms, np.array([x0]), xi)[0]
         C = np.asarray(self.cov, float)
         v_fit = float(g @ C @ g)
@@ -166,9 +164,7 @@ class Curve:
         return X @ self._beta(), t * np.sqrt(v_fit + self.sigma_m2 / w0 + u0**2)
 
     def slope0(self) -> float:
-        return float(
-            slope_at(self.terms, self._beta(), 0.0, {it["element"]: 0.0 for it in self.interferences})
-        )
+        return float(slope_at(self.terms, self._beta(), 0.0, {it["element"]: 0.0 for it in self.interferences}))
 
 
 @dataclass
@@ -198,9 +194,7 @@ class Calibration:
 
     def __post_init__(self):
         if not self.created_utc:
-            self.created_utc = (
-                datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
-            )
+            self.created_utc = datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
 
     @property
     def calibration_id(self) -> str:

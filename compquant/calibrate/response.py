@@ -56,6 +56,8 @@ def sample_responses(
             )
     shots_a = shots_s = None
     if shot_table is not None and len(shot_table):
+        if "accepted" in shot_table:
+            shot_table = shot_table[shot_table["accepted"].astype(bool)]
         sa = shot_table[shot_table["line_id"] == line_id]
         shots_a = {k: g.sort_values("shot") for k, g in sa.groupby("sample_id", sort=False)}
         if internal_standard:

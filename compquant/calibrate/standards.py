@@ -50,9 +50,7 @@ TABLE_COLUMNS = ("standard_id", "matrix", "element", "mass_fraction", "u", "U", 
 def _num(text: str, where: str, column: str, *, positive: bool = False) -> float:
     s = (text or "").strip()
     if s == "":
-        raise StandardsError(
-            f"missing value in column '{column}'", where=where, fix="fill in the value (a number)"
-        )
+        raise StandardsError(f"missing value in column '{column}'", where=where, fix="fill in the value (a number)")
     try:
         v = float(s)
     except ValueError:
@@ -104,9 +102,7 @@ def _record(raw: dict, where_row: str, seen: dict) -> dict:
         )
     unit = str(raw.get("unit", "") or "").strip()
     if unit not in UNIT_FACTORS:
-        raise StandardsError(
-            f"bad unit '{unit}' in column 'unit'", where=where_row, fix="use one of %, mg/kg, g/g"
-        )
+        raise StandardsError(f"bad unit '{unit}' in column 'unit'", where=where_row, fix="use one of %, mg/kg, g/g")
     f = UNIT_FACTORS[unit]
     value = _num(raw.get("mass_fraction"), where_row, "mass_fraction") * f
     U = _num(raw.get("expanded_uncertainty"), where_row, "expanded_uncertainty") * f
@@ -147,9 +143,7 @@ def _load_csv(p: Path) -> list[dict]:
     rows = list(reader)
     # skip leading comment/blank lines, remember physical line numbers
     numbered = [(i + 1, r) for i, r in enumerate(rows)]
-    numbered = [
-        (n, r) for n, r in numbered if r and any(c.strip() for c in r) and not r[0].lstrip().startswith("#")
-    ]
+    numbered = [(n, r) for n, r in numbered if r and any(c.strip() for c in r) and not r[0].lstrip().startswith("#")]
     if not numbered or len(lines) == 0:
         raise StandardsError(
             "empty standards file",
@@ -173,9 +167,7 @@ def _load_csv(p: Path) -> list[dict]:
             fix=f"the allowed columns are {','.join(COLUMNS)}",
         )
     if len(set(header)) != len(header):
-        raise StandardsError(
-            "a column name appears twice", where=f"{p}: line {hline}", fix="name each column once"
-        )
+        raise StandardsError("a column name appears twice", where=f"{p}: line {hline}", fix="name each column once")
     out, seen = [], {}
     for n, r in numbered[1:]:
         where = f"{p}: line {n}"
@@ -266,9 +258,7 @@ def load_standards(path) -> pd.DataFrame:
     else:
         recs = _load_csv(p)
     if not recs:
-        raise StandardsError(
-            "no certified values in file", where=str(p), fix="add one row per standard and element"
-        )
+        raise StandardsError("no certified values in file", where=str(p), fix="add one row per standard and element")
     df = pd.DataFrame.from_records(recs, columns=list(TABLE_COLUMNS))
     df.attrs["path"] = str(p)
     df.attrs["sha256"] = sha256_file(p)
