@@ -34,6 +34,9 @@ a 2-D array for the noise estimate):
    pixel and its neighbours, ``δ = ½ (y₋ − y₊) / (y₋ − 2y₀ + y₊)`` pixels,
    interpolated onto the wavelength axis (common practice; exact for a
    parabola, better than a quarter pixel for a sampled Gaussian of FWHM ≥ 2 px).
+   For broad peaks (FWHM ≥ 5 pixels, e.g. Stark-broadened hydrogen lines) the
+   centroid of the part above the half-prominence level is used instead, since
+   three noisy pixels on a flat top fix the centre poorly (common practice).
 
 5. **Area.**  The Gaussian-equivalent integrated intensity
    ``A = h · FWHM · √(π / (4 ln 2)) = 1.0645 · h · FWHM`` (exact for a
@@ -162,7 +165,7 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
     if idx.size == 0:
         return pd.DataFrame({c: pd.Series(dtype=float) for c in PEAK_COLUMNS}).astype(
             {"peak_id": int, "pixel": int})
-    widths, _, left_ips, right_ips = peak_widths(y, idx, rel_height=0.5)
+    widths, width_heights, left_ips, right_ips = peak_widths(y, idx, rel_height=0.5)
     left_nm = _axis_interp(wl, left_ips)
     right_nm = _axis_interp(wl, right_ips)
     fwhm = right_nm - left_nm
@@ -176,6 +179,23 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
     delta = np.clip(delta, -0.5, 0.5)
     centre = _axis_interp(wl, i0 + delta)
     height = y0 - 0.25 * (ym - yp) * delta
+    # broad peaks (FWHM >= 5 px): centroid of the part above half height, which uses every pixel of
+    # the core instead of three noisy ones (common practice)
+    broad = widths >= 5.0
+    if broad.any():
+        lo = np.ceil(left_ips[broad]).astype(int)
+        hi = np.floor(right_ips[broad]).astype(int)
+        ref = width_heights[broad]
+        pix = np.arange(wl.size, dtype=float)
+        c0 = np.concatenate([[0.0], np.cumsum(y)])
+        c1 = np.concatenate([[0.0], np.cumsum(y * pix)])
+        p1 = np.concatenate([[0.0], np.cumsum(pix)])
+        n = (hi - lo + 1).astype(float)
+        wsum = (c0[hi + 1] - c0[lo]) - ref * n
+        w1 = (c1[hi + 1] - c1[lo]) - ref * (p1[hi + 1] - p1[lo])
+        ok_c = wsum > 0
+        cpix = np.where(ok_c, w1 / np.where(ok_c, wsum, 1.0), 0.0)
+        centre[broad] = np.where(ok_c, _axis_interp(wl, cpix), centre[broad])
 
     if min_width_nm is not None:
         wmin = np.full(idx.size, float(min_width_nm))
