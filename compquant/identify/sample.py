@@ -9,7 +9,7 @@ from __future__ import annotations
 import pandas as pd
 
 from compquant.errors import InputError
-from compquant.identify.core import Identification, element_summary, identify_spectrum
+from compquant.identify.core import Identification, identify_spectrum
 from compquant.identify.interference import interference_map
 from compquant.identify.settings import IdentifySettings, settings_from_method
 
