@@ -32,7 +32,7 @@ def render_table(table: pd.DataFrame) -> str:
         shown = t[t["status"] != "not detected"]
         rows = [("element", "ion", "status", "score", "found/expected", "best lines")]
         for r in shown.itertuples(index=False):
-            rows.append((r.element, "I" * int(r.ion) if r.ion <= 3 else str(r.ion), r.status, f"{r.score:.2f}",
+            rows.append((r.element, r.species.split(" ", 1)[1], r.status, f"{r.score:.2f}",
                          f"{r.lines_found:g}/{r.lines_expected}", r.best_lines or "-"))
         w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
         out.append(f"sample {sid} (T = {t['temperature_k'].iloc[0]:.0f} K"

@@ -459,7 +459,7 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
     if st.noise_window and st.noise_window < wl.size:
         sig = local_noise_sigma(y_f, window=int(st.noise_window) | 1)
     else:
-        sig = np.full(wl.size, float(noise_sigma(y_f)))
+        sig = np.full(wl.size, float(noise_sigma(y_f, clip=3.5)))
     if not np.any(sig > 0):
         raise DataQualityError("the spectrum has no noise at all (constant or synthetic without noise)",
                                where="identification",
@@ -469,7 +469,7 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
     source = "method [identify]" if st.resolving_power else ("run instrument" if resolving_power else "")
     if peaks is None:
         peaks = find_peaks(wl, y_f, k_sigma=st.k_sigma, resolving_power=R, min_width_frac=st.min_width_frac,
-                           noise=sig)
+                           noise=sig, noise_window=st.noise_window or None)
     peaks = peaks.sort_values("centre_nm").reset_index(drop=True)
     if not R:
         R = estimate_resolving_power(peaks)

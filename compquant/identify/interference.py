@@ -13,7 +13,7 @@ strength ``r``, :mod:`compquant.identify.core`) times the height fraction of a
 Gaussian profile of FWHM ``w`` (instrument FWHM, or the observed width when
 wider) at the separation.  Its *relative contribution* is ``c`` divided by the
 analyte's own signal at the line (observed share of the matched peak, else the
-analyte's predicted intensity, else none).  The analyte line is *overlapped*
+predicted intensity when the analyte species is detected or possible, else none).  The analyte line is *overlapped*
 when the relative contribution reaches ``interference_fraction`` (5 %
 default), or, with no analyte signal to compare, when the interferer alone is
 predicted at ≥ ``interference_snr`` σ.
@@ -97,6 +97,7 @@ def _species_width(ident: Identification, species: np.ndarray, lam: np.ndarray) 
 def _analyte_signal(ident: Identification, lines: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """Analyte signal at each analyte line: observed (shared) area of its group, else predicted; and the group."""
     g = ident.lines
+    status = ident.species.set_index("species")["status"]
     sig = np.zeros(len(lines))
     grp = np.full(len(lines), -1)
     for i, row in enumerate(lines.itertuples()):
@@ -109,9 +110,9 @@ def _analyte_signal(ident: Identification, lines: pd.DataFrame) -> tuple[np.ndar
             continue
         r = sp_rows.iloc[j]
         grp[i] = int(r.name)
-        if r["observed_area"] > 0:
+        if r["observed_area"] > 0 and r["peak_id"] >= 0:
             sig[i] = float(r["observed_area"])
-        elif r["predicted_area"] > 0:
+        elif r["predicted_area"] > 0 and status.get(r["species"], "not detected") != "not detected":
             sig[i] = float(r["predicted_area"])
     return sig, grp
 

@@ -17,9 +17,13 @@ a 2-D array for the noise estimate):
    practice).  Emission noise grows with the signal (shot noise), so by
    default σ is estimated *locally* as the same statistic in a running window
    of ``noise_window`` pixels (scipy.ndimage.median_filter), floored at the
-   global value.
+   global value.  Differences larger than 3.5 local σ (the steep flanks of
+   strong lines) are excluded in a second pass (set half to 0, half to +∞, which
+   leaves the running median that of the other differences), so that strong
+   lines do not inflate the noise around them.
 
-2. **Threshold.**  A peak is kept when its height above zero and its
+2. **Threshold.**  A peak is kept when its height above the local level
+   (running median over ``noise_window`` pixels, :func:`local_level`) and its
    prominence both exceed ``k_sigma · σ(λ)`` at its position (``k_sigma`` = 5
    by default; a 3σ criterion is the usual decision limit, 5σ keeps the
    number of noise peaks per spectrum well below one for a few thousand
@@ -38,7 +42,7 @@ a 2-D array for the noise estimate):
    centroid of the part above the half-prominence level is used instead, since
    three noisy pixels on a flat top fix the centre poorly (common practice).
 
-5. **Area.**  The Gaussian-equivalent integrated intensity
+5. **Area.**  Heights are above the local level.  The Gaussian-equivalent integrated intensity
    ``A = h · FWHM · √(π / (4 ln 2)) = 1.0645 · h · FWHM`` (exact for a
    Gaussian profile; the instrument profile is close to Gaussian for grating
    spectrometers — common practice).  SNR is ``h / σ(λ)``.
@@ -63,22 +67,30 @@ PEAK_COLUMNS = ["peak_id", "pixel", "centre_nm", "height", "area", "fwhm_nm", "s
                 "left_nm", "right_nm"]
 
 
-def noise_sigma(y: np.ndarray) -> np.ndarray:
+def noise_sigma(y: np.ndarray, clip: float | None = None) -> np.ndarray:
     """Global robust noise σ of each spectrum (row) from the MAD of its first difference.
 
     ``σ = 1.4826 · median(|d − median d|) / √2`` with ``d`` the first difference
     along the last axis (Rousseeuw & Croux 1993 for the factor; differencing is
     common practice).  Returns an array of shape ``y.shape[:-1]`` (a 0-d array for
-    a 1-D input).  NaN pixels are ignored.
+    a 1-D input).  NaN pixels are ignored.  With ``clip`` (e.g. 3.5) one pass of
+    clipping drops the differences further than ``clip`` robust σ from the median
+    (the flanks of strong lines) and recomputes the MAD of the rest.
     """
     y = np.asarray(y, dtype=float)
     d = np.diff(y, axis=-1)
     med = np.nanmedian(d, axis=-1, keepdims=True)
-    mad = np.nanmedian(np.abs(d - med), axis=-1)
-    return MAD_TO_SIGMA * mad / np.sqrt(2.0)
+    mad = np.nanmedian(np.abs(d - med), axis=-1, keepdims=True)
+    if clip:
+        # one clipping pass: drop differences beyond `clip` robust sigma (line flanks)
+        dev = np.abs(d - med)
+        d = np.where(dev <= clip * MAD_TO_SIGMA * mad, d, np.nan)
+        med = np.nanmedian(d, axis=-1, keepdims=True)
+        mad = np.nanmedian(np.abs(d - med), axis=-1, keepdims=True)
+    return MAD_TO_SIGMA * mad[..., 0] / np.sqrt(2.0)
 
 
-def local_noise_sigma(y: np.ndarray, window: int = 101) -> np.ndarray:
+def local_noise_sigma(y: np.ndarray, window: int = 201) -> np.ndarray:
     """Running robust noise σ of each pixel (same statistic as :func:`noise_sigma` in a window).
 
     ``y`` is 1-D or 2-D ``(n_spectra, n_pixels)``; the result has the shape of ``y``.
@@ -94,10 +106,35 @@ def local_noise_sigma(y: np.ndarray, window: int = 101) -> np.ndarray:
     d = np.diff(y2, axis=-1)
     d = np.concatenate([d, d[:, -1:]], axis=-1)  # one value per pixel
     d = np.nan_to_num(d - np.nanmedian(d, axis=-1, keepdims=True))
-    loc = MAD_TO_SIGMA * median_filter(np.abs(d), size=(1, int(window)), mode="reflect") / np.sqrt(2.0)
-    glob = noise_sigma(y2)[:, None]
-    out = np.maximum(loc, glob)
+    ad = np.abs(d)
+    med = median_filter(ad, size=(1, int(window)), mode="reflect")
+    # second pass: the steep flanks of strong lines are not noise.  Differences above 3.5 local
+    # sigma (of the difference) are set alternately to 0 and to +inf, so that they fall equally
+    # below and above the median and the running median becomes that of the other differences
+    flank = ad > 3.5 * MAD_TO_SIGMA * med
+    if flank.any():
+        parity = (np.arange(ad.shape[-1]) % 2 == 0)[None, :]
+        ad = np.where(flank, np.where(parity, 0.0, np.inf), ad)
+        med = median_filter(ad, size=(1, int(window)), mode="reflect")
+        med = np.where(np.isfinite(med), med, np.nan)
+    loc = MAD_TO_SIGMA * med / np.sqrt(2.0)
+    glob = noise_sigma(y2, clip=3.5)[:, None]
+    out = np.fmax(loc, glob)
     return out if two_d else out[0]
+
+
+def local_level(y: np.ndarray, window: int | None = 201) -> np.ndarray:
+    """Residual background level of a baseline-corrected spectrum: running median over ``window``
+    pixels (global median when ``window`` is None).
+
+    Baseline estimators that follow the lower envelope (SNIP, asymmetric least squares) leave
+    the noise sitting a few σ above zero; peak heights are measured above this level so that the
+    height threshold keeps its meaning (common practice).
+    """
+    y = np.asarray(y, dtype=float)
+    if window is None or window >= y.size:
+        return np.full(y.shape, float(np.median(y)))
+    return median_filter(y, size=int(window) | 1, mode="reflect")
 
 
 def _axis_interp(wavelength: np.ndarray, pix: np.ndarray) -> np.ndarray:
@@ -107,7 +144,7 @@ def _axis_interp(wavelength: np.ndarray, pix: np.ndarray) -> np.ndarray:
 
 def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: float | None = None,
                min_width_nm: float | None = None, min_width_frac: float = 0.5,
-               noise: float | np.ndarray | None = None, noise_window: int | None = 101) -> pd.DataFrame:
+               noise: float | np.ndarray | None = None, noise_window: int | None = 201) -> pd.DataFrame:
     """Find emission peaks in one baseline-free spectrum.
 
     Parameters
@@ -146,7 +183,7 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
     y = np.where(finite, y, 0.0)
     if noise is None:
         if noise_window is None or noise_window >= wl.size:
-            sig = np.full(wl.size, float(noise_sigma(y)))
+            sig = np.full(wl.size, float(noise_sigma(y, clip=3.5)))
         else:
             sig = local_noise_sigma(y, window=int(noise_window) | 1)
     else:
@@ -157,8 +194,9 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
         sig = np.full(wl.size, max(float(np.ptp(y)) * 1e-9, floor))
     sig = np.where(sig > floor, sig, np.nanmax(sig))
     thr = k_sigma * sig
+    level = local_level(y, noise_window)
 
-    idx, props = _scipy_find_peaks(y, height=thr, prominence=float(np.min(thr)))
+    idx, props = _scipy_find_peaks(y, height=level + thr, prominence=float(np.min(thr)))
     if idx.size:
         keep = props["prominences"] >= thr[idx]
         idx = idx[keep]
@@ -178,7 +216,7 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
         delta = np.where(den < 0, 0.5 * (ym - yp) / den, 0.0)
     delta = np.clip(delta, -0.5, 0.5)
     centre = _axis_interp(wl, i0 + delta)
-    height = y0 - 0.25 * (ym - yp) * delta
+    height = y0 - 0.25 * (ym - yp) * delta - level[i0]
     # broad peaks (FWHM >= 5 px): centroid of the part above half height, which uses every pixel of
     # the core instead of three noisy ones (common practice)
     broad = widths >= 5.0
@@ -220,4 +258,5 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
     })
 
 
-__all__ = ["GAUSS_AREA_FACTOR", "MAD_TO_SIGMA", "PEAK_COLUMNS", "find_peaks", "local_noise_sigma", "noise_sigma"]
+__all__ = ["GAUSS_AREA_FACTOR", "MAD_TO_SIGMA", "PEAK_COLUMNS", "find_peaks", "local_level", "local_noise_sigma",
+           "noise_sigma"]

@@ -31,16 +31,16 @@ def plot_identification(ident: Identification, output, *, title: str | None = No
     g = g[g["species"].isin(active["species"]) & g["found"] & (g["peak_id"] >= 0)]
     pk = ident.peaks
     heights = pk["height"].to_numpy() if len(pk) else np.zeros(0)
-    g = g.assign(_h=heights[g["peak_id"].to_numpy()] if len(g) else [])
-    g = g.sort_values("_h", ascending=False).head(max_labels)
+    g = g.assign(peak_height=heights[g["peak_id"].to_numpy()] if len(g) else [])
+    g = g.sort_values("peak_height", ascending=False).head(max_labels)
     cycle = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     elements = list(dict.fromkeys(active["element"]))
     colour = {el: cycle[i % len(cycle)] for i, el in enumerate(elements)}
     ymax = float(np.nanmax(y)) if y.size else 1.0
     for r in g.itertuples():
         c = colour[r.element]
-        ax.plot([r.peak_centre_nm], [r._h], marker="v", ms=4, color=c, zorder=3)
-        ax.annotate(f"{r.species} {r.wavelength_nm:.2f}", (r.peak_centre_nm, r._h), xytext=(0, 6),
+        ax.plot([r.peak_centre_nm], [r.peak_height], marker="v", ms=4, color=c, zorder=3)
+        ax.annotate(f"{r.species} {r.wavelength_nm:.2f}", (r.peak_centre_nm, r.peak_height), xytext=(0, 6),
                     textcoords="offset points", rotation=90, fontsize=6.5, color=c, ha="center", va="bottom")
     un = ident.unexplained_peaks
     for r in un.itertuples():

@@ -49,7 +49,7 @@ class IdentifySettings:
     """
 
     k_sigma: float = 5.0
-    noise_window: int = 101
+    noise_window: int = 201
     min_width_frac: float = 0.5
     resolving_power: float | None = None
     wavelength_uncertainty_nm: float = 0.005
@@ -123,7 +123,7 @@ def settings_from_dict(table: dict | None, where: str = "[identify]") -> Identif
                 raise MethodError(f"expected a whole number, got {val!r}", where=w, fix="give a positive integer")
             if key == "noise_window" and 0 < num < 15:
                 raise MethodError("the noise window must be 0 (global) or at least 15 pixels", where=w,
-                                  fix="use e.g. 101")
+                                  fix="use e.g. 201")
             out[key] = int(num)
             continue
         if key in _POSITIVE and num <= 0:
