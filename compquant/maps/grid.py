@@ -28,14 +28,26 @@ _ROUND_MM = 1e-6  # positions are compared after rounding to 1 nm
 
 
 def _step_of(values: np.ndarray) -> float | None:
+    """Grid step along one axis from jittered coordinates.
+
+    Distinct coordinates are grouped into rows (columns): a gap larger than half the typical
+    large gap starts a new group. The step is the median spacing of the group centres, so
+    stage jitter up to about a quarter step does not change it.
+    """
     u = np.unique(np.round(values / _ROUND_MM) * _ROUND_MM)
     if u.size < 2:
         return None
     d = np.diff(u)
-    d = d[d > 10 * _ROUND_MM]
-    if d.size == 0:
+    if d.max() <= 10 * _ROUND_MM:
         return None
-    return float(np.median(d))
+    typical = float(np.median(d[d > 0.4 * d.max()]))
+    breaks = np.flatnonzero(d > 0.5 * typical)
+    starts = np.concatenate([[0], breaks + 1])
+    stops = np.concatenate([breaks + 1, [u.size]])
+    centres = np.array([u[a:b].mean() for a, b in zip(starts, stops)])
+    if centres.size < 2:
+        return None
+    return float(np.median(np.diff(centres)))
 
 
 @dataclass(frozen=True)

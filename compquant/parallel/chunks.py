@@ -78,12 +78,10 @@ def chunk_ranges(n_shots: int, chunk_shots: int, align: int = 1) -> list[tuple[i
     return [(a, min(n_shots, a + size)) for a in range(0, n_shots, size)]
 
 
-def _run_chunk(rng: tuple[int, int], path: str, fn: Callable, context: Any, raw: bool) -> Any:
-    """Task body: read shots ``rng`` of the run at ``path`` here and call ``fn`` on them."""
-    run = worker_run(path)
+def _run_chunk(rng: tuple[int, int], path: str, fn: Callable, context: Any) -> Any:
+    """Task body: open the run at ``path`` here (cached) and call ``fn(run, start, stop, context)``."""
     start, stop = rng
-    spectra = run.read_raw(start, stop) if raw else run.read_shots(start, stop)
-    return fn(spectra, context, start, stop)
+    return fn(worker_run(path), start, stop, context)
 
 
 def map_chunks(
@@ -94,10 +92,12 @@ def map_chunks(
     *,
     chunk_shots: int,
     ranges: list[tuple[int, int]] | None = None,
-    raw: bool = False,
     max_in_flight: int | None = None,
 ) -> Iterator:
-    """Yield ``fn(spectra, context, start, stop)`` for every chunk of the run, in shot order.
+    """Yield ``fn(run, start, stop, context)`` for every chunk of the run, in shot order.
+
+    ``fn`` reads what it needs from the worker-local read-only ``run`` (``run.read_raw(start,
+    stop)``, ``run.shots`` ...) and calls the step functions on it.
 
     Parameters
     ----------
@@ -107,14 +107,13 @@ def map_chunks(
     context : read-only inputs of ``fn`` (method, dark reference ...); broadcast once
     chunk_shots : shots per task (the same value as the serial path, so chunks match)
     ranges : explicit ``(start, stop)`` list instead of ``chunk_shots``
-    raw : hand ``fn`` the stored dtype (e.g. uint16) instead of float64
     """
     path = str(Path(run_path).resolve())
     if ranges is None:
         run = worker_run(path)
         ranges = chunk_ranges(run.n_shots, chunk_shots)
     ctx = executor.broadcast(context)
-    yield from executor.map_ordered(_run_chunk, ranges, path, fn, ctx, raw, max_in_flight=max_in_flight)
+    yield from executor.map_ordered(_run_chunk, ranges, path, fn, ctx, max_in_flight=max_in_flight)
 
 
 def spectra_array(run_path: str | os.PathLike, chunk_shots: int | None = None, raw: bool = True):
