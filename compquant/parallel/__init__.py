@@ -12,6 +12,7 @@ There is no second implementation of any step here: the tasks call the functions
 
 from compquant.parallel.chunks import chunk_ranges, close_worker_runs, map_chunks, spectra_array, worker_run
 from compquant.parallel.cluster import DaskExecutor, SerialExecutor, open_executor
+from compquant.parallel.lines import chunk_mapper, measure_run_on, measure_runs, process_chunk_task
 from compquant.parallel.runs import RunError, RunOutcome, collect_runs, map_runs
 
 __all__ = [
@@ -19,12 +20,16 @@ __all__ = [
     "RunError",
     "RunOutcome",
     "SerialExecutor",
+    "chunk_mapper",
     "chunk_ranges",
     "close_worker_runs",
     "collect_runs",
     "map_chunks",
     "map_runs",
+    "measure_run_on",
+    "measure_runs",
     "open_executor",
+    "process_chunk_task",
     "spectra_array",
     "worker_run",
 ]
