@@ -304,6 +304,24 @@ def write_certificate_json(cert: Certificate, path) -> None:
     write_text_atomic(path, certificate_json(cert))
 
 
+def read_certificate_json(path) -> dict:
+    """Read a certificate JSON file and check its schema name and version (plain data back)."""
+    from compquant.errors import InputError
+    from compquant.fileio import require_file
+
+    p = require_file(path, "certificate JSON")
+    try:
+        doc = json.loads(p.read_text("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputError(f"not a JSON file ({exc})", where=str(p), fix="give a certificate .json file") from exc
+    if not isinstance(doc, dict) or doc.get("schema") != SCHEMA_NAME:
+        raise InputError("not a compquant certificate", where=str(p), fix="give a certificate .json file")
+    if doc.get("schema_version") != SCHEMA_VERSION:
+        raise InputError(f"certificate schema version {doc.get('schema_version')!r} is not supported",
+                         where=str(p), fix=f"this compquant reads version {SCHEMA_VERSION}")
+    return doc
+
+
 def load_schema() -> dict:
     """The JSON Schema (draft 2020-12) of certificate version 1, from package data."""
     text = resources.files("compquant").joinpath("data/schemas/certificate-v1.schema.json").read_text("utf-8")
@@ -320,4 +338,5 @@ __all__ = [
     "certificate_json",
     "write_certificate_json",
     "load_schema",
+    "read_certificate_json",
 ]
