@@ -301,7 +301,7 @@ def test_failed_lte_criterion_marks_not_valid_and_shows_plasma():
     for item in (
         "Plasma conditions",
         "9100 K ± 400 K",
-        "1.2e+17",
+        "1.2×10¹⁷", "2.90×10¹⁶",
         "McWhirter",
         "NOT MET",
         "LTE criterion not met: Boltzmann plot linearity",

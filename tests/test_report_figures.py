@@ -33,8 +33,17 @@ def test_spectrum_png_is_repeatable():
 
 
 def test_calibration_png():
-    png = calibration_png([1, 2, 3], [0.1, 0.2, 0.3], fit_x=[0, 4], fit_y=[0, 0.4], y_err=[0.01] * 3,
-                          labels=["S1", "S2", "S3"], sample_x=2.5, sample_y=0.25, sample_xerr=0.1)
+    png = calibration_png(
+        [1, 2, 3],
+        [0.1, 0.2, 0.3],
+        fit_x=[0, 4],
+        fit_y=[0, 0.4],
+        y_err=[0.01] * 3,
+        labels=["S1", "S2", "S3"],
+        sample_x=2.5,
+        sample_y=0.25,
+        sample_xerr=0.1,
+    )
     assert png.startswith(PNG)
     with pytest.raises(ValueError):
         calibration_png([1, 2], [1])
@@ -63,3 +72,12 @@ def test_read_certificate_json_checks_schema(tmp_path):
     p.write_text(json.dumps({"schema": "other"}))
     with pytest.raises(InputError, match="not a compquant certificate"):
         read_certificate_json(p)
+
+
+def test_docs_safety_page_matches_the_code():
+    from pathlib import Path
+
+    from compquant.report.safety import safety_markdown
+
+    page = (Path(__file__).resolve().parents[1] / "docs" / "safety.md").read_text("utf-8")
+    assert page.split("\n", 1)[1] == safety_markdown(1)

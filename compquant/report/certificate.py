@@ -47,8 +47,7 @@ LOD_STATEMENT = (
 
 #: plain-word meanings of result and line flags
 FLAG_TEXT = {
-    "below_lod": "not detected: the signal is below the limit of detection; the LOD is given instead "
-    "of a value",
+    "below_lod": "not detected: the signal is below the limit of detection; the LOD is given instead of a value",
     "below_loq": "detected but below the limit of quantification: the value is indicative and has a "
     "large relative uncertainty",
     "above_range": "above the calibrated range: the value is extrapolated beyond the highest standard "
@@ -66,8 +65,7 @@ FLAG_TEXT = {
     "lte_not_met": "a criterion for local thermodynamic equilibrium was not met; calibration-free "
     "values are not reliable",
     "no_uncertainty": "no expanded uncertainty could be evaluated for this value",
-    "closure": "calibration-free value: concentrations are normalised so that all quantified "
-    "elements sum to 100 %",
+    "closure": "calibration-free value: concentrations are normalised so that all quantified elements sum to 100 %",
 }
 
 
@@ -76,9 +74,7 @@ def flag_text(flag: str) -> str:
     return FLAG_TEXT.get(flag, f"flag '{flag}' set by the analysis (see the method documentation)")
 
 
-def certificate_number(
-    prefix: str, run_sha256: str, sample_id: str, issue_date: str, revision: int = 0
-) -> str:
+def certificate_number(prefix: str, run_sha256: str, sample_id: str, issue_date: str, revision: int = 0) -> str:
     """Deterministic unique certificate number (see module docstring)."""
     key = "\n".join([prefix, run_sha256.lower(), sample_id, issue_date]).encode("utf-8", "surrogatepass")
     h = hashlib.sha256(key).hexdigest()[:10].upper()
@@ -409,9 +405,7 @@ class Certificate:
         for r in self.results:
             for name in ("mass_fraction", "U", "lod", "loq"):
                 v = getattr(r, name)
-                if v is not None and not (
-                    isinstance(v, (int, float)) and (math.isfinite(v) or math.isnan(v))
-                ):
+                if v is not None and not (isinstance(v, (int, float)) and (math.isfinite(v) or math.isnan(v))):
                     raise ValueError(f"result {r.element}.{name} is not a number")
             if r.unit and r.unit not in UNIT_FACTOR:
                 raise ValueError(f"result {r.element} has unknown unit {r.unit!r}")

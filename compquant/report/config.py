@@ -73,9 +73,7 @@ def _text(table: dict, key: str, where: str, required: bool = False, default: st
 def _lines(table: dict, key: str, where: str, required: bool = False) -> list[str]:
     if key not in table:
         if required:
-            raise ConfigError(
-                f"missing required key {key!r}", where=where, fix=f'add {key} = ["line 1", "line 2"]'
-            )
+            raise ConfigError(f"missing required key {key!r}", where=where, fix=f'add {key} = ["line 1", "line 2"]')
         return []
     v = table[key]
     if isinstance(v, str):
@@ -102,9 +100,7 @@ def _date(table: dict, key: str, where: str) -> str:
             return _dt.date.fromisoformat(v).isoformat()
         except ValueError:
             pass
-    raise ConfigError(
-        f"{key!r} must be a date YYYY-MM-DD", where=f"{where}.{key}", fix=f"write {key} = 2026-12-01"
-    )
+    raise ConfigError(f"{key!r} must be a date YYYY-MM-DD", where=f"{where}.{key}", fix=f"write {key} = 2026-12-01")
 
 
 @dataclass
@@ -246,9 +242,7 @@ def load_specification(path) -> Specification:
         check_keys(t, {"min", "max", "unit", "remainder"}, wl)
         remainder = t.get("remainder", False)
         if not isinstance(remainder, bool):
-            raise ConfigError(
-                "remainder must be true or false", where=f"{wl}.remainder", fix="write remainder = true"
-            )
+            raise ConfigError("remainder must be true or false", where=f"{wl}.remainder", fix="write remainder = true")
         if remainder:
             if "min" in t or "max" in t:
                 raise ConfigError(

@@ -169,8 +169,7 @@ def decide(
         if out == NOT_DECIDED:
             return Decision(
                 out,
-                "below the limit of detection, but the LOD is not below the "
-                "upper limit / above the lower limit",
+                "below the limit of detection, but the LOD is not below the upper limit / above the lower limit",
             )
         if out == FAIL:
             return Decision(out, "below the limit of detection, which is below the minimum")

@@ -277,9 +277,7 @@ def certificate_to_dict(cert: Certificate) -> dict:
         "quality_control": qc_d,
         "conformity": conf,
         "detected_not_quantified": list(cert.detected_not_quantified),
-        "figures": [
-            {"title": f.title, "caption": f.caption, "kind": f.kind, "path": f.path} for f in cert.figures
-        ],
+        "figures": [{"title": f.title, "caption": f.caption, "kind": f.kind, "path": f.path} for f in cert.figures],
         "safety_notes": [{"title": n.title, "text": n.text} for n in cert.safety_notes],
         "provenance": {
             "software": pv.software,
@@ -287,9 +285,7 @@ def certificate_to_dict(cert: Certificate) -> dict:
             "issued_at": pv.issued_at,
             "run_sha256": pv.run_sha256,
             "files": [{"role": f.role, "name": f.name, "sha256": f.sha256} for f in pv.files],
-            "parameters": {
-                k: (_num(v) if isinstance(v, (int, float)) else v) for k, v in pv.parameters.items()
-            },
+            "parameters": {k: (_num(v) if isinstance(v, (int, float)) else v) for k, v in pv.parameters.items()},
         },
     }
 
@@ -317,8 +313,11 @@ def read_certificate_json(path) -> dict:
     if not isinstance(doc, dict) or doc.get("schema") != SCHEMA_NAME:
         raise InputError("not a compquant certificate", where=str(p), fix="give a certificate .json file")
     if doc.get("schema_version") != SCHEMA_VERSION:
-        raise InputError(f"certificate schema version {doc.get('schema_version')!r} is not supported",
-                         where=str(p), fix=f"this compquant reads version {SCHEMA_VERSION}")
+        raise InputError(
+            f"certificate schema version {doc.get('schema_version')!r} is not supported",
+            where=str(p),
+            fix=f"this compquant reads version {SCHEMA_VERSION}",
+        )
     return doc
 
 

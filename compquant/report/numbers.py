@@ -82,7 +82,26 @@ def value_and_u(value: float, U: float | None, sig_u: int = 2, sig_value_no_u: i
     return round_sig(value, sig_value_no_u), ""
 
 
+_SUP = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
+
+
+def sci_text(x: float, sig: int = 2) -> str:
+    """Number in scientific notation with a superscript exponent, e.g. ``1.2×10¹⁷``.
+
+    Plain digits are kept for 0.001 <= |x| < 100000.
+    """
+    if not finite(x):
+        return ""
+    if x == 0 or 1e-3 <= abs(x) < 1e5:
+        return round_sig(x, sig) if x != 0 else "0"
+    q = exponent_of_sig(x, sig)
+    e = q + sig - 1
+    mant = round_to_exponent(x / 10.0**e, -(sig - 1))
+    return f"{mant}×10{str(e).translate(_SUP)}"
+
+
 __all__ = [
+    "sci_text",
     "UNIT_FACTOR",
     "PERCENT_THRESHOLD",
     "finite",

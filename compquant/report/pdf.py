@@ -33,7 +33,7 @@ from compquant.report.certificate import (
 )
 from compquant.report.conformity import OUTCOME_TEXT, RULES
 from compquant.report.jsonform import RELEASE_BLOCKED
-from compquant.report.numbers import UNIT_FACTOR, choose_unit, finite, round_sig, value_and_u
+from compquant.report.numbers import UNIT_FACTOR, choose_unit, finite, round_sig, sci_text, value_and_u
 
 _FONTS: dict[str, str] | None = None
 
@@ -107,9 +107,7 @@ def _styles():
         "cellb": ParagraphStyle("cq-cellb", parent=base, fontName=f["bold"], fontSize=7.8, leading=9.6),
         "cellr": ParagraphStyle("cq-cellr", parent=base, fontSize=7.8, leading=9.6, alignment=TA_RIGHT),
         "mono": ParagraphStyle("cq-mono", parent=base, fontName=f["mono"], fontSize=6.2, leading=7.8),
-        "h1": ParagraphStyle(
-            "cq-h1", parent=base, fontName=f["bold"], fontSize=15, leading=18, alignment=TA_RIGHT
-        ),
+        "h1": ParagraphStyle("cq-h1", parent=base, fontName=f["bold"], fontSize=15, leading=18, alignment=TA_RIGHT),
         "lab": ParagraphStyle("cq-lab", parent=base, fontName=f["bold"], fontSize=11.5, leading=14),
         "h2": ParagraphStyle(
             "cq-h2",
@@ -506,7 +504,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                     "Result",
                 ],
                 crows,
-                [16, 14, 6, 7, 9, 7, 10, 7, 7, 7, 10],
+                [15, 13, 5, 7, 9, 7, 12, 7, 7, 7, 9],
                 right_cols=(4, 5, 6, 7, 8, 9),
             )
         )
@@ -606,8 +604,8 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
         tv, tu = value_and_u(pl.temperature_K, pl.U_temperature_K)
         prow = [("Excitation temperature T", f"{E(tv)} K" + (f" ± {E(tu)} K (U, k = 2)" if tu else ""))]
         if finite(pl.electron_density_cm3):
-            nv = f"{pl.electron_density_cm3:.3g}"
-            nu = f" ± {pl.U_electron_density_cm3:.2g}" if finite(pl.U_electron_density_cm3) else ""
+            nv = sci_text(pl.electron_density_cm3, 2)
+            nu = f" ± {sci_text(pl.U_electron_density_cm3, 2)}" if finite(pl.U_electron_density_cm3) else ""
             prow.append(("Electron density nₑ", E(f"{nv}{nu} cm⁻³") + (" (U, k = 2)" if nu else "")))
         if pl.method:
             prow.append(("Diagnostics", E(pl.method)))
@@ -618,8 +616,8 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                 [
                     c.name,
                     c.criterion,
-                    f"{_fmt(c.value, 3)} {c.unit}".strip(),
-                    f"{_fmt(c.limit, 3)} {c.unit}".strip(),
+                    f"{sci_text(c.value, 3)} {c.unit}".strip(),
+                    f"{sci_text(c.limit, 3)} {c.unit}".strip(),
                     "met" if c.passed else "NOT MET",
                 ]
                 for c in pl.lte_checks
@@ -628,7 +626,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                 grid_table(
                     ["Check", "Criterion", "Value", "Limit", "Result"],
                     rows,
-                    [20, 40, 14, 14, 12],
+                    [18, 34, 17, 17, 10],
                     right_cols=(2, 3),
                 )
             )
