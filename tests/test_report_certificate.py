@@ -416,3 +416,22 @@ def test_safety_notes_cover_the_hazards_and_defer():
     plain = safety_plain(width=60)
     assert max(len(line) for line in plain.splitlines()) <= 60
     assert md.count("- **") == len(SAFETY_NOTES)
+
+
+def test_student_coverage_factor_is_stated():
+    from scipy import stats
+
+    k = float(stats.t.ppf(0.975, 6))  # reference: Student t, 6 effective degrees of freedom (GUM G.4)
+    c = make_certificate(results=[ResultRow("Cu", 0.58, U=k * 0.002, u=0.002, k=k, lod=1e-4, loq=3e-4)])
+    doc = certificate_to_dict(c)
+    assert "Student t" in doc["statements"]["uncertainty"]
+    data, _ = render_pdf_bytes(c)
+    text = " ".join("\n".join(pdf_pages(data)).split())
+    assert f"(k = {k:.2f})" in text and "Student t" in text and k == pytest.approx(2.447, abs=1e-3)
+
+
+def test_json_reader_round_trip(cert, tmp_path):
+    from compquant.report.jsonform import read_certificate_json
+
+    write_certificate_json(cert, tmp_path / "c.json")
+    assert read_certificate_json(tmp_path / "c.json") == json.loads(certificate_json(cert))

@@ -66,6 +66,12 @@ FLAG_TEXT = {
     "values are not reliable",
     "no_uncertainty": "no expanded uncertainty could be evaluated for this value",
     "closure": "calibration-free value: concentrations are normalised so that all quantified elements sum to 100 %",
+    "interference_corrected": "the value is corrected for a spectral interference from another element",
+    "check_failed": "a check sample of this run failed its acceptance criterion; results are not valid for release",
+    "no_drift_correction": "no drift standardisation: the run has no usable setup samples",
+    "partial_drift_correction": "drift standardisation was possible for only some lines",
+    "by_difference": "matrix element obtained by difference from 100 % (closure), not measured directly",
+    "not_reported": "the element could not be quantified in this sample (see remarks)",
 }
 
 
@@ -82,6 +88,18 @@ def certificate_number(prefix: str, run_sha256: str, sample_id: str, issue_date:
     if revision:
         num += f"-R{int(revision)}"
     return num
+
+
+def uncertainty_statement(ks) -> str:
+    """The uncertainty statement for the coverage factors actually used (k = 2 or Student t)."""
+    ks = sorted({round(float(k), 2) for k in ks if k is not None and math.isfinite(float(k))})
+    if not ks or ks == [2.0]:
+        return UNCERTAINTY_STATEMENT
+    return (
+        "U is the expanded uncertainty of measurement, the standard uncertainty multiplied by the coverage "
+        "factor k given for each result (Student t for the effective degrees of freedom, JCGM 100:2008 "
+        "G.4), which corresponds to a coverage probability of approximately 95 %."
+    )
 
 
 @dataclass
@@ -391,6 +409,9 @@ class Certificate:
     def valid_for_release(self) -> bool:
         return not self.release_reasons()
 
+    def coverage_factors(self) -> list[float]:
+        return sorted({float(r.k) for r in self.results if not r.below_lod and finite(r.k)})
+
     def flags_used(self) -> list[str]:
         out: dict[str, None] = {}
         for r in self.results:
@@ -418,6 +439,7 @@ __all__ = [
     "LOD_STATEMENT",
     "FLAG_TEXT",
     "flag_text",
+    "uncertainty_statement",
     "certificate_number",
     "LabInfo",
     "Signatory",

@@ -20,9 +20,9 @@ from compquant.fileio import write_text_atomic
 from compquant.report.certificate import (
     ITEM_ONLY_STATEMENT,
     LOD_STATEMENT,
-    UNCERTAINTY_STATEMENT,
     Certificate,
     flag_text,
+    uncertainty_statement,
 )
 
 SCHEMA_NAME = "compquant-certificate"
@@ -266,7 +266,7 @@ def certificate_to_dict(cert: Certificate) -> dict:
         "results": results,
         "statements": {
             "item_only": ITEM_ONLY_STATEMENT,
-            "uncertainty": UNCERTAINTY_STATEMENT,
+            "uncertainty": uncertainty_statement(cert.coverage_factors()),
             "lod": LOD_STATEMENT,
         },
         "flags_explained": [{"flag": f, "text": flag_text(f)} for f in cert.flags_used()],

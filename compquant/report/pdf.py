@@ -27,9 +27,9 @@ from compquant.fileio import atomic_path
 from compquant.report.certificate import (
     ITEM_ONLY_STATEMENT,
     LOD_STATEMENT,
-    UNCERTAINTY_STATEMENT,
     Certificate,
     flag_text,
+    uncertainty_statement,
 )
 from compquant.report.conformity import OUTCOME_TEXT, RULES
 from compquant.report.jsonform import RELEASE_BLOCKED
@@ -372,6 +372,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     # ---- 3 results --------------------------------------------------------------------------------
     story.append(P("3  Results", "h2"))
     rows = []
+    k_all_2 = cert.coverage_factors() in ([], [2.0])
     for r in cert.results:
         rep = r.reported()
         fl = ", ".join(r.all_flags())
@@ -379,7 +380,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
             [
                 r.element,
                 rep.value,
-                rep.U if rep.U else "–",
+                (rep.U + ("" if k_all_2 or not finite(r.k) else f" (k = {r.k:.2f})")) if rep.U else "–",
                 rep.unit,
                 rep.lod or "–",
                 rep.loq or "–",
@@ -390,7 +391,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     if rows:
         story.append(
             grid_table(
-                ["Element", "Mass fraction", "U (k = 2)", "Unit", "LOD", "LOQ", "Line", "Flags"],
+                ["Element", "Mass fraction", "U (k = 2)" if k_all_2 else "U", "Unit", "LOD", "LOQ", "Line", "Flags"],
                 rows,
                 [11, 14, 12, 8, 10, 10, 17, 20],
                 right_cols=(1, 2, 4, 5),
@@ -399,7 +400,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     else:
         story.append(P("<i>No element was quantified.</i>"))
     story.append(Spacer(1, 3))
-    story.append(P(E(UNCERTAINTY_STATEMENT), "small"))
+    story.append(P(E(uncertainty_statement(cert.coverage_factors())), "small"))
     story.append(P(E(LOD_STATEMENT), "small"))
     if cert.qc.blank:
         story.append(P("Blank standard deviation s_blank: " + E(cert.qc.blank), "small"))
