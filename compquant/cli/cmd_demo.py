@@ -35,7 +35,7 @@ def find_demo_files() -> dict[str, Path]:
         specs = sorted(d.glob("spec-*.toml"))
         lab = d / "lab.toml"
         stds = sorted((root / "standards").glob("demo-*.csv")) + sorted(d.glob("*standards*.csv"))
-        preferred = [p for p in runs if "unknown" in p.name or "lot" in p.name or "analysis" in p.name]
+        preferred = [p for p in runs if "day1" in p.name]  # the calibration-day run holds the standards
         found = {
             "run": (preferred or runs or [None])[0],
             "method": (methods or [None])[0],
