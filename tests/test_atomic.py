@@ -364,7 +364,10 @@ def test_lowering_removes_levels():
 
 
 # (species, T, U, relative tolerance, source)
-_GRAY = "from memory of Gray 2005, The Observation and Analysis of Stellar Photospheres, Table D.2 (log u at theta=1.0)"
+_GRAY = (
+    "from memory of Gray 2005, The Observation and Analysis of Stellar Photospheres, "
+    "Table D.2 (log u at theta=1.0)"
+)
 PARTITION_REFERENCES = [
     ("H I", 5040.0, 10**0.301, 0.01, _GRAY),
     ("Na I", 5040.0, 10**0.31, 0.05, _GRAY),
@@ -411,9 +414,12 @@ def test_user_level_table(tmp_path):
         atomic.load_levels(p)
 
 
-def test_every_upper_level_is_bound():
-    # a bound upper level lies below the ionisation limit (ionisation energies: NIST via mendeleev)
+def test_every_upper_level_is_bound_or_a_known_quasi_bound_level():
+    # upper levels lie below the ionisation limit (ionisation energies: NIST via mendeleev);
+    # known exception: Cu I 3d9 4s 5s levels at 7.74-7.80 eV sit just above the 7.726 eV limit
+    # and still emit sharp lines (from memory of NIST ASD Cu I levels).
     df = atomic.load_line_list()
     ie = np.array([atomic.ionisation_energy(s) for s in df["species"]])
-    bad = df.loc[df["ek_ev"].to_numpy() >= ie, "line_id"].tolist()
-    assert not bad
+    above = df["ek_ev"].to_numpy() >= ie
+    assert set(df.loc[above, "line_id"]) <= {"Cu I 427.511", "Cu I 458.695", "Cu I 465.112"}
+    assert np.all(df["ek_ev"].to_numpy() < ie + 0.1)
