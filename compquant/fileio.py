@@ -19,8 +19,9 @@ import re
 import sys
 import tempfile
 import unicodedata
+from collections.abc import Iterator
 from pathlib import Path
-from typing import IO, Iterator
+from typing import IO
 
 from compquant.errors import ConfigError, InputError, OutputError
 

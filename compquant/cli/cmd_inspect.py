@@ -1,0 +1,69 @@
+"""``compquant inspect RUN``: what a run holds, and what is wrong with it."""
+
+from __future__ import annotations
+
+import json
+
+import click
+
+from compquant.run import Run, summarise_run
+
+
+def _fmt_settings(d: dict) -> str:
+    if not d:
+        return "  (none stated)"
+    return "\n".join(f"  {k}: {v}" for k, v in sorted(d.items()))
+
+
+def render_summary(s: dict) -> str:
+    """Human-readable text of :func:`compquant.run.summarise_run`'s summary."""
+    wl, sp = s["wavelength"], s["spectra"]
+    sat = "not stated" if sp["saturation"] is None else f"{sp['saturation']:g} counts"
+    lines = [
+        f"run: {s['path']}",
+        f"format: {s['format']} v{s['format_version']}, created {s['created']}",
+        "instrument:",
+        _fmt_settings(s["instrument"]),
+        "acquisition:",
+        _fmt_settings(s["acquisition"]),
+        f"wavelength: {wl['min_nm']:.3f} – {wl['max_nm']:.3f} nm ({wl['medium']}), {wl['n_pixels']} pixels, "
+        f"mean step {wl['mean_step_nm']:.4f} nm",
+        f"spectra: {sp['n_shots']} shots, {sp['dtype']}, saturation {sat}",
+        "dark frames: " + ("none" if s["dark"] is None else f"{s['dark']['n_frames']}"),
+        "relative response: " + ("yes" if s["response"] else "no"),
+        "rastered (x, y per shot): " + ("yes" if s["rastered"] else "no"),
+        "",
+        "samples:",
+    ]
+    rows = [("sample", "role", "standard", "shots", "saturated px")]
+    for smp in s["samples"]:
+        rows.append((smp["sample_id"], smp["role"], smp["standard_ref"] or "-", str(smp["n_shots"]),
+                     str(smp["saturated_pixels"])))
+    widths = [max(len(r[i]) for r in rows) for i in range(5)]
+    for r in rows:
+        lines.append("  " + "  ".join(c.ljust(w) if i < 3 else c.rjust(w) for i, (c, w) in
+                                      enumerate(zip(r, widths))))
+    lines.append("")
+    if s["findings"]:
+        lines.append("findings:")
+        for f in s["findings"]:
+            lines.append(f"  {f['level']}: {f['where']}: {f['message']}")
+    else:
+        lines.append("findings: none")
+    return "\n".join(lines)
+
+
+@click.command("inspect")
+@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.option("--json", "as_json", is_flag=True, help="Print the summary as JSON.")
+@click.option("--chunk-shots", default=4096, show_default=True, help="Shots read per chunk while scanning.")
+def command(run_path, as_json, chunk_shots):
+    """Show a run's instrument and acquisition settings, wavelength axis, samples
+    (role, certified-standard reference, shots, saturated pixels) and validation
+    findings. The file is opened read-only."""
+    with Run.open(run_path) as run:
+        summary = summarise_run(run, chunk_shots=chunk_shots)
+    if as_json:
+        click.echo(json.dumps(summary, indent=2, sort_keys=True, default=str))
+    else:
+        click.echo(render_summary(summary))

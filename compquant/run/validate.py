@@ -1,0 +1,165 @@
+"""Validation of a run beyond its structure: data findings and a summary.
+
+:meth:`Run.open` already refuses runs whose *structure* is broken (format
+name or version, missing datasets, shapes, wavelength order, sample table).
+:func:`validate_run` adds what can only be seen in the data, streaming the
+spectra in chunks: NaN or infinite values, negative or all-zero shots,
+saturated pixels per sample, samples without shots, and missing dark frames
+or standards.  Findings are warnings or errors; an error means the run cannot
+give a trustworthy result as it is.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from compquant.errors import CompquantError
+from compquant.run.format import DEFAULT_CHUNK_SHOTS
+from compquant.run.reader import Run
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One validation finding."""
+
+    level: str  # "error" | "warning" | "info"
+    where: str
+    message: str
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def scan_spectra(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> dict:
+    """Stream over all shots once and count, per sample, non-finite values, negative and
+    all-zero shots, and saturated pixels (value >= the run's saturation level).
+
+    Returns a dict of per-sample integer arrays (index = sample row) and run totals.
+    """
+    n_s = len(run.samples)
+    idx_all = run.shots["sample_index"].to_numpy()
+    out = {k: np.zeros(n_s, dtype=np.int64) for k in
+           ("nonfinite_values", "negative_shots", "zero_shots", "saturated_pixels", "saturated_shots")}
+    total_min, total_max = np.inf, -np.inf
+    for start, stop, block in run.iter_chunks(chunk_shots):
+        idx = idx_all[start:stop]
+        finite = np.isfinite(block)
+        nf = (~finite).sum(axis=1)
+        clean = np.where(finite, block, 0.0)
+        neg = (clean < 0).any(axis=1) & (clean.sum(axis=1) < 0)
+        zero = finite.all(axis=1) & (clean == 0).all(axis=1)
+        np.add.at(out["nonfinite_values"], idx, nf)
+        np.add.at(out["negative_shots"], idx, neg.astype(np.int64))
+        np.add.at(out["zero_shots"], idx, zero.astype(np.int64))
+        if run.saturation is not None:
+            sat = (clean >= run.saturation).sum(axis=1)
+            np.add.at(out["saturated_pixels"], idx, sat)
+            np.add.at(out["saturated_shots"], idx, (sat > 0).astype(np.int64))
+        if finite.any():
+            total_min = min(total_min, float(clean[finite].min()))
+            total_max = max(total_max, float(clean[finite].max()))
+    out["min_value"] = total_min if np.isfinite(total_min) else None
+    out["max_value"] = total_max if np.isfinite(total_max) else None
+    return out
+
+
+def validate_open_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> tuple[list[Finding], dict]:
+    """Findings and the scan summary of an already opened run."""
+    where = str(run.path)
+    findings: list[Finding] = []
+    scan = scan_spectra(run, chunk_shots)
+    roles = run.samples["role"].tolist()
+    for i, row in run.samples.iterrows():
+        sid = row["sample_id"]
+        sw = f"{where}: sample {sid!r}"
+        if row["n_shots"] == 0:
+            findings.append(Finding("warning", sw, "has no shots"))
+        elif row["n_shots"] == 1:
+            findings.append(Finding("warning", sw, "has a single shot: uncertainties come from the fit alone"))
+        if scan["nonfinite_values"][i]:
+            findings.append(Finding("error", sw, f"{int(scan['nonfinite_values'][i])} NaN or infinite values "
+                                                 "in its spectra; re-export the run from the instrument"))
+        if scan["zero_shots"][i]:
+            findings.append(Finding("warning", sw, f"{int(scan['zero_shots'][i])} shots are all zero "
+                                                   "(shot QC will reject them)"))
+        if scan["negative_shots"][i]:
+            findings.append(Finding("warning", sw, f"{int(scan['negative_shots'][i])} shots have a negative "
+                                                   "total: is the dark already subtracted twice?"))
+        if scan["saturated_shots"][i]:
+            frac = scan["saturated_shots"][i] / max(1, row["n_shots"])
+            level = "error" if frac == 1.0 and row["n_shots"] > 0 else "warning"
+            findings.append(Finding(level, sw, f"{int(scan['saturated_pixels'][i])} saturated pixels in "
+                                               f"{int(scan['saturated_shots'][i])} of {int(row['n_shots'])} "
+                                               "shots (lines touching them are flagged)"))
+    if run._dark is None:
+        findings.append(Finding("warning", where, "no dark frames: dark subtraction is not possible "
+                                                  "(only baseline removal will act)"))
+    if run.saturation is None:
+        findings.append(Finding("info", where, "no saturation level stated: saturated lines cannot be flagged"))
+    if "standard" not in roles:
+        findings.append(Finding("info", where, "no certified standards in this run: quantify with a saved "
+                                               "calibration or calibration-free"))
+    if "blank" not in roles:
+        findings.append(Finding("info", where, "no blank: LOD will come from the calibration residuals"))
+    return findings, scan
+
+
+def validate_run(path, memory_limit_bytes: int | None = None,
+                 chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> list[Finding]:
+    """Validate a run file; structural problems come back as a single error finding."""
+    try:
+        with Run.open(path, memory_limit_bytes) as run:
+            findings, _ = validate_open_run(run, chunk_shots)
+            return findings
+    except CompquantError as exc:
+        return [Finding("error", exc.where or str(path), exc.what + (f"; {exc.fix}" if exc.fix else ""))]
+
+
+def summarise_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> dict:
+    """A JSON-ready summary of an opened run: settings, axis, samples, saturation, findings."""
+    findings, scan = validate_open_run(run, chunk_shots)
+    samples = []
+    for i, row in run.samples.iterrows():
+        samples.append({
+            "sample_id": row["sample_id"],
+            "role": row["role"],
+            "standard_ref": row["standard_ref"] or None,
+            "description": row["description"],
+            "n_shots": int(row["n_shots"]),
+            "saturated_pixels": int(scan["saturated_pixels"][i]),
+            "saturated_shots": int(scan["saturated_shots"][i]),
+        })
+    dark = run._dark
+    return {
+        "path": str(run.path),
+        "format": run.attrs.get("format"),
+        "format_version": run.format_version,
+        "created": run.attrs.get("created"),
+        "instrument": run.instrument,
+        "acquisition": run.acquisition,
+        "wavelength": {
+            "min_nm": float(run.wavelength[0]),
+            "max_nm": float(run.wavelength[-1]),
+            "n_pixels": run.n_pixels,
+            "medium": run.medium,
+            "mean_step_nm": float(np.mean(np.diff(run.wavelength))),
+        },
+        "spectra": {
+            "n_shots": run.n_shots,
+            "dtype": str(run.spectra_dtype),
+            "saturation": run.saturation,
+            "exposure_s": run.exposure_s,
+            "min_value": scan["min_value"],
+            "max_value": scan["max_value"],
+        },
+        "dark": None if dark is None else {"n_frames": int(dark.shape[0]), "exposure_s": run.dark_exposure_s},
+        "response": run._response is not None,
+        "rastered": run.has_positions,
+        "samples": samples,
+        "findings": [f.to_dict() for f in findings],
+    }
+
+
+__all__ = ["Finding", "scan_spectra", "summarise_run", "validate_open_run", "validate_run"]
