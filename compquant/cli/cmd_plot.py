@@ -1,0 +1,98 @@
+"""``compquant plot RUN --sample ID [--method FILE] -o plot.png``: a sample's mean spectrum."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+import numpy as np
+
+from compquant.errors import OutputError
+from compquant.fileio import atomic_path
+
+
+def plot_sample(run, method, sample_id: str, output, *, measurement=None, title: str | None = None):
+    """Draw the preprocessed mean spectrum of ``sample_id`` with the method's lines marked.
+
+    When ``measurement`` (a :class:`~compquant.lines.LineMeasurement`) is given, each marked
+    line is labelled with its id and flags.  Written atomically as PNG (matplotlib Agg).
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from compquant.lines import mean_spectrum
+
+    wl, mean, info = mean_spectrum(run, method, sample_id)
+    fig, ax = plt.subplots(figsize=(11, 4.5), dpi=110)
+    ax.plot(wl, mean, lw=0.7, color="0.15")
+    ymax = float(np.nanmax(mean)) if mean.size else 1.0
+    flags = {}
+    if measurement is not None:
+        t = measurement.table
+        for r in t[t["sample_id"] == sample_id].itertuples(index=False):
+            flags[r.line_id] = r.flags
+    ids = [ln for ln in method.lines] if method.lines else []
+    for k, ln in enumerate(ids):
+        x = ln.wavelength_nm
+        bad = bool(flags.get(ln.line_id))
+        col = "tab:red" if bad else "tab:blue"
+        ax.axvline(x, color=col, lw=0.6, ls="--", alpha=0.7)
+        lab = ln.label or ln.line_id
+        if flags.get(ln.line_id):
+            lab += f" [{flags[ln.line_id]}]"
+        ax.text(x, ymax * (0.98 - 0.07 * (k % 4)), lab, rotation=90, va="top", ha="right", fontsize=7,
+                color=col)
+    sh = f", shift {info['shift_nm']:+.4f} nm" if info["shift_nm"] else ""
+    ax.set_title(title or f"{sample_id}: mean of {info['n_accepted']} of {info['n_shots']} shots{sh}",
+                 fontsize=10)
+    ax.set_xlabel(f"wavelength / nm ({run.medium})")
+    ax.set_ylabel("intensity (preprocessed, counts)")
+    ax.set_xlim(float(wl[0]), float(wl[-1]))
+    fig.tight_layout()
+    try:
+        with atomic_path(output) as tmp:
+            fig.savefig(tmp, format="png")
+    except OSError as exc:
+        raise OutputError(f"cannot write ({exc.strerror})", where=str(output),
+                          fix="choose a writable output path") from exc
+    finally:
+        plt.close(fig)
+    return Path(output)
+
+
+@click.command("plot")
+@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.option("--sample", "sample_id", required=True, help="Sample id (see 'compquant inspect').")
+@click.option("--method", "method_path", type=click.Path(dir_okay=False), default=None,
+              help="Method file: its preprocessing is applied and its lines are marked and measured.")
+@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
+              help="PNG file [default: <sample>.png, name made safe].")
+def command(run_path, sample_id, method_path, output):
+    """Plot the mean spectrum of one sample's accepted shots (PNG), with the method's lines
+    marked and labelled (red: flagged, e.g. saturated or not found). Without --method the
+    spectrum is only dark- and response-corrected."""
+    from compquant.fileio import safe_filename
+    from compquant.lines import measure_run
+    from compquant.method import load_method
+    from compquant.run import Run
+
+    out = Path(output) if output else Path(f"{safe_filename(sample_id)}.png")
+    with Run.open(run_path) as run:
+        if method_path:
+            method = load_method(method_path)
+            lm = measure_run(run, method)
+        else:
+            method = _no_lines_method()
+            lm = None
+        plot_sample(run, method, sample_id, out, measurement=lm)
+    click.echo(f"wrote {out}")
+
+
+def _no_lines_method():
+    from compquant.method import MeasureConfig, Method, PreprocessConfig
+
+    pre = PreprocessConfig(baseline="none", baseline_params={}, qc=False)
+    return Method(id="plot-default", version="1", technique="other", description="", preprocess=pre,
+                  measure=MeasureConfig(), lines=[], sections={})
