@@ -120,6 +120,17 @@ class LTEState:
         return total
 
 
+#: atomic numbers of the elements that can be fully stripped within max_stage <= 3
+_LIGHT_Z = {"H": 1, "He": 2}
+
+
+def _partition(partition_function, element, stage, t):
+    """U of a species; a bare nucleus (e.g. H II) has U = 1 exactly."""
+    if _LIGHT_Z.get(element) == stage - 1:
+        return np.ones_like(np.asarray(t, dtype=float))
+    return partition_function(species_name(element, stage), t)
+
+
 def stage_fractions(temperature_k, ne_cm3, element: str, *, partition_function: Callable,
                     ionisation_energy: Callable, max_stage: int = 2, lowering: bool = True):
     """Fractions of one element in stages 1..max_stage, plus U and lowering per stage.
@@ -130,7 +141,7 @@ def stage_fractions(temperature_k, ne_cm3, element: str, *, partition_function: 
     t = np.asarray(temperature_k, dtype=float)
     ne = np.asarray(ne_cm3, dtype=float)
     shape = np.broadcast(t, ne).shape
-    u = [np.broadcast_to(np.asarray(partition_function(species_name(element, z), t), float), shape)
+    u = [np.broadcast_to(np.asarray(_partition(partition_function, element, z, t), float), shape)
          for z in range(1, max_stage + 1)]
     ratios = [np.ones(shape)]
     lows = []
