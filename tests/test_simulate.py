@@ -123,6 +123,8 @@ def test_cli_writes_a_readable_run(tmp_path):
         assert run.saturation == 65000
         assert run.dark().shape == (6, 600)
         assert run.response().max() == pytest.approx(1.0)
+        assert not any("temperature" in k or "ne_cm3" in k for k in run.acquisition)  # plasma truth stays out
+        assert run.instrument["resolving_power"] == 3000
         pe = run.shots.pulse_energy_mj.to_numpy()
         assert np.all((pe > 40) & (pe < 80))
     # the truth is not in the run file

@@ -204,19 +204,21 @@ def simulate_run(scenario: Scenario | str | Path, output: str | Path, seed: int 
     start = _parse_time(sc.start_time, f"{sc.path}: scenario.start_time")
     samples = [{"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref,
                 "description": s.description} for s in sc.samples]
-    ins, la, pl = sc.instrument, sc.laser, sc.plasma
+    ins, la = sc.instrument, sc.laser
     instrument = {"name": ins["name"], "spectrometer": ins["spectrometer"], "detector": ins["detector"],
-                  "resolving_power": ins["resolving_power"] if ins["resolving_power"] else "",
-                  "fwhm_nm": ins["fwhm_nm"] if ins["fwhm_nm"] else "",
                   "gain_counts_per_pe": ins["gain_counts_per_pe"], "read_noise_counts": ins["read_noise_counts"],
                   "simulated": True, "simulator": "compquant simulate", "scenario": sc.id,
                   "seed": arr["seed"]}
+    if ins["resolving_power"]:
+        instrument["resolving_power"] = ins["resolving_power"]
+    else:
+        instrument["fwhm_nm"] = ins["fwhm_nm"]
+    # the plasma's true T and n_e stay out of the run, as they would in a measured one
     acquisition = {"technique": "LIBS", "gate_delay_us": ins["gate_delay_us"],
                    "gate_width_us": ins["gate_width_us"], "laser_wavelength_nm": la["wavelength_nm"],
                    "pulse_energy_mj": la["pulse_energy_mj"], "spot_size_um": la["spot_diameter_um"],
                    "repetition_rate_hz": la["repetition_rate_hz"], "atmosphere": ins["atmosphere"],
-                   "accumulations": 1, "start_time": start.isoformat().replace("+00:00", "Z"),
-                   "lab": sc.lab, "nominal_temperature_k": pl["temperature_k"], "nominal_ne_cm3": pl["ne_cm3"]}
+                   "accumulations": 1, "start_time": start.isoformat().replace("+00:00", "Z"), "lab": sc.lab}
     out = write_run(output, arr["wavelength"], arr["spectra"], samples, arr["sample_index"], dark=arr["dark"],
                     response=arr["response"], saturation=arr["saturation"], exposure_s=arr["exposure_s"],
                     dark_exposure_s=arr["exposure_s"] if arr["dark"] is not None else None,
