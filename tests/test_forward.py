@@ -113,7 +113,7 @@ def test_self_absorption_thin_limit_and_planck_limit():
                                 mass_u=[63.546], stark_w_nm=[0.02], stark_ne_ref_cm3=[1e17])
     wl = np.linspace(505.0, 516.0, 1100)
     thin = model(lines, wl=wl, continuum=False, self_absorption=False)
-    slab = model(lines, wl=wl, continuum=False, self_absorption=True)
+    slab = model(lines, wl=wl, continuum=False, self_absorption=True, thin_tau=0.0)  # always the slab path
     comp = {"Cu": 1.0}
     # trace amount of a thin line: slab = thin
     tau = slab.line_centre_optical_depth({"Cu": 1.0}, 1e4, 1e17, 1e-6)
@@ -219,3 +219,19 @@ def test_with_shipped_atomic_data_pure_copper():
     assert not others  # isolated in this window
     assert r[window].sum() == pytest.approx(eps * L, rel=1e-6)
     assert element("Cu").mass_u == pytest.approx(63.546, abs=1e-3)
+
+
+def test_thin_threshold_switches_paths_consistently():
+    # the slab path (thin_tau=0) and the thin path agree for a weak line; a strong one is thick
+    wl = np.linspace(505.0, 516.0, 1100)
+    kw = {"wl": wl, "continuum": False, "nominal_temperature_k": 1e4, "nominal_ne_cm3": 1e17}
+    slab = model(one_line(), self_absorption=True, thin_tau=0.0, **kw)
+    thin = model(one_line(), self_absorption=False, **kw)
+    auto = model(one_line(), self_absorption=True, **kw)
+    st = auto.lte_state({"Cu": 1.0}, np.array([1e4]), np.array([1e17]))
+    assert not auto.thick_lines(st, 1e-9).any()
+    assert auto.thick_lines(st, 5e-3).all()
+    a = slab.radiance({"Cu": 1.0}, 1e4, 1e17, length_mm=1e-6)
+    b = thin.radiance({"Cu": 1.0}, 1e4, 1e17, length_mm=1e-6)
+    assert np.abs(a - b).max() <= 1e-3 * b.max()  # same shape, through either path
+    assert a.sum() == pytest.approx(b.sum(), rel=1e-4)
