@@ -449,3 +449,21 @@ def test_loaders_raise_only_compquant_errors_on_garbage(tmp_path):
                     pass
 
     check()
+
+
+def test_line_weights_agree_with_level_tables():
+    # internal consistency between the two shipped tables (catches typos in g):
+    # a line from the ground level has gi = g(ground); a line level that coincides (within
+    # 2e-4 eV) with a J-resolved level of the level table has that level's 2J+1.
+    df = atomic.load_line_list()
+    bad = []
+    for _, r in df.iterrows():
+        lev = atomic.levels(r["species"])
+        if r["ei_ev"] == 0 and lev.iloc[0]["g"] != r["gi"]:
+            bad.append((r["line_id"], "gi", r["gi"], lev.iloc[0]["g"]))
+        exact = lev[lev["source"] == "from memory of NIST ASD, verify"]
+        for e_col, g_col in (("ei_ev", "gi"), ("ek_ev", "gk")):
+            m = exact[np.abs(exact["energy_ev"] - r[e_col]) < 2e-4]
+            if len(m) and r[g_col] not in set(m["g"]):
+                bad.append((r["line_id"], g_col, r[g_col], list(m["g"])))
+    assert not bad
