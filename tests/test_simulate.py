@@ -270,3 +270,12 @@ def test_demo_runs_regenerate_identically(day):
         np.testing.assert_array_equal(run.shots.pulse_energy_mj.to_numpy(), arr["pulse_energy_mj"])
         assert run.n_shots == sum(s.shots for s in sc.samples)
     assert math.isfinite(arr["spectra"].astype(float).sum())
+
+
+def test_memory_limit_refused_before_allocating(tmp_path, monkeypatch):
+    from compquant.errors import ResourceLimitError
+
+    sc = load_scenario(write_mini(tmp_path))
+    monkeypatch.setenv("COMPQUANT_MEMORY_LIMIT", "10K")
+    with pytest.raises(ResourceLimitError, match="memory"):
+        simulate_arrays(sc)

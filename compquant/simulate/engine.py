@@ -26,8 +26,9 @@ from pathlib import Path
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from compquant.errors import ConfigError
+from compquant.errors import ConfigError, ResourceLimitError
 from compquant.plasma.forward import Instrument, LineSet, SpectrumModel
+from compquant.run import memory_limit_from_env
 from compquant.simulate.detector import Detector
 from compquant.simulate.scenario import Scenario, load_scenario
 
@@ -144,6 +145,15 @@ def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = T
     identical to those of the full run).
     """
     seed = scenario.seed if seed is None else int(seed)
+    n_all = sum(s.shots for s in scenario.samples) + scenario.dark_frames
+    n_pix = scenario.instrument["n_pixels"]
+    # uint16 counts of the whole run + float64 work arrays of the largest sample
+    need = n_all * n_pix * 2 + max(s.shots for s in scenario.samples) * n_pix * 8 * 3
+    limit = memory_limit_from_env()
+    if need > limit:
+        raise ResourceLimitError(f"the run needs about {need / 2**30:.1f} GiB of memory, above the limit of "
+                                 f"{limit / 2**30:.1f} GiB", where=str(scenario.path),
+                                 fix="fewer shots or pixels, or raise COMPQUANT_MEMORY_LIMIT")
     if seed < 0:
         raise ConfigError(f"seed {seed} is negative", where="--seed", fix="use a seed >= 0")
     wl = wavelength_axis(scenario)
