@@ -147,8 +147,9 @@ def test_noise_free_counts_follow_the_detector_equation(tmp_path):
     rad = model.radiance(sc.samples[0].composition, t, ne, length_mm=0.5, scale=f)[0]
     det = detector_of(sc)
     dark_mean = arr["dark"].astype(float).mean(axis=0)
-    signal = (arr["spectra"][0].astype(float) - dark_mean) / (det.gain_counts_per_pe * det.photoelectrons_per_radiance
-                                                              * true_response(sc, wl))
+    signal = (arr["spectra"][0].astype(float) - dark_mean) / (
+        det.gain_counts_per_pe * det.photoelectrons_per_radiance * true_response(sc, wl)
+    )
     # counts are rounded to integers: each pixel within 1 count of gain * S * R * L
     tol = 1.0 / (det.gain_counts_per_pe * det.photoelectrons_per_radiance * true_response(sc, wl))
     assert np.all(np.abs(signal - rad) <= tol + 1e-9)
@@ -241,8 +242,16 @@ def test_standards_truth_consistent_with_certificates():
 
 def test_standards_span_each_analyte_range():
     df = pd.read_csv(STANDARDS)
-    assert set(df.columns) == {"standard_id", "matrix", "element", "mass_fraction", "expanded_uncertainty",
-                               "k", "unit", "source"}
+    assert set(df.columns) == {
+        "standard_id",
+        "matrix",
+        "element",
+        "mass_fraction",
+        "expanded_uncertainty",
+        "k",
+        "unit",
+        "source",
+    }
     assert (df.k == 2).all()
     pct = df[(df.unit == "%") & (df.standard_id != "HRM-CA-108")]
     for el in ("Zn", "Sn", "Pb", "Ni", "Fe", "Al", "Mn"):
