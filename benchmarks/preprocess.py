@@ -175,14 +175,23 @@ def main(argv=None) -> int:
     ap.add_argument("--compression", choices=("gzip", "none"), default="gzip")
     ap.add_argument("--dir", default="/tmp/compquant-bench")
     ap.add_argument("--chunk-shots", type=int, default=4096)
+    ap.add_argument("--repeat", type=int, default=2, help="timed repetitions of (a) and (c); best is kept")
+    ap.add_argument("--make-only", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     comp = None if args.compression == "none" else "gzip"
     folder = Path(args.dir)
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / f"preprocess-{args.shots}x{args.pixels}-{args.compression}.h5"
-    if not path.exists():
-        t0 = time.perf_counter()
+    if args.make_only:
         make_run(path, args.shots, args.pixels, comp)
+        return 0
+    if not path.exists():
+        # a child process makes the run, so this process's peak memory is the pipeline's
+        import subprocess
+
+        t0 = time.perf_counter()
+        subprocess.run([sys.executable, __file__, "--make-only", "--shots", str(args.shots), "--pixels",
+                        str(args.pixels), "--compression", args.compression, "--dir", args.dir], check=True)
         print(f"made {path} ({path.stat().st_size / 1e6:.0f} MB) in {time.perf_counter() - t0:.1f} s")
     else:
         print(f"reusing {path} ({path.stat().st_size / 1e6:.0f} MB)")
@@ -192,11 +201,13 @@ def main(argv=None) -> int:
         method = method_from_dict(bench_method(run.wavelength))
         n = run.n_shots
         floor(run, args.chunk_shots)  # warm the page cache so (a) and (c) read alike
-        t_floor = floor(run, args.chunk_shots)
+        t_floor = min(floor(run, args.chunk_shots) for _ in range(max(1, args.repeat)))
         rss0 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-        t = _clock()
-        lm = measure_run(run, method, chunk_shots=args.chunk_shots)
-        t_a = _since(t)
+        t_a = (float("inf"), float("inf"))
+        for _ in range(max(1, args.repeat)):
+            t = _clock()
+            lm = measure_run(run, method, chunk_shots=args.chunk_shots)
+            t_a = min(t_a, _since(t))
         rss_a = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
         # (b) on a subset of consecutive shots from the middle of the run
         s0 = n // 2

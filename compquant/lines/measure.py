@@ -237,10 +237,25 @@ def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
     return c
 
 
-def _iter_raw(run, chunk: int):
-    for start in range(0, run.n_shots, chunk):
-        stop = min(run.n_shots, start + chunk)
-        yield start, stop, run.read_raw(start, stop)
+def _iter_raw(run, chunk: int, prefetch: bool = True):
+    """Yield ``(start, stop, raw)`` chunks; with ``prefetch`` the next chunk is read by one
+    helper thread while the caller processes the current one (h5py releases the GIL while it
+    reads and decompresses, so reading overlaps computing).  Memory: two chunks of raw counts.
+    """
+    bounds = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
+    if not prefetch or len(bounds) < 2:
+        for a, b in bounds:
+            yield a, b, run.read_raw(a, b)
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="compquant-read") as ex:
+        fut = ex.submit(run.read_raw, *bounds[0])
+        for k, (a, b) in enumerate(bounds):
+            raw = fut.result()
+            if k + 1 < len(bounds):
+                fut = ex.submit(run.read_raw, *bounds[k + 1])
+            yield a, b, raw
 
 
 # --------------------------------------------------------------------------- main driver
