@@ -10,8 +10,7 @@ from compquant.run import write_run
 
 WL = np.linspace(320.0, 340.0, 2001)  # 0.01 nm pixels
 SIGMA, GAMMA = 0.012, 0.008  # nm, Voigt widths (FWHM about 0.041 nm)
-LINES = {"Cu I 324.754": 324.754, "Cu I 327.396": 327.396, "Zn I 330.259": 330.259,
-         "Zn I 334.502": 334.502}
+LINES = {"Cu I 324.754": 324.754, "Cu I 327.396": 327.396, "Zn I 330.259": 330.259, "Zn I 334.502": 334.502}
 
 
 def spectrum(areas: dict[str, float], wl=WL, shift: float = 0.0) -> np.ndarray:
@@ -22,15 +21,30 @@ def spectrum(areas: dict[str, float], wl=WL, shift: float = 0.0) -> np.ndarray:
     return y
 
 
-def make_run(path, samples_spec, *, seed=0, dark_level=100.0, saturation=None, noise=True,
-             shift_by_sample=None, misfire=None, pulse=False):
+def make_run(
+    path,
+    samples_spec,
+    *,
+    seed=0,
+    dark_level=100.0,
+    saturation=None,
+    noise=True,
+    shift_by_sample=None,
+    misfire=None,
+    pulse=False,
+):
     """Write a run; ``samples_spec`` = list of (sample_id, role, n_shots, areas dict)."""
     rng = np.random.default_rng(seed)
     rows, idx, samples = [], [], []
     for s, (sid, role, n, areas) in enumerate(samples_spec):
-        samples.append({"sample_id": sid, "role": role,
-                        "standard_ref": f"REF-{sid}" if role in ("standard", "check") else "",
-                        "description": "invented"})
+        samples.append(
+            {
+                "sample_id": sid,
+                "role": role,
+                "standard_ref": f"REF-{sid}" if role in ("standard", "check") else "",
+                "description": "invented",
+            }
+        )
         d = (shift_by_sample or {}).get(sid, 0.0)
         base = spectrum(areas, shift=d)
         for _ in range(n):
@@ -49,17 +63,18 @@ def make_run(path, samples_spec, *, seed=0, dark_level=100.0, saturation=None, n
     kw = {}
     if pulse:
         kw["pulse_energy_mj"] = rng.normal(50, 1, X.shape[0])
-    write_run(path, WL, X, samples, np.array(idx), dark=dark, saturation=saturation, dtype="float64",
-              **kw)
+    write_run(path, WL, X, samples, np.array(idx), dark=dark, saturation=saturation, dtype="float64", **kw)
     return path
 
 
 def method(lines=None, **sections):
     """A method dict -> Method, window mode by default."""
-    data = {"method": {"id": "test-method", "version": "1", "technique": "LIBS"},
-            "preprocess": {"baseline": {"method": "snip", "max_half_window": 25}},
-            "measure": {"window_nm": 0.3, "side_nm": 0.1},
-            "lines": lines if lines is not None else [{"id": k} for k in LINES]}
+    data = {
+        "method": {"id": "test-method", "version": "1", "technique": "LIBS"},
+        "preprocess": {"baseline": {"method": "snip", "max_half_window": 25}},
+        "measure": {"window_nm": 0.3, "side_nm": 0.1},
+        "lines": lines if lines is not None else [{"id": k} for k in LINES],
+    }
     for k, v in sections.items():
         if isinstance(v, dict) and isinstance(data.get(k), dict):
             merged = dict(data[k])

@@ -25,8 +25,7 @@ def test_interpolant_weights_exact_for_piecewise_linear():
     for a, b in ((1.234, 7.89), (x[10], x[50]), (0.0, 10.0)):
         w = interpolant_integral_weights(x, a, b)
         lo, hi = max(a, x[0]), min(b, x[-1])
-        ref, _ = integrate.quad(lambda t: np.interp(t, x, y), lo, hi, points=x[(x > lo) & (x < hi)],
-                                limit=500)
+        ref, _ = integrate.quad(lambda t: np.interp(t, x, y), lo, hi, points=x[(x > lo) & (x < hi)], limit=500)
         assert w @ y == pytest.approx(ref, rel=1e-9, abs=1e-9)
 
 
@@ -37,12 +36,16 @@ def test_window_integration_matches_quad_on_analytic_shapes(shape):
     wl = np.linspace(400, 401, 2001)  # 0.0005 nm pixels
     c = 400.5
     if shape == "gauss":
+
         def f(t):
             return 800 * np.exp(-0.5 * ((t - c) / 0.01) ** 2)
+
         win, side = 0.12, 0.05  # side windows beyond 6 sigma: line-free
     else:
+
         def f(t):
             return 5.0 * 0.004 / (np.pi * ((t - c) ** 2 + 0.004**2))
+
         win, side = 0.2, 0.05
     bg = 120 + 35 * (wl - 400)
     y = f(wl) + bg
@@ -105,18 +108,35 @@ def test_blended_doublet_below_fwhm_recovered_within_2_percent(sep_fraction):
     a1, a2 = 900.0, 450.0
     y = a1 * voigt_profile(wl - c1, s, g) + a2 * voigt_profile(wl - c2, s, g) + 50
     y = y + rng.normal(0, 0.002 * y.max(), wl.size)
-    fit = fit_group(wl, y, [c1 + 0.002, c2 - 0.002], lo_nm=500.3, hi_nm=500.75, kind="voigt",
-                    shared_width=True, fwhm0=fw * 1.2, max_offset_nm=0.3 * fw)
+    fit = fit_group(
+        wl,
+        y,
+        [c1 + 0.002, c2 - 0.002],
+        lo_nm=500.3,
+        hi_nm=500.75,
+        kind="voigt",
+        shared_width=True,
+        fwhm0=fw * 1.2,
+        max_offset_nm=0.3 * fw,
+    )
     assert fit.areas[0] == pytest.approx(a1, rel=0.02)
     assert fit.areas[1] == pytest.approx(a2, rel=0.02)
 
 
 def test_lorentzian_free_widths():
     wl = np.linspace(600, 601, 1001)
-    y = (300 * 0.01 / np.pi / ((wl - 600.4) ** 2 + 0.01**2)
-         + 200 * 0.02 / np.pi / ((wl - 600.6) ** 2 + 0.02**2) + 10)
-    fit = fit_group(wl, y, [600.4, 600.6], lo_nm=600.1, hi_nm=600.9, kind="lorentzian", shared_width=False,
-                    fwhm0=0.03, max_offset_nm=0.01)
+    y = 300 * 0.01 / np.pi / ((wl - 600.4) ** 2 + 0.01**2) + 200 * 0.02 / np.pi / ((wl - 600.6) ** 2 + 0.02**2) + 10
+    fit = fit_group(
+        wl,
+        y,
+        [600.4, 600.6],
+        lo_nm=600.1,
+        hi_nm=600.9,
+        kind="lorentzian",
+        shared_width=False,
+        fwhm0=0.03,
+        max_offset_nm=0.01,
+    )
     assert fit.areas == pytest.approx([300, 200], rel=1e-4)
     assert fit.fwhm == pytest.approx([0.02, 0.04], rel=1e-4)
     # fixed-shape projection reproduces the areas on the same spectrum

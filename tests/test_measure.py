@@ -16,8 +16,7 @@ AREAS = {"Cu I 324.754": 400.0, "Cu I 327.396": 250.0, "Zn I 330.259": 30.0, "Zn
 @pytest.fixture(scope="module")
 def run_path(tmp_path_factory):
     p = tmp_path_factory.mktemp("runs") / "r.h5"
-    make_run(p, [("STD", "standard", 40, AREAS), ("ONE", "unknown", 1, AREAS),
-                 ("BLK", "blank", 25, {})], misfire=[5])
+    make_run(p, [("STD", "standard", 40, AREAS), ("ONE", "unknown", 1, AREAS), ("BLK", "blank", 25, {})], misfire=[5])
     return p
 
 
@@ -76,9 +75,15 @@ def test_process_chunk_is_pure_and_splits(run_path):
         raw = run.read_raw(0, 20)
     rng = np.random.default_rng(0)
     W = rng.normal(size=(WL.size, 3))
-    plan = ChunkPlan(n_pixels=WL.size, dark=np.full(WL.size, 100.0), baseline="snip",
-                     baseline_params={"max_half_window": 10}, W=W, support=W != 0,
-                     total_weights=np.ones(WL.size))
+    plan = ChunkPlan(
+        n_pixels=WL.size,
+        dark=np.full(WL.size, 100.0),
+        baseline="snip",
+        baseline_params={"max_half_window": 10},
+        W=W,
+        support=W != 0,
+        total_weights=np.ones(WL.size),
+    )
     si = np.zeros(20, dtype=int)
     whole = process_chunk(raw, si, plan)
     parts = [process_chunk(raw[a:b], si[a:b], plan) for a, b in ((0, 9), (9, 20))]
@@ -100,8 +105,12 @@ def test_saturated_line_is_flagged(tmp_path):
 
 def test_all_shots_rejected_names_the_sample(tmp_path):
     p = make_run(tmp_path / "dead.h5", [("GOOD", "standard", 5, AREAS), ("DEAD", "unknown", 5, {})])
-    m = method(preprocess={"baseline": {"method": "snip", "max_half_window": 25},
-                           "qc": {"quantity": "Cu I 324.754", "min_signal": 100.0}})
+    m = method(
+        preprocess={
+            "baseline": {"method": "snip", "max_half_window": 25},
+            "qc": {"quantity": "Cu I 324.754", "min_signal": 100.0},
+        }
+    )
     with Run.open(p) as run, pytest.raises(DataQualityError) as ei:
         measure_run(run, m)
     assert "DEAD" in ei.value.one_line()
@@ -115,11 +124,15 @@ def test_line_outside_range(run_path):
 
 
 def test_shift_found_corrected_and_flagged(tmp_path):
-    p = make_run(tmp_path / "shift.h5", [("A", "standard", 10, AREAS), ("B", "unknown", 10, AREAS)],
-                 shift_by_sample={"B": 0.025})
-    m = method(preprocess={"baseline": {"method": "snip", "max_half_window": 25},
-                           "shift": {"method": "lines", "lines": ["Cu I 324.754", "Cu I 327.396"],
-                                     "flag_nm": 0.01}})
+    p = make_run(
+        tmp_path / "shift.h5", [("A", "standard", 10, AREAS), ("B", "unknown", 10, AREAS)], shift_by_sample={"B": 0.025}
+    )
+    m = method(
+        preprocess={
+            "baseline": {"method": "snip", "max_half_window": 25},
+            "shift": {"method": "lines", "lines": ["Cu I 324.754", "Cu I 327.396"], "flag_nm": 0.01},
+        }
+    )
     with Run.open(p) as run:
         lm = measure_run(run, m)
         wl, mean, info = mean_spectrum(run, m, "B")
@@ -136,8 +149,12 @@ def test_shift_found_corrected_and_flagged(tmp_path):
 
 
 def test_internal_standard_normalisation(run_path):
-    m = method(preprocess={"baseline": {"method": "snip", "max_half_window": 25},
-                           "normalise": {"how": "internal_standard", "line": "Cu I 327.396"}})
+    m = method(
+        preprocess={
+            "baseline": {"method": "snip", "max_half_window": 25},
+            "normalise": {"how": "internal_standard", "line": "Cu I 327.396"},
+        }
+    )
     with Run.open(run_path) as run:
         lm = measure_run(run, m)
     t = lm.table[lm.table.sample_id == "STD"].set_index("line_id")

@@ -76,15 +76,18 @@ def test_good_method(tmp_path):
     assert len(m.settings_digest()) == 64
 
 
-@pytest.mark.parametrize("old,new,key", [
-    ("[calibration]", "[calibrate]", "calibrate"),
-    ("technique = \"LIBS\"", "technique = \"LIBS\"\nauthor = \"x\"", "author"),
-    ("p = 0.02", "p = 0.02\nniter = 3", "niter"),
-    ("statistic = \"mean\"", "statistic = \"mean\"\nscale = 2", "scale"),
-    ("snr_min = 8", "snr_minimum = 8", "snr_minimum"),
-    ("fwhm_nm = 0.05", "fwhm = 0.05", "fwhm"),
-    ("[preprocess.dark]", "[preprocess.darks]", "darks"),
-])
+@pytest.mark.parametrize(
+    "old,new,key",
+    [
+        ("[calibration]", "[calibrate]", "calibrate"),
+        ('technique = "LIBS"', 'technique = "LIBS"\nauthor = "x"', "author"),
+        ("p = 0.02", "p = 0.02\nniter = 3", "niter"),
+        ('statistic = "mean"', 'statistic = "mean"\nscale = 2', "scale"),
+        ("snr_min = 8", "snr_minimum = 8", "snr_minimum"),
+        ("fwhm_nm = 0.05", "fwhm = 0.05", "fwhm"),
+        ("[preprocess.dark]", "[preprocess.darks]", "darks"),
+    ],
+)
 def test_unknown_keys_name_file_and_key(tmp_path, old, new, key):
     text = GOOD.replace(old, new)
     p = _write(tmp_path, text)
@@ -103,9 +106,12 @@ def test_baseline_key_for_other_method(tmp_path):
 
 
 def test_bad_values(tmp_path):
-    for old, new, word in (("k = 4.0", "k = -1", "k"), ("k = 4.0", "k = \"four\"", "k"),
-                           ("how = \"internal_standard\"", "how = \"median\"", "how"),
-                           ("line = \"Cu I 327.396\"", "line = \"Fe I 371.994\"", "Fe I 371.994")):
+    for old, new, word in (
+        ("k = 4.0", "k = -1", "k"),
+        ("k = 4.0", 'k = "four"', "k"),
+        ('how = "internal_standard"', 'how = "median"', "how"),
+        ('line = "Cu I 327.396"', 'line = "Fe I 371.994"', "Fe I 371.994"),
+    ):
         p = _write(tmp_path, GOOD.replace(old, new))
         with pytest.raises(MethodError, match=word):
             load_method(p)

@@ -47,8 +47,15 @@ Y = _spectra()
 REF = Baseline(X)
 
 
-@pytest.mark.parametrize("kw", [{"max_half_window": 20}, {"max_half_window": 12, "decreasing": True},
-                                {"max_half_window": 1}, {"max_half_window": 40}])
+@pytest.mark.parametrize(
+    "kw",
+    [
+        {"max_half_window": 20},
+        {"max_half_window": 12, "decreasing": True},
+        {"max_half_window": 1},
+        {"max_half_window": 40},
+    ],
+)
 def test_snip_equals_pybaselines(kw):
     # reference: pybaselines 1.2 smooth.snip (same edge padding); agreement to round-off (1e-12)
     ref = np.array([REF.snip(y, **kw)[0] for y in Y])
@@ -168,8 +175,11 @@ def test_shift_by_cross_correlation_recovers_known_shift():
 def test_sklearn_pipeline_and_clone():
     rng = np.random.default_rng(0)
     dark = rng.normal(100, 1, (3, X.size))
-    pipe = make_pipeline(DarkSubtraction(dark_frames=dark), ResponseCorrection(response=np.full(X.size, 2.0)),
-                         BaselineRemoval(method="snip", max_half_window=20))
+    pipe = make_pipeline(
+        DarkSubtraction(dark_frames=dark),
+        ResponseCorrection(response=np.full(X.size, 2.0)),
+        BaselineRemoval(method="snip", max_half_window=20),
+    )
     out = pipe.fit_transform(Y + 100)
     expect = (Y + 100 - dark.mean(axis=0)) / 2.0
     expect = expect - snip(expect, 20)

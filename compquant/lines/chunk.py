@@ -166,5 +166,6 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                 else:
                     sums[s] = add
                 counts[s] = counts.get(s, 0) + (ys.shape[0])
-    return ChunkResult(window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total,
-                       background=bg, sums=sums, counts=counts)
+    return ChunkResult(
+        window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total, background=bg, sums=sums, counts=counts
+    )
