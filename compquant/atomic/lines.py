@@ -1,0 +1,291 @@
+"""The emission-line list: loading, validation, selection, Aki accuracy grades.
+
+Columns of a line-list CSV (shipped ``compquant/data/atomic/lines.csv`` or the
+user's own file):
+
+=================== ======= ==========================================================
+column              unit    meaning
+=================== ======= ==========================================================
+element                     chemical symbol, e.g. ``Cu``
+ion                         1 = neutral (``Cu I``), 2 = singly ionised (``Cu II``)
+wavelength_nm       nm      wavelength in standard air (Morton 2000 refractive index)
+aki                 s^-1    transition probability (Einstein A) upper k -> lower i
+aki_grade                   NIST ASD accuracy letter: AAA AA A+ A B+ B C+ C D+ D E
+ei_ev, ek_ev        eV      lower and upper level energies above the ground state
+gi, gk                      statistical weights 2J+1 of the lower and upper levels
+stark_w_nm          nm      Stark FWHM at ``stark_ne_ref_cm3`` and ``stark_t_ref_k``
+stark_shift_nm      nm      Stark shift at the same conditions (+ = to the red)
+stark_ne_ref_cm3    cm^-3   electron density the Stark data refer to
+stark_t_ref_k       K       electron temperature the Stark data refer to
+stark_ne_exponent           optional: width ~ ne**exponent (1 for isolated lines,
+                            ~0.68 for the hydrogen Balmer lines); default 1
+source                      where the row comes from
+=================== ======= ==========================================================
+
+Stark cells are empty where unknown.  :func:`load_line_list` adds ``species``
+(``"Cu I"``) and ``line_id`` (``"Cu I 324.754"``, 3 decimals), the contract of
+``docs/architecture.md``.
+"""
+
+from __future__ import annotations
+
+import functools
+import os
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from compquant.atomic.elements import _data_dir, known_symbols, parse_species, species_name
+from compquant.errors import AtomicDataError, InputError
+
+__all__ = [
+    "LINE_COLUMNS",
+    "AKI_GRADES",
+    "load_line_list",
+    "lines_for",
+    "aki_relative_uncertainty",
+    "aki_standard_uncertainty",
+]
+
+LINE_COLUMNS = (
+    "element",
+    "ion",
+    "wavelength_nm",
+    "aki",
+    "aki_grade",
+    "ei_ev",
+    "ek_ev",
+    "gi",
+    "gk",
+    "stark_w_nm",
+    "stark_shift_nm",
+    "stark_ne_ref_cm3",
+    "stark_t_ref_k",
+    "source",
+)
+OPTIONAL_COLUMNS = ("stark_ne_exponent",)
+_REQUIRED_NUMERIC = ("wavelength_nm", "aki", "ei_ev", "ek_ev", "gi", "gk")
+_OPTIONAL_NUMERIC = ("stark_w_nm", "stark_shift_nm", "stark_ne_ref_cm3", "stark_t_ref_k", "stark_ne_exponent")
+
+#: NIST ASD accuracy grades of transition probabilities -> upper bound of the
+#: relative uncertainty of Aki (from memory of the NIST ASD documentation,
+#: "Accuracy of transition probabilities"; E means "> 50 %").
+AKI_GRADES: dict[str, float] = {
+    "AAA": 0.003,
+    "AA": 0.01,
+    "A+": 0.02,
+    "A": 0.03,
+    "B+": 0.07,
+    "B": 0.10,
+    "C+": 0.18,
+    "C": 0.25,
+    "D+": 0.40,
+    "D": 0.50,
+    "E": 1.00,
+}
+
+
+def aki_relative_uncertainty(grade: str) -> float:
+    """Upper bound of the relative uncertainty of Aki for a NIST accuracy grade.
+
+    AAA <= 0.3 %, AA <= 1 %, A+ <= 2 %, A <= 3 %, B+ <= 7 %, B <= 10 %,
+    C+ <= 18 %, C <= 25 %, D+ <= 40 %, D <= 50 %, E > 50 % (returned as 1.0,
+    i.e. 100 %).  From memory of the NIST ASD documentation.
+
+    This is a *bound*, not a standard uncertainty; see
+    :func:`aki_standard_uncertainty` for the convention compquant uses.
+    """
+    g = str(grade).strip().upper()
+    if g not in AKI_GRADES:
+        raise AtomicDataError(
+            f"unknown Aki accuracy grade {grade!r}",
+            where="aki_grade",
+            fix=f"use one of {' '.join(AKI_GRADES)}",
+        )
+    return AKI_GRADES[g]
+
+
+def aki_standard_uncertainty(grade):
+    """Relative *standard* uncertainty of Aki for grade(s): bound / sqrt(3).
+
+    Convention: the NIST bound is read as the half-width of a rectangular
+    distribution (GUM, JCGM 100:2008, 4.3.7), so ``u = bound / sqrt(3)``.  For
+    grade E (no upper bound) the 100 % used as bound gives u = 58 %.  Accepts a
+    single grade or an array-like of grades (returns a numpy array).
+    """
+    if isinstance(grade, str):
+        return aki_relative_uncertainty(grade) / np.sqrt(3.0)
+    return np.array([aki_relative_uncertainty(g) for g in grade]) / np.sqrt(3.0)
+
+
+def _fail(path, row, col, what, fix):
+    where = f"{path}, line {row}" + (f", column {col!r}" if col else "")
+    raise AtomicDataError(what, where=where, fix=fix)
+
+
+def _read_line_list(path: Path) -> pd.DataFrame:
+    try:
+        raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True)
+    except FileNotFoundError as exc:
+        raise InputError("line list not found", where=str(path), fix="check the path") from exc
+    except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise InputError(
+            f"cannot read line list ({exc})", where=str(path), fix="save it as UTF-8 CSV with a header row"
+        ) from exc
+    raw.columns = [str(c).strip() for c in raw.columns]
+    missing = [c for c in LINE_COLUMNS if c not in raw.columns]
+    if missing:
+        raise AtomicDataError(
+            f"missing column(s) {', '.join(missing)}",
+            where=str(path),
+            fix=f"the header must hold {', '.join(LINE_COLUMNS)}",
+        )
+    if len(raw) == 0:
+        raise AtomicDataError("the line list has no rows", where=str(path), fix="add lines")
+    raw = raw.apply(lambda s: s.str.strip())
+    out = pd.DataFrame(index=range(len(raw)))
+    symbols = known_symbols()
+    # file line number of data row i: header is line 1
+    for i, el in enumerate(raw["element"]):
+        if el not in symbols:
+            _fail(
+                path,
+                i + 2,
+                "element",
+                f"unknown element {el!r}",
+                "use a chemical symbol with Z = 1..92, e.g. Cu",
+            )
+    out["element"] = raw["element"].to_numpy()
+    ion = np.empty(len(raw), dtype=int)
+    for i, v in enumerate(raw["ion"]):
+        if v not in ("1", "2"):
+            _fail(
+                path,
+                i + 2,
+                "ion",
+                f"ion stage {v!r} must be 1 (neutral) or 2 (singly ionised)",
+                "write 1 or 2",
+            )
+        ion[i] = int(v)
+    out["ion"] = ion
+    for col in _REQUIRED_NUMERIC + _OPTIONAL_NUMERIC:
+        if col not in raw.columns:  # only optional columns can be absent here
+            out[col] = np.nan
+            continue
+        required = col in _REQUIRED_NUMERIC
+        vals = np.full(len(raw), np.nan)
+        for i, v in enumerate(raw[col]):
+            if v == "":
+                if required:
+                    _fail(path, i + 2, col, "value is empty", "every line needs this value")
+                continue
+            try:
+                x = float(v)
+            except ValueError:
+                _fail(path, i + 2, col, f"value {v!r} is not a number", "write a plain decimal number")
+            if not np.isfinite(x):
+                _fail(path, i + 2, col, f"value {v!r} is not finite", "write a finite number")
+            vals[i] = x
+        out[col] = vals
+    grades = raw["aki_grade"].str.upper().to_numpy()
+    for i, g in enumerate(grades):
+        if g not in AKI_GRADES:
+            _fail(
+                path,
+                i + 2,
+                "aki_grade",
+                f"unknown accuracy grade {raw['aki_grade'][i]!r}",
+                f"use one of {' '.join(AKI_GRADES)}",
+            )
+    out["aki_grade"] = grades
+    checks = (
+        ("wavelength_nm", out["wavelength_nm"] <= 0, "wavelength must be positive"),
+        ("aki", out["aki"] <= 0, "Aki must be positive (s^-1)"),
+        ("ei_ev", out["ei_ev"] < 0, "lower-level energy must not be negative"),
+        ("ek_ev", out["ek_ev"] <= out["ei_ev"], "upper-level energy ek_ev must exceed ei_ev"),
+        ("gi", (out["gi"] <= 0) | (out["gi"] != np.round(out["gi"])), "gi must be a positive whole number"),
+        ("gk", (out["gk"] <= 0) | (out["gk"] != np.round(out["gk"])), "gk must be a positive whole number"),
+        ("stark_w_nm", out["stark_w_nm"] < 0, "Stark width must not be negative"),
+        ("stark_ne_ref_cm3", out["stark_ne_ref_cm3"] <= 0, "reference density must be positive"),
+        ("stark_t_ref_k", out["stark_t_ref_k"] <= 0, "reference temperature must be positive"),
+    )
+    for col, bad, what in checks:
+        bad = np.asarray(bad)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            _fail(path, i + 2, col, f"{what} (found {raw[col][i]!r})", "correct the value")
+    has_w = np.isfinite(out["stark_w_nm"].to_numpy())
+    no_ref = has_w & ~(np.isfinite(out["stark_ne_ref_cm3"].to_numpy()))
+    if no_ref.any():
+        i = int(np.flatnonzero(no_ref)[0])
+        _fail(
+            path,
+            i + 2,
+            "stark_ne_ref_cm3",
+            "a Stark width needs its reference electron density",
+            "fill stark_ne_ref_cm3 (cm^-3) or empty stark_w_nm",
+        )
+    out["stark_ne_exponent"] = np.where(
+        has_w & np.isnan(out["stark_ne_exponent"]), 1.0, out["stark_ne_exponent"]
+    )
+    out["gi"] = out["gi"].astype(int)
+    out["gk"] = out["gk"].astype(int)
+    for i, s in enumerate(raw["source"]):
+        if not s:
+            _fail(path, i + 2, "source", "every line needs a source", "name where the values come from")
+    out["source"] = raw["source"].to_numpy()
+    out["species"] = [species_name(e, k) for e, k in zip(out["element"], out["ion"])]
+    out["line_id"] = [f"{s} {w:.3f}" for s, w in zip(out["species"], out["wavelength_nm"])]
+    dup = out["line_id"].duplicated()
+    if dup.any():
+        i = int(np.flatnonzero(dup)[0])
+        _fail(
+            path,
+            i + 2,
+            "wavelength_nm",
+            f"line {out['line_id'][i]!r} is listed twice",
+            "keep one row per line (line ids use 3 decimals)",
+        )
+    cols = list(LINE_COLUMNS[:-1]) + ["stark_ne_exponent", "source", "species", "line_id"]
+    return out[cols].sort_values(["element", "ion", "wavelength_nm"], kind="stable").reset_index(drop=True)
+
+
+@functools.lru_cache(maxsize=1)
+def _shipped_lines() -> pd.DataFrame:
+    return _read_line_list(_data_dir() / "lines.csv")
+
+
+def load_line_list(path: str | os.PathLike | None = None) -> pd.DataFrame:
+    """Load and validate a line list; ``None`` loads the shipped list.
+
+    Returns a new DataFrame (columns of :data:`LINE_COLUMNS` plus
+    ``stark_ne_exponent``, ``species`` and ``line_id``) sorted by element, ion
+    and wavelength.  Problems raise :class:`~compquant.errors.AtomicDataError`
+    naming the file, the line number (header = line 1) and the column:
+    missing columns, empty or non-numeric values, Aki <= 0, an unknown element,
+    ek_ev <= ei_ev, an unknown accuracy grade, duplicate line ids.
+    """
+    if path is None:
+        return _shipped_lines().copy()
+    return _read_line_list(Path(path))
+
+
+def lines_for(
+    what: str, wl_min: float = 0.0, wl_max: float = np.inf, *, lines: pd.DataFrame | None = None
+) -> pd.DataFrame:
+    """Lines of a species (``"Cu I"``) or of an element (``"Cu"``, all stages)
+    with ``wl_min <= wavelength_nm <= wl_max`` (nm, air), sorted by wavelength.
+
+    ``lines`` defaults to the shipped list.
+    """
+    tab = _shipped_lines() if lines is None else lines
+    text = str(what).strip()
+    if " " in text:
+        sym, ion = parse_species(text)
+        mask = (tab["element"] == sym) & (tab["ion"] == ion)
+    else:
+        parse_species(f"{text} I")  # validates the symbol
+        mask = tab["element"] == text
+    mask &= (tab["wavelength_nm"] >= wl_min) & (tab["wavelength_nm"] <= wl_max)
+    return tab[mask].sort_values("wavelength_nm").reset_index(drop=True)
