@@ -117,7 +117,7 @@ def test_all_shots_rejected_names_the_sample(tmp_path):
 
 
 def test_line_outside_range(run_path):
-    m = method(lines=[{"id": "Cu I 324.754"}, {"id": "Pb I 405.781"}])
+    m = method(lines=[{"id": "Cu I 324.754"}, {"id": "Pb I 405.781", "wavelength_nm": 405.781}])
     with Run.open(run_path) as run, pytest.raises(MethodError) as ei:
         measure_run(run, m)
     assert "Pb I 405.781" in ei.value.one_line()

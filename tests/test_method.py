@@ -144,5 +144,10 @@ def test_line_ids():
         method_from_dict({"method": {"id": "x"}, "lines": [{"id": "copper line"}]})
     with pytest.raises(MethodError, match="twice"):
         method_from_dict({"method": {"id": "x"}, "lines": [{"id": "Cu I 324.754"}, {"id": "Cu I 324.754"}]})
+    # an id without wavelength_nm must be in the shipped line list (compquant.atomic)
+    with pytest.raises(MethodError, match="not in the line list"):
+        method_from_dict({"method": {"id": "x"}, "lines": [{"id": "Cu I 324.745"}]})
+    m = method_from_dict({"method": {"id": "x"}, "lines": [{"id": "Cu I 324.7540"}]})
+    assert m.lines[0].wavelength_nm == 324.754
     with pytest.raises(MethodError, match="no lines"):
         method_from_dict({"method": {"id": "x"}})
