@@ -218,3 +218,16 @@ def test_pulse_energy_without_column_is_method_error(run_path):
     )
     with Run.open(run_path) as run, pytest.raises(MethodError, match="pulse"):
         measure_run(run, m)
+
+
+@pytest.mark.parametrize("baseline", [{"method": "asls", "lam": 1e5, "p": 0.01}, {"method": "arpls", "lam": 1e5}])
+def test_whittaker_baselines_in_the_pipeline(run_path, baseline):
+    m_snip = method()
+    m_w = method(preprocess={"baseline": baseline})
+    with Run.open(run_path) as run:
+        a = measure_run(run, m_snip).table
+        b = measure_run(run, m_w).table
+    sa = a[a.sample_id == "STD"].intensity.to_numpy()
+    sb = b[b.sample_id == "STD"].intensity.to_numpy()
+    # the local linear background absorbs most baseline differences: within 5 %
+    assert sb == pytest.approx(sa, rel=0.05)
