@@ -123,10 +123,9 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
         r1 = min(n, r0 + block)
         rb = raw[r0:r1]
         y = ybuf[: r1 - r0]
+        y[...] = rb  # cast to float64 (a plain copy is faster than a mixed-type subtract)
         if plan.dark is not None:
-            np.subtract(rb, plan.dark, out=y)
-        else:
-            y[...] = rb
+            y -= plan.dark
         sib = si[r0:r1]
         samples_here = np.unique(sib)
         sat = None
