@@ -467,3 +467,9 @@ def test_line_weights_agree_with_level_tables():
             if len(m) and r[g_col] not in set(m["g"]):
                 bad.append((r["line_id"], g_col, r[g_col], list(m["g"])))
     assert not bad
+
+
+def test_bare_nucleus_partition_function_is_one():
+    # H II has no bound electron: U = 1 (common practice in Saha balances)
+    assert atomic.partition_function("H II", 12000.0) == 1.0
+    np.testing.assert_array_equal(atomic.partition_function("H II", np.array([5e3, 2e4])), [1.0, 1.0])

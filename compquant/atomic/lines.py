@@ -217,9 +217,7 @@ def _read_line_list(path: Path) -> pd.DataFrame:
             "a Stark width needs its reference electron density",
             "fill stark_ne_ref_cm3 (cm^-3) or empty stark_w_nm",
         )
-    out["stark_ne_exponent"] = np.where(
-        has_w & np.isnan(out["stark_ne_exponent"]), 1.0, out["stark_ne_exponent"]
-    )
+    out["stark_ne_exponent"] = np.where(has_w & np.isnan(out["stark_ne_exponent"]), 1.0, out["stark_ne_exponent"])
     out["gi"] = out["gi"].astype(int)
     out["gk"] = out["gk"].astype(int)
     for i, s in enumerate(raw["source"]):

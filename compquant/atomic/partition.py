@@ -35,7 +35,14 @@ import numpy as np
 import pandas as pd
 from scipy import constants
 
-from compquant.atomic.elements import _data_dir, _read_csv, ionisation_energy, parse_species, species_name
+from compquant.atomic.elements import (
+    _data_dir,
+    _read_csv,
+    element,
+    ionisation_energy,
+    parse_species,
+    species_name,
+)
 from compquant.errors import AtomicDataError
 
 __all__ = [
@@ -110,9 +117,7 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
 @functools.lru_cache(maxsize=1)
 def level_index() -> pd.DataFrame:
     """Index of shipped level tables: ``species, file, complete_to_ev, note``."""
-    return pd.read_csv(_data_dir() / "levels" / "index.csv", keep_default_na=False).set_index(
-        "species", drop=False
-    )
+    return pd.read_csv(_data_dir() / "levels" / "index.csv", keep_default_na=False).set_index("species", drop=False)
 
 
 def species_with_levels() -> list[str]:
@@ -147,6 +152,22 @@ def levels(species: str) -> pd.DataFrame:
     return _shipped_levels(species_name(*parse_species(species))).copy()
 
 
+@functools.cache
+def _atomic_number(sym: str) -> int:
+    return element(sym).Z
+
+
+def _check_t(T, species: str) -> np.ndarray:
+    T_arr = np.asarray(T, dtype=float)
+    if not np.all(np.isfinite(T_arr)) or np.any(T_arr <= 0):
+        raise AtomicDataError(
+            "temperature must be finite and > 0 K",
+            where=f"partition function of {species}",
+            fix="pass T in kelvin",
+        )
+    return T_arr
+
+
 def partition_function(
     species: str,
     T,
@@ -173,10 +194,15 @@ def partition_function(
     ionisation_ev : float, optional
         Ionisation energy used for the cut-off; default the tabulated one.
 
-    Valid 4 000-25 000 K for the shipped tables (see
+    A bare nucleus (``"H II"``) has U = 1.  Valid 4 000-25 000 K for the shipped tables (see
     :func:`partition_function_completeness`).
     """
-    name = species_name(*parse_species(species))
+    sym, ion = parse_species(species)
+    name = species_name(sym, ion)
+    if levels is None and ion == _atomic_number(sym) + 1:
+        # a bare nucleus (H II) has no bound electron: U = 1 at every T
+        T_arr = _check_t(T, species)
+        return np.ones_like(T_arr) if T_arr.ndim else 1.0
     if levels is None:
         e, g = _shipped_arrays(name)
     else:
@@ -191,18 +217,11 @@ def partition_function(
         )
     if lowering_ev >= e_ion:
         raise AtomicDataError(
-            f"lowering of the ionisation energy ({lowering_ev} eV) is not below the "
-            f"ionisation energy ({e_ion} eV)",
+            f"lowering of the ionisation energy ({lowering_ev} eV) is not below the ionisation energy ({e_ion} eV)",
             where=f"partition function of {species}",
             fix="the plasma is outside the range where a bound-level sum makes sense",
         )
-    T_arr = np.asarray(T, dtype=float)
-    if not np.all(np.isfinite(T_arr)) or np.any(T_arr <= 0):
-        raise AtomicDataError(
-            "temperature must be finite and > 0 K",
-            where=f"partition function of {species}",
-            fix="pass T in kelvin",
-        )
+    T_arr = _check_t(T, species)
     keep = e < e_ion - lowering_ev
     e, g = e[keep], g[keep]
     beta = 1.0 / (K_B_EV * T_arr.reshape(-1))
