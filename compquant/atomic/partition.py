@@ -173,7 +173,7 @@ def partition_function(
     T,
     *,
     levels: pd.DataFrame | None = None,
-    lowering_ev: float = 0.0,
+    lowering_ev=0.0,
     ionisation_ev: float | None = None,
 ):
     """Internal partition function U(T) of ``species`` by level summation.
@@ -189,8 +189,10 @@ def partition_function(
         Temperature(s) in K (> 0).  Array in -> array of the same shape out.
     levels : DataFrame, optional
         A table from :func:`load_levels`; default: the shipped table.
-    lowering_ev : float
-        Lowering of the ionisation energy (eV, >= 0) used in the cut-off.
+    lowering_ev : float or array-like
+        Lowering of the ionisation energy (eV, >= 0) used in the cut-off; an
+        array is broadcast against ``T`` (one cut-off per temperature, e.g. a
+        density-dependent lowering along a grid).
     ionisation_ev : float, optional
         Ionisation energy used for the cut-off; default the tabulated one.
 
@@ -209,24 +211,39 @@ def partition_function(
         e = levels["energy_ev"].to_numpy(dtype=float)
         g = levels["g"].to_numpy(dtype=float)
     e_ion = ionisation_energy(name) if ionisation_ev is None else float(ionisation_ev)
-    if not np.isfinite(lowering_ev) or lowering_ev < 0:
+    low = np.asarray(lowering_ev, dtype=float)
+    if not np.all(np.isfinite(low)) or np.any(low < 0):
         raise AtomicDataError(
             f"lowering of the ionisation energy {lowering_ev!r} eV must be >= 0",
             where=f"partition function of {species}",
             fix="pass a value >= 0",
         )
-    if lowering_ev >= e_ion:
+    if np.any(low >= e_ion):
         raise AtomicDataError(
-            f"lowering of the ionisation energy ({lowering_ev} eV) is not below the ionisation energy ({e_ion} eV)",
+            f"lowering of the ionisation energy (up to {float(np.max(low))} eV) is not below the "
+            f"ionisation energy ({e_ion} eV)",
             where=f"partition function of {species}",
             fix="the plasma is outside the range where a bound-level sum makes sense",
         )
     T_arr = _check_t(T, species)
-    keep = e < e_ion - lowering_ev
-    e, g = e[keep], g[keep]
-    beta = 1.0 / (K_B_EV * T_arr.reshape(-1))
-    u = np.exp(-np.outer(beta, e)) @ g
-    u = u.reshape(T_arr.shape)
+    if low.ndim == 0:
+        keep = e < e_ion - float(low)
+        e, g = e[keep], g[keep]
+        beta = 1.0 / (K_B_EV * T_arr.reshape(-1))
+        u = np.exp(-np.outer(beta, e)) @ g
+        u = u.reshape(T_arr.shape)
+    else:  # one lowering per temperature (broadcast): cut-off differs per element
+        try:
+            T_b, low_b = np.broadcast_arrays(T_arr, low)
+        except ValueError as exc:
+            raise AtomicDataError(
+                f"temperature shape {T_arr.shape} and lowering shape {low.shape} do not broadcast",
+                where=f"partition function of {species}",
+                fix="pass lowering_ev as a scalar or with the shape of T",
+            ) from exc
+        beta = 1.0 / (K_B_EV * T_b.reshape(-1))
+        w = np.exp(-np.outer(beta, e)) * (e[None, :] < (e_ion - low_b.reshape(-1))[:, None])
+        u = (w @ g).reshape(T_b.shape)
     return u if u.ndim else float(u)
 
 
