@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from compquant.atomic.elements import _data_dir, _read_csv, known_symbols, parse_species, species_name
+from compquant.atomic.elements import _data_dir, _fail, _read_csv, known_symbols, parse_species, species_name
 from compquant.errors import AtomicDataError
 
 __all__ = [
@@ -117,11 +117,6 @@ def aki_standard_uncertainty(grade):
     if isinstance(grade, str):
         return aki_relative_uncertainty(grade) / np.sqrt(3.0)
     return np.array([aki_relative_uncertainty(g) for g in grade]) / np.sqrt(3.0)
-
-
-def _fail(path, row, col, what, fix):
-    where = f"{path}, line {row}" + (f", column {col!r}" if col else "")
-    raise AtomicDataError(what, where=where, fix=fix)
 
 
 def _read_line_list(path: Path) -> pd.DataFrame:

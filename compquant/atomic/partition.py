@@ -37,6 +37,7 @@ from scipy import constants
 
 from compquant.atomic.elements import (
     _data_dir,
+    _fail,
     _read_csv,
     element,
     ionisation_energy,
@@ -59,11 +60,6 @@ __all__ = [
 K_B_EV = constants.k / constants.e
 
 LEVEL_COLUMNS = ("energy_ev", "g", "source")
-
-
-def _fail(path, row, col, what, fix):
-    where = f"{path}, line {row}" + (f", column {col!r}" if col else "")
-    raise AtomicDataError(what, where=where, fix=fix)
 
 
 def load_levels(path: str | os.PathLike) -> pd.DataFrame:
