@@ -474,3 +474,16 @@ def test_lowering_broadcasts_against_temperature():
     np.testing.assert_allclose(u, expected, rtol=1e-13)
     with pytest.raises(AtomicDataError, match="broadcast"):
         atomic.partition_function("Fe I", t, lowering_ev=np.zeros(2))
+
+
+def test_error_line_numbers_count_blank_lines(tmp_path):
+    text = HEADER + "\n" + GOOD + "\n\n" + GOOD.replace("324.754", "327.396").replace("1.39e8", "x") + "\n"
+    p = _write(tmp_path, text)
+    with pytest.raises(AtomicDataError, match=r"mine.csv, line 4, column 'aki'"):
+        atomic.load_line_list(p)
+
+
+def test_row_with_extra_fields_is_refused(tmp_path):
+    p = _write(tmp_path, HEADER + "\n" + GOOD + ",extra\n")
+    with pytest.raises(CompquantError, match="more fields than the header"):
+        atomic.load_line_list(p)

@@ -71,6 +71,7 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
     """
     path = Path(path)
     raw = _read_csv(path, "level table")
+    ln = raw.attrs["file_lines"]
     missing = [c for c in LEVEL_COLUMNS if c not in raw.columns]
     if missing:
         raise AtomicDataError(
@@ -87,11 +88,11 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
             try:
                 x = float(v)
             except ValueError:
-                _fail(path, i + 2, col, f"value {v!r} is not a number", "write a plain decimal number")
+                _fail(path, ln[i], col, f"value {v!r} is not a number", "write a plain decimal number")
             if not np.isfinite(x) or x < 0 or (col == "g" and (x <= 0 or x != round(x))):
                 _fail(
                     path,
-                    i + 2,
+                    ln[i],
                     col,
                     f"value {v!r} is out of range",
                     "energies must be >= 0 eV, g a positive whole number",
@@ -101,7 +102,7 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
     src = raw["source"].str.strip()
     for i, s in enumerate(src):
         if not s:
-            _fail(path, i + 2, "source", "every level needs a source", "name where the value comes from")
+            _fail(path, ln[i], "source", "every level needs a source", "name where the value comes from")
     if not np.any(out["energy_ev"] == 0.0):
         raise AtomicDataError(
             "no ground level (energy_ev = 0)", where=str(path), fix="add the ground level with energy 0"
