@@ -40,7 +40,10 @@ set out with their sources in ``docs/identification.md``; in short:
   evidence is its share-weighted count of found lines, and its share of the
   area is what enters its scale fit.  Species that are not (yet) detected or
   possible do not take evidence away from the others.  The sharing is iterated
-  to a fixed point (``iterations`` passes).
+  to a fixed point (``iterations`` passes).  A strong expected line with no peak
+  of its own is *hidden* rather than missing when active lines of other
+  elements within 1.5 FWHM are predicted to put more intensity at its position
+  than it would have.
 """
 
 from __future__ import annotations
@@ -271,7 +274,7 @@ class _Problem:
         return w
 
 
-def _evaluate_species(prob: _Problem, s: int, share: np.ndarray):
+def _evaluate_species(prob: _Problem, s: int, share: np.ndarray, mask: np.ndarray | None = None):
     """Best scale and found/missing bookkeeping for species index ``s`` (vectorised over candidates)."""
     st = prob.settings
     idx = np.flatnonzero(prob.sp_index == s)
@@ -292,11 +295,17 @@ def _evaluate_species(prob: _Problem, s: int, share: np.ndarray):
     snr = pred * kappa[None, :]
     expected = snr >= st.k_sigma
     strong = snr >= st.expect_margin * st.k_sigma
+    total = np.where(matched, prob.peak_area[np.maximum(pk, 0)], 0.0)  # whole peak, before sharing
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = obs[None, :] / pred
-    ok = matched[None, :] & (ratio >= 1.0 / st.intensity_factor)
+        ratio_total = total[None, :] / pred
+    # a line is there when its whole peak is not weaker than predicted by more than F; a peak
+    # shared with other species still shows the line (it is hidden, not missing), but then
+    # counts as evidence only with its share
+    ok = matched[None, :] & (ratio_total >= 1.0 / st.intensity_factor)
     found = expected & ok
-    missing = strong & ~ok
+    hidden = np.zeros_like(ok) if mask is None else (mask[idx][None, :] >= pred)
+    missing = strong & ~ok & ~hidden
     w = share[idx][None, :]
     objective = (found * w).sum(1) - missing.sum(1)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -362,26 +371,57 @@ def _share(prob: _Problem, scale_of_group: np.ndarray, active_group: np.ndarray)
     return share
 
 
+def _masking(prob: _Problem, scale_of_group: np.ndarray, active_group: np.ndarray) -> np.ndarray:
+    """Predicted area that active groups of *other elements* put at each group's position.
+
+    ``Σ a_h r_h exp(-4 ln 2 (Δλ / w)²)`` over groups h of other elements within 1.5 instrument
+    FWHM ``w`` (Gaussian instrument profile).  A line predicted weaker than this is hidden under
+    its neighbour, so its absence as a separate peak is no evidence against its species.
+    """
+    n = prob.n_groups
+    mask = np.zeros(n)
+    src = np.flatnonzero(active_group & (scale_of_group > 0))
+    if src.size == 0:
+        return mask
+    order = src[np.argsort(prob.wl[src])]
+    swl = prob.wl[order]
+    w = prob.fwhm_instr
+    lo = np.searchsorted(swl, prob.wl - 1.5 * w, "left")
+    hi = np.searchsorted(swl, prob.wl + 1.5 * w, "right")
+    cnt = hi - lo
+    if cnt.sum() == 0:
+        return mask
+    g = np.repeat(np.arange(n), cnt)
+    h = order[np.concatenate([np.arange(a, b) for a, b in zip(lo, hi) if b > a])]
+    other = prob.element[g] != prob.element[h]
+    g, h = g[other], h[other]
+    contrib = scale_of_group[h] * prob.r[h] * np.exp(-4.0 * np.log(2.0) * ((prob.wl[h] - prob.wl[g]) / w[g]) ** 2)
+    np.add.at(mask, g, contrib)
+    return mask
+
+
 def _solve(prob: _Problem, settings: IdentifySettings):
-    """Independent pass, then evidence sharing iterated to a fixed point."""
+    """Independent pass, then evidence sharing (and masking) iterated to a fixed point."""
     n_sp = len(prob.species_codes)
     share = np.where(prob.peak >= 0, 1.0, 0.0)
+    mask = np.zeros(prob.n_groups)
     results = [None] * n_sp
     evals = [None] * n_sp
     for it in range(settings.iterations + 1):
         for s in range(n_sp):
-            evals[s] = _evaluate_species(prob, s, share)
+            evals[s] = _evaluate_species(prob, s, share, mask)
             results[s] = _score(prob, evals[s], share)
         scale_sp = np.array([results[s]["scale"] for s in range(n_sp)])
         active_sp = np.array([results[s]["status"] != "not detected" for s in range(n_sp)])
         new_share = _share(prob, scale_sp[prob.sp_index], active_sp[prob.sp_index])
-        if it == settings.iterations or np.allclose(new_share, share, atol=1e-3):
-            share = new_share
+        new_mask = _masking(prob, scale_sp[prob.sp_index], active_sp[prob.sp_index])
+        converged = np.allclose(new_share, share, atol=1e-3) and np.allclose(new_mask, mask, rtol=1e-3)
+        share, mask = new_share, new_mask
+        if it == settings.iterations or converged:
             for s in range(n_sp):  # final bookkeeping with the converged shares
-                evals[s] = _evaluate_species(prob, s, share)
+                evals[s] = _evaluate_species(prob, s, share, mask)
                 results[s] = _score(prob, evals[s], share)
             break
-        share = new_share
     return results, evals, share
 
 
