@@ -136,8 +136,13 @@ def _parse_time(text: str, where: str) -> _dt.datetime:
     return t if t.tzinfo else t.replace(tzinfo=_dt.timezone.utc)
 
 
-def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = True):
-    """All arrays of the run as a dict (no file written); see :func:`simulate_run`."""
+def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = True, only=None):
+    """All arrays of the run as a dict (no file written); see :func:`simulate_run`.
+
+    ``only``: optional sample indices to compute; the other samples' spectra rows
+    are left zero (their random streams are independent, so the computed rows are
+    identical to those of the full run).
+    """
     seed = scenario.seed if seed is None else int(seed)
     if seed < 0:
         raise ConfigError(f"seed {seed} is negative", where="--seed", fix="use a seed >= 0")
@@ -151,7 +156,8 @@ def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = T
     pattern_rng = np.random.default_rng(np.random.SeedSequence([scenario.instrument["pattern_seed"], 7919]))
     pattern = det.bias_pattern(wl.size, pattern_rng)
     n_total = sum(s.shots for s in scenario.samples)
-    spectra = np.empty((n_total, wl.size), dtype=np.uint16)
+    wanted = set(range(len(scenario.samples))) if only is None else {int(i) for i in only}
+    spectra = np.zeros((n_total, wl.size), dtype=np.uint16)
     index = np.empty(n_total, dtype=np.int32)
     energy = np.empty(n_total)
     times = np.empty(n_total)
@@ -163,8 +169,9 @@ def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = T
         rng = np.random.default_rng(sseq)
         n = smp.shots
         e, t, ne, f = shot_conditions(scenario, n, rng, noise)
-        rad = model.radiance(smp.composition, t, ne, length_mm=scenario.plasma["length_mm"], scale=f)
-        spectra[row:row + n] = det.digitise(det.mean_photoelectrons(rad, resp_true), pattern, rng, noise)
+        if k in wanted:
+            rad = model.radiance(smp.composition, t, ne, length_mm=scenario.plasma["length_mm"], scale=f)
+            spectra[row:row + n] = det.digitise(det.mean_photoelectrons(rad, resp_true), pattern, rng, noise)
         index[row:row + n] = k
         energy[row:row + n] = np.round(e, 4)
         shots = np.arange(n)

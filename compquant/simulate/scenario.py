@@ -390,8 +390,8 @@ def load_scenario(path) -> Scenario:
             comp = draw_true_composition(ref, certified[ref], matrix, truth_seed, clip)
         else:
             comp = _composition(s["composition"], matrix, f"{wsmp}.composition")
-        if role == "standard" and not ref:
-            raise ConfigError("a sample with role 'standard' must reference a certified standard",
+        if role in ("standard", "check") and not ref:
+            raise ConfigError(f"a sample with role {role!r} must reference a certified standard",
                               where=wsmp, fix="set standard = '<id in the standards file>'")
         samples.append(SampleSpec(sid, role, ref, _str(s, "description", wsmp, ""), shots, comp))
 
