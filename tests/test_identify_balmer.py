@@ -47,7 +47,7 @@ def test_balmer_lines_detected_at_rydberg_wavelengths(hydrogen_spectrum):
     lam = balmer_air_nm(np.array([3, 4]))  # H-alpha, H-beta (H-gamma is too weak at this level)
     st = IdentifySettings()
     found_h = 0
-    for seed in range(3):
+    for seed in range(2):
         y = observe(rad, seed, peak_pe=6e4, n_shots=16)
         ident = identify_spectrum(wl, y, settings=st, resolving_power=R)
         pk = ident.peaks["centre_nm"].to_numpy()
@@ -59,4 +59,4 @@ def test_balmer_lines_detected_at_rydberg_wavelengths(hydrogen_spectrum):
         found_h += row["status"] == "detected"
         assert row["status"] in ("detected", "possible")
         assert "H I 656.279" in row["best_lines"]
-    assert found_h == 3
+    assert found_h == 2

@@ -47,7 +47,16 @@ def overlap_case():
     # the analyte is the minor element; the interferer is the matrix element
     analyte, interferer = b, a
     wl = axis(max(200.0, lam - 60.0), lam + 200.0, lam / R / 5.0)
-    comp_with = {interferer["element"]: 0.97, analyte["element"]: 0.03}
+    # choose the analyte's level so that its line is at most half the interferer's at that position
+    # (emission of a minor element is proportional to its number fraction in an optically thin plasma)
+    ll = load_line_list()
+    f0 = 0.03
+    comp0 = {interferer["element"]: 1.0 - f0, analyte["element"]: f0}
+    near = np.abs(wl - analyte["wavelength_nm"]) <= 0.5 * lam / R
+    h_a = radiance(wl, comp0, T, NE, R_=R, lines_frame=ll[ll["line_id"] == analyte["line_id"]])[near].max()
+    h_i = radiance(wl, comp0, T, NE, R_=R, lines_frame=ll[ll["line_id"] == interferer["line_id"]])[near].max()
+    f = f0 * min(1.0, 0.5 * h_i / h_a)
+    comp_with = {interferer["element"]: 1.0 - f, analyte["element"]: f}
     comp_without = {analyte["element"]: 1.0}
     rad_with = radiance(wl, comp_with, T, NE, R_=R)
     rad_without = radiance(wl, comp_without, T, NE, R_=R)

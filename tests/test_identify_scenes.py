@@ -32,11 +32,12 @@ from compquant.identify import IdentifySettings, identify_spectrum
 from compquant.identify.peaks import noise_sigma
 
 WL = (240.0, 560.0, 0.03)
-SEEDS = range(6)
+SEEDS = range(3)
 T, NE = 9500.0, 3e16
-COMPOSITIONS = {
-    "brass": {"Cu": 0.88, "Zn": 0.12},
-    "copper-trace-zn": {"Cu": 0.995, "Zn": 0.005},
+COMPOSITIONS = {  # invented test materials; the method of the scenario measures Cu, Zn and Pb only
+    "leaded brass": {"Cu": 0.60, "Zn": 0.37, "Pb": 0.02, "Sn": 0.008, "Fe": 0.002},
+    "stainless": {"Fe": 0.70, "Cr": 0.18, "Ni": 0.10, "Mn": 0.02},
+    "aluminium": {"Al": 0.93, "Mg": 0.03, "Si": 0.03, "Cu": 0.01},
     "copper": {"Cu": 1.0},
 }
 
@@ -59,9 +60,8 @@ def scenes():
     return wl, out
 
 
-def _above_limit(wl, per_el_rad, scale, sigma, k_sigma):
+def _above_limit(wl, per_el_rad, scale, sigma, k_sigma, ll):
     """Elements with >= 2 line groups whose noiseless peak is >= 2 k_sigma noise sigma."""
-    ll = load_line_list()
     above = set()
     for el, rad in per_el_rad.items():
         y = rad * scale
@@ -83,7 +83,8 @@ def _above_limit(wl, per_el_rad, scale, sigma, k_sigma):
 def test_detection_and_false_positive_rates(scenes):
     wl, data = scenes
     st = IdentifySettings()
-    candidates = set(load_line_list().query(f"{WL[0]} <= wavelength_nm <= {WL[1]}")["element"])
+    ll = load_line_list()
+    candidates = set(ll.query(f"{WL[0]} <= wavelength_nm <= {WL[1]}")["element"])
     n_above = n_found = n_absent = n_fp = n_possible = 0
     for name, (total, per_el) in data.items():
         for seed in SEEDS:
@@ -92,7 +93,7 @@ def test_detection_and_false_positive_rates(scenes):
             sigma = float(noise_sigma(y, clip=3.5))
             ident = identify_spectrum(wl, y, settings=st, resolving_power=R)
             el = ident.elements().set_index("element")
-            above = _above_limit(wl, per_el, scale, sigma, st.k_sigma)
+            above = _above_limit(wl, per_el, scale, sigma, st.k_sigma, ll)
             for e in above:
                 n_above += 1
                 n_found += el.loc[e, "status"] == "detected"
@@ -106,3 +107,26 @@ def test_detection_and_false_positive_rates(scenes):
     assert n_found == n_above
     assert n_absent > 0 and n_fp == 0
     assert n_possible <= 0.05 * n_absent
+
+
+def test_no_false_detection_with_an_incomplete_line_database(scenes):
+    """The plasma emits lines the database lacks (30 % of the rows dropped at random): their peaks
+    stay unexplained and must not make an absent element *detected*.  Measured on this branch over
+    6 database draws x 4 materials: 0 false detections in 564 absent-element checks, 2 *possible*
+    (0.4 %); see docs/identification.md."""
+    wl, data = scenes
+    st = IdentifySettings()
+    ll = load_line_list()
+    n_absent = n_fp = n_unexplained = 0
+    for k in range(2):
+        rng = np.random.default_rng(100 + k)
+        sub = ll[rng.random(len(ll)) > 0.3]
+        for name, (total, _) in data.items():
+            ident = identify_spectrum(wl, observe(total, k), sub, settings=st, resolving_power=R)
+            el = ident.elements()
+            absent = ~el["element"].isin(list(COMPOSITIONS[name]))
+            n_absent += int(absent.sum())
+            n_fp += int((absent & (el["status"] == "detected")).sum())
+            n_unexplained += int(ident.peaks["unexplained"].sum())
+    assert n_absent > 100 and n_fp == 0
+    assert n_unexplained > 0  # the lines missing from the database are listed as unexplained peaks

@@ -320,7 +320,7 @@ def _evaluate_species(prob: _Problem, s: int, share: np.ndarray, mask: np.ndarra
     return out
 
 
-def _score(prob: _Problem, ev: dict, share: np.ndarray) -> dict:
+def _score(prob: _Problem, ev: dict, share: np.ndarray, final: bool = False) -> dict:
     st = prob.settings
     idx, found, missing = ev["idx"], ev["found"], ev["missing"]
     sh = share[idx]
@@ -336,7 +336,7 @@ def _score(prob: _Problem, ev: dict, share: np.ndarray) -> dict:
         lr = np.log(ev["obs"][use] / prob.r[idx][use])
         la = float(np.mean(lr))
         rms = float(np.sqrt(np.mean((lr - la) ** 2)))
-        if found.sum() >= 3:
+        if final and found.sum() >= 3:
             rho = float(spearmanr(ev["obs"][found], prob.r[idx][found]).statistic)
     f = n_found / (n_found + n_missing) if (n_found + n_missing) > 0 else 0.0
     q = float(np.exp(-0.5 * (rms / np.log(st.intensity_factor)) ** 2)) if np.isfinite(rms) else 0.0
@@ -420,7 +420,7 @@ def _solve(prob: _Problem, settings: IdentifySettings):
         if it == settings.iterations or converged:
             for s in range(n_sp):  # final bookkeeping with the converged shares
                 evals[s] = _evaluate_species(prob, s, share, mask)
-                results[s] = _score(prob, evals[s], share)
+                results[s] = _score(prob, evals[s], share, final=True)
             break
     return results, evals, share
 
@@ -589,19 +589,21 @@ def _tables(prob: _Problem, members, results, evals, share, peaks, T):
         "delta_nm": prob.delta, "share": share, "observed_area": obs, "predicted_area": pred,
         "predicted_snr": snr, **flags,
     })
+    top_found = (groups[groups["found"]].sort_values("observed_area", ascending=False)
+                 .groupby("species")["line_id"].agg(lambda x: "; ".join(x.head(3))))
+    top_missing = (groups[groups["missing"]].sort_values("predicted_snr", ascending=False)
+                   .groupby("species")["line_id"].agg(lambda x: "; ".join(x.head(3))))
     rows = []
-    for s, (res, ev) in enumerate(zip(results, evals)):
+    for s, res in enumerate(results):
         sp = prob.species_codes[s]
-        g = groups.iloc[ev["idx"]]
-        fnd = g[g["found"]].sort_values("observed_area", ascending=False)
-        mis = g[g["missing"]].sort_values("predicted_snr", ascending=False)
+        i0 = evals[s]["idx"][0]
         rows.append({
-            "element": g["element"].iloc[0], "ion": int(g["ion"].iloc[0]), "species": sp,
+            "element": prob.element[i0], "ion": int(prob.ion[i0]), "species": sp,
             "status": res["status"], "score": round(res["score"], 4), "lines_found": round(res["lines_found"], 2),
             "lines_expected": res["lines_expected"], "lines_missing": res["lines_missing"],
             "rms_log_residual": res["rms_log_residual"], "rank_correlation": res["rank_correlation"],
-            "scale": res["scale"], "best_lines": "; ".join(fnd["line_id"].head(3)),
-            "missing_lines": "; ".join(mis["line_id"].head(3)), "temperature_k": T,
+            "scale": res["scale"], "best_lines": top_found.get(sp, ""),
+            "missing_lines": top_missing.get(sp, ""), "temperature_k": T,
         })
     species = pd.DataFrame(rows, columns=SPECIES_COLUMNS)
     species["_rank"] = species["status"].map(_STATUS_RANK)
