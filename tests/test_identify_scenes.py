@@ -13,11 +13,11 @@ Criteria (docs/identification.md):
   reported *detected* in every seed;
 * an element of the line list that is not in the sample must never be reported *detected*
   (the false-positive rate over all seeds and absent elements is asserted to be 0 and the
-  rate of *possible* is bounded by 5 %);
+  rate of *possible* is bounded by 5 %).
 
-Measured on this branch (6 seeds x 3 compositions): detection rate of elements above the
-limit 100 %, false-positive rate (absent reported detected) 0 %, absent reported *possible*
-0 %.
+Measured on this branch (3 seeds x 4 materials here; 10 seeds in benchmarks/identify_rates.py):
+elements above the limit detected 100 %; false-positive rate (absent reported detected) 0 of 294
+absent-element checks (0 %; 0 of 980 over 10 seeds), absent reported *possible* 0 %.
 """
 
 from __future__ import annotations
