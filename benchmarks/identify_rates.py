@@ -24,10 +24,10 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
-from identify_helpers import R, axis, observe, radiance  # noqa: E402
+from identify_helpers import R, axis, observe, radiance
 
-from compquant.atomic import load_line_list  # noqa: E402
-from compquant.identify import IdentifySettings, identify_spectrum  # noqa: E402
+from compquant.atomic import load_line_list
+from compquant.identify import IdentifySettings, identify_spectrum
 
 T, NE = 9500.0, 3e16
 MATERIALS = {
