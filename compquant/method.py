@@ -22,7 +22,7 @@ from pathlib import Path
 
 import numpy as np
 
-from compquant.errors import CompquantError, MethodError
+from compquant.errors import MethodError
 from compquant.fileio import check_keys, load_toml, sha256_file
 
 TOP_LEVEL = frozenset({"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map"})
@@ -452,28 +452,22 @@ def _parse_measure(t: dict, src: str) -> MeasureConfig:
     return m
 
 
-def _lookup_line(element: str, ion: int, wl: float, where: str):
-    """Find the line in the shipped line list; None when the atomic module is unavailable."""
-    try:
-        from compquant.atomic import load_line_list
-    except ImportError:
-        return None
-    try:
-        table = load_line_list()
-    except CompquantError:
-        return None
+def _lookup_line(element: str, ion: int, wl: float) -> float | None:
+    """Wavelength of the shipped line-list entry within 0.0015 nm of ``wl``; None if absent.
+
+    The list is :func:`compquant.atomic.load_line_list` (docs/atomic-data.md).
+    """
+    from compquant.atomic import load_line_list
+
+    table = load_line_list()
     species = f"{element} {_ROMAN_INV.get(ion, str(ion))}"
-    sel = table[
-        (table["species"] == species)
-        if "species" in table.columns
-        else ((table["element"] == element) & (table["ion"] == ion))
-    ]
+    sel = table[table["species"] == species]
     if len(sel) == 0:
-        return False
+        return None
     d = np.abs(sel["wavelength_nm"].to_numpy(dtype=float) - wl)
     j = int(np.argmin(d))
     if d[j] > 0.0015:
-        return False
+        return None
     return float(sel["wavelength_nm"].iloc[j])
 
 
@@ -509,14 +503,14 @@ def _parse_lines(items, src: str, measure: MeasureConfig) -> list[LineSpec]:
             element = element or parsed[0]
             ion = ion or parsed[1]
             if wl is None:
-                found = _lookup_line(parsed[0], parsed[1], parsed[2], w)
-                if found is False:
+                found = _lookup_line(parsed[0], parsed[1], parsed[2])
+                if found is None:
                     raise _err(
                         w,
                         f"line {lid!r} is not in the line list",
                         "check the id, or give wavelength_nm (and element, ion) explicitly",
                     )
-                wl = parsed[2] if found is None else found
+                wl = found
         if element is None or ion is None or wl is None:
             raise _err(
                 w, "a line needs an id, or element + ion + wavelength_nm", 'add id = "Cu I 324.754" or the three keys'
