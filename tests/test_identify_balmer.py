@@ -7,7 +7,7 @@ import pytest
 from identify_helpers import R, axis, observe, radiance
 from scipy import constants
 
-from compquant.atomic import vacuum_to_air
+from compquant.atomic import air_to_vacuum, vacuum_to_air
 from compquant.identify import identify_spectrum, matching_tolerance
 from compquant.identify.settings import IdentifySettings
 
@@ -60,3 +60,20 @@ def test_balmer_lines_detected_at_rydberg_wavelengths(hydrogen_spectrum):
         assert row["status"] in ("detected", "possible")
         assert "H I 656.279" in row["best_lines"]
     assert found_h == 2
+
+
+def test_vacuum_axis_and_estimated_resolving_power(hydrogen_spectrum):
+    """The same spectrum on a vacuum wavelength axis (Morton 2000 conversion) and without a stated
+    resolving power: H and Cu are still found; R is estimated from the peak widths as a lower bound
+    (Stark and Doppler broadening only widen lines)."""
+    wl, rad = hydrogen_spectrum
+    y = observe(rad, 5, peak_pe=6e4, n_shots=16)
+    wl_vac = air_to_vacuum(wl)
+    ident = identify_spectrum(wl_vac, y, medium="vacuum")
+    assert ident.resolving_power_source == "estimated from peak widths"
+    assert 0.6 * R < ident.resolving_power <= 1.05 * R
+    el = ident.elements().set_index("element")
+    assert el.loc["Cu", "status"] == "detected" and el.loc["H", "status"] in ("detected", "possible")
+    # the matched Balmer peak sits at the vacuum wavelength: 0.18 nm above the air value at 656 nm
+    g = ident.lines[ident.lines["line_id"] == "H I 656.279"].iloc[0]
+    assert abs(g["wavelength_nm"] - air_to_vacuum(656.279)) < 1e-6 and g["peak_id"] >= 0

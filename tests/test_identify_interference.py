@@ -102,7 +102,7 @@ def _write_test_run(path, wl, comps, R, seed=0, n_shots=8):
 
 
 def test_identify_command_end_to_end(tmp_path):
-    wl = axis(240.0, 560.0, 0.03)
+    wl = axis(280.0, 500.0, 0.03)
     run = tmp_path / "run.h5"
     _write_test_run(run, wl, [{"Cu": 0.85, "Zn": 0.15}, {"Cu": 1.0}], R=4000.0)
     method = tmp_path / "method.toml"
