@@ -230,8 +230,9 @@ class _Problem:
         self.species_codes, self.sp_index = np.unique(self.species, return_inverse=True)
         self.member_group = members["group"].to_numpy()
         peak_c = peaks["centre_nm"].to_numpy(float)
-        self.peak_area = peaks["area"].to_numpy(float)
-        self.peak_fwhm = peaks["fwhm_nm"].to_numpy(float)
+        # one sentinel 0 at the end: index -1 (no peak) reads 0
+        self.peak_area = np.append(peaks["area"].to_numpy(float), 0.0)
+        self.peak_fwhm = np.append(peaks["fwhm_nm"].to_numpy(float), 0.0)
         self.n_peaks = len(peaks)
         self.tol = g["_tol"].max().to_numpy()
         self._peak_c = peak_c
@@ -281,7 +282,7 @@ def _evaluate_species(prob: _Problem, s: int, share: np.ndarray, mask: np.ndarra
     r = prob.r[idx]
     pk = prob.peak[idx]
     matched = pk >= 0
-    obs = np.where(matched, share[idx] * prob.peak_area[np.maximum(pk, 0)], 0.0)
+    obs = share[idx] * prob.peak_area[pk]  # 0 where unmatched (sentinel)
     kappa = 1.0 / (GAUSS_AREA_FACTOR * prob.width(s, share) * prob.sigma[idx])
     n = idx.size
     out = {"idx": idx, "scale": 0.0, "found": np.zeros(n, bool), "missing": np.zeros(n, bool),
@@ -295,7 +296,7 @@ def _evaluate_species(prob: _Problem, s: int, share: np.ndarray, mask: np.ndarra
     snr = pred * kappa[None, :]
     expected = snr >= st.k_sigma
     strong = snr >= st.expect_margin * st.k_sigma
-    total = np.where(matched, prob.peak_area[np.maximum(pk, 0)], 0.0)  # whole peak, before sharing
+    total = prob.peak_area[pk]  # whole peak, before sharing
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = obs[None, :] / pred
         ratio_total = total[None, :] / pred
@@ -506,7 +507,7 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
                                fix="identify a measured mean spectrum, or add the detector noise to a model spectrum")
     sig = np.where(sig > 0, sig, np.max(sig))
     R = st.resolving_power or resolving_power
-    source = "method [identify]" if st.resolving_power else ("run instrument" if resolving_power else "")
+    source = "method [identify]" if st.resolving_power else ("given (run instrument)" if resolving_power else "")
     if peaks is None:
         peaks = find_peaks(wl, y_f, k_sigma=st.k_sigma, resolving_power=R, min_width_frac=st.min_width_frac,
                            noise=sig, noise_window=st.noise_window or None)
