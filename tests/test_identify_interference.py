@@ -129,6 +129,15 @@ def test_identify_command_end_to_end(tmp_path):
     t2 = pd.read_csv(out2)
     zn2 = t2[(t2["sample_id"] == "LOT 2") & (t2["element"] == "Zn")]["status"]
     assert (zn2 != "detected").all()
+    # a line database without zinc: the zinc peaks are listed as unexplained, zinc is not reported
+    no_zn = tmp_path / "no-zn.csv"
+    ll = load_line_list()
+    ll[ll["element"] != "Zn"].drop(columns=["species", "line_id"]).to_csv(no_zn, index=False)
+    res = CliRunner().invoke(main, ["identify", str(run), "--sample", "LOT 1", "--lines", str(no_zn),
+                                    "-o", str(tmp_path / "nozn.csv")])
+    assert res.exit_code == 0, res.output
+    assert "unexplained peaks in LOT 1" in res.output and "334.5" in res.output  # Zn I 334.502 nm
+    assert "Zn" not in set(pd.read_csv(tmp_path / "nozn.csv")["element"])
     # the certificate helper: elements detected but not quantified
     from compquant.identify.sample import detected_elements
     from compquant.run import Run
