@@ -678,6 +678,8 @@ def _aggregate(
                     if other is not ln and lo <= other.wavelength_nm + d <= hi:
                         flags.add("overlapped")
                 expected = ln.wavelength_nm + d
+                # the window still holds the line while its centre is within a quarter window
+                centre_tol = max(flag_nm, 0.25 * (g.b - g.a))
             else:
                 gi = next(gx for gx, mem in enumerate(setup.groups) if li in mem)
                 gf = fits[(s, gi)]
@@ -695,6 +697,7 @@ def _aggregate(
                 if not gf.success:
                     flags.add("not_found")
                 expected = ln.wavelength_nm + d
+                centre_tol = max(flag_nm, 0.5 * fwhm) if np.isfinite(fwhm) else flag_nm
             snr = intensity / u if (u and np.isfinite(u) and u > 0) else float("nan")
             if not np.isfinite(snr) or snr < meas.snr_detect:
                 flags.add("not_found")
@@ -705,7 +708,7 @@ def _aggregate(
             if pre.shift != "none" and abs(d) > flag_nm:
                 flags.add("shifted")
             well_measured = np.isfinite(snr) and snr >= meas.snr_min
-            if well_measured and np.isfinite(centre) and abs(centre - expected) > flag_nm:
+            if well_measured and np.isfinite(centre) and abs(centre - expected) > centre_tol:
                 flags.add("shifted")
             if nv == 1:
                 flags.add("single_shot")
