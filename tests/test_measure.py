@@ -231,3 +231,15 @@ def test_whittaker_baselines_in_the_pipeline(run_path, baseline):
     sb = b[b.sample_id == "STD"].intensity.to_numpy()
     # the local linear background absorbs most baseline differences: within 5 %
     assert sb == pytest.approx(sa, rel=0.05)
+
+
+def test_threads_give_the_same_result(run_path):
+    m = method(lines=[{"id": "Cu I 324.754"}, {"id": "Zn I 330.259", "mode": "fit", "fwhm_nm": 0.04}])
+    with Run.open(run_path) as run:
+        a = measure_run(run, m, chunk_shots=16)
+        b = measure_run(run, m, chunk_shots=16, threads=3)
+    # window lines: the same arithmetic; fitted lines: the mean spectrum is summed in another
+    # order, so the nonlinear fit lands within its tolerance (1e-6 relative)
+    assert np.allclose(a.shot_intensity[:, 0], b.shot_intensity[:, 0], rtol=1e-12)
+    assert np.allclose(a.shot_intensity[:, 1], b.shot_intensity[:, 1], rtol=1e-6, atol=1e-9)
+    assert (a.shot_accepted == b.shot_accepted).all()
