@@ -71,6 +71,7 @@ def test_deliberate_overlap_is_flagged(overlap_case):
     ident = identify_spectrum(wl, y, settings=st, resolving_power=R)
     assert interferer["element"] in set(ident.elements().query("status == 'detected'")["element"])
     imap = interference_map(ident, lines)
+    # truth: the scene was built with the interferer's line 0.6 FWHM from the analyte line
     row = imap[imap["interferer_line_id"] == interferer["line_id"]]
     assert len(row) == 1 and bool(row["overlapped"].iloc[0])
     assert abs(row["separation_nm"].iloc[0] - (interferer["wavelength_nm"] - analyte["wavelength_nm"])) < 0.01
