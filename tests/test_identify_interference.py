@@ -78,6 +78,13 @@ def test_deliberate_overlap_is_flagged(overlap_case):
     alt = row["alternatives"].iloc[0].split("; ") if row["alternatives"].iloc[0] else []
     assert analyte["line_id"] not in alt
     assert all(x.startswith(analyte["element"] + " ") for x in alt)
+    # window integration: a vanishing window sees the height ratio of the two Gaussian profiles;
+    # a wider window takes in more of the neighbour (normal distribution function, mathematics)
+    fw = analyte["wavelength_nm"] / R
+    win = [interference_map(ident, lines.assign(window_nm=W)).query("interferer_line_id != ''")
+           ["window_contribution"].iloc[0] for W in (1e-4, fw, 3 * fw)]
+    assert win[0] == pytest.approx(row["relative_contribution"].iloc[0], rel=0.1)
+    assert win[0] < win[1] < win[2]
     ov = overlapped_lines(imap)
     assert list(ov["line_id"]) == [analyte["line_id"]]
     # the same analyte line without the interfering element: no overlap
