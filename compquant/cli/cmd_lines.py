@@ -28,25 +28,47 @@ def _write_csv(df, path: Path) -> None:
         ) from exc
 
 
-def _short_table(table) -> str:
-    cols = ("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")
-    rows = [cols]
-    for r in table.itertuples(index=False):
+def _columns(rows) -> str:
+    w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
+    return "\n".join(
+        "  ".join(c.ljust(w[i]) if i < 2 or i == len(row) - 1 else c.rjust(w[i]) for i, c in enumerate(row))
+        for row in rows
+    )
+
+
+def _short_table(table, max_rows: int = 60) -> str:
+    """The line table when short; otherwise one summary row per sample."""
+    if len(table) <= max_rows:
+        rows = [("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")]
+        for r in table.itertuples(index=False):
+            rows.append(
+                (
+                    str(r.sample_id),
+                    str(r.line_id),
+                    f"{r.intensity:.4g}",
+                    f"{r.u_intensity:.2g}",
+                    str(r.n_shots),
+                    f"{r.snr:.1f}",
+                    r.flags or "-",
+                )
+            )
+        return _columns(rows)
+    rows = [("sample_id", "role", "shots", "lines", "found", "flagged lines")]
+    for (sid, role), g in table.groupby(["sample_id", "role"], sort=False):
+        flagged = g[g["flags"] != ""]
+        found = int((~g["flags"].str.contains("not_found")).sum())
+        kinds = sorted({f for fl in flagged["flags"] for f in fl.split(";")})
         rows.append(
             (
-                str(r.sample_id),
-                str(r.line_id),
-                f"{r.intensity:.4g}",
-                f"{r.u_intensity:.2g}",
-                str(r.n_shots),
-                f"{r.snr:.1f}",
-                r.flags or "-",
+                str(sid),
+                str(role),
+                str(int(g["n_shots"].max())),
+                str(len(g)),
+                str(found),
+                f"{len(flagged)} ({', '.join(kinds)})" if kinds else "0",
             )
         )
-    w = [max(len(x[i]) for x in rows) for i in range(len(cols))]
-    return "\n".join(
-        "  ".join(c.ljust(w[i]) if i in (0, 1, 6) else c.rjust(w[i]) for i, c in enumerate(row)) for row in rows
-    )
+    return _columns(rows)
 
 
 @click.command("lines", epilog=SAFETY)

@@ -28,6 +28,9 @@ import numpy as np
 
 from compquant.preprocess.baseline import SNIP_BLOCK_ROWS, SnipWorkspace, estimate_baseline, snip_block
 
+#: rows per block for the AsLS / arPLS solvers (memory about 12 x rows x pixels x 8 bytes)
+WHITTAKER_BLOCK_ROWS = 512
+
 
 @dataclass
 class FitProjection:
@@ -104,7 +107,9 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
     bg = np.zeros(n)
     sums: dict[int, np.ndarray] = {}
     counts: dict[int, int] = {}
-    block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else max(1, n)
+    # SNIP: cache-sized blocks; Whittaker solvers: blocks that bound memory (about 12 arrays)
+    block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else WHITTAKER_BLOCK_ROWS if plan.baseline != "none" else n
+    block = max(1, min(block, n))
     tw = plan.total_weights if plan.total_weights is not None else np.ones(plan.n_pixels)
     # window weights are zero outside a few pixels per line: gather those pixels only
     W_shared = _compact(plan.W) if n_win else None

@@ -48,7 +48,7 @@ import pandas as pd
 
 from compquant.errors import DataQualityError, MethodError
 from compquant.lines.chunk import ChunkPlan, ChunkResult, FitProjection, process_chunk
-from compquant.lines.fit import GroupFit, fit_group
+from compquant.lines.fit import GroupFit, fit_group, fit_group_fixed
 from compquant.lines.windows import (
     WindowWeights,
     build_window_weights,
@@ -419,8 +419,9 @@ def _merge_sums(sums, counts, res: ChunkResult) -> None:
         counts[s] = counts.get(s, 0) + res.counts[s]
 
 
-def measure_run(run, method: Method, chunk_shots: int | None = None, progress=None,
-                chunk_mapper=None) -> LineMeasurement:
+def measure_run(
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None
+) -> LineMeasurement:
     """Preprocess every shot of ``run`` and measure the method's lines (module docstring).
 
     Parameters
@@ -530,6 +531,10 @@ def _fit_one_group(setup: _Setup, mean: np.ndarray, members: list[int], shift: f
     max_off = m.max_offset_nm if m.max_offset_nm else max(0.5 * fwhm0, 1.5 * setup.pitch)
     kind = lines[0].profile or m.profile
     try:
+        fixed = fit_group_fixed(setup.wl, mean, centres, lo_nm=lo, hi_nm=hi, kind=kind, fwhm=fwhm0)
+        snr = np.abs(fixed.areas) / np.sqrt(np.maximum(np.diag(fixed.cov_areas), 1e-300))
+        if not np.any(snr >= m.snr_detect):
+            return fixed  # nothing detected: keep the table shapes, no free fit of noise
         return fit_group(
             setup.wl,
             mean,
@@ -681,11 +686,14 @@ def _aggregate(
             snr = intensity / u if (u and np.isfinite(u) and u > 0) else float("nan")
             if not np.isfinite(snr) or snr < meas.snr_detect:
                 flags.add("not_found")
+                if ln.mode == "window":  # a peak position in noise means nothing
+                    centre = fwhm = float("nan")
             elif snr < meas.snr_min:
                 flags.add("low_snr")
             if pre.shift != "none" and abs(d) > flag_nm:
                 flags.add("shifted")
-            if "not_found" not in flags and np.isfinite(centre) and abs(centre - expected) > flag_nm:
+            well_measured = np.isfinite(snr) and snr >= meas.snr_min
+            if well_measured and np.isfinite(centre) and abs(centre - expected) > flag_nm:
                 flags.add("shifted")
             if nv == 1:
                 flags.add("single_shot")
@@ -753,11 +761,11 @@ def _aggregate(
     )
 
 
-def measure_lines(run, method: Method, chunk_shots: int | None = None, progress=None,
-                  chunk_mapper=None) -> pd.DataFrame:
+def measure_lines(
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None
+) -> pd.DataFrame:
     """The line table of :func:`measure_run` (docs/architecture.md columns)."""
-    return measure_run(run, method, chunk_shots=chunk_shots, progress=progress,
-                       chunk_mapper=chunk_mapper).table
+    return measure_run(run, method, chunk_shots=chunk_shots, progress=progress, chunk_mapper=chunk_mapper).table
 
 
 def mean_spectrum(
