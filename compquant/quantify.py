@@ -280,7 +280,11 @@ def quantify(
                 if ref is None or sid not in resp[el].index:
                     continue
                 m = resp[el].loc[sid]
-                pts.append((ref[0], float(m["y"]), float(m["u_y"]), sid))
+                # a setup measurement scatters about its expected response like any sample:
+                # its repeatability plus the curve's excess scatter sigma_m (docs/calibration.md)
+                uy = float(m["u_y"])
+                w0 = 1.0 / uy**2 if (c.weighted and uy > 0) else 1.0
+                pts.append((ref[0], float(m["y"]), float(np.sqrt(uy**2 + c.sigma_m2 / w0)), sid))
             coef = two_point(pts)
             if coef is None:
                 missing.append(key)
