@@ -150,13 +150,16 @@ def boltzmann_png(
     species=None,
     *,
     fits=None,
+    fit_y=None,
     yerr=None,
     title: str = "",
+    xlabel: str = "upper level energy E_k (eV)",
     ylabel: str = "ln(I·λ / (g_k·A_ki))",
 ) -> bytes:
     """Boltzmann plot: ``ln(I λ / (g_k A_ki))`` against upper-level energy, one colour per species.
 
-    ``fits`` maps a species name to ``(slope_per_eV, intercept)``; the plasma temperature is
+    ``fits`` maps a species name to ``(slope_per_eV, intercept)``, or ``fit_y`` gives the fitted
+    ordinate of every point (joined per species); the plasma temperature is
     ``T = -1 / (k_B · slope)`` with ``k_B`` in eV/K (architecture contract: energy-unit intensities).
     """
     E = np.asarray(upper_energy_eV, dtype=float)
@@ -184,7 +187,12 @@ def boltzmann_png(
             slope, icpt = fits[name]
             xx = np.linspace(E[m].min(), E[m].max(), 2)
             ax.plot(xx, slope * xx + icpt, "-", color=c, lw=1)
-    ax.set_xlabel("upper level energy E_k (eV)")
+        if fit_y is not None:
+            fy = np.asarray(fit_y, dtype=float)[m]
+            order = np.argsort(E[m])
+            ok = np.isfinite(fy[order])
+            ax.plot(E[m][order][ok], fy[order][ok], "-", color=c, lw=1)
+    ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     if title:
         ax.set_title(title, fontsize=9)

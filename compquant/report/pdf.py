@@ -465,7 +465,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
         if d.factors:
             dtxt += "<br/>Factors: " + E(", ".join(f"{k} {v:.4f}" for k, v in d.factors.items()))
     else:
-        dtxt = "Not applied. " + E(d.description) if d.description else "Not applied."
+        dtxt = "Not applied." + (" " + E(d.description[:1].upper() + d.description[1:]) if d.description else "")
     story.append(kv_table([("Drift standardisation", dtxt)]))
     story.append(P("Check samples", "h3"))
     if qc.check_samples:
@@ -655,7 +655,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
 
     # ---- figures ----------------------------------------------------------------------------------------
     if cert.figures:
-        story.append(P(f"{sec}  Figures", "h2"))
+        fig_head = [P(f"{sec}  Figures", "h2")]
         sec += 1
         for i, fig in enumerate(cert.figures, 1):
             png = fig.png
@@ -677,7 +677,8 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
             img.drawWidth = img.imageWidth * scale
             img.drawHeight = img.imageHeight * scale
             cap = f"<b>Figure {i}.</b> {E(fig.title)}" + (f" {E(fig.caption)}" if fig.caption else "")
-            story.append(KeepTogether([img, P(cap, "caption")]))
+            story.append(KeepTogether([*fig_head, img, P(cap, "caption")]))
+            fig_head = []
 
     # ---- safety -----------------------------------------------------------------------------------------
     story.append(P(f"{sec}  Safety notes", "h2"))
@@ -702,7 +703,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
         rows = [[f.role, f.name, f.sha256] for f in pv.files]
         data = [[P("Role", "cellb"), P("File", "cellb"), P("SHA-256", "cellb")]]
         data += [[P(E(a), "cell"), P(E(b), "cell"), P(E(h), "mono")] for a, b, h in rows]
-        t = Table(data, colWidths=[frame_w * 0.16, frame_w * 0.34, frame_w * 0.50], repeatRows=1)
+        t = Table(data, colWidths=[frame_w * 0.15, frame_w * 0.30, frame_w * 0.55], repeatRows=1)
         t.setStyle(
             TableStyle(
                 [
