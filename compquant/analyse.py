@@ -693,7 +693,7 @@ def analyse(
                 descriptions.get(sid, ""),
                 labp.sample_condition,
                 received if received else labp.sample_received,
-                measured,
+                measured.get(sid, ""),
                 n_shots_by_sample.get(sid),
                 run_path.name,
             ),
