@@ -187,6 +187,7 @@ class Calibration:
     settings: dict = field(default_factory=dict)  # validated [calibration] section
     lines: list = field(default_factory=list)
     pls: dict | None = None
+    method_path: str = ""
     created_utc: str = ""
     package_version: str = __version__
     schema: str = SCHEMA

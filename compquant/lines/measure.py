@@ -243,6 +243,22 @@ def _iter_raw(run, chunk: int):
         yield start, stop, run.read_raw(start, stop)
 
 
+def _chunk_results(run, setup, chunk: int, plan: ChunkPlan, chunk_mapper=None):
+    """``(start, stop, process_chunk(raw, sample_index, plan))`` for every chunk, in shot order.
+
+    Serial by default; ``chunk_mapper(run, ranges, plan)`` (e.g. from
+    :func:`compquant.parallel.chunk_mapper`) may compute the same function elsewhere and
+    must yield the results in the order of ``ranges``.
+    """
+    if chunk_mapper is None:
+        for start, stop, raw in _iter_raw(run, chunk):
+            yield start, stop, process_chunk(raw, setup.sample_index[start:stop], plan)
+        return
+    ranges = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
+    for (start, stop), res in zip(ranges, chunk_mapper(run, ranges, plan), strict=True):
+        yield start, stop, res
+
+
 # --------------------------------------------------------------------------- main driver
 
 
@@ -300,7 +316,7 @@ class _Setup:
                          background_level=pre.normalise == "background")
 
 
-def _find_shifts(run, setup: _Setup, chunk: int, progress) -> dict[int, float]:
+def _find_shifts(run, setup: _Setup, chunk: int, progress, chunk_mapper=None) -> dict[int, float]:
     """Pass 0: per-sample shift (nm) from the mean of dark/response-corrected spectra."""
     pre = setup.method.preprocess
     plan = setup.base_plan()
@@ -308,8 +324,7 @@ def _find_shifts(run, setup: _Setup, chunk: int, progress) -> dict[int, float]:
     plan.measure_windows = False
     sums: dict[int, np.ndarray] = {}
     counts: dict[int, int] = {}
-    for start, stop, raw in _iter_raw(run, chunk):
-        res = process_chunk(raw, setup.sample_index[start:stop], plan)
+    for start, stop, res in _chunk_results(run, setup, chunk, plan, chunk_mapper):
         _merge_sums(sums, counts, res)
         if progress:
             progress(stop - start)
@@ -345,7 +360,8 @@ def _merge_sums(sums, counts, res: ChunkResult) -> None:
         counts[s] = counts.get(s, 0) + res.counts[s]
 
 
-def measure_run(run, method: Method, chunk_shots: int | None = None, progress=None) -> LineMeasurement:
+def measure_run(run, method: Method, chunk_shots: int | None = None, progress=None,
+                chunk_mapper=None) -> LineMeasurement:
     """Preprocess every shot of ``run`` and measure the method's lines (module docstring).
 
     Parameters
@@ -355,6 +371,9 @@ def measure_run(run, method: Method, chunk_shots: int | None = None, progress=No
     chunk_shots : shots per streamed chunk (default ``[measure] chunk_shots``, 4096); peak
         memory grows about ``chunk_shots * n_pixels * 24`` bytes.
     progress : callable(n_shots_done_in_step) or None, called once per chunk and pass.
+    chunk_mapper : None (serial) or ``callable(run, ranges, plan)`` yielding
+        :func:`~compquant.lines.chunk.process_chunk` results in range order, e.g. on Dask
+        workers (:func:`compquant.parallel.chunk_mapper`); the results are the same.
 
     Raises
     ------
@@ -369,7 +388,7 @@ def measure_run(run, method: Method, chunk_shots: int | None = None, progress=No
     # pass 0: shifts
     shifts = {s: 0.0 for s in range(len(setup.sample_ids))}
     if pre.shift != "none":
-        shifts.update(_find_shifts(run, setup, chunk, progress))
+        shifts.update(_find_shifts(run, setup, chunk, progress, chunk_mapper))
     # pass 1: preprocessing + window lines + sums
     plan = setup.base_plan()
     ww_shared = setup.window_weights(0.0) if setup.win_idx else None
@@ -391,8 +410,7 @@ def measure_run(run, method: Method, chunk_shots: int | None = None, progress=No
     bg = np.empty(n_shots)
     sums: dict[int, np.ndarray] = {}
     counts: dict[int, int] = {}
-    for start, stop, raw in _iter_raw(run, chunk):
-        res = process_chunk(raw, setup.sample_index[start:stop], plan)
+    for start, stop, res in _chunk_results(run, setup, chunk, plan, chunk_mapper):
         if res.window is not None:
             win[start:stop] = res.window
         if res.sat_window is not None:
@@ -423,8 +441,7 @@ def measure_run(run, method: Method, chunk_shots: int | None = None, progress=No
                 fsup[np.ix_(gf.pixels, cols)] = True
             fplan.fit[s] = projs
             fplan.fit_support[s] = fsup
-        for start, stop, raw in _iter_raw(run, chunk):
-            res = process_chunk(raw, setup.sample_index[start:stop], fplan)
+        for start, stop, res in _chunk_results(run, setup, chunk, fplan, chunk_mapper):
             fit_vals[start:stop] = res.fit
             if res.sat_fit is not None:
                 sat[start:stop, setup.fit_idx] = res.sat_fit
@@ -611,9 +628,11 @@ def _aggregate(setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits,
         fits={(setup.sample_ids[s], g): f for (s, g), f in fits.items()})
 
 
-def measure_lines(run, method: Method, chunk_shots: int | None = None, progress=None) -> pd.DataFrame:
+def measure_lines(run, method: Method, chunk_shots: int | None = None, progress=None,
+                  chunk_mapper=None) -> pd.DataFrame:
     """The line table of :func:`measure_run` (docs/architecture.md columns)."""
-    return measure_run(run, method, chunk_shots=chunk_shots, progress=progress).table
+    return measure_run(run, method, chunk_shots=chunk_shots, progress=progress,
+                       chunk_mapper=chunk_mapper).table
 
 
 def mean_spectrum(run, method: Method, sample_id: str, chunk_shots: int | None = None) -> tuple[np.ndarray,

@@ -1,0 +1,201 @@
+"""Where the work runs: in this process, on a local Dask cluster, or on an existing one.
+
+:func:`open_executor` is a context manager that yields an :class:`Executor`:
+
+* no options: :class:`SerialExecutor`, everything in this process, in order;
+* ``workers=N``: a ``distributed.LocalCluster`` of ``N`` worker *processes* with one thread
+  each, listening on loopback only (127.0.0.1), shut down when the block ends;
+* ``scheduler="tcp://host:8786"``: a client of an existing Dask cluster (not shut down).
+
+Both executors offer the same two operations, so the serial and the distributed path call
+the same step functions and gather their results in the same order:
+
+* :meth:`Executor.map_ordered` maps a module-level function over items and yields the
+  results **in item order**, holding at most ``max_in_flight`` results at a time (bounded
+  memory);
+* :meth:`Executor.broadcast` ships a read-only context (method, dark reference, ...) to
+  every worker once.
+
+Functions sent to workers must live in importable modules (spawned worker processes import
+them by name); lambdas and ``__main__`` functions do not travel.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator
+from typing import Any
+
+from compquant.errors import ConfigError
+
+
+class SerialExecutor:
+    """Run every task here, one after another (the reference path)."""
+
+    kind = "serial"
+    n_workers = 1
+    address = None
+
+    def broadcast(self, value: Any) -> Any:
+        return value
+
+    def map_ordered(self, fn: Callable, items: Iterable, *args, max_in_flight: int | None = None, **kwargs) -> Iterator:
+        for item in items:
+            yield fn(item, *args, **kwargs)
+
+    def describe(self) -> str:
+        return "serial (this process)"
+
+
+class DaskExecutor:
+    """Tasks as ``distributed`` futures; results come back in submission order."""
+
+    kind = "dask"
+
+    def __init__(self, client):
+        self.client = client
+
+    @property
+    def n_workers(self) -> int:
+        return max(1, len(self.client.scheduler_info(n_workers=-1).get("workers", {})))
+
+    @property
+    def address(self) -> str:
+        return self.client.scheduler.address
+
+    def broadcast(self, value: Any) -> Any:
+        """Scatter ``value`` to every worker once; tasks receive the worker-local copy."""
+        return self.client.scatter(value, broadcast=True, hash=False)
+
+    def map_ordered(self, fn: Callable, items: Iterable, *args, max_in_flight: int | None = None, **kwargs) -> Iterator:
+        """Submit ``fn(item, *args, **kwargs)`` for every item; yield results in item order.
+
+        At most ``max_in_flight`` tasks (default 4 per worker) are pending or held, so the
+        memory on the client stays bounded however many items there are. A task that raises
+        re-raises here when its turn comes, after the earlier results were yielded.
+        """
+        limit = max_in_flight or 4 * self.n_workers
+        pending: deque = deque()
+        it = iter(items)
+        exhausted = False
+        try:
+            while True:
+                while not exhausted and len(pending) < limit:
+                    try:
+                        item = next(it)
+                    except StopIteration:
+                        exhausted = True
+                        break
+                    pending.append(self.client.submit(fn, item, *args, pure=False, **kwargs))
+                if not pending:
+                    return
+                fut = pending.popleft()
+                try:
+                    yield fut.result()
+                finally:
+                    fut.release()
+        finally:
+            for fut in pending:
+                fut.cancel()
+
+    def describe(self) -> str:
+        return f"Dask cluster at {self.address} ({self.n_workers} workers)"
+
+
+Executor = SerialExecutor | DaskExecutor
+
+
+def _check_address(address: str) -> str:
+    a = address.strip()
+    if not a or any(ch.isspace() for ch in a):
+        raise ConfigError(
+            f"scheduler address {address!r} is not an address",
+            where="--scheduler",
+            fix="give the scheduler address, e.g. tcp://10.0.0.5:8786",
+        )
+    if "://" not in a:
+        a = "tcp://" + a
+    return a
+
+
+@contextlib.contextmanager
+def open_executor(
+    workers: int | None = None,
+    scheduler: str | None = None,
+    *,
+    memory_limit: str | int | None = "auto",
+    timeout_s: float = 30.0,
+) -> Iterator:
+    """Yield an executor: serial, a local cluster of ``workers`` processes, or ``scheduler``'s cluster.
+
+    ``workers`` and ``scheduler`` exclude each other. The local cluster binds to 127.0.0.1
+    with no dashboard, one thread per worker process, and ``memory_limit`` per worker
+    (Dask's own accounting; ``"auto"`` shares the machine's memory).
+    """
+    if workers is not None and scheduler is not None:
+        raise ConfigError(
+            "both --workers and --scheduler given",
+            where="command line",
+            fix="use --workers N for a local cluster or --scheduler ADDRESS for an existing one",
+        )
+    if workers is None and scheduler is None:
+        yield SerialExecutor()
+        return
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError as exc:  # pragma: no cover - dask is a declared extra
+        raise ConfigError(
+            "Dask is not installed",
+            where="--workers/--scheduler",
+            fix="install compquant[scale] (dask[array], distributed)",
+        ) from exc
+    if scheduler is not None:
+        address = _check_address(scheduler)
+        try:
+            client = Client(address, timeout=timeout_s)
+        except (OSError, TimeoutError) as exc:
+            raise ConfigError(
+                f"cannot reach the Dask scheduler ({exc})",
+                where=address,
+                fix="check the address and that the scheduler is running",
+            ) from exc
+        try:
+            yield DaskExecutor(client)
+        finally:
+            client.close()
+        return
+    if int(workers) < 1:
+        raise ConfigError(
+            f"--workers {workers} is not a positive number", where="--workers", fix="give at least 1 worker"
+        )
+    # workers inherit this environment: keep numpy's BLAS to one thread per worker process
+    env = {k: "1" for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
+    old = {k: os.environ.get(k) for k in env}
+    os.environ.update({k: v for k, v in env.items() if old[k] is None})
+    try:
+        cluster = LocalCluster(
+            n_workers=int(workers),
+            threads_per_worker=1,
+            processes=True,
+            host="127.0.0.1",
+            dashboard_address=None,
+            memory_limit=memory_limit,
+            silence_logs=40,
+        )
+    finally:
+        for k, v in old.items():
+            if v is None:
+                os.environ.pop(k, None)
+    try:
+        client = Client(cluster)
+        try:
+            yield DaskExecutor(client)
+        finally:
+            client.close()
+    finally:
+        cluster.close()
+
+
+__all__ = ["DaskExecutor", "Executor", "SerialExecutor", "open_executor"]
