@@ -10,10 +10,12 @@ import click
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write
 
-SAFETY = ("Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-          "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
-          "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
-          "Follow local regulations and your laser safety officer.")
+SAFETY = (
+    "Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
+    "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
+    "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
+    "Follow local regulations and your laser safety officer."
+)
 
 
 def _write_csv(df, path: Path) -> None:
@@ -21,34 +23,69 @@ def _write_csv(df, path: Path) -> None:
         with atomic_write(path, "w", newline="") as fh:
             df.to_csv(fh, index=False, float_format="%.10g")
     except OSError as exc:
-        raise OutputError(f"cannot write ({exc.strerror})", where=str(path),
-                          fix="choose a writable output path") from exc
+        raise OutputError(
+            f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
+        ) from exc
 
 
 def _short_table(table) -> str:
     cols = ("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")
     rows = [cols]
     for r in table.itertuples(index=False):
-        rows.append((str(r.sample_id), str(r.line_id), f"{r.intensity:.4g}", f"{r.u_intensity:.2g}",
-                     str(r.n_shots), f"{r.snr:.1f}", r.flags or "-"))
+        rows.append(
+            (
+                str(r.sample_id),
+                str(r.line_id),
+                f"{r.intensity:.4g}",
+                f"{r.u_intensity:.2g}",
+                str(r.n_shots),
+                f"{r.snr:.1f}",
+                r.flags or "-",
+            )
+        )
     w = [max(len(x[i]) for x in rows) for i in range(len(cols))]
-    return "\n".join("  ".join(c.ljust(w[i]) if i in (0, 1, 6) else c.rjust(w[i])
-                               for i, c in enumerate(row)) for row in rows)
+    return "\n".join(
+        "  ".join(c.ljust(w[i]) if i in (0, 1, 6) else c.rjust(w[i]) for i, c in enumerate(row)) for row in rows
+    )
 
 
 @click.command("lines", epilog=SAFETY)
 @click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False),
-              help="Method file (TOML, docs/method-file.md).")
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Line table CSV (one row per sample and line).")
-@click.option("--shots", "shots_path", type=click.Path(dir_okay=False), default=None,
-              help="Per-shot CSV [default: <output stem>-shots.csv beside the output].")
+@click.option(
+    "--method",
+    "method_path",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Method file (TOML, docs/method-file.md).",
+)
+@click.option(
+    "-o",
+    "--output",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Line table CSV (one row per sample and line).",
+)
+@click.option(
+    "--shots",
+    "shots_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Per-shot CSV [default: <output stem>-shots.csv beside the output].",
+)
 @click.option("--no-shots", is_flag=True, help="Do not write the per-shot CSV.")
-@click.option("--qc", "qc_path", type=click.Path(dir_okay=False), default=None,
-              help="Shot-QC report CSV [default: <output stem>-qc.csv].")
-@click.option("--chunk-shots", type=int, default=None,
-              help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].")
+@click.option(
+    "--qc",
+    "qc_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Shot-QC report CSV [default: <output stem>-qc.csv].",
+)
+@click.option(
+    "--chunk-shots",
+    type=int,
+    default=None,
+    help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].",
+)
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
 def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, quiet):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,

@@ -125,10 +125,8 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
         sib = si[r0:r1]
         samples_here = np.unique(sib)
         sat = None
-        if plan.saturation_threshold is not None:
-            satb = rb >= plan.saturation_threshold
-            if satb.any():
-                sat = satb
+        if plan.saturation_threshold is not None and rb.max() >= plan.saturation_threshold:
+            sat = rb >= plan.saturation_threshold
         if plan.inv_response is not None:
             y *= plan.inv_response
         if plan.baseline == "snip":
@@ -168,5 +166,6 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                 else:
                     sums[s] = add
                 counts[s] = counts.get(s, 0) + (ys.shape[0])
-    return ChunkResult(window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total,
-                       background=bg, sums=sums, counts=counts)
+    return ChunkResult(
+        window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total, background=bg, sums=sums, counts=counts
+    )

@@ -96,9 +96,19 @@ def _design(x, centres, sig, gam, kind, x_ref):
     return np.column_stack(cols)
 
 
-def fit_group(wavelength, spectrum, centres0, *, lo_nm: float, hi_nm: float, kind: str = "voigt",
-              shared_width: bool = True, fwhm0: float, max_offset_nm: float,
-              max_fwhm_nm: float | None = None) -> GroupFit:
+def fit_group(
+    wavelength,
+    spectrum,
+    centres0,
+    *,
+    lo_nm: float,
+    hi_nm: float,
+    kind: str = "voigt",
+    shared_width: bool = True,
+    fwhm0: float,
+    max_offset_nm: float,
+    max_fwhm_nm: float | None = None,
+) -> GroupFit:
     """Fit ``len(centres0)`` lines of one group in ``[lo_nm, hi_nm]`` of ONE spectrum.
 
     Parameters
@@ -184,12 +194,13 @@ def fit_group(wavelength, spectrum, centres0, *, lo_nm: float, hi_nm: float, kin
     npar = p0.size
     if m <= npar:
         raise ValueError("fit window holds fewer pixels than parameters")
-    res = least_squares(resid, p0, bounds=(lb, ub), method="trf", x_scale="jac", xtol=1e-12,
-                        ftol=1e-12, gtol=1e-12, max_nfev=2000)
+    res = least_squares(
+        resid, p0, bounds=(lb, ub), method="trf", x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=2000
+    )
     p = res.x
     A, c, s, g, b = unpack(p)
     J = res.jac * scale
-    r = (model(p) - yy)
+    r = model(p) - yy
     rss = float(r @ r)
     dof = m - npar
     s2 = rss / dof
@@ -197,6 +208,18 @@ def fit_group(wavelength, spectrum, centres0, *, lo_nm: float, hi_nm: float, kin
     G = _design(x, c, s, g, kind, x_ref)
     cov_lin = np.linalg.pinv(G.T @ G) * s2
     fw = np.array([fwhm_of(kind, s[j], g[j]) for j in range(n)])
-    return GroupFit(areas=A.copy(), cov_areas=cov[:n, :n], var_areas_linear=np.diag(cov_lin)[:n].copy(),
-                    centres=c.copy(), fwhm=fw, sigma=s.copy(), gamma=g.copy(), pixels=pix, design=G,
-                    success=bool(res.success), message=str(res.message), rss=rss, dof=dof)
+    return GroupFit(
+        areas=A.copy(),
+        cov_areas=cov[:n, :n],
+        var_areas_linear=np.diag(cov_lin)[:n].copy(),
+        centres=c.copy(),
+        fwhm=fw,
+        sigma=s.copy(),
+        gamma=g.copy(),
+        pixels=pix,
+        design=G,
+        success=bool(res.success),
+        message=str(res.message),
+        rss=rss,
+        dof=dof,
+    )
