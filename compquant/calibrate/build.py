@@ -338,6 +338,7 @@ def calibrate(
     run_sha256: str = "",
     run_path: str = "",
     pls=None,
+    method_path: str = "",
 ) -> Calibration:
     """Fit every analyte curve of ``config`` to the standards in ``line_table``.
 
@@ -384,6 +385,7 @@ def calibrate(
         settings=config.to_dict(),
         lines=lines,
         pls=pls,
+        method_path=str(method_path),
     )
 
 
