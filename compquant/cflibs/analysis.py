@@ -20,11 +20,11 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 from scipy.optimize import minimize_scalar
+from scipy.special import chdtrc
 
 from compquant.cflibs.atomicdata import default_atomic_data, species_name
-from compquant.cflibs.constants import K_B_EV
+from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
 from compquant.cflibs.density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
 from compquant.cflibs.electron_density import FixedNe, HAlphaNe, StarkLinesNe
 from compquant.cflibs.fitting import wls_batch
@@ -225,11 +225,11 @@ class _Analysis:
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
         t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
         wl[have] = stark_width_linear(ne, L.stark_w[have], L.stark_ne[have], T, t_ref[have],
-                                      self.s.stark_t_exponent)
+                                      self.s.stark_t_exponent, L.stark_p[have])
         meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(meas):
             wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
-            wl[meas] = lorentz_from_voigt(L.fwhm[meas] * sa[meas] ** (-EL_SHERBINI_ALPHA), wg)
+            wl[meas] = lorentz_from_voigt(L.fwhm[meas], wg) * sa[meas] ** (-EL_SHERBINI_ALPHA)
         return wl
 
     def sa_cog(self, sol: Solution, length_cm: float, sa_prev):
@@ -293,6 +293,109 @@ class _Analysis:
         sol = self.solve_central(sa, ne_name, ne_est)
         return sa, sol, tau, ne_name, ne_est
 
+    def sa_of_beta(self, beta, length_cm, ne_est, groups):
+        """SA of every line implied by the fit parameters β (T, intercepts[, ln nₑ]) and L."""
+        m = beta[0]
+        T = np.array([-1.0 / (K_B_EV * m)])
+        ne = np.exp(np.array([beta[-1]])) if ne_est is None else np.atleast_1d(ne_est(T))[:1]
+        ln_n_el, ln_sp = self.model._composition(beta[None, :], groups, T, ne)
+        fake = Solution(T=T, ne=ne, u_ln_ne_fit=None, slope=np.array([m]), u_slope=np.zeros(1), fit=None,
+                        X=None, y=None, groups=groups, elements=self.model.elements, ln_n_el=ln_n_el,
+                        ln_n_species=ln_sp, number_fraction=None, mass_fraction=None,
+                        valid=np.ones(1, bool), iterations=0, ne_from_fit=ne_est is None)
+        return self.sa_cog(fake, length_cm, np.ones(self.L.n))[0], T[0], ne[0]
+
+    def nls_selfabs(self, length_cm, ne_pick, fit_length: bool, coarse: bool = False):
+        """Self-absorbed Saha–Boltzmann fit by nonlinear least squares.
+
+        The model ordinate of line i is the optically thin one plus ln SA_i, where SA_i
+        follows from the curve of growth of a homogeneous slab whose densities are those of
+        the current parameters (T, intercepts → closure, nₑ → absolute scale by charge
+        neutrality) and whose length L is given or fitted (columnar density n·L,
+        Cristoforetti & Tognoni 2013).  Minimises Σ w_i (y_i − ŷ_i)² with
+        :func:`scipy.optimize.least_squares`, started from the fixed-point solution and from
+        the optically thin solution (the fixed point alone can settle on a too-hot, too-thin
+        branch).  Returns ``(sa, sol, tau, ne_name, ne_est, length_cm, chi2)``.
+        """
+        from scipy.optimize import least_squares
+
+        s = self.s
+        sa = np.ones(self.L.n)
+        best = None
+        for _outer in range(2):
+            ne_name, ne_est = ne_pick(sa)
+            ne_free = ne_est is None
+            X, groups = self.model.design(ne_free)
+            y_raw = np.log(self.L.intensity) + self.model.y0 - self.ln_zeta
+            sw = np.sqrt(self.w)
+
+            def resid(theta, X=X, groups=groups, ne_est=ne_est, y_raw=y_raw, sw=sw, ne_free=ne_free,
+                      ion=self.model.is_ion):
+                beta = theta[:X.shape[1]]
+                L_cm = math.exp(theta[-1]) if fit_length else length_cm
+                m = beta[0]
+                if not (m < 0):
+                    return np.full(self.L.n, 1e6)
+                T = -1.0 / (K_B_EV * m)
+                if not (0.5 * s.t_min_k <= T <= 2.0 * s.t_max_k):
+                    return np.full(self.L.n, 1e6)
+                try:
+                    sa_i, T_, ne_ = self.sa_of_beta(beta, L_cm, ne_est, groups)
+                except PhysicsError:
+                    return np.full(self.L.n, 1e6)
+                shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T) + float(
+                    self.model.lowering(np.array([T]), np.array([ne_]), 1)[0]) / (K_B_EV * T)
+                if not ne_free:
+                    shift -= math.log(ne_)
+                pred = X @ beta + np.where(ion, shift, 0.0) + np.log(np.maximum(sa_i, 1e-300))
+                return sw * (y_raw - pred)
+
+            starts = []
+            thin = self.solve_central(np.ones(self.L.n), ne_name, ne_est)
+            fp = self.solve_central(sa, ne_name, ne_est)
+            for sol0, l0 in ((fp, length_cm if length_cm else 0.05), (thin, 1e-3)):
+                b0 = sol0.fit.beta[0].copy()
+                th = np.concatenate([b0, [math.log(max(l0, 1e-5))]]) if fit_length else b0
+                starts.append(th)
+            for th0 in starts:
+                try:
+                    res = least_squares(resid, th0, method="lm" if not fit_length else "trf",
+                                        x_scale="jac", max_nfev=80 if coarse else 300,
+                                        xtol=1e-6 if coarse else 1e-10, ftol=1e-6 if coarse else 1e-12)
+                except (ValueError, FloatingPointError):
+                    continue
+                chi2 = float(np.sum(res.fun**2))
+                if best is None or chi2 < best[0]:
+                    best = (chi2, res.x, X, groups, ne_name, ne_est)
+            chi2, th, X, groups, ne_name, ne_est = best
+            L_cm = math.exp(th[-1]) if fit_length else length_cm
+            sa_new, _, _ = self.sa_of_beta(th[:X.shape[1]], L_cm, ne_est, groups)
+            step = float(np.max(np.abs(np.log(np.maximum(sa_new, 1e-300)) - np.log(sa))))
+            sa = np.maximum(sa_new, 1e-300)
+            best = None
+            if step < 1e-4:
+                break
+        ne_name, ne_est = ne_pick(sa)
+        sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
+        _, tau = self.sa_cog(sol, L_cm, sa)
+        return sa, sol, tau, ne_name, ne_est, L_cm, chi2
+
+    def selfabs_corrected(self, length_cm, ne_pick, fit_length: bool):
+        """:meth:`nls_selfabs`, removing the thickest line while any SA < sa_min_factor."""
+        while True:
+            out = self.nls_selfabs(length_cm, ne_pick, fit_length)
+            sa = out[0]
+            if np.any(sa < self.s.sa_min_factor) and self.L.n > 2:
+                # hopeless lines (SA < sa_min/3) go at once; near the limit, the worst one only
+                worst = sa < self.s.sa_min_factor / 3.0
+                if not np.any(worst) or np.all(worst):
+                    worst = np.zeros(self.L.n, bool)
+                    worst[int(np.argmin(sa))] = True
+                self.sa = np.ones(self.L.n)
+                self.drop_lines(worst, f"too optically thick (SA < {self.s.sa_min_factor})")
+                continue
+            return out
+
     def run(self, mc_draws, seed) -> CFResult:
         s = self.s
 
@@ -314,17 +417,18 @@ class _Analysis:
         mode = s.self_absorption
         if mode == "curve_of_growth":
             length_cm = s.plasma_length_mm / 10.0
-            self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
+            self.sa, sol, tau, ne_name, ne_est, _, _ = self.selfabs_corrected(length_cm, ne_pick, False)
             self.sa_info.update(plasma_length_mm=s.plasma_length_mm, fitted=False)
         elif mode in ("columnar", "detect"):
-            length_cm, chi_thin, chi_best = self.fit_length(ne_pick, coarse=mode == "detect")
-            self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
-                                chi2_thin=chi_thin, chi2_fitted=chi_best)
+            chi_thin = float(sol.fit.chi2[0])
             if mode == "columnar":
-                self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
+                self.sa, sol, tau, ne_name, ne_est, length_cm, chi = self.selfabs_corrected(
+                    None, ne_pick, True)
             else:
-                sa_d, sol_d, tau, *_ = self.iterate_cog(length_cm, ne_pick, max_iter=15, tol=1e-3)
+                sa_d, _sol_d, tau, _n, _e, length_cm, chi = self.nls_selfabs(None, ne_pick, True, coarse=True)
                 self.sa_detect_cog = sa_d
+            self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
+                                chi2_thin=chi_thin, chi2_fitted=chi)
         elif mode == "reference_line":
             self.sa, sol, ne_name, ne_est = self.reference_line(sol, ne_pick)
         self._T_guess = float(sol.T[0])
@@ -394,36 +498,64 @@ class _Analysis:
 
     # -- detection -----------------------------------------------------------------------
     def detection(self, sol):
-        """Per-line SA estimates that do not change the result (docs: detection)."""
+        """Per-line SA estimates that do not change the result, each with a standard
+        uncertainty so that only significant departures are flagged (docs: detection).
+
+        * ``sa_ratio``: intensity ratio to the species' most nearly thin line (smallest
+          λ³ g_k A_ki e^{−E_i/kT} among lines measured to ≤ 10 %) over the optically thin
+          ratio at the fitted T (Sun & Yu 2009); u from both lines' ordinate u;
+        * ``sa_width``: El Sherbini et al. 2005 from the Stark width expected at nₑ (only when
+          nₑ came from another method); u from the width and Stark-parameter accuracy;
+        * ``sa_cog``: curve of growth at the fitted plasma length, counted only when fitting
+          the length lowered χ² by more than 4 (one extra parameter at about 2σ).
+        """
         L = self.L
         T = float(sol.T[0])
         ne = float(sol.ne[0])
-        out = {"sa_ratio": np.full(L.n, np.nan), "sa_width": np.full(L.n, np.nan),
-               "sa_cog": np.full(L.n, np.nan), "ref_line": [""] * L.n}
+        nan = np.full(L.n, np.nan)
+        out = {"sa_ratio": nan.copy(), "u_sa_ratio": nan.copy(), "sa_width": nan.copy(),
+               "u_sa_width": nan.copy(), "sa_cog": nan.copy(), "u_sa_cog": np.zeros(L.n),
+               "ref_line": [""] * L.n}
         corrected_i = L.intensity / self.sa / np.exp(self.ln_zeta)
         proxy = L.wl**3 * L.gA * np.exp(-L.ei / (K_B_EV * T))
+        rel_i = np.where(L.intensity > 0, L.u_intensity / L.intensity, np.inf)
         for sp in sorted(set(L.species)):
             idx = np.flatnonzero(L.species == sp)
             if len(idx) < 2:
                 continue
-            r = int(np.argmin(proxy[idx]))
+            good = idx[rel_i[idx] <= 0.1]
+            pool = good if len(good) else idx
+            ref = pool[int(np.argmin(proxy[pool]))]
+            r = int(np.flatnonzero(idx == ref)[0])
             out["sa_ratio"][idx] = sa_reference_line(corrected_i[idx], L.wl[idx], L.gA[idx], L.ek[idx], r, T)
+            out["u_sa_ratio"][idx] = out["sa_ratio"][idx] * np.sqrt(self.u_y[idx] ** 2 + self.u_y[ref] ** 2)
+            out["u_sa_ratio"][ref] = 0.0
             for i in idx:
-                out["ref_line"][i] = str(L.line_id[idx[r]])
+                out["ref_line"][i] = str(L.line_id[ref])
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(have) and self.ne_name not in ("stark",):
             t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
-            w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent)
+            w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent,
+                                          L.stark_p)
             wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(L.wl, T, self.mass_line) ** 2)
-            with np.errstate(invalid="ignore"):
+            with np.errstate(invalid="ignore", divide="ignore"):
                 w_obs_l = lorentz_from_voigt(L.fwhm, wg)
                 est = sa_from_width(np.maximum(w_obs_l, 1e-12), w_thin_l)
-            out["sa_width"] = np.where(have & (w_obs_l > 0), est, np.nan)
+            ok = have & (w_obs_l > 0)
+            out["sa_width"] = np.where(ok, est, np.nan)
+            u_ln_ne = self.ne_est.u_ln(np.array([T])) if self.ne_est is not None else (
+                float(sol.u_ln_ne_fit[0]) if sol.u_ln_ne_fit is not None else 0.0)
+            u_ln_w = math.sqrt(self.s.u_rel_fwhm**2 + self.s.stark_param_u_rel**2 + u_ln_ne**2)
+            out["u_sa_width"] = np.where(ok, est * u_ln_w / abs(EL_SHERBINI_ALPHA), np.nan)
         cog = getattr(self, "sa_detect_cog", None)
-        if self.s.self_absorption in ("curve_of_growth", "columnar"):
+        info = self.sa_info
+        if self.s.self_absorption == "detect" and cog is not None:
+            if info.get("chi2_thin", 0.0) - info.get("chi2_fitted", 0.0) <= 4.0:
+                cog = None  # fitting a plasma length does not improve the fit significantly
+        if self.s.self_absorption in ("curve_of_growth", "columnar", "reference_line"):
             cog = self.sa
         if cog is not None:
-            out["sa_cog"] = cog
+            out["sa_cog"] = np.asarray(cog, dtype=float)
         return out
 
     # -- Monte Carlo -------------------------------------------------------------------
@@ -502,7 +634,7 @@ class _Analysis:
         # fit quality
         fit = sol.fit
         chi2, dof = float(fit.chi2[0]), fit.dof
-        p = float(stats.chi2.sf(chi2, dof)) if dof > 0 else float("nan")
+        p = float(chdtrc(dof, chi2)) if dof > 0 else float("nan")  # χ² survival function
         if dof > 0 and p < 1e-3:
             self.flags.append("cf_fit_poor")
         det = self.detection(sol)
@@ -586,9 +718,12 @@ class _Analysis:
         rows = []
         for i in range(L.n):
             fl = []
-            sa_est = [v for v in (det["sa_cog"][i], det["sa_ratio"][i], det["sa_width"][i]) if np.isfinite(v)]
-            if self.sa[i] < self.s.sa_flag_below or (sa_est and min(sa_est) < self.s.sa_flag_below
-                                                     and self.s.self_absorption in ("detect", "none")):
+            lim = self.s.sa_flag_below
+            significant = [v for v, u in ((det["sa_cog"][i], det["u_sa_cog"][i]),
+                                          (det["sa_ratio"][i], det["u_sa_ratio"][i]),
+                                          (det["sa_width"][i], det["u_sa_width"][i]))
+                           if np.isfinite(v) and v < lim and (1.0 - v) > 2.0 * (u if np.isfinite(u) else 0.0)]
+            if self.sa[i] < lim or (significant and self.s.self_absorption in ("detect", "none")):
                 fl.append("self_absorbed")
             if self.sa[i] <= self.s.sa_min_factor + 1e-12:
                 fl.append("sa_correction_capped")
@@ -604,7 +739,8 @@ class _Analysis:
                 "one_point_factor": float(math.exp(self.ln_zeta[i])),
                 "tau0": None if self.tau is None else float(self.tau[i]),
                 "sa_cog": float(det["sa_cog"][i]), "sa_ratio": float(det["sa_ratio"][i]),
-                "sa_width": float(det["sa_width"][i]), "reference_line": det["ref_line"][i],
+                "u_sa_ratio": float(det["u_sa_ratio"][i]), "sa_width": float(det["sa_width"][i]),
+                "u_sa_width": float(det["u_sa_width"][i]), "reference_line": det["ref_line"][i],
                 "flags": fl,
             })
         return rows
