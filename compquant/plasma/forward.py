@@ -7,22 +7,23 @@ slab.  The steps (equations in the modules named and in docs/physics.md):
 
 1. species densities from the LTE solver (:mod:`compquant.plasma.lte`:
    Saha-Boltzmann with charge neutrality);
-2. per line and shot the integrated emissivity eps = hc/(4 pi lambda) A n_k and,
-   with self-absorption, the integrated absorption coefficient
-   (:mod:`compquant.plasma.emission`);
-3. a physical profile per line and shot: Voigt of the Doppler width (T) and the
-   Stark width and shift (n_e) (:mod:`compquant.plasma.profiles`), evaluated on a
-   fine wavelength grid (``oversample`` cells per pixel, plus dense cells around
-   each line core) and renormalised to unit area inside the line's window
-   (+-25 FWHM, at least +-0.3 nm) so that the integrated intensity is exact;
-4. the continuum (:mod:`compquant.plasma.continuum`);
-5. radiance per cell: thin ``I = eps L`` or slab
-   ``I = (eps/kappa)(1 - exp(-kappa L)) = B(T)(1 - exp(-kappa L))``
-   (:mod:`compquant.plasma.slab`);
-6. instrument function and pixel integration in one sparse matrix: cell j with
-   width w_j at lambda_j adds ``w_j [Phi((b_p - lambda_j)/s_j) - Phi((a_p -
-   lambda_j)/s_j)]`` of its radiance to pixel p = [a_p, b_p] (Gaussian of FWHM
-   lambda_j/R, s = FWHM/2.3548), which conserves the integrated radiance.
+2. per line and shot the integrated emissivity eps = hc/(4 pi lambda) A n_k and
+   the integrated absorption coefficient (:mod:`compquant.plasma.emission`);
+3. a fine wavelength grid (``oversample`` cells per pixel plus dense cells around
+   each line core) and one sparse matrix for the instrument function and pixel
+   integration: cell j of width w_j at lambda_j adds ``w_j [Phi((b_p -
+   lambda_j)/s_j) - Phi((a_p - lambda_j)/s_j)]`` of its radiance to pixel p =
+   [a_p, b_p] (Gaussian of FWHM lambda_j/R, s = FWHM/2.3548); it conserves the
+   integrated radiance;
+4. optically thin lines (line-centre optical depth below ``thin_tau``): eps L per
+   shot times the line's unit pixel profile (Voigt of Doppler and Stark widths at
+   the nominal conditions, renormalised to unit area in the line's window of
+   +-25 FWHM, at least +-0.3 nm, then through the matrix of step 3);
+5. self-absorbed lines: per shot the Voigt profile (Doppler width from T, Stark
+   width and shift from n_e) on the fine cells of their windows, and the slab
+   radiance ``I = (eps/kappa)(1 - exp(-kappa L)) = B(T)(1 - exp(-kappa L))``
+   (:mod:`compquant.plasma.slab`), then through the matrix;
+6. the continuum (:mod:`compquant.plasma.continuum`) at the pixel centres, thin.
 
 Everything is vectorised over shots: T and n_e are arrays (one value per shot);
 shots are processed in chunks to bound memory.  Data glue (line list, partition
@@ -43,7 +44,7 @@ from scipy.special import ndtr
 from compquant.errors import PhysicsError
 from compquant.plasma.constants import KB_EV
 from compquant.plasma.continuum import continuum_emissivity
-from compquant.plasma.emission import line_absorption_integrated, line_emissivity_lte, planck_radiance
+from compquant.plasma.emission import line_absorption_integrated, line_emissivity_lte
 from compquant.plasma.lte import LTEState, mass_to_number_fractions, solve_lte
 from compquant.plasma.profiles import (
     FWHM_TO_SIGMA,
@@ -251,6 +252,9 @@ class SpectrumModel:
     masses_u : element -> mass (u), default compquant.atomic.
     stark_t_exponent : exponent a of the (T/T_ref)^a Stark-width scaling (default 0).
     chunk_shots : shots per internal chunk (memory bound).
+    thin_tau : lines whose line-centre optical depth stays below this in every shot
+        are treated as optically thin (integrated intensity times the unit pixel
+        profile at the nominal widths; error about thin_tau/2 of the line).
     """
 
     def __init__(self, instrument: Instrument, lines: LineSet, *, self_absorption: bool = False,
@@ -258,7 +262,7 @@ class SpectrumModel:
                  nominal_ne_cm3: float = 1e17, max_stage: int = 2, lowering: bool = True,
                  partition_function: Callable | None = None, ionisation_energy: Callable | None = None,
                  masses_u: Mapping[str, float] | None = None, stark_t_exponent: float = 0.0,
-                 chunk_shots: int = 64):
+                 chunk_shots: int = 64, thin_tau: float = 1e-3):
         self.instrument = instrument
         self.self_absorption = bool(self_absorption)
         self.continuum = bool(continuum)
@@ -268,6 +272,7 @@ class SpectrumModel:
         self.ionisation_energy = ionisation_energy
         self.stark_t_exponent = float(stark_t_exponent)
         self.chunk_shots = max(1, int(chunk_shots))
+        self.thin_tau = float(thin_tau)
         self._masses_arg = masses_u
         keep = lines.stage <= self.max_stage
         lines = lines.subset(keep)
@@ -309,8 +314,10 @@ class SpectrumModel:
         base_step = np.interp(centre, edges[:-1], np.diff(edges)) / os_ if len(lines) else np.zeros(0)
         for c, f, bs in zip(centre, wv, base_step):
             if f < 4 * bs:  # core not resolved by the base grid: add dense cells
-                step = f / 10.0
-                nodes.append(c + step * np.arange(-150, 151))
+                nodes.append(c + f * np.arange(-30, 31) / 10.0)  # FWHM/10 over +-3 FWHM
+                wing = f * np.arange(3.4, 15.01, 0.4)  # FWHM/2.5 out to +-15 FWHM
+                nodes.append(c + wing)
+                nodes.append(c - wing)
         nodes = np.unique(np.concatenate(nodes))
         nodes = nodes[(nodes >= lo - 1e-9) & (nodes <= hi + 1e-9)]
         keep = np.concatenate([[True], np.diff(nodes) > 1e-9])
@@ -336,7 +343,22 @@ class SpectrumModel:
         rows = np.broadcast_to(np.arange(self.cell_mid.size)[:, None], pix.shape)[ok]
         self._pixel_matrix_t = sparse.csr_matrix((val[ok], (pix[ok], rows)),
                                                  shape=(n_pix, self.cell_mid.size))
+        self._pixel_matrix_csc = self._pixel_matrix_t.tocsc()
+        self._pixel_width = np.diff(edges)
+        self._thick_cache = {}
         self.n_pixels = n_pix
+        # unit pixel profiles of every line at the nominal conditions (columns: lines)
+        cols = []
+        for j in range(len(lines)):
+            j0, j1 = self.window[j]
+            if j1 <= j0:
+                cols.append(sparse.csc_matrix((n_pix, 1)))
+                continue
+            phi = voigt(self.cell_mid[j0:j1], centre[j], wg[j], wl[j])
+            phi = phi / (phi @ self.cell_width[j0:j1])
+            col = self._pixel_matrix_csc[:, j0:j1] @ phi
+            cols.append(sparse.csc_matrix(np.where(col > 1e-300, col, 0.0)[:, None]))
+        self._unit_profiles_t = sparse.hstack(cols, format="csr") if cols else sparse.csr_matrix((n_pix, 0))
 
     # --------------------------------------------------------------- physics
     def _fractions(self, composition, basis):
@@ -407,57 +429,125 @@ class SpectrumModel:
             st = solve_lte(t[a:b], ne[a:b], fractions, partition_function=self.partition_function,
                            ionisation_energy=self.ionisation_energy, max_stage=self.max_stage,
                            lowering=self.lowering)
-            cell = self._cell_radiance(st, float(length_mm) * 1e-3)
-            out[a:b] = (self._pixel_matrix_t @ cell.T).T
+            out[a:b] = self._chunk_radiance(st, float(length_mm) * 1e-3)
         if scale is not None:
             out *= np.broadcast_to(np.asarray(scale, dtype=float), (t.size,))[:, None]
         return out
 
-    def _cell_radiance(self, st: LTEState, length_m: float) -> np.ndarray:
-        t = st.temperature_k
-        ne = st.ne_cm3
-        nc = t.size
-        mid = self.cell_mid
-        w = self.cell_width
-        emis = np.zeros((nc, mid.size))
-        kap = np.zeros((nc, mid.size)) if self.self_absorption else None
-        eps, kint = self.line_quantities(st)
+    def thick_lines(self, st: LTEState, length_m: float) -> np.ndarray:
+        """Boolean mask of the lines given the full slab treatment for these shots.
+
+        A line is thick when its line-centre optical depth exceeds ``thin_tau`` in
+        any shot; a line whose centre lies in the window of a thick line joins it
+        (it is absorbed by that line's wing).
+        """
+        n = len(self.lines)
+        if not self.self_absorption or n == 0:
+            return np.zeros(n, dtype=bool)
+        t = np.atleast_1d(st.temperature_k)
+        ne = np.atleast_1d(st.ne_cm3)
+        _, kint = self.line_quantities(st)
         L = self.lines
-        for j in range(len(L)):
-            if not np.any(eps[:, j] > 0):
-                continue
+        wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
+        wl = stark_fwhm(L.stark_w_nm[None, :], ne[:, None], L.stark_ne_ref_cm3[None, :], t[:, None],
+                        L.stark_t_ref_k[None, :], self.stark_t_exponent, L.stark_ne_exponent[None, :])
+        tau0 = kint * voigt(0.0, 0.0, wg, wl) * length_m
+        thick = tau0.max(axis=0) > self.thin_tau
+        if thick.any():
+            centre_cell = np.searchsorted(self.cell_mid, L.wavelength_nm)
+            for j in np.flatnonzero(thick):
+                j0, j1 = self.window[j]
+                thick |= (centre_cell >= j0) & (centre_cell < j1)
+        return thick
+
+    def _chunk_radiance(self, st: LTEState, length_m: float) -> np.ndarray:
+        t = np.atleast_1d(st.temperature_k)
+        ne = np.atleast_1d(st.ne_cm3)
+        nc = t.size
+        eps, kint = self.line_quantities(st)
+        thick = self.thick_lines(st, length_m)
+        # optically thin lines: integrated radiance per shot times the unit pixel profile
+        thin_eps = np.where(thick[None, :], 0.0, eps) * length_m
+        out = (self._unit_profiles_t @ thin_eps.T).T if len(self.lines) else np.zeros((nc, self.n_pixels))
+        if self.continuum:
+            zz = np.zeros(nc)
+            for sp, n in st.densities.items():
+                z = _ROMAN[sp.split()[1]] - 1
+                if z > 0:
+                    zz = zz + z * z * np.atleast_1d(n)
+            wl = self.instrument.wavelength_nm
+            out += continuum_emissivity(wl[None, :], t[:, None], ne[:, None], zz[:, None]) * \
+                (self._pixel_width[None, :] * length_m)
+        if thick.any():
+            out += self._thick_radiance(np.flatnonzero(thick), t, ne, eps, kint, length_m)
+        return out
+
+    def _thick_radiance(self, idx, t, ne, eps, kint, length_m):
+        """Slab radiance of the thick lines on their fine cells, through the instrument matrix."""
+        key = tuple(int(i) for i in idx)
+        cached = self._thick_cache.get(key)
+        if cached is None:
+            cells = np.unique(np.concatenate([np.arange(*self.window[j]) for j in idx]))
+            cached = (cells, self._pixel_matrix_csc[:, cells].tocsr())
+            if len(self._thick_cache) > 32:
+                self._thick_cache.clear()
+            self._thick_cache[key] = cached
+        cells, matrix = cached
+        mid = self.cell_mid[cells]
+        w = self.cell_width[cells]
+        nc = t.size
+        emis = np.zeros((nc, cells.size))
+        kap = np.zeros((nc, cells.size))
+        L = self.lines
+        for j in idx:
             j0, j1 = self.window[j]
-            if j1 <= j0:
+            if j1 <= j0 or not np.any(eps[:, j] > 0):
                 continue
-            x = mid[j0:j1]
+            lo = np.searchsorted(cells, j0)
+            hi = lo + (j1 - j0)
+            x = mid[lo:hi]
             wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
             wl = stark_fwhm(L.stark_w_nm[j], ne, L.stark_ne_ref_cm3[j], t, L.stark_t_ref_k[j],
                             self.stark_t_exponent, L.stark_ne_exponent[j])
             sh = np.nan_to_num(stark_shift(L.stark_shift_nm[j], ne, L.stark_ne_ref_cm3[j], t,
                                            L.stark_t_ref_k[j], self.stark_t_exponent, L.stark_ne_exponent[j]))
             phi = voigt(x[None, :], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
-            area = phi @ w[j0:j1]
-            phi /= area[:, None]
-            emis[:, j0:j1] += eps[:, j, None] * phi
-            if kap is not None:
-                kap[:, j0:j1] += kint[:, j, None] * phi
-        if self.continuum:
-            zz = np.zeros(nc)
-            for sp, n in st.densities.items():
-                z = _ROMAN[sp.split()[1]] - 1
-                if z > 0:
-                    zz = zz + z * z * n
-            ec = continuum_emissivity(mid[None, :], t[:, None], ne[:, None], zz[:, None])
-            emis += ec
-            if kap is not None:
-                kap += ec / planck_radiance(mid[None, :], t[:, None])
-        if kap is None:
-            return emis * length_m
+            phi /= (phi @ w[lo:hi])[:, None]
+            emis[:, lo:hi] += eps[:, j, None] * phi
+            kap[:, lo:hi] += kint[:, j, None] * phi
         # homogeneous slab: I = (eps/kappa)(1 - exp(-tau)) = eps L (1 - exp(-tau))/tau; in LTE
         # eps/kappa = B_lambda(T) (Kirchhoff), so this is B (1 - exp(-tau)); written in the
         # eps L form it keeps the thin limit exact even where tabulated E_k - E_i and hc/lambda differ
-        tau = kap * length_m
-        return emis * length_m * self_absorption_coefficient(tau)
+        cell = emis * length_m * self_absorption_coefficient(kap * length_m)
+        return (matrix @ cell.T).T
+
+    def _cell_radiance(self, st: LTEState, length_m: float) -> np.ndarray:
+        """Radiance (W m^-2 sr^-1 nm^-1) on every fine cell, all lines with the slab model
+        (or thin), continuum excluded; for checks and figures (slow: every cell)."""
+        t = np.atleast_1d(st.temperature_k)
+        ne = np.atleast_1d(st.ne_cm3)
+        eps, kint = self.line_quantities(st)
+        nc = t.size
+        mid, w = self.cell_mid, self.cell_width
+        emis = np.zeros((nc, mid.size))
+        kap = np.zeros((nc, mid.size))
+        L = self.lines
+        for j in range(len(L)):
+            j0, j1 = self.window[j]
+            if j1 <= j0 or not np.any(eps[:, j] > 0):
+                continue
+            wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
+            wl = stark_fwhm(L.stark_w_nm[j], ne, L.stark_ne_ref_cm3[j], t, L.stark_t_ref_k[j],
+                            self.stark_t_exponent, L.stark_ne_exponent[j])
+            sh = np.nan_to_num(stark_shift(L.stark_shift_nm[j], ne, L.stark_ne_ref_cm3[j], t,
+                                           L.stark_t_ref_k[j], self.stark_t_exponent, L.stark_ne_exponent[j]))
+            phi = voigt(mid[None, j0:j1], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
+            phi /= (phi @ w[j0:j1])[:, None]
+            emis[:, j0:j1] += eps[:, j, None] * phi
+            kap[:, j0:j1] += kint[:, j, None] * phi
+        if not self.self_absorption:
+            return emis * length_m
+        return emis * length_m * self_absorption_coefficient(kap * length_m)
 
 
 def default_lines(wavelength_min_nm: float | None = None, wavelength_max_nm: float | None = None,
