@@ -250,7 +250,8 @@ def _calibration_info(cal, cal_file: str, cal_sha: str) -> CalibrationInfo:
                     sid, el, float(s["mass_fraction"]), _f(s.get("U")), _f(s.get("k")) or 2.0, str(s.get("source", ""))
                 )
             )
-    standards.sort(key=lambda v: (v.standard_id, v.element))
+    order = {el: i for i, el in enumerate(cal.curves)}
+    standards.sort(key=lambda v: (v.standard_id, order.get(v.element, len(order)), v.element))
     desc = f"{cal.basis} basis"
     if cal.matrix_element:
         desc += f"; matrix element {cal.matrix_element} by difference"

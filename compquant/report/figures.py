@@ -24,8 +24,12 @@ def _new(figsize=(6.4, 3.2)):
 
 def _png(fig) -> bytes:
     buf = io.BytesIO()
-    fig.tight_layout()
-    fig.savefig(buf, format="png", dpi=_DPI, metadata={"Software": None})
+    # fixed margins (tight_layout would draw every figure twice)
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=0.75 / w, right=1 - 0.15 / w, bottom=0.5 / h, top=1 - 0.3 / h)
+    # about 160 dots per inch as printed (full-width spectrum and half-width plots alike)
+    dpi = _DPI if w > 6 else 120
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
     return buf.getvalue()
 
 
@@ -66,20 +70,27 @@ def spectrum_png(
     ax.plot(xw, yw, lw=0.6, color="#1f3b73")
     lines = list(lines)
     top = np.nanmax(y) if y.size else 1.0
-    for i, (label, w) in enumerate(lines):
-        ax.axvline(float(w), color="#b03a2e", lw=0.6, ls="--", alpha=0.8)
-        if i < max_labels:
-            ax.annotate(
-                str(label),
-                (float(w), top),
-                xytext=(2, -2),
-                textcoords="offset points",
-                rotation=90,
-                va="top",
-                ha="left",
-                fontsize=5.5,
-                color="#b03a2e",
-            )
+    span = float(wl[-1] - wl[0]) if wl.size > 1 else 1.0
+    last_w, level = None, 0
+    for i, (label, w) in enumerate(sorted(lines, key=lambda t: float(t[1]))):
+        w = float(w)
+        ax.axvline(w, color="#b03a2e", lw=0.6, ls="--", alpha=0.8)
+        if i >= max_labels:
+            continue
+        # labels of lines closer than 2 % of the axis are stepped down so they do not overlap
+        level = level + 1 if last_w is not None and w - last_w < 0.02 * span else 0
+        last_w = w
+        ax.annotate(
+            str(label),
+            (w, top),
+            xytext=(2, -2 - 48 * (level % 3)),
+            textcoords="offset points",
+            rotation=90,
+            va="top",
+            ha="left",
+            fontsize=5.5,
+            color="#b03a2e",
+        )
     ax.set_xlabel("wavelength (nm)")
     ax.set_ylabel(ylabel)
     if title:
