@@ -650,7 +650,7 @@ def analyse(
                         U=2.0 * float(uw),
                         u=float(uw),
                         k=2.0,
-                        flags=["by_difference"],
+                        flags=["by_difference"] + (["check_failed"] if any(not c.passed for c in checks) else []),
                         line_id="by difference",
                         basis=basis,
                     )

@@ -442,7 +442,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     story.append(P(E(uncertainty_statement(cert.coverage_factors())), "small"))
     story.append(P(E(LOD_STATEMENT), "small"))
     if cert.qc.blank:
-        story.append(P("Blank standard deviation s_blank: " + E(cert.qc.blank), "small"))
+        story.append(P("s_blank for LOD and LOQ from " + E(cert.qc.blank), "small"))
     flags = cert.flags_used()
     if flags:
         story.append(P("Flags", "h3"))
