@@ -91,9 +91,24 @@ class LineSet:
         return len(self.line_id)
 
     @classmethod
-    def from_arrays(cls, *, species, wavelength_nm, aki, gi, gk, ei_ev, ek_ev, mass_u, line_id=None,
-                    stark_w_nm=None, stark_shift_nm=None, stark_ne_ref_cm3=None, stark_t_ref_k=None,
-                    stark_ne_exponent=None):
+    def from_arrays(
+        cls,
+        *,
+        species,
+        wavelength_nm,
+        aki,
+        gi,
+        gk,
+        ei_ev,
+        ek_ev,
+        mass_u,
+        line_id=None,
+        stark_w_nm=None,
+        stark_shift_nm=None,
+        stark_ne_ref_cm3=None,
+        stark_t_ref_k=None,
+        stark_ne_exponent=None,
+    ):
         """Build from plain sequences (species named like ``"Cu I"``)."""
         species = tuple(str(s) for s in species)
         n = len(species)
@@ -105,27 +120,43 @@ class LineSet:
             if a.size == 1 and n != 1:
                 a = np.full(n, float(a[0]))
             if a.size != n:
-                raise PhysicsError(f"line array of length {a.size} for {n} lines", where="LineSet",
-                                   fix="give one value per line")
+                raise PhysicsError(
+                    f"line array of length {a.size} for {n} lines", where="LineSet", fix="give one value per line"
+                )
             return a
 
         elements, stages = [], []
         for s in species:
             parts = s.split()
             if len(parts) != 2 or parts[1] not in _ROMAN:
-                raise PhysicsError(f"species {s!r} is not '<Element> <roman>'", where="LineSet",
-                                   fix="name species like 'Cu I' or 'Cu II'")
+                raise PhysicsError(
+                    f"species {s!r} is not '<Element> <roman>'",
+                    where="LineSet",
+                    fix="name species like 'Cu I' or 'Cu II'",
+                )
             elements.append(parts[0])
             stages.append(_ROMAN[parts[1]])
         wl = arr(wavelength_nm)
         if line_id is None:
             line_id = [f"{s} {w:.3f}" for s, w in zip(species, wl)]
-        return cls(line_id=tuple(str(x) for x in line_id), species=species, element=tuple(elements),
-                   stage=np.asarray(stages, dtype=int), wavelength_nm=wl, aki=arr(aki), gi=arr(gi),
-                   gk=arr(gk), ei_ev=arr(ei_ev), ek_ev=arr(ek_ev), stark_w_nm=arr(stark_w_nm),
-                   stark_shift_nm=arr(stark_shift_nm), stark_ne_ref_cm3=arr(stark_ne_ref_cm3),
-                   stark_t_ref_k=arr(stark_t_ref_k), mass_u=arr(mass_u),
-                   stark_ne_exponent=arr(stark_ne_exponent, 1.0))
+        return cls(
+            line_id=tuple(str(x) for x in line_id),
+            species=species,
+            element=tuple(elements),
+            stage=np.asarray(stages, dtype=int),
+            wavelength_nm=wl,
+            aki=arr(aki),
+            gi=arr(gi),
+            gk=arr(gk),
+            ei_ev=arr(ei_ev),
+            ek_ev=arr(ek_ev),
+            stark_w_nm=arr(stark_w_nm),
+            stark_shift_nm=arr(stark_shift_nm),
+            stark_ne_ref_cm3=arr(stark_ne_ref_cm3),
+            stark_t_ref_k=arr(stark_t_ref_k),
+            mass_u=arr(mass_u),
+            stark_ne_exponent=arr(stark_ne_exponent, 1.0),
+        )
 
     @classmethod
     def from_frame(cls, frame, masses_u: Mapping[str, float] | None = None):
@@ -137,8 +168,11 @@ class LineSet:
         need = ["species", "wavelength_nm", "aki", "gi", "gk", "ei_ev", "ek_ev"]
         missing = [c for c in need if c not in frame.columns]
         if missing:
-            raise PhysicsError(f"line list lacks column(s) {', '.join(missing)}", where="line list",
-                               fix="use the compquant.atomic line-list columns")
+            raise PhysicsError(
+                f"line list lacks column(s) {', '.join(missing)}",
+                where="line list",
+                fix="use the compquant.atomic line-list columns",
+            )
         species = [str(s) for s in frame["species"]]
         elements = [s.split()[0] for s in species]
         masses = _masses_for(set(elements), masses_u)
@@ -147,12 +181,22 @@ class LineSet:
             return frame[name].to_numpy(dtype=float) if name in frame.columns else None
 
         ids = list(frame["line_id"]) if "line_id" in frame.columns else None
-        return cls.from_arrays(species=species, wavelength_nm=col("wavelength_nm"), aki=col("aki"),
-                               gi=col("gi"), gk=col("gk"), ei_ev=col("ei_ev"), ek_ev=col("ek_ev"),
-                               mass_u=[masses[e] for e in elements], line_id=ids,
-                               stark_w_nm=col("stark_w_nm"), stark_shift_nm=col("stark_shift_nm"),
-                               stark_ne_ref_cm3=col("stark_ne_ref_cm3"), stark_t_ref_k=col("stark_t_ref_k"),
-                               stark_ne_exponent=col("stark_ne_exponent"))
+        return cls.from_arrays(
+            species=species,
+            wavelength_nm=col("wavelength_nm"),
+            aki=col("aki"),
+            gi=col("gi"),
+            gk=col("gk"),
+            ei_ev=col("ei_ev"),
+            ek_ev=col("ek_ev"),
+            mass_u=[masses[e] for e in elements],
+            line_id=ids,
+            stark_w_nm=col("stark_w_nm"),
+            stark_shift_nm=col("stark_shift_nm"),
+            stark_ne_ref_cm3=col("stark_ne_ref_cm3"),
+            stark_t_ref_k=col("stark_t_ref_k"),
+            stark_ne_exponent=col("stark_ne_exponent"),
+        )
 
     def with_default_stark(self, fwhm_nm: float, ne_ref_cm3: float = 1e17) -> LineSet:
         """A copy where lines without Stark data get FWHM ``fwhm_nm`` at ``ne_ref_cm3``.
@@ -181,8 +225,9 @@ def _masses_for(elements, masses_u):
     if masses_u is not None:
         missing = sorted(set(elements) - set(masses_u))
         if missing:
-            raise PhysicsError(f"no atomic mass for {', '.join(missing)}", where="masses",
-                               fix="give a mass (u) for every element")
+            raise PhysicsError(
+                f"no atomic mass for {', '.join(missing)}", where="masses", fix="give a mass (u) for every element"
+            )
         return {e: float(masses_u[e]) for e in elements}
     from compquant.atomic import element as _element
 
@@ -206,11 +251,17 @@ class Instrument:
     def __post_init__(self):
         wl = np.asarray(self.wavelength_nm, dtype=float)
         if wl.ndim != 1 or wl.size < 2 or not np.all(np.isfinite(wl)) or np.any(np.diff(wl) <= 0):
-            raise PhysicsError("pixel wavelengths must be a finite, strictly increasing 1-D array",
-                               where="instrument", fix="check the wavelength axis")
+            raise PhysicsError(
+                "pixel wavelengths must be a finite, strictly increasing 1-D array",
+                where="instrument",
+                fix="check the wavelength axis",
+            )
         if (self.resolving_power is None) == (self.fwhm_nm is None):
-            raise PhysicsError("give exactly one of resolving_power and fwhm_nm", where="instrument",
-                               fix="set the resolving power R (FWHM = lambda/R) or a constant FWHM")
+            raise PhysicsError(
+                "give exactly one of resolving_power and fwhm_nm",
+                where="instrument",
+                fix="set the resolving power R (FWHM = lambda/R) or a constant FWHM",
+            )
         if self.resolving_power is not None and not self.resolving_power > 0:
             raise PhysicsError("resolving power must be > 0", where="instrument", fix="e.g. 3000")
         if self.fwhm_nm is not None and not self.fwhm_nm > 0:
@@ -257,12 +308,24 @@ class SpectrumModel:
         profile at the nominal widths; error about thin_tau/2 of the line).
     """
 
-    def __init__(self, instrument: Instrument, lines: LineSet, *, self_absorption: bool = False,
-                 continuum: bool = True, nominal_temperature_k: float = 10000.0,
-                 nominal_ne_cm3: float = 1e17, max_stage: int = 2, lowering: bool = True,
-                 partition_function: Callable | None = None, ionisation_energy: Callable | None = None,
-                 masses_u: Mapping[str, float] | None = None, stark_t_exponent: float = 0.0,
-                 chunk_shots: int = 64, thin_tau: float = 1e-3):
+    def __init__(
+        self,
+        instrument: Instrument,
+        lines: LineSet,
+        *,
+        self_absorption: bool = False,
+        continuum: bool = True,
+        nominal_temperature_k: float = 10000.0,
+        nominal_ne_cm3: float = 1e17,
+        max_stage: int = 2,
+        lowering: bool = True,
+        partition_function: Callable | None = None,
+        ionisation_energy: Callable | None = None,
+        masses_u: Mapping[str, float] | None = None,
+        stark_t_exponent: float = 0.0,
+        chunk_shots: int = 64,
+        thin_tau: float = 1e-3,
+    ):
         self.instrument = instrument
         self.self_absorption = bool(self_absorption)
         self.continuum = bool(continuum)
@@ -281,8 +344,15 @@ class SpectrumModel:
     # ------------------------------------------------------------------ grid
     def _nominal_widths(self, lines, t, ne):
         wg = doppler_fwhm(lines.wavelength_nm, t, lines.mass_u)
-        wl = stark_fwhm(lines.stark_w_nm, ne, lines.stark_ne_ref_cm3, t, lines.stark_t_ref_k,
-                        self.stark_t_exponent, lines.stark_ne_exponent)
+        wl = stark_fwhm(
+            lines.stark_w_nm,
+            ne,
+            lines.stark_ne_ref_cm3,
+            t,
+            lines.stark_t_ref_k,
+            self.stark_t_exponent,
+            lines.stark_ne_exponent,
+        )
         return wg, wl
 
     def _build_grid(self, lines, t_nom, ne_nom):
@@ -308,8 +378,17 @@ class SpectrumModel:
         self.masses_u = _masses_for(set(lines.element), self._masses_arg) if len(lines) else {}
         wg, wl = self._nominal_widths(lines, t_nom, ne_nom)
         wv = voigt_fwhm(wg, wl)
-        shift = np.nan_to_num(stark_shift(lines.stark_shift_nm, ne_nom, lines.stark_ne_ref_cm3, t_nom,
-                                          lines.stark_t_ref_k, self.stark_t_exponent, lines.stark_ne_exponent))
+        shift = np.nan_to_num(
+            stark_shift(
+                lines.stark_shift_nm,
+                ne_nom,
+                lines.stark_ne_ref_cm3,
+                t_nom,
+                lines.stark_t_ref_k,
+                self.stark_t_exponent,
+                lines.stark_ne_exponent,
+            )
+        )
         centre = lines.wavelength_nm + shift
         base_step = np.interp(centre, edges[:-1], np.diff(edges)) / os_ if len(lines) else np.zeros(0)
         for c, f, bs in zip(centre, wv, base_step):
@@ -326,9 +405,17 @@ class SpectrumModel:
         self.cell_width = np.diff(nodes)
         # line windows (contiguous cell index ranges)
         half = np.clip(25.0 * wv, 0.3, 15.0)
-        self.window = np.stack([np.searchsorted(self.cell_mid, centre - half, "left"),
-                                np.searchsorted(self.cell_mid, centre + half, "right")], axis=1) \
-            if len(lines) else np.zeros((0, 2), dtype=int)
+        self.window = (
+            np.stack(
+                [
+                    np.searchsorted(self.cell_mid, centre - half, "left"),
+                    np.searchsorted(self.cell_mid, centre + half, "right"),
+                ],
+                axis=1,
+            )
+            if len(lines)
+            else np.zeros((0, 2), dtype=int)
+        )
         # instrument-function + pixel-integration matrix (n_cells x n_pixels)
         sig = ins.fwhm(self.cell_mid) * FWHM_TO_SIGMA
         e0 = np.clip(np.searchsorted(edges, self.cell_mid - 6 * sig, "right") - 1, 0, n_pix)
@@ -341,8 +428,7 @@ class SpectrumModel:
         pix = e0[:, None] + k[None, :-1]
         ok = (pix < n_pix) & (val > 0)
         rows = np.broadcast_to(np.arange(self.cell_mid.size)[:, None], pix.shape)[ok]
-        self._pixel_matrix_t = sparse.csr_matrix((val[ok], (pix[ok], rows)),
-                                                 shape=(n_pix, self.cell_mid.size))
+        self._pixel_matrix_t = sparse.csr_matrix((val[ok], (pix[ok], rows)), shape=(n_pix, self.cell_mid.size))
         self._pixel_matrix_csc = self._pixel_matrix_t.tocsc()
         self._pixel_width = np.diff(edges)
         self._thick_cache = {}
@@ -367,15 +453,19 @@ class SpectrumModel:
             return mass_to_number_fractions(composition, masses)
         if basis == "number":
             return dict(composition)
-        raise PhysicsError(f"composition basis {basis!r} unknown", where="composition",
-                           fix="use 'mass' or 'number'")
+        raise PhysicsError(f"composition basis {basis!r} unknown", where="composition", fix="use 'mass' or 'number'")
 
     def lte_state(self, composition: Mapping[str, float], temperature_k, ne_cm3, basis: str = "mass"):
         """The :class:`LTEState` for this composition and per-shot T, n_e."""
-        return solve_lte(temperature_k, ne_cm3, self._fractions(composition, basis),
-                         partition_function=self.partition_function,
-                         ionisation_energy=self.ionisation_energy, max_stage=self.max_stage,
-                         lowering=self.lowering)
+        return solve_lte(
+            temperature_k,
+            ne_cm3,
+            self._fractions(composition, basis),
+            partition_function=self.partition_function,
+            ionisation_energy=self.ionisation_energy,
+            max_stage=self.max_stage,
+            lowering=self.lowering,
+        )
 
     def line_quantities(self, state: LTEState):
         """Per shot and line: integrated emissivity (W m^-3 sr^-1) and integrated
@@ -404,13 +494,27 @@ class SpectrumModel:
         _, kint = self.line_quantities(st)
         L = self.lines
         wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
-        wl = stark_fwhm(L.stark_w_nm[None, :], ne[:, None], L.stark_ne_ref_cm3[None, :], t[:, None],
-                        L.stark_t_ref_k[None, :], self.stark_t_exponent, L.stark_ne_exponent[None, :])
+        wl = stark_fwhm(
+            L.stark_w_nm[None, :],
+            ne[:, None],
+            L.stark_ne_ref_cm3[None, :],
+            t[:, None],
+            L.stark_t_ref_k[None, :],
+            self.stark_t_exponent,
+            L.stark_ne_exponent[None, :],
+        )
         peak = voigt(0.0, 0.0, wg, wl)
         return kint * peak * float(length_mm) * 1e-3
 
-    def radiance(self, composition: Mapping[str, float], temperature_k, ne_cm3, length_mm: float = 1.0,
-                 scale=None, basis: str = "mass") -> np.ndarray:
+    def radiance(
+        self,
+        composition: Mapping[str, float],
+        temperature_k,
+        ne_cm3,
+        length_mm: float = 1.0,
+        scale=None,
+        basis: str = "mass",
+    ) -> np.ndarray:
         """Pixel-integrated radiance (W m^-2 sr^-1 per pixel), shape (n_shots, n_pixels).
 
         ``temperature_k`` and ``ne_cm3`` are scalars or arrays (one per shot);
@@ -426,9 +530,15 @@ class SpectrumModel:
         out = np.empty((t.size, self.n_pixels))
         for a in range(0, t.size, self.chunk_shots):
             b = min(a + self.chunk_shots, t.size)
-            st = solve_lte(t[a:b], ne[a:b], fractions, partition_function=self.partition_function,
-                           ionisation_energy=self.ionisation_energy, max_stage=self.max_stage,
-                           lowering=self.lowering)
+            st = solve_lte(
+                t[a:b],
+                ne[a:b],
+                fractions,
+                partition_function=self.partition_function,
+                ionisation_energy=self.ionisation_energy,
+                max_stage=self.max_stage,
+                lowering=self.lowering,
+            )
             out[a:b] = self._chunk_radiance(st, float(length_mm) * 1e-3)
         if scale is not None:
             out *= np.broadcast_to(np.asarray(scale, dtype=float), (t.size,))[:, None]
@@ -449,8 +559,15 @@ class SpectrumModel:
         _, kint = self.line_quantities(st)
         L = self.lines
         wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
-        wl = stark_fwhm(L.stark_w_nm[None, :], ne[:, None], L.stark_ne_ref_cm3[None, :], t[:, None],
-                        L.stark_t_ref_k[None, :], self.stark_t_exponent, L.stark_ne_exponent[None, :])
+        wl = stark_fwhm(
+            L.stark_w_nm[None, :],
+            ne[:, None],
+            L.stark_ne_ref_cm3[None, :],
+            t[:, None],
+            L.stark_t_ref_k[None, :],
+            self.stark_t_exponent,
+            L.stark_ne_exponent[None, :],
+        )
         tau0 = kint * voigt(0.0, 0.0, wg, wl) * length_m
         thick = tau0.max(axis=0) > self.thin_tau
         if thick.any():
@@ -476,8 +593,9 @@ class SpectrumModel:
                 if z > 0:
                     zz = zz + z * z * np.atleast_1d(n)
             wl = self.instrument.wavelength_nm
-            out += continuum_emissivity(wl[None, :], t[:, None], ne[:, None], zz[:, None]) * \
-                (self._pixel_width[None, :] * length_m)
+            out += continuum_emissivity(wl[None, :], t[:, None], ne[:, None], zz[:, None]) * (
+                self._pixel_width[None, :] * length_m
+            )
         if thick.any():
             out += self._thick_radiance(np.flatnonzero(thick), t, ne, eps, kint, length_m)
         return out
@@ -507,10 +625,26 @@ class SpectrumModel:
             hi = lo + (j1 - j0)
             x = mid[lo:hi]
             wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
-            wl = stark_fwhm(L.stark_w_nm[j], ne, L.stark_ne_ref_cm3[j], t, L.stark_t_ref_k[j],
-                            self.stark_t_exponent, L.stark_ne_exponent[j])
-            sh = np.nan_to_num(stark_shift(L.stark_shift_nm[j], ne, L.stark_ne_ref_cm3[j], t,
-                                           L.stark_t_ref_k[j], self.stark_t_exponent, L.stark_ne_exponent[j]))
+            wl = stark_fwhm(
+                L.stark_w_nm[j],
+                ne,
+                L.stark_ne_ref_cm3[j],
+                t,
+                L.stark_t_ref_k[j],
+                self.stark_t_exponent,
+                L.stark_ne_exponent[j],
+            )
+            sh = np.nan_to_num(
+                stark_shift(
+                    L.stark_shift_nm[j],
+                    ne,
+                    L.stark_ne_ref_cm3[j],
+                    t,
+                    L.stark_t_ref_k[j],
+                    self.stark_t_exponent,
+                    L.stark_ne_exponent[j],
+                )
+            )
             phi = voigt(x[None, :], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
             phi /= (phi @ w[lo:hi])[:, None]
             emis[:, lo:hi] += eps[:, j, None] * phi
@@ -537,10 +671,26 @@ class SpectrumModel:
             if j1 <= j0 or not np.any(eps[:, j] > 0):
                 continue
             wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
-            wl = stark_fwhm(L.stark_w_nm[j], ne, L.stark_ne_ref_cm3[j], t, L.stark_t_ref_k[j],
-                            self.stark_t_exponent, L.stark_ne_exponent[j])
-            sh = np.nan_to_num(stark_shift(L.stark_shift_nm[j], ne, L.stark_ne_ref_cm3[j], t,
-                                           L.stark_t_ref_k[j], self.stark_t_exponent, L.stark_ne_exponent[j]))
+            wl = stark_fwhm(
+                L.stark_w_nm[j],
+                ne,
+                L.stark_ne_ref_cm3[j],
+                t,
+                L.stark_t_ref_k[j],
+                self.stark_t_exponent,
+                L.stark_ne_exponent[j],
+            )
+            sh = np.nan_to_num(
+                stark_shift(
+                    L.stark_shift_nm[j],
+                    ne,
+                    L.stark_ne_ref_cm3[j],
+                    t,
+                    L.stark_t_ref_k[j],
+                    self.stark_t_exponent,
+                    L.stark_ne_exponent[j],
+                )
+            )
             phi = voigt(mid[None, j0:j1], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
             phi /= (phi @ w[j0:j1])[:, None]
             emis[:, j0:j1] += eps[:, j, None] * phi
@@ -550,8 +700,9 @@ class SpectrumModel:
         return emis * length_m * self_absorption_coefficient(kap * length_m)
 
 
-def default_lines(wavelength_min_nm: float | None = None, wavelength_max_nm: float | None = None,
-                  elements=None) -> LineSet:
+def default_lines(
+    wavelength_min_nm: float | None = None, wavelength_max_nm: float | None = None, elements=None
+) -> LineSet:
     """The shipped line list of :mod:`compquant.atomic` as a :class:`LineSet` (data glue)."""
     from compquant.atomic import load_line_list
 
@@ -565,10 +716,23 @@ def default_lines(wavelength_min_nm: float | None = None, wavelength_max_nm: flo
     return LineSet.from_frame(df.reset_index(drop=True))
 
 
-def synthesize(wavelength_nm, composition: Mapping[str, float], temperature_k, ne_cm3, *,
-               length_mm: float = 1.0, resolving_power: float | None = None, fwhm_nm: float | None = None,
-               lines: LineSet | None = None, self_absorption: bool = False, continuum: bool = True,
-               scale=None, basis: str = "mass", oversample: int = 4, **model_kw) -> np.ndarray:
+def synthesize(
+    wavelength_nm,
+    composition: Mapping[str, float],
+    temperature_k,
+    ne_cm3,
+    *,
+    length_mm: float = 1.0,
+    resolving_power: float | None = None,
+    fwhm_nm: float | None = None,
+    lines: LineSet | None = None,
+    self_absorption: bool = False,
+    continuum: bool = True,
+    scale=None,
+    basis: str = "mass",
+    oversample: int = 4,
+    **model_kw,
+) -> np.ndarray:
     """One-call forward model: pixel-integrated radiance (W m^-2 sr^-1 per pixel).
 
     ``composition``: element -> mass fraction (``basis="mass"``) or number
@@ -579,14 +743,21 @@ def synthesize(wavelength_nm, composition: Mapping[str, float], temperature_k, n
     """
     if resolving_power is None and fwhm_nm is None:
         resolving_power = 3000.0
-    ins = Instrument(np.asarray(wavelength_nm, float), resolving_power=resolving_power, fwhm_nm=fwhm_nm,
-                     oversample=oversample)
+    ins = Instrument(
+        np.asarray(wavelength_nm, float), resolving_power=resolving_power, fwhm_nm=fwhm_nm, oversample=oversample
+    )
     if lines is None:
         lines = default_lines(elements=list(composition))
     scalar = np.ndim(temperature_k) == 0 and np.ndim(ne_cm3) == 0
-    model = SpectrumModel(ins, lines, self_absorption=self_absorption, continuum=continuum,
-                          nominal_temperature_k=float(np.mean(temperature_k)),
-                          nominal_ne_cm3=float(np.mean(ne_cm3)), **model_kw)
+    model = SpectrumModel(
+        ins,
+        lines,
+        self_absorption=self_absorption,
+        continuum=continuum,
+        nominal_temperature_k=float(np.mean(temperature_k)),
+        nominal_ne_cm3=float(np.mean(ne_cm3)),
+        **model_kw,
+    )
     out = model.radiance(composition, temperature_k, ne_cm3, length_mm=length_mm, scale=scale, basis=basis)
     return out[0] if scalar else out
 
