@@ -171,3 +171,75 @@ def test_mean_spectrum_excludes_rejected_shots(run_path):
     ref = spectrum(AREAS) - spectrum({})
     k = np.argmin(np.abs(WL - 324.754))
     assert mean[k] == pytest.approx(ref[k], rel=0.03)
+
+
+def test_response_file_and_pulse_energy(tmp_path):
+    p = make_run(tmp_path / "pe.h5", [("A", "standard", 12, AREAS)], pulse=True)
+    resp = tmp_path / "resp.csv"
+    resp.write_text("wavelength_nm,response\n300,2.0\n350,2.0\n", encoding="utf-8")
+    base = method()
+    halved = method(preprocess={"baseline": {"method": "snip", "max_half_window": 25}, "response": {"file": str(resp)}})
+    pe = method(
+        preprocess={"baseline": {"method": "snip", "max_half_window": 25}, "qc": {"pulse_energy_normalise": True}}
+    )
+    with Run.open(p) as run:
+        a = measure_run(run, base)
+        b = measure_run(run, halved)
+        c = measure_run(run, pe)
+        e = run.shots["pulse_energy_mj"].to_numpy()
+    # a flat response of 2 halves every intensity (division by the relative response)
+    assert b.table.intensity.to_numpy() == pytest.approx(a.table.intensity.to_numpy() / 2, rel=1e-12)
+    # pulse-energy normalisation divides each shot by E / median(E)
+    f = e / np.median(e)
+    assert c.shot_intensity[:, 0] == pytest.approx(a.shot_intensity[:, 0] / f, rel=1e-12)
+    assert "response" in b.provenance and b.provenance["response"] == str(resp)
+
+
+def test_xcorr_shift_with_reference_file(tmp_path):
+    p = make_run(tmp_path / "xc.h5", [("B", "unknown", 6, AREAS)], shift_by_sample={"B": -0.03})
+    ref = tmp_path / "ref.csv"
+    y = spectrum(AREAS) - spectrum({})
+    ref.write_text("wavelength_nm,intensity\n" + "\n".join(f"{w:.5f},{v:.6g}" for w, v in zip(WL, y)), encoding="utf-8")
+    m = method(
+        preprocess={
+            "baseline": {"method": "snip", "max_half_window": 25},
+            "shift": {"method": "xcorr", "reference_file": str(ref)},
+        }
+    )
+    with Run.open(p) as run:
+        lm = measure_run(run, m)
+    assert lm.shifts.shift_nm.iloc[0] == pytest.approx(-0.03, abs=0.002)
+    assert lm.table["flags"].str.contains("shifted").all()
+
+
+def test_pulse_energy_without_column_is_method_error(run_path):
+    m = method(
+        preprocess={"baseline": {"method": "snip", "max_half_window": 25}, "qc": {"pulse_energy_normalise": True}}
+    )
+    with Run.open(run_path) as run, pytest.raises(MethodError, match="pulse"):
+        measure_run(run, m)
+
+
+@pytest.mark.parametrize("baseline", [{"method": "asls", "lam": 1e5, "p": 0.01}, {"method": "arpls", "lam": 1e5}])
+def test_whittaker_baselines_in_the_pipeline(run_path, baseline):
+    m_snip = method()
+    m_w = method(preprocess={"baseline": baseline})
+    with Run.open(run_path) as run:
+        a = measure_run(run, m_snip).table
+        b = measure_run(run, m_w).table
+    sa = a[a.sample_id == "STD"].intensity.to_numpy()
+    sb = b[b.sample_id == "STD"].intensity.to_numpy()
+    # the local linear background absorbs most baseline differences: within 5 %
+    assert sb == pytest.approx(sa, rel=0.05)
+
+
+def test_threads_give_the_same_result(run_path):
+    m = method(lines=[{"id": "Cu I 324.754"}, {"id": "Zn I 330.259", "mode": "fit", "fwhm_nm": 0.04}])
+    with Run.open(run_path) as run:
+        a = measure_run(run, m, chunk_shots=16)
+        b = measure_run(run, m, chunk_shots=16, threads=3)
+    # window lines: the same arithmetic; fitted lines: the mean spectrum is summed in another
+    # order, so the nonlinear fit lands within its tolerance (1e-6 relative)
+    assert np.allclose(a.shot_intensity[:, 0], b.shot_intensity[:, 0], rtol=1e-12)
+    assert np.allclose(a.shot_intensity[:, 1], b.shot_intensity[:, 1], rtol=1e-6, atol=1e-9)
+    assert (a.shot_accepted == b.shot_accepted).all()

@@ -151,3 +151,19 @@ def test_line_ids():
     assert m.lines[0].wavelength_nm == 324.754
     with pytest.raises(MethodError, match="no lines"):
         method_from_dict({"method": {"id": "x"}})
+
+
+def test_shipped_demo_method_loads():
+    from pathlib import Path
+
+    from compquant.atomic import load_line_list
+
+    if not (load_line_list()["species"] == "Sn I").any():
+        pytest.skip("shipped line list has no Sn I lines yet (branch atomic not merged)")
+    p = Path(__file__).resolve().parents[1] / "demo_runs" / "method.toml"
+    m = load_method(p)
+    ids = [ln.line_id for ln in m.lines]
+    assert "Cu I 521.820" in ids and len(ids) == len(set(ids))
+    # the demo runs cover 220-640 nm (demo_runs/scenario-day1.toml)
+    m.check_run(np.linspace(220.0, 640.0, 12288))
+    assert {ln.group for ln in m.lines if ln.mode == "fit"} == {"Mn-403", "Pb-406"}

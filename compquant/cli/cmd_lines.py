@@ -28,25 +28,47 @@ def _write_csv(df, path: Path) -> None:
         ) from exc
 
 
-def _short_table(table) -> str:
-    cols = ("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")
-    rows = [cols]
-    for r in table.itertuples(index=False):
+def _columns(rows) -> str:
+    w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
+    return "\n".join(
+        "  ".join(c.ljust(w[i]) if i < 2 or i == len(row) - 1 else c.rjust(w[i]) for i, c in enumerate(row))
+        for row in rows
+    )
+
+
+def _short_table(table, max_rows: int = 60) -> str:
+    """The line table when short; otherwise one summary row per sample."""
+    if len(table) <= max_rows:
+        rows = [("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")]
+        for r in table.itertuples(index=False):
+            rows.append(
+                (
+                    str(r.sample_id),
+                    str(r.line_id),
+                    f"{r.intensity:.4g}",
+                    f"{r.u_intensity:.2g}",
+                    str(r.n_shots),
+                    f"{r.snr:.1f}",
+                    r.flags or "-",
+                )
+            )
+        return _columns(rows)
+    rows = [("sample_id", "role", "shots", "lines", "found", "flagged lines")]
+    for (sid, role), g in table.groupby(["sample_id", "role"], sort=False):
+        flagged = g[g["flags"] != ""]
+        found = int((~g["flags"].str.contains("not_found")).sum())
+        kinds = sorted({f for fl in flagged["flags"] for f in fl.split(";")})
         rows.append(
             (
-                str(r.sample_id),
-                str(r.line_id),
-                f"{r.intensity:.4g}",
-                f"{r.u_intensity:.2g}",
-                str(r.n_shots),
-                f"{r.snr:.1f}",
-                r.flags or "-",
+                str(sid),
+                str(role),
+                str(int(g["n_shots"].max())),
+                str(len(g)),
+                str(found),
+                f"{len(flagged)} ({', '.join(kinds)})" if kinds else "0",
             )
         )
-    w = [max(len(x[i]) for x in rows) for i in range(len(cols))]
-    return "\n".join(
-        "  ".join(c.ljust(w[i]) if i in (0, 1, 6) else c.rjust(w[i]) for i, c in enumerate(row)) for row in rows
-    )
+    return _columns(rows)
 
 
 @click.command("lines", epilog=SAFETY)
@@ -86,8 +108,15 @@ def _short_table(table) -> str:
     default=None,
     help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].",
 )
+@click.option(
+    "--threads",
+    type=click.IntRange(1, 64),
+    default=1,
+    show_default=True,
+    help="Worker threads (numpy releases the GIL; results are identical).",
+)
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
-def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, quiet):
+def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, threads, quiet):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
     centre, FWHM, signal-to-noise and flags per sample. Writes the line table, the per-shot
@@ -105,10 +134,10 @@ def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * passes
         if quiet or total < 20000:
-            lm = measure_run(run, method, chunk_shots=chunk_shots)
+            lm = measure_run(run, method, chunk_shots=chunk_shots, threads=threads)
         else:
             with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
-                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update)
+                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update, threads=threads)
     _write_csv(lm.table, out)
     if shots_out is not None:
         _write_csv(lm.shots, shots_out)

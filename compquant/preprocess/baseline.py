@@ -212,41 +212,41 @@ def solve_banded_spd_batch(diag: np.ndarray, lower: np.ndarray, rhs: np.ndarray)
     """
     n_sys, n = diag.shape
     d = lower.shape[0] - 1
-    # L stored by bands: Lb[k][:, j] = L[j + k, j]
-    Lb = [np.empty((n_sys, n)) for _ in range(d + 1)]
-    A0 = diag + lower[0][None, :]
+    # pixel-major copies, so that each step reads one contiguous row of n_sys values
+    # L stored by bands: Lb[k][j] = L[j + k, j] (a vector over the systems)
+    Lb = np.empty((d + 1, n, n_sys))
+    A0 = np.ascontiguousarray(diag.T) + lower[0][:, None]
     for j in range(n):
-        s = A0[:, j].copy()
-        for k in range(1, d + 1):
-            if j - k >= 0:
-                s -= Lb[k][:, j - k] ** 2
+        s = A0[j].copy()
+        for k in range(1, min(d, j) + 1):
+            s -= Lb[k, j - k] ** 2
         ljj = np.sqrt(s)
-        Lb[0][:, j] = ljj
+        Lb[0, j] = ljj
         for k in range(1, d + 1):
             if j + k >= n:
                 break
             # L[j+k, j] = (A[j+k, j] - sum_{q<j} L[j+k, q] L[j, q]) / L[j, j]
             v = np.full(n_sys, lower[k][j])
             for q in range(max(0, j + k - d), j):
-                v -= Lb[j + k - q][:, q] * Lb[j - q][:, q]
-            Lb[k][:, j] = v / ljj
+                v -= Lb[j + k - q, q] * Lb[j - q, q]
+            Lb[k, j] = v / ljj
+    b = np.ascontiguousarray(rhs.T)
     # forward: L y = b
-    y = np.empty_like(rhs)
+    y = np.empty_like(b)
     for j in range(n):
-        v = rhs[:, j].copy()
-        for k in range(1, d + 1):
-            if j - k >= 0:
-                v -= Lb[k][:, j - k] * y[:, j - k]
-        y[:, j] = v / Lb[0][:, j]
+        v = b[j].copy()
+        for k in range(1, min(d, j) + 1):
+            v -= Lb[k, j - k] * y[j - k]
+        y[j] = v / Lb[0, j]
     # backward: L^T x = y
-    x = np.empty_like(rhs)
+    x = np.empty_like(b)
     for j in range(n - 1, -1, -1):
-        v = y[:, j].copy()
+        v = y[j].copy()
         for k in range(1, d + 1):
             if j + k < n:
-                v -= Lb[k][:, j] * x[:, j + k]
-        x[:, j] = v / Lb[0][:, j]
-    return x
+                v -= Lb[k, j] * x[j + k]
+        x[j] = v / Lb[0, j]
+    return np.ascontiguousarray(x.T)
 
 
 def _relative_difference(old: np.ndarray, new: np.ndarray) -> np.ndarray:
