@@ -181,20 +181,7 @@ def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reporte
     from compquant.calibrate.pls import predict_pls, spectra_matrix
 
     wl = np.asarray(wl, float)
-    want = np.asarray(pls["wavelength_mask_nm"], float)
-    mask = np.isin(np.round(wl, 6), np.round(want, 6))
-    if int(mask.sum()) != len(want):
-        not_reported.append(
-            {
-                "sample_id": "*",
-                "element": ",".join(pls["models"]),
-                "reason": "the run's wavelength axis differs from the PLS calibration's",
-            }
-        )
-        return []
     ids = [s for s in sample_ids if s in spectra]
-    if not ids:
-        return []
     is_mask = None
     if pls.get("is_mask_nm"):
         is_mask = np.isin(np.round(wl, 6), np.round(np.asarray(pls["is_mask_nm"], float), 6))
@@ -204,11 +191,18 @@ def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reporte
                 not_reported.append({"sample_id": s, "element": ",".join(pls["models"]),
                                      "reason": "PLS ratio result needs the matrix fraction from the curves"})
         ids = [s for s in ids if s in matrix_fraction]
-        if not ids:
-            return []
-    X = spectra_matrix(spectra, ids, mask, pls.get("normalise", "none"), is_mask)
+    if not ids:
+        return []
     rows = []
     for el, m in pls["models"].items():
+        want = np.asarray(m["wavelength_mask_nm"], float)
+        mask = np.isin(np.round(wl, 6), np.round(want, 6))
+        bad_is = is_mask is not None and int(is_mask.sum()) != len(pls["is_mask_nm"])
+        if int(mask.sum()) != len(want) or bad_is:
+            not_reported.append({"sample_id": "*", "element": el,
+                                 "reason": "the run's wavelength axis differs from the PLS calibration's"})
+            continue
+        X = spectra_matrix(spectra, ids, mask, pls.get("normalise", "none"), is_mask)
         pr = predict_pls(m, X)
         for i, sid in enumerate(ids):
             f = matrix_fraction[sid][0] if pls.get("target") == "ratio" else 1.0
@@ -239,7 +233,7 @@ def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reporte
                     "below_lod": bool(below),
                     "flags": ";".join(flags),
                     "basis": "pls",
-                    "line_id": f"PLS {m['n_components']} comp. on {len(pls['lines'])} windows",
+                    "line_id": f"PLS {m['n_components']} comp.: " + ", ".join(m["lines"]),
                     "role": smap.get(sid, ("unknown", None))[0],
                     "dof": float(m["n"] - 1),
                 }
