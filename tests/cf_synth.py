@@ -15,7 +15,7 @@ LINES = ["Cu I 324.754", "Cu I 327.396", "Cu I 296.117", "Cu I 282.437", "Cu I 2
          "Zn II 202.548", "Zn II 206.200", "Zn II 250.199", "Zn II 255.795"]
 
 
-def method_toml(cf: str = "", mode: str = "fit") -> str:
+def method_toml(cf: str = "", mode: str = "window") -> str:
     lines = "\n".join(f'[[lines]]\nid = "{x}"\n' for x in LINES)
     return f"""[method]
 id = "CF-BRASS-TEST"
@@ -35,7 +35,9 @@ method = "none"
 
 [measure]
 mode = "{mode}"
-window_nm = 0.5
+window_nm = 0.24
+side_nm = 0.1
+gap_nm = 0.02
 profile = "voigt"
 
 {lines}
