@@ -704,7 +704,7 @@ def _aggregate(
                 snr = float("inf")  # exact by construction (the normalising line itself)
             else:
                 snr = float("nan")
-            if not np.isfinite(snr) or snr < meas.snr_detect:
+            if np.isnan(snr) or snr < meas.snr_detect:
                 flags.add("not_found")
                 if ln.mode == "window":  # a peak position in noise means nothing
                     centre = fwhm = float("nan")
