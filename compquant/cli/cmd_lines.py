@@ -108,8 +108,15 @@ def _short_table(table, max_rows: int = 60) -> str:
     default=None,
     help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].",
 )
+@click.option(
+    "--threads",
+    type=click.IntRange(1, 64),
+    default=1,
+    show_default=True,
+    help="Worker threads (numpy releases the GIL; results are identical).",
+)
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
-def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, quiet):
+def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, threads, quiet):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
     centre, FWHM, signal-to-noise and flags per sample. Writes the line table, the per-shot
@@ -127,10 +134,10 @@ def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * passes
         if quiet or total < 20000:
-            lm = measure_run(run, method, chunk_shots=chunk_shots)
+            lm = measure_run(run, method, chunk_shots=chunk_shots, threads=threads)
         else:
             with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
-                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update)
+                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update, threads=threads)
     _write_csv(lm.table, out)
     if shots_out is not None:
         _write_csv(lm.shots, shots_out)
