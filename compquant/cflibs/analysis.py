@@ -991,7 +991,15 @@ def analyse_cf(
     sid, rows = _select_sample(line_table, sample_id, where or "line table")
     where = where or f"sample {sid}"
     atomic = atomic if atomic is not None else default_atomic_data()
+    double = one_point is not None and s.self_absorption in ("curve_of_growth", "columnar", "reference_line")
+    if double:  # the one-point factors already hold the self-absorption at the standard's conditions
+        import dataclasses
+
+        s = dataclasses.replace(s, self_absorption="detect")
     a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where)
+    if double:
+        a._warn("one-point calibration applied: self-absorption correction switched to detection only "
+                "(the factors already carry the standard's self-absorption)")
     return a.run(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
 
 
