@@ -93,12 +93,12 @@ class PackageAtomicData:
         return self._lines
 
 
-#: NIST ASD accuracy grades → relative *standard* uncertainty of A_ki: the grade's bound
-#: (NIST ASD "Accuracy" legend, from memory of the NIST Atomic Spectra Database
-#: documentation, verify) divided by √3 (rectangular distribution, GUM 4.3.7)
-NIST_GRADE_U = {g: b / 3**0.5 for g, b in {
-    "AAA": 0.003, "AA": 0.01, "A+": 0.02, "A": 0.03, "B+": 0.07, "B": 0.10,
-    "C+": 0.18, "C": 0.25, "D+": 0.40, "D": 0.50, "E": 1.00}.items()}
+def _package_grade_u(grade) -> float:
+    """Relative standard uncertainty of A_ki from :func:`compquant.atomic.aki_standard_uncertainty`
+    (NIST grade bound / √3, GUM 4.3.7): the one shipped grade table."""
+    from compquant.atomic import aki_standard_uncertainty
+
+    return float(aki_standard_uncertainty(str(grade)))
 
 
 class TableAtomicData:
@@ -110,7 +110,8 @@ class TableAtomicData:
     ionisation_ev : mapping species → ionisation energy of that species (eV)
     masses_u : mapping element → atomic mass (u)
     lines : optional line list DataFrame (same columns as compquant.atomic.load_line_list)
-    grade_u : mapping Aki grade → relative uncertainty (default NIST_GRADE_U)
+    grade_u : mapping Aki grade → relative standard uncertainty (default: the shipped NIST grade
+        table, :func:`compquant.atomic.aki_standard_uncertainty`)
     """
 
     def __init__(self, partition: Mapping[str, float | Callable], ionisation_ev: Mapping[str, float],
@@ -120,7 +121,7 @@ class TableAtomicData:
         self._ie = dict(ionisation_ev)
         self._m = dict(masses_u)
         self._lines = lines
-        self._grade = dict(NIST_GRADE_U if grade_u is None else grade_u)
+        self._grade = None if grade_u is None else dict(grade_u)
 
     def partition_function(self, species: str, T) -> np.ndarray:
         if species not in self._u:
@@ -149,6 +150,8 @@ class TableAtomicData:
         if grade is None or (isinstance(grade, float) and np.isnan(grade)) or grade == "":
             return 0.0
         key = str(grade).strip()
+        if self._grade is None:
+            return _package_grade_u(key)
         if key not in self._grade:
             raise AtomicDataError(f"unknown A_ki accuracy grade {key!r}", where="aki_grade",
                                   fix=f"use one of {', '.join(self._grade)}")
@@ -179,7 +182,6 @@ def default_atomic_data():
 
 
 __all__ = [
-    "NIST_GRADE_U",
     "PackageAtomicData",
     "TableAtomicData",
     "default_atomic_data",
