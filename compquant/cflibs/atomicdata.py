@@ -45,29 +45,10 @@ class PackageAtomicData:
 
         self._atomic = atomic
 
-    #: temperature grid (K) on which U(T) is tabulated once per species and then
-    #: interpolated by a cubic spline in ln U (the level sum of compquant.atomic costs
-    #: ~0.5 ms per call, and the fits call it thousands of times); the spline error on
-    #: this 5 K grid is < 1e-10 relative for the shipped tables
-    T_GRID = np.arange(1000.0, 60000.0 + 1.0, 5.0)
-
     def partition_function(self, species: str, T) -> np.ndarray:
-        T = np.asarray(T, dtype=float)
-        if not hasattr(self, "_spl"):
-            self._spl = {}
-        spl = self._spl.get(species)
-        if spl is None:
-            from scipy.interpolate import CubicSpline
-
-            u = np.asarray(self._atomic.partition_function(species, self.T_GRID), dtype=float)
-            spl = self._spl[species] = CubicSpline(self.T_GRID, np.log(u))
-        inside = (T >= self.T_GRID[0]) & (T <= self.T_GRID[-1])
-        if np.all(inside):
-            return np.exp(spl(T))
-        out = np.empty(T.shape)
-        out[inside] = np.exp(spl(T[inside]))
-        out[~inside] = np.asarray(self._atomic.partition_function(species, T[~inside]), dtype=float)
-        return out
+        """U(T) by the level sum of :func:`compquant.atomic.partition_function` (vectorised over T;
+        fast enough per call that no tabulation is needed)."""
+        return np.asarray(self._atomic.partition_function(species, np.asarray(T, dtype=float)), dtype=float)
 
     def has_partition_function(self, species: str) -> bool:
         try:
