@@ -149,8 +149,8 @@ _DEFAULT: list = []
 
 
 def default_atomic_data():
-    """The shipped atomic data (:class:`PackageAtomicData`), one shared instance so that its
-    partition-function tables are built once per process."""
+    """The shipped atomic data (:class:`PackageAtomicData`), one shared instance per process (its
+    line list is read once)."""
     if _DEFAULT:
         return _DEFAULT[0]
     try:
