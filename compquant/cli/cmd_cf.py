@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import csv
 import json
 import math
 import warnings
@@ -11,7 +10,7 @@ from pathlib import Path
 import click
 
 from compquant.errors import ConfigError, OutputError, StandardsError
-from compquant.fileio import atomic_write, require_file, safe_filename
+from compquant.fileio import atomic_write, safe_filename
 
 NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) homogeneous plasma "
         "and the atomic data; read the flags. Safety: LIBS uses Class 4 lasers (eye and skin hazard: "
@@ -19,45 +18,16 @@ NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) 
         "particles may be toxic (Pb, Cd, Be): use fume extraction; plasmas emit UV. Follow local "
         "regulations and your laser safety officer.")
 
-_UNIT = {"%": 1e-2, "mg/kg": 1e-6, "g/g": 1.0}
-
-
 def _certified(path: Path, standard_id: str) -> dict[str, float]:
-    """Certified mass fractions of one standard from a standards CSV (architecture contract)."""
-    try:
-        from compquant.calibrate import load_standards  # the owner's validated loader
-    except ImportError:
-        load_standards = None
-    if load_standards is not None:
-        tab = load_standards(path)
-        rows = tab[tab["standard_id"].astype(str) == standard_id]
-        if rows.empty:
-            raise StandardsError(f"standard {standard_id!r} not in the standards file", where=str(path),
-                                 fix="check [cf] one_point_standard and the run's standard_ref")
-        col = "mass_fraction_gg" if "mass_fraction_gg" in rows.columns else "mass_fraction"
-        unit = rows["unit"] if "unit" in rows.columns and col == "mass_fraction" else None
-        return {str(r["element"]): float(r[col]) * (_UNIT.get(str(unit.loc[i]), 1.0) if unit is not None else 1.0)
-                for i, r in rows.iterrows()}
-    p = require_file(path, "standards file")
-    out = {}
-    with open(p, newline="", encoding="utf-8") as fh:
-        for n, row in enumerate(csv.DictReader(fh), start=2):
-            if str(row.get("standard_id", "")).strip() != standard_id:
-                continue
-            unit = str(row.get("unit", "")).strip()
-            try:
-                v = float(row["mass_fraction"]) * _UNIT[unit]
-            except (KeyError, ValueError) as exc:
-                raise StandardsError("mass_fraction / unit not readable", where=f"{p}, line {n}",
-                                     fix="unit must be %, mg/kg or g/g and mass_fraction a number") from exc
-            if not (math.isfinite(v) and 0 < v <= 1):
-                raise StandardsError("mass fraction outside (0, 1] g/g", where=f"{p}, line {n}",
-                                     fix="check the value and its unit")
-            out[str(row["element"]).strip()] = v
-    if not out:
-        raise StandardsError(f"standard {standard_id!r} not in the standards file", where=str(p),
+    """Certified mass fractions (g/g) of one standard, read by :func:`compquant.calibrate.load_standards`."""
+    from compquant.calibrate import load_standards
+
+    tab = load_standards(path)
+    rows = tab[tab["standard_id"].astype(str) == standard_id]
+    if rows.empty:
+        raise StandardsError(f"standard {standard_id!r} not in the standards file", where=str(path),
                              fix="check [cf] one_point_standard and the run's standard_ref")
-    return out
+    return {str(el): float(w) for el, w in zip(rows["element"], rows["mass_fraction"])}
 
 
 def _write_csv(df, path: Path) -> None:

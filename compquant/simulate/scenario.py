@@ -12,7 +12,6 @@ sees the same materials.
 
 from __future__ import annotations
 
-import csv
 import math
 import zlib
 from dataclasses import dataclass, field
@@ -21,11 +20,9 @@ from pathlib import Path
 import numpy as np
 
 from compquant.errors import ConfigError
-from compquant.fileio import check_keys, load_toml, require_file
+from compquant.fileio import check_keys, load_toml
 
 ROLES = ("standard", "blank", "check", "unknown", "setup")
-UNIT_TO_GG = {"%": 1e-2, "mg/kg": 1e-6, "g/g": 1.0}
-STANDARD_COLUMNS = ("standard_id", "matrix", "element", "mass_fraction", "expanded_uncertainty", "k", "unit", "source")
 
 _TOP = {"scenario", "standards", "plasma", "laser", "instrument", "drift", "dark", "samples", "lines"}
 _SCENARIO = {"id", "title", "lab", "start_time", "seed", "matrix", "sample_interval_s", "description"}
@@ -181,48 +178,17 @@ def _num_list(table, key, where, n_min=2):
 
 
 def load_standards_csv(path: Path) -> dict:
-    """Certified values of a standards CSV (docs/architecture.md columns).
+    """Certified values of a standards file, read and validated by
+    :func:`compquant.calibrate.load_standards` (docs/architecture.md columns).
 
     Returns ``{standard_id: {element: (mass_fraction g/g, standard_uncertainty g/g)}}``.
     """
-    p = require_file(path, "standards file")
+    from compquant.calibrate import load_standards
+
     out: dict = {}
-    try:
-        with open(p, newline="", encoding="utf-8") as fh:
-            reader = csv.DictReader(fh)
-            cols = tuple(reader.fieldnames or ())
-            missing = [c for c in STANDARD_COLUMNS if c not in cols]
-            if missing:
-                raise ConfigError(
-                    f"standards file lacks column(s) {', '.join(missing)}",
-                    where=str(p),
-                    fix=f"header must be {','.join(STANDARD_COLUMNS)}",
-                )
-            for i, row in enumerate(reader, start=2):
-                where = f"{p}:{i}"
-                unit = row["unit"].strip()
-                if unit not in UNIT_TO_GG:
-                    raise ConfigError(f"unit {unit!r} unknown", where=where, fix="use %, mg/kg or g/g")
-                try:
-                    w = float(row["mass_fraction"]) * UNIT_TO_GG[unit]
-                    big_u = float(row["expanded_uncertainty"]) * UNIT_TO_GG[unit]
-                    k = float(row["k"])
-                except ValueError as exc:
-                    raise ConfigError(
-                        "mass_fraction, expanded_uncertainty and k must be numbers", where=where, fix="fix the row"
-                    ) from exc
-                if not (w >= 0 and big_u >= 0 and k > 0):
-                    raise ConfigError(
-                        "mass fraction and uncertainty must be >= 0 and k > 0", where=where, fix="fix the row"
-                    )
-                sid, el = row["standard_id"].strip(), row["element"].strip()
-                if el in out.setdefault(sid, {}):
-                    raise ConfigError(
-                        f"element {el} listed twice for {sid}", where=where, fix="keep one row per standard and element"
-                    )
-                out[sid][el] = (w, big_u / k)
-    except UnicodeDecodeError as exc:
-        raise ConfigError("standards file is not UTF-8 text", where=str(p), fix="save it as UTF-8") from exc
+    tab = load_standards(path)
+    for sid, el, w, u in zip(tab["standard_id"], tab["element"], tab["mass_fraction"], tab["u"]):
+        out.setdefault(str(sid), {})[str(el)] = (float(w), float(u))
     return out
 
 
