@@ -6,13 +6,7 @@ from pathlib import Path
 
 import click
 
-SAFETY = (
-    "Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-    "density for the laser wavelength, keep interlocks and a controlled area); ablation makes "
-    "fumes and particles, some toxic (Pb, Cd, Be): use fume extraction; spark and flashlamp "
-    "sources use high voltage and emit UV; argon purge gas can displace air in closed rooms. "
-    "Follow local regulations and your laser safety officer."
-)
+from compquant.cli._common import SAFETY, format_columns
 
 
 def curve_table(cal) -> str:
@@ -36,8 +30,7 @@ def curve_table(cal) -> str:
                 "blank" if c.lod_source.startswith("blank") else "residuals",
             )
         )
-    w = [max(len(r[i]) for r in rows) for i in range(len(cols))]
-    lines = ["  ".join(v.ljust(w[i]) for i, v in enumerate(r)) for r in rows]
+    lines = format_columns(rows).split("\n")
     for el, why in cal.rejected.items():
         lines.append(f"not calibrated: {el}: {why}")
     for el, c in cal.curves.items():

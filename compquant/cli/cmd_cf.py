@@ -9,14 +9,12 @@ from pathlib import Path
 
 import click
 
-from compquant.errors import ConfigError, OutputError, StandardsError
+from compquant.cli._common import SAFETY, format_columns, write_csv
+from compquant.errors import ConfigError, StandardsError
 from compquant.fileio import atomic_write, safe_filename
 
 NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) homogeneous plasma "
-        "and the atomic data; read the flags. Safety: LIBS uses Class 4 lasers (eye and skin hazard: "
-        "eyewear of the right optical density, interlocks, a controlled area); ablation fumes and "
-        "particles may be toxic (Pb, Cd, Be): use fume extraction; plasmas emit UV. Follow local "
-        "regulations and your laser safety officer.")
+        "and the atomic data; read the flags. " + SAFETY)
 
 def _certified(path: Path, standard_id: str) -> dict[str, float]:
     """Certified mass fractions (g/g) of one standard, read by :func:`compquant.calibrate.load_standards`."""
@@ -30,15 +28,6 @@ def _certified(path: Path, standard_id: str) -> dict[str, float]:
     return {str(el): float(w) for el, w in zip(rows["element"], rows["mass_fraction"])}
 
 
-def _write_csv(df, path: Path) -> None:
-    try:
-        with atomic_write(path, "w", newline="") as fh:
-            df.to_csv(fh, index=False, float_format="%.8g")
-    except OSError as exc:
-        raise OutputError(f"cannot write ({exc.strerror})", where=str(path),
-                          fix="choose a writable output path") from exc
-
-
 def _screen(results) -> str:
     cols = ("sample", "species", "lines", "T/K", "ne/cm-3", "ne method", "w/%", "U/%", "flags")
     rows = [cols]
@@ -48,8 +37,7 @@ def _screen(results) -> str:
                          f"{row.ne_cm3:.2e}", row.ne_method,
                          "n.d." if not math.isfinite(row.mass_fraction) else f"{100 * row.mass_fraction:.3f}",
                          "-" if not math.isfinite(row.U) else f"{100 * row.U:.3f}", row.flags or "-"))
-    w = [max(len(x[i]) for x in rows) for i in range(len(cols))]
-    return "\n".join("  ".join(c.ljust(w[i]) for i, c in enumerate(row)) for row in rows)
+    return format_columns(rows)
 
 
 @click.command("cf", epilog=NOTE)
@@ -128,9 +116,9 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
     summary = pd.concat([r.summary_table() for r in results], ignore_index=True) if results else \
         pd.DataFrame(columns=["sample_id", "species", "n_lines", "lines", "T_K", "u_T_K", "T_species_K",
                               "ne_cm3", "u_ne_cm3", "ne_method", "mass_fraction", "U", "flags"])
-    _write_csv(summary, out)
+    write_csv(summary, out, float_format="%.8g")
     res_path = Path(f"{stem}-results.csv")
-    _write_csv(results_table(results), res_path)
+    write_csv(results_table(results), res_path, float_format="%.8g")
     js_path = Path(f"{stem}.json")
     doc = {"schema": "compquant.cf-run/1", "run": str(run_path), "run_sha256": run_sha,
            "method": method.provenance(), "results": [r.to_dict() for r in results],

@@ -7,22 +7,9 @@ from pathlib import Path
 import click
 import pandas as pd
 
-from compquant.errors import InputError, OutputError
-from compquant.fileio import atomic_write, safe_filename
-
-SAFETY = ("Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-          "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
-          "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
-          "Follow local regulations and your laser safety officer.")
-
-
-def _write_csv(df: pd.DataFrame, path: Path) -> None:
-    try:
-        with atomic_write(path, "w", newline="") as fh:
-            df.to_csv(fh, index=False, float_format="%.6g")
-    except OSError as exc:
-        raise OutputError(f"cannot write ({exc.strerror})", where=str(path),
-                          fix="choose a writable output path") from exc
+from compquant.cli._common import SAFETY, format_columns, write_csv
+from compquant.errors import InputError
+from compquant.fileio import safe_filename
 
 
 def render_table(table: pd.DataFrame) -> str:
@@ -34,11 +21,9 @@ def render_table(table: pd.DataFrame) -> str:
         for r in shown.itertuples(index=False):
             rows.append((r.element, r.species.split(" ", 1)[1], r.status, f"{r.score:.2f}",
                          f"{r.lines_found:g}/{r.lines_expected}", r.best_lines or "-"))
-        w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
         out.append(f"sample {sid} (T = {t['temperature_k'].iloc[0]:.0f} K"
                    f"{' fitted' if t['temperature_fitted'].iloc[0] else ''}, R = {t['resolving_power'].iloc[0]:.0f})")
-        out.extend("  " + "  ".join(c.ljust(w[i]) if i != 3 else c.rjust(w[i]) for i, c in enumerate(row))
-                   for row in rows)
+        out.append(format_columns(rows, right={3}, indent="  "))
         nd = sorted(set(t.loc[t["status"] == "not detected", "element"]) - set(shown["element"]))
         out.append("  not detected: " + (", ".join(nd) if nd else "-"))
     return "\n".join(out)
@@ -117,15 +102,16 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
                 plot_identification(ident, target, medium=medium, title=f"{sid}: identified lines "
                                     f"(T = {ident.temperature_k:.0f} K, R = {ident.resolving_power:.0f})")
     table = pd.concat(tables, ignore_index=True)
-    _write_csv(table, out)
+    write_csv(table, out, float_format="%.6g")
     written = [out]
     if imaps:
         ip = Path(imap_path) if imap_path else Path(f"{stem}-interference.csv")
-        _write_csv(pd.concat(imaps, ignore_index=True), ip)
+        write_csv(pd.concat(imaps, ignore_index=True), ip, float_format="%.6g")
         written.append(ip)
     if peak_tables:
         pt = pd.concat(peak_tables, ignore_index=True)
-        _write_csv(pt[["sample_id"] + [c for c in pt.columns if c != "sample_id"]], Path(peaks_path))
+        write_csv(pt[["sample_id"] + [c for c in pt.columns if c != "sample_id"]], Path(peaks_path),
+                  float_format="%.6g")
         written.append(Path(peaks_path))
     if not quiet:
         click.echo(render_table(table))

@@ -6,6 +6,7 @@ import json
 
 import click
 
+from compquant.cli._common import format_columns
 from compquant.run import Run, summarise_run
 
 
@@ -39,10 +40,7 @@ def render_summary(s: dict) -> str:
     for smp in s["samples"]:
         rows.append((smp["sample_id"], smp["role"], smp["standard_ref"] or "-", str(smp["n_shots"]),
                      str(smp["saturated_pixels"])))
-    widths = [max(len(r[i]) for r in rows) for i in range(5)]
-    for r in rows:
-        lines.append("  " + "  ".join(c.ljust(w) if i < 3 else c.rjust(w) for i, (c, w) in
-                                      enumerate(zip(r, widths))))
+    lines.append(format_columns(rows, right={3, 4}, indent="  "))
     lines.append("")
     if s["findings"]:
         lines.append("findings:")

@@ -7,33 +7,12 @@ from pathlib import Path
 
 import click
 
-from compquant.errors import OutputError
+from compquant.cli._common import SAFETY, format_columns, write_csv
 from compquant.fileio import atomic_write
-
-SAFETY = (
-    "Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-    "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
-    "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
-    "Follow local regulations and your laser safety officer."
-)
-
-
-def _write_csv(df, path: Path) -> None:
-    try:
-        with atomic_write(path, "w", newline="") as fh:
-            df.to_csv(fh, index=False, float_format="%.10g")
-    except OSError as exc:
-        raise OutputError(
-            f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
-        ) from exc
 
 
 def _columns(rows) -> str:
-    w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
-    return "\n".join(
-        "  ".join(c.ljust(w[i]) if i < 2 or i == len(row) - 1 else c.rjust(w[i]) for i, c in enumerate(row))
-        for row in rows
-    )
+    return format_columns(rows, right=range(2, len(rows[0]) - 1))
 
 
 def _short_table(table, max_rows: int = 60) -> str:
@@ -138,11 +117,11 @@ def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_
         else:
             with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
                 lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update, threads=threads)
-    _write_csv(lm.table, out)
+    write_csv(lm.table, out)
     if shots_out is not None:
-        _write_csv(lm.shots, shots_out)
+        write_csv(lm.shots, shots_out)
     qc = lm.qc.merge(lm.shifts, on="sample_id", how="left")
-    _write_csv(qc, qc_out)
+    write_csv(qc, qc_out)
     prov_path = Path(f"{stem}-provenance.json")
     with atomic_write(prov_path) as fh:
         json.dump(lm.provenance, fh, indent=2, sort_keys=True, default=str)

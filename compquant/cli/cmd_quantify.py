@@ -7,20 +7,7 @@ from pathlib import Path
 
 import click
 
-from compquant.cli.cmd_calibrate import SAFETY
-
-
-def _write_csv(df, path: Path) -> None:
-    from compquant.errors import OutputError
-    from compquant.fileio import atomic_write
-
-    try:
-        with atomic_write(path, "w", newline="") as fh:
-            df.to_csv(fh, index=False, float_format="%.10g")
-    except OSError as exc:
-        raise OutputError(
-            f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
-        ) from exc
+from compquant.cli._common import SAFETY, write_csv
 
 
 def _fmt(w: float) -> str:
@@ -113,8 +100,8 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
     q = quantify(lm, cal, standards=standards, run_sha256=run_sha, samples=samples)
     out = Path(output)
     stem = out.with_suffix("")
-    _write_csv(q.results, out)
-    _write_csv(q.checks, Path(f"{stem}-checks.csv"))
+    write_csv(q.results, out)
+    write_csv(q.checks, Path(f"{stem}-checks.csv"))
     prov = dict(q.provenance)
     prov.update(
         run_path=str(Path(run_path).resolve()),

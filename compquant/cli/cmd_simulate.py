@@ -38,7 +38,7 @@ def command(scenario, output, seed, truth_path, no_noise):
     controlled area, extract ablation fumes (samples may hold lead), and follow
     local regulations and the lab's laser safety officer.
     """
-    from compquant.fileio import atomic_write
+    from compquant.cli._common import write_csv
     from compquant.simulate import load_scenario, simulate_run, truth_table
 
     sc = load_scenario(scenario)
@@ -49,6 +49,5 @@ def command(scenario, output, seed, truth_path, no_noise):
     )
     if truth_path is not None:
         df = truth_table(sc)
-        with atomic_write(truth_path, newline="") as fh:
-            df.to_csv(fh, index=False, float_format="%.8g")
+        write_csv(df, truth_path, float_format="%.8g")
         click.echo(f"wrote true compositions to {truth_path}")
