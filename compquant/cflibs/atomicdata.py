@@ -10,39 +10,23 @@ methods, which is all the analysis uses.
 
 from __future__ import annotations
 
-import re
 from collections.abc import Callable, Mapping
 
 import numpy as np
 import pandas as pd
 
+import compquant.atomic as atomic
+from compquant.atomic import parse_species, species_name
 from compquant.errors import AtomicDataError
 
-_ROMAN = {"I": 1, "II": 2, "III": 3, "IV": 4}
-_ROMAN_INV = {v: k for k, v in _ROMAN.items()}
-_SPECIES_RE = re.compile(r"^\s*([A-Z][a-z]?)\s+(I|II|III|IV)\s*$")
-
-
-def split_species(species: str) -> tuple[str, int]:
-    """``"Fe II"`` → ``("Fe", 2)``."""
-    m = _SPECIES_RE.match(str(species))
-    if not m:
-        raise AtomicDataError(f"not a species name: {species!r}", where="species",
-                              fix='write species as "<Element> <roman numeral>", e.g. "Fe II"')
-    return m.group(1), _ROMAN[m.group(2)]
-
-
-def species_name(element: str, ion: int) -> str:
-    """``("Fe", 2)`` → ``"Fe II"``."""
-    return f"{element} {_ROMAN_INV[int(ion)]}"
+#: species names ``"Fe II"`` <-> ``("Fe", 2)``: the shipped parser of compquant.atomic
+split_species = parse_species
 
 
 class PackageAtomicData:
-    """Atomic data from :mod:`compquant.atomic` (imported on first use)."""
+    """Atomic data from :mod:`compquant.atomic` (the shipped tables)."""
 
     def __init__(self):
-        import compquant.atomic as atomic
-
         self._atomic = atomic
 
     def partition_function(self, species: str, T) -> np.ndarray:
@@ -77,9 +61,7 @@ class PackageAtomicData:
 def _package_grade_u(grade) -> float:
     """Relative standard uncertainty of A_ki from :func:`compquant.atomic.aki_standard_uncertainty`
     (NIST grade bound / √3, GUM 4.3.7): the one shipped grade table."""
-    from compquant.atomic import aki_standard_uncertainty
-
-    return float(aki_standard_uncertainty(str(grade)))
+    return float(atomic.aki_standard_uncertainty(str(grade)))
 
 
 class TableAtomicData:
@@ -151,15 +133,9 @@ _DEFAULT: list = []
 def default_atomic_data():
     """The shipped atomic data (:class:`PackageAtomicData`), one shared instance per process (its
     line list is read once)."""
-    if _DEFAULT:
-        return _DEFAULT[0]
-    try:
+    if not _DEFAULT:
         _DEFAULT.append(PackageAtomicData())
-        return _DEFAULT[0]
-    except ImportError as exc:
-        raise AtomicDataError("the atomic-data module compquant.atomic is not installed",
-                              where="compquant.atomic",
-                              fix="install a compquant version with atomic data, or pass atomic=") from exc
+    return _DEFAULT[0]
 
 
 __all__ = [
