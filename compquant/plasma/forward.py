@@ -342,18 +342,25 @@ class SpectrumModel:
         self._build_grid(lines, float(nominal_temperature_k), float(nominal_ne_cm3))
 
     # ------------------------------------------------------------------ grid
-    def _nominal_widths(self, lines, t, ne):
-        wg = doppler_fwhm(lines.wavelength_nm, t, lines.mass_u)
-        wl = stark_fwhm(
-            lines.stark_w_nm,
+    def _broadening(self, lines, sel, t, ne, shift=False):
+        """Doppler FWHM, Stark FWHM and (with ``shift``) Stark shift in nm of ``lines[sel]`` at
+        T (K) and n_e (cm^-3), broadcast against ``t`` and ``ne``: ``sel = slice(None)`` with
+        scalars for the nominal plasma, ``(None, slice(None))`` with ``t[:, None]`` for
+        (n_shots, n_lines), a line index ``j`` with per-shot ``t`` for (n_shots,).
+        Equations: :func:`doppler_fwhm`, :func:`stark_fwhm`, :func:`stark_shift`."""
+        stark = (
             ne,
-            lines.stark_ne_ref_cm3,
+            lines.stark_ne_ref_cm3[sel],
             t,
-            lines.stark_t_ref_k,
+            lines.stark_t_ref_k[sel],
             self.stark_t_exponent,
-            lines.stark_ne_exponent,
+            lines.stark_ne_exponent[sel],
         )
-        return wg, wl
+        wg = doppler_fwhm(lines.wavelength_nm[sel], t, lines.mass_u[sel])
+        wl = stark_fwhm(lines.stark_w_nm[sel], *stark)
+        if not shift:
+            return wg, wl
+        return wg, wl, np.nan_to_num(stark_shift(lines.stark_shift_nm[sel], *stark))
 
     def _build_grid(self, lines, t_nom, ne_nom):
         ins = self.instrument
@@ -376,19 +383,8 @@ class SpectrumModel:
         lines = lines.subset(inside)
         self.lines = lines
         self.masses_u = _masses_for(set(lines.element), self._masses_arg) if len(lines) else {}
-        wg, wl = self._nominal_widths(lines, t_nom, ne_nom)
+        wg, wl, shift = self._broadening(lines, slice(None), t_nom, ne_nom, shift=True)
         wv = voigt_fwhm(wg, wl)
-        shift = np.nan_to_num(
-            stark_shift(
-                lines.stark_shift_nm,
-                ne_nom,
-                lines.stark_ne_ref_cm3,
-                t_nom,
-                lines.stark_t_ref_k,
-                self.stark_t_exponent,
-                lines.stark_ne_exponent,
-            )
-        )
         centre = lines.wavelength_nm + shift
         base_step = np.interp(centre, edges[:-1], np.diff(edges)) / os_ if len(lines) else np.zeros(0)
         for c, f, bs in zip(centre, wv, base_step):
@@ -493,16 +489,7 @@ class SpectrumModel:
         ne = np.atleast_1d(st.ne_cm3)
         _, kint = self.line_quantities(st)
         L = self.lines
-        wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
-        wl = stark_fwhm(
-            L.stark_w_nm[None, :],
-            ne[:, None],
-            L.stark_ne_ref_cm3[None, :],
-            t[:, None],
-            L.stark_t_ref_k[None, :],
-            self.stark_t_exponent,
-            L.stark_ne_exponent[None, :],
-        )
+        wg, wl = self._broadening(L, (None, slice(None)), t[:, None], ne[:, None])
         peak = voigt(0.0, 0.0, wg, wl)
         return kint * peak * float(length_mm) * 1e-3
 
@@ -558,16 +545,7 @@ class SpectrumModel:
         ne = np.atleast_1d(st.ne_cm3)
         _, kint = self.line_quantities(st)
         L = self.lines
-        wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
-        wl = stark_fwhm(
-            L.stark_w_nm[None, :],
-            ne[:, None],
-            L.stark_ne_ref_cm3[None, :],
-            t[:, None],
-            L.stark_t_ref_k[None, :],
-            self.stark_t_exponent,
-            L.stark_ne_exponent[None, :],
-        )
+        wg, wl = self._broadening(L, (None, slice(None)), t[:, None], ne[:, None])
         tau0 = kint * voigt(0.0, 0.0, wg, wl) * length_m
         thick = tau0.max(axis=0) > self.thin_tau
         if thick.any():
@@ -624,27 +602,7 @@ class SpectrumModel:
             lo = np.searchsorted(cells, j0)
             hi = lo + (j1 - j0)
             x = mid[lo:hi]
-            wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
-            wl = stark_fwhm(
-                L.stark_w_nm[j],
-                ne,
-                L.stark_ne_ref_cm3[j],
-                t,
-                L.stark_t_ref_k[j],
-                self.stark_t_exponent,
-                L.stark_ne_exponent[j],
-            )
-            sh = np.nan_to_num(
-                stark_shift(
-                    L.stark_shift_nm[j],
-                    ne,
-                    L.stark_ne_ref_cm3[j],
-                    t,
-                    L.stark_t_ref_k[j],
-                    self.stark_t_exponent,
-                    L.stark_ne_exponent[j],
-                )
-            )
+            wg, wl, sh = self._broadening(L, j, t, ne, shift=True)
             phi = voigt(x[None, :], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
             phi /= (phi @ w[lo:hi])[:, None]
             emis[:, lo:hi] += eps[:, j, None] * phi
@@ -670,27 +628,7 @@ class SpectrumModel:
             j0, j1 = self.window[j]
             if j1 <= j0 or not np.any(eps[:, j] > 0):
                 continue
-            wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
-            wl = stark_fwhm(
-                L.stark_w_nm[j],
-                ne,
-                L.stark_ne_ref_cm3[j],
-                t,
-                L.stark_t_ref_k[j],
-                self.stark_t_exponent,
-                L.stark_ne_exponent[j],
-            )
-            sh = np.nan_to_num(
-                stark_shift(
-                    L.stark_shift_nm[j],
-                    ne,
-                    L.stark_ne_ref_cm3[j],
-                    t,
-                    L.stark_t_ref_k[j],
-                    self.stark_t_exponent,
-                    L.stark_ne_exponent[j],
-                )
-            )
+            wg, wl, sh = self._broadening(L, j, t, ne, shift=True)
             phi = voigt(mid[None, j0:j1], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
             phi /= (phi @ w[j0:j1])[:, None]
             emis[:, j0:j1] += eps[:, j, None] * phi
