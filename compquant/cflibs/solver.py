@@ -212,7 +212,7 @@ class Model:
             raise PhysicsError(msg, where=f"{self.mode} fit",
                                fix="check line identifications, self-absorption and the line flags; "
                                "widen [cf] t_min_k / t_max_k only if the plasma really is that hot/cold")
-        Tv = np.where(valid, T, s.t_start_k)  # placeholder values only where draws are invalid
+        Tv = np.where(valid, T, s.t_start_k)  # finite stand-in T for invalid draws; masked by `valid` below
         u_slope = np.sqrt(fit.cov[:, 0, 0])
         # electron density
         u_ln_ne = None
