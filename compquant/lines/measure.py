@@ -58,7 +58,7 @@ from compquant.lines.windows import (
 )
 from compquant.method import LineSpec, Method, parse_line_id, side_width_nm, window_width_nm
 from compquant.preprocess.baseline import estimate_baseline
-from compquant.preprocess.corrections import dark_reference, exposure_ratio
+from compquant.preprocess.corrections import dark_reference, exposure_ratio, trapezoid_weights
 from compquant.preprocess.qc import QCDecision, qc_decide
 from compquant.preprocess.shift import shift_by_cross_correlation, shift_from_lines
 
@@ -204,14 +204,6 @@ def _dark_vector(run, method: Method, notes: list) -> tuple[np.ndarray | None, f
         return None, 1.0
     scale = exposure_ratio(run.exposure_s, run.dark_exposure_s) if pre.dark_scale_exposure else 1.0
     return dark_reference(d, pre.dark_statistic) * scale, scale
-
-
-def _trapezoid(wl: np.ndarray) -> np.ndarray:
-    dl = np.diff(wl)
-    w = np.zeros_like(wl)
-    w[:-1] += dl / 2
-    w[1:] += dl / 2
-    return w
 
 
 def _fit_groups(lines: list[LineSpec], wl: np.ndarray) -> list[list[int]]:
@@ -375,7 +367,7 @@ class _Setup:
             saturation_threshold=self.sat_threshold,
             baseline=pre.baseline,
             baseline_params=dict(pre.baseline_params),
-            total_weights=_trapezoid(self.wl),
+            total_weights=trapezoid_weights(self.wl),
             background_level=pre.normalise == "background",
         )
 

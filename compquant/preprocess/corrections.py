@@ -153,11 +153,13 @@ def total_area(spectra, wavelength, pixel_range: tuple[int, int] | None = None) 
     if pixel_range is not None:
         a, b = pixel_range
         s, wl = s[:, a:b], wl[a:b]
-    w = _trapezoid_weights(wl)
+    w = trapezoid_weights(wl)
     return s @ w
 
 
-def _trapezoid_weights(wl: np.ndarray) -> np.ndarray:
+def trapezoid_weights(wl: np.ndarray) -> np.ndarray:
+    """Trapezoid-rule weights ``w`` of a wavelength axis (nm): ``sum_i S_i w_i`` integrates S
+    over the axis, ``w_i = (lambda_{i+1} - lambda_{i-1}) / 2`` (half steps at the ends)."""
     dl = np.diff(wl)
     w = np.zeros_like(wl)
     w[:-1] += dl / 2
