@@ -103,8 +103,9 @@ def parse_species(species: str) -> tuple[str, int]:
     return sym, _ROMAN.index(roman) + 1
 
 
-def _read_csv(path: Path, what: str) -> pd.DataFrame:
-    """Read a user or shipped CSV table as strings; any read problem -> InputError."""
+def _read_csv(path: Path, what: str, required: tuple[str, ...] = ()) -> pd.DataFrame:
+    """Read a user or shipped CSV table as strings; any read problem -> InputError, a column of
+    ``required`` missing from the header -> AtomicDataError."""
     try:
         with warnings.catch_warnings():
             # a row with more fields than the header must not be silently cut or shifted
@@ -130,6 +131,13 @@ def _read_csv(path: Path, what: str) -> pd.DataFrame:
             f"cannot read {what} ({exc})", where=str(path), fix="save it as UTF-8 CSV with a header row"
         ) from exc
     raw.columns = [str(c).strip() for c in raw.columns]
+    missing = [c for c in required if c not in raw.columns]
+    if missing:
+        raise AtomicDataError(
+            f"missing column(s) {', '.join(missing)}",
+            where=str(path),
+            fix=f"the header must hold {', '.join(required)}",
+        )
     raw = raw.apply(lambda col: col.str.strip())
     # drop blank lines but remember each row's line number in the file (header = line 1)
     raw = raw[(raw != "").any(axis=1)] if len(raw.columns) else raw
@@ -157,15 +165,8 @@ def load_element_table(path: str | os.PathLike | None = None) -> pd.DataFrame:
 
 
 def _read_element_table(path: Path) -> pd.DataFrame:
-    df = _read_csv(path, "element table")
+    df = _read_csv(path, "element table", ELEMENT_COLUMNS)
     ln = df.attrs["file_lines"]
-    missing = [c for c in ELEMENT_COLUMNS if c not in df.columns]
-    if missing:
-        raise AtomicDataError(
-            f"missing column(s) {', '.join(missing)}",
-            where=str(path),
-            fix=f"the header must hold {', '.join(ELEMENT_COLUMNS)}",
-        )
     out = pd.DataFrame(
         {
             "symbol": df["symbol"].str.strip(),

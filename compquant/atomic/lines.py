@@ -120,15 +120,8 @@ def aki_standard_uncertainty(grade):
 
 
 def _read_line_list(path: Path) -> pd.DataFrame:
-    raw = _read_csv(path, "line list")
+    raw = _read_csv(path, "line list", LINE_COLUMNS)
     ln = raw.attrs["file_lines"]
-    missing = [c for c in LINE_COLUMNS if c not in raw.columns]
-    if missing:
-        raise AtomicDataError(
-            f"missing column(s) {', '.join(missing)}",
-            where=str(path),
-            fix=f"the header must hold {', '.join(LINE_COLUMNS)}",
-        )
     if len(raw) == 0:
         raise AtomicDataError("the line list has no rows", where=str(path), fix="add lines")
     out = pd.DataFrame(index=range(len(raw)))

@@ -70,15 +70,8 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
     a row merges the levels of a term).  Returns a DataFrame sorted by energy.
     """
     path = Path(path)
-    raw = _read_csv(path, "level table")
+    raw = _read_csv(path, "level table", LEVEL_COLUMNS)
     ln = raw.attrs["file_lines"]
-    missing = [c for c in LEVEL_COLUMNS if c not in raw.columns]
-    if missing:
-        raise AtomicDataError(
-            f"missing column(s) {', '.join(missing)}",
-            where=str(path),
-            fix="the header must hold energy_ev, g, source",
-        )
     if len(raw) == 0:
         raise AtomicDataError("the level table has no rows", where=str(path), fix="add levels")
     out = {}
