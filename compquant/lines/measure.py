@@ -560,6 +560,20 @@ def _fit_one_group(setup: _Setup, mean: np.ndarray, members: list[int], shift: f
         ) from exc
 
 
+def _qc_decide(pre, qc_x: np.ndarray, pulse: np.ndarray | None, rows: np.ndarray) -> QCDecision:
+    """Shot QC of one sample's shots ``rows`` with the method's [preprocess.qc] settings
+    (:func:`compquant.preprocess.qc.qc_decide`)."""
+    return qc_decide(
+        qc_x,
+        k=pre.qc_k,
+        min_fraction=pre.qc_min_fraction,
+        min_signal=pre.qc_min_signal,
+        pulse_energy=None if pulse is None else pulse[rows],
+        min_pulse_fraction=pre.min_pulse_fraction,
+        enabled=pre.qc,
+    )
+
+
 def _aggregate(
     setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk
 ) -> LineMeasurement:
@@ -598,15 +612,7 @@ def _aggregate(
         idx = np.flatnonzero(setup.sample_index == s)
         if idx.size == 0:
             continue
-        dec: QCDecision = qc_decide(
-            qc_x[idx],
-            k=pre.qc_k,
-            min_fraction=pre.qc_min_fraction,
-            min_signal=pre.qc_min_signal,
-            pulse_energy=None if setup.pulse is None else setup.pulse[idx],
-            min_pulse_fraction=pre.min_pulse_fraction,
-            enabled=pre.qc,
-        )
+        dec = _qc_decide(pre, qc_x[idx], setup.pulse, idx)
         accepted[idx] = dec.accepted
         for j, i in enumerate(idx):
             reasons[i] = dec.reasons[j]
@@ -829,15 +835,7 @@ def mean_spectrum(
     if pre.pulse_energy_normalise and setup.pulse is not None:
         e = setup.pulse
         qc_x = totals / (e[rows] / np.nanmedian(e))
-    dec = qc_decide(
-        qc_x,
-        k=pre.qc_k,
-        min_fraction=pre.qc_min_fraction,
-        min_signal=pre.qc_min_signal,
-        pulse_energy=None if setup.pulse is None else setup.pulse[rows],
-        min_pulse_fraction=pre.min_pulse_fraction,
-        enabled=pre.qc,
-    )
+    dec = _qc_decide(pre, qc_x, setup.pulse, rows)
     if not dec.accepted.any():
         raise DataQualityError(
             f"all {rows.size} shots of sample {sample_id!r} were rejected by shot QC",
