@@ -7,7 +7,8 @@ from pathlib import Path
 import numpy as np
 
 from compquant.calibrate.model import Curve
-from compquant.fileio import atomic_path, safe_filename
+from compquant.fileio import safe_filename
+from compquant.plotting import pyplot, save_png
 
 
 def plot_curve(curve: Curve, path, unknowns=None, level: float = 0.95) -> Path:
@@ -15,10 +16,7 @@ def plot_curve(curve: Curve, path, unknowns=None, level: float = 0.95) -> Path:
 
     ``unknowns``: iterable of ``(sample_id, x, u_x, y)`` in the curve's units.
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     used = [s for s in curve.standards if s["used"]]
     excl = [s for s in curve.standards if not s["used"] and np.isfinite(s.get("x", np.nan))]
@@ -57,11 +55,7 @@ def plot_curve(curve: Curve, path, unknowns=None, level: float = 0.95) -> Path:
     ax.set_xlim(0, xmax)
     ax.legend(fontsize=7, loc="upper left")
     fig.tight_layout()
-    out = Path(path)
-    with atomic_path(out) as tmp:
-        fig.savefig(tmp, format="png")
-    plt.close(fig)
-    return out
+    return save_png(fig, path)
 
 
 def plot_all(calibration, folder, unknowns_by_element=None) -> list[Path]:

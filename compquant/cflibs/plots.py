@@ -10,16 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from compquant.cflibs.constants import K_B_EV
-from compquant.fileio import atomic_path
-
-
-def _figure():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
+from compquant.plotting import pyplot, save_png
 
 
 def _label(line_id: str) -> str:
@@ -29,7 +20,7 @@ def _label(line_id: str) -> str:
 
 def plot_boltzmann(result, path, dpi: int = 110) -> None:
     """Boltzmann plot per species: ln(Iλ/(g_k A_ki)) vs E_k, SA-corrected, own fit per species."""
-    plt = _figure()
+    plt = pyplot()
     fig, ax = plt.subplots(figsize=(7.0, 4.8))
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     sp_rows = {r["species"]: r for r in result.species}
@@ -55,14 +46,12 @@ def plot_boltzmann(result, path, dpi: int = 110) -> None:
     ax.set_title(f"Boltzmann plot, sample {result.sample_id}", fontsize=10)
     ax.legend(fontsize=7)
     fig.tight_layout()
-    with atomic_path(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=dpi)
-    plt.close(fig)
+    save_png(fig, path, dpi=dpi)
 
 
 def plot_saha_boltzmann(result, path, dpi: int = 110) -> None:
     """Saha–Boltzmann (or joint Boltzmann) plot: shifted ordinates vs shifted energies, joint fit."""
-    plt = _figure()
+    plt = pyplot()
     fig, ax = plt.subplots(figsize=(7.0, 4.8))
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     groups = result.fit.get("groups", [])
@@ -100,9 +89,7 @@ def plot_saha_boltzmann(result, path, dpi: int = 110) -> None:
                 transform=ax.transAxes, ha="right", va="top", fontsize=7)
     ax.legend(fontsize=7)
     fig.tight_layout()
-    with atomic_path(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=dpi)
-    plt.close(fig)
+    save_png(fig, path, dpi=dpi)
 
 
 __all__ = ["plot_boltzmann", "plot_saha_boltzmann"]

@@ -7,8 +7,8 @@ from pathlib import Path
 import click
 import numpy as np
 
-from compquant.errors import InputError, OutputError
-from compquant.fileio import atomic_path
+from compquant.errors import InputError
+from compquant.plotting import pyplot, save_png
 
 
 def plot_sample(
@@ -27,12 +27,9 @@ def plot_sample(
     line is labelled with its id and flags (red: saturated or not found; orange: other flags).
     ``wl_range`` = (lo, hi) nm zooms into part of the spectrum.  Written atomically as PNG (matplotlib Agg).
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
     from compquant.lines import mean_spectrum
+
+    plt = pyplot()
 
     wl, mean, info = mean_spectrum(run, method, sample_id)
     if wl_range is not None:
@@ -73,16 +70,7 @@ def plot_sample(
     ax.set_ylabel("intensity (preprocessed, counts)")
     ax.set_xlim(lo_nm, hi_nm)
     fig.tight_layout()
-    try:
-        with atomic_path(output) as tmp:
-            fig.savefig(tmp, format="png")
-    except OSError as exc:
-        raise OutputError(
-            f"cannot write ({exc.strerror})", where=str(output), fix="choose a writable output path"
-        ) from exc
-    finally:
-        plt.close(fig)
-    return Path(output)
+    return save_png(fig, output)
 
 
 @click.command("plot")

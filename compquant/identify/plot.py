@@ -7,9 +7,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from compquant.errors import OutputError
-from compquant.fileio import atomic_path
 from compquant.identify.core import Identification
+from compquant.plotting import pyplot, save_png
 
 
 def plot_identification(ident: Identification, output, *, title: str | None = None, max_labels: int = 40,
@@ -20,10 +19,7 @@ def plot_identification(ident: Identification, output, *, title: str | None = No
     At most ``max_labels`` labels (each element's three strongest lines first, then the strongest
     peaks) keep the figure readable; ``log_scale`` draws a symmetric-log intensity axis (linear up
     to 10 noise σ) when the spectrum spans more than two decades."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     wl, y = ident.wavelength, ident.spectrum
     fig, ax = plt.subplots(figsize=(12, 5), dpi=110)
@@ -70,15 +66,7 @@ def plot_identification(ident: Identification, output, *, title: str | None = No
     ax.set_title(title or f"identified lines (T = {ident.temperature_k:.0f} K"
                  f"{' fitted' if ident.temperature_fitted else ''}, R = {ident.resolving_power:.0f})", fontsize=10)
     fig.tight_layout()
-    try:
-        with atomic_path(output) as tmp:
-            fig.savefig(tmp, format="png")
-    except OSError as exc:
-        raise OutputError(f"cannot write ({exc.strerror})", where=str(output),
-                          fix="choose a writable output path") from exc
-    finally:
-        plt.close(fig)
-    return Path(output)
+    return save_png(fig, output)
 
 
 __all__ = ["plot_identification"]
