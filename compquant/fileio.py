@@ -188,10 +188,37 @@ def check_keys(table: dict, allowed: set[str] | frozenset[str], where: str,
                     fix="add them; see the file's documentation")
 
 
+def json_ready(obj, nonfinite=None):
+    """A copy of ``obj`` that :func:`json.dump` writes as strict JSON: dict keys become text,
+    tuples and numpy arrays lists, numpy scalars Python numbers; a NaN or infinite float ``f``
+    becomes ``nonfinite(f)`` (default ``None``, i.e. JSON null; JSON has no NaN/inf)."""
+    import math
+
+    import numpy as np
+
+    if isinstance(obj, dict):
+        return {str(k): json_ready(v, nonfinite) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [json_ready(v, nonfinite) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [json_ready(v, nonfinite) for v in obj.tolist()]
+    if isinstance(obj, np.bool_):
+        return bool(obj)
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        f = float(obj)
+        if math.isfinite(f):
+            return f
+        return None if nonfinite is None else nonfinite(f)
+    return obj
+
+
 __all__ = [
     "atomic_path",
     "atomic_write",
     "check_keys",
+    "json_ready",
     "load_toml",
     "require_file",
     "safe_filename",

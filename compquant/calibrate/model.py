@@ -44,7 +44,7 @@ from scipy import stats
 from compquant import __version__
 from compquant.calibrate.fit import d_dxi, design_matrix, invert, slope_at
 from compquant.errors import CalibrationError
-from compquant.fileio import require_file, write_text_atomic
+from compquant.fileio import json_ready, require_file, write_text_atomic
 
 SCHEMA = "compquant.calibration"
 SCHEMA_VERSION = 1
@@ -284,22 +284,7 @@ _NONFINITE = "__nonfinite__"
 
 def _clean(o):
     """JSON-safe copy: numpy -> python, +-inf/nan -> tagged strings (JSON has no inf)."""
-    if isinstance(o, dict):
-        return {str(k): _clean(v) for k, v in o.items()}
-    if isinstance(o, (list, tuple)):
-        return [_clean(v) for v in o]
-    if isinstance(o, np.ndarray):
-        return [_clean(v) for v in o.tolist()]
-    if isinstance(o, (np.bool_,)):
-        return bool(o)
-    if isinstance(o, (np.integer,)):
-        return int(o)
-    if isinstance(o, (float, np.floating)):
-        f = float(o)
-        if not math.isfinite(f):
-            return {_NONFINITE: repr(f)}
-        return f
-    return o
+    return json_ready(o, nonfinite=lambda f: {_NONFINITE: repr(f)})
 
 
 def _unclean(o):

@@ -9,11 +9,12 @@ and the Monte Carlo summary.
 from __future__ import annotations
 
 import json
-import math
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
 import pandas as pd
+
+from compquant.fileio import json_ready
 
 SCHEMA = "compquant.cf-result/1"
 
@@ -23,20 +24,7 @@ RESULT_COLUMNS = ["sample_id", "element", "mass_fraction", "u", "U", "k", "lod",
 
 def _clean(obj):
     """Make numpy scalars/arrays and non-finite floats JSON-safe (NaN/inf → None)."""
-    if isinstance(obj, dict):
-        return {str(k): _clean(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_clean(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [_clean(v) for v in obj.tolist()]
-    if isinstance(obj, (np.bool_,)):
-        return bool(obj)
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        f = float(obj)
-        return f if math.isfinite(f) else None
-    return obj
+    return json_ready(obj)
 
 
 @dataclass
