@@ -45,7 +45,7 @@ from compquant.errors import PhysicsError
 from compquant.plasma.constants import KB_EV
 from compquant.plasma.continuum import continuum_emissivity
 from compquant.plasma.emission import line_absorption_integrated, line_emissivity_lte
-from compquant.plasma.lte import LTEState, mass_to_number_fractions, solve_lte
+from compquant.plasma.lte import ROMAN, LTEState, mass_to_number_fractions, solve_lte, species_stage
 from compquant.plasma.profiles import (
     FWHM_TO_SIGMA,
     doppler_fwhm,
@@ -56,8 +56,6 @@ from compquant.plasma.profiles import (
     voigt_fwhm,
 )
 from compquant.plasma.slab import self_absorption_coefficient
-
-_ROMAN = {"I": 1, "II": 2, "III": 3, "IV": 4}
 
 
 @dataclass(frozen=True)
@@ -128,14 +126,14 @@ class LineSet:
         elements, stages = [], []
         for s in species:
             parts = s.split()
-            if len(parts) != 2 or parts[1] not in _ROMAN:
+            if len(parts) != 2 or parts[1] not in ROMAN:
                 raise PhysicsError(
                     f"species {s!r} is not '<Element> <roman>'",
                     where="LineSet",
                     fix="name species like 'Cu I' or 'Cu II'",
                 )
             elements.append(parts[0])
-            stages.append(_ROMAN[parts[1]])
+            stages.append(species_stage(s))
         wl = arr(wavelength_nm)
         if line_id is None:
             line_id = [f"{s} {w:.3f}" for s, w in zip(species, wl)]
@@ -567,7 +565,7 @@ class SpectrumModel:
         if self.continuum:
             zz = np.zeros(nc)
             for sp, n in st.densities.items():
-                z = _ROMAN[sp.split()[1]] - 1
+                z = species_stage(sp) - 1
                 if z > 0:
                     zz = zz + z * z * np.atleast_1d(n)
             wl = self.instrument.wavelength_nm

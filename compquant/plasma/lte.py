@@ -36,6 +36,11 @@ def species_name(element: str, stage: int) -> str:
     return f"{element} {ROMAN[stage - 1]}"
 
 
+def species_stage(species: str) -> int:
+    """``"Cu II" -> 2`` (stage 1 = neutral); inverse of :func:`species_name`."""
+    return ROMAN.index(species.split()[1]) + 1
+
+
 def mass_to_number_fractions(mass_fractions: Mapping[str, float], masses_u: Mapping[str, float]) -> dict:
     """Number (atom) fractions from mass fractions: ``x_i = (w_i/M_i) / sum_j (w_j/M_j)``.
 
@@ -120,7 +125,7 @@ class LTEState:
         """``sum_s (z_s - 1) n_s`` (cm^-3): equals n_e when neutrality holds."""
         total = np.zeros_like(self.n_heavy_cm3)
         for sp, n in self.densities.items():
-            z = ROMAN.index(sp.split()[1]) + 1
+            z = species_stage(sp)
             total = total + (z - 1) * n
         return total
 
@@ -254,5 +259,6 @@ __all__ = [
     "number_to_mass_fractions",
     "solve_lte",
     "species_name",
+    "species_stage",
     "stage_fractions",
 ]
