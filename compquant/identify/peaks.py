@@ -57,9 +57,10 @@ from scipy.signal import find_peaks as _scipy_find_peaks
 from scipy.signal import peak_widths
 
 from compquant.errors import DataQualityError, InputError
+from compquant.preprocess.qc import MAD_TO_SD
 
 #: MAD → standard deviation for normal data, 1/Φ⁻¹(3/4) (Rousseeuw & Croux 1993)
-MAD_TO_SIGMA = 1.482602218505602
+MAD_TO_SIGMA = MAD_TO_SD
 #: Gaussian area / (height · FWHM) = √(π / (4 ln 2))
 GAUSS_AREA_FACTOR = float(np.sqrt(np.pi / (4.0 * np.log(2.0))))
 

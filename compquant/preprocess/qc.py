@@ -23,9 +23,12 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy.stats import norm
 from sklearn.base import BaseEstimator
 
-MAD_TO_SD = 1.4826  # 1 / Phi^-1(3/4), Rousseeuw & Croux (1993)
+#: MAD -> standard deviation for normal data, 1 / Phi^-1(3/4) = 1.482602... (Rousseeuw & Croux
+#: 1993); the one copy of this factor in compquant (identify.peaks uses it too)
+MAD_TO_SD = float(1.0 / norm.ppf(0.75))
 
 REASONS = ("outlier", "low_signal", "not_finite", "low_pulse_energy")
 
