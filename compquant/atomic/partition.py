@@ -115,16 +115,21 @@ def species_with_levels() -> list[str]:
     return list(level_index()["species"])
 
 
-@functools.cache
-def _shipped_levels(species: str) -> pd.DataFrame:
+def _index_row(species: str, asked: str | None = None) -> pd.Series:
+    """Row of the shipped level index for ``species`` (canonical name); AtomicDataError if none."""
     idx = level_index()
     if species not in idx.index:
         raise AtomicDataError(
-            f"no shipped energy levels for {species!r}",
+            f"no shipped energy levels for {asked or species!r}",
             where="partition function",
             fix="pass your own level table with levels=load_levels(path)",
         )
-    return load_levels(_data_dir() / "levels" / idx.loc[species, "file"])
+    return idx.loc[species]
+
+
+@functools.cache
+def _shipped_levels(species: str) -> pd.DataFrame:
+    return load_levels(_data_dir() / "levels" / _index_row(species)["file"])
 
 
 @functools.cache
@@ -243,14 +248,7 @@ def partition_function_completeness(species: str, T):
     statistical weight of the missing levels it bounds roughly the missing part
     of U; values below ~1e-3 mean the missing levels hardly matter.
     """
-    name = species_name(*parse_species(species))
-    idx = level_index()
-    if name not in idx.index:
-        raise AtomicDataError(
-            f"no shipped energy levels for {species!r}",
-            where="partition function",
-            fix="pass your own level table with levels=load_levels(path)",
-        )
+    row = _index_row(species_name(*parse_species(species)), species)
     T_arr = np.asarray(T, dtype=float)
-    out = np.exp(-float(idx.loc[name, "complete_to_ev"]) / (K_B_EV * T_arr))
+    out = np.exp(-float(row["complete_to_ev"]) / (K_B_EV * T_arr))
     return out if out.ndim else float(out)
