@@ -413,3 +413,21 @@ def test_demo_method_cf_section_is_valid():
         pytest.skip("no demo method in this checkout")
     s = CFSettings.from_section(load_method(path).sections["cf"], where="demo [cf]")
     assert s.self_absorption == "columnar" and s.resolving_power == 2600.0
+
+
+def test_aki_grade_uncertainty_is_the_shipped_table():
+    # NIST ASD accuracy grades (from memory of the NIST ASD documentation, see docs/atomic-data.md):
+    # B <= 10 %, E > 50 % (taken as a 100 % bound); the bound is the half-width of a rectangular
+    # distribution, u = bound/sqrt(3) (GUM, JCGM 100:2008, 4.3.7)
+    from compquant.cflibs.atomicdata import PackageAtomicData, TableAtomicData
+    from compquant.errors import AtomicDataError
+
+    table = TableAtomicData({"Fe I": 25.0}, {"Fe I": 7.9}, {"Fe": 55.845})
+    for at in (table, PackageAtomicData()):
+        assert at.aki_relative_uncertainty("B") == pytest.approx(0.10 / math.sqrt(3.0))
+        assert at.aki_relative_uncertainty("E") == pytest.approx(1.00 / math.sqrt(3.0))
+        with pytest.raises(AtomicDataError):
+            at.aki_relative_uncertainty("Q")
+    assert table.aki_relative_uncertainty("") == 0.0  # no grade: no A_ki term
+    own = TableAtomicData({"Fe I": 25.0}, {"Fe I": 7.9}, {"Fe": 55.845}, grade_u={"B": 0.05})
+    assert own.aki_relative_uncertainty("B") == 0.05
