@@ -164,3 +164,57 @@ def test_bad_instrument():
     with pytest.raises(PhysicsError):
         LineSet.from_arrays(species=["Cu"], wavelength_nm=[1], aki=[1], gi=[1], gk=[1], ei_ev=[0],
                             ek_ev=[1], mass_u=[1])
+
+
+def test_observed_width_is_voigt_of_doppler_instrument_and_stark():
+    # Gaussian widths add in quadrature (Doppler and instrument), the Lorentzian Stark width
+    # combines by Olivero & Longbothum 1977; measured on a finely sampled thin line
+    lines = one_line(stark=0.3, shift=0.0)
+    wl = np.linspace(507.0, 514.0, 3501)  # 0.002 nm pixels
+    m = SpectrumModel(Instrument(wl, fwhm_nm=0.05, oversample=2), lines, continuum=False, partition_function=toy_pf,
+                      ionisation_energy=toy_ie, masses_u=MASSES)
+    t, ne = 10000.0, 1e17
+    r = m.radiance({"Cu": 1.0}, t, ne)[0]
+    half = r.max() / 2
+    above = np.flatnonzero(r >= half)
+    lo, hi = above[0], above[-1]
+    left = np.interp(half, [r[lo - 1], r[lo]], [wl[lo - 1], wl[lo]])
+    right = np.interp(half, [r[hi + 1], r[hi]], [wl[hi + 1], wl[hi]])
+    from compquant.plasma import doppler_fwhm, voigt_fwhm
+
+    wg = math.hypot(doppler_fwhm(510.554, t, 63.546), 0.05)
+    assert right - left == pytest.approx(voigt_fwhm(wg, 0.3), rel=5e-3)
+
+
+def test_stark_ne_exponent():
+    from compquant.plasma import stark_fwhm
+
+    # Balmer-type scaling w ~ n_e^0.68 (exponent from the line list)
+    assert stark_fwhm(1.0, 2e17, 1e17, ne_exponent=0.68) == pytest.approx(2**0.68)
+
+
+def test_with_shipped_atomic_data_pure_copper():
+    # Cu I 521.820 in pure copper, thin, no continuum, no lowering: pixel sum = hand LTE value
+    # computed with the shipped partition functions and ionisation energy (compquant.atomic)
+    from compquant.atomic import element, ionisation_energy, partition_function
+    from compquant.plasma import default_lines
+
+    lines = default_lines(515.0, 530.0, elements=["Cu"])
+    assert "Cu I 521.820" in lines.line_id
+    wl = np.linspace(515.0, 530.0, 1500)
+    m = SpectrumModel(Instrument(wl, resolving_power=3000.0), lines, continuum=False, lowering=False)
+    t, ne, L = 9500.0, 7e16, 5e-4
+    r = m.radiance({"Cu": 1.0}, t, ne, length_mm=0.5)[0]
+    j = lines.line_id.index("Cu I 521.820")
+    k = KT * t
+    u1, u2 = float(partition_function("Cu I", t)), float(partition_function("Cu II", t))
+    ratio = 2 * (2 * math.pi * sc.m_e * sc.k * t / sc.h**2) ** 1.5 * 1e-6 / ne * u2 / u1 * \
+        math.exp(-ionisation_energy("Cu I") / k)
+    n_cu1 = ne / ratio  # pure copper: n(Cu II) = n_e
+    eps = sc.h * sc.c / (lines.wavelength_nm[j] * 1e-9) / (4 * math.pi) * lines.aki[j] * \
+        n_cu1 * 1e6 * lines.gk[j] * math.exp(-lines.ek_ev[j] / k) / u1
+    window = np.abs(wl - 521.82) < 1.2
+    others = [i for i, w in enumerate(lines.wavelength_nm) if abs(w - 521.82) < 3 and i != j]
+    assert not others  # isolated in this window
+    assert r[window].sum() == pytest.approx(eps * L, rel=1e-6)
+    assert element("Cu").mass_u == pytest.approx(63.546, abs=1e-3)

@@ -183,6 +183,13 @@ def partition_function(
             where=f"partition function of {species}",
             fix="pass a value >= 0",
         )
+    if lowering_ev >= e_ion:
+        raise AtomicDataError(
+            f"lowering of the ionisation energy ({lowering_ev} eV) is not below the "
+            f"ionisation energy ({e_ion} eV)",
+            where=f"partition function of {species}",
+            fix="the plasma is outside the range where a bound-level sum makes sense",
+        )
     T_arr = np.asarray(T, dtype=float)
     if not np.all(np.isfinite(T_arr)) or np.any(T_arr <= 0):
         raise AtomicDataError(

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from compquant.preprocess.baseline import SNIP_BLOCK_ROWS, estimate_baseline
+from compquant.preprocess.baseline import SNIP_BLOCK_ROWS, SnipWorkspace, estimate_baseline, snip_block
 
 
 @dataclass
@@ -58,6 +58,7 @@ class ChunkPlan:
     fit_support: dict[int, np.ndarray] = field(default_factory=dict)  # (n_pixels, n_fit) bool
     measure_windows: bool = True
     accumulate: bool = True
+    background_level: bool = True  # compute the mean removed baseline per shot
 
     @property
     def n_win(self) -> int:
@@ -76,6 +77,11 @@ class ChunkResult:
     background: np.ndarray  # (n,) mean removed baseline, counts
     sums: dict[int, np.ndarray]  # sample index -> sum of processed spectra
     counts: dict[int, int]
+
+
+def _compact(W: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    pix = np.flatnonzero(np.any(W != 0, axis=1))
+    return pix, np.ascontiguousarray(W[pix])
 
 
 def _sat_any(sat_block: np.ndarray, support: np.ndarray) -> np.ndarray:
@@ -100,10 +106,22 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
     counts: dict[int, int] = {}
     block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else max(1, n)
     tw = plan.total_weights if plan.total_weights is not None else np.ones(plan.n_pixels)
+    # window weights are zero outside a few pixels per line: gather those pixels only
+    W_shared = _compact(plan.W) if n_win else None
+    W_by_sample = {s: _compact(W) for s, W in plan.W_by_sample.items()} if n_win else {}
+    ybuf = np.empty((min(block, n), plan.n_pixels))
+    ws = None
+    if plan.baseline == "snip":
+        ws = SnipWorkspace(min(block, n), plan.n_pixels, plan.baseline_params.get("max_half_window", 20))
+        snip_opts = {k: v for k, v in plan.baseline_params.items() if k in ("decreasing", "lls")}
     for r0 in range(0, n, block):
         r1 = min(n, r0 + block)
         rb = raw[r0:r1]
-        y = rb.astype(np.float64, copy=True)
+        y = ybuf[: r1 - r0]
+        if plan.dark is not None:
+            np.subtract(rb, plan.dark, out=y)
+        else:
+            y[...] = rb
         sib = si[r0:r1]
         samples_here = np.unique(sib)
         sat = None
@@ -111,13 +129,15 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
             satb = rb >= plan.saturation_threshold
             if satb.any():
                 sat = satb
-        if plan.dark is not None:
-            y -= plan.dark
         if plan.inv_response is not None:
             y *= plan.inv_response
-        if plan.baseline != "none":
+        if plan.baseline == "snip":
+            base = snip_block(y, ws, **snip_opts)
+        elif plan.baseline != "none":
             base = estimate_baseline(y, plan.baseline, **plan.baseline_params)
-            bg[r0:r1] = base.mean(axis=1)
+        if plan.baseline != "none":
+            if plan.background_level:
+                bg[r0:r1] = base.mean(axis=1)
             y -= base
         total[r0:r1] = y @ tw
         for s in samples_here:
@@ -125,8 +145,8 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
             rows = slice(None) if samples_here.size == 1 else (sib == s)
             ys = y[rows]
             if n_win:
-                W = plan.W_by_sample.get(s, plan.W)
-                win[r0:r1][rows] = ys @ W
+                pix, Wc = W_by_sample.get(s, W_shared)
+                win[r0:r1][rows] = ys[:, pix] @ Wc
                 if sat is not None:
                     if sat_w is None:
                         sat_w = np.zeros((n, n_win), dtype=bool)

@@ -312,7 +312,8 @@ class _Setup:
         pre = self.method.preprocess
         return ChunkPlan(n_pixels=self.wl.size, dark=self.dark, inv_response=self.inv_response,
                          saturation_threshold=self.sat_threshold, baseline=pre.baseline,
-                         baseline_params=dict(pre.baseline_params), total_weights=_trapezoid(self.wl))
+                         baseline_params=dict(pre.baseline_params), total_weights=_trapezoid(self.wl),
+                         background_level=pre.normalise == "background")
 
 
 def _find_shifts(run, setup: _Setup, chunk: int, progress, chunk_mapper=None) -> dict[int, float]:

@@ -65,7 +65,8 @@ class LineSet:
 
     Units: wavelengths nm (air), ``aki`` s^-1, energies eV, Stark width (FWHM)
     and shift in nm at ``stark_ne_ref_cm3`` (cm^-3) and ``stark_t_ref_k`` (K),
-    ``mass_u`` atomic mass of the emitter in u.  Missing Stark data: NaN.
+    ``mass_u`` atomic mass of the emitter in u, ``stark_ne_exponent`` p of
+    ``w ~ n_e^p`` (1 if NaN).  Missing Stark data: NaN.
     """
 
     line_id: tuple
@@ -83,13 +84,15 @@ class LineSet:
     stark_ne_ref_cm3: np.ndarray
     stark_t_ref_k: np.ndarray
     mass_u: np.ndarray
+    stark_ne_exponent: np.ndarray
 
     def __len__(self) -> int:
         return len(self.line_id)
 
     @classmethod
     def from_arrays(cls, *, species, wavelength_nm, aki, gi, gk, ei_ev, ek_ev, mass_u, line_id=None,
-                    stark_w_nm=None, stark_shift_nm=None, stark_ne_ref_cm3=None, stark_t_ref_k=None):
+                    stark_w_nm=None, stark_shift_nm=None, stark_ne_ref_cm3=None, stark_t_ref_k=None,
+                    stark_ne_exponent=None):
         """Build from plain sequences (species named like ``"Cu I"``)."""
         species = tuple(str(s) for s in species)
         n = len(species)
@@ -120,7 +123,8 @@ class LineSet:
                    stage=np.asarray(stages, dtype=int), wavelength_nm=wl, aki=arr(aki), gi=arr(gi),
                    gk=arr(gk), ei_ev=arr(ei_ev), ek_ev=arr(ek_ev), stark_w_nm=arr(stark_w_nm),
                    stark_shift_nm=arr(stark_shift_nm), stark_ne_ref_cm3=arr(stark_ne_ref_cm3),
-                   stark_t_ref_k=arr(stark_t_ref_k), mass_u=arr(mass_u))
+                   stark_t_ref_k=arr(stark_t_ref_k), mass_u=arr(mass_u),
+                   stark_ne_exponent=arr(stark_ne_exponent, 1.0))
 
     @classmethod
     def from_frame(cls, frame, masses_u: Mapping[str, float] | None = None):
@@ -146,7 +150,20 @@ class LineSet:
                                gi=col("gi"), gk=col("gk"), ei_ev=col("ei_ev"), ek_ev=col("ek_ev"),
                                mass_u=[masses[e] for e in elements], line_id=ids,
                                stark_w_nm=col("stark_w_nm"), stark_shift_nm=col("stark_shift_nm"),
-                               stark_ne_ref_cm3=col("stark_ne_ref_cm3"), stark_t_ref_k=col("stark_t_ref_k"))
+                               stark_ne_ref_cm3=col("stark_ne_ref_cm3"), stark_t_ref_k=col("stark_t_ref_k"),
+                               stark_ne_exponent=col("stark_ne_exponent"))
+
+    def with_default_stark(self, fwhm_nm: float, ne_ref_cm3: float = 1e17) -> LineSet:
+        """A copy where lines without Stark data get FWHM ``fwhm_nm`` at ``ne_ref_cm3``.
+
+        An assumption, not data: use it only for simulations (e.g. the demo) and say so.
+        """
+        missing = ~np.isfinite(self.stark_w_nm)
+        w = np.where(missing, float(fwhm_nm), self.stark_w_nm)
+        nref = np.where(missing, float(ne_ref_cm3), self.stark_ne_ref_cm3)
+        vals = {f: getattr(self, f) for f in self.__dataclass_fields__}
+        vals.update(stark_w_nm=w, stark_ne_ref_cm3=nref)
+        return LineSet(**vals)
 
     def subset(self, mask) -> LineSet:
         """The lines where boolean ``mask`` is true."""
@@ -260,7 +277,7 @@ class SpectrumModel:
     def _nominal_widths(self, lines, t, ne):
         wg = doppler_fwhm(lines.wavelength_nm, t, lines.mass_u)
         wl = stark_fwhm(lines.stark_w_nm, ne, lines.stark_ne_ref_cm3, t, lines.stark_t_ref_k,
-                        self.stark_t_exponent)
+                        self.stark_t_exponent, lines.stark_ne_exponent)
         return wg, wl
 
     def _build_grid(self, lines, t_nom, ne_nom):
@@ -286,7 +303,8 @@ class SpectrumModel:
         self.masses_u = _masses_for(set(lines.element), self._masses_arg) if len(lines) else {}
         wg, wl = self._nominal_widths(lines, t_nom, ne_nom)
         wv = voigt_fwhm(wg, wl)
-        shift = np.nan_to_num(stark_shift(lines.stark_shift_nm, ne_nom, lines.stark_ne_ref_cm3))
+        shift = np.nan_to_num(stark_shift(lines.stark_shift_nm, ne_nom, lines.stark_ne_ref_cm3, t_nom,
+                                          lines.stark_t_ref_k, self.stark_t_exponent, lines.stark_ne_exponent))
         centre = lines.wavelength_nm + shift
         base_step = np.interp(centre, edges[:-1], np.diff(edges)) / os_ if len(lines) else np.zeros(0)
         for c, f, bs in zip(centre, wv, base_step):
@@ -365,7 +383,7 @@ class SpectrumModel:
         L = self.lines
         wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
         wl = stark_fwhm(L.stark_w_nm[None, :], ne[:, None], L.stark_ne_ref_cm3[None, :], t[:, None],
-                        L.stark_t_ref_k[None, :], self.stark_t_exponent)
+                        L.stark_t_ref_k[None, :], self.stark_t_exponent, L.stark_ne_exponent[None, :])
         peak = voigt(0.0, 0.0, wg, wl)
         return kint * peak * float(length_mm) * 1e-3
 
@@ -414,9 +432,9 @@ class SpectrumModel:
             x = mid[j0:j1]
             wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
             wl = stark_fwhm(L.stark_w_nm[j], ne, L.stark_ne_ref_cm3[j], t, L.stark_t_ref_k[j],
-                            self.stark_t_exponent)
+                            self.stark_t_exponent, L.stark_ne_exponent[j])
             sh = np.nan_to_num(stark_shift(L.stark_shift_nm[j], ne, L.stark_ne_ref_cm3[j], t,
-                                           L.stark_t_ref_k[j], self.stark_t_exponent))
+                                           L.stark_t_ref_k[j], self.stark_t_exponent, L.stark_ne_exponent[j]))
             phi = voigt(x[None, :], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
             area = phi @ w[j0:j1]
             phi /= area[:, None]

@@ -12,10 +12,12 @@ broadcast numpy-style.
   Line Broadening by Plasmas*; Konjevic et al. 2002, J. Phys. Chem. Ref. Data
   31, 819)::
 
-      w_S = w_ref * (n_e / n_ref) * (T / T_ref)^a          (FWHM, nm)
-      d_S = d_ref * (n_e / n_ref) * (T / T_ref)^a          (shift, nm)
+      w_S = w_ref * (n_e / n_ref)^p * (T / T_ref)^a        (FWHM, nm)
+      d_S = d_ref * (n_e / n_ref)^p * (T / T_ref)^a        (shift, nm)
 
-  with the exponent ``a`` 0 unless given (the data seldom give it).
+  with p = 1 for isolated non-hydrogenic lines (p ~ 0.68 for the hydrogen
+  Balmer lines, Gigosos & Cardenoso 1996) and the exponent ``a`` 0 unless
+  given (the data seldom give it).
 * Voigt = convolution of the two, evaluated with
   :func:`scipy.special.voigt_profile`; its FWHM is approximated by Olivero &
   Longbothum 1977 (JQSRT 17, 233), accurate to 0.02 %::
@@ -85,20 +87,25 @@ def _t_factor(temperature_k, t_ref_k, t_exponent):
     return ratio ** t_exponent
 
 
-def stark_fwhm(w_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0):
-    """Stark (electron-impact) FWHM linear in n_e: ``w_ref (n_e/n_ref) (T/T_ref)^a`` (nm).
+def stark_fwhm(w_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0,
+               ne_exponent=1.0):
+    """Stark (electron-impact) FWHM ``w_ref (n_e/n_ref)^p (T/T_ref)^a`` (nm); p = 1 by default.
 
-    Citation: Griem 1974; Konjevic et al. 2002.  NaN or missing ``w_ref`` gives 0.
+    Citation: Griem 1974; Konjevic et al. 2002.  NaN or missing ``w_ref`` gives 0;
+    NaN ``ne_exponent`` means 1.
     """
     w = np.nan_to_num(np.asarray(w_ref_nm, float), nan=0.0)
     nref = np.asarray(ne_ref_cm3, float)
     nref = np.where(np.isfinite(nref) & (nref > 0), nref, 1e16)
-    return w * (np.asarray(ne_cm3, float) / nref) * _t_factor(temperature_k, t_ref_k, t_exponent)
+    p = np.asarray(ne_exponent, float)
+    p = np.where(np.isfinite(p), p, 1.0)
+    return w * (np.asarray(ne_cm3, float) / nref) ** p * _t_factor(temperature_k, t_ref_k, t_exponent)
 
 
-def stark_shift(d_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0):
-    """Stark shift linear in n_e: ``d_ref (n_e/n_ref) (T/T_ref)^a`` (nm, + = to the red)."""
-    return stark_fwhm(d_ref_nm, ne_cm3, ne_ref_cm3, temperature_k, t_ref_k, t_exponent)
+def stark_shift(d_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0,
+                ne_exponent=1.0):
+    """Stark shift ``d_ref (n_e/n_ref)^p (T/T_ref)^a`` (nm, + = to the red)."""
+    return stark_fwhm(d_ref_nm, ne_cm3, ne_ref_cm3, temperature_k, t_ref_k, t_exponent, ne_exponent)
 
 
 def instrument_fwhm(wavelength_nm, resolving_power=None, fwhm_nm=None):

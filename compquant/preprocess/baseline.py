@@ -72,33 +72,68 @@ def lls_inverse(v: np.ndarray) -> np.ndarray:
     return (np.exp(np.exp(v) - 1.0) - 1.0) ** 2 - 1.0
 
 
-def _pad_extrapolate(y: np.ndarray, pad: int, window: int) -> np.ndarray:
-    """Pad each row with a straight line fitted by least squares to ``window`` edge pixels.
-
-    Same construction as ``pybaselines.utils.pad_edges(mode="extrapolate")``.
+def _fill_padded(y: np.ndarray, pad: int, window: int, out: np.ndarray) -> None:
+    """Write ``y`` into ``out[:, pad:pad+n]`` and pad each row with a straight line fitted by
+    least squares to ``window`` edge pixels (``pybaselines.utils.pad_edges(mode="extrapolate")``).
     """
     n_rows, n = y.shape
-    window = max(1, min(window, n))
-    out = np.empty((n_rows, n + 2 * pad))
     out[:, pad : pad + n] = y
+    if pad == 0:
+        return
+    window = max(1, min(window, n))
     if window == 1:
         out[:, :pad] = y[:, :1]
         out[:, pad + n :] = y[:, -1:]
-        return out
+        return
     x = np.arange(window, dtype=np.float64)
     xm = x.mean()
-    sxx = np.sum((x - xm) ** 2)
+    xc = x - xm
+    sxx = float(xc @ xc)
     for side in ("left", "right"):
         seg = y[:, :window] if side == "left" else y[:, n - window :]
         ym = seg.mean(axis=1)
-        slope = (seg - ym[:, None]) @ (x - xm) / sxx
+        slope = (seg @ xc) / sxx  # sum (x - xm)(y - ym) = sum (x - xm) y
         if side == "left":
-            xe = np.arange(-pad, 0, dtype=np.float64)
-            out[:, :pad] = ym[:, None] + slope[:, None] * (xe - xm)[None, :]
+            xe = np.arange(-pad, 0, dtype=np.float64) - xm
+            out[:, :pad] = ym[:, None] + slope[:, None] * xe[None, :]
         else:
-            xe = np.arange(window, window + pad, dtype=np.float64)
-            out[:, pad + n :] = ym[:, None] + slope[:, None] * (xe - xm)[None, :]
-    return out
+            xe = np.arange(window, window + pad, dtype=np.float64) - xm
+            out[:, pad + n :] = ym[:, None] + slope[:, None] * xe[None, :]
+
+
+class SnipWorkspace:
+    """Reusable buffers for SNIP on blocks of at most ``rows`` spectra of ``n`` pixels."""
+
+    def __init__(self, rows: int, n: int, max_half_window: int):
+        self.m = min(int(max_half_window), (n - 1) // 2)
+        self.n = n
+        self.pad = np.empty((rows, n + 2 * self.m))
+        self.tmp = np.empty((rows, n + 2 * self.m))
+
+
+def snip_block(y: np.ndarray, ws: SnipWorkspace, *, decreasing: bool = False,
+               lls: bool = False) -> np.ndarray:
+    """SNIP baseline of the rows of ``y`` (at most ``ws`` rows); returns a view into ``ws``.
+
+    The returned array is overwritten by the next call with the same workspace.
+    """
+    r, n = y.shape
+    m = ws.m
+    npad = n + 2 * m
+    b = ws.pad[:r]
+    t = ws.tmp[:r]
+    _fill_padded(lls_forward(y) if lls else y, m, m, b)
+    steps = range(m, 0, -1) if decreasing else range(1, m + 1)
+    for p in steps:
+        w = npad - 2 * p
+        tv = t[:, :w]
+        np.add(b[:, :w], b[:, 2 * p :], out=tv)
+        tv *= 0.5
+        np.minimum(b[:, p : npad - p], tv, out=b[:, p : npad - p])
+    res = b[:, m : m + n]
+    if lls:
+        res[...] = lls_inverse(res)
+    return res
 
 
 def snip(spectra, max_half_window: int = 20, *, decreasing: bool = False, lls: bool = False,
@@ -124,30 +159,14 @@ def snip(spectra, max_half_window: int = 20, *, decreasing: bool = False, lls: b
     """
     y2, squeeze = _as_2d(spectra)
     n_rows, n = y2.shape
-    m = int(max_half_window)
-    if m < 1:
+    if int(max_half_window) < 1:
         raise ValueError("max_half_window must be >= 1")
-    m = min(m, (n - 1) // 2)
-    steps = range(m, 0, -1) if decreasing else range(1, m + 1)
-    npad = n + 2 * m
     out = np.empty((n_rows, n))
-    block_rows = max(1, int(block_rows))
-    tmp = np.empty((min(block_rows, n_rows), npad))
+    block_rows = max(1, min(int(block_rows), n_rows))
+    ws = SnipWorkspace(block_rows, n, max_half_window)
     for r0 in range(0, n_rows, block_rows):
         r1 = min(n_rows, r0 + block_rows)
-        blk = y2[r0:r1]
-        if lls:
-            blk = lls_forward(blk)
-        b = _pad_extrapolate(blk, m, m)
-        t = tmp[: r1 - r0]
-        for p in steps:
-            w = npad - 2 * p
-            tv = t[:, :w]
-            np.add(b[:, :w], b[:, 2 * p :], out=tv)
-            tv *= 0.5
-            np.minimum(b[:, p : npad - p], tv, out=b[:, p : npad - p])
-        res = b[:, m : m + n]
-        out[r0:r1] = lls_inverse(res) if lls else res
+        out[r0:r1] = snip_block(y2[r0:r1], ws, decreasing=decreasing, lls=lls)
     return out[0] if squeeze else out
 
 

@@ -1,0 +1,828 @@
+"""The whole job in one call: run + method -> certificates of analysis.
+
+:func:`analyse` opens a run, measures the method's lines in every shot
+(preprocessing inside :func:`compquant.lines.measure_run`), then either
+
+- calibrates from the run's certified standards (``standards=``) and saves the
+  calibration beside the certificates, or
+- applies a saved calibration (``calibration=``) with drift standardisation from
+  the run's setup samples, or
+- estimates the composition calibration-free (``cf=True``),
+
+evaluates the check samples, quantifies every unknown and writes, into
+``outdir``, one certificate per unknown sample (``<sample>.pdf`` and
+``<sample>.json``), their figures (``figures/<sample>/*.png``), one LIMS CSV for
+the run (``lims.csv``) and a run summary (``summary.json``).  Every file is
+written atomically; inputs are only read.
+
+The issue time defaults to now (UTC); pass ``issued_at`` to make the outputs
+byte-for-byte repeatable (the certificate numbers depend on the issue date).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from compquant import __version__
+from compquant.errors import CompquantError, ConfigError, InputError
+from compquant.fileio import atomic_path, require_file, safe_filename, sha256_file, write_text_atomic
+from compquant.report import (
+    CalibrationInfo,
+    Certificate,
+    CheckResult,
+    ClientInfo,
+    CurveInfo,
+    DriftInfo,
+    FigureItem,
+    FileRef,
+    LabInfo,
+    LTECheck,
+    MethodInfo,
+    PlasmaInfo,
+    Provenance,
+    QCInfo,
+    ResultRow,
+    SampleInfo,
+    Signatory,
+    StandardValue,
+    assess_conformity,
+    certificate_number,
+    load_lab_profile,
+    load_specification,
+)
+from compquant.report.config import LabProfile
+from compquant.report.jsonform import canonical_json, write_certificate_json
+from compquant.report.lims import write_lims_csv
+from compquant.report.numbers import finite
+from compquant.report.pdf import write_pdf
+
+SUMMARY_SCHEMA = "compquant-run-summary"
+SUMMARY_VERSION = 1
+
+#: flags that the certificate derives from the numbers itself (kept once)
+_DERIVED = {"below_lod", "above_range"}
+
+
+@dataclass
+class CertificateOutput:
+    sample_id: str
+    number: str
+    pdf: str
+    json: str
+    pages: int
+    valid_for_release: bool
+    conformity: str | None
+    results: list[dict] = field(default_factory=list)  # element, value, U, unit, flags (as printed)
+
+
+@dataclass
+class AnalysisOutput:
+    """What :func:`analyse` wrote, for the CLI summary table and for callers."""
+
+    outdir: str
+    basis: str
+    certificates: list[CertificateOutput]
+    lims_csv: str
+    summary_json: str
+    calibration_json: str | None
+    valid_for_release: bool
+    not_reported: list[dict]
+    failures: dict
+
+
+def _now_utc() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+
+
+def _norm_issued_at(issued_at) -> str:
+    if issued_at is None:
+        return _now_utc()
+    if isinstance(issued_at, _dt.datetime):
+        t = issued_at if issued_at.tzinfo else issued_at.replace(tzinfo=_dt.timezone.utc)
+        return t.astimezone(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    s = str(issued_at).strip()
+    try:
+        t = _dt.datetime.fromisoformat(s.replace("Z", "+00:00"))
+    except ValueError as exc:
+        raise ConfigError(
+            f"issue time {s!r} is not ISO 8601", where="issued_at", fix="write e.g. 2026-12-01T21:00:00Z"
+        ) from exc
+    return _norm_issued_at(t)
+
+
+def _default_lab() -> LabProfile:
+    return LabProfile(
+        name="Laboratory not stated",
+        address=["(no lab profile given: use --lab lab.toml)"],
+        certificate_prefix="CQ",
+        signatory_name="not stated",
+        signatory_title="not stated",
+        source="",
+        sha256="",
+    )
+
+
+def _flags(text) -> list[str]:
+    if text is None or (isinstance(text, float) and math.isnan(text)):
+        return []
+    return [f for f in str(text).split(";") if f]
+
+
+def _f(x):
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return None
+    return v if math.isfinite(v) else None
+
+
+def _result_rows(results, sample_id: str) -> list[ResultRow]:
+    rows = []
+    sub = results[results["sample_id"].astype(str) == sample_id]
+    for r in sub.itertuples(index=False):
+        fl = _flags(r.flags)
+        below = bool(r.below_lod)
+        rows.append(
+            ResultRow(
+                element=str(r.element),
+                mass_fraction=None if below else _f(r.mass_fraction),
+                U=None if below else _f(r.U),
+                k=_f(r.k) or 2.0,
+                u=None if below else _f(r.u),
+                lod=_f(r.lod),
+                loq=_f(r.loq),
+                below_lod=below,
+                above_range="above_range" in fl,
+                flags=[f for f in fl if f not in _DERIVED],
+                line_id=str(r.line_id),
+                basis=str(r.basis),
+            )
+        )
+    return rows
+
+
+def _measured_when(run) -> str:
+    acq = run.acquisition or {}
+    for key in ("measured_utc", "start_utc", "date", "started"):
+        if acq.get(key):
+            return str(acq[key])
+    created = getattr(run, "attrs", {}).get("created")
+    return str(created) if created else ""
+
+
+def _technique(method, run) -> str:
+    acq = run.acquisition or {}
+    parts = [method.technique]
+    if acq.get("laser_wavelength_nm"):
+        parts.append(f"laser {acq['laser_wavelength_nm']} nm")
+    if acq.get("pulse_energy_mj"):
+        parts.append(f"{acq['pulse_energy_mj']} mJ")
+    if acq.get("gate_delay_us") is not None:
+        parts.append(f"gate delay {acq['gate_delay_us']} µs")
+    if acq.get("gate_width_us") is not None:
+        parts.append(f"gate width {acq['gate_width_us']} µs")
+    if acq.get("atmosphere"):
+        parts.append(str(acq["atmosphere"]))
+    return ", ".join(str(p) for p in parts)
+
+
+def _detected_not_quantified(line_table, sample_id: str, quantified: set[str], snr_detect: float) -> list[str]:
+    sub = line_table[line_table["sample_id"].astype(str) == sample_id]
+    found = []
+    for r in sub.itertuples(index=False):
+        el = str(r.element)
+        if el in quantified or el in found:
+            continue
+        if "not_found" in _flags(r.flags):
+            continue
+        snr = _f(r.snr)
+        if snr is not None and snr >= snr_detect:
+            found.append(el)
+    return sorted(found)
+
+
+# ------------------------------------------------------------------------- calibration path
+
+
+def _calibration_info(cal, cal_file: str, cal_sha: str) -> CalibrationInfo:
+    curves = []
+    used_refs: dict[str, set[str]] = {}
+    for el, c in cal.curves.items():
+        used = [s for s in c.standards if s.get("used", True)]
+        used_refs[el] = {str(s.get("standard_id", "")) for s in used}
+        lo, hi = (list(c.range_mass_fraction) + [None, None])[:2]
+        model = c.model + (", through origin" if c.through_origin else "")
+        if c.basis == "ratio" and c.internal_standard:
+            model += f"; ratio to {c.internal_standard}"
+        curves.append(
+            CurveInfo(
+                el, c.line_id, model, c.internal_standard or "", _f(lo), _f(hi), len(used), _f(c.r2), str(c.lod_source)
+            )
+        )
+    standards = []
+    for s in cal.standards:
+        el = str(s.get("element"))
+        sid = str(s.get("standard_id"))
+        if el in used_refs and sid in used_refs[el]:
+            standards.append(
+                StandardValue(
+                    sid, el, float(s["mass_fraction"]), _f(s.get("U")), _f(s.get("k")) or 2.0, str(s.get("source", ""))
+                )
+            )
+    standards.sort(key=lambda v: (v.standard_id, v.element))
+    desc = f"{cal.basis} basis"
+    if cal.matrix_element:
+        desc += f"; matrix element {cal.matrix_element} by difference"
+    desc += f"; method {cal.method_id} {cal.method_version}; from run {Path(cal.run_path).name or '?'}"
+    if cal.rejected:
+        desc += "; not calibrated: " + "; ".join(f"{k}: {v}" for k, v in sorted(cal.rejected.items()))
+    return CalibrationInfo(cal.calibration_id, cal.created_utc, desc, curves, standards, cal_file, cal_sha)
+
+
+def _drift_info(drift: dict) -> DriftInfo:
+    coefs = drift.get("coefficients") or {}
+    factors = {str(k): float(v["alpha"]) for k, v in coefs.items() if _f(v.get("alpha")) is not None}
+    kinds = sorted({str(v.get("kind", "")) for v in coefs.values() if v.get("kind")})
+    if drift.get("applied"):
+        desc = "per-line correction with setup samples"
+        if kinds:
+            desc += f" ({', '.join(kinds)})"
+        desc += "; factors are the slopes alpha mapping measured setup intensities to their references"
+        if drift.get("uncorrected_lines"):
+            desc += "; not corrected: " + ", ".join(map(str, drift["uncorrected_lines"]))
+        if drift.get("reason"):
+            desc += f"; {drift['reason']}"
+    else:
+        desc = str(drift.get("reason", ""))
+    return DriftInfo(bool(drift.get("applied")), desc, [str(s) for s in drift.get("setup_samples", [])], factors)
+
+
+def _check_results(checks) -> list[CheckResult]:
+    out = []
+    if checks is None:
+        return out
+    for r in checks.itertuples(index=False):
+        z = _f(getattr(r, "z", None))
+        crit = "|En| <= 1" + (" and |z| < 3" if z is not None else "")
+        out.append(
+            CheckResult(
+                str(r.sample_id),
+                str(r.standard_id),
+                str(r.element),
+                _f(r.measured),
+                _f(r.U),
+                float(r.certified),
+                _f(r.U_certified),
+                z,
+                _f(r.En),
+                bool(r.passed),
+                crit,
+            )
+        )
+    return out
+
+
+def _curve_figure(c, sample_row: ResultRow | None, matrix_w: float | None) -> bytes | None:
+    from compquant.report.figures import calibration_png
+
+    used = [s for s in c.standards if s.get("used", True)]
+    if len(used) < 2:
+        return None
+    ratio = c.basis == "ratio"
+    f = 1.0 if ratio else 100.0
+    xs = np.array([float(s["x"]) for s in used]) * f
+    ys = np.array([float(s["y"]) for s in used])
+    xe = np.array([float(s.get("u_x", 0.0) or 0.0) for s in used]) * 2 * f
+    ye = np.array([float(s.get("u_y", 0.0) or 0.0) for s in used]) * 2
+    lo, hi = float(xs.min()), float(xs.max())
+    grid = np.linspace(0.0 if lo > 0 else lo, hi * 1.08, 120)
+    try:
+        fit_y = np.asarray(c.response(grid / f), float)
+    except Exception:  # a curve that cannot be evaluated on the grid: draw the standards only
+        fit_y = None
+    sx = sy = None
+    if sample_row is not None and finite(sample_row.mass_fraction):
+        x0 = sample_row.mass_fraction
+        if ratio:
+            x0 = x0 / matrix_w if matrix_w else None
+        if x0 is not None:
+            sx = x0 * f
+            sy = float(np.asarray(c.response(np.array([x0])), float)[0])
+    xl = f"{c.element} / matrix mass-fraction ratio" if ratio else f"{c.element} mass fraction (%)"
+    yl = f"{c.line_id}" + (f" / {c.internal_standard}" if c.internal_standard else "")
+    return calibration_png(
+        xs,
+        ys,
+        fit_x=grid if fit_y is not None else None,
+        fit_y=fit_y,
+        x_err=xe,
+        y_err=ye,
+        labels=[str(s.get("standard_id", "")) for s in used],
+        sample_x=sx,
+        sample_y=sy,
+        sample_label="this sample",
+        xlabel=xl,
+        ylabel=yl,
+        title=f"Calibration curve {c.element} ({c.model})",
+    )
+
+
+# ------------------------------------------------------------------------- calibration-free path
+
+
+def _plasma_info(res) -> PlasmaInfo:
+    checks = []
+    lte = res.lte or {}
+    items = lte.get("checks") if isinstance(lte.get("checks"), list) else None
+    if items is None:
+        items = [dict(v, name=k) for k, v in lte.items() if isinstance(v, dict)]
+    for it in items:
+        passed = it.get("passed", it.get("ok", it.get("met")))
+        if passed is None:
+            continue
+        checks.append(
+            LTECheck(
+                str(it.get("name", "LTE check")),
+                str(it.get("criterion", it.get("description", ""))),
+                _f(it.get("value")),
+                _f(it.get("limit", it.get("required"))),
+                str(it.get("unit", "")),
+                bool(passed),
+            )
+        )
+    return PlasmaInfo(
+        float(res.temperature_k),
+        _f(2 * res.u_temperature_k) if _f(res.u_temperature_k) else None,
+        _f(res.electron_density_cm3),
+        _f(2 * res.u_electron_density_cm3) if _f(res.u_electron_density_cm3) else None,
+        f"temperature from the {res.fit_mode} fit; electron density: {res.ne_method}",
+        checks,
+    )
+
+
+def _boltzmann_figure(res) -> bytes | None:
+    from compquant.report.figures import boltzmann_png
+
+    pts = [ln for ln in (res.lines or []) if _f(ln.get("ek_ev")) is not None and _f(ln.get("y")) is not None]
+    if len(pts) < 2:
+        return None
+    E = np.array([float(p["ek_ev"]) for p in pts])
+    Y = np.array([float(p["y"]) for p in pts])
+    sp = [str(p.get("species", "lines")) for p in pts]
+    fits = {}
+    for s in res.species or []:
+        if _f(s.get("slope")) is not None and _f(s.get("intercept")) is not None:
+            fits[str(s["species"])] = (float(s["slope"]), float(s["intercept"]))
+    return boltzmann_png(E, Y, sp, fits=fits or None, title=f"Boltzmann plot, T = {res.temperature_k:.0f} K")
+
+
+# ------------------------------------------------------------------------- the flow
+
+
+def analyse(
+    run_path,
+    method_path,
+    *,
+    standards=None,
+    calibration=None,
+    cf: bool = False,
+    lab=None,
+    spec=None,
+    outdir="compquant-out",
+    client: str | None = None,
+    received: str | None = None,
+    issued_at=None,
+    figures: bool = True,
+    chunk_shots: int | None = None,
+    memory_limit_bytes: int | None = None,
+    progress=None,
+) -> AnalysisOutput:
+    """Run the whole analysis and write the certificates (see the module docstring).
+
+    Parameters
+    ----------
+    run_path, method_path : the run (HDF5) and the method file (TOML).
+    standards : certified-standards file: calibrate from the run's standards.
+    calibration : a saved calibration JSON: apply it (drift standardisation from setup samples).
+    cf : calibration-free analysis instead.
+    lab, spec : lab profile and specification TOML files (optional).
+    outdir : output folder (created).
+    client, received : override the lab profile's client name and date of receipt.
+    issued_at : issue time (ISO 8601 UTC or datetime); default now.
+    figures : draw the figures (spectrum, calibration curves or Boltzmann plot).
+    progress : callable ``(stage, done, total)`` for progress display.
+    """
+    modes = sum([standards is not None, calibration is not None, bool(cf)])
+    if modes != 1:
+        raise ConfigError(
+            "choose exactly one way to quantify" if modes else "no way to quantify chosen",
+            where="analyse",
+            fix="give --standards FILE, --calibration cal.json or --cf",
+        )
+    from compquant.lines import measure_run
+    from compquant.method import load_method
+    from compquant.run import Run
+
+    issued = _norm_issued_at(issued_at)
+    issue_date = issued[:10]
+    run_path = require_file(run_path, "run file")
+    method = load_method(method_path)
+    labp = load_lab_profile(lab) if lab is not None else _default_lab()
+    specp = load_specification(spec) if spec is not None else None
+    if received:
+        try:
+            received = _dt.date.fromisoformat(str(received)).isoformat()
+        except ValueError as exc:
+            raise ConfigError(
+                f"date of receipt {received!r} is not YYYY-MM-DD", where="received", fix="write e.g. 2026-11-27"
+            ) from exc
+    outdir = Path(outdir)
+    if outdir.exists() and not outdir.is_dir():
+        raise InputError("output path exists and is not a folder", where=str(outdir), fix="choose a folder")
+
+    def tick(stage, done, total):
+        if progress is not None:
+            progress(stage, done, total)
+
+    files = [FileRef("run", run_path.name, ""), FileRef("method", Path(method_path).name, method.sha256 or "")]
+    with Run.open(run_path, memory_limit_bytes=memory_limit_bytes) as run:
+        run_sha = run.sha256()
+        files[0].sha256 = run_sha
+        samples = run.samples.copy()
+        n_passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
+        total = run.n_shots * n_passes
+        done = [0]
+
+        def on_chunk(n):
+            done[0] += int(n)
+            tick("measure", min(done[0], total), total)
+
+        tick("measure", 0, total)
+        meas = measure_run(run, method, chunk_shots=chunk_shots, progress=on_chunk)
+        tick("measure", total, total)
+        instrument = dict(run.instrument or {})
+        acquisition = dict(run.acquisition or {})
+        measured = _measured_when(run)
+        technique = _technique(method, run)
+        n_shots_by_sample = dict(zip(samples["sample_id"].astype(str), samples["n_shots"].astype(int)))
+        mean_spec = dict(getattr(meas, "mean_spectra", {}) or {})
+        wavelength = np.asarray(meas.wavelength, float)
+
+    table = meas.table
+    roles = dict(zip(samples["sample_id"].astype(str), samples["role"].astype(str)))
+    descriptions = dict(zip(samples["sample_id"].astype(str), samples["description"].astype(str)))
+    unknowns = [s for s in samples["sample_id"].astype(str) if roles[s] == "unknown"]
+    if not unknowns:
+        raise InputError(
+            "the run has no sample with role 'unknown'",
+            where=str(run_path),
+            fix="mark the samples to certify with role 'unknown'",
+        )
+
+    basis = "cf" if cf else "calibration"
+    cal_info = None
+    cal_json_path = None
+    drift_info = DriftInfo(False, "not applicable to calibration-free analysis" if cf else "")
+    checks: list[CheckResult] = []
+    not_reported: list[dict] = []
+    failures: dict = {}
+    matrix_fraction: dict = {}
+    plasma_by_sample: dict = {}
+    cf_by_sample: dict = {}
+    curves = {}
+    run_blocks: list[str] = []
+    parameters: dict = {"basis": basis, "issued_at": issued, "method_settings_sha256": method.settings_digest()}
+    if chunk_shots:
+        parameters["chunk_shots"] = int(chunk_shots)
+
+    if cf:
+        from compquant.cflibs import analyse_cf_samples
+        from compquant.cflibs.result import results_table
+
+        tick("quantify", 0, len(unknowns))
+        cf_results, failures = analyse_cf_samples(
+            table,
+            sample_ids=unknowns,
+            settings=method.sections.get("cf"),
+            acquisition=acquisition,
+            instrument=instrument,
+        )
+        results = results_table(cf_results)
+        for res in cf_results:
+            cf_by_sample[str(res.sample_id)] = res
+            plasma_by_sample[str(res.sample_id)] = _plasma_info(res)
+        tick("quantify", len(unknowns), len(unknowns))
+    else:
+        from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
+        from compquant.quantify import quantify
+
+        stds = None
+        if standards is not None:
+            stds = load_standards(standards)
+            files.append(FileRef("standards", Path(standards).name, stds.attrs.get("sha256", sha256_file(standards))))
+            cfg = parse_calibration_section(method.sections.get("calibration"), source=method.where)
+            tick("calibrate", 0, 1)
+            cal = calibrate(
+                table,
+                stds,
+                cfg,
+                shot_table=meas.shots,
+                samples=samples,
+                method_id=method.id,
+                method_version=method.version,
+                method_sha256=method.sha256 or "",
+                run_sha256=run_sha,
+                run_path=str(run_path),
+            )
+            cal.created_utc = issued  # the calibration is made now; keeps repeated runs identical
+            cal_json_path = outdir / "calibration.json"
+            cal.save(cal_json_path)
+            cal_sha = sha256_file(cal_json_path)
+            files.append(FileRef("calibration (written)", cal_json_path.name, cal_sha))
+            tick("calibrate", 1, 1)
+            cal_info = _calibration_info(cal, cal_json_path.name, cal_sha)
+        else:
+            cal_path = require_file(calibration, "calibration file")
+            cal = Calibration.load(cal_path, method_id=method.id, method_sha256=method.sha256)
+            cal_sha = sha256_file(cal_path)
+            files.append(FileRef("calibration", cal_path.name, cal_sha))
+            cal_info = _calibration_info(cal, cal_path.name, cal_sha)
+        tick("quantify", 0, 1)
+        q = quantify(meas, cal, standards=stds, run_sha256=run_sha, samples=samples)
+        tick("quantify", 1, 1)
+        results = q.results
+        checks = _check_results(q.checks)
+        drift_info = _drift_info(q.drift)
+        not_reported = list(q.provenance.get("not_reported", []))
+        matrix_fraction = dict(q.matrix_fraction)
+        curves = dict(cal.curves)
+        parameters["calibration_id"] = cal.calibration_id
+        parameters["coverage"] = str(q.provenance.get("coverage", "k2"))
+        if cal.matrix_element:
+            parameters["matrix_element"] = str(cal.matrix_element)
+
+    if labp.sha256:
+        files.append(FileRef("lab profile", Path(labp.source).name, labp.sha256))
+    if specp is not None:
+        files.append(FileRef("specification", Path(specp.path).name, specp.sha256))
+
+    outdir.mkdir(parents=True, exist_ok=True)
+    lab_info = LabInfo.from_profile(labp)
+    signatory = Signatory(labp.signatory_name, labp.signatory_title)
+    client_info = ClientInfo(
+        client if client is not None else labp.client_name, list(labp.client_address), labp.client_reference
+    )
+    method_info = MethodInfo(
+        technique,
+        method.id,
+        method.version,
+        method.description,
+        Path(method_path).name,
+        method.sha256 or "",
+        basis,
+        str(instrument.get("description", "")),
+    )
+    matrix_el = parameters.get("matrix_element")
+    snr_detect = float(getattr(method.measure, "snr_detect", 3.0))
+    lines_marked = [(ln.line_id, ln.wavelength_nm) for ln in method.lines]
+
+    certs: list[Certificate] = []
+    outputs: list[CertificateOutput] = []
+    for i, sid in enumerate(unknowns):
+        tick("certificates", i, len(unknowns))
+        rows = _result_rows(results, sid)
+        remarks = []
+        if matrix_el and sid in matrix_fraction and matrix_el not in {r.element for r in rows}:
+            w, uw = matrix_fraction[sid]
+            if finite(w):
+                rows.append(
+                    ResultRow(
+                        matrix_el,
+                        float(w),
+                        U=2.0 * float(uw),
+                        u=float(uw),
+                        k=2.0,
+                        flags=["by_difference"],
+                        line_id="by difference",
+                        basis=basis,
+                    )
+                )
+        for nr in not_reported:
+            if str(nr.get("sample_id")) == sid:
+                remarks.append(f"{nr.get('element')} not reported: {nr.get('reason')}")
+        blocks = list(run_blocks)
+        if sid in failures:
+            blocks.append(f"calibration-free analysis failed: {failures[sid]}")
+        if not rows and not blocks:
+            blocks.append("no element could be quantified for this sample")
+        number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date)
+        stem = safe_filename(sid)
+        figs = []
+        if figures:
+            figs = _figures(
+                sid,
+                stem,
+                outdir,
+                wavelength,
+                mean_spec,
+                lines_marked,
+                curves,
+                rows,
+                matrix_fraction.get(sid, (None, None))[0],
+                cf_by_sample.get(sid),
+                run_path,
+                method,
+            )
+        conf = assess_conformity(specp, rows) if specp is not None else None
+        cert = Certificate(
+            number=number,
+            issue_date=issue_date,
+            lab=lab_info,
+            signatory=signatory,
+            client=client_info,
+            method=method_info,
+            sample=SampleInfo(
+                sid,
+                descriptions.get(sid, ""),
+                labp.sample_condition,
+                received if received else labp.sample_received,
+                measured,
+                n_shots_by_sample.get(sid),
+                run_path.name,
+            ),
+            results=rows,
+            provenance=Provenance("compquant", __version__, issued, run_sha, list(files), dict(parameters)),
+            calibration=cal_info,
+            plasma=plasma_by_sample.get(sid),
+            qc=QCInfo(drift_info, checks, _blank_text(curves)),
+            conformity=conf,
+            detected_not_quantified=_detected_not_quantified(table, sid, {r.element for r in rows}, snr_detect),
+            figures=figs,
+            remarks=remarks,
+            release_blocks=blocks,
+        )
+        if lab is None:
+            cert.remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
+        pdf_path = outdir / f"{stem}.pdf"
+        json_path = outdir / f"{stem}.json"
+        write_certificate_json(cert, json_path)
+        pages = write_pdf(cert, pdf_path)
+        certs.append(cert)
+        outputs.append(
+            CertificateOutput(
+                sid,
+                number,
+                str(pdf_path),
+                str(json_path),
+                pages,
+                cert.valid_for_release,
+                conf.outcome if conf is not None else None,
+                [{"element": r.element, **_printed(r)} for r in rows],
+            )
+        )
+    tick("certificates", len(unknowns), len(unknowns))
+
+    lims_path = outdir / "lims.csv"
+    write_lims_csv(certs, lims_path)
+    summary = {
+        "schema": SUMMARY_SCHEMA,
+        "schema_version": SUMMARY_VERSION,
+        "software": "compquant",
+        "version": __version__,
+        "issued_at": issued,
+        "run": {"file": run_path.name, "sha256": run_sha},
+        "method": {
+            "id": method.id,
+            "version": method.version,
+            "file": Path(method_path).name,
+            "sha256": method.sha256 or "",
+        },
+        "basis": basis,
+        "calibration": None
+        if cal_info is None
+        else {"calibration_id": cal_info.calibration_id, "file": cal_info.file_name, "sha256": cal_info.file_sha256},
+        "files": [{"role": f.role, "name": f.name, "sha256": f.sha256} for f in files],
+        "drift": {
+            "applied": drift_info.applied,
+            "description": drift_info.description,
+            "setup_samples": drift_info.setup_samples,
+            "factors": drift_info.factors,
+        },
+        "check_samples": [
+            {
+                "sample_id": c.sample_id,
+                "standard_ref": c.standard_ref,
+                "element": c.element,
+                "measured": c.measured,
+                "certified": c.certified,
+                "En": c.En,
+                "z": c.z,
+                "passed": c.passed,
+            }
+            for c in checks
+        ],
+        "valid_for_release": all(o.valid_for_release for o in outputs),
+        "certificates": [
+            {
+                "sample_id": o.sample_id,
+                "number": o.number,
+                "pdf": Path(o.pdf).name,
+                "json": Path(o.json).name,
+                "pages": o.pages,
+                "valid_for_release": o.valid_for_release,
+                "conformity": o.conformity,
+            }
+            for o in outputs
+        ],
+        "lims_csv": lims_path.name,
+        "not_reported": [{k: str(v) for k, v in d.items()} for d in not_reported],
+        "failures": {str(k): str(v) for k, v in failures.items()},
+    }
+    summary_path = outdir / "summary.json"
+    write_text_atomic(summary_path, canonical_json(summary))
+    return AnalysisOutput(
+        str(outdir),
+        basis,
+        outputs,
+        str(lims_path),
+        str(summary_path),
+        None if cal_json_path is None else str(cal_json_path),
+        summary["valid_for_release"],
+        not_reported,
+        failures,
+    )
+
+
+def _printed(r: ResultRow) -> dict:
+    rep = r.reported()
+    return {"value": rep.value, "U": rep.U, "unit": rep.unit, "flags": ";".join(r.all_flags())}
+
+
+def _blank_text(curves: dict) -> str:
+    srcs = sorted({str(c.lod_source) for c in curves.values() if getattr(c, "lod_source", "")})
+    return "; ".join(srcs)
+
+
+def _figures(
+    sid, stem, outdir: Path, wavelength, mean_spec, lines_marked, curves, rows, matrix_w, cf_res, run_path, method
+) -> list[FigureItem]:
+    from compquant.report.figures import spectrum_png
+
+    figdir = outdir / "figures" / stem
+    items: list[FigureItem] = []
+    spec = mean_spec.get(sid)
+    if spec is None:
+        try:
+            from compquant.lines import mean_spectrum
+            from compquant.run import Run
+
+            with Run.open(run_path) as run:
+                wl, spec, _info = mean_spectrum(run, method, sid)
+                wavelength = np.asarray(wl, float)
+        except CompquantError:
+            spec = None
+    if spec is not None and np.asarray(spec).shape == wavelength.shape:
+        png = spectrum_png(
+            wavelength,
+            np.asarray(spec, float),
+            lines_marked,
+            title="Mean preprocessed spectrum of the accepted shots",
+            ylabel="intensity (a.u.)",
+        )
+        items.append(
+            FigureItem("Mean spectrum of the sample with the analytical lines used (dashed).", "", "spectrum", png)
+        )
+    by_el = {r.element: r for r in rows}
+    for el, c in curves.items():
+        png = _curve_figure(c, by_el.get(el), matrix_w)
+        if png is not None:
+            items.append(
+                FigureItem(
+                    f"Calibration curve for {el} ({c.line_id}) with this sample marked.",
+                    "Error bars: expanded uncertainties (k = 2) of the standards.",
+                    "calibration",
+                    png,
+                )
+            )
+    if cf_res is not None:
+        png = _boltzmann_figure(cf_res)
+        if png is not None:
+            items.append(
+                FigureItem(
+                    "Boltzmann plot of the lines used.", "Lines: fitted slopes, common temperature.", "boltzmann", png
+                )
+            )
+    for k, it in enumerate(items, 1):
+        p = figdir / f"fig{k}-{it.kind}.png"
+        with atomic_path(p) as tmp:
+            Path(tmp).write_bytes(it.png)
+        it.path = str(Path("figures") / stem / p.name)
+    return items
+
+
+__all__ = ["analyse", "AnalysisOutput", "CertificateOutput", "SUMMARY_SCHEMA", "SUMMARY_VERSION"]

@@ -1,0 +1,390 @@
+"""Build a :class:`~compquant.calibrate.model.Calibration` from the standards measured in a run.
+
+Works on the documented line table (and optionally the per-shot table and the
+run's sample table); see docs/calibration.md for the statistics.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from compquant.calibrate.config import AnalyteConfig, CalibrationConfig
+from compquant.calibrate.drift import reference_intensities
+from compquant.calibrate.fit import (
+    d_dxi,
+    fit_curve,
+    lack_of_fit,
+    lack_of_fit_shots,
+    mandel_test,
+    outlier_limit,
+    slope_at,
+)
+from compquant.calibrate.limits import blank_sd, iso11843_2, lod_loq
+from compquant.calibrate.model import Calibration, Curve
+from compquant.calibrate.response import sample_responses
+from compquant.errors import CalibrationError, StandardsError
+
+
+def standard_map(line_table: pd.DataFrame, samples: pd.DataFrame | None) -> dict:
+    """``{sample_id: (role, standard_ref)}``; without a sample table the id is the reference."""
+    out = {}
+    if samples is not None and len(samples):
+        for r in samples.itertuples():
+            ref = getattr(r, "standard_ref", None)
+            ref = None if ref is None or (isinstance(ref, float) and math.isnan(ref)) or ref == "" else str(ref)
+            out[str(r.sample_id)] = (str(r.role), ref)
+    for sid, role in line_table[["sample_id", "role"]].drop_duplicates().itertuples(index=False):
+        if str(sid) not in out:
+            out[str(sid)] = (str(role), str(sid) if role in ("standard", "check", "setup") else None)
+    return out
+
+
+def certified_table(standards: pd.DataFrame) -> dict:
+    """``{standard_id: {element: (w, u)}}``."""
+    out: dict = {}
+    for r in standards.itertuples():
+        out.setdefault(str(r.standard_id), {})[str(r.element)] = (float(r.mass_fraction), float(r.u))
+    return out
+
+
+def matrix_content(cert: dict, matrix: str) -> tuple[float, float, bool]:
+    """Matrix mass fraction of a standard: certified, or by difference ``1 - sum(others)``."""
+    if matrix in cert:
+        w, u = cert[matrix]
+        return w, u, False
+    others = [(w, u) for el, (w, u) in cert.items() if el != matrix]
+    w = 1.0 - sum(w for w, _ in others)
+    u = math.sqrt(sum(u * u for _, u in others))
+    return w, u, True
+
+
+def content(cert: dict, element: str, basis: str, matrix: str | None):
+    """``(x, u_x)``: mass fraction, or mass-fraction ratio to the matrix for basis 'ratio'."""
+    if element not in cert:
+        return None
+    w, u = cert[element]
+    if basis != "ratio":
+        return w, u
+    wm, um, _ = matrix_content(cert, matrix)
+    if wm <= 0:
+        return None
+    r = w / wm
+    return r, math.sqrt((u / wm) ** 2 + (w * um / wm**2) ** 2)
+
+
+def _curve_for(a: AnalyteConfig, cfg: CalibrationConfig, line_table, shot_table, smap, certs, where: str) -> Curve:
+    resp = sample_responses(line_table, a.line, a.internal_standard, shot_table, where=where)
+    excl = {e["standard"]: e["reason"] for e in a.exclude}
+    recs = []
+    for sid, r in resp.iterrows():
+        role, ref = smap.get(str(sid), ("unknown", None))
+        if role != "standard":
+            continue
+        rec = {
+            "standard_id": ref,
+            "sample_id": str(sid),
+            "y": float(r["y"]),
+            "u_y": float(r["u_y"]),
+            "n_shots": int(r["n_shots"]),
+            "line_flags": ";".join(r["flags"]),
+            "used": True,
+            "reason": "",
+            "shots": r["shots"],
+        }
+        cert = certs.get(ref)
+        if cert is None:
+            raise StandardsError(
+                f"standard '{ref}' of sample '{sid}' is not in the standards file",
+                where=where,
+                fix="add its certified values or correct the run's standard reference",
+            )
+        c = content(cert, a.element, a.basis, cfg.matrix_element)
+        if c is None:
+            rec.update(x=math.nan, u_x=math.nan, used=False, reason=f"{a.element} not certified")
+        else:
+            rec.update(x=c[0], u_x=c[1], w=cert[a.element][0])
+        if a.basis == "ratio":
+            rec["matrix_fraction"] = matrix_content(cert, cfg.matrix_element)[0]
+        for it in a.interferences:
+            cj = content(cert, it["element"], a.basis, cfg.matrix_element)
+            if cj is None and rec["used"]:
+                rec.update(used=False, reason=f"interferer {it['element']} not certified")
+            rec[f"xi:{it['element']}"] = cj[0] if cj else math.nan
+            rec[f"uxi:{it['element']}"] = cj[1] if cj else math.nan
+        if rec["used"] and ref in excl:
+            rec.update(used=False, reason=f"excluded by method: {excl[ref]}")
+        if rec["used"] and not (np.isfinite(rec["y"]) and np.isfinite(rec["u_y"])):
+            rec.update(used=False, reason="no valid response (line not measured)")
+        if rec["used"] and "saturated" in rec["line_flags"].split(";"):
+            rec.update(used=False, reason="line saturated")
+        recs.append(rec)
+    if not recs:
+        raise CalibrationError(
+            "no standards measured in the run", where=where, fix="the run needs samples with role 'standard'"
+        )
+    blanks = [sid for sid, (role, _) in smap.items() if role == "blank" and sid in resp.index]
+    bl = None
+    if blanks:
+        means = [float(resp.loc[b, "y"]) for b in blanks if np.isfinite(resp.loc[b, "y"])]
+        shots = resp.loc[blanks[0], "shots"]
+        bl = blank_sd(means if len(means) >= 3 else None, shots if shots is not None and len(means) < 3 else None)
+    return curve_from_records(a, recs, outlier_alpha=cfg.outlier_alpha, blank=bl, where=where)
+
+
+def curve_from_records(
+    a: AnalyteConfig,
+    recs: list,
+    *,
+    outlier_alpha: float = 0.05,
+    blank: tuple | None = None,
+    where: str = "calibration",
+) -> Curve:
+    """Fit one analyte's curve from per-standard records.
+
+    Each record: ``standard_id, sample_id, x, u_x, y, u_y, n_shots, used, reason``
+    (+ ``w`` mass fraction, ``matrix_fraction`` for basis 'ratio', ``xi:<El>`` and
+    ``uxi:<El>`` per interferer, ``shots`` per-shot responses or None,
+    ``line_flags``).  ``blank``: ``(s, source, n)`` from :func:`blank_sd` or None.
+    """
+    recs = [dict(r) for r in recs]
+    for r in recs:
+        r.setdefault("reason", "")
+        r.setdefault("used", True)
+        r.setdefault("shots", None)
+        r.setdefault("line_flags", "")
+    weighted = a.model == "weighted"
+    interf = [(it["element"], it["kind"]) for it in a.interferences]
+    limit_used = None
+    while True:
+        use = [r for r in recs if r["used"]]
+        x = np.array([r["x"] for r in use])
+        y = np.array([r["y"] for r in use])
+        uy = np.array([r["u_y"] for r in use])
+        xi = {el: np.array([r[f"xi:{el}"] for r in use]) for el, _ in interf}
+        if weighted and np.any(uy <= 0):
+            raise CalibrationError(
+                "a standard has zero response uncertainty; weights 1/u^2 undefined",
+                where=where,
+                fix="use model 'linear'",
+            )
+        fit = fit_curve(
+            x,
+            y,
+            model=a.model,
+            through_origin=a.through_origin,
+            weights=1.0 / uy**2 if weighted else None,
+            xi=xi,
+            interferences=interf,
+            where=where,
+        )
+        limit_used = outlier_limit(fit.n, len(fit.terms), outlier_alpha)
+        worst = int(np.argmax(np.abs(fit.studentized)))
+        t_worst = float(fit.studentized[worst])
+        if a.outliers == "exclude" and abs(t_worst) > limit_used and fit.n - 1 >= max(3, len(fit.terms) + 2):
+            use[worst].update(
+                used=False,
+                reason=f"outlier: studentised residual {t_worst:.2f} beyond "
+                f"+-{limit_used:.2f} (Bonferroni, alpha "
+                f"{outlier_alpha})",
+            )
+            continue
+        break
+    beta = fit.beta
+    slope = slope_at(fit.terms, beta, x, xi)
+    if (
+        np.any(slope <= 0)
+        or slope_at(fit.terms, beta, np.array([x.min(), x.max()]), {k: np.zeros(2) for k in xi}).min() <= 0
+    ):
+        raise CalibrationError(
+            f"curve sensitivity is not positive over the standards' range (slope {float(np.min(slope)):.3g})",
+            where=where,
+            fix="check the line choice, the standards, or the model",
+        )
+    if a.model == "quadratic" and len(fit.terms) and "x2" in fit.terms:
+        c2 = beta[fit.terms.index("x2")]
+        c1 = beta[fit.terms.index("x")]
+        if c2 < 0 and -c1 / (2 * c2) < x.max():
+            raise CalibrationError(
+                "quadratic curve turns over inside the calibrated range",
+                where=where,
+                fix="use the linear model or fewer high standards",
+            )
+    # stated variance: repeatability + certified uncertainty through the local slope
+    ux = np.array([r["u_x"] for r in use])
+    kstat = uy**2 + (slope * ux) ** 2
+    for el, _ in interf:
+        kstat = kstat + (np.asarray(d_dxi(fit.terms, beta, x, el)) * np.array([r[f"uxi:{el}"] for r in use])) ** 2
+    scale_stated = float(np.mean(fit.w * kstat))
+    scale_used = max(fit.scale, scale_stated)
+    # scatter of a new sample about the curve beyond its own repeatability: the
+    # observed residual variance (never less than the stated one) minus the
+    # standards' mean repeatability, which the unknown's replaces
+    sigma_m2 = max(scale_used - float(np.mean(fit.w * uy**2)), 0.0)
+    cov = scale_used * fit.xtwx_inv
+    # per-standard diagnostics
+    lim = limit_used
+    for i, r in enumerate(use):
+        r.update(
+            fitted=float(fit.fitted[i]),
+            residual=float(fit.resid[i]),
+            studentized=float(fit.studentized[i]),
+            leverage=float(fit.leverage[i]),
+            outlier=bool(abs(fit.studentized[i]) > lim),
+        )
+    # lack of fit: repeated standards first, else shots
+    refs = [r["standard_id"] for r in use]
+    lof = lack_of_fit(fit, refs) if len(set(refs)) < len(refs) else None
+    if lof is None and all(r["shots"] is not None for r in use):
+        lof = lack_of_fit_shots(fit, [r["shots"] for r in use])
+    mandel = (
+        mandel_test(x, y, 1.0 / uy**2 if weighted else None)
+        if a.model != "quadratic" and not interf and not a.through_origin
+        else None
+    )
+    resid_sd = float(np.sqrt(np.sum(fit.resid**2) / fit.dof))
+    # detection limits
+    s0 = slope_at(fit.terms, beta, 0.0, {el: 0.0 for el, _ in interf})
+    if s0 <= 0:
+        raise CalibrationError(
+            "curve sensitivity at zero content is not positive",
+            where=where,
+            fix="check the model (a quadratic may bend at low content)",
+        )
+    if blank is not None and blank[0] > 0:
+        s_blank, lod_source = blank[0], f"blank: {blank[1]}"
+    else:
+        s_blank, lod_source = resid_sd, "calibration residual sd (no usable blank in the run)"
+    lod_x, loq_x = lod_loq(s_blank, s0)
+    iso = iso11843_2(x, y) if not interf else None
+    ws = np.array([r.get("w", r["x"]) for r in use])
+    wm_nom = float(np.mean([r["matrix_fraction"] for r in use])) if a.basis == "ratio" else 1.0
+    if iso is not None and a.basis == "ratio":
+        iso["x_c_mass_fraction"] = iso["x_c"] * wm_nom
+        iso["x_d_mass_fraction"] = iso["x_d"] * wm_nom
+    icorr = []
+    for el, kind in interf:
+        term = f"{'add' if kind == 'additive' else 'mul'}:{el}"
+        j = fit.terms.index(term)
+        icorr.append(
+            {
+                "element": el,
+                "kind": kind,
+                "coefficient": float(beta[j]),
+                "u": float(math.sqrt(cov[j, j])),
+                "meaning": (
+                    "response added per unit content of the interferer"
+                    if kind == "additive"
+                    else "sensitivity change per unit content of the interferer"
+                ),
+            }
+        )
+    stds_out = []
+    for r in recs:
+        d = {k: v for k, v in r.items() if k != "shots"}
+        stds_out.append(d)
+    return Curve(
+        element=a.element,
+        line_id=a.line,
+        basis=a.basis,
+        internal_standard=a.internal_standard,
+        model=a.model,
+        through_origin=a.through_origin,
+        weighted=weighted,
+        terms=list(fit.terms),
+        beta=beta.tolist(),
+        cov_fit=fit.cov.tolist(),
+        cov=cov.tolist(),
+        scale=float(fit.scale),
+        scale_stated=scale_stated,
+        sigma_m2=sigma_m2,
+        dof=int(fit.dof),
+        r2=float(fit.r2),
+        residual_sd=resid_sd,
+        range_x=[float(x.min()), float(x.max())],
+        range_mass_fraction=[float(ws.min()), float(ws.max())],
+        matrix_fraction_nominal=wm_nom,
+        lod_x=float(lod_x),
+        loq_x=float(loq_x),
+        lod=float(lod_x * wm_nom),
+        loq=float(loq_x * wm_nom),
+        lod_source=lod_source,
+        iso11843=iso,
+        standards=stds_out,
+        interferences=icorr,
+        diagnostics={
+            "lack_of_fit": lof,
+            "mandel": mandel,
+            "outlier_limit": float(lim),
+            "n_used": int(fit.n),
+            "n_excluded": int(sum(not r["used"] for r in recs)),
+            "s_blank": float(s_blank),
+        },
+    )
+
+
+def calibrate(
+    line_table: pd.DataFrame,
+    standards: pd.DataFrame,
+    config: CalibrationConfig,
+    *,
+    shot_table: pd.DataFrame | None = None,
+    samples: pd.DataFrame | None = None,
+    method_id: str = "method",
+    method_version: str = "",
+    method_sha256: str = "",
+    run_sha256: str = "",
+    run_path: str = "",
+    pls=None,
+) -> Calibration:
+    """Fit every analyte curve of ``config`` to the standards in ``line_table``.
+
+    Analytes whose curve cannot be made (too few standards, non-positive slope ...)
+    are listed in ``Calibration.rejected`` with the reason; if none can be made a
+    :class:`CalibrationError` is raised.  ``pls``: optional fitted PLS block
+    (``compquant.calibrate.pls``) stored in the calibration.
+    """
+    smap = standard_map(line_table, samples)
+    certs = certified_table(standards)
+    curves, rejected = {}, {}
+    for a in config.analytes:
+        where = f"calibration of {a.element} ({a.line})"
+        try:
+            curves[a.element] = _curve_for(a, config, line_table, shot_table, smap, certs, where)
+        except CalibrationError as exc:
+            rejected[a.element] = exc.one_line()
+    if not curves:
+        first = next(iter(rejected.values()))
+        raise CalibrationError(
+            f"no analyte could be calibrated ({first})",
+            where=method_id,
+            fix="see the reasons; check standards, lines and models",
+        )
+    refs = {ref for role, ref in smap.values() if ref}
+    std_rows = standards[standards["standard_id"].isin(refs)].to_dict(orient="records")
+    lines = sorted(
+        {c.line_id for c in curves.values()} | {c.internal_standard for c in curves.values() if c.internal_standard}
+    )
+    return Calibration(
+        method_id=method_id,
+        method_version=str(method_version),
+        method_sha256=method_sha256,
+        run_sha256=run_sha256,
+        run_path=str(run_path),
+        standards_sha256=str(standards.attrs.get("sha256", "")),
+        standards_path=str(standards.attrs.get("path", "")),
+        standards=std_rows,
+        basis=config.basis,
+        matrix_element=config.matrix_element,
+        curves=curves,
+        rejected=rejected,
+        setup_reference=reference_intensities(line_table),
+        settings=config.to_dict(),
+        lines=lines,
+        pls=pls,
+    )
+
+
+__all__ = ["calibrate", "curve_from_records", "standard_map", "certified_table", "content", "matrix_content"]

@@ -1,0 +1,315 @@
+"""The ``Calibration``: per-analyte curves and everything needed to apply them, as versioned JSON.
+
+Inverse-prediction uncertainty budget (docs/calibration.md, sec. 3).  For an
+unknown with response ``y0`` (standard uncertainty ``u0`` from its ``n`` shots)
+and interferer contents ``x_j`` (``u_j``), the content ``x0`` solves
+``f(x0; beta, x_j) = y0`` and, by the first-order delta method (GUM 5.1.2)::
+
+    u^2(x0) = [ s_new^2 + g' C g + sum_j (df/dx_j)^2 u_j^2 ] / (df/dx)^2
+
+* ``g = df/dbeta`` at ``x0``; ``C`` the coefficient covariance
+  ``max(sigma_hat^2, sigma_stated^2) (X'WX)^-1``;
+* ``sigma_hat^2 = sum w r^2 / (n - p)`` the observed residual variance (weighted
+  units) and ``sigma_stated^2 = mean_i w_i [u_y,i^2 + (df/dx_i)^2 u_x,i^2 + ...]``
+  what the standards' own repeatability and *certified uncertainties* explain
+  (effective variance, Orear 1982, Am. J. Phys. 50, 912): the fit is never
+  credited with less scatter than the certificates imply;
+* ``s_new^2 = sigma_m^2 / w_0 + u0^2`` the scatter of a *new* sample about the
+  curve: ``sigma_m^2 = max(sigma_hat^2, sigma_stated^2) - mean_i(w_i u_y,i^2)``,
+  the scatter the standards show beyond their own repeatability (matrix effects,
+  heterogeneity and the error of their certified values, which cannot be told
+  apart with a handful of standards), plus the unknown's own repeatability
+  ``u0`` in place of the standards' (``w_0 = 1`` for unweighted fits,
+  ``1/u0^2`` for weighted ones -- the statsmodels WLS prediction variance).
+
+For an OLS straight line with equal repeatabilities and exact certified values
+this is ISO 8466-1:1990, eq. (21) with one measurement of the sample::
+
+    s_x0 = (s_y / b) sqrt(1 + 1/N + (y0 - ybar)^2 / (b^2 Sxx))
+
+The effective degrees of freedom follow Welch-Satterthwaite (GUM G.4); with
+``coverage = "student"`` the coverage factor is ``k = t_0.975(nu_eff)``, else 2.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import asdict, dataclass, field
+from datetime import datetime, timezone
+
+import numpy as np
+from scipy import stats
+
+from compquant import __version__
+from compquant.calibrate.fit import d_dxi, design_matrix, invert, slope_at
+from compquant.errors import CalibrationError
+from compquant.fileio import require_file, write_text_atomic
+
+SCHEMA = "compquant.calibration"
+SCHEMA_VERSION = 1
+
+
+@dataclass
+class Curve:
+    """One analyte's calibration curve (content ``x`` vs response ``y``)."""
+
+    element: str
+    line_id: str
+    basis: str  # "ratio" | "intensity"
+    internal_standard: str | None
+    model: str
+    through_origin: bool
+    weighted: bool
+    terms: list
+    beta: list
+    cov_fit: list  # sigma_hat^2 (X'WX)^-1 (statsmodels convention)
+    cov: list  # covariance used in the uncertainty budget
+    scale: float  # sigma_hat^2
+    scale_stated: float  # sigma_stated^2
+    sigma_m2: float  # scatter beyond repeatability, weighted units
+    dof: int
+    r2: float
+    residual_sd: float  # sd of unweighted residuals (response units)
+    range_x: list  # [lo, hi] contents of the standards used
+    range_mass_fraction: list
+    matrix_fraction_nominal: float  # mean matrix mass fraction of the standards (ratio basis)
+    lod_x: float
+    loq_x: float
+    lod: float  # mass fraction (nominal matrix for ratio basis)
+    loq: float
+    lod_source: str
+    iso11843: dict | None
+    standards: list  # per standard: id, sample, x, u_x, y, u_y, ..., used, reason
+    interferences: list = field(default_factory=list)  # [{element, kind, coefficient, u}]
+    diagnostics: dict = field(default_factory=dict)
+
+    # ---- evaluation ------------------------------------------------------
+    def _beta(self):
+        return np.asarray(self.beta, float)
+
+    def response(self, x, xi=None):
+        return design_matrix(self.terms, np.atleast_1d(np.asarray(x, float)), xi or {}) @ self._beta()
+
+    def predict_content(
+        self, y0: float, u0: float, n_shots: int | None = None, xi=None, u_xi=None, where: str | None = None
+    ) -> dict:
+        """Content ``x0`` of an unknown and its standard uncertainty (see module docstring).
+
+        Returns ``{x, u, dof, dydx, dx_dxi: {el: ...}, budget: {...}}``.
+        """
+        xi = {k: float(v) for k, v in (xi or {}).items()}
+        u_xi = {k: float(v) for k, v in (u_xi or {}).items()}
+        beta = self._beta()
+        try:
+            x0, dydx = invert(self.terms, beta, y0, xi)
+        except CalibrationError as exc:
+            raise CalibrationError(exc.what, where=where or f"{self.element} ({self.line_id})", fix=exc.fix) from None
+        g = design_matrix(self.terms, np.array([x0]), xi)[0]
+        C = np.asarray(self.cov, float)
+        v_fit = float(g @ C @ g)
+        u0 = float(u0) if np.isfinite(u0) else 0.0
+        w0 = 1.0 / u0**2 if (self.weighted and u0 > 0) else 1.0
+        v_matrix = self.sigma_m2 / w0
+        v_rep = u0**2
+        dx_dxi = {}
+        v_int = 0.0
+        for it in self.interferences:
+            el = it["element"]
+            dfdxj = float(d_dxi(self.terms, beta, x0, el))
+            dx_dxi[el] = -dfdxj / dydx
+            v_int += (dfdxj * u_xi.get(el, 0.0)) ** 2
+        var = (v_matrix + v_rep + v_fit + v_int) / dydx**2
+        # Welch-Satterthwaite (GUM G.4.1)
+        nu_res = max(self.dof, 1)
+        fit_from_resid = self.scale >= self.scale_stated
+        # sigma_m^2 = sigma_hat^2 - sigma_stated^2 inherits the sampling variance of
+        # sigma_hat^2 (nu = n - p): nu_m = nu (sigma_m^2 / sigma_hat^2)^2 (Satterthwaite 1946)
+        nu_m = max(nu_res * (self.sigma_m2 / self.scale) ** 2, 1.0) if self.scale > 0 else math.inf
+        comps = [
+            (v_matrix / dydx**2, nu_m),
+            (v_rep / dydx**2, max((n_shots or 0) - 1, 1) if n_shots else math.inf),
+            (v_fit / dydx**2, nu_res if fit_from_resid else math.inf),
+            (v_int / dydx**2, math.inf),
+        ]
+        den = sum(c**2 / nu for c, nu in comps if c > 0 and math.isfinite(nu))
+        dof = var**2 / den if den > 0 else math.inf
+        return {
+            "x": float(x0),
+            "u": math.sqrt(var),
+            "dof": float(dof),
+            "dydx": float(dydx),
+            "dx_dxi": dx_dxi,
+            "budget": {
+                "matrix": v_matrix / dydx**2,
+                "repeatability": v_rep / dydx**2,
+                "fit": v_fit / dydx**2,
+                "interference": v_int / dydx**2,
+            },
+        }
+
+    def band(self, x, level: float = 0.95, u0: float | None = None) -> tuple:
+        """Response of the curve at ``x`` and the half-width of the prediction band.
+
+        ``u0``: repeatability of the new measurement (default: mean of the standards').
+        """
+        x = np.atleast_1d(np.asarray(x, float))
+        X = design_matrix(self.terms, x, {el["element"]: 0.0 for el in self.interferences})
+        C = np.asarray(self.cov, float)
+        v_fit = np.einsum("ij,jk,ik->i", X, C, X)
+        if u0 is None:
+            u0 = float(np.mean([s["u_y"] for s in self.standards if s["used"]]))
+        w0 = 1.0 / u0**2 if (self.weighted and u0 > 0) else 1.0
+        t = stats.t.ppf(0.5 + level / 2, max(self.dof, 1))
+        return X @ self._beta(), t * np.sqrt(v_fit + self.sigma_m2 / w0 + u0**2)
+
+    def slope0(self) -> float:
+        return float(slope_at(self.terms, self._beta(), 0.0, {it["element"]: 0.0 for it in self.interferences}))
+
+
+@dataclass
+class Calibration:
+    """A calibration made from one run of certified standards with one method."""
+
+    method_id: str
+    method_version: str
+    method_sha256: str
+    run_sha256: str
+    run_path: str
+    standards_sha256: str
+    standards_path: str
+    standards: list  # certified values of every standard referenced by the run
+    basis: str
+    matrix_element: str | None
+    curves: dict  # element -> Curve
+    rejected: dict = field(default_factory=dict)  # element -> reason
+    setup_reference: dict = field(default_factory=dict)  # sample -> line -> [I, u]
+    settings: dict = field(default_factory=dict)  # validated [calibration] section
+    lines: list = field(default_factory=list)
+    pls: dict | None = None
+    method_path: str = ""
+    created_utc: str = ""
+    package_version: str = __version__
+    schema: str = SCHEMA
+    schema_version: int = SCHEMA_VERSION
+
+    def __post_init__(self):
+        if not self.created_utc:
+            self.created_utc = datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+
+    @property
+    def calibration_id(self) -> str:
+        """Short id: method id, creation time and the first 8 hex of the run hash."""
+        stamp = self.created_utc.replace("-", "").replace(":", "")
+        return f"{self.method_id}-{stamp}-{self.run_sha256[:8]}"
+
+    # ---- JSON ------------------------------------------------------------
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["calibration_id"] = self.calibration_id
+        return _clean(d)
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), indent=1, allow_nan=False)
+
+    def save(self, path) -> None:
+        """Write the calibration as JSON, atomically."""
+        write_text_atomic(path, self.to_json() + "\n")
+
+    @classmethod
+    def from_dict(cls, d: dict, where: str = "calibration") -> Calibration:
+        if not isinstance(d, dict) or d.get("schema") != SCHEMA:
+            raise CalibrationError(
+                "not a compquant calibration file",
+                where=where,
+                fix="give the JSON written by 'compquant calibrate'",
+            )
+        ver = d.get("schema_version")
+        if not isinstance(ver, int):
+            raise CalibrationError(
+                "calibration file has no schema version",
+                where=where,
+                fix="re-create it with 'compquant calibrate'",
+            )
+        if ver > SCHEMA_VERSION:
+            raise CalibrationError(
+                f"calibration schema version {ver} is newer than this compquant reads ({SCHEMA_VERSION})",
+                where=where,
+                fix="upgrade compquant to read it",
+            )
+        d = dict(d)
+        d.pop("calibration_id", None)
+        try:
+            d["curves"] = {k: Curve(**_unclean(v)) for k, v in d["curves"].items()}
+            return cls(**_unclean(d))
+        except (TypeError, KeyError) as exc:
+            raise CalibrationError(
+                f"calibration file is incomplete or damaged ({exc})",
+                where=where,
+                fix="re-create it with 'compquant calibrate'",
+            ) from None
+
+    @classmethod
+    def load(cls, path, *, method_id: str | None = None, method_sha256: str | None = None) -> Calibration:
+        """Read a calibration JSON; refuse newer schemas and a different method id or hash."""
+        p = require_file(path, "calibration file")
+        try:
+            d = json.loads(p.read_text(encoding="utf-8"))
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise CalibrationError(
+                f"not valid JSON ({exc})", where=str(p), fix="give the JSON written by 'compquant calibrate'"
+            ) from None
+        cal = cls.from_dict(d, where=str(p))
+        cal.check_method(method_id, method_sha256, where=str(p))
+        return cal
+
+    def check_method(self, method_id=None, method_sha256=None, where="calibration") -> None:
+        if method_id is not None and method_id != self.method_id:
+            raise CalibrationError(
+                f"calibration was made with method '{self.method_id}', not '{method_id}'",
+                where=where,
+                fix="use the method it was made with, or re-calibrate",
+            )
+        if method_sha256 is not None and method_sha256 != self.method_sha256:
+            raise CalibrationError(
+                f"method file differs from the one the calibration was made with "
+                f"(sha256 {method_sha256[:12]}... vs {self.method_sha256[:12]}...)",
+                where=where,
+                fix="use the same method file, or re-calibrate",
+            )
+
+
+_NONFINITE = "__nonfinite__"
+
+
+def _clean(o):
+    """JSON-safe copy: numpy -> python, +-inf/nan -> tagged strings (JSON has no inf)."""
+    if isinstance(o, dict):
+        return {str(k): _clean(v) for k, v in o.items()}
+    if isinstance(o, (list, tuple)):
+        return [_clean(v) for v in o]
+    if isinstance(o, np.ndarray):
+        return [_clean(v) for v in o.tolist()]
+    if isinstance(o, (np.bool_,)):
+        return bool(o)
+    if isinstance(o, (np.integer,)):
+        return int(o)
+    if isinstance(o, (float, np.floating)):
+        f = float(o)
+        if not math.isfinite(f):
+            return {_NONFINITE: repr(f)}
+        return f
+    return o
+
+
+def _unclean(o):
+    if isinstance(o, dict):
+        if set(o) == {_NONFINITE}:
+            return float(o[_NONFINITE])
+        return {k: _unclean(v) for k, v in o.items()}
+    if isinstance(o, list):
+        return [_unclean(v) for v in o]
+    return o
+
+
+__all__ = ["Curve", "Calibration", "SCHEMA", "SCHEMA_VERSION"]

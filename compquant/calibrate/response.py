@@ -1,0 +1,105 @@
+"""Responses of samples for one analyte: line intensity, or its ratio to an internal-standard line.
+
+Ratio of means with the per-shot covariance (first-order propagation, GUM 5.1.2)::
+
+    R = Ibar_a / Ibar_s
+    u^2(R) = R^2 [ s_a^2/(n Ibar_a^2) + s_s^2/(n Ibar_s^2) - 2 s_as/(n Ibar_a Ibar_s) ]
+
+The covariance term is why an internal standard helps: shot-to-shot
+fluctuations of ablated mass and plasma affect both lines alike.  Without the
+per-shot table the lines are taken as independent:
+``u^2(R) = R^2 [(u_a/I_a)^2 + (u_s/I_s)^2]``.  Per-shot values of the response
+are the linearised ratios ``R + (I_a - Ibar_a)/Ibar_s - R (I_s - Ibar_s)/Ibar_s``,
+whose mean is ``R`` and whose spread matches ``u(R)``; they serve the
+lack-of-fit test and blank statistics.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from compquant.errors import CalibrationError
+
+
+def _line_rows(line_table: pd.DataFrame, line_id: str) -> pd.DataFrame:
+    return line_table[line_table["line_id"] == line_id].set_index("sample_id")
+
+
+def sample_responses(
+    line_table: pd.DataFrame,
+    line_id: str,
+    internal_standard: str | None = None,
+    shot_table: pd.DataFrame | None = None,
+    where: str = "calibration",
+) -> pd.DataFrame:
+    """Per sample: ``y, u_y, n_shots, flags`` and ``shots`` (array of per-shot responses or None).
+
+    Raises CalibrationError when the analyte (or internal-standard) line is not in
+    the line table.
+    """
+    a = _line_rows(line_table, line_id)
+    if a.empty:
+        raise CalibrationError(
+            f"line '{line_id}' is not in the line table",
+            where=where,
+            fix="add the line to the method's [[lines]] or fix the line id",
+        )
+    s = None
+    if internal_standard:
+        s = _line_rows(line_table, internal_standard)
+        if s.empty:
+            raise CalibrationError(
+                f"internal-standard line '{internal_standard}' is not in the line table",
+                where=where,
+                fix="add it to the method's [[lines]] or fix the line id",
+            )
+    shots_a = shots_s = None
+    if shot_table is not None and len(shot_table):
+        if "accepted" in shot_table:
+            shot_table = shot_table[shot_table["accepted"].astype(bool)]
+        sa = shot_table[shot_table["line_id"] == line_id]
+        shots_a = {k: g.sort_values("shot") for k, g in sa.groupby("sample_id", sort=False)}
+        if internal_standard:
+            ss = shot_table[shot_table["line_id"] == internal_standard]
+            shots_s = {k: g.sort_values("shot") for k, g in ss.groupby("sample_id", sort=False)}
+    rows = []
+    for sid, r in a.iterrows():
+        flags = [f for f in str(r.get("flags", "") or "").split(";") if f]
+        Ia, ua, n = float(r["intensity"]), float(r["u_intensity"]), int(r["n_shots"])
+        shots = None
+        if s is None:
+            y, uy = Ia, ua
+            if shots_a is not None and sid in shots_a:
+                shots = shots_a[sid]["intensity"].to_numpy(float)
+        else:
+            if sid not in s.index:
+                continue
+            rs = s.loc[sid]
+            Is, us = float(rs["intensity"]), float(rs["u_intensity"])
+            flags += [f"istd_{f}" for f in str(rs.get("flags", "") or "").split(";") if f]
+            if not (np.isfinite(Is) and Is > 0):
+                flags.append("istd_not_positive")
+                y, uy = np.nan, np.nan
+            else:
+                y = Ia / Is
+                uy = float(np.sqrt((ua / Is) ** 2 + (Ia * us / Is**2) ** 2))
+                if shots_a is not None and shots_s is not None and sid in shots_a and sid in shots_s:
+                    ga, gs = shots_a[sid], shots_s[sid]
+                    m = ga.merge(gs, on="shot", suffixes=("_a", "_s"))
+                    if len(m) >= 2:
+                        xa = m["intensity_a"].to_numpy(float)
+                        xs = m["intensity_s"].to_numpy(float)
+                        ma, ms = xa.mean(), xs.mean()
+                        if ms > 0:
+                            y = ma / ms
+                            shots = y + (xa - ma) / ms - y * (xs - ms) / ms
+                            uy = float(np.std(shots, ddof=1) / np.sqrt(len(shots)))
+                            n = len(shots)
+        rows.append({"sample_id": sid, "y": y, "u_y": uy, "n_shots": n, "flags": flags, "shots": shots})
+    return pd.DataFrame(rows, columns=["sample_id", "y", "u_y", "n_shots", "flags", "shots"]).set_index(
+        "sample_id", drop=False
+    )
+
+
+__all__ = ["sample_responses"]

@@ -1,0 +1,723 @@
+"""``analyse_cf``: calibration-free composition of one sample from its line table.
+
+Steps (equations and sources in docs/calibration-free.md):
+
+1. join the line table with the atomic data, drop flagged / unusable lines;
+2. electron density from H-alpha, Stark lines, a fixed value, or the Saha balance
+   (fitted jointly with T);
+3. joint Saha–Boltzmann (or Boltzmann) fit: one T, one intercept per element (species);
+4. self-absorption: detection, and optionally curve-of-growth correction (known plasma
+   length or fitted columnar density) or the internal-reference-line method;
+5. closure → number fractions → mass fractions (optionally one element fixed);
+6. LTE checks (McWhirter; transient and inhomogeneity where timing/lengths are known);
+7. Monte Carlo over intensities, A_ki and the nₑ inputs, batched in one solve.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+from scipy.optimize import minimize_scalar
+
+from compquant.cflibs.atomicdata import default_atomic_data, species_name
+from compquant.cflibs.constants import K_B_EV
+from compquant.cflibs.density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
+from compquant.cflibs.electron_density import FixedNe, HAlphaNe, StarkLinesNe
+from compquant.cflibs.fitting import wls_batch
+from compquant.cflibs.lineset import LineSet, prepare_lines
+from compquant.cflibs.lte import check_lte
+from compquant.cflibs.result import CFResult, ElementResult
+from compquant.cflibs.selfabs import (
+    EL_SHERBINI_ALPHA,
+    sa_factor,
+    sa_from_width,
+    sa_reference_line,
+    tau0_slab,
+)
+from compquant.cflibs.settings import CFSettings
+from compquant.cflibs.solver import Model, Solution
+from compquant.errors import DataQualityError, InputError, PhysicsError
+
+
+class CFWarning(UserWarning):
+    """A calibration-free result was produced with a caveat (also stored in the result)."""
+
+
+_INSTR_KEYS = ("instrument_fwhm_nm", "resolution_fwhm_nm", "fwhm_nm", "resolution_nm")
+
+
+def _instrument_width(settings, instrument, warn):
+    """Instrumental FWHM as a function of wavelength (nm → nm).
+
+    From ``[cf] instrument_fwhm_nm`` or ``[cf] resolving_power`` (FWHM = λ/R), else the
+    run's instrument attributes (same names), else 0 with a warning.
+    """
+    if settings.instrument_fwhm_nm is not None:
+        v = float(settings.instrument_fwhm_nm)
+        return lambda wl: np.full(np.shape(wl), v)
+    if settings.resolving_power is not None:
+        r = float(settings.resolving_power)
+        return lambda wl: np.asarray(wl, float) / r
+    instrument = instrument or {}
+    for k in _INSTR_KEYS:
+        if k in instrument:
+            try:
+                v = float(instrument[k])
+            except (TypeError, ValueError):
+                continue
+            if math.isfinite(v) and v >= 0:
+                return lambda wl, v=v: np.full(np.shape(wl), v)
+    if "resolving_power" in instrument:
+        try:
+            r = float(instrument["resolving_power"])
+        except (TypeError, ValueError):
+            r = float("nan")
+        if math.isfinite(r) and r > 0:
+            return lambda wl: np.asarray(wl, float) / r
+    warn("instrumental FWHM unknown ([cf] instrument_fwhm_nm / resolving_power or run instrument "
+         "attrs): width-based nₑ assumes 0")
+    return lambda wl: np.zeros(np.shape(wl))
+
+
+def _gate_delay_s(acquisition) -> float | None:
+    if not acquisition:
+        return None
+    for key, scale in (("gate_delay_s", 1.0), ("gate_delay_us", 1e-6), ("gate_delay_ns", 1e-9),
+                       ("delay_s", 1.0), ("delay_us", 1e-6), ("delay_ns", 1e-9)):
+        if key in acquisition:
+            try:
+                v = float(acquisition[key]) * scale
+            except (TypeError, ValueError):
+                continue
+            if math.isfinite(v) and v > 0:
+                return v
+    return None
+
+
+def _select_sample(line_table: pd.DataFrame, sample_id, where):
+    if not isinstance(line_table, pd.DataFrame):
+        raise InputError("line table must be a pandas DataFrame", where=where,
+                         fix="pass the table from compquant.lines.measure_run")
+    if "sample_id" in line_table.columns:
+        ids = list(dict.fromkeys(line_table["sample_id"].astype(str)))
+        if sample_id is None:
+            if len(ids) != 1:
+                raise InputError(f"line table holds {len(ids)} samples", where=where,
+                                 fix="pass sample_id=..., or use analyse_cf_samples")
+            sample_id = ids[0]
+        rows = line_table[line_table["sample_id"].astype(str) == str(sample_id)]
+        if rows.empty:
+            raise InputError(f"sample {sample_id!r} not in the line table", where=where,
+                             fix=f"choose one of {', '.join(ids[:10])}")
+    else:
+        rows = line_table
+        sample_id = "sample" if sample_id is None else sample_id
+    return str(sample_id), rows
+
+
+class _Analysis:
+    """State of one analysis; methods are the steps."""
+
+    def __init__(self, rows, sample_id, settings, atomic, acquisition, instrument, one_point, where):
+        self.s = settings
+        self.atomic = atomic
+        self.where = where
+        self.sample_id = sample_id
+        self.warnings: list[str] = []
+        self.flags: list[str] = []
+        self.L, self.excluded, self.h_alpha = prepare_lines(rows, atomic, settings, where)
+        self.acq = acquisition or {}
+        self.w_instr_fn = _instrument_width(settings, instrument or {}, self._warn)
+        self.w_instr = self.w_instr_fn(self.L.wl)  # per line
+        self.one_point = one_point
+        self._apply_one_point()
+        L = self.L
+        rel = np.where(L.intensity > 0, L.u_intensity / L.intensity, 0.0)
+        self.u_y = np.sqrt(rel**2 + L.u_ln_a**2 + 0.0)
+        self.u_y = np.maximum(self.u_y, settings.u_rel_floor)
+        self.w = 1.0 / self.u_y**2
+        self.model = Model(L, atomic, settings)
+        self.mass_line = np.array([atomic.mass_u(e) for e in L.element])
+        self.sa = np.ones(L.n)
+        self.sa_info: dict = {"method": settings.self_absorption}
+
+    def _warn(self, msg):
+        self.warnings.append(msg)
+        warnings.warn(f"{self.where}: {msg}", CFWarning, stacklevel=3)
+
+    # -- one-point calibration ---------------------------------------------------------
+    def _apply_one_point(self):
+        self.ln_zeta = np.zeros(self.L.n)
+        self.no_factor = set()
+        if self.one_point is None:
+            return
+        f = self.one_point.factors
+        for i, lid in enumerate(self.L.line_id):
+            if lid in f:
+                self.ln_zeta[i] = math.log(f[lid])
+            else:
+                self.no_factor.add(self.L.element[i])
+        if self.no_factor:
+            self._warn("one-point factors missing for lines of " + ", ".join(sorted(self.no_factor)))
+
+    # -- nₑ ------------------------------------------------------------------------------
+    def ne_candidates(self, T, sa=None):
+        """All width/fixed estimators available (name → estimator)."""
+        out = {}
+        if self.h_alpha is not None:
+            h = HAlphaNe(self.h_alpha, float(self.w_instr_fn(self.h_alpha["wavelength_nm"])), self.s)
+            if h.usable(T):
+                out["h_alpha"] = h
+            else:
+                self._warn("H-alpha width not above instrumental + Doppler width: not used for nₑ")
+        ok = StarkLinesNe.eligible(self.L, self.w_instr, T, self.mass_line)
+        if sa is not None and np.any(ok & (sa >= self.s.sa_flag_below)):
+            ok &= sa >= self.s.sa_flag_below  # prefer lines that are nearly thin
+        if np.any(ok):
+            out["stark"] = StarkLinesNe(self.L, self.mass_line, self.w_instr, self.s, sa=sa,
+                                        idx=np.flatnonzero(ok))
+        if self.s.ne_fixed_cm3 is not None:
+            out["fixed"] = FixedNe(self.s.ne_fixed_cm3, self.s.ne_fixed_u_rel)
+        return out
+
+    def choose_ne(self, cands):
+        m = self.s.ne_method
+        if m == "auto":
+            for k in ("h_alpha", "stark"):
+                if k in cands:
+                    return k, cands[k]
+            return "saha", None
+        if m == "saha":
+            return "saha", None
+        if m not in cands:
+            raise PhysicsError(f"electron density method {m!r} has no usable data", where=self.where,
+                               fix="use ne_method = 'auto' or measure the needed line widths")
+        return m, cands[m]
+
+    # -- central solve -----------------------------------------------------------------
+    def solve_central(self, sa, ne_name, ne_est, T0=None) -> Solution:
+        ln_i = np.log(self.L.intensity) - np.log(sa) - self.ln_zeta
+        T0 = getattr(self, "_T_warm", None) if T0 is None else T0
+        sol = self.model.solve(ln_i[None, :], 0.0, self.w, ne_est, strict=True,
+                               T0=None if T0 is None else np.array([T0]))
+        self._T_warm = float(sol.T[0])
+        return sol
+
+    def absolute_species(self, sol: Solution, j: int = 0):
+        """Absolute number density (cm⁻³) per species from nₑ and charge neutrality."""
+        sp = sol.ln_n_species
+        names = list(sp)
+        lns = np.array([sp[k][j] for k in names])
+        z = np.array([int(len(k.split()[1]) if k.split()[1] != "IV" else 4) - 1 for k in names])
+        charged = z > 0
+        ln_e = np.logaddexp.reduce(lns[charged] + np.log(z[charged]))
+        lnK = math.log(sol.ne[j]) - ln_e
+        return {k: math.exp(v + lnK) for k, v in zip(names, lns)}
+
+    def lorentz_thin(self, T, ne, sa):
+        """Thin-line Stark FWHM per line: from Stark parameters, else from the measured width."""
+        L = self.L
+        wl = np.zeros(L.n)
+        have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
+        t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
+        wl[have] = stark_width_linear(ne, L.stark_w[have], L.stark_ne[have], T, t_ref[have],
+                                      self.s.stark_t_exponent)
+        meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0)
+        if np.any(meas):
+            wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
+            wl[meas] = lorentz_from_voigt(L.fwhm[meas] * sa[meas] ** (-EL_SHERBINI_ALPHA), wg)
+        return wl
+
+    def sa_cog(self, sol: Solution, length_cm: float, sa_prev):
+        """Curve-of-growth SA of every line for a slab of length ``length_cm``."""
+        L = self.L
+        T = float(sol.T[0])
+        ne = float(sol.ne[0])
+        nabs = self.absolute_species(sol)
+        n_sp = np.array([nabs[s] for s in L.species])
+        u_sp = np.array([float(self.model.atomic.partition_function(s, np.array([T]))[0]) for s in L.species])
+        wg = doppler_fwhm_nm(L.wl, T, self.mass_line)
+        wlz = self.lorentz_thin(T, ne, sa_prev)
+        tau = tau0_slab(L.wl, L.gA, L.ei, T, n_sp, u_sp, length_cm, wg, wlz)
+        return sa_factor(tau, wg, wlz), tau
+
+    def drop_lines(self, mask, reason: str):
+        """Remove lines (e.g. too optically thick to correct) and rebuild the model."""
+        keep = ~np.asarray(mask)
+        for lid in self.L.line_id[~keep]:
+            self.excluded.append({"line_id": str(lid), "reason": reason})
+        if not np.any(keep):
+            raise DataQualityError("no line left after removing " + reason, where=self.where,
+                                   fix="use weaker lines or a shorter plasma length")
+        gone = set(self.L.element) - set(self.L.element[keep])
+        self.L = self.L.subset(keep)
+        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa"):
+            setattr(self, name, getattr(self, name)[keep])
+        self.model = Model(self.L, self.atomic, self.s)
+        for e in sorted(gone):
+            self._warn(f"element {e}: no line left after removing lines ({reason})")
+
+    def iterate_cog(self, length_cm, ne_pick, max_iter=60, tol=1e-6, allow_drop=False):
+        """Fixed point SA → (T, nₑ, composition) → τ₀ → SA for a slab of length ``length_cm``.
+
+        With ``allow_drop``, lines whose converged SA is below ``[cf] sa_min_factor`` are
+        removed (their correction would be unreliable) and the iteration restarts.
+        """
+        while True:
+            sa = np.ones(self.L.n)
+            tau = np.zeros(self.L.n)
+            for _ in range(max_iter if length_cm > 0 else 0):
+                ne_name, ne_est = ne_pick(sa)
+                sol = self.solve_central(sa, ne_name, ne_est)
+                raw, tau = self.sa_cog(sol, length_cm, sa)
+                new = np.maximum(raw, self.s.sa_min_factor)
+                step = np.max(np.abs(np.log(new) - np.log(sa)))
+                sa = np.exp(0.5 * np.log(sa) + 0.5 * np.log(new))  # damped fixed point
+                if step < tol:
+                    break
+            thick = raw < self.s.sa_min_factor if length_cm > 0 else np.zeros(self.L.n, bool)
+            if allow_drop and np.any(thick) and self.L.n > 1:
+                # remove the thickest line only, then re-solve: the others may look thinner once
+                # the worst line no longer biases T and the composition
+                worst = np.zeros(self.L.n, bool)
+                worst[int(np.argmin(raw))] = True
+                self.sa = np.ones(self.L.n)
+                self.drop_lines(worst, f"too optically thick (SA < {self.s.sa_min_factor})")
+                continue
+            break
+        ne_name, ne_est = ne_pick(sa)
+        sol = self.solve_central(sa, ne_name, ne_est)
+        return sa, sol, tau, ne_name, ne_est
+
+    def run(self, mc_draws, seed) -> CFResult:
+        s = self.s
+
+        def ne_pick(sa):
+            T_guess = self._T_guess
+            cands = self.ne_candidates(T_guess, sa=sa if s.self_absorption != "none" else None)
+            return self.choose_ne(cands)
+
+        self._T_guess = s.t_start_k
+        # first pass without self-absorption correction
+        ne_name, ne_est = ne_pick(None)
+        sol = self.solve_central(self.sa, ne_name, ne_est)
+        for _ in range(3):  # T-dependence of the width estimators (Doppler part) is weak
+            self._T_guess = float(sol.T[0])
+            ne_name, ne_est = ne_pick(None)
+            sol = self.solve_central(self.sa, ne_name, ne_est)
+        tau = None
+        length_cm = None
+        mode = s.self_absorption
+        if mode == "curve_of_growth":
+            length_cm = s.plasma_length_mm / 10.0
+            self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
+            self.sa_info.update(plasma_length_mm=s.plasma_length_mm, fitted=False)
+        elif mode in ("columnar", "detect"):
+            length_cm, chi_thin, chi_best = self.fit_length(ne_pick, coarse=mode == "detect")
+            self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
+                                chi2_thin=chi_thin, chi2_fitted=chi_best)
+            if mode == "columnar":
+                self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
+            else:
+                sa_d, sol_d, tau, *_ = self.iterate_cog(length_cm, ne_pick, max_iter=15, tol=1e-3)
+                self.sa_detect_cog = sa_d
+        elif mode == "reference_line":
+            self.sa, sol, ne_name, ne_est = self.reference_line(sol, ne_pick)
+        self._T_guess = float(sol.T[0])
+        self.sol = sol
+        self.ne_name, self.ne_est = ne_name, ne_est
+        self.tau = tau
+        return self.build(mc_draws, seed)
+
+    def fit_length(self, ne_pick, coarse: bool = False):
+        """Columnar density fit: plasma length L minimising the fit's χ² (Cristoforetti &
+        Tognoni 2013 use the columnar density n·L as the free parameter; with nₑ and the
+        closure fixing the densities, fitting L is the same)."""
+        def chi2_of(ln_l):
+            try:
+                sa, sol, *_ = self.iterate_cog(math.exp(ln_l), ne_pick, max_iter=15 if coarse else 40,
+                                               tol=1e-3 if coarse else 1e-6)
+            except PhysicsError:
+                return 1e300
+            return float(sol.fit.chi2[0])
+
+        lo, hi = math.log(1e-5), math.log(10.0)
+        res = minimize_scalar(chi2_of, bounds=(lo, hi), method="bounded",
+                              options={"xatol": 0.15 if coarse else 0.02, "maxiter": 15 if coarse else 40})
+        chi_thin = float(self.solve_central(np.ones(self.L.n), *ne_pick(None)).fit.chi2[0])
+        best = float(res.fun)
+        if best >= chi_thin * (1 - 1e-9):
+            return 0.0, chi_thin, chi_thin  # no sign of self-absorption: thin
+        return math.exp(res.x), chi_thin, best
+
+    def reference_line(self, sol, ne_pick):
+        """Internal reference line method (Sun & Yu 2009, Talanta 79, 388)."""
+        L = self.L
+        sa = np.ones(L.n)
+        refs = {}
+        for _ in range(30):
+            T = float(sol.T[0])
+            proxy = L.wl**3 * L.gA * np.exp(-L.ei / (K_B_EV * T))
+            new = np.ones(L.n)
+            for sp in sorted(set(L.species)):
+                idx = np.flatnonzero(L.species == sp)
+                if len(idx) < 2:
+                    continue
+                r = idx[np.argmin(proxy[idx])]
+                refs[sp] = str(L.line_id[r])
+                new[idx] = sa_reference_line(L.intensity[idx] / np.exp(self.ln_zeta[idx]), L.wl[idx],
+                                             L.gA[idx], L.ek[idx], int(np.flatnonzero(idx == r)[0]), T)
+            new = np.clip(new, self.s.sa_min_factor, 1.0)
+            # T from the reference lines (one per species, nearly thin) and single-line species
+            is_ref = np.isin(L.line_id, list(refs.values())) | ~np.isin(L.species, list(refs))
+            ne_name, ne_est = ne_pick(new)
+            try:
+                sub = Model(L.subset(is_ref), self.atomic, self.s)
+                ln_i = (np.log(L.intensity) - self.ln_zeta)[is_ref]
+                sol_ref = sub.solve(ln_i[None], 0.0, self.w[is_ref], ne_est, strict=True)
+                T_ref = sol_ref.T
+            except PhysicsError:
+                T_ref = sol.T
+            step = np.max(np.abs(np.log(new) - np.log(sa)))
+            sa = new
+            sol = self.solve_central(sa, ne_name, ne_est)
+            sol.T[:] = T_ref
+            if step < 1e-6:
+                break
+        self.sa_info.update(reference_lines=refs)
+        ne_name, ne_est = ne_pick(sa)
+        return sa, self.solve_central(sa, ne_name, ne_est), ne_name, ne_est
+
+    # -- detection -----------------------------------------------------------------------
+    def detection(self, sol):
+        """Per-line SA estimates that do not change the result (docs: detection)."""
+        L = self.L
+        T = float(sol.T[0])
+        ne = float(sol.ne[0])
+        out = {"sa_ratio": np.full(L.n, np.nan), "sa_width": np.full(L.n, np.nan),
+               "sa_cog": np.full(L.n, np.nan), "ref_line": [""] * L.n}
+        corrected_i = L.intensity / self.sa / np.exp(self.ln_zeta)
+        proxy = L.wl**3 * L.gA * np.exp(-L.ei / (K_B_EV * T))
+        for sp in sorted(set(L.species)):
+            idx = np.flatnonzero(L.species == sp)
+            if len(idx) < 2:
+                continue
+            r = int(np.argmin(proxy[idx]))
+            out["sa_ratio"][idx] = sa_reference_line(corrected_i[idx], L.wl[idx], L.gA[idx], L.ek[idx], r, T)
+            for i in idx:
+                out["ref_line"][i] = str(L.line_id[idx[r]])
+        have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.fwhm) & (L.fwhm > 0)
+        if np.any(have) and self.ne_name not in ("stark",):
+            t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
+            w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent)
+            wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(L.wl, T, self.mass_line) ** 2)
+            with np.errstate(invalid="ignore"):
+                w_obs_l = lorentz_from_voigt(L.fwhm, wg)
+                est = sa_from_width(np.maximum(w_obs_l, 1e-12), w_thin_l)
+            out["sa_width"] = np.where(have & (w_obs_l > 0), est, np.nan)
+        cog = getattr(self, "sa_detect_cog", None)
+        if self.s.self_absorption in ("curve_of_growth", "columnar"):
+            cog = self.sa
+        if cog is not None:
+            out["sa_cog"] = cog
+        return out
+
+    # -- Monte Carlo -------------------------------------------------------------------
+    def monte_carlo(self, n, seed):
+        L = self.L
+        rng = np.random.default_rng(seed)
+        eps = rng.standard_normal((n, L.n))
+        I_d = L.intensity[None, :] + L.u_intensity[None, :] * eps
+        I_d = np.maximum(I_d, 1e-3 * L.intensity[None, :])
+        dln_a = L.u_ln_a[None, :] * rng.standard_normal((n, L.n))
+        birge = float(self.sol.fit.birge[0]) if self.sol.fit.dof > 0 else float("nan")
+        extra = 0.0
+        if self.s.scale_by_chi2 and np.isfinite(birge) and birge > 1:
+            # scatter beyond the stated u: spread it over the lines as extra ordinate noise
+            extra = math.sqrt(birge - 1.0)
+        ln_i = np.log(I_d) - np.log(self.sa)[None, :] - self.ln_zeta[None, :]
+        if extra:
+            ln_i = ln_i + extra * self.u_y[None, :] * rng.standard_normal((n, L.n))
+        ne_f = None if self.ne_est is None else self.ne_est.sampler(rng, n)
+        sol = self.model.solve(ln_i, dln_a, self.w[None, :], ne_f,
+                               T0=np.full(n, float(self.sol.T[0])), strict=False)
+        return sol
+
+    # -- result --------------------------------------------------------------------------
+    def build(self, mc_draws, seed) -> CFResult:
+        s, L, sol = self.s, self.L, self.sol
+        T = float(sol.T[0])
+        ne = float(sol.ne[0])
+        k_b = K_B_EV
+        u_T_fit = float(sol.u_slope[0] / (k_b * sol.slope[0] ** 2))
+        if sol.ne_from_fit:
+            u_ln_ne_c = float(sol.u_ln_ne_fit[0])
+        else:
+            u_ln_ne_c = float(self.ne_est.u_ln(np.array([T])))
+        mc = {"draws": int(mc_draws), "seed": int(seed)}
+        u_w = np.full(len(sol.elements), np.nan)
+        u_x = np.full(len(sol.elements), np.nan)
+        u_T, u_ne = u_T_fit, ne * u_ln_ne_c
+        mc_ok = mc_draws >= 10
+        fixed_el = next(iter(s.fixed), None)
+        if mc_ok:
+            msol = self.monte_carlo(mc_draws, seed)
+            v = msol.valid
+            mc["valid"] = int(v.sum())
+            if v.sum() < 0.95 * mc_draws:
+                self.flags.append("mc_draws_invalid")
+                self._warn(f"{mc_draws - int(v.sum())} of {mc_draws} Monte Carlo draws gave no "
+                           "physical solution")
+            if v.sum() >= 10:
+                wm = self._apply_fixed(msol.mass_fraction[v], sol.elements)[0]
+                u_T = float(np.std(msol.T[v], ddof=1))
+                u_ne = float(np.std(msol.ne[v], ddof=1))
+                u_w = np.std(wm, axis=0, ddof=1)
+                u_x = np.std(msol.number_fraction[v], axis=0, ddof=1)
+                mc.update(
+                    T_sd_k=u_T, ne_sd_cm3=u_ne,
+                    T_interval_95=[float(x) for x in np.percentile(msol.T[v], [2.5, 97.5])],
+                    ne_interval_95=[float(x) for x in np.percentile(msol.ne[v], [2.5, 97.5])],
+                    mass_fraction_interval_95={e: [float(a), float(b)] for e, a, b in zip(
+                        sol.elements, *np.percentile(wm, [2.5, 97.5], axis=0))},
+                )
+            else:
+                mc_ok = False
+        if not mc_ok:
+            mc["note"] = "no Monte Carlo: u from the fit covariance for T and nₑ only"
+            self.flags.append("no_concentration_uncertainty")
+        wfrac, closure_sum = self._apply_fixed(sol.mass_fraction, sol.elements)
+        wfrac = wfrac[0]
+        # LTE
+        dE = float(np.max(L.ek - L.ei))
+        lte = check_lte(T, ne, dE, gate_delay_s=_gate_delay_s(self.acq),
+                        lightest_mass_u=float(np.min(self.model.masses)),
+                        gradient_length_mm=s.gradient_length_mm, f=s.lte_f, gaunt=s.lte_gaunt,
+                        transient_ratio=s.lte_transient_ratio, diffusion_ratio=s.lte_diffusion_ratio)
+        self.flags.extend(lte.flags)
+        # fit quality
+        fit = sol.fit
+        chi2, dof = float(fit.chi2[0]), fit.dof
+        p = float(stats.chi2.sf(chi2, dof)) if dof > 0 else float("nan")
+        if dof > 0 and p < 1e-3:
+            self.flags.append("cf_fit_poor")
+        det = self.detection(sol)
+        lines = self._line_rows(sol, det)
+        sa_flag_lines = {r["line_id"] for r in lines if "self_absorbed" in r["flags"]}
+        # per-element
+        elements = []
+        for j, e in enumerate(sol.elements):
+            idx = np.flatnonzero(L.element == e)
+            fl = []
+            if len(idx) == 1:
+                fl.append("single_line")
+            if any(L.line_id[i] in sa_flag_lines for i in idx):
+                fl.append("self_absorption_corrected" if s.self_absorption in
+                          ("curve_of_growth", "columnar", "reference_line") else "self_absorbed")
+            if e in self.no_factor:
+                fl.append("no_one_point_factor")
+            if e == fixed_el:
+                fl.append("fixed_content")
+            elements.append(ElementResult(
+                element=e, mass_fraction=float(wfrac[j]), u=float(u_w[j]) if e != fixed_el else 0.0,
+                number_fraction=float(sol.number_fraction[0, j]), u_number_fraction=float(u_x[j]),
+                n_lines=int(len(idx)), lines=[str(x) for x in L.line_id[idx]], flags=fl,
+                fixed=e == fixed_el))
+        requested = (s.elements or []) + ([fixed_el] if fixed_el else [])
+        for e in dict.fromkeys(requested):
+            if e in sol.elements or e in s.exclude_elements:
+                continue
+            if e == fixed_el:
+                elements.append(ElementResult(e, float(s.fixed[e]), 0.0, float("nan"), float("nan"),
+                                              0, [], ["fixed_content"], True))
+                continue
+            if s.missing == "error":
+                raise DataQualityError(f"element {e} has no usable lines", where=self.where,
+                                       fix="add lines for it, or set [cf] missing = 'omit'")
+            self._warn(f"element {e} has no usable lines: left out of the closure")
+            elements.append(ElementResult(e, float("nan"), float("nan"), float("nan"), float("nan"),
+                                          0, [], ["no_usable_lines"], False))
+        if fixed_el:
+            self.sa_info.setdefault("note", "")
+        ne_estimates = self._ne_estimates(T)
+        species_rows = self._species_rows(sol)
+        return CFResult(
+            sample_id=self.sample_id, temperature_k=T, u_temperature_k=float(u_T),
+            electron_density_cm3=ne, u_electron_density_cm3=float(u_ne),
+            ne_method={"saha": "saha_balance", "h_alpha": "h_alpha_stark_width",
+                       "stark": "stark_widths", "fixed": "fixed"}[self.ne_name],
+            fit_mode=s.fit, elements=elements, ne_estimates=ne_estimates, lte=lte.to_dict(),
+            species=species_rows, lines=lines, excluded_lines=list(self.excluded),
+            self_absorption=dict(self.sa_info),
+            fit={"mode": s.fit, "slope_per_ev": float(sol.slope[0]), "u_slope_per_ev": float(sol.u_slope[0]),
+                 "u_temperature_fit_k": u_T_fit, "chi2": chi2, "dof": dof, "p_value": p,
+                 "birge_ratio": float(fit.birge[0]) if dof > 0 else None,
+                 "groups": [str(g) for g in sol.groups],
+                 "intercepts": [float(x) for x in fit.beta[0, 1:1 + len(sol.groups)]],
+                 "iterations": sol.iterations, "closure_sum": float(closure_sum[0])},
+            monte_carlo=mc,
+            one_point=None if self.one_point is None else self.one_point.summary(),
+            flags=list(dict.fromkeys(self.flags)), warnings=list(self.warnings),
+            settings=s.to_dict(),
+        )
+
+    def _apply_fixed(self, wfrac, elements):
+        """Fixed content of one element: scale (element measured) or close to 1 − w_fixed."""
+        wfrac = np.atleast_2d(wfrac)
+        if not self.s.fixed:
+            return wfrac, wfrac.sum(axis=1)
+        el, val = next(iter(self.s.fixed.items()))
+        if el in elements:
+            j = elements.index(el)
+            out = wfrac * (val / wfrac[:, j:j + 1])
+        else:
+            out = wfrac * (1.0 - val)
+        total = out.sum(axis=1) + (0.0 if el in elements else val)
+        return out, total
+
+    def _line_rows(self, sol, det):
+        L = self.L
+        X, y = sol.X, sol.y[0]
+        yfit = X @ sol.fit.beta[0]
+        rows = []
+        for i in range(L.n):
+            fl = []
+            sa_est = [v for v in (det["sa_cog"][i], det["sa_ratio"][i], det["sa_width"][i]) if np.isfinite(v)]
+            if self.sa[i] < self.s.sa_flag_below or (sa_est and min(sa_est) < self.s.sa_flag_below
+                                                     and self.s.self_absorption in ("detect", "none")):
+                fl.append("self_absorbed")
+            if self.sa[i] <= self.s.sa_min_factor + 1e-12:
+                fl.append("sa_correction_capped")
+            rows.append({
+                "line_id": str(L.line_id[i]), "species": str(L.species[i]), "element": str(L.element[i]),
+                "ion": int(L.ion[i]), "wavelength_nm": float(L.wl[i]), "intensity": float(L.intensity[i]),
+                "u_intensity": float(L.u_intensity[i]), "gk_aki": float(L.gA[i]), "ek_ev": float(L.ek[i]),
+                "ei_ev": float(L.ei[i]), "u_ordinate": float(self.u_y[i]),
+                "ordinate": float(np.log(L.intensity[i] * L.wl[i] / L.gA[i])),
+                "x_ev": float(X[i, 0]), "y": float(y[i]), "y_fit": float(yfit[i]),
+                "residual": float(y[i] - yfit[i]),
+                "sa_factor": float(self.sa[i]), "correction_factor": float(1.0 / self.sa[i]),
+                "one_point_factor": float(math.exp(self.ln_zeta[i])),
+                "tau0": None if self.tau is None else float(self.tau[i]),
+                "sa_cog": float(det["sa_cog"][i]), "sa_ratio": float(det["sa_ratio"][i]),
+                "sa_width": float(det["sa_width"][i]), "reference_line": det["ref_line"][i],
+                "flags": fl,
+            })
+        return rows
+
+    def _ne_estimates(self, T):
+        out = []
+        cands = self.ne_candidates(T, sa=self.sa if self.s.self_absorption != "none" else None)
+        for name, est in cands.items():
+            if name == "fixed" and self.s.ne_method != "fixed":
+                continue
+            v = float(np.ravel(est(np.array([T])))[0])
+            out.append({"method": name, "ne_cm3": v, "u_ne_cm3": v * est.u_ln(np.array([T])),
+                        "lines": list(est.lines), "used": name == self.ne_name})
+            if name == "stark":
+                each, u_each = est.each(T)
+                out[-1]["per_line"] = [{"line_id": str(a), "ne_cm3": float(b), "u_ne_cm3": float(b * c)}
+                                       for a, b, c in zip(est.ids, each, u_each)]
+        if self.model.both_stage_elements:
+            try:
+                ln_i = np.log(self.L.intensity) - np.log(self.sa) - self.ln_zeta
+                sb = self.model.solve(ln_i[None], 0.0, self.w, None, T0=np.array([T]), strict=True)
+                out.append({"method": "saha", "ne_cm3": float(sb.ne[0]),
+                            "u_ne_cm3": float(sb.ne[0] * sb.u_ln_ne_fit[0]),
+                            "lines": [str(x) for x in self.L.line_id[np.isin(self.L.element,
+                                                                         self.model.both_stage_elements)]],
+                            "used": self.ne_name == "saha", "temperature_k": float(sb.T[0])})
+            except PhysicsError as exc:
+                out.append({"method": "saha", "ne_cm3": None, "u_ne_cm3": None, "lines": [],
+                            "used": False, "note": exc.what})
+        return out
+
+    def _species_rows(self, sol):
+        """Per-species Boltzmann plots (own slope) as a diagnostic beside the joint fit."""
+        L = self.L
+        ln_i = np.log(L.intensity) - np.log(self.sa) - self.ln_zeta
+        y = ln_i + np.log(L.wl) - np.log(L.gA)
+        rows = []
+        for sp in sorted(set(L.species)):
+            idx = np.flatnonzero(L.species == sp)
+            row = {"species": sp, "element": sp.split()[0], "n_lines": int(len(idx)),
+                   "lines": [str(x) for x in L.line_id[idx]],
+                   "e_k_range_ev": [float(L.ek[idx].min()), float(L.ek[idx].max())],
+                   "temperature_k": None, "u_temperature_k": None}
+            if len(idx) >= 2 and np.ptp(L.ek[idx]) > 0.05:
+                X = np.column_stack([L.ek[idx], np.ones(len(idx))])
+                f = wls_batch(X, y[idx], self.w[idx], scale_by_chi2=self.s.scale_by_chi2)
+                m, um = float(f.beta[0, 0]), float(np.sqrt(f.cov[0, 0, 0]))
+                if m < 0:
+                    row["temperature_k"] = -1.0 / (K_B_EV * m)
+                    row["u_temperature_k"] = um / (K_B_EV * m**2)
+                row["slope_per_ev"], row["intercept"] = m, float(f.beta[0, 1])
+            rows.append(row)
+        return rows
+
+
+def analyse_cf(
+    line_table: pd.DataFrame,
+    *,
+    sample_id: str | None = None,
+    settings: CFSettings | dict | None = None,
+    atomic=None,
+    acquisition: dict | None = None,
+    instrument: dict | None = None,
+    one_point=None,
+    mc_draws: int | None = None,
+    seed: int | None = None,
+    where: str | None = None,
+) -> CFResult:
+    """Calibration-free composition of one sample.
+
+    Parameters
+    ----------
+    line_table : the line table of a run (docs/architecture.md); rows of other samples are
+        ignored.  Atomic columns (``aki``, ``gk``, ``ek_ev``, ``ei_ev``, ``aki_grade``,
+        Stark parameters) are taken from the table if present, else joined from the line
+        list by ``line_id``.
+    sample_id : which sample (needed when the table holds several).
+    settings : :class:`CFSettings` or the ``[cf]`` dict of a method file.
+    atomic : atomic-data provider (default: the shipped tables, compquant.atomic).
+    acquisition, instrument : the run's attribute dicts (gate delay for the transient LTE
+        check; instrumental FWHM for width-based nₑ).
+    one_point : a :class:`~compquant.cflibs.onepoint.OnePointCalibration` to apply.
+    mc_draws, seed : override the settings' Monte Carlo draws and seed.
+    """
+    s = CFSettings.from_section(settings) if not isinstance(settings, CFSettings) else settings
+    sid, rows = _select_sample(line_table, sample_id, where or "line table")
+    where = where or f"sample {sid}"
+    atomic = atomic if atomic is not None else default_atomic_data()
+    a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where)
+    return a.run(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
+
+
+def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unknown", "check"),
+                       **kwargs) -> tuple[list[CFResult], dict[str, str]]:
+    """Run :func:`analyse_cf` for several samples; returns ``(results, failures)``.
+
+    ``failures`` maps sample id → one-line reason for samples with no valid solution
+    (a :class:`~compquant.errors.CompquantError`), so one bad sample does not stop a run.
+    """
+    from compquant.errors import CompquantError
+
+    if sample_ids is None:
+        t = line_table
+        if roles is not None and "role" in t.columns:
+            t = t[t["role"].isin(roles)]
+        sample_ids = list(dict.fromkeys(t["sample_id"].astype(str)))
+    results, failures = [], {}
+    for sid in sample_ids:
+        try:
+            results.append(analyse_cf(line_table, sample_id=sid, **kwargs))
+        except CompquantError as exc:
+            failures[sid] = exc.one_line()
+    return results, failures
+
+
+__all__ = ["CFWarning", "analyse_cf", "analyse_cf_samples", "species_name", "LineSet"]

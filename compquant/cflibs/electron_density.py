@@ -1,0 +1,175 @@
+"""Electron-density estimators used by :func:`compquant.cflibs.analyse_cf`.
+
+Each estimator returns nₑ(T) for the central solution and, for the Monte Carlo, a sampler
+that perturbs its inputs (measured widths by their relative uncertainty, Stark parameters
+and the H-alpha relation by their stated accuracy).  Relations: see
+:mod:`compquant.cflibs.density`.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from compquant.cflibs.density import (
+    doppler_fwhm_nm,
+    lorentz_from_voigt,
+    ne_h_alpha,
+    ne_stark_linear,
+)
+from compquant.cflibs.selfabs import EL_SHERBINI_ALPHA
+
+H_MASS_U = 1.00794  # from memory of IUPAC standard atomic weights (H), verify
+
+
+def _dlog(f, x, h=1e-4):
+    """d ln f / d ln x by central differences."""
+    return (np.log(f(x * math.exp(h))) - np.log(f(x * math.exp(-h)))) / (2 * h)
+
+
+class HAlphaNe:
+    """nₑ from the H-alpha Stark FWHM (Gigosos, González & Cardeñoso 2003)."""
+
+    name = "h_alpha"
+
+    def __init__(self, h_alpha: dict, w_instr_nm: float, settings):
+        self.line_id = h_alpha["line_id"]
+        self.fwhm = float(h_alpha["fwhm_nm"])
+        self.wl = float(h_alpha.get("wavelength_nm", 656.28))
+        u = h_alpha.get("u_fwhm_nm", np.nan)
+        self.u_rel_w = float(u / self.fwhm) if np.isfinite(u) and u > 0 else settings.u_rel_fwhm
+        self.u_rel_rel = settings.h_alpha_relation_u_rel
+        self.w_instr = w_instr_nm
+        self.lines = [self.line_id]
+
+    def w_gauss(self, T):
+        return np.sqrt(self.w_instr**2 + doppler_fwhm_nm(self.wl, T, H_MASS_U) ** 2)
+
+    def usable(self, T) -> bool:
+        return bool(np.all(lorentz_from_voigt(self.fwhm, self.w_gauss(T)) > 0))
+
+    def __call__(self, T):
+        return ne_h_alpha(lorentz_from_voigt(self.fwhm, self.w_gauss(T)))
+
+    def u_ln(self, T) -> float:
+        T = float(np.ravel(T)[0])
+        g = _dlog(lambda w: ne_h_alpha(lorentz_from_voigt(w, self.w_gauss(T))), self.fwhm)
+        return float(math.hypot(g * self.u_rel_w, self.u_rel_rel))
+
+    def sampler(self, rng, d):
+        e1, e2 = rng.standard_normal(d), rng.standard_normal(d)
+        fw = self.fwhm * np.exp(self.u_rel_w * e1)
+        fac = np.exp(self.u_rel_rel * e2)
+
+        def f(T):
+            wl = lorentz_from_voigt(fw, self.w_gauss(T))
+            return ne_h_alpha(np.maximum(wl, 1e-6 * self.fwhm)) * fac
+        return f
+
+
+class StarkLinesNe:
+    """nₑ from Stark widths of lines with tabulated parameters (weighted mean in ln nₑ)."""
+
+    name = "stark"
+
+    def __init__(self, lines, mass_u: np.ndarray, w_instr_nm: float, settings, sa=None, idx=None):
+        self.idx = np.asarray(idx)
+        L = lines
+        self.ids = L.line_id[self.idx]
+        self.lines = list(self.ids)
+        self.wl = L.wl[self.idx]
+        self.mass = np.asarray(mass_u)[self.idx]
+        fw = L.fwhm[self.idx]
+        if sa is not None:  # El Sherbini et al. 2005: Δλ_thin = Δλ_obs · SA^{−α}, α = −0.54
+            fw = fw * np.asarray(sa)[self.idx] ** (-EL_SHERBINI_ALPHA)
+        self.fwhm = fw
+        self.w_instr = np.broadcast_to(np.asarray(w_instr_nm, float), L.wl.shape)[self.idx]
+        self.w_ref = L.stark_w[self.idx]
+        self.ne_ref = L.stark_ne[self.idx]
+        self.t_ref = L.stark_t[self.idx]
+        self.alpha = settings.stark_t_exponent
+        self.u_w = settings.u_rel_fwhm
+        self.u_par = settings.stark_param_u_rel
+
+    @staticmethod
+    def eligible(lines, w_instr_nm, T, mass_u) -> np.ndarray:
+        L = lines
+        ok = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
+        ok &= np.isfinite(L.fwhm) & (L.fwhm > 0)
+        wg = np.sqrt(w_instr_nm**2 + doppler_fwhm_nm(L.wl, T, mass_u) ** 2)
+        with np.errstate(invalid="ignore"):
+            ok &= lorentz_from_voigt(np.where(np.isfinite(L.fwhm), L.fwhm, 0.0), wg) > 0
+        return ok
+
+    def _each(self, T, fwhm, wref):
+        T = np.atleast_1d(np.asarray(T, dtype=float))
+        wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(self.wl[None, :], T[:, None], self.mass[None, :]) ** 2)
+        wl = np.maximum(lorentz_from_voigt(fwhm, wg), 1e-9)
+        t_ref = np.where(np.isfinite(self.t_ref), self.t_ref, T[:, None])
+        return ne_stark_linear(wl, wref, self.ne_ref, T[:, None], t_ref, self.alpha)
+
+    def _u_each(self, T):
+        T = float(np.ravel(T)[0])
+        g = np.array([
+            _dlog(lambda w, j=j: self._each(np.array([T]), self._rep(j, w), self.w_ref)[0, j],
+                  self.fwhm[j]) for j in range(len(self.fwhm))])
+        return np.sqrt((g * self.u_w) ** 2 + self.u_par**2)
+
+    def _rep(self, j, w):
+        f = self.fwhm.copy()
+        f[j] = w
+        return f
+
+    def each(self, T) -> tuple[np.ndarray, np.ndarray]:
+        """Per-line nₑ and u(ln nₑ) at temperature T (scalar)."""
+        return self._each(np.array([float(np.ravel(T)[0])]), self.fwhm, self.w_ref)[0], self._u_each(T)
+
+    def __call__(self, T):
+        T = np.atleast_1d(np.asarray(T, dtype=float))
+        ne = self._each(T, self.fwhm[None, :], self.w_ref[None, :])
+        u = self._u_each(T[:1])
+        wts = 1.0 / u**2
+        return np.exp(np.sum(np.log(ne) * wts, axis=1) / np.sum(wts))
+
+    def u_ln(self, T) -> float:
+        u = self._u_each(T)
+        # Stark parameters of different lines come from different measurements: treated as
+        # independent; the combined u is that of a weighted mean, not below the best line
+        return float(math.sqrt(1.0 / np.sum(1.0 / u**2)))
+
+    def sampler(self, rng, d):
+        n = len(self.fwhm)
+        fw = self.fwhm[None, :] * np.exp(self.u_w * rng.standard_normal((d, n)))
+        wr = self.w_ref[None, :] * np.exp(self.u_par * rng.standard_normal((d, n)))
+        u = self._u_each(np.array([10000.0]))
+        wts = 1.0 / u**2
+
+        def f(T):
+            ne = self._each(T, fw, wr)
+            return np.exp(np.sum(np.log(ne) * wts, axis=1) / np.sum(wts))
+        return f
+
+
+class FixedNe:
+    """nₑ given in the method ([cf] ne_fixed_cm3, relative u ne_fixed_u_rel)."""
+
+    name = "fixed"
+
+    def __init__(self, ne: float, u_rel: float):
+        self.ne = float(ne)
+        self.u_rel = float(u_rel)
+        self.lines: list[str] = []
+
+    def __call__(self, T):
+        return np.full(np.shape(np.atleast_1d(T)), self.ne)
+
+    def u_ln(self, T) -> float:
+        return self.u_rel
+
+    def sampler(self, rng, d):
+        v = self.ne * np.exp(self.u_rel * rng.standard_normal(d))
+        return lambda T: v
+
+
+__all__ = ["FixedNe", "HAlphaNe", "StarkLinesNe"]

@@ -1,0 +1,153 @@
+"""The outcome of a calibration-free analysis: :class:`CFResult` (JSON round-trip).
+
+``CFResult.results_table()`` gives the rows of the results-table contract
+(docs/architecture.md, basis ``"cf"``); the rest of the object holds the plasma
+conditions (T, nₑ with its method, LTE checks, self-absorption factors per line), the fit
+and the Monte Carlo summary.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+import pandas as pd
+
+SCHEMA = "compquant.cf-result/1"
+
+RESULT_COLUMNS = ["sample_id", "element", "mass_fraction", "u", "U", "k", "lod", "loq",
+                  "below_lod", "flags", "basis", "line_id"]
+
+
+def _clean(obj):
+    """Make numpy scalars/arrays and non-finite floats JSON-safe (NaN/inf → None)."""
+    if isinstance(obj, dict):
+        return {str(k): _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [_clean(v) for v in obj.tolist()]
+    if isinstance(obj, (np.bool_,)):
+        return bool(obj)
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        f = float(obj)
+        return f if math.isfinite(f) else None
+    return obj
+
+
+@dataclass
+class ElementResult:
+    element: str
+    mass_fraction: float
+    u: float
+    number_fraction: float
+    u_number_fraction: float
+    n_lines: int
+    lines: list[str]
+    flags: list[str] = field(default_factory=list)
+    fixed: bool = False
+
+
+@dataclass
+class CFResult:
+    """Calibration-free result for one sample.  Mass fractions are g/g; U = k·u, k = 2."""
+
+    sample_id: str
+    temperature_k: float
+    u_temperature_k: float
+    electron_density_cm3: float
+    u_electron_density_cm3: float
+    ne_method: str
+    fit_mode: str
+    elements: list[ElementResult]
+    ne_estimates: list[dict] = field(default_factory=list)
+    lte: dict = field(default_factory=dict)
+    species: list[dict] = field(default_factory=list)
+    lines: list[dict] = field(default_factory=list)
+    excluded_lines: list[dict] = field(default_factory=list)
+    self_absorption: dict = field(default_factory=dict)
+    fit: dict = field(default_factory=dict)
+    monte_carlo: dict = field(default_factory=dict)
+    one_point: dict | None = None
+    flags: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    settings: dict = field(default_factory=dict)
+    k: float = 2.0
+    schema: str = SCHEMA
+
+    # -- convenience ---------------------------------------------------------------------
+    def mass_fractions(self) -> dict[str, float]:
+        return {e.element: e.mass_fraction for e in self.elements}
+
+    def element(self, symbol: str) -> ElementResult:
+        for e in self.elements:
+            if e.element == symbol:
+                return e
+        raise KeyError(symbol)
+
+    def results_table(self) -> pd.DataFrame:
+        """Rows of the results-table contract (basis ``"cf"``; lod/loq not defined → NaN)."""
+        rows = []
+        for e in self.elements:
+            fl = list(dict.fromkeys([*self.flags, *e.flags]))
+            rows.append({
+                "sample_id": self.sample_id, "element": e.element,
+                "mass_fraction": e.mass_fraction, "u": e.u, "U": self.k * e.u, "k": self.k,
+                "lod": np.nan, "loq": np.nan, "below_lod": False, "flags": ";".join(fl),
+                "basis": "cf", "line_id": ";".join(e.lines),
+            })
+        return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+    def summary_table(self) -> pd.DataFrame:
+        """One row per species: lines used, T, nₑ, concentration, U, flags (for the CLI)."""
+        rows = []
+        conc = {e.element: e for e in self.elements}
+        for sp in self.species:
+            e = conc.get(sp["element"])
+            rows.append({
+                "sample_id": self.sample_id, "species": sp["species"], "n_lines": sp["n_lines"],
+                "lines": ";".join(sp["lines"]), "T_K": self.temperature_k,
+                "u_T_K": self.u_temperature_k, "T_species_K": sp.get("temperature_k"),
+                "ne_cm3": self.electron_density_cm3, "u_ne_cm3": self.u_electron_density_cm3,
+                "ne_method": self.ne_method,
+                "mass_fraction": e.mass_fraction if e else np.nan,
+                "U": self.k * e.u if e else np.nan,
+                "flags": ";".join(dict.fromkeys([*self.flags, *(e.flags if e else [])])),
+            })
+        return pd.DataFrame(rows)
+
+    # -- serialisation -------------------------------------------------------------------
+    def to_dict(self) -> dict:
+        return _clean(asdict(self))
+
+    def to_json(self, indent: int | None = 2) -> str:
+        return json.dumps(self.to_dict(), indent=indent, ensure_ascii=False, allow_nan=False)
+
+    @classmethod
+    def from_dict(cls, d: dict) -> CFResult:
+        d = dict(d)
+        d["elements"] = [ElementResult(**{k: (np.nan if v is None and k in ("mass_fraction", "u",
+                          "number_fraction", "u_number_fraction") else v) for k, v in e.items()})
+                         for e in d.get("elements", [])]
+        for key in ("temperature_k", "u_temperature_k", "electron_density_cm3", "u_electron_density_cm3"):
+            if d.get(key) is None:
+                d[key] = np.nan
+        return cls(**d)
+
+    @classmethod
+    def from_json(cls, text: str) -> CFResult:
+        return cls.from_dict(json.loads(text))
+
+
+def results_table(results: list[CFResult]) -> pd.DataFrame:
+    """Concatenate the results tables of several samples."""
+    if not results:
+        return pd.DataFrame(columns=RESULT_COLUMNS)
+    return pd.concat([r.results_table() for r in results], ignore_index=True)
+
+
+__all__ = ["CFResult", "ElementResult", "RESULT_COLUMNS", "SCHEMA", "results_table"]

@@ -1,0 +1,170 @@
+"""``compquant analyse RUN --method FILE ...``: the whole job, certificates out."""
+
+from __future__ import annotations
+
+import click
+
+from compquant.report.safety import safety_plain
+
+_EPILOG = "\b\nSAFETY NOTES (LIBS and spark OES can hurt people)\n\n" + "\n\n".join(
+    "\b\n" + para for para in safety_plain(width=78).split("\n\n")
+)
+
+
+class StageProgress:
+    """Click progress bars, one per stage of :func:`compquant.analyse.analyse`, on stderr."""
+
+    LABELS = {
+        "measure": "measuring lines  ",
+        "calibrate": "calibrating      ",
+        "quantify": "quantifying      ",
+        "certificates": "writing certificates",
+    }
+
+    def __init__(self, enabled: bool = True):
+        self.enabled = enabled
+        self.stage = None
+        self.bar = None
+        self.done = 0
+
+    def __call__(self, stage: str, done: int, total: int) -> None:
+        if not self.enabled:
+            return
+        if stage != self.stage:
+            self.close()
+            self.stage = stage
+            self.done = 0
+            self.bar = click.progressbar(
+                length=max(int(total), 1), label=self.LABELS.get(stage, stage), file=click.get_text_stream("stderr")
+            )
+            self.bar.__enter__()
+        if done > self.done:
+            self.bar.update(done - self.done)
+            self.done = done
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.__exit__(None, None, None)
+            self.bar = None
+
+
+def summary_table(out) -> str:
+    """Plain-text table: one row per certificate, one column per element (printed values)."""
+    from compquant.report.pdf import visible_text
+
+    elements = []
+    for c in out.certificates:
+        for r in c.results:
+            if r["element"] not in elements:
+                elements.append(r["element"])
+    head = ["sample", "certificate", "release", "conformity"] + elements
+    rows = [head]
+    for c in out.certificates:
+        vals = {
+            r["element"]: (r["value"] if r["value"] == "< LOD" else f"{r['value']} {r['unit']}")
+            + ("*" if r["flags"] and r["value"] != "< LOD" else "")
+            for r in c.results
+        }
+        sid = visible_text(c.sample_id)
+        if len(sid) > 24:
+            sid = sid[:21] + "..."
+        rows.append(
+            [sid, c.number, "ok" if c.valid_for_release else "NOT VALID", c.conformity or "-"]
+            + [vals.get(e, "-") for e in elements]
+        )
+    widths = [max(len(r[i]) for r in rows) for i in range(len(head))]
+    lines = ["  ".join(cell.ljust(w) for cell, w in zip(r, widths)).rstrip() for r in rows]
+    lines.insert(1, "  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+def report_outputs(out) -> None:
+    click.echo("")
+    click.echo(summary_table(out))
+    click.echo("")
+    click.echo("* value carries a flag; see the certificate.")
+    click.echo(f"certificates: {out.outdir} ({len(out.certificates)} PDF + JSON)")
+    click.echo(f"LIMS CSV:     {out.lims_csv}")
+    click.echo(f"run summary:  {out.summary_json}")
+    if out.calibration_json:
+        click.echo(f"calibration:  {out.calibration_json}")
+    for sid, why in sorted(out.failures.items()):
+        click.echo(f"warning: sample {sid}: {why}", err=True)
+    if not out.valid_for_release:
+        click.echo("NOT VALID FOR RELEASE: a quality-control criterion failed; see the certificates.", err=True)
+
+
+@click.command("analyse", epilog=_EPILOG)
+@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False), help="Method file (TOML).")
+@click.option(
+    "--standards",
+    type=click.Path(dir_okay=False),
+    help="Certified-standards file: calibrate from the standards measured in this run.",
+)
+@click.option(
+    "--calibration",
+    type=click.Path(dir_okay=False),
+    help="Saved calibration (JSON): apply it, with drift standardisation from setup samples.",
+)
+@click.option("--cf", is_flag=True, help="Calibration-free analysis (plasma physics, closure to 100 %).")
+@click.option("--lab", type=click.Path(dir_okay=False), help="Lab profile (TOML): name, address, signatory.")
+@click.option(
+    "--spec",
+    type=click.Path(dir_okay=False),
+    help="Specification (TOML): element limits and decision rule for a conformity statement.",
+)
+@click.option("-o", "--outdir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@click.option("--client", help="Client name (overrides the lab profile's default).")
+@click.option("--received", metavar="YYYY-MM-DD", help="Date the samples were received.")
+@click.option("--issued-at", metavar="ISO-8601", help="Issue time in UTC (default: now); fixes the outputs.")
+@click.option("--no-figures", is_flag=True, help="Leave the figures out of the certificates.")
+@click.option("--chunk-shots", type=click.IntRange(1), help="Shots per streamed chunk (memory use).")
+@click.option("--quiet", is_flag=True, help="No progress bars.")
+def command(
+    run_path,
+    method_path,
+    standards,
+    calibration,
+    cf,
+    lab,
+    spec,
+    outdir,
+    client,
+    received,
+    issued_at,
+    no_figures,
+    chunk_shots,
+    quiet,
+):
+    """Analyse a run and write a certificate of analysis per unknown sample.
+
+    Preprocesses every shot, measures the method's lines, calibrates from the
+    run's certified standards (--standards), applies a saved calibration
+    (--calibration) or works calibration-free (--cf), checks the check
+    samples, quantifies every unknown and writes into OUTDIR one PDF and one
+    JSON certificate per unknown, one LIMS CSV and a run summary.
+    """
+    from compquant.analyse import analyse
+
+    prog = StageProgress(enabled=not quiet)
+    try:
+        out = analyse(
+            run_path,
+            method_path,
+            standards=standards,
+            calibration=calibration,
+            cf=cf,
+            lab=lab,
+            spec=spec,
+            outdir=outdir,
+            client=client,
+            received=received,
+            issued_at=issued_at,
+            figures=not no_figures,
+            chunk_shots=chunk_shots,
+            progress=prog,
+        )
+    finally:
+        prog.close()
+    report_outputs(out)

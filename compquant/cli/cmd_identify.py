@@ -1,0 +1,131 @@
+"""``compquant identify RUN [--sample ID] [--method FILE] -o identify.csv``: which elements are present."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+import pandas as pd
+
+from compquant.errors import InputError, OutputError
+from compquant.fileio import atomic_write, safe_filename
+
+SAFETY = ("Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
+          "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
+          "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
+          "Follow local regulations and your laser safety officer.")
+
+
+def _write_csv(df: pd.DataFrame, path: Path) -> None:
+    try:
+        with atomic_write(path, "w", newline="") as fh:
+            df.to_csv(fh, index=False, float_format="%.6g")
+    except OSError as exc:
+        raise OutputError(f"cannot write ({exc.strerror})", where=str(path),
+                          fix="choose a writable output path") from exc
+
+
+def render_table(table: pd.DataFrame) -> str:
+    """Readable text of the identification table: detected and possible species, then the rest in one line."""
+    out = []
+    for sid, t in table.groupby("sample_id", sort=False):
+        shown = t[t["status"] != "not detected"]
+        rows = [("element", "ion", "status", "score", "found/expected", "best lines")]
+        for r in shown.itertuples(index=False):
+            rows.append((r.element, r.species.split(" ", 1)[1], r.status, f"{r.score:.2f}",
+                         f"{r.lines_found:g}/{r.lines_expected}", r.best_lines or "-"))
+        w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
+        out.append(f"sample {sid} (T = {t['temperature_k'].iloc[0]:.0f} K"
+                   f"{' fitted' if t['temperature_fitted'].iloc[0] else ''}, R = {t['resolving_power'].iloc[0]:.0f})")
+        out.extend("  " + "  ".join(c.ljust(w[i]) if i != 3 else c.rjust(w[i]) for i, c in enumerate(row))
+                   for row in rows)
+        nd = sorted(set(t.loc[t["status"] == "not detected", "element"]) - set(shown["element"]))
+        out.append("  not detected: " + (", ".join(nd) if nd else "-"))
+    return "\n".join(out)
+
+
+@click.command("identify", epilog=SAFETY)
+@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.option("--sample", "samples", multiple=True,
+              help="Sample id (repeat for several) [default: every sample of the run].")
+@click.option("--method", "method_path", type=click.Path(dir_okay=False), default=None,
+              help="Method file: its preprocessing, [identify] settings and analyte lines (interference map).")
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="Identification CSV (one row per sample and candidate species).")
+@click.option("--interference", "imap_path", type=click.Path(dir_okay=False), default=None,
+              help="Interference-map CSV [default with --method: <output stem>-interference.csv].")
+@click.option("--peaks", "peaks_path", type=click.Path(dir_okay=False), default=None,
+              help="Also write the detected peaks (with the lines explaining them) to this CSV.")
+@click.option("--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
+              help="PNG of the spectrum with identified lines labelled (one file per sample: "
+                   "<stem>-<sample>.png when several samples).")
+@click.option("--temperature", type=float, default=None,
+              help="Excitation temperature for the LTE estimate, K [default: method, else fitted].")
+@click.option("--resolving-power", type=float, default=None,
+              help="Resolving power λ/Δλ [default: method, else the run's instrument, else estimated].")
+@click.option("--quiet", is_flag=True, help="No table on screen.")
+def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_path, temperature,
+            resolving_power, quiet):
+    """Qualitative analysis: detect the peaks of each sample's preprocessed mean spectrum, match them
+    to the line database, score every element and ion stage against an LTE estimate of its
+    relative line intensities, and report it as detected / possible / not detected with the lines
+    behind it. With --method, also map the interferences of other detected elements on the
+    method's analyte lines and suggest interference-free alternatives. The run is read-only;
+    outputs are written atomically. Rules: docs/identification.md."""
+    from compquant.identify.plot import plot_identification
+    from compquant.identify.sample import default_method, identify_sample, identify_table, sample_interference
+    from compquant.identify.settings import settings_from_method
+    from compquant.method import load_method
+    from compquant.run import Run
+
+    for name, val in (("--temperature", temperature), ("--resolving-power", resolving_power)):
+        if val is not None and not val > 0:
+            raise InputError(f"{name} must be positive, got {val}", where=name, fix="give a positive number")
+    method = load_method(method_path) if method_path else default_method()
+    st = settings_from_method(method).with_overrides(temperature_k=temperature, resolving_power=resolving_power)
+    out = Path(output)
+    stem = out.with_suffix("")
+    tables, imaps, peak_tables = [], [], []
+    with Run.open(run_path) as run:
+        ids = list(samples) or list(run.samples["sample_id"])
+        known = set(run.samples["sample_id"])
+        for sid in ids:
+            if sid not in known:
+                raise InputError(f"no sample {sid!r} in this run", where=str(run.path),
+                                 fix="list the samples with 'compquant inspect'")
+        medium = run.medium
+        for sid in ids:
+            ident = identify_sample(run, sid, method, settings=st)
+            tables.append(identify_table(ident, sid))
+            if method_path and method.lines:
+                imaps.append(sample_interference(ident, method, sid))
+            if peaks_path:
+                peak_tables.append(ident.peaks.assign(sample_id=sid))
+            if plot_path:
+                p = Path(plot_path)
+                target = p if len(ids) == 1 else p.with_name(f"{p.stem}-{safe_filename(sid)}{p.suffix or '.png'}")
+                plot_identification(ident, target, medium=medium, title=f"{sid}: identified lines "
+                                    f"(T = {ident.temperature_k:.0f} K, R = {ident.resolving_power:.0f})")
+    table = pd.concat(tables, ignore_index=True)
+    _write_csv(table, out)
+    written = [out]
+    if imaps:
+        ip = Path(imap_path) if imap_path else Path(f"{stem}-interference.csv")
+        _write_csv(pd.concat(imaps, ignore_index=True), ip)
+        written.append(ip)
+    if peak_tables:
+        pt = pd.concat(peak_tables, ignore_index=True)
+        _write_csv(pt[["sample_id"] + [c for c in pt.columns if c != "sample_id"]], Path(peaks_path))
+        written.append(Path(peaks_path))
+    if not quiet:
+        click.echo(render_table(table))
+        if imaps:
+            im = pd.concat(imaps, ignore_index=True)
+            ov = im[im["overlapped"] & (im["interferer_line_id"] != "")]
+            for r in ov.itertuples(index=False):
+                size = (f"{r.relative_contribution:.1%} of the analyte signal" if r.analyte_signal > 0
+                        else f"{r.interferer_snr:.0f} sigma, analyte not seen")
+                click.echo(f"overlap: {r.sample_id}: {r.line_id} <- {r.interferer_line_id} ({size}); "
+                           f"alternatives: {r.alternatives or 'none free'}")
+    for w in written:
+        click.echo(f"wrote {w}", err=quiet)

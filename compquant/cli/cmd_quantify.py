@@ -1,0 +1,132 @@
+"""``compquant quantify RUN --calibration cal.json -o results.csv``: concentrations with uncertainty."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import click
+
+from compquant.cli.cmd_calibrate import SAFETY
+
+
+def _write_csv(df, path: Path) -> None:
+    from compquant.errors import OutputError
+    from compquant.fileio import atomic_write
+
+    try:
+        with atomic_write(path, "w", newline="") as fh:
+            df.to_csv(fh, index=False, float_format="%.10g")
+    except OSError as exc:
+        raise OutputError(
+            f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
+        ) from exc
+
+
+def _fmt(w: float) -> str:
+    return f"{w * 100:.4g} %" if abs(w) >= 1e-3 else f"{w * 1e6:.4g} mg/kg"
+
+
+def results_text(q) -> str:
+    lines = []
+    r = q.results
+    for row in r[r["role"].isin(["unknown", "check"])].itertuples(index=False):
+        val = f"< LOD ({_fmt(row.lod)})" if row.below_lod else f"{_fmt(row.mass_fraction)} +- {_fmt(row.U)}"
+        lines.append(f"{row.sample_id:<14} {row.element:<3} {row.basis:<11} {val:<32} {row.flags or ''}")
+    for c in q.checks.itertuples(index=False):
+        lines.append(
+            f"check {c.sample_id} ({c.standard_id}) {c.element}: En = {c.En:+.2f} {'pass' if c.passed else 'FAIL'}"
+        )
+    if not q.valid_for_release:
+        lines.append("a check sample failed: the run's results are NOT VALID FOR RELEASE")
+    d = q.drift
+    lines.append(
+        "drift standardisation: "
+        + (
+            "applied ("
+            + ", ".join(f"{k}: x{v['alpha']:.4f}{v['beta']:+.3g}" for k, v in d.get("coefficients", {}).items())
+            + ")"
+            if d.get("applied")
+            else f"not applied ({d.get('reason', '')})"
+        )
+    )
+    for nr in q.provenance.get("not_reported", []):
+        lines.append(f"not reported: {nr['sample_id']} {nr['element']}: {nr['reason']}")
+    return "\n".join(lines)
+
+
+@click.command("quantify", epilog=SAFETY)
+@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.option(
+    "--calibration",
+    "cal_path",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Calibration JSON written by 'compquant calibrate'.",
+)
+@click.option(
+    "--method",
+    "method_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Method file [default: the one recorded in the calibration; must be identical].",
+)
+@click.option(
+    "--standards",
+    "standards_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Certified standards for the check samples [default: those stored in the calibration].",
+)
+@click.option(
+    "-o",
+    "--output",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Results CSV (one row per sample and element, mass fractions in g/g).",
+)
+@click.option("--quiet", is_flag=True, help="Do not print the results.")
+def command(run_path, cal_path, method_path, standards_path, output, quiet):
+    """Apply a calibration to RUN: drift standardisation with the setup samples, content of
+    every sample with standard and expanded uncertainty (k = 2 unless the method says
+    otherwise), LOD/LOQ, flags, and check samples against their certificates (E_n).
+    Writes the results CSV, <stem>-checks.csv and <stem>-provenance.json."""
+    from compquant.calibrate import Calibration, load_standards
+    from compquant.errors import CalibrationError
+    from compquant.fileio import atomic_write
+    from compquant.lines import measure_run
+    from compquant.method import load_method
+    from compquant.quantify import quantify
+    from compquant.run import Run
+
+    cal = Calibration.load(cal_path)
+    mpath = method_path or cal.method_path
+    if not mpath:
+        raise CalibrationError("the calibration records no method file", where=cal_path, fix="give --method FILE")
+    method = load_method(mpath)
+    cal.check_method(method.id, method.sha256, where=f"{cal_path} with {mpath}")
+    standards = load_standards(standards_path) if standards_path else None
+    with Run.open(run_path) as run:
+        lm = measure_run(run, method)
+        samples = run.samples
+        run_sha = run.sha256()
+    q = quantify(lm, cal, standards=standards, run_sha256=run_sha, samples=samples)
+    out = Path(output)
+    stem = out.with_suffix("")
+    _write_csv(q.results, out)
+    _write_csv(q.checks, Path(f"{stem}-checks.csv"))
+    prov = dict(q.provenance)
+    prov.update(
+        run_path=str(Path(run_path).resolve()),
+        calibration_path=str(Path(cal_path).resolve()),
+        method_path=str(Path(mpath).resolve()),
+        drift=q.drift,
+        valid_for_release=q.valid_for_release,
+        matrix_fraction_by_difference={k: {"w": v[0], "u": v[1]} for k, v in q.matrix_fraction.items()},
+        lines=lm.provenance,
+    )
+    with atomic_write(Path(f"{stem}-provenance.json")) as fh:
+        json.dump(prov, fh, indent=2, sort_keys=True, default=str, allow_nan=True)
+    if not quiet:
+        click.echo(results_text(q))
+        click.echo(f"wrote {out}, {stem}-checks.csv, {stem}-provenance.json")

@@ -1,0 +1,440 @@
+"""Apply a calibration to the line measurements of a run: results per sample and element.
+
+Steps (docs/calibration.md):
+
+1. drift standardisation of the run's line intensities with its setup samples
+   (two-point per line, :mod:`compquant.calibrate.drift`), unless the run is the
+   calibration run itself;
+2. per analyte, the response of every sample and the inverse prediction of its
+   content with standard uncertainty; interference corrections use the contents
+   of the interfering analytes in the same sample, solved by fixed-point
+   iteration;
+3. for an internal-standard (ratio) calibration, mass fractions follow by
+   closure with the matrix element by difference::
+
+       w_m = (1 - sum_intensity-basis w) / (1 + sum_ratio r),   w_a = r_a w_m
+
+   with the uncertainties propagated through the Jacobian (GUM 5.1.2);
+4. flags (``below_lod``, ``above_range``, ``below_range``, line flags, ...) and
+   ``U = k u``;
+5. check samples against their certified values (ISO 13528 E_n, zeta, z); a failed
+   check flags every result of the run ``check_failed`` and makes the run not
+   valid for release.
+
+Results table columns (docs/architecture.md): ``sample_id, element,
+mass_fraction, u, U, k, lod, loq, below_lod, flags, basis, line_id`` plus
+``role`` (the sample's role) and ``dof`` (effective degrees of freedom).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from compquant.calibrate.build import certified_table, standard_map
+from compquant.calibrate.checks import check_verdict, en_number, z_score, zeta_score
+from compquant.calibrate.drift import apply_drift, drift_coefficients, uncorrected_lines
+from compquant.calibrate.model import Calibration
+from compquant.calibrate.response import sample_responses
+from compquant.errors import CalibrationError, DataQualityError
+
+RESULT_COLUMNS = [
+    "sample_id",
+    "element",
+    "mass_fraction",
+    "u",
+    "U",
+    "k",
+    "lod",
+    "loq",
+    "below_lod",
+    "flags",
+    "basis",
+    "line_id",
+    "role",
+    "dof",
+]
+CHECK_COLUMNS = [
+    "sample_id",
+    "standard_id",
+    "element",
+    "measured",
+    "u",
+    "U",
+    "certified",
+    "u_certified",
+    "U_certified",
+    "En",
+    "zeta",
+    "z",
+    "passed",
+]
+
+
+@dataclass
+class QuantifyResult:
+    """Results table, check-sample table, drift record and provenance of one quantification."""
+
+    results: pd.DataFrame
+    checks: pd.DataFrame
+    drift: dict
+    provenance: dict
+    valid_for_release: bool = True
+    matrix_fraction: dict = field(default_factory=dict)  # sample -> (w, u) by difference
+
+
+def _tables(measurement):
+    """``(line_table, shot_table, samples)`` from a LineMeasurement-like object or a tuple."""
+    if isinstance(measurement, pd.DataFrame):
+        return measurement, None, None
+    if isinstance(measurement, (tuple, list)):
+        lt = measurement[0]
+        st = measurement[1] if len(measurement) > 1 else None
+        sm = measurement[2] if len(measurement) > 2 else None
+        return lt, st, sm
+    lt = next(
+        (
+            getattr(measurement, n)
+            for n in ("lines", "line_table", "table")
+            if isinstance(getattr(measurement, n, None), pd.DataFrame)
+        ),
+        None,
+    )
+    if lt is None:
+        raise CalibrationError(
+            "measurement has no line table",
+            where="quantify",
+            fix="pass the result of compquant.lines.measure_run",
+        )
+    st = next(
+        (
+            getattr(measurement, n)
+            for n in ("shots", "shot_table", "per_shot")
+            if isinstance(getattr(measurement, n, None), pd.DataFrame)
+        ),
+        None,
+    )
+    sm = next(
+        (
+            getattr(measurement, n)
+            for n in ("samples", "sample_table")
+            if isinstance(getattr(measurement, n, None), pd.DataFrame)
+        ),
+        None,
+    )
+    return lt, st, sm
+
+
+def coverage_factor(mode: str, dof: float) -> float:
+    """2, or ``t_0.975(nu_eff)`` for mode 'student' (GUM G.3-G.4)."""
+    if mode == "student" and math.isfinite(dof):
+        return float(stats.t.ppf(0.975, max(dof, 1.0)))
+    return 2.0
+
+
+def _closure(elements, x, ux, bases):
+    """Mass fractions from contents (ratios or mass fractions) with the matrix by difference."""
+    x = np.asarray(x, float)
+
+    def f(v):
+        r = np.where(bases == "ratio", v, 0.0)
+        wi = np.where(bases == "intensity", v, 0.0)
+        wm = (1.0 - wi.sum()) / (1.0 + r.sum())
+        return np.where(bases == "ratio", v * wm, v), wm
+
+    w, wm = f(x)
+    n = len(x)
+    J = np.zeros((n + 1, n))
+    for j in range(n):
+        h = 1e-7 * max(abs(x[j]), 1e-6)
+        xp, xm = x.copy(), x.copy()
+        xp[j] += h
+        xm[j] -= h
+        (wp, wmp), (wq, wmq) = f(xp), f(xm)
+        J[:n, j] = (wp - wq) / (2 * h)
+        J[n, j] = (wmp - wmq) / (2 * h)
+    cov = J @ np.diag(np.asarray(ux, float) ** 2) @ J.T
+    u = np.sqrt(np.clip(np.diag(cov), 0, None))
+    return w, u[:n], float(wm), float(u[n]), J
+
+
+def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported) -> list:
+    """Results of the PLS models (basis 'pls') when the measurement carries mean spectra."""
+    pls = calibration.pls
+    spectra = getattr(measurement, "mean_spectra", None)
+    wl = getattr(measurement, "wavelength", None)
+    if not pls or not spectra or wl is None:
+        if pls:
+            not_reported.append(
+                {
+                    "sample_id": "*",
+                    "element": ",".join(pls["models"]),
+                    "reason": "PLS needs the mean spectra of the measurement",
+                }
+            )
+        return []
+    from compquant.calibrate.pls import predict_pls
+
+    wl = np.asarray(wl, float)
+    want = np.asarray(pls["wavelength_mask_nm"], float)
+    mask = np.isin(np.round(wl, 6), np.round(want, 6))
+    if int(mask.sum()) != len(want):
+        not_reported.append(
+            {
+                "sample_id": "*",
+                "element": ",".join(pls["models"]),
+                "reason": "the run's wavelength axis differs from the PLS calibration's",
+            }
+        )
+        return []
+    ids = [s for s in sample_ids if s in spectra]
+    if not ids:
+        return []
+    X = np.vstack([np.asarray(spectra[s], float)[mask] for s in ids])
+    rows = []
+    for el, m in pls["models"].items():
+        pr = predict_pls(m, X)
+        u = m["rmsecv"]
+        for i, sid in enumerate(ids):
+            y = float(pr["y"][i])
+            flags = []
+            below = y < 3 * u
+            if below:
+                flags.append("below_lod")
+            if not pr["inside"][i]:
+                flags.append("outside_model_space")
+            if y > m["y_range"][1]:
+                flags.append("above_range")
+            elif y < m["y_range"][0] and not below:
+                flags.append("below_range")
+            flags += run_flags
+            rows.append(
+                {
+                    "sample_id": sid,
+                    "element": el,
+                    "mass_fraction": y,
+                    "u": u,
+                    "U": 2 * u,
+                    "k": 2.0,
+                    "lod": 3 * u,
+                    "loq": 10 * u,
+                    "below_lod": bool(below),
+                    "flags": ";".join(flags),
+                    "basis": "pls",
+                    "line_id": f"PLS {m['n_components']} comp. on {len(pls['lines'])} windows",
+                    "role": smap.get(sid, ("unknown", None))[0],
+                    "dof": float(m["n"] - 1),
+                }
+            )
+    return rows
+
+
+def quantify(
+    measurement,
+    calibration: Calibration,
+    *,
+    standards: pd.DataFrame | None = None,
+    run_sha256: str | None = None,
+    samples: pd.DataFrame | None = None,
+) -> QuantifyResult:
+    """Results per (sample, element) for every non-setup sample of the run."""
+    lt, st, sm = _tables(measurement)
+    samples = samples if samples is not None else sm
+    cfg = calibration.settings
+    drift_mode = cfg.get("drift", "optional")
+    smap = standard_map(lt, samples)
+    drift = {"applied": False, "mode": drift_mode}
+    run_flags = []
+    if drift_mode == "off":
+        drift["reason"] = "drift standardisation switched off in the method"
+    elif run_sha256 and run_sha256 == calibration.run_sha256:
+        drift["reason"] = "this is the calibration run (setup references measured here)"
+    else:
+        coefs = drift_coefficients(calibration.setup_reference, lt)
+        needed = set(calibration.lines)
+        missing = sorted(needed - set(coefs))
+        if coefs and not missing:
+            lt, st = apply_drift(lt, coefs, st)
+            drift.update(
+                applied=True,
+                coefficients=coefs,
+                setup_samples=sorted(
+                    {c["high"] for c in coefs.values()} | {c["low"] for c in coefs.values() if c["low"]}
+                ),
+                uncorrected_lines=uncorrected_lines(lt, coefs),
+            )
+        elif drift_mode == "required":
+            raise DataQualityError(
+                "drift standardisation required but the run has no usable setup "
+                f"measurement for line(s) {', '.join(missing) or 'all'}",
+                where="quantify",
+                fix="measure the setup samples in this run",
+            )
+        else:
+            if coefs:
+                lt, st = apply_drift(lt, coefs, st)
+                drift.update(applied=True, coefficients=coefs, uncorrected_lines=missing)
+            drift["reason"] = (
+                "no setup samples in the run" if not coefs else f"setup measurements missing for {', '.join(missing)}"
+            )
+            run_flags.append("no_drift_correction" if not coefs else "partial_drift_correction")
+    curves = calibration.curves
+    els = list(curves)
+    resp = {}
+    for el, c in curves.items():
+        resp[el] = sample_responses(lt, c.line_id, c.internal_standard, st, where=f"quantify {el} ({c.line_id})")
+    sample_ids = [s for s in dict.fromkeys(map(str, lt["sample_id"])) if smap.get(s, ("unknown", None))[0] != "setup"]
+    coverage = cfg.get("coverage", "k2")
+    rows, not_reported, matrix_fraction = [], [], {}
+    for sid in sample_ids:
+        role = smap.get(sid, ("unknown", None))[0]
+        ok = [el for el in els if sid in resp[el].index and np.isfinite(resp[el].loc[sid, "y"])]
+        for el in els:
+            if el not in ok:
+                not_reported.append({"sample_id": sid, "element": el, "reason": "no valid response"})
+        # fixed-point iteration over interference corrections
+        xcur = {el: 0.0 for el in ok}
+        ucur = {el: 0.0 for el in ok}
+        preds = {}
+        failed = {}
+        for _ in range(100):
+            change = 0.0
+            for el in ok:
+                c = curves[el]
+                r = resp[el].loc[sid]
+                xi = {it["element"]: xcur.get(it["element"], 0.0) for it in c.interferences}
+                uxi = {it["element"]: ucur.get(it["element"], 0.0) for it in c.interferences}
+                try:
+                    p = c.predict_content(
+                        float(r["y"]),
+                        float(r["u_y"]),
+                        int(r["n_shots"]),
+                        xi,
+                        uxi,
+                        where=f"sample {sid}, {el}",
+                    )
+                except CalibrationError as exc:
+                    failed[el] = exc.one_line()
+                    continue
+                failed.pop(el, None)
+                change = max(change, abs(p["x"] - xcur[el]) / max(abs(p["x"]), 1e-12))
+                xcur[el], ucur[el] = p["x"], p["u"]
+                preds[el] = p
+            if change < 1e-12:
+                break
+        for el, why in failed.items():
+            not_reported.append({"sample_id": sid, "element": el, "reason": why})
+        good = [el for el in ok if el in preds and el not in failed]
+        if not good:
+            continue
+        bases = np.array([curves[el].basis for el in good])
+        w, uw, wm, uwm, _ = _closure(good, [preds[el]["x"] for el in good], [preds[el]["u"] for el in good], bases)
+        if np.any(bases == "ratio"):
+            matrix_fraction[sid] = (wm, uwm)
+        for i, el in enumerate(good):
+            c = curves[el]
+            p = preds[el]
+            r = resp[el].loc[sid]
+            wmul = wm if c.basis == "ratio" else 1.0
+            lod, loq = c.lod_x * wmul, c.loq_x * wmul
+            flags = list(r["flags"])
+            below = bool(w[i] < lod)
+            if below:
+                flags.append("below_lod")
+            elif w[i] < loq:
+                flags.append("below_loq")
+            if p["x"] > c.range_x[1] * (1 + 1e-9):
+                flags.append("above_range")
+            elif p["x"] < c.range_x[0] * (1 - 1e-9) and not below:
+                flags.append("below_range")
+            if c.interferences:
+                flags.append("interference_corrected")
+            flags += run_flags
+            k = coverage_factor(coverage, p["dof"])
+            rows.append(
+                {
+                    "sample_id": sid,
+                    "element": el,
+                    "mass_fraction": float(w[i]),
+                    "u": float(uw[i]),
+                    "U": float(k * uw[i]),
+                    "k": k,
+                    "lod": float(lod),
+                    "loq": float(loq),
+                    "below_lod": below,
+                    "flags": ";".join(dict.fromkeys(flags)),
+                    "basis": "calibration",
+                    "line_id": c.line_id,
+                    "role": role,
+                    "dof": float(p["dof"]),
+                }
+            )
+    rows += _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported)
+    results = pd.DataFrame(rows, columns=RESULT_COLUMNS)
+    # check samples
+    certs = (
+        certified_table(standards) if standards is not None else certified_table(pd.DataFrame(calibration.standards))
+    )
+    spt = cfg.get("sigma_pt_rel")
+    chk = []
+    for r in results[(results["role"] == "check") & (results["basis"] == "calibration")].itertuples():
+        ref = smap[r.sample_id][1]
+        cv = certs.get(ref, {}).get(r.element)
+        if cv is None:
+            continue
+        X, uX = cv
+        UX = 2.0 * uX
+        en = en_number(r.mass_fraction, r.U, X, UX)
+        zeta = zeta_score(r.mass_fraction, r.u, X, uX)
+        z = z_score(r.mass_fraction, X, spt * X) if spt and X > 0 else None
+        chk.append(
+            {
+                "sample_id": r.sample_id,
+                "standard_id": ref,
+                "element": r.element,
+                "measured": r.mass_fraction,
+                "u": r.u,
+                "U": r.U,
+                "certified": X,
+                "u_certified": uX,
+                "U_certified": UX,
+                "En": en,
+                "zeta": zeta,
+                "z": math.nan if z is None else z,
+                "passed": check_verdict(en, z),
+            }
+        )
+    checks = pd.DataFrame(chk, columns=CHECK_COLUMNS)
+    valid = bool(checks["passed"].all()) if len(checks) else True
+    if not valid:
+        results["flags"] = [
+            ";".join([f for f in (fl.split(";") if fl else [])] + ["check_failed"]) for fl in results["flags"]
+        ]
+    prov = {
+        "calibration_id": calibration.calibration_id,
+        "method_id": calibration.method_id,
+        "method_sha256": calibration.method_sha256,
+        "calibration_created": calibration.created_utc,
+        "run_sha256": run_sha256 or "",
+        "coverage": coverage,
+        "not_reported": not_reported,
+        "rejected_analytes": dict(calibration.rejected),
+        "checks_passed": valid,
+        "n_checks": int(len(checks)),
+        "matrix_element": calibration.matrix_element,
+    }
+    return QuantifyResult(
+        results=results,
+        checks=checks,
+        drift=drift,
+        provenance=prov,
+        valid_for_release=valid,
+        matrix_fraction=matrix_fraction,
+    )
+
+
+__all__ = ["quantify", "QuantifyResult", "RESULT_COLUMNS", "CHECK_COLUMNS", "coverage_factor"]

@@ -1,0 +1,291 @@
+"""Lab profile and specification files (TOML), validated with clear errors.
+
+Lab profile (``lab.toml``, see ``docs/certificate.md``)::
+
+    [lab]
+    name = "..."                      # required
+    address = ["line 1", "line 2"]    # required (a string or a list of lines)
+    site = "..."                      # where the work was done (default: the address)
+    accreditation = "..."             # accreditation / status statement, printed as given
+    certificate_prefix = "HMTL"       # required, 1-12 letters or digits
+    phone = "..."  email = "..."      # optional
+
+    [signatory]                       # who authorises certificates; required
+    name = "..."  title = "..."
+
+    [client]                          # optional defaults for the certificate's client block
+    name = "..."  address = [...]  reference = "..."
+
+    [samples]                         # optional defaults for the sample block
+    condition = "..."  received = "YYYY-MM-DD"
+
+Specification (``spec-<grade>.toml``)::
+
+    [specification]
+    name = "..."  grade = "..."  source = "..."
+    decision_rule = "guard-band"      # simple-acceptance | guard-band-binary | guard-band
+
+    [limits.Cu]
+    min = 57.0  max = 59.0  unit = "%"   # unit: "%", "mg/kg" or "g/g"; min and/or max
+    [limits.Zn]
+    remainder = true                  # balance element: reported, no limit checked
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from compquant.errors import ConfigError
+from compquant.fileio import check_keys, load_toml, sha256_file
+from compquant.report.conformity import RULES
+
+#: mass fraction units accepted in specification and standards files -> factor to g/g
+UNIT_TO_GG = {"%": 1e-2, "mg/kg": 1e-6, "g/g": 1.0}
+
+#: the 118 element symbols (IUPAC), checked in tests against periodictable
+ELEMENT_SYMBOLS = frozenset(
+    "H He Li Be B C N O F Ne Na Mg Al Si P S Cl Ar K Ca Sc Ti V Cr Mn Fe Co Ni Cu Zn Ga Ge As Se "
+    "Br Kr Rb Sr Y Zr Nb Mo Tc Ru Rh Pd Ag Cd In Sn Sb Te I Xe Cs Ba La Ce Pr Nd Pm Sm Eu Gd Tb "
+    "Dy Ho Er Tm Yb Lu Hf Ta W Re Os Ir Pt Au Hg Tl Pb Bi Po At Rn Fr Ra Ac Th Pa U Np Pu Am Cm "
+    "Bk Cf Es Fm Md No Lr Rf Db Sg Bh Hs Mt Ds Rg Cn Nh Fl Mc Lv Ts Og".split()
+)
+
+_PREFIX = re.compile(r"^[A-Za-z0-9]{1,12}$")
+
+
+def _text(table: dict, key: str, where: str, required: bool = False, default: str = "") -> str:
+    if key not in table:
+        if required:
+            raise ConfigError(f"missing required key {key!r}", where=where, fix=f'add {key} = "..."')
+        return default
+    v = table[key]
+    if not isinstance(v, str) or (required and not v.strip()):
+        raise ConfigError(
+            f"{key!r} must be a non-empty text string", where=f"{where}.{key}", fix=f'write {key} = "..."'
+        )
+    return v
+
+
+def _lines(table: dict, key: str, where: str, required: bool = False) -> list[str]:
+    if key not in table:
+        if required:
+            raise ConfigError(f"missing required key {key!r}", where=where, fix=f'add {key} = ["line 1", "line 2"]')
+        return []
+    v = table[key]
+    if isinstance(v, str):
+        v = [v]
+    if not isinstance(v, list) or not all(isinstance(x, str) for x in v) or (required and not v):
+        raise ConfigError(
+            f"{key!r} must be a string or a list of strings",
+            where=f"{where}.{key}",
+            fix=f'write {key} = ["line 1", "line 2"]',
+        )
+    return list(v)
+
+
+def _date(table: dict, key: str, where: str) -> str:
+    if key not in table:
+        return ""
+    v = table[key]
+    if isinstance(v, _dt.datetime):
+        return v.date().isoformat()
+    if isinstance(v, _dt.date):
+        return v.isoformat()
+    if isinstance(v, str):
+        try:
+            return _dt.date.fromisoformat(v).isoformat()
+        except ValueError:
+            pass
+    raise ConfigError(f"{key!r} must be a date YYYY-MM-DD", where=f"{where}.{key}", fix=f"write {key} = 2026-12-01")
+
+
+@dataclass
+class LabProfile:
+    """The issuing laboratory: printed on every certificate (ISO/IEC 17025:2017, 7.8.2.1 b, o)."""
+
+    name: str
+    address: list[str]
+    certificate_prefix: str
+    signatory_name: str
+    signatory_title: str
+    accreditation: str = ""
+    site: str = ""
+    phone: str = ""
+    email: str = ""
+    client_name: str = ""
+    client_address: list[str] = field(default_factory=list)
+    client_reference: str = ""
+    sample_condition: str = ""
+    sample_received: str = ""
+    source: str = ""
+    sha256: str = ""
+
+
+def load_lab_profile(path) -> LabProfile:
+    """Read and validate a lab profile TOML file; raise :class:`ConfigError` naming file and key."""
+    p = Path(path)
+    data = load_toml(p, "lab profile")
+    w = str(p)
+    check_keys(data, {"lab", "signatory", "client", "samples"}, w, required={"lab", "signatory"})
+    lab = data["lab"]
+    check_keys(
+        lab,
+        {"name", "address", "site", "accreditation", "certificate_prefix", "phone", "email"},
+        f"{w} [lab]",
+        required={"name", "address", "certificate_prefix"},
+    )
+    sig = data["signatory"]
+    check_keys(sig, {"name", "title"}, f"{w} [signatory]", required={"name", "title"})
+    cli = data.get("client", {})
+    check_keys(cli, {"name", "address", "reference"}, f"{w} [client]")
+    smp = data.get("samples", {})
+    check_keys(smp, {"condition", "received"}, f"{w} [samples]")
+    prefix = _text(lab, "certificate_prefix", f"{w} [lab]", required=True)
+    if not _PREFIX.match(prefix):
+        raise ConfigError(
+            f"certificate_prefix {prefix!r} must be 1 to 12 letters or digits",
+            where=f"{w} [lab].certificate_prefix",
+            fix='e.g. certificate_prefix = "HMTL"',
+        )
+    return LabProfile(
+        name=_text(lab, "name", f"{w} [lab]", required=True),
+        address=_lines(lab, "address", f"{w} [lab]", required=True),
+        certificate_prefix=prefix.upper(),
+        signatory_name=_text(sig, "name", f"{w} [signatory]", required=True),
+        signatory_title=_text(sig, "title", f"{w} [signatory]", required=True),
+        accreditation=_text(lab, "accreditation", f"{w} [lab]"),
+        site=_text(lab, "site", f"{w} [lab]"),
+        phone=_text(lab, "phone", f"{w} [lab]"),
+        email=_text(lab, "email", f"{w} [lab]"),
+        client_name=_text(cli, "name", f"{w} [client]"),
+        client_address=_lines(cli, "address", f"{w} [client]"),
+        client_reference=_text(cli, "reference", f"{w} [client]"),
+        sample_condition=_text(smp, "condition", f"{w} [samples]"),
+        sample_received=_date(smp, "received", f"{w} [samples]"),
+        source=str(p),
+        sha256=sha256_file(p),
+    )
+
+
+@dataclass
+class ElementLimit:
+    """Limits for one element, in g/g inside; ``unit`` is how the specification states them."""
+
+    element: str
+    lower: float | None
+    upper: float | None
+    unit: str
+    remainder: bool = False
+
+
+@dataclass
+class Specification:
+    """A material specification (grade): element limits and the agreed decision rule."""
+
+    name: str
+    grade: str
+    decision_rule: str
+    limits: list[ElementLimit]
+    source: str = ""
+    path: str = ""
+    sha256: str = ""
+
+    def limit(self, element: str) -> ElementLimit | None:
+        for lim in self.limits:
+            if lim.element == element:
+                return lim
+        return None
+
+
+def _number(v, where: str) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)) or v < 0:
+        raise ConfigError("must be a finite number >= 0", where=where, fix="write e.g. max = 0.35")
+    return float(v)
+
+
+def load_specification(path) -> Specification:
+    """Read and validate a specification TOML file; raise :class:`ConfigError` naming file and key."""
+    p = Path(path)
+    data = load_toml(p, "specification")
+    w = str(p)
+    check_keys(data, {"specification", "limits"}, w, required={"specification", "limits"})
+    spec = data["specification"]
+    check_keys(
+        spec,
+        {"name", "grade", "source", "decision_rule"},
+        f"{w} [specification]",
+        required={"name", "grade", "decision_rule"},
+    )
+    rule = _text(spec, "decision_rule", f"{w} [specification]", required=True)
+    if rule not in RULES:
+        raise ConfigError(
+            f"unknown decision_rule {rule!r}",
+            where=f"{w} [specification].decision_rule",
+            fix=f"use one of {', '.join(sorted(RULES))}",
+        )
+    lims = data["limits"]
+    if not isinstance(lims, dict) or not lims:
+        raise ConfigError(
+            "no element limits",
+            where=f"{w} [limits]",
+            fix="add tables such as [limits.Cu] with min / max / unit",
+        )
+    out = []
+    for el, t in lims.items():
+        wl = f"{w} [limits.{el}]"
+        if el not in ELEMENT_SYMBOLS:
+            raise ConfigError(f"{el!r} is not an element symbol", where=wl, fix="use symbols such as Cu, Pb")
+        check_keys(t, {"min", "max", "unit", "remainder"}, wl)
+        remainder = t.get("remainder", False)
+        if not isinstance(remainder, bool):
+            raise ConfigError("remainder must be true or false", where=f"{wl}.remainder", fix="write remainder = true")
+        if remainder:
+            if "min" in t or "max" in t:
+                raise ConfigError(
+                    "a remainder element takes no min / max",
+                    where=wl,
+                    fix="remove min and max, or remove remainder",
+                )
+            out.append(ElementLimit(el, None, None, t.get("unit", "%"), remainder=True))
+            continue
+        if "min" not in t and "max" not in t:
+            raise ConfigError("needs min, max or both", where=wl, fix="add e.g. max = 0.35")
+        unit = t.get("unit")
+        if unit not in UNIT_TO_GG:
+            raise ConfigError(
+                f"unit {unit!r} is not one of %, mg/kg, g/g",
+                where=f"{wl}.unit",
+                fix='write unit = "%" or unit = "mg/kg"',
+            )
+        f = UNIT_TO_GG[unit]
+        lo = _number(t["min"], f"{wl}.min") * f if "min" in t else None
+        hi = _number(t["max"], f"{wl}.max") * f if "max" in t else None
+        if lo is not None and hi is not None and lo > hi:
+            raise ConfigError("min is above max", where=wl, fix="swap the values")
+        if (hi is not None and hi > 1.0) or (lo is not None and lo > 1.0):
+            raise ConfigError("a limit above 100 % mass fraction", where=wl, fix="check the unit")
+        out.append(ElementLimit(el, lo, hi, unit))
+    return Specification(
+        name=_text(spec, "name", f"{w} [specification]", required=True),
+        grade=_text(spec, "grade", f"{w} [specification]", required=True),
+        decision_rule=rule,
+        limits=out,
+        source=_text(spec, "source", f"{w} [specification]"),
+        path=str(p),
+        sha256=sha256_file(p),
+    )
+
+
+__all__ = [
+    "UNIT_TO_GG",
+    "ELEMENT_SYMBOLS",
+    "LabProfile",
+    "ElementLimit",
+    "Specification",
+    "load_lab_profile",
+    "load_specification",
+]

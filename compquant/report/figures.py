@@ -1,0 +1,196 @@
+"""Figures for certificates: PNG bytes from plain arrays (matplotlib, Agg backend).
+
+Each function takes numpy arrays / lists and returns PNG bytes, so it can be
+used without a run or a calibration object.  PNGs are written without a
+time stamp, so the same data give the same bytes.
+"""
+
+from __future__ import annotations
+
+import io
+
+import numpy as np
+
+_DPI = 150
+
+
+def _new(figsize=(6.4, 3.2)):
+    from matplotlib.figure import Figure  # no pyplot: no global state, Agg canvas on save
+
+    fig = Figure(figsize=figsize, dpi=_DPI)
+    ax = fig.add_subplot(1, 1, 1)
+    return fig, ax
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.tight_layout()
+    fig.savefig(buf, format="png", dpi=_DPI, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def spectrum_png(
+    wavelength_nm,
+    intensity,
+    lines=(),
+    *,
+    title: str = "",
+    ylabel: str = "intensity (a.u.)",
+    max_labels: int = 25,
+) -> bytes:
+    """Mean spectrum with the analytical lines marked.
+
+    Parameters
+    ----------
+    wavelength_nm, intensity : 1-D arrays of equal length
+    lines : iterable of ``(label, wavelength_nm)`` pairs, e.g. ``("Cu I 324.754", 324.754)``
+    """
+    wl = np.asarray(wavelength_nm, dtype=float)
+    y = np.asarray(intensity, dtype=float)
+    if wl.ndim != 1 or wl.shape != y.shape:
+        raise ValueError("wavelength and intensity must be 1-D arrays of equal length")
+    fig, ax = _new((6.8, 3.0))
+    ax.plot(wl, y, lw=0.6, color="#1f3b73")
+    lines = list(lines)
+    top = np.nanmax(y) if y.size else 1.0
+    for i, (label, w) in enumerate(lines):
+        ax.axvline(float(w), color="#b03a2e", lw=0.6, ls="--", alpha=0.8)
+        if i < max_labels:
+            ax.annotate(
+                str(label),
+                (float(w), top),
+                xytext=(2, -2),
+                textcoords="offset points",
+                rotation=90,
+                va="top",
+                ha="left",
+                fontsize=5.5,
+                color="#b03a2e",
+            )
+    ax.set_xlabel("wavelength (nm)")
+    ax.set_ylabel(ylabel)
+    if title:
+        ax.set_title(title, fontsize=9)
+    ax.margins(x=0)
+    ax.tick_params(labelsize=7)
+    return _png(fig)
+
+
+def calibration_png(
+    x_std,
+    y_std,
+    *,
+    fit_x=None,
+    fit_y=None,
+    x_err=None,
+    y_err=None,
+    labels=None,
+    sample_x=None,
+    sample_y=None,
+    sample_xerr=None,
+    sample_label: str = "sample",
+    xlabel: str = "certified mass fraction (%)",
+    ylabel: str = "intensity ratio",
+    title: str = "",
+) -> bytes:
+    """Calibration curve: standards (with error bars), the fitted curve and the sample marked.
+
+    ``x_std``/``y_std`` are the standards' certified values and measured responses; ``fit_x``/``fit_y``
+    sample the fitted curve; ``sample_x``/``sample_y`` place the sample (value found, response).
+    """
+    xs = np.asarray(x_std, dtype=float)
+    ys = np.asarray(y_std, dtype=float)
+    if xs.shape != ys.shape:
+        raise ValueError("x_std and y_std must have equal length")
+    fig, ax = _new((4.6, 3.2))
+    ax.errorbar(
+        xs,
+        ys,
+        xerr=None if x_err is None else np.asarray(x_err, float),
+        yerr=None if y_err is None else np.asarray(y_err, float),
+        fmt="o",
+        ms=4,
+        color="#1f3b73",
+        ecolor="#7f8fa6",
+        capsize=2,
+        lw=0.8,
+        label="standards",
+    )
+    if labels is not None:
+        for xi, yi, lab in zip(xs, ys, labels):
+            ax.annotate(str(lab), (xi, yi), xytext=(3, 3), textcoords="offset points", fontsize=5.5)
+    if fit_x is not None and fit_y is not None:
+        ax.plot(np.asarray(fit_x, float), np.asarray(fit_y, float), "-", color="#444444", lw=1, label="fit")
+    if sample_x is not None and sample_y is not None:
+        sx, sy = float(sample_x), float(sample_y)
+        ax.errorbar(
+            [sx],
+            [sy],
+            xerr=None if sample_xerr is None else [float(sample_xerr)],
+            fmt="D",
+            ms=6,
+            color="#b03a2e",
+            capsize=3,
+            label=sample_label,
+        )
+        ax.axhline(sy, color="#b03a2e", lw=0.5, ls=":")
+        ax.axvline(sx, color="#b03a2e", lw=0.5, ls=":")
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    if title:
+        ax.set_title(title, fontsize=9)
+    ax.legend(fontsize=6.5, loc="best")
+    ax.tick_params(labelsize=7)
+    return _png(fig)
+
+
+def boltzmann_png(
+    upper_energy_eV,
+    ordinate,
+    species=None,
+    *,
+    fits=None,
+    yerr=None,
+    title: str = "",
+    ylabel: str = "ln(I·λ / (g_k·A_ki))",
+) -> bytes:
+    """Boltzmann plot: ``ln(I λ / (g_k A_ki))`` against upper-level energy, one colour per species.
+
+    ``fits`` maps a species name to ``(slope_per_eV, intercept)``; the plasma temperature is
+    ``T = -1 / (k_B · slope)`` with ``k_B`` in eV/K (architecture contract: energy-unit intensities).
+    """
+    E = np.asarray(upper_energy_eV, dtype=float)
+    Y = np.asarray(ordinate, dtype=float)
+    if E.shape != Y.shape:
+        raise ValueError("energies and ordinates must have equal length")
+    sp = np.asarray(species if species is not None else ["lines"] * len(E), dtype=object)
+    fig, ax = _new((4.6, 3.2))
+    colours = ["#1f3b73", "#b03a2e", "#1e8449", "#7d3c98", "#b9770e", "#2e86c1"]
+    for i, name in enumerate(dict.fromkeys(sp.tolist())):
+        m = sp == name
+        c = colours[i % len(colours)]
+        ax.errorbar(
+            E[m],
+            Y[m],
+            yerr=None if yerr is None else np.asarray(yerr, float)[m],
+            fmt="o",
+            ms=4,
+            color=c,
+            capsize=2,
+            lw=0.8,
+            label=str(name),
+        )
+        if fits and name in fits:
+            slope, icpt = fits[name]
+            xx = np.linspace(E[m].min(), E[m].max(), 2)
+            ax.plot(xx, slope * xx + icpt, "-", color=c, lw=1)
+    ax.set_xlabel("upper level energy E_k (eV)")
+    ax.set_ylabel(ylabel)
+    if title:
+        ax.set_title(title, fontsize=9)
+    ax.legend(fontsize=6.5)
+    ax.tick_params(labelsize=7)
+    return _png(fig)
+
+
+__all__ = ["spectrum_png", "calibration_png", "boltzmann_png"]

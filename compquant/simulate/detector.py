@@ -1,0 +1,90 @@
+"""Detector model: spectral radiance on pixels -> digitised counts.
+
+Per pixel p and shot (common practice for CCD/ICCD detectors, e.g. Janesick
+2001, *Scientific Charge-Coupled Devices*)::
+
+    mean photoelectrons  m_p = S * R_p * L_p + D * t_exp
+    counts               c_p = clip(round(G * Poisson(m_p) + N(0, sigma_read) + b + b_p), 0, c_sat)
+
+with L_p the pixel-integrated radiance (W m^-2 sr^-1) from the forward model,
+S the sensitivity (photoelectrons per W m^-2 sr^-1 at unit relative response),
+R_p the true relative spectral response of the pixel (it folds in optics
+transmission, grating efficiency, quantum efficiency and the conversion from
+energy to photon number, so counts / R are proportional to energy radiance, the
+project's intensity convention), D the dark current (e-/s), t_exp the exposure,
+G the gain (counts per photoelectron), sigma_read the read noise (counts), b the
+bias and b_p a fixed per-pixel bias pattern, and c_sat the saturation level
+(a 16-bit digitiser: at most 65,535).  Dark frames are the same with L = 0.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from compquant.errors import ConfigError
+
+
+@dataclass(frozen=True)
+class Detector:
+    """Settings of the detector model (units in the field names)."""
+
+    photoelectrons_per_radiance: float
+    gain_counts_per_pe: float = 1.0
+    bias_counts: float = 500.0
+    bias_pattern_counts: float = 0.0
+    dark_current_pe_per_s: float = 0.0
+    read_noise_counts: float = 0.0
+    saturation_counts: float = 65535.0
+    exposure_s: float = 0.01
+
+    def __post_init__(self):
+        checks = {
+            "photoelectrons_per_radiance": self.photoelectrons_per_radiance > 0,
+            "gain_counts_per_pe": self.gain_counts_per_pe > 0,
+            "bias_counts": self.bias_counts >= 0,
+            "bias_pattern_counts": self.bias_pattern_counts >= 0,
+            "dark_current_pe_per_s": self.dark_current_pe_per_s >= 0,
+            "read_noise_counts": self.read_noise_counts >= 0,
+            "saturation_counts": 0 < self.saturation_counts <= 65535,
+            "exposure_s": self.exposure_s > 0,
+        }
+        for key, ok in checks.items():
+            if not ok:
+                raise ConfigError(f"detector setting {key} = {getattr(self, key)!r} is out of range",
+                                  where=f"instrument.{key}",
+                                  fix="sensitivity, gain and exposure > 0; noise, bias >= 0; "
+                                      "saturation in (0, 65535]")
+
+    def bias_pattern(self, n_pixels: int, rng: np.random.Generator) -> np.ndarray:
+        """Fixed per-pixel bias offsets (counts), drawn once per instrument."""
+        if self.bias_pattern_counts == 0:
+            return np.zeros(n_pixels)
+        return rng.normal(0.0, self.bias_pattern_counts, n_pixels)
+
+    def mean_photoelectrons(self, radiance, response) -> np.ndarray:
+        """Expected photoelectrons per pixel ``S R_p L_p + D t`` (n_shots, n_pixels)."""
+        lam = np.asarray(radiance, float) * (self.photoelectrons_per_radiance * np.asarray(response, float))
+        return lam + self.dark_current_pe_per_s * self.exposure_s
+
+    def digitise(self, mean_pe, pattern, rng: np.random.Generator, noise: bool = True) -> np.ndarray:
+        """Counts (uint16) from expected photoelectrons; ``noise=False`` gives the rounded mean."""
+        mean_pe = np.asarray(mean_pe, float)
+        if noise:
+            pe = rng.poisson(mean_pe).astype(float)
+            counts = self.gain_counts_per_pe * pe
+            if self.read_noise_counts > 0:
+                counts += rng.normal(0.0, self.read_noise_counts, mean_pe.shape)
+        else:
+            counts = self.gain_counts_per_pe * mean_pe
+        counts += self.bias_counts + pattern
+        return np.clip(np.rint(counts), 0, self.saturation_counts).astype(np.uint16)
+
+    def dark_frames(self, n_frames: int, n_pixels: int, pattern, rng, noise: bool = True) -> np.ndarray:
+        """``n_frames`` dark frames (uint16) at the same exposure."""
+        return self.digitise(np.full((n_frames, n_pixels), self.dark_current_pe_per_s * self.exposure_s),
+                             pattern, rng, noise)
+
+
+__all__ = ["Detector"]

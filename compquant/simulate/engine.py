@@ -1,0 +1,245 @@
+"""Scenario -> run file: the forward model plus the detector, shot by shot in batches.
+
+Random numbers come from one :class:`numpy.random.SeedSequence` of the run
+seed, split into independent streams for the detector's fixed pattern, the
+dark frames and each sample (in scenario order), so a given seed regenerates
+the same arrays bit for bit and changing one sample's shot count leaves the
+other samples' shots unchanged.
+
+Per shot i of a sample (nominal values from ``[plasma]`` and ``[laser]``)::
+
+    E_i  = E0 (1 + s_E z1)                      pulse energy, recorded per shot
+    T_i  = T0 (E_i/E0)^a_T exp(s_T z2)           temperature
+    ne_i = ne0 (E_i/E0)^a_n exp(s_n z3)          electron density
+    F_i  = (E_i/E0)^a_F exp(s_F z4)              collected light (emitting area)
+
+with independent standard normals z (E clipped to >= 0.5 E0).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from scipy.interpolate import PchipInterpolator
+
+from compquant.errors import ConfigError
+from compquant.plasma.forward import Instrument, LineSet, SpectrumModel
+from compquant.simulate.detector import Detector
+from compquant.simulate.scenario import Scenario, load_scenario
+
+
+@dataclass(frozen=True)
+class SimulationResult:
+    """What :func:`simulate_run` made."""
+
+    path: Path
+    n_shots: int
+    n_pixels: int
+    n_dark: int
+    seconds: float
+    bytes: int
+    truth: dict  # sample_id -> {element: mass fraction}
+
+
+def wavelength_axis(scenario: Scenario) -> np.ndarray:
+    """Nominal pixel wavelengths (nm), evenly spaced over the stated range."""
+    ins = scenario.instrument
+    return np.linspace(ins["wavelength_min_nm"], ins["wavelength_max_nm"], ins["n_pixels"])
+
+
+def _curve(nm, values, wl):
+    if nm is None:
+        return np.ones_like(wl)
+    f = PchipInterpolator(np.asarray(nm), np.asarray(values), extrapolate=False)
+    out = f(wl)
+    out = np.where(wl < nm[0], values[0], out)
+    out = np.where(wl > nm[-1], values[-1], out)
+    return out
+
+
+def stored_response(scenario: Scenario, wl: np.ndarray) -> np.ndarray:
+    """The relative response the lab has on file (written to the run), max 1."""
+    ins = scenario.instrument
+    r = _curve(ins["response_nm"], ins["response"], wl)
+    return r / r.max()
+
+
+def true_response(scenario: Scenario, wl: np.ndarray) -> np.ndarray:
+    """Response the detector really has on the day: stored x drift scale x drift factor(lambda)."""
+    d = scenario.drift
+    return stored_response(scenario, wl) * d["response_scale"] * _curve(d["factor_nm"], d["factor"], wl)
+
+
+def scenario_lines(scenario: Scenario) -> LineSet:
+    """Lines to model: the shipped list (or the scenario's file) for the scenario's elements."""
+    from compquant.atomic import load_line_list
+
+    df = load_line_list(scenario.lines_file)
+    els = scenario.line_elements or tuple(scenario.elements)
+    ins = scenario.instrument
+    lo, hi = ins["wavelength_min_nm"] - 2.0, ins["wavelength_max_nm"] + 2.0
+    df = df[df["element"].isin(list(els)) & (df["wavelength_nm"] >= lo) & (df["wavelength_nm"] <= hi)]
+    if df.empty:
+        raise ConfigError("no lines of the scenario's elements in the wavelength range",
+                          where=str(scenario.path), fix="widen the range or check the line list")
+    lines = LineSet.from_frame(df.reset_index(drop=True))
+    fb = scenario.plasma["stark_fallback_fwhm_nm"]
+    if fb > 0:
+        lines = lines.with_default_stark(fb, scenario.plasma["stark_fallback_ne_cm3"])
+    return lines
+
+
+def build_model(scenario: Scenario, wl_true: np.ndarray, lines: LineSet | None = None) -> SpectrumModel:
+    """The :class:`SpectrumModel` of the scenario (true pixel wavelengths)."""
+    ins, pl = scenario.instrument, scenario.plasma
+    instrument = Instrument(wl_true, resolving_power=ins["resolving_power"], fwhm_nm=ins["fwhm_nm"],
+                            oversample=ins["oversample"])
+    return SpectrumModel(instrument, lines if lines is not None else scenario_lines(scenario),
+                         self_absorption=pl["self_absorption"], continuum=pl["continuum"],
+                         nominal_temperature_k=pl["temperature_k"], nominal_ne_cm3=pl["ne_cm3"],
+                         max_stage=pl["max_stage"], lowering=pl["ionisation_lowering"])
+
+
+def detector_of(scenario: Scenario) -> Detector:
+    ins = scenario.instrument
+    return Detector(photoelectrons_per_radiance=ins["photoelectrons_per_radiance"],
+                    gain_counts_per_pe=ins["gain_counts_per_pe"], bias_counts=ins["bias_counts"],
+                    bias_pattern_counts=ins["bias_pattern_counts"],
+                    dark_current_pe_per_s=ins["dark_current_pe_per_s"],
+                    read_noise_counts=ins["read_noise_counts"], saturation_counts=ins["saturation_counts"],
+                    exposure_s=ins["exposure_s"])
+
+
+def shot_conditions(scenario: Scenario, n: int, rng: np.random.Generator, noise: bool = True):
+    """Per-shot pulse energy (mJ), T (K), n_e (cm^-3) and light factor (see module docstring)."""
+    pl, la = scenario.plasma, scenario.laser
+    z = rng.standard_normal((4, n)) if noise else np.zeros((4, n))
+    e0 = la["pulse_energy_mj"]
+    e = np.maximum(e0 * (1.0 + la["pulse_energy_rsd"] * z[0]), 0.5 * e0)
+    r = e / e0
+    t = pl["temperature_k"] * r ** pl["temperature_energy_exponent"] * np.exp(pl["temperature_rsd"] * z[1])
+    ne = pl["ne_cm3"] * r ** pl["ne_energy_exponent"] * np.exp(pl["ne_rsd"] * z[2])
+    f = r ** la["signal_energy_exponent"] * np.exp(la["signal_rsd"] * z[3])
+    return e, t, ne, f
+
+
+def _parse_time(text: str, where: str) -> _dt.datetime:
+    try:
+        t = _dt.datetime.fromisoformat(text.replace("Z", "+00:00"))
+    except ValueError as exc:
+        raise ConfigError(f"start_time {text!r} is not ISO 8601", where=where,
+                          fix="e.g. 2026-11-16T08:30:00Z") from exc
+    return t if t.tzinfo else t.replace(tzinfo=_dt.timezone.utc)
+
+
+def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = True, only=None):
+    """All arrays of the run as a dict (no file written); see :func:`simulate_run`.
+
+    ``only``: optional sample indices to compute; the other samples' spectra rows
+    are left zero (their random streams are independent, so the computed rows are
+    identical to those of the full run).
+    """
+    seed = scenario.seed if seed is None else int(seed)
+    if seed < 0:
+        raise ConfigError(f"seed {seed} is negative", where="--seed", fix="use a seed >= 0")
+    wl = wavelength_axis(scenario)
+    wl_true = wl + scenario.drift["wavelength_shift_nm"]
+    model = build_model(scenario, wl_true)
+    det = detector_of(scenario)
+    resp_true = true_response(scenario, wl)
+    ss = np.random.SeedSequence(seed)
+    s_dark, *s_samples = ss.spawn(1 + len(scenario.samples))
+    pattern_rng = np.random.default_rng(np.random.SeedSequence([scenario.instrument["pattern_seed"], 7919]))
+    pattern = det.bias_pattern(wl.size, pattern_rng)
+    n_total = sum(s.shots for s in scenario.samples)
+    wanted = set(range(len(scenario.samples))) if only is None else {int(i) for i in only}
+    spectra = np.zeros((n_total, wl.size), dtype=np.uint16)
+    index = np.empty(n_total, dtype=np.int32)
+    energy = np.empty(n_total)
+    times = np.empty(n_total)
+    x = np.empty(n_total)
+    y = np.empty(n_total)
+    la = scenario.laser
+    row, clock = 0, 0.0
+    for k, (smp, sseq) in enumerate(zip(scenario.samples, s_samples)):
+        rng = np.random.default_rng(sseq)
+        n = smp.shots
+        e, t, ne, f = shot_conditions(scenario, n, rng, noise)
+        if k in wanted:
+            rad = model.radiance(smp.composition, t, ne, length_mm=scenario.plasma["length_mm"], scale=f)
+            spectra[row:row + n] = det.digitise(det.mean_photoelectrons(rad, resp_true), pattern, rng, noise)
+        index[row:row + n] = k
+        energy[row:row + n] = np.round(e, 4)
+        shots = np.arange(n)
+        times[row:row + n] = clock + shots / la["repetition_rate_hz"]
+        x[row:row + n] = (shots % la["raster_columns"]) * la["raster_step_mm"]
+        y[row:row + n] = (shots // la["raster_columns"]) * la["raster_step_mm"]
+        clock += n / la["repetition_rate_hz"] + scenario.sample_interval_s
+        row += n
+    dark = None
+    if scenario.dark_frames:
+        dark = det.dark_frames(scenario.dark_frames, wl.size, pattern, np.random.default_rng(s_dark), noise)
+    return {"wavelength": wl, "spectra": spectra, "sample_index": index, "pulse_energy_mj": energy,
+            "time_s": times, "x_mm": x, "y_mm": y, "dark": dark, "response": stored_response(scenario, wl),
+            "saturation": float(det.saturation_counts), "exposure_s": det.exposure_s, "seed": seed}
+
+
+def simulate_run(scenario: Scenario | str | Path, output: str | Path, seed: int | None = None,
+                 noise: bool = True) -> SimulationResult:
+    """Simulate the scenario and write the run file ``output`` (atomically).
+
+    ``seed`` overrides the scenario's ``[scenario] seed``.  ``noise=False``
+    gives the expected counts (rounded) without shot-to-shot fluctuation or
+    detector noise.
+    """
+    from compquant.run import write_run
+
+    t0 = time.perf_counter()
+    sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
+    arr = simulate_arrays(sc, seed, noise)
+    start = _parse_time(sc.start_time, f"{sc.path}: scenario.start_time")
+    samples = [{"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref,
+                "description": s.description} for s in sc.samples]
+    ins, la, pl = sc.instrument, sc.laser, sc.plasma
+    instrument = {"name": ins["name"], "spectrometer": ins["spectrometer"], "detector": ins["detector"],
+                  "resolving_power": ins["resolving_power"] if ins["resolving_power"] else "",
+                  "fwhm_nm": ins["fwhm_nm"] if ins["fwhm_nm"] else "",
+                  "gain_counts_per_pe": ins["gain_counts_per_pe"], "read_noise_counts": ins["read_noise_counts"],
+                  "simulated": True, "simulator": "compquant simulate", "scenario": sc.id,
+                  "seed": arr["seed"]}
+    acquisition = {"technique": "LIBS", "gate_delay_us": ins["gate_delay_us"],
+                   "gate_width_us": ins["gate_width_us"], "laser_wavelength_nm": la["wavelength_nm"],
+                   "pulse_energy_mj": la["pulse_energy_mj"], "spot_size_um": la["spot_diameter_um"],
+                   "repetition_rate_hz": la["repetition_rate_hz"], "atmosphere": ins["atmosphere"],
+                   "accumulations": 1, "start_time": start.isoformat().replace("+00:00", "Z"),
+                   "lab": sc.lab, "nominal_temperature_k": pl["temperature_k"], "nominal_ne_cm3": pl["ne_cm3"]}
+    out = write_run(output, arr["wavelength"], arr["spectra"], samples, arr["sample_index"], dark=arr["dark"],
+                    response=arr["response"], saturation=arr["saturation"], exposure_s=arr["exposure_s"],
+                    dark_exposure_s=arr["exposure_s"] if arr["dark"] is not None else None,
+                    pulse_energy_mj=arr["pulse_energy_mj"], time_s=arr["time_s"], x_mm=arr["x_mm"],
+                    y_mm=arr["y_mm"], instrument=instrument, acquisition=acquisition, medium="air",
+                    dtype="uint16", compression="gzip")
+    size = Path(out).stat().st_size
+    truth = {s.sample_id: dict(s.composition) for s in sc.samples}
+    return SimulationResult(path=Path(out), n_shots=int(arr["spectra"].shape[0]),
+                            n_pixels=int(arr["wavelength"].size),
+                            n_dark=0 if arr["dark"] is None else int(arr["dark"].shape[0]),
+                            seconds=time.perf_counter() - t0, bytes=size, truth=truth)
+
+
+def truth_table(scenario: Scenario):
+    """True compositions as a DataFrame (sample_id, role, standard_ref, element, mass_fraction)."""
+    import pandas as pd
+
+    rows = [{"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref, "element": el,
+             "mass_fraction": w} for s in scenario.samples for el, w in sorted(s.composition.items())]
+    return pd.DataFrame(rows)
+
+
+__all__ = ["SimulationResult", "build_model", "detector_of", "scenario_lines", "shot_conditions",
+           "simulate_arrays", "simulate_run", "stored_response", "true_response", "truth_table",
+           "wavelength_axis"]
