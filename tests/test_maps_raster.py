@@ -108,7 +108,7 @@ def test_map_recovers_inclusion_position_and_contrast(raster_run):
     assert list(maps) == ["SCAN-1"]  # the spot-measured REF sample has no positions
     m = maps["SCAN-1"]
     zn, attrs = m["Zn"]
-    assert attrs["units"].startswith("relative") and attrs["line_id"] == "Zn I 330.259"
+    assert attrs["units"] == "relative to Cu I 327.396" and attrs["line_id"] == "Zn I 330.259"
     assert zn.shape == (20, 30) and np.isfinite(zn).all()
     X, Y = np.meshgrid(m["x_mm"], m["y_mm"])
     inside = (X - 0.90) ** 2 + (Y - 0.55) ** 2 <= 0.16**2

@@ -64,34 +64,17 @@ def write_run_outputs(lm, out_dir: Path) -> list[Path]:
     return write_outputs(lm, out_dir / "lines.csv", out_dir / "lines-shots.csv", out_dir / "lines-qc.csv")
 
 
-def _run_folders(paths, out_dir: Path) -> dict[str, Path]:
-    """One output folder per run, named from the run file (safe name, numbered if repeated)."""
-    from compquant.fileio import safe_filename
-
-    used: set[str] = set()
-    folders = {}
-    for p in paths:
-        name = safe_filename(Path(p).stem)
-        base, k = name, 1
-        while name in used:
-            k += 1
-            name = f"{base}-{k}"
-        used.add(name)
-        folders[str(p)] = out_dir / name
-    return folders
-
-
 def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler, quiet) -> None:
     import pandas as pd
 
     from compquant.errors import CompquantError
-    from compquant.parallel import collect_runs, measure_runs, open_executor
+    from compquant.parallel import collect_runs, measure_runs, open_executor, run_output_folders
 
     paths = collect_runs(run_paths)
     if out_dir.exists() and not out_dir.is_dir():
         raise OutputError("with several runs, -o must be a folder", where=str(out_dir),
                           fix="give an output folder, e.g. -o results/")
-    folders = _run_folders(paths, out_dir)
+    folders = run_output_folders(paths, out_dir)
     with open_executor(workers, scheduler) as ex:
         if not quiet:
             click.echo(f"measuring {len(paths)} runs on {ex.describe()}", err=True)

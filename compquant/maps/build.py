@@ -141,8 +141,13 @@ def rastered_samples(run, wanted: list[str] | None = None) -> list[int]:
 
 def intensity_units(method) -> str:
     """Units of the mapped line intensities under the method's normalisation."""
-    how = method.preprocess.normalise
-    return "counts nm" if how == "none" else f"relative ({how} normalisation)"
+    pre = method.preprocess
+    return {
+        "none": "counts nm",
+        "internal_standard": f"relative to {pre.normalise_line}",
+        "total_area": "relative to total emission",
+        "background": "relative to background",
+    }.get(pre.normalise, f"relative ({pre.normalise})")
 
 
 @dataclass

@@ -212,4 +212,13 @@ def _local_cluster(workers: int, memory_limit) -> Iterator:
         cluster.close()
 
 
-__all__ = ["DaskExecutor", "Executor", "SerialExecutor", "open_executor"]
+def peak_rss_bytes() -> int:
+    """Peak resident memory of this process (bytes), from ``getrusage`` (Linux reports KiB)."""
+    import resource
+    import sys
+
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return int(peak if sys.platform == "darwin" else peak * 1024)
+
+
+__all__ = ["DaskExecutor", "Executor", "SerialExecutor", "open_executor", "peak_rss_bytes"]
