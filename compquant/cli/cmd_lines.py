@@ -17,10 +17,12 @@ import click
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write
 
-SAFETY = ("Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-          "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
-          "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
-          "Follow local regulations and your laser safety officer.")
+SAFETY = (
+    "Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
+    "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
+    "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
+    "Follow local regulations and your laser safety officer."
+)
 
 
 def _write_csv(df, path: Path) -> None:
@@ -28,19 +30,52 @@ def _write_csv(df, path: Path) -> None:
         with atomic_write(path, "w", newline="") as fh:
             df.to_csv(fh, index=False, float_format="%.10g")
     except OSError as exc:
-        raise OutputError(f"cannot write ({exc.strerror})", where=str(path),
-                          fix="choose a writable output path") from exc
+        raise OutputError(
+            f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
+        ) from exc
 
 
-def _short_table(table) -> str:
-    cols = ("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")
-    rows = [cols]
-    for r in table.itertuples(index=False):
-        rows.append((str(r.sample_id), str(r.line_id), f"{r.intensity:.4g}", f"{r.u_intensity:.2g}",
-                     str(r.n_shots), f"{r.snr:.1f}", r.flags or "-"))
-    w = [max(len(x[i]) for x in rows) for i in range(len(cols))]
-    return "\n".join("  ".join(c.ljust(w[i]) if i in (0, 1, 6) else c.rjust(w[i])
-                               for i, c in enumerate(row)) for row in rows)
+def _columns(rows) -> str:
+    w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
+    return "\n".join(
+        "  ".join(c.ljust(w[i]) if i < 2 or i == len(row) - 1 else c.rjust(w[i]) for i, c in enumerate(row))
+        for row in rows
+    )
+
+
+def _short_table(table, max_rows: int = 60) -> str:
+    """The line table when short; otherwise one summary row per sample."""
+    if len(table) <= max_rows:
+        rows = [("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")]
+        for r in table.itertuples(index=False):
+            rows.append(
+                (
+                    str(r.sample_id),
+                    str(r.line_id),
+                    f"{r.intensity:.4g}",
+                    f"{r.u_intensity:.2g}",
+                    str(r.n_shots),
+                    f"{r.snr:.1f}",
+                    r.flags or "-",
+                )
+            )
+        return _columns(rows)
+    rows = [("sample_id", "role", "shots", "lines", "found", "flagged lines")]
+    for (sid, role), g in table.groupby(["sample_id", "role"], sort=False):
+        flagged = g[g["flags"] != ""]
+        found = int((~g["flags"].str.contains("not_found")).sum())
+        kinds = sorted({f for fl in flagged["flags"] for f in fl.split(";")})
+        rows.append(
+            (
+                str(sid),
+                str(role),
+                str(int(g["n_shots"].max())),
+                str(len(g)),
+                str(found),
+                f"{len(flagged)} ({', '.join(kinds)})" if kinds else "0",
+            )
+        )
+    return _columns(rows)
 
 
 def write_outputs(lm, out: Path, shots_out: Path | None, qc_out: Path) -> list[Path]:
@@ -72,29 +107,37 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
 
     paths = collect_runs(run_paths)
     if out_dir.exists() and not out_dir.is_dir():
-        raise OutputError("with several runs, -o must be a folder", where=str(out_dir),
-                          fix="give an output folder, e.g. -o results/")
+        raise OutputError(
+            "with several runs, -o must be a folder", where=str(out_dir), fix="give an output folder, e.g. -o results/"
+        )
     folders = run_output_folders(paths, out_dir)
     with open_executor(workers, scheduler) as ex:
         if not quiet:
             click.echo(f"measuring {len(paths)} runs on {ex.describe()}", err=True)
-        outcomes = measure_runs(ex, paths, method, chunk_shots=chunk_shots, outputs=folders,
-                                writer=write_run_outputs)
+        outcomes = measure_runs(ex, paths, method, chunk_shots=chunk_shots, outputs=folders, writer=write_run_outputs)
     tables, status = [], []
     for oc in outcomes:
         if oc.ok:
             t = oc.value["table"].copy()
             t.insert(0, "run", oc.run)
             tables.append(t)
-            status.append({"run": oc.run, "status": "ok", "outputs": str(folders[oc.run]),
-                           "n_shots": oc.value["n_shots"], "error": ""})
+            status.append(
+                {
+                    "run": oc.run,
+                    "status": "ok",
+                    "outputs": str(folders[oc.run]),
+                    "n_shots": oc.value["n_shots"],
+                    "error": "",
+                }
+            )
             if not quiet:
                 click.echo(f"ok: {oc.run} -> {folders[oc.run]}")
                 for note in oc.value["notes"]:
                     click.echo(f"note: {oc.run}: {note}")
         else:
-            status.append({"run": oc.run, "status": "failed", "outputs": "", "n_shots": 0,
-                           "error": oc.error.one_line()})
+            status.append(
+                {"run": oc.run, "status": "failed", "outputs": "", "n_shots": 0, "error": oc.error.one_line()}
+            )
             click.echo(f"error: {oc.error.one_line()}", err=True)
             if oc.error.traceback:
                 click.echo(oc.error.traceback, err=True)
@@ -103,33 +146,64 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     _write_csv(pd.DataFrame(status, columns=["run", "status", "outputs", "n_shots", "error"]), out_dir / "runs.csv")
     failed = [oc for oc in outcomes if not oc.ok]
     if not quiet:
-        click.echo(f"wrote {out_dir / 'lines-all.csv'} ({len(tables)} of {len(outcomes)} runs) and "
-                   f"{out_dir / 'runs.csv'}")
+        click.echo(
+            f"wrote {out_dir / 'lines-all.csv'} ({len(tables)} of {len(outcomes)} runs) and {out_dir / 'runs.csv'}"
+        )
     if failed:
         names = ", ".join(oc.run for oc in failed)
-        raise CompquantError(f"{len(failed)} of {len(outcomes)} runs failed: {names}", where=str(out_dir),
-                             fix="see the error lines above and runs.csv; the other runs' outputs are complete")
+        raise CompquantError(
+            f"{len(failed)} of {len(outcomes)} runs failed: {names}",
+            where=str(out_dir),
+            fix="see the error lines above and runs.csv; the other runs' outputs are complete",
+        )
 
 
 @click.command("lines", epilog=SAFETY)
 @click.argument("run_paths", metavar="RUN...", nargs=-1, required=True, type=click.Path())
-@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False),
-              help="Method file (TOML, docs/method-file.md).")
-@click.option("-o", "--output", required=True, type=click.Path(),
-              help="Line table CSV for one run; an output folder for several runs or a folder of runs.")
-@click.option("--shots", "shots_path", type=click.Path(dir_okay=False), default=None,
-              help="Per-shot CSV [default: <output stem>-shots.csv beside the output].")
+@click.option(
+    "--method",
+    "method_path",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Method file (TOML, docs/method-file.md).",
+)
+@click.option(
+    "-o",
+    "--output",
+    required=True,
+    type=click.Path(),
+    help="Line table CSV for one run; an output folder for several runs or a folder of runs.",
+)
+@click.option(
+    "--shots",
+    "shots_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Per-shot CSV [default: <output stem>-shots.csv beside the output].",
+)
 @click.option("--no-shots", is_flag=True, help="Do not write the per-shot CSV.")
-@click.option("--qc", "qc_path", type=click.Path(dir_okay=False), default=None,
-              help="Shot-QC report CSV [default: <output stem>-qc.csv].")
-@click.option("--chunk-shots", type=int, default=None,
-              help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].")
-@click.option("--workers", type=int, default=None,
-              help="Start a local Dask cluster of N worker processes (loopback only) and compute there.")
+@click.option(
+    "--qc",
+    "qc_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Shot-QC report CSV [default: <output stem>-qc.csv].",
+)
+@click.option(
+    "--chunk-shots",
+    type=int,
+    default=None,
+    help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].",
+)
+@click.option(
+    "--workers",
+    type=int,
+    default=None,
+    help="Start a local Dask cluster of N worker processes (loopback only) and compute there.",
+)
 @click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
-def command(run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler,
-            quiet):
+def command(run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, quiet):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
     centre, FWHM, signal-to-noise and flags per sample. Writes the line table, the per-shot
@@ -146,8 +220,11 @@ def command(run_paths, method_path, output, shots_path, no_shots, qc_path, chunk
     method = load_method(method_path)
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if shots_path or qc_path or no_shots:
-            raise OutputError("--shots, --qc and --no-shots apply to a single run", where="command line",
-                              fix="leave them out with several runs (each run's set is fixed)")
+            raise OutputError(
+                "--shots, --qc and --no-shots apply to a single run",
+                where="command line",
+                fix="leave them out with several runs (each run's set is fixed)",
+            )
         _many_runs(run_paths, method, Path(output), chunk_shots, workers, scheduler, quiet)
         return
     run_path = run_paths[0]

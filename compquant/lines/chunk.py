@@ -28,6 +28,9 @@ import numpy as np
 
 from compquant.preprocess.baseline import SNIP_BLOCK_ROWS, SnipWorkspace, estimate_baseline, snip_block
 
+#: rows per block for the AsLS / arPLS solvers (memory about 12 x rows x pixels x 8 bytes)
+WHITTAKER_BLOCK_ROWS = 512
+
 
 @dataclass
 class FitProjection:
@@ -104,7 +107,9 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
     bg = np.zeros(n)
     sums: dict[int, np.ndarray] = {}
     counts: dict[int, int] = {}
-    block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else max(1, n)
+    # SNIP: cache-sized blocks; Whittaker solvers: blocks that bound memory (about 12 arrays)
+    block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else WHITTAKER_BLOCK_ROWS if plan.baseline != "none" else n
+    block = max(1, min(block, n))
     tw = plan.total_weights if plan.total_weights is not None else np.ones(plan.n_pixels)
     # window weights are zero outside a few pixels per line: gather those pixels only
     W_shared = _compact(plan.W) if n_win else None
@@ -125,10 +130,8 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
         sib = si[r0:r1]
         samples_here = np.unique(sib)
         sat = None
-        if plan.saturation_threshold is not None:
-            satb = rb >= plan.saturation_threshold
-            if satb.any():
-                sat = satb
+        if plan.saturation_threshold is not None and rb.max() >= plan.saturation_threshold:
+            sat = rb >= plan.saturation_threshold
         if plan.inv_response is not None:
             y *= plan.inv_response
         if plan.baseline == "snip":
@@ -168,5 +171,6 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                 else:
                     sums[s] = add
                 counts[s] = counts.get(s, 0) + (ys.shape[0])
-    return ChunkResult(window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total,
-                       background=bg, sums=sums, counts=counts)
+    return ChunkResult(
+        window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total, background=bg, sums=sums, counts=counts
+    )
