@@ -160,6 +160,7 @@ def _standards_csv(path):
     path.write_text("\n".join(rows) + "\n")
     return path
 
+
 CAL_METHOD_EXTRA = """
 [calibration]
 basis = "ratio"
@@ -173,13 +174,23 @@ line = "Zn I 330.259"
 """
 
 
-def test_concentration_map_recovers_composition_contrast(tmp_path):
+@pytest.fixture(scope="module")
+def cal_setup(tmp_path_factory):
+    """A simulated run: six binary Cu-Zn standards (spots) and a rastered brass with a Zn-rich disc."""
+    tmp_path = tmp_path_factory.mktemp("calmap")
     std = _standards_csv(tmp_path / "standards.csv")
-    scen = SCENARIO.split("[[samples]]")[0].replace('[plasma]', '[standards]\nfile = "standards.csv"\ntruth_seed = 5\n[plasma]')
+    scen = SCENARIO.split("[[samples]]")[0].replace(
+        "[plasma]", '[standards]\nfile = "standards.csv"\ntruth_seed = 5\n[plasma]'
+    )
     (tmp_path / "scenario.toml").write_text(scen + CAL_SCENARIO_SAMPLES)
-    raster = (RASTER.replace("Cu = 0.7, Zn = 0.3", "Cu = 0.85, Zn = 0.15")
-              .replace("Cu = 0.4, Zn = 0.6", "Cu = 0.65, Zn = 0.35").replace("nx = 30", "nx = 24")
-              .replace("ny = 20", "ny = 16").replace("x_mm = 0.90", "x_mm = 0.60").replace("y_mm = 0.55", "y_mm = 0.40"))
+    raster = (
+        RASTER.replace("Cu = 0.7, Zn = 0.3", "Cu = 0.85, Zn = 0.15")
+        .replace("Cu = 0.4, Zn = 0.6", "Cu = 0.65, Zn = 0.35")
+        .replace("nx = 30", "nx = 24")
+        .replace("ny = 20", "ny = 16")
+        .replace("x_mm = 0.90", "x_mm = 0.60")
+        .replace("y_mm = 0.55", "y_mm = 0.40")
+    )
     (tmp_path / "raster.toml").write_text(raster)
     method = METHOD.replace('[preprocess.normalise]\nhow = "internal_standard"\nline = "Cu I 327.396"\n', "")
     (tmp_path / "method.toml").write_text(method + CAL_METHOD_EXTRA)
@@ -187,12 +198,41 @@ def test_concentration_map_recovers_composition_contrast(tmp_path):
     r = CliRunner()
     res = r.invoke(main, ["simulate-raster", str(tmp_path / "raster.toml"), "-o", str(run)])
     assert res.exit_code == 0, res.output
-    res = r.invoke(main, ["calibrate", str(run), "--method", str(tmp_path / "method.toml"), "--standards", str(std),
-                          "-o", str(cal), "--quiet"])
+    res = r.invoke(
+        main,
+        [
+            "calibrate",
+            str(run),
+            "--method",
+            str(tmp_path / "method.toml"),
+            "--standards",
+            str(std),
+            "-o",
+            str(cal),
+            "--quiet",
+        ],
+    )
     assert res.exit_code == 0, res.output
-    out = tmp_path / "maps"
-    res = r.invoke(main, ["map", str(run), "--method", str(tmp_path / "method.toml"), "--calibration", str(cal),
-                          "-o", str(out), "--quiet"])
+    return tmp_path
+
+
+def test_concentration_map_recovers_composition_contrast(cal_setup):
+    d = cal_setup
+    out = d / "maps"
+    res = CliRunner().invoke(
+        main,
+        [
+            "map",
+            str(d / "scan.h5"),
+            "--method",
+            str(d / "method.toml"),
+            "--calibration",
+            str(d / "cal.json"),
+            "-o",
+            str(out),
+            "--quiet",
+        ],
+    )
     assert res.exit_code == 0, res.output
     m = read_maps_h5(out / "maps.h5")["SCAN-1"]
     zn, attrs = m["Zn"]
@@ -200,7 +240,50 @@ def test_concentration_map_recovers_composition_contrast(tmp_path):
     X, Y = np.meshgrid(m["x_mm"], m["y_mm"])
     inside = (X - 0.60) ** 2 + (Y - 0.40) ** 2 <= 0.16**2
     # truth: 0.35 g/g in the disc, 0.15 g/g around it (the simulated composition); tolerance 8 %
-    # relative: calibration from 7 simulated standards of 20 shots and ~6 % shot scatter per node
+    # relative: calibration from 6 simulated standards of 20 shots and ~6 % shot scatter per node
     assert np.nanmean(zn[inside]) == pytest.approx(0.35, rel=0.08)
     assert np.nanmean(zn[~inside]) == pytest.approx(0.15, rel=0.08)
     assert (out / "maps-node-results.csv").exists() and (out / "SCAN-1_Zn.png").exists()
+
+
+def test_analyse_many_runs_combined_csv_and_failing_run(cal_setup, tmp_path):
+    import shutil
+
+    import pandas as pd
+
+    d = cal_setup
+    folder = tmp_path / "runs"
+    folder.mkdir()
+    shutil.copy(d / "scan.h5", folder / "day-a.h5")
+    shutil.copy(d / "scan.h5", folder / "day-b.h5")
+    bad = tmp_path / "broken.h5"
+    bad.write_bytes((d / "scan.h5").read_bytes()[:5000])  # truncated copy
+    out = tmp_path / "out"
+    res = CliRunner().invoke(
+        main,
+        [
+            "analyse",
+            str(folder),
+            str(bad),
+            "--method",
+            str(d / "method.toml"),
+            "--calibration",
+            str(d / "cal.json"),
+            "-o",
+            str(out),
+            "--quiet",
+            "--issued-at",
+            "2026-12-01T12:00:00Z",
+            "--no-figures",
+        ],
+    )
+    assert res.exit_code == 2, res.output
+    assert "broken.h5" in res.output
+    status = pd.read_csv(out / "runs.csv")
+    assert list(status["status"]) == ["ok", "ok", "failed"]
+    lims = pd.read_csv(out / "lims-all.csv", dtype=str, keep_default_na=False)
+    assert set(lims["run"]) == {str(folder / "day-a.h5"), str(folder / "day-b.h5")}
+    for name in ("day-a", "day-b"):
+        own = pd.read_csv(next((out / name).glob("*.csv")), dtype=str, keep_default_na=False)
+        sub = lims[lims["run"] == str(folder / f"{name}.h5")].drop(columns="run").reset_index(drop=True)
+        pd.testing.assert_frame_equal(sub, own)
