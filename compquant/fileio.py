@@ -43,6 +43,12 @@ def sha256_file(path: str | os.PathLike, chunk: int = 1 << 20) -> str:
     return h.hexdigest()
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 @contextlib.contextmanager
 def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     """Yield a temporary path beside ``target``; rename it into place on success.
@@ -61,6 +67,9 @@ def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name[:40]}.", suffix=".part", dir=folder)
     os.close(fd)
     tmp_path = Path(tmp)
+    # mkstemp creates 0600; give the final file the permissions a normal open() would (0666 & ~umask)
+    with contextlib.suppress(OSError):
+        os.chmod(tmp_path, 0o666 & ~_umask())
     try:
         yield tmp_path
         with open(tmp_path, "rb+") as fh:

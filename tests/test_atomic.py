@@ -423,3 +423,47 @@ def test_every_upper_level_is_bound_or_a_known_quasi_bound_level():
     above = df["ek_ev"].to_numpy() >= ie
     assert set(df.loc[above, "line_id"]) <= {"Cu I 427.511", "Cu I 458.695", "Cu I 465.112"}
     assert np.all(df["ek_ev"].to_numpy() < ie + 0.1)
+
+
+def test_loaders_raise_only_compquant_errors_on_garbage(tmp_path):
+    # robustness: arbitrary text in a user table gives a CompquantError, never a crash
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+
+    cells = st.sampled_from(
+        ["Cu", "1", "2", "324.754", "-1", "abc", "", "nan", "inf", "AA", "1e8", '"', ",,"]
+    )
+    rows = st.lists(st.lists(cells, min_size=1, max_size=16), min_size=0, max_size=4)
+
+    @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+    @given(rows=rows, binary=st.binary(max_size=40))
+    def check(rows, binary):
+        text = HEADER + "\n" + "\n".join(",".join(r) for r in rows) + "\n"
+        for name, data in (("a.csv", text.encode()), ("b.csv", binary)):
+            p = tmp_path / name
+            p.write_bytes(data)
+            for loader in (atomic.load_line_list, atomic.load_levels, atomic.load_element_table):
+                try:
+                    loader(p)
+                except CompquantError:
+                    pass
+
+    check()
+
+
+def test_line_weights_agree_with_level_tables():
+    # internal consistency between the two shipped tables (catches typos in g):
+    # a line from the ground level has gi = g(ground); a line level that coincides (within
+    # 2e-4 eV) with a J-resolved level of the level table has that level's 2J+1.
+    df = atomic.load_line_list()
+    bad = []
+    for _, r in df.iterrows():
+        lev = atomic.levels(r["species"])
+        if r["ei_ev"] == 0 and lev.iloc[0]["g"] != r["gi"]:
+            bad.append((r["line_id"], "gi", r["gi"], lev.iloc[0]["g"]))
+        exact = lev[lev["source"] == "from memory of NIST ASD, verify"]
+        for e_col, g_col in (("ei_ev", "gi"), ("ek_ev", "gk")):
+            m = exact[np.abs(exact["energy_ev"] - r[e_col]) < 2e-4]
+            if len(m) and r[g_col] not in set(m["g"]):
+                bad.append((r["line_id"], g_col, r[g_col], list(m["g"])))
+    assert not bad

@@ -28,9 +28,19 @@ def toy_ie(species):
 
 def one_line(wl=510.554, stark=0.02, shift=0.002):
     # Cu I 510.554 nm (A, g, E from memory of NIST ASD; Stark values invented for the test)
-    return LineSet.from_arrays(species=["Cu I"], wavelength_nm=[wl], aki=[2.0e6], gi=[6], gk=[4],
-                               ei_ev=[1.389], ek_ev=[3.817], mass_u=[63.546], stark_w_nm=[stark],
-                               stark_shift_nm=[shift], stark_ne_ref_cm3=[1e17])
+    return LineSet.from_arrays(
+        species=["Cu I"],
+        wavelength_nm=[wl],
+        aki=[2.0e6],
+        gi=[6],
+        gk=[4],
+        ei_ev=[1.389],
+        ek_ev=[3.817],
+        mass_u=[63.546],
+        stark_w_nm=[stark],
+        stark_shift_nm=[shift],
+        stark_ne_ref_cm3=[1e17],
+    )
 
 
 def model(lines, wl=None, **kw):
@@ -59,7 +69,8 @@ def hand_lte_line(t, ne, w_cu, w_zn, length_m):
 
 def test_line_intensity_matches_hand_lte_to_1e6():
     t, ne, L = 10000.0, 8e16, 1.5e-3
-    m = model(one_line(), continuum=False, lowering=False)
+    # thin lines carry the profile (width, shift) of the nominal conditions: make them these
+    m = model(one_line(), continuum=False, lowering=False, nominal_temperature_k=t, nominal_ne_cm3=ne)
     r = m.radiance({"Cu": 0.7, "Zn": 0.3}, t, ne, length_mm=1.5)
     assert r.shape == (1, 2000)
     assert r.sum() == pytest.approx(hand_lte_line(t, ne, 0.7, 0.3, L), rel=1e-6)
@@ -80,9 +91,16 @@ def test_line_intensity_per_shot_vector():
 
 def test_two_lines_ratio_is_boltzmann():
     # Cu I 510.554 and 521.820 (from memory of NIST ASD): pixel-summed ratio = Boltzmann ratio by hand
-    lines = LineSet.from_arrays(species=["Cu I", "Cu I"], wavelength_nm=[510.554, 521.820],
-                                aki=[2.0e6, 7.5e7], gi=[6, 4], gk=[4, 6], ei_ev=[1.389, 3.817],
-                                ek_ev=[3.817, 6.192], mass_u=[63.546, 63.546])
+    lines = LineSet.from_arrays(
+        species=["Cu I", "Cu I"],
+        wavelength_nm=[510.554, 521.820],
+        aki=[2.0e6, 7.5e7],
+        gi=[6, 4],
+        gk=[4, 6],
+        ei_ev=[1.389, 3.817],
+        ek_ev=[3.817, 6.192],
+        mass_u=[63.546, 63.546],
+    )
     wl = np.linspace(500, 530, 3000)
     t = 9500.0
     m = model(lines, wl=wl, continuum=False)
@@ -100,19 +118,37 @@ def test_chunking_and_synthesize_agree():
     a = model(one_line(), chunk_shots=2, **nom).radiance({"Cu": 1.0}, t, ne)
     b = model(one_line(), chunk_shots=64, **nom).radiance({"Cu": 1.0}, t, ne)
     np.testing.assert_allclose(a, b, rtol=1e-13, atol=0)
-    c = synthesize(np.linspace(480.0, 540.0, 2000), {"Cu": 1.0}, t, ne, resolving_power=3000.0,
-                   lines=one_line(), partition_function=toy_pf, ionisation_energy=toy_ie, masses_u=MASSES)
+    c = synthesize(
+        np.linspace(480.0, 540.0, 2000),
+        {"Cu": 1.0},
+        t,
+        ne,
+        resolving_power=3000.0,
+        lines=one_line(),
+        partition_function=toy_pf,
+        ionisation_energy=toy_ie,
+        masses_u=MASSES,
+    )
     np.testing.assert_allclose(c, a, rtol=1e-12)
 
 
 def test_self_absorption_thin_limit_and_planck_limit():
     # upper level made consistent with the photon energy so that Kirchhoff's law holds exactly
-    lines = LineSet.from_arrays(species=["Cu I"], wavelength_nm=[510.554], aki=[2.0e6], gi=[6], gk=[4],
-                                ei_ev=[1.389], ek_ev=[1.389 + sc.h * sc.c / 510.554e-9 / sc.e],
-                                mass_u=[63.546], stark_w_nm=[0.02], stark_ne_ref_cm3=[1e17])
+    lines = LineSet.from_arrays(
+        species=["Cu I"],
+        wavelength_nm=[510.554],
+        aki=[2.0e6],
+        gi=[6],
+        gk=[4],
+        ei_ev=[1.389],
+        ek_ev=[1.389 + sc.h * sc.c / 510.554e-9 / sc.e],
+        mass_u=[63.546],
+        stark_w_nm=[0.02],
+        stark_ne_ref_cm3=[1e17],
+    )
     wl = np.linspace(505.0, 516.0, 1100)
     thin = model(lines, wl=wl, continuum=False, self_absorption=False)
-    slab = model(lines, wl=wl, continuum=False, self_absorption=True)
+    slab = model(lines, wl=wl, continuum=False, self_absorption=True, thin_tau=0.0)  # always the slab path
     comp = {"Cu": 1.0}
     # trace amount of a thin line: slab = thin
     tau = slab.line_centre_optical_depth({"Cu": 1.0}, 1e4, 1e17, 1e-6)
@@ -143,8 +179,9 @@ def test_continuum_adds_smooth_background():
     d = r1 - r0
     assert np.all(d[5:-5] > 0)
     # Kramers: per-nm continuum ~ 1/lambda^2 (bracket near 1), per pixel width constant here
-    assert d[100] / d[-100] == pytest.approx((m1.instrument.wavelength_nm[-100] /
-                                              m1.instrument.wavelength_nm[100]) ** 2, rel=0.02)
+    assert d[100] / d[-100] == pytest.approx(
+        (m1.instrument.wavelength_nm[-100] / m1.instrument.wavelength_nm[100]) ** 2, rel=0.02
+    )
 
 
 def test_saha_consistency_in_model():
@@ -162,8 +199,9 @@ def test_bad_instrument():
     with pytest.raises(PhysicsError):
         Instrument(np.linspace(1, 2, 10))
     with pytest.raises(PhysicsError):
-        LineSet.from_arrays(species=["Cu"], wavelength_nm=[1], aki=[1], gi=[1], gk=[1], ei_ev=[0],
-                            ek_ev=[1], mass_u=[1])
+        LineSet.from_arrays(
+            species=["Cu"], wavelength_nm=[1], aki=[1], gi=[1], gk=[1], ei_ev=[0], ek_ev=[1], mass_u=[1]
+        )
 
 
 def test_observed_width_is_voigt_of_doppler_instrument_and_stark():
@@ -171,8 +209,14 @@ def test_observed_width_is_voigt_of_doppler_instrument_and_stark():
     # combines by Olivero & Longbothum 1977; measured on a finely sampled thin line
     lines = one_line(stark=0.3, shift=0.0)
     wl = np.linspace(507.0, 514.0, 3501)  # 0.002 nm pixels
-    m = SpectrumModel(Instrument(wl, fwhm_nm=0.05, oversample=2), lines, continuum=False, partition_function=toy_pf,
-                      ionisation_energy=toy_ie, masses_u=MASSES)
+    m = SpectrumModel(
+        Instrument(wl, fwhm_nm=0.05, oversample=2),
+        lines,
+        continuum=False,
+        partition_function=toy_pf,
+        ionisation_energy=toy_ie,
+        masses_u=MASSES,
+    )
     t, ne = 10000.0, 1e17
     r = m.radiance({"Cu": 1.0}, t, ne)[0]
     half = r.max() / 2
@@ -208,13 +252,46 @@ def test_with_shipped_atomic_data_pure_copper():
     j = lines.line_id.index("Cu I 521.820")
     k = KT * t
     u1, u2 = float(partition_function("Cu I", t)), float(partition_function("Cu II", t))
-    ratio = 2 * (2 * math.pi * sc.m_e * sc.k * t / sc.h**2) ** 1.5 * 1e-6 / ne * u2 / u1 * \
-        math.exp(-ionisation_energy("Cu I") / k)
+    ratio = (
+        2
+        * (2 * math.pi * sc.m_e * sc.k * t / sc.h**2) ** 1.5
+        * 1e-6
+        / ne
+        * u2
+        / u1
+        * math.exp(-ionisation_energy("Cu I") / k)
+    )
     n_cu1 = ne / ratio  # pure copper: n(Cu II) = n_e
-    eps = sc.h * sc.c / (lines.wavelength_nm[j] * 1e-9) / (4 * math.pi) * lines.aki[j] * \
-        n_cu1 * 1e6 * lines.gk[j] * math.exp(-lines.ek_ev[j] / k) / u1
+    eps = (
+        sc.h
+        * sc.c
+        / (lines.wavelength_nm[j] * 1e-9)
+        / (4 * math.pi)
+        * lines.aki[j]
+        * n_cu1
+        * 1e6
+        * lines.gk[j]
+        * math.exp(-lines.ek_ev[j] / k)
+        / u1
+    )
     window = np.abs(wl - 521.82) < 1.2
     others = [i for i, w in enumerate(lines.wavelength_nm) if abs(w - 521.82) < 3 and i != j]
     assert not others  # isolated in this window
     assert r[window].sum() == pytest.approx(eps * L, rel=1e-6)
     assert element("Cu").mass_u == pytest.approx(63.546, abs=1e-3)
+
+
+def test_thin_threshold_switches_paths_consistently():
+    # the slab path (thin_tau=0) and the thin path agree for a weak line; a strong one is thick
+    wl = np.linspace(505.0, 516.0, 1100)
+    kw = {"wl": wl, "continuum": False, "nominal_temperature_k": 1e4, "nominal_ne_cm3": 1e17}
+    slab = model(one_line(), self_absorption=True, thin_tau=0.0, **kw)
+    thin = model(one_line(), self_absorption=False, **kw)
+    auto = model(one_line(), self_absorption=True, **kw)
+    st = auto.lte_state({"Cu": 1.0}, np.array([1e4]), np.array([1e17]))
+    assert not auto.thick_lines(st, 1e-9).any()
+    assert auto.thick_lines(st, 5e-3).all()
+    a = slab.radiance({"Cu": 1.0}, 1e4, 1e17, length_mm=1e-6)
+    b = thin.radiance({"Cu": 1.0}, 1e4, 1e17, length_mm=1e-6)
+    assert np.abs(a - b).max() <= 1e-3 * b.max()  # same shape, through either path
+    assert a.sum() == pytest.approx(b.sum(), rel=1e-4)

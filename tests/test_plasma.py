@@ -103,8 +103,9 @@ def test_lte_pure_hydrogen_matches_saha_and_neutrality():
     st = solve_lte(t, ne, {"H": 1.0}, partition_function=toy_pf, ionisation_energy=toy_ie, lowering=False)
     # pure hydrogen: n_e = n(H II), and n(H II)/n(H I) is the Saha ratio
     np.testing.assert_allclose(st.densities["H II"], ne, rtol=1e-12)
-    np.testing.assert_allclose(st.densities["H II"] / st.densities["H I"],
-                               saha_ratio(t, ne, 2.0, 1.0, E_H_EV), rtol=1e-12)
+    np.testing.assert_allclose(
+        st.densities["H II"] / st.densities["H I"], saha_ratio(t, ne, 2.0, 1.0, E_H_EV), rtol=1e-12
+    )
 
 
 def test_lte_charge_neutrality_and_number_fractions():
@@ -256,3 +257,17 @@ def test_slab_thin_and_planck_limits():
     np.testing.assert_allclose(slab_radiance(lam, t, 60.0), b, rtol=1e-12)  # thick: I -> B
     assert self_absorption_coefficient(1e-9) == pytest.approx(1.0)
     assert self_absorption_coefficient(1.0) == pytest.approx(1 - math.exp(-1))
+
+
+def test_bare_nucleus_partition_function_is_one():
+    # H II is a bare proton: U = 1 exactly (textbook fact); the shipped H I levels give U(H I) ~ 2
+    from compquant.atomic import partition_function
+
+    st = solve_lte(np.array([8000.0, 12000.0]), 1e17, {"H": 1.0}, ionisation_energy=toy_ie, lowering=False)
+    np.testing.assert_array_equal(st.partition["H II"], 1.0)
+    u1 = partition_function("H I", np.array([8000.0, 12000.0]))
+    np.testing.assert_allclose(
+        st.densities["H II"] / st.densities["H I"],
+        saha_ratio(np.array([8000.0, 12000.0]), 1e17, u1, 1.0, E_H_EV),
+        rtol=1e-12,
+    )

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from pathlib import Path
 
@@ -123,6 +122,8 @@ def test_cli_writes_a_readable_run(tmp_path):
         assert run.saturation == 65000
         assert run.dark().shape == (6, 600)
         assert run.response().max() == pytest.approx(1.0)
+        assert not any("temperature" in k or "ne_cm3" in k for k in run.acquisition)  # plasma truth stays out
+        assert run.instrument["resolving_power"] == 3000
         pe = run.shots.pulse_energy_mj.to_numpy()
         assert np.all((pe > 40) & (pe < 80))
     # the truth is not in the run file
@@ -146,8 +147,9 @@ def test_noise_free_counts_follow_the_detector_equation(tmp_path):
     rad = model.radiance(sc.samples[0].composition, t, ne, length_mm=0.5, scale=f)[0]
     det = detector_of(sc)
     dark_mean = arr["dark"].astype(float).mean(axis=0)
-    signal = (arr["spectra"][0].astype(float) - dark_mean) / (det.gain_counts_per_pe * det.photoelectrons_per_radiance
-                                                              * true_response(sc, wl))
+    signal = (arr["spectra"][0].astype(float) - dark_mean) / (
+        det.gain_counts_per_pe * det.photoelectrons_per_radiance * true_response(sc, wl)
+    )
     # counts are rounded to integers: each pixel within 1 count of gain * S * R * L
     tol = 1.0 / (det.gain_counts_per_pe * det.photoelectrons_per_radiance * true_response(sc, wl))
     assert np.all(np.abs(signal - rad) <= tol + 1e-9)
@@ -240,8 +242,16 @@ def test_standards_truth_consistent_with_certificates():
 
 def test_standards_span_each_analyte_range():
     df = pd.read_csv(STANDARDS)
-    assert set(df.columns) == {"standard_id", "matrix", "element", "mass_fraction", "expanded_uncertainty",
-                               "k", "unit", "source"}
+    assert set(df.columns) == {
+        "standard_id",
+        "matrix",
+        "element",
+        "mass_fraction",
+        "expanded_uncertainty",
+        "k",
+        "unit",
+        "source",
+    }
     assert (df.k == 2).all()
     pct = df[(df.unit == "%") & (df.standard_id != "HRM-CA-108")]
     for el in ("Zn", "Sn", "Pb", "Ni", "Fe", "Al", "Mn"):
@@ -256,8 +266,7 @@ def test_demo_runs_regenerate_identically(day):
     seed = {"day1": 1, "day2": 2}[day]
     last = len(sc.samples) - 1
     # a reduced regeneration: the first and last samples and the dark frames, compared bit for bit
-    small = dataclasses.replace(sc)
-    arr = simulate_arrays(small, seed=seed, only=[0, last])
+    arr = simulate_arrays(sc, seed=seed, only=[0, last])
     with Run.open(DEMO / f"demo-{day}.h5") as run:
         for k in (0, last):
             sid = sc.samples[k].sample_id
@@ -268,3 +277,12 @@ def test_demo_runs_regenerate_identically(day):
         np.testing.assert_array_equal(run.shots.pulse_energy_mj.to_numpy(), arr["pulse_energy_mj"])
         assert run.n_shots == sum(s.shots for s in sc.samples)
     assert math.isfinite(arr["spectra"].astype(float).sum())
+
+
+def test_memory_limit_refused_before_allocating(tmp_path, monkeypatch):
+    from compquant.errors import ResourceLimitError
+
+    sc = load_scenario(write_mini(tmp_path))
+    monkeypatch.setenv("COMPQUANT_MEMORY_LIMIT", "10K")
+    with pytest.raises(ResourceLimitError, match="memory"):
+        simulate_arrays(sc)

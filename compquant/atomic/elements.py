@@ -102,6 +102,20 @@ def parse_species(species: str) -> tuple[str, int]:
     return sym, _ROMAN.index(roman) + 1
 
 
+def _read_csv(path: Path, what: str) -> pd.DataFrame:
+    """Read a user or shipped CSV table as strings; any read problem -> InputError."""
+    try:
+        raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True)
+    except FileNotFoundError as exc:
+        raise InputError(f"{what} not found", where=str(path), fix="check the path") from exc
+    except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise InputError(
+            f"cannot read {what} ({exc})", where=str(path), fix="save it as UTF-8 CSV with a header row"
+        ) from exc
+    raw.columns = [str(c).strip() for c in raw.columns]
+    return raw.apply(lambda col: col.str.strip())
+
+
 def _fail(path, row, col, what, fix):
     where = f"{path}, line {row}" + (f", column {col!r}" if col else "")
     raise AtomicDataError(what, where=where, fix=fix)
@@ -120,17 +134,7 @@ def load_element_table(path: str | os.PathLike | None = None) -> pd.DataFrame:
 
 
 def _read_element_table(path: Path) -> pd.DataFrame:
-    try:
-        df = pd.read_csv(path, dtype=str, keep_default_na=False)
-    except FileNotFoundError as exc:
-        raise InputError("element table not found", where=str(path), fix="check the path") from exc
-    except (OSError, UnicodeDecodeError, pd.errors.ParserError) as exc:
-        raise InputError(
-            f"cannot read element table ({exc})",
-            where=str(path),
-            fix="save it as UTF-8 CSV with a header row",
-        ) from exc
-    df.columns = [c.strip() for c in df.columns]
+    df = _read_csv(path, "element table")
     missing = [c for c in ELEMENT_COLUMNS if c not in df.columns]
     if missing:
         raise AtomicDataError(
@@ -210,14 +214,8 @@ def element(symbol: str) -> Element:
     )
 
 
-def ionisation_energy(species: str) -> float:
-    """Energy (eV) to ionise ``species`` to the next stage.
-
-    ``ionisation_energy("Cu I")`` is the first ionisation energy of Cu
-    (Cu -> Cu+), ``ionisation_energy("Cu II")`` the second (Cu+ -> Cu2+).
-    Values from the shipped element table (NIST via mendeleev).  Only stages I
-    and II are tabulated.
-    """
+@functools.cache
+def _ionisation_energy_cached(species: str) -> float:
     sym, ion = parse_species(species)
     el = element(sym)
     if ion == 1:
@@ -229,3 +227,14 @@ def ionisation_energy(species: str) -> float:
         where="element table",
         fix="only stages I and II are tabulated (and H has no stage II)",
     )
+
+
+def ionisation_energy(species: str) -> float:
+    """Energy (eV) to ionise ``species`` to the next stage.
+
+    ``ionisation_energy("Cu I")`` is the first ionisation energy of Cu
+    (Cu -> Cu+), ``ionisation_energy("Cu II")`` the second (Cu+ -> Cu2+).
+    Values from the shipped element table (NIST via mendeleev).  Only stages I
+    and II are tabulated.
+    """
+    return _ionisation_energy_cached(str(species))

@@ -36,8 +36,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from compquant.atomic.elements import _data_dir, known_symbols, parse_species, species_name
-from compquant.errors import AtomicDataError, InputError
+from compquant.atomic.elements import _data_dir, _read_csv, known_symbols, parse_species, species_name
+from compquant.errors import AtomicDataError
 
 __all__ = [
     "LINE_COLUMNS",
@@ -125,15 +125,7 @@ def _fail(path, row, col, what, fix):
 
 
 def _read_line_list(path: Path) -> pd.DataFrame:
-    try:
-        raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True)
-    except FileNotFoundError as exc:
-        raise InputError("line list not found", where=str(path), fix="check the path") from exc
-    except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        raise InputError(
-            f"cannot read line list ({exc})", where=str(path), fix="save it as UTF-8 CSV with a header row"
-        ) from exc
-    raw.columns = [str(c).strip() for c in raw.columns]
+    raw = _read_csv(path, "line list")
     missing = [c for c in LINE_COLUMNS if c not in raw.columns]
     if missing:
         raise AtomicDataError(
@@ -143,7 +135,6 @@ def _read_line_list(path: Path) -> pd.DataFrame:
         )
     if len(raw) == 0:
         raise AtomicDataError("the line list has no rows", where=str(path), fix="add lines")
-    raw = raw.apply(lambda s: s.str.strip())
     out = pd.DataFrame(index=range(len(raw)))
     symbols = known_symbols()
     # file line number of data row i: header is line 1

@@ -35,8 +35,8 @@ import numpy as np
 import pandas as pd
 from scipy import constants
 
-from compquant.atomic.elements import _data_dir, ionisation_energy, parse_species, species_name
-from compquant.errors import AtomicDataError, InputError
+from compquant.atomic.elements import _data_dir, _read_csv, ionisation_energy, parse_species, species_name
+from compquant.errors import AtomicDataError
 
 __all__ = [
     "K_B_EV",
@@ -67,15 +67,7 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
     a row merges the levels of a term).  Returns a DataFrame sorted by energy.
     """
     path = Path(path)
-    try:
-        raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True)
-    except FileNotFoundError as exc:
-        raise InputError("level table not found", where=str(path), fix="check the path") from exc
-    except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        raise InputError(
-            f"cannot read level table ({exc})", where=str(path), fix="save it as UTF-8 CSV with a header row"
-        ) from exc
-    raw.columns = [str(c).strip() for c in raw.columns]
+    raw = _read_csv(path, "level table")
     missing = [c for c in LEVEL_COLUMNS if c not in raw.columns]
     if missing:
         raise AtomicDataError(
@@ -140,6 +132,16 @@ def _shipped_levels(species: str) -> pd.DataFrame:
     return load_levels(_data_dir() / "levels" / idx.loc[species, "file"])
 
 
+@functools.cache
+def _shipped_arrays(species: str) -> tuple[np.ndarray, np.ndarray]:
+    lev = _shipped_levels(species)
+    e = lev["energy_ev"].to_numpy(dtype=float).copy()
+    g = lev["g"].to_numpy(dtype=float).copy()
+    e.flags.writeable = False
+    g.flags.writeable = False
+    return e, g
+
+
 def levels(species: str) -> pd.DataFrame:
     """The shipped level table of ``species`` (a copy)."""
     return _shipped_levels(species_name(*parse_species(species))).copy()
@@ -175,7 +177,11 @@ def partition_function(
     :func:`partition_function_completeness`).
     """
     name = species_name(*parse_species(species))
-    lev = _shipped_levels(name) if levels is None else levels
+    if levels is None:
+        e, g = _shipped_arrays(name)
+    else:
+        e = levels["energy_ev"].to_numpy(dtype=float)
+        g = levels["g"].to_numpy(dtype=float)
     e_ion = ionisation_energy(name) if ionisation_ev is None else float(ionisation_ev)
     if not np.isfinite(lowering_ev) or lowering_ev < 0:
         raise AtomicDataError(
@@ -197,8 +203,6 @@ def partition_function(
             where=f"partition function of {species}",
             fix="pass T in kelvin",
         )
-    e = lev["energy_ev"].to_numpy(dtype=float)
-    g = lev["g"].to_numpy(dtype=float)
     keep = e < e_ion - lowering_ev
     e, g = e[keep], g[keep]
     beta = 1.0 / (K_B_EV * T_arr.reshape(-1))

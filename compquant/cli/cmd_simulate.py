@@ -9,11 +9,21 @@ import click
 
 @click.command("simulate")
 @click.argument("scenario", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False, path_type=Path),
-              help="run file to write (HDF5, compquant run format).")
+@click.option(
+    "-o",
+    "--output",
+    required=True,
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="run file to write (HDF5, compquant run format).",
+)
 @click.option("--seed", type=int, default=None, help="random seed (default: [scenario] seed).")
-@click.option("--truth", "truth_path", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="also write the true compositions (CSV) for accuracy checks; never stored in the run.")
+@click.option(
+    "--truth",
+    "truth_path",
+    type=click.Path(dir_okay=False, path_type=Path),
+    default=None,
+    help="also write the true compositions (CSV) for accuracy checks; never stored in the run.",
+)
 @click.option("--no-noise", is_flag=True, help="expected counts only: no shot-to-shot or detector noise.")
 def command(scenario, output, seed, truth_path, no_noise):
     """Simulate a LIBS run from a scenario file (docs/scenario.md).
@@ -33,8 +43,10 @@ def command(scenario, output, seed, truth_path, no_noise):
 
     sc = load_scenario(scenario)
     res = simulate_run(sc, output, seed=seed, noise=not no_noise)
-    click.echo(f"wrote {res.path}: {res.n_shots} shots x {res.n_pixels} pixels, {res.n_dark} dark frames, "
-               f"{res.bytes / 1e6:.2f} MB in {res.seconds:.1f} s")
+    click.echo(
+        f"wrote {res.path}: {res.n_shots} shots x {res.n_pixels} pixels, {res.n_dark} dark frames, "
+        f"{res.bytes / 1e6:.2f} MB in {res.seconds:.1f} s"
+    )
     if truth_path is not None:
         df = truth_table(sc)
         with atomic_write(truth_path, newline="") as fh:

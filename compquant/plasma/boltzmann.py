@@ -35,8 +35,11 @@ def level_population(n_species_cm3, g, energy_ev, partition, temperature_k):
     ``energy_ev`` (eV, above the species' ground state), ``partition`` U_s(T)
     (dimensionless) and ``temperature_k`` (K).
     """
-    return np.asarray(n_species_cm3, dtype=float) * boltzmann_factor(g, energy_ev, temperature_k) / \
-        np.asarray(partition, dtype=float)
+    return (
+        np.asarray(n_species_cm3, dtype=float)
+        * boltzmann_factor(g, energy_ev, temperature_k)
+        / np.asarray(partition, dtype=float)
+    )
 
 
 def population_ratio(g_a, e_a_ev, g_b, e_b_ev, temperature_k):

@@ -33,12 +33,12 @@ from compquant.plasma.constants import EPS0, KB, ME, QE, C, H
 
 _E2 = QE * QE / (4.0 * math.pi * EPS0)  # e'^2, J m
 #: Kramers continuum constant C1 in W m^4 K^1/2 sr^-1 (1.63e-43)
-KRAMERS_C1 = (2**5 * math.pi * _E2**3 / (3.0 * ME * C**3)) * math.sqrt(2.0 * math.pi / (3.0 * KB * ME)) \
-    * C / (4.0 * math.pi)
+KRAMERS_C1 = (
+    (2**5 * math.pi * _E2**3 / (3.0 * ME * C**3)) * math.sqrt(2.0 * math.pi / (3.0 * KB * ME)) * C / (4.0 * math.pi)
+)
 
 
-def continuum_emissivity(wavelength_nm, temperature_k, ne_cm3, ion_charge_density_cm3, *, gaunt=1.0,
-                         biberman=1.0):
+def continuum_emissivity(wavelength_nm, temperature_k, ne_cm3, ion_charge_density_cm3, *, gaunt=1.0, biberman=1.0):
     """Continuum emission coefficient in W m^-3 sr^-1 nm^-1 (see module docstring).
 
     ``ion_charge_density_cm3`` is ``sum_z z^2 n_z`` over the ions (cm^-3).

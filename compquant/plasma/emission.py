@@ -45,9 +45,12 @@ def line_emissivity(wavelength_nm, aki_s, n_upper_cm3):
 
 def line_emissivity_lte(wavelength_nm, aki_s, gk, ek_ev, n_species_cm3, partition, temperature_k):
     """LTE line emissivity ``h c A g_k exp(-E_k/kT) n_s / (4 pi lambda U)`` (W m^-3 sr^-1)."""
-    nk = (np.asarray(n_species_cm3, float) * np.asarray(gk, float)
-          * np.exp(-np.asarray(ek_ev, float) / (KB_EV * np.asarray(temperature_k, float)))
-          / np.asarray(partition, float))
+    nk = (
+        np.asarray(n_species_cm3, float)
+        * np.asarray(gk, float)
+        * np.exp(-np.asarray(ek_ev, float) / (KB_EV * np.asarray(temperature_k, float)))
+        / np.asarray(partition, float)
+    )
     return line_emissivity(wavelength_nm, aki_s, nk)
 
 
@@ -60,8 +63,14 @@ def line_absorption_integrated(wavelength_nm, aki_s, gi, gk, n_lower_cm3, temper
     """
     lam_m = np.asarray(wavelength_nm, float) * 1e-9
     x = H * C / (lam_m * KB * np.asarray(temperature_k, float))
-    k_si = (lam_m**4 / (8.0 * math.pi * C)) * (np.asarray(gk, float) / np.asarray(gi, float)) * \
-        np.asarray(aki_s, float) * np.asarray(n_lower_cm3, float) * 1e6 * (-np.expm1(-x))
+    k_si = (
+        (lam_m**4 / (8.0 * math.pi * C))
+        * (np.asarray(gk, float) / np.asarray(gi, float))
+        * np.asarray(aki_s, float)
+        * np.asarray(n_lower_cm3, float)
+        * 1e6
+        * (-np.expm1(-x))
+    )
     return k_si * 1e9
 
 

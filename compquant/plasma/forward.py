@@ -7,22 +7,23 @@ slab.  The steps (equations in the modules named and in docs/physics.md):
 
 1. species densities from the LTE solver (:mod:`compquant.plasma.lte`:
    Saha-Boltzmann with charge neutrality);
-2. per line and shot the integrated emissivity eps = hc/(4 pi lambda) A n_k and,
-   with self-absorption, the integrated absorption coefficient
-   (:mod:`compquant.plasma.emission`);
-3. a physical profile per line and shot: Voigt of the Doppler width (T) and the
-   Stark width and shift (n_e) (:mod:`compquant.plasma.profiles`), evaluated on a
-   fine wavelength grid (``oversample`` cells per pixel, plus dense cells around
-   each line core) and renormalised to unit area inside the line's window
-   (+-25 FWHM, at least +-0.3 nm) so that the integrated intensity is exact;
-4. the continuum (:mod:`compquant.plasma.continuum`);
-5. radiance per cell: thin ``I = eps L`` or slab
-   ``I = (eps/kappa)(1 - exp(-kappa L)) = B(T)(1 - exp(-kappa L))``
-   (:mod:`compquant.plasma.slab`);
-6. instrument function and pixel integration in one sparse matrix: cell j with
-   width w_j at lambda_j adds ``w_j [Phi((b_p - lambda_j)/s_j) - Phi((a_p -
-   lambda_j)/s_j)]`` of its radiance to pixel p = [a_p, b_p] (Gaussian of FWHM
-   lambda_j/R, s = FWHM/2.3548), which conserves the integrated radiance.
+2. per line and shot the integrated emissivity eps = hc/(4 pi lambda) A n_k and
+   the integrated absorption coefficient (:mod:`compquant.plasma.emission`);
+3. a fine wavelength grid (``oversample`` cells per pixel plus dense cells around
+   each line core) and one sparse matrix for the instrument function and pixel
+   integration: cell j of width w_j at lambda_j adds ``w_j [Phi((b_p -
+   lambda_j)/s_j) - Phi((a_p - lambda_j)/s_j)]`` of its radiance to pixel p =
+   [a_p, b_p] (Gaussian of FWHM lambda_j/R, s = FWHM/2.3548); it conserves the
+   integrated radiance;
+4. optically thin lines (line-centre optical depth below ``thin_tau``): eps L per
+   shot times the line's unit pixel profile (Voigt of Doppler and Stark widths at
+   the nominal conditions, renormalised to unit area in the line's window of
+   +-25 FWHM, at least +-0.3 nm, then through the matrix of step 3);
+5. self-absorbed lines: per shot the Voigt profile (Doppler width from T, Stark
+   width and shift from n_e) on the fine cells of their windows, and the slab
+   radiance ``I = (eps/kappa)(1 - exp(-kappa L)) = B(T)(1 - exp(-kappa L))``
+   (:mod:`compquant.plasma.slab`), then through the matrix;
+6. the continuum (:mod:`compquant.plasma.continuum`) at the pixel centres, thin.
 
 Everything is vectorised over shots: T and n_e are arrays (one value per shot);
 shots are processed in chunks to bound memory.  Data glue (line list, partition
@@ -43,7 +44,7 @@ from scipy.special import ndtr
 from compquant.errors import PhysicsError
 from compquant.plasma.constants import KB_EV
 from compquant.plasma.continuum import continuum_emissivity
-from compquant.plasma.emission import line_absorption_integrated, line_emissivity_lte, planck_radiance
+from compquant.plasma.emission import line_absorption_integrated, line_emissivity_lte
 from compquant.plasma.lte import LTEState, mass_to_number_fractions, solve_lte
 from compquant.plasma.profiles import (
     FWHM_TO_SIGMA,
@@ -90,9 +91,24 @@ class LineSet:
         return len(self.line_id)
 
     @classmethod
-    def from_arrays(cls, *, species, wavelength_nm, aki, gi, gk, ei_ev, ek_ev, mass_u, line_id=None,
-                    stark_w_nm=None, stark_shift_nm=None, stark_ne_ref_cm3=None, stark_t_ref_k=None,
-                    stark_ne_exponent=None):
+    def from_arrays(
+        cls,
+        *,
+        species,
+        wavelength_nm,
+        aki,
+        gi,
+        gk,
+        ei_ev,
+        ek_ev,
+        mass_u,
+        line_id=None,
+        stark_w_nm=None,
+        stark_shift_nm=None,
+        stark_ne_ref_cm3=None,
+        stark_t_ref_k=None,
+        stark_ne_exponent=None,
+    ):
         """Build from plain sequences (species named like ``"Cu I"``)."""
         species = tuple(str(s) for s in species)
         n = len(species)
@@ -104,27 +120,43 @@ class LineSet:
             if a.size == 1 and n != 1:
                 a = np.full(n, float(a[0]))
             if a.size != n:
-                raise PhysicsError(f"line array of length {a.size} for {n} lines", where="LineSet",
-                                   fix="give one value per line")
+                raise PhysicsError(
+                    f"line array of length {a.size} for {n} lines", where="LineSet", fix="give one value per line"
+                )
             return a
 
         elements, stages = [], []
         for s in species:
             parts = s.split()
             if len(parts) != 2 or parts[1] not in _ROMAN:
-                raise PhysicsError(f"species {s!r} is not '<Element> <roman>'", where="LineSet",
-                                   fix="name species like 'Cu I' or 'Cu II'")
+                raise PhysicsError(
+                    f"species {s!r} is not '<Element> <roman>'",
+                    where="LineSet",
+                    fix="name species like 'Cu I' or 'Cu II'",
+                )
             elements.append(parts[0])
             stages.append(_ROMAN[parts[1]])
         wl = arr(wavelength_nm)
         if line_id is None:
             line_id = [f"{s} {w:.3f}" for s, w in zip(species, wl)]
-        return cls(line_id=tuple(str(x) for x in line_id), species=species, element=tuple(elements),
-                   stage=np.asarray(stages, dtype=int), wavelength_nm=wl, aki=arr(aki), gi=arr(gi),
-                   gk=arr(gk), ei_ev=arr(ei_ev), ek_ev=arr(ek_ev), stark_w_nm=arr(stark_w_nm),
-                   stark_shift_nm=arr(stark_shift_nm), stark_ne_ref_cm3=arr(stark_ne_ref_cm3),
-                   stark_t_ref_k=arr(stark_t_ref_k), mass_u=arr(mass_u),
-                   stark_ne_exponent=arr(stark_ne_exponent, 1.0))
+        return cls(
+            line_id=tuple(str(x) for x in line_id),
+            species=species,
+            element=tuple(elements),
+            stage=np.asarray(stages, dtype=int),
+            wavelength_nm=wl,
+            aki=arr(aki),
+            gi=arr(gi),
+            gk=arr(gk),
+            ei_ev=arr(ei_ev),
+            ek_ev=arr(ek_ev),
+            stark_w_nm=arr(stark_w_nm),
+            stark_shift_nm=arr(stark_shift_nm),
+            stark_ne_ref_cm3=arr(stark_ne_ref_cm3),
+            stark_t_ref_k=arr(stark_t_ref_k),
+            mass_u=arr(mass_u),
+            stark_ne_exponent=arr(stark_ne_exponent, 1.0),
+        )
 
     @classmethod
     def from_frame(cls, frame, masses_u: Mapping[str, float] | None = None):
@@ -136,8 +168,11 @@ class LineSet:
         need = ["species", "wavelength_nm", "aki", "gi", "gk", "ei_ev", "ek_ev"]
         missing = [c for c in need if c not in frame.columns]
         if missing:
-            raise PhysicsError(f"line list lacks column(s) {', '.join(missing)}", where="line list",
-                               fix="use the compquant.atomic line-list columns")
+            raise PhysicsError(
+                f"line list lacks column(s) {', '.join(missing)}",
+                where="line list",
+                fix="use the compquant.atomic line-list columns",
+            )
         species = [str(s) for s in frame["species"]]
         elements = [s.split()[0] for s in species]
         masses = _masses_for(set(elements), masses_u)
@@ -146,12 +181,22 @@ class LineSet:
             return frame[name].to_numpy(dtype=float) if name in frame.columns else None
 
         ids = list(frame["line_id"]) if "line_id" in frame.columns else None
-        return cls.from_arrays(species=species, wavelength_nm=col("wavelength_nm"), aki=col("aki"),
-                               gi=col("gi"), gk=col("gk"), ei_ev=col("ei_ev"), ek_ev=col("ek_ev"),
-                               mass_u=[masses[e] for e in elements], line_id=ids,
-                               stark_w_nm=col("stark_w_nm"), stark_shift_nm=col("stark_shift_nm"),
-                               stark_ne_ref_cm3=col("stark_ne_ref_cm3"), stark_t_ref_k=col("stark_t_ref_k"),
-                               stark_ne_exponent=col("stark_ne_exponent"))
+        return cls.from_arrays(
+            species=species,
+            wavelength_nm=col("wavelength_nm"),
+            aki=col("aki"),
+            gi=col("gi"),
+            gk=col("gk"),
+            ei_ev=col("ei_ev"),
+            ek_ev=col("ek_ev"),
+            mass_u=[masses[e] for e in elements],
+            line_id=ids,
+            stark_w_nm=col("stark_w_nm"),
+            stark_shift_nm=col("stark_shift_nm"),
+            stark_ne_ref_cm3=col("stark_ne_ref_cm3"),
+            stark_t_ref_k=col("stark_t_ref_k"),
+            stark_ne_exponent=col("stark_ne_exponent"),
+        )
 
     def with_default_stark(self, fwhm_nm: float, ne_ref_cm3: float = 1e17) -> LineSet:
         """A copy where lines without Stark data get FWHM ``fwhm_nm`` at ``ne_ref_cm3``.
@@ -180,8 +225,9 @@ def _masses_for(elements, masses_u):
     if masses_u is not None:
         missing = sorted(set(elements) - set(masses_u))
         if missing:
-            raise PhysicsError(f"no atomic mass for {', '.join(missing)}", where="masses",
-                               fix="give a mass (u) for every element")
+            raise PhysicsError(
+                f"no atomic mass for {', '.join(missing)}", where="masses", fix="give a mass (u) for every element"
+            )
         return {e: float(masses_u[e]) for e in elements}
     from compquant.atomic import element as _element
 
@@ -205,11 +251,17 @@ class Instrument:
     def __post_init__(self):
         wl = np.asarray(self.wavelength_nm, dtype=float)
         if wl.ndim != 1 or wl.size < 2 or not np.all(np.isfinite(wl)) or np.any(np.diff(wl) <= 0):
-            raise PhysicsError("pixel wavelengths must be a finite, strictly increasing 1-D array",
-                               where="instrument", fix="check the wavelength axis")
+            raise PhysicsError(
+                "pixel wavelengths must be a finite, strictly increasing 1-D array",
+                where="instrument",
+                fix="check the wavelength axis",
+            )
         if (self.resolving_power is None) == (self.fwhm_nm is None):
-            raise PhysicsError("give exactly one of resolving_power and fwhm_nm", where="instrument",
-                               fix="set the resolving power R (FWHM = lambda/R) or a constant FWHM")
+            raise PhysicsError(
+                "give exactly one of resolving_power and fwhm_nm",
+                where="instrument",
+                fix="set the resolving power R (FWHM = lambda/R) or a constant FWHM",
+            )
         if self.resolving_power is not None and not self.resolving_power > 0:
             raise PhysicsError("resolving power must be > 0", where="instrument", fix="e.g. 3000")
         if self.fwhm_nm is not None and not self.fwhm_nm > 0:
@@ -251,14 +303,29 @@ class SpectrumModel:
     masses_u : element -> mass (u), default compquant.atomic.
     stark_t_exponent : exponent a of the (T/T_ref)^a Stark-width scaling (default 0).
     chunk_shots : shots per internal chunk (memory bound).
+    thin_tau : lines whose line-centre optical depth stays below this in every shot
+        are treated as optically thin (integrated intensity times the unit pixel
+        profile at the nominal widths; error about thin_tau/2 of the line).
     """
 
-    def __init__(self, instrument: Instrument, lines: LineSet, *, self_absorption: bool = False,
-                 continuum: bool = True, nominal_temperature_k: float = 10000.0,
-                 nominal_ne_cm3: float = 1e17, max_stage: int = 2, lowering: bool = True,
-                 partition_function: Callable | None = None, ionisation_energy: Callable | None = None,
-                 masses_u: Mapping[str, float] | None = None, stark_t_exponent: float = 0.0,
-                 chunk_shots: int = 64):
+    def __init__(
+        self,
+        instrument: Instrument,
+        lines: LineSet,
+        *,
+        self_absorption: bool = False,
+        continuum: bool = True,
+        nominal_temperature_k: float = 10000.0,
+        nominal_ne_cm3: float = 1e17,
+        max_stage: int = 2,
+        lowering: bool = True,
+        partition_function: Callable | None = None,
+        ionisation_energy: Callable | None = None,
+        masses_u: Mapping[str, float] | None = None,
+        stark_t_exponent: float = 0.0,
+        chunk_shots: int = 64,
+        thin_tau: float = 1e-3,
+    ):
         self.instrument = instrument
         self.self_absorption = bool(self_absorption)
         self.continuum = bool(continuum)
@@ -268,6 +335,7 @@ class SpectrumModel:
         self.ionisation_energy = ionisation_energy
         self.stark_t_exponent = float(stark_t_exponent)
         self.chunk_shots = max(1, int(chunk_shots))
+        self.thin_tau = float(thin_tau)
         self._masses_arg = masses_u
         keep = lines.stage <= self.max_stage
         lines = lines.subset(keep)
@@ -276,8 +344,15 @@ class SpectrumModel:
     # ------------------------------------------------------------------ grid
     def _nominal_widths(self, lines, t, ne):
         wg = doppler_fwhm(lines.wavelength_nm, t, lines.mass_u)
-        wl = stark_fwhm(lines.stark_w_nm, ne, lines.stark_ne_ref_cm3, t, lines.stark_t_ref_k,
-                        self.stark_t_exponent, lines.stark_ne_exponent)
+        wl = stark_fwhm(
+            lines.stark_w_nm,
+            ne,
+            lines.stark_ne_ref_cm3,
+            t,
+            lines.stark_t_ref_k,
+            self.stark_t_exponent,
+            lines.stark_ne_exponent,
+        )
         return wg, wl
 
     def _build_grid(self, lines, t_nom, ne_nom):
@@ -303,14 +378,25 @@ class SpectrumModel:
         self.masses_u = _masses_for(set(lines.element), self._masses_arg) if len(lines) else {}
         wg, wl = self._nominal_widths(lines, t_nom, ne_nom)
         wv = voigt_fwhm(wg, wl)
-        shift = np.nan_to_num(stark_shift(lines.stark_shift_nm, ne_nom, lines.stark_ne_ref_cm3, t_nom,
-                                          lines.stark_t_ref_k, self.stark_t_exponent, lines.stark_ne_exponent))
+        shift = np.nan_to_num(
+            stark_shift(
+                lines.stark_shift_nm,
+                ne_nom,
+                lines.stark_ne_ref_cm3,
+                t_nom,
+                lines.stark_t_ref_k,
+                self.stark_t_exponent,
+                lines.stark_ne_exponent,
+            )
+        )
         centre = lines.wavelength_nm + shift
         base_step = np.interp(centre, edges[:-1], np.diff(edges)) / os_ if len(lines) else np.zeros(0)
         for c, f, bs in zip(centre, wv, base_step):
             if f < 4 * bs:  # core not resolved by the base grid: add dense cells
-                step = f / 10.0
-                nodes.append(c + step * np.arange(-150, 151))
+                nodes.append(c + f * np.arange(-30, 31) / 10.0)  # FWHM/10 over +-3 FWHM
+                wing = f * np.arange(3.4, 15.01, 0.4)  # FWHM/2.5 out to +-15 FWHM
+                nodes.append(c + wing)
+                nodes.append(c - wing)
         nodes = np.unique(np.concatenate(nodes))
         nodes = nodes[(nodes >= lo - 1e-9) & (nodes <= hi + 1e-9)]
         keep = np.concatenate([[True], np.diff(nodes) > 1e-9])
@@ -319,9 +405,17 @@ class SpectrumModel:
         self.cell_width = np.diff(nodes)
         # line windows (contiguous cell index ranges)
         half = np.clip(25.0 * wv, 0.3, 15.0)
-        self.window = np.stack([np.searchsorted(self.cell_mid, centre - half, "left"),
-                                np.searchsorted(self.cell_mid, centre + half, "right")], axis=1) \
-            if len(lines) else np.zeros((0, 2), dtype=int)
+        self.window = (
+            np.stack(
+                [
+                    np.searchsorted(self.cell_mid, centre - half, "left"),
+                    np.searchsorted(self.cell_mid, centre + half, "right"),
+                ],
+                axis=1,
+            )
+            if len(lines)
+            else np.zeros((0, 2), dtype=int)
+        )
         # instrument-function + pixel-integration matrix (n_cells x n_pixels)
         sig = ins.fwhm(self.cell_mid) * FWHM_TO_SIGMA
         e0 = np.clip(np.searchsorted(edges, self.cell_mid - 6 * sig, "right") - 1, 0, n_pix)
@@ -334,9 +428,23 @@ class SpectrumModel:
         pix = e0[:, None] + k[None, :-1]
         ok = (pix < n_pix) & (val > 0)
         rows = np.broadcast_to(np.arange(self.cell_mid.size)[:, None], pix.shape)[ok]
-        self._pixel_matrix_t = sparse.csr_matrix((val[ok], (pix[ok], rows)),
-                                                 shape=(n_pix, self.cell_mid.size))
+        self._pixel_matrix_t = sparse.csr_matrix((val[ok], (pix[ok], rows)), shape=(n_pix, self.cell_mid.size))
+        self._pixel_matrix_csc = self._pixel_matrix_t.tocsc()
+        self._pixel_width = np.diff(edges)
+        self._thick_cache = {}
         self.n_pixels = n_pix
+        # unit pixel profiles of every line at the nominal conditions (columns: lines)
+        cols = []
+        for j in range(len(lines)):
+            j0, j1 = self.window[j]
+            if j1 <= j0:
+                cols.append(sparse.csc_matrix((n_pix, 1)))
+                continue
+            phi = voigt(self.cell_mid[j0:j1], centre[j], wg[j], wl[j])
+            phi = phi / (phi @ self.cell_width[j0:j1])
+            col = self._pixel_matrix_csc[:, j0:j1] @ phi
+            cols.append(sparse.csc_matrix(np.where(col > 1e-300, col, 0.0)[:, None]))
+        self._unit_profiles_t = sparse.hstack(cols, format="csr") if cols else sparse.csr_matrix((n_pix, 0))
 
     # --------------------------------------------------------------- physics
     def _fractions(self, composition, basis):
@@ -345,15 +453,19 @@ class SpectrumModel:
             return mass_to_number_fractions(composition, masses)
         if basis == "number":
             return dict(composition)
-        raise PhysicsError(f"composition basis {basis!r} unknown", where="composition",
-                           fix="use 'mass' or 'number'")
+        raise PhysicsError(f"composition basis {basis!r} unknown", where="composition", fix="use 'mass' or 'number'")
 
     def lte_state(self, composition: Mapping[str, float], temperature_k, ne_cm3, basis: str = "mass"):
         """The :class:`LTEState` for this composition and per-shot T, n_e."""
-        return solve_lte(temperature_k, ne_cm3, self._fractions(composition, basis),
-                         partition_function=self.partition_function,
-                         ionisation_energy=self.ionisation_energy, max_stage=self.max_stage,
-                         lowering=self.lowering)
+        return solve_lte(
+            temperature_k,
+            ne_cm3,
+            self._fractions(composition, basis),
+            partition_function=self.partition_function,
+            ionisation_energy=self.ionisation_energy,
+            max_stage=self.max_stage,
+            lowering=self.lowering,
+        )
 
     def line_quantities(self, state: LTEState):
         """Per shot and line: integrated emissivity (W m^-3 sr^-1) and integrated
@@ -382,13 +494,27 @@ class SpectrumModel:
         _, kint = self.line_quantities(st)
         L = self.lines
         wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
-        wl = stark_fwhm(L.stark_w_nm[None, :], ne[:, None], L.stark_ne_ref_cm3[None, :], t[:, None],
-                        L.stark_t_ref_k[None, :], self.stark_t_exponent, L.stark_ne_exponent[None, :])
+        wl = stark_fwhm(
+            L.stark_w_nm[None, :],
+            ne[:, None],
+            L.stark_ne_ref_cm3[None, :],
+            t[:, None],
+            L.stark_t_ref_k[None, :],
+            self.stark_t_exponent,
+            L.stark_ne_exponent[None, :],
+        )
         peak = voigt(0.0, 0.0, wg, wl)
         return kint * peak * float(length_mm) * 1e-3
 
-    def radiance(self, composition: Mapping[str, float], temperature_k, ne_cm3, length_mm: float = 1.0,
-                 scale=None, basis: str = "mass") -> np.ndarray:
+    def radiance(
+        self,
+        composition: Mapping[str, float],
+        temperature_k,
+        ne_cm3,
+        length_mm: float = 1.0,
+        scale=None,
+        basis: str = "mass",
+    ) -> np.ndarray:
         """Pixel-integrated radiance (W m^-2 sr^-1 per pixel), shape (n_shots, n_pixels).
 
         ``temperature_k`` and ``ne_cm3`` are scalars or arrays (one per shot);
@@ -404,64 +530,179 @@ class SpectrumModel:
         out = np.empty((t.size, self.n_pixels))
         for a in range(0, t.size, self.chunk_shots):
             b = min(a + self.chunk_shots, t.size)
-            st = solve_lte(t[a:b], ne[a:b], fractions, partition_function=self.partition_function,
-                           ionisation_energy=self.ionisation_energy, max_stage=self.max_stage,
-                           lowering=self.lowering)
-            cell = self._cell_radiance(st, float(length_mm) * 1e-3)
-            out[a:b] = (self._pixel_matrix_t @ cell.T).T
+            st = solve_lte(
+                t[a:b],
+                ne[a:b],
+                fractions,
+                partition_function=self.partition_function,
+                ionisation_energy=self.ionisation_energy,
+                max_stage=self.max_stage,
+                lowering=self.lowering,
+            )
+            out[a:b] = self._chunk_radiance(st, float(length_mm) * 1e-3)
         if scale is not None:
             out *= np.broadcast_to(np.asarray(scale, dtype=float), (t.size,))[:, None]
         return out
 
-    def _cell_radiance(self, st: LTEState, length_m: float) -> np.ndarray:
-        t = st.temperature_k
-        ne = st.ne_cm3
-        nc = t.size
-        mid = self.cell_mid
-        w = self.cell_width
-        emis = np.zeros((nc, mid.size))
-        kap = np.zeros((nc, mid.size)) if self.self_absorption else None
-        eps, kint = self.line_quantities(st)
+    def thick_lines(self, st: LTEState, length_m: float) -> np.ndarray:
+        """Boolean mask of the lines given the full slab treatment for these shots.
+
+        A line is thick when its line-centre optical depth exceeds ``thin_tau`` in
+        any shot; a line whose centre lies in the window of a thick line joins it
+        (it is absorbed by that line's wing).
+        """
+        n = len(self.lines)
+        if not self.self_absorption or n == 0:
+            return np.zeros(n, dtype=bool)
+        t = np.atleast_1d(st.temperature_k)
+        ne = np.atleast_1d(st.ne_cm3)
+        _, kint = self.line_quantities(st)
         L = self.lines
-        for j in range(len(L)):
-            if not np.any(eps[:, j] > 0):
-                continue
-            j0, j1 = self.window[j]
-            if j1 <= j0:
-                continue
-            x = mid[j0:j1]
-            wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
-            wl = stark_fwhm(L.stark_w_nm[j], ne, L.stark_ne_ref_cm3[j], t, L.stark_t_ref_k[j],
-                            self.stark_t_exponent, L.stark_ne_exponent[j])
-            sh = np.nan_to_num(stark_shift(L.stark_shift_nm[j], ne, L.stark_ne_ref_cm3[j], t,
-                                           L.stark_t_ref_k[j], self.stark_t_exponent, L.stark_ne_exponent[j]))
-            phi = voigt(x[None, :], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
-            area = phi @ w[j0:j1]
-            phi /= area[:, None]
-            emis[:, j0:j1] += eps[:, j, None] * phi
-            if kap is not None:
-                kap[:, j0:j1] += kint[:, j, None] * phi
+        wg = doppler_fwhm(L.wavelength_nm[None, :], t[:, None], L.mass_u[None, :])
+        wl = stark_fwhm(
+            L.stark_w_nm[None, :],
+            ne[:, None],
+            L.stark_ne_ref_cm3[None, :],
+            t[:, None],
+            L.stark_t_ref_k[None, :],
+            self.stark_t_exponent,
+            L.stark_ne_exponent[None, :],
+        )
+        tau0 = kint * voigt(0.0, 0.0, wg, wl) * length_m
+        thick = tau0.max(axis=0) > self.thin_tau
+        if thick.any():
+            centre_cell = np.searchsorted(self.cell_mid, L.wavelength_nm)
+            for j in np.flatnonzero(thick):
+                j0, j1 = self.window[j]
+                thick |= (centre_cell >= j0) & (centre_cell < j1)
+        return thick
+
+    def _chunk_radiance(self, st: LTEState, length_m: float) -> np.ndarray:
+        t = np.atleast_1d(st.temperature_k)
+        ne = np.atleast_1d(st.ne_cm3)
+        nc = t.size
+        eps, kint = self.line_quantities(st)
+        thick = self.thick_lines(st, length_m)
+        # optically thin lines: integrated radiance per shot times the unit pixel profile
+        thin_eps = np.where(thick[None, :], 0.0, eps) * length_m
+        out = (self._unit_profiles_t @ thin_eps.T).T if len(self.lines) else np.zeros((nc, self.n_pixels))
         if self.continuum:
             zz = np.zeros(nc)
             for sp, n in st.densities.items():
                 z = _ROMAN[sp.split()[1]] - 1
                 if z > 0:
-                    zz = zz + z * z * n
-            ec = continuum_emissivity(mid[None, :], t[:, None], ne[:, None], zz[:, None])
-            emis += ec
-            if kap is not None:
-                kap += ec / planck_radiance(mid[None, :], t[:, None])
-        if kap is None:
-            return emis * length_m
+                    zz = zz + z * z * np.atleast_1d(n)
+            wl = self.instrument.wavelength_nm
+            out += continuum_emissivity(wl[None, :], t[:, None], ne[:, None], zz[:, None]) * (
+                self._pixel_width[None, :] * length_m
+            )
+        if thick.any():
+            out += self._thick_radiance(np.flatnonzero(thick), t, ne, eps, kint, length_m)
+        return out
+
+    def _thick_radiance(self, idx, t, ne, eps, kint, length_m):
+        """Slab radiance of the thick lines on their fine cells, through the instrument matrix."""
+        key = tuple(int(i) for i in idx)
+        cached = self._thick_cache.get(key)
+        if cached is None:
+            cells = np.unique(np.concatenate([np.arange(*self.window[j]) for j in idx]))
+            cached = (cells, self._pixel_matrix_csc[:, cells].tocsr())
+            if len(self._thick_cache) > 32:
+                self._thick_cache.clear()
+            self._thick_cache[key] = cached
+        cells, matrix = cached
+        mid = self.cell_mid[cells]
+        w = self.cell_width[cells]
+        nc = t.size
+        emis = np.zeros((nc, cells.size))
+        kap = np.zeros((nc, cells.size))
+        L = self.lines
+        for j in idx:
+            j0, j1 = self.window[j]
+            if j1 <= j0 or not np.any(eps[:, j] > 0):
+                continue
+            lo = np.searchsorted(cells, j0)
+            hi = lo + (j1 - j0)
+            x = mid[lo:hi]
+            wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
+            wl = stark_fwhm(
+                L.stark_w_nm[j],
+                ne,
+                L.stark_ne_ref_cm3[j],
+                t,
+                L.stark_t_ref_k[j],
+                self.stark_t_exponent,
+                L.stark_ne_exponent[j],
+            )
+            sh = np.nan_to_num(
+                stark_shift(
+                    L.stark_shift_nm[j],
+                    ne,
+                    L.stark_ne_ref_cm3[j],
+                    t,
+                    L.stark_t_ref_k[j],
+                    self.stark_t_exponent,
+                    L.stark_ne_exponent[j],
+                )
+            )
+            phi = voigt(x[None, :], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
+            phi /= (phi @ w[lo:hi])[:, None]
+            emis[:, lo:hi] += eps[:, j, None] * phi
+            kap[:, lo:hi] += kint[:, j, None] * phi
         # homogeneous slab: I = (eps/kappa)(1 - exp(-tau)) = eps L (1 - exp(-tau))/tau; in LTE
         # eps/kappa = B_lambda(T) (Kirchhoff), so this is B (1 - exp(-tau)); written in the
         # eps L form it keeps the thin limit exact even where tabulated E_k - E_i and hc/lambda differ
-        tau = kap * length_m
-        return emis * length_m * self_absorption_coefficient(tau)
+        cell = emis * length_m * self_absorption_coefficient(kap * length_m)
+        return (matrix @ cell.T).T
+
+    def _cell_radiance(self, st: LTEState, length_m: float) -> np.ndarray:
+        """Radiance (W m^-2 sr^-1 nm^-1) on every fine cell, all lines with the slab model
+        (or thin), continuum excluded; for checks and figures (slow: every cell)."""
+        t = np.atleast_1d(st.temperature_k)
+        ne = np.atleast_1d(st.ne_cm3)
+        eps, kint = self.line_quantities(st)
+        nc = t.size
+        mid, w = self.cell_mid, self.cell_width
+        emis = np.zeros((nc, mid.size))
+        kap = np.zeros((nc, mid.size))
+        L = self.lines
+        for j in range(len(L)):
+            j0, j1 = self.window[j]
+            if j1 <= j0 or not np.any(eps[:, j] > 0):
+                continue
+            wg = doppler_fwhm(L.wavelength_nm[j], t, L.mass_u[j])
+            wl = stark_fwhm(
+                L.stark_w_nm[j],
+                ne,
+                L.stark_ne_ref_cm3[j],
+                t,
+                L.stark_t_ref_k[j],
+                self.stark_t_exponent,
+                L.stark_ne_exponent[j],
+            )
+            sh = np.nan_to_num(
+                stark_shift(
+                    L.stark_shift_nm[j],
+                    ne,
+                    L.stark_ne_ref_cm3[j],
+                    t,
+                    L.stark_t_ref_k[j],
+                    self.stark_t_exponent,
+                    L.stark_ne_exponent[j],
+                )
+            )
+            phi = voigt(mid[None, j0:j1], (L.wavelength_nm[j] + sh)[:, None], wg[:, None], wl[:, None])
+            phi /= (phi @ w[j0:j1])[:, None]
+            emis[:, j0:j1] += eps[:, j, None] * phi
+            kap[:, j0:j1] += kint[:, j, None] * phi
+        if not self.self_absorption:
+            return emis * length_m
+        return emis * length_m * self_absorption_coefficient(kap * length_m)
 
 
-def default_lines(wavelength_min_nm: float | None = None, wavelength_max_nm: float | None = None,
-                  elements=None) -> LineSet:
+def default_lines(
+    wavelength_min_nm: float | None = None, wavelength_max_nm: float | None = None, elements=None
+) -> LineSet:
     """The shipped line list of :mod:`compquant.atomic` as a :class:`LineSet` (data glue)."""
     from compquant.atomic import load_line_list
 
@@ -475,10 +716,23 @@ def default_lines(wavelength_min_nm: float | None = None, wavelength_max_nm: flo
     return LineSet.from_frame(df.reset_index(drop=True))
 
 
-def synthesize(wavelength_nm, composition: Mapping[str, float], temperature_k, ne_cm3, *,
-               length_mm: float = 1.0, resolving_power: float | None = None, fwhm_nm: float | None = None,
-               lines: LineSet | None = None, self_absorption: bool = False, continuum: bool = True,
-               scale=None, basis: str = "mass", oversample: int = 4, **model_kw) -> np.ndarray:
+def synthesize(
+    wavelength_nm,
+    composition: Mapping[str, float],
+    temperature_k,
+    ne_cm3,
+    *,
+    length_mm: float = 1.0,
+    resolving_power: float | None = None,
+    fwhm_nm: float | None = None,
+    lines: LineSet | None = None,
+    self_absorption: bool = False,
+    continuum: bool = True,
+    scale=None,
+    basis: str = "mass",
+    oversample: int = 4,
+    **model_kw,
+) -> np.ndarray:
     """One-call forward model: pixel-integrated radiance (W m^-2 sr^-1 per pixel).
 
     ``composition``: element -> mass fraction (``basis="mass"``) or number
@@ -489,14 +743,21 @@ def synthesize(wavelength_nm, composition: Mapping[str, float], temperature_k, n
     """
     if resolving_power is None and fwhm_nm is None:
         resolving_power = 3000.0
-    ins = Instrument(np.asarray(wavelength_nm, float), resolving_power=resolving_power, fwhm_nm=fwhm_nm,
-                     oversample=oversample)
+    ins = Instrument(
+        np.asarray(wavelength_nm, float), resolving_power=resolving_power, fwhm_nm=fwhm_nm, oversample=oversample
+    )
     if lines is None:
         lines = default_lines(elements=list(composition))
     scalar = np.ndim(temperature_k) == 0 and np.ndim(ne_cm3) == 0
-    model = SpectrumModel(ins, lines, self_absorption=self_absorption, continuum=continuum,
-                          nominal_temperature_k=float(np.mean(temperature_k)),
-                          nominal_ne_cm3=float(np.mean(ne_cm3)), **model_kw)
+    model = SpectrumModel(
+        ins,
+        lines,
+        self_absorption=self_absorption,
+        continuum=continuum,
+        nominal_temperature_k=float(np.mean(temperature_k)),
+        nominal_ne_cm3=float(np.mean(ne_cm3)),
+        **model_kw,
+    )
     out = model.radiance(composition, temperature_k, ne_cm3, length_mm=length_mm, scale=scale, basis=basis)
     return out[0] if scalar else out
 

@@ -45,17 +45,22 @@ def mass_to_number_fractions(mass_fractions: Mapping[str, float], masses_u: Mapp
     moles = {}
     for el, w in mass_fractions.items():
         if el not in masses_u:
-            raise PhysicsError(f"no atomic mass for element {el!r}", where="composition",
-                               fix="give its mass or remove the element")
+            raise PhysicsError(
+                f"no atomic mass for element {el!r}", where="composition", fix="give its mass or remove the element"
+            )
         w = float(w)
         if not np.isfinite(w) or w < 0:
-            raise PhysicsError(f"mass fraction of {el} is {w}", where="composition",
-                               fix="mass fractions must be finite and >= 0")
+            raise PhysicsError(
+                f"mass fraction of {el} is {w}", where="composition", fix="mass fractions must be finite and >= 0"
+            )
         moles[el] = w / float(masses_u[el])
     total = sum(moles.values())
     if total <= 0:
-        raise PhysicsError("composition has no element with a positive mass fraction", where="composition",
-                           fix="give at least one positive mass fraction")
+        raise PhysicsError(
+            "composition has no element with a positive mass fraction",
+            where="composition",
+            fix="give at least one positive mass fraction",
+        )
     return {el: m / total for el, m in moles.items()}
 
 
@@ -120,8 +125,27 @@ class LTEState:
         return total
 
 
-def stage_fractions(temperature_k, ne_cm3, element: str, *, partition_function: Callable,
-                    ionisation_energy: Callable, max_stage: int = 2, lowering: bool = True):
+#: atomic numbers of the elements that can be fully stripped within max_stage <= 3
+_LIGHT_Z = {"H": 1, "He": 2}
+
+
+def _partition(partition_function, element, stage, t):
+    """U of a species; a bare nucleus (e.g. H II) has U = 1 exactly."""
+    if _LIGHT_Z.get(element) == stage - 1:
+        return np.ones_like(np.asarray(t, dtype=float))
+    return partition_function(species_name(element, stage), t)
+
+
+def stage_fractions(
+    temperature_k,
+    ne_cm3,
+    element: str,
+    *,
+    partition_function: Callable,
+    ionisation_energy: Callable,
+    max_stage: int = 2,
+    lowering: bool = True,
+):
     """Fractions of one element in stages 1..max_stage, plus U and lowering per stage.
 
     Returns ``(fractions, partitions, lowerings)``: lists indexed by stage - 1 of
@@ -130,8 +154,10 @@ def stage_fractions(temperature_k, ne_cm3, element: str, *, partition_function: 
     t = np.asarray(temperature_k, dtype=float)
     ne = np.asarray(ne_cm3, dtype=float)
     shape = np.broadcast(t, ne).shape
-    u = [np.broadcast_to(np.asarray(partition_function(species_name(element, z), t), float), shape)
-         for z in range(1, max_stage + 1)]
+    u = [
+        np.broadcast_to(np.asarray(_partition(partition_function, element, z, t), float), shape)
+        for z in range(1, max_stage + 1)
+    ]
     ratios = [np.ones(shape)]
     lows = []
     for z in range(1, max_stage):
@@ -145,9 +171,16 @@ def stage_fractions(temperature_k, ne_cm3, element: str, *, partition_function: 
     return [r / total for r in ratios], u, lows
 
 
-def solve_lte(temperature_k, ne_cm3, number_fractions: Mapping[str, float], *,
-              partition_function: Callable | None = None, ionisation_energy: Callable | None = None,
-              max_stage: int = 2, lowering: bool = True) -> LTEState:
+def solve_lte(
+    temperature_k,
+    ne_cm3,
+    number_fractions: Mapping[str, float],
+    *,
+    partition_function: Callable | None = None,
+    ionisation_energy: Callable | None = None,
+    max_stage: int = 2,
+    lowering: bool = True,
+) -> LTEState:
     """Species densities in LTE at given T (K) and n_e (cm^-3) with charge neutrality.
 
     ``number_fractions`` maps element symbol -> atom fraction (normalised here).
@@ -156,32 +189,43 @@ def solve_lte(temperature_k, ne_cm3, number_fractions: Mapping[str, float], *,
     lowering (Griem 1964).  Equations: see the module docstring.
     """
     if max_stage not in (1, 2, 3):
-        raise PhysicsError(f"max_stage must be 1, 2 or 3, not {max_stage}", where="solve_lte",
-                           fix="use 2 (neutral and singly ionised) unless the plasma is very hot")
+        raise PhysicsError(
+            f"max_stage must be 1, 2 or 3, not {max_stage}",
+            where="solve_lte",
+            fix="use 2 (neutral and singly ionised) unless the plasma is very hot",
+        )
     t = np.asarray(temperature_k, dtype=float)
     ne = np.asarray(ne_cm3, dtype=float)
     if np.any(~np.isfinite(t)) or np.any(t <= 0) or np.any(~np.isfinite(ne)) or np.any(ne <= 0):
-        raise PhysicsError("temperature and electron density must be finite and > 0", where="solve_lte",
-                           fix="check the plasma conditions")
+        raise PhysicsError(
+            "temperature and electron density must be finite and > 0",
+            where="solve_lte",
+            fix="check the plasma conditions",
+        )
     pf = partition_function or _default_partition()
     ie = ionisation_energy or _default_ionisation()
     xs = {el: float(x) for el, x in number_fractions.items() if float(x) > 0}
     tot = sum(xs.values())
     if tot <= 0:
-        raise PhysicsError("no element with a positive fraction", where="solve_lte",
-                           fix="give at least one positive number fraction")
+        raise PhysicsError(
+            "no element with a positive fraction", where="solve_lte", fix="give at least one positive number fraction"
+        )
     xs = {el: x / tot for el, x in xs.items()}
     shape = np.broadcast(t, ne).shape
     per_el = {}
     mean_charge = np.zeros(shape)
     for el, x in xs.items():
-        f, u, low = stage_fractions(t, ne, el, partition_function=pf, ionisation_energy=ie,
-                                    max_stage=max_stage, lowering=lowering)
+        f, u, low = stage_fractions(
+            t, ne, el, partition_function=pf, ionisation_energy=ie, max_stage=max_stage, lowering=lowering
+        )
         per_el[el] = (f, u, low)
         mean_charge = mean_charge + x * sum((z) * f[z] for z in range(len(f)))
     if max_stage == 1 or np.any(mean_charge <= 0):
-        raise PhysicsError("no ions: charge neutrality cannot supply the electron density",
-                           where="solve_lte", fix="allow max_stage >= 2")
+        raise PhysicsError(
+            "no ions: charge neutrality cannot supply the electron density",
+            where="solve_lte",
+            fix="allow max_stage >= 2",
+        )
     n_heavy = np.broadcast_to(ne, shape) / mean_charge
     dens, parts, fracs, lows = {}, {}, {}, {}
     for el, (f, u, low) in per_el.items():
@@ -191,9 +235,16 @@ def solve_lte(temperature_k, ne_cm3, number_fractions: Mapping[str, float], *,
             parts[sp] = u[z - 1]
             fracs[sp] = f[z - 1]
             lows[sp] = low[z - 1]
-    return LTEState(temperature_k=np.broadcast_to(t, shape).copy(), ne_cm3=np.broadcast_to(ne, shape).copy(),
-                    n_heavy_cm3=n_heavy, densities=dens, partition=parts, stage_fraction=fracs,
-                    lowering_ev=lows, number_fractions=xs)
+    return LTEState(
+        temperature_k=np.broadcast_to(t, shape).copy(),
+        ne_cm3=np.broadcast_to(ne, shape).copy(),
+        n_heavy_cm3=n_heavy,
+        densities=dens,
+        partition=parts,
+        stage_fraction=fracs,
+        lowering_ev=lows,
+        number_fractions=xs,
+    )
 
 
 __all__ = [

@@ -61,8 +61,7 @@ def voigt(x_nm, centre_nm, fwhm_gauss_nm, fwhm_lorentz_nm):
     gamma = w_L / 2).  Either width may be 0 (pure Lorentzian / Gaussian), not both.
     """
     d = np.asarray(x_nm, float) - np.asarray(centre_nm, float)
-    return voigt_profile(d, np.asarray(fwhm_gauss_nm, float) * FWHM_TO_SIGMA,
-                         0.5 * np.asarray(fwhm_lorentz_nm, float))
+    return voigt_profile(d, np.asarray(fwhm_gauss_nm, float) * FWHM_TO_SIGMA, 0.5 * np.asarray(fwhm_lorentz_nm, float))
 
 
 def voigt_fwhm(fwhm_gauss_nm, fwhm_lorentz_nm):
@@ -76,7 +75,8 @@ def doppler_fwhm(wavelength_nm, temperature_k, mass_u):
     """Doppler FWHM ``lambda sqrt(8 k T ln2 / (M c^2))`` in nm (M in u, T in K)."""
     m = np.asarray(mass_u, float) * AMU
     return np.asarray(wavelength_nm, float) * np.sqrt(
-        8.0 * KB * np.asarray(temperature_k, float) * math.log(2.0) / (m * C * C))
+        8.0 * KB * np.asarray(temperature_k, float) * math.log(2.0) / (m * C * C)
+    )
 
 
 def _t_factor(temperature_k, t_ref_k, t_exponent):
@@ -84,11 +84,10 @@ def _t_factor(temperature_k, t_ref_k, t_exponent):
         return 1.0
     t_ref = np.asarray(t_ref_k, float)
     ratio = np.where(np.isfinite(t_ref) & (t_ref > 0), np.asarray(temperature_k, float) / t_ref, 1.0)
-    return ratio ** t_exponent
+    return ratio**t_exponent
 
 
-def stark_fwhm(w_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0,
-               ne_exponent=1.0):
+def stark_fwhm(w_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0, ne_exponent=1.0):
     """Stark (electron-impact) FWHM ``w_ref (n_e/n_ref)^p (T/T_ref)^a`` (nm); p = 1 by default.
 
     Citation: Griem 1974; Konjevic et al. 2002.  NaN or missing ``w_ref`` gives 0;
@@ -102,8 +101,7 @@ def stark_fwhm(w_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t
     return w * (np.asarray(ne_cm3, float) / nref) ** p * _t_factor(temperature_k, t_ref_k, t_exponent)
 
 
-def stark_shift(d_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0,
-                ne_exponent=1.0):
+def stark_shift(d_ref_nm, ne_cm3, ne_ref_cm3, temperature_k=None, t_ref_k=None, t_exponent=0.0, ne_exponent=1.0):
     """Stark shift ``d_ref (n_e/n_ref)^p (T/T_ref)^a`` (nm, + = to the red)."""
     return stark_fwhm(d_ref_nm, ne_cm3, ne_ref_cm3, temperature_k, t_ref_k, t_exponent, ne_exponent)
 

@@ -61,8 +61,11 @@ def saha_ratio(temperature_k, ne_cm3, u_lower, u_upper, ionisation_energy_ev, lo
     t = np.asarray(temperature_k, dtype=float)
     ne = np.asarray(ne_cm3, dtype=float)
     e_eff = np.asarray(ionisation_energy_ev, dtype=float) - np.asarray(lowering_ev, dtype=float)
-    return (SAHA_PREFACTOR_CM3 * t**1.5 / ne) * (np.asarray(u_upper, float) / np.asarray(u_lower, float)) * \
-        np.exp(-e_eff / (KB_EV * t))
+    return (
+        (SAHA_PREFACTOR_CM3 * t**1.5 / ne)
+        * (np.asarray(u_upper, float) / np.asarray(u_lower, float))
+        * np.exp(-e_eff / (KB_EV * t))
+    )
 
 
 __all__ = ["debye_length_m", "ionisation_lowering_ev", "saha_ratio"]

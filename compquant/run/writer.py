@@ -83,7 +83,8 @@ class RunWriter:
                  dark=None, response=None, saturation=None, exposure_s=None, dark_exposure_s=None,
                  pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
                  instrument: Mapping | None = None, acquisition: Mapping | None = None,
-                 medium: str = "air", compression: str | None = "gzip", compression_opts: int | None = 4):
+                 medium: str = "air", compression: str | None = "gzip", compression_opts: int | None = 4,
+                 created: str | None = None):
         self.path = Path(path)
         where = str(self.path)
         self.wavelength = np.asarray(wavelength, dtype=np.float64)
@@ -129,6 +130,7 @@ class RunWriter:
         self.instrument = dict(instrument or {})
         self.acquisition = dict(acquisition or {})
         self.compression = compression
+        self.created = created
         self.compression_opts = compression_opts if compression == "gzip" else None
         self._written = np.zeros(self.n_shots, dtype=bool)
         self._ctx = None
@@ -149,7 +151,7 @@ class RunWriter:
         f = self._h5
         f.attrs["format"] = FORMAT_NAME
         f.attrs["format_version"] = FORMAT_VERSION
-        f.attrs["created"] = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+        f.attrs["created"] = self.created or _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
         f.attrs["writer"] = f"compquant {__version__}"
         f.attrs["NX_class"] = "NXentry"
         d = f.create_dataset("wavelength", data=self.wavelength)
@@ -228,7 +230,7 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
               sample_index, *, dark=None, response=None, saturation=None, exposure_s=None,
               dark_exposure_s=None, pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
               instrument: Mapping | None = None, acquisition: Mapping | None = None, medium: str = "air",
-              dtype=None, compression: str | None = "gzip") -> Path:
+              dtype=None, compression: str | None = "gzip", created: str | None = None) -> Path:
     """Write a whole run to ``path`` atomically and return the path.
 
     Parameters
@@ -241,6 +243,8 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
     response : (n_pixels,) relative spectral response, optional
     saturation : detector saturation level in counts, optional
     dtype : storage dtype (default: that of ``spectra``)
+    created : ISO 8601 time stored as the run's creation time (default: now, UTC); give a fixed
+        value to make regenerated files byte-identical
     """
     spectra = np.asarray(spectra)
     if spectra.ndim != 2:
@@ -250,7 +254,7 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
                   dtype=dtype or spectra.dtype, dark=dark, response=response, saturation=saturation,
                   exposure_s=exposure_s, dark_exposure_s=dark_exposure_s, pulse_energy_mj=pulse_energy_mj,
                   time_s=time_s, x_mm=x_mm, y_mm=y_mm, shot=shot, instrument=instrument,
-                  acquisition=acquisition, medium=medium, compression=compression)
+                  acquisition=acquisition, medium=medium, compression=compression, created=created)
     with w:
         w.write_spectra(0, spectra)
     return Path(path)

@@ -52,10 +52,11 @@ class Detector:
         }
         for key, ok in checks.items():
             if not ok:
-                raise ConfigError(f"detector setting {key} = {getattr(self, key)!r} is out of range",
-                                  where=f"instrument.{key}",
-                                  fix="sensitivity, gain and exposure > 0; noise, bias >= 0; "
-                                      "saturation in (0, 65535]")
+                raise ConfigError(
+                    f"detector setting {key} = {getattr(self, key)!r} is out of range",
+                    where=f"instrument.{key}",
+                    fix="sensitivity, gain and exposure > 0; noise, bias >= 0; saturation in (0, 65535]",
+                )
 
     def bias_pattern(self, n_pixels: int, rng: np.random.Generator) -> np.ndarray:
         """Fixed per-pixel bias offsets (counts), drawn once per instrument."""
@@ -68,23 +69,37 @@ class Detector:
         lam = np.asarray(radiance, float) * (self.photoelectrons_per_radiance * np.asarray(response, float))
         return lam + self.dark_current_pe_per_s * self.exposure_s
 
-    def digitise(self, mean_pe, pattern, rng: np.random.Generator, noise: bool = True) -> np.ndarray:
-        """Counts (uint16) from expected photoelectrons; ``noise=False`` gives the rounded mean."""
+    def digitise(
+        self, mean_pe, pattern, rng: np.random.Generator, noise: bool = True, block_rows: int = 256
+    ) -> np.ndarray:
+        """Counts (uint16) from expected photoelectrons; ``noise=False`` gives the rounded mean.
+
+        Works in blocks of ``block_rows`` shots to bound the temporary arrays.
+        """
         mean_pe = np.asarray(mean_pe, float)
-        if noise:
-            pe = rng.poisson(mean_pe).astype(float)
-            counts = self.gain_counts_per_pe * pe
-            if self.read_noise_counts > 0:
-                counts += rng.normal(0.0, self.read_noise_counts, mean_pe.shape)
-        else:
-            counts = self.gain_counts_per_pe * mean_pe
-        counts += self.bias_counts + pattern
-        return np.clip(np.rint(counts), 0, self.saturation_counts).astype(np.uint16)
+        if mean_pe.ndim < 2:
+            return self.digitise(mean_pe[None, :], pattern, rng, noise, block_rows)[0]
+        out = np.empty(mean_pe.shape, dtype=np.uint16)
+        for a in range(0, mean_pe.shape[0], block_rows):
+            m = mean_pe[a : a + block_rows]
+            if noise:
+                counts = rng.poisson(m).astype(float)
+                counts *= self.gain_counts_per_pe
+                if self.read_noise_counts > 0:
+                    counts += rng.normal(0.0, self.read_noise_counts, m.shape)
+            else:
+                counts = self.gain_counts_per_pe * m
+            counts += self.bias_counts + pattern
+            np.rint(counts, out=counts)
+            np.clip(counts, 0, self.saturation_counts, out=counts)
+            out[a : a + block_rows] = counts
+        return out
 
     def dark_frames(self, n_frames: int, n_pixels: int, pattern, rng, noise: bool = True) -> np.ndarray:
         """``n_frames`` dark frames (uint16) at the same exposure."""
-        return self.digitise(np.full((n_frames, n_pixels), self.dark_current_pe_per_s * self.exposure_s),
-                             pattern, rng, noise)
+        return self.digitise(
+            np.full((n_frames, n_pixels), self.dark_current_pe_per_s * self.exposure_s), pattern, rng, noise
+        )
 
 
 __all__ = ["Detector"]

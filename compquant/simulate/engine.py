@@ -26,8 +26,9 @@ from pathlib import Path
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from compquant.errors import ConfigError
+from compquant.errors import ConfigError, ResourceLimitError
 from compquant.plasma.forward import Instrument, LineSet, SpectrumModel
+from compquant.run import memory_limit_from_env
 from compquant.simulate.detector import Detector
 from compquant.simulate.scenario import Scenario, load_scenario
 
@@ -84,8 +85,11 @@ def scenario_lines(scenario: Scenario) -> LineSet:
     lo, hi = ins["wavelength_min_nm"] - 2.0, ins["wavelength_max_nm"] + 2.0
     df = df[df["element"].isin(list(els)) & (df["wavelength_nm"] >= lo) & (df["wavelength_nm"] <= hi)]
     if df.empty:
-        raise ConfigError("no lines of the scenario's elements in the wavelength range",
-                          where=str(scenario.path), fix="widen the range or check the line list")
+        raise ConfigError(
+            "no lines of the scenario's elements in the wavelength range",
+            where=str(scenario.path),
+            fix="widen the range or check the line list",
+        )
     lines = LineSet.from_frame(df.reset_index(drop=True))
     fb = scenario.plasma["stark_fallback_fwhm_nm"]
     if fb > 0:
@@ -96,22 +100,33 @@ def scenario_lines(scenario: Scenario) -> LineSet:
 def build_model(scenario: Scenario, wl_true: np.ndarray, lines: LineSet | None = None) -> SpectrumModel:
     """The :class:`SpectrumModel` of the scenario (true pixel wavelengths)."""
     ins, pl = scenario.instrument, scenario.plasma
-    instrument = Instrument(wl_true, resolving_power=ins["resolving_power"], fwhm_nm=ins["fwhm_nm"],
-                            oversample=ins["oversample"])
-    return SpectrumModel(instrument, lines if lines is not None else scenario_lines(scenario),
-                         self_absorption=pl["self_absorption"], continuum=pl["continuum"],
-                         nominal_temperature_k=pl["temperature_k"], nominal_ne_cm3=pl["ne_cm3"],
-                         max_stage=pl["max_stage"], lowering=pl["ionisation_lowering"])
+    instrument = Instrument(
+        wl_true, resolving_power=ins["resolving_power"], fwhm_nm=ins["fwhm_nm"], oversample=ins["oversample"]
+    )
+    return SpectrumModel(
+        instrument,
+        lines if lines is not None else scenario_lines(scenario),
+        self_absorption=pl["self_absorption"],
+        continuum=pl["continuum"],
+        nominal_temperature_k=pl["temperature_k"],
+        nominal_ne_cm3=pl["ne_cm3"],
+        max_stage=pl["max_stage"],
+        lowering=pl["ionisation_lowering"],
+    )
 
 
 def detector_of(scenario: Scenario) -> Detector:
     ins = scenario.instrument
-    return Detector(photoelectrons_per_radiance=ins["photoelectrons_per_radiance"],
-                    gain_counts_per_pe=ins["gain_counts_per_pe"], bias_counts=ins["bias_counts"],
-                    bias_pattern_counts=ins["bias_pattern_counts"],
-                    dark_current_pe_per_s=ins["dark_current_pe_per_s"],
-                    read_noise_counts=ins["read_noise_counts"], saturation_counts=ins["saturation_counts"],
-                    exposure_s=ins["exposure_s"])
+    return Detector(
+        photoelectrons_per_radiance=ins["photoelectrons_per_radiance"],
+        gain_counts_per_pe=ins["gain_counts_per_pe"],
+        bias_counts=ins["bias_counts"],
+        bias_pattern_counts=ins["bias_pattern_counts"],
+        dark_current_pe_per_s=ins["dark_current_pe_per_s"],
+        read_noise_counts=ins["read_noise_counts"],
+        saturation_counts=ins["saturation_counts"],
+        exposure_s=ins["exposure_s"],
+    )
 
 
 def shot_conditions(scenario: Scenario, n: int, rng: np.random.Generator, noise: bool = True):
@@ -131,8 +146,7 @@ def _parse_time(text: str, where: str) -> _dt.datetime:
     try:
         t = _dt.datetime.fromisoformat(text.replace("Z", "+00:00"))
     except ValueError as exc:
-        raise ConfigError(f"start_time {text!r} is not ISO 8601", where=where,
-                          fix="e.g. 2026-11-16T08:30:00Z") from exc
+        raise ConfigError(f"start_time {text!r} is not ISO 8601", where=where, fix="e.g. 2026-11-16T08:30:00Z") from exc
     return t if t.tzinfo else t.replace(tzinfo=_dt.timezone.utc)
 
 
@@ -144,6 +158,17 @@ def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = T
     identical to those of the full run).
     """
     seed = scenario.seed if seed is None else int(seed)
+    n_all = sum(s.shots for s in scenario.samples) + scenario.dark_frames
+    n_pix = scenario.instrument["n_pixels"]
+    # uint16 counts of the whole run + float64 work arrays of the largest sample
+    need = n_all * n_pix * 2 + max(s.shots for s in scenario.samples) * n_pix * 8 * 3
+    limit = memory_limit_from_env()
+    if need > limit:
+        raise ResourceLimitError(
+            f"the run needs about {need / 2**30:.1f} GiB of memory, above the limit of {limit / 2**30:.1f} GiB",
+            where=str(scenario.path),
+            fix="fewer shots or pixels, or raise COMPQUANT_MEMORY_LIMIT",
+        )
     if seed < 0:
         raise ConfigError(f"seed {seed} is negative", where="--seed", fix="use a seed >= 0")
     wl = wavelength_axis(scenario)
@@ -171,25 +196,37 @@ def simulate_arrays(scenario: Scenario, seed: int | None = None, noise: bool = T
         e, t, ne, f = shot_conditions(scenario, n, rng, noise)
         if k in wanted:
             rad = model.radiance(smp.composition, t, ne, length_mm=scenario.plasma["length_mm"], scale=f)
-            spectra[row:row + n] = det.digitise(det.mean_photoelectrons(rad, resp_true), pattern, rng, noise)
-        index[row:row + n] = k
-        energy[row:row + n] = np.round(e, 4)
+            spectra[row : row + n] = det.digitise(det.mean_photoelectrons(rad, resp_true), pattern, rng, noise)
+        index[row : row + n] = k
+        energy[row : row + n] = np.round(e, 4)
         shots = np.arange(n)
-        times[row:row + n] = clock + shots / la["repetition_rate_hz"]
-        x[row:row + n] = (shots % la["raster_columns"]) * la["raster_step_mm"]
-        y[row:row + n] = (shots // la["raster_columns"]) * la["raster_step_mm"]
+        times[row : row + n] = clock + shots / la["repetition_rate_hz"]
+        x[row : row + n] = (shots % la["raster_columns"]) * la["raster_step_mm"]
+        y[row : row + n] = (shots // la["raster_columns"]) * la["raster_step_mm"]
         clock += n / la["repetition_rate_hz"] + scenario.sample_interval_s
         row += n
     dark = None
     if scenario.dark_frames:
         dark = det.dark_frames(scenario.dark_frames, wl.size, pattern, np.random.default_rng(s_dark), noise)
-    return {"wavelength": wl, "spectra": spectra, "sample_index": index, "pulse_energy_mj": energy,
-            "time_s": times, "x_mm": x, "y_mm": y, "dark": dark, "response": stored_response(scenario, wl),
-            "saturation": float(det.saturation_counts), "exposure_s": det.exposure_s, "seed": seed}
+    return {
+        "wavelength": wl,
+        "spectra": spectra,
+        "sample_index": index,
+        "pulse_energy_mj": energy,
+        "time_s": times,
+        "x_mm": x,
+        "y_mm": y,
+        "dark": dark,
+        "response": stored_response(scenario, wl),
+        "saturation": float(det.saturation_counts),
+        "exposure_s": det.exposure_s,
+        "seed": seed,
+    }
 
 
-def simulate_run(scenario: Scenario | str | Path, output: str | Path, seed: int | None = None,
-                 noise: bool = True) -> SimulationResult:
+def simulate_run(
+    scenario: Scenario | str | Path, output: str | Path, seed: int | None = None, noise: bool = True
+) -> SimulationResult:
     """Simulate the scenario and write the run file ``output`` (atomically).
 
     ``seed`` overrides the scenario's ``[scenario] seed``.  ``noise=False``
@@ -202,44 +239,96 @@ def simulate_run(scenario: Scenario | str | Path, output: str | Path, seed: int 
     sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
     arr = simulate_arrays(sc, seed, noise)
     start = _parse_time(sc.start_time, f"{sc.path}: scenario.start_time")
-    samples = [{"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref,
-                "description": s.description} for s in sc.samples]
-    ins, la, pl = sc.instrument, sc.laser, sc.plasma
-    instrument = {"name": ins["name"], "spectrometer": ins["spectrometer"], "detector": ins["detector"],
-                  "resolving_power": ins["resolving_power"] if ins["resolving_power"] else "",
-                  "fwhm_nm": ins["fwhm_nm"] if ins["fwhm_nm"] else "",
-                  "gain_counts_per_pe": ins["gain_counts_per_pe"], "read_noise_counts": ins["read_noise_counts"],
-                  "simulated": True, "simulator": "compquant simulate", "scenario": sc.id,
-                  "seed": arr["seed"]}
-    acquisition = {"technique": "LIBS", "gate_delay_us": ins["gate_delay_us"],
-                   "gate_width_us": ins["gate_width_us"], "laser_wavelength_nm": la["wavelength_nm"],
-                   "pulse_energy_mj": la["pulse_energy_mj"], "spot_size_um": la["spot_diameter_um"],
-                   "repetition_rate_hz": la["repetition_rate_hz"], "atmosphere": ins["atmosphere"],
-                   "accumulations": 1, "start_time": start.isoformat().replace("+00:00", "Z"),
-                   "lab": sc.lab, "nominal_temperature_k": pl["temperature_k"], "nominal_ne_cm3": pl["ne_cm3"]}
-    out = write_run(output, arr["wavelength"], arr["spectra"], samples, arr["sample_index"], dark=arr["dark"],
-                    response=arr["response"], saturation=arr["saturation"], exposure_s=arr["exposure_s"],
-                    dark_exposure_s=arr["exposure_s"] if arr["dark"] is not None else None,
-                    pulse_energy_mj=arr["pulse_energy_mj"], time_s=arr["time_s"], x_mm=arr["x_mm"],
-                    y_mm=arr["y_mm"], instrument=instrument, acquisition=acquisition, medium="air",
-                    dtype="uint16", compression="gzip")
+    samples = [
+        {"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref, "description": s.description}
+        for s in sc.samples
+    ]
+    ins, la = sc.instrument, sc.laser
+    instrument = {
+        "name": ins["name"],
+        "spectrometer": ins["spectrometer"],
+        "detector": ins["detector"],
+        "gain_counts_per_pe": ins["gain_counts_per_pe"],
+        "read_noise_counts": ins["read_noise_counts"],
+        "simulated": True,
+        "simulator": "compquant simulate",
+        "scenario": sc.id,
+        "seed": arr["seed"],
+    }
+    if ins["resolving_power"]:
+        instrument["resolving_power"] = ins["resolving_power"]
+    else:
+        instrument["fwhm_nm"] = ins["fwhm_nm"]
+    # the plasma's true T and n_e stay out of the run, as they would in a measured one
+    acquisition = {
+        "technique": "LIBS",
+        "gate_delay_us": ins["gate_delay_us"],
+        "gate_width_us": ins["gate_width_us"],
+        "laser_wavelength_nm": la["wavelength_nm"],
+        "pulse_energy_mj": la["pulse_energy_mj"],
+        "spot_size_um": la["spot_diameter_um"],
+        "repetition_rate_hz": la["repetition_rate_hz"],
+        "atmosphere": ins["atmosphere"],
+        "accumulations": 1,
+        "start_time": start.isoformat().replace("+00:00", "Z"),
+        "lab": sc.lab,
+    }
+    out = write_run(
+        output,
+        arr["wavelength"],
+        arr["spectra"],
+        samples,
+        arr["sample_index"],
+        dark=arr["dark"],
+        response=arr["response"],
+        saturation=arr["saturation"],
+        exposure_s=arr["exposure_s"],
+        dark_exposure_s=arr["exposure_s"] if arr["dark"] is not None else None,
+        pulse_energy_mj=arr["pulse_energy_mj"],
+        time_s=arr["time_s"],
+        x_mm=arr["x_mm"],
+        y_mm=arr["y_mm"],
+        instrument=instrument,
+        acquisition=acquisition,
+        medium="air",
+        dtype="uint16",
+        compression="gzip",
+    )
     size = Path(out).stat().st_size
     truth = {s.sample_id: dict(s.composition) for s in sc.samples}
-    return SimulationResult(path=Path(out), n_shots=int(arr["spectra"].shape[0]),
-                            n_pixels=int(arr["wavelength"].size),
-                            n_dark=0 if arr["dark"] is None else int(arr["dark"].shape[0]),
-                            seconds=time.perf_counter() - t0, bytes=size, truth=truth)
+    return SimulationResult(
+        path=Path(out),
+        n_shots=int(arr["spectra"].shape[0]),
+        n_pixels=int(arr["wavelength"].size),
+        n_dark=0 if arr["dark"] is None else int(arr["dark"].shape[0]),
+        seconds=time.perf_counter() - t0,
+        bytes=size,
+        truth=truth,
+    )
 
 
 def truth_table(scenario: Scenario):
     """True compositions as a DataFrame (sample_id, role, standard_ref, element, mass_fraction)."""
     import pandas as pd
 
-    rows = [{"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref, "element": el,
-             "mass_fraction": w} for s in scenario.samples for el, w in sorted(s.composition.items())]
+    rows = [
+        {"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref, "element": el, "mass_fraction": w}
+        for s in scenario.samples
+        for el, w in sorted(s.composition.items())
+    ]
     return pd.DataFrame(rows)
 
 
-__all__ = ["SimulationResult", "build_model", "detector_of", "scenario_lines", "shot_conditions",
-           "simulate_arrays", "simulate_run", "stored_response", "true_response", "truth_table",
-           "wavelength_axis"]
+__all__ = [
+    "SimulationResult",
+    "build_model",
+    "detector_of",
+    "scenario_lines",
+    "shot_conditions",
+    "simulate_arrays",
+    "simulate_run",
+    "stored_response",
+    "true_response",
+    "truth_table",
+    "wavelength_axis",
+]

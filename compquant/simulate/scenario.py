@@ -25,22 +25,62 @@ from compquant.fileio import check_keys, load_toml, require_file
 
 ROLES = ("standard", "blank", "check", "unknown", "setup")
 UNIT_TO_GG = {"%": 1e-2, "mg/kg": 1e-6, "g/g": 1.0}
-STANDARD_COLUMNS = ("standard_id", "matrix", "element", "mass_fraction", "expanded_uncertainty", "k", "unit",
-                    "source")
+STANDARD_COLUMNS = ("standard_id", "matrix", "element", "mass_fraction", "expanded_uncertainty", "k", "unit", "source")
 
 _TOP = {"scenario", "standards", "plasma", "laser", "instrument", "drift", "dark", "samples", "lines"}
 _SCENARIO = {"id", "title", "lab", "start_time", "seed", "matrix", "sample_interval_s", "description"}
 _STANDARDS = {"file", "truth_seed", "truth_clip_sigma"}
-_PLASMA = {"temperature_k", "temperature_rsd", "ne_cm3", "ne_rsd", "length_mm", "self_absorption", "continuum",
-           "ionisation_lowering", "max_stage", "stark_fallback_fwhm_nm", "stark_fallback_ne_cm3",
-           "temperature_energy_exponent", "ne_energy_exponent"}
-_LASER = {"wavelength_nm", "pulse_energy_mj", "pulse_energy_rsd", "spot_diameter_um", "repetition_rate_hz",
-          "signal_energy_exponent", "signal_rsd", "raster_step_mm", "raster_columns"}
-_INSTRUMENT = {"name", "wavelength_min_nm", "wavelength_max_nm", "n_pixels", "resolving_power", "fwhm_nm",
-               "oversample", "response_nm", "response", "photoelectrons_per_radiance", "gain_counts_per_pe",
-               "bias_counts", "bias_pattern_counts", "dark_current_pe_per_s", "read_noise_counts",
-               "saturation_counts", "exposure_s", "gate_delay_us", "gate_width_us", "atmosphere",
-               "detector", "spectrometer", "pattern_seed"}
+_PLASMA = {
+    "temperature_k",
+    "temperature_rsd",
+    "ne_cm3",
+    "ne_rsd",
+    "length_mm",
+    "self_absorption",
+    "continuum",
+    "ionisation_lowering",
+    "max_stage",
+    "stark_fallback_fwhm_nm",
+    "stark_fallback_ne_cm3",
+    "temperature_energy_exponent",
+    "ne_energy_exponent",
+}
+_LASER = {
+    "wavelength_nm",
+    "pulse_energy_mj",
+    "pulse_energy_rsd",
+    "spot_diameter_um",
+    "repetition_rate_hz",
+    "signal_energy_exponent",
+    "signal_rsd",
+    "raster_step_mm",
+    "raster_columns",
+}
+_INSTRUMENT = {
+    "name",
+    "wavelength_min_nm",
+    "wavelength_max_nm",
+    "n_pixels",
+    "resolving_power",
+    "fwhm_nm",
+    "oversample",
+    "response_nm",
+    "response",
+    "photoelectrons_per_radiance",
+    "gain_counts_per_pe",
+    "bias_counts",
+    "bias_pattern_counts",
+    "dark_current_pe_per_s",
+    "read_noise_counts",
+    "saturation_counts",
+    "exposure_s",
+    "gate_delay_us",
+    "gate_width_us",
+    "atmosphere",
+    "detector",
+    "spectrometer",
+    "pattern_seed",
+}
 _DRIFT = {"response_scale", "factor_nm", "factor", "wavelength_shift_nm", "description"}
 _DARK = {"frames"}
 _SAMPLE = {"id", "role", "standard", "composition", "shots", "description"}
@@ -96,14 +136,11 @@ def _num(table, key, where, default=None, lo=None, hi=None, integer=False, lo_op
         return default
     v = table[key]
     if isinstance(v, bool) or not isinstance(v, int | float):
-        raise ConfigError(f"{key} must be a number, not {v!r}", where=f"{where}.{key}",
-                          fix="write a plain number")
+        raise ConfigError(f"{key} must be a number, not {v!r}", where=f"{where}.{key}", fix="write a plain number")
     if integer and (not float(v).is_integer()):
-        raise ConfigError(f"{key} must be a whole number, not {v!r}", where=f"{where}.{key}",
-                          fix="write an integer")
+        raise ConfigError(f"{key} must be a whole number, not {v!r}", where=f"{where}.{key}", fix="write an integer")
     v = float(v)
-    bad = not math.isfinite(v) or (lo is not None and (v <= lo if lo_open else v < lo)) or \
-        (hi is not None and v > hi)
+    bad = not math.isfinite(v) or (lo is not None and (v <= lo if lo_open else v < lo)) or (hi is not None and v > hi)
     if bad:
         rng = f"{'>' if lo_open else '>='} {lo}" if lo is not None else ""
         if hi is not None:
@@ -115,8 +152,7 @@ def _num(table, key, where, default=None, lo=None, hi=None, integer=False, lo_op
 def _bool(table, key, where, default):
     v = table.get(key, default)
     if not isinstance(v, bool):
-        raise ConfigError(f"{key} must be true or false, not {v!r}", where=f"{where}.{key}",
-                          fix="write true or false")
+        raise ConfigError(f"{key} must be true or false, not {v!r}", where=f"{where}.{key}", fix="write true or false")
     return v
 
 
@@ -131,10 +167,16 @@ def _str(table, key, where, default=None):
 
 def _num_list(table, key, where, n_min=2):
     v = table.get(key)
-    if not isinstance(v, list) or len(v) < n_min or not all(
-            isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) for x in v):
-        raise ConfigError(f"{key} must be a list of at least {n_min} numbers", where=f"{where}.{key}",
-                          fix="e.g. [250.0, 400.0, 600.0]")
+    if (
+        not isinstance(v, list)
+        or len(v) < n_min
+        or not all(isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) for x in v)
+    ):
+        raise ConfigError(
+            f"{key} must be a list of at least {n_min} numbers",
+            where=f"{where}.{key}",
+            fix="e.g. [250.0, 400.0, 600.0]",
+        )
     return [float(x) for x in v]
 
 
@@ -151,8 +193,11 @@ def load_standards_csv(path: Path) -> dict:
             cols = tuple(reader.fieldnames or ())
             missing = [c for c in STANDARD_COLUMNS if c not in cols]
             if missing:
-                raise ConfigError(f"standards file lacks column(s) {', '.join(missing)}", where=str(p),
-                                  fix=f"header must be {','.join(STANDARD_COLUMNS)}")
+                raise ConfigError(
+                    f"standards file lacks column(s) {', '.join(missing)}",
+                    where=str(p),
+                    fix=f"header must be {','.join(STANDARD_COLUMNS)}",
+                )
             for i, row in enumerate(reader, start=2):
                 where = f"{p}:{i}"
                 unit = row["unit"].strip()
@@ -163,23 +208,27 @@ def load_standards_csv(path: Path) -> dict:
                     big_u = float(row["expanded_uncertainty"]) * UNIT_TO_GG[unit]
                     k = float(row["k"])
                 except ValueError as exc:
-                    raise ConfigError("mass_fraction, expanded_uncertainty and k must be numbers",
-                                      where=where, fix="fix the row") from exc
+                    raise ConfigError(
+                        "mass_fraction, expanded_uncertainty and k must be numbers", where=where, fix="fix the row"
+                    ) from exc
                 if not (w >= 0 and big_u >= 0 and k > 0):
-                    raise ConfigError("mass fraction and uncertainty must be >= 0 and k > 0", where=where,
-                                      fix="fix the row")
+                    raise ConfigError(
+                        "mass fraction and uncertainty must be >= 0 and k > 0", where=where, fix="fix the row"
+                    )
                 sid, el = row["standard_id"].strip(), row["element"].strip()
                 if el in out.setdefault(sid, {}):
-                    raise ConfigError(f"element {el} listed twice for {sid}", where=where,
-                                      fix="keep one row per standard and element")
+                    raise ConfigError(
+                        f"element {el} listed twice for {sid}", where=where, fix="keep one row per standard and element"
+                    )
                 out[sid][el] = (w, big_u / k)
     except UnicodeDecodeError as exc:
         raise ConfigError("standards file is not UTF-8 text", where=str(p), fix="save it as UTF-8") from exc
     return out
 
 
-def draw_true_composition(standard_id: str, certified: dict, matrix: str, truth_seed: int,
-                          clip_sigma: float = 2.5) -> dict:
+def draw_true_composition(
+    standard_id: str, certified: dict, matrix: str, truth_seed: int, clip_sigma: float = 2.5
+) -> dict:
     """True mass fractions of a certified material (invented truth for simulations).
 
     Each certified element other than the matrix is ``w_cert + u z`` with z a
@@ -197,27 +246,39 @@ def draw_true_composition(standard_id: str, certified: dict, matrix: str, truth_
         comp[el] = max(w + u * z, 0.0)
     rest = 1.0 - sum(comp.values())
     if rest <= 0:
-        raise ConfigError(f"certified values of {standard_id} leave no room for the matrix {matrix}",
-                          where="standards", fix="check the certified values")
+        raise ConfigError(
+            f"certified values of {standard_id} leave no room for the matrix {matrix}",
+            where="standards",
+            fix="check the certified values",
+        )
     comp[matrix] = rest
     return comp
 
 
 def _composition(table, matrix, where):
     if not isinstance(table, dict) or not table:
-        raise ConfigError("composition must be a table of element = mass fraction", where=where,
-                          fix='e.g. composition = { Zn = 0.35, Pb = 0.02 } (matrix = balance)')
+        raise ConfigError(
+            "composition must be a table of element = mass fraction",
+            where=where,
+            fix="e.g. composition = { Zn = 0.35, Pb = 0.02 } (matrix = balance)",
+        )
     comp = {}
     for el, v in table.items():
         if isinstance(v, bool) or not isinstance(v, int | float) or not (0 <= float(v) <= 1):
-            raise ConfigError(f"mass fraction of {el} must be a number in [0, 1], not {v!r}",
-                              where=f"{where}.{el}", fix="mass fractions are g/g, e.g. 0.35 for 35 %")
+            raise ConfigError(
+                f"mass fraction of {el} must be a number in [0, 1], not {v!r}",
+                where=f"{where}.{el}",
+                fix="mass fractions are g/g, e.g. 0.35 for 35 %",
+            )
         comp[str(el)] = float(v)
     if matrix in comp:
         total = sum(comp.values())
         if abs(total - 1.0) > 1e-6:
-            raise ConfigError(f"mass fractions sum to {total:.6f}, not 1", where=where,
-                              fix=f"fix the values or leave {matrix} out (it is then the balance)")
+            raise ConfigError(
+                f"mass fractions sum to {total:.6f}, not 1",
+                where=where,
+                fix=f"fix the values or leave {matrix} out (it is then the balance)",
+            )
     else:
         rest = 1.0 - sum(comp.values())
         if rest < 0:
@@ -282,8 +343,12 @@ def load_scenario(path) -> Scenario:
     }
     ins = doc["instrument"]
     wi = f"{w}: instrument"
-    check_keys(ins, _INSTRUMENT, f"{w}: [instrument]",
-               required={"wavelength_min_nm", "wavelength_max_nm", "n_pixels", "photoelectrons_per_radiance"})
+    check_keys(
+        ins,
+        _INSTRUMENT,
+        f"{w}: [instrument]",
+        required={"wavelength_min_nm", "wavelength_max_nm", "n_pixels", "photoelectrons_per_radiance"},
+    )
     instrument = {
         "name": _str(ins, "name", wi, "simulated spectrometer"),
         "spectrometer": _str(ins, "spectrometer", wi, ""),
@@ -306,28 +371,40 @@ def load_scenario(path) -> Scenario:
         "pattern_seed": _num(ins, "pattern_seed", wi, 0, lo=0, integer=True),
     }
     if instrument["wavelength_max_nm"] <= instrument["wavelength_min_nm"]:
-        raise ConfigError("wavelength_max_nm must be above wavelength_min_nm", where=f"{wi}.wavelength_max_nm",
-                          fix="give the range as min < max")
+        raise ConfigError(
+            "wavelength_max_nm must be above wavelength_min_nm",
+            where=f"{wi}.wavelength_max_nm",
+            fix="give the range as min < max",
+        )
     if ("resolving_power" in ins) == ("fwhm_nm" in ins):
-        raise ConfigError("give exactly one of resolving_power and fwhm_nm", where=wi,
-                          fix="resolving_power = 3000 (FWHM = lambda/R) or fwhm_nm = 0.1")
-    instrument["resolving_power"] = _num(ins, "resolving_power", wi, lo=10, hi=1e6) \
-        if "resolving_power" in ins else None
+        raise ConfigError(
+            "give exactly one of resolving_power and fwhm_nm",
+            where=wi,
+            fix="resolving_power = 3000 (FWHM = lambda/R) or fwhm_nm = 0.1",
+        )
+    instrument["resolving_power"] = (
+        _num(ins, "resolving_power", wi, lo=10, hi=1e6) if "resolving_power" in ins else None
+    )
     instrument["fwhm_nm"] = _num(ins, "fwhm_nm", wi, lo=0, lo_open=True, hi=10) if "fwhm_nm" in ins else None
     if ("response_nm" in ins) != ("response" in ins):
-        raise ConfigError("give both response_nm and response, or neither", where=wi,
-                          fix="response is a list of relative values at the wavelengths response_nm")
+        raise ConfigError(
+            "give both response_nm and response, or neither",
+            where=wi,
+            fix="response is a list of relative values at the wavelengths response_nm",
+        )
     if "response_nm" in ins:
         rn, rv = _num_list(ins, "response_nm", wi), _num_list(ins, "response", wi)
         if len(rn) != len(rv) or np.any(np.diff(rn) <= 0) or min(rv) <= 0:
-            raise ConfigError("response_nm must increase, match response in length, and response be > 0",
-                              where=f"{wi}.response", fix="give matching lists")
+            raise ConfigError(
+                "response_nm must increase, match response in length, and response be > 0",
+                where=f"{wi}.response",
+                fix="give matching lists",
+            )
         instrument["response_nm"], instrument["response"] = rn, rv
     else:
         instrument["response_nm"], instrument["response"] = None, None
 
-    drift = {"response_scale": 1.0, "factor_nm": None, "factor": None, "wavelength_shift_nm": 0.0,
-             "description": ""}
+    drift = {"response_scale": 1.0, "factor_nm": None, "factor": None, "wavelength_shift_nm": 0.0, "description": ""}
     if "drift" in doc:
         dr = doc["drift"]
         wd = f"{w}: drift"
@@ -336,13 +413,19 @@ def load_scenario(path) -> Scenario:
         drift["wavelength_shift_nm"] = _num(dr, "wavelength_shift_nm", wd, 0.0, lo=-1, hi=1)
         drift["description"] = _str(dr, "description", wd, "")
         if ("factor_nm" in dr) != ("factor" in dr):
-            raise ConfigError("give both factor_nm and factor, or neither", where=wd,
-                              fix="factor is a list of response multipliers at wavelengths factor_nm")
+            raise ConfigError(
+                "give both factor_nm and factor, or neither",
+                where=wd,
+                fix="factor is a list of response multipliers at wavelengths factor_nm",
+            )
         if "factor_nm" in dr:
             fn, fv = _num_list(dr, "factor_nm", wd), _num_list(dr, "factor", wd)
             if len(fn) != len(fv) or np.any(np.diff(fn) <= 0) or min(fv) <= 0:
-                raise ConfigError("factor_nm must increase, match factor in length, and factor be > 0",
-                                  where=f"{wd}.factor", fix="give matching lists")
+                raise ConfigError(
+                    "factor_nm must increase, match factor in length, and factor be > 0",
+                    where=f"{wd}.factor",
+                    fix="give matching lists",
+                )
             drift["factor_nm"], drift["factor"] = fn, fv
 
     dark_frames = 0
@@ -359,8 +442,9 @@ def load_scenario(path) -> Scenario:
         if "elements" in li:
             v = li["elements"]
             if not isinstance(v, list) or not all(isinstance(x, str) for x in v):
-                raise ConfigError("elements must be a list of symbols", where=f"{w}: lines.elements",
-                                  fix='e.g. ["Cu", "Zn"]')
+                raise ConfigError(
+                    "elements must be a list of symbols", where=f"{w}: lines.elements", fix='e.g. ["Cu", "Zn"]'
+                )
             line_elements = tuple(v)
 
     samples_raw = doc["samples"]
@@ -381,26 +465,49 @@ def load_scenario(path) -> Scenario:
         shots = _num(s, "shots", wsmp, lo=1, hi=100000, integer=True)
         ref = _str(s, "standard", wsmp, "")
         if ("composition" in s) == bool(ref):
-            raise ConfigError("give exactly one of 'standard' (a certified material) and 'composition'",
-                              where=wsmp, fix="certified materials take their truth from the standards file")
+            raise ConfigError(
+                "give exactly one of 'standard' (a certified material) and 'composition'",
+                where=wsmp,
+                fix="certified materials take their truth from the standards file",
+            )
         if ref:
             if ref not in certified:
-                raise ConfigError(f"standard {ref!r} is not in the standards file", where=f"{wsmp}.standard",
-                                  fix="check the id or the [standards] file")
+                raise ConfigError(
+                    f"standard {ref!r} is not in the standards file",
+                    where=f"{wsmp}.standard",
+                    fix="check the id or the [standards] file",
+                )
             comp = draw_true_composition(ref, certified[ref], matrix, truth_seed, clip)
         else:
             comp = _composition(s["composition"], matrix, f"{wsmp}.composition")
         if role in ("standard", "check") and not ref:
-            raise ConfigError(f"a sample with role {role!r} must reference a certified standard",
-                              where=wsmp, fix="set standard = '<id in the standards file>'")
+            raise ConfigError(
+                f"a sample with role {role!r} must reference a certified standard",
+                where=wsmp,
+                fix="set standard = '<id in the standards file>'",
+            )
         samples.append(SampleSpec(sid, role, ref, _str(s, "description", wsmp, ""), shots, comp))
 
-    return Scenario(path=path, id=_str(sc, "id", ws), title=_str(sc, "title", ws, ""),
-                    lab=_str(sc, "lab", ws, ""), start_time=_str(sc, "start_time", ws, "2026-01-01T08:00:00Z"),
-                    seed=seed, matrix=matrix, sample_interval_s=interval, plasma=plasma, laser=laser,
-                    instrument=instrument, drift=drift, dark_frames=dark_frames, samples=tuple(samples),
-                    lines_file=lines_file, line_elements=line_elements, standards_file=std_file,
-                    certified=certified)
+    return Scenario(
+        path=path,
+        id=_str(sc, "id", ws),
+        title=_str(sc, "title", ws, ""),
+        lab=_str(sc, "lab", ws, ""),
+        start_time=_str(sc, "start_time", ws, "2026-01-01T08:00:00Z"),
+        seed=seed,
+        matrix=matrix,
+        sample_interval_s=interval,
+        plasma=plasma,
+        laser=laser,
+        instrument=instrument,
+        drift=drift,
+        dark_frames=dark_frames,
+        samples=tuple(samples),
+        lines_file=lines_file,
+        line_elements=line_elements,
+        standards_file=std_file,
+        certified=certified,
+    )
 
 
 __all__ = ["Scenario", "SampleSpec", "draw_true_composition", "load_scenario", "load_standards_csv"]
