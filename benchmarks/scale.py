@@ -275,6 +275,9 @@ def main(argv=None) -> int:
             load_ser,
             load_par,
             same,
+            cpu_ser,
+            cpu_w,
+            cpu_client,
         )
     return 0
 
