@@ -202,8 +202,17 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     help="Start a local Dask cluster of N worker processes (loopback only) and compute there.",
 )
 @click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option(
+    "--threads",
+    type=click.IntRange(1, 64),
+    default=1,
+    show_default=True,
+    help="Worker threads in this process (numpy releases the GIL; results are identical).",
+)
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
-def command(run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, quiet):
+def command(
+    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, threads, quiet
+):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
     centre, FWHM, signal-to-noise and flags per sample. Writes the line table, the per-shot
@@ -237,10 +246,12 @@ def command(run_paths, method_path, output, shots_path, no_shots, qc_path, chunk
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * passes
         if quiet or total < 20000:
-            lm = measure_run(run, method, chunk_shots=chunk_shots, chunk_mapper=mapper)
+            lm = measure_run(run, method, chunk_shots=chunk_shots, chunk_mapper=mapper, threads=threads)
         else:
             with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
-                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper)
+                lm = measure_run(
+                    run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper, threads=threads
+                )
     written = write_outputs(lm, out, shots_out, qc_out)
     if not quiet:
         click.echo(_short_table(lm.table))
