@@ -313,8 +313,11 @@ def _append_docs(
 ) -> None:
     doc = ROOT / "docs" / "performance.md"
     text = doc.read_text() if doc.exists() else "# Performance\n"
-    if "\n## Scale\n" not in text:
-        text = text.rstrip() + "\n\n## Scale\n\nFigures of `benchmarks/scale.py` (docs/scale.md).\n"
+    if "\n## Scale" not in text:
+        text = (
+            text.rstrip()
+            + "\n\n## Scale (`benchmarks/scale.py`)\n\nFigures of `benchmarks/scale.py` (docs/scale.md).\n"
+        )
     stamp = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
     mp_ = (
         ""
@@ -322,8 +325,8 @@ def _append_docs(
         else f"| map, {args.workers} workers (measure + grid + HDF5/PNG) | "
         f"{1e6 * t_map / args.shots:.1f} ms per 1,000 shots | |\n"
     )
-    text += (
-        f"\n### {args.shots:,} shots x {N_PIXELS} pixels uint16 ({raw_gb:.2f} GB raw, "
+    entry = (
+        f"\n### {args.shots:,} shots x {N_PIXELS:,} pixels uint16 ({raw_gb:.2f} GB raw, "
         f"{size_gb:.2f} GB {args.compression}), {stamp}\n\n"
         f"Machine: {os.cpu_count()} cores **shared with other engineers' jobs** (load average "
         f"{load_ser:.1f} during the serial pass, {load_par:.1f} during the parallel one), so the ratio is a lower "
@@ -341,8 +344,13 @@ def _append_docs(
         f"{cpu_client:.0f} | |\n"
         f"| CPU-bound ratio (serial CPU / busiest process) | {cpu_ser / max(max(cpu_w), cpu_client):.2f}x | |\n"
     )
-    doc.write_text(text)
-    print(f"appended to {doc}")
+    # newest first within the section: insert before the section's first entry
+    sec = text.index("\n## Scale")
+    nxt = text.find("\n### ", sec)
+    end = text.find("\n## ", sec + 1)
+    at = nxt if nxt >= 0 and (end < 0 or nxt < end) else (end if end >= 0 else len(text))
+    doc.write_text(text[:at].rstrip() + "\n" + entry + text[at:])
+    print(f"added to {doc}")
 
 
 if __name__ == "__main__":
