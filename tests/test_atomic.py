@@ -252,9 +252,7 @@ def test_aki_grades_nist_table():
     assert atomic.aki_relative_uncertainty("E") > 0.5
     # rectangular distribution: u = a / sqrt(3) (GUM, JCGM 100:2008, 4.3.7)
     assert atomic.aki_standard_uncertainty("B") == pytest.approx(0.10 / np.sqrt(3))
-    np.testing.assert_allclose(
-        atomic.aki_standard_uncertainty(["A", "C"]), np.array([0.03, 0.25]) / np.sqrt(3)
-    )
+    np.testing.assert_allclose(atomic.aki_standard_uncertainty(["A", "C"]), np.array([0.03, 0.25]) / np.sqrt(3))
     with pytest.raises(AtomicDataError):
         atomic.aki_relative_uncertainty("Q")
 
@@ -320,9 +318,7 @@ def test_user_element_table_errors(tmp_path):
     p = _write(tmp_path, "Z,symbol,name,mass_u,ie1_ev,ie2_ev,source\n29,Cu,Copper,x,7.7,20.3,me\n", "el.csv")
     with pytest.raises(AtomicDataError, match=r"el.csv, line 2, column 'mass_u'"):
         atomic.load_element_table(p)
-    p = _write(
-        tmp_path, "Z,symbol,name,mass_u,ie1_ev,ie2_ev,source\n29,Cu,Copper,63.546,7.7,,me\n", "el2.csv"
-    )
+    p = _write(tmp_path, "Z,symbol,name,mass_u,ie1_ev,ie2_ev,source\n29,Cu,Copper,63.546,7.7,,me\n", "el2.csv")
     t = atomic.load_element_table(p)
     assert np.isnan(t.loc["Cu", "ie2_ev"])
 
@@ -364,10 +360,7 @@ def test_lowering_removes_levels():
 
 
 # (species, T, U, relative tolerance, source)
-_GRAY = (
-    "from memory of Gray 2005, The Observation and Analysis of Stellar Photospheres, "
-    "Table D.2 (log u at theta=1.0)"
-)
+_GRAY = "from memory of Gray 2005, The Observation and Analysis of Stellar Photospheres, Table D.2 (log u at theta=1.0)"
 PARTITION_REFERENCES = [
     ("H I", 5040.0, 10**0.301, 0.01, _GRAY),
     ("Na I", 5040.0, 10**0.31, 0.05, _GRAY),
@@ -430,9 +423,7 @@ def test_loaders_raise_only_compquant_errors_on_garbage(tmp_path):
     from hypothesis import HealthCheck, given, settings
     from hypothesis import strategies as st
 
-    cells = st.sampled_from(
-        ["Cu", "1", "2", "324.754", "-1", "abc", "", "nan", "inf", "AA", "1e8", '"', ",,"]
-    )
+    cells = st.sampled_from(["Cu", "1", "2", "324.754", "-1", "abc", "", "nan", "inf", "AA", "1e8", '"', ",,"])
     rows = st.lists(st.lists(cells, min_size=1, max_size=16), min_size=0, max_size=4)
 
     @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
@@ -467,3 +458,32 @@ def test_line_weights_agree_with_level_tables():
             if len(m) and r[g_col] not in set(m["g"]):
                 bad.append((r["line_id"], g_col, r[g_col], list(m["g"])))
     assert not bad
+
+
+def test_bare_nucleus_partition_function_is_one():
+    # H II has no bound electron: U = 1 (common practice in Saha balances)
+    assert atomic.partition_function("H II", 12000.0) == 1.0
+    np.testing.assert_array_equal(atomic.partition_function("H II", np.array([5e3, 2e4])), [1.0, 1.0])
+
+
+def test_lowering_broadcasts_against_temperature():
+    t = np.array([8000.0, 12000.0, 20000.0])
+    low = np.array([0.0, 0.3, 1.0])
+    u = atomic.partition_function("Fe I", t, lowering_ev=low)
+    expected = [atomic.partition_function("Fe I", ti, lowering_ev=li) for ti, li in zip(t, low)]
+    np.testing.assert_allclose(u, expected, rtol=1e-13)
+    with pytest.raises(AtomicDataError, match="broadcast"):
+        atomic.partition_function("Fe I", t, lowering_ev=np.zeros(2))
+
+
+def test_error_line_numbers_count_blank_lines(tmp_path):
+    text = HEADER + "\n" + GOOD + "\n\n" + GOOD.replace("324.754", "327.396").replace("1.39e8", "x") + "\n"
+    p = _write(tmp_path, text)
+    with pytest.raises(AtomicDataError, match=r"mine.csv, line 4, column 'aki'"):
+        atomic.load_line_list(p)
+
+
+def test_row_with_extra_fields_is_refused(tmp_path):
+    p = _write(tmp_path, HEADER + "\n" + GOOD + ",extra\n")
+    with pytest.raises(CompquantError, match="more fields than the header"):
+        atomic.load_line_list(p)

@@ -14,6 +14,7 @@ from __future__ import annotations
 import functools
 import os
 import re
+import warnings
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
@@ -105,7 +106,23 @@ def parse_species(species: str) -> tuple[str, int]:
 def _read_csv(path: Path, what: str) -> pd.DataFrame:
     """Read a user or shipped CSV table as strings; any read problem -> InputError."""
     try:
-        raw = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True)
+        with warnings.catch_warnings():
+            # a row with more fields than the header must not be silently cut or shifted
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            raw = pd.read_csv(
+                path,
+                dtype=str,
+                keep_default_na=False,
+                skipinitialspace=True,
+                skip_blank_lines=False,
+                index_col=False,
+            )
+    except pd.errors.ParserWarning as exc:
+        raise InputError(
+            f"a row of the {what} has more fields than the header",
+            where=str(path),
+            fix="check for unquoted commas (quote text that contains commas)",
+        ) from exc
     except FileNotFoundError as exc:
         raise InputError(f"{what} not found", where=str(path), fix="check the path") from exc
     except (OSError, UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
@@ -113,7 +130,13 @@ def _read_csv(path: Path, what: str) -> pd.DataFrame:
             f"cannot read {what} ({exc})", where=str(path), fix="save it as UTF-8 CSV with a header row"
         ) from exc
     raw.columns = [str(c).strip() for c in raw.columns]
-    return raw.apply(lambda col: col.str.strip())
+    raw = raw.apply(lambda col: col.str.strip())
+    # drop blank lines but remember each row's line number in the file (header = line 1)
+    raw = raw[(raw != "").any(axis=1)] if len(raw.columns) else raw
+    lines = raw.index.to_numpy() + 2
+    raw = raw.reset_index(drop=True)
+    raw.attrs["file_lines"] = lines
+    return raw
 
 
 def _fail(path, row, col, what, fix):
@@ -135,6 +158,7 @@ def load_element_table(path: str | os.PathLike | None = None) -> pd.DataFrame:
 
 def _read_element_table(path: Path) -> pd.DataFrame:
     df = _read_csv(path, "element table")
+    ln = df.attrs["file_lines"]
     missing = [c for c in ELEMENT_COLUMNS if c not in df.columns]
     if missing:
         raise AtomicDataError(
@@ -158,22 +182,22 @@ def _read_element_table(path: Path) -> pd.DataFrame:
             try:
                 v = float(raw)
             except ValueError:
-                _fail(path, i + 2, col, f"value {raw!r} is not a number", "write a plain decimal number")
+                _fail(path, ln[i], col, f"value {raw!r} is not a number", "write a plain decimal number")
             if not np.isfinite(v) or v <= 0:
-                _fail(path, i + 2, col, f"value {raw!r} must be a positive number", "correct the value")
+                _fail(path, ln[i], col, f"value {raw!r} must be a positive number", "correct the value")
             vals[i] = v
         out[col] = vals
     if (out["Z"] != np.round(out["Z"])).any():
         i = int(np.flatnonzero(out["Z"] != np.round(out["Z"]))[0])
-        _fail(path, i + 2, "Z", "Z must be a whole number", "correct the value")
+        _fail(path, ln[i], "Z", "Z must be a whole number", "correct the value")
     out["Z"] = out["Z"].astype(int)
     for i, sym in enumerate(out["symbol"]):
         if not re.fullmatch(r"[A-Z][a-z]?", sym):
-            _fail(path, i + 2, "symbol", f"{sym!r} is not an element symbol", "write e.g. Cu, Zn, Fe")
+            _fail(path, ln[i], "symbol", f"{sym!r} is not an element symbol", "write e.g. Cu, Zn, Fe")
     dup = out["symbol"].duplicated()
     if dup.any():
         i = int(np.flatnonzero(dup)[0])
-        _fail(path, i + 2, "symbol", f"element {out['symbol'][i]!r} is listed twice", "keep one row")
+        _fail(path, ln[i], "symbol", f"element {out['symbol'][i]!r} is listed twice", "keep one row")
     return out.set_index("symbol", drop=False)[list(ELEMENT_COLUMNS)]
 
 

@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from compquant.atomic.elements import _data_dir, _read_csv, known_symbols, parse_species, species_name
+from compquant.atomic.elements import _data_dir, _fail, _read_csv, known_symbols, parse_species, species_name
 from compquant.errors import AtomicDataError
 
 __all__ = [
@@ -119,13 +119,9 @@ def aki_standard_uncertainty(grade):
     return np.array([aki_relative_uncertainty(g) for g in grade]) / np.sqrt(3.0)
 
 
-def _fail(path, row, col, what, fix):
-    where = f"{path}, line {row}" + (f", column {col!r}" if col else "")
-    raise AtomicDataError(what, where=where, fix=fix)
-
-
 def _read_line_list(path: Path) -> pd.DataFrame:
     raw = _read_csv(path, "line list")
+    ln = raw.attrs["file_lines"]
     missing = [c for c in LINE_COLUMNS if c not in raw.columns]
     if missing:
         raise AtomicDataError(
@@ -142,7 +138,7 @@ def _read_line_list(path: Path) -> pd.DataFrame:
         if el not in symbols:
             _fail(
                 path,
-                i + 2,
+                ln[i],
                 "element",
                 f"unknown element {el!r}",
                 "use a chemical symbol with Z = 1..92, e.g. Cu",
@@ -153,7 +149,7 @@ def _read_line_list(path: Path) -> pd.DataFrame:
         if v not in ("1", "2"):
             _fail(
                 path,
-                i + 2,
+                ln[i],
                 "ion",
                 f"ion stage {v!r} must be 1 (neutral) or 2 (singly ionised)",
                 "write 1 or 2",
@@ -169,14 +165,14 @@ def _read_line_list(path: Path) -> pd.DataFrame:
         for i, v in enumerate(raw[col]):
             if v == "":
                 if required:
-                    _fail(path, i + 2, col, "value is empty", "every line needs this value")
+                    _fail(path, ln[i], col, "value is empty", "every line needs this value")
                 continue
             try:
                 x = float(v)
             except ValueError:
-                _fail(path, i + 2, col, f"value {v!r} is not a number", "write a plain decimal number")
+                _fail(path, ln[i], col, f"value {v!r} is not a number", "write a plain decimal number")
             if not np.isfinite(x):
-                _fail(path, i + 2, col, f"value {v!r} is not finite", "write a finite number")
+                _fail(path, ln[i], col, f"value {v!r} is not finite", "write a finite number")
             vals[i] = x
         out[col] = vals
     grades = raw["aki_grade"].str.upper().to_numpy()
@@ -184,7 +180,7 @@ def _read_line_list(path: Path) -> pd.DataFrame:
         if g not in AKI_GRADES:
             _fail(
                 path,
-                i + 2,
+                ln[i],
                 "aki_grade",
                 f"unknown accuracy grade {raw['aki_grade'][i]!r}",
                 f"use one of {' '.join(AKI_GRADES)}",
@@ -205,26 +201,24 @@ def _read_line_list(path: Path) -> pd.DataFrame:
         bad = np.asarray(bad)
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
-            _fail(path, i + 2, col, f"{what} (found {raw[col][i]!r})", "correct the value")
+            _fail(path, ln[i], col, f"{what} (found {raw[col][i]!r})", "correct the value")
     has_w = np.isfinite(out["stark_w_nm"].to_numpy())
     no_ref = has_w & ~(np.isfinite(out["stark_ne_ref_cm3"].to_numpy()))
     if no_ref.any():
         i = int(np.flatnonzero(no_ref)[0])
         _fail(
             path,
-            i + 2,
+            ln[i],
             "stark_ne_ref_cm3",
             "a Stark width needs its reference electron density",
             "fill stark_ne_ref_cm3 (cm^-3) or empty stark_w_nm",
         )
-    out["stark_ne_exponent"] = np.where(
-        has_w & np.isnan(out["stark_ne_exponent"]), 1.0, out["stark_ne_exponent"]
-    )
+    out["stark_ne_exponent"] = np.where(has_w & np.isnan(out["stark_ne_exponent"]), 1.0, out["stark_ne_exponent"])
     out["gi"] = out["gi"].astype(int)
     out["gk"] = out["gk"].astype(int)
     for i, s in enumerate(raw["source"]):
         if not s:
-            _fail(path, i + 2, "source", "every line needs a source", "name where the values come from")
+            _fail(path, ln[i], "source", "every line needs a source", "name where the values come from")
     out["source"] = raw["source"].to_numpy()
     out["species"] = [species_name(e, k) for e, k in zip(out["element"], out["ion"])]
     out["line_id"] = [f"{s} {w:.3f}" for s, w in zip(out["species"], out["wavelength_nm"])]
@@ -233,7 +227,7 @@ def _read_line_list(path: Path) -> pd.DataFrame:
         i = int(np.flatnonzero(dup)[0])
         _fail(
             path,
-            i + 2,
+            ln[i],
             "wavelength_nm",
             f"line {out['line_id'][i]!r} is listed twice",
             "keep one row per line (line ids use 3 decimals)",

@@ -35,7 +35,15 @@ import numpy as np
 import pandas as pd
 from scipy import constants
 
-from compquant.atomic.elements import _data_dir, _read_csv, ionisation_energy, parse_species, species_name
+from compquant.atomic.elements import (
+    _data_dir,
+    _fail,
+    _read_csv,
+    element,
+    ionisation_energy,
+    parse_species,
+    species_name,
+)
 from compquant.errors import AtomicDataError
 
 __all__ = [
@@ -54,11 +62,6 @@ K_B_EV = constants.k / constants.e
 LEVEL_COLUMNS = ("energy_ev", "g", "source")
 
 
-def _fail(path, row, col, what, fix):
-    where = f"{path}, line {row}" + (f", column {col!r}" if col else "")
-    raise AtomicDataError(what, where=where, fix=fix)
-
-
 def load_levels(path: str | os.PathLike) -> pd.DataFrame:
     """Load and validate an energy-level table (``energy_ev, g, source``).
 
@@ -68,6 +71,7 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
     """
     path = Path(path)
     raw = _read_csv(path, "level table")
+    ln = raw.attrs["file_lines"]
     missing = [c for c in LEVEL_COLUMNS if c not in raw.columns]
     if missing:
         raise AtomicDataError(
@@ -84,11 +88,11 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
             try:
                 x = float(v)
             except ValueError:
-                _fail(path, i + 2, col, f"value {v!r} is not a number", "write a plain decimal number")
+                _fail(path, ln[i], col, f"value {v!r} is not a number", "write a plain decimal number")
             if not np.isfinite(x) or x < 0 or (col == "g" and (x <= 0 or x != round(x))):
                 _fail(
                     path,
-                    i + 2,
+                    ln[i],
                     col,
                     f"value {v!r} is out of range",
                     "energies must be >= 0 eV, g a positive whole number",
@@ -98,7 +102,7 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
     src = raw["source"].str.strip()
     for i, s in enumerate(src):
         if not s:
-            _fail(path, i + 2, "source", "every level needs a source", "name where the value comes from")
+            _fail(path, ln[i], "source", "every level needs a source", "name where the value comes from")
     if not np.any(out["energy_ev"] == 0.0):
         raise AtomicDataError(
             "no ground level (energy_ev = 0)", where=str(path), fix="add the ground level with energy 0"
@@ -110,9 +114,7 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
 @functools.lru_cache(maxsize=1)
 def level_index() -> pd.DataFrame:
     """Index of shipped level tables: ``species, file, complete_to_ev, note``."""
-    return pd.read_csv(_data_dir() / "levels" / "index.csv", keep_default_na=False).set_index(
-        "species", drop=False
-    )
+    return pd.read_csv(_data_dir() / "levels" / "index.csv", keep_default_na=False).set_index("species", drop=False)
 
 
 def species_with_levels() -> list[str]:
@@ -147,12 +149,28 @@ def levels(species: str) -> pd.DataFrame:
     return _shipped_levels(species_name(*parse_species(species))).copy()
 
 
+@functools.cache
+def _atomic_number(sym: str) -> int:
+    return element(sym).Z
+
+
+def _check_t(T, species: str) -> np.ndarray:
+    T_arr = np.asarray(T, dtype=float)
+    if not np.all(np.isfinite(T_arr)) or np.any(T_arr <= 0):
+        raise AtomicDataError(
+            "temperature must be finite and > 0 K",
+            where=f"partition function of {species}",
+            fix="pass T in kelvin",
+        )
+    return T_arr
+
+
 def partition_function(
     species: str,
     T,
     *,
     levels: pd.DataFrame | None = None,
-    lowering_ev: float = 0.0,
+    lowering_ev=0.0,
     ionisation_ev: float | None = None,
 ):
     """Internal partition function U(T) of ``species`` by level summation.
@@ -168,46 +186,61 @@ def partition_function(
         Temperature(s) in K (> 0).  Array in -> array of the same shape out.
     levels : DataFrame, optional
         A table from :func:`load_levels`; default: the shipped table.
-    lowering_ev : float
-        Lowering of the ionisation energy (eV, >= 0) used in the cut-off.
+    lowering_ev : float or array-like
+        Lowering of the ionisation energy (eV, >= 0) used in the cut-off; an
+        array is broadcast against ``T`` (one cut-off per temperature, e.g. a
+        density-dependent lowering along a grid).
     ionisation_ev : float, optional
         Ionisation energy used for the cut-off; default the tabulated one.
 
-    Valid 4 000-25 000 K for the shipped tables (see
+    A bare nucleus (``"H II"``) has U = 1.  Valid 4 000-25 000 K for the shipped tables (see
     :func:`partition_function_completeness`).
     """
-    name = species_name(*parse_species(species))
+    sym, ion = parse_species(species)
+    name = species_name(sym, ion)
+    if levels is None and ion == _atomic_number(sym) + 1:
+        # a bare nucleus (H II) has no bound electron: U = 1 at every T
+        T_arr = _check_t(T, species)
+        return np.ones_like(T_arr) if T_arr.ndim else 1.0
     if levels is None:
         e, g = _shipped_arrays(name)
     else:
         e = levels["energy_ev"].to_numpy(dtype=float)
         g = levels["g"].to_numpy(dtype=float)
     e_ion = ionisation_energy(name) if ionisation_ev is None else float(ionisation_ev)
-    if not np.isfinite(lowering_ev) or lowering_ev < 0:
+    low = np.asarray(lowering_ev, dtype=float)
+    if not np.all(np.isfinite(low)) or np.any(low < 0):
         raise AtomicDataError(
             f"lowering of the ionisation energy {lowering_ev!r} eV must be >= 0",
             where=f"partition function of {species}",
             fix="pass a value >= 0",
         )
-    if lowering_ev >= e_ion:
+    if np.any(low >= e_ion):
         raise AtomicDataError(
-            f"lowering of the ionisation energy ({lowering_ev} eV) is not below the "
+            f"lowering of the ionisation energy (up to {float(np.max(low))} eV) is not below the "
             f"ionisation energy ({e_ion} eV)",
             where=f"partition function of {species}",
             fix="the plasma is outside the range where a bound-level sum makes sense",
         )
-    T_arr = np.asarray(T, dtype=float)
-    if not np.all(np.isfinite(T_arr)) or np.any(T_arr <= 0):
-        raise AtomicDataError(
-            "temperature must be finite and > 0 K",
-            where=f"partition function of {species}",
-            fix="pass T in kelvin",
-        )
-    keep = e < e_ion - lowering_ev
-    e, g = e[keep], g[keep]
-    beta = 1.0 / (K_B_EV * T_arr.reshape(-1))
-    u = np.exp(-np.outer(beta, e)) @ g
-    u = u.reshape(T_arr.shape)
+    T_arr = _check_t(T, species)
+    if low.ndim == 0:
+        keep = e < e_ion - float(low)
+        e, g = e[keep], g[keep]
+        beta = 1.0 / (K_B_EV * T_arr.reshape(-1))
+        u = np.exp(-np.outer(beta, e)) @ g
+        u = u.reshape(T_arr.shape)
+    else:  # one lowering per temperature (broadcast): cut-off differs per element
+        try:
+            T_b, low_b = np.broadcast_arrays(T_arr, low)
+        except ValueError as exc:
+            raise AtomicDataError(
+                f"temperature shape {T_arr.shape} and lowering shape {low.shape} do not broadcast",
+                where=f"partition function of {species}",
+                fix="pass lowering_ev as a scalar or with the shape of T",
+            ) from exc
+        beta = 1.0 / (K_B_EV * T_b.reshape(-1))
+        w = np.exp(-np.outer(beta, e)) * (e[None, :] < (e_ion - low_b.reshape(-1))[:, None])
+        u = (w @ g).reshape(T_b.shape)
     return u if u.ndim else float(u)
 
 
