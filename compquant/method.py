@@ -22,29 +22,56 @@ from pathlib import Path
 
 import numpy as np
 
-from compquant.errors import CompquantError, MethodError
+from compquant.errors import MethodError
 from compquant.fileio import check_keys, load_toml, sha256_file
 
-TOP_LEVEL = frozenset({"method", "preprocess", "lines", "measure", "calibration", "cf", "identify",
-                       "map"})
+TOP_LEVEL = frozenset({"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map"})
 OTHER_SECTIONS = ("calibration", "cf", "identify", "map")
 
 METHOD_KEYS = frozenset({"id", "version", "technique", "description"})
-PREPROCESS_TABLES = frozenset({"dark", "response", "saturation", "qc", "baseline", "normalise",
-                               "shift"})
+PREPROCESS_TABLES = frozenset({"dark", "response", "saturation", "qc", "baseline", "normalise", "shift"})
 DARK_KEYS = frozenset({"enabled", "statistic", "scale_exposure"})
 RESPONSE_KEYS = frozenset({"enabled", "file"})
 SATURATION_KEYS = frozenset({"enabled", "level", "margin"})
-QC_KEYS = frozenset({"enabled", "quantity", "k", "min_fraction", "min_signal",
-                     "pulse_energy_normalise", "min_pulse_fraction"})
-BASELINE_KEYS = frozenset({"method", "max_half_window", "decreasing", "lls", "lam", "p",
-                           "diff_order", "max_iter", "tol"})
+QC_KEYS = frozenset(
+    {"enabled", "quantity", "k", "min_fraction", "min_signal", "pulse_energy_normalise", "min_pulse_fraction"}
+)
+BASELINE_KEYS = frozenset(
+    {"method", "max_half_window", "decreasing", "lls", "lam", "p", "diff_order", "max_iter", "tol"}
+)
 NORMALISE_KEYS = frozenset({"how", "line"})
 SHIFT_KEYS = frozenset({"method", "lines", "reference_file", "max_shift_nm", "search_nm", "flag_nm"})
-MEASURE_KEYS = frozenset({"mode", "window_nm", "side_nm", "gap_nm", "profile", "shared_width",
-                          "fwhm_nm", "max_offset_nm", "snr_detect", "snr_min", "chunk_shots"})
-LINE_KEYS = frozenset({"id", "element", "ion", "wavelength_nm", "mode", "window_nm", "side_nm",
-                       "gap_nm", "group", "profile", "fwhm_nm", "label"})
+MEASURE_KEYS = frozenset(
+    {
+        "mode",
+        "window_nm",
+        "side_nm",
+        "gap_nm",
+        "profile",
+        "shared_width",
+        "fwhm_nm",
+        "max_offset_nm",
+        "snr_detect",
+        "snr_min",
+        "chunk_shots",
+    }
+)
+LINE_KEYS = frozenset(
+    {
+        "id",
+        "element",
+        "ion",
+        "wavelength_nm",
+        "mode",
+        "window_nm",
+        "side_nm",
+        "gap_nm",
+        "group",
+        "profile",
+        "fwhm_nm",
+        "label",
+    }
+)
 
 TECHNIQUES = ("LIBS", "spark-OES", "arc-OES", "other")
 MODES = ("window", "fit")
@@ -164,8 +191,11 @@ class Method:
         for ln in self.lines:
             if ln.line_id == line_id:
                 return ln
-        raise MethodError(f"line {line_id!r} is not in the method's [[lines]]", where=self.where,
-                          fix="add it under [[lines]] or correct the id")
+        raise MethodError(
+            f"line {line_id!r} is not in the method's [[lines]]",
+            where=self.where,
+            fix="add it under [[lines]] or correct the id",
+        )
 
     def resolve_path(self, relative: str) -> Path:
         """A path given in the method file, relative to the method file's folder."""
@@ -186,17 +216,29 @@ class Method:
                     f"line {ln.line_id!r} at {ln.wavelength_nm:.3f} nm (window {2 * half:.3f} nm) "
                     f"lies outside the run's wavelength range {lo:.3f}-{hi:.3f} nm",
                     where=f"{self.where}: [[lines]] {ln.line_id}",
-                    fix="remove the line from the method or use a run that covers it")
+                    fix="remove the line from the method or use a run that covers it",
+                )
 
     def provenance(self) -> dict:
         """Identifiers of the method for output provenance."""
-        return {"method_id": self.id, "method_version": self.version, "method_path": self.path,
-                "method_sha256": self.sha256}
+        return {
+            "method_id": self.id,
+            "method_version": self.version,
+            "method_path": self.path,
+            "method_sha256": self.sha256,
+        }
 
     def settings_digest(self) -> str:
         """SHA-256 of the resolved preprocessing, measurement and line settings."""
-        blob = json.dumps({"preprocess": asdict(self.preprocess), "measure": asdict(self.measure),
-                           "lines": [asdict(x) for x in self.lines]}, sort_keys=True, default=str)
+        blob = json.dumps(
+            {
+                "preprocess": asdict(self.preprocess),
+                "measure": asdict(self.measure),
+                "lines": [asdict(x) for x in self.lines],
+            },
+            sort_keys=True,
+            default=str,
+        )
         return hashlib.sha256(blob.encode()).hexdigest()
 
 
@@ -228,8 +270,16 @@ def _err(where: str, what: str, fix: str) -> MethodError:
     return MethodError(what, where=where, fix=fix)
 
 
-def _num(table: dict, key: str, where: str, *, positive: bool = False, minimum: float | None = None,
-         integer: bool = False, default=None):
+def _num(
+    table: dict,
+    key: str,
+    where: str,
+    *,
+    positive: bool = False,
+    minimum: float | None = None,
+    integer: bool = False,
+    default=None,
+):
     if key not in table:
         return default
     v = table[key]
@@ -316,17 +366,22 @@ def _parse_preprocess(pre: dict, src: str) -> PreprocessConfig:
     wb = f"{src}: [preprocess.baseline]"
     check_keys(t, BASELINE_KEYS, wb, MethodError)
     c.baseline = _str(t, "method", wb, c.baseline, BASELINES)
-    allowed = {"snip": {"max_half_window", "decreasing", "lls"},
-               "asls": {"lam", "p", "diff_order", "max_iter", "tol"},
-               "arpls": {"lam", "diff_order", "max_iter", "tol"}, "none": set()}[c.baseline]
+    allowed = {
+        "snip": {"max_half_window", "decreasing", "lls"},
+        "asls": {"lam", "p", "diff_order", "max_iter", "tol"},
+        "arpls": {"lam", "diff_order", "max_iter", "tol"},
+        "none": set(),
+    }[c.baseline]
     extra = sorted(set(t) - allowed - {"method"})
     if extra:
-        raise _err(f"{wb} {extra[0]}", f"key {extra[0]!r} does not apply to method {c.baseline!r}",
-                   f"keys for {c.baseline}: {', '.join(sorted(allowed)) or 'none'}")
+        raise _err(
+            f"{wb} {extra[0]}",
+            f"key {extra[0]!r} does not apply to method {c.baseline!r}",
+            f"keys for {c.baseline}: {', '.join(sorted(allowed)) or 'none'}",
+        )
     params: dict = {}
     if c.baseline == "snip":
-        params["max_half_window"] = _num(t, "max_half_window", wb, positive=True, integer=True,
-                                         default=20)
+        params["max_half_window"] = _num(t, "max_half_window", wb, positive=True, integer=True, default=20)
         params["decreasing"] = _bool(t, "decreasing", wb, False)
         params["lls"] = _bool(t, "lls", wb, False)
     elif c.baseline in ("asls", "arpls"):
@@ -346,8 +401,9 @@ def _parse_preprocess(pre: dict, src: str) -> PreprocessConfig:
     c.normalise = _str(t, "how", wn, c.normalise, NORMALISATIONS)
     c.normalise_line = _str(t, "line", wn, None)
     if c.normalise == "internal_standard" and not c.normalise_line:
-        raise _err(f"{wn} line", "internal-standard normalisation needs a line",
-                   "add line = \"<id of a line in [[lines]]>\"")
+        raise _err(
+            f"{wn} line", "internal-standard normalisation needs a line", 'add line = "<id of a line in [[lines]]>"'
+        )
 
     t = _table(pre, "shift", w)
     wsh = f"{src}: [preprocess.shift]"
@@ -355,18 +411,24 @@ def _parse_preprocess(pre: dict, src: str) -> PreprocessConfig:
     c.shift = _str(t, "method", wsh, c.shift, SHIFT_METHODS)
     lines = t.get("lines", [])
     if not isinstance(lines, list):
-        raise _err(f"{wsh} lines", "expected a list", "write lines = [\"Cu I 324.754\", 510.554]")
+        raise _err(f"{wsh} lines", "expected a list", 'write lines = ["Cu I 324.754", 510.554]')
     c.shift_lines = list(lines)
     c.shift_reference_file = _str(t, "reference_file", wsh, None)
     c.max_shift_nm = _num(t, "max_shift_nm", wsh, positive=True, default=c.max_shift_nm)
     c.shift_search_nm = _num(t, "search_nm", wsh, positive=True, default=c.shift_search_nm)
     c.shift_flag_nm = _num(t, "flag_nm", wsh, positive=True)
     if c.shift == "lines" and not c.shift_lines:
-        raise _err(f"{wsh} lines", "shift method 'lines' needs reference lines",
-                   "list line ids or wavelengths (nm) of strong, isolated lines")
+        raise _err(
+            f"{wsh} lines",
+            "shift method 'lines' needs reference lines",
+            "list line ids or wavelengths (nm) of strong, isolated lines",
+        )
     if c.shift == "xcorr" and not c.shift_reference_file:
-        raise _err(f"{wsh} reference_file", "shift method 'xcorr' needs a reference spectrum",
-                   "give a CSV file with columns wavelength_nm,intensity")
+        raise _err(
+            f"{wsh} reference_file",
+            "shift method 'xcorr' needs a reference spectrum",
+            "give a CSV file with columns wavelength_nm,intensity",
+        )
     return c
 
 
@@ -390,32 +452,32 @@ def _parse_measure(t: dict, src: str) -> MeasureConfig:
     return m
 
 
-def _lookup_line(element: str, ion: int, wl: float, where: str):
-    """Find the line in the shipped line list; None when the atomic module is unavailable."""
-    try:
-        from compquant.atomic import load_line_list
-    except ImportError:
-        return None
-    try:
-        table = load_line_list()
-    except CompquantError:
-        return None
+def _lookup_line(element: str, ion: int, wl: float) -> float | None:
+    """Wavelength of the shipped line-list entry within 0.0015 nm of ``wl``; None if absent.
+
+    The list is :func:`compquant.atomic.load_line_list` (docs/atomic-data.md).
+    """
+    from compquant.atomic import load_line_list
+
+    table = load_line_list()
     species = f"{element} {_ROMAN_INV.get(ion, str(ion))}"
-    sel = table[(table["species"] == species) if "species" in table.columns else
-                ((table["element"] == element) & (table["ion"] == ion))]
+    sel = table[table["species"] == species]
     if len(sel) == 0:
-        return False
+        return None
     d = np.abs(sel["wavelength_nm"].to_numpy(dtype=float) - wl)
     j = int(np.argmin(d))
     if d[j] > 0.0015:
-        return False
+        return None
     return float(sel["wavelength_nm"].iloc[j])
 
 
 def _parse_lines(items, src: str, measure: MeasureConfig) -> list[LineSpec]:
     if not isinstance(items, list) or not items:
-        raise _err(f"{src}: [[lines]]", "the method lists no lines",
-                   "add at least one [[lines]] entry with id = \"<El> <ion> <nm>\"")
+        raise _err(
+            f"{src}: [[lines]]",
+            "the method lists no lines",
+            'add at least one [[lines]] entry with id = "<El> <ion> <nm>"',
+        )
     out: list[LineSpec] = []
     seen = set()
     for k, t in enumerate(items):
@@ -431,35 +493,48 @@ def _parse_lines(items, src: str, measure: MeasureConfig) -> list[LineSpec]:
         wl = _num(t, "wavelength_nm", w, positive=True)
         parsed = parse_line_id(lid) if lid else None
         if lid and parsed is None and (element is None or ion is None or wl is None):
-            raise _err(f"{w} id", f"cannot read line id {lid!r}",
-                       "write '<Element> <ion roman> <wavelength nm>' e.g. 'Cu I 324.754', "
-                       "or give element, ion and wavelength_nm")
+            raise _err(
+                f"{w} id",
+                f"cannot read line id {lid!r}",
+                "write '<Element> <ion roman> <wavelength nm>' e.g. 'Cu I 324.754', "
+                "or give element, ion and wavelength_nm",
+            )
         if parsed:
             element = element or parsed[0]
             ion = ion or parsed[1]
             if wl is None:
-                found = _lookup_line(parsed[0], parsed[1], parsed[2], w)
-                if found is False:
-                    raise _err(w, f"line {lid!r} is not in the line list",
-                               "check the id, or give wavelength_nm (and element, ion) explicitly")
-                wl = parsed[2] if found is None else found
+                found = _lookup_line(parsed[0], parsed[1], parsed[2])
+                if found is None:
+                    raise _err(
+                        w,
+                        f"line {lid!r} is not in the line list",
+                        "check the id, or give wavelength_nm (and element, ion) explicitly",
+                    )
+                wl = found
         if element is None or ion is None or wl is None:
-            raise _err(w, "a line needs an id, or element + ion + wavelength_nm",
-                       "add id = \"Cu I 324.754\" or the three keys")
+            raise _err(
+                w, "a line needs an id, or element + ion + wavelength_nm", 'add id = "Cu I 324.754" or the three keys'
+            )
         if lid is None:
             lid = make_line_id(element, ion, wl)
         if lid in seen:
             raise _err(w, f"line {lid!r} is listed twice", "remove the duplicate")
         seen.add(lid)
         mode = _str(t, "mode", w, measure.mode, MODES)
-        spec = LineSpec(line_id=lid, element=element, ion=ion, wavelength_nm=wl, mode=mode,
-                        window_nm=_num(t, "window_nm", w, positive=True, default=measure.window_nm),
-                        side_nm=_num(t, "side_nm", w, minimum=0.0, default=measure.side_nm),
-                        gap_nm=_num(t, "gap_nm", w, minimum=0.0, default=measure.gap_nm),
-                        group=_str(t, "group", w), profile=_str(t, "profile", w, measure.profile,
-                                                                 PROFILES),
-                        fwhm_nm=_num(t, "fwhm_nm", w, positive=True, default=measure.fwhm_nm),
-                        label=_str(t, "label", w))
+        spec = LineSpec(
+            line_id=lid,
+            element=element,
+            ion=ion,
+            wavelength_nm=wl,
+            mode=mode,
+            window_nm=_num(t, "window_nm", w, positive=True, default=measure.window_nm),
+            side_nm=_num(t, "side_nm", w, minimum=0.0, default=measure.side_nm),
+            gap_nm=_num(t, "gap_nm", w, minimum=0.0, default=measure.gap_nm),
+            group=_str(t, "group", w),
+            profile=_str(t, "profile", w, measure.profile, PROFILES),
+            fwhm_nm=_num(t, "fwhm_nm", w, positive=True, default=measure.fwhm_nm),
+            label=_str(t, "label", w),
+        )
         out.append(spec)
     return out
 
@@ -470,46 +545,67 @@ def method_from_dict(data: dict, *, source: str = "<method>", sha256: str | None
         raise _err(source, "a method must be a TOML table", "see docs/method-file.md")
     unknown = sorted(set(data) - TOP_LEVEL)
     if unknown:
-        raise _err(f"{source}: {unknown[0]}", f"unknown top-level table or key {unknown[0]!r}",
-                   f"allowed: {', '.join(sorted(TOP_LEVEL))}")
+        raise _err(
+            f"{source}: {unknown[0]}",
+            f"unknown top-level table or key {unknown[0]!r}",
+            f"allowed: {', '.join(sorted(TOP_LEVEL))}",
+        )
     meta = data.get("method")
     if not isinstance(meta, dict):
-        raise _err(f"{source}: [method]", "missing [method] table",
-                   "add [method] with id, version and technique")
+        raise _err(f"{source}: [method]", "missing [method] table", "add [method] with id, version and technique")
     check_keys(meta, METHOD_KEYS, f"{source}: [method]", MethodError, required={"id"})
     wm = f"{source}: [method]"
     mid = _str(meta, "id", wm)
     version = meta.get("version", "1")
     if not isinstance(version, (str, int)) or isinstance(version, bool):
-        raise _err(f"{wm} version", f"expected text or a whole number, got {version!r}",
-                   "write version = \"1.0\"")
+        raise _err(f"{wm} version", f"expected text or a whole number, got {version!r}", 'write version = "1.0"')
     technique = _str(meta, "technique", wm, "LIBS", TECHNIQUES)
     pre = _parse_preprocess(data.get("preprocess", {}), source)
     measure = _parse_measure(data.get("measure", {}), source)
     lines = _parse_lines(data.get("lines"), source, measure)
     ids = {ln.line_id for ln in lines}
     if pre.normalise == "internal_standard" and pre.normalise_line not in ids:
-        raise _err(f"{source}: [preprocess.normalise] line",
-                   f"line {pre.normalise_line!r} is not in [[lines]]", "add it to [[lines]]")
+        raise _err(
+            f"{source}: [preprocess.normalise] line",
+            f"line {pre.normalise_line!r} is not in [[lines]]",
+            "add it to [[lines]]",
+        )
     if pre.qc_quantity != "total" and pre.qc_quantity not in ids:
-        raise _err(f"{source}: [preprocess.qc] quantity",
-                   f"{pre.qc_quantity!r} is neither 'total' nor a line in [[lines]]",
-                   "use 'total' or the id of a measured line")
+        raise _err(
+            f"{source}: [preprocess.qc] quantity",
+            f"{pre.qc_quantity!r} is neither 'total' nor a line in [[lines]]",
+            "use 'total' or the id of a measured line",
+        )
     for ref in pre.shift_lines:
         if isinstance(ref, str) and parse_line_id(ref) is None:
-            raise _err(f"{source}: [preprocess.shift] lines", f"cannot read line id {ref!r}",
-                       "use ids like 'Cu I 324.754' or wavelengths in nm")
+            raise _err(
+                f"{source}: [preprocess.shift] lines",
+                f"cannot read line id {ref!r}",
+                "use ids like 'Cu I 324.754' or wavelengths in nm",
+            )
         if not isinstance(ref, (str, int, float)) or isinstance(ref, bool):
-            raise _err(f"{source}: [preprocess.shift] lines", f"bad entry {ref!r}",
-                       "use ids like 'Cu I 324.754' or wavelengths in nm")
+            raise _err(
+                f"{source}: [preprocess.shift] lines",
+                f"bad entry {ref!r}",
+                "use ids like 'Cu I 324.754' or wavelengths in nm",
+            )
     sections = {name: data[name] for name in OTHER_SECTIONS if name in data}
     for name, sec in sections.items():
         if not isinstance(sec, dict):
             raise _err(f"{source}: [{name}]", f"[{name}] must be a table", "see docs/method-file.md")
-    return Method(id=mid, version=str(version), technique=technique,
-                  description=_str(meta, "description", wm, ""), preprocess=pre, measure=measure,
-                  lines=lines, sections=sections, path=None if source == "<method>" else source,
-                  sha256=sha256, raw=data)
+    return Method(
+        id=mid,
+        version=str(version),
+        technique=technique,
+        description=_str(meta, "description", wm, ""),
+        preprocess=pre,
+        measure=measure,
+        lines=lines,
+        sections=sections,
+        path=None if source == "<method>" else source,
+        sha256=sha256,
+        raw=data,
+    )
 
 
 def load_method(path) -> Method:
@@ -519,6 +615,15 @@ def load_method(path) -> Method:
     return m
 
 
-__all__ = ["LineSpec", "MeasureConfig", "Method", "PreprocessConfig", "load_method",
-           "make_line_id", "method_from_dict", "parse_line_id", "side_width_nm",
-           "window_width_nm"]
+__all__ = [
+    "LineSpec",
+    "MeasureConfig",
+    "Method",
+    "PreprocessConfig",
+    "load_method",
+    "make_line_id",
+    "method_from_dict",
+    "parse_line_id",
+    "side_width_nm",
+    "window_width_nm",
+]

@@ -10,10 +10,12 @@ import click
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write
 
-SAFETY = ("Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-          "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
-          "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
-          "Follow local regulations and your laser safety officer.")
+SAFETY = (
+    "Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
+    "density, keep interlocks and a controlled area); ablation makes fumes and particles, some "
+    "toxic (Pb, Cd, Be): use fume extraction; spark sources use high voltage and emit UV. "
+    "Follow local regulations and your laser safety officer."
+)
 
 
 def _write_csv(df, path: Path) -> None:
@@ -21,36 +23,100 @@ def _write_csv(df, path: Path) -> None:
         with atomic_write(path, "w", newline="") as fh:
             df.to_csv(fh, index=False, float_format="%.10g")
     except OSError as exc:
-        raise OutputError(f"cannot write ({exc.strerror})", where=str(path),
-                          fix="choose a writable output path") from exc
+        raise OutputError(
+            f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
+        ) from exc
 
 
-def _short_table(table) -> str:
-    cols = ("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")
-    rows = [cols]
-    for r in table.itertuples(index=False):
-        rows.append((str(r.sample_id), str(r.line_id), f"{r.intensity:.4g}", f"{r.u_intensity:.2g}",
-                     str(r.n_shots), f"{r.snr:.1f}", r.flags or "-"))
-    w = [max(len(x[i]) for x in rows) for i in range(len(cols))]
-    return "\n".join("  ".join(c.ljust(w[i]) if i in (0, 1, 6) else c.rjust(w[i])
-                               for i, c in enumerate(row)) for row in rows)
+def _columns(rows) -> str:
+    w = [max(len(x[i]) for x in rows) for i in range(len(rows[0]))]
+    return "\n".join(
+        "  ".join(c.ljust(w[i]) if i < 2 or i == len(row) - 1 else c.rjust(w[i]) for i, c in enumerate(row))
+        for row in rows
+    )
+
+
+def _short_table(table, max_rows: int = 60) -> str:
+    """The line table when short; otherwise one summary row per sample."""
+    if len(table) <= max_rows:
+        rows = [("sample_id", "line_id", "intensity", "u_intensity", "n_shots", "snr", "flags")]
+        for r in table.itertuples(index=False):
+            rows.append(
+                (
+                    str(r.sample_id),
+                    str(r.line_id),
+                    f"{r.intensity:.4g}",
+                    f"{r.u_intensity:.2g}",
+                    str(r.n_shots),
+                    f"{r.snr:.1f}",
+                    r.flags or "-",
+                )
+            )
+        return _columns(rows)
+    rows = [("sample_id", "role", "shots", "lines", "found", "flagged lines")]
+    for (sid, role), g in table.groupby(["sample_id", "role"], sort=False):
+        flagged = g[g["flags"] != ""]
+        found = int((~g["flags"].str.contains("not_found")).sum())
+        kinds = sorted({f for fl in flagged["flags"] for f in fl.split(";")})
+        rows.append(
+            (
+                str(sid),
+                str(role),
+                str(int(g["n_shots"].max())),
+                str(len(g)),
+                str(found),
+                f"{len(flagged)} ({', '.join(kinds)})" if kinds else "0",
+            )
+        )
+    return _columns(rows)
 
 
 @click.command("lines", epilog=SAFETY)
 @click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False),
-              help="Method file (TOML, docs/method-file.md).")
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Line table CSV (one row per sample and line).")
-@click.option("--shots", "shots_path", type=click.Path(dir_okay=False), default=None,
-              help="Per-shot CSV [default: <output stem>-shots.csv beside the output].")
+@click.option(
+    "--method",
+    "method_path",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Method file (TOML, docs/method-file.md).",
+)
+@click.option(
+    "-o",
+    "--output",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Line table CSV (one row per sample and line).",
+)
+@click.option(
+    "--shots",
+    "shots_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Per-shot CSV [default: <output stem>-shots.csv beside the output].",
+)
 @click.option("--no-shots", is_flag=True, help="Do not write the per-shot CSV.")
-@click.option("--qc", "qc_path", type=click.Path(dir_okay=False), default=None,
-              help="Shot-QC report CSV [default: <output stem>-qc.csv].")
-@click.option("--chunk-shots", type=int, default=None,
-              help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].")
+@click.option(
+    "--qc",
+    "qc_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Shot-QC report CSV [default: <output stem>-qc.csv].",
+)
+@click.option(
+    "--chunk-shots",
+    type=int,
+    default=None,
+    help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].",
+)
+@click.option(
+    "--threads",
+    type=click.IntRange(1, 64),
+    default=1,
+    show_default=True,
+    help="Worker threads (numpy releases the GIL; results are identical).",
+)
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
-def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, quiet):
+def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, threads, quiet):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
     centre, FWHM, signal-to-noise and flags per sample. Writes the line table, the per-shot
@@ -68,10 +134,10 @@ def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * passes
         if quiet or total < 20000:
-            lm = measure_run(run, method, chunk_shots=chunk_shots)
+            lm = measure_run(run, method, chunk_shots=chunk_shots, threads=threads)
         else:
             with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
-                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update)
+                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update, threads=threads)
     _write_csv(lm.table, out)
     if shots_out is not None:
         _write_csv(lm.shots, shots_out)

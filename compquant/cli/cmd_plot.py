@@ -42,11 +42,9 @@ def plot_sample(run, method, sample_id: str, output, *, measurement=None, title:
         lab = ln.label or ln.line_id
         if flags.get(ln.line_id):
             lab += f" [{flags[ln.line_id]}]"
-        ax.text(x, ymax * (0.98 - 0.07 * (k % 4)), lab, rotation=90, va="top", ha="right", fontsize=7,
-                color=col)
+        ax.text(x, ymax * (0.98 - 0.07 * (k % 4)), lab, rotation=90, va="top", ha="right", fontsize=7, color=col)
     sh = f", shift {info['shift_nm']:+.4f} nm" if info["shift_nm"] else ""
-    ax.set_title(title or f"{sample_id}: mean of {info['n_accepted']} of {info['n_shots']} shots{sh}",
-                 fontsize=10)
+    ax.set_title(title or f"{sample_id}: mean of {info['n_accepted']} of {info['n_shots']} shots{sh}", fontsize=10)
     ax.set_xlabel(f"wavelength / nm ({run.medium})")
     ax.set_ylabel("intensity (preprocessed, counts)")
     ax.set_xlim(float(wl[0]), float(wl[-1]))
@@ -55,8 +53,9 @@ def plot_sample(run, method, sample_id: str, output, *, measurement=None, title:
         with atomic_path(output) as tmp:
             fig.savefig(tmp, format="png")
     except OSError as exc:
-        raise OutputError(f"cannot write ({exc.strerror})", where=str(output),
-                          fix="choose a writable output path") from exc
+        raise OutputError(
+            f"cannot write ({exc.strerror})", where=str(output), fix="choose a writable output path"
+        ) from exc
     finally:
         plt.close(fig)
     return Path(output)
@@ -65,10 +64,20 @@ def plot_sample(run, method, sample_id: str, output, *, measurement=None, title:
 @click.command("plot")
 @click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
 @click.option("--sample", "sample_id", required=True, help="Sample id (see 'compquant inspect').")
-@click.option("--method", "method_path", type=click.Path(dir_okay=False), default=None,
-              help="Method file: its preprocessing is applied and its lines are marked and measured.")
-@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
-              help="PNG file [default: <sample>.png, name made safe].")
+@click.option(
+    "--method",
+    "method_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Method file: its preprocessing is applied and its lines are marked and measured.",
+)
+@click.option(
+    "-o",
+    "--output",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="PNG file [default: <sample>.png, name made safe].",
+)
 def command(run_path, sample_id, method_path, output):
     """Plot the mean spectrum of one sample's accepted shots (PNG), with the method's lines
     marked and labelled (red: flagged, e.g. saturated or not found). Without --method the
@@ -94,5 +103,13 @@ def _no_lines_method():
     from compquant.method import MeasureConfig, Method, PreprocessConfig
 
     pre = PreprocessConfig(baseline="none", baseline_params={}, qc=False)
-    return Method(id="plot-default", version="1", technique="other", description="", preprocess=pre,
-                  measure=MeasureConfig(), lines=[], sections={})
+    return Method(
+        id="plot-default",
+        version="1",
+        technique="other",
+        description="",
+        preprocess=pre,
+        measure=MeasureConfig(),
+        lines=[],
+        sections={},
+    )

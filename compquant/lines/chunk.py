@@ -28,6 +28,9 @@ import numpy as np
 
 from compquant.preprocess.baseline import SNIP_BLOCK_ROWS, SnipWorkspace, estimate_baseline, snip_block
 
+#: rows per block for the AsLS / arPLS solvers (memory about 12 x rows x pixels x 8 bytes)
+WHITTAKER_BLOCK_ROWS = 512
+
 
 @dataclass
 class FitProjection:
@@ -104,7 +107,9 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
     bg = np.zeros(n)
     sums: dict[int, np.ndarray] = {}
     counts: dict[int, int] = {}
-    block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else max(1, n)
+    # SNIP: cache-sized blocks; Whittaker solvers: blocks that bound memory (about 12 arrays)
+    block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else WHITTAKER_BLOCK_ROWS if plan.baseline != "none" else n
+    block = max(1, min(block, n))
     tw = plan.total_weights if plan.total_weights is not None else np.ones(plan.n_pixels)
     # window weights are zero outside a few pixels per line: gather those pixels only
     W_shared = _compact(plan.W) if n_win else None
@@ -118,17 +123,14 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
         r1 = min(n, r0 + block)
         rb = raw[r0:r1]
         y = ybuf[: r1 - r0]
+        y[...] = rb  # cast to float64 (a plain copy is faster than a mixed-type subtract)
         if plan.dark is not None:
-            np.subtract(rb, plan.dark, out=y)
-        else:
-            y[...] = rb
+            y -= plan.dark
         sib = si[r0:r1]
         samples_here = np.unique(sib)
         sat = None
-        if plan.saturation_threshold is not None:
-            satb = rb >= plan.saturation_threshold
-            if satb.any():
-                sat = satb
+        if plan.saturation_threshold is not None and rb.max() >= plan.saturation_threshold:
+            sat = rb >= plan.saturation_threshold
         if plan.inv_response is not None:
             y *= plan.inv_response
         if plan.baseline == "snip":
@@ -168,5 +170,59 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                 else:
                     sums[s] = add
                 counts[s] = counts.get(s, 0) + (ys.shape[0])
-    return ChunkResult(window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total,
-                       background=bg, sums=sums, counts=counts)
+    return ChunkResult(
+        window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total, background=bg, sums=sums, counts=counts
+    )
+
+
+def merge_chunk_results(parts: list[ChunkResult]) -> ChunkResult:
+    """One :class:`ChunkResult` from results of consecutive row ranges (in order)."""
+    if len(parts) == 1:
+        return parts[0]
+    ns = [p.total.shape[0] for p in parts]
+
+    def cat(name):
+        arrs = [getattr(p, name) for p in parts]
+        return None if arrs[0] is None else np.concatenate(arrs, axis=0)
+
+    def cat_sat(name, width_from):
+        arrs = [getattr(p, name) for p in parts]
+        if all(a is None for a in arrs):
+            return None
+        width = next(a.shape[1] for a in arrs if a is not None)
+        return np.concatenate(
+            [a if a is not None else np.zeros((n, width), dtype=bool) for a, n in zip(arrs, ns)], axis=0
+        )
+
+    sums: dict[int, np.ndarray] = {}
+    counts: dict[int, int] = {}
+    for p in parts:
+        for s, v in p.sums.items():
+            sums[s] = sums[s] + v if s in sums else v.copy()
+            counts[s] = counts.get(s, 0) + p.counts[s]
+    return ChunkResult(
+        window=cat("window"),
+        fit=cat("fit"),
+        sat_window=cat_sat("sat_window", "window"),
+        sat_fit=cat_sat("sat_fit", "fit"),
+        total=cat("total"),
+        background=cat("background"),
+        sums=sums,
+        counts=counts,
+    )
+
+
+def process_chunk_threaded(raw, sample_index, plan: ChunkPlan, executor, parts: int) -> ChunkResult:
+    """:func:`process_chunk` on ``parts`` row ranges of one chunk in a thread pool, merged.
+
+    numpy releases the GIL inside its array loops, so the ranges run on separate cores;
+    the result equals :func:`process_chunk` on the whole chunk.
+    """
+    n = np.shape(raw)[0]
+    edges = np.linspace(0, n, max(1, parts) + 1).astype(int)
+    futs = [
+        executor.submit(process_chunk, raw[a:b], sample_index[a:b], plan)
+        for a, b in zip(edges[:-1], edges[1:])
+        if b > a
+    ]
+    return merge_chunk_results([f.result() for f in futs])

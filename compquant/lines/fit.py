@@ -96,9 +96,19 @@ def _design(x, centres, sig, gam, kind, x_ref):
     return np.column_stack(cols)
 
 
-def fit_group(wavelength, spectrum, centres0, *, lo_nm: float, hi_nm: float, kind: str = "voigt",
-              shared_width: bool = True, fwhm0: float, max_offset_nm: float,
-              max_fwhm_nm: float | None = None) -> GroupFit:
+def fit_group(
+    wavelength,
+    spectrum,
+    centres0,
+    *,
+    lo_nm: float,
+    hi_nm: float,
+    kind: str = "voigt",
+    shared_width: bool = True,
+    fwhm0: float,
+    max_offset_nm: float,
+    max_fwhm_nm: float | None = None,
+) -> GroupFit:
     """Fit ``len(centres0)`` lines of one group in ``[lo_nm, hi_nm]`` of ONE spectrum.
 
     Parameters
@@ -184,12 +194,13 @@ def fit_group(wavelength, spectrum, centres0, *, lo_nm: float, hi_nm: float, kin
     npar = p0.size
     if m <= npar:
         raise ValueError("fit window holds fewer pixels than parameters")
-    res = least_squares(resid, p0, bounds=(lb, ub), method="trf", x_scale="jac", xtol=1e-12,
-                        ftol=1e-12, gtol=1e-12, max_nfev=2000)
+    res = least_squares(
+        resid, p0, bounds=(lb, ub), method="trf", x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=2000
+    )
     p = res.x
     A, c, s, g, b = unpack(p)
     J = res.jac * scale
-    r = (model(p) - yy)
+    r = model(p) - yy
     rss = float(r @ r)
     dof = m - npar
     s2 = rss / dof
@@ -197,6 +208,61 @@ def fit_group(wavelength, spectrum, centres0, *, lo_nm: float, hi_nm: float, kin
     G = _design(x, c, s, g, kind, x_ref)
     cov_lin = np.linalg.pinv(G.T @ G) * s2
     fw = np.array([fwhm_of(kind, s[j], g[j]) for j in range(n)])
-    return GroupFit(areas=A.copy(), cov_areas=cov[:n, :n], var_areas_linear=np.diag(cov_lin)[:n].copy(),
-                    centres=c.copy(), fwhm=fw, sigma=s.copy(), gamma=g.copy(), pixels=pix, design=G,
-                    success=bool(res.success), message=str(res.message), rss=rss, dof=dof)
+    return GroupFit(
+        areas=A.copy(),
+        cov_areas=cov[:n, :n],
+        var_areas_linear=np.diag(cov_lin)[:n].copy(),
+        centres=c.copy(),
+        fwhm=fw,
+        sigma=s.copy(),
+        gamma=g.copy(),
+        pixels=pix,
+        design=G,
+        success=bool(res.success),
+        message=str(res.message),
+        rss=rss,
+        dof=dof,
+    )
+
+
+def fit_group_fixed(
+    wavelength, spectrum, centres, *, lo_nm: float, hi_nm: float, kind: str = "voigt", fwhm: float
+) -> GroupFit:
+    """Linear least-squares areas with centres and widths FIXED (the profile shapes known).
+
+    Used when a group is not detected: a free fit of noise has no stable centres or
+    widths, while fixed shapes give unbiased areas (about zero for an absent line) with
+    the covariance ``s^2 (G^T G)^-1`` of the linear model.
+    """
+    wl = np.asarray(wavelength, dtype=np.float64)
+    y = np.asarray(spectrum, dtype=np.float64)
+    pix = np.nonzero((wl >= lo_nm) & (wl <= hi_nm))[0]
+    x, yy = wl[pix], y[pix]
+    c = np.asarray(centres, dtype=np.float64)
+    n = c.size
+    s0, g0 = widths_for_fwhm(kind, fwhm)
+    sig, gam = np.full(n, s0), np.full(n, g0)
+    G = _design(x, c, sig, gam, kind, 0.5 * (lo_nm + hi_nm))
+    if x.size <= G.shape[1]:
+        raise ValueError("fit window holds fewer pixels than parameters")
+    coef, *_ = np.linalg.lstsq(G, yy, rcond=None)
+    r = G @ coef - yy
+    rss = float(r @ r)
+    dof = x.size - G.shape[1]
+    cov = np.linalg.pinv(G.T @ G) * (rss / dof)
+    fw = np.full(n, fwhm_of(kind, s0, g0))
+    return GroupFit(
+        areas=coef[:n].copy(),
+        cov_areas=cov[:n, :n].copy(),
+        var_areas_linear=np.diag(cov)[:n].copy(),
+        centres=c.copy(),
+        fwhm=fw,
+        sigma=sig,
+        gamma=gam,
+        pixels=pix,
+        design=G,
+        success=True,
+        message="fixed shapes (group not detected)",
+        rss=rss,
+        dof=dof,
+    )

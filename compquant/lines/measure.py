@@ -47,8 +47,8 @@ import numpy as np
 import pandas as pd
 
 from compquant.errors import DataQualityError, MethodError
-from compquant.lines.chunk import ChunkPlan, ChunkResult, FitProjection, process_chunk
-from compquant.lines.fit import GroupFit, fit_group
+from compquant.lines.chunk import ChunkPlan, ChunkResult, FitProjection, process_chunk, process_chunk_threaded
+from compquant.lines.fit import GroupFit, fit_group, fit_group_fixed
 from compquant.lines.windows import (
     WindowWeights,
     build_window_weights,
@@ -62,8 +62,22 @@ from compquant.preprocess.corrections import dark_reference, exposure_ratio
 from compquant.preprocess.qc import QCDecision, qc_decide
 from compquant.preprocess.shift import shift_by_cross_correlation, shift_from_lines
 
-LINE_TABLE_COLUMNS = ["sample_id", "role", "line_id", "element", "ion", "wavelength_nm", "intensity",
-                      "u_intensity", "sd_shots", "n_shots", "centre_nm", "fwhm_nm", "snr", "flags"]
+LINE_TABLE_COLUMNS = [
+    "sample_id",
+    "role",
+    "line_id",
+    "element",
+    "ion",
+    "wavelength_nm",
+    "intensity",
+    "u_intensity",
+    "sd_shots",
+    "n_shots",
+    "centre_nm",
+    "fwhm_nm",
+    "snr",
+    "flags",
+]
 SHOT_TABLE_COLUMNS = ["sample_id", "shot", "line_id", "intensity", "accepted", "saturated"]
 FLAG_ORDER = ("saturated", "not_found", "overlapped", "low_snr", "shifted", "single_shot")
 
@@ -93,21 +107,28 @@ class LineMeasurement:
         """Per-shot table: sample_id, shot, line_id, intensity, accepted, saturated (long form)."""
         n, k = self.shot_intensity.shape
         sid = np.asarray(self.sample_ids, dtype=object)[self.shot_sample]
-        return pd.DataFrame({
-            "sample_id": np.repeat(sid, k),
-            "shot": np.repeat(self.shot_number, k),
-            "line_id": np.tile(np.asarray(self.line_ids, dtype=object), n),
-            "intensity": self.shot_intensity.reshape(-1),
-            "accepted": np.repeat(self.shot_accepted, k),
-            "saturated": self.shot_saturated.reshape(-1),
-        }, columns=SHOT_TABLE_COLUMNS)
+        return pd.DataFrame(
+            {
+                "sample_id": np.repeat(sid, k),
+                "shot": np.repeat(self.shot_number, k),
+                "line_id": np.tile(np.asarray(self.line_ids, dtype=object), n),
+                "intensity": self.shot_intensity.reshape(-1),
+                "accepted": np.repeat(self.shot_accepted, k),
+                "saturated": self.shot_saturated.reshape(-1),
+            },
+            columns=SHOT_TABLE_COLUMNS,
+        )
 
     def rejected_shots(self) -> pd.DataFrame:
         """Shots refused by QC: sample_id, shot, reason."""
         bad = np.flatnonzero(~self.shot_accepted)
-        return pd.DataFrame({"sample_id": [self.sample_ids[self.shot_sample[i]] for i in bad],
-                             "shot": self.shot_number[bad],
-                             "reason": [self.shot_reasons[i] for i in bad]})
+        return pd.DataFrame(
+            {
+                "sample_id": [self.sample_ids[self.shot_sample[i]] for i in bad],
+                "shot": self.shot_number[bad],
+                "reason": [self.shot_reasons[i] for i in bad],
+            }
+        )
 
 
 # --------------------------------------------------------------------------- set-up helpers
@@ -124,17 +145,24 @@ def _load_curve_csv(path, columns: tuple[str, str], where: str):
     try:
         df = pd.read_csv(p)
     except (OSError, ValueError, pd.errors.ParserError) as exc:
-        raise MethodError(f"cannot read CSV ({exc})", where=f"{where}: {p}",
-                          fix=f"give a CSV with columns {columns[0]},{columns[1]}") from exc
+        raise MethodError(
+            f"cannot read CSV ({exc})", where=f"{where}: {p}", fix=f"give a CSV with columns {columns[0]},{columns[1]}"
+        ) from exc
     if not set(columns) <= set(df.columns):
-        raise MethodError(f"CSV lacks columns {columns}", where=f"{where}: {p}",
-                          fix=f"give a CSV with columns {columns[0]},{columns[1]}")
+        raise MethodError(
+            f"CSV lacks columns {columns}",
+            where=f"{where}: {p}",
+            fix=f"give a CSV with columns {columns[0]},{columns[1]}",
+        )
     x = pd.to_numeric(df[columns[0]], errors="coerce").to_numpy(float)
     y = pd.to_numeric(df[columns[1]], errors="coerce").to_numpy(float)
     ok = np.isfinite(x) & np.isfinite(y)
     if ok.sum() < 2 or np.any(np.diff(x[ok]) <= 0):
-        raise MethodError("CSV needs >= 2 rows of finite numbers with increasing wavelength",
-                          where=f"{where}: {p}", fix="sort by wavelength and remove empty cells")
+        raise MethodError(
+            "CSV needs >= 2 rows of finite numbers with increasing wavelength",
+            where=f"{where}: {p}",
+            fix="sort by wavelength and remove empty cells",
+        )
     return x[ok], y[ok]
 
 
@@ -147,9 +175,11 @@ def _response_vector(run, method: Method, notes: list) -> np.ndarray | None:
         x, r = _load_curve_csv(method.resolve_path(pre.response_file), ("wavelength_nm", "response"), where)
         wl = run.wavelength
         if wl[0] < x[0] or wl[-1] > x[-1]:
-            raise MethodError(f"response file covers {x[0]:.2f}-{x[-1]:.2f} nm, run covers "
-                              f"{wl[0]:.2f}-{wl[-1]:.2f} nm", where=where,
-                              fix="give a response curve over the whole run range")
+            raise MethodError(
+                f"response file covers {x[0]:.2f}-{x[-1]:.2f} nm, run covers {wl[0]:.2f}-{wl[-1]:.2f} nm",
+                where=where,
+                fix="give a response curve over the whole run range",
+            )
         return np.interp(wl, x, r)
     r = run.response()
     if r is None:
@@ -237,10 +267,25 @@ def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
     return c
 
 
-def _iter_raw(run, chunk: int):
-    for start in range(0, run.n_shots, chunk):
-        stop = min(run.n_shots, start + chunk)
-        yield start, stop, run.read_raw(start, stop)
+def _iter_raw(run, chunk: int, prefetch: bool = True):
+    """Yield ``(start, stop, raw)`` chunks; with ``prefetch`` the next chunk is read by one
+    helper thread while the caller processes the current one (h5py releases the GIL while it
+    reads and decompresses, so reading overlaps computing).  Memory: two chunks of raw counts.
+    """
+    bounds = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
+    if not prefetch or len(bounds) < 2:
+        for a, b in bounds:
+            yield a, b, run.read_raw(a, b)
+        return
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="compquant-read") as ex:
+        fut = ex.submit(run.read_raw, *bounds[0])
+        for k, (a, b) in enumerate(bounds):
+            raw = fut.result()
+            if k + 1 < len(bounds):
+                fut = ex.submit(run.read_raw, *bounds[k + 1])
+            yield a, b, raw
 
 
 def _chunk_results(run, setup, chunk: int, plan: ChunkPlan, chunk_mapper=None):
@@ -251,8 +296,16 @@ def _chunk_results(run, setup, chunk: int, plan: ChunkPlan, chunk_mapper=None):
     must yield the results in the order of ``ranges``.
     """
     if chunk_mapper is None:
-        for start, stop, raw in _iter_raw(run, chunk):
-            yield start, stop, process_chunk(raw, setup.sample_index[start:stop], plan)
+        threads = setup.threads
+        if threads <= 1:
+            for start, stop, raw in _iter_raw(run, chunk):
+                yield start, stop, process_chunk(raw, setup.sample_index[start:stop], plan)
+            return
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="compquant-work") as ex:
+            for start, stop, raw in _iter_raw(run, chunk):
+                yield start, stop, process_chunk_threaded(raw, setup.sample_index[start:stop], plan, ex, threads)
         return
     ranges = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
     for (start, stop), res in zip(ranges, chunk_mapper(run, ranges, plan), strict=True):
@@ -268,6 +321,7 @@ class _Setup:
     def __init__(self, run, method: Method):
         method.check_run(run.wavelength)
         self.method = method
+        self.threads = 1
         pre = method.preprocess
         self.wl = np.asarray(run.wavelength, dtype=np.float64)
         self.pitch = _pitch(self.wl)
@@ -280,20 +334,23 @@ class _Setup:
             self.notes.append("run states no saturation level: saturation not checked")
         self.sat_threshold = (level * (1.0 - pre.saturation_margin)) if (pre.saturation and level) else None
         if pre.normalise == "background" and pre.baseline == "none":
-            raise MethodError("background normalisation needs a baseline method",
-                              where=f"{method.where}: [preprocess.normalise] how",
-                              fix="set [preprocess.baseline] method, or choose another normalisation")
+            raise MethodError(
+                "background normalisation needs a baseline method",
+                where=f"{method.where}: [preprocess.normalise] how",
+                fix="set [preprocess.baseline] method, or choose another normalisation",
+            )
         self.sample_index = run.shots["sample_index"].to_numpy().astype(np.int64)
-        self.shot_number = (run.shots["shot"].to_numpy() if "shot" in run.shots.columns
-                            else np.arange(run.n_shots))
+        self.shot_number = run.shots["shot"].to_numpy() if "shot" in run.shots.columns else np.arange(run.n_shots)
         self.samples = run.samples.reset_index(drop=True)
         self.sample_ids = [str(s) for s in self.samples["sample_id"]]
         self.pulse = None
         if pre.pulse_energy_normalise or pre.min_pulse_fraction > 0:
             if "pulse_energy_mj" not in run.shots.columns:
-                raise MethodError("the method uses pulse energies but the run stores none",
-                                  where=f"{method.where}: [preprocess.qc]",
-                                  fix="set pulse_energy_normalise = false and min_pulse_fraction = 0")
+                raise MethodError(
+                    "the method uses pulse energies but the run stores none",
+                    where=f"{method.where}: [preprocess.qc]",
+                    fix="set pulse_energy_normalise = false and min_pulse_fraction = 0",
+                )
             self.pulse = run.shots["pulse_energy_mj"].to_numpy(dtype=float)
         self.lines = method.lines
         self.win_idx = [i for i, ln in enumerate(self.lines) if ln.mode == "window"]
@@ -302,18 +359,25 @@ class _Setup:
 
     def geometry(self, i: int, shift: float = 0.0):
         ln = self.lines[i]
-        return window_geometry(ln.wavelength_nm + shift, window_width_nm(ln, self.pitch),
-                               side_width_nm(ln, self.pitch), ln.gap_nm or 0.0)
+        return window_geometry(
+            ln.wavelength_nm + shift, window_width_nm(ln, self.pitch), side_width_nm(ln, self.pitch), ln.gap_nm or 0.0
+        )
 
     def window_weights(self, shift: float = 0.0) -> WindowWeights:
         return build_window_weights(self.wl, [self.geometry(i, shift) for i in self.win_idx])
 
     def base_plan(self) -> ChunkPlan:
         pre = self.method.preprocess
-        return ChunkPlan(n_pixels=self.wl.size, dark=self.dark, inv_response=self.inv_response,
-                         saturation_threshold=self.sat_threshold, baseline=pre.baseline,
-                         baseline_params=dict(pre.baseline_params), total_weights=_trapezoid(self.wl),
-                         background_level=pre.normalise == "background")
+        return ChunkPlan(
+            n_pixels=self.wl.size,
+            dark=self.dark,
+            inv_response=self.inv_response,
+            saturation_threshold=self.sat_threshold,
+            baseline=pre.baseline,
+            baseline_params=dict(pre.baseline_params),
+            total_weights=_trapezoid(self.wl),
+            background_level=pre.normalise == "background",
+        )
 
 
 def _find_shifts(run, setup: _Setup, chunk: int, progress, chunk_mapper=None) -> dict[int, float]:
@@ -330,9 +394,11 @@ def _find_shifts(run, setup: _Setup, chunk: int, progress, chunk_mapper=None) ->
             progress(stop - start)
     ref = None
     if pre.shift == "xcorr":
-        ref = _load_curve_csv(setup.method.resolve_path(pre.shift_reference_file),
-                              ("wavelength_nm", "intensity"),
-                              f"{setup.method.where}: [preprocess.shift] reference_file")
+        ref = _load_curve_csv(
+            setup.method.resolve_path(pre.shift_reference_file),
+            ("wavelength_nm", "intensity"),
+            f"{setup.method.where}: [preprocess.shift] reference_file",
+        )
     lines_nm = _shift_lines_nm(setup.method)
     out = {}
     for s, tot in sums.items():
@@ -344,8 +410,10 @@ def _find_shifts(run, setup: _Setup, chunk: int, progress, chunk_mapper=None) ->
         else:
             d = shift_by_cross_correlation(setup.wl, mean, ref[0], ref[1], pre.max_shift_nm)
         if not np.isfinite(d) or abs(d) > pre.max_shift_nm:
-            setup.notes.append(f"sample {setup.sample_ids[s]!r}: no usable wavelength shift found "
-                               f"(estimate {d:.4g} nm); windows left at table positions")
+            setup.notes.append(
+                f"sample {setup.sample_ids[s]!r}: no usable wavelength shift found "
+                f"(estimate {d:.4g} nm); windows left at table positions"
+            )
             d = 0.0
         out[s] = float(d)
     return out
@@ -360,8 +428,9 @@ def _merge_sums(sums, counts, res: ChunkResult) -> None:
         counts[s] = counts.get(s, 0) + res.counts[s]
 
 
-def measure_run(run, method: Method, chunk_shots: int | None = None, progress=None,
-                chunk_mapper=None) -> LineMeasurement:
+def measure_run(
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int = 1
+) -> LineMeasurement:
     """Preprocess every shot of ``run`` and measure the method's lines (module docstring).
 
     Parameters
@@ -374,6 +443,8 @@ def measure_run(run, method: Method, chunk_shots: int | None = None, progress=No
     chunk_mapper : None (serial) or ``callable(run, ranges, plan)`` yielding
         :func:`~compquant.lines.chunk.process_chunk` results in range order, e.g. on Dask
         workers (:func:`compquant.parallel.chunk_mapper`); the results are the same.
+    threads : worker threads for the serial path (each chunk split into ``threads`` row
+        ranges processed concurrently; numpy releases the GIL); the results are the same.
 
     Raises
     ------
@@ -381,6 +452,7 @@ def measure_run(run, method: Method, chunk_shots: int | None = None, progress=No
     DataQualityError : every shot of a sample rejected by shot QC (names the sample).
     """
     setup = _Setup(run, method)
+    setup.threads = max(1, int(threads))
     pre = method.preprocess
     chunk = _chunk_size(run, chunk_shots, method)
     n_shots = run.n_shots
@@ -453,8 +525,7 @@ def measure_run(run, method: Method, chunk_shots: int | None = None, progress=No
         raw_int[:, setup.win_idx] = win
     if setup.fit_idx:
         raw_int[:, setup.fit_idx] = fit_vals
-    return _aggregate(setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared,
-                      ww_by_sample, chunk)
+    return _aggregate(setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk)
 
 
 def _fit_one_group(setup: _Setup, mean: np.ndarray, members: list[int], shift: float, s: int) -> GroupFit:
@@ -472,17 +543,34 @@ def _fit_one_group(setup: _Setup, mean: np.ndarray, members: list[int], shift: f
     max_off = m.max_offset_nm if m.max_offset_nm else max(0.5 * fwhm0, 1.5 * setup.pitch)
     kind = lines[0].profile or m.profile
     try:
-        return fit_group(setup.wl, mean, centres, lo_nm=lo, hi_nm=hi, kind=kind,
-                         shared_width=m.shared_width, fwhm0=fwhm0, max_offset_nm=max_off,
-                         max_fwhm_nm=max(hi - lo, 4 * fwhm0))
+        fixed = fit_group_fixed(setup.wl, mean, centres, lo_nm=lo, hi_nm=hi, kind=kind, fwhm=fwhm0)
+        snr = np.abs(fixed.areas) / np.sqrt(np.maximum(np.diag(fixed.cov_areas), 1e-300))
+        if not np.any(snr >= m.snr_detect):
+            return fixed  # nothing detected: keep the table shapes, no free fit of noise
+        return fit_group(
+            setup.wl,
+            mean,
+            centres,
+            lo_nm=lo,
+            hi_nm=hi,
+            kind=kind,
+            shared_width=m.shared_width,
+            fwhm0=fwhm0,
+            max_offset_nm=max_off,
+            max_fwhm_nm=max(hi - lo, 4 * fwhm0),
+        )
     except ValueError as exc:
         ids = ", ".join(ln.line_id for ln in lines)
-        raise MethodError(f"cannot fit lines {ids}: {exc}", where=f"{setup.method.where}: [[lines]] {ids}",
-                          fix="widen window_nm so the fit window holds more pixels than parameters") from exc
+        raise MethodError(
+            f"cannot fit lines {ids}: {exc}",
+            where=f"{setup.method.where}: [[lines]] {ids}",
+            fix="widen window_nm so the fit window holds more pixels than parameters",
+        ) from exc
 
 
-def _aggregate(setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample,
-               chunk) -> LineMeasurement:
+def _aggregate(
+    setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk
+) -> LineMeasurement:
     method = setup.method
     pre, meas = method.preprocess, method.measure
     n_shots, n_lines = raw_int.shape
@@ -518,28 +606,48 @@ def _aggregate(setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits,
         idx = np.flatnonzero(setup.sample_index == s)
         if idx.size == 0:
             continue
-        dec: QCDecision = qc_decide(qc_x[idx], k=pre.qc_k, min_fraction=pre.qc_min_fraction,
-                                    min_signal=pre.qc_min_signal,
-                                    pulse_energy=None if setup.pulse is None else setup.pulse[idx],
-                                    min_pulse_fraction=pre.min_pulse_fraction, enabled=pre.qc)
+        dec: QCDecision = qc_decide(
+            qc_x[idx],
+            k=pre.qc_k,
+            min_fraction=pre.qc_min_fraction,
+            min_signal=pre.qc_min_signal,
+            pulse_energy=None if setup.pulse is None else setup.pulse[idx],
+            min_pulse_fraction=pre.min_pulse_fraction,
+            enabled=pre.qc,
+        )
         accepted[idx] = dec.accepted
         for j, i in enumerate(idx):
             reasons[i] = dec.reasons[j]
-        qc_rows.append({"sample_id": sid, "role": role, "n_shots": int(idx.size),
-                        "n_accepted": int(dec.accepted.sum()), "n_rejected": dec.n_rejected,
-                        "reasons": ";".join(f"{k}={v}" for k, v in sorted(dec.counts.items())),
-                        "qc_quantity": pre.qc_quantity, "qc_median": dec.median,
-                        "qc_robust_sd": dec.robust_sd})
+        qc_rows.append(
+            {
+                "sample_id": sid,
+                "role": role,
+                "n_shots": int(idx.size),
+                "n_accepted": int(dec.accepted.sum()),
+                "n_rejected": dec.n_rejected,
+                "reasons": ";".join(f"{k}={v}" for k, v in sorted(dec.counts.items())),
+                "qc_quantity": pre.qc_quantity,
+                "qc_median": dec.median,
+                "qc_robust_sd": dec.robust_sd,
+            }
+        )
         if not dec.accepted.any():
             raise DataQualityError(
                 f"all {idx.size} shots of sample {sid!r} were rejected by shot QC "
                 f"({', '.join(f'{k}: {v}' for k, v in sorted(dec.counts.items()))})",
                 where=f"{run.path}: sample {sid}",
                 fix="check the sample's spectra ('compquant plot'), or relax [preprocess.qc] "
-                    "(k, min_fraction, min_signal) or disable it")
+                "(k, min_fraction, min_signal) or disable it",
+            )
         d = shifts.get(s, 0.0)
-        shift_rows.append({"sample_id": sid, "shift_nm": d, "method": pre.shift,
-                           "shifted": bool(pre.shift != "none" and abs(d) > flag_nm)})
+        shift_rows.append(
+            {
+                "sample_id": sid,
+                "shift_nm": d,
+                "method": pre.shift,
+                "shifted": bool(pre.shift != "none" and abs(d) > flag_nm),
+            }
+        )
         acc = idx[dec.accepted]
         mean_spec = means.get(s)
         ww = ww_by_sample.get(s, ww_shared)
@@ -564,8 +672,8 @@ def _aggregate(setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits,
                 g = setup.geometry(li, d)
                 if mean_spec is not None:
                     centre, fwhm = peak_centre_fwhm(setup.wl, mean_spec, g.a, g.b)
-                lo = (g.left[0] if g.left else g.a)
-                hi = (g.right[1] if g.right else g.b)
+                lo = g.left[0] if g.left else g.a
+                hi = g.right[1] if g.right else g.b
                 for other in setup.lines:
                     if other is not ln and lo <= other.wavelength_nm + d <= hi:
                         flags.add("overlapped")
@@ -590,53 +698,93 @@ def _aggregate(setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits,
             snr = intensity / u if (u and np.isfinite(u) and u > 0) else float("nan")
             if not np.isfinite(snr) or snr < meas.snr_detect:
                 flags.add("not_found")
+                if ln.mode == "window":  # a peak position in noise means nothing
+                    centre = fwhm = float("nan")
             elif snr < meas.snr_min:
                 flags.add("low_snr")
             if pre.shift != "none" and abs(d) > flag_nm:
                 flags.add("shifted")
-            if "not_found" not in flags and np.isfinite(centre) and abs(centre - expected) > flag_nm:
+            well_measured = np.isfinite(snr) and snr >= meas.snr_min
+            if well_measured and np.isfinite(centre) and abs(centre - expected) > flag_nm:
                 flags.add("shifted")
             if nv == 1:
                 flags.add("single_shot")
-            rows.append({"sample_id": sid, "role": role, "line_id": ln.line_id, "element": ln.element,
-                         "ion": int(ln.ion), "wavelength_nm": ln.wavelength_nm, "intensity": intensity,
-                         "u_intensity": u, "sd_shots": sd, "n_shots": nv, "centre_nm": centre,
-                         "fwhm_nm": fwhm, "snr": snr,
-                         "flags": ";".join(f for f in FLAG_ORDER if f in flags)})
+            rows.append(
+                {
+                    "sample_id": sid,
+                    "role": role,
+                    "line_id": ln.line_id,
+                    "element": ln.element,
+                    "ion": int(ln.ion),
+                    "wavelength_nm": ln.wavelength_nm,
+                    "intensity": intensity,
+                    "u_intensity": u,
+                    "sd_shots": sd,
+                    "n_shots": nv,
+                    "centre_nm": centre,
+                    "fwhm_nm": fwhm,
+                    "snr": snr,
+                    "flags": ";".join(f for f in FLAG_ORDER if f in flags),
+                }
+            )
     table = pd.DataFrame(rows, columns=LINE_TABLE_COLUMNS)
     prov = {
-        "run_path": str(run.path), "run_sha256": run.sha256(), **method.provenance(),
-        "settings_sha256": method.settings_digest(), "chunk_shots": chunk,
+        "run_path": str(run.path),
+        "run_sha256": run.sha256(),
+        **method.provenance(),
+        "settings_sha256": method.settings_digest(),
+        "chunk_shots": chunk,
         "dark": "none" if setup.dark is None else f"{pre.dark_statistic} of dark frames x {setup.dark_scale:.6g}",
         "response": "none" if setup.response is None else (pre.response_file or "run response"),
-        "saturation_threshold": setup.sat_threshold, "baseline": pre.baseline,
-        "baseline_params": dict(pre.baseline_params), "normalise": pre.normalise,
-        "pulse_energy_normalise": pre.pulse_energy_normalise, "shift": pre.shift,
-        "qc": {"enabled": pre.qc, "quantity": pre.qc_quantity, "k": pre.qc_k,
-               "min_fraction": pre.qc_min_fraction, "min_signal": pre.qc_min_signal},
+        "saturation_threshold": setup.sat_threshold,
+        "baseline": pre.baseline,
+        "baseline_params": dict(pre.baseline_params),
+        "normalise": pre.normalise,
+        "pulse_energy_normalise": pre.pulse_energy_normalise,
+        "shift": pre.shift,
+        "qc": {
+            "enabled": pre.qc,
+            "quantity": pre.qc_quantity,
+            "k": pre.qc_k,
+            "min_fraction": pre.qc_min_fraction,
+            "min_signal": pre.qc_min_signal,
+        },
         "notes": list(setup.notes),
     }
     from compquant import __version__
 
     prov["compquant_version"] = __version__
     return LineMeasurement(
-        table=table, qc=pd.DataFrame(qc_rows), shifts=pd.DataFrame(shift_rows), provenance=prov,
-        line_ids=line_ids, shot_sample=setup.sample_index, shot_number=np.asarray(setup.shot_number),
-        shot_intensity=inten, shot_accepted=accepted, shot_saturated=sat, shot_reasons=reasons,
-        sample_ids=setup.sample_ids, wavelength=setup.wl,
+        table=table,
+        qc=pd.DataFrame(qc_rows),
+        shifts=pd.DataFrame(shift_rows),
+        provenance=prov,
+        line_ids=line_ids,
+        shot_sample=setup.sample_index,
+        shot_number=np.asarray(setup.shot_number),
+        shot_intensity=inten,
+        shot_accepted=accepted,
+        shot_saturated=sat,
+        shot_reasons=reasons,
+        sample_ids=setup.sample_ids,
+        wavelength=setup.wl,
         mean_spectra={setup.sample_ids[s]: m for s, m in means.items()},
-        fits={(setup.sample_ids[s], g): f for (s, g), f in fits.items()})
+        fits={(setup.sample_ids[s], g): f for (s, g), f in fits.items()},
+    )
 
 
-def measure_lines(run, method: Method, chunk_shots: int | None = None, progress=None,
-                  chunk_mapper=None) -> pd.DataFrame:
+def measure_lines(
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int = 1
+) -> pd.DataFrame:
     """The line table of :func:`measure_run` (docs/architecture.md columns)."""
-    return measure_run(run, method, chunk_shots=chunk_shots, progress=progress,
-                       chunk_mapper=chunk_mapper).table
+    return measure_run(
+        run, method, chunk_shots=chunk_shots, progress=progress, chunk_mapper=chunk_mapper, threads=threads
+    ).table
 
 
-def mean_spectrum(run, method: Method, sample_id: str, chunk_shots: int | None = None) -> tuple[np.ndarray,
-                                                                                             np.ndarray, dict]:
+def mean_spectrum(
+    run, method: Method, sample_id: str, chunk_shots: int | None = None
+) -> tuple[np.ndarray, np.ndarray, dict]:
     """Preprocessed mean spectrum of the accepted shots of one sample.
 
     Returns ``(wavelength, mean, info)``: ``wavelength`` corrected for the
@@ -651,8 +799,9 @@ def mean_spectrum(run, method: Method, sample_id: str, chunk_shots: int | None =
     if s is None:
         from compquant.errors import InputError
 
-        raise InputError(f"no sample {sample_id!r} in this run", where=str(run.path),
-                         fix="list the samples with 'compquant inspect'")
+        raise InputError(
+            f"no sample {sample_id!r} in this run", where=str(run.path), fix="list the samples with 'compquant inspect'"
+        )
     rows = np.flatnonzero(setup.sample_index == s)
     plan = setup.base_plan()
     plan.measure_windows = False
@@ -673,13 +822,21 @@ def mean_spectrum(run, method: Method, sample_id: str, chunk_shots: int | None =
     if pre.pulse_energy_normalise and setup.pulse is not None:
         e = setup.pulse
         qc_x = totals / (e[rows] / np.nanmedian(e))
-    dec = qc_decide(qc_x, k=pre.qc_k, min_fraction=pre.qc_min_fraction, min_signal=pre.qc_min_signal,
-                    pulse_energy=None if setup.pulse is None else setup.pulse[rows],
-                    min_pulse_fraction=pre.min_pulse_fraction, enabled=pre.qc)
+    dec = qc_decide(
+        qc_x,
+        k=pre.qc_k,
+        min_fraction=pre.qc_min_fraction,
+        min_signal=pre.qc_min_signal,
+        pulse_energy=None if setup.pulse is None else setup.pulse[rows],
+        min_pulse_fraction=pre.min_pulse_fraction,
+        enabled=pre.qc,
+    )
     if not dec.accepted.any():
-        raise DataQualityError(f"all {rows.size} shots of sample {sample_id!r} were rejected by shot QC",
-                               where=f"{run.path}: sample {sample_id}",
-                               fix="relax [preprocess.qc] or check the sample's spectra")
+        raise DataQualityError(
+            f"all {rows.size} shots of sample {sample_id!r} were rejected by shot QC",
+            where=f"{run.path}: sample {sample_id}",
+            fix="relax [preprocess.qc] or check the sample's spectra",
+        )
     pos = 0
     for sub in pieces:
         m = dec.accepted[pos : pos + sub.size]
@@ -692,8 +849,7 @@ def mean_spectrum(run, method: Method, sample_id: str, chunk_shots: int | None =
     d = 0.0
     if pre.shift != "none":
         d = _find_shifts_for_mean(setup, mean)
-    return setup.wl - d, mean, {"n_shots": int(rows.size), "n_accepted": int(dec.accepted.sum()),
-                                "shift_nm": d}
+    return setup.wl - d, mean, {"n_shots": int(rows.size), "n_accepted": int(dec.accepted.sum()), "shift_nm": d}
 
 
 def _preprocessed(raw, plan: ChunkPlan) -> np.ndarray:
@@ -712,9 +868,11 @@ def _find_shifts_for_mean(setup: _Setup, mean: np.ndarray) -> float:
     if pre.shift == "lines":
         d, _ = shift_from_lines(setup.wl, mean, _shift_lines_nm(setup.method), pre.shift_search_nm)
     else:
-        x, r = _load_curve_csv(setup.method.resolve_path(pre.shift_reference_file),
-                               ("wavelength_nm", "intensity"),
-                               f"{setup.method.where}: [preprocess.shift] reference_file")
+        x, r = _load_curve_csv(
+            setup.method.resolve_path(pre.shift_reference_file),
+            ("wavelength_nm", "intensity"),
+            f"{setup.method.where}: [preprocess.shift] reference_file",
+        )
         d = shift_by_cross_correlation(setup.wl, mean, x, r, pre.max_shift_nm)
     if not np.isfinite(d) or abs(d) > pre.max_shift_nm:
         return 0.0

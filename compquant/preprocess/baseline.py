@@ -111,8 +111,7 @@ class SnipWorkspace:
         self.tmp = np.empty((rows, n + 2 * self.m))
 
 
-def snip_block(y: np.ndarray, ws: SnipWorkspace, *, decreasing: bool = False,
-               lls: bool = False) -> np.ndarray:
+def snip_block(y: np.ndarray, ws: SnipWorkspace, *, decreasing: bool = False, lls: bool = False) -> np.ndarray:
     """SNIP baseline of the rows of ``y`` (at most ``ws`` rows); returns a view into ``ws``.
 
     The returned array is overwritten by the next call with the same workspace.
@@ -136,8 +135,14 @@ def snip_block(y: np.ndarray, ws: SnipWorkspace, *, decreasing: bool = False,
     return res
 
 
-def snip(spectra, max_half_window: int = 20, *, decreasing: bool = False, lls: bool = False,
-         block_rows: int = SNIP_BLOCK_ROWS) -> np.ndarray:
+def snip(
+    spectra,
+    max_half_window: int = 20,
+    *,
+    decreasing: bool = False,
+    lls: bool = False,
+    block_rows: int = SNIP_BLOCK_ROWS,
+) -> np.ndarray:
     """SNIP baseline of every row (Ryan et al. 1988), second-order clipping filter.
 
     Parameters
@@ -207,41 +212,41 @@ def solve_banded_spd_batch(diag: np.ndarray, lower: np.ndarray, rhs: np.ndarray)
     """
     n_sys, n = diag.shape
     d = lower.shape[0] - 1
-    # L stored by bands: Lb[k][:, j] = L[j + k, j]
-    Lb = [np.empty((n_sys, n)) for _ in range(d + 1)]
-    A0 = diag + lower[0][None, :]
+    # pixel-major copies, so that each step reads one contiguous row of n_sys values
+    # L stored by bands: Lb[k][j] = L[j + k, j] (a vector over the systems)
+    Lb = np.empty((d + 1, n, n_sys))
+    A0 = np.ascontiguousarray(diag.T) + lower[0][:, None]
     for j in range(n):
-        s = A0[:, j].copy()
-        for k in range(1, d + 1):
-            if j - k >= 0:
-                s -= Lb[k][:, j - k] ** 2
+        s = A0[j].copy()
+        for k in range(1, min(d, j) + 1):
+            s -= Lb[k, j - k] ** 2
         ljj = np.sqrt(s)
-        Lb[0][:, j] = ljj
+        Lb[0, j] = ljj
         for k in range(1, d + 1):
             if j + k >= n:
                 break
             # L[j+k, j] = (A[j+k, j] - sum_{q<j} L[j+k, q] L[j, q]) / L[j, j]
             v = np.full(n_sys, lower[k][j])
             for q in range(max(0, j + k - d), j):
-                v -= Lb[j + k - q][:, q] * Lb[j - q][:, q]
-            Lb[k][:, j] = v / ljj
+                v -= Lb[j + k - q, q] * Lb[j - q, q]
+            Lb[k, j] = v / ljj
+    b = np.ascontiguousarray(rhs.T)
     # forward: L y = b
-    y = np.empty_like(rhs)
+    y = np.empty_like(b)
     for j in range(n):
-        v = rhs[:, j].copy()
-        for k in range(1, d + 1):
-            if j - k >= 0:
-                v -= Lb[k][:, j - k] * y[:, j - k]
-        y[:, j] = v / Lb[0][:, j]
+        v = b[j].copy()
+        for k in range(1, min(d, j) + 1):
+            v -= Lb[k, j - k] * y[j - k]
+        y[j] = v / Lb[0, j]
     # backward: L^T x = y
-    x = np.empty_like(rhs)
+    x = np.empty_like(b)
     for j in range(n - 1, -1, -1):
-        v = y[:, j].copy()
+        v = y[j].copy()
         for k in range(1, d + 1):
             if j + k < n:
-                v -= Lb[k][:, j] * x[:, j + k]
-        x[:, j] = v / Lb[0][:, j]
-    return x
+                v -= Lb[k, j] * x[j + k]
+        x[j] = v / Lb[0, j]
+    return np.ascontiguousarray(x.T)
 
 
 def _relative_difference(old: np.ndarray, new: np.ndarray) -> np.ndarray:
@@ -251,8 +256,7 @@ def _relative_difference(old: np.ndarray, new: np.ndarray) -> np.ndarray:
     return num / den
 
 
-def _whittaker_iterate(y2: np.ndarray, lam: float, diff_order: int, max_iter: int, tol: float,
-                       reweight) -> np.ndarray:
+def _whittaker_iterate(y2: np.ndarray, lam: float, diff_order: int, max_iter: int, tol: float, reweight) -> np.ndarray:
     n_rows, n = y2.shape
     if lam <= 0:
         raise ValueError("lam must be > 0")
@@ -275,8 +279,9 @@ def _whittaker_iterate(y2: np.ndarray, lam: float, diff_order: int, max_iter: in
     return z
 
 
-def asls(spectra, lam: float = 1e6, p: float = 1e-2, *, diff_order: int = 2, max_iter: int = 50,
-         tol: float = 1e-3) -> np.ndarray:
+def asls(
+    spectra, lam: float = 1e6, p: float = 1e-2, *, diff_order: int = 2, max_iter: int = 50, tol: float = 1e-3
+) -> np.ndarray:
     """Asymmetric least squares baseline of every row (Eilers & Boelens 2005).
 
     ``(W + lam D^T D) z = W y`` with ``w_i = p`` if ``y_i > z_i`` else ``1 - p``,
@@ -295,8 +300,7 @@ def asls(spectra, lam: float = 1e6, p: float = 1e-2, *, diff_order: int = 2, max
     return z[0] if squeeze else z
 
 
-def arpls(spectra, lam: float = 1e5, *, diff_order: int = 2, max_iter: int = 50,
-          tol: float = 1e-3) -> np.ndarray:
+def arpls(spectra, lam: float = 1e5, *, diff_order: int = 2, max_iter: int = 50, tol: float = 1e-3) -> np.ndarray:
     """arPLS baseline of every row (Baek et al. 2015).
 
     Weights ``w_i = 1 / (1 + exp(2 (r_i - (2 s - m)) / s))`` with ``r = y - z``
@@ -338,8 +342,11 @@ def estimate_baseline(spectra, method: str, **params) -> np.ndarray | None:
         return asls(spectra, **params)
     if method == "arpls":
         return arpls(spectra, **params)
-    raise MethodError(f"unknown baseline method {method!r}", where="[preprocess.baseline] method",
-                      fix=f"use one of {', '.join(BASELINE_METHODS)}")
+    raise MethodError(
+        f"unknown baseline method {method!r}",
+        where="[preprocess.baseline] method",
+        fix=f"use one of {', '.join(BASELINE_METHODS)}",
+    )
 
 
 class BaselineRemoval(BaseEstimator, TransformerMixin):
@@ -349,9 +356,18 @@ class BaselineRemoval(BaseEstimator, TransformerMixin):
     ``lls``), :func:`asls` (``lam``, ``p``) or :func:`arpls` (``lam``).
     """
 
-    def __init__(self, method: str = "snip", max_half_window: int = 20, decreasing: bool = False,
-                 lls: bool = False, lam: float = 1e6, p: float = 1e-2, diff_order: int = 2,
-                 max_iter: int = 50, tol: float = 1e-3):
+    def __init__(
+        self,
+        method: str = "snip",
+        max_half_window: int = 20,
+        decreasing: bool = False,
+        lls: bool = False,
+        lam: float = 1e6,
+        p: float = 1e-2,
+        diff_order: int = 2,
+        max_iter: int = 50,
+        tol: float = 1e-3,
+    ):
         self.method = method
         self.max_half_window = max_half_window
         self.decreasing = decreasing
@@ -364,14 +380,17 @@ class BaselineRemoval(BaseEstimator, TransformerMixin):
 
     def params_for_method(self) -> dict:
         if self.method == "snip":
-            return {"max_half_window": self.max_half_window, "decreasing": self.decreasing,
-                    "lls": self.lls}
+            return {"max_half_window": self.max_half_window, "decreasing": self.decreasing, "lls": self.lls}
         if self.method == "asls":
-            return {"lam": self.lam, "p": self.p, "diff_order": self.diff_order,
-                    "max_iter": self.max_iter, "tol": self.tol}
+            return {
+                "lam": self.lam,
+                "p": self.p,
+                "diff_order": self.diff_order,
+                "max_iter": self.max_iter,
+                "tol": self.tol,
+            }
         if self.method == "arpls":
-            return {"lam": self.lam, "diff_order": self.diff_order, "max_iter": self.max_iter,
-                    "tol": self.tol}
+            return {"lam": self.lam, "diff_order": self.diff_order, "max_iter": self.max_iter, "tol": self.tol}
         return {}
 
     def fit(self, X, y=None):

@@ -30,8 +30,9 @@ def dark_reference(dark_frames, statistic: str = "mean") -> np.ndarray:
         return d.mean(axis=0)
     if statistic == "median":
         return np.median(d, axis=0)
-    raise MethodError(f"unknown dark statistic {statistic!r}", where="[preprocess.dark] statistic",
-                      fix="use 'mean' or 'median'")
+    raise MethodError(
+        f"unknown dark statistic {statistic!r}", where="[preprocess.dark] statistic", fix="use 'mean' or 'median'"
+    )
 
 
 def exposure_ratio(exposure_s: float | None, dark_exposure_s: float | None) -> float:
@@ -55,8 +56,13 @@ def subtract_dark(spectra, dark_ref, scale: float = 1.0) -> np.ndarray:
 class DarkSubtraction(BaseEstimator, TransformerMixin):
     """Subtract the per-pixel dark level, scaled by ``exposure_s / dark_exposure_s``."""
 
-    def __init__(self, dark_frames=None, statistic: str = "mean", exposure_s: float | None = None,
-                 dark_exposure_s: float | None = None):
+    def __init__(
+        self,
+        dark_frames=None,
+        statistic: str = "mean",
+        exposure_s: float | None = None,
+        dark_exposure_s: float | None = None,
+    ):
         self.dark_frames = dark_frames
         self.statistic = statistic
         self.exposure_s = exposure_s
@@ -181,8 +187,11 @@ class Normalisation(BaseEstimator, TransformerMixin):
 
     def fit(self, X=None, y=None):
         if self.how not in NORMALISATIONS:
-            raise MethodError(f"unknown normalisation {self.how!r}",
-                              where="[preprocess.normalise] how", fix=f"use one of {NORMALISATIONS}")
+            raise MethodError(
+                f"unknown normalisation {self.how!r}",
+                where="[preprocess.normalise] how",
+                fix=f"use one of {NORMALISATIONS}",
+            )
         return self
 
     def factors(self, X, baseline=None) -> np.ndarray:

@@ -54,8 +54,16 @@ def robust_center_scale(x: np.ndarray) -> tuple[float, float]:
     return med, float(MAD_TO_SD * np.median(np.abs(x - med)))
 
 
-def qc_decide(x, *, k: float = 5.0, min_fraction: float = 0.0, min_signal: float | None = None,
-              pulse_energy=None, min_pulse_fraction: float = 0.0, enabled: bool = True) -> QCDecision:
+def qc_decide(
+    x,
+    *,
+    k: float = 5.0,
+    min_fraction: float = 0.0,
+    min_signal: float | None = None,
+    pulse_energy=None,
+    min_pulse_fraction: float = 0.0,
+    enabled: bool = True,
+) -> QCDecision:
     """Decide which shots of ONE sample are accepted (see module docstring).
 
     Parameters
@@ -93,8 +101,7 @@ def qc_decide(x, *, k: float = 5.0, min_fraction: float = 0.0, min_signal: float
             reasons[(reasons == "") & out] = "outlier"
     accepted = reasons == ""
     counts = {r: int((reasons == r).sum()) for r in REASONS if (reasons == r).any()}
-    return QCDecision(accepted=accepted, reasons=list(reasons), median=med, robust_sd=rsd,
-                      counts=counts)
+    return QCDecision(accepted=accepted, reasons=list(reasons), median=med, robust_sd=rsd, counts=counts)
 
 
 def pulse_energy_factors(pulse_energy, reference: float | None = None) -> np.ndarray:
@@ -123,13 +130,15 @@ class ShotQC(BaseEstimator):
         return np.asarray(X, dtype=np.float64).sum(axis=1)
 
     def fit(self, X, y=None):
-        self.decision_ = qc_decide(self.quantity(X), k=self.k, min_fraction=self.min_fraction,
-                                   min_signal=self.min_signal)
+        self.decision_ = qc_decide(
+            self.quantity(X), k=self.k, min_fraction=self.min_fraction, min_signal=self.min_signal
+        )
         return self
 
     def accept(self, X) -> np.ndarray:
-        return qc_decide(self.quantity(X), k=self.k, min_fraction=self.min_fraction,
-                         min_signal=self.min_signal).accepted
+        return qc_decide(
+            self.quantity(X), k=self.k, min_fraction=self.min_fraction, min_signal=self.min_signal
+        ).accepted
 
     def transform(self, X):
         X = np.asarray(X, dtype=np.float64)

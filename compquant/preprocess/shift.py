@@ -53,8 +53,7 @@ def shift_from_lines(wavelength, spectrum, lines_nm, half_window_nm: float = 0.1
     return (float(np.median(finite)) if finite.size else float("nan")), shifts
 
 
-def shift_by_cross_correlation(wavelength, spectrum, ref_wavelength, ref_spectrum,
-                               max_shift_nm: float = 0.2) -> float:
+def shift_by_cross_correlation(wavelength, spectrum, ref_wavelength, ref_spectrum, max_shift_nm: float = 0.2) -> float:
     """Shift (nm) maximising the correlation of ``spectrum`` with the reference spectrum.
 
     Positive when the spectrum's features sit at longer wavelength than the
@@ -63,8 +62,7 @@ def shift_by_cross_correlation(wavelength, spectrum, ref_wavelength, ref_spectru
     """
     wl = np.asarray(wavelength, dtype=np.float64)
     y = np.asarray(spectrum, dtype=np.float64)
-    ref = np.interp(wl, np.asarray(ref_wavelength, float), np.asarray(ref_spectrum, float),
-                    left=np.nan, right=np.nan)
+    ref = np.interp(wl, np.asarray(ref_wavelength, float), np.asarray(ref_spectrum, float), left=np.nan, right=np.nan)
     ok = np.isfinite(ref) & np.isfinite(y)
     if ok.sum() < 8:
         return float("nan")
