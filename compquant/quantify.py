@@ -162,7 +162,8 @@ def _closure(elements, x, ux, bases):
     return w, u[:n], float(wm), float(u[n]), J
 
 
-def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported) -> list:
+def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported,
+              matrix_fraction) -> list:
     """Results of the PLS models (basis 'pls') when the measurement carries mean spectra."""
     pls = calibration.pls
     spectra = getattr(measurement, "mean_spectra", None)
@@ -177,7 +178,7 @@ def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reporte
                 }
             )
         return []
-    from compquant.calibrate.pls import predict_pls
+    from compquant.calibrate.pls import predict_pls, spectra_matrix
 
     wl = np.asarray(wl, float)
     want = np.asarray(pls["wavelength_mask_nm"], float)
@@ -194,22 +195,35 @@ def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reporte
     ids = [s for s in sample_ids if s in spectra]
     if not ids:
         return []
-    X = np.vstack([np.asarray(spectra[s], float)[mask] for s in ids])
+    is_mask = None
+    if pls.get("is_mask_nm"):
+        is_mask = np.isin(np.round(wl, 6), np.round(np.asarray(pls["is_mask_nm"], float), 6))
+    if pls.get("target") == "ratio":
+        for s in ids:
+            if s not in matrix_fraction:
+                not_reported.append({"sample_id": s, "element": ",".join(pls["models"]),
+                                     "reason": "PLS ratio result needs the matrix fraction from the curves"})
+        ids = [s for s in ids if s in matrix_fraction]
+        if not ids:
+            return []
+    X = spectra_matrix(spectra, ids, mask, pls.get("normalise", "none"), is_mask)
     rows = []
     for el, m in pls["models"].items():
         pr = predict_pls(m, X)
-        u = m["rmsecv"]
         for i, sid in enumerate(ids):
-            y = float(pr["y"][i])
+            f = matrix_fraction[sid][0] if pls.get("target") == "ratio" else 1.0
+            u = m["rmsecv"] * f
+            y = float(pr["y"][i]) * f
+            lo_r, hi_r = m["y_range"][0] * f, m["y_range"][1] * f
             flags = []
             below = y < 3 * u
             if below:
                 flags.append("below_lod")
             if not pr["inside"][i]:
                 flags.append("outside_model_space")
-            if y > m["y_range"][1]:
+            if y > hi_r:
                 flags.append("above_range")
-            elif y < m["y_range"][0] and not below:
+            elif y < lo_r and not below:
                 flags.append("below_range")
             flags += run_flags
             rows.append(
@@ -373,7 +387,8 @@ def quantify(
                     "dof": float(p["dof"]),
                 }
             )
-    rows += _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported)
+    rows += _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported,
+                      matrix_fraction)
     results = pd.DataFrame(rows, columns=RESULT_COLUMNS)
     # check samples
     certs = (

@@ -14,6 +14,8 @@ import pandas as pd
 from compquant.calibrate.config import AnalyteConfig, CalibrationConfig
 from compquant.calibrate.drift import reference_intensities
 from compquant.calibrate.fit import (
+    QUADRATIC_MODELS,
+    WEIGHTED_MODELS,
     d_dxi,
     fit_curve,
     lack_of_fit,
@@ -155,7 +157,7 @@ def curve_from_records(
         r.setdefault("used", True)
         r.setdefault("shots", None)
         r.setdefault("line_flags", "")
-    weighted = a.model == "weighted"
+    weighted = a.model in WEIGHTED_MODELS
     interf = [(it["element"], it["kind"]) for it in a.interferences]
     limit_used = None
     while True:
@@ -203,7 +205,7 @@ def curve_from_records(
             where=where,
             fix="check the line choice, the standards, or the model",
         )
-    if a.model == "quadratic" and len(fit.terms) and "x2" in fit.terms:
+    if "x2" in fit.terms:
         c2 = beta[fit.terms.index("x2")]
         c1 = beta[fit.terms.index("x")]
         if c2 < 0 and -c1 / (2 * c2) < x.max():
@@ -241,7 +243,7 @@ def curve_from_records(
         lof = lack_of_fit_shots(fit, [r["shots"] for r in use])
     mandel = (
         mandel_test(x, y, 1.0 / uy**2 if weighted else None)
-        if a.model != "quadratic" and not interf and not a.through_origin
+        if a.model not in QUADRATIC_MODELS and not interf and not a.through_origin
         else None
     )
     resid_sd = float(np.sqrt(np.sum(fit.resid**2) / fit.dof))
@@ -338,6 +340,7 @@ def calibrate(
     run_sha256: str = "",
     run_path: str = "",
     pls=None,
+    method_path: str = "",
 ) -> Calibration:
     """Fit every analyte curve of ``config`` to the standards in ``line_table``.
 
@@ -384,6 +387,7 @@ def calibrate(
         settings=config.to_dict(),
         lines=lines,
         pls=pls,
+        method_path=str(method_path),
     )
 
 

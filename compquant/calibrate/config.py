@@ -61,7 +61,7 @@ _AN = {
     "interferences",
     "basis",
 }
-_PLS = {"analytes", "half_width_nm", "max_components", "cv_folds", "alpha", "lines"}
+_PLS = {"analytes", "half_width_nm", "max_components", "cv_folds", "alpha", "lines", "normalise"}
 
 
 @dataclass
@@ -85,6 +85,7 @@ class PLSConfig:
     cv_folds: int = 0  # 0 = leave-one-out
     alpha: float = 0.05
     lines: list | None = None  # line ids whose windows form the X block (default: all method lines)
+    normalise: str = "total"   # "internal_standard" | "total" (row / window sum) | "none"
 
 
 @dataclass
@@ -274,14 +275,13 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
         lines = ps.get("lines")
         if lines is not None and (not isinstance(lines, list) or not all(isinstance(s, str) for s in lines)):
             raise MethodError("'lines' must be a list of line ids", where=w, fix="or leave it out")
-        pls = PLSConfig(
-            analytes=list(pa),
-            half_width_nm=float(hw),
-            max_components=mc,
-            cv_folds=cv,
-            alpha=float(al),
-            lines=lines,
-        )
+        dflt = "internal_standard" if (basis == "ratio" and istd) else "total"
+        norm = _choice(ps.get("normalise", dflt), ("internal_standard", "total", "none"), w, "normalise")
+        if norm == "internal_standard" and not istd:
+            raise MethodError("normalise = 'internal_standard' needs [calibration] internal_standard",
+                              where=w, fix='set internal_standard = "Cu I 510.554" or normalise = "total"')
+        pls = PLSConfig(analytes=list(pa), half_width_nm=float(hw), max_components=mc, cv_folds=cv,
+                        alpha=float(al), lines=lines, normalise=norm)
     return CalibrationConfig(
         analytes=analytes,
         basis=basis,

@@ -31,14 +31,16 @@ from scipy import stats
 
 from compquant.errors import CalibrationError
 
-MODELS = ("linear", "weighted", "quadratic")
+MODELS = ("linear", "weighted", "quadratic", "weighted_quadratic")
+WEIGHTED_MODELS = ("weighted", "weighted_quadratic")
+QUADRATIC_MODELS = ("quadratic", "weighted_quadratic")
 
 
 def design_terms(model: str, through_origin: bool, interferences=()) -> list[str]:
     """Names of the design-matrix columns: ``1``, ``x``, ``x2``, ``add:<El>``, ``mul:<El>``."""
     terms = [] if through_origin else ["1"]
     terms.append("x")
-    if model == "quadratic":
+    if model in QUADRATIC_MODELS:
         terms.append("x2")
     for el, kind in interferences:
         terms.append(f"{'add' if kind == 'additive' else 'mul'}:{el}")
@@ -147,8 +149,8 @@ def fit_curve(
     """Least-squares fit of a calibration curve.
 
     ``model`` is ``linear`` (OLS), ``weighted`` (WLS, straight line, ``weights``
-    required: 1/u^2 of the responses) or ``quadratic`` (OLS, or WLS when
-    ``weights`` are given).  ``interferences`` is a sequence of
+    required: 1/u^2 of the responses), ``quadratic`` (OLS, or WLS when
+    ``weights`` are given) or ``weighted_quadratic`` (WLS, weights required).  ``interferences`` is a sequence of
     ``(element, "additive"|"multiplicative")`` with contents in ``xi``.
 
     Raises :class:`CalibrationError` for fewer than 3 standards, fewer standards
@@ -186,7 +188,7 @@ def fit_curve(
             fix="use standards that span the calibration range",
         )
     if weights is None:
-        if model == "weighted":
+        if model in WEIGHTED_MODELS:
             raise CalibrationError(
                 "weighted model needs response uncertainties",
                 where=where,

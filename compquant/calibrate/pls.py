@@ -1,7 +1,8 @@
 """Multivariate calibration: PLS regression on preprocessed spectral windows, with applicability limits.
 
 X block: the preprocessed mean spectrum of each sample, restricted to windows
-of +- ``half_width_nm`` around the method's lines, columns autoscaled.  y: the
+of +- ``half_width_nm`` around the method's lines, each row divided by its sum
+(``normalise = "total"``) and the columns mean-centred.  y: the
 certified mass fraction of one analyte.  PLS1 by scikit-learn
 (``PLSRegression``, NIPALS; Wold, Sjostrom & Eriksson 2001, Chemom. Intell. Lab.
 Syst. 58, 109).  The number of components ``A`` minimises the root mean square
@@ -21,6 +22,11 @@ means the prediction is an extrapolation and is flagged ``outside_model_space``)
       Q_a = theta1 [ c_a sqrt(2 theta2 h0^2)/theta1 + 1 + theta2 h0 (h0-1)/theta1^2 ]^(1/h0)
       theta_i = sum_j lambda_j^i (eigenvalues of the residual covariance),
       h0 = 1 - 2 theta1 theta3 / (3 theta2^2),  c_a = z_{1-alpha}
+
+With a ratio calibration the PLS target is, like the univariate curves, the
+mass-fraction ratio to the matrix element (and the spectra are divided by the
+internal-standard line's window signal); mass fractions then follow with the
+sample's matrix fraction from the univariate closure.
 
 The standard uncertainty of a PLS prediction is taken as RMSECV (common
 practice; it contains the model error at the calibration's own samples and not
@@ -99,10 +105,11 @@ def fit_pls(X, y, *, max_components: int = 5, cv_folds: int = 0, alpha: float = 
         raise CalibrationError(
             "all standards have the same content", where=where, fix="use standards that span the range"
         )
+    # spectra are mean-centred, not autoscaled: autoscaling would give baseline pixels
+    # that hold only noise the same weight as line pixels (common practice in spectroscopy)
     mean = X.mean(axis=0)
-    sd = X.std(axis=0, ddof=1)
-    sd[sd <= 1e-12 * max(1.0, float(np.max(np.abs(mean))))] = 1.0
-    Xs = (X - mean) / sd
+    sd = np.ones(X.shape[1])
+    Xs = X - mean
     folds = n if cv_folds in (0, None) or cv_folds > n else cv_folds
     idx = np.arange(n)
     groups = idx % folds
@@ -112,12 +119,10 @@ def fit_pls(X, y, *, max_components: int = 5, cv_folds: int = 0, alpha: float = 
         pred = np.empty(n)
         for f in range(folds):
             tr, te = groups != f, groups == f
-            Xtr = X[tr]
-            m, s = Xtr.mean(axis=0), Xtr.std(axis=0, ddof=1)
-            s[s <= 1e-12] = 1.0
+            m = X[tr].mean(axis=0)
             A_eff = min(A, int(tr.sum()) - 1)
-            mdl = _fit((Xtr - m) / s, y[tr], A_eff)
-            pred[te] = mdl.predict((X[te] - m) / s).ravel()
+            mdl = _fit(X[tr] - m, y[tr], A_eff)
+            pred[te] = mdl.predict(X[te] - m).ravel()
         rmsecv.append(float(np.sqrt(np.mean((pred - y) ** 2))))
     A = int(np.argmin(rmsecv)) + 1
     mdl = _fit(Xs, y, A)
@@ -164,8 +169,29 @@ def predict_pls(model: dict, X) -> dict:
     return {"y": yhat, "t2": t2, "q": q, "inside": inside}
 
 
-def spectra_matrix(mean_spectra: dict, wavelength, sample_ids, mask) -> np.ndarray:
-    return np.vstack([np.asarray(mean_spectra[s], float)[mask] for s in sample_ids])
+def spectra_matrix(mean_spectra: dict, sample_ids, mask, normalise: str = "total",
+                   is_mask=None) -> np.ndarray:
+    """Rows of window pixels of the samples' mean spectra, normalised.
+
+    ``normalise``: ``"internal_standard"`` divides each row by the summed signal in
+    the internal-standard line's window (``is_mask``), ``"total"`` by the row's sum
+    over the windows, ``"none"`` leaves it; either removes the sample-to-sample
+    ablation yield (common practice).
+    """
+    full = [np.asarray(mean_spectra[s], float) for s in sample_ids]
+    X = np.vstack([f[mask] for f in full])
+    if normalise in ("total", "internal_standard"):
+        if normalise == "total":
+            tot = X.sum(axis=1, keepdims=True)
+        else:
+            tot = np.vstack([f[is_mask].sum(keepdims=True) for f in full])
+        bad = ~(np.isfinite(tot[:, 0]) & (tot[:, 0] > 0))
+        if np.any(bad):
+            raise CalibrationError("a spectrum has no positive signal to normalise the PLS block by",
+                                   where=f"sample {sample_ids[int(np.flatnonzero(bad)[0])]}",
+                                   fix='check the sample, or set normalise = "none"')
+        X = X / tot
+    return X
 
 
 def fit_pls_block(cfg, measurement, samples, standards) -> dict:
@@ -184,14 +210,27 @@ def fit_pls_block(cfg, measurement, samples, standards) -> dict:
         raise CalibrationError(
             "PLS windows hold fewer than 2 pixels", where="[calibration.pls]", fix="widen half_width_nm"
         )
+    is_mask = None
+    ratio = bool(cfg.basis == "ratio" and cfg.matrix_element)
+    if pc.normalise == "internal_standard":
+        rows = lt[lt["line_id"] == cfg.internal_standard]
+        if rows.empty:
+            raise CalibrationError(f"internal-standard line {cfg.internal_standard} not measured",
+                                   where="[calibration.pls]", fix="add it to the method's [[lines]]")
+        is_mask = window_mask(wl, [float(rows["wavelength_nm"].iloc[0])], pc.half_width_nm)
     smap = standard_map(lt, samples)
     certs = certified_table(standards)
     stds = [s for s, (role, ref) in smap.items() if role == "standard" and s in measurement.mean_spectra]
     models = {}
     for el in pc.analytes:
         use = [s for s in stds if el in certs.get(smap[s][1], {})]
-        X = spectra_matrix(measurement.mean_spectra, wl, use, mask)
-        y = np.array([certs[smap[s][1]][el][0] for s in use])
+        X = spectra_matrix(measurement.mean_spectra, use, mask, pc.normalise, is_mask)
+        if ratio:  # mass-fraction ratio to the matrix, as the univariate ratio curves
+            from compquant.calibrate.build import content
+
+            y = np.array([content(certs[smap[s][1]], el, "ratio", cfg.matrix_element)[0] for s in use])
+        else:
+            y = np.array([certs[smap[s][1]][el][0] for s in use])
         m = fit_pls(
             X,
             y,
@@ -205,6 +244,9 @@ def fit_pls_block(cfg, measurement, samples, standards) -> dict:
     return {
         "lines": line_ids,
         "half_width_nm": pc.half_width_nm,
+        "normalise": pc.normalise,
+        "target": "ratio" if ratio else "mass_fraction",
+        "is_mask_nm": None if is_mask is None else [float(v) for v in wl[is_mask]],
         "wavelength_mask_nm": [float(v) for v in wl[mask]],
         "models": models,
     }

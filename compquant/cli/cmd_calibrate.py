@@ -136,6 +136,8 @@ def command(run_path, method_path, standards_path, output, plots_dir, quiet):
     if not quiet:
         click.echo(curve_table(cal))
         if cal.pls:
+            unit = "(mass-fraction ratio to the matrix)" if cal.pls.get("target") == "ratio" else "g/g"
             for el, m in cal.pls["models"].items():
-                click.echo(f"PLS {el}: {m['n_components']} components, RMSECV {m['rmsecv']:.3g} g/g ({m['cv']})")
+                click.echo(f"PLS {el}: {m['n_components']} components, RMSECV {m['rmsecv']:.3g} {unit} "
+                           f"({m['cv']}); T2 limit {m['t2_limit']:.3g}, Q limit {m['q_limit']:.3g}")
         click.echo(f"wrote {output}" + (f" and {len(written)} plots in {plots_dir}" if plots_dir else ""))
