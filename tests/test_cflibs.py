@@ -12,12 +12,12 @@ import json
 import math
 import warnings
 
+import cf_hand
 import numpy as np
 import pytest
 from scipy import constants as sc
 from scipy import optimize, special
 
-import cf_hand
 from compquant.cflibs import CFResult, CFSettings, analyse_cf, one_point_calibration
 from compquant.cflibs.constants import SAHA_PREFACTOR_CM3
 from compquant.cflibs.density import (
@@ -172,7 +172,7 @@ def test_shipped_masses_against_periodictable():
     for e in ("Fe", "Cr", "Ni", "Cu", "Al", "Si", "Mn", "H"):
         try:
             atomic.element(e)
-        except Exception:  # noqa: BLE001 - element not shipped
+        except Exception:
             continue
         assert pa.mass_u(e) == pytest.approx(getattr(periodictable, e).mass, rel=1e-3)
 
@@ -224,17 +224,18 @@ def test_monte_carlo_is_seeded_and_covers():
     T, ne = 10500.0, 5e16
     lt = cf_hand.line_table(W_TRUE, T, ne, rel_u=0.03)
     rng = np.random.default_rng(7)
-    kw = dict(atomic=cf_hand.atomic(), settings={"mc_draws": 200, "seed": 11})
+    kw = dict(atomic=cf_hand.atomic(), settings={"mc_draws": 200, "seed": 11, "self_absorption": "none"})
     a = quiet(line_table=lt, **kw)
     b = quiet(line_table=lt, **kw)
     assert a.element("Cr").u == b.element("Cr").u and a.u_temperature_k == b.u_temperature_k
     # noisy replicates: |ŵ − w| ≤ 2u most of the time (coverage of U, k = 2)
     hits, n = 0, 0
-    for _ in range(12):
+    for _ in range(8):
         noisy = lt.copy()
         noisy["intensity"] = lt["intensity"] * (1 + 0.03 * rng.standard_normal(len(lt)))
         noisy["u_intensity"] = 0.03 * noisy["intensity"]
-        r = quiet(line_table=noisy, atomic=cf_hand.atomic(), settings={"mc_draws": 150, "seed": 3})
+        r = quiet(line_table=noisy, atomic=cf_hand.atomic(),
+                  settings={"mc_draws": 150, "seed": 3, "self_absorption": "none"})
         for e, w in W_TRUE.items():
             n += 1
             hits += abs(r.element(e).mass_fraction - w) <= 2 * r.element(e).u
@@ -261,8 +262,9 @@ def test_fixed_content_and_missing_element():
 
 
 def test_stark_line_density_and_self_absorption_correction():
-    # Stark parameters on three Fe I lines; a 2 mm slab makes the strong lines self-absorbed.
-    T, ne, L_cm = 10000.0, 5e16, 0.2
+    # Stark parameters on five lines; a 0.5 mm slab makes the strong lines self-absorbed
+    # (resonance ion lines so thick, SA < 0.1, that they must be dropped)
+    T, ne, L_cm = 10000.0, 5e16, 0.05
     lt = cf_hand.line_table(W_TRUE, T, ne, rel_u=0.005, scale=1.0)
     w_instr = 0.03
     stark = {"Fe I 404.581": 0.010, "Fe I 438.354": 0.012, "Fe I 526.954": 0.015, "Cr I 520.844": 0.011,
@@ -293,10 +295,13 @@ def test_stark_line_density_and_self_absorption_correction():
     thin = quiet(line_table=lt, atomic=cf_hand.atomic(), settings={**base, "self_absorption": "detect"})
     assert any("self_absorbed" in ln["flags"] for ln in thin.lines)
     r = quiet(line_table=lt, atomic=cf_hand.atomic(),
-              settings={**base, "self_absorption": "curve_of_growth", "plasma_length_mm": 2.0})
+              settings={**base, "self_absorption": "curve_of_growth", "plasma_length_mm": 0.5})
     got = {ln["line_id"]: ln["sa_factor"] for ln in r.lines}
+    dropped = {x["line_id"] for x in r.excluded_lines if "optically thick" in x["reason"]}
+    assert dropped == {lid for lid, sa in sa_true.items() if sa < 0.1}
     for lid, sa in sa_true.items():
-        assert got[lid] == pytest.approx(sa, rel=2e-2)
+        if lid not in dropped:
+            assert got[lid] == pytest.approx(sa, rel=2e-3)
     assert r.temperature_k == pytest.approx(T, rel=5e-3)
     assert r.electron_density_cm3 == pytest.approx(ne, rel=0.03)
     for e, w in W_TRUE.items():
@@ -304,7 +309,7 @@ def test_stark_line_density_and_self_absorption_correction():
     err_thin = max(abs(thin.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
     col = quiet(line_table=lt, atomic=cf_hand.atomic(), settings={**base, "self_absorption": "columnar"})
     err_col = max(abs(col.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
-    assert col.self_absorption["plasma_length_mm"] == pytest.approx(2.0, rel=0.1)
+    assert col.self_absorption["plasma_length_mm"] == pytest.approx(0.5, rel=0.02)
     assert err_col < 0.02 < err_thin
 
 
@@ -324,8 +329,14 @@ def test_one_point_calibration_removes_aki_errors():
     assert cal.factors["Fe I 404.581"] < 0.9 < 1.1 < cal.factors["Cr I 425.433"]  # ζ ∝ 1/bias
     r = quiet(line_table=unk, atomic=at, settings={"mc_draws": 0}, one_point=cal)
     err = max(abs(r.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
-    assert err < 1e-6 < err_plain
+    # the standard's own T is biased by the A_ki errors, so a small tilt remains when the
+    # unknown's plasma differs (10 800 vs 10 500 K): within 1 %, versus > 5 % uncorrected
+    assert err < 0.01 and err_plain > 0.05
     assert r.one_point["standard_id"] == "STD"
+    # an unknown measured in the standard's plasma conditions is corrected exactly
+    same = cf_hand.line_table(W_TRUE, T, ne, aki_bias=bias, sample_id="UNK2")
+    r = quiet(line_table=same, atomic=at, settings={"mc_draws": 0}, one_point=cal)
+    assert max(abs(r.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items()) < 1e-6
 
 
 def test_settings_validation():

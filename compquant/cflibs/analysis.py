@@ -20,11 +20,11 @@ import warnings
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 from scipy.optimize import minimize_scalar
+from scipy.special import chdtrc
 
 from compquant.cflibs.atomicdata import default_atomic_data, species_name
-from compquant.cflibs.constants import K_B_EV
+from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
 from compquant.cflibs.density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
 from compquant.cflibs.electron_density import FixedNe, HAlphaNe, StarkLinesNe
 from compquant.cflibs.fitting import wls_batch
@@ -219,17 +219,24 @@ class _Analysis:
         return {k: math.exp(v + lnK) for k, v in zip(names, lns)}
 
     def lorentz_thin(self, T, ne, sa):
-        """Thin-line Stark FWHM per line: from Stark parameters, else from the measured width."""
+        """Thin-line Stark FWHM per line for the absorption profile.
+
+        From the line's Stark parameters at nₑ; lines without them get none (Doppler-only
+        absorption profile, as in the forward model) unless ``[cf] sa_width_from_measured``
+        asks to take the Lorentzian part of the measured FWHM (less the El Sherbini
+        broadening by self-absorption) — measured widths of self-absorbed Doppler-dominated
+        lines are broadened in a way no Lorentzian explains, so this is off by default.
+        """
         L = self.L
         wl = np.zeros(L.n)
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
         t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
         wl[have] = stark_width_linear(ne, L.stark_w[have], L.stark_ne[have], T, t_ref[have],
-                                      self.s.stark_t_exponent)
-        meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0)
+                                      self.s.stark_t_exponent, L.stark_p[have])
+        meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0) & bool(self.s.sa_width_from_measured)
         if np.any(meas):
             wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
-            wl[meas] = lorentz_from_voigt(L.fwhm[meas] * sa[meas] ** (-EL_SHERBINI_ALPHA), wg)
+            wl[meas] = lorentz_from_voigt(L.fwhm[meas], wg) * sa[meas] ** (-EL_SHERBINI_ALPHA)
         return wl
 
     def sa_cog(self, sol: Solution, length_cm: float, sa_prev):
@@ -244,6 +251,39 @@ class _Analysis:
         wlz = self.lorentz_thin(T, ne, sa_prev)
         tau = tau0_slab(L.wl, L.gA, L.ei, T, n_sp, u_sp, length_cm, wg, wlz)
         return sa_factor(tau, wg, wlz), tau
+
+    def detect_linear_cog(self, sol):
+        """Curve-of-growth departure test (detection only, one extra linear parameter).
+
+        To first order in the optical depth, ln SA_i ≈ −κ_i τ_i with τ_i = L·t_i (t_i the peak
+        optical depth per cm from the thin solution's densities) and κ_i = −d ln SA/dτ at
+        τ → 0 of the line's profile; so adding the column −κ_i t_i to the thin fit's design
+        estimates the plasma length L (columnar density) with its standard uncertainty.
+        L/u(L) > 2 counts as detected self-absorption; the per-line SA is then the full curve
+        of growth at that L.
+        """
+        L = self.L
+        T = float(sol.T[0])
+        ne = float(sol.ne[0])
+        wg = doppler_fwhm_nm(L.wl, T, self.mass_line)
+        wlz = self.lorentz_thin(T, ne, np.ones(L.n))
+        nabs = self.absolute_species(sol)
+        n_sp = np.array([nabs[s] for s in L.species])
+        u_sp = np.array([float(self.atomic.partition_function(s, np.array([T]))[0]) for s in L.species])
+        t = tau0_slab(L.wl, L.gA, L.ei, T, n_sp, u_sp, 1.0, wg, wlz)  # per cm
+        eps = 1e-4
+        kappa = -np.log(sa_factor(np.full(L.n, eps), wg, wlz)) / eps
+        a = kappa * t
+        X = np.column_stack([sol.X, -a])
+        fit = wls_batch(X, sol.y, self.w, scale_by_chi2=self.s.scale_by_chi2)
+        L_est, u_L = float(fit.beta[0, -1]), float(np.sqrt(fit.cov[0, -1, -1]))
+        detected = L_est > 0 and L_est > 2.0 * u_L
+        self.sa_info.update(plasma_length_mm=max(L_est, 0.0) * 10.0, u_plasma_length_mm=u_L * 10.0,
+                            fitted=True, test="linearised curve of growth", detected=bool(detected),
+                            chi2_thin=float(sol.fit.chi2[0]), chi2_fitted=float(fit.chi2[0]))
+        if detected:
+            self.sa_detect_cog = sa_factor(L_est * t, wg, wlz)
+            self.sa_detect_cog_u = np.abs(self.sa_detect_cog - sa_factor(max(L_est - u_L, 0.0) * t, wg, wlz))
 
     def drop_lines(self, mask, reason: str):
         """Remove lines (e.g. too optically thick to correct) and rebuild the model."""
@@ -293,6 +333,179 @@ class _Analysis:
         sol = self.solve_central(sa, ne_name, ne_est)
         return sa, sol, tau, ne_name, ne_est
 
+    def sa_of_beta(self, beta, length_cm, ne_est, groups):
+        """SA of every line implied by the fit parameters β (T, intercepts[, ln nₑ]) and L."""
+        m = beta[0]
+        T = np.array([-1.0 / (K_B_EV * m)])
+        ne = np.exp(np.array([beta[-1]])) if ne_est is None else np.atleast_1d(ne_est(T))[:1]
+        ln_n_el, ln_sp = self.model._composition(beta[None, :], groups, T, ne)
+        fake = Solution(T=T, ne=ne, u_ln_ne_fit=None, slope=np.array([m]), u_slope=np.zeros(1), fit=None,
+                        X=None, y=None, groups=groups, elements=self.model.elements, ln_n_el=ln_n_el,
+                        ln_n_species=ln_sp, number_fraction=None, mass_fraction=None,
+                        valid=np.ones(1, bool), iterations=0, ne_from_fit=ne_est is None)
+        return self.sa_cog(fake, length_cm, np.ones(self.L.n))[0], T[0], ne[0]
+
+    def initial_beta(self, T0, ne_est, X, y_raw):
+        """Fit parameters with the slope fixed at −1/kT0 (a start that needs no negative slope)."""
+        m0 = -1.0 / (K_B_EV * T0)
+        ne0 = 1e17 if ne_est is None else float(np.atleast_1d(ne_est(np.array([T0])))[0])
+        shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T0) + float(
+            self.model.lowering(np.array([T0]), np.array([ne0]), 1)[0]) / (K_B_EV * T0)
+        if ne_est is not None:
+            shift -= math.log(ne0)
+        r = y_raw - np.where(self.model.is_ion, shift, 0.0) - m0 * X[:, 0]
+        A = X[:, 1:] * np.sqrt(self.w)[:, None]
+        rest, *_ = np.linalg.lstsq(A, r * np.sqrt(self.w), rcond=None)
+        return np.concatenate([[m0], rest])
+
+    def _residual_fn(self, X, groups, ne_est, fit_length, length_cm):
+        """Weighted residuals of the self-absorbed model for parameters θ (β[, ln L])."""
+        s = self.s
+        ne_free = ne_est is None
+        ion = self.model.is_ion
+        y_raw = np.log(self.L.intensity) + self.model.y0 - self.ln_zeta
+        sw = np.sqrt(self.w)
+        p = X.shape[1]
+        big = np.full(self.L.n, 1e3)
+
+        def resid(theta):
+            beta = theta[:p]
+            L_cm = math.exp(theta[-1]) if fit_length else length_cm
+            m = beta[0]
+            if not (m < 0):
+                return big
+            T = -1.0 / (K_B_EV * m)
+            try:
+                sa_i, _T, ne_ = self.sa_of_beta(beta, L_cm, ne_est, groups)
+            except (PhysicsError, FloatingPointError, ValueError):
+                return big
+            shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T) + float(
+                self.model.lowering(np.array([T]), np.array([ne_]), 1)[0]) / (K_B_EV * T)
+            if not ne_free:
+                shift -= math.log(ne_)
+            pred = X @ beta + np.where(ion, shift, 0.0) + np.log(np.maximum(sa_i, 1e-300))
+            r = sw * (y_raw - pred)
+            return r if np.all(np.isfinite(r)) else big
+
+        lo = np.full(p + fit_length, -np.inf)
+        hi = np.full(p + fit_length, np.inf)
+        lo[0], hi[0] = -1.0 / (K_B_EV * 0.5 * s.t_min_k), -1.0 / (K_B_EV * 2.0 * s.t_max_k)
+        if ne_free:
+            lo[p - 1], hi[p - 1] = math.log(1e13), math.log(1e20)
+        if fit_length:
+            lo[-1], hi[-1] = math.log(1e-6), math.log(10.0)
+        return resid, y_raw, (lo, hi)
+
+    def _lsq(self, resid, theta0, bounds, coarse):
+        from scipy.optimize import least_squares
+
+        lo, hi = bounds
+        span = np.where(np.isfinite(hi - lo), hi - lo, 1.0)
+        th0 = np.clip(theta0, np.where(np.isfinite(lo), lo + 1e-6 * span, -np.inf),
+                      np.where(np.isfinite(hi), hi - 1e-6 * span, np.inf))
+        try:
+            res = least_squares(resid, th0, method="trf", bounds=(lo, hi), x_scale="jac",
+                                max_nfev=60 if coarse else 200, xtol=1e-6 if coarse else 1e-10,
+                                ftol=1e-6 if coarse else 1e-12)
+        except (ValueError, FloatingPointError):
+            return None
+        return float(np.sum(res.fun**2)), res.x
+
+    def nls_selfabs(self, length_cm, ne_pick, fit_length: bool, coarse: bool = False):
+        """Self-absorbed Saha–Boltzmann fit by nonlinear least squares.
+
+        The model ordinate of line i is the optically thin one plus ln SA_i, where SA_i
+        follows from the curve of growth of a homogeneous slab whose densities are those of
+        the current parameters (T, intercepts → closure, nₑ → absolute scale by charge
+        neutrality) and whose length L is given or fitted (columnar density n·L,
+        Cristoforetti & Tognoni 2013).  Minimises Σ w_i (y_i − ŷ_i)² with
+        :func:`scipy.optimize.least_squares` (bounded T, nₑ, L).  When L is fitted, the fit
+        is first followed by continuation along a logarithmic grid of L from nearly thin to
+        1 cm, each step warm-started from the previous one, which keeps it on the physical
+        branch (a free start can settle on a hot, dense, thin false minimum); the best grid
+        point is then refined with L free.  Returns ``(sa, sol, tau, ne_name, ne_est,
+        length_cm, chi2)``.
+        """
+        s = self.s
+        sa = np.ones(self.L.n)
+        L_cm = length_cm
+        chi2 = float("nan")
+        for _outer in range(2):
+            ne_name, ne_est = ne_pick(sa)
+            X, groups = self.model.design(ne_est is None)
+            # a start: the plain fit of the current SA, else a fit with the slope fixed at T_start
+            try:
+                b0 = self.solve_central(sa, ne_name, ne_est).fit.beta[0].copy()
+            except PhysicsError:
+                y_raw = np.log(self.L.intensity) + self.model.y0 - self.ln_zeta
+                b0 = self.initial_beta(s.t_start_k, ne_est, X, y_raw)
+            if fit_length:
+                resid_f, _, bounds_f = self._residual_fn(X, groups, ne_est, False, None)
+                best = None
+                beta = b0
+                n_grid = 7 if coarse else 11
+                for L_try in np.geomspace(1e-5, 1.0, n_grid):  # cm
+                    resid_g, _, bounds_g = self._residual_fn(X, groups, ne_est, False, float(L_try))
+                    out = self._lsq(resid_g, beta, bounds_g, coarse=True)
+                    if out is None:
+                        continue
+                    chi_g, beta = out
+                    if best is None or chi_g < best[0]:
+                        best = (chi_g, beta.copy(), float(L_try))
+                if best is None:
+                    raise PhysicsError("the self-absorbed Saha–Boltzmann fit found no solution",
+                                       where=f"{self.where}: self-absorption correction",
+                                       fix="use weaker lines, or set self_absorption = 'detect'")
+                resid, _, bounds = self._residual_fn(X, groups, ne_est, True, None)
+                th0 = np.concatenate([best[1], [math.log(best[2])]])
+                out = self._lsq(resid, th0, bounds, coarse)
+                chi2, th = out if out is not None and out[0] <= best[0] else (best[0], th0)
+                L_cm = math.exp(th[-1])
+                beta = th[:-1]
+            else:
+                resid, _, bounds = self._residual_fn(X, groups, ne_est, False, length_cm)
+                cands = [b0] + [self.initial_beta(T0, ne_est, X, np.log(self.L.intensity) + self.model.y0
+                                                  - self.ln_zeta) for T0 in (s.t_start_k, 0.75 * s.t_start_k,
+                                                                              1.35 * s.t_start_k)]
+                best = None
+                for c in cands[: 2 if coarse else None]:
+                    out = self._lsq(resid, c, bounds, coarse)
+                    if out is not None and (best is None or out[0] < best[0]):
+                        best = out
+                    # a start that fits within the noise (χ²/ν ≤ 2) needs no other start
+                    if best is not None and best[0] <= 2.0 * max(self.L.n - X.shape[1], 1):
+                        break
+                if best is None:
+                    raise PhysicsError("the self-absorbed Saha–Boltzmann fit found no solution",
+                                       where=f"{self.where}: self-absorption correction",
+                                       fix="check the plasma length or use weaker lines")
+                chi2, beta = best
+            sa_new = np.maximum(self.sa_of_beta(beta, L_cm, ne_est, groups)[0], 1e-300)
+            step = float(np.max(np.abs(np.log(sa_new) - np.log(sa))))
+            sa = sa_new
+            if step < 1e-4 or ne_est is None:  # nₑ from the Saha balance does not depend on SA
+                break
+        ne_name, ne_est = ne_pick(sa)
+        sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
+        _, tau = self.sa_cog(sol, L_cm, sa)
+        return sa, sol, tau, ne_name, ne_est, L_cm, chi2
+
+    def selfabs_corrected(self, length_cm, ne_pick, fit_length: bool):
+        """:meth:`nls_selfabs`, removing the thickest line while any SA < sa_min_factor."""
+        while True:
+            out = self.nls_selfabs(length_cm, ne_pick, fit_length)
+            sa = out[0]
+            if np.any(sa < self.s.sa_min_factor) and self.L.n > 2:
+                # hopeless lines (SA < sa_min/3) go at once; near the limit, the worst one only
+                worst = sa < self.s.sa_min_factor / 3.0
+                if not np.any(worst) or np.all(worst):
+                    worst = np.zeros(self.L.n, bool)
+                    worst[int(np.argmin(sa))] = True
+                self.sa = np.ones(self.L.n)
+                self.drop_lines(worst, f"too optically thick (SA < {self.s.sa_min_factor})")
+                continue
+            return out
+
     def run(self, mc_draws, seed) -> CFResult:
         s = self.s
 
@@ -304,27 +517,30 @@ class _Analysis:
         self._T_guess = s.t_start_k
         # first pass without self-absorption correction
         ne_name, ne_est = ne_pick(None)
-        sol = self.solve_central(self.sa, ne_name, ne_est)
-        for _ in range(3):  # T-dependence of the width estimators (Doppler part) is weak
-            self._T_guess = float(sol.T[0])
-            ne_name, ne_est = ne_pick(None)
+        try:
             sol = self.solve_central(self.sa, ne_name, ne_est)
+            for _ in range(3):  # T-dependence of the width estimators (Doppler part) is weak
+                self._T_guess = float(sol.T[0])
+                ne_name, ne_est = ne_pick(None)
+                sol = self.solve_central(self.sa, ne_name, ne_est)
+        except PhysicsError:
+            if s.self_absorption not in ("curve_of_growth", "columnar"):
+                raise
+            sol = None  # strongly self-absorbed: the corrected fit below starts without it
         tau = None
         length_cm = None
         mode = s.self_absorption
         if mode == "curve_of_growth":
             length_cm = s.plasma_length_mm / 10.0
-            self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
+            self.sa, sol, tau, ne_name, ne_est, _, _ = self.selfabs_corrected(length_cm, ne_pick, False)
             self.sa_info.update(plasma_length_mm=s.plasma_length_mm, fitted=False)
-        elif mode in ("columnar", "detect"):
-            length_cm, chi_thin, chi_best = self.fit_length(ne_pick, coarse=mode == "detect")
+        elif mode == "columnar":
+            chi_thin = float(sol.fit.chi2[0]) if sol is not None else float("inf")
+            self.sa, sol, tau, ne_name, ne_est, length_cm, chi = self.selfabs_corrected(None, ne_pick, True)
             self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
-                                chi2_thin=chi_thin, chi2_fitted=chi_best)
-            if mode == "columnar":
-                self.sa, sol, tau, ne_name, ne_est = self.iterate_cog(length_cm, ne_pick, allow_drop=True)
-            else:
-                sa_d, sol_d, tau, *_ = self.iterate_cog(length_cm, ne_pick, max_iter=15, tol=1e-3)
-                self.sa_detect_cog = sa_d
+                                chi2_thin=chi_thin, chi2_fitted=chi)
+        elif mode == "detect":
+            self.detect_linear_cog(sol)
         elif mode == "reference_line":
             self.sa, sol, ne_name, ne_est = self.reference_line(sol, ne_pick)
         self._T_guess = float(sol.T[0])
@@ -394,36 +610,62 @@ class _Analysis:
 
     # -- detection -----------------------------------------------------------------------
     def detection(self, sol):
-        """Per-line SA estimates that do not change the result (docs: detection)."""
+        """Per-line SA estimates that do not change the result, each with a standard
+        uncertainty so that only significant departures are flagged (docs: detection).
+
+        * ``sa_ratio``: intensity ratio to the species' most nearly thin line (smallest
+          λ³ g_k A_ki e^{−E_i/kT} among lines measured to ≤ 10 %) over the optically thin
+          ratio at the fitted T (Sun & Yu 2009); u from both lines' ordinate u;
+        * ``sa_width``: El Sherbini et al. 2005 from the Stark width expected at nₑ (only when
+          nₑ came from another method); u from the width and Stark-parameter accuracy;
+        * ``sa_cog``: curve of growth at the plasma length of :meth:`detect_linear_cog`, only
+          when that length is significant (> 2u).
+        """
         L = self.L
         T = float(sol.T[0])
         ne = float(sol.ne[0])
-        out = {"sa_ratio": np.full(L.n, np.nan), "sa_width": np.full(L.n, np.nan),
-               "sa_cog": np.full(L.n, np.nan), "ref_line": [""] * L.n}
+        nan = np.full(L.n, np.nan)
+        out = {"sa_ratio": nan.copy(), "u_sa_ratio": nan.copy(), "sa_width": nan.copy(),
+               "u_sa_width": nan.copy(), "sa_cog": nan.copy(), "u_sa_cog": np.zeros(L.n),
+               "ref_line": [""] * L.n}
         corrected_i = L.intensity / self.sa / np.exp(self.ln_zeta)
         proxy = L.wl**3 * L.gA * np.exp(-L.ei / (K_B_EV * T))
+        rel_i = np.where(L.intensity > 0, L.u_intensity / L.intensity, np.inf)
         for sp in sorted(set(L.species)):
             idx = np.flatnonzero(L.species == sp)
             if len(idx) < 2:
                 continue
-            r = int(np.argmin(proxy[idx]))
+            good = idx[rel_i[idx] <= 0.1]
+            pool = good if len(good) else idx
+            ref = pool[int(np.argmin(proxy[pool]))]
+            r = int(np.flatnonzero(idx == ref)[0])
             out["sa_ratio"][idx] = sa_reference_line(corrected_i[idx], L.wl[idx], L.gA[idx], L.ek[idx], r, T)
+            out["u_sa_ratio"][idx] = out["sa_ratio"][idx] * np.sqrt(self.u_y[idx] ** 2 + self.u_y[ref] ** 2)
+            out["u_sa_ratio"][ref] = 0.0
             for i in idx:
-                out["ref_line"][i] = str(L.line_id[idx[r]])
+                out["ref_line"][i] = str(L.line_id[ref])
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.fwhm) & (L.fwhm > 0)
         if np.any(have) and self.ne_name not in ("stark",):
             t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
-            w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent)
+            w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent,
+                                          L.stark_p)
             wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(L.wl, T, self.mass_line) ** 2)
-            with np.errstate(invalid="ignore"):
+            with np.errstate(invalid="ignore", divide="ignore"):
                 w_obs_l = lorentz_from_voigt(L.fwhm, wg)
                 est = sa_from_width(np.maximum(w_obs_l, 1e-12), w_thin_l)
-            out["sa_width"] = np.where(have & (w_obs_l > 0), est, np.nan)
+            ok = have & (w_obs_l > 0)
+            out["sa_width"] = np.where(ok, est, np.nan)
+            u_ln_ne = self.ne_est.u_ln(np.array([T])) if self.ne_est is not None else (
+                float(sol.u_ln_ne_fit[0]) if sol.u_ln_ne_fit is not None else 0.0)
+            u_ln_w = math.sqrt(self.s.u_rel_fwhm**2 + self.s.stark_param_u_rel**2 + u_ln_ne**2)
+            out["u_sa_width"] = np.where(ok, est * u_ln_w / abs(EL_SHERBINI_ALPHA), np.nan)
         cog = getattr(self, "sa_detect_cog", None)
-        if self.s.self_absorption in ("curve_of_growth", "columnar"):
+        if cog is not None:
+            out["u_sa_cog"] = np.asarray(self.sa_detect_cog_u, dtype=float)
+        if self.s.self_absorption in ("curve_of_growth", "columnar", "reference_line"):
             cog = self.sa
         if cog is not None:
-            out["sa_cog"] = cog
+            out["sa_cog"] = np.asarray(cog, dtype=float)
         return out
 
     # -- Monte Carlo -------------------------------------------------------------------
@@ -434,6 +676,8 @@ class _Analysis:
         I_d = L.intensity[None, :] + L.u_intensity[None, :] * eps
         I_d = np.maximum(I_d, 1e-3 * L.intensity[None, :])
         dln_a = L.u_ln_a[None, :] * rng.standard_normal((n, L.n))
+        if not self.s.mc_include_aki:
+            dln_a = np.zeros_like(dln_a)
         birge = float(self.sol.fit.birge[0]) if self.sol.fit.dof > 0 else float("nan")
         extra = 0.0
         if self.s.scale_by_chi2 and np.isfinite(birge) and birge > 1:
@@ -458,7 +702,7 @@ class _Analysis:
             u_ln_ne_c = float(sol.u_ln_ne_fit[0])
         else:
             u_ln_ne_c = float(self.ne_est.u_ln(np.array([T])))
-        mc = {"draws": int(mc_draws), "seed": int(seed)}
+        mc = {"draws": int(mc_draws), "seed": int(seed), "aki_perturbed": bool(s.mc_include_aki)}
         u_w = np.full(len(sol.elements), np.nan)
         u_x = np.full(len(sol.elements), np.nan)
         u_T, u_ne = u_T_fit, ne * u_ln_ne_c
@@ -502,7 +746,7 @@ class _Analysis:
         # fit quality
         fit = sol.fit
         chi2, dof = float(fit.chi2[0]), fit.dof
-        p = float(stats.chi2.sf(chi2, dof)) if dof > 0 else float("nan")
+        p = float(chdtrc(dof, chi2)) if dof > 0 else float("nan")  # χ² survival function
         if dof > 0 and p < 1e-3:
             self.flags.append("cf_fit_poor")
         det = self.detection(sol)
@@ -582,13 +826,21 @@ class _Analysis:
     def _line_rows(self, sol, det):
         L = self.L
         X, y = sol.X, sol.y[0]
-        yfit = X @ sol.fit.beta[0]
+        beta = sol.fit.beta[0]
+        yfit = X @ beta
+        if sol.ne_from_fit and self.s.fit == "saha-boltzmann":
+            # report the Saha–Boltzmann ordinate y* (ion rows with the fitted ln nₑ put back)
+            y = y - X[:, -1] * beta[-1]
+            yfit = X[:, :-1] @ beta[:-1]
         rows = []
         for i in range(L.n):
             fl = []
-            sa_est = [v for v in (det["sa_cog"][i], det["sa_ratio"][i], det["sa_width"][i]) if np.isfinite(v)]
-            if self.sa[i] < self.s.sa_flag_below or (sa_est and min(sa_est) < self.s.sa_flag_below
-                                                     and self.s.self_absorption in ("detect", "none")):
+            lim = self.s.sa_flag_below
+            significant = [v for v, u in ((det["sa_cog"][i], det["u_sa_cog"][i]),
+                                          (det["sa_ratio"][i], det["u_sa_ratio"][i]),
+                                          (det["sa_width"][i], det["u_sa_width"][i]))
+                           if np.isfinite(v) and v < lim and (1.0 - v) > 2.0 * (u if np.isfinite(u) else 0.0)]
+            if self.sa[i] < lim or (significant and self.s.self_absorption in ("detect", "none")):
                 fl.append("self_absorbed")
             if self.sa[i] <= self.s.sa_min_factor + 1e-12:
                 fl.append("sa_correction_capped")
@@ -604,7 +856,8 @@ class _Analysis:
                 "one_point_factor": float(math.exp(self.ln_zeta[i])),
                 "tau0": None if self.tau is None else float(self.tau[i]),
                 "sa_cog": float(det["sa_cog"][i]), "sa_ratio": float(det["sa_ratio"][i]),
-                "sa_width": float(det["sa_width"][i]), "reference_line": det["ref_line"][i],
+                "u_sa_ratio": float(det["u_sa_ratio"][i]), "sa_width": float(det["sa_width"][i]),
+                "u_sa_width": float(det["u_sa_width"][i]), "reference_line": det["ref_line"][i],
                 "flags": fl,
             })
         return rows

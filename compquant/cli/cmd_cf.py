@@ -1,0 +1,191 @@
+"""``compquant cf RUN --method FILE -o cf.csv [--plots DIR]``: calibration-free analysis."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import warnings
+from pathlib import Path
+
+import click
+
+from compquant.errors import ConfigError, OutputError, StandardsError
+from compquant.fileio import atomic_write, require_file, safe_filename
+
+NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) homogeneous plasma "
+        "and the atomic data; read the flags. Safety: LIBS uses Class 4 lasers (eye and skin hazard: "
+        "eyewear of the right optical density, interlocks, a controlled area); ablation fumes and "
+        "particles may be toxic (Pb, Cd, Be): use fume extraction; plasmas emit UV. Follow local "
+        "regulations and your laser safety officer.")
+
+_UNIT = {"%": 1e-2, "mg/kg": 1e-6, "g/g": 1.0}
+
+
+def _certified(path: Path, standard_id: str) -> dict[str, float]:
+    """Certified mass fractions of one standard from a standards CSV (architecture contract)."""
+    try:
+        from compquant.calibrate import load_standards  # the owner's validated loader
+    except ImportError:
+        load_standards = None
+    if load_standards is not None:
+        tab = load_standards(path)
+        rows = tab[tab["standard_id"].astype(str) == standard_id]
+        if rows.empty:
+            raise StandardsError(f"standard {standard_id!r} not in the standards file", where=str(path),
+                                 fix="check [cf] one_point_standard and the run's standard_ref")
+        col = "mass_fraction_gg" if "mass_fraction_gg" in rows.columns else "mass_fraction"
+        unit = rows["unit"] if "unit" in rows.columns and col == "mass_fraction" else None
+        return {str(r["element"]): float(r[col]) * (_UNIT.get(str(unit.loc[i]), 1.0) if unit is not None else 1.0)
+                for i, r in rows.iterrows()}
+    p = require_file(path, "standards file")
+    out = {}
+    with open(p, newline="", encoding="utf-8") as fh:
+        for n, row in enumerate(csv.DictReader(fh), start=2):
+            if str(row.get("standard_id", "")).strip() != standard_id:
+                continue
+            unit = str(row.get("unit", "")).strip()
+            try:
+                v = float(row["mass_fraction"]) * _UNIT[unit]
+            except (KeyError, ValueError) as exc:
+                raise StandardsError("mass_fraction / unit not readable", where=f"{p}, line {n}",
+                                     fix="unit must be %, mg/kg or g/g and mass_fraction a number") from exc
+            if not (math.isfinite(v) and 0 < v <= 1):
+                raise StandardsError("mass fraction outside (0, 1] g/g", where=f"{p}, line {n}",
+                                     fix="check the value and its unit")
+            out[str(row["element"]).strip()] = v
+    if not out:
+        raise StandardsError(f"standard {standard_id!r} not in the standards file", where=str(p),
+                             fix="check [cf] one_point_standard and the run's standard_ref")
+    return out
+
+
+def _write_csv(df, path: Path) -> None:
+    try:
+        with atomic_write(path, "w", newline="") as fh:
+            df.to_csv(fh, index=False, float_format="%.8g")
+    except OSError as exc:
+        raise OutputError(f"cannot write ({exc.strerror})", where=str(path),
+                          fix="choose a writable output path") from exc
+
+
+def _screen(results) -> str:
+    cols = ("sample", "species", "lines", "T/K", "ne/cm-3", "ne method", "w/%", "U/%", "flags")
+    rows = [cols]
+    for r in results:
+        for row in r.summary_table().itertuples(index=False):
+            rows.append((str(row.sample_id), row.species, str(row.n_lines), f"{row.T_K:.0f}±{row.u_T_K:.0f}",
+                         f"{row.ne_cm3:.2e}", row.ne_method,
+                         "n.d." if not math.isfinite(row.mass_fraction) else f"{100 * row.mass_fraction:.3f}",
+                         "-" if not math.isfinite(row.U) else f"{100 * row.U:.3f}", row.flags or "-"))
+    w = [max(len(x[i]) for x in rows) for i in range(len(cols))]
+    return "\n".join("  ".join(c.ljust(w[i]) for i, c in enumerate(row)) for row in rows)
+
+
+@click.command("cf", epilog=NOTE)
+@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False),
+              help="Method file (TOML) with [[lines]] and an optional [cf] table.")
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="Summary CSV: sample, species, lines used, T, nₑ, mass fraction, U (k=2), flags. "
+                   "Also writes <stem>-results.csv (results table) and <stem>.json (full results).")
+@click.option("--plots", "plots_dir", type=click.Path(file_okay=False), default=None,
+              help="Folder for PNG Boltzmann and Saha–Boltzmann plots (one pair per sample).")
+@click.option("--samples", default=None, help="Comma-separated sample ids [default: unknowns and checks].")
+@click.option("--draws", type=int, default=None, help="Monte Carlo draws [method [cf] mc_draws, 300].")
+@click.option("--seed", type=int, default=None, help="Monte Carlo seed [method [cf] seed].")
+@click.option("--quiet", is_flag=True, help="No table on screen.")
+def command(run_path, method_path, output, plots_dir, samples, draws, seed, quiet):
+    """Calibration-free composition of the samples of RUN: line intensities are measured as the
+    method says, then a joint Saha–Boltzmann fit gives the plasma temperature, the electron density
+    comes from H-alpha, Stark widths or the Saha balance, LTE criteria are checked, self-absorption
+    is detected (and corrected if [cf] asks), and closure gives mass fractions with Monte Carlo
+    uncertainty (U = 2u). One-point calibration with a certified standard when [cf] names one."""
+    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table
+    from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
+    from compquant.errors import CompquantError
+    from compquant.lines import measure_run
+    from compquant.method import load_method
+    from compquant.run import Run
+
+    method = load_method(method_path)
+    settings = CFSettings.from_section(method.sections.get("cf"), where=f"{method.where}: [cf]")
+    if draws is not None and draws < 0:
+        raise ConfigError("--draws must be ≥ 0", where="--draws", fix="e.g. --draws 300")
+    with Run.open(run_path) as run:
+        lm = measure_run(run, method)
+        acquisition, instrument = dict(run.acquisition or {}), dict(run.instrument or {})
+        sample_table = run.samples.copy()
+        run_sha = run.sha256()
+    table = lm.table
+    known = list(dict.fromkeys(table["sample_id"].astype(str)))
+    if samples:
+        ids = [s.strip() for s in samples.split(",") if s.strip()]
+        missing = [s for s in ids if s not in known]
+        if missing:
+            raise ConfigError(f"sample(s) {', '.join(missing)} not in the run", where="--samples",
+                              fix=f"choose from {', '.join(known[:12])}")
+    else:
+        roles = dict(zip(sample_table["sample_id"].astype(str), sample_table["role"].astype(str)))
+        ids = [s for s in known if roles.get(s) in ("unknown", "check")]
+    one_point = None
+    if settings.one_point_standard:
+        sid = settings.one_point_standard
+        if sid not in known:
+            raise ConfigError(f"one-point standard {sid!r} is not a sample of the run",
+                              where=f"{method.where}: [cf] one_point_standard", fix="use a sample id of the run")
+        if not settings.standards_file:
+            raise ConfigError("one-point calibration needs [cf] standards_file",
+                              where=f"{method.where}: [cf]", fix="give the certified-standards CSV")
+        ref = sample_table.set_index(sample_table["sample_id"].astype(str)).loc[sid].get("standard_ref") or sid
+        cert = _certified(method.resolve_path(settings.standards_file), str(ref))
+        one_point = one_point_calibration(table, cert, sample_id=sid, settings=settings,
+                                          acquisition=acquisition, instrument=instrument)
+    results, failures = [], {}
+    for sid in ids:
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
+                                          instrument=instrument, one_point=one_point, mc_draws=draws,
+                                          seed=seed))
+        except CompquantError as exc:
+            failures[sid] = exc.one_line()
+    out = Path(output)
+    stem = out.with_suffix("")
+    import pandas as pd
+
+    summary = pd.concat([r.summary_table() for r in results], ignore_index=True) if results else \
+        pd.DataFrame(columns=["sample_id", "species", "n_lines", "lines", "T_K", "u_T_K", "T_species_K",
+                              "ne_cm3", "u_ne_cm3", "ne_method", "mass_fraction", "U", "flags"])
+    _write_csv(summary, out)
+    res_path = Path(f"{stem}-results.csv")
+    _write_csv(results_table(results), res_path)
+    js_path = Path(f"{stem}.json")
+    doc = {"schema": "compquant.cf-run/1", "run": str(run_path), "run_sha256": run_sha,
+           "method": method.provenance(), "results": [r.to_dict() for r in results],
+           "failures": failures, "one_point": None if one_point is None else one_point.to_dict(),
+           "note": "mass fractions in g/g; U = k·u with k = 2 (GUM)"}
+    with atomic_write(js_path) as fh:
+        json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
+    written = [str(out), str(res_path), str(js_path)]
+    if plots_dir:
+        pdir = Path(plots_dir)
+        for r in results:
+            stem_s = safe_filename(r.sample_id)
+            p1, p2 = pdir / f"boltzmann_{stem_s}.png", pdir / f"saha_boltzmann_{stem_s}.png"
+            plot_boltzmann(r, p1)
+            plot_saha_boltzmann(r, p2)
+            written += [str(p1), str(p2)]
+    if not quiet:
+        if results:
+            click.echo(_screen(results))
+        for sid, why in failures.items():
+            click.echo(f"no result for {sid}: {why}", err=True)
+        for r in results:
+            for w in r.warnings:
+                click.echo(f"note: {r.sample_id}: {w}")
+        click.echo("wrote " + ", ".join(written))
+    if failures and not results:
+        raise ConfigError("no sample gave a calibration-free result", where=str(run_path),
+                          fix="see the messages above")
