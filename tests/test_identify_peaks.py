@@ -73,6 +73,16 @@ def test_pure_noise_gives_almost_no_peaks():
     assert n_false <= 1
 
 
+def test_pure_noise_identifies_nothing():
+    """No peak in pure normal noise (tail probability above), hence no element and no unexplained peak."""
+    from compquant.identify import identify_spectrum
+
+    y = np.random.default_rng(5).normal(0, 1, 8000)
+    ident = identify_spectrum(np.linspace(250, 450, y.size), y, resolving_power=3000)
+    assert len(ident.peaks) <= 1
+    assert (ident.species["status"] == "not detected").all()
+
+
 def test_find_peaks_refuses_bad_input():
     with pytest.raises(InputError):
         find_peaks(np.arange(100.0), np.zeros(99))
