@@ -166,11 +166,27 @@ def _result_rows(results, sample_id: str) -> list[ResultRow]:
     return rows
 
 
-def _measured_when(run) -> str:
+def _measured_when(run, sample_id: str) -> str:
+    """Time of the sample's first shot: run start time + shot time, ISO 8601 UTC; else the run's date."""
     acq = run.acquisition or {}
-    for key in ("measured_utc", "start_utc", "date", "started"):
+    start = None
+    for key in ("start_time", "start_utc", "measured_utc", "date"):
         if acq.get(key):
-            return str(acq[key])
+            start = str(acq[key])
+            break
+    if start:
+        try:
+            t0 = _dt.datetime.fromisoformat(start.replace("Z", "+00:00"))
+        except ValueError:
+            return start
+        if t0.tzinfo is None:
+            t0 = t0.replace(tzinfo=_dt.timezone.utc)
+        shots = run.shots
+        if "time_s" in shots.columns:
+            ts = shots.loc[shots["sample_id"].astype(str) == sample_id, "time_s"]
+            if len(ts) and np.isfinite(ts.min()):
+                t0 = t0 + _dt.timedelta(seconds=float(ts.min()))
+        return t0.astimezone(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
     created = getattr(run, "attrs", {}).get("created")
     return str(created) if created else ""
 
@@ -234,7 +250,8 @@ def _calibration_info(cal, cal_file: str, cal_sha: str) -> CalibrationInfo:
                     sid, el, float(s["mass_fraction"]), _f(s.get("U")), _f(s.get("k")) or 2.0, str(s.get("source", ""))
                 )
             )
-    standards.sort(key=lambda v: (v.standard_id, v.element))
+    order = {el: i for i, el in enumerate(cal.curves)}
+    standards.sort(key=lambda v: (v.standard_id, order.get(v.element, len(order)), v.element))
     desc = f"{cal.basis} basis"
     if cal.matrix_element:
         desc += f"; matrix element {cal.matrix_element} by difference"
@@ -335,50 +352,74 @@ def _curve_figure(c, sample_row: ResultRow | None, matrix_w: float | None) -> by
 # ------------------------------------------------------------------------- calibration-free path
 
 
+_LTE_NAMES = {
+    "mcwhirter": "McWhirter criterion",
+    "transient": "Transient plasma (relaxation time)",
+    "inhomogeneous": "Inhomogeneous plasma (diffusion length)",
+}
+_NE_METHODS = {
+    "saha_balance": "Saha balance of neutral and ion lines",
+    "h_alpha_stark_width": "Stark width of H alpha",
+    "stark_widths": "Stark widths of the lines",
+    "fixed": "fixed value",
+}
+
+
 def _plasma_info(res) -> PlasmaInfo:
-    checks = []
-    lte = res.lte or {}
-    items = lte.get("checks") if isinstance(lte.get("checks"), list) else None
-    if items is None:
-        items = [dict(v, name=k) for k, v in lte.items() if isinstance(v, dict)]
-    for it in items:
-        passed = it.get("passed", it.get("ok", it.get("met")))
-        if passed is None:
+    """Plasma conditions of a :class:`compquant.cflibs.result.CFResult` (U = 2u)."""
+    checks, unchecked = [], []
+    for it in (res.lte or {}).get("checks", []):
+        name = _LTE_NAMES.get(str(it.get("name")), str(it.get("name")))
+        if not it.get("checked") or it.get("passed") is None:
+            unchecked.append(f"{name}: not checked ({it.get('note', '')})")
             continue
         checks.append(
             LTECheck(
-                str(it.get("name", "LTE check")),
-                str(it.get("criterion", it.get("description", ""))),
+                name,
+                str(it.get("note", "")),
                 _f(it.get("value")),
-                _f(it.get("limit", it.get("required"))),
-                str(it.get("unit", "")),
-                bool(passed),
+                _f(it.get("limit")),
+                str(it.get("unit", "")).replace("cm-3", "cm⁻³"),
+                bool(it.get("passed")),
             )
         )
+    u_t, u_ne = _f(res.u_temperature_k), _f(res.u_electron_density_cm3)
+    method = f"T from the {res.fit_mode} plot; nₑ from the {_NE_METHODS.get(str(res.ne_method), str(res.ne_method))}"
+    if unchecked:
+        method += "; " + "; ".join(unchecked)
     return PlasmaInfo(
         float(res.temperature_k),
-        _f(2 * res.u_temperature_k) if _f(res.u_temperature_k) else None,
+        2 * u_t if u_t else None,
         _f(res.electron_density_cm3),
-        _f(2 * res.u_electron_density_cm3) if _f(res.u_electron_density_cm3) else None,
-        f"temperature from the {res.fit_mode} fit; electron density: {res.ne_method}",
+        2 * u_ne if u_ne else None,
+        method,
         checks,
     )
 
 
 def _boltzmann_figure(res) -> bytes | None:
+    """(Saha-)Boltzmann plot of the lines used, with the fitted values."""
     from compquant.report.figures import boltzmann_png
 
-    pts = [ln for ln in (res.lines or []) if _f(ln.get("ek_ev")) is not None and _f(ln.get("y")) is not None]
+    pts = [ln for ln in (res.lines or []) if _f(ln.get("x_ev")) is not None and _f(ln.get("y")) is not None]
     if len(pts) < 2:
         return None
-    E = np.array([float(p["ek_ev"]) for p in pts])
+    E = np.array([float(p["x_ev"]) for p in pts])
     Y = np.array([float(p["y"]) for p in pts])
+    yfit = np.array([_f(p.get("y_fit")) if _f(p.get("y_fit")) is not None else np.nan for p in pts])
+    yerr = np.array([_f(p.get("u_ordinate")) or 0.0 for p in pts])
     sp = [str(p.get("species", "lines")) for p in pts]
-    fits = {}
-    for s in res.species or []:
-        if _f(s.get("slope")) is not None and _f(s.get("intercept")) is not None:
-            fits[str(s["species"])] = (float(s["slope"]), float(s["intercept"]))
-    return boltzmann_png(E, Y, sp, fits=fits or None, title=f"Boltzmann plot, T = {res.temperature_k:.0f} K")
+    saha = str(res.fit_mode) == "saha-boltzmann"
+    return boltzmann_png(
+        E,
+        Y,
+        sp,
+        fit_y=yfit,
+        yerr=yerr,
+        title=f"{'Saha-' if saha else ''}Boltzmann plot, T = {res.temperature_k:.0f} K",
+        xlabel="upper level energy (eV)" + (", ions shifted by the ionisation energy" if saha else ""),
+        ylabel="ln(I·λ / (g_k·A_ki))" + (" (ions Saha-corrected)" if saha else ""),
+    )
 
 
 # ------------------------------------------------------------------------- the flow
@@ -470,7 +511,7 @@ def analyse(
         tick("measure", total, total)
         instrument = dict(run.instrument or {})
         acquisition = dict(run.acquisition or {})
-        measured = _measured_when(run)
+        measured = {str(sid): _measured_when(run, str(sid)) for sid in samples["sample_id"]}
         technique = _technique(method, run)
         n_shots_by_sample = dict(zip(samples["sample_id"].astype(str), samples["n_shots"].astype(int)))
         mean_spec = dict(getattr(meas, "mean_spectra", {}) or {})
@@ -596,6 +637,7 @@ def analyse(
 
     certs: list[Certificate] = []
     outputs: list[CertificateOutput] = []
+    skipped: list[str] = []
     for i, sid in enumerate(unknowns):
         tick("certificates", i, len(unknowns))
         rows = _result_rows(results, sid)
@@ -619,10 +661,11 @@ def analyse(
             if str(nr.get("sample_id")) == sid:
                 remarks.append(f"{nr.get('element')} not reported: {nr.get('reason')}")
         blocks = list(run_blocks)
-        if sid in failures:
-            blocks.append(f"calibration-free analysis failed: {failures[sid]}")
-        if not rows and not blocks:
-            blocks.append("no element could be quantified for this sample")
+        if not rows:
+            # nothing to certify: no certificate, the reason goes to the summary and the terminal
+            failures.setdefault(sid, "no element could be quantified for this sample")
+            skipped.append(sid)
+            continue
         number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date)
         stem = safe_filename(sid)
         figs = []
@@ -654,7 +697,7 @@ def analyse(
                 descriptions.get(sid, ""),
                 labp.sample_condition,
                 received if received else labp.sample_received,
-                measured,
+                measured.get(sid, ""),
                 n_shots_by_sample.get(sid),
                 run_path.name,
             ),
@@ -745,6 +788,7 @@ def analyse(
         "lims_csv": lims_path.name,
         "not_reported": [{k: str(v) for k, v in d.items()} for d in not_reported],
         "failures": {str(k): str(v) for k, v in failures.items()},
+        "not_certified": skipped,
     }
     summary_path = outdir / "summary.json"
     write_text_atomic(summary_path, canonical_json(summary))

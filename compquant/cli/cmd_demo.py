@@ -19,10 +19,19 @@ def _roots() -> list[Path]:
     return out
 
 
-def find_demo_files() -> dict[str, Path]:
-    """Locate the demo run, method, standards, lab profile and specification.
+DEMO_SCENARIO = "scenario-day1.toml"  # calibration day: standards, blank, setup, check, unknowns
+DEMO_RUN = "demo-day1.h5"
+DEMO_SEED = 1  # as in demo_runs/regenerate.sh
+DEMO_METHOD = "method-copper-alloys.toml"
+DEMO_STANDARDS = "demo-copper-alloys.csv"
 
-    Looks in ``./demo_runs`` and in ``demo_runs`` beside the package source tree.
+
+def find_demo_files() -> dict[str, Path | None]:
+    """Locate the demo run (or its scenario), method, standards, lab profile and specification.
+
+    Looks in ``./demo_runs`` and in ``demo_runs`` beside the package source tree; standards in
+    ``standards/`` beside it.  ``run`` is None when only the scenario is shipped (then
+    ``compquant demo`` simulates the run first).
     """
     tried = []
     for root in _roots():
@@ -30,20 +39,19 @@ def find_demo_files() -> dict[str, Path]:
         tried.append(str(d))
         if not d.is_dir():
             continue
-        runs = sorted(d.glob("*.h5"))
-        methods = sorted(p for p in d.glob("*.toml") if "method" in p.name)
-        specs = sorted(d.glob("spec-*.toml"))
-        lab = d / "lab.toml"
-        stds = sorted((root / "standards").glob("demo-*.csv")) + sorted(d.glob("*standards*.csv"))
-        preferred = [p for p in runs if "day1" in p.name]  # the calibration-day run holds the standards
         found = {
-            "run": (preferred or runs or [None])[0],
-            "method": (methods or [None])[0],
-            "standards": (stds or [None])[0],
-            "lab": lab if lab.is_file() else None,
-            "spec": (specs or [None])[0],
+            "run": d / DEMO_RUN if (d / DEMO_RUN).is_file() else None,
+            "scenario": d / DEMO_SCENARIO if (d / DEMO_SCENARIO).is_file() else None,
+            "method": d / DEMO_METHOD if (d / DEMO_METHOD).is_file() else None,
+            "standards": root / "standards" / DEMO_STANDARDS
+            if (root / "standards" / DEMO_STANDARDS).is_file()
+            else None,
+            "lab": d / "lab.toml" if (d / "lab.toml").is_file() else None,
+            "spec": (sorted(d.glob("spec-*.toml")) or [None])[0],
         }
-        missing = [k for k, v in found.items() if v is None]
+        missing = [k for k, v in found.items() if v is None and k not in ("run", "scenario")]
+        if found["run"] is None and found["scenario"] is None:
+            missing.insert(0, f"run ({DEMO_RUN} or {DEMO_SCENARIO})")
         if missing:
             raise InputError(
                 f"demo files missing: {', '.join(missing)}",
@@ -79,6 +87,13 @@ def command(outdir, issued_at, quiet):
     from compquant.cli.cmd_analyse import StageProgress, report_outputs
 
     f = find_demo_files()
+    if f["run"] is None:
+        from compquant.simulate import simulate_run
+
+        run = Path(outdir) / DEMO_RUN
+        click.echo(f"simulating the demo run from {f['scenario']} (seed {DEMO_SEED}) ...")
+        simulate_run(f["scenario"], run, seed=DEMO_SEED)
+        f["run"] = run
     click.echo("demo (all data, lab, standards and samples are fictional):")
     for k in ("run", "method", "standards", "lab", "spec"):
         click.echo(f"  {k:9s} {f[k]}")

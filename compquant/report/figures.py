@@ -24,9 +24,25 @@ def _new(figsize=(6.4, 3.2)):
 
 def _png(fig) -> bytes:
     buf = io.BytesIO()
-    fig.tight_layout()
-    fig.savefig(buf, format="png", dpi=_DPI, metadata={"Software": None})
+    # fixed margins (tight_layout would draw every figure twice)
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=0.75 / w, right=1 - 0.15 / w, bottom=0.5 / h, top=1 - 0.3 / h)
+    # about 160 dots per inch as printed (full-width spectrum and half-width plots alike)
+    dpi = _DPI if w > 6 else 120
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
     return buf.getvalue()
+
+
+def _envelope(x, y, n_bins: int = 1500):
+    """Min/max envelope of a long trace (keeps every peak at figure resolution, far fewer points)."""
+    n = x.size
+    if n <= 2 * n_bins:
+        return x, y
+    starts = np.linspace(0, n, n_bins + 1).astype(int)[:-1]
+    lo = np.minimum.reduceat(y, starts)
+    hi = np.maximum.reduceat(y, starts)
+    xc = x[starts]
+    return np.repeat(xc, 2), np.column_stack([lo, hi]).ravel()
 
 
 def spectrum_png(
@@ -50,23 +66,31 @@ def spectrum_png(
     if wl.ndim != 1 or wl.shape != y.shape:
         raise ValueError("wavelength and intensity must be 1-D arrays of equal length")
     fig, ax = _new((6.8, 3.0))
-    ax.plot(wl, y, lw=0.6, color="#1f3b73")
+    xw, yw = _envelope(wl, y)
+    ax.plot(xw, yw, lw=0.6, color="#1f3b73")
     lines = list(lines)
     top = np.nanmax(y) if y.size else 1.0
-    for i, (label, w) in enumerate(lines):
-        ax.axvline(float(w), color="#b03a2e", lw=0.6, ls="--", alpha=0.8)
-        if i < max_labels:
-            ax.annotate(
-                str(label),
-                (float(w), top),
-                xytext=(2, -2),
-                textcoords="offset points",
-                rotation=90,
-                va="top",
-                ha="left",
-                fontsize=5.5,
-                color="#b03a2e",
-            )
+    span = float(wl[-1] - wl[0]) if wl.size > 1 else 1.0
+    last_w, level = None, 0
+    for i, (label, w) in enumerate(sorted(lines, key=lambda t: float(t[1]))):
+        w = float(w)
+        ax.axvline(w, color="#b03a2e", lw=0.6, ls="--", alpha=0.8)
+        if i >= max_labels:
+            continue
+        # labels of lines closer than 2 % of the axis are stepped down so they do not overlap
+        level = level + 1 if last_w is not None and w - last_w < 0.02 * span else 0
+        last_w = w
+        ax.annotate(
+            str(label),
+            (w, top),
+            xytext=(2, -2 - 48 * (level % 3)),
+            textcoords="offset points",
+            rotation=90,
+            va="top",
+            ha="left",
+            fontsize=5.5,
+            color="#b03a2e",
+        )
     ax.set_xlabel("wavelength (nm)")
     ax.set_ylabel(ylabel)
     if title:
@@ -150,13 +174,16 @@ def boltzmann_png(
     species=None,
     *,
     fits=None,
+    fit_y=None,
     yerr=None,
     title: str = "",
+    xlabel: str = "upper level energy E_k (eV)",
     ylabel: str = "ln(I·λ / (g_k·A_ki))",
 ) -> bytes:
     """Boltzmann plot: ``ln(I λ / (g_k A_ki))`` against upper-level energy, one colour per species.
 
-    ``fits`` maps a species name to ``(slope_per_eV, intercept)``; the plasma temperature is
+    ``fits`` maps a species name to ``(slope_per_eV, intercept)``, or ``fit_y`` gives the fitted
+    ordinate of every point (joined per species); the plasma temperature is
     ``T = -1 / (k_B · slope)`` with ``k_B`` in eV/K (architecture contract: energy-unit intensities).
     """
     E = np.asarray(upper_energy_eV, dtype=float)
@@ -184,7 +211,12 @@ def boltzmann_png(
             slope, icpt = fits[name]
             xx = np.linspace(E[m].min(), E[m].max(), 2)
             ax.plot(xx, slope * xx + icpt, "-", color=c, lw=1)
-    ax.set_xlabel("upper level energy E_k (eV)")
+        if fit_y is not None:
+            fy = np.asarray(fit_y, dtype=float)[m]
+            order = np.argsort(E[m])
+            ok = np.isfinite(fy[order])
+            ax.plot(E[m][order][ok], fy[order][ok], "-", color=c, lw=1)
+    ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     if title:
         ax.set_title(title, fontsize=9)

@@ -189,6 +189,45 @@ def _fmt_2dp(x) -> str:
     return f"{x:.2f}" if finite(x) else ""
 
 
+def _standards_tables(standards, P, E, frame_w, table_style, per_table: int = 7) -> list:
+    """Certified values as a matrix: one row per standard, one column per element (value over ± U)."""
+    from reportlab.platypus import Table
+
+    elements = list(dict.fromkeys(sv.element for sv in standards))
+    ids = list(dict.fromkeys(sv.standard_id for sv in standards))
+    by = {(sv.standard_id, sv.element): sv for sv in standards}
+    units = {}
+    for el in elements:
+        vals = [sv.mass_fraction for sv in standards if sv.element == el and finite(sv.mass_fraction)]
+        units[el] = choose_unit(max(vals) if vals else None)
+    out = []
+    for k in range(0, len(elements), per_table):
+        els = elements[k : k + per_table]
+        data = [[P("Standard", "cellb")] + [P(E(f"{el} ({units[el]})"), "cellb") for el in els]]
+        for sid in ids:
+            row = [P(E(sid), "cell")]
+            for el in els:
+                sv = by.get((sid, el))
+                if sv is None:
+                    row.append(P("–", "cellr"))
+                    continue
+                v, u, _ = _fmt_mf(sv.mass_fraction, sv.U, units[el])
+                row.append(P(E(v) + (f"<br/><font size=6.6>± {E(u)}</font>" if u else ""), "cellr"))
+            data.append(row)
+        first = frame_w * 0.16
+        t = Table(data, colWidths=[first] + [(frame_w - first) / len(els)] * len(els), repeatRows=1)
+        t.setStyle(table_style)
+        out.append(t)
+    ks = sorted({f"{sv.k:g}" for sv in standards if finite(sv.k)})
+    srcs = sorted({sv.source for sv in standards if sv.source})
+    note = "Certified value, with its expanded uncertainty U below" + (f" (k = {', '.join(ks)})" if ks else "")
+    note += "."
+    if srcs:
+        note += " Source: " + "; ".join(srcs) + "."
+    out.append(P(E(note), "small"))
+    return out
+
+
 def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     """Render the certificate; return ``(pdf_bytes, n_pages)``."""
     from reportlab.lib import colors
@@ -237,23 +276,23 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
         )
         return t
 
+    grid_style = TableStyle(
+        [
+            ("VALIGN", (0, 0), (-1, -1), "TOP"),
+            ("BACKGROUND", (0, 0), (-1, 0), head_bg),
+            ("GRID", (0, 0), (-1, -1), 0.3, grid),
+            ("TOPPADDING", (0, 0), (-1, -1), 1.6),
+            ("BOTTOMPADDING", (0, 0), (-1, -1), 1.8),
+        ]
+    )
+
     def grid_table(header, rows, widths, right_cols=()):
         data = [[P(E(h), "cellb") for h in header]]
         for r in rows:
             data.append([P(E(c), "cellr" if i in right_cols else "cell") for i, c in enumerate(r)])
         tot = sum(widths)
         t = Table(data, colWidths=[w * frame_w / tot for w in widths], repeatRows=1)
-        t.setStyle(
-            TableStyle(
-                [
-                    ("VALIGN", (0, 0), (-1, -1), "TOP"),
-                    ("BACKGROUND", (0, 0), (-1, 0), head_bg),
-                    ("GRID", (0, 0), (-1, -1), 0.3, grid),
-                    ("TOPPADDING", (0, 0), (-1, -1), 1.6),
-                    ("BOTTOMPADDING", (0, 0), (-1, -1), 1.8),
-                ]
-            )
-        )
+        t.setStyle(grid_style)
         return t
 
     def txt_or(v, default="not recorded"):
@@ -465,7 +504,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
         if d.factors:
             dtxt += "<br/>Factors: " + E(", ".join(f"{k} {v:.4f}" for k, v in d.factors.items()))
     else:
-        dtxt = "Not applied. " + E(d.description) if d.description else "Not applied."
+        dtxt = "Not applied." + (" " + E(d.description[:1].upper() + d.description[1:]) if d.description else "")
     story.append(kv_table([("Drift standardisation", dtxt)]))
     story.append(P("Check samples", "h3"))
     if qc.check_samples:
@@ -505,7 +544,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                     "Result",
                 ],
                 crows,
-                [15, 13, 5, 7, 9, 7, 12, 7, 7, 7, 9],
+                [13, 12, 5, 7, 8, 7, 9, 7, 7, 7, 8],
                 right_cols=(4, 5, 6, 7, 8, 9),
             )
         )
@@ -576,28 +615,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
             )
         if cal.standards:
             story.append(P("Certified reference materials used", "h3"))
-            rows = []
-            for sv in cal.standards:
-                v, u, unit = _fmt_mf(sv.mass_fraction, sv.U)
-                rows.append(
-                    [
-                        sv.standard_id,
-                        sv.element,
-                        v,
-                        u or "–",
-                        unit,
-                        _fmt(sv.k, 2) if finite(sv.k) else "",
-                        sv.source,
-                    ]
-                )
-            story.append(
-                grid_table(
-                    ["Standard", "El.", "Certified value", "U", "Unit", "k", "Source"],
-                    rows,
-                    [18, 6, 14, 10, 8, 5, 39],
-                    right_cols=(2, 3, 5),
-                )
-            )
+            story.extend(_standards_tables(cal.standards, P, E, frame_w, grid_style))
     if cert.plasma is not None:
         pl = cert.plasma
         story.append(P(f"{sec}  Plasma conditions (calibration-free analysis)", "h2"))
@@ -655,8 +673,29 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
 
     # ---- figures ----------------------------------------------------------------------------------------
     if cert.figures:
-        story.append(P(f"{sec}  Figures", "h2"))
+        fig_head = [P(f"{sec}  Figures", "h2")]
         sec += 1
+        half = []  # small figures go two per row
+
+        def flush_half():
+            nonlocal fig_head
+            if not half:
+                return
+            cells = [[cell for cell in half] + ([""] if len(half) == 1 else [])]
+            t = Table(cells, colWidths=[frame_w / 2, frame_w / 2])
+            t.setStyle(
+                TableStyle(
+                    [
+                        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+                        ("LEFTPADDING", (0, 0), (-1, -1), 2),
+                        ("RIGHTPADDING", (0, 0), (-1, -1), 2),
+                    ]
+                )
+            )
+            story.append(KeepTogether([*fig_head, t]))
+            fig_head = []
+            half.clear()
+
         for i, fig in enumerate(cert.figures, 1):
             png = fig.png
             if png is None and fig.path:
@@ -673,11 +712,20 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                     fix="give PNG bytes or a .png file",
                 )
             img = Image(io.BytesIO(png))
-            scale = (frame_w if fig.kind == "spectrum" else frame_w * 0.62) / img.imageWidth
+            wide = fig.kind == "spectrum"
+            scale = (frame_w if wide else frame_w / 2 - 6) / img.imageWidth
             img.drawWidth = img.imageWidth * scale
             img.drawHeight = img.imageHeight * scale
-            cap = f"<b>Figure {i}.</b> {E(fig.title)}" + (f" {E(fig.caption)}" if fig.caption else "")
-            story.append(KeepTogether([img, P(cap, "caption")]))
+            cap = P(f"<b>Figure {i}.</b> {E(fig.title)}" + (f" {E(fig.caption)}" if fig.caption else ""), "caption")
+            if wide:
+                flush_half()
+                story.append(KeepTogether([*fig_head, img, cap]))
+                fig_head = []
+            else:
+                half.append([img, cap])
+                if len(half) == 2:
+                    flush_half()
+        flush_half()
 
     # ---- safety -----------------------------------------------------------------------------------------
     story.append(P(f"{sec}  Safety notes", "h2"))
@@ -702,7 +750,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
         rows = [[f.role, f.name, f.sha256] for f in pv.files]
         data = [[P("Role", "cellb"), P("File", "cellb"), P("SHA-256", "cellb")]]
         data += [[P(E(a), "cell"), P(E(b), "cell"), P(E(h), "mono")] for a, b, h in rows]
-        t = Table(data, colWidths=[frame_w * 0.16, frame_w * 0.34, frame_w * 0.50], repeatRows=1)
+        t = Table(data, colWidths=[frame_w * 0.15, frame_w * 0.30, frame_w * 0.55], repeatRows=1)
         t.setStyle(
             TableStyle(
                 [
