@@ -22,6 +22,7 @@ byte-for-byte repeatable (the certificate numbers depend on the issue date).
 from __future__ import annotations
 
 import datetime as _dt
+import hashlib
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from compquant import __version__
-from compquant.errors import CompquantError, ConfigError, InputError
+from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError
 from compquant.fileio import atomic_path, require_file, safe_filename, sha256_file, write_text_atomic
 from compquant.report import (
     CalibrationInfo,
@@ -493,6 +494,23 @@ def analyse(
         if progress is not None:
             progress(stage, done, total)
 
+    # settings owned by later steps are checked before the run is measured: fail fast, write nothing
+    cf_settings = None
+    if cf:
+        from compquant.cflibs.settings import CFSettings
+
+        cf_settings = CFSettings.from_section(method.sections.get("cf"), where=f"{method.where}: [cf]")
+    elif standards is not None:
+        from compquant.calibrate import load_standards, parse_calibration_section
+
+        load_standards(standards)
+        parse_calibration_section(method.sections.get("calibration"), source=method.where)
+    else:
+        from compquant.calibrate import Calibration
+
+        cal_file = require_file(calibration, "calibration file")
+        Calibration.load(cal_file, method_id=method.id, method_sha256=method.sha256)
+
     files = [FileRef("run", run_path.name, ""), FileRef("method", Path(method_path).name, method.sha256 or "")]
     with Run.open(run_path, memory_limit_bytes=memory_limit_bytes) as run:
         run_sha = run.sha256()
@@ -552,7 +570,7 @@ def analyse(
         cf_results, failures = analyse_cf_samples(
             table,
             sample_ids=unknowns,
-            settings=method.sections.get("cf"),
+            settings=cf_settings,
             acquisition=acquisition,
             instrument=instrument,
         )
@@ -585,8 +603,9 @@ def analyse(
             )
             cal.created_utc = issued  # the calibration is made now; keeps repeated runs identical
             cal_json_path = outdir / "calibration.json"
-            cal.save(cal_json_path)
-            cal_sha = sha256_file(cal_json_path)
+            # written with the certificates at the end: a failure before then leaves no output
+            cal_text = cal.to_json() + "\n"
+            cal_sha = hashlib.sha256(cal_text.encode("utf-8")).hexdigest()
             files.append(FileRef("calibration (written)", cal_json_path.name, cal_sha))
             tick("calibrate", 1, 1)
             cal_info = _calibration_info(cal, cal_json_path.name, cal_sha)
@@ -733,6 +752,16 @@ def analyse(
         )
     tick("certificates", len(unknowns), len(unknowns))
 
+    if not outputs:
+        # nothing to certify: an error, and no summary or LIMS file that could pass for a result
+        why = "; ".join(f"{k}: {v}" for k, v in sorted(failures.items())) or "no results"
+        raise DataQualityError(
+            f"no certificate could be issued ({why})",
+            where=str(run_path),
+            fix="see the reasons; check the method's lines and settings against the run",
+        )
+    if cal_json_path is not None:
+        write_text_atomic(cal_json_path, cal_text)
     lims_path = outdir / "lims.csv"
     write_lims_csv(certs, lims_path)
     summary = {
