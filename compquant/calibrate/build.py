@@ -269,6 +269,15 @@ def curve_from_records(
         s_blank, lod_source = blank[0], f"blank: {blank[1]}"
     else:
         s_blank, lod_source = resid_sd, "calibration residual sd (no usable blank in the run)"
+    # a zero scatter (identical blank shots and a perfect fit: copied or noise-free data) gives
+    # no detection limit at all; refuse rather than certify against LOD = 0
+    y_scale = float(np.max(np.abs(y))) if len(y) else 0.0
+    if not (np.isfinite(s_blank) and s_blank > 1e-12 * max(y_scale, 1e-300)):
+        raise CalibrationError(
+            "the blank scatter and the calibration residuals are both zero: no detection limit can be computed",
+            where=where,
+            fix="measure a blank with several shots; identical shots suggest copied or simulated noise-free data",
+        )
     lod_x, loq_x = lod_loq(s_blank, s0)
     iso = iso11843_2(x, y) if not interf else None
     ws = np.array([r.get("w", r["x"]) for r in use])
