@@ -102,8 +102,11 @@ N_PIXELS = 500
 SHOTS = 6
 
 
-def base_arrays(seed: int = 3, n_pixels: int = N_PIXELS, shots: int = SHOTS):
-    """Wavelength axis, uint16 spectra, sample table, sample index and dark frames."""
+def base_arrays(seed: int = 3, n_pixels: int = N_PIXELS, shots: int = SHOTS, zn_signal=None, noise: bool = True):
+    """Wavelength axis, uint16 spectra, sample table, sample index and dark frames.
+
+    ``zn_signal(ratio) -> factor`` replaces the Zn line strength (default: proportional to the
+    Zn/Cu ratio); ``noise=False`` gives identical shots (no shot noise, no pulse scatter)."""
     rng = np.random.default_rng(seed)
     wl = np.linspace(320.0, 340.0, n_pixels)
     sigma = 0.03
@@ -114,7 +117,7 @@ def base_arrays(seed: int = 3, n_pixels: int = N_PIXELS, shots: int = SHOTS):
     rows, idx = [], []
     for k, (_sid, _role, _ref, zn) in enumerate(SAMPLES):
         cu = 1.0 - zn
-        ratio = zn / cu
+        ratio = zn / cu if zn_signal is None else zn_signal(zn / cu)
         mean = (
             300.0
             + 9000.0 * peak(LINES["Cu I 324.754"])
@@ -123,15 +126,18 @@ def base_arrays(seed: int = 3, n_pixels: int = N_PIXELS, shots: int = SHOTS):
             + 3000.0 * ratio * peak(LINES["Zn I 334.502"])
         )
         for _ in range(shots):
-            amp = rng.normal(1.0, 0.02)
-            rows.append(rng.poisson(np.clip(200 + (mean - 200) * amp, 0, None)))
+            if noise:
+                amp = rng.normal(1.0, 0.02)
+                rows.append(rng.poisson(np.clip(200 + (mean - 200) * amp, 0, None)))
+            else:
+                rows.append(np.round(mean))
             idx.append(k)
     spectra = np.asarray(rows).astype(np.uint16)
     samples = [
         {"sample_id": sid, "role": role, "standard_ref": ref, "description": f"test sample {sid}"}
         for sid, role, ref, _ in SAMPLES
     ]
-    dark = rng.poisson(200, size=(4, n_pixels)).astype(np.uint16)
+    dark = (rng.poisson(200, size=(4, n_pixels)) if noise else np.full((4, n_pixels), 200)).astype(np.uint16)
     return wl, spectra, samples, np.asarray(idx), dark
 
 
