@@ -9,8 +9,10 @@ What it does (all seeded by this script, ``--seed``):
    homogeneous self-absorbing slab; adds noise: shot-to-shot intensity fluctuation,
    photon (Poisson-like) noise and detector read noise;
 3. writes one run per regime (:func:`compquant.run.write_run`) and sends it through the
-   **line pipeline** (:func:`compquant.lines.measure_run`: SNIP baseline, window integration
-   with side-band background) and then :func:`compquant.cflibs.analyse_cf` (Saha–Boltzmann
+   **line pipeline** (:func:`compquant.lines.measure_run`: SNIP baseline, per-shot
+   normalisation to the total area — which removes the pulse-to-pulse fluctuation common to
+   all lines, so that the line-table u are the independent part the Monte Carlo assumes —
+   and window integration with side-band background) and then :func:`compquant.cflibs.analyse_cf` (Saha–Boltzmann
    fit with nₑ from the Saha balance; self-absorbed runs with the fitted columnar density);
 4. prints every figure: per case T, nₑ, mass fractions with U (k = 2), their errors, and the
    summary: worst |ΔT/T|, |Δnₑ/nₑ|, major-element |Δw/w|, and the Monte Carlo coverage of U.
@@ -60,6 +62,8 @@ enabled = false
 [preprocess.baseline]
 method = "snip"
 max_half_window = 40
+[preprocess.normalise]
+how = "total_area"
 
 [measure]
 mode = "window"

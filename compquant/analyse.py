@@ -657,6 +657,7 @@ def analyse(
     certs: list[Certificate] = []
     outputs: list[CertificateOutput] = []
     skipped: list[str] = []
+    used_stems: set[str] = set()
     for i, sid in enumerate(unknowns):
         tick("certificates", i, len(unknowns))
         rows = _result_rows(results, sid)
@@ -671,7 +672,7 @@ def analyse(
                         U=2.0 * float(uw),
                         u=float(uw),
                         k=2.0,
-                        flags=["by_difference"],
+                        flags=["by_difference"] + (["check_failed"] if any(not c.passed for c in checks) else []),
                         line_id="by difference",
                         basis=basis,
                     )
@@ -687,6 +688,9 @@ def analyse(
             continue
         number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date)
         stem = safe_filename(sid)
+        if stem.lower() in used_stems or stem.lower() in ("lims", "summary", "calibration"):
+            stem = f"{stem}-{len(used_stems) + 1}"  # never overwrite another sample's files
+        used_stems.add(stem.lower())
         figs = []
         if figures:
             figs = _figures(

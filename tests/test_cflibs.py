@@ -261,9 +261,9 @@ def test_fixed_content_and_missing_element():
     assert sum(v for k, v in r.mass_fractions().items() if k != "Mn") == pytest.approx(1.0)
 
 
-def test_stark_line_density_and_self_absorption_correction():
-    # Stark parameters on five lines; a 0.5 mm slab makes the strong lines self-absorbed
-    # (resonance ion lines so thick, SA < 0.1, that they must be dropped)
+def _self_absorbed_table():
+    """Hand LTE intensities × the slab curve of growth (plasma's absorption coefficient,
+    Voigt peak, and the Ladenburg–Reiche-checked SA integral); Stark widths on five lines."""
     T, ne, L_cm = 10000.0, 5e16, 0.05
     lt = cf_hand.line_table(W_TRUE, T, ne, rel_u=0.005, scale=1.0)
     w_instr = 0.03
@@ -290,6 +290,14 @@ def test_stark_line_density_and_self_absorption_correction():
             lt.loc[i, "stark_w_nm"] = stark[r["line_id"]]
             lt.loc[i, "stark_ne_ref_cm3"] = 1e16
             lt.loc[i, "fwhm_nm"] = float(voigt_fwhm(math.hypot(wg, w_instr), wl * sa ** -0.54))
+    return lt, sa_true, w_instr
+
+
+def test_stark_line_density_and_self_absorption_correction():
+    # Stark parameters on five lines; a 0.5 mm slab makes the strong lines self-absorbed
+    # (resonance ion lines so thick, SA < 0.1, that they must be dropped)
+    T, ne = 10000.0, 5e16
+    lt, sa_true, w_instr = _self_absorbed_table()
     assert min(sa_true.values()) < 0.7  # the test really is self-absorbed
     base = {"mc_draws": 0, "instrument_fwhm_nm": w_instr, "ne_method": "stark"}
     thin = quiet(line_table=lt, atomic=cf_hand.atomic(), settings={**base, "self_absorption": "detect"})
@@ -311,6 +319,21 @@ def test_stark_line_density_and_self_absorption_correction():
     err_col = max(abs(col.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
     assert col.self_absorption["plasma_length_mm"] == pytest.approx(0.5, rel=0.02)
     assert err_col < 0.02 < err_thin
+
+
+def test_reference_line_method_reduces_self_absorption_error():
+    # internal reference line (Sun & Yu 2009) on the self-absorbed table without the lines too
+    # thick for any correction (SA < 0.1, all lines of the ion stages here)
+    lt, sa_true, w_instr = _self_absorbed_table()
+    lt = lt[[sa_true[x] >= 0.1 for x in lt["line_id"]]]
+    base = {"mc_draws": 0, "instrument_fwhm_nm": w_instr, "ne_method": "stark"}
+    plain = quiet(line_table=lt, atomic=cf_hand.atomic(), settings={**base, "self_absorption": "none"})
+    ref = quiet(line_table=lt, atomic=cf_hand.atomic(), settings={**base, "self_absorption": "reference_line"})
+    err = {k: max(abs(r.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
+           for k, r in (("plain", plain), ("ref", ref))}
+    assert err["ref"] < 0.5 * err["plain"]
+    assert abs(ref.temperature_k / 10000.0 - 1) < abs(plain.temperature_k / 10000.0 - 1)
+    assert ref.self_absorption["reference_lines"]["Fe I"] == "Fe I 526.954"
 
 
 def test_one_point_calibration_removes_aki_errors():

@@ -78,5 +78,11 @@ def test_plot_png(files):
     assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification)
     res = CliRunner().invoke(main, ["plot", str(run), "--sample", "STD 1", "-o", str(d / "raw.png")])
     assert res.exit_code == 0, res.output
+    res = CliRunner().invoke(
+        main, ["plot", str(run), "--sample", "STD 1", "--range", "324", "331", "-o", str(d / "zoom.png")]
+    )
+    assert res.exit_code == 0, res.output
+    res = CliRunner().invoke(main, ["plot", str(run), "--sample", "STD 1", "--range", "500", "510"])
+    assert res.exit_code == 2 and "no pixels" in res.output
     res = CliRunner().invoke(main, ["plot", str(run), "--sample", "NOPE", "-o", str(d / "n.png")])
     assert res.exit_code == 2 and "NOPE" in res.output

@@ -17,7 +17,7 @@ from compquant.report.jsonform import load_schema
 def test_demo_end_to_end(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)  # demo files are found beside the package source tree, not in ./
     files = find_demo_files()
-    assert files["method"].name == "method-copper-alloys.toml" and files["lab"].name == "lab.toml"
+    assert files["method"].name == "method.toml" and files["lab"].name == "lab.toml"
     r = CliRunner().invoke(main, ["demo", "--quiet", "--issued-at", "2026-12-01T21:00:00Z"])
     assert r.exit_code == 0, r.output
     out = tmp_path / "compquant-demo"

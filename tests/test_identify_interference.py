@@ -71,12 +71,20 @@ def test_deliberate_overlap_is_flagged(overlap_case):
     ident = identify_spectrum(wl, y, settings=st, resolving_power=R)
     assert interferer["element"] in set(ident.elements().query("status == 'detected'")["element"])
     imap = interference_map(ident, lines)
+    # truth: the scene was built with the interferer's line 0.6 FWHM from the analyte line
     row = imap[imap["interferer_line_id"] == interferer["line_id"]]
     assert len(row) == 1 and bool(row["overlapped"].iloc[0])
     assert abs(row["separation_nm"].iloc[0] - (interferer["wavelength_nm"] - analyte["wavelength_nm"])) < 0.01
     alt = row["alternatives"].iloc[0].split("; ") if row["alternatives"].iloc[0] else []
     assert analyte["line_id"] not in alt
     assert all(x.startswith(analyte["element"] + " ") for x in alt)
+    # window integration: a vanishing window sees the height ratio of the two Gaussian profiles;
+    # a wider window takes in more of the neighbour (normal distribution function, mathematics)
+    fw = analyte["wavelength_nm"] / R
+    win = [interference_map(ident, lines.assign(window_nm=W)).query("interferer_line_id != ''")
+           ["window_contribution"].iloc[0] for W in (1e-4, fw, 3 * fw)]
+    assert win[0] == pytest.approx(row["relative_contribution"].iloc[0], rel=0.1)
+    assert win[0] < win[1] < win[2]
     ov = overlapped_lines(imap)
     assert list(ov["line_id"]) == [analyte["line_id"]]
     # the same analyte line without the interfering element: no overlap
@@ -129,6 +137,15 @@ def test_identify_command_end_to_end(tmp_path):
     t2 = pd.read_csv(out2)
     zn2 = t2[(t2["sample_id"] == "LOT 2") & (t2["element"] == "Zn")]["status"]
     assert (zn2 != "detected").all()
+    # a line database without zinc: the zinc peaks are listed as unexplained, zinc is not reported
+    no_zn = tmp_path / "no-zn.csv"
+    ll = load_line_list()
+    ll[ll["element"] != "Zn"].drop(columns=["species", "line_id"]).to_csv(no_zn, index=False)
+    res = CliRunner().invoke(main, ["identify", str(run), "--sample", "LOT 1", "--lines", str(no_zn),
+                                    "-o", str(tmp_path / "nozn.csv")])
+    assert res.exit_code == 0, res.output
+    assert "unexplained peaks in LOT 1" in res.output and "334.5" in res.output  # Zn I 334.502 nm
+    assert "Zn" not in set(pd.read_csv(tmp_path / "nozn.csv")["element"])
     # the certificate helper: elements detected but not quantified
     from compquant.identify.sample import detected_elements
     from compquant.run import Run

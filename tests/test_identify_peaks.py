@@ -98,7 +98,7 @@ def test_settings_validation():
     bad = [{"k_sigmaa": 3}, {"k_sigma": -1}, {"k_sigma": "five"}, {"temperature_k": 50.0},
            {"detected_score": 1.5}, {"elements": "Cu"}, {"noise_window": 5}, {"intensity_factor": 0.5},
            {"possible_score": 0.9, "detected_score": 0.5}, {"temperature_grid_k": [9000, 8000, 100]},
-           {"k_sigma": True}]
+           {"k_sigma": True}, {"elements": ["Xx"]}]
     for table in bad:
         with pytest.raises(MethodError) as exc:
             settings_from_dict(table, "m.toml: [identify]")

@@ -94,6 +94,7 @@ def test_detection_and_false_positive_rates(scenes):
             ident = identify_spectrum(wl, y, settings=st, resolving_power=R)
             el = ident.elements().set_index("element")
             above = _above_limit(wl, per_el, scale, sigma, st.k_sigma, ll)
+            # truth: the composition given to the forward model (COMPOSITIONS)
             for e in above:
                 n_above += 1
                 n_found += el.loc[e, "status"] == "detected"

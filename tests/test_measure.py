@@ -159,6 +159,7 @@ def test_internal_standard_normalisation(run_path):
         lm = measure_run(run, m)
     t = lm.table[lm.table.sample_id == "STD"].set_index("line_id")
     assert t.loc["Cu I 327.396", "intensity"] == pytest.approx(1.0, rel=1e-12)
+    assert t.loc["Cu I 327.396", "flags"] == ""  # the normalising line is exact, not "not found"
     ratio = t.loc["Cu I 324.754", "intensity"]
     assert 1.2 < ratio < 2.0  # 400/250 in areas, window-limited
 
@@ -243,3 +244,12 @@ def test_threads_give_the_same_result(run_path):
     assert np.allclose(a.shot_intensity[:, 0], b.shot_intensity[:, 0], rtol=1e-12)
     assert np.allclose(a.shot_intensity[:, 1], b.shot_intensity[:, 1], rtol=1e-6, atol=1e-9)
     assert (a.shot_accepted == b.shot_accepted).all()
+
+
+def test_mean_spectrum_qc_on_a_line(run_path):
+    m = method(preprocess={"baseline": {"method": "snip", "max_half_window": 25}, "qc": {"quantity": "Cu I 324.754"}})
+    with Run.open(run_path) as run:
+        lm = measure_run(run, m)
+        _, _, info = mean_spectrum(run, m, "STD")
+    q = lm.qc.set_index("sample_id")
+    assert info["n_accepted"] == q.loc["STD", "n_accepted"] == 39

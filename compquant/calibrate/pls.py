@@ -195,61 +195,57 @@ def spectra_matrix(mean_spectra: dict, sample_ids, mask, normalise: str = "total
 
 
 def fit_pls_block(cfg, measurement, samples, standards) -> dict:
-    """Fit the ``[calibration.pls]`` models from a LineMeasurement of the calibration run."""
-    from compquant.calibrate.build import certified_table, standard_map
+    """Fit the ``[calibration.pls]`` models from a LineMeasurement of the calibration run.
+
+    Each analyte's X block holds the windows of ``[calibration.pls] lines`` when given,
+    else of every method line of that analyte's element.
+    """
+    from compquant.calibrate.build import certified_table, content, standard_map
 
     pc = cfg.pls
     lt = measurement.table
     wl = np.asarray(measurement.wavelength, float)
-    line_ids = pc.lines or sorted(set(map(str, lt["line_id"])))
-    centres = sorted(
-        {float(r.wavelength_nm) for r in lt.drop_duplicates("line_id").itertuples() if r.line_id in line_ids}
-    )
-    mask = window_mask(wl, centres, pc.half_width_nm)
-    if mask.sum() < 2:
-        raise CalibrationError(
-            "PLS windows hold fewer than 2 pixels", where="[calibration.pls]", fix="widen half_width_nm"
-        )
+    first = lt.drop_duplicates("line_id")
+    centre = {str(r.line_id): float(r.wavelength_nm) for r in first.itertuples()}
+    element = {str(r.line_id): str(r.element) for r in first.itertuples()}
     is_mask = None
     ratio = bool(cfg.basis == "ratio" and cfg.matrix_element)
     if pc.normalise == "internal_standard":
-        rows = lt[lt["line_id"] == cfg.internal_standard]
-        if rows.empty:
+        if cfg.internal_standard not in centre:
             raise CalibrationError(f"internal-standard line {cfg.internal_standard} not measured",
                                    where="[calibration.pls]", fix="add it to the method's [[lines]]")
-        is_mask = window_mask(wl, [float(rows["wavelength_nm"].iloc[0])], pc.half_width_nm)
+        is_mask = window_mask(wl, [centre[cfg.internal_standard]], pc.half_width_nm)
     smap = standard_map(lt, samples)
     certs = certified_table(standards)
     stds = [s for s, (role, ref) in smap.items() if role == "standard" and s in measurement.mean_spectra]
     models = {}
     for el in pc.analytes:
+        where = f"[calibration.pls] {el}"
+        line_ids = list(pc.lines) if pc.lines else sorted(k for k, e in element.items() if e == el)
+        missing = [k for k in line_ids if k not in centre]
+        if missing or not line_ids:
+            raise CalibrationError(f"no measured line for the PLS block ({', '.join(missing) or el})",
+                                   where=where, fix="add the lines to the method's [[lines]]")
+        mask = window_mask(wl, [centre[k] for k in line_ids], pc.half_width_nm)
+        if mask.sum() < 2:
+            raise CalibrationError("PLS windows hold fewer than 2 pixels", where=where,
+                                   fix="widen half_width_nm")
         use = [s for s in stds if el in certs.get(smap[s][1], {})]
         X = spectra_matrix(measurement.mean_spectra, use, mask, pc.normalise, is_mask)
         if ratio:  # mass-fraction ratio to the matrix, as the univariate ratio curves
-            from compquant.calibrate.build import content
-
             y = np.array([content(certs[smap[s][1]], el, "ratio", cfg.matrix_element)[0] for s in use])
         else:
             y = np.array([certs[smap[s][1]][el][0] for s in use])
-        m = fit_pls(
-            X,
-            y,
-            max_components=pc.max_components,
-            cv_folds=pc.cv_folds,
-            alpha=pc.alpha,
-            where=f"[calibration.pls] {el}",
-        )
+        m = fit_pls(X, y, max_components=pc.max_components, cv_folds=pc.cv_folds, alpha=pc.alpha,
+                    where=where)
         m["standards"] = use
+        m["lines"] = line_ids
+        m["wavelength_mask_nm"] = [float(v) for v in wl[mask]]
         models[el] = m
-    return {
-        "lines": line_ids,
-        "half_width_nm": pc.half_width_nm,
-        "normalise": pc.normalise,
-        "target": "ratio" if ratio else "mass_fraction",
-        "is_mask_nm": None if is_mask is None else [float(v) for v in wl[is_mask]],
-        "wavelength_mask_nm": [float(v) for v in wl[mask]],
-        "models": models,
-    }
+    return {"half_width_nm": pc.half_width_nm, "normalise": pc.normalise,
+            "target": "ratio" if ratio else "mass_fraction",
+            "is_mask_nm": None if is_mask is None else [float(v) for v in wl[is_mask]],
+            "models": models}
 
 
 __all__ = ["fit_pls", "predict_pls", "t2_limit", "q_limit", "window_mask", "fit_pls_block"]

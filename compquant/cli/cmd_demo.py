@@ -22,7 +22,7 @@ def _roots() -> list[Path]:
 DEMO_SCENARIO = "scenario-day1.toml"  # calibration day: standards, blank, setup, check, unknowns
 DEMO_RUN = "demo-day1.h5"
 DEMO_SEED = 1  # as in demo_runs/regenerate.sh
-DEMO_METHOD = "method-copper-alloys.toml"
+DEMO_METHOD = "method.toml"
 DEMO_STANDARDS = "demo-copper-alloys.csv"
 
 

@@ -7,15 +7,25 @@ from pathlib import Path
 import click
 import numpy as np
 
-from compquant.errors import OutputError
+from compquant.errors import InputError, OutputError
 from compquant.fileio import atomic_path
 
 
-def plot_sample(run, method, sample_id: str, output, *, measurement=None, title: str | None = None):
+def plot_sample(
+    run,
+    method,
+    sample_id: str,
+    output,
+    *,
+    measurement=None,
+    title: str | None = None,
+    wl_range: tuple[float, float] | None = None,
+):
     """Draw the preprocessed mean spectrum of ``sample_id`` with the method's lines marked.
 
     When ``measurement`` (a :class:`~compquant.lines.LineMeasurement`) is given, each marked
-    line is labelled with its id and flags.  Written atomically as PNG (matplotlib Agg).
+    line is labelled with its id and flags (red: saturated or not found; orange: other flags).
+    ``wl_range`` = (lo, hi) nm zooms into part of the spectrum.  Written atomically as PNG (matplotlib Agg).
     """
     import matplotlib
 
@@ -25,6 +35,15 @@ def plot_sample(run, method, sample_id: str, output, *, measurement=None, title:
     from compquant.lines import mean_spectrum
 
     wl, mean, info = mean_spectrum(run, method, sample_id)
+    if wl_range is not None:
+        keep = (wl >= wl_range[0]) & (wl <= wl_range[1])
+        if not keep.any():
+            raise InputError(
+                f"no pixels between {wl_range[0]} and {wl_range[1]} nm",
+                where="--range",
+                fix=f"choose a range inside {wl[0]:.2f}-{wl[-1]:.2f} nm",
+            )
+        wl, mean = wl[keep], mean[keep]
     fig, ax = plt.subplots(figsize=(11, 4.5), dpi=110)
     ax.plot(wl, mean, lw=0.7, color="0.15")
     ymax = float(np.nanmax(mean)) if mean.size else 1.0
@@ -33,21 +52,26 @@ def plot_sample(run, method, sample_id: str, output, *, measurement=None, title:
         t = measurement.table
         for r in t[t["sample_id"] == sample_id].itertuples(index=False):
             flags[r.line_id] = r.flags
-    ids = [ln for ln in method.lines] if method.lines else []
-    for k, ln in enumerate(ids):
+    lo_nm, hi_nm = (float(wl[0]), float(wl[-1])) if wl_range is None else wl_range
+    shown = sorted((ln for ln in method.lines if lo_nm <= ln.wavelength_nm <= hi_nm), key=lambda ln: ln.wavelength_nm)
+    # labels in up to 6 staggered rows so that neighbours do not overwrite each other
+    min_gap = 0.012 * (hi_nm - lo_nm)
+    last_x = [-np.inf] * 6
+    for ln in shown:
         x = ln.wavelength_nm
-        bad = bool(flags.get(ln.line_id))
-        col = "tab:red" if bad else "tab:blue"
+        fl = flags.get(ln.line_id, "")
+        serious = any(f in fl for f in ("saturated", "not_found"))
+        col = "tab:red" if serious else ("tab:orange" if fl else "tab:blue")
         ax.axvline(x, color=col, lw=0.6, ls="--", alpha=0.7)
-        lab = ln.label or ln.line_id
-        if flags.get(ln.line_id):
-            lab += f" [{flags[ln.line_id]}]"
-        ax.text(x, ymax * (0.98 - 0.07 * (k % 4)), lab, rotation=90, va="top", ha="right", fontsize=7, color=col)
+        row = next((r for r in range(6) if x - last_x[r] >= min_gap), int(np.argmin(last_x)))
+        last_x[row] = x
+        lab = (ln.label or ln.line_id) + (f" [{fl}]" if fl else "")
+        ax.text(x, ymax * (0.99 - 0.16 * row), lab, rotation=90, va="top", ha="right", fontsize=6.5, color=col)
     sh = f", shift {info['shift_nm']:+.4f} nm" if info["shift_nm"] else ""
     ax.set_title(title or f"{sample_id}: mean of {info['n_accepted']} of {info['n_shots']} shots{sh}", fontsize=10)
     ax.set_xlabel(f"wavelength / nm ({run.medium})")
     ax.set_ylabel("intensity (preprocessed, counts)")
-    ax.set_xlim(float(wl[0]), float(wl[-1]))
+    ax.set_xlim(lo_nm, hi_nm)
     fig.tight_layout()
     try:
         with atomic_path(output) as tmp:
@@ -78,7 +102,10 @@ def plot_sample(run, method, sample_id: str, output, *, measurement=None, title:
     default=None,
     help="PNG file [default: <sample>.png, name made safe].",
 )
-def command(run_path, sample_id, method_path, output):
+@click.option(
+    "--range", "wl_range", type=(float, float), default=None, metavar="LO HI", help="Wavelength range to show, nm."
+)
+def command(run_path, sample_id, method_path, output, wl_range):
     """Plot the mean spectrum of one sample's accepted shots (PNG), with the method's lines
     marked and labelled (red: flagged, e.g. saturated or not found). Without --method the
     spectrum is only dark- and response-corrected."""
@@ -95,7 +122,9 @@ def command(run_path, sample_id, method_path, output):
         else:
             method = _no_lines_method()
             lm = None
-        plot_sample(run, method, sample_id, out, measurement=lm)
+        if wl_range is not None and not wl_range[0] < wl_range[1]:
+            raise InputError("--range LO HI needs LO < HI", where="--range", fix="e.g. --range 400 410")
+        plot_sample(run, method, sample_id, out, measurement=lm, wl_range=wl_range)
     click.echo(f"wrote {out}")
 
 

@@ -62,6 +62,10 @@ from compquant.plasma.emission import line_emissivity_lte
 STATUSES = ("detected", "possible", "not detected")
 _STATUS_RANK = {"detected": 0, "possible": 1, "not detected": 2}
 
+LINE_COLUMNS = ["species", "element", "ion", "group", "line_id", "members", "wavelength_nm", "rel_intensity",
+                "ek_ev", "tolerance_nm", "peak_id", "peak_centre_nm", "delta_nm", "share", "observed_area",
+                "predicted_area", "predicted_snr", "expected", "strong", "found", "missing"]
+
 SPECIES_COLUMNS = ["element", "ion", "species", "status", "score", "lines_found", "lines_expected",
                    "lines_missing", "rms_log_residual", "rank_correlation", "scale", "best_lines",
                    "missing_lines", "temperature_k"]
@@ -531,7 +535,7 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
     species_cols = SPECIES_COLUMNS
     if lines0.empty:
         species = pd.DataFrame(columns=species_cols)
-        groups = pd.DataFrame()
+        groups = pd.DataFrame(columns=LINE_COLUMNS)
         peaks = peaks.assign(explained_by="", unexplained=True)
         return Identification(species, groups, peaks, float(T0), False, float(R), source, st, sig, wl, y)
 

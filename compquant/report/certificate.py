@@ -310,8 +310,8 @@ class DriftInfo:
 class CheckResult:
     """A check sample (control material) measured in the run, per element.
 
-    ``z = (x - X) / sqrt(u_x^2 + u_X^2)`` and ``En = (x - X) / sqrt(U_x^2 + U_X^2)``
-    (ISO 13528:2015, 9.4 and 9.7; from memory of ISO 13528).
+    ``En = (x - X) / sqrt(U_x^2 + U_X^2)`` and ``z = (x - X) / sigma_pt`` with sigma_pt the
+    target standard deviation (ISO 13528:2015; from memory of ISO 13528).
     """
 
     sample_id: str

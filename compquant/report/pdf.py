@@ -442,7 +442,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     story.append(P(E(uncertainty_statement(cert.coverage_factors())), "small"))
     story.append(P(E(LOD_STATEMENT), "small"))
     if cert.qc.blank:
-        story.append(P("Blank standard deviation s_blank: " + E(cert.qc.blank), "small"))
+        story.append(P("s_blank for LOD and LOQ from " + E(cert.qc.blank), "small"))
     flags = cert.flags_used()
     if flags:
         story.append(P("Flags", "h3"))
@@ -518,42 +518,29 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                     ck.sample_id,
                     ck.standard_ref,
                     ck.element,
+                    f"{mv} ± {mu}" if mu else mv,
+                    f"{cv} ± {cu}" if cu else cv,
                     unit,
-                    mv,
-                    mu,
-                    cv,
-                    cu,
-                    _fmt_2dp(ck.z),
-                    _fmt_2dp(ck.En),
+                    _fmt_2dp(ck.z) or "–",
+                    _fmt_2dp(ck.En) or "–",
                     "pass" if ck.passed else "FAIL",
                 ]
             )
         story.append(
             grid_table(
-                [
-                    "Check sample",
-                    "Reference",
-                    "El.",
-                    "Unit",
-                    "Found",
-                    "U",
-                    "Certified",
-                    "U",
-                    "z",
-                    "En",
-                    "Result",
-                ],
+                ["Check sample", "Reference", "El.", "Found ± U", "Certified ± U", "Unit", "z", "En", "Result"],
                 crows,
-                [13, 12, 5, 7, 8, 7, 9, 7, 7, 7, 8],
-                right_cols=(4, 5, 6, 7, 8, 9),
+                [12, 12, 4.5, 15, 15, 7, 6, 6, 7],
+                right_cols=(3, 4, 6, 7),
             )
         )
         crits = sorted({ck.criterion for ck in qc.check_samples})
         story.append(
             P(
                 "Found: value measured in this run with its U (k = 2); Certified: the reference "
-                "value with its U. z = (found - certified) / combined standard uncertainty; "
-                "En = (found - certified) / combined expanded uncertainty (ISO 13528). "
+                "value with its U. En = (found - certified) / sqrt(U_found² + U_certified²); "
+                "z = (found - certified) / σ_pt, with σ_pt the target standard deviation set in the "
+                "method (– when none is set) (ISO 13528). "
                 "Acceptance criterion: " + E("; ".join(crits)) + ".",
                 "small",
             )
