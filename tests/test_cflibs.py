@@ -256,7 +256,8 @@ def test_fixed_content_and_missing_element():
     assert r.element("Ni").mass_fraction == 0.12
     # an element asked for with no usable lines is left out with a warning
     with pytest.warns(UserWarning, match="Mn has no usable lines"):
-        r = analyse_cf(lt, atomic=cf_hand.atomic(), settings={"mc_draws": 0, "elements": ["Fe", "Cr", "Ni", "Mn"]})
+        r = analyse_cf(lt, atomic=cf_hand.atomic(), instrument={"instrument_fwhm_nm": 0.05},
+                       settings={"mc_draws": 0, "elements": ["Fe", "Cr", "Ni", "Mn"]})
     assert "no_usable_lines" in r.element("Mn").flags
     assert sum(v for k, v in r.mass_fractions().items() if k != "Mn") == pytest.approx(1.0)
 
@@ -383,3 +384,16 @@ def test_json_round_trip():
     back = CFResult.from_json(text)
     assert back.mass_fractions() == pytest.approx(r.mass_fractions())
     assert back.temperature_k == r.temperature_k and back.lte == r.lte
+
+
+def test_demo_method_cf_section_is_valid():
+    # the demo method's [cf] table passes the owner's validation (docs/calibration-free.md §10)
+    from pathlib import Path
+
+    from compquant.method import load_method
+
+    path = Path(__file__).resolve().parents[1] / "demo_runs" / "method.toml"
+    if not path.exists():
+        pytest.skip("no demo method in this checkout")
+    s = CFSettings.from_section(load_method(path).sections["cf"], where="demo [cf]")
+    assert s.self_absorption == "columnar" and s.resolving_power == 2600.0
