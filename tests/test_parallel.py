@@ -35,7 +35,7 @@ METHOD = {
 }
 
 
-def _run_file(path, seed: int, n_per_sample: int = 150):
+def _run_file(path, seed: int, n_per_sample: int = 150, raster: bool = False):
     """Invented test data: two Gaussian lines on a sloping continuum, Poisson counts."""
     rng = np.random.default_rng(seed)
     wl = np.linspace(318.0, 334.0, 400)
@@ -46,7 +46,11 @@ def _run_file(path, seed: int, n_per_sample: int = 150):
     mean = 300 + 2 * (wl - 318)[None, :] + amp[:, None] * shape[None, :]
     spectra = rng.poisson(mean).astype(np.uint16)
     dark = rng.poisson(300, size=(4, wl.size)).astype(np.uint16)
-    write_run(path, wl, spectra, samples, idx, dark=dark, saturation=65535)
+    pos = {}
+    if raster:  # every sample scanned on a 15 x 10 grid, step 0.1 mm
+        k = np.arange(idx.size) % n_per_sample
+        pos = {"x_mm": 0.1 * (k % 15), "y_mm": 0.1 * (k // 15)}
+    write_run(path, wl, spectra, samples, idx, dark=dark, saturation=65535, **pos)
     return path
 
 
@@ -218,3 +222,17 @@ def test_workers_and_scheduler_exclude_each_other(runs, tmp_path):
     )
     assert res.exit_code == 2
     assert "both --workers and --scheduler" in res.output
+
+
+def test_maps_on_cluster_equal_serial(cluster, method, tmp_path):
+    from compquant.maps.build import make_maps
+
+    path = _run_file(tmp_path / "raster.h5", seed=9, raster=True)
+    with Run.open(path) as run:
+        a = make_maps(run, method, chunk_shots=64)
+        b = make_maps(run, method, chunk_shots=64, executor=cluster)
+    assert [s.sample_id for s in a.samples] == ["S0", "S1", "S2"]
+    for sa, sb in zip(a.samples, b.samples):
+        assert (sa.grid.nx, sa.grid.ny) == (15, 10)
+        for ma, mb in zip(sa.maps, sb.maps):
+            assert np.array_equal(ma.values, mb.values, equal_nan=True)
