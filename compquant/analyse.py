@@ -630,7 +630,10 @@ def analyse(
     )
     matrix_el = parameters.get("matrix_element")
     snr_detect = float(getattr(method.measure, "snr_detect", 3.0))
-    lines_marked = [(ln.line_id, ln.wavelength_nm) for ln in method.lines]
+    # the spectrum figure marks the lines the numbers rest on: the calibration curves' analytical
+    # and internal-standard lines, or every method line for calibration-free analysis
+    used = {c.line_id for c in curves.values()} | {c.internal_standard for c in curves.values() if c.internal_standard}
+    lines_marked = [(ln.line_id, ln.wavelength_nm) for ln in method.lines if cf or not used or ln.line_id in used]
 
     certs: list[Certificate] = []
     outputs: list[CertificateOutput] = []
