@@ -537,6 +537,7 @@ def analyse(
     cf_by_sample: dict = {}
     curves = {}
     run_blocks: list[str] = []
+    deviations: list[str] = []
     parameters: dict = {"basis": basis, "issued_at": issued, "method_settings_sha256": method.settings_digest()}
     if chunk_shots:
         parameters["chunk_shots"] = int(chunk_shots)
@@ -599,6 +600,12 @@ def analyse(
         results = q.results
         checks = _check_results(q.checks)
         drift_info = _drift_info(q.drift)
+        if calibration is not None and not q.drift.get("applied") and q.drift.get("mode", "optional") != "off":
+            # a saved calibration applied without drift standardisation departs from the method
+            deviations.append(
+                "drift standardisation with setup samples was not possible: "
+                f"{q.drift.get('reason', 'no usable setup measurement')}"
+            )
         not_reported = list(q.provenance.get("not_reported", []))
         matrix_fraction = dict(q.matrix_fraction)
         curves = dict(cal.curves)
@@ -713,6 +720,7 @@ def analyse(
             conformity=conf,
             detected_not_quantified=_detected_not_quantified(table, sid, {r.element for r in rows}, snr_detect),
             figures=figs,
+            deviations=list(deviations),
             remarks=remarks,
             release_blocks=blocks,
         )
