@@ -2,8 +2,9 @@
 
 Steps (docs/calibration.md):
 
-1. drift standardisation of the run's line intensities with its setup samples
-   (two-point per line, :mod:`compquant.calibrate.drift`), unless the run is the
+1. drift standardisation of each curve's responses (intensity, or ratio to the internal
+   standard) with the run's setup samples (two-point, :mod:`compquant.calibrate.drift`)
+   against the references stored at calibration time, unless the run is the
    calibration run itself;
 2. per analyte, the response of every sample and the inverse prediction of its
    content with standard uncertainty; interference corrections use the contents
@@ -37,7 +38,7 @@ from scipy import stats
 
 from compquant.calibrate.build import certified_table, standard_map
 from compquant.calibrate.checks import check_verdict, en_number, z_score, zeta_score
-from compquant.calibrate.drift import apply_drift, drift_coefficients, uncorrected_lines
+from compquant.calibrate.drift import correct, reference_response, two_point
 from compquant.calibrate.model import Calibration
 from compquant.calibrate.response import sample_responses
 from compquant.errors import CalibrationError, DataQualityError
@@ -255,46 +256,60 @@ def quantify(
     cfg = calibration.settings
     drift_mode = cfg.get("drift", "optional")
     smap = standard_map(lt, samples)
-    drift = {"applied": False, "mode": drift_mode}
+    drift = {"applied": False, "mode": drift_mode, "level": "response"}
     run_flags = []
-    if drift_mode == "off":
-        drift["reason"] = "drift standardisation switched off in the method"
-    elif run_sha256 and run_sha256 == calibration.run_sha256:
-        drift["reason"] = "this is the calibration run (setup references measured here)"
-    else:
-        coefs = drift_coefficients(calibration.setup_reference, lt)
-        needed = set(calibration.lines)
-        missing = sorted(needed - set(coefs))
-        if coefs and not missing:
-            lt, st = apply_drift(lt, coefs, st)
-            drift.update(
-                applied=True,
-                coefficients=coefs,
-                setup_samples=sorted(
-                    {c["high"] for c in coefs.values()} | {c["low"] for c in coefs.values() if c["low"]}
-                ),
-                uncorrected_lines=uncorrected_lines(lt, coefs),
-            )
-        elif drift_mode == "required":
-            raise DataQualityError(
-                "drift standardisation required but the run has no usable setup "
-                f"measurement for line(s) {', '.join(missing) or 'all'}",
-                where="quantify",
-                fix="measure the setup samples in this run",
-            )
-        else:
-            if coefs:
-                lt, st = apply_drift(lt, coefs, st)
-                drift.update(applied=True, coefficients=coefs, uncorrected_lines=missing)
-            drift["reason"] = (
-                "no setup samples in the run" if not coefs else f"setup measurements missing for {', '.join(missing)}"
-            )
-            run_flags.append("no_drift_correction" if not coefs else "partial_drift_correction")
     curves = calibration.curves
     els = list(curves)
     resp = {}
     for el, c in curves.items():
         resp[el] = sample_responses(lt, c.line_id, c.internal_standard, st, where=f"quantify {el} ({c.line_id})")
+    if drift_mode == "off":
+        drift["reason"] = "drift standardisation switched off in the method"
+    elif run_sha256 and run_sha256 == calibration.run_sha256:
+        drift["reason"] = "this is the calibration run (setup references measured here)"
+    else:
+        # per curve: the response (intensity or ratio to the internal standard) of each setup sample
+        # now, against its reference from the stored setup intensities
+        coefs, missing = {}, []
+        setups = [s for s, (role, _) in smap.items() if role == "setup"]
+        for el, c in curves.items():
+            key = c.line_id + (f" / {c.internal_standard}" if c.internal_standard else "")
+            pts = []
+            for sid in setups:
+                ref = reference_response(calibration.setup_reference, sid, c.line_id, c.internal_standard)
+                if ref is None or sid not in resp[el].index:
+                    continue
+                m = resp[el].loc[sid]
+                # a setup measurement scatters about its expected response like any sample:
+                # its repeatability plus the curve's excess scatter sigma_m (docs/calibration.md)
+                uy = float(m["u_y"])
+                w0 = 1.0 / uy**2 if (c.weighted and uy > 0) else 1.0
+                pts.append((ref[0], float(m["y"]), float(np.sqrt(uy**2 + c.sigma_m2 / w0)), sid))
+            coef = two_point(pts)
+            if coef is None:
+                missing.append(key)
+                continue
+            coef["element"] = el
+            coefs[key] = coef
+            r = resp[el].copy()
+            y, u = correct(r["y"].to_numpy(float), r["u_y"].to_numpy(float), coef)
+            r["y"], r["u_y"] = y, u
+            resp[el] = r
+        if coefs:
+            drift.update(applied=True, coefficients=coefs,
+                         setup_samples=sorted({s for c in coefs.values() for s in c["samples"]}),
+                         uncorrected_lines=missing)
+        if missing and drift_mode == "required":
+            raise DataQualityError(
+                "drift standardisation required but the run has no usable setup "
+                f"measurement for {', '.join(missing)}",
+                where="quantify",
+                fix="measure the setup samples of the calibration in this run",
+            )
+        if missing:
+            drift["reason"] = ("no setup samples in the run" if not coefs else
+                               f"setup measurements missing for {', '.join(missing)}")
+            run_flags.append("no_drift_correction" if not coefs else "partial_drift_correction")
     sample_ids = [s for s in dict.fromkeys(map(str, lt["sample_id"])) if smap.get(s, ("unknown", None))[0] != "setup"]
     coverage = cfg.get("coverage", "k2")
     rows, not_reported, matrix_fraction = [], [], {}

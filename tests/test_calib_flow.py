@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 from calib_synth import LINES, config_dict, make_tables
 
@@ -72,9 +73,12 @@ def test_drift_standardisation_corrects_later_run():
     drift = {LINES["Zn"]: (0.8, 0.5), LINES["Cu"]: (0.9, 0.0), LINES["Sn"]: (1.15, 0.0), LINES["Fe"]: (0.85, 0.1)}
     lt2, st2, sm2, std2, truth2 = make_tables(7, drift=drift)
     q = quantify((lt2, st2, sm2), cal, run_sha256="run-b")
-    assert q.drift["applied"] and set(q.drift["coefficients"]) == set(LINES.values())
-    c = q.drift["coefficients"][LINES["Zn"]]
-    assert c["kind"] == "two-point" and c["alpha"] == pytest.approx(1 / 0.8, rel=0.05)
+    keys = {f"{LINES[el]} / {LINES['Cu']}" for el in ("Zn", "Sn", "Fe")}
+    assert q.drift["applied"] and set(q.drift["coefficients"]) == keys
+    c = q.drift["coefficients"][f"{LINES['Zn']} / {LINES['Cu']}"]
+    # the Zn/Cu ratio drifted by 0.8/0.9: the correction slope is its inverse
+    assert c["kind"] == "two-point" and c["alpha"] == pytest.approx(0.9 / 0.8, rel=0.05)
+    assert set(q.drift["setup_samples"]) == {"SET-H", "SET-L"}
     unk = q.results[q.results.role == "unknown"]
     tv = np.array([truth2[s][e] for s, e in zip(unk.sample_id, unk.element)])
     err_corr = np.abs(unk.mass_fraction.to_numpy() / tv - 1)
@@ -176,3 +180,25 @@ def test_too_few_standards_rejects_analyte():
     cfg = parse_calibration_section(config_dict())
     with pytest.raises(CalibrationError, match="at least 3"):
         calibrate(lt, std, cfg, shot_table=st, samples=sm)
+
+
+def test_two_point_formula_and_one_point_fallback():
+    from compquant.calibrate.drift import apply_drift, correct, drift_coefficients, two_point
+
+    # two-point (common practice): references 100 / 10, measured 80 / 9 -> alpha = 90/71
+    c = two_point([(100.0, 80.0, 0.0, "H"), (10.0, 9.0, 0.0, "L")])
+    assert c["kind"] == "two-point"
+    assert c["alpha"] == pytest.approx(90 / 71)
+    assert c["beta"] == pytest.approx(10 - 90 / 71 * 9)
+    y, u = correct(np.array([80.0, 9.0]), np.array([0.0, 0.0]), c)
+    np.testing.assert_allclose(y, [100.0, 10.0])
+    # a matrix line, high in both setup samples: one-point factor sum R / sum M
+    c1 = two_point([(100.0, 90.0, 1.0, "H"), (80.0, 70.0, 1.0, "L")])
+    assert c1["kind"] == "one-point" and c1["alpha"] == pytest.approx(180 / 160)
+    lt = pd.DataFrame({"sample_id": ["H", "L", "X"], "role": ["setup", "setup", "unknown"],
+                       "line_id": ["L1"] * 3, "intensity": [80.0, 9.0, 40.0], "u_intensity": [0.5, 0.2, 0.3]})
+    coefs = drift_coefficients({"H": {"L1": [100.0, 0.5]}, "L": {"L1": [10.0, 0.2]}}, lt)
+    out, _ = apply_drift(lt, coefs)
+    np.testing.assert_allclose(out["intensity"], [100.0, 10.0, 10 + 90 / 71 * 31])
+    assert (out["u_intensity"] > lt["u_intensity"] * 90 / 71 - 1e-12).all()
+    assert lt["intensity"].tolist() == [80.0, 9.0, 40.0]  # input not modified

@@ -73,6 +73,16 @@ def test_pure_noise_gives_almost_no_peaks():
     assert n_false <= 1
 
 
+def test_pure_noise_identifies_nothing():
+    """No peak in pure normal noise (tail probability above), hence no element and no unexplained peak."""
+    from compquant.identify import identify_spectrum
+
+    y = np.random.default_rng(5).normal(0, 1, 8000)
+    ident = identify_spectrum(np.linspace(250, 450, y.size), y, resolving_power=3000)
+    assert len(ident.peaks) <= 1
+    assert (ident.species["status"] == "not detected").all()
+
+
 def test_find_peaks_refuses_bad_input():
     with pytest.raises(InputError):
         find_peaks(np.arange(100.0), np.zeros(99))
@@ -88,7 +98,7 @@ def test_settings_validation():
     bad = [{"k_sigmaa": 3}, {"k_sigma": -1}, {"k_sigma": "five"}, {"temperature_k": 50.0},
            {"detected_score": 1.5}, {"elements": "Cu"}, {"noise_window": 5}, {"intensity_factor": 0.5},
            {"possible_score": 0.9, "detected_score": 0.5}, {"temperature_grid_k": [9000, 8000, 100]},
-           {"k_sigma": True}]
+           {"k_sigma": True}, {"elements": ["Xx"]}]
     for table in bad:
         with pytest.raises(MethodError) as exc:
             settings_from_dict(table, "m.toml: [identify]")

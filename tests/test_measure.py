@@ -243,3 +243,12 @@ def test_threads_give_the_same_result(run_path):
     assert np.allclose(a.shot_intensity[:, 0], b.shot_intensity[:, 0], rtol=1e-12)
     assert np.allclose(a.shot_intensity[:, 1], b.shot_intensity[:, 1], rtol=1e-6, atol=1e-9)
     assert (a.shot_accepted == b.shot_accepted).all()
+
+
+def test_mean_spectrum_qc_on_a_line(run_path):
+    m = method(preprocess={"baseline": {"method": "snip", "max_half_window": 25}, "qc": {"quantity": "Cu I 324.754"}})
+    with Run.open(run_path) as run:
+        lm = measure_run(run, m)
+        _, _, info = mean_spectrum(run, m, "STD")
+    q = lm.qc.set_index("sample_id")
+    assert info["n_accepted"] == q.loc["STD", "n_accepted"] == 39

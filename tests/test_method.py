@@ -6,6 +6,8 @@ import hashlib
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from compquant.errors import MethodError
 from compquant.method import load_method, make_line_id, method_from_dict, parse_line_id
@@ -167,3 +169,65 @@ def test_shipped_demo_method_loads():
     # the demo runs cover 220-640 nm (demo_runs/scenario-day1.toml)
     m.check_run(np.linspace(220.0, 640.0, 12288))
     assert {ln.group for ln in m.lines if ln.mode == "fit"} == {"Mn-403", "Pb-406"}
+
+
+# ---- fuzz: any TOML-like document gives a Method or a MethodError, never another exception
+
+_scalars = st.one_of(st.booleans(), st.integers(-5, 10**6), st.floats(allow_nan=True), st.text(max_size=12))
+_keys = st.sampled_from(
+    [
+        "id",
+        "method",
+        "mode",
+        "window_nm",
+        "lam",
+        "p",
+        "k",
+        "how",
+        "line",
+        "lines",
+        "max_half_window",
+        "enabled",
+        "statistic",
+        "wavelength_nm",
+        "ion",
+        "element",
+        "quantity",
+        "x",
+        "fwhm_nm",
+        "group",
+    ]
+)
+_values = st.recursive(
+    _scalars | st.lists(_scalars, max_size=3),
+    lambda ch: st.dictionaries(_keys, ch, max_size=4) | st.lists(ch, max_size=3),
+    max_leaves=12,
+)
+_pre = st.dictionaries(
+    st.sampled_from(["dark", "response", "saturation", "qc", "baseline", "normalise", "shift", "extra"]),
+    st.dictionaries(_keys, _values, max_size=4),
+    max_size=4,
+)
+_doc = st.fixed_dictionaries(
+    {"method": st.one_of(st.just({"id": "fz"}), st.dictionaries(_keys, _values, max_size=3))},
+    optional={
+        "preprocess": _pre | _values,
+        "measure": st.dictionaries(_keys, _values, max_size=4),
+        "lines": st.lists(
+            st.one_of(st.just({"id": "Cu I 324.754"}), st.dictionaries(_keys, _values, max_size=4)), max_size=3
+        ),
+        "calibration": _values,
+        "bogus": _values,
+    },
+)
+
+
+@settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(_doc)
+def test_fuzz_method_documents(doc):
+    try:
+        m = method_from_dict(doc)
+    except MethodError as exc:
+        assert exc.one_line()
+    else:
+        assert m.lines and m.id

@@ -40,7 +40,7 @@ from compquant.cflibs.selfabs import (
 )
 from compquant.cflibs.settings import CFSettings
 from compquant.cflibs.solver import Model, Solution
-from compquant.errors import DataQualityError, InputError, PhysicsError
+from compquant.errors import AtomicDataError, DataQualityError, InputError, PhysicsError
 
 
 class CFWarning(UserWarning):
@@ -490,21 +490,54 @@ class _Analysis:
         _, tau = self.sa_cog(sol, L_cm, sa)
         return sa, sol, tau, ne_name, ne_est, L_cm, chi2
 
+    def _can_drop(self, mask, ne_free: bool) -> bool:
+        """Would the fit still determine T (and nₑ when fitted) without the lines in ``mask``?"""
+        keep = ~np.asarray(mask)
+        if keep.sum() < 2:
+            return False
+        try:
+            sub = Model(self.L.subset(keep), self.atomic, self.s)
+            if ne_free and self.s.fit == "saha-boltzmann" and not sub.both_stage_elements:
+                return False
+            sub.design(ne_free)
+        except (PhysicsError, AtomicDataError):
+            return False
+        return True
+
     def selfabs_corrected(self, length_cm, ne_pick, fit_length: bool):
-        """:meth:`nls_selfabs`, removing the thickest line while any SA < sa_min_factor."""
+        """:meth:`nls_selfabs`, removing the thickest line while any SA < sa_min_factor.
+
+        A line is kept (its correction capped and flagged) when removing it would leave the fit
+        unable to determine T or nₑ.
+        """
+        kept: set[str] = set()
         while True:
             out = self.nls_selfabs(length_cm, ne_pick, fit_length)
             sa = out[0]
-            if np.any(sa < self.s.sa_min_factor) and self.L.n > 2:
-                # hopeless lines (SA < sa_min/3) go at once; near the limit, the worst one only
-                worst = sa < self.s.sa_min_factor / 3.0
-                if not np.any(worst) or np.all(worst):
-                    worst = np.zeros(self.L.n, bool)
-                    worst[int(np.argmin(sa))] = True
-                self.sa = np.ones(self.L.n)
-                self.drop_lines(worst, f"too optically thick (SA < {self.s.sa_min_factor})")
-                continue
-            return out
+            ne_free = out[4] is None
+            thick = (sa < self.s.sa_min_factor) & ~np.isin(self.L.line_id, list(kept))
+            if not np.any(thick):
+                return out
+            # hopeless lines (SA < sa_min/3) go at once if the fit survives; else the worst one only
+            mask = thick & (sa < self.s.sa_min_factor / 3.0)
+            if not np.any(mask) or not self._can_drop(mask, ne_free):
+                mask = np.zeros(self.L.n, bool)
+                for i in np.argsort(np.where(thick, sa, np.inf)):
+                    if not thick[i]:
+                        break
+                    trial = np.zeros(self.L.n, bool)
+                    trial[i] = True
+                    if self._can_drop(trial, ne_free):
+                        mask = trial
+                        break
+                    kept.add(str(self.L.line_id[i]))
+                if not np.any(mask):
+                    if kept:
+                        self._warn("lines kept although too optically thick for a reliable correction "
+                                   "(the fit needs them): " + ", ".join(sorted(kept)))
+                    return out
+            self.sa = np.ones(self.L.n)
+            self.drop_lines(mask, f"too optically thick (SA < {self.s.sa_min_factor})")
 
     def run(self, mc_draws, seed) -> CFResult:
         s = self.s

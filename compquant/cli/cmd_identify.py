@@ -59,12 +59,14 @@ def render_table(table: pd.DataFrame) -> str:
 @click.option("--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
               help="PNG of the spectrum with identified lines labelled (one file per sample: "
                    "<stem>-<sample>.png when several samples).")
+@click.option("--lines", "lines_path", type=click.Path(dir_okay=False), default=None,
+              help="Line database CSV in the columns of docs/atomic-data.md [default: the shipped list].")
 @click.option("--temperature", type=float, default=None,
               help="Excitation temperature for the LTE estimate, K [default: method, else fitted].")
 @click.option("--resolving-power", type=float, default=None,
               help="Resolving power λ/Δλ [default: method, else the run's instrument, else estimated].")
 @click.option("--quiet", is_flag=True, help="No table on screen.")
-def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_path, temperature,
+def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_path, lines_path, temperature,
             resolving_power, quiet):
     """Qualitative analysis: detect the peaks of each sample's preprocessed mean spectrum, match them
     to the line database, score every element and ion stage against an LTE estimate of its
@@ -81,11 +83,16 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
     for name, val in (("--temperature", temperature), ("--resolving-power", resolving_power)):
         if val is not None and not val > 0:
             raise InputError(f"{name} must be positive, got {val}", where=name, fix="give a positive number")
+    from compquant.atomic import load_line_list
+
+    line_list = load_line_list(lines_path) if lines_path else None
     method = load_method(method_path) if method_path else default_method()
     st = settings_from_method(method).with_overrides(temperature_k=temperature, resolving_power=resolving_power)
     out = Path(output)
     stem = out.with_suffix("")
     tables, imaps, peak_tables = [], [], []
+    unexplained: dict[str, str] = {}
+    n_unexplained: dict[str, int] = {}
     with Run.open(run_path) as run:
         ids = list(samples) or list(run.samples["sample_id"])
         known = set(run.samples["sample_id"])
@@ -95,8 +102,11 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
                                  fix="list the samples with 'compquant inspect'")
         medium = run.medium
         for sid in ids:
-            ident = identify_sample(run, sid, method, settings=st)
+            ident = identify_sample(run, sid, method, settings=st, line_list=line_list)
             tables.append(identify_table(ident, sid))
+            un = ident.unexplained_peaks
+            unexplained[sid] = ", ".join(f"{c:.3f}" for c in un.nlargest(8, "snr")["centre_nm"].sort_values())
+            n_unexplained[sid] = len(un)
             if method_path and method.lines:
                 imaps.append(sample_interference(ident, method, sid))
             if peaks_path:
@@ -119,6 +129,10 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
         written.append(Path(peaks_path))
     if not quiet:
         click.echo(render_table(table))
+        for sid, n in n_unexplained.items():
+            if n:
+                click.echo(f"unexplained peaks in {sid}: {n} (strongest at {unexplained[sid]} nm; "
+                           "lines missing from the line database, or noise)")
         if imaps:
             im = pd.concat(imaps, ignore_index=True)
             ov = im[im["overlapped"] & (im["interferer_line_id"] != "")]

@@ -40,7 +40,10 @@ set out with their sources in ``docs/identification.md``; in short:
   evidence is its share-weighted count of found lines, and its share of the
   area is what enters its scale fit.  Species that are not (yet) detected or
   possible do not take evidence away from the others.  The sharing is iterated
-  to a fixed point (``iterations`` passes).
+  to a fixed point (``iterations`` passes).  A strong expected line with no peak
+  of its own is *hidden* rather than missing when active lines of other
+  elements within 1.5 FWHM are predicted to put more intensity at its position
+  than it would have.
 """
 
 from __future__ import annotations
@@ -58,6 +61,10 @@ from compquant.plasma.emission import line_emissivity_lte
 
 STATUSES = ("detected", "possible", "not detected")
 _STATUS_RANK = {"detected": 0, "possible": 1, "not detected": 2}
+
+LINE_COLUMNS = ["species", "element", "ion", "group", "line_id", "members", "wavelength_nm", "rel_intensity",
+                "ek_ev", "tolerance_nm", "peak_id", "peak_centre_nm", "delta_nm", "share", "observed_area",
+                "predicted_area", "predicted_snr", "expected", "strong", "found", "missing"]
 
 SPECIES_COLUMNS = ["element", "ion", "species", "status", "score", "lines_found", "lines_expected",
                    "lines_missing", "rms_log_residual", "rank_correlation", "scale", "best_lines",
@@ -227,8 +234,9 @@ class _Problem:
         self.species_codes, self.sp_index = np.unique(self.species, return_inverse=True)
         self.member_group = members["group"].to_numpy()
         peak_c = peaks["centre_nm"].to_numpy(float)
-        self.peak_area = peaks["area"].to_numpy(float)
-        self.peak_fwhm = peaks["fwhm_nm"].to_numpy(float)
+        # one sentinel 0 at the end: index -1 (no peak) reads 0
+        self.peak_area = np.append(peaks["area"].to_numpy(float), 0.0)
+        self.peak_fwhm = np.append(peaks["fwhm_nm"].to_numpy(float), 0.0)
         self.n_peaks = len(peaks)
         self.tol = g["_tol"].max().to_numpy()
         self._peak_c = peak_c
@@ -271,14 +279,14 @@ class _Problem:
         return w
 
 
-def _evaluate_species(prob: _Problem, s: int, share: np.ndarray):
+def _evaluate_species(prob: _Problem, s: int, share: np.ndarray, mask: np.ndarray | None = None):
     """Best scale and found/missing bookkeeping for species index ``s`` (vectorised over candidates)."""
     st = prob.settings
     idx = np.flatnonzero(prob.sp_index == s)
     r = prob.r[idx]
     pk = prob.peak[idx]
     matched = pk >= 0
-    obs = np.where(matched, share[idx] * prob.peak_area[np.maximum(pk, 0)], 0.0)
+    obs = share[idx] * prob.peak_area[pk]  # 0 where unmatched (sentinel)
     kappa = 1.0 / (GAUSS_AREA_FACTOR * prob.width(s, share) * prob.sigma[idx])
     n = idx.size
     out = {"idx": idx, "scale": 0.0, "found": np.zeros(n, bool), "missing": np.zeros(n, bool),
@@ -292,11 +300,17 @@ def _evaluate_species(prob: _Problem, s: int, share: np.ndarray):
     snr = pred * kappa[None, :]
     expected = snr >= st.k_sigma
     strong = snr >= st.expect_margin * st.k_sigma
+    total = prob.peak_area[pk]  # whole peak, before sharing
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = obs[None, :] / pred
-    ok = matched[None, :] & (ratio >= 1.0 / st.intensity_factor)
+        ratio_total = total[None, :] / pred
+    # a line is there when its whole peak is not weaker than predicted by more than F; a peak
+    # shared with other species still shows the line (it is hidden, not missing), but then
+    # counts as evidence only with its share
+    ok = matched[None, :] & (ratio_total >= 1.0 / st.intensity_factor)
     found = expected & ok
-    missing = strong & ~ok
+    hidden = np.zeros_like(ok) if mask is None else (mask[idx][None, :] >= pred)
+    missing = strong & ~ok & ~hidden
     w = share[idx][None, :]
     objective = (found * w).sum(1) - missing.sum(1)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -311,7 +325,7 @@ def _evaluate_species(prob: _Problem, s: int, share: np.ndarray):
     return out
 
 
-def _score(prob: _Problem, ev: dict, share: np.ndarray) -> dict:
+def _score(prob: _Problem, ev: dict, share: np.ndarray, final: bool = False) -> dict:
     st = prob.settings
     idx, found, missing = ev["idx"], ev["found"], ev["missing"]
     sh = share[idx]
@@ -327,7 +341,7 @@ def _score(prob: _Problem, ev: dict, share: np.ndarray) -> dict:
         lr = np.log(ev["obs"][use] / prob.r[idx][use])
         la = float(np.mean(lr))
         rms = float(np.sqrt(np.mean((lr - la) ** 2)))
-        if found.sum() >= 3:
+        if final and found.sum() >= 3:
             rho = float(spearmanr(ev["obs"][found], prob.r[idx][found]).statistic)
     f = n_found / (n_found + n_missing) if (n_found + n_missing) > 0 else 0.0
     q = float(np.exp(-0.5 * (rms / np.log(st.intensity_factor)) ** 2)) if np.isfinite(rms) else 0.0
@@ -362,26 +376,57 @@ def _share(prob: _Problem, scale_of_group: np.ndarray, active_group: np.ndarray)
     return share
 
 
+def _masking(prob: _Problem, scale_of_group: np.ndarray, active_group: np.ndarray) -> np.ndarray:
+    """Predicted area that active groups of *other elements* put at each group's position.
+
+    ``Σ a_h r_h exp(-4 ln 2 (Δλ / w)²)`` over groups h of other elements within 1.5 instrument
+    FWHM ``w`` (Gaussian instrument profile).  A line predicted weaker than this is hidden under
+    its neighbour, so its absence as a separate peak is no evidence against its species.
+    """
+    n = prob.n_groups
+    mask = np.zeros(n)
+    src = np.flatnonzero(active_group & (scale_of_group > 0))
+    if src.size == 0:
+        return mask
+    order = src[np.argsort(prob.wl[src])]
+    swl = prob.wl[order]
+    w = prob.fwhm_instr
+    lo = np.searchsorted(swl, prob.wl - 1.5 * w, "left")
+    hi = np.searchsorted(swl, prob.wl + 1.5 * w, "right")
+    cnt = hi - lo
+    if cnt.sum() == 0:
+        return mask
+    g = np.repeat(np.arange(n), cnt)
+    h = order[np.concatenate([np.arange(a, b) for a, b in zip(lo, hi) if b > a])]
+    other = prob.element[g] != prob.element[h]
+    g, h = g[other], h[other]
+    contrib = scale_of_group[h] * prob.r[h] * np.exp(-4.0 * np.log(2.0) * ((prob.wl[h] - prob.wl[g]) / w[g]) ** 2)
+    np.add.at(mask, g, contrib)
+    return mask
+
+
 def _solve(prob: _Problem, settings: IdentifySettings):
-    """Independent pass, then evidence sharing iterated to a fixed point."""
+    """Independent pass, then evidence sharing (and masking) iterated to a fixed point."""
     n_sp = len(prob.species_codes)
     share = np.where(prob.peak >= 0, 1.0, 0.0)
+    mask = np.zeros(prob.n_groups)
     results = [None] * n_sp
     evals = [None] * n_sp
     for it in range(settings.iterations + 1):
         for s in range(n_sp):
-            evals[s] = _evaluate_species(prob, s, share)
+            evals[s] = _evaluate_species(prob, s, share, mask)
             results[s] = _score(prob, evals[s], share)
         scale_sp = np.array([results[s]["scale"] for s in range(n_sp)])
         active_sp = np.array([results[s]["status"] != "not detected" for s in range(n_sp)])
         new_share = _share(prob, scale_sp[prob.sp_index], active_sp[prob.sp_index])
-        if it == settings.iterations or np.allclose(new_share, share, atol=1e-3):
-            share = new_share
+        new_mask = _masking(prob, scale_sp[prob.sp_index], active_sp[prob.sp_index])
+        converged = np.allclose(new_share, share, atol=1e-3) and np.allclose(new_mask, mask, rtol=1e-3)
+        share, mask = new_share, new_mask
+        if it == settings.iterations or converged:
             for s in range(n_sp):  # final bookkeeping with the converged shares
-                evals[s] = _evaluate_species(prob, s, share)
-                results[s] = _score(prob, evals[s], share)
+                evals[s] = _evaluate_species(prob, s, share, mask)
+                results[s] = _score(prob, evals[s], share, final=True)
             break
-        share = new_share
     return results, evals, share
 
 
@@ -466,7 +511,7 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
                                fix="identify a measured mean spectrum, or add the detector noise to a model spectrum")
     sig = np.where(sig > 0, sig, np.max(sig))
     R = st.resolving_power or resolving_power
-    source = "method [identify]" if st.resolving_power else ("run instrument" if resolving_power else "")
+    source = "method [identify]" if st.resolving_power else ("given (run instrument)" if resolving_power else "")
     if peaks is None:
         peaks = find_peaks(wl, y_f, k_sigma=st.k_sigma, resolving_power=R, min_width_frac=st.min_width_frac,
                            noise=sig, noise_window=st.noise_window or None)
@@ -490,7 +535,7 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
     species_cols = SPECIES_COLUMNS
     if lines0.empty:
         species = pd.DataFrame(columns=species_cols)
-        groups = pd.DataFrame()
+        groups = pd.DataFrame(columns=LINE_COLUMNS)
         peaks = peaks.assign(explained_by="", unexplained=True)
         return Identification(species, groups, peaks, float(T0), False, float(R), source, st, sig, wl, y)
 
@@ -549,19 +594,21 @@ def _tables(prob: _Problem, members, results, evals, share, peaks, T):
         "delta_nm": prob.delta, "share": share, "observed_area": obs, "predicted_area": pred,
         "predicted_snr": snr, **flags,
     })
+    top_found = (groups[groups["found"]].sort_values("observed_area", ascending=False)
+                 .groupby("species")["line_id"].agg(lambda x: "; ".join(x.head(3))))
+    top_missing = (groups[groups["missing"]].sort_values("predicted_snr", ascending=False)
+                   .groupby("species")["line_id"].agg(lambda x: "; ".join(x.head(3))))
     rows = []
-    for s, (res, ev) in enumerate(zip(results, evals)):
+    for s, res in enumerate(results):
         sp = prob.species_codes[s]
-        g = groups.iloc[ev["idx"]]
-        fnd = g[g["found"]].sort_values("observed_area", ascending=False)
-        mis = g[g["missing"]].sort_values("predicted_snr", ascending=False)
+        i0 = evals[s]["idx"][0]
         rows.append({
-            "element": g["element"].iloc[0], "ion": int(g["ion"].iloc[0]), "species": sp,
+            "element": prob.element[i0], "ion": int(prob.ion[i0]), "species": sp,
             "status": res["status"], "score": round(res["score"], 4), "lines_found": round(res["lines_found"], 2),
             "lines_expected": res["lines_expected"], "lines_missing": res["lines_missing"],
             "rms_log_residual": res["rms_log_residual"], "rank_correlation": res["rank_correlation"],
-            "scale": res["scale"], "best_lines": "; ".join(fnd["line_id"].head(3)),
-            "missing_lines": "; ".join(mis["line_id"].head(3)), "temperature_k": T,
+            "scale": res["scale"], "best_lines": top_found.get(sp, ""),
+            "missing_lines": top_missing.get(sp, ""), "temperature_k": T,
         })
     species = pd.DataFrame(rows, columns=SPECIES_COLUMNS)
     species["_rank"] = species["status"].map(_STATUS_RANK)

@@ -18,6 +18,12 @@ when the relative contribution reaches ``interference_fraction`` (5 %
 default), or, with no analyte signal to compare, when the interferer alone is
 predicted at ≥ ``interference_snr`` σ.
 
+``window_contribution`` is what window integration of the analyte line (its ``window_nm``, as
+the line measurement uses it) would pick up from the interferer, relative to the analyte's own
+area in that window: ``a_s r [Φ((W/2 − Δ)/s) − Φ((−W/2 − Δ)/s)] / (S_a [2Φ(W/2s_a) − 1])`` for
+Gaussian profiles (Φ the normal distribution function, s = FWHM / 2√(2 ln 2)) — the size of the
+additive correction a calibration would need.
+
 Alternatives: the analyte element's other line groups in range (any ion
 stage) that have no interferer above those thresholds, ranked by predicted SNR
 (when the analyte's scale is known; at least ``expect_margin · k_sigma``) or
@@ -28,6 +34,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
+from scipy.special import ndtr
 
 from compquant.errors import InputError
 from compquant.identify.core import Identification
@@ -35,26 +42,41 @@ from compquant.identify.peaks import GAUSS_AREA_FACTOR
 
 MAP_COLUMNS = ["line_id", "element", "ion", "wavelength_nm", "analyte_signal", "interferer_line_id",
                "interferer_species", "interferer_status", "separation_nm", "interferer_contribution",
-               "relative_contribution", "interferer_snr", "overlapped", "alternatives"]
+               "relative_contribution", "interferer_snr", "window_nm", "window_contribution", "overlapped",
+               "alternatives"]
 
 _FOUR_LN2 = 4.0 * np.log(2.0)
+_FWHM_PER_SIGMA = 2.0 * np.sqrt(2.0 * np.log(2.0))
 
 
-def _analyte_frame(analyte_lines) -> pd.DataFrame:
-    """Accept a DataFrame (line_id, element, ion, wavelength_nm) or a list of objects with those attributes."""
+def _analyte_frame(analyte_lines, pitch_nm: float) -> pd.DataFrame:
+    """Accept a DataFrame (line_id, element, ion, wavelength_nm[, window_nm]) or the method's
+    ``LineSpec`` objects; ``window_nm`` is the integration window (for LineSpec: as the line
+    measurement uses it, :func:`compquant.method.window_width_nm`), NaN when unknown."""
+    cols = ["line_id", "element", "ion", "wavelength_nm"]
     if isinstance(analyte_lines, pd.DataFrame):
         df = analyte_lines
     else:
-        df = pd.DataFrame([{k: getattr(x, k) for k in ("line_id", "element", "ion", "wavelength_nm")}
-                           for x in analyte_lines])
-    need = {"line_id", "element", "ion", "wavelength_nm"}
+        from compquant.method import window_width_nm
+
+        rows = []
+        for x in analyte_lines:
+            row = {k: getattr(x, k) for k in cols}
+            try:
+                row["window_nm"] = float(window_width_nm(x, pitch_nm))
+            except (AttributeError, TypeError, ValueError):
+                row["window_nm"] = np.nan
+            rows.append(row)
+        df = pd.DataFrame(rows)
     if df.empty:
-        return pd.DataFrame(columns=sorted(need))
-    missing = sorted(need - set(df.columns))
+        return pd.DataFrame(columns=[*cols, "window_nm"])
+    missing = sorted(set(cols) - set(df.columns))
     if missing:
         raise InputError(f"analyte lines lack column(s) {', '.join(missing)}", where="interference map",
                          fix="pass the method's [[lines]] (Method.lines) or a table with those columns")
-    return df.loc[:, ["line_id", "element", "ion", "wavelength_nm"]].reset_index(drop=True)
+    out = df.loc[:, cols].reset_index(drop=True)
+    out["window_nm"] = df["window_nm"].to_numpy(float) if "window_nm" in df.columns else np.nan
+    return out
 
 
 def _interferers_at(ident: Identification, lam0: np.ndarray, element: np.ndarray, width: float):
@@ -64,7 +86,7 @@ def _interferers_at(ident: Identification, lam0: np.ndarray, element: np.ndarray
     active = sp.index[sp["status"] != "not detected"]
     cand = g[g["species"].isin(active)]
     if cand.empty or lam0.size == 0:
-        return pd.DataFrame(columns=["a", "grp", "sep", "contrib", "snr"])
+        return pd.DataFrame(columns=["a", "grp", "sep", "contrib", "snr", "area", "w"])
     pred_area = cand["predicted_area"].to_numpy(float)  # a_s * r of each group
     cwl = cand["wavelength_nm"].to_numpy(float)
     fwhm0 = lam0 / ident.resolving_power
@@ -77,7 +99,7 @@ def _interferers_at(ident: Identification, lam0: np.ndarray, element: np.ndarray
     sigma = np.interp(lam0[ai], ident.wavelength, ident.noise)
     snr = contrib / (GAUSS_AREA_FACTOR * w * sigma)
     return pd.DataFrame({"a": ai, "grp": cand.index.to_numpy()[gj], "sep": sep[ai, gj], "contrib": contrib,
-                         "snr": snr})
+                         "snr": snr, "area": pred_area[gj], "w": w})
 
 
 def _species_width(ident: Identification, species: np.ndarray, lam: np.ndarray) -> np.ndarray:
@@ -139,7 +161,7 @@ def interference_map(ident: Identification, analyte_lines, *, width_fwhm: float 
     ``alternatives`` lists up to ``n_alternatives`` interference-free lines of the analyte element.
     """
     st = ident.settings
-    lines = _analyte_frame(analyte_lines)
+    lines = _analyte_frame(analyte_lines, float(np.median(np.diff(ident.wavelength))))
     if lines.empty:
         return pd.DataFrame(columns=MAP_COLUMNS)
     lam0 = lines["wavelength_nm"].to_numpy(float)
@@ -154,6 +176,17 @@ def interference_map(ident: Identification, analyte_lines, *, width_fwhm: float 
             rel = np.where(signal[a] > 0, pairs["contrib"].to_numpy() / signal[a], np.inf)
         pairs["rel"] = rel
         pairs["flag"] = _flag(rel, pairs["snr"].to_numpy(), signal[a] > 0, st)
+        # what the window integration of the analyte line would pick up: the interferer's area inside
+        # the window over the analyte's own area inside it (Gaussian profiles of FWHM w)
+        W = lines["window_nm"].to_numpy(float)[a]
+        sw = pairs["w"].to_numpy(float) / _FWHM_PER_SIGMA
+        sa = lam0[a] / ident.resolving_power / _FWHM_PER_SIGMA
+        sep = pairs["sep"].to_numpy(float)
+        f_i = ndtr((0.5 * W - sep) / sw) - ndtr((-0.5 * W - sep) / sw)
+        f_a = 2.0 * ndtr(0.5 * W / sa) - 1.0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            pairs["win"] = np.where(signal[a] > 0, pairs["area"].to_numpy(float) * f_i / (signal[a] * f_a), np.inf)
+        pairs.loc[~np.isfinite(W), "win"] = np.nan
     overlapped = np.zeros(len(lines), bool)
     if len(pairs):
         overlapped[np.unique(pairs.loc[pairs["flag"], "a"].to_numpy(int))] = True
@@ -162,19 +195,20 @@ def interference_map(ident: Identification, analyte_lines, *, width_fwhm: float 
     for i, ln in lines.iterrows():
         base = {"line_id": ln["line_id"], "element": ln["element"], "ion": int(ln["ion"]),
                 "wavelength_nm": float(ln["wavelength_nm"]), "analyte_signal": float(signal[i]),
+                "window_nm": float(ln["window_nm"]),
                 "overlapped": bool(overlapped[i]), "alternatives": alternatives[i] if overlapped[i] else ""}
         sub = pairs[pairs["a"] == i] if len(pairs) else pairs
         if len(sub) == 0:
             rows.append({**base, "interferer_line_id": "", "interferer_species": "", "interferer_status": "",
                          "separation_nm": np.nan, "interferer_contribution": 0.0, "relative_contribution": 0.0,
-                         "interferer_snr": 0.0})
+                         "interferer_snr": 0.0, "window_contribution": 0.0})
             continue
         for p in sub.sort_values("contrib", ascending=False).itertuples():
             gr = g.loc[p.grp]
             rows.append({**base, "interferer_line_id": gr["line_id"], "interferer_species": gr["species"],
                          "interferer_status": sp_status.get(gr["species"], ""), "separation_nm": float(p.sep),
                          "interferer_contribution": float(p.contrib), "relative_contribution": float(p.rel),
-                         "interferer_snr": float(p.snr)})
+                         "interferer_snr": float(p.snr), "window_contribution": float(p.win)})
     return pd.DataFrame(rows, columns=MAP_COLUMNS)
 
 

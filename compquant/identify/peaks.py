@@ -16,7 +16,7 @@ a 2-D array for the noise estimate):
    pixels on line flanks, so no baseline or line mask is needed (common
    practice).  Emission noise grows with the signal (shot noise), so by
    default σ is estimated *locally* as the same statistic in a running window
-   of ``noise_window`` pixels (scipy.ndimage.median_filter), floored at the
+   of ``noise_window`` pixels (:func:`running_median`), floored at the
    global value.  Differences larger than 3.5 local σ (the steep flanks of
    strong lines) are excluded in a second pass (set half to 0, half to +∞, which
    leaves the running median that of the other differences), so that strong
@@ -67,6 +67,32 @@ PEAK_COLUMNS = ["peak_id", "pixel", "centre_nm", "height", "area", "fwhm_nm", "s
                 "left_nm", "right_nm"]
 
 
+def running_median(x: np.ndarray, window: int) -> np.ndarray:
+    """Running median along the last axis (reflecting edges), evaluated every ``window // 10``
+    pixels and linearly interpolated in between.  The statistic varies slowly over a window, so
+    this stays within about the median's own statistical scatter of the exact running median
+    (scipy.ndimage.median_filter) at a tenth of the cost.
+    ``+inf`` values are allowed.  1-D or 2-D input."""
+    x = np.asarray(x, dtype=float)
+    window = int(window) | 1
+    n = x.shape[-1]
+    step = max(1, window // 10)
+    if step == 1 or n <= 2 * window:
+        return median_filter(x, size=(1,) * (x.ndim - 1) + (window,), mode="reflect")
+    half = window // 2
+    pad = [(0, 0)] * (x.ndim - 1) + [(half, half)]
+    xp = np.pad(x, pad, mode="symmetric")
+    centres = np.arange(0, n, step)
+    if centres[-1] != n - 1:
+        centres = np.append(centres, n - 1)
+    win = np.lib.stride_tricks.sliding_window_view(xp, window, axis=-1)[..., centres, :]
+    med = np.median(win, axis=-1)
+    pix = np.arange(n, dtype=float)
+    if x.ndim == 1:
+        return np.interp(pix, centres, med)
+    return np.stack([np.interp(pix, centres, row) for row in med])
+
+
 def noise_sigma(y: np.ndarray, clip: float | None = None) -> np.ndarray:
     """Global robust noise σ of each spectrum (row) from the MAD of its first difference.
 
@@ -107,7 +133,7 @@ def local_noise_sigma(y: np.ndarray, window: int = 201) -> np.ndarray:
     d = np.concatenate([d, d[:, -1:]], axis=-1)  # one value per pixel
     d = np.nan_to_num(d - np.nanmedian(d, axis=-1, keepdims=True))
     ad = np.abs(d)
-    med = median_filter(ad, size=(1, int(window)), mode="reflect")
+    med = running_median(ad, window)
     # second pass: the steep flanks of strong lines are not noise.  Differences above 3.5 local
     # sigma (of the difference) are set alternately to 0 and to +inf, so that they fall equally
     # below and above the median and the running median becomes that of the other differences
@@ -115,7 +141,7 @@ def local_noise_sigma(y: np.ndarray, window: int = 201) -> np.ndarray:
     if flank.any():
         parity = (np.arange(ad.shape[-1]) % 2 == 0)[None, :]
         ad = np.where(flank, np.where(parity, 0.0, np.inf), ad)
-        med = median_filter(ad, size=(1, int(window)), mode="reflect")
+        med = running_median(ad, window)
         med = np.where(np.isfinite(med), med, np.nan)
     loc = MAD_TO_SIGMA * med / np.sqrt(2.0)
     glob = noise_sigma(y2, clip=3.5)[:, None]
@@ -134,7 +160,7 @@ def local_level(y: np.ndarray, window: int | None = 201) -> np.ndarray:
     y = np.asarray(y, dtype=float)
     if window is None or window >= y.size:
         return np.full(y.shape, float(np.median(y)))
-    return median_filter(y, size=int(window) | 1, mode="reflect")
+    return running_median(y, window)
 
 
 def _axis_interp(wavelength: np.ndarray, pix: np.ndarray) -> np.ndarray:
@@ -259,4 +285,4 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
 
 
 __all__ = ["GAUSS_AREA_FACTOR", "MAD_TO_SIGMA", "PEAK_COLUMNS", "find_peaks", "local_level", "local_noise_sigma",
-           "noise_sigma"]
+           "noise_sigma", "running_median"]

@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 
 from compquant.errors import OutputError
 from compquant.fileio import atomic_path
@@ -12,11 +13,13 @@ from compquant.identify.core import Identification
 
 
 def plot_identification(ident: Identification, output, *, title: str | None = None, max_labels: int = 40,
-                        medium: str = "air") -> Path:
+                        medium: str = "air", log_scale: bool = True) -> Path:
     """Write a PNG (matplotlib Agg, atomic write) of the spectrum with the found lines of every
     detected or possible species marked at their peak and labelled ``"<species> <nm>"``, one colour
     per element (matplotlib's default cycle), and unexplained peaks marked with a grey ``?``.
-    At most ``max_labels`` labels (the strongest peaks) keep the figure readable."""
+    At most ``max_labels`` labels (each element's three strongest lines first, then the strongest
+    peaks) keep the figure readable; ``log_scale`` draws a symmetric-log intensity axis (linear up
+    to 10 noise σ) when the spectrum spans more than two decades."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -32,7 +35,10 @@ def plot_identification(ident: Identification, output, *, title: str | None = No
     pk = ident.peaks
     heights = pk["height"].to_numpy() if len(pk) else np.zeros(0)
     g = g.assign(peak_height=heights[g["peak_id"].to_numpy()] if len(g) else [])
-    g = g.sort_values("peak_height", ascending=False).head(max_labels)
+    g = g.sort_values("peak_height", ascending=False)
+    # every element gets its three strongest lines labelled first, then the strongest of the rest
+    first = g.groupby("element", sort=False).head(3)
+    g = pd.concat([first, g.drop(first.index)]).head(max(max_labels, len(first)))
     cycle = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     elements = list(dict.fromkeys(active["element"]))
     colour = {el: cycle[i % len(cycle)] for i, el in enumerate(elements)}
@@ -50,10 +56,17 @@ def plot_identification(ident: Identification, output, *, title: str | None = No
         ax.plot([], [], color=colour[el], marker="v", ls="", label=f"{el} ({st})")
     if elements:
         ax.legend(fontsize=7, loc="upper right", ncol=min(4, len(elements)))
-    ax.set_ylim(top=ymax * 1.25 if ymax > 0 else 1.0)
+    # symmetric-log intensity axis: linear up to 10 noise sigma, logarithmic above, so that the lines
+    # of minor elements are visible beside the matrix lines
+    lin = 10.0 * float(np.median(ident.noise)) if ident.noise.size else 1.0
+    if log_scale and ymax > 100 * lin > 0:
+        ax.set_yscale("symlog", linthresh=lin, linscale=0.5)
+        ax.set_ylim(bottom=-lin, top=ymax * 4.0)
+    else:
+        ax.set_ylim(top=ymax * 1.25 if ymax > 0 else 1.0)
     ax.set_xlim(float(wl[0]), float(wl[-1]))
     ax.set_xlabel(f"wavelength / nm ({medium})")
-    ax.set_ylabel("intensity (preprocessed)")
+    ax.set_ylabel("intensity (preprocessed" + (", symmetric log)" if ax.get_yscale() == "symlog" else ")"))
     ax.set_title(title or f"identified lines (T = {ident.temperature_k:.0f} K"
                  f"{' fitted' if ident.temperature_fitted else ''}, R = {ident.resolving_power:.0f})", fontsize=10)
     fig.tight_layout()

@@ -98,6 +98,12 @@ def settings_from_dict(table: dict | None, where: str = "[identify]") -> Identif
         if key in ("elements", "exclude_elements"):
             if not isinstance(val, list) or not all(isinstance(x, str) and x.strip() for x in val):
                 raise MethodError("expected a list of element symbols", where=w, fix='e.g. ["Fe", "Cu"]')
+            from compquant.atomic.elements import known_symbols
+
+            unknown = sorted({x.strip() for x in val} - set(known_symbols()))
+            if unknown:
+                raise MethodError(f"unknown element symbol(s) {', '.join(map(repr, unknown))}", where=w,
+                                  fix="use chemical symbols such as Fe, Cu, Zn")
             out[key] = tuple(x.strip() for x in val)
             continue
         if key == "temperature_grid_k":

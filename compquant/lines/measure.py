@@ -678,6 +678,8 @@ def _aggregate(
                     if other is not ln and lo <= other.wavelength_nm + d <= hi:
                         flags.add("overlapped")
                 expected = ln.wavelength_nm + d
+                # the window still holds the line while its centre is within a quarter window
+                centre_tol = max(flag_nm, 0.25 * (g.b - g.a))
             else:
                 gi = next(gx for gx, mem in enumerate(setup.groups) if li in mem)
                 gf = fits[(s, gi)]
@@ -695,6 +697,7 @@ def _aggregate(
                 if not gf.success:
                     flags.add("not_found")
                 expected = ln.wavelength_nm + d
+                centre_tol = max(flag_nm, 0.5 * fwhm) if np.isfinite(fwhm) else flag_nm
             snr = intensity / u if (u and np.isfinite(u) and u > 0) else float("nan")
             if not np.isfinite(snr) or snr < meas.snr_detect:
                 flags.add("not_found")
@@ -705,7 +708,7 @@ def _aggregate(
             if pre.shift != "none" and abs(d) > flag_nm:
                 flags.add("shifted")
             well_measured = np.isfinite(snr) and snr >= meas.snr_min
-            if well_measured and np.isfinite(centre) and abs(centre - expected) > flag_nm:
+            if well_measured and np.isfinite(centre) and abs(centre - expected) > centre_tol:
                 flags.add("shifted")
             if nv == 1:
                 flags.add("single_shot")
@@ -792,6 +795,8 @@ def mean_spectrum(
     the mean over QC-accepted shots of the dark-, response- and
     baseline-corrected spectra (not normalised), and ``info`` with
     ``n_shots``, ``n_accepted``, ``shift_nm``.  Reads only that sample's shots.
+    Shot QC is that of :func:`measure_run`; when its quantity is a line, the line's
+    window integral at the table position is used.
     """
     setup = _Setup(run, method)
     pre = method.preprocess
@@ -813,10 +818,15 @@ def mean_spectrum(
     # (QC quantities, then the sum of accepted shots) keep memory at one chunk.
     breaks = np.flatnonzero(np.diff(rows) != 1) + 1
     pieces = [seg[a : a + chunk] for seg in np.split(rows, breaks) for a in range(0, seg.size, chunk)]
+    qc_weights = plan.total_weights
+    if pre.qc_quantity != "total":
+        # QC on a line: its window integral at the table position (fit-mode lines too)
+        li = [ln.line_id for ln in setup.lines].index(pre.qc_quantity)
+        qc_weights = build_window_weights(setup.wl, [setup.geometry(li, 0.0)]).W[:, 0]
     pos = 0
     for sub in pieces:
         y = _preprocessed(run.read_raw(int(sub[0]), int(sub[-1]) + 1), plan)
-        totals[pos : pos + sub.size] = y @ plan.total_weights
+        totals[pos : pos + sub.size] = y @ qc_weights
         pos += sub.size
     qc_x = totals
     if pre.pulse_energy_normalise and setup.pulse is not None:

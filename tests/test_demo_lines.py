@@ -1,0 +1,53 @@
+"""The shipped demo method on the shipped demo runs (invented scenario, docs/scenario.md)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy.stats import spearmanr
+
+from compquant.lines import measure_run
+from compquant.method import load_method
+from compquant.run import Run
+
+DEMO = Path(__file__).resolve().parents[1] / "demo_runs"
+
+pytestmark = pytest.mark.skipif(not (DEMO / "demo-day1.h5").exists(), reason="demo runs not generated")
+
+
+@pytest.fixture(scope="module")
+def day1():
+    m = load_method(DEMO / "method.toml")
+    with Run.open(DEMO / "demo-day1.h5") as run:
+        return measure_run(run, m, threads=2)
+
+
+def test_internal_standard_line_is_clean(day1):
+    t = day1.table
+    is_rows = t[t.line_id == "Cu I 521.820"]
+    assert len(is_rows) == t.sample_id.nunique()
+    assert (is_rows["flags"] == "").all()
+    assert (is_rows.snr > 20).all()
+
+
+def test_zn_ratio_follows_the_true_zinc_content(day1):
+    truth = pd.read_csv(DEMO / "truth-day1.csv")
+    zn = truth[(truth.element == "Zn") & (truth.role == "standard")].set_index("sample_id").mass_fraction
+    t = day1.table.set_index(["sample_id", "line_id"]).intensity
+    ratio = np.array([t[(s, "Zn I 481.053")] / t[(s, "Cu I 521.820")] for s in zn.index])
+    # rank correlation (scipy.stats.spearmanr): the ratio must order the standards by zinc
+    rho = spearmanr(ratio, zn.to_numpy()).statistic
+    assert rho > 0.95
+
+
+def test_day2_wavelength_drift_is_found():
+    # demo_runs/scenario-day2.toml: wavelength_shift_nm = 0.008, "true pixel wavelengths =
+    # stored + shift" (docs/scenario.md), so lines appear 0.008 nm below their table position
+    m = load_method(DEMO / "method.toml")
+    with Run.open(DEMO / "demo-day2.h5") as run:
+        lm = measure_run(run, m, threads=2)
+    assert lm.shifts.shift_nm.to_numpy() == pytest.approx(-0.008, abs=0.002)
+    assert not lm.table["flags"].str.contains("shifted").any()  # below flag_nm = 0.02 nm
