@@ -500,6 +500,19 @@ def _parse_lines(items, src: str, measure: MeasureConfig) -> list[LineSpec]:
                 "or give element, ion and wavelength_nm",
             )
         if parsed:
+            for name, given, from_id in (("element", element, parsed[0]), ("ion", ion, parsed[1])):
+                if given is not None and given != from_id:
+                    raise _err(
+                        f"{w} {name}",
+                        f"{name} = {given!r} contradicts the id {lid!r}",
+                        "correct the id or remove the key",
+                    )
+            if wl is not None and abs(wl - parsed[2]) > 0.0015:
+                raise _err(
+                    f"{w} wavelength_nm",
+                    f"wavelength_nm = {wl} contradicts the id {lid!r}",
+                    "make the id carry the same wavelength (3 decimals) or remove wavelength_nm",
+                )
             element = element or parsed[0]
             ion = ion or parsed[1]
             if wl is None:

@@ -151,6 +151,9 @@ def test_line_ids():
         method_from_dict({"method": {"id": "x"}, "lines": [{"id": "Cu I 324.745"}]})
     m = method_from_dict({"method": {"id": "x"}, "lines": [{"id": "Cu I 324.7540"}]})
     assert m.lines[0].wavelength_nm == 324.754
+    for extra in ({"ion": 2}, {"element": "Zn"}, {"wavelength_nm": 324.8}):
+        with pytest.raises(MethodError, match="contradicts"):
+            method_from_dict({"method": {"id": "x"}, "lines": [{"id": "Cu I 324.754", **extra}]})
     with pytest.raises(MethodError, match="no lines"):
         method_from_dict({"method": {"id": "x"}})
 
