@@ -396,7 +396,12 @@ def quantify(
                     "dof": float(p["dof"]),
                 }
             )
-    rows += _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported,
+    # the PLS spectra are not drift-standardised: in a later run say so on every PLS result
+    later = drift_mode != "off" and not (run_sha256 and run_sha256 == calibration.run_sha256)
+    pls_flags = [f for f in run_flags if f not in ("no_drift_correction", "partial_drift_correction")]
+    if later:
+        pls_flags.append("no_drift_correction")
+    rows += _pls_rows(measurement, calibration, smap, sample_ids, pls_flags, not_reported,
                       matrix_fraction)
     results = pd.DataFrame(rows, columns=RESULT_COLUMNS)
     # check samples

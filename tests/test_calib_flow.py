@@ -202,3 +202,21 @@ def test_two_point_formula_and_one_point_fallback():
     np.testing.assert_allclose(out["intensity"], [100.0, 10.0, 10 + 90 / 71 * 31])
     assert (out["u_intensity"] > lt["u_intensity"] * 90 / 71 - 1e-12).all()
     assert lt["intensity"].tolist() == [80.0, 9.0, 40.0]  # input not modified
+
+
+def test_range_flags_and_student_coverage():
+    unk = [{"Zn": 0.45, "Sn": 0.012, "Fe": 0.005}, {"Zn": 0.012, "Sn": 0.012, "Fe": 0.005}]
+    cal, (lt, st, sm, std, truth) = _cal(seed=10, unknown_contents=unk, n_unknowns=2)
+    q = quantify((lt, st, sm), cal, run_sha256="run-a")
+    r = q.results.set_index(["sample_id", "element"])
+    assert "above_range" in r.loc[("UNK-1", "Zn"), "flags"]
+    assert "below_range" in r.loc[("UNK-2", "Zn"), "flags"]
+    assert "above_range" not in r.loc[("UNK-1", "Sn"), "flags"]
+    # coverage = "student": k = t_0.975(nu_eff) >= 2, reported per row (GUM G.4)
+    cal.settings["coverage"] = "student"
+    q2 = quantify((lt, st, sm), cal, run_sha256="run-a")
+    from scipy import stats
+
+    np.testing.assert_allclose(q2.results["k"], stats.t.ppf(0.975, q2.results["dof"].clip(lower=1)))
+    assert (q.results["k"] == 2).all()
+    assert np.allclose(q2.results["U"], q2.results["k"] * q2.results["u"])
