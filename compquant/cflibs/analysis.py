@@ -646,7 +646,7 @@ class _Analysis:
     # -- detection -----------------------------------------------------------------------
     def detection(self, sol):
         """Per-line SA estimates that do not change the result, each with a standard
-        uncertainty so that only significant departures are flagged (docs: detection).
+        uncertainty so that only significant departures (> 3u) are flagged (docs: detection).
 
         * ``sa_ratio``: intensity ratio to the species' most nearly thin line (smallest
           λ³ g_k A_ki e^{−E_i/kT} among lines measured to ≤ 10 %) over the optically thin
@@ -874,7 +874,7 @@ class _Analysis:
             significant = [v for v, u in ((det["sa_cog"][i], det["u_sa_cog"][i]),
                                           (det["sa_ratio"][i], det["u_sa_ratio"][i]),
                                           (det["sa_width"][i], det["u_sa_width"][i]))
-                           if np.isfinite(v) and v < lim and (1.0 - v) > 2.0 * (u if np.isfinite(u) else 0.0)]
+                           if np.isfinite(v) and v < lim and (1.0 - v) > 3.0 * (u if np.isfinite(u) else 0.0)]
             if self.sa[i] < lim or (significant and self.s.self_absorption in ("detect", "none")):
                 fl.append("self_absorbed")
             if self.sa[i] <= self.s.sa_min_factor + 1e-12:
