@@ -370,13 +370,28 @@ def sample_figures(
             FigureItem("Mean spectrum of the sample with the analytical lines used (dashed).", "", "spectrum", png)
         )
     by_el = {r.element: r for r in rows}
+
+    def marked(row, c) -> bool:
+        return (
+            row is not None
+            and not row.below_lod
+            and finite(row.mass_fraction)
+            and (c.basis != "ratio" or bool(matrix_w))
+        )
+
     for el, c in curves.items():
         png = curve_figure(c, by_el.get(el), matrix_w)
         if png is not None:
             items.append(
                 FigureItem(
-                    f"Calibration curve for {el} ({c.line_id}) with this sample marked.",
-                    "Error bars: expanded uncertainties (k = 2) of the standards.",
+                    f"Calibration curve for {el} ({c.line_id})"
+                    + (" with this sample marked." if marked(by_el.get(el), c) else "."),
+                    "Error bars: expanded uncertainties (k = 2) of the standards."
+                    + (
+                        ""
+                        if marked(by_el.get(el), c)
+                        else " The sample is below the limit of detection or not determined, so it is not marked."
+                    ),
                     "calibration",
                     png,
                 )
