@@ -155,7 +155,6 @@ def user_loop(run: Run, method, rows: np.ndarray) -> tuple[float, np.ndarray]:
     wl = run.wavelength
     dark = np.median(run.dark(), axis=0)
     resp = run.response()
-    pitch = float(np.median(np.diff(wl)))
     win = method.measure.window_nm
     side = method.measure.side_nm
     centres = [ln.wavelength_nm for ln in method.lines]
@@ -174,7 +173,6 @@ def user_loop(run: Run, method, rows: np.ndarray) -> tuple[float, np.ndarray]:
             p1, p0 = np.polyfit(wl[sel] - c, y[sel], 1)
             ua, ub = a - c, b - c
             out[k, j] = area - (p0 * (ub - ua) + 0.5 * p1 * (ub**2 - ua**2))
-    del pitch
     return _since(t), out
 
 

@@ -159,6 +159,7 @@ def test_internal_standard_normalisation(run_path):
         lm = measure_run(run, m)
     t = lm.table[lm.table.sample_id == "STD"].set_index("line_id")
     assert t.loc["Cu I 327.396", "intensity"] == pytest.approx(1.0, rel=1e-12)
+    assert t.loc["Cu I 327.396", "flags"] == ""  # the normalising line is exact, not "not found"
     ratio = t.loc["Cu I 324.754", "intensity"]
     assert 1.2 < ratio < 2.0  # 400/250 in areas, window-limited
 

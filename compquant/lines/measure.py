@@ -698,8 +698,13 @@ def _aggregate(
                     flags.add("not_found")
                 expected = ln.wavelength_nm + d
                 centre_tol = max(flag_nm, 0.5 * fwhm) if np.isfinite(fwhm) else flag_nm
-            snr = intensity / u if (u and np.isfinite(u) and u > 0) else float("nan")
-            if not np.isfinite(snr) or snr < meas.snr_detect:
+            if np.isfinite(u) and u > 0:
+                snr = intensity / u
+            elif u == 0 and np.isfinite(intensity) and intensity > 0:
+                snr = float("inf")  # exact by construction (the normalising line itself)
+            else:
+                snr = float("nan")
+            if np.isnan(snr) or snr < meas.snr_detect:
                 flags.add("not_found")
                 if ln.mode == "window":  # a peak position in noise means nothing
                     centre = fwhm = float("nan")
