@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import periodictable
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from compquant.calibrate.standards import ELEMENT_SYMBOLS, load_standards
 from compquant.errors import StandardsError
@@ -87,3 +89,23 @@ def test_bad_header_and_empty(tmp_path):
         load_standards(e)
     with pytest.raises(Exception, match="not found"):
         load_standards(tmp_path / "nope.csv")
+
+
+_FIELD = st.one_of(st.sampled_from(["", "Zn", "zn", "Cu", "%", "mg/kg", "g/g", "ppb", "-1", "0", "2",
+                                    "1e400", "nan", "0.5", "abc", '"a,b"']),
+                   st.text(alphabet=st.characters(blacklist_categories=("Cs",)), max_size=6))
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(rows=st.lists(st.lists(_FIELD, min_size=6, max_size=9), min_size=1, max_size=4))
+def test_fuzzed_rows_never_escape_the_error_family(tmp_path, rows):
+    # any file either loads into finite, valid values or raises StandardsError (never another error)
+    p = tmp_path / "fuzz.csv"
+    p.write_text(HEADER + "\n".join(",".join(r) for r in rows) + "\n", encoding="utf-8")
+    try:
+        df = load_standards(p)
+    except StandardsError as exc:
+        assert exc.where and "fuzz.csv" in exc.one_line()
+        return
+    assert (df["mass_fraction"] >= 0).all() and (df["mass_fraction"] <= 1).all()
+    assert (df["k"] > 0).all() and df["u"].notna().all()
