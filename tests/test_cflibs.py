@@ -384,3 +384,16 @@ def test_json_round_trip():
     back = CFResult.from_json(text)
     assert back.mass_fractions() == pytest.approx(r.mass_fractions())
     assert back.temperature_k == r.temperature_k and back.lte == r.lte
+
+
+def test_demo_method_cf_section_is_valid():
+    # the demo method's [cf] table passes the owner's validation (docs/calibration-free.md §10)
+    from pathlib import Path
+
+    from compquant.method import load_method
+
+    path = Path(__file__).resolve().parents[1] / "demo_runs" / "method.toml"
+    if not path.exists():
+        pytest.skip("no demo method in this checkout")
+    s = CFSettings.from_section(load_method(path).sections["cf"], where="demo [cf]")
+    assert s.self_absorption == "columnar" and s.resolving_power == 2600.0

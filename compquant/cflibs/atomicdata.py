@@ -161,10 +161,17 @@ class TableAtomicData:
         return self._lines
 
 
+_DEFAULT: list = []
+
+
 def default_atomic_data():
-    """The shipped atomic data (:class:`PackageAtomicData`)."""
+    """The shipped atomic data (:class:`PackageAtomicData`), one shared instance so that its
+    partition-function tables are built once per process."""
+    if _DEFAULT:
+        return _DEFAULT[0]
     try:
-        return PackageAtomicData()
+        _DEFAULT.append(PackageAtomicData())
+        return _DEFAULT[0]
     except ImportError as exc:
         raise AtomicDataError("the atomic-data module compquant.atomic is not installed",
                               where="compquant.atomic",
