@@ -12,12 +12,14 @@ from __future__ import annotations
 
 import ast
 import csv
+import hashlib
 import io
 import json
 import re
 from pathlib import Path
 
 import numpy as np
+import pytest
 from bad_inputs.base import LAB_TOML, METHOD_TOML, SPEC_TOML, STANDARDS_CSV, base_arrays
 from click.testing import CliRunner
 from pypdf import PdfReader
@@ -80,7 +82,9 @@ def _build(tmp: Path) -> dict:
     return files
 
 
-def test_hostile_sample_ids_stay_inside_and_literal(tmp_path):
+@pytest.fixture(scope="module")
+def hostile(tmp_path_factory):
+    tmp_path = tmp_path_factory.mktemp("hostile")
     files = _build(tmp_path)
     before = {p for p in tmp_path.rglob("*")}
     out = tmp_path / "box" / "out"
@@ -105,6 +109,11 @@ def test_hostile_sample_ids_stay_inside_and_literal(tmp_path):
         ],
     )
     assert r.exit_code == 0, r.output
+    return tmp_path, files, out, before
+
+
+def test_hostile_sample_ids_stay_inside_and_literal(hostile):
+    tmp_path, files, out, before = hostile
     new = {p for p in tmp_path.rglob("*")} - before
     for p in new:
         assert p.resolve().is_relative_to(out.resolve()), f"written outside the output folder: {p}"
@@ -128,6 +137,22 @@ def test_hostile_sample_ids_stay_inside_and_literal(tmp_path):
     # the markup id did not change the structure: same page count as a plain id's certificate
     pages = {certs[s]["pages"] for s in ("..", HOSTILE[5])}
     assert len(pages) == 1
+
+
+def test_provenance_hashes_are_those_of_the_files(hostile):
+    """Every certificate names each input and the calibration it wrote with the file's SHA-256
+    (hashlib, FIPS 180-4), so a certificate can be traced to the exact bytes it came from."""
+    _, files, out, _ = hostile
+    by_name = {p.name: p for p in files.values()} | {"calibration.json": out / "calibration.json"}
+    summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    for c in summary["certificates"]:
+        doc = json.loads((out / c["json"]).read_text(encoding="utf-8"))
+        prov = doc["provenance"]
+        roles = {f["role"] for f in prov["files"]}
+        assert {"run", "method", "standards", "lab profile", "specification"} <= roles
+        for f in prov["files"]:
+            assert f["sha256"] == hashlib.sha256(by_name[f["name"]].read_bytes()).hexdigest(), f
+        assert prov["run_sha256"] == hashlib.sha256(files["run"].read_bytes()).hexdigest()
 
 
 # ------------------------------------------------------------------ no code execution from inputs
