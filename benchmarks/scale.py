@@ -130,10 +130,10 @@ def serial_child(run_path: str, method_path: str, chunk: int, q) -> None:
 
     method = load_method(method_path)
     with Run.open(run_path) as run:
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         lm = measure_run(run, method, chunk_shots=chunk)
-        dt = time.perf_counter() - t0
-    q.put((dt, peak_rss_bytes(), lm.table))
+        dt, cpu = time.perf_counter() - t0, time.process_time() - c0
+    q.put((dt, cpu, peak_rss_bytes(), lm.table))
 
 
 class PeakMemory:
@@ -207,19 +207,26 @@ def main(argv=None) -> int:
     q = ctx.Queue()
     p = ctx.Process(target=serial_child, args=(str(run_path), str(method_path), args.chunk_shots, q))
     p.start()
-    t_ser, rss_ser, table_ser = q.get()
+    t_ser, cpu_ser, rss_ser, table_ser = q.get()
     p.join()
-    print(f"serial: {t_ser:.1f} s, {args.shots / t_ser:,.0f} shots/s, peak memory {rss_ser / 2**20:,.0f} MiB")
+    print(
+        f"serial: {t_ser:.1f} s, {args.shots / t_ser:,.0f} shots/s, peak memory {rss_ser / 2**20:,.0f} MiB; "
+        f"CPU {cpu_ser:.1f} s ({args.shots / cpu_ser:,.0f} shots per CPU-second)"
+    )
     load_ser = os.getloadavg()[0]
 
     method = load_method(method_path)
     with open_executor(workers=args.workers) as ex, Run.open(run_path) as run:
         ex.client.run(importlib.import_module, "compquant.lines")  # imports on every worker before timing
         pids = list(ex.client.run(os.getpid).values())
+        cpu0 = _cpu_seconds(pids + [os.getpid()])
         with PeakMemory(pids) as mem:
             t0 = time.perf_counter()
             lm = measure_run_on(ex, run, method, chunk_shots=args.chunk_shots)
             t_par = time.perf_counter() - t0
+        cpu1 = _cpu_seconds(pids + [os.getpid()])
+        cpu_w = [cpu1[p] - cpu0[p] for p in pids]
+        cpu_client = cpu1[os.getpid()] - cpu0[os.getpid()]
         load_par = os.getloadavg()[0]
         rss_workers = sorted(mem.peak.values())
         same = lm.table.equals(table_ser)
@@ -248,6 +255,10 @@ def main(argv=None) -> int:
             f"map (measure + grid + HDF5/PNG, {args.workers} workers): {t_map:.1f} s, "
             f"{1000 * t_map / args.shots * 1000:.1f} ms per 1,000 shots"
         )
+    print(
+        f"CPU seconds: workers {', '.join(f'{c:.1f}' for c in cpu_w)}, client {cpu_client:.1f}; "
+        f"CPU-bound ratio (serial CPU / busiest process) {cpu_ser / max(max(cpu_w), cpu_client):.2f}x"
+    )
     print(f"load average during serial / parallel: {load_ser:.2f} / {load_par:.2f}")
     if args.append_docs:
         _append_docs(
@@ -264,17 +275,49 @@ def main(argv=None) -> int:
             load_ser,
             load_par,
             same,
+            cpu_ser,
+            cpu_w,
+            cpu_client,
         )
     return 0
 
 
+def _cpu_seconds(pids) -> dict:
+    """User + system CPU seconds used so far by each process."""
+    import psutil
+
+    out = {}
+    for pid in pids:
+        t = psutil.Process(pid).cpu_times()
+        out[pid] = t.user + t.system
+    return out
+
+
 def _append_docs(
-    args, raw_gb, size_gb, t_ser, rss_ser, t_par, ratio, rss_workers, rss_client, t_map, load_ser, load_par, same
+    args,
+    raw_gb,
+    size_gb,
+    t_ser,
+    rss_ser,
+    t_par,
+    ratio,
+    rss_workers,
+    rss_client,
+    t_map,
+    load_ser,
+    load_par,
+    same,
+    cpu_ser,
+    cpu_w,
+    cpu_client,
 ) -> None:
     doc = ROOT / "docs" / "performance.md"
     text = doc.read_text() if doc.exists() else "# Performance\n"
-    if "\n## Scale\n" not in text:
-        text = text.rstrip() + "\n\n## Scale\n\nFigures of `benchmarks/scale.py` (docs/scale.md).\n"
+    if "\n## Scale" not in text:
+        text = (
+            text.rstrip()
+            + "\n\n## Scale (`benchmarks/scale.py`)\n\nFigures of `benchmarks/scale.py` (docs/scale.md).\n"
+        )
     stamp = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
     mp_ = (
         ""
@@ -282,8 +325,8 @@ def _append_docs(
         else f"| map, {args.workers} workers (measure + grid + HDF5/PNG) | "
         f"{1e6 * t_map / args.shots:.1f} ms per 1,000 shots | |\n"
     )
-    text += (
-        f"\n### {args.shots:,} shots x {N_PIXELS} pixels uint16 ({raw_gb:.2f} GB raw, "
+    entry = (
+        f"\n### {args.shots:,} shots x {N_PIXELS:,} pixels uint16 ({raw_gb:.2f} GB raw, "
         f"{size_gb:.2f} GB {args.compression}), {stamp}\n\n"
         f"Machine: {os.cpu_count()} cores **shared with other engineers' jobs** (load average "
         f"{load_ser:.1f} during the serial pass, {load_par:.1f} during the parallel one), so the ratio is a lower "
@@ -297,9 +340,17 @@ def _append_docs(
         f"| peak memory of the client | {rss_client / 2**20:,.0f} MiB | |\n"
         f"{mp_}"
         f"| serial and distributed line tables identical | {same} | exact |\n"
+        f"| CPU seconds: serial; per worker; client | {cpu_ser:.0f}; {', '.join(f'{c:.0f}' for c in cpu_w)}; "
+        f"{cpu_client:.0f} | |\n"
+        f"| CPU-bound ratio (serial CPU / busiest process) | {cpu_ser / max(max(cpu_w), cpu_client):.2f}x | |\n"
     )
-    doc.write_text(text)
-    print(f"appended to {doc}")
+    # newest first within the section: insert before the section's first entry
+    sec = text.index("\n## Scale")
+    nxt = text.find("\n### ", sec)
+    end = text.find("\n## ", sec + 1)
+    at = nxt if nxt >= 0 and (end < 0 or nxt < end) else (end if end >= 0 else len(text))
+    doc.write_text(text[:at].rstrip() + "\n" + entry + text[at:])
+    print(f"added to {doc}")
 
 
 if __name__ == "__main__":

@@ -196,22 +196,22 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].",
 )
 @click.option(
-    "--threads",
-    type=click.IntRange(1, 64),
-    default=1,
-    show_default=True,
-    help="Worker threads (numpy releases the GIL; results are identical).",
-)
-@click.option(
     "--workers",
     type=int,
     default=None,
     help="Start a local Dask cluster of N worker processes (loopback only) and compute there.",
 )
 @click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option(
+    "--threads",
+    type=click.IntRange(1, 64),
+    default=1,
+    show_default=True,
+    help="Worker threads in this process (numpy releases the GIL; results are identical).",
+)
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
 def command(
-    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, threads, workers, scheduler, quiet
+    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, threads, quiet
 ):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
