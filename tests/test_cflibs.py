@@ -262,7 +262,7 @@ def test_fixed_content_and_missing_element():
     assert sum(v for k, v in r.mass_fractions().items() if k != "Mn") == pytest.approx(1.0)
 
 
-def _self_absorbed_table():
+def _self_absorbed_table(fallback_fwhm_nm: float = 0.0):
     """Hand LTE intensities × the slab curve of growth (plasma's absorption coefficient,
     Voigt peak, and the Ladenburg–Reiche-checked SA integral); Stark widths on five lines."""
     T, ne, L_cm = 10000.0, 5e16, 0.05
@@ -278,7 +278,7 @@ def _self_absorbed_table():
     for i, r in lt.iterrows():
         sp = r["line_id"].rsplit(" ", 1)[0]
         wg = float(doppler_fwhm(r["wavelength_nm"], T, cf_hand.MASSES[r["element"]]))
-        wl = stark.get(r["line_id"], 0.0) * ne / 1e16
+        wl = stark[r["line_id"]] * ne / 1e16 if r["line_id"] in stark else fallback_fwhm_nm * ne / 1e17
         n_low = dens[sp] * scale / cf_hand.u_of(sp, T) * math.exp(-r["ei_ev"] / (cf_hand.KB_EV * T))
         tau = float(line_absorption_integrated(r["wavelength_nm"], r["aki"], 1.0, 1.0, n_low, T)
                     * voigt(0.0, 0.0, wg, wl)) * L_cm * 1e-2
@@ -320,6 +320,22 @@ def test_stark_line_density_and_self_absorption_correction():
     err_col = max(abs(col.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
     assert col.self_absorption["plasma_length_mm"] == pytest.approx(0.5, rel=0.02)
     assert err_col < 0.02 < err_thin
+
+
+def test_assumed_stark_width_for_lines_without_data():
+    # the slab's lines without Stark data have a Lorentzian FWHM of 0.02 nm at 1e17 cm⁻³; the
+    # correction recovers the truth only when [cf] assumes the same width for them
+    lt, sa_true, w_instr = _self_absorbed_table(fallback_fwhm_nm=0.02)
+    base = {"mc_draws": 0, "instrument_fwhm_nm": w_instr, "ne_method": "stark",
+            "self_absorption": "curve_of_growth", "plasma_length_mm": 0.5}
+    r = quiet(line_table=lt, atomic=cf_hand.atomic(), settings={**base, "stark_fallback_fwhm_nm": 0.02})
+    for e, w in W_TRUE.items():
+        assert r.element(e).mass_fraction == pytest.approx(w, rel=0.01)
+    got = {ln["line_id"]: ln["sa_factor"] for ln in r.lines}
+    assert all(got[k] == pytest.approx(sa_true[k], rel=5e-3) for k in got)
+    doppler_only = quiet(line_table=lt, atomic=cf_hand.atomic(), settings=base)
+    err = max(abs(doppler_only.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
+    assert err > 0.01
 
 
 def test_reference_line_method_reduces_self_absorption_error():

@@ -221,8 +221,9 @@ class _Analysis:
     def lorentz_thin(self, T, ne, sa):
         """Thin-line Stark FWHM per line for the absorption profile.
 
-        From the line's Stark parameters at nₑ; lines without them get none (Doppler-only
-        absorption profile, as in the forward model) unless ``[cf] sa_width_from_measured``
+        From the line's Stark parameters at nₑ; lines without them get ``[cf]
+        stark_fallback_fwhm_nm`` at ``stark_fallback_ne_cm3`` (scaled linearly with nₑ) when
+        given, else none (Doppler-only absorption profile) unless ``[cf] sa_width_from_measured``
         asks to take the Lorentzian part of the measured FWHM (less the El Sherbini
         broadening by self-absorption) — measured widths of self-absorbed Doppler-dominated
         lines are broadened in a way no Lorentzian explains, so this is off by default.
@@ -233,6 +234,10 @@ class _Analysis:
         t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
         wl[have] = stark_width_linear(ne, L.stark_w[have], L.stark_ne[have], T, t_ref[have],
                                       self.s.stark_t_exponent, L.stark_p[have])
+        if self.s.stark_fallback_fwhm_nm:
+            # assumed Stark FWHM for lines without data, linear in nₑ ([cf] stark_fallback_*)
+            wl[~have] = self.s.stark_fallback_fwhm_nm * ne / self.s.stark_fallback_ne_cm3
+            return wl
         meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0) & bool(self.s.sa_width_from_measured)
         if np.any(meas):
             wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
@@ -572,6 +577,11 @@ class _Analysis:
             self.sa, sol, tau, ne_name, ne_est, length_cm, chi = self.selfabs_corrected(None, ne_pick, True)
             self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
                                 chi2_thin=chi_thin, chi2_fitted=chi)
+            if not (1.01e-6 < length_cm < 0.99 * 10.0):
+                self.flags.append("sa_length_at_bound")
+                self._warn(f"fitted plasma length {length_cm * 10:.3g} mm is at the limit of the search: "
+                           "the self-absorption model does not describe these lines well (check the "
+                           "Stark widths assumed for the absorption profile)")
         elif mode == "detect":
             self.detect_linear_cog(sol)
         elif mode == "reference_line":
@@ -981,7 +991,15 @@ def analyse_cf(
     sid, rows = _select_sample(line_table, sample_id, where or "line table")
     where = where or f"sample {sid}"
     atomic = atomic if atomic is not None else default_atomic_data()
+    double = one_point is not None and s.self_absorption in ("curve_of_growth", "columnar", "reference_line")
+    if double:  # the one-point factors already hold the self-absorption at the standard's conditions
+        import dataclasses
+
+        s = dataclasses.replace(s, self_absorption="detect")
     a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where)
+    if double:
+        a._warn("one-point calibration applied: self-absorption correction switched to detection only "
+                "(the factors already carry the standard's self-absorption)")
     return a.run(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
 
 

@@ -45,6 +45,8 @@ class CFSettings:
     plasma_length_mm: float | None = None
     sa_flag_below: float = 0.9
     sa_width_from_measured: bool = False
+    stark_fallback_fwhm_nm: float | None = None
+    stark_fallback_ne_cm3: float = 1.0e17
     sa_min_factor: float = 0.1
     fixed: dict[str, float] = field(default_factory=dict)
     missing: str = "omit"
@@ -111,7 +113,8 @@ class CFSettings:
 _FLOAT_POS = {"ne_fixed_u_rel", "u_rel_fwhm", "h_alpha_relation_u_rel", "stark_param_u_rel",
               "u_rel_floor", "t_start_k", "t_min_k", "t_max_k", "lte_f", "lte_gaunt",
               "lte_transient_ratio", "lte_diffusion_ratio"}
-_FLOAT_POS_OPT = {"ne_fixed_cm3", "plasma_length_mm", "gradient_length_mm", "resolving_power"}
+_FLOAT_POS_OPT = {"ne_fixed_cm3", "plasma_length_mm", "gradient_length_mm", "resolving_power",
+                  "stark_fallback_fwhm_nm", "stark_fallback_ne_cm3"}
 _FLOAT_NONNEG_OPT = {"instrument_fwhm_nm"}
 _FRACTION = {"sa_flag_below", "sa_min_factor"}
 
