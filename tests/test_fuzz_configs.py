@@ -102,6 +102,7 @@ _cell = st.one_of(
 )
 
 
+@pytest.mark.fuzz
 @FUZZ
 @given(
     edits=st.lists(st.tuples(st.integers(0, 12), st.integers(0, 9), _cell), min_size=1, max_size=5),
@@ -158,6 +159,7 @@ LAB = tomllib.loads(LAB_TOML)
 SPEC = tomllib.loads(SPEC_TOML + '\n[limits.Cu]\nmin = 55.0\nunit = "%"\n[limits.Pb]\nremainder = true\n')
 
 
+@pytest.mark.fuzz
 @FUZZ
 @given(data=st.data())
 def test_fuzz_lab_profiles(env, data):
@@ -168,6 +170,7 @@ def test_fuzz_lab_profiles(env, data):
     _ok_or_clean_error(lambda: load_lab_profile(p))
 
 
+@pytest.mark.fuzz
 @FUZZ
 @given(data=st.data())
 def test_fuzz_specifications(env, data):
@@ -211,6 +214,7 @@ def _paths(obj, prefix=()):
             yield from _paths(v, prefix + (i,))
 
 
+@pytest.mark.fuzz
 @FUZZ
 @given(
     ops=st.lists(st.tuples(st.integers(0, 10**6), st.sampled_from(["set", "delete"]), _value), min_size=1, max_size=3)
