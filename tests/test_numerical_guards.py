@@ -210,3 +210,49 @@ def test_calibration_free_far_outside_the_plasma_range_is_a_clear_error(tmp_path
 
 def test_compquant_error_is_the_only_failure_kind():
     assert issubclass(CalibrationError, CompquantError) and issubclass(PhysicsError, CompquantError)
+
+
+def test_quantify_provenance_is_strict_json(tmp_path):
+    """The results provenance of `compquant quantify` is strict JSON (RFC 8259 has no NaN or
+    Infinity): a missing estimate is null."""
+    wl, spectra, samples, idx, dark = base_arrays(zn_signal=lambda ratio: 0.3)
+    run = write_run(tmp_path / "run.h5", wl, spectra, samples, idx, dark=dark, saturation=65535, created="x")
+    (tmp_path / "m.toml").write_text(METHOD_TOML, encoding="utf-8")
+    (tmp_path / "s.csv").write_text(STANDARDS_CSV, encoding="utf-8")
+    cal = tmp_path / "cal.json"
+    r = CliRunner().invoke(
+        main,
+        [
+            "calibrate",
+            str(run),
+            "--method",
+            str(tmp_path / "m.toml"),
+            "--standards",
+            str(tmp_path / "s.csv"),
+            "-o",
+            str(cal),
+            "--quiet",
+        ],
+    )
+    if r.exit_code == 2:
+        _one_line_error(r)
+        return
+    assert r.exit_code == 0, r.output
+    json.loads(cal.read_text(encoding="utf-8"), parse_constant=_reject_constant)
+    out = tmp_path / "res.csv"
+    r = CliRunner().invoke(
+        main,
+        [
+            "quantify",
+            str(run),
+            "--calibration",
+            str(cal),
+            "--method",
+            str(tmp_path / "m.toml"),
+            "-o",
+            str(out),
+            "--quiet",
+        ],
+    )
+    assert r.exit_code == 0, r.output
+    json.loads((tmp_path / "res-provenance.json").read_text(encoding="utf-8"), parse_constant=_reject_constant)
