@@ -138,6 +138,7 @@ def analyse(
     chunk_shots: int | None = None,
     memory_limit_bytes: int | None = None,
     progress=None,
+    chunk_mapper=None,
 ) -> AnalysisOutput:
     """Run the whole analysis and write the certificates (see the module docstring).
 
@@ -153,6 +154,8 @@ def analyse(
     issued_at : issue time (ISO 8601 UTC or datetime); default now.
     figures : draw the figures (spectrum, calibration curves or Boltzmann plot).
     progress : callable ``(stage, done, total)`` for progress display.
+    chunk_mapper : compute the line-measurement chunks elsewhere, e.g. on Dask workers
+        (:func:`compquant.parallel.chunk_mapper`); the numbers are the same.
     """
     modes = sum([standards is not None, calibration is not None, bool(cf)])
     if modes != 1:
@@ -200,7 +203,7 @@ def analyse(
             tick("measure", min(done[0], total), total)
 
         tick("measure", 0, total)
-        meas = measure_run(run, method, chunk_shots=chunk_shots, progress=on_chunk)
+        meas = measure_run(run, method, chunk_shots=chunk_shots, progress=on_chunk, chunk_mapper=chunk_mapper)
         tick("measure", total, total)
         instrument = dict(run.instrument or {})
         acquisition = dict(run.acquisition or {})

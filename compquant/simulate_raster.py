@@ -200,3 +200,234 @@ def distinct_compositions(comp: Mapping[str, np.ndarray], decimals: int = 9) -> 
 
 
 __all__ = ["DiffusionProfile", "Inclusion", "RasterSample", "distinct_compositions"]
+
+
+# --------------------------------------------------------------------------- simulation
+
+#: nodes simulated per block (bounded memory: block x shots_per_spot x n_pixels x 8 bytes)
+BLOCK_NODES = 2048
+
+_RASTER_KEYS = frozenset(
+    {
+        "scenario",
+        "sample_id",
+        "description",
+        "matrix",
+        "balance",
+        "nx",
+        "ny",
+        "step_mm",
+        "x0_mm",
+        "y0_mm",
+        "shots_per_spot",
+        "serpentine",
+        "include_scenario_samples",
+        "inclusions",
+        "profiles",
+    }
+)
+_INCLUSION_KEYS = frozenset({"x_mm", "y_mm", "radius_mm", "composition"})
+_PROFILE_KEYS = frozenset({"element", "surface_fraction", "edge_mm", "length_mm", "axis", "direction"})
+
+
+def load_raster(path):
+    """Read a raster file: ``(scenario, RasterSample, include_scenario_samples)``.
+
+    The file has one ``[raster]`` table naming a simulation scenario (instrument, plasma,
+    laser, detector and the other samples; docs/scenario.md) and describing the rastered
+    sample; ``[[raster.inclusions]]`` and ``[[raster.profiles]]`` add features (see
+    docs/scale.md).
+    """
+    from pathlib import Path
+
+    from compquant.fileio import check_keys, load_toml
+    from compquant.simulate.scenario import load_scenario
+
+    path = Path(path)
+    doc = load_toml(path, "raster file")
+    w = f"{path}: [raster]"
+    check_keys(doc, {"raster"}, str(path), required={"raster"})
+    r = doc["raster"]
+    check_keys(r, _RASTER_KEYS, w, required={"scenario", "sample_id", "matrix", "balance", "nx", "ny", "step_mm"})
+    sc = load_scenario((path.parent / str(r["scenario"])).resolve())
+
+    def num(t, k, where, default=None, integer=False):
+        v = t.get(k, default)
+        ok = isinstance(v, int | float) and not isinstance(v, bool) and np.isfinite(v)
+        if not ok or (integer and float(v) != int(v)):
+            raise ConfigError(
+                f"{k} = {v!r} is not a {'whole ' if integer else ''}number",
+                where=f"{where} {k}",
+                fix="write a plain number",
+            )
+        return int(v) if integer else float(v)
+
+    incs = []
+    for k, t in enumerate(r.get("inclusions", [])):
+        wi = f"{w} inclusions[{k}]"
+        check_keys(t, _INCLUSION_KEYS, wi, required=_INCLUSION_KEYS)
+        incs.append(Inclusion(num(t, "x_mm", wi), num(t, "y_mm", wi), num(t, "radius_mm", wi), dict(t["composition"])))
+    profs = []
+    for k, t in enumerate(r.get("profiles", [])):
+        wp = f"{w} profiles[{k}]"
+        check_keys(t, _PROFILE_KEYS, wp, required={"element", "surface_fraction", "edge_mm", "length_mm"})
+        profs.append(
+            DiffusionProfile(
+                str(t["element"]),
+                num(t, "surface_fraction", wp),
+                num(t, "edge_mm", wp),
+                num(t, "length_mm", wp),
+                str(t.get("axis", "x")),
+                num(t, "direction", wp, 1, integer=True),
+            )
+        )
+    sample = RasterSample(
+        sample_id=str(r["sample_id"]),
+        matrix=dict(r["matrix"]),
+        balance=str(r["balance"]),
+        nx=num(r, "nx", w, integer=True),
+        ny=num(r, "ny", w, integer=True),
+        step_mm=num(r, "step_mm", w),
+        x0_mm=num(r, "x0_mm", w, 0.0),
+        y0_mm=num(r, "y0_mm", w, 0.0),
+        shots_per_spot=num(r, "shots_per_spot", w, 1, integer=True),
+        serpentine=bool(r.get("serpentine", False)),
+        inclusions=incs,
+        profiles=profs,
+        description=str(r.get("description", "rastered sample (simulated)")),
+    )
+    return sc, sample, bool(r.get("include_scenario_samples", True))
+
+
+def simulate_raster_run(
+    scenario,
+    sample: RasterSample,
+    output,
+    *,
+    seed: int | None = None,
+    noise: bool = True,
+    include_scenario_samples: bool = True,
+) -> dict:
+    """Write a run: the scenario's samples (spot measurements, positions NaN) then the raster.
+
+    Uses the scenario's forward model, detector and per-shot plasma fluctuations
+    (:mod:`compquant.simulate.engine`). The raster's random stream is its own (seeded from
+    the run seed), so the scenario samples' shots equal those of ``compquant simulate``.
+    Returns ``{"path", "n_shots", "n_raster_shots", "first_raster_shot", "elements"}``; the
+    true composition at any position is ``sample.composition_at(x, y)``.
+    """
+    from compquant.run import RunWriter
+    from compquant.simulate.engine import (
+        build_model,
+        detector_of,
+        shot_conditions,
+        simulate_arrays,
+        stored_response,
+        true_response,
+        wavelength_axis,
+    )
+
+    sc = scenario
+    seed = sc.seed if seed is None else int(seed)
+    wl = wavelength_axis(sc)
+    model = build_model(sc, wl + sc.drift["wavelength_shift_nm"])
+    det = detector_of(sc)
+    resp_true = true_response(sc, wl)
+    pattern = det.bias_pattern(
+        wl.size, np.random.default_rng(np.random.SeedSequence([sc.instrument["pattern_seed"], 7919]))
+    )
+    base = simulate_arrays(sc, seed, noise) if include_scenario_samples else None
+    n_base = 0 if base is None else int(base["spectra"].shape[0])
+    n_raster = sample.n_shots
+    n = n_base + n_raster
+    samples = []
+    if include_scenario_samples:
+        samples = [
+            {"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref, "description": s.description}
+            for s in sc.samples
+        ]
+    if sample.sample_id in {s["sample_id"] for s in samples}:
+        raise ConfigError(
+            f"raster sample id {sample.sample_id!r} is already a scenario sample",
+            where="[raster] sample_id",
+            fix="give the rastered sample its own id",
+        )
+    samples.append(
+        {"sample_id": sample.sample_id, "role": "unknown", "standard_ref": "", "description": sample.description}
+    )
+    index = np.concatenate(
+        [base["sample_index"] if base else np.zeros(0, np.int32), np.full(n_raster, len(samples) - 1, dtype=np.int32)]
+    )
+    xr, yr = sample.shot_positions()
+    x = np.concatenate([np.full(n_base, np.nan), xr])
+    y = np.concatenate([np.full(n_base, np.nan), yr])
+    rng = np.random.default_rng(np.random.SeedSequence([seed, 104729]))
+    e, t, ne, f = shot_conditions(sc, n_raster, rng, noise)
+    la = sc.laser
+    t0 = float(base["time_s"][-1]) + sc.sample_interval_s if base else 0.0
+    t_raster = t0 + np.arange(n_raster) / la["repetition_rate_hz"]
+    times = np.concatenate([base["time_s"] if base else np.zeros(0), t_raster])
+    energy = np.concatenate([base["pulse_energy_mj"] if base else np.zeros(0), np.round(e, 4)])
+    dark = base["dark"] if base else None
+    if dark is None and sc.dark_frames:
+        dark = det.dark_frames(sc.dark_frames, wl.size, pattern, rng, noise)
+    acquisition = {
+        "technique": "LIBS",
+        "gate_delay_us": sc.instrument["gate_delay_us"],
+        "gate_width_us": sc.instrument["gate_width_us"],
+        "laser_wavelength_nm": la["wavelength_nm"],
+        "pulse_energy_mj": la["pulse_energy_mj"],
+        "spot_size_um": la["spot_diameter_um"],
+        "repetition_rate_hz": la["repetition_rate_hz"],
+        "atmosphere": sc.instrument["atmosphere"],
+        "accumulations": 1,
+        "raster_step_mm": sample.step_mm,
+    }
+    instrument = {
+        "name": sc.instrument["name"],
+        "simulated": True,
+        "simulator": "compquant simulate-raster",
+        "scenario": sc.id,
+        "seed": seed,
+    }
+    sp = sample.shots_per_spot
+    with RunWriter(
+        output,
+        wl,
+        n,
+        samples,
+        index,
+        dtype="uint16",
+        dark=dark,
+        response=stored_response(sc, wl),
+        saturation=float(det.saturation_counts),
+        exposure_s=det.exposure_s,
+        dark_exposure_s=det.exposure_s,
+        pulse_energy_mj=energy,
+        time_s=times,
+        x_mm=x,
+        y_mm=y,
+        instrument=instrument,
+        acquisition=acquisition,
+    ) as w:
+        if base:
+            w.write_spectra(0, base["spectra"])
+        for a in range(0, n_raster, BLOCK_NODES * sp):
+            b = min(n_raster, a + BLOCK_NODES * sp)
+            comp = sample.composition_at(xr[a:b], yr[a:b])
+            groups, which = distinct_compositions(comp)
+            rad = np.empty((b - a, wl.size))
+            for g, c in enumerate(groups):
+                m = which == g
+                rad[m] = model.radiance(c, t[a:b][m], ne[a:b][m], length_mm=sc.plasma["length_mm"], scale=f[a:b][m])
+            w.write_spectra(n_base + a, det.digitise(det.mean_photoelectrons(rad, resp_true), pattern, rng, noise))
+    return {
+        "path": str(output),
+        "n_shots": n,
+        "n_raster_shots": n_raster,
+        "first_raster_shot": n_base,
+        "elements": sample.elements,
+    }
+
+
+__all__ += ["BLOCK_NODES", "load_raster", "simulate_raster_run"]

@@ -95,8 +95,82 @@ def report_outputs(out) -> None:
         click.echo("NOT VALID FOR RELEASE: a quality-control criterion failed; see the certificates.", err=True)
 
 
+def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options) -> None:
+    """Several runs (or folders of runs): one output set per run, a combined LIMS CSV, runs.csv."""
+    from pathlib import Path
+
+    import pandas as pd
+
+    from compquant.errors import CompquantError, OutputError
+    from compquant.fileio import atomic_write
+    from compquant.parallel import analyse_runs, collect_runs, open_executor, run_output_folders
+
+    paths = collect_runs(run_paths)
+    out = Path(outdir)
+    if out.exists() and not out.is_dir():
+        raise OutputError("output path exists and is not a folder", where=str(out), fix="choose a folder")
+    folders = run_output_folders(paths, out)
+    with open_executor(workers, scheduler) as ex:
+        if not quiet:
+            click.echo(f"analysing {len(paths)} runs on {ex.describe()}", err=True)
+        outcomes = analyse_runs(ex, paths, method_path, folders, **options)
+    frames, status = [], []
+    for oc in outcomes:
+        if oc.ok:
+            v = oc.value
+            lims = pd.read_csv(v["lims_csv"], dtype=str, keep_default_na=False)
+            lims.insert(0, "run", oc.run)
+            frames.append(lims)
+            status.append(
+                {
+                    "run": oc.run,
+                    "status": "ok",
+                    "outputs": v["outdir"],
+                    "certificates": v["n_certificates"],
+                    "valid_for_release": v["valid_for_release"],
+                    "error": "",
+                }
+            )
+            click.echo(
+                f"ok: {oc.run} -> {v['outdir']} ({v['n_certificates']} certificates"
+                f"{'' if v['valid_for_release'] else ', NOT VALID FOR RELEASE'})"
+            )
+            for sid, why in sorted(v["failures"].items()):
+                click.echo(f"warning: {oc.run}: sample {sid}: {why}", err=True)
+        else:
+            status.append(
+                {
+                    "run": oc.run,
+                    "status": "failed",
+                    "outputs": "",
+                    "certificates": 0,
+                    "valid_for_release": False,
+                    "error": oc.error.one_line(),
+                }
+            )
+            click.echo(f"error: {oc.error.one_line()}", err=True)
+            if oc.error.traceback:
+                click.echo(oc.error.traceback, err=True)
+    if frames:
+        with atomic_write(out / "lims-all.csv", newline="") as fh:
+            pd.concat(frames, ignore_index=True).to_csv(fh, index=False)
+    cols = ["run", "status", "outputs", "certificates", "valid_for_release", "error"]
+    with atomic_write(out / "runs.csv", newline="") as fh:
+        pd.DataFrame(status, columns=cols).to_csv(fh, index=False)
+    click.echo(
+        f"combined LIMS CSV: {out / 'lims-all.csv'} ({len(frames)} of {len(outcomes)} runs); status: {out / 'runs.csv'}"
+    )
+    failed = [oc.run for oc in outcomes if not oc.ok]
+    if failed:
+        raise CompquantError(
+            f"{len(failed)} of {len(outcomes)} runs failed: {', '.join(failed)}",
+            where=str(out),
+            fix="see the error lines above and runs.csv; the other runs' outputs are complete",
+        )
+
+
 @click.command("analyse", epilog=_EPILOG)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.argument("run_paths", metavar="RUN...", nargs=-1, required=True, type=click.Path())
 @click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False), help="Method file (TOML).")
 @click.option(
     "--standards",
@@ -121,9 +195,13 @@ def report_outputs(out) -> None:
 @click.option("--issued-at", metavar="ISO-8601", help="Issue time in UTC (default: now); fixes the outputs.")
 @click.option("--no-figures", is_flag=True, help="Leave the figures out of the certificates.")
 @click.option("--chunk-shots", type=click.IntRange(1), help="Shots per streamed chunk (memory use).")
+@click.option(
+    "--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes (loopback only)."
+)
+@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
 @click.option("--quiet", is_flag=True, help="No progress bars.")
 def command(
-    run_path,
+    run_paths,
     method_path,
     standards,
     calibration,
@@ -136,6 +214,8 @@ def command(
     issued_at,
     no_figures,
     chunk_shots,
+    workers,
+    scheduler,
     quiet,
 ):
     """Analyse a run and write a certificate of analysis per unknown sample.
@@ -145,27 +225,37 @@ def command(
     (--calibration) or works calibration-free (--cf), checks the check
     samples, quantifies every unknown and writes into OUTDIR one PDF and one
     JSON certificate per unknown, one LIMS CSV and a run summary.
-    """
-    from compquant.analyse import analyse
 
+    Several runs, or folders of runs: each run gets its own output set in OUTDIR/<run name>/,
+    plus OUTDIR/lims-all.csv (every run's LIMS rows, a run column first) and OUTDIR/runs.csv.
+    A run that fails is named and the others still complete. --workers N / --scheduler ADDRESS
+    compute on Dask (one run per task, or the chunks of a single run), with the same numbers.
+    """
+    from pathlib import Path
+
+    from compquant.analyse import analyse
+    from compquant.parallel import chunk_mapper, open_executor
+
+    options = dict(
+        standards=standards,
+        calibration=calibration,
+        cf=cf,
+        lab=lab,
+        spec=spec,
+        client=client,
+        received=received,
+        issued_at=issued_at,
+        figures=not no_figures,
+        chunk_shots=chunk_shots,
+    )
+    if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
+        _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options)
+        return
+    run_path = run_paths[0]
     prog = StageProgress(enabled=not quiet)
     try:
-        out = analyse(
-            run_path,
-            method_path,
-            standards=standards,
-            calibration=calibration,
-            cf=cf,
-            lab=lab,
-            spec=spec,
-            outdir=outdir,
-            client=client,
-            received=received,
-            issued_at=issued_at,
-            figures=not no_figures,
-            chunk_shots=chunk_shots,
-            progress=prog,
-        )
+        with open_executor(workers, scheduler) as ex:
+            out = analyse(run_path, method_path, outdir=outdir, progress=prog, chunk_mapper=chunk_mapper(ex), **options)
     finally:
         prog.close()
     report_outputs(out)

@@ -1,4 +1,11 @@
-"""``compquant lines RUN --method FILE -o lines.csv``: measure a method's lines in a run."""
+"""``compquant lines RUN --method FILE -o lines.csv``: measure a method's lines in a run.
+
+Several runs (files or folders of ``*.h5``): ``compquant lines RUN1 RUN2 DIR ... --method FILE -o OUTDIR``
+writes one output set per run in ``OUTDIR/<run name>/`` and one combined table
+``OUTDIR/lines-all.csv`` (a ``run`` column first) plus ``OUTDIR/runs.csv`` (status of each run).
+``--workers N`` / ``--scheduler ADDRESS`` compute on Dask: chunks of a single run, or one run per
+task for several runs (compquant.parallel); the numbers equal the serial ones.
+"""
 
 from __future__ import annotations
 
@@ -71,8 +78,88 @@ def _short_table(table, max_rows: int = 60) -> str:
     return _columns(rows)
 
 
+def write_outputs(lm, out: Path, shots_out: Path | None, qc_out: Path) -> list[Path]:
+    """Write the line table, per-shot table, QC report and provenance of one run; return the paths."""
+    stem = out.with_suffix("")
+    _write_csv(lm.table, out)
+    if shots_out is not None:
+        _write_csv(lm.shots, shots_out)
+    qc = lm.qc.merge(lm.shifts, on="sample_id", how="left")
+    _write_csv(qc, qc_out)
+    prov_path = Path(f"{stem}-provenance.json")
+    with atomic_write(prov_path) as fh:
+        json.dump(lm.provenance, fh, indent=2, sort_keys=True, default=str)
+    return [out] + ([shots_out] if shots_out is not None else []) + [qc_out, prov_path]
+
+
+def write_run_outputs(lm, out_dir: Path) -> list[Path]:
+    """The output set of one run among several: ``lines.csv``, ``lines-shots.csv``, ``lines-qc.csv``,
+    ``lines-provenance.json`` in ``out_dir`` (module-level so Dask workers can call it)."""
+    out_dir = Path(out_dir)
+    return write_outputs(lm, out_dir / "lines.csv", out_dir / "lines-shots.csv", out_dir / "lines-qc.csv")
+
+
+def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler, quiet) -> None:
+    import pandas as pd
+
+    from compquant.errors import CompquantError
+    from compquant.parallel import collect_runs, measure_runs, open_executor, run_output_folders
+
+    paths = collect_runs(run_paths)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OutputError(
+            "with several runs, -o must be a folder", where=str(out_dir), fix="give an output folder, e.g. -o results/"
+        )
+    folders = run_output_folders(paths, out_dir)
+    with open_executor(workers, scheduler) as ex:
+        if not quiet:
+            click.echo(f"measuring {len(paths)} runs on {ex.describe()}", err=True)
+        outcomes = measure_runs(ex, paths, method, chunk_shots=chunk_shots, outputs=folders, writer=write_run_outputs)
+    tables, status = [], []
+    for oc in outcomes:
+        if oc.ok:
+            t = oc.value["table"].copy()
+            t.insert(0, "run", oc.run)
+            tables.append(t)
+            status.append(
+                {
+                    "run": oc.run,
+                    "status": "ok",
+                    "outputs": str(folders[oc.run]),
+                    "n_shots": oc.value["n_shots"],
+                    "error": "",
+                }
+            )
+            if not quiet:
+                click.echo(f"ok: {oc.run} -> {folders[oc.run]}")
+                for note in oc.value["notes"]:
+                    click.echo(f"note: {oc.run}: {note}")
+        else:
+            status.append(
+                {"run": oc.run, "status": "failed", "outputs": "", "n_shots": 0, "error": oc.error.one_line()}
+            )
+            click.echo(f"error: {oc.error.one_line()}", err=True)
+            if oc.error.traceback:
+                click.echo(oc.error.traceback, err=True)
+    if tables:
+        _write_csv(pd.concat(tables, ignore_index=True), out_dir / "lines-all.csv")
+    _write_csv(pd.DataFrame(status, columns=["run", "status", "outputs", "n_shots", "error"]), out_dir / "runs.csv")
+    failed = [oc for oc in outcomes if not oc.ok]
+    if not quiet:
+        click.echo(
+            f"wrote {out_dir / 'lines-all.csv'} ({len(tables)} of {len(outcomes)} runs) and {out_dir / 'runs.csv'}"
+        )
+    if failed:
+        names = ", ".join(oc.run for oc in failed)
+        raise CompquantError(
+            f"{len(failed)} of {len(outcomes)} runs failed: {names}",
+            where=str(out_dir),
+            fix="see the error lines above and runs.csv; the other runs' outputs are complete",
+        )
+
+
 @click.command("lines", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.argument("run_paths", metavar="RUN...", nargs=-1, required=True, type=click.Path())
 @click.option(
     "--method",
     "method_path",
@@ -84,8 +171,8 @@ def _short_table(table, max_rows: int = 60) -> str:
     "-o",
     "--output",
     required=True,
-    type=click.Path(dir_okay=False),
-    help="Line table CSV (one row per sample and line).",
+    type=click.Path(),
+    help="Line table CSV for one run; an output folder for several runs or a folder of runs.",
 )
 @click.option(
     "--shots",
@@ -109,43 +196,63 @@ def _short_table(table, max_rows: int = 60) -> str:
     help="Shots processed per chunk (memory ~ chunk x pixels x 24 bytes) [method default 4096].",
 )
 @click.option(
+    "--workers",
+    type=int,
+    default=None,
+    help="Start a local Dask cluster of N worker processes (loopback only) and compute there.",
+)
+@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option(
     "--threads",
     type=click.IntRange(1, 64),
     default=1,
     show_default=True,
-    help="Worker threads (numpy releases the GIL; results are identical).",
+    help="Worker threads in this process (numpy releases the GIL; results are identical).",
 )
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
-def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_shots, threads, quiet):
+def command(
+    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, threads, quiet
+):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
     centre, FWHM, signal-to-noise and flags per sample. Writes the line table, the per-shot
-    intensities and the shot-QC report as CSV (atomic writes; the run is opened read-only)."""
+    intensities and the shot-QC report as CSV (atomic writes; the run is opened read-only).
+
+    Several runs, or a folder of runs: -o is a folder; each run gets its own output set there,
+    plus lines-all.csv (every run's table) and runs.csv. A run that fails is reported by name
+    and the others still complete."""
     from compquant.lines import measure_run
     from compquant.method import load_method
+    from compquant.parallel import chunk_mapper, open_executor
     from compquant.run import Run
 
     method = load_method(method_path)
+    if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
+        if shots_path or qc_path or no_shots:
+            raise OutputError(
+                "--shots, --qc and --no-shots apply to a single run",
+                where="command line",
+                fix="leave them out with several runs (each run's set is fixed)",
+            )
+        _many_runs(run_paths, method, Path(output), chunk_shots, workers, scheduler, quiet)
+        return
+    run_path = run_paths[0]
     out = Path(output)
     stem = out.with_suffix("")
     shots_out = None if no_shots else Path(shots_path or f"{stem}-shots.csv")
     qc_out = Path(qc_path or f"{stem}-qc.csv")
-    with Run.open(run_path) as run:
+    with Run.open(run_path) as run, open_executor(workers, scheduler) as ex:
+        mapper = chunk_mapper(ex)
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * passes
         if quiet or total < 20000:
-            lm = measure_run(run, method, chunk_shots=chunk_shots, threads=threads)
+            lm = measure_run(run, method, chunk_shots=chunk_shots, chunk_mapper=mapper, threads=threads)
         else:
             with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
-                lm = measure_run(run, method, chunk_shots=chunk_shots, progress=bar.update, threads=threads)
-    _write_csv(lm.table, out)
-    if shots_out is not None:
-        _write_csv(lm.shots, shots_out)
-    qc = lm.qc.merge(lm.shifts, on="sample_id", how="left")
-    _write_csv(qc, qc_out)
-    prov_path = Path(f"{stem}-provenance.json")
-    with atomic_write(prov_path) as fh:
-        json.dump(lm.provenance, fh, indent=2, sort_keys=True, default=str)
+                lm = measure_run(
+                    run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper, threads=threads
+                )
+    written = write_outputs(lm, out, shots_out, qc_out)
     if not quiet:
         click.echo(_short_table(lm.table))
         rej = lm.qc[lm.qc["n_rejected"] > 0]
@@ -153,5 +260,4 @@ def command(run_path, method_path, output, shots_path, no_shots, qc_path, chunk_
             click.echo(f"shot QC: {r.sample_id}: {r.n_rejected} of {r.n_shots} shots rejected ({r.reasons})")
         for note in lm.provenance.get("notes", []):
             click.echo(f"note: {note}")
-        written = [str(out)] + ([str(shots_out)] if shots_out else []) + [str(qc_out), str(prov_path)]
-        click.echo("wrote " + ", ".join(written))
+        click.echo("wrote " + ", ".join(str(p) for p in written))

@@ -144,7 +144,7 @@ def write_map_png(path: str | os.PathLike, sm: SampleMaps, em: ElementMap, *, dp
         im = ax.imshow(masked, origin="lower", extent=extent, interpolation="nearest", cmap="viridis", aspect="equal")
         what = "mass fraction" if em.quantity == "mass_fraction" else "line intensity"
         cb = fig.colorbar(im, ax=ax, shrink=0.85)
-        cb.set_label(f"{em.element} {what} ({label})")
+        cb.set_label(f"{em.element} {what} ({label})", fontsize=9)
         ax.set_xlabel("x (mm)")
         ax.set_ylabel("y (mm)")
         ax.set_title(f"{sm.sample_id}: {em.element} ({em.line_id})", fontsize=10)

@@ -10,16 +10,18 @@ There is no second implementation of any step here: the tasks call the functions
 ``compquant.preprocess`` / ``compquant.lines`` that the serial path calls.
 """
 
+from compquant.parallel.analyse import analyse_runs
 from compquant.parallel.chunks import chunk_ranges, close_worker_runs, map_chunks, spectra_array, worker_run
-from compquant.parallel.cluster import DaskExecutor, SerialExecutor, open_executor
+from compquant.parallel.cluster import DaskExecutor, SerialExecutor, open_executor, peak_rss_bytes
 from compquant.parallel.lines import chunk_mapper, measure_run_on, measure_runs, process_chunk_task
-from compquant.parallel.runs import RunError, RunOutcome, collect_runs, map_runs
+from compquant.parallel.runs import RunError, RunOutcome, collect_runs, map_runs, run_output_folders
 
 __all__ = [
     "DaskExecutor",
     "RunError",
     "RunOutcome",
     "SerialExecutor",
+    "analyse_runs",
     "chunk_mapper",
     "chunk_ranges",
     "close_worker_runs",
@@ -29,7 +31,9 @@ __all__ = [
     "measure_run_on",
     "measure_runs",
     "open_executor",
+    "peak_rss_bytes",
     "process_chunk_task",
+    "run_output_folders",
     "spectra_array",
     "worker_run",
 ]

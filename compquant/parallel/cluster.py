@@ -23,6 +23,7 @@ them by name); lambdas and ``__main__`` functions do not travel.
 from __future__ import annotations
 
 import contextlib
+import logging
 import os
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
@@ -131,7 +132,7 @@ def open_executor(
     """Yield an executor: serial, a local cluster of ``workers`` processes, or ``scheduler``'s cluster.
 
     ``workers`` and ``scheduler`` exclude each other. The local cluster binds to 127.0.0.1
-    with no dashboard, one thread per worker process, and ``memory_limit`` per worker
+    (its status web page too, on a free loopback port), one thread per worker process, and ``memory_limit`` per worker
     (Dask's own accounting; ``"auto"`` shares the machine's memory).
     """
     if workers is not None and scheduler is not None:
@@ -144,7 +145,7 @@ def open_executor(
         yield SerialExecutor()
         return
     try:
-        from distributed import Client, LocalCluster
+        from distributed import Client
     except ImportError as exc:  # pragma: no cover - dask is a declared extra
         raise ConfigError(
             "Dask is not installed",
@@ -170,20 +171,44 @@ def open_executor(
         raise ConfigError(
             f"--workers {workers} is not a positive number", where="--workers", fix="give at least 1 worker"
         )
+    # the scheduler runs in this process: keep its routine messages off the user's screen
+    log = logging.getLogger("distributed")
+    level = log.level
+    log.setLevel(logging.WARNING)
+    try:
+        yield from _local_cluster(int(workers), memory_limit)
+    finally:
+        log.setLevel(level)
+
+
+def _local_cluster(workers: int, memory_limit) -> Iterator:
+    import dask
+    from distributed import Client, LocalCluster
+
     # workers inherit this environment: keep numpy's BLAS to one thread per worker process
     env = {k: "1" for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
     old = {k: os.environ.get(k) for k in env}
     os.environ.update({k: v for k, v in env.items() if old[k] is None})
+    # Worker settings measured with benchmarks/scale.py: Dask's default MALLOC_TRIM_THRESHOLD_=65536
+    # fixes glibc's mmap threshold at 128 KiB, so every chunk-sized numpy temporary is mapped and
+    # unmapped again (page faults: ~65 % more CPU per chunk than in one process); keeping buffers up
+    # to 64 MiB on the heap brings that to ~20 %. The statistical profiler (no dashboard here) is off.
+    settings = {
+        "distributed.worker.profile.enabled": False,
+        "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": str(256 << 20),
+        "distributed.nanny.pre-spawn-environ.MALLOC_MMAP_THRESHOLD_": str(64 << 20),
+    }
     try:
-        cluster = LocalCluster(
-            n_workers=int(workers),
-            threads_per_worker=1,
-            processes=True,
-            host="127.0.0.1",
-            dashboard_address=None,
-            memory_limit=memory_limit,
-            silence_logs=40,
-        )
+        with dask.config.set(settings):
+            cluster = LocalCluster(
+                n_workers=workers,
+                threads_per_worker=1,
+                processes=True,
+                host="127.0.0.1",
+                dashboard_address="127.0.0.1:0",
+                memory_limit=memory_limit,
+                silence_logs=40,
+            )
     finally:
         for k, v in old.items():
             if v is None:
@@ -198,4 +223,13 @@ def open_executor(
         cluster.close()
 
 
-__all__ = ["DaskExecutor", "Executor", "SerialExecutor", "open_executor"]
+def peak_rss_bytes() -> int:
+    """Peak resident memory of this process (bytes), from ``getrusage`` (Linux reports KiB)."""
+    import resource
+    import sys
+
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return int(peak if sys.platform == "darwin" else peak * 1024)
+
+
+__all__ = ["DaskExecutor", "Executor", "SerialExecutor", "open_executor", "peak_rss_bytes"]

@@ -41,8 +41,9 @@ def chunk_mapper(executor, max_in_flight: int | None = None) -> Callable | None:
         return None
 
     def mapper(run, ranges, plan) -> Iterator:
-        yield from map_chunks(executor, run.path, process_chunk_task, plan, chunk_shots=1, ranges=ranges,
-                              max_in_flight=max_in_flight)
+        yield from map_chunks(
+            executor, run.path, process_chunk_task, plan, chunk_shots=1, ranges=ranges, max_in_flight=max_in_flight
+        )
 
     return mapper
 
@@ -51,8 +52,7 @@ def measure_run_on(executor, run, method, chunk_shots: int | None = None, progre
     """:func:`compquant.lines.measure_run` with its chunks computed on ``executor``."""
     from compquant.lines import measure_run
 
-    return measure_run(run, method, chunk_shots=chunk_shots, progress=progress,
-                       chunk_mapper=chunk_mapper(executor))
+    return measure_run(run, method, chunk_shots=chunk_shots, progress=progress, chunk_mapper=chunk_mapper(executor))
 
 
 def _measure_one(path: str, ctx: dict):
@@ -64,12 +64,24 @@ def _measure_one(path: str, ctx: dict):
         lm = measure_run(run, ctx["method"], chunk_shots=ctx.get("chunk_shots"))
     writer = ctx.get("writer")
     written = writer(lm, ctx["outputs"][path]) if writer is not None else []
-    return {"table": lm.table, "qc": lm.qc, "notes": list(lm.provenance.get("notes", [])),
-            "written": [str(p) for p in written], "n_shots": int(lm.shot_accepted.size)}
+    return {
+        "table": lm.table,
+        "qc": lm.qc,
+        "notes": list(lm.provenance.get("notes", [])),
+        "written": [str(p) for p in written],
+        "n_shots": int(lm.shot_accepted.size),
+    }
 
 
-def measure_runs(executor, paths: list[str | os.PathLike], method, *, chunk_shots: int | None = None,
-                 outputs: dict[str, Path] | None = None, writer: Callable | None = None) -> list[RunOutcome]:
+def measure_runs(
+    executor,
+    paths: list[str | os.PathLike],
+    method,
+    *,
+    chunk_shots: int | None = None,
+    outputs: dict[str, Path] | None = None,
+    writer: Callable | None = None,
+) -> list[RunOutcome]:
     """Measure every run, one run per task; one :class:`RunOutcome` per run, in the order given.
 
     ``writer(lm, out_dir) -> [paths]`` (a module-level function) writes a run's output set
@@ -77,8 +89,12 @@ def measure_runs(executor, paths: list[str | os.PathLike], method, *, chunk_shot
     The outcome's value holds the line table, QC table, notes and the files written.
     """
     items = [str(p) for p in paths]
-    ctx = {"method": method, "chunk_shots": chunk_shots, "writer": writer,
-           "outputs": {str(k): v for k, v in (outputs or {}).items()}}
+    ctx = {
+        "method": method,
+        "chunk_shots": chunk_shots,
+        "writer": writer,
+        "outputs": {str(k): v for k, v in (outputs or {}).items()},
+    }
     return map_runs(executor, items, _measure_one, ctx)
 
 

@@ -100,6 +100,23 @@ def collect_runs(inputs: Iterable[str | os.PathLike], pattern: str = "*.h5") -> 
     return out
 
 
+def run_output_folders(paths, out_dir: str | os.PathLike) -> dict[str, Path]:
+    """One output folder per run under ``out_dir``, named from the run file (safe name, numbered if repeated)."""
+    from compquant.fileio import safe_filename
+
+    used: set[str] = set()
+    folders = {}
+    for p in paths:
+        name = safe_filename(Path(p).stem)
+        base, k = name, 1
+        while name in used:
+            k += 1
+            name = f"{base}-{k}"
+        used.add(name)
+        folders[str(p)] = Path(out_dir) / name
+    return folders
+
+
 def map_runs(executor, paths: Iterable[str | os.PathLike], fn: Callable, context: Any = None) -> list[RunOutcome]:
     """``fn(path, context)`` for every run; one :class:`RunOutcome` per run, in the order given.
 
@@ -111,4 +128,4 @@ def map_runs(executor, paths: Iterable[str | os.PathLike], fn: Callable, context
     return list(executor.map_ordered(_guarded, items, fn, ctx, max_in_flight=len(items) or 1))
 
 
-__all__ = ["RunError", "RunOutcome", "collect_runs", "map_runs"]
+__all__ = ["RunError", "RunOutcome", "collect_runs", "map_runs", "run_output_folders"]

@@ -1,0 +1,114 @@
+"""``compquant map RUN --method FILE [--calibration cal.json] -o OUTDIR``: element maps of a rastered run."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import click
+
+SAFETY = (
+    "Safety: rastering fires a Class 4 laser at many spots: keep eyewear of the right optical density, "
+    "interlocks and a controlled area; extract ablation fumes (samples may hold Pb, Cd, Be); follow "
+    "local regulations and your laser safety officer."
+)
+
+
+def write_map_outputs(result, out_dir: Path) -> list[Path]:
+    """``maps.h5``, one PNG per sample and element, ``maps-provenance.json`` (and node results CSV)."""
+    from compquant.fileio import atomic_write, safe_filename
+    from compquant.maps.output import write_map_png, write_maps_h5
+
+    out_dir = Path(out_dir)
+    attrs = {k: v for k, v in result.provenance.items() if isinstance(v, str)}
+    written = [write_maps_h5(out_dir / "maps.h5", result.samples, attrs)]
+    for sm in result.samples:
+        for em in sm.maps:
+            name = safe_filename(f"{sm.sample_id}_{em.element}")
+            written.append(write_map_png(out_dir / f"{name}.png", sm, em))
+    if result.results is not None:
+        p = out_dir / "maps-node-results.csv"
+        with atomic_write(p, newline="") as fh:
+            result.results.to_csv(fh, index=False, float_format="%.8g")
+        written.append(p)
+    p = out_dir / "maps-provenance.json"
+    with atomic_write(p) as fh:
+        json.dump(result.provenance, fh, indent=2, sort_keys=True, default=str)
+    written.append(p)
+    return written
+
+
+@click.command("map", epilog=SAFETY)
+@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@click.option(
+    "--method",
+    "method_path",
+    required=True,
+    type=click.Path(dir_okay=False),
+    help="Method file (TOML); its [map] table picks lines, grid step and samples.",
+)
+@click.option(
+    "--calibration",
+    "calibration_path",
+    type=click.Path(dir_okay=False),
+    default=None,
+    help="Calibration JSON: map mass fractions instead of line intensities.",
+)
+@click.option(
+    "-o",
+    "--output",
+    "out_dir",
+    required=True,
+    type=click.Path(file_okay=False),
+    help="Output folder (maps.h5, PNG images, provenance).",
+)
+@click.option("--sample", "samples", multiple=True, help="Sample to map (repeatable) [default: rastered ones].")
+@click.option("--chunk-shots", type=int, default=None, help="Shots per streamed chunk [method default].")
+@click.option("--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes.")
+@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option("--quiet", is_flag=True, help="No progress bar or summary.")
+def command(run_path, method_path, calibration_path, out_dir, samples, chunk_shots, workers, scheduler, quiet):
+    """Per-element maps of a rastered run (shots with x, y stage positions): each grid node holds
+    the mean over its accepted shots of the line intensity, or with --calibration the mass
+    fraction from the calibration curves. Writes maps.h5 (x/y axes in mm, units attributes) and a
+    PNG per sample and element with a colour bar and a scale bar. The run is streamed chunk by
+    chunk and opened read-only."""
+    from compquant.maps.build import make_maps
+    from compquant.method import load_method
+    from compquant.parallel import open_executor
+    from compquant.run import Run
+
+    method = load_method(method_path)
+    cal = None
+    if calibration_path:
+        from compquant.calibrate.model import Calibration
+
+        cal = Calibration.load(calibration_path)
+    with Run.open(run_path) as run, open_executor(workers, scheduler) as ex:
+        if quiet or run.n_shots < 20000:
+            result = make_maps(
+                run, method, calibration=cal, chunk_shots=chunk_shots, executor=ex, samples=list(samples) or None
+            )
+        else:
+            passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
+            with click.progressbar(
+                length=run.n_shots * passes, label="measuring", file=click.get_text_stream("stderr")
+            ) as bar:
+                result = make_maps(
+                    run,
+                    method,
+                    calibration=cal,
+                    chunk_shots=chunk_shots,
+                    executor=ex,
+                    progress=bar.update,
+                    samples=list(samples) or None,
+                )
+    written = write_map_outputs(result, Path(out_dir))
+    if not quiet:
+        for sm in result.samples:
+            g = sm.grid
+            click.echo(
+                f"{sm.sample_id}: {g.nx} x {g.ny} nodes, step {g.dx_mm:g} x {g.dy_mm:g} mm, "
+                f"{int(sm.shots.sum())} shots; maps: {', '.join(m.element for m in sm.maps)}"
+            )
+        click.echo(f"wrote {len(written)} files to {out_dir}")
