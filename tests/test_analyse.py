@@ -330,3 +330,31 @@ def test_cli_errors_and_help(work):
     assert r.exit_code == 0
     for word in ("SAFETY NOTES", "Class 4", "ANSI Z136.1", "beryllium", "argon", "licensed safety officer"):
         assert word.lower() in r.output.lower()
+
+
+def test_saved_calibration_without_setup_samples_is_a_deviation(first, work, tmp_path):
+    d, _ = work
+    text = SCENARIO
+    for sid in ("SET-HI", "SET-LO"):
+        i = text.index(f'id = "{sid}"')
+        start = text.rindex("[[samples]]", 0, i)
+        end = text.index("[[samples]]", i)
+        text = text[:start] + text[end:]
+    (tmp_path / "stds.csv").write_text(STANDARDS)
+    (tmp_path / "scenario.toml").write_text(text)
+    simulate_run(load_scenario(tmp_path / "scenario.toml"), tmp_path / "run3.h5", seed=13)
+    out = analyse(
+        tmp_path / "run3.h5",
+        d / "method.toml",
+        calibration=first.calibration_json,
+        outdir=tmp_path / "out3",
+        issued_at=ISSUED,
+        figures=False,
+    )
+    doc = json.loads(open(out.certificates[0].json, encoding="utf-8").read())
+    assert doc["quality_control"]["drift"]["applied"] is False
+    assert doc["deviations"] and "drift standardisation" in doc["deviations"][0]
+    assert any("no_drift_correction" in r["flags"] for r in doc["results"])
+    text = " ".join(_text(out.certificates[0].pdf).split())
+    assert "drift standardisation with setup samples was not possible" in text
+    assert "No lab profile was given" in text  # no --lab: stated on the certificate

@@ -37,3 +37,15 @@ def test_demo_end_to_end(tmp_path, monkeypatch):
         assert "End of certificate" in reader.pages[-1].extract_text()
     assert (out / "lims.csv").stat().st_size > 0
     assert os.path.isfile(out / "calibration.json")
+
+
+def test_demo_files_missing_is_a_clear_error(tmp_path, monkeypatch):
+    import compquant.cli.cmd_demo as cmd_demo
+
+    monkeypatch.setattr(cmd_demo, "_roots", lambda: [tmp_path])
+    r = CliRunner().invoke(main, ["demo", "-o", str(tmp_path / "out")])
+    assert r.exit_code == 2
+    assert "error:" in r.output and "demo files not found" in r.output and "source tree" in r.output
+    (tmp_path / "demo_runs").mkdir()
+    r = CliRunner().invoke(main, ["demo", "-o", str(tmp_path / "out")])
+    assert r.exit_code == 2 and "demo files missing" in r.output and "method" in r.output

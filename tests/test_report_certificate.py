@@ -301,7 +301,8 @@ def test_failed_lte_criterion_marks_not_valid_and_shows_plasma():
     for item in (
         "Plasma conditions",
         "9100 K ± 400 K",
-        "1.2×10¹⁷", "2.90×10¹⁶",
+        "1.2×10¹⁷",
+        "2.90×10¹⁶",
         "McWhirter",
         "NOT MET",
         "LTE criterion not met: Boltzmann plot linearity",
@@ -435,3 +436,15 @@ def test_json_reader_round_trip(cert, tmp_path):
 
     write_certificate_json(cert, tmp_path / "c.json")
     assert read_certificate_json(tmp_path / "c.json") == json.loads(certificate_json(cert))
+
+
+def test_lab_and_client_texts_are_literal_too():
+    from compquant.report import ClientInfo, LabInfo
+
+    c = make_certificate(
+        lab=LabInfo("<font size=40>Big</font> & Co", ["1 <i>Road</i>"], "acc \x1b[2J"),
+        client=ClientInfo("<para>X</para>", [], "ref <br/>"),
+    )
+    text = "\n".join(pdf_pages(render_pdf_bytes(c)[0]))
+    for s in ("<font size=40>Big</font> & Co", "1 <i>Road</i>", "acc \\x1b[2J", "<para>X</para>", "ref <br/>"):
+        assert s in text, s

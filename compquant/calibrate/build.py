@@ -118,10 +118,11 @@ def _curve_for(a: AnalyteConfig, cfg: CalibrationConfig, line_table, shot_table,
             rec[f"uxi:{it['element']}"] = cj[1] if cj else math.nan
         if rec["used"] and ref in excl:
             rec.update(used=False, reason=f"excluded by method: {excl[ref]}")
-        if rec["used"] and not (np.isfinite(rec["y"]) and np.isfinite(rec["u_y"])):
-            rec.update(used=False, reason="no valid response (line not measured)")
         if rec["used"] and "saturated" in rec["line_flags"].split(";"):
             rec.update(used=False, reason="line saturated")
+        if rec["used"] and not (np.isfinite(rec["y"]) and np.isfinite(rec["u_y"])):
+            fl = rec["line_flags"].replace(";", ", ")
+            rec.update(used=False, reason="no valid response (line not measured" + (f": {fl})" if fl else ")"))
         recs.append(rec)
     if not recs:
         raise CalibrationError(
@@ -133,6 +134,15 @@ def _curve_for(a: AnalyteConfig, cfg: CalibrationConfig, line_table, shot_table,
         means = [float(resp.loc[b, "y"]) for b in blanks if np.isfinite(resp.loc[b, "y"])]
         shots = resp.loc[blanks[0], "shots"]
         bl = blank_sd(means if len(means) >= 3 else None, shots if shots is not None and len(means) < 3 else None)
+    n_used = sum(1 for r in recs if r["used"])
+    if n_used < 3 and n_used < len(recs):
+        # name why the standards were set aside (saturated, no signal ...): the user's problem is there
+        why = "; ".join(f"{r['sample_id']}: {r['reason']}" for r in recs if not r["used"])
+        raise CalibrationError(
+            f"only {n_used} of {len(recs)} standard(s) usable ({why}); at least 3 are needed",
+            where=where,
+            fix="check the standards' spectra ('compquant inspect', 'compquant plot') and the method's lines",
+        )
     return curve_from_records(a, recs, outlier_alpha=cfg.outlier_alpha, blank=bl, where=where)
 
 
@@ -259,6 +269,15 @@ def curve_from_records(
         s_blank, lod_source = blank[0], f"blank: {blank[1]}"
     else:
         s_blank, lod_source = resid_sd, "calibration residual sd (no usable blank in the run)"
+    # a zero scatter (identical blank shots and a perfect fit: copied or noise-free data) gives
+    # no detection limit at all; refuse rather than certify against LOD = 0
+    y_scale = float(np.max(np.abs(y))) if len(y) else 0.0
+    if not (np.isfinite(s_blank) and s_blank > 1e-12 * max(y_scale, 1e-300)):
+        raise CalibrationError(
+            "the blank scatter and the calibration residuals are both zero: no detection limit can be computed",
+            where=where,
+            fix="measure a blank with several shots; identical shots suggest copied or simulated noise-free data",
+        )
     lod_x, loq_x = lod_loq(s_blank, s0)
     iso = iso11843_2(x, y) if not interf else None
     ws = np.array([r.get("w", r["x"]) for r in use])
@@ -362,7 +381,7 @@ def calibrate(
         first = next(iter(rejected.values()))
         raise CalibrationError(
             f"no analyte could be calibrated ({first})",
-            where=method_id,
+            where=str(run_path) if run_path else method_id,
             fix="see the reasons; check standards, lines and models",
         )
     refs = {ref for role, ref in smap.values() if ref}

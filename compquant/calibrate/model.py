@@ -35,7 +35,8 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import asdict, dataclass, field
+import re
+from dataclasses import asdict, dataclass, field, fields
 from datetime import datetime, timezone
 
 import numpy as np
@@ -96,8 +97,27 @@ class Curve:
     ) -> dict:
         """Content ``x0`` of an unknown and its standard uncertainty (see module docstring).
 
-        Returns ``{x, u, dof, dydx, dx_dxi: {el: ...}, budget: {...}}``.
+        Returns ``{x, u, dof, dydx, dx_dxi: {el: ...}, budget: {...}}``.  A curve whose numbers
+        give no finite answer (zero slope at the sample, overflow: a degenerate or edited
+        calibration) raises :class:`CalibrationError` instead of a bare arithmetic error.
         """
+        try:
+            out = self._predict_content(y0, u0, n_shots, xi, u_xi, where)
+        except (ZeroDivisionError, OverflowError, FloatingPointError, ValueError) as exc:
+            raise CalibrationError(
+                f"the curve cannot be evaluated at this response ({exc})",
+                where=where or f"{self.element} ({self.line_id})",
+                fix="the calibration is degenerate or was edited; re-create it with 'compquant calibrate'",
+            ) from None
+        if not (math.isfinite(out["x"]) and math.isfinite(out["u"])):
+            raise CalibrationError(
+                "the curve gives no finite content at this response",
+                where=where or f"{self.element} ({self.line_id})",
+                fix="the calibration is degenerate or was edited; re-create it with 'compquant calibrate'",
+            )
+        return out
+
+    def _predict_content(self, y0, u0, n_shots, xi, u_xi, where) -> dict:
         xi = {k: float(v) for k, v in (xi or {}).items()}
         u_xi = {k: float(v) for k, v in (u_xi or {}).items()}
         beta = self._beta()
@@ -240,9 +260,15 @@ class Calibration:
         d = dict(d)
         d.pop("calibration_id", None)
         try:
+            if not isinstance(d["curves"], dict):
+                raise TypeError("'curves' is not a table")
             d["curves"] = {k: Curve(**_unclean(v)) for k, v in d["curves"].items()}
-            return cls(**_unclean(d))
-        except (TypeError, KeyError) as exc:
+            cal = cls(**_unclean(d))
+            _check_types(cal, "calibration")
+            for el, c in cal.curves.items():
+                _check_curve(c, f"curve {el}")
+            return cal
+        except (TypeError, KeyError, AttributeError) as exc:
             raise CalibrationError(
                 f"calibration file is incomplete or damaged ({exc})",
                 where=where,
@@ -280,6 +306,55 @@ class Calibration:
 
 
 _NONFINITE = "__nonfinite__"
+_TERM = re.compile(r"^(1|x|x2|(add|mul):[A-Z][a-z]?)$")
+
+
+def _type_ok(value, annotation: str) -> bool:
+    for alt in (a.strip() for a in annotation.split("|")):
+        if alt == "None" and value is None:
+            return True
+        if alt == "float" and isinstance(value, (int, float)) and not isinstance(value, bool):
+            return True
+        if alt == "int" and isinstance(value, int) and not isinstance(value, bool):
+            return True
+        if alt == "bool" and isinstance(value, bool):
+            return True
+        if alt in ("str", "list", "dict") and isinstance(value, {"str": str, "list": list, "dict": dict}[alt]):
+            return True
+    return False
+
+
+def _check_types(obj, what: str) -> None:
+    """Each dataclass field holds a value of its declared type (the file may have been edited)."""
+    for f in fields(obj):
+        if isinstance(f.type, str) and not _type_ok(getattr(obj, f.name), f.type):
+            raise TypeError(f"{what}: '{f.name}' should be {f.type}, got {getattr(obj, f.name)!r:.40}")
+
+
+def _numbers(v, n: int | None = None) -> bool:
+    return (isinstance(v, list) and (n is None or len(v) == n)
+            and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in v))
+
+
+def _check_curve(c: Curve, what: str) -> None:
+    """What applying a curve relies on: term names, coefficient and covariance shapes, ranges."""
+    _check_types(c, what)
+    p = len(c.terms)
+    if not p or not all(isinstance(t, str) and _TERM.match(t) for t in c.terms):
+        raise TypeError(f"{what}: bad design terms {c.terms!r:.60}")
+    if not _numbers(c.beta, p):
+        raise TypeError(f"{what}: 'beta' should be {p} numbers")
+    for name in ("cov", "cov_fit"):
+        m = getattr(c, name)
+        if not (isinstance(m, list) and len(m) == p and all(_numbers(r, p) for r in m)):
+            raise TypeError(f"{what}: '{name}' should be a {p} x {p} matrix")
+    for name in ("range_x", "range_mass_fraction"):
+        if not _numbers(getattr(c, name), 2):
+            raise TypeError(f"{what}: '{name}' should be two numbers")
+    if not all(isinstance(s, dict) for s in c.standards) or not all(
+        isinstance(it, dict) and isinstance(it.get("element"), str) for it in c.interferences
+    ):
+        raise TypeError(f"{what}: 'standards' / 'interferences' should be tables")
 
 
 def _clean(o):

@@ -60,11 +60,12 @@ def summary_table(out) -> str:
     head = ["sample", "certificate", "release", "conformity"] + elements
     rows = [head]
     for c in out.certificates:
-        vals = {
-            r["element"]: (r["value"] if r["value"] == "< LOD" else f"{r['value']} {r['unit']}")
-            + ("*" if r["flags"] and r["value"] != "< LOD" else "")
-            for r in c.results
-        }
+        vals = {}
+        for r in c.results:
+            if r["value"] in ("< LOD", "not determined"):
+                vals[r["element"]] = "< LOD" if r["value"] == "< LOD" else "n.d."
+            else:
+                vals[r["element"]] = f"{r['value']} {r['unit']}" + ("*" if r["flags"] else "")
         sid = visible_text(c.sample_id)
         if len(sid) > 24:
             sid = sid[:21] + "..."
@@ -82,7 +83,7 @@ def report_outputs(out) -> None:
     click.echo("")
     click.echo(summary_table(out))
     click.echo("")
-    click.echo("* value carries a flag; see the certificate.")
+    click.echo("* value carries a flag; n.d. not determined; see the certificates.")
     click.echo(f"certificates: {out.outdir} ({len(out.certificates)} PDF + JSON)")
     click.echo(f"LIMS CSV:     {out.lims_csv}")
     click.echo(f"run summary:  {out.summary_json}")

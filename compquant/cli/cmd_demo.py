@@ -6,6 +6,7 @@ from pathlib import Path
 
 import click
 
+from compquant.cli.cmd_analyse import _EPILOG
 from compquant.errors import InputError
 
 
@@ -66,7 +67,7 @@ def find_demo_files() -> dict[str, Path | None]:
     )
 
 
-@click.command("demo")
+@click.command("demo", epilog=_EPILOG)
 @click.option(
     "-o",
     "--outdir",

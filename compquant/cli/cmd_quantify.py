@@ -10,6 +10,25 @@ import click
 from compquant.cli._common import SAFETY, write_csv
 
 
+def _finite_json(o):
+    """A copy of ``o`` with NaN / infinite floats as None and numpy scalars as Python numbers."""
+    import math
+
+    import numpy as np
+
+    if isinstance(o, dict):
+        return {str(k): _finite_json(v) for k, v in o.items()}
+    if isinstance(o, (list, tuple)):
+        return [_finite_json(v) for v in o]
+    if isinstance(o, np.ndarray):
+        return [_finite_json(v) for v in o.tolist()]
+    if isinstance(o, np.generic):
+        o = o.item()
+    if isinstance(o, float) and not math.isfinite(o):
+        return None
+    return o
+
+
 def _fmt(w: float) -> str:
     return f"{w * 100:.4g} %" if abs(w) >= 1e-3 else f"{w * 1e6:.4g} mg/kg"
 
@@ -113,7 +132,8 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
         lines=lm.provenance,
     )
     with atomic_write(Path(f"{stem}-provenance.json")) as fh:
-        json.dump(prov, fh, indent=2, sort_keys=True, default=str, allow_nan=True)
+        # strict JSON: a non-finite number (no estimate) is written as null
+        json.dump(_finite_json(prov), fh, indent=2, sort_keys=True, default=str, allow_nan=False)
     if not quiet:
         click.echo(results_text(q))
         click.echo(f"wrote {out}, {stem}-checks.csv, {stem}-provenance.json")

@@ -200,6 +200,15 @@ def _dark_vector(run, method: Method, notes: list) -> tuple[np.ndarray | None, f
         return None, 1.0
     d = run.dark()
     if d is None or d.shape[0] == 0:
+        explicit = ((method.raw or {}).get("preprocess") or {}).get("dark") or {}
+        if isinstance(explicit, dict) and explicit.get("enabled") is True:
+            # the method file itself demands dark subtraction: results without it would be wrong
+            raise MethodError(
+                "the run stores no dark frames, but the method requires dark subtraction "
+                f"([preprocess.dark] enabled = true in {method.where})",
+                where=str(run.path),
+                fix="use a run recorded with dark frames, or set [preprocess.dark] enabled = false",
+            )
         notes.append("dark subtraction asked for but the run stores no dark frames: not applied")
         return None, 1.0
     scale = exposure_ratio(run.exposure_s, run.dark_exposure_s) if pre.dark_scale_exposure else 1.0

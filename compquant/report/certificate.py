@@ -72,6 +72,25 @@ FLAG_TEXT = {
     "partial_drift_correction": "drift standardisation was possible for only some lines",
     "by_difference": "matrix element obtained by difference from 100 % (closure), not measured directly",
     "not_reported": "the element could not be quantified in this sample (see remarks)",
+    "istd_not_positive": "the internal-standard line had no positive intensity in some shots; those "
+    "shots were left out of the ratio",
+    "outside_model_space": "multivariate (PLS) prediction outside the space spanned by the standards: an extrapolation",
+    "cf_fit_poor": "calibration-free: the Boltzmann / Saha-Boltzmann fit is poor (chi-square test), the "
+    "uncertainty is enlarged accordingly",
+    "single_line": "calibration-free: the element rests on a single line",
+    "self_absorbed": "a line of the element is self-absorbed (optically thick); its intensity is too low "
+    "for its concentration",
+    "self_absorption_corrected": "the line intensities were corrected for self-absorption",
+    "sa_correction_capped": "the self-absorption correction reached its limit; the value may be low",
+    "no_concentration_uncertainty": "calibration-free: no Monte Carlo uncertainty could be evaluated; U "
+    "covers the plasma-temperature and density terms only",
+    "mc_draws_invalid": "calibration-free: some Monte Carlo draws had no solution and were left out",
+    "no_one_point_factor": "calibration-free: no one-point correction factor for this element",
+    "fixed_content": "content fixed by the method (not measured)",
+    "no_usable_lines": "the element has no usable line in this sample",
+    "lte_mcwhirter_failed": "the McWhirter criterion for local thermodynamic equilibrium is not met",
+    "lte_transient_failed": "the plasma changes faster than it relaxes to equilibrium (transient criterion not met)",
+    "lte_inhomogeneous_failed": "the plasma is too inhomogeneous for local equilibrium (diffusion criterion not met)",
 }
 
 

@@ -255,7 +255,7 @@ def load_specification(path) -> Specification:
         if "min" not in t and "max" not in t:
             raise ConfigError("needs min, max or both", where=wl, fix="add e.g. max = 0.35")
         unit = t.get("unit")
-        if unit not in UNIT_TO_GG:
+        if not isinstance(unit, str) or unit not in UNIT_TO_GG:
             raise ConfigError(
                 f"unit {unit!r} is not one of %, mg/kg, g/g",
                 where=f"{wl}.unit",

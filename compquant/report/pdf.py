@@ -423,7 +423,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                 rep.unit,
                 rep.lod or "–",
                 rep.loq or "–",
-                r.line_id,
+                r.line_id.replace(";", "; "),
                 fl,
             ]
         )
@@ -441,6 +441,14 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     story.append(Spacer(1, 3))
     story.append(P(E(uncertainty_statement(cert.coverage_factors())), "small"))
     story.append(P(E(LOD_STATEMENT), "small"))
+    if any(r.basis == "cf" for r in cert.results):
+        story.append(
+            P(
+                "Calibration-free results have no blank-based LOD or LOQ (shown as –); each value "
+                "rests on the lines listed.",
+                "small",
+            )
+        )
     if cert.qc.blank:
         story.append(P("s_blank for LOD and LOQ from " + E(cert.qc.blank), "small"))
     flags = cert.flags_used()
