@@ -29,8 +29,9 @@ from pathlib import Path
 import numpy as np
 
 from compquant import __version__
-from compquant.errors import ConfigError, DataQualityError, InputError
+from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError
 from compquant.fileio import require_file, safe_filename, sha256_file, write_text_atomic
+from compquant.identify.sample import detected_not_quantified
 from compquant.report import (
     Certificate,
     CheckResult,
@@ -120,6 +121,14 @@ def _default_lab() -> LabProfile:
 
 
 # ------------------------------------------------------------------------- the flow
+
+
+def _positive(value) -> float | None:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return None
+    return v if np.isfinite(v) and v > 0 else None
 
 
 def analyse(
@@ -229,6 +238,7 @@ def analyse(
         technique = assemble.technique(method, run)
         n_shots_by_sample = dict(zip(samples["sample_id"].astype(str), samples["n_shots"].astype(int)))
         mean_spec = dict(getattr(meas, "mean_spectra", {}) or {})
+        medium = run.medium
         wavelength = np.asarray(meas.wavelength, float)
 
     table = meas.table
@@ -354,11 +364,22 @@ def analyse(
         str(instrument.get("description", "")),
     )
     matrix_el = parameters.get("matrix_element")
-    snr_detect = float(getattr(method.measure, "snr_detect", 3.0))
     # the spectrum figure marks the lines the numbers rest on: the calibration curves' analytical
     # and internal-standard lines, or every method line for calibration-free analysis
     used = {c.line_id for c in curves.values()} | {c.internal_standard for c in curves.values() if c.internal_standard}
     lines_marked = [(ln.line_id, ln.wavelength_nm) for ln in method.lines if cf or not used or ln.line_id in used]
+
+    def _not_quantified(sid: str, quantified: set[str], remarks: list[str]) -> list[str]:
+        # qualitative analysis of the sample's preprocessed mean spectrum against the whole line database
+        if sid not in mean_spec:
+            return []
+        try:
+            return detected_not_quantified(wavelength, mean_spec[sid], quantified, method,
+                                           resolving_power=_positive(instrument.get("resolving_power")),
+                                           medium=medium)
+        except CompquantError as exc:
+            remarks.append(f"qualitative identification not possible: {exc.what}")
+            return []
 
     certs: list[Certificate] = []
     outputs: list[CertificateOutput] = []
@@ -436,7 +457,7 @@ def analyse(
             plasma=plasma_by_sample.get(sid),
             qc=QCInfo(drift_info, checks, assemble.blank_text(curves)),
             conformity=conf,
-            detected_not_quantified=assemble.detected_not_quantified(table, sid, {r.element for r in rows}, snr_detect),
+            detected_not_quantified=_not_quantified(sid, {r.element for r in rows}, remarks),
             figures=figs,
             deviations=list(deviations),
             remarks=remarks,

@@ -90,7 +90,7 @@ frames = 10
         ("SET-HI", "setup", "composition = { Zn = 0.30 }"),
         ("SET-LO", "setup", "composition = { Zn = 0.05 }"),
         ("CHK-5", "check", 'standard = "T-5"'),
-        ("LOT-1", "unknown", 'composition = { Zn = 0.28 }\ndescription = "brass strip"'),
+        ("LOT-1", "unknown", 'composition = { Zn = 0.28, Mn = 0.02 }\ndescription = "brass strip"'),
         ('<b>LOT-2</b> & \\"x\\"', "unknown", 'composition = { Zn = 0.12 }\ndescription = "gilding metal"'),
     ]
 )
@@ -174,6 +174,17 @@ def first(work):
         issued_at=ISSUED,
     )
     return out
+
+
+def test_detected_but_not_quantified(first):
+    """LOT-1 holds 2 % Mn, which the method does not measure: qualitative identification of the
+    sample's mean spectrum against the whole line database (compquant.identify) must list it on
+    the certificate, and must not list the quantified elements (the simulation's known truth)."""
+    by_id = {c.sample_id: json.loads(open(c.json, encoding="utf-8").read()) for c in first.certificates}
+    assert "Mn" in by_id["LOT-1"]["detected_not_quantified"]
+    for doc in by_id.values():
+        assert not {"Zn", "Cu"} & set(doc["detected_not_quantified"])
+    assert "Mn" in _text(next(c.pdf for c in first.certificates if c.sample_id == "LOT-1"))
 
 
 def _text(pdf_path) -> str:

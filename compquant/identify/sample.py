@@ -77,6 +77,23 @@ def elements_not_quantified(elements: pd.DataFrame, quantified) -> pd.DataFrame:
     return elements[~elements["element"].isin(q)].reset_index(drop=True)
 
 
+def detected_not_quantified(wavelength, mean_spectrum, quantified, method=None, *, resolving_power=None,
+                            medium: str = "air", line_list: pd.DataFrame | None = None) -> list[str]:
+    """Elements *detected* (status "detected", not "possible") in a preprocessed mean spectrum that
+    are not among ``quantified``: the certificate's "elements detected but not quantified".
+
+    The whole line database is searched (not only the method's lines), so an element the method
+    does not measure is still reported. Settings come from the method's ``[identify]`` table.
+    """
+    st = settings_from_method(method) if method is not None else IdentifySettings()
+    ident = identify_spectrum(wavelength, mean_spectrum, line_list, settings=st, resolving_power=resolving_power,
+                              medium=medium)
+    el = ident.elements()
+    found = el.loc[el["status"] == "detected", "element"].astype(str)
+    q = {str(x) for x in quantified}
+    return sorted({e for e in found if e not in q})
+
+
 def identify_table(ident: Identification, sample_id: str) -> pd.DataFrame:
     """The species table of one identification with ``sample_id`` first and the run-level context."""
     t = ident.species.copy()
@@ -93,5 +110,6 @@ def sample_interference(ident: Identification, method, sample_id: str) -> pd.Dat
     return imap
 
 
-__all__ = ["default_method", "detected_elements", "elements_not_quantified", "identify_sample", "identify_table",
+__all__ = ["default_method", "detected_elements", "detected_not_quantified", "elements_not_quantified",
+           "identify_sample", "identify_table",
            "sample_interference"]

@@ -115,21 +115,6 @@ def technique(method, run) -> str:
     return ", ".join(str(p) for p in parts)
 
 
-def detected_not_quantified(line_table, sample_id: str, quantified: set[str], snr_detect: float) -> list[str]:
-    sub = line_table[line_table["sample_id"].astype(str) == sample_id]
-    found = []
-    for r in sub.itertuples(index=False):
-        el = str(r.element)
-        if el in quantified or el in found:
-            continue
-        if "not_found" in _flags(r.flags):
-            continue
-        snr = _f(r.snr)
-        if snr is not None and snr >= snr_detect:
-            found.append(el)
-    return sorted(found)
-
-
 # ------------------------------------------------------------------------- calibration path
 
 
@@ -418,7 +403,6 @@ __all__ = [
     "calibration_info",
     "check_results",
     "curve_figure",
-    "detected_not_quantified",
     "drift_info",
     "measured_when",
     "plasma_info",
