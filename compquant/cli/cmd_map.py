@@ -7,11 +7,7 @@ from pathlib import Path
 
 import click
 
-SAFETY = (
-    "Safety: rastering fires a Class 4 laser at many spots: keep eyewear of the right optical density, "
-    "interlocks and a controlled area; extract ablation fumes (samples may hold Pb, Cd, Be); follow "
-    "local regulations and your laser safety officer."
-)
+from compquant.cli._common import SAFETY, write_csv
 
 
 def write_map_outputs(result, out_dir: Path) -> list[Path]:
@@ -28,8 +24,7 @@ def write_map_outputs(result, out_dir: Path) -> list[Path]:
             written.append(write_map_png(out_dir / f"{name}.png", sm, em))
     if result.results is not None:
         p = out_dir / "maps-node-results.csv"
-        with atomic_write(p, newline="") as fh:
-            result.results.to_csv(fh, index=False, float_format="%.8g")
+        write_csv(result.results, p, float_format="%.8g")
         written.append(p)
     p = out_dir / "maps-provenance.json"
     with atomic_write(p) as fh:
