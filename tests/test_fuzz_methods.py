@@ -26,6 +26,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from compquant.errors import CompquantError
+from compquant.method import LINE_KEYS as METHOD_LINE_KEYS
 from compquant.run import Run, write_run
 
 if sys.version_info >= (3, 11):
@@ -298,20 +299,7 @@ PLAUSIBLE = {
     "k_sigma": [0.1, 5.0, 100.0],
     "step_mm": [0.1, [0.1, 0.2]],
 }
-LINE_KEYS = [
-    "id",
-    "element",
-    "ion",
-    "wavelength_nm",
-    "mode",
-    "window_nm",
-    "side_nm",
-    "gap_nm",
-    "group",
-    "profile",
-    "fwhm_nm",
-    "label",
-]
+LINE_KEYS = sorted(METHOD_LINE_KEYS)  # the keys the loader accepts in a [[lines]] entry
 
 
 @st.composite

@@ -253,6 +253,23 @@ def _composition(table, matrix, where):
     return comp
 
 
+def _curve(table: dict, x_key: str, y_key: str, where: str, meaning: str):
+    """A positive curve given as two lists (wavelengths ``x_key`` increasing, values ``y_key`` > 0),
+    or ``(None, None)`` when neither key is present."""
+    if (x_key in table) != (y_key in table):
+        raise ConfigError(f"give both {x_key} and {y_key}, or neither", where=where, fix=meaning)
+    if x_key not in table:
+        return None, None
+    xs, ys = _num_list(table, x_key, where), _num_list(table, y_key, where)
+    if len(xs) != len(ys) or np.any(np.diff(xs) <= 0) or min(ys) <= 0:
+        raise ConfigError(
+            f"{x_key} must increase, match {y_key} in length, and {y_key} be > 0",
+            where=f"{where}.{y_key}",
+            fix="give matching lists",
+        )
+    return xs, ys
+
+
 def load_scenario(path) -> Scenario:
     """Read and validate a scenario TOML file."""
     path = Path(path)
@@ -352,23 +369,9 @@ def load_scenario(path) -> Scenario:
         _num(ins, "resolving_power", wi, lo=10, hi=1e6) if "resolving_power" in ins else None
     )
     instrument["fwhm_nm"] = _num(ins, "fwhm_nm", wi, lo=0, lo_open=True, hi=10) if "fwhm_nm" in ins else None
-    if ("response_nm" in ins) != ("response" in ins):
-        raise ConfigError(
-            "give both response_nm and response, or neither",
-            where=wi,
-            fix="response is a list of relative values at the wavelengths response_nm",
-        )
-    if "response_nm" in ins:
-        rn, rv = _num_list(ins, "response_nm", wi), _num_list(ins, "response", wi)
-        if len(rn) != len(rv) or np.any(np.diff(rn) <= 0) or min(rv) <= 0:
-            raise ConfigError(
-                "response_nm must increase, match response in length, and response be > 0",
-                where=f"{wi}.response",
-                fix="give matching lists",
-            )
-        instrument["response_nm"], instrument["response"] = rn, rv
-    else:
-        instrument["response_nm"], instrument["response"] = None, None
+    instrument["response_nm"], instrument["response"] = _curve(
+        ins, "response_nm", "response", wi, "response is a list of relative values at the wavelengths response_nm"
+    )
 
     drift = {"response_scale": 1.0, "factor_nm": None, "factor": None, "wavelength_shift_nm": 0.0, "description": ""}
     if "drift" in doc:
@@ -378,21 +381,9 @@ def load_scenario(path) -> Scenario:
         drift["response_scale"] = _num(dr, "response_scale", wd, 1.0, lo=0, lo_open=True, hi=10)
         drift["wavelength_shift_nm"] = _num(dr, "wavelength_shift_nm", wd, 0.0, lo=-1, hi=1)
         drift["description"] = _str(dr, "description", wd, "")
-        if ("factor_nm" in dr) != ("factor" in dr):
-            raise ConfigError(
-                "give both factor_nm and factor, or neither",
-                where=wd,
-                fix="factor is a list of response multipliers at wavelengths factor_nm",
-            )
-        if "factor_nm" in dr:
-            fn, fv = _num_list(dr, "factor_nm", wd), _num_list(dr, "factor", wd)
-            if len(fn) != len(fv) or np.any(np.diff(fn) <= 0) or min(fv) <= 0:
-                raise ConfigError(
-                    "factor_nm must increase, match factor in length, and factor be > 0",
-                    where=f"{wd}.factor",
-                    fix="give matching lists",
-                )
-            drift["factor_nm"], drift["factor"] = fn, fv
+        drift["factor_nm"], drift["factor"] = _curve(
+            dr, "factor_nm", "factor", wd, "factor is a list of response multipliers at wavelengths factor_nm"
+        )
 
     dark_frames = 0
     if "dark" in doc:
