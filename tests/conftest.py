@@ -3,12 +3,23 @@
 from __future__ import annotations
 
 import hashlib
+import os
 from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import settings
 
 from compquant.run import write_run
+
+# Fuzzing is derandomised by default, so the README's test command and CI give the same verdict on
+# every run (issue 17, item 1): the example budgets stay as set in the environment, but Hypothesis
+# draws them from a fixed seed derived from each test. Open-ended fuzzing, with fresh random
+# examples each time, is a separate command (docs/reliability.md):
+#     COMPQUANT_FUZZ_PROFILE=explore python -m pytest -m fuzz
+settings.register_profile("deterministic", derandomize=True, database=None, print_blob=True)
+settings.register_profile("explore", derandomize=False, database=None, print_blob=True)
+settings.load_profile(os.environ.get("COMPQUANT_FUZZ_PROFILE", "deterministic"))
 
 
 def file_hash(path) -> str:

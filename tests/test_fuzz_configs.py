@@ -256,3 +256,27 @@ def test_calibration_fuzz_base_is_valid(env):
     )
     assert len(q.results) > 0
     random.seed(0)
+
+
+@pytest.mark.parametrize(
+    "mutate",
+    [
+        # found by the calibration fuzzer on unseeded runs (issue 17, item 1): KeyError 'models'
+        lambda d: d.__setitem__("pls", {"half_width_nm": 0.3}),
+        # and TypeError from a list-valued z-score target
+        lambda d: d["settings"].__setitem__("sigma_pt_rel", [0.05]),
+        lambda d: d["settings"].__setitem__("sigma_pt_rel", -1.0),
+        lambda d: d["settings"].pop("analytes"),
+    ],
+    ids=["pls-without-models", "sigma-pt-list", "sigma-pt-negative", "settings-without-analytes"],
+)
+def test_damaged_calibration_is_refused_on_load(env, mutate):
+    from compquant.calibrate import Calibration
+    from compquant.errors import CalibrationError
+
+    doc = copy.deepcopy(env["cal"])
+    mutate(doc)
+    p = env["dir"] / "damaged-cal.json"
+    p.write_text(json.dumps(doc), encoding="utf-8")
+    with pytest.raises(CalibrationError, match="incomplete or damaged"):
+        Calibration.load(p)

@@ -267,8 +267,11 @@ class Calibration:
             _check_types(cal, "calibration")
             for el, c in cal.curves.items():
                 _check_curve(c, f"curve {el}")
+            _check_settings(cal.settings)
+            if cal.pls is not None:
+                _check_pls(cal.pls)
             return cal
-        except (TypeError, KeyError, AttributeError) as exc:
+        except (TypeError, KeyError, AttributeError, ValueError) as exc:
             raise CalibrationError(
                 f"calibration file is incomplete or damaged ({exc})",
                 where=where,
@@ -355,6 +358,53 @@ def _check_curve(c: Curve, what: str) -> None:
         isinstance(it, dict) and isinstance(it.get("element"), str) for it in c.interferences
     ):
         raise TypeError(f"{what}: 'standards' / 'interferences' should be tables")
+
+
+def _check_settings(settings: dict) -> None:
+    """The saved ``[calibration]`` settings rebuild a :class:`CalibrationConfig` of the declared types."""
+    from compquant.calibrate.config import CalibrationConfig
+
+    cfg = CalibrationConfig.from_dict(settings)
+    _check_types(cfg, "settings")
+    for a in cfg.analytes:
+        _check_types(a, f"settings analyte {a.element!r:.20}")
+    if cfg.pls is not None:
+        _check_types(cfg.pls, "settings pls")
+    spt = cfg.sigma_pt_rel
+    if spt is not None and not (math.isfinite(spt) and spt > 0):
+        raise TypeError(f"settings: 'sigma_pt_rel' should be a positive number, got {spt!r:.20}")
+
+
+# what applying a saved PLS model reads, with the type each entry must have
+_PLS_MODEL_KEYS = {
+    "n_components": int, "rmsecv": float, "x_mean": list, "x_scale": list, "coef": list, "intercept": float,
+    "x_rotations": list, "x_loadings": list, "score_var": list, "t2_limit": float, "q_limit": float,
+    "n": int, "y_range": list, "wavelength_mask_nm": list, "lines": list,
+}
+
+
+def _check_pls(pls) -> None:
+    """A saved PLS block holds every entry that :func:`compquant.calibrate.pls.predict_pls` reads."""
+    if not isinstance(pls, dict) or not isinstance(pls.get("models"), dict) or not pls["models"]:
+        raise TypeError("pls: 'models' should be a non-empty table")
+    if pls.get("normalise") not in ("internal_standard", "total", "none"):
+        raise TypeError("pls: 'normalise' should be internal_standard, total or none")
+    if pls.get("target") not in ("ratio", "mass_fraction"):
+        raise TypeError("pls: 'target' should be ratio or mass_fraction")
+    if pls.get("is_mask_nm") is not None and not _numbers(pls["is_mask_nm"]):
+        raise TypeError("pls: 'is_mask_nm' should be a list of numbers")
+    for el, m in pls["models"].items():
+        if not isinstance(m, dict):
+            raise TypeError(f"pls model {el!r:.20}: not a table")
+        for key, kind in _PLS_MODEL_KEYS.items():
+            v = m.get(key)
+            ok = (_numbers([v]) if kind is float else isinstance(v, kind) and not isinstance(v, bool))
+            if not ok:
+                raise TypeError(f"pls model {el!r:.20}: '{key}' should be {kind.__name__}")
+        if not (_numbers(m["y_range"], 2) and _numbers(m["wavelength_mask_nm"]) and _numbers(m["coef"])):
+            raise TypeError(f"pls model {el!r:.20}: 'y_range', 'wavelength_mask_nm' and 'coef' should be numbers")
+        if not all(isinstance(s, str) for s in m["lines"]):
+            raise TypeError(f"pls model {el!r:.20}: 'lines' should be line ids")
 
 
 def _clean(o):
