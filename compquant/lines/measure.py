@@ -269,24 +269,14 @@ def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
 
 
 def _iter_raw(run, chunk: int, prefetch: bool = True):
-    """Yield ``(start, stop, raw)`` chunks; with ``prefetch`` the next chunk is read by one
-    helper thread while the caller processes the current one (h5py releases the GIL while it
-    reads and decompresses, so reading overlaps computing).  Memory: two chunks of raw counts.
+    """Yield ``(start, stop, raw)`` chunks; with ``prefetch`` the next chunks are read and
+    decompressed on every core while the caller processes the current one
+    (:func:`compquant.run.fastread.iter_raw`).  Memory: three chunks of raw counts.
     """
-    bounds = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
-    if not prefetch or len(bounds) < 2:
-        for a, b in bounds:
-            yield a, b, run.read_raw(a, b)
-        return
-    from concurrent.futures import ThreadPoolExecutor
+    from compquant.run.fastread import iter_raw
 
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="compquant-read") as ex:
-        fut = ex.submit(run.read_raw, *bounds[0])
-        for k, (a, b) in enumerate(bounds):
-            raw = fut.result()
-            if k + 1 < len(bounds):
-                fut = ex.submit(run.read_raw, *bounds[k + 1])
-            yield a, b, raw
+    bounds = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
+    yield from iter_raw(run, bounds, threads=None if prefetch else 0)
 
 
 def _chunk_results(run, setup, chunk: int, plan: ChunkPlan, chunk_mapper=None):
