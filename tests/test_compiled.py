@@ -111,6 +111,17 @@ def test_compiled_equals_numpy(params, mask):
 
 
 @needs_numba
+@pytest.mark.parametrize("dtype", [">u2", "float16", "int32", "float32"])
+def test_compiled_takes_every_storage_dtype(dtype):
+    raw = _raw(n=6).astype(dtype)  # big-endian and half precision are converted, others used as stored
+    si = np.zeros(6, int)
+    a = process_chunk(raw, si, _plan({"max_half_window": 10}, "compiled"))
+    b = process_chunk(raw, si, _plan({"max_half_window": 10}, "numpy"))
+    _close(a.window, b.window, 1e-12)
+    _close(a.total, b.total, 1e-12)
+
+
+@needs_numba
 def test_compiled_float32_accuracy():
     raw = _raw()
     si = np.zeros(raw.shape[0], int)

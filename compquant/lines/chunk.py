@@ -348,6 +348,9 @@ def _compiled_chunk(raw, si, plan: ChunkPlan, ops: StackedOperators, run_mask, r
         "accumulate": bool(plan.accumulate),
         "tw": np.ascontiguousarray(plan.total_weights if plan.total_weights is not None else np.ones(npx), float),
     }
+    dt = raw.dtype
+    if dt.kind not in "uif" or (dt.kind == "f" and dt.itemsize < 4) or not dt.isnative:
+        raw = raw.astype(np.float64)  # e.g. big-endian or float16 storage: numba takes native types
     out = compiled.run_kernel(raw, slot.astype(np.int64), op_of_row, geo, ops, samples.size, plan.precision)
     sums, counts = {}, {}
     if plan.accumulate:
