@@ -197,7 +197,10 @@ def plan_operators(plan: ChunkPlan) -> StackedOperators:
     """The per-line operators of ``plan`` (windows then fits), built once per plan and cached."""
     n_win = plan.n_win if plan.measure_windows else 0
     # the cache holds the inputs themselves: a plan whose arrays were replaced is rebuilt
-    key = (plan.W, plan.support, n_win, plan.n_fit, *plan.W_by_sample.items(), *plan.fit.items())
+    key = (
+        plan.W, plan.support, n_win, plan.n_fit, *plan.W_by_sample.items(), *plan.support_by_sample.items(),
+        *plan.fit.items(), *plan.fit_support.items(),
+    )  # fmt: skip
     hit = plan._cache.get("ops")
     if hit is not None and len(hit[0]) == len(key) and all(_same(a, b) for a, b in zip(hit[0], key)):
         return hit[1]
