@@ -9,7 +9,10 @@ chunks with Dask.
 
 Per block of rows (cache sized for SNIP) the steps are, in this order:
 
-1. raw counts -> float64; saturated pixels ``raw >= level`` found here;
+1. raw counts -> float64; saturated pixels ``raw >= level`` found here; masked pixels
+   (NaN from :class:`compquant.run.Run`, docs/run-format.md "Pixel masks") are bridged
+   by linear interpolation for the baseline and the total emission only, and every line
+   whose integration or fit pixels touch one is marked masked in that shot;
 2. dark subtraction ``y - scale * D`` (:mod:`compquant.preprocess.corrections`);
 3. response correction ``y / R``;
 4. baseline removal (SNIP / AsLS / arPLS, :mod:`compquant.preprocess.baseline`);
@@ -80,6 +83,9 @@ class ChunkResult:
     background: np.ndarray  # (n,) mean removed baseline, counts
     sums: dict[int, np.ndarray]  # sample index -> sum of processed spectra
     counts: dict[int, int]
+    mask_window: np.ndarray | None = None  # (n, n_win) bool: a masked pixel touches the line
+    mask_fit: np.ndarray | None = None  # (n, n_fit) bool
+    masked: list = field(default_factory=list)  # (row in chunk, first pixel, last pixel), inclusive
 
 
 def _compact(W: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -89,6 +95,53 @@ def _compact(W: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 def _sat_any(sat_block: np.ndarray, support: np.ndarray) -> np.ndarray:
     return (sat_block.astype(np.float32) @ support.astype(np.float32)) > 0
+
+
+def find_masked(rb: np.ndarray) -> np.ndarray | None:
+    """NaN/inf pixels of a raw block (masked pixels arrive as NaN); None when there are none.
+
+    One sum finds clean blocks: NaN and inf propagate through it (an overflow to inf only
+    costs the full check)."""
+    if rb.dtype.kind != "f" or np.isfinite(rb.sum()):
+        return None
+    bad = ~np.isfinite(rb)
+    return bad if bad.any() else None
+
+
+def repair_masked(y: np.ndarray, bad: np.ndarray) -> None:
+    """Bridge masked pixels of each row of ``y`` in place by linear interpolation (in pixel
+    index) between the nearest valid pixels, constant beyond the ends; rows without any
+    valid pixel become NaN.  Only baseline removal and the total emission see the bridged
+    values: lines touching masked pixels are excluded by the caller.  Rows with the same
+    mask are bridged together (a dead pixel in every shot costs one set of weights)."""
+    rows = np.flatnonzero(bad.any(axis=1))
+    if rows.size == 0:
+        return
+    pats, inv = np.unique(bad[rows], axis=0, return_inverse=True)
+    inv = np.asarray(inv).reshape(-1)
+    for k, pat in enumerate(pats):
+        r = rows[inv == k]
+        good = np.flatnonzero(~pat)
+        if good.size == 0:
+            y[r] = np.nan
+            continue
+        bi = np.flatnonzero(pat)
+        j = np.searchsorted(good, bi)
+        left = good[np.clip(j - 1, 0, good.size - 1)]
+        right = good[np.clip(j, 0, good.size - 1)]
+        t = np.where(right != left, (bi - left) / np.maximum(right - left, 1), 0.0)
+        y[np.ix_(r, bi)] = y[np.ix_(r, left)] * (1.0 - t) + y[np.ix_(r, right)] * t
+
+
+def masked_ranges(bad: np.ndarray, row_offset: int = 0) -> list[tuple[int, int, int]]:
+    """``(row, first, last)`` inclusive pixel runs of a (rows, pixels) bool mask."""
+    out = []
+    for i in np.flatnonzero(bad.any(axis=1)):
+        m = np.concatenate([[0], bad[i].astype(np.int8), [0]])
+        d = np.diff(m)
+        for a, b in zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1) - 1):
+            out.append((int(i) + row_offset, int(a), int(b)))
+    return out
 
 
 def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
@@ -103,6 +156,9 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
     fit = np.empty((n, plan.n_fit)) if plan.n_fit else None
     sat_w = None
     sat_f = None
+    mask_w = None
+    mask_f = None
+    masked: list = []
     total = np.empty(n)
     bg = np.zeros(n)
     sums: dict[int, np.ndarray] = {}
@@ -124,6 +180,10 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
         rb = raw[r0:r1]
         y = ybuf[: r1 - r0]
         y[...] = rb  # cast to float64 (a plain copy is faster than a mixed-type subtract)
+        bad = find_masked(rb)
+        if bad is not None:
+            repair_masked(y, bad)
+            masked += masked_ranges(bad, r0)
         if plan.dark is not None:
             y -= plan.dark
         sib = si[r0:r1]
@@ -154,6 +214,11 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                         sat_w = np.zeros((n, n_win), dtype=bool)
                     sup = plan.support_by_sample.get(s, plan.support)
                     sat_w[r0:r1][rows] = _sat_any(sat[rows], sup)
+                if bad is not None:
+                    if mask_w is None:
+                        mask_w = np.zeros((n, n_win), dtype=bool)
+                    sup = plan.support_by_sample.get(s, plan.support)
+                    mask_w[r0:r1][rows] = _sat_any(bad[rows], sup)
             if plan.n_fit:
                 idx = np.arange(r0, r1) if isinstance(rows, slice) else r0 + np.nonzero(rows)[0]
                 fit[idx] = np.nan
@@ -163,6 +228,10 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                     if sat_f is None:
                         sat_f = np.zeros((n, plan.n_fit), dtype=bool)
                     sat_f[r0:r1][rows] = _sat_any(sat[rows], plan.fit_support[s])
+                if bad is not None and s in plan.fit_support:
+                    if mask_f is None:
+                        mask_f = np.zeros((n, plan.n_fit), dtype=bool)
+                    mask_f[r0:r1][rows] = _sat_any(bad[rows], plan.fit_support[s])
             if plan.accumulate:
                 add = ys.sum(axis=0)
                 if s in sums:
@@ -171,7 +240,8 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                     sums[s] = add
                 counts[s] = counts.get(s, 0) + (ys.shape[0])
     return ChunkResult(
-        window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total, background=bg, sums=sums, counts=counts
+        window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total, background=bg, sums=sums, counts=counts,
+        mask_window=mask_w, mask_fit=mask_f, masked=masked,
     )
 
 
@@ -209,6 +279,9 @@ def merge_chunk_results(parts: list[ChunkResult]) -> ChunkResult:
         background=cat("background"),
         sums=sums,
         counts=counts,
+        mask_window=cat_sat("mask_window", "window"),
+        mask_fit=cat_sat("mask_fit", "fit"),
+        masked=[(r + off, a, b) for p, off in zip(parts, np.cumsum([0] + ns[:-1])) for r, a, b in p.masked],
     )
 
 
