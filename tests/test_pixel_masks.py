@@ -135,3 +135,21 @@ def test_method_refuses_unknown_species_and_states_medium():
 
     assert vac.lines[0].wavelength_nm == pytest.approx(air_to_vacuum(air.lines[0].wavelength_nm), abs=1e-9)
     assert 0.09 < vac.lines[0].wavelength_nm - air.lines[0].wavelength_nm < 0.10
+
+
+def test_line_wider_than_its_window_is_flagged(tmp_path):
+    # a Gaussian line of FWHM 0.30 nm measured through a 0.10 nm window (window and fit mode):
+    # the window holds erf(0.05 / (sigma sqrt 2)) = 31 % of its area (normal distribution)
+    wl = np.arange(400.0, 402.0, 0.01)
+    sig = 0.30 / 2.3548
+    line = 500.0 * np.exp(-0.5 * ((wl - 401.0) / sig) ** 2)
+    rng = np.random.default_rng(3)
+    sp = np.vstack([line + 100 + rng.normal(0, 1.0, wl.size) for _ in range(5)])
+    p = tmp_path / "wide.h5"
+    write_run(p, wl, sp, [{"sample_id": "W", "role": "unknown"}], np.zeros(5, int))
+    for mode in ("window", "fit"):
+        m = method([{"element": "Fe", "ion": 1, "wavelength_nm": 401.0, "mode": mode, "window_nm": 0.10,
+                     "side_nm": 0.05, "fwhm_nm": 0.03}], preprocess={"baseline": {"method": "none"}})
+        with Run.open(p) as run:
+            t = measure_run(run, m).table
+        assert "window_clips" in t["flags"].iloc[0], (mode, t["flags"].iloc[0])

@@ -57,7 +57,7 @@ from compquant.lines.chunk import (
     repair_masked,
 )
 from compquant.lines.fit import GroupFit, fit_group, fit_group_fixed
-from compquant.lines.wavecal import WavecalResult, WavecalSettings, calibrate_wavelength
+from compquant.lines.wavecal import WavecalResult, WavecalSettings, calibrate_wavelength, noise_sd, peak_fwhm
 from compquant.lines.windows import (
     WindowWeights,
     build_window_weights,
@@ -801,6 +801,26 @@ def _window_clips(centre: float, fwhm: float, a: float, b: float, u_c: float) ->
     return bool(fwhm - m > (b - a) or centre - 0.5 * fwhm + m < a or centre + 0.5 * fwhm - m > b)
 
 
+def _wider_than_window(setup: _Setup, s: int, mean_spec, lo: float, hi: float) -> bool:
+    """A clear peak (> 20 noise SDs) in the window whose own FWHM, measured on the mean spectrum
+    beyond the window (compquant.lines.wavecal.peak_fwhm), exceeds the window: flagged even when
+    the narrow window or fit then finds no line."""
+    if mean_spec is None:
+        return False
+    cache = setup.__dict__.setdefault("_noise", {})
+    if s not in cache:
+        cache[s] = noise_sd(mean_spec)
+    i0 = int(np.searchsorted(setup.wl, lo))
+    i1 = int(np.searchsorted(setup.wl, hi, side="right"))
+    if i1 - i0 < 3 or not np.isfinite(cache[s]) or cache[s] <= 0:
+        return False
+    j = i0 + int(np.argmax(mean_spec[i0:i1]))
+    if j in (i0, i1 - 1) or mean_spec[j] < 20.0 * cache[s]:
+        return False
+    w = peak_fwhm(setup.wl, mean_spec, j, max_pixels=4 * (i1 - i0))
+    return bool(np.isfinite(w) and w > hi - lo)
+
+
 def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_noise_win, f_mean, fits,
               flag_nm) -> dict:
     """One row of the line table: statistics over the accepted shots and the line's flags."""
@@ -867,7 +887,10 @@ def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_n
     u_c = _centre_uncertainty(fwhm, snr, win_lo, win_hi)
     if well_measured and np.isfinite(centre) and abs(centre - expected) > flag_nm + 2.0 * u_c:
         flags.add("shifted")
-    if well_measured and _window_clips(centre, fwhm, win_lo, win_hi, u_c):
+    single = ln.mode == "window" or len(next(g for g in setup.groups if li in g)) == 1  # blends: no
+    if (well_measured and _window_clips(centre, fwhm, win_lo, win_hi, u_c)) or (
+        single and _wider_than_window(setup, s, mean_spec, win_lo, win_hi)
+    ):
         flags.add("window_clips")
     c = setup.corr.get(s)
     if pre.shift != "none" and c is not None and c.disagree:
@@ -978,6 +1001,7 @@ def _aggregate(
         "shift_model": pre.shift_model,
         "medium": {"method": setup.method.medium, "run": getattr(run, "medium", "air"), "note": setup.medium_note},
         "masked_ranges": len(setup.masked_ranges),
+        "wavelength_references": ref_rows,
         "qc": {
             "enabled": pre.qc,
             "quantity": pre.qc_quantity,

@@ -132,9 +132,34 @@ def noise_sd(y: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(d - np.median(d))) / np.sqrt(2.0))
 
 
+def peak_fwhm(wl: np.ndarray, y: np.ndarray, j: int, max_pixels: int = 60) -> float:
+    """FWHM (nm) of the peak at pixel ``j`` from its half-maximum crossings (linear
+    interpolation), walking at most ``max_pixels`` each way; NaN when a side never drops."""
+    half = 0.5 * y[j]
+    if not np.isfinite(half) or half <= 0:
+        return float("nan")
+    k = j
+    while k > max(0, j - max_pixels) and y[k] > half:
+        k -= 1
+    if y[k] > half:
+        return float("nan")
+    xl = wl[k] + (half - y[k]) * (wl[k + 1] - wl[k]) / (y[k + 1] - y[k])
+    k = j
+    while k < min(wl.size - 1, j + max_pixels) and y[k] > half:
+        k += 1
+    if y[k] > half:
+        return float("nan")
+    xr = wl[k - 1] + (half - y[k - 1]) * (wl[k] - wl[k - 1]) / (y[k] - y[k - 1])
+    return float(xr - xl)
+
+
 def line_centre(wl: np.ndarray, y: np.ndarray, j: int, fwhm_nm: float, pitch_nm: float) -> float:
     """Centre (nm) of the peak at pixel ``j``: Gaussian + linear background fit within
-    ``max(FWHM, 3 pixels)`` of ``j``; intensity-weighted centroid when the fit fails."""
+    ``0.9 x FWHM`` (at least 3 pixels) of ``j``, the FWHM being the larger of the expected one
+    and the peak's own (:func:`peak_fwhm`); intensity-weighted centroid when the fit fails."""
+    own = peak_fwhm(wl, y, j)
+    if np.isfinite(own) and own < 4.0 * fwhm_nm:
+        fwhm_nm = max(fwhm_nm, own)
     half = max(HALF_WINDOW_FWHM * fwhm_nm, 3.0 * pitch_nm)
     i0 = int(np.searchsorted(wl, wl[j] - half))
     i1 = int(np.searchsorted(wl, wl[j] + half, side="right"))
