@@ -239,6 +239,23 @@ def _uncertainty(res: WavecalResult, lam: np.ndarray, r: np.ndarray) -> None:
         res.u_dispersion = float(np.sqrt(cov[1, 1]))
 
 
+def _far_candidates(res: WavecalResult, refs, nearest, catalogue_nm, match: float) -> None:
+    """A reference with no candidate near the model but a peak elsewhere in its search window:
+    that peak is a known neighbour (status ``neighbour``) when it sits within ``match_nm`` of
+    another catalogue line's predicted position, otherwise the reference disagrees (``outlier``)."""
+    cat = np.zeros(0) if catalogue_nm is None else np.asarray(catalogue_nm, dtype=float)
+    for k, rr in enumerate(res.refs):
+        if rr.status != "not_found" or not np.isfinite(nearest[k]):
+            continue
+        others = cat[np.abs(cat - refs[k]) > 1e-6]
+        if others.size and np.any(np.abs(nearest[k] - others - res.shift_at(others)) <= match):
+            rr.status = "neighbour"
+        else:
+            rr.status = "outlier"
+        rr.found_nm = float(nearest[k])
+        rr.residual_nm = float(nearest[k] - refs[k] - res.shift_at(refs[k]))
+
+
 def _neighbour_check(res, refs, found, catalogue, cat_int, ref_int, fwhm) -> None:
     for k, rr in enumerate(res.refs):
         if rr.status != "used" or catalogue is None or catalogue.size == 0:
@@ -288,6 +305,7 @@ def calibrate_wavelength(wl, y, refs_nm, settings: WavecalSettings, catalogue_nm
         return res
     a, b = a0, 0.0
     found = np.full(refs.size, np.nan)
+    nearest = np.full(refs.size, np.nan)  # nearest candidate, also when beyond match_nm
     for _ in range(3):
         pred = refs + a + b * (refs - res.lambda_mid)
         use = np.zeros(refs.size, dtype=bool)
@@ -295,6 +313,7 @@ def calibrate_wavelength(wl, y, refs_nm, settings: WavecalSettings, catalogue_nm
             if res.refs[k].status == "masked" or not c.size:
                 continue
             j = int(np.argmin(np.abs(c - pred[k])))
+            nearest[k] = c[j]
             found[k] = c[j] if abs(c[j] - pred[k]) <= match else np.nan
             use[k] = np.isfinite(found[k])
         if use.sum() == 0:
@@ -312,6 +331,7 @@ def calibrate_wavelength(wl, y, refs_nm, settings: WavecalSettings, catalogue_nm
         rr.found_nm, rr.residual_nm = float(found[k]), float(r[k])
         rr.status = "not_found" if not np.isfinite(found[k]) else ("used" if abs(r[k]) <= settings.tol else "outlier")
     res.a, res.b, res.applied = a, b, True
+    _far_candidates(res, refs, nearest, catalogue_nm, match)
     _neighbour_check(res, refs, found, None if catalogue_nm is None else np.asarray(catalogue_nm, float),
                      None if catalogue_intensity is None else np.asarray(catalogue_intensity, float),
                      None if ref_intensity is None else np.asarray(ref_intensity, float), settings.fwhm_nm)
@@ -326,8 +346,8 @@ def _finish(res: WavecalResult, refs, found, settings: WavecalSettings) -> None:
         if settings.model == "linear" and used.sum() < 3:
             res.b = 0.0
     for k, rr in enumerate(res.refs):
-        if np.isfinite(found[k]):
-            rr.residual_nm = float(found[k] - refs[k] - res.a - res.b * (refs[k] - res.lambda_mid))
+        if np.isfinite(rr.found_nm):
+            rr.residual_nm = float(rr.found_nm - refs[k] - res.a - res.b * (refs[k] - res.lambda_mid))
     lam = refs[used]
     _uncertainty(res, lam, np.array([res.refs[k].residual_nm for k in np.flatnonzero(used)]))
     too_big = settings.max_shift_nm is not None and refs.size and np.any(
