@@ -303,9 +303,11 @@ class Run:
         bad = self.mask_rows(rows, data)
         if bad is None:
             return data
-        out = np.asarray(data, dtype=np.float64).copy() if data.dtype != np.float64 else np.array(data)
-        out[bad] = np.nan
-        return out
+        if data.dtype != np.float64:
+            self._check_alloc(data.shape, 8, "masking these spectra")
+            data = data.astype(np.float64)
+        data[bad] = np.nan  # ``data`` is a fresh array read from the file: changed in place
+        return data
 
     # -- properties ------------------------------------------------------------
     @property
