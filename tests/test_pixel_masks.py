@@ -100,6 +100,8 @@ def test_masked_pixel_never_enters_a_line(tmp_path):
     k = int(np.argmin(np.abs(wl - 324.754)))
     raw[:3, k] = F32_MAX  # dead pixel on the peak in three shots
     raw[:, k + 1] = np.nan  # and a blank pixel beside it in every shot
+    z = int(np.argmin(np.abs(wl - 334.502)))
+    raw[[2, 5], z] = -np.inf  # another line loses two of its eight shots
     q = tmp_path / "bad.h5"
     write_run(q, wl, raw, [{"sample_id": "S", "role": "standard", "standard_ref": "X"}], np.zeros(8, int))
     with Run.open(q) as run:
@@ -110,7 +112,20 @@ def test_masked_pixel_never_enters_a_line(tmp_path):
     other = t.loc["Cu I 327.396"]  # untouched line: same value as in the clean run
     assert other.intensity == pytest.approx(base.loc["Cu I 327.396", "intensity"], rel=1e-6)
     assert "masked" not in other["flags"]
+    zn = t.loc["Zn I 334.502"]  # measured on its clean accepted shots (noise-free: same mean), flagged
+    acc = lm.shot_accepted
+    assert zn.n_shots == int(acc.sum() - acc[[2, 5]].sum()) >= 3 and "masked" in zn["flags"]
+    assert zn.intensity == pytest.approx(base.loc["Zn I 334.502", "intensity"], rel=1e-3)
     assert set(lm.masked_pixels.shot) == set(range(8))
+
+
+def test_not_found_has_no_centre_in_any_mode(tmp_path):
+    p = make_run(tmp_path / "blank.h5", [("BLK", "blank", 6, {})])
+    for mode in ("window", "fit"):
+        with Run.open(p) as run:
+            t = measure_run(run, method(measure={"window_nm": 0.3, "side_nm": 0.1, "mode": mode})).table
+        assert t["flags"].str.contains("not_found").all()
+        assert t.centre_nm.isna().all() and t.fwhm_nm.isna().all()
 
 
 def _m(lines, **meta):
