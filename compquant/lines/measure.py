@@ -655,6 +655,7 @@ def measure_run(
     if setup.fit_idx:
         raw_int[:, setup.fit_idx] = fit_vals
     raw_int[setup.masked_line] = np.nan  # a masked pixel never enters an integral or a fit
+    setup.notes += _masked_notes(setup)
     return _aggregate(setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk)
 
 
@@ -770,6 +771,21 @@ def _reference_rows(setup: _Setup, s: int, sid: str) -> list[dict]:
          "status": r.status}
         for r in c.refs
     ]
+
+
+def _masked_notes(setup: _Setup, limit: int = 3) -> list[str]:
+    """One note per sample with masked pixels: how many ranges, the first few by shot and pixels."""
+    by_sample: dict[int, list] = {}
+    for r, a, b in setup.masked_ranges:
+        by_sample.setdefault(int(setup.sample_index[r]), []).append((r, a, b))
+    shot_no = np.asarray(setup.shot_number)
+    notes = []
+    for s, items in sorted(by_sample.items()):
+        shown = "; ".join(f"shot {int(shot_no[r])} {describe_range(a, b, setup.wl)}" for r, a, b in items[:limit])
+        more = f"; and {len(items) - limit} more" if len(items) > limit else ""
+        notes.append(f"sample {setup.sample_ids[s]!r}: {len(items)} masked pixel range(s) ({shown}{more}); "
+                     "lines touching them are left out of those shots and flagged 'masked'")
+    return notes
 
 
 def _masked_table(setup: _Setup) -> pd.DataFrame:
