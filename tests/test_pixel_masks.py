@@ -117,7 +117,7 @@ def test_masked_pixel_never_enters_a_line(tmp_path):
     assert zn.n_shots == int(acc.sum() - acc[[2, 5]].sum()) >= 3 and "masked" in zn["flags"]
     assert zn.intensity == pytest.approx(base.loc["Zn I 334.502", "intensity"], rel=1e-3)
     assert set(lm.masked_pixels.shot) == set(range(8))
-    assert any("sample 'S'" in n and "masked pixel range" in n and f"pixel {k + 1} " in n
+    assert any("sample 'S'" in n and "masked pixel range" in n and f"shot 0 pixels {k}-{k + 1}" in n
                for n in lm.provenance["notes"])
 
 
