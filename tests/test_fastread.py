@@ -59,3 +59,21 @@ def test_corrupt_chunk_is_a_run_format_error(tmp_path):
     with Run.open(p) as run, pytest.raises(RunFormatError, match="cannot be read"):
         for _ in iter_raw(run, [(0, 4000)], threads=2):
             pass
+
+
+def test_direct_read_returns_masked_pixels_as_nan_like_read_raw(tmp_path):
+    """The threaded path must apply the run's pixel mask exactly as ``Run.read_raw`` does (a stored
+    mask row and a float32-maximum sentinel, docs/run-format.md "Pixel masks")."""
+    rng = np.random.default_rng(2)
+    n = 3000
+    spectra = rng.integers(0, 60000, (n, NPX)).astype(np.float32)
+    spectra[1234, 17] = np.finfo(np.float32).max
+    samples = [{"sample_id": "A", "role": "unknown", "standard_ref": "", "description": ""}]
+    p = write_run(tmp_path / "m.h5", np.linspace(300, 400, NPX), spectra, samples, np.zeros(n, int),
+                  masked_ranges=[(2500, 40, 42, "cosmic ray")])
+    with Run.open(p) as run:
+        assert _layout(run) is not None
+        got = np.concatenate([r for _, _, r in iter_raw(run, [(0, 1500), (1500, n)], threads=2)])
+        ref = run.read_raw(0, n)
+    assert np.isnan(got[1234, 17]) and np.isnan(got[2500, 40:43]).all()
+    assert np.array_equal(got, ref, equal_nan=True)

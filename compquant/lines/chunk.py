@@ -11,8 +11,11 @@ Per shot the steps are, in this order:
 
 1. raw counts -> float64; saturated pixels ``raw >= level`` found here;
 2. dark subtraction ``y - scale * D`` (:mod:`compquant.preprocess.corrections`);
-3. response correction ``y / R``; masked pixels (``pixel_mask``) replaced by the
-   straight line between their nearest unmasked neighbours (:func:`process_chunk`);
+3. response correction ``y / R``; masked pixels (``pixel_mask``, and NaN/inf pixels of the
+   raw chunk: :class:`compquant.run.Run` returns the run's masked pixels as NaN,
+   docs/run-format.md "Pixel masks") replaced by the straight line between their nearest
+   unmasked neighbours, for the baseline and the total emission only; every line whose
+   pixels touch one is NaN in that shot and marked masked (:func:`process_chunk`);
 4. baseline removal (SNIP / AsLS / arPLS, :mod:`compquant.preprocess.baseline`);
 5. window integration and, when planned, the fixed-shape linear profile amplitudes
    of fitted groups ``A = y[pixels] @ P^T``: every output column is a sparse
@@ -118,6 +121,7 @@ class ChunkResult:
     counts: dict[int, int]
     masked_window: np.ndarray | None = None  # (n, n_win) bool
     masked_fit: np.ndarray | None = None  # (n, n_fit) bool
+    masked: list = field(default_factory=list)  # (row in chunk, first pixel, last pixel), inclusive
 
 
 # --------------------------------------------------------------------------- per-line operators
@@ -271,6 +275,47 @@ def _repair_rows(y: np.ndarray, mask: np.ndarray) -> None:
     y[:, mi[(left < 0) & (right < 0)]] = 0.0
 
 
+def find_masked(rb: np.ndarray) -> np.ndarray | None:
+    """NaN/inf pixels of a raw block (the run's masked pixels arrive as NaN); None when there are none.
+
+    One sum finds clean blocks: NaN and inf propagate through it (an overflow to inf only
+    costs the full check)."""
+    rb = np.asarray(rb)
+    if rb.dtype.kind not in "fc" or np.isfinite(rb.sum()):
+        return None
+    bad = ~np.isfinite(rb)
+    return bad if bad.any() else None
+
+
+def repair_masked(y: np.ndarray, bad: np.ndarray) -> None:
+    """Bridge the masked pixels of each row of ``y`` in place (:func:`_repair_rows`, rows with the
+    same mask together); rows without any valid pixel become NaN."""
+    rows = np.flatnonzero(bad.any(axis=1))
+    if rows.size == 0:
+        return
+    pats, inv = np.unique(bad[rows], axis=0, return_inverse=True)
+    inv = np.asarray(inv).reshape(-1)
+    for k, pat in enumerate(pats):
+        r = rows[inv == k]
+        if pat.all():
+            y[r] = np.nan
+            continue
+        block = y[r]
+        _repair_rows(block, pat)
+        y[r] = block
+
+
+def masked_ranges(bad: np.ndarray, row_offset: int = 0) -> list[tuple[int, int, int]]:
+    """``(row, first, last)`` inclusive pixel runs of a (rows, pixels) bool mask."""
+    out = []
+    for i in np.flatnonzero(bad.any(axis=1)):
+        m = np.concatenate([[0], bad[i].astype(np.int8), [0]])
+        d = np.diff(m)
+        for a, b in zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1) - 1):
+            out.append((int(i) + row_offset, int(a), int(b)))
+    return out
+
+
 # --------------------------------------------------------------------------- the two paths
 
 
@@ -303,6 +348,11 @@ def process_chunk(raw, sample_index, plan: ChunkPlan, pixel_mask=None) -> ChunkR
     if raw.ndim != 2 or raw.shape[1] != plan.n_pixels:
         raise ValueError("raw chunk must be (n_shots, n_pixels)")
     run_mask, row_mask = _mask_for(plan, pixel_mask, n)
+    bad = find_masked(raw)
+    masked = []
+    if bad is not None:  # the run's masked pixels (NaN) join the per-shot mask
+        row_mask = bad if row_mask is None else (row_mask | bad)
+        masked = masked_ranges(bad)
     ops = plan_operators(plan)
     if use_compiled(plan):
         vals, satf, maskf, total, bg, sums, counts = _compiled_chunk(raw, si, plan, ops, run_mask, row_mask)
@@ -324,6 +374,7 @@ def process_chunk(raw, sample_index, plan: ChunkPlan, pixel_mask=None) -> ChunkR
         counts=counts,
         masked_window=part(maskf, 0, nw),
         masked_fit=part(maskf, nw, nw + ops.n_fit),
+        masked=masked,
     )
 
 
@@ -486,6 +537,7 @@ def merge_chunk_results(parts: list[ChunkResult]) -> ChunkResult:
         counts=counts,
         masked_window=cat_sat("masked_window", "window"),
         masked_fit=cat_sat("masked_fit", "fit"),
+        masked=[(r + off, a, b) for p, off in zip(parts, np.cumsum([0] + ns[:-1])) for r, a, b in p.masked],
     )
 
 

@@ -145,7 +145,9 @@ def iter_raw(run, bounds: list[tuple[int, int]], threads: int | None = None, ahe
             while nxt < len(bounds) and len(queue) <= ahead:
                 queue.append(_read_range(ds, *bounds[nxt], cr, shuffle, deflate, pool))
                 nxt += 1
-            yield a, b, _assemble(run, ds, a, b, queue.popleft())
+            raw = _assemble(run, ds, a, b, queue.popleft())
+            # the run's masked pixels come back as NaN, exactly as from ``run.read_raw``
+            yield a, b, run._masked(np.arange(a, b), raw) if hasattr(run, "_masked") else raw
 
 
 def _iter_plain(run, bounds, prefetch: bool):

@@ -26,6 +26,7 @@ from compquant.run.format import (
     FORMAT_VERSION,
     SAMPLE_COLUMNS,
 )
+from compquant.run.mask import StoredMask, find_bad, value_limits
 
 
 def memory_limit_from_env(default: int = DEFAULT_MEMORY_LIMIT) -> int:
@@ -262,6 +263,51 @@ class Run:
         self.instrument = _attrs(self._h5["instrument"]) if "instrument" in self._h5 else {}
         self.instrument.pop("NX_class", None)
         self.acquisition = _attrs(self._h5["acquisition"]) if "acquisition" in self._h5 else {}
+        self._open_mask()
+
+    # -- pixel masks (compquant.run.mask) ---------------------------------------------
+    def _open_mask(self) -> None:
+        """Read the optional ``/mask`` group and the ``sentinel`` attribute; set the value limits."""
+        where = f"{self._where}: mask"
+        sent = self._spectra.attrs.get("sentinel", ())
+        try:
+            sent = np.atleast_1d(np.asarray(sent, dtype=np.float64))
+        except (TypeError, ValueError) as exc:
+            raise RunFormatError(f"'spectra' attribute 'sentinel' is not numeric ({sent!r})", where=self._where,
+                                 fix="store sentinel values as numbers") from exc
+        self.value_limits = value_limits(self.spectra_dtype, self.saturation, sent)
+        g = self._h5.get("mask")
+        cols = {}
+        if g is not None:
+            for name in ("shot", "first_pixel", "last_pixel", "reason"):
+                if not isinstance(g.get(name), h5py.Dataset) or g[name].ndim != 1:
+                    raise RunFormatError(f"'/mask/{name}' is missing or not 1-D", where=where,
+                                         fix="write the mask with compquant (shot, first_pixel, last_pixel, reason)")
+                self._check_alloc(g[name].shape, 64, f"'/mask/{name}'")
+                cols[name] = g[name][()]
+            cols["reason"] = _decode(cols["reason"])
+        self.mask = StoredMask(cols.get("shot", []), cols.get("first_pixel", []), cols.get("last_pixel", []),
+                               cols.get("reason", []), self.n_shots, self.n_pixels, where)
+
+    def mask_rows(self, rows, raw: np.ndarray) -> np.ndarray | None:
+        """Masked pixels of file rows ``rows`` whose stored values are ``raw``: the stored mask
+        OR'ed with the implausible values (:func:`compquant.run.mask.find_bad`); None if none."""
+        bad = find_bad(raw, self.value_limits)
+        if not self.mask.empty:
+            stored = self.mask.rows(np.asarray(rows))
+            if stored is not None:
+                bad = stored if bad is None else (bad | stored)
+        return bad
+
+    def _masked(self, rows, data: np.ndarray) -> np.ndarray:
+        bad = self.mask_rows(rows, data)
+        if bad is None:
+            return data
+        if data.dtype != np.float64:
+            self._check_alloc(data.shape, 8, "masking these spectra")
+            data = data.astype(np.float64)
+        data[bad] = np.nan  # ``data`` is a fresh array read from the file: changed in place
+        return data
 
     # -- properties ------------------------------------------------------------
     @property
@@ -288,7 +334,8 @@ class Run:
         except (OSError, ValueError) as exc:
             raise RunFormatError(f"spectra cannot be read ({exc})", where=self._where,
                                  fix="the file is truncated or corrupt; copy the run again") from exc
-        return np.asarray(data, dtype=np.float64)
+        rows = np.arange(sel.start, sel.stop) if isinstance(sel, slice) else np.asarray(sel)
+        return self._masked(rows, np.asarray(data, dtype=np.float64))
 
     def dark(self) -> np.ndarray | None:
         """Dark frames (n_dark, n_pixels) as float64, or None when the run has none."""
@@ -324,15 +371,17 @@ class Run:
         start, stop = max(0, int(start)), min(self.n_shots, int(stop))
         return self._read(slice(start, stop), max(0, stop - start))
 
-    def read_raw(self, start: int, stop: int) -> np.ndarray:
-        """Shots ``start:stop`` in their stored dtype (no conversion)."""
+    def read_raw(self, start: int, stop: int, masked: bool = True) -> np.ndarray:
+        """Shots ``start:stop`` in their stored dtype; with ``masked`` (default) a block holding
+        masked pixels comes back as float64 with NaN at those pixels (docs/run-format.md)."""
         start, stop = max(0, int(start)), min(self.n_shots, int(stop))
         self._check_alloc((stop - start, self.n_pixels), self.spectra_dtype.itemsize, "reading these spectra")
         try:
-            return self._spectra[start:stop]
+            data = self._spectra[start:stop]
         except (OSError, ValueError) as exc:
             raise RunFormatError(f"spectra cannot be read ({exc})", where=self._where,
                                  fix="the file is truncated or corrupt; copy the run again") from exc
+        return self._masked(np.arange(start, stop), data) if masked else data
 
     def iter_chunks(self, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> Iterator[tuple[int, int, np.ndarray]]:
         """Yield ``(start, stop, spectra)`` over all shots in chunks of ``chunk_shots`` rows (float64)."""

@@ -26,6 +26,7 @@ from compquant.errors import RunFormatError
 from compquant.fileio import atomic_path
 from compquant.run import _checks
 from compquant.run.format import FORMAT_NAME, FORMAT_VERSION, SAMPLE_COLUMNS
+from compquant.run.mask import mask_entries
 
 _STR = h5py.string_dtype(encoding="utf-8")
 
@@ -84,7 +85,7 @@ class RunWriter:
                  pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
                  instrument: Mapping | None = None, acquisition: Mapping | None = None,
                  medium: str = "air", compression: str | None = "gzip", compression_opts: int | None = 4,
-                 created: str | None = None):
+                 created: str | None = None, pixel_mask=None, masked_ranges=(), sentinels=()):
         self.path = Path(path)
         where = str(self.path)
         self.wavelength = np.asarray(wavelength, dtype=np.float64)
@@ -132,9 +133,27 @@ class RunWriter:
         self.compression = compression
         self.created = created
         self.compression_opts = compression_opts if compression == "gzip" else None
+        self._set_mask(pixel_mask, masked_ranges, sentinels, where)
         self._written = np.zeros(self.n_shots, dtype=bool)
         self._ctx = None
         self._h5 = None
+
+    def _set_mask(self, pixel_mask, masked_ranges, sentinels, where: str) -> None:
+        """Optional ``/mask`` rows and declared sentinel values (docs/run-format.md, "Pixel masks")."""
+        self.mask = mask_entries(pixel_mask, masked_ranges, self.n_shots, self.n_pixels, where)
+        self.sentinels = tuple(float(v) for v in np.atleast_1d(np.asarray(sentinels, dtype=float)))
+
+    def _write_mask(self, f) -> None:
+        if self.sentinels:
+            f["spectra"].attrs["sentinel"] = np.asarray(self.sentinels, dtype=np.float64)
+        if self.mask.empty:
+            return
+        g = f.create_group("mask")
+        g.attrs["NX_class"] = "NXcollection"
+        g.create_dataset("shot", data=self.mask.shot.astype(np.int64))
+        g.create_dataset("first_pixel", data=self.mask.first.astype(np.int64))
+        g.create_dataset("last_pixel", data=self.mask.last.astype(np.int64))
+        g.create_dataset("reason", data=np.array(self.mask.reason, dtype=object), dtype=_STR)
 
     def __enter__(self) -> RunWriter:
         self._ctx = atomic_path(self.path)
@@ -195,6 +214,7 @@ class RunWriter:
         ag = f.create_group("acquisition")
         for k, v in self.acquisition.items():
             ag.attrs[str(k)] = _attr_value(v)
+        self._write_mask(f)
 
     def write_spectra(self, start: int, block) -> None:
         """Write ``block`` (n × n_pixels) as shots ``start .. start+n-1``."""
@@ -230,7 +250,8 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
               sample_index, *, dark=None, response=None, saturation=None, exposure_s=None,
               dark_exposure_s=None, pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
               instrument: Mapping | None = None, acquisition: Mapping | None = None, medium: str = "air",
-              dtype=None, compression: str | None = "gzip", created: str | None = None) -> Path:
+              dtype=None, compression: str | None = "gzip", created: str | None = None, pixel_mask=None,
+              masked_ranges=(), sentinels=()) -> Path:
     """Write a whole run to ``path`` atomically and return the path.
 
     Parameters
@@ -245,6 +266,10 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
     dtype : storage dtype (default: that of ``spectra``)
     created : ISO 8601 time stored as the run's creation time (default: now, UTC); give a fixed
         value to make regenerated files byte-identical
+    pixel_mask : (n_pixels,) bool, pixels masked in every shot (dead or blanked detector pixels)
+    masked_ranges : iterable of ``(shot, first_pixel, last_pixel[, reason])`` masked in one shot
+        (inclusive; shot -1 = every shot)
+    sentinels : values the instrument writes for blanked pixels (e.g. -9999); read as masked
     """
     spectra = np.asarray(spectra)
     if spectra.ndim != 2:
@@ -254,7 +279,8 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
                   dtype=dtype or spectra.dtype, dark=dark, response=response, saturation=saturation,
                   exposure_s=exposure_s, dark_exposure_s=dark_exposure_s, pulse_energy_mj=pulse_energy_mj,
                   time_s=time_s, x_mm=x_mm, y_mm=y_mm, shot=shot, instrument=instrument,
-                  acquisition=acquisition, medium=medium, compression=compression, created=created)
+                  acquisition=acquisition, medium=medium, compression=compression, created=created,
+                  pixel_mask=pixel_mask, masked_ranges=masked_ranges, sentinels=sentinels)
     with w:
         w.write_spectra(0, spectra)
     return Path(path)
