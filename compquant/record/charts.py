@@ -171,6 +171,9 @@ def rule_violations(values, lim: Limits, rules=tuple(RULE_TEXT)) -> list[list[in
     down = [v < 0 for v in z]
     out: list[list[int]] = [[] for _ in range(n)]
     diffs = [0.0] + [x[i] - x[i - 1] for i in range(1, n)]
+    above2, below2 = [v > 2 for v in z], [v < -2 for v in z]
+    above1, below1 = [v > 1 for v in z], [v < -1 for v in z]
+    inner, outer = [abs(v) < 1 for v in z], [abs(v) > 1 for v in z]
     for i in range(n):
         hits = []
         if abs(z[i]) > 3:
@@ -182,13 +185,13 @@ def rule_violations(values, lim: Limits, rules=tuple(RULE_TEXT)) -> list[list[in
             hits.append(3)
         if i >= 13 and all(diffs[j] * diffs[j - 1] < 0 for j in range(i - 11, i + 1)):  # 14 points, 13 steps
             hits.append(4)
-        if _k_of_m([v > 2 for v in z], 2, 3, i) or _k_of_m([v < -2 for v in z], 2, 3, i):
+        if _k_of_m(above2, 2, 3, i) or _k_of_m(below2, 2, 3, i):
             hits.append(5)
-        if _k_of_m([v > 1 for v in z], 4, 5, i) or _k_of_m([v < -1 for v in z], 4, 5, i):
+        if _k_of_m(above1, 4, 5, i) or _k_of_m(below1, 4, 5, i):
             hits.append(6)
-        if _run_of([abs(v) < 1 for v in z], 15, i):
+        if _run_of(inner, 15, i):
             hits.append(7)
-        if _run_of([abs(v) > 1 for v in z], 8, i):
+        if _run_of(outer, 8, i):
             hits.append(8)
         out[i] = [h for h in hits if h in rules]
     return out

@@ -222,9 +222,14 @@ class Record:
     def audit(self, conn: sa.Connection, action: str, subject: str, why: str = "", *, who: str | None = None,
               detail: dict | None = None, at: str | None = None) -> None:
         """Append one entry to the audit trail (inside the caller's transaction)."""
-        conn.execute(S.audit.insert().values(
-            at=at or now_utc(), who=who or current_user(), action=action, subject=subject, why=why or "",
-            detail=json.dumps(detail or {}, sort_keys=True, ensure_ascii=False)))
+        conn.execute(S.audit.insert(), [self.audit_row(action, subject, why, who=who, detail=detail, at=at)])
+
+    @staticmethod
+    def audit_row(action: str, subject: str, why: str = "", *, who: str | None = None, detail: dict | None = None,
+                  at: str | None = None) -> dict:
+        """One audit-trail row, for appending many in one statement."""
+        return dict(at=at or now_utc(), who=who or current_user(), action=action, subject=subject, why=why or "",
+                    detail=json.dumps(detail or {}, sort_keys=True, ensure_ascii=False))
 
     def dispose(self) -> None:
         self.engine.dispose()

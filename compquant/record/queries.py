@@ -107,15 +107,16 @@ def sample_history(rec: Record, sample_id: str) -> pd.DataFrame:
     cq = (sa.select(S.certificates.c.run_id, S.certificates.c.number, S.certificates.c.state)
           .where(S.certificates.c.sample_id == sample_id).order_by(S.certificates.c.id))
     with rec.transaction() as conn:
-        df = pd.DataFrame(conn.execute(q).mappings().all())
-        certs = pd.DataFrame(conn.execute(cq).mappings().all())
+        res = conn.execute(q)
+        df = pd.DataFrame.from_records([tuple(r) for r in res.all()], columns=list(res.keys()))
+        certs = pd.DataFrame.from_records([tuple(r) for r in conn.execute(cq).all()],
+                                          columns=["run_id", "number", "state"])
     if df.empty:
         return df
-    if not certs.empty:
-        certs = certs.groupby("run_id").agg(
-            certificate=("number", lambda s: " ".join(s)), state=("state", lambda s: " ".join(s))).reset_index()
-        df = df.merge(certs, on="run_id", how="left")
-    return df.fillna({"certificate": "", "state": ""}) if "certificate" in df else df
+    certs = certs.groupby("run_id", sort=False).agg(certificate=("number", " ".join), state=("state", " ".join))
+    df = df.merge(certs, left_on="run_id", right_index=True, how="left")
+    df[["certificate", "state"]] = df[["certificate", "state"]].fillna("")
+    return df
 
 
 def audit_trail(rec: Record, subject: str | None = None) -> pd.DataFrame:

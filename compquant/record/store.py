@@ -46,8 +46,8 @@ class AnalysisRecorder:
         """Before a certificate's files are written: refuse a number that was already released
         (its released files must not be overwritten by a new draft)."""
         with self.record.transaction() as conn:
-            if _ever_released(conn, number):
-                raise _refuse_released(self.record, number)
+            if _released_among(conn, [number]):
+                raise _refuse_released(self.record, [number])
 
     def store(self, **kw) -> list[dict]:
         try:
@@ -84,9 +84,8 @@ def _insert_samples(conn, run_id, samples, measured) -> dict[str, int]:
         rows.append(dict(run_id=run_id, sample_id=sid, role=str(r.role), standard_ref=str(getattr(r, "standard_ref", "")
                     or ""), description=str(getattr(r, "description", "") or ""), measured_at=measured.get(sid, ""),
                     n_shots=int(r.n_shots) if _f(getattr(r, "n_shots", None)) is not None else None))
-    ids = {}
-    for row in rows:  # one by one: ids map back to sample ids on every backend
-        ids[row["sample_id"]] = conn.execute(S.samples.insert().values(**row).returning(S.samples.c.id)).scalar_one()
+    got = conn.execute(S.samples.insert().returning(S.samples.c.id, sort_by_parameter_order=True), rows)
+    ids = dict(zip([r["sample_id"] for r in rows], got.scalars().all()))
     return ids
 
 
@@ -108,56 +107,67 @@ def _figures(cert, outdir: Path) -> list[dict]:
     return out
 
 
-def _ever_released(conn, number: str) -> bool:
-    q = (sa.select(sa.func.count()).select_from(S.certificate_files.join(S.certificates))
-         .where(S.certificates.c.base_number == number, S.certificate_files.c.kind == RELEASED))
-    return conn.execute(q).scalar_one() > 0
+def _released_among(conn, numbers: list[str]) -> list[str]:
+    """Those of ``numbers`` (revision-0 numbers) with a released revision in the record."""
+    C, F = S.certificates, S.certificate_files
+    q = (sa.select(C.c.base_number).select_from(F.join(C)).where(C.c.base_number.in_(numbers), F.c.kind == RELEASED)
+         .distinct())
+    return sorted(conn.execute(q).scalars())
 
 
-def _refuse_released(rec, number: str) -> RecordError:
-    return RecordError(f"certificate {number} was already released", where=rec.where,
+def _refuse_released(rec, numbers: list[str]) -> RecordError:
+    return RecordError(f"certificate {', '.join(numbers)} was already released", where=rec.where,
                        fix="issue a new revision with 'compquant record amend' (or analyse with another issue date)")
 
 
-def _replace_open_draft(rec, conn, number: str, revision: int, who: str) -> None:
-    """A new analysis of an already recorded certificate: an open draft is superseded; a released one refuses."""
-    if _ever_released(conn, number):
-        raise _refuse_released(rec, number)
-    rows = conn.execute(sa.select(S.certificates.c.id, S.certificates.c.state).where(
-        S.certificates.c.number == number, S.certificates.c.revision == revision)).all()
-    for cid, state in rows:
-        if state == DRAFT:
-            conn.execute(S.certificates.update().where(S.certificates.c.id == cid).values(state=SUPERSEDED))
-            rec.audit(conn, "supersede", number, "replaced by a new analysis before review", who=who,
-                      detail={"certificate_id": cid})
+def _supersede_open_drafts(rec, conn, numbers: list[str], who: str, audit: list[dict]) -> None:
+    """A new analysis of recorded certificates: their open drafts are superseded; released ones refuse."""
+    released = _released_among(conn, numbers)
+    if released:
+        raise _refuse_released(rec, released)
+    C = S.certificates
+    old = conn.execute(sa.select(C.c.id, C.c.number).where(C.c.number.in_(numbers), C.c.state == DRAFT)).all()
+    if old:
+        conn.execute(C.update().where(C.c.id.in_([cid for cid, _ in old])).values(state=SUPERSEDED))
+        audit.extend(rec.audit_row("supersede", n, "replaced by a new analysis before review", who=who,
+                                   detail={"certificate_id": cid}) for cid, n in old)
 
 
-def _insert_certificate(rec, conn, run_id, cert, out, review, outdir: Path, who) -> dict:
-    json_path, pdf_path = Path(out.json), Path(out.pdf)
-    doc_bytes = json_path.read_bytes()
-    _replace_open_draft(rec, conn, cert.number, int(cert.revision), who)
-    state = review.state
-    cid = conn.execute(S.certificates.insert().values(
+def _certificate_row(run_id, cert, out, review, outdir: Path) -> tuple[dict, bytes]:
+    doc_bytes = Path(out.json).read_bytes()
+    row = dict(
         run_id=run_id, sample_id=cert.sample.sample_id, number=cert.number, base_number=cert.number,
-        revision=int(cert.revision), state=state, supersedes=None, created_at=now_utc(),
+        revision=int(cert.revision), state=review.state, supersedes=None, created_at=now_utc(),
         document=doc_bytes.decode("utf-8"), figures=_json(_figures(cert, outdir)), folder=str(outdir.resolve()),
-        stem=json_path.stem, valid_for_release=bool(cert.valid_for_release), reasons=_json(cert.release_reasons()),
-        flags=_json(cert.flags_used()), reviewer=review.reviewer, reviewer_role=review.role, reviewed_at=review.at,
-        statement=review.statement,
-    ).returning(S.certificates.c.id)).scalar_one()
+        stem=Path(out.json).stem, valid_for_release=bool(cert.valid_for_release),
+        reasons=_json(cert.release_reasons()), flags=_json(cert.flags_used()), reviewer=review.reviewer,
+        reviewer_role=review.role, reviewed_at=review.at, statement=review.statement,
+    )
+    return row, doc_bytes
+
+
+def _insert_certificates(rec, conn, run_id, certificates, outputs, review, outdir: Path, who,
+                         audit: list[dict]) -> list[dict]:
+    _supersede_open_drafts(rec, conn, [c.number for c in certificates], who, audit)
+    rows, docs = zip(*[_certificate_row(run_id, c, o, review, outdir) for c, o in zip(certificates, outputs)])
+    ids = conn.execute(S.certificates.insert().returning(S.certificates.c.id, sort_by_parameter_order=True),
+                       list(rows)).scalars().all()
     at = now_utc()
-    conn.execute(S.certificate_files.insert(), [
-        dict(certificate_id=cid, kind=state, format="json", sha256=hashlib.sha256(doc_bytes).hexdigest(),
-             path=str(json_path.resolve()), written_at=at),
-        dict(certificate_id=cid, kind=state, format="pdf", sha256=sha256_file(pdf_path), path=str(pdf_path.resolve()),
-             written_at=at),
-    ])
-    if state == RELEASED:
-        rec.audit(conn, "release", cert.number, review.statement, who=who,
-                  detail={"certificate_id": cid, "authorised_by": review.reviewer, "role": review.role})
-    else:
-        rec.audit(conn, "issue draft", cert.number, "analysis", who=who, detail={"certificate_id": cid})
-    return {"number": cert.number, "state": state, "certificate_id": cid}
+    files = []
+    for cid, out, doc in zip(ids, outputs, docs):
+        files.append(dict(certificate_id=cid, kind=review.state, format="json", sha256=hashlib.sha256(doc).hexdigest(),
+                          path=str(Path(out.json).resolve()), written_at=at))
+        files.append(dict(certificate_id=cid, kind=review.state, format="pdf", sha256=sha256_file(out.pdf),
+                          path=str(Path(out.pdf).resolve()), written_at=at))
+    conn.execute(S.certificate_files.insert(), files)
+    for cid, cert in zip(ids, certificates):
+        if review.state == RELEASED:
+            audit.append(rec.audit_row("release", cert.number, review.statement, who=who, at=at, detail={
+                "certificate_id": cid, "authorised_by": review.reviewer, "role": review.role}))
+        else:
+            audit.append(rec.audit_row("issue draft", cert.number, "analysis", who=who, at=at,
+                                       detail={"certificate_id": cid}))
+    return [{"number": c.number, "state": review.state, "certificate_id": cid} for c, cid in zip(certificates, ids)]
 
 
 def store_analysis(rec: Record, *, run_file, run_sha256: str, instrument: dict, samples, measured: dict, method,
@@ -191,11 +201,13 @@ def store_analysis(rec: Record, *, run_file, run_sha256: str, instrument: dict, 
                     criterion=c.criterion) for c in checks]
         if chk:
             conn.execute(S.checks.insert(), chk)
-        entries = [_insert_certificate(rec, conn, run_id, c, o, review, outdir, who)
-                   for c, o in zip(certificates, outputs)]
+        audit: list[dict] = []
+        entries = (_insert_certificates(rec, conn, run_id, certificates, outputs, review, outdir, who, audit)
+                   if certificates else [])
         numbers = [e["number"] for e in entries]
-        rec.audit(conn, "store analysis", run_sha256, "analysis", who=who,
-                  detail={"run_id": run_id, "file": Path(run_file).name, "certificates": numbers})
+        audit.append(rec.audit_row("store analysis", run_sha256, "analysis", who=who,
+                                   detail={"run_id": run_id, "file": Path(run_file).name, "certificates": numbers}))
+        conn.execute(S.audit.insert(), audit)
     return entries
 
 
