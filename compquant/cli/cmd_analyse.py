@@ -262,3 +262,13 @@ def command(
     finally:
         prog.close()
     report_outputs(out)
+    _report_record(db)
+
+
+def _report_record(db) -> None:
+    """Where the analysis was recorded (compquant.record), and what comes next."""
+    from compquant.record.db import configured, shown
+
+    if configured(db):
+        click.echo(f"record:       {shown(configured(db))} (see 'compquant record pending'; drafts leave the "
+                   "lab only after 'compquant record release')")

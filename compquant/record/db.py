@@ -89,6 +89,16 @@ def configured(db=None) -> str | None:
     return os.environ.get(DB_ENV, "").strip() or None
 
 
+def shown(location: str) -> str:
+    """A record location fit to print: a URL's password hidden."""
+    if not is_url(location):
+        return str(location)
+    try:
+        return sa.make_url(location).render_as_string(hide_password=True)
+    except sa.exc.ArgumentError:
+        return "<database URL>"
+
+
 def _display(url: sa.engine.URL) -> str:
     return url.render_as_string(hide_password=True)
 
