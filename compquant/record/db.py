@@ -267,7 +267,7 @@ def _known_revisions(cfg) -> tuple[set[str], str]:
     return {s.revision for s in sd.walk_revisions()}, sd.get_current_head()
 
 
-def _prepare(rec: Record, new_file: bool) -> None:
+def _prepare(rec: Record) -> None:
     """Check what the database is, create or upgrade its schema; all in one transaction."""
     from alembic import command
     from alembic.migration import MigrationContext
@@ -309,10 +309,10 @@ def _prepare(rec: Record, new_file: bool) -> None:
 def open_record(db=None) -> Record:
     """Open (and on first use create) the record at ``db`` (path or URL; see the module docstring)."""
     location = resolve(db)
-    engine, where, new_file = _engine_for(location)
+    engine, where, _new = _engine_for(location)
     rec = Record(engine, where)
     try:
-        _prepare(rec, new_file)
+        _prepare(rec)
     except BaseException:
         engine.dispose()
         raise

@@ -18,7 +18,6 @@ certificate cannot be edited and nothing in the audit trail can be edited or del
 
 from __future__ import annotations
 
-import datetime as _dt
 import hashlib
 import json
 from pathlib import Path
@@ -200,7 +199,7 @@ def _amended_document(base_doc: dict, from_json, old_number: str, new_number: st
     doc = json.loads(json.dumps(doc))
     doc["number"] = new_number
     doc["revision"] = revision
-    doc["issue_date"] = _dt.date.today().isoformat()
+    doc["issue_date"] = now_utc()[:10]
     doc["remarks"] = list(doc["remarks"]) + [
         f"Revision {revision}: replaces certificate {old_number}, which is withdrawn on release of this revision. "
         f"Reason: {reason}"]
