@@ -397,3 +397,32 @@ def test_release_refused_when_not_valid_or_chart_blocks(db, tmp_path):
     assert "BLOCKED" in r.output and "test 1 broken" in r.output
 
 
+
+
+def test_postgres_app_role_cannot_touch_the_triggers(db, tmp_path):
+    """docs/record.md: a workstation login with SELECT/INSERT (+ UPDATE on certificates) works and
+    can neither delete from the audit trail nor drop its trigger (PostgreSQL's own privileges)."""
+    if not db.startswith("postgresql"):
+        pytest.skip("PostgreSQL roles")
+    open_record(db).dispose()  # schema set up by the owner
+    owner = sa.create_engine(db, isolation_level="AUTOCOMMIT")
+    with owner.connect() as c:
+        c.exec_driver_sql("DO $$ BEGIN IF NOT EXISTS (SELECT FROM pg_roles WHERE rolname = 'cqtest_app') "
+                          "THEN CREATE ROLE cqtest_app LOGIN; END IF; END $$")
+        c.exec_driver_sql("GRANT SELECT, INSERT ON ALL TABLES IN SCHEMA public TO cqtest_app")
+        c.exec_driver_sql("GRANT UPDATE ON certificates TO cqtest_app")
+        c.exec_driver_sql("GRANT USAGE ON ALL SEQUENCES IN SCHEMA public TO cqtest_app")
+    app = sa.make_url(db).set(username="cqtest_app").render_as_string(hide_password=False)
+    try:
+        with open_record(app) as rec:
+            e = store_analysis(rec, **fake_analysis(tmp_path / "o", "RUN-R", n_samples=1))
+            assert release(rec, e[0]["number"], reviewer="R. Reviewer (fictional)")["review"]["state"] == RELEASED
+            for sql, why in (("DROP TRIGGER audit_append_only ON audit", "must be owner"),
+                             ("DELETE FROM audit", "permission denied")):
+                with pytest.raises(sa.exc.DBAPIError, match=why), rec.engine.begin() as c:
+                    c.exec_driver_sql(sql)
+    finally:
+        with owner.connect() as c:
+            c.exec_driver_sql("REASSIGN OWNED BY cqtest_app TO CURRENT_USER")
+            c.exec_driver_sql("DROP OWNED BY cqtest_app")
+        owner.dispose()
