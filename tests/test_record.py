@@ -244,8 +244,8 @@ def test_schema_matches_migration_and_newer_schema_is_refused(db):
         open_record(db)
 
 
-def _runs_complete(location) -> tuple[int, int]:
-    """(runs stored, runs whose samples, results, certificates and audit entry are all there)."""
+def _runs_complete(location, n_samples: int = 4) -> tuple[int, int]:
+    """(runs stored, runs whose results, certificates and audit entry are all there)."""
     with open_record(location) as rec, rec.transaction() as conn:
         runs = conn.execute(sa.select(S.runs.c.id, S.runs.c.sha256)).all()
         ok = 0
@@ -255,7 +255,7 @@ def _runs_complete(location) -> tuple[int, int]:
                                   .where(S.certificates.c.run_id == rid))
             n_aud = conn.execute(sa.select(sa.func.count()).select_from(S.audit)
                                  .where(S.audit.c.action == "store analysis", S.audit.c.subject == sha))
-            ok += (n_res.scalar_one(), n_cert.scalar_one(), n_aud.scalar_one()) == (4 * 6, 4, 1)
+            ok += (n_res.scalar_one(), n_cert.scalar_one(), n_aud.scalar_one()) == (n_samples * 6, n_samples, 1)
     return len(runs), ok
 
 
@@ -266,17 +266,20 @@ from record_helpers import fake_analysis, pg_url
 from compquant.record import open_record
 from compquant.record.store import store_analysis
 db, tag, n, out = sys.argv[1], sys.argv[2], int(sys.argv[3]), sys.argv[4]
+n_samples = int(sys.argv[5]) if len(sys.argv) > 5 else 4
 rec = open_record(db)
 for i in range(n):
-    store_analysis(rec, **fake_analysis(out, f"{{tag}}-{{i}}", n_samples=4, n_elements=6))
+    kw = fake_analysis(out, f"{{tag}}-{{i}}", n_samples=n_samples, n_elements=6)
+    print("begin", i + 1, flush=True)
+    store_analysis(rec, **kw)
     print("committed", i + 1, flush=True)
 """
 
 
-def _writer(location, tag, n, out) -> subprocess.Popen:
+def _writer(location, tag, n, out, n_samples=4) -> subprocess.Popen:
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(TESTS.parent), str(TESTS)]))
-    return subprocess.Popen([sys.executable, "-c", WRITER.format(tests=str(TESTS)), location, tag, str(n), str(out)],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    return subprocess.Popen([sys.executable, "-c", WRITER.format(tests=str(TESTS)), location, tag, str(n), str(out),
+                             str(n_samples)], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
 
 
 def test_two_writers_at_once(db, tmp_path):
@@ -290,25 +293,33 @@ def test_two_writers_at_once(db, tmp_path):
 
 
 def test_kill_during_writes_loses_nothing_committed(db, tmp_path):
-    p = _writer(db, "K", 400, tmp_path / "k")
+    open_record(db).dispose()
+    p = _writer(db, "K", 400, tmp_path / "k", n_samples=60)  # each store ~0.1-0.2 s: 360 results, 60 certificates
     committed = 0
-    while committed < 3:
+    while True:
         line = p.stdout.readline()
         assert line, p.stderr.read()
-        committed = int(line.split()[1])
-    time.sleep(0.05)  # somewhere inside a later store
+        word, i = line.split()
+        if word == "committed":
+            committed = int(i)
+        elif committed >= 3:
+            break  # store number committed + 1 has begun
+    time.sleep(0.03)  # inside that store's transaction
     p.send_signal(signal.SIGKILL)
     rest = p.stdout.read()
     p.wait(timeout=30)
     committed = max([committed] + [int(x.split()[1]) for x in rest.splitlines() if x.startswith("committed")])
-    n_runs, n_ok = _runs_complete(db)
-    # every committed store is there and whole; at most one more (committed, killed before it printed)
+    n_runs, n_ok = _runs_complete(db, n_samples=60)
+    # every committed store is there and whole, the one killed is there whole or not at all
     assert n_runs == n_ok and committed <= n_runs <= committed + 1
     if not db.startswith("postgresql"):
         import sqlite3
 
         with sqlite3.connect(db) as con:
             assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    with open_record(db) as rec:  # and the record takes the next analysis as usual
+        store_analysis(rec, **fake_analysis(tmp_path / "after", "AFTER", n_samples=60, n_elements=6))
+    assert _runs_complete(db, n_samples=60) == (n_runs + 1, n_runs + 1)
 
 
 def test_damaged_and_foreign_files_give_one_line_errors(tmp_path):
