@@ -149,6 +149,7 @@ def analyse(
     memory_limit_bytes: int | None = None,
     progress=None,
     chunk_mapper=None,
+    db=None,
 ) -> AnalysisOutput:
     """Run the whole analysis and write the certificates (see the module docstring).
 
@@ -166,6 +167,9 @@ def analyse(
     progress : callable ``(stage, done, total)`` for progress display.
     chunk_mapper : compute the line-measurement chunks elsewhere, e.g. on Dask workers
         (:func:`compquant.parallel.chunk_mapper`); the numbers are the same.
+    db : the lab's record (path or URL; default ``COMPQUANT_DB``): the analysis and its certificates
+        are stored there (:mod:`compquant.record`).  Certificates are DRAFTs unless the lab profile
+        sets ``[review] required = false``.
     """
     modes = sum([standards is not None, calibration is not None, bool(cf)])
     if modes != 1:
@@ -184,6 +188,12 @@ def analyse(
     method = load_method(method_path)
     labp = load_lab_profile(lab) if lab is not None else _default_lab()
     specp = load_specification(spec) if spec is not None else None
+    # the record is opened before the work (a damaged record fails fast); the review state is printed
+    from compquant.record.states import initial_review
+    from compquant.record.store import recorder_for_analysis
+
+    recorder = recorder_for_analysis(db, method)
+    review = initial_review(labp, lab is not None, issued)
     if received:
         try:
             received = _dt.date.fromisoformat(str(received)).isoformat()
@@ -414,6 +424,8 @@ def analyse(
             skipped.append(sid)
             continue
         number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date)
+        if recorder is not None:
+            recorder.check_number(number)  # never overwrite a released certificate's files
         stem = safe_filename(sid)
         if stem.lower() in used_stems or stem.lower() in ("lims", "summary", "calibration"):
             stem = f"{stem}-{len(used_stems) + 1}"  # never overwrite another sample's files
@@ -467,8 +479,8 @@ def analyse(
             cert.remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
         pdf_path = outdir / f"{stem}.pdf"
         json_path = outdir / f"{stem}.json"
-        write_certificate_json(cert, json_path)
-        pages = write_pdf(cert, pdf_path)
+        write_certificate_json(cert, json_path, review=review)
+        pages = write_pdf(cert, pdf_path, review=review)
         certs.append(cert)
         outputs.append(
             CertificateOutput(
@@ -553,6 +565,10 @@ def analyse(
     }
     summary_path = outdir / "summary.json"
     write_text_atomic(summary_path, canonical_json(summary))
+    if recorder is not None:
+        recorder.store(run_file=run_path, run_sha256=run_sha, instrument=instrument, samples=samples, measured=measured,
+                       method=method, basis=basis, issued_at=issued, certificates=certs, outputs=outputs, review=review,
+                       calibration=cal_info, drift=drift_info, checks=checks, outdir=outdir)
     return AnalysisOutput(
         str(outdir),
         basis,

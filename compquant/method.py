@@ -25,8 +25,10 @@ import numpy as np
 from compquant.errors import MethodError
 from compquant.fileio import check_keys, load_toml, sha256_file
 
-TOP_LEVEL = frozenset({"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map"})
-OTHER_SECTIONS = ("calibration", "cf", "identify", "map")
+TOP_LEVEL = frozenset(
+    {"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map", "control_chart"}
+)
+OTHER_SECTIONS = ("calibration", "cf", "identify", "map", "control_chart")
 
 METHOD_KEYS = frozenset({"id", "version", "technique", "description", "medium"})
 MEDIA = ("air", "vacuum")

@@ -200,6 +200,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 )
 @click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
 @click.option("--quiet", is_flag=True, help="No progress bars.")
+@click.option("--db", metavar="PATH|URL", help="Store the analysis in the lab's record (default: $COMPQUANT_DB).")
 def command(
     run_paths,
     method_path,
@@ -217,6 +218,7 @@ def command(
     workers,
     scheduler,
     quiet,
+    db,
 ):
     """Analyse a run and write a certificate of analysis per unknown sample.
 
@@ -247,6 +249,7 @@ def command(
         issued_at=issued_at,
         figures=not no_figures,
         chunk_shots=chunk_shots,
+        db=db,
     )
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options)
@@ -259,3 +262,13 @@ def command(
     finally:
         prog.close()
     report_outputs(out)
+    _report_record(db)
+
+
+def _report_record(db) -> None:
+    """Where the analysis was recorded (compquant.record), and what comes next."""
+    from compquant.record.db import configured, shown
+
+    if configured(db):
+        click.echo(f"record:       {shown(configured(db))} (see 'compquant record pending'; drafts leave the "
+                   "lab only after 'compquant record release')")

@@ -19,6 +19,9 @@ Lab profile (``lab.toml``, see ``docs/certificate.md``)::
     [samples]                         # optional defaults for the sample block
     condition = "..."  received = "YYYY-MM-DD"
 
+    [review]                          # optional (compquant.record, docs/record.md)
+    required = true                   # false: issue certificates authorised by the signatory, no DRAFT
+
 Specification (``spec-<grade>.toml``)::
 
     [specification]
@@ -123,6 +126,17 @@ class LabProfile:
     sample_received: str = ""
     source: str = ""
     sha256: str = ""
+    review_required: bool = True  # certificates are issued as DRAFT until a reviewer releases them
+
+
+def _review_required(data: dict, w: str) -> bool:
+    rev = data.get("review", {})
+    check_keys(rev, {"required"}, f"{w} [review]")
+    req = rev.get("required", True)
+    if not isinstance(req, bool):
+        raise ConfigError("'required' must be true or false", where=f"{w} [review].required",
+                          fix="write required = true (certificates issued as DRAFT until released)")
+    return req
 
 
 def load_lab_profile(path) -> LabProfile:
@@ -130,7 +144,7 @@ def load_lab_profile(path) -> LabProfile:
     p = Path(path)
     data = load_toml(p, "lab profile")
     w = str(p)
-    check_keys(data, {"lab", "signatory", "client", "samples"}, w, required={"lab", "signatory"})
+    check_keys(data, {"lab", "signatory", "client", "samples", "review"}, w, required={"lab", "signatory"})
     lab = data["lab"]
     check_keys(
         lab,
@@ -168,6 +182,7 @@ def load_lab_profile(path) -> LabProfile:
         sample_received=_date(smp, "received", f"{w} [samples]"),
         source=str(p),
         sha256=sha256_file(p),
+        review_required=_review_required(data, w),
     )
 
 

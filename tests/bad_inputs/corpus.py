@@ -552,6 +552,34 @@ def build_corpus(folder: Path, cal_json: Path | None) -> list[Case]:
         "spec",
         spec=_text_replace(SPEC_TOML, '"simple-acceptance"', '"coin-toss"'),
     )
+
+    # ------------------------------------------------------------------ the lab's record (issue 14)
+    analyse_case("lab_review_not_bool", "lab", ["required", "true or false"], "lab",
+                 lab=LAB_TOML + '\n[review]\nrequired = "yes"\n')
+    analyse_case("method_control_chart_bad_limits", "method", ["limits", "not known"], "method",
+                 method=METHOD_TOML + '\n[control_chart]\nlimits = "median"\n')
+
+    def record_case(name, expect, make):
+        analyse_case(name, "record", expect, "run")
+        c = cases[-1]
+        db = make(c.folder / "record.sqlite")
+        c.argv += ["--db", str(db)]
+        c.inputs.append(db)
+        c.bad_file = db
+
+    def not_sqlite(p):
+        p.write_text("lot, result\nA-1, 12.5\n" * 20, encoding="utf-8")
+        return p
+
+    def foreign_sqlite(p):
+        import sqlite3
+
+        with sqlite3.connect(p) as con:
+            con.execute("CREATE TABLE stock (item TEXT, count INTEGER)")
+        return p
+
+    record_case("record_not_sqlite", ["not a compquant record", "not an sqlite database"], not_sqlite)
+    record_case("record_foreign_sqlite", ["not a compquant record"], foreign_sqlite)
     return cases
 
 
