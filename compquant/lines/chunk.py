@@ -359,6 +359,14 @@ def process_chunk(raw, sample_index, plan: ChunkPlan, pixel_mask=None) -> ChunkR
     else:
         vals, satf, maskf, total, bg, sums, counts = _numpy_chunk(raw, si, plan, ops, run_mask, row_mask)
     nw = ops.n_win
+    if row_mask is not None or run_mask is not None:  # a shot with no valid pixel gives no number at all
+        full = np.zeros((n, plan.n_pixels), dtype=bool) if row_mask is None else row_mask
+        dead = (full | run_mask).all(axis=1) if run_mask is not None else full.all(axis=1)
+        if dead.any():
+            total[dead] = np.nan
+            bg[dead] = np.nan
+            if vals is not None:
+                vals[dead] = np.nan
 
     def part(a, lo, hi):
         return None if a is None or hi == lo else a[:, lo:hi]
