@@ -6,19 +6,30 @@ name and imports a module only when its command is used, so ``compquant
 --help`` stays fast and adding a command touches no shared file.
 
 User errors (:class:`compquant.errors.CompquantError`) are printed as one line,
-``error: <where>: <what>; <fix>``, on stderr with exit code 2.  Any other
+``error: <where>: <what>; <fix>``, on stderr with exit code 2; so are click's own usage
+errors (a missing option, a folder where a file is expected ...).  Any other
 exception is a bug and keeps its traceback.
+
+Everything the commands print goes through :class:`SafeStream`: control characters, escape
+sequences and bidirectional or other invisible format characters from file contents or names
+are shown as visible escapes (compquant.fileio.visible_text), so a run cannot recolour,
+reorder or overwrite the user's terminal.  Python warnings (numpy's among them) become one
+``warning:`` line each, shown once.
 """
 
 from __future__ import annotations
 
+import contextlib
 import importlib
 import pkgutil
+import sys
+import warnings
 
 import click
 
 from compquant import __version__
 from compquant.errors import CompquantError
+from compquant.fileio import terminal_text, visible_text
 
 EXIT_USER_ERROR = 2
 
@@ -33,8 +44,80 @@ def _command_modules() -> dict[str, str]:
     return found
 
 
+class SafeStream:
+    """A text stream that shows hidden and control characters as visible escapes.
+
+    Newlines and tabs pass (tables span lines); a carriage return passes only to a terminal
+    (progress bars); everything else that is not printable text -- ESC, C1 controls, the
+    bidirectional overrides and isolates, zero-width characters -- is escaped.
+    """
+
+    def __init__(self, stream):
+        self._stream = stream
+        try:
+            tty = bool(stream.isatty())
+        except (AttributeError, ValueError):
+            tty = False
+        self._keep = "\n\t\r" if tty else "\n\t"
+
+    def write(self, s):
+        if isinstance(s, str):
+            s = visible_text(s, keep=self._keep)
+        return self._stream.write(s)
+
+    def __getattr__(self, name):
+        return getattr(self._stream, name)
+
+
+def _one_line_warning(message, category, filename, lineno, file=None, line=None, _seen=set()):  # noqa: B006
+    text = f"warning: {category.__name__}: {terminal_text(message)}"
+    if text not in _seen:
+        _seen.add(text)
+        click.echo(text, err=True)
+
+
+@contextlib.contextmanager
+def safe_output():
+    """Escape what is printed and make every warning one line, for the duration of a command."""
+    old_out, old_err, old_show = sys.stdout, sys.stderr, warnings.showwarning
+    sys.stdout, sys.stderr = SafeStream(old_out), SafeStream(old_err)
+    warnings.showwarning = _one_line_warning
+    try:
+        with warnings.catch_warnings():
+            # floating-point warnings from numpy (overflow, invalid value, mean of empty slice ...)
+            # are handled where they matter: the values are checked and flagged, not printed
+            warnings.simplefilter("ignore", RuntimeWarning)
+            warnings.showwarning = _one_line_warning
+            yield
+    finally:
+        sys.stdout, sys.stderr, warnings.showwarning = old_out, old_err, old_show
+
+
+def usage_error_line(exc: click.ClickException) -> str:
+    """Click's usage error as one ``error:`` line: the command, what is wrong, where to look."""
+    ctx = getattr(exc, "ctx", None)
+    cmd = ctx.command_path if ctx is not None else "compquant"
+    msg = " ".join(terminal_text(exc.format_message()).split()).rstrip(".")
+    fix = f"see '{cmd} --help'" if isinstance(exc, click.UsageError) else "check the command line"
+    return f"error: {cmd}: {msg}; {fix}"
+
+
 class CompquantGroup(click.Group):
     """Click group that discovers commands lazily and turns user errors into one line."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+        with safe_output():
+            try:
+                rv = super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+            except click.ClickException as exc:
+                click.echo(usage_error_line(exc), err=True)
+                sys.exit(EXIT_USER_ERROR)
+            except click.Abort:
+                click.echo("error: compquant: aborted; nothing more was written", err=True)
+                sys.exit(1)
+        sys.exit(rv if isinstance(rv, int) else 0)
 
     def list_commands(self, ctx):
         return sorted(set(super().list_commands(ctx)) | set(_command_modules()))

@@ -14,9 +14,9 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, write_csv
+from compquant.cli._common import SAFETY, format_columns, report_runs, write_csv
 from compquant.errors import OutputError
-from compquant.fileio import atomic_write
+from compquant.fileio import atomic_write, terminal_text
 
 
 def _columns(rows) -> str:
@@ -111,30 +111,27 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
                 }
             )
             if not quiet:
-                click.echo(f"ok: {oc.run} -> {folders[oc.run]}")
+                click.echo(terminal_text(f"ok: {oc.run} -> {folders[oc.run]}"))
                 for note in oc.value["notes"]:
-                    click.echo(f"note: {oc.run}: {note}")
+                    click.echo(terminal_text(f"note: {oc.run}: {note}"))
         else:
             status.append(
                 {"run": oc.run, "status": "failed", "outputs": "", "n_shots": 0, "error": oc.error.one_line()}
             )
-            click.echo(f"error: {oc.error.one_line()}", err=True)
-            if oc.error.traceback:
-                click.echo(oc.error.traceback, err=True)
+    failed = report_runs(outcomes, out_dir, click.echo)
     if tables:
         write_csv(pd.concat(tables, ignore_index=True), out_dir / "lines-all.csv")
     write_csv(pd.DataFrame(status, columns=["run", "status", "outputs", "n_shots", "error"]), out_dir / "runs.csv")
-    failed = [oc for oc in outcomes if not oc.ok]
     if not quiet:
-        click.echo(
+        click.echo(terminal_text(
             f"wrote {out_dir / 'lines-all.csv'} ({len(tables)} of {len(outcomes)} runs) and {out_dir / 'runs.csv'}"
-        )
+        ))
     if failed:
         names = ", ".join(oc.run for oc in failed)
         raise CompquantError(
             f"{len(failed)} of {len(outcomes)} runs failed: {names}",
             where=str(out_dir),
-            fix="see the error lines above and runs.csv; the other runs' outputs are complete",
+            fix="see the 'failed:' lines above and runs.csv; the other runs' outputs are complete",
         )
 
 

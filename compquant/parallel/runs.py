@@ -100,19 +100,25 @@ def collect_runs(inputs: Iterable[str | os.PathLike], pattern: str = "*.h5") -> 
     return out
 
 
+#: the files a multi-run call writes beside the runs' folders (a run folder never takes these names)
+COMBINED_OUTPUTS = ("runs.csv", "lines-all.csv", "lims-all.csv", "runs-failures.txt")
+
+
 def run_output_folders(paths, out_dir: str | os.PathLike) -> dict[str, Path]:
     """One output folder per run under ``out_dir``, named from the run file (safe name, numbered if repeated)."""
     from compquant.fileio import safe_filename
 
-    used: set[str] = set()
+    used: set[str] = set(COMBINED_OUTPUTS)
     folders = {}
     for p in paths:
         name = safe_filename(Path(p).stem)
+        if name.casefold() in used:  # a run called runs.csv.h5 must not take the combined table's name
+            name = f"{name}-run"
         base, k = name, 1
-        while name in used:
+        while name.casefold() in used:
             k += 1
             name = f"{base}-{k}"
-        used.add(name)
+        used.add(name.casefold())
         folders[str(p)] = Path(out_dir) / name
     return folders
 
@@ -128,4 +134,4 @@ def map_runs(executor, paths: Iterable[str | os.PathLike], fn: Callable, context
     return list(executor.map_ordered(_guarded, items, fn, ctx, max_in_flight=len(items) or 1))
 
 
-__all__ = ["RunError", "RunOutcome", "collect_runs", "map_runs", "run_output_folders"]
+__all__ = ["COMBINED_OUTPUTS", "RunError", "RunOutcome", "collect_runs", "map_runs", "run_output_folders"]
