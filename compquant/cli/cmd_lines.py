@@ -16,7 +16,7 @@ import click
 
 from compquant.cli._common import SAFETY, format_columns, report_runs, write_csv
 from compquant.errors import OutputError
-from compquant.fileio import atomic_write, terminal_text
+from compquant.fileio import atomic_write, json_ready, terminal_text
 
 
 def _columns(rows) -> str:
@@ -68,7 +68,7 @@ def write_outputs(lm, out: Path, shots_out: Path | None, qc_out: Path) -> list[P
     write_csv(qc, qc_out)
     prov_path = Path(f"{stem}-provenance.json")
     with atomic_write(prov_path) as fh:
-        json.dump(lm.provenance, fh, indent=2, sort_keys=True, default=str)
+        json.dump(json_ready(lm.provenance, str), fh, indent=2, sort_keys=True, default=str, allow_nan=False)
     return [out] + ([shots_out] if shots_out is not None else []) + [qc_out, prov_path]
 
 
