@@ -69,28 +69,32 @@ class SafeStream:
         return getattr(self._stream, name)
 
 
-def _one_line_warning(message, category, filename, lineno, file=None, line=None, _seen=set()):  # noqa: B006
-    text = f"warning: {category.__name__}: {terminal_text(message)}"
-    if text not in _seen:
-        _seen.add(text)
-        click.echo(text, err=True)
-
-
 @contextlib.contextmanager
 def safe_output():
-    """Escape what is printed and make every warning one line, for the duration of a command."""
-    old_out, old_err, old_show = sys.stdout, sys.stderr, warnings.showwarning
+    """Escape what is printed and collect warnings, for the duration of a command.
+
+    Yields the list of warning lines (``warning: <kind>: <message>``, each once); the caller
+    prints them when the command succeeds. When it fails, its one ``error:`` line is all the
+    user sees on stderr.
+    """
+    old_out, old_err = sys.stdout, sys.stderr
     sys.stdout, sys.stderr = SafeStream(old_out), SafeStream(old_err)
-    warnings.showwarning = _one_line_warning
+    collected: list[str] = []
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        text = f"warning: {category.__name__}: {' '.join(terminal_text(message).split())}"
+        if text not in collected:
+            collected.append(text)
+
     try:
         with warnings.catch_warnings():
             # floating-point warnings from numpy (overflow, invalid value, mean of empty slice ...)
             # are handled where they matter: the values are checked and flagged, not printed
             warnings.simplefilter("ignore", RuntimeWarning)
-            warnings.showwarning = _one_line_warning
-            yield
+            warnings.showwarning = show
+            yield collected
     finally:
-        sys.stdout, sys.stderr, warnings.showwarning = old_out, old_err, old_show
+        sys.stdout, sys.stderr = old_out, old_err
 
 
 def usage_error_line(exc: click.ClickException) -> str:
@@ -108,7 +112,7 @@ class CompquantGroup(click.Group):
     def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
         if not standalone_mode:
             return super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
-        with safe_output():
+        with safe_output() as warned:
             try:
                 rv = super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
             except click.ClickException as exc:
@@ -117,7 +121,11 @@ class CompquantGroup(click.Group):
             except click.Abort:
                 click.echo("error: compquant: aborted; nothing more was written", err=True)
                 sys.exit(1)
-        sys.exit(rv if isinstance(rv, int) else 0)
+            code = rv if isinstance(rv, int) else 0
+            if code == 0:
+                for line in warned:
+                    click.echo(line, err=True)
+        sys.exit(code)
 
     def list_commands(self, ctx):
         return sorted(set(super().list_commands(ctx)) | set(_command_modules()))
