@@ -113,7 +113,8 @@ Executor = SerialExecutor | DaskExecutor
 #: transports a Dask scheduler listens on (distributed.comm): tcp, tls, and websockets
 SCHEDULER_SCHEMES = ("tcp", "tls", "ws", "wss")
 
-_HOST = re.compile(r"^(?:[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?)(?:\.[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?)*$")
+_LABEL = r"[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?"
+_HOST = re.compile(rf"^{_LABEL}(?:\.{_LABEL})*$")  # host names (RFC 1123)
 
 
 def _check_address(address: str) -> str:
