@@ -105,3 +105,76 @@ def test_bad_input_through_the_real_entry_point(corpus, name):
     lines = p.stderr.strip("\n").splitlines()
     assert len(lines) == 1 and lines[0].startswith("error: ") and str(c.bad_file) in lines[0]
     assert "Traceback" not in p.stderr + p.stdout
+
+
+# ------------------------------------------------------------------ issue 17: the hostile corpus
+
+from bad_inputs.hardening import build_hardening, hardening_names  # noqa: E402
+
+HNAMES = hardening_names()
+#: every line the CLI may print on stderr starts with one of these (one message per line)
+STDERR_PREFIXES = ("error: ", "warning: ", "failed: ", "note: ", "wrote ", "no result for ")
+
+
+@pytest.fixture(scope="module")
+def hardening(tmp_path_factory):
+    base = write_base_files(tmp_path_factory.mktemp("hbase"))
+    cal = base["run"].parent / "calibration.json"
+    r = CliRunner().invoke(main, ["calibrate", str(base["run"]), "--method", str(base["method"]), "--standards",
+                                  str(base["standards"]), "-o", str(cal), "--quiet"])
+    assert r.exit_code == 0, r.output
+    return {c.name: c for c in build_hardening(tmp_path_factory.mktemp("hard"), cal)}
+
+
+def _alarm(signum, frame):
+    raise TimeoutError("the command hung (60 s)")
+
+
+def test_hardening_corpus_size():
+    # issue 17: at least 150 new cases, every item of the issue represented
+    assert len(HNAMES) >= 150 and len(set(HNAMES)) == len(HNAMES)
+
+
+@pytest.mark.parametrize("name", HNAMES)
+def test_hostile_input(hardening, name, monkeypatch):
+    import signal
+    from contextlib import nullcontext
+
+    c = hardening[name]
+    before = {p: _sha(p) for p in c.inputs}
+    for k, v in c.env.items():
+        monkeypatch.setenv(k, v)
+    old = signal.signal(signal.SIGALRM, _alarm)
+    signal.alarm(60)
+    try:
+        with c.setup() if c.setup else nullcontext():
+            r = CliRunner().invoke(main, c.argv)
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, old)
+    assert r.exception is None or isinstance(r.exception, SystemExit), (
+        f"unhandled {type(r.exception).__name__}: {r.exception}"
+    )
+    assert "Traceback" not in r.output
+    err = r.stderr.splitlines()
+    assert all(line.startswith(STDERR_PREFIXES) for line in err), r.stderr
+    errors = [line for line in err if line.startswith("error: ")]
+    if c.expect is None:
+        assert r.exit_code == 0 and errors == [], r.output
+        if c.check:
+            c.check(c, r)
+    else:
+        assert r.exit_code == 2 and len(errors) == 1, (r.exit_code, r.stderr)
+        text = r.stderr if c.multi else errors[0]
+        if c.bad:
+            assert c.bad in text, f"the message does not name {c.bad}: {text}"
+        for frag in c.expect:
+            assert frag.lower() in text.lower(), f"{frag!r} not in {text!r}"
+        if c.multi:  # the good run is complete, the failed run named on its own line
+            assert (c.outputs[0] / "good" / "lines.csv").is_file()
+            assert any(line.startswith("failed: ") for line in err)
+        else:
+            for out in c.outputs:
+                assert _files_under(out) == [], f"output written: {_files_under(out)}"
+    assert [p for p in c.folder.rglob("*.part")] == []
+    assert {p: _sha(p) for p in c.inputs} == before

@@ -180,7 +180,11 @@ def _response_vector(run, method: Method, notes: list) -> np.ndarray | None:
                 where=where,
                 fix="give a response curve over the whole run range",
             )
-        return np.interp(wl, x, r)
+        from compquant.run._checks import check_response
+
+        curve = np.interp(wl, x, r)
+        check_response(curve, where)  # positive, finite, a sane range: the same rule as a stored response
+        return curve
     r = run.response()
     if r is None:
         notes.append("response correction asked for but the run stores no response: not applied")

@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from compquant.errors import CompquantError, InputError
+from compquant.fileio import require_file
 
 
 @dataclass
@@ -86,8 +87,8 @@ def collect_runs(inputs: Iterable[str | os.PathLike], pattern: str = "*.h5") -> 
                     where=str(p),
                     fix="give run files or a folder that holds .h5 runs",
                 )
-        elif p.is_file():
-            found = [p]
+        elif p.exists() or p.is_symlink():
+            found = [require_file(p, "run file")]  # a FIFO or a device is refused before any work
         else:
             raise InputError("no such run file or folder", where=str(p), fix="check the path")
         for q in found:

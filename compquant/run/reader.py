@@ -24,6 +24,7 @@ from compquant.run.format import (
     DEFAULT_MEMORY_LIMIT,
     FORMAT_NAME,
     FORMAT_VERSION,
+    MAX_ABS_COUNTS,
     SAMPLE_COLUMNS,
 )
 
@@ -403,14 +404,28 @@ class Run:
         except (OSError, ValueError) as exc:
             raise RunFormatError(f"spectra cannot be read ({exc})", where=self._where,
                                  fix="the file is truncated or corrupt; copy the run again") from exc
+        self._check_range(data, "spectra")
         return np.asarray(data, dtype=np.float64)
+
+    def _check_range(self, data: np.ndarray, name: str) -> None:
+        """Refuse stored float counts beyond :data:`MAX_ABS_COUNTS` (an overflow waiting to happen)."""
+        if data.size == 0 or not np.issubdtype(data.dtype, np.floating):
+            return
+        finite = np.isfinite(data)  # NaN and inf pixels are shot QC's business ("not_finite")
+        big = max(float(np.max(data, where=finite, initial=0.0)), -float(np.min(data, where=finite, initial=0.0)))
+        if big > MAX_ABS_COUNTS:
+            raise RunFormatError(f"'{name}' holds values out of range ({big:.3g} counts; a detector gives "
+                                 f"less than {MAX_ABS_COUNTS:.0e})", where=self._where,
+                                 fix="check the export: the counts were scaled or the data type misread")
 
     def dark(self) -> np.ndarray | None:
         """Dark frames (n_dark, n_pixels) as float64, or None when the run has none."""
         if self._dark is None:
             return None
         self._check_alloc(self._dark.shape, 16, "the dark frames")
-        return np.asarray(self._dark[()], dtype=np.float64)
+        data = self._dark[()]
+        self._check_range(data, "dark")
+        return np.asarray(data, dtype=np.float64)
 
     def response(self) -> np.ndarray | None:
         """Relative spectral response (n_pixels,) or None (checked when the run was opened)."""
@@ -444,10 +459,12 @@ class Run:
         start, stop = max(0, int(start)), min(self.n_shots, int(stop))
         self._check_alloc((stop - start, self.n_pixels), self.spectra_dtype.itemsize, "reading these spectra")
         try:
-            return self._spectra[start:stop]
+            data = self._spectra[start:stop]
         except (OSError, ValueError) as exc:
             raise RunFormatError(f"spectra cannot be read ({exc})", where=self._where,
                                  fix="the file is truncated or corrupt; copy the run again") from exc
+        self._check_range(data, "spectra")
+        return data
 
     def iter_chunks(self, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> Iterator[tuple[int, int, np.ndarray]]:
         """Yield ``(start, stop, spectra)`` over all shots in chunks of ``chunk_shots`` rows (float64)."""
