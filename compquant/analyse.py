@@ -51,7 +51,7 @@ from compquant.report import (
     load_lab_profile,
     load_specification,
 )
-from compquant.report.config import LabProfile
+from compquant.report.config import LabProfile, check_certificate_texts
 from compquant.report.jsonform import canonical_json, write_certificate_json
 from compquant.report.lims import write_lims_csv
 from compquant.report.numbers import finite
@@ -218,9 +218,10 @@ def analyse(
 
     files = [FileRef("run", run_path.name, ""), FileRef("method", Path(method_path).name, method.sha256 or "")]
     with Run.open(run_path, memory_limit_bytes=memory_limit_bytes) as run:
+        samples = run.samples.copy()
+        check_certificate_texts(samples["sample_id"], samples["description"], client, str(run_path))
         run_sha = run.sha256()
         files[0].sha256 = run_sha
-        samples = run.samples.copy()
         n_passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * n_passes
         done = [0]

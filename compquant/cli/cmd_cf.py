@@ -109,6 +109,11 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                                           seed=seed))
         except CompquantError as exc:
             failures[sid] = exc.one_line()
+    if failures and not results:  # before anything is written; the reasons in the line itself
+        first, why = next(iter(failures.items()))
+        more = f" (and {len(failures) - 1} more sample(s))" if len(failures) > 1 else ""
+        raise ConfigError(f"no sample gave a calibration-free result; {first}: {why}{more}", where=str(run_path),
+                          fix="check the method's lines and [cf] settings against the run")
     out = Path(output)
     stem = out.with_suffix("")
     import pandas as pd
@@ -144,6 +149,4 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
             for w in r.warnings:
                 click.echo(f"note: {r.sample_id}: {w}")
         click.echo("wrote " + ", ".join(written))
-    if failures and not results:
-        raise ConfigError("no sample gave a calibration-free result", where=str(run_path),
-                          fix="see the messages above")
+
