@@ -30,7 +30,7 @@ import numpy as np
 
 from compquant import __version__
 from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError
-from compquant.fileio import require_file, safe_filename, sha256_file, write_text_atomic
+from compquant.fileio import output_error, require_file, safe_filename, sha256_file, write_text_atomic
 from compquant.identify.sample import detected_not_quantified
 from compquant.report import (
     Certificate,
@@ -348,7 +348,10 @@ def analyse(
     if specp is not None:
         files.append(FileRef("specification", Path(specp.path).name, specp.sha256))
 
-    outdir.mkdir(parents=True, exist_ok=True)
+    try:
+        outdir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise output_error(exc, outdir) from exc
     lab_info = LabInfo.from_profile(labp)
     signatory = Signatory(labp.signatory_name, labp.signatory_title)
     client_info = ClientInfo(

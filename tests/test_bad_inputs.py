@@ -113,7 +113,7 @@ from bad_inputs.hardening import build_hardening, hardening_names  # noqa: E402
 
 HNAMES = hardening_names()
 #: every line the CLI may print on stderr starts with one of these (one message per line)
-STDERR_PREFIXES = ("error: ", "warning: ", "failed: ", "note: ", "wrote ", "no result for ")
+STDERR_PREFIXES = ("error: ", "warning: ", "failed: ", "note: ", "wrote ", "no result for ", "measuring ", "analysing ")
 
 
 @pytest.fixture(scope="module")

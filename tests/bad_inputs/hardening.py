@@ -12,7 +12,6 @@ no bare NaN. Nothing here is committed as a binary; everything is generated from
 from __future__ import annotations
 
 import contextlib
-import errno
 import fcntl
 import json
 import os
@@ -27,6 +26,8 @@ import numpy as np
 from bad_inputs.base import LAB_TOML, METHOD_TOML, SPEC_TOML, STANDARDS_CSV, write_base_run
 
 ISSUED = "2026-12-01T21:00:00Z"
+#: calibration-free settings the base run supports (it has no H-alpha and no ion lines)
+CF_TABLE = '\n[cf]\nmc_draws = 5\nne_method = "fixed"\nne_fixed_cm3 = 1e17\n'
 
 #: the commands that read a run file (issue 17: "run through every command that reads that input")
 RUN_COMMANDS = ("inspect", "lines", "plot", "identify", "calibrate", "quantify", "cf", "analyse", "map", "multi")
@@ -199,21 +200,20 @@ def _failing_disk(err: int):
 @contextlib.contextmanager
 def _crash_in(run_name: str):
     """A bug (not a user error) inside the measurement of one run of a multi-run call."""
-    import compquant.parallel.lines as pl
+    import compquant.lines as lines_pkg
 
-    real = pl.measure_run_on if hasattr(pl, "measure_run_on") else None
-    real_measure = pl.measure_run
+    real = lines_pkg.measure_run
 
     def crashing(run, *a, **k):
         if Path(run.path).name == run_name:
             raise ZeroDivisionError("injected fault for the test")
-        return real_measure(run, *a, **k)
+        return real(run, *a, **k)
 
-    pl.measure_run = crashing
+    lines_pkg.measure_run = crashing
     try:
-        yield real
+        yield
     finally:
-        pl.measure_run = real_measure
+        lines_pkg.measure_run = real
 
 
 # ----------------------------------------------------------------------------------- checks of good outputs
@@ -286,7 +286,7 @@ def build_hardening(folder: Path, cal_json: Path | None) -> list[HCase]:
     M = folder / "method.toml"
     M.write_text(METHOD_TOML, encoding="utf-8")
     MCF = folder / "method-cf.toml"
-    MCF.write_text(METHOD_TOML + "\n[cf]\nmc_draws = 5\n", encoding="utf-8")
+    MCF.write_text(METHOD_TOML + CF_TABLE, encoding="utf-8")
     S = folder / "standards.csv"
     S.write_text(STANDARDS_CSV, encoding="utf-8")
     L = folder / "lab.toml"
@@ -415,6 +415,7 @@ def build_hardening(folder: Path, cal_json: Path | None) -> list[HCase]:
              cmds=("lines", "plot", "identify", "calibrate", "quantify", "cf", "analyse", "multi"))
     run_case("run_spectra_times_1e300", ["out of range"], mutate=_scaled(1e300, dark=True),
              cmds=("lines", "quantify", "analyse"))
+    build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP, CAL, shared)
     return cases
 
 
@@ -425,4 +426,6 @@ def hardening_names() -> list[str]:
         return [c.name for c in build_hardening(Path(d) / "c", None)]
 
 
-__all__ = ["HCase", "build_hardening", "hardening_names", "errno"]
+from bad_inputs.hardening_more import build_more  # noqa: E402
+
+__all__ = ["HCase", "build_hardening", "hardening_names"]
