@@ -178,3 +178,40 @@ def test_hostile_input(hardening, name, monkeypatch):
                 assert _files_under(out) == [], f"output written: {_files_under(out)}"
     assert [p for p in c.folder.rglob("*.part")] == []
     assert {p: _sha(p) for p in c.inputs} == before
+
+
+def _real(argv, **kw):
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""), MPLBACKEND="Agg")
+    return subprocess.run([sys.executable, "-m", "compquant", *map(str, argv)], capture_output=True, text=True,
+                          env=env, timeout=300, **kw)
+
+
+def test_file_size_limit_in_a_real_process(tmp_path):
+    """Issue 17, item 8: a real RLIMIT_FSIZE (the kernel refuses writes past 2 KiB with EFBIG; Python
+    ignores SIGXFSZ): one error line naming the limit, exit 2, no output under its final name."""
+    import resource
+
+    base = write_base_files(tmp_path / "in")
+    out = tmp_path / "out" / "lines.csv"
+
+    def limit():
+        resource.setrlimit(resource.RLIMIT_FSIZE, (2048, 2048))
+
+    p = _real(["lines", base["run"], "--method", base["method"], "-o", out, "--quiet"], preexec_fn=limit)
+    lines = p.stderr.strip("\n").splitlines()
+    assert p.returncode == 2 and len(lines) == 1 and lines[0].startswith("error: "), p.stderr
+    assert "file-size limit" in lines[0] and "Traceback" not in p.stderr
+    assert not out.exists() and not list(out.parent.glob("*.part"))
+
+
+def test_usage_errors_and_forged_lines_in_a_real_process(tmp_path):
+    """Issue 17, item 10: click's own usage errors are one line too, and a newline or ESC in a path
+    cannot start a second line or reach the terminal raw."""
+    for argv in (["inspect", tmp_path], ["lines", "x.h5"], ["analyse", tmp_path / "a.h5", "-o", __file__, "--method",
+                                                             "m.toml"], ["no-such-command"]):
+        p = _real(argv)
+        lines = p.stderr.strip("\n").splitlines()
+        assert p.returncode == 2 and len(lines) == 1 and lines[0].startswith("error: "), (argv, p.stderr)
+    p = _real(["inspect", str(tmp_path / "a\nerror: forged\x1b[2J\u202e.h5")])
+    assert p.returncode == 2 and len(p.stderr.strip("\n").splitlines()) == 1
+    assert "\x1b" not in p.stderr and "\u202e" not in p.stderr and "\\x1b" in p.stderr

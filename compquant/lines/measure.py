@@ -266,6 +266,16 @@ def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
     c = int(chunk_shots or method.measure.chunk_shots)
     if c < 1:
         raise MethodError(f"chunk size {c} is not positive", where="chunk_shots", fix="use >= 1 shot")
+    limit = getattr(run, "memory_limit", None)
+    if limit:  # the run's memory limit holds for the chunk buffers too (about 24 bytes per value)
+        fit = int(limit) // (24 * max(1, int(run.n_pixels)))
+        if fit < 1:
+            from compquant.errors import ResourceLimitError
+
+            raise ResourceLimitError(f"one shot of {run.n_pixels} pixels needs {24 * run.n_pixels} bytes to process, "
+                                     f"above the memory limit of {int(limit)} bytes", where="memory limit",
+                                     fix="raise COMPQUANT_MEMORY_LIMIT")
+        c = min(c, fit)
     align = max(1, int(getattr(run, "chunk_rows", 1)))
     if c > align:
         c = (c // align) * align
