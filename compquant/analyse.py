@@ -29,8 +29,15 @@ from pathlib import Path
 import numpy as np
 
 from compquant import __version__
-from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError
-from compquant.fileio import output_error, require_file, safe_filename, sha256_file, write_text_atomic
+from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError, OutputError
+from compquant.fileio import (
+    output_error,
+    require_file,
+    safe_filename,
+    sha256_file,
+    write_bytes_atomic,
+    write_text_atomic,
+)
 from compquant.identify.sample import detected_not_quantified
 from compquant.report import (
     Certificate,
@@ -55,7 +62,7 @@ from compquant.report.config import LabProfile, check_certificate_texts
 from compquant.report.jsonform import canonical_json, write_certificate_json
 from compquant.report.lims import write_lims_csv
 from compquant.report.numbers import finite
-from compquant.report.pdf import write_pdf
+from compquant.report.pdf import render_pdf_bytes
 
 SUMMARY_SCHEMA = "compquant-run-summary"
 SUMMARY_VERSION = 1
@@ -471,8 +478,9 @@ def analyse(
             cert.remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
         pdf_path = outdir / f"{stem}.pdf"
         json_path = outdir / f"{stem}.json"
+        pdf_bytes, pages = _render_pdf(cert, sid)  # first: a PDF that cannot be made leaves no JSON alone
         write_certificate_json(cert, json_path)
-        pages = write_pdf(cert, pdf_path)
+        write_bytes_atomic(pdf_path, pdf_bytes)
         certs.append(cert)
         outputs.append(
             CertificateOutput(
@@ -569,5 +577,17 @@ def analyse(
         failures,
     )
 
+
+
+def _render_pdf(cert, sid: str) -> tuple[bytes, int]:
+    """The certificate's PDF bytes and page count; a page-layout failure is one clear error line."""
+    from reportlab.platypus.doctemplate import LayoutError
+
+    try:
+        return render_pdf_bytes(cert)
+    except LayoutError as exc:
+        raise OutputError(f"the certificate of sample {sid[:40]!r} cannot be laid out on A4 pages "
+                          f"({str(exc)[:80]})", where="certificate PDF",
+                          fix="shorten the long texts (lab profile, client, sample description)") from None
 
 __all__ = ["analyse", "AnalysisOutput", "CertificateOutput", "SUMMARY_SCHEMA", "SUMMARY_VERSION"]

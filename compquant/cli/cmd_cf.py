@@ -11,7 +11,7 @@ import click
 
 from compquant.cli._common import SAFETY, format_columns, write_csv
 from compquant.errors import ConfigError, StandardsError
-from compquant.fileio import atomic_write, safe_filename
+from compquant.fileio import atomic_write, json_ready, safe_filename
 
 NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) homogeneous plasma "
         "and the atomic data; read the flags. " + SAFETY)
@@ -130,7 +130,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
            "failures": failures, "one_point": None if one_point is None else one_point.to_dict(),
            "note": "mass fractions in g/g; U = k·u with k = 2 (GUM)"}
     with atomic_write(js_path) as fh:
-        json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
+        json.dump(json_ready(doc), fh, indent=2, ensure_ascii=False, allow_nan=False)
     written = [str(out), str(res_path), str(js_path)]
     if plots_dir:
         pdir = Path(plots_dir)

@@ -289,6 +289,25 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
                                            "--no-figures", "--issued-at", ISSUED], [d / "out"], None, inputs=[r],
         check=no_free_date, d=d)
 
+    d = new_dir("run_ids_fixed_length_bytes")
+
+    def as_bytes(f):
+        ids = [s.decode() if isinstance(s, bytes) else s for s in f["samples/sample_id"][()]]
+        del f["samples/sample_id"]
+        f["samples"].create_dataset("sample_id", data=np.array([i.encode() for i in ids]))  # HDF5 fixed-length
+
+    r = _copy(good, d / "run.h5", as_bytes)
+
+    def plain_ids(case, result):
+        text = (case.outputs[0] / "lines.csv").read_text(encoding="utf-8")
+        assert "LOT-1" in text and "b'" not in text and "[b" not in text
+        assert "b'" not in result.output
+
+    add("run_ids_fixed_length_bytes@lines", ["lines", r, "--method", M, "-o", d / "o" / "lines.csv"], [d / "o"], None,
+        inputs=[r], check=plain_ids, d=d)
+    add("run_ids_fixed_length_bytes@inspect", ["inspect", r], [], None, inputs=[r],
+        check=lambda c, res: None if "LOT-1" in res.output and "b'" not in res.output else 1 / 0, d=d)
+
     # ------------------------------------------------------------------ item 7: injection into CSVs and the terminal
     for label, sid in HOSTILE_IDS.items():
         d = new_dir(f"inject_{label}")
@@ -299,6 +318,8 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
         add(f"inject_{label}@quantify", ["quantify", r, "--calibration", CAL, "--method", M, "-o",
                                          d / "q" / "results.csv"], [d / "q"], None, inputs=[r],
             check=lambda c, res, k=chk: (k(c, res), terminal_clean(c, res)), d=d)
+        if label not in ("formula", "space_formula", "fullwidth_formula", "newline", "bidi_override", "ansi_escape"):
+            continue  # (the certificate path is the same for every id; six of them keep the suite fast)
         # a full-width sign the PDF font cannot draw is refused before any work (item 6)
         unshowable = label == "fullwidth_formula"
         add(f"inject_{label}@analyse", ["analyse", r, "--method", M, "--standards", S, "-o", d / "a", "--no-figures",
