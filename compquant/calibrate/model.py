@@ -380,7 +380,7 @@ def _check_curve_numbers(key: str, c: Curve, where: str) -> None:
                                + ("" if key == c.element else f" or differs from its key {key!r:.24}"),
                                where=w, fix=fix)
     nums = {"beta": c.beta, "cov": [x for r in c.cov for x in r], "cov_fit": [x for r in c.cov_fit for x in r],
-            "range_x": c.range_x, "scale": [c.scale], "sigma_m2": [c.sigma_m2], "lod": [c.lod], "loq": [c.loq]}
+            "range_x": c.range_x, "scale": [c.scale], "sigma_m2": [c.sigma_m2]}
     for name, vals in nums.items():
         if not all(math.isfinite(float(v)) for v in vals):
             raise CalibrationError(f"'{name}' holds NaN or infinite numbers", where=w, fix=fix)
