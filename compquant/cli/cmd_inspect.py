@@ -62,6 +62,8 @@ def command(run_path, as_json, chunk_shots):
     with Run.open(run_path) as run:
         summary = summarise_run(run, chunk_shots=chunk_shots)
     if as_json:
-        click.echo(json.dumps(summary, indent=2, sort_keys=True, default=str))
+        from compquant.fileio import json_ready
+
+        click.echo(json.dumps(json_ready(summary, str), indent=2, sort_keys=True, default=str, allow_nan=False))
     else:
         click.echo(render_summary(summary))

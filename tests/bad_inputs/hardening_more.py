@@ -308,6 +308,25 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
     add("run_ids_fixed_length_bytes@inspect", ["inspect", r], [], None, inputs=[r],
         check=lambda c, res: None if "LOT-1" in res.output and "b'" not in res.output else 1 / 0, d=d)
 
+    d = new_dir("run_attrs_nan_inf")
+
+    def nan_attrs(f):
+        f["instrument"].attrs["resolving_power"] = np.nan
+        f["acquisition"].attrs["gate_delay_us"] = np.inf
+
+    r = _copy(good, d / "run.h5", nan_attrs)
+
+    def strict_json_stdout(case, result):
+        json.loads(result.stdout, parse_constant=lambda c: 1 / 0)  # no bare NaN / Infinity (item 4)
+
+    add("run_attrs_nan_inf@inspect_json", ["inspect", r, "--json"], [], None, inputs=[r], check=strict_json_stdout,
+        d=d)
+    add("run_attrs_nan_inf@lines", ["lines", r, "--method", M, "-o", d / "l" / "lines.csv", "--quiet"], [d / "l"],
+        None, inputs=[r], check=no_nonfinite, d=d)
+    add("run_attrs_nan_inf@analyse", ["analyse", r, "--method", M, "--standards", S, "-o", d / "a", "--quiet",
+                                      "--no-figures", "--issued-at", ISSUED], [d / "a"], None, inputs=[r],
+        check=no_nonfinite, d=d)
+
     # ------------------------------------------------------------------ item 7: injection into CSVs and the terminal
     for label, sid in HOSTILE_IDS.items():
         d = new_dir(f"inject_{label}")
