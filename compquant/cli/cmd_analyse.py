@@ -80,6 +80,8 @@ def summary_table(out) -> str:
 
 
 def report_outputs(out) -> None:
+    from compquant.fileio import terminal_text
+
     click.echo("")
     click.echo(summary_table(out))
     click.echo("")
@@ -90,7 +92,7 @@ def report_outputs(out) -> None:
     if out.calibration_json:
         click.echo(f"calibration:  {out.calibration_json}")
     for sid, why in sorted(out.failures.items()):
-        click.echo(f"warning: sample {sid}: {why}", err=True)
+        click.echo(terminal_text(f"warning: sample {sid}: {why}"), err=True)
     if not out.valid_for_release:
         click.echo("NOT VALID FOR RELEASE: a quality-control criterion failed; see the certificates.", err=True)
 

@@ -7,6 +7,7 @@ import json
 import click
 
 from compquant.cli._common import format_columns
+from compquant.fileio import terminal_text
 from compquant.run import Run, summarise_run
 
 
@@ -38,7 +39,8 @@ def render_summary(s: dict) -> str:
     ]
     rows = [("sample", "role", "standard", "shots", "saturated px")]
     for smp in s["samples"]:
-        rows.append((smp["sample_id"], smp["role"], smp["standard_ref"] or "-", str(smp["n_shots"]),
+        rows.append((terminal_text(smp["sample_id"]), terminal_text(smp["role"]),
+                     terminal_text(smp["standard_ref"] or "-"), str(smp["n_shots"]),
                      str(smp["saturated_pixels"])))
     lines.append(format_columns(rows, right={3, 4}, indent="  "))
     lines.append("")

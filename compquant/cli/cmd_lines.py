@@ -30,7 +30,7 @@ def _short_table(table, max_rows: int = 60) -> str:
         for r in table.itertuples(index=False):
             rows.append(
                 (
-                    str(r.sample_id),
+                    terminal_text(r.sample_id),
                     str(r.line_id),
                     f"{r.intensity:.4g}",
                     f"{r.u_intensity:.2g}",
@@ -47,7 +47,7 @@ def _short_table(table, max_rows: int = 60) -> str:
         kinds = sorted({f for fl in flagged["flags"] for f in fl.split(";")})
         rows.append(
             (
-                str(sid),
+                terminal_text(sid),
                 str(role),
                 str(int(g["n_shots"].max())),
                 str(len(g)),
@@ -234,7 +234,8 @@ def command(
         click.echo(_short_table(lm.table))
         rej = lm.qc[lm.qc["n_rejected"] > 0]
         for r in rej.itertuples(index=False):
-            click.echo(f"shot QC: {r.sample_id}: {r.n_rejected} of {r.n_shots} shots rejected ({r.reasons})")
+            sid = terminal_text(r.sample_id)
+            click.echo(f"shot QC: {sid}: {r.n_rejected} of {r.n_shots} shots rejected ({r.reasons})")
         for note in lm.provenance.get("notes", []):
-            click.echo(f"note: {note}")
+            click.echo(f"note: {terminal_text(note)}")
         click.echo("wrote " + ", ".join(str(p) for p in written))

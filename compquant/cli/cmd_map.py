@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from compquant.cli._common import SAFETY, write_csv
+from compquant.fileio import terminal_text
 
 
 def write_map_outputs(result, out_dir: Path) -> list[Path]:
@@ -100,12 +101,12 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
                 )
     written = write_map_outputs(result, Path(out_dir))
     for note in result.provenance.get("notes", []):
-        click.echo(f"warning: {note}", err=True)
+        click.echo(terminal_text(f"warning: {note}"), err=True)
     if not quiet:
         for sm in result.samples:
             g = sm.grid
             click.echo(
-                f"{sm.sample_id}: {g.nx} x {g.ny} nodes, step {g.dx_mm:g} x {g.dy_mm:g} mm, "
+                f"{terminal_text(sm.sample_id)}: {g.nx} x {g.ny} nodes, step {g.dx_mm:g} x {g.dy_mm:g} mm, "
                 f"{int(sm.shots.sum())} shots; maps: {', '.join(m.element for m in sm.maps)}"
             )
         click.echo(f"wrote {len(written)} files to {out_dir}")

@@ -271,10 +271,13 @@ def cells_escaped(*forbidden: str):
 
 
 def terminal_clean(case, result):
+    """No raw control, bidi or separator character reaches the terminal, and text from a file
+    cannot start a line of its own (a forged ``error:`` line)."""
     import unicodedata
 
     for ch in result.output:
         assert ch in "\n\t" or unicodedata.category(ch) not in ("Cc", "Cf", "Zl", "Zp"), hex(ord(ch))
+    assert not any(line.lstrip().startswith("error: forged") for line in result.output.splitlines()), result.output
 
 
 # ----------------------------------------------------------------------------------- the corpus
