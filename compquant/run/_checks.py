@@ -109,6 +109,10 @@ def check_response(r: np.ndarray, where: str) -> None:
         i = int(np.argmax(r <= 0))
         raise RunFormatError(f"'response' is {r[i]:.6g} at pixel {i}, not above zero", where=where,
                              fix="a relative response is positive at every pixel")
+    if r.max() > MAX_RESPONSE_RANGE or r.min() < 1.0 / MAX_RESPONSE_RANGE**2:
+        raise RunFormatError(f"'response' spans {r.min():.3g} to {r.max():.3g}, outside the range of a relative "
+                             f"response ({1.0 / MAX_RESPONSE_RANGE**2:.0e} to {MAX_RESPONSE_RANGE:.0e})", where=where,
+                             fix="normalise the response curve (e.g. to 1 at its maximum)")
     if r.max() / r.min() > MAX_RESPONSE_RANGE:
         raise RunFormatError(f"'response' spans {r.min():.3g} to {r.max():.3g}, a range above "
                              f"{MAX_RESPONSE_RANGE:.0e}", where=where,

@@ -387,6 +387,8 @@ def build_hardening(folder: Path, cal_json: Path | None) -> list[HCase]:
     zero[7] = 0.0
     run_case("run_response_zero", ["'response'", "not above zero"], mutate=_response(zero),
              cmds=("inspect", "lines", "analyse"))
+    run_case("run_response_1e300", ["'response'", "normalise"], mutate=_response(np.full(n_pix, 1e300)),
+             cmds=("inspect", "lines", "quantify", "analyse"))
     run_case("run_response_negative", ["not above zero"], mutate=_response(-np.ones(n_pix)),
              cmds=("inspect", "lines", "identify"))
     run_case("run_saturation_zero", ["saturation", "positive"], mutate=_attr("spectra", "saturation", 0),
