@@ -14,6 +14,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 from bad_inputs.base import write_base_files
 from bad_inputs.corpus import build_corpus, case_names
@@ -215,3 +216,42 @@ def test_usage_errors_and_forged_lines_in_a_real_process(tmp_path):
     p = _real(["inspect", str(tmp_path / "a\nerror: forged\x1b[2J\u202e.h5")])
     assert p.returncode == 2 and len(p.stderr.strip("\n").splitlines()) == 1
     assert "\x1b" not in p.stderr and "\u202e" not in p.stderr and "\\x1b" in p.stderr
+
+
+_RSS_PROBE = """
+import resource, sys
+import compquant.cli, compquant.lines, compquant.run, compquant.method  # the program and its libraries
+before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+try:
+    compquant.cli.main(sys.argv[1:])
+except SystemExit as exc:
+    code = exc.code
+after = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+print(code, before, after)
+"""
+
+
+def test_memory_limit_bounds_the_data_in_a_real_process(tmp_path):
+    """Issue 17, item 3: under COMPQUANT_MEMORY_LIMIT=8M, measuring a run whose spectra take 47 MiB
+    as float64 adds at most a few times the limit to the resident memory the program had after its
+    imports (ru_maxrss, KiB on Linux). Measured 2026-12-02: +22 MiB under 8M, +32 MiB without a limit."""
+    from bad_inputs.base import base_arrays
+
+    from compquant.run import write_run
+
+    wl, spectra, samples, idx, dark = base_arrays(n_pixels=1024)
+    reps = 6000 // spectra.shape[0]
+    order = np.argsort(np.tile(idx, reps), kind="stable")
+    run = write_run(tmp_path / "big.h5", wl, np.tile(spectra, (reps, 1))[order], samples, np.tile(idx, reps)[order],
+                    dark=dark, saturation=65535, created="2026-12-01T00:00:00Z")
+    method = write_base_files(tmp_path / "in")["method"]
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""), MPLBACKEND="Agg")
+    grown = {}
+    for limit in ("8M",):
+        p = subprocess.run([sys.executable, "-c", _RSS_PROBE, "lines", str(run), "--method", str(method), "-o",
+                            str(tmp_path / f"o{limit}" / "lines.csv"), "--quiet"], capture_output=True, text=True,
+                           env=dict(env, COMPQUANT_MEMORY_LIMIT=limit), timeout=300)
+        code, before, after = p.stdout.split()
+        assert code == "0", p.stderr
+        grown[limit] = (int(after) - int(before)) / 1024  # MiB
+    assert grown["8M"] <= 4 * 8, grown  # the data stay within a few times the limit
