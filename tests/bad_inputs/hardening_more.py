@@ -11,6 +11,7 @@ import errno
 import json
 import os
 from pathlib import Path
+from types import SimpleNamespace
 
 import h5py
 import numpy as np
@@ -91,13 +92,24 @@ def _edit_cal(doc: dict, fn) -> dict:
 
 
 def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP, CAL, shared):
+    """Add the cases of items 4-10 and of the inputs that are not files to ``cases``."""
+
     def add(name, argv, outputs, expect, bad=None, inputs=(), check=None, setup=None, env=None, multi=False, d=None):
         cases.append(HCase(name, [str(a) for a in argv], list(inputs) + shared, outputs, expect, bad, dict(env or {}),
                            setup, check, multi, d or folder))
 
-    cal_doc = json.loads(CAL.read_text(encoding="utf-8")) if CAL.stat().st_size > 2 else {"curves": {}}
+    c = SimpleNamespace(add=add, new_dir=new_dir, command=command, run_case=run_case, good=good, folder=folder, M=M,
+                        MCF=MCF, S=S, L=L, SP=SP, CAL=CAL, map_run=_raster_run(folder / "raster.h5"))
+    sections = (_calibration_cases, _map_cases, _text_cases, _certificate_text_cases, _injection_cases,
+                _output_cases, _scheduler_cases, _message_cases, _not_a_file_cases)
+    for section in sections:
+        section(c)
 
-    # ------------------------------------------------------------------ item 4: saved calibrations
+
+def _calibration_cases(c) -> None:
+    """Item 4: saved calibrations."""
+    cal_doc = json.loads(c.CAL.read_text(encoding="utf-8")) if c.CAL.stat().st_size > 2 else {"curves": {}}
+    add, new_dir, good, M, map_run = c.add, c.new_dir, c.good, c.M, c.map_run
     def slope_negative(doc):
         doc["curves"]["Zn"]["beta"][1] = -abs(doc["curves"]["Zn"]["beta"][1])
 
@@ -127,7 +139,6 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
     def range_reversed(doc):
         doc["curves"]["Zn"]["range_x"] = doc["curves"]["Zn"]["range_x"][::-1]
 
-    map_run = _raster_run(folder / "raster.h5")
     for label, fn, expect in (
         ("slope_negative", slope_negative, ["does not rise"]),
         ("slope_zero", slope_zero, ["does not rise"]),
@@ -151,7 +162,10 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
         add(f"calibration_{label}@map", ["map", map_run, "--method", M, "--calibration", cal, "-o", o / "m",
                                          "--quiet"], [o / "m"], expect, str(cal), [cal, map_run], d=d)
 
-    # ------------------------------------------------------------------ item 5: maps
+
+def _map_cases(c) -> None:
+    """Item 5: maps."""
+    add, new_dir, good, folder, M, map_run = c.add, c.new_dir, c.good, c.folder, c.M, c.map_run
     def grid_is_005(case, result):
         prov = json.loads((case.outputs[0] / "maps-provenance.json").read_text(encoding="utf-8"))
         g = prov["grids"]["LOT-1"]
@@ -197,7 +211,10 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
     add("map_run_without_positions@map", ["map", good, "--method", M, "-o", folder / "map_nopos" / "out", "--quiet"],
         [folder / "map_nopos" / "out"], ["no shot positions"], str(good))
 
-    # ------------------------------------------------------------------ item 6: text on figures and certificates
+
+def _text_cases(c) -> None:
+    """Item 6: text from files on figures (mathtext)."""
+    add, new_dir, good, M, S, L = c.add, c.new_dir, c.good, c.M, c.S, c.L
     math_id = r"$\foo$ LOT"
     d = new_dir("text_mathtext_id")
     mrun = _copy(good, d / "run.h5", _rename_lot1(math_id))
@@ -235,6 +252,10 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
     add("text_mathtext_id@map", ["map", mraster, "--method", M, "-o", d3 / "out", "--quiet"], [d3 / "out"], None,
         inputs=[mraster], check=png_written, d=d3)
 
+
+def _certificate_text_cases(c) -> None:
+    """Item 6: text on certificates (lengths, line breaks, fonts) and the date of measurement."""
+    add, new_dir, run_case, good, M, S = c.add, c.new_dir, c.run_case, c.good, c.M, c.S
     long_w = "Longname " * 40
     for label, lab_text, expect in (
         ("lab_name_long", LAB_TOML.replace('name = "Test Bench Laboratory (fictional)"', f'name = "{long_w}"'),
@@ -327,7 +348,10 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
                                       "--no-figures", "--issued-at", ISSUED], [d / "a"], None, inputs=[r],
         check=no_nonfinite, d=d)
 
-    # ------------------------------------------------------------------ item 7: injection into CSVs and the terminal
+
+def _injection_cases(c) -> None:
+    """Item 7: injection into CSVs and the terminal."""
+    add, new_dir, good, M, S, CAL = c.add, c.new_dir, c.good, c.M, c.S, c.CAL
     for label, sid in HOSTILE_IDS.items():
         d = new_dir(f"inject_{label}")
         r = _copy(good, d / "run.h5", _rename_lot1(sid))
@@ -364,7 +388,11 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
             check=combined_ok, d=d)
         add(f"inject_{label}@missing", ["inspect", str(r) + ".missing"], [], ["not found"], None, d=d)
 
-    # ------------------------------------------------------------------ item 8: output faults
+
+def _output_cases(c) -> None:
+    """Item 8: output faults."""
+    add, new_dir, command, good, folder, M = c.add, c.new_dir, c.command, c.good, c.folder, c.M
+    S, CAL, map_run = c.S, c.CAL, c.map_run
     # (cf is left out: the base run gives no calibration-free result, so cf never reaches its outputs;
     # it writes through the same write_csv / atomic_write as the others)
     for cmd in ("lines", "identify", "calibrate", "quantify", "analyse", "map", "plot"):
@@ -423,7 +451,10 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
         ["a bug in compquant", "runs-failures.txt", "1 of 2 runs failed"], str(crash), [crash],
         setup=lambda: _crash_in("crash.h5"), multi=True, d=d)
 
-    # ------------------------------------------------------------------ item 9: --scheduler
+
+def _scheduler_cases(c) -> None:
+    """Item 9: --scheduler."""
+    add, new_dir, command, good, map_run = c.add, c.new_dir, c.command, c.good, c.map_run
     for k, addr in enumerate(BAD_SCHEDULERS):
         for cmd in ("lines", "analyse", "map"):
             d = new_dir(f"scheduler_{k}_{cmd}")
@@ -432,7 +463,10 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
             add(f"scheduler_{k}@{cmd}", argv + ["--scheduler", addr], outs, ["scheduler address", "HOST:PORT"],
                 "--scheduler", [run], d=d)
 
-    # ------------------------------------------------------------------ item 10: messages
+
+def _message_cases(c) -> None:
+    """Item 10: messages."""
+    add, new_dir, good = c.add, c.new_dir, c.good
     d = new_dir("messages_cf_quiet")
     one_line_each = d / "method.toml"
     text = METHOD_TOML.replace('[[lines]]\nid = "Cu I 324.754"\n', "").replace('[[lines]]\nid = "Zn I 334.502"\n', "")
@@ -440,7 +474,11 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
     add("messages_cf_quiet@cf", ["cf", good, "--method", one_line_each, "-o", d / "o" / "cf.csv", "--quiet"],
         [d / "o"], ["no sample gave a calibration-free result", "CHK-20: "], str(good), [one_line_each], d=d)
 
-    # ------------------------------------------------------------------ non-run inputs that are not regular files
+
+def _not_a_file_cases(c) -> None:
+    """Inputs that are not regular files."""
+    add, new_dir, good, folder, M, S = c.add, c.new_dir, c.good, c.folder, c.M, c.S
+    map_run = c.map_run
     fifo = folder / "pipe"
     os.mkfifo(fifo)
     for what, argv, frag in (
