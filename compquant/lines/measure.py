@@ -263,7 +263,7 @@ def _shift_lines_nm(method: Method) -> list[float]:
 
 
 def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
-    c = int(chunk_shots or method.measure.chunk_shots)
+    c = int(method.measure.chunk_shots if chunk_shots is None else chunk_shots)  # 0 is refused, not "default"
     if c < 1:
         raise MethodError(f"chunk size {c} is not positive", where="chunk_shots", fix="use >= 1 shot")
     limit = getattr(run, "memory_limit", None)

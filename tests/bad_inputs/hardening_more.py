@@ -101,7 +101,7 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
     c = SimpleNamespace(add=add, new_dir=new_dir, command=command, run_case=run_case, good=good, folder=folder, M=M,
                         MCF=MCF, S=S, L=L, SP=SP, CAL=CAL, map_run=_raster_run(folder / "raster.h5"))
     sections = (_calibration_cases, _map_cases, _text_cases, _certificate_text_cases, _injection_cases,
-                _output_cases, _scheduler_cases, _message_cases, _not_a_file_cases)
+                _output_cases, _scheduler_cases, _option_cases, _message_cases, _not_a_file_cases)
     for section in sections:
         section(c)
 
@@ -462,6 +462,38 @@ def _scheduler_cases(c) -> None:
             argv, outs = command(cmd, run, d)
             add(f"scheduler_{k}@{cmd}", argv + ["--scheduler", addr], outs, ["scheduler address", "HOST:PORT"],
                 "--scheduler", [run], d=d)
+
+
+def _option_cases(c) -> None:
+    """Item 9, other options: chunk sizes, draws, ranges and temperatures out of their domain."""
+    add, good, M, MCF, map_run, folder = c.add, c.good, c.M, c.MCF, c.map_run, c.folder
+    for value in ("0", "-5"):
+        o = folder / f"options{value}"
+        add(f"option_chunk_shots_{value}@lines", ["lines", good, "--method", M, "-o", o / "l" / "l.csv",
+                                                  "--chunk-shots", value, "--quiet"], [o / "l"], ["chunk"], "chunk")
+        add(f"option_chunk_shots_{value}@map", ["map", map_run, "--method", M, "-o", o / "m", "--chunk-shots", value,
+                                                "--quiet"], [o / "m"], ["chunk"], "chunk")
+        add(f"option_chunk_shots_{value}@inspect", ["inspect", good, "--chunk-shots", value], [], ["chunk"], "chunk")
+        add(f"option_chunk_shots_{value}@analyse", ["analyse", good, "--method", M, "--cf", "-o", o / "a",
+                                                    "--chunk-shots", value], [o / "a"], ["chunk-shots"],
+            "--chunk-shots")
+    o = folder / "options"
+    add("option_draws_negative@cf", ["cf", good, "--method", MCF, "-o", o / "c" / "cf.csv", "--draws", "-1"],
+        [o / "c"], ["--draws"], "--draws")
+    add("option_range_reversed@plot", ["plot", good, "--sample", "LOT-1", "-o", o / "p" / "p.png", "--range", "335",
+                                       "325"], [o / "p"], ["--range"], "--range")
+    add("option_range_nan@plot", ["plot", good, "--sample", "LOT-1", "-o", o / "p" / "p.png", "--range", "nan",
+                                  "330"], [o / "p"], ["--range"], "--range")
+    add("option_temperature_negative@identify", ["identify", good, "-o", o / "i" / "i.csv", "--temperature", "-100"],
+        [o / "i"], ["--temperature"], "--temperature")
+    add("option_temperature_nan@identify", ["identify", good, "-o", o / "i" / "i.csv", "--temperature", "nan"],
+        [o / "i"], ["--temperature"], "--temperature")
+    add("option_workers_zero@lines", ["lines", good, "--method", M, "-o", o / "w" / "l.csv", "--workers", "0"],
+        [o / "w"], ["--workers"], "--workers")
+    add("option_workers_and_scheduler@lines", ["lines", good, "--method", M, "-o", o / "w" / "l.csv", "--workers", "1",
+                                               "--scheduler", "tcp://127.0.0.1:8786"], [o / "w"], ["both"], None)
+    add("option_sample_unknown@plot", ["plot", good, "--sample", "NO-SUCH", "-o", o / "p" / "p.png"], [o / "p"],
+        ["no sample 'NO-SUCH'"], str(good))
 
 
 def _message_cases(c) -> None:
