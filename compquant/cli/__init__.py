@@ -13,8 +13,10 @@ exception is a bug and keeps its traceback.
 Everything the commands print goes through :class:`SafeStream`: control characters, escape
 sequences and bidirectional or other invisible format characters from file contents or names
 are shown as visible escapes (compquant.fileio.visible_text), so a run cannot recolour,
-reorder or overwrite the user's terminal.  Python warnings (numpy's among them) become one
-``warning:`` line each, shown once.
+reorder or overwrite the user's terminal.  numpy's floating-point warnings are not printed
+(the values are checked and flagged where they matter); other warnings become one ``warning:``
+line each, shown once, after a command that succeeds: a failing command prints its one
+``error:`` line and nothing else.
 """
 
 from __future__ import annotations
