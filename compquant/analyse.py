@@ -29,8 +29,15 @@ from pathlib import Path
 import numpy as np
 
 from compquant import __version__
-from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError
-from compquant.fileio import require_file, safe_filename, sha256_file, write_text_atomic
+from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError, OutputError
+from compquant.fileio import (
+    output_error,
+    require_file,
+    safe_filename,
+    sha256_file,
+    write_bytes_atomic,
+    write_text_atomic,
+)
 from compquant.identify.sample import detected_not_quantified
 from compquant.report import (
     Certificate,
@@ -51,11 +58,11 @@ from compquant.report import (
     load_lab_profile,
     load_specification,
 )
-from compquant.report.config import LabProfile
+from compquant.report.config import LabProfile, check_certificate_texts
 from compquant.report.jsonform import canonical_json, write_certificate_json
 from compquant.report.lims import write_lims_csv
 from compquant.report.numbers import finite
-from compquant.report.pdf import write_pdf
+from compquant.report.pdf import render_pdf_bytes
 
 SUMMARY_SCHEMA = "compquant-run-summary"
 SUMMARY_VERSION = 1
@@ -228,9 +235,10 @@ def analyse(
 
     files = [FileRef("run", run_path.name, ""), FileRef("method", Path(method_path).name, method.sha256 or "")]
     with Run.open(run_path, memory_limit_bytes=memory_limit_bytes) as run:
+        samples = run.samples.copy()
+        check_certificate_texts(samples["sample_id"], samples["description"], client, str(run_path))
         run_sha = run.sha256()
         files[0].sha256 = run_sha
-        samples = run.samples.copy()
         n_passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * n_passes
         done = [0]
@@ -357,7 +365,10 @@ def analyse(
     if specp is not None:
         files.append(FileRef("specification", Path(specp.path).name, specp.sha256))
 
-    outdir.mkdir(parents=True, exist_ok=True)
+    try:
+        outdir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise output_error(exc, outdir) from exc
     lab_info = LabInfo.from_profile(labp)
     signatory = Signatory(labp.signatory_name, labp.signatory_title)
     client_info = ClientInfo(
@@ -479,8 +490,9 @@ def analyse(
             cert.remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
         pdf_path = outdir / f"{stem}.pdf"
         json_path = outdir / f"{stem}.json"
+        pdf_bytes, pages = _render_pdf(cert, sid, review)  # first: a PDF that cannot be made leaves no JSON alone
         write_certificate_json(cert, json_path, review=review)
-        pages = write_pdf(cert, pdf_path, review=review)
+        write_bytes_atomic(pdf_path, pdf_bytes)
         certs.append(cert)
         outputs.append(
             CertificateOutput(
@@ -581,5 +593,17 @@ def analyse(
         failures,
     )
 
+
+
+def _render_pdf(cert, sid: str, review=None) -> tuple[bytes, int]:
+    """The certificate's PDF bytes and page count; a page-layout failure is one clear error line."""
+    from reportlab.platypus.doctemplate import LayoutError
+
+    try:
+        return render_pdf_bytes(cert, review)
+    except LayoutError as exc:
+        raise OutputError(f"the certificate of sample {sid[:40]!r} cannot be laid out on A4 pages "
+                          f"({str(exc)[:80]})", where="certificate PDF",
+                          fix="shorten the long texts (lab profile, client, sample description)") from None
 
 __all__ = ["analyse", "AnalysisOutput", "CertificateOutput", "SUMMARY_SCHEMA", "SUMMARY_VERSION"]

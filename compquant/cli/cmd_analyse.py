@@ -80,6 +80,8 @@ def summary_table(out) -> str:
 
 
 def report_outputs(out) -> None:
+    from compquant.fileio import terminal_text
+
     click.echo("")
     click.echo(summary_table(out))
     click.echo("")
@@ -90,7 +92,7 @@ def report_outputs(out) -> None:
     if out.calibration_json:
         click.echo(f"calibration:  {out.calibration_json}")
     for sid, why in sorted(out.failures.items()):
-        click.echo(f"warning: sample {sid}: {why}", err=True)
+        click.echo(terminal_text(f"warning: sample {sid}: {why}"), err=True)
     if not out.valid_for_release:
         click.echo("NOT VALID FOR RELEASE: a quality-control criterion failed; see the certificates.", err=True)
 
@@ -101,8 +103,9 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 
     import pandas as pd
 
+    from compquant.cli._common import report_runs, write_csv
     from compquant.errors import CompquantError, OutputError
-    from compquant.fileio import atomic_write
+    from compquant.fileio import terminal_text
     from compquant.parallel import analyse_runs, collect_runs, open_executor, run_output_folders
 
     paths = collect_runs(run_paths)
@@ -131,12 +134,12 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
                     "error": "",
                 }
             )
-            click.echo(
+            click.echo(terminal_text(
                 f"ok: {oc.run} -> {v['outdir']} ({v['n_certificates']} certificates"
                 f"{'' if v['valid_for_release'] else ', NOT VALID FOR RELEASE'})"
-            )
+            ))
             for sid, why in sorted(v["failures"].items()):
-                click.echo(f"warning: {oc.run}: sample {sid}: {why}", err=True)
+                click.echo(terminal_text(f"warning: {oc.run}: sample {sid}: {why}"), err=True)
         else:
             status.append(
                 {
@@ -148,24 +151,19 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
                     "error": oc.error.one_line(),
                 }
             )
-            click.echo(f"error: {oc.error.one_line()}", err=True)
-            if oc.error.traceback:
-                click.echo(oc.error.traceback, err=True)
+    failed = [oc.run for oc in report_runs(outcomes, out, click.echo)]
     if frames:
-        with atomic_write(out / "lims-all.csv", newline="") as fh:
-            pd.concat(frames, ignore_index=True).to_csv(fh, index=False)
+        write_csv(pd.concat(frames, ignore_index=True), out / "lims-all.csv")
     cols = ["run", "status", "outputs", "certificates", "valid_for_release", "error"]
-    with atomic_write(out / "runs.csv", newline="") as fh:
-        pd.DataFrame(status, columns=cols).to_csv(fh, index=False)
-    click.echo(
+    write_csv(pd.DataFrame(status, columns=cols), out / "runs.csv")
+    click.echo(terminal_text(
         f"combined LIMS CSV: {out / 'lims-all.csv'} ({len(frames)} of {len(outcomes)} runs); status: {out / 'runs.csv'}"
-    )
-    failed = [oc.run for oc in outcomes if not oc.ok]
+    ))
     if failed:
         raise CompquantError(
             f"{len(failed)} of {len(outcomes)} runs failed: {', '.join(failed)}",
             where=str(out),
-            fix="see the error lines above and runs.csv; the other runs' outputs are complete",
+            fix="see the 'failed:' lines above and runs.csv; the other runs' outputs are complete",
         )
 
 

@@ -11,7 +11,7 @@ import click
 
 from compquant.cli._common import SAFETY, format_columns, write_csv
 from compquant.errors import ConfigError, StandardsError
-from compquant.fileio import atomic_write, safe_filename
+from compquant.fileio import atomic_write, json_ready, safe_filename, terminal_text
 
 NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) homogeneous plasma "
         "and the atomic data; read the flags. " + SAFETY)
@@ -33,7 +33,7 @@ def _screen(results) -> str:
     rows = [cols]
     for r in results:
         for row in r.summary_table().itertuples(index=False):
-            rows.append((str(row.sample_id), row.species, str(row.n_lines), f"{row.T_K:.0f}±{row.u_T_K:.0f}",
+            rows.append((terminal_text(row.sample_id), row.species, str(row.n_lines), f"{row.T_K:.0f}±{row.u_T_K:.0f}",
                          f"{row.ne_cm3:.2e}", row.ne_method,
                          "n.d." if not math.isfinite(row.mass_fraction) else f"{100 * row.mass_fraction:.3f}",
                          "-" if not math.isfinite(row.U) else f"{100 * row.U:.3f}", row.flags or "-"))
@@ -109,6 +109,11 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                                           seed=seed))
         except CompquantError as exc:
             failures[sid] = exc.one_line()
+    if failures and not results:  # before anything is written; the reasons in the line itself
+        first, why = next(iter(failures.items()))
+        more = f" (and {len(failures) - 1} more sample(s))" if len(failures) > 1 else ""
+        raise ConfigError(f"no sample gave a calibration-free result; {first}: {why}{more}", where=str(run_path),
+                          fix="check the method's lines and [cf] settings against the run")
     out = Path(output)
     stem = out.with_suffix("")
     import pandas as pd
@@ -125,7 +130,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
            "failures": failures, "one_point": None if one_point is None else one_point.to_dict(),
            "note": "mass fractions in g/g; U = k·u with k = 2 (GUM)"}
     with atomic_write(js_path) as fh:
-        json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
+        json.dump(json_ready(doc), fh, indent=2, ensure_ascii=False, allow_nan=False)
     written = [str(out), str(res_path), str(js_path)]
     if plots_dir:
         pdir = Path(plots_dir)
@@ -139,11 +144,9 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         if results:
             click.echo(_screen(results))
         for sid, why in failures.items():
-            click.echo(f"no result for {sid}: {why}", err=True)
+            click.echo(terminal_text(f"no result for {sid}: {why}"), err=True)
         for r in results:
             for w in r.warnings:
-                click.echo(f"note: {r.sample_id}: {w}")
+                click.echo(terminal_text(f"note: {r.sample_id}: {w}"))
         click.echo("wrote " + ", ".join(written))
-    if failures and not results:
-        raise ConfigError("no sample gave a calibration-free result", where=str(run_path),
-                          fix="see the messages above")
+

@@ -7,6 +7,7 @@ import json
 import click
 
 from compquant.cli._common import format_columns
+from compquant.fileio import terminal_text
 from compquant.run import Run, summarise_run
 from compquant.run.mask import describe_shots
 
@@ -39,7 +40,8 @@ def render_summary(s: dict) -> str:
     ]
     rows = [("sample", "role", "standard", "shots", "saturated px")]
     for smp in s["samples"]:
-        rows.append((smp["sample_id"], smp["role"], smp["standard_ref"] or "-", str(smp["n_shots"]),
+        rows.append((terminal_text(smp["sample_id"]), terminal_text(smp["role"]),
+                     terminal_text(smp["standard_ref"] or "-"), str(smp["n_shots"]),
                      str(smp["saturated_pixels"])))
     lines.append(format_columns(rows, right={3, 4}, indent="  "))
     lines += _masked_lines(s)
@@ -82,6 +84,8 @@ def command(run_path, as_json, chunk_shots):
     with Run.open(run_path) as run:
         summary = summarise_run(run, chunk_shots=chunk_shots)
     if as_json:
-        click.echo(json.dumps(summary, indent=2, sort_keys=True, default=str))
+        from compquant.fileio import json_ready
+
+        click.echo(json.dumps(json_ready(summary, str), indent=2, sort_keys=True, default=str, allow_nan=False))
     else:
         click.echo(render_summary(summary))

@@ -52,6 +52,7 @@ from compquant.lines.chunk import (
     ChunkResult,
     FitProjection,
     find_masked,
+    masked_ranges,
     process_chunk,
     process_chunk_threaded,
     repair_masked,
@@ -221,7 +222,11 @@ def _response_vector(run, method: Method, notes: list) -> np.ndarray | None:
                 where=where,
                 fix="give a response curve over the whole run range",
             )
-        return np.interp(wl, x, r)
+        from compquant.run._checks import check_response
+
+        curve = np.interp(wl, x, r)
+        check_response(curve, where)  # positive, finite, a sane range: the same rule as a stored response
+        return curve
     r = run.response()
     if r is None:
         notes.append("response correction asked for but the run stores no response: not applied")
@@ -300,9 +305,19 @@ def _shift_lines_nm(method: Method) -> list[float]:
 
 
 def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
-    c = int(chunk_shots or method.measure.chunk_shots)
+    c = int(method.measure.chunk_shots if chunk_shots is None else chunk_shots)  # 0 is refused, not "default"
     if c < 1:
         raise MethodError(f"chunk size {c} is not positive", where="chunk_shots", fix="use >= 1 shot")
+    limit = getattr(run, "memory_limit", None)
+    if limit:  # the run's memory limit holds for the chunk buffers too (about 24 bytes per value)
+        fit = int(limit) // (24 * max(1, int(run.n_pixels)))
+        if fit < 1:
+            from compquant.errors import ResourceLimitError
+
+            raise ResourceLimitError(f"one shot of {run.n_pixels} pixels needs {24 * run.n_pixels} bytes to process, "
+                                     f"above the memory limit of {int(limit)} bytes", where="memory limit",
+                                     fix="raise COMPQUANT_MEMORY_LIMIT")
+        c = min(c, fit)
     align = max(1, int(getattr(run, "chunk_rows", 1)))
     if c > align:
         c = (c // align) * align
@@ -703,12 +718,14 @@ def _qc_decide(pre, qc_x: np.ndarray, pulse: np.ndarray | None, rows: np.ndarray
     )
 
 
-def _all_rejected_error(setup: _Setup, run, s: int, idx: np.ndarray, dec) -> DataQualityError:
-    """The error for a sample without accepted shots; names masked pixels when they are the cause."""
+def _all_rejected_error(setup: _Setup, run, s: int, idx: np.ndarray, dec, hits=None) -> DataQualityError:
+    """The error for a sample without accepted shots; names masked pixels when they are the cause
+    (``hits``: its masked ranges ``(row, first, last)``, default those found by the measurement)."""
     sid = setup.sample_ids[s]
     shot_no = np.asarray(setup.shot_number)
     rows = set(idx.tolist())
-    hits = [(r, a, b) for r, a, b in setup.masked_ranges if r in rows]
+    if hits is None:
+        hits = [(r, a, b) for r, a, b in setup.masked_ranges if r in rows]
     if hits:
         shown = "; ".join(
             f"shot {int(shot_no[r])}: {describe_range(a, b, setup.wl)}" for r, a, b in hits[:5]
@@ -1089,8 +1106,13 @@ def mean_spectrum(
         li = [ln.line_id for ln in setup.lines].index(pre.qc_quantity)
         qc_weights = build_window_weights(setup.wl, [setup.geometry(li, None)]).W[:, 0]
     pos = 0
+    hits: list = []  # masked ranges (row, first, last), for the error when no shot is usable
     for sub in pieces:
-        y = _preprocessed(run.read_raw(int(sub[0]), int(sub[-1]) + 1), plan)
+        raw = run.read_raw(int(sub[0]), int(sub[-1]) + 1)
+        bad = find_masked(raw)
+        if bad is not None:
+            hits += [(int(sub[r]), a, b) for r, a, b in masked_ranges(bad)]
+        y = _preprocessed(raw, plan)
         totals[pos : pos + sub.size] = y @ qc_weights
         pos += sub.size
     qc_x = totals
@@ -1099,11 +1121,7 @@ def mean_spectrum(
         qc_x = totals / (e[rows] / np.nanmedian(e))
     dec = _qc_decide(pre, qc_x, setup.pulse, rows)
     if not dec.accepted.any():
-        raise DataQualityError(
-            f"all {rows.size} shots of sample {sample_id!r} were rejected by shot QC",
-            where=f"{run.path}: sample {sample_id}",
-            fix="relax [preprocess.qc] or check the sample's spectra",
-        )
+        raise _all_rejected_error(setup, run, s, rows, dec, hits)
     pos = 0
     for sub in pieces:
         m = dec.accepted[pos : pos + sub.size]

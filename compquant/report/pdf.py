@@ -93,6 +93,19 @@ def _fonts() -> dict[str, str]:
     return _FONTS
 
 
+def missing_glyphs(text) -> str:
+    """The characters of ``text`` (as printed, after :func:`visible_text`) that the certificate's
+    body font cannot draw; they would print as empty boxes, so two different ids could look alike."""
+    from reportlab.pdfbase import pdfmetrics
+
+    name = _fonts()["normal"]
+    shown = visible_text(text)
+    if name == "Helvetica":
+        return "".join(dict.fromkeys(ch for ch in shown if ord(ch) > 255))
+    face = pdfmetrics.getFont(name).face
+    return "".join(dict.fromkeys(ch for ch in shown if ord(ch) not in face.charToGlyph))
+
+
 def _styles():
     from reportlab.lib import colors
     from reportlab.lib.enums import TA_CENTER, TA_RIGHT

@@ -147,7 +147,7 @@ def iter_raw(run, bounds: list[tuple[int, int]], threads: int | None = None, ahe
                 nxt += 1
             raw = _assemble(run, ds, a, b, queue.popleft())
             # the run's masked pixels come back as NaN, exactly as from ``run.read_raw``
-            yield a, b, run._masked(np.arange(a, b), raw) if hasattr(run, "_masked") else raw
+            yield a, b, run.screen(np.arange(a, b), raw) if hasattr(run, "screen") else raw
 
 
 def _iter_plain(run, bounds, prefetch: bool):
