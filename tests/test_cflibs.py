@@ -211,11 +211,13 @@ def test_unphysical_slope_is_physics_error_not_nan():
     lt = cf_hand.line_table(W_TRUE, 11000.0, 3e16)
     # invert the Boltzmann plot: intensities rising with E_k (no finite positive T)
     lt["intensity"] = lt["intensity"] * np.exp(3.0 * lt["ek_ev"] / (cf_hand.KB_EV * 11000.0))
+    lt["u_intensity"] = 0.01 * lt["intensity"]  # keep the measurement's relative u
     with pytest.raises(PhysicsError):
         quiet(line_table=lt, atomic=cf_hand.atomic(), settings={"mc_draws": 0})
     # a very cold apparent plasma (600 K) is refused with a clear error, not NaN
     lt = cf_hand.line_table(W_TRUE, 11000.0, 3e16)
     lt["intensity"] = lt["intensity"] * np.exp(-lt["ek_ev"] * (1 / (cf_hand.KB_EV * 600.0)))
+    lt["u_intensity"] = 0.01 * lt["intensity"]
     with pytest.raises(PhysicsError, match="outside"):
         quiet(line_table=lt, atomic=cf_hand.atomic(), settings={"mc_draws": 0})
 
