@@ -1155,6 +1155,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     drop: dict[str, str] = {}
     undetermined: dict[str, list[str]] = {}
     rejected: list[dict] = []
+    limits: dict[str, dict] = {}  # non-detection checks of every round (dropped elements keep theirs)
     elements = s.elements_for(sid)
     for _ in range(12):
         a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where,
@@ -1168,6 +1169,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
             continue
         a.solve()
         line_drops, el_drops = a.screen()
+        limits.update({c["line_id"]: c for c in a.upper_limit_checks})
         if not line_drops and not el_drops:
             break
         for lid, why in line_drops.items():
@@ -1184,6 +1186,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     for e, why in undetermined.items():
         a.undetermined[e] = list(dict.fromkeys(why))
     a.rejected = rejected
+    a.upper_limit_checks = list(limits.values())
     return a
 
 

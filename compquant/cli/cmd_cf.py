@@ -10,7 +10,7 @@ from pathlib import Path
 import click
 
 from compquant.cli._common import SAFETY, format_columns, write_csv
-from compquant.errors import ConfigError, StandardsError
+from compquant.errors import ConfigError, DataQualityError, StandardsError
 from compquant.fileio import atomic_write, safe_filename
 
 NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) homogeneous plasma "
@@ -75,6 +75,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         acquisition, instrument = dict(run.acquisition or {}), dict(run.instrument or {})
         sample_table = run.samples.copy()
         run_sha = run.sha256()
+        basis = response_basis(method, run)
     table = lm.table
     known = list(dict.fromkeys(table["sample_id"].astype(str)))
     if samples:
@@ -106,7 +107,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                 warnings.simplefilter("ignore")
                 results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
                                           instrument=instrument, one_point=one_point, mc_draws=draws,
-                                          seed=seed))
+                                          seed=seed, intensity_basis=basis))
         except CompquantError as exc:
             failures[sid] = exc.one_line()
     out = Path(output)
@@ -135,15 +136,32 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
             plot_boltzmann(r, p1)
             plot_saha_boltzmann(r, p2)
             written += [str(p1), str(p2)]
+    for sid, why in failures.items():  # on stderr even with --quiet: a failure is never silent
+        click.echo(f"no result for {sid}: {why}", err=True)
     if not quiet:
         if results:
             click.echo(_screen(results))
-        for sid, why in failures.items():
-            click.echo(f"no result for {sid}: {why}", err=True)
         for r in results:
             for w in r.warnings:
                 click.echo(f"note: {r.sample_id}: {w}")
         click.echo("wrote " + ", ".join(written))
     if failures and not results:
-        raise ConfigError("no sample gave a calibration-free result", where=str(run_path),
-                          fix="see the messages above")
+        first = next(iter(failures.items()))
+        more = f" (and {len(failures) - 1} more sample(s), listed above)" if len(failures) > 1 else ""
+        raise DataQualityError(f"no sample gave a calibration-free result; {first[0]}: {first[1]}{more}",
+                               where=str(run_path), fix="see the reason; fix the lines, [cf] or the run")
+
+
+def response_basis(method, run) -> str | None:
+    """Basis of the response-corrected line intensities: ``"photon"``, ``"energy"``, ``None``
+    (no response correction: counts, taken as compquant's energy convention) or ``"unknown"``
+    (a response is applied whose basis nobody recorded — refused by the analysis unless
+    ``[cf] response_basis`` says it)."""
+    pre = method.preprocess
+    if not pre.response:
+        return None
+    if pre.response_file:
+        return "unknown"
+    if run.response() is None:
+        return None
+    return run.response_basis or "unknown"

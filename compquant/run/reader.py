@@ -259,6 +259,9 @@ class Run:
         if self._response is not None and self._response.shape != (self.n_pixels,):
             raise RunFormatError(f"'response' has shape {self._response.shape}, expected ({self.n_pixels},)",
                                  where=where, fix="store one relative response value per pixel")
+        #: "photon" | "energy" | None (not recorded): basis of the response-corrected spectrum
+        basis = None if self._response is None else self._response.attrs.get("basis")
+        self.response_basis = None if basis is None else (basis.decode() if isinstance(basis, bytes) else str(basis))
         self.instrument = _attrs(self._h5["instrument"]) if "instrument" in self._h5 else {}
         self.instrument.pop("NX_class", None)
         self.acquisition = _attrs(self._h5["acquisition"]) if "acquisition" in self._h5 else {}
