@@ -118,9 +118,12 @@ def test_too_few_lines_rule_and_settings():
     lt = lt[~lt["line_id"].isin(["Mn I 280.108", "Mn I 403.076", "Mn I 403.307", "Mn II 257.610",
                                  "Mn I 404.136"])]
     m = lt["line_id"] == "Mn I 279.482"
-    lt.loc[m, "u_intensity"] = lt.loc[m, "intensity"] / 8.0  # one line, SNR 8 < 20
+    lt.loc[m, "u_intensity"] = lt.loc[m, "intensity"] / 8.0  # one line, SNR 8 < 10
     r = run(lt)
     assert not r.element("Mn").determined and "SNR" in r.element("Mn").reasons[0]
+    assert "kept in the closure" in r.element("Mn").reasons[0]
+    for e in ("Fe", "Cr", "Ni"):  # Mn's share stays in the closure: the others are not inflated
+        assert r.element(e).mass_fraction == pytest.approx(W_MN[e], rel=1e-6)
     assert run(lt, single_line_min_snr=5.0).element("Mn").mass_fraction == pytest.approx(0.0005, rel=1e-6)
     with pytest.raises(MethodError, match="min_lines_per_element"):
         CFSettings.from_section({"min_lines_per_element": 0})
@@ -215,6 +218,10 @@ def test_species_temperature_and_slab_length_checks():
     _, failed = plasma_checks(T=12000.0, u_T=100.0, ne=3e19, u_ln_ne=0.1, ne_used="saha", ne_estimates=[],
                               lte={}, species=[], sa_info={"plasma_length_mm": 0.5, "fitted": True}, settings=s)
     assert failed == ["ne_plausible"]
+    _, failed = plasma_checks(T=12000.0, u_T=100.0, ne=5e16, u_ln_ne=0.1, ne_used="saha", ne_estimates=[],
+                              lte={}, species=[], sa_info={"plasma_length_mm": 0.5, "fitted": True}, settings=s,
+                              fit={"birge_ratio": 9.0})  # the self-absorbed model misses the lines
+    assert failed == ["fit_quality"]
 
 
 # ------------------------------------------------------------------ nₑ routes

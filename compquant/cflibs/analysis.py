@@ -909,7 +909,8 @@ class _Analysis:
         species_rows = self._species_rows(sol)
         checks, failed = plasma_checks(T=T, u_T=u_T, ne=ne, u_ln_ne=u_ne / ne if ne > 0 else float("nan"),
                                        ne_used=self.ne_name, ne_estimates=ne_estimates, lte=lte.to_dict(),
-                                       species=species_rows, sa_info=self.sa_info, settings=s)
+                                       species=species_rows, sa_info=self.sa_info, settings=s,
+                                       fit={"birge_ratio": float(fit.birge[0]) if dof > 0 else None})
         if failed:
             self.flags.append("plasma_inconsistent")
             notes = "; ".join(f"{c['check']}: {c['note'] or c['value']}" for c in checks if c["check"] in failed)
@@ -1161,15 +1162,17 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
         a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where,
                       elements=elements, drop=drop, basis=basis)
         few = too_few_lines(a.L, s)
-        if few and len(few) < len(set(a.L.element)):
-            for e, why in few.items():
-                undetermined.setdefault(e, []).append(why)
-                for lid in a.L.line_id[a.L.element == e]:
-                    drop[str(lid)] = f"element {e} not determined (too few lines)"
-            continue
         a.solve()
         line_drops, el_drops = a.screen()
         limits.update({c["line_id"]: c for c in a.upper_limit_checks})
+        # rule 1: a weakly measured element stays in the closure (value not reported) unless the
+        # non-detections contradict it or its estimate is too large for a weak signal
+        w_now = dict(zip(a.sol.elements, a.sol.mass_fraction[0]))
+        for e, why in few.items():
+            if e not in el_drops and w_now.get(e, 0.0) > s.weak_element_closure_max \
+                    and len(few) < len(set(a.L.element)):
+                el_drops[e] = (f"{why}; its unreported estimate {w_now[e]:.3g} g/g is above "
+                               f"weak_element_closure_max = {s.weak_element_closure_max:g}: removed from the closure")
         if not line_drops and not el_drops:
             break
         for lid, why in line_drops.items():
@@ -1181,8 +1184,9 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
                 drop[str(lid)] = f"element {e} not determined (non-detections)"
     else:
         a._warn("robust closure did not settle in 12 rounds")
-    for e, why in few.items() if few else ():
-        undetermined.setdefault(e, []).append(why)  # every element too weak: reported, not removed
+    for e, why in few.items():
+        if e not in undetermined:
+            undetermined[e] = [why + "; kept in the closure, its value not reported"]
     for e, why in undetermined.items():
         a.undetermined[e] = list(dict.fromkeys(why))
     a.rejected = rejected

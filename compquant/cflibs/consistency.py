@@ -15,10 +15,13 @@ spectrum says independently (docs/calibration-free.md §4a).  Each check gives
   whose nₑ comes out of a self-absorption fit (elsewhere the failure stays the flag
   ``lte_mcwhirter_failed``, a necessary condition only);
 * ``species_temperatures`` — each species' own Boltzmann-plot temperature (≥ 3 lines over
-  ≥ 1 eV of E_k) agrees with the joint T within ``t_species_tolerance`` or 3 combined u
+  ≥ 1 eV of E_k) agrees with the joint T within ``t_species_tolerance`` (7 %) or 3 combined u
   (common practice: a single LTE temperature must describe every species);
 * ``ne_plausible`` — nₑ inside ``plausible_ne_cm3`` (common practice for laser and spark
   plasmas at the usual delays: 10¹⁴–10¹⁹ cm⁻³);
+* ``fit_quality`` — for the self-absorption fits, χ²/ν (Birge ratio) of the self-absorbed
+  model at most ``max_birge_ratio``: a model that leaves the lines scattered far beyond their
+  uncertainties has not found the plasma;
 * ``slab_length`` — for the self-absorption fits, the slab length inside
   ``plausible_length_mm`` (common practice: LIBS plumes are 0.1–few mm) and not at the
   search bound.
@@ -71,7 +74,7 @@ def species_t_check(T, u_T, species, tol):
                   note=f"joint {T:.0f} K; " + ", ".join(notes))
 
 
-def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, sa_info, settings):
+def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, sa_info, settings, fit=None):
     """All checks of one solution; returns ``(checks, failed_names)``."""
     out = [ne_route_check(ne, u_ln_ne, ne_used, ne_estimates, settings.ne_agreement_factor)]
     mw = next((c for c in (lte or {}).get("checks", []) if c.get("name") == "mcwhirter"), {})
@@ -92,6 +95,14 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
                           note="fitted length of the self-absorbing slab (mm)"))
     else:
         out.append(_check("slab_length", False, True, note="no slab length fitted"))
+    birge = (fit or {}).get("birge_ratio")
+    if corrected and birge is not None:
+        out.append(_check("fit_quality", True, birge <= settings.max_birge_ratio, value=birge,
+                          limit=settings.max_birge_ratio,
+                          note="χ²/ν of the self-absorbed model: above the limit the model does not "
+                               "describe the lines"))
+    else:
+        out.append(_check("fit_quality", False, True, note="checked for self-absorption fits only"))
     failed = [c["check"] for c in out if c["checked"] and not c["passed"]]
     return out, failed
 

@@ -3,9 +3,13 @@
 Rules (docs/calibration-free.md §5a), applied between the fit and the closure by
 :func:`compquant.cflibs.analysis.analyse_cf`, which re-runs the analysis after every change:
 
-1. **Enough evidence** (:func:`too_few_lines`): an element enters the closure with at least
+1. **Enough evidence** (:func:`too_few_lines`): an element is reported with at least
    ``min_lines_per_element`` usable lines, or with one line whose SNR = I/u(I) reaches
-   ``single_line_min_snr``.  Otherwise it is *not determined*.
+   ``single_line_min_snr`` (default 10, the 10σ quantification limit of Currie 1968, *Anal.
+   Chem.* 40, 586).  Otherwise it is *not determined*: its value is not reported; it stays in
+   the closure (so the others are not biased by its absence) only while no non-detection
+   contradicts it and its estimate stays below ``weak_element_closure_max`` (a judgement:
+   a weak signal cannot carry a major element); else it is removed from the closure.
 2. **Outliers** (:func:`outlier_lines`): after the joint fit, a line whose ordinate departs
    from the fitted plasma by more than ``outlier_sigma`` standard deviations is rejected (one
    line per element and round, the worst first) and reported.  The standard deviation of

@@ -64,14 +64,16 @@ class CFSettings:
     # robust closure and failed measurements (docs/calibration-free.md §5a)
     elements_by_sample: dict[str, list[str]] = field(default_factory=dict)
     min_lines_per_element: int = 2
-    single_line_min_snr: float = 20.0
+    single_line_min_snr: float = 10.0
+    weak_element_closure_max: float = 0.05
     outlier_sigma: float = 4.0
     upper_limit_sigma: float = 3.0
     collapsed_fwhm_fraction: float = 0.5
     max_line_fwhm_nm: float | None = None
     # plausibility of the plasma solution (§4a)
     ne_agreement_factor: float = 2.0
-    t_species_tolerance: float = 0.15
+    t_species_tolerance: float = 0.07
+    max_birge_ratio: float = 5.0
     plausible_length_mm: list[float] = field(default_factory=lambda: [0.01, 5.0])
     plausible_ne_cm3: list[float] = field(default_factory=lambda: [1.0e14, 1.0e19])
     # Monte Carlo inputs beyond intensities and A_ki (§8)
@@ -150,11 +152,12 @@ class CFSettings:
 _FLOAT_POS = {"ne_fixed_u_rel", "u_rel_fwhm", "h_alpha_relation_u_rel", "stark_param_u_rel",
               "u_rel_floor", "t_start_k", "t_min_k", "t_max_k", "lte_f", "lte_gaunt",
               "lte_transient_ratio", "lte_diffusion_ratio", "single_line_min_snr", "outlier_sigma",
-              "upper_limit_sigma", "ne_agreement_factor", "t_species_tolerance"}
+              "upper_limit_sigma", "ne_agreement_factor", "t_species_tolerance",
+              "max_birge_ratio"}
 _FLOAT_POS_OPT = {"ne_fixed_cm3", "plasma_length_mm", "gradient_length_mm", "resolving_power",
                   "stark_fallback_fwhm_nm", "stark_fallback_ne_cm3", "max_line_fwhm_nm"}
 _FLOAT_NONNEG_OPT = {"instrument_fwhm_nm"}
-_FRACTION = {"sa_flag_below", "sa_min_factor", "collapsed_fwhm_fraction"}
+_FRACTION = {"sa_flag_below", "sa_min_factor", "collapsed_fwhm_fraction", "weak_element_closure_max"}
 _NONNEG = {"mc_partition_u_rel", "mc_sa_u_rel", "response_u_rel"}
 
 
