@@ -910,7 +910,10 @@ class _Analysis:
         checks, failed = plasma_checks(T=T, u_T=u_T, ne=ne, u_ln_ne=u_ne / ne if ne > 0 else float("nan"),
                                        ne_used=self.ne_name, ne_estimates=ne_estimates, lte=lte.to_dict(),
                                        species=species_rows, sa_info=self.sa_info, settings=s,
-                                       fit={"birge_ratio": float(fit.birge[0]) if dof > 0 else None})
+                                       fit={"birge_ratio": float(fit.birge[0]) if dof > 0 else None},
+                                       thin=self.thin_subset_temperature())
+        if any(c["check"] == "species_temperatures" and c["checked"] and not c["passed"] for c in checks):
+            self.flags.append("species_temperatures_disagree")
         if failed:
             self.flags.append("plasma_inconsistent")
             notes = "; ".join(f"{c['check']}: {c['note'] or c['value']}" for c in checks if c["check"] in failed)
@@ -1062,6 +1065,27 @@ class _Analysis:
                 out.append({"method": "saha", "ne_cm3": None, "u_ne_cm3": None, "lines": [],
                             "used": False, "note": exc.what})
         return out
+
+    def thin_subset_temperature(self):
+        """T (and its fit u) from the nearly thin lines alone (SA ≥ ``sa_flag_below``), for the
+        self-absorption fits: evidence that does not rest on the slab model (§4a); ``None``
+        when those lines cannot determine T."""
+        if self.s.self_absorption not in ("columnar", "curve_of_growth"):
+            return None
+        keep = self.sa >= self.s.sa_flag_below
+        if keep.sum() < 3 or keep.all():
+            return None
+        try:
+            sub = Model(self.L.subset(keep), self.atomic, self.s)
+            ln_i = (np.log(self.L.intensity) - np.log(self.sa) - self.ln_zeta)[keep]
+            sol = sub.solve(ln_i[None], 0.0, self.w[keep], self.ne_est, strict=True,
+                            T0=np.array([float(self.sol.T[0])]))
+        except (PhysicsError, AtomicDataError):
+            return None
+        T = float(sol.T[0])
+        u = float(sol.u_slope[0] / (K_B_EV * sol.slope[0] ** 2))
+        return {"temperature_k": T, "u_temperature_k": u, "n_lines": int(keep.sum()),
+                "lines": [str(x) for x in self.L.line_id[keep]]}
 
     def _species_rows(self, sol):
         """Per-species Boltzmann plots (own slope) as a diagnostic beside the joint fit."""

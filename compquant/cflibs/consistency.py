@@ -3,7 +3,8 @@
 A calibration-free solution — above all a self-absorption (columnar-density) fit, which can
 settle on a hot, dense, thin false minimum — is certified only when it agrees with what the
 spectrum says independently (docs/calibration-free.md §4a).  Each check gives
-``{"check", "checked", "passed", "value", "limit", "note"}``; a failed check makes the sample's
+``{"check", "checked", "passed", "value", "limit", "note", "refuses"}``; a failed check that
+refuses makes the sample's
 ``plasma_consistent`` false and no mass fraction of it is certified.
 
 * ``ne_routes`` — every other electron-density route the sample allows (H-alpha Stark width,
@@ -14,11 +15,16 @@ spectrum says independently (docs/calibration-free.md §4a).  Each check gives
   2010, *Spectrochim. Acta B* 65, 86, eq. 3) at the fitted T, nₑ; it refuses only solutions
   whose nₑ comes out of a self-absorption fit (elsewhere the failure stays the flag
   ``lte_mcwhirter_failed``, a necessary condition only);
-* ``species_temperatures`` — each species' own Boltzmann-plot temperature (≥ 3 lines over
+* ``species_temperatures`` — (refuses self-absorption fits; elsewhere reported with the flag
+  ``species_temperatures_disagree``) each species' own Boltzmann-plot temperature (≥ 3 lines over
   ≥ 1 eV of E_k) agrees with the joint T within ``t_species_tolerance`` (7 %) or 3 combined u
   (common practice: a single LTE temperature must describe every species);
 * ``ne_plausible`` — nₑ inside ``plausible_ne_cm3`` (common practice for laser and spark
   plasmas at the usual delays: 10¹⁴–10¹⁹ cm⁻³);
+* ``thin_lines_temperature`` — for the self-absorption fits, the lines that the fit itself
+  finds nearly thin (SA ≥ ``sa_flag_below``) are fitted alone (same nₑ route): their T must
+  agree with the solution's within ``t_species_tolerance`` or 3 u — evidence that does not
+  rest on the slab model;
 * ``fit_quality`` — for the self-absorption fits, χ²/ν (Birge ratio) of the self-absorbed
   model at most ``max_birge_ratio``: a model that leaves the lines scattered far beyond their
   uncertainties has not found the plasma;
@@ -32,9 +38,9 @@ from __future__ import annotations
 import math
 
 
-def _check(name, checked, passed, value=None, limit=None, note=""):
+def _check(name, checked, passed, value=None, limit=None, note="", refuses=True):
     return {"check": name, "checked": bool(checked), "passed": bool(passed) if checked else True,
-            "value": value, "limit": limit, "note": note}
+            "value": value, "limit": limit, "note": note, "refuses": bool(refuses)}
 
 
 def ne_route_check(ne, u_ln_ne, used, estimates, factor):
@@ -74,17 +80,20 @@ def species_t_check(T, u_T, species, tol):
                   note=f"joint {T:.0f} K; " + ", ".join(notes))
 
 
-def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, sa_info, settings, fit=None):
+def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, sa_info, settings, fit=None,
+                  thin=None):
     """All checks of one solution; returns ``(checks, failed_names)``."""
+    corrected = settings.self_absorption in ("columnar", "curve_of_growth")
     out = [ne_route_check(ne, u_ln_ne, ne_used, ne_estimates, settings.ne_agreement_factor)]
     mw = next((c for c in (lte or {}).get("checks", []) if c.get("name") == "mcwhirter"), {})
-    corrected = settings.self_absorption in ("columnar", "curve_of_growth")
     out.append(_check("lte_mcwhirter", bool(mw.get("checked", False)) and corrected, bool(mw.get("passed", True)),
                       value=ne, limit=mw.get("limit"),
                       note="nₑ must exceed McWhirter's bound" + ("" if corrected else
                            " (refuses self-absorption-fitted solutions only; else the flag "
                            "lte_mcwhirter_failed)")))
-    out.append(species_t_check(T, u_T, species, settings.t_species_tolerance))
+    st = species_t_check(T, u_T, species, settings.t_species_tolerance)
+    st["refuses"] = corrected  # without a slab model a disagreement is reported, not refused
+    out.append(st)
     lo, hi = settings.plausible_ne_cm3
     out.append(_check("ne_plausible", True, lo <= ne <= hi, value=ne, limit=[lo, hi]))
     length = sa_info.get("plasma_length_mm")
@@ -95,6 +104,16 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
                           note="fitted length of the self-absorbing slab (mm)"))
     else:
         out.append(_check("slab_length", False, True, note="no slab length fitted"))
+    if thin is not None:
+        d = abs(thin["temperature_k"] / T - 1.0)
+        u = thin["u_temperature_k"] / T
+        out.append(_check("thin_lines_temperature", True, not (d > settings.t_species_tolerance and d > 3.0 * u),
+                          value=thin["temperature_k"], limit=settings.t_species_tolerance,
+                          note=f"{thin['n_lines']} nearly thin lines alone give {thin['temperature_k']:.0f} "
+                               f"± {thin['u_temperature_k']:.0f} K against {T:.0f} K"))
+    else:
+        out.append(_check("thin_lines_temperature", False, True,
+                          note="self-absorption fits with ≥ 3 nearly thin lines only"))
     birge = (fit or {}).get("birge_ratio")
     if corrected and birge is not None:
         out.append(_check("fit_quality", True, birge <= settings.max_birge_ratio, value=birge,
@@ -103,7 +122,7 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
                                "describe the lines"))
     else:
         out.append(_check("fit_quality", False, True, note="checked for self-absorption fits only"))
-    failed = [c["check"] for c in out if c["checked"] and not c["passed"]]
+    failed = [c["check"] for c in out if c["checked"] and not c["passed"] and c["refuses"]]
     return out, failed
 
 
