@@ -77,6 +77,7 @@ def test_single_noise_line_does_not_hijack_the_closure():
         for e, w in without_mn(W_MN).items():  # the others close without Mn, at the truth
             assert r.element(e).mass_fraction == pytest.approx(w, rel=1e-6)
         assert r.temperature_k == pytest.approx(T0, rel=1e-6)
+        assert "closure_incomplete" in r.flags  # Mn's true share is missing from the closure
     # with rule 1 off, the reason is the non-detections: the 279.482 resonance line predicted
     # far above its limit
     assert "non-detection" in " ".join(mn.reasons)

@@ -1213,6 +1213,11 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
             undetermined[e] = [why + "; kept in the closure, its value not reported"]
     for e, why in undetermined.items():
         a.undetermined[e] = list(dict.fromkeys(why))
+    gone = sorted(e for e in undetermined if e not in set(a.L.element))
+    if gone:  # their share is missing from the closure: every other value is an upper estimate
+        a.flags.append("closure_incomplete")
+        a._warn("closure without " + ", ".join(gone) + " (not determined): the other mass fractions "
+                "are too high by their share")
     a.rejected = rejected
     a.upper_limit_checks = list(limits.values())
     return a

@@ -8,7 +8,7 @@ Rules (docs/calibration-free.md §5a), applied between the fit and the closure b
    ``single_line_min_snr`` (default 10, the 10σ quantification limit of Currie 1968, *Anal.
    Chem.* 40, 586).  Otherwise it is *not determined*: its value is not reported; it stays in
    the closure (so the others are not biased by its absence) only while no non-detection
-   contradicts it and its estimate stays below ``weak_element_closure_max`` (a judgement:
+   contradicts it and its estimate stays below ``weak_element_closure_max`` (0.2; a judgement:
    a weak signal cannot carry a major element); else it is removed from the closure.
 2. **Outliers** (:func:`outlier_lines`): after the joint fit, a line whose ordinate departs
    from the fitted plasma by more than ``outlier_sigma`` standard deviations is rejected (one

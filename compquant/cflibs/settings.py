@@ -65,7 +65,7 @@ class CFSettings:
     elements_by_sample: dict[str, list[str]] = field(default_factory=dict)
     min_lines_per_element: int = 2
     single_line_min_snr: float = 10.0
-    weak_element_closure_max: float = 0.05
+    weak_element_closure_max: float = 0.2
     outlier_sigma: float = 4.0
     upper_limit_sigma: float = 3.0
     collapsed_fwhm_fraction: float = 0.5
