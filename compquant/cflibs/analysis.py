@@ -907,10 +907,13 @@ class _Analysis:
             self.sa_info.setdefault("note", "")
         ne_estimates = self._ne_estimates(T)
         species_rows = self._species_rows(sol)
-        checks, failed = plasma_checks(T=T, u_T=u_T, ne=ne, u_ln_ne=u_ne / ne if ne > 0 else float("nan"),
+        # the temperature checks compare line sets of one solution: the joint T's own fit u, not
+        # the Monte Carlo u that also carries the model inputs those line sets share
+        checks, failed = plasma_checks(T=T, u_T=u_T_fit, ne=ne, u_ln_ne=u_ne / ne if ne > 0 else float("nan"),
                                        ne_used=self.ne_name, ne_estimates=ne_estimates, lte=lte.to_dict(),
                                        species=species_rows, sa_info=self.sa_info, settings=s,
-                                       fit={"birge_ratio": float(fit.birge[0]) if dof > 0 else None},
+                                       fit={"birge_ratio": float(fit.birge[0]) if dof > 0 else None,
+                                            "p_value": p},
                                        thin=self.thin_subset_temperature())
         if any(c["check"] == "species_temperatures" and c["checked"] and not c["passed"] for c in checks):
             self.flags.append("species_temperatures_disagree")

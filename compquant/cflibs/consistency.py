@@ -23,11 +23,11 @@ refuses makes the sample's
   plasmas at the usual delays: 10¹⁴–10¹⁹ cm⁻³);
 * ``thin_lines_temperature`` — for the self-absorption fits, the lines that the fit itself
   finds nearly thin (SA ≥ ``sa_flag_below``) are fitted alone (same nₑ route): their T must
-  agree with the solution's within ``t_species_tolerance`` or 3 u — evidence that does not
-  rest on the slab model;
-* ``fit_quality`` — for the self-absorption fits, χ²/ν (Birge ratio) of the self-absorbed
-  model at most ``max_birge_ratio``: a model that leaves the lines scattered far beyond their
-  uncertainties has not found the plasma;
+  agree with the solution's within ``t_thin_tolerance`` (3 %) or 2 u — evidence that does
+  not rest on the slab model;
+* ``fit_quality`` — for the self-absorption fits, the χ² p-value of the self-absorbed model
+  at least ``sa_fit_p_min`` (0.001, the ``cf_fit_poor`` limit): a model that leaves the lines
+  scattered far beyond their uncertainties has not found the plasma;
 * ``slab_length`` — for the self-absorption fits, the slab length inside
   ``plausible_length_mm`` (common practice: LIBS plumes are 0.1–few mm) and not at the
   search bound.
@@ -107,19 +107,18 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
     if thin is not None:
         d = abs(thin["temperature_k"] / T - 1.0)
         u = thin["u_temperature_k"] / T
-        out.append(_check("thin_lines_temperature", True, not (d > settings.t_species_tolerance and d > 3.0 * u),
-                          value=thin["temperature_k"], limit=settings.t_species_tolerance,
+        out.append(_check("thin_lines_temperature", True, not (d > settings.t_thin_tolerance and d > 2.0 * u),
+                          value=thin["temperature_k"], limit=settings.t_thin_tolerance,
                           note=f"{thin['n_lines']} nearly thin lines alone give {thin['temperature_k']:.0f} "
                                f"± {thin['u_temperature_k']:.0f} K against {T:.0f} K"))
     else:
         out.append(_check("thin_lines_temperature", False, True,
                           note="self-absorption fits with ≥ 3 nearly thin lines only"))
-    birge = (fit or {}).get("birge_ratio")
-    if corrected and birge is not None:
-        out.append(_check("fit_quality", True, birge <= settings.max_birge_ratio, value=birge,
-                          limit=settings.max_birge_ratio,
-                          note="χ²/ν of the self-absorbed model: above the limit the model does not "
-                               "describe the lines"))
+    p = (fit or {}).get("p_value")
+    if corrected and p is not None and p == p:
+        out.append(_check("fit_quality", True, p >= settings.sa_fit_p_min, value=p, limit=settings.sa_fit_p_min,
+                          note=f"χ² p-value of the self-absorbed model (χ²/ν = {(fit or {}).get('birge_ratio')}): "
+                               "below the limit the model does not describe the lines"))
     else:
         out.append(_check("fit_quality", False, True, note="checked for self-absorption fits only"))
     failed = [c["check"] for c in out if c["checked"] and not c["passed"] and c["refuses"]]

@@ -73,7 +73,8 @@ class CFSettings:
     # plausibility of the plasma solution (§4a)
     ne_agreement_factor: float = 2.0
     t_species_tolerance: float = 0.07
-    max_birge_ratio: float = 5.0
+    t_thin_tolerance: float = 0.03
+    sa_fit_p_min: float = 0.001
     plausible_length_mm: list[float] = field(default_factory=lambda: [0.01, 5.0])
     plausible_ne_cm3: list[float] = field(default_factory=lambda: [1.0e14, 1.0e19])
     # Monte Carlo inputs beyond intensities and A_ki (§8)
@@ -153,7 +154,7 @@ _FLOAT_POS = {"ne_fixed_u_rel", "u_rel_fwhm", "h_alpha_relation_u_rel", "stark_p
               "u_rel_floor", "t_start_k", "t_min_k", "t_max_k", "lte_f", "lte_gaunt",
               "lte_transient_ratio", "lte_diffusion_ratio", "single_line_min_snr", "outlier_sigma",
               "upper_limit_sigma", "ne_agreement_factor", "t_species_tolerance",
-              "max_birge_ratio"}
+              "t_thin_tolerance", "sa_fit_p_min"}
 _FLOAT_POS_OPT = {"ne_fixed_cm3", "plasma_length_mm", "gradient_length_mm", "resolving_power",
                   "stark_fallback_fwhm_nm", "stark_fallback_ne_cm3", "max_line_fwhm_nm"}
 _FLOAT_NONNEG_OPT = {"instrument_fwhm_nm"}
