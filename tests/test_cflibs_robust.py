@@ -311,3 +311,21 @@ def test_result_json_round_trip_keeps_the_new_state():
     back = CFResult.from_json(r.to_json())
     assert back.not_determined() == r.not_determined() and back.plasma_consistent == r.plasma_consistent
     assert isinstance(pd.DataFrame(back.upper_limits), pd.DataFrame)
+
+
+def test_run_intensity_basis_from_method_and_run():
+    from types import SimpleNamespace as NS
+
+    from compquant.cflibs import run_intensity_basis
+
+    def method(response=True, file=None):
+        return NS(preprocess=NS(response=response, response_file=file))
+
+    def run(resp=True, basis=None):
+        return NS(response=lambda: np.ones(3) if resp else None, response_basis=basis)
+
+    assert run_intensity_basis(method(), run(basis="photon")) == "photon"
+    assert run_intensity_basis(method(), run(basis=None)) == "unknown"  # refused by analyse_cf
+    assert run_intensity_basis(method(file="resp.csv"), run(basis="energy")) == "unknown"
+    assert run_intensity_basis(method(response=False), run(basis=None)) is None
+    assert run_intensity_basis(method(), run(resp=False)) is None

@@ -1226,6 +1226,22 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     return a
 
 
+def run_intensity_basis(method, run) -> str | None:
+    """Basis of a run's response-corrected line intensities, for ``analyse_cf(intensity_basis=...)``:
+    ``"photon"``, ``"energy"``, ``None`` (no response correction: counts, taken as compquant's
+    energy convention) or ``"unknown"``
+    (a response is applied whose basis nobody recorded — refused by the analysis unless
+    ``[cf] response_basis`` says it)."""
+    pre = method.preprocess
+    if not pre.response:
+        return None
+    if pre.response_file:
+        return "unknown"
+    if run.response() is None:
+        return None
+    return run.response_basis or "unknown"
+
+
 def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unknown", "check"),
                        **kwargs) -> tuple[list[CFResult], dict[str, str]]:
     """Run :func:`analyse_cf` for several samples; returns ``(results, failures)``.
@@ -1249,4 +1265,4 @@ def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unk
     return results, failures
 
 
-__all__ = ["CFWarning", "analyse_cf", "analyse_cf_samples", "species_name", "LineSet"]
+__all__ = ["CFWarning", "LineSet", "analyse_cf", "analyse_cf_samples", "run_intensity_basis", "species_name"]

@@ -59,7 +59,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
     comes from H-alpha, Stark widths or the Saha balance, LTE criteria are checked, self-absorption
     is detected (and corrected if [cf] asks), and closure gives mass fractions with Monte Carlo
     uncertainty (U = 2u). One-point calibration with a certified standard when [cf] names one."""
-    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table
+    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table, run_intensity_basis
     from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
     from compquant.errors import CompquantError
     from compquant.lines import measure_run
@@ -75,7 +75,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         acquisition, instrument = dict(run.acquisition or {}), dict(run.instrument or {})
         sample_table = run.samples.copy()
         run_sha = run.sha256()
-        basis = response_basis(method, run)
+        basis = run_intensity_basis(method, run)
     table = lm.table
     known = list(dict.fromkeys(table["sample_id"].astype(str)))
     if samples:
@@ -151,17 +151,3 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         raise DataQualityError(f"no sample gave a calibration-free result; {first[0]}: {first[1]}{more}",
                                where=str(run_path), fix="see the reason; fix the lines, [cf] or the run")
 
-
-def response_basis(method, run) -> str | None:
-    """Basis of the response-corrected line intensities: ``"photon"``, ``"energy"``, ``None``
-    (no response correction: counts, taken as compquant's energy convention) or ``"unknown"``
-    (a response is applied whose basis nobody recorded — refused by the analysis unless
-    ``[cf] response_basis`` says it)."""
-    pre = method.preprocess
-    if not pre.response:
-        return None
-    if pre.response_file:
-        return "unknown"
-    if run.response() is None:
-        return None
-    return run.response_basis or "unknown"
