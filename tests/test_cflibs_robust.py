@@ -83,6 +83,12 @@ def test_single_noise_line_does_not_hijack_the_closure():
     assert "non-detection" in " ".join(mn.reasons)
     ul = {c["line_id"]: c for c in r.upper_limits}
     assert ul["Mn I 279.482"]["contradicted"] and ul["Mn I 279.482"]["ratio"] > 100
+    # the missing share is bounded by the non-detections (here above the true 0.0005, below
+    # 2 %), and every other element's U carries it
+    rm = run(lt, single_line_min_snr=3.0, mc_draws=100, mc_include_aki=False, mc_partition_u_rel=0.0)
+    bound = rm.monte_carlo["missing_share_bound"]["Mn"]
+    assert W_MN["Mn"] <= bound < 0.02
+    assert rm.element("Fe").u >= 0.6995 * bound / math.sqrt(3.0)
 
 
 def test_single_strong_line_consistent_with_nondetections_is_used():

@@ -861,6 +861,13 @@ class _Analysis:
             self.flags.append("no_concentration_uncertainty")
         wfrac, closure_sum = self._apply_fixed(sol.mass_fraction, sol.elements)
         wfrac = wfrac[0]
+        share = float(sum(getattr(self, "missing_share", {}).values()))
+        if share > 0 and not fixed_el and mc_ok:
+            # elements removed from the closure: the others are high by their share, at most
+            # `share`; rectangular over [0, share] read with half-width `share` (GUM 4.3.7),
+            # a conservative term added to every u
+            u_w = np.sqrt(u_w**2 + (wfrac * share / math.sqrt(3.0)) ** 2)
+            mc["missing_share_bound"] = dict(self.missing_share)
         # LTE
         dE = float(np.max(L.ek - L.ei))
         lte = check_lte(T, ne, dE, gate_delay_s=_gate_delay_s(self.acq),
@@ -1164,6 +1171,22 @@ def analyse_cf(
     return a.build(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
 
 
+def _missing_share_bound(e, w_est, checks, s) -> float:
+    """Upper bound (g/g) of the share of an element removed from the closure.
+
+    Contradicted non-detections scale the element's estimate down by its largest
+    predicted/limit ratio (its content cannot exceed what keeps every non-detected line below
+    its limit; the estimate is scaled relative to the rest of the sample, w/(1 − w), as the
+    closure does); otherwise (a weak element removed for its size) ``weak_element_closure_max``.
+    """
+    ratios = [c["ratio"] for c in checks if c["element"] == e and c["contradicted"]]
+    if ratios and 0.0 < w_est < 1.0:
+        # the lines scale with the element's content relative to the rest of the sample
+        x = w_est / (1.0 - w_est) / max(ratios)
+        return float(x / (1.0 + x))
+    return float(s.weak_element_closure_max)
+
+
 def _intensity_basis(s, given, where) -> str:
     """Basis of the line intensities: ``[cf] response_basis`` wins over the run's attribute.
 
@@ -1184,6 +1207,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     undetermined: dict[str, list[str]] = {}
     rejected: list[dict] = []
     limits: dict[str, dict] = {}  # non-detection checks of every round (dropped elements keep theirs)
+    missing: dict[str, float] = {}  # upper bound of the share of each element removed from the closure
     elements = s.elements_for(sid)
     for _ in range(12):
         a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where,
@@ -1209,6 +1233,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
             undetermined.setdefault(e, []).append(why)
             for lid in a.L.line_id[a.L.element == e]:
                 drop[str(lid)] = f"element {e} not determined (non-detections)"
+            missing[e] = _missing_share_bound(e, w_now.get(e, 0.0), a.upper_limit_checks, s)
     else:
         a._warn("robust closure did not settle in 12 rounds")
     for e, why in few.items():
@@ -1219,8 +1244,10 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     gone = sorted(e for e in undetermined if e not in set(a.L.element))
     if gone:  # their share is missing from the closure: every other value is an upper estimate
         a.flags.append("closure_incomplete")
+        a.missing_share = {e: missing[e] for e in gone if e in missing}
         a._warn("closure without " + ", ".join(gone) + " (not determined): the other mass fractions "
-                "are too high by their share")
+                "are too high by their share, at most " + ", ".join(
+                    f"{e} {v:.3g}" for e, v in a.missing_share.items()) + " g/g (in their U)")
     a.rejected = rejected
     a.upper_limit_checks = list(limits.values())
     return a
