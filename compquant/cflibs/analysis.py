@@ -817,22 +817,13 @@ class _Analysis:
         return sol
 
     # -- result --------------------------------------------------------------------------
-    def build(self, mc_draws, seed) -> CFResult:
-        s, L, sol = self.s, self.L, self.sol
-        T = float(sol.T[0])
-        ne = float(sol.ne[0])
-        k_b = K_B_EV
-        u_T_fit = float(sol.u_slope[0] / (k_b * sol.slope[0] ** 2))
-        if sol.ne_from_fit:
-            u_ln_ne_c = float(sol.u_ln_ne_fit[0])
-        else:
-            u_ln_ne_c = float(self.ne_est.u_ln(np.array([T])))
+    def _mc_summary(self, mc_draws, seed, u_T, u_ne):
+        """Monte Carlo standard deviations and intervals: ``(u_T, u_ne, u_w, u_x, summary, ok)``."""
+        s, sol = self.s, self.sol
         mc = {"draws": int(mc_draws), "seed": int(seed), "aki_perturbed": bool(s.mc_include_aki)}
         u_w = np.full(len(sol.elements), np.nan)
         u_x = np.full(len(sol.elements), np.nan)
-        u_T, u_ne = u_T_fit, ne * u_ln_ne_c
         mc_ok = mc_draws >= 10
-        fixed_el = next(iter(s.fixed), None)
         if mc_ok:
             msol = self.monte_carlo(mc_draws, seed)
             v = msol.valid
@@ -856,6 +847,20 @@ class _Analysis:
                 )
             else:
                 mc_ok = False
+        return u_T, u_ne, u_w, u_x, mc, mc_ok
+
+    def build(self, mc_draws, seed) -> CFResult:
+        s, L, sol = self.s, self.L, self.sol
+        T = float(sol.T[0])
+        ne = float(sol.ne[0])
+        k_b = K_B_EV
+        u_T_fit = float(sol.u_slope[0] / (k_b * sol.slope[0] ** 2))
+        if sol.ne_from_fit:
+            u_ln_ne_c = float(sol.u_ln_ne_fit[0])
+        else:
+            u_ln_ne_c = float(self.ne_est.u_ln(np.array([T])))
+        fixed_el = next(iter(s.fixed), None)
+        u_T, u_ne, u_w, u_x, mc, mc_ok = self._mc_summary(mc_draws, seed, u_T_fit, ne * u_ln_ne_c)
         if not mc_ok:
             mc["note"] = "no Monte Carlo: u from the fit covariance for T and nₑ only"
             self.flags.append("no_concentration_uncertainty")
@@ -914,6 +919,34 @@ class _Analysis:
             self.sa_info.setdefault("note", "")
         ne_estimates = self._ne_estimates(T)
         species_rows = self._species_rows(sol)
+        checks, failed, ne_agreement = self._certify(T, u_T_fit, ne, u_ne, ne_estimates, lte, species_rows,
+                                                     elements, p, fit, dof)
+        return CFResult(
+            sample_id=self.sample_id, temperature_k=T, u_temperature_k=float(u_T),
+            electron_density_cm3=ne, u_electron_density_cm3=float(u_ne),
+            ne_method={"saha": "saha_balance", "h_alpha": "h_alpha_stark_width",
+                       "stark": "stark_widths", "fixed": "fixed"}[self.ne_name],
+            fit_mode=s.fit, elements=elements, ne_estimates=ne_estimates, lte=lte.to_dict(),
+            species=species_rows, lines=lines, excluded_lines=list(self.excluded),
+            self_absorption=dict(self.sa_info),
+            fit={"mode": s.fit, "slope_per_ev": float(sol.slope[0]), "u_slope_per_ev": float(sol.u_slope[0]),
+                 "u_temperature_fit_k": u_T_fit, "chi2": chi2, "dof": dof, "p_value": p,
+                 "birge_ratio": float(fit.birge[0]) if dof > 0 else None,
+                 "groups": [str(g) for g in sol.groups],
+                 "intercepts": [float(x) for x in fit.beta[0, 1:1 + len(sol.groups)]],
+                 "iterations": sol.iterations, "closure_sum": float(closure_sum[0])},
+            monte_carlo=mc,
+            one_point=None if self.one_point is None else self.one_point.summary(),
+            flags=list(dict.fromkeys(self.flags)), warnings=list(self.warnings),
+            settings=s.to_dict(), plasma_consistent=not failed, plasma_checks=checks,
+            rejected_lines=list(self.rejected), upper_limits=list(self.upper_limit_checks),
+            ne_agreement=ne_agreement, intensity_basis=self.basis,
+        )
+
+    def _certify(self, T, u_T_fit, ne, u_ne, ne_estimates, lte, species_rows, elements, p, fit, dof):
+        """Plasma checks (§4a); a failed one un-determines every element. Returns
+        ``(checks, failed, ne_agreement)``."""
+        s = self.s
         # the temperature checks compare line sets of one solution: the joint T's own fit u, not
         # the Monte Carlo u that also carries the model inputs those line sets share
         checks, failed = plasma_checks(T=T, u_T=u_T_fit, ne=ne, u_ln_ne=u_ne / ne if ne > 0 else float("nan"),
@@ -940,27 +973,7 @@ class _Analysis:
                                     "used": x.get("used")} for x in ne_estimates],
                         "compared": route["checked"], "consistent": route["passed"],
                         "max_ratio": route["value"], "note": route["note"]}
-        return CFResult(
-            sample_id=self.sample_id, temperature_k=T, u_temperature_k=float(u_T),
-            electron_density_cm3=ne, u_electron_density_cm3=float(u_ne),
-            ne_method={"saha": "saha_balance", "h_alpha": "h_alpha_stark_width",
-                       "stark": "stark_widths", "fixed": "fixed"}[self.ne_name],
-            fit_mode=s.fit, elements=elements, ne_estimates=ne_estimates, lte=lte.to_dict(),
-            species=species_rows, lines=lines, excluded_lines=list(self.excluded),
-            self_absorption=dict(self.sa_info),
-            fit={"mode": s.fit, "slope_per_ev": float(sol.slope[0]), "u_slope_per_ev": float(sol.u_slope[0]),
-                 "u_temperature_fit_k": u_T_fit, "chi2": chi2, "dof": dof, "p_value": p,
-                 "birge_ratio": float(fit.birge[0]) if dof > 0 else None,
-                 "groups": [str(g) for g in sol.groups],
-                 "intercepts": [float(x) for x in fit.beta[0, 1:1 + len(sol.groups)]],
-                 "iterations": sol.iterations, "closure_sum": float(closure_sum[0])},
-            monte_carlo=mc,
-            one_point=None if self.one_point is None else self.one_point.summary(),
-            flags=list(dict.fromkeys(self.flags)), warnings=list(self.warnings),
-            settings=s.to_dict(), plasma_consistent=not failed, plasma_checks=checks,
-            rejected_lines=list(self.rejected), upper_limits=list(self.upper_limit_checks),
-            ne_agreement=ne_agreement, intensity_basis=self.basis,
-        )
+        return checks, failed, ne_agreement
 
     def _undetermined_rows(self, sol, fixed_el):
         """Rows of requested, fixed, rejected or all-lines-failed elements not in the closure."""
