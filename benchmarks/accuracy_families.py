@@ -275,17 +275,17 @@ def print_tables(scores):
     f = "{:.0f}".format
     g = "{:.2g}".format
     tables = [
-        ("T", ["certified / results / samples", "T within 2 % (%)", "median |ΔT/T| (%)", "U(T) coverage (%)"],
+        ("T", ["certified / results / samples", "T within 2 % (%)", "median \\|ΔT/T\\| (%)", "U(T) coverage (%)"],
          [lambda s: f"{s['results'] - s['uncertified']} / {s['results']} / {s['n']}",
           lambda s: f(s["T_within"]), lambda s: g(s["T_median"]),
           lambda s: f(s["cov_T"])]),
-        ("nₑ", ["nₑ within 15 % (%)", "median |Δnₑ/nₑ| (%)", "U(nₑ) coverage (%)", "not certified"],
+        ("nₑ", ["nₑ within 15 % (%)", "median \\|Δnₑ/nₑ\\| (%)", "U(nₑ) coverage (%)", "not certified"],
          [lambda s: f(s["ne_within"]), lambda s: g(s["ne_median"]), lambda s: f(s["cov_ne"]),
           lambda s: str(s["uncertified"])]),
-        ("majors", ["n", "within 2 % thin / 5 % SA (%)", "median |Δw/w| (%)", "U coverage (%)"],
+        ("majors", ["n", "within 2 % thin / 5 % SA (%)", "median \\|Δw/w\\| (%)", "U coverage (%)"],
          [lambda s: str(s["n_maj"]), lambda s: f(s["maj_within"]), lambda s: g(s["maj_median"]),
           lambda s: f(s["cov_maj"])]),
-        ("minors", ["n", "within 10 % (%)", "median |Δw/w| (%)", "U coverage (%)", "not determined"],
+        ("minors", ["n", "within 10 % (%)", "median \\|Δw/w\\| (%)", "U coverage (%)", "not determined"],
          [lambda s: str(s["n_min"]), lambda s: f(s["min_within"]), lambda s: g(s["min_median"]),
           lambda s: f(s["cov_min"]), lambda s: str(s["not_determined"])]),
     ]
