@@ -99,7 +99,8 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         ref = sample_table.set_index(sample_table["sample_id"].astype(str)).loc[sid].get("standard_ref") or sid
         cert = _certified(method.resolve_path(settings.standards_file), str(ref))
         one_point = one_point_calibration(table, cert, sample_id=sid, settings=settings,
-                                          acquisition=acquisition, instrument=instrument)
+                                          acquisition=acquisition, instrument=instrument,
+                                          intensity_basis=basis)
     results, failures = [], {}
     for sid in ids:
         try:
