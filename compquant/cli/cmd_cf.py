@@ -59,7 +59,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
     comes from H-alpha, Stark widths or the Saha balance, LTE criteria are checked, self-absorption
     is detected (and corrected if [cf] asks), and closure gives mass fractions with Monte Carlo
     uncertainty (U = 2u). One-point calibration with a certified standard when [cf] names one."""
-    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table
+    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table, run_intensity_basis
     from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
     from compquant.errors import CompquantError
     from compquant.lines import measure_run
@@ -75,6 +75,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         acquisition, instrument = dict(run.acquisition or {}), dict(run.instrument or {})
         sample_table = run.samples.copy()
         run_sha = run.sha256()
+        basis = run_intensity_basis(method, run)
     table = lm.table
     known = list(dict.fromkeys(table["sample_id"].astype(str)))
     if samples:
@@ -98,7 +99,8 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         ref = sample_table.set_index(sample_table["sample_id"].astype(str)).loc[sid].get("standard_ref") or sid
         cert = _certified(method.resolve_path(settings.standards_file), str(ref))
         one_point = one_point_calibration(table, cert, sample_id=sid, settings=settings,
-                                          acquisition=acquisition, instrument=instrument)
+                                          acquisition=acquisition, instrument=instrument,
+                                          intensity_basis=basis)
     results, failures = [], {}
     for sid in ids:
         try:
@@ -106,7 +108,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                 warnings.simplefilter("ignore")
                 results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
                                           instrument=instrument, one_point=one_point, mc_draws=draws,
-                                          seed=seed))
+                                          seed=seed, intensity_basis=basis))
         except CompquantError as exc:
             failures[sid] = exc.one_line()
     if failures and not results:  # before anything is written; the reasons in the line itself
@@ -140,11 +142,11 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
             plot_boltzmann(r, p1)
             plot_saha_boltzmann(r, p2)
             written += [str(p1), str(p2)]
+    for sid, why in failures.items():  # on stderr even with --quiet: a failure is never silent
+        click.echo(terminal_text(f"no result for {sid}: {why}"), err=True)
     if not quiet:
         if results:
             click.echo(_screen(results))
-        for sid, why in failures.items():
-            click.echo(terminal_text(f"no result for {sid}: {why}"), err=True)
         for r in results:
             for w in r.warnings:
                 click.echo(terminal_text(f"note: {r.sample_id}: {w}"))

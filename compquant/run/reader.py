@@ -326,6 +326,9 @@ class Run:
             self._response_values = self._read_response()
         ins = self._need("instrument", h5py.Group, required=False)
         self.instrument = _attrs(ins) if ins is not None else {}
+        #: "photon" | "energy" | None (not recorded): basis of the response-corrected spectrum
+        basis = None if self._response is None else self._response.attrs.get("basis")
+        self.response_basis = None if basis is None else (basis.decode() if isinstance(basis, bytes) else str(basis))
         self.instrument.pop("NX_class", None)
         acq = self._need("acquisition", h5py.Group, required=False)
         self.acquisition = _attrs(acq) if acq is not None else {}

@@ -85,7 +85,8 @@ class RunWriter:
                  pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
                  instrument: Mapping | None = None, acquisition: Mapping | None = None,
                  medium: str = "air", compression: str | None = "gzip", compression_opts: int | None = 4,
-                 created: str | None = None, pixel_mask=None, masked_ranges=(), sentinels=()):
+                 created: str | None = None, pixel_mask=None, masked_ranges=(), sentinels=(),
+                 response_basis: str | None = None):
         self.path = Path(path)
         where = str(self.path)
         self.wavelength = np.asarray(wavelength, dtype=np.float64)
@@ -125,6 +126,10 @@ class RunWriter:
         if self.response is not None and self.response.shape != (self.n_pixels,):
             raise RunFormatError(f"'response' has shape {self.response.shape}, expected ({self.n_pixels},)",
                                  where=where, fix="give one response value per pixel")
+        if response_basis not in (None, "photon", "energy"):
+            raise RunFormatError(f"response_basis {response_basis!r} is not 'photon' or 'energy'", where=where,
+                                 fix="say whether the response converts counts to photon or energy radiance")
+        self.response_basis = response_basis
         self.saturation = saturation
         self.exposure_s = exposure_s
         self.dark_exposure_s = dark_exposure_s
@@ -195,6 +200,8 @@ class RunWriter:
         if self.response is not None:
             r = f.create_dataset("response", data=self.response)
             r.attrs["units"] = "relative"
+            if self.response_basis is not None:
+                r.attrs["basis"] = self.response_basis
         g = f.create_group("shots")
         g.attrs["NX_class"] = "NXcollection"
         g.create_dataset("sample_index", data=self.sample_index.astype(np.int32))
@@ -251,7 +258,7 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
               dark_exposure_s=None, pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
               instrument: Mapping | None = None, acquisition: Mapping | None = None, medium: str = "air",
               dtype=None, compression: str | None = "gzip", created: str | None = None, pixel_mask=None,
-              masked_ranges=(), sentinels=()) -> Path:
+              masked_ranges=(), sentinels=(), response_basis: str | None = None) -> Path:
     """Write a whole run to ``path`` atomically and return the path.
 
     Parameters
@@ -262,6 +269,8 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
     sample_index : (n_shots,) int array, row of ``samples`` for each shot
     dark : (n_dark, n_pixels) array, optional dark frames
     response : (n_pixels,) relative spectral response, optional
+    response_basis : ``"photon"`` or ``"energy"``: whether the response-corrected spectrum is
+        photon or energy radiance (stored as the response dataset's ``basis`` attribute)
     saturation : detector saturation level in counts, optional
     dtype : storage dtype (default: that of ``spectra``)
     created : ISO 8601 time stored as the run's creation time (default: now, UTC); give a fixed
@@ -280,7 +289,8 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
                   exposure_s=exposure_s, dark_exposure_s=dark_exposure_s, pulse_energy_mj=pulse_energy_mj,
                   time_s=time_s, x_mm=x_mm, y_mm=y_mm, shot=shot, instrument=instrument,
                   acquisition=acquisition, medium=medium, compression=compression, created=created,
-                  pixel_mask=pixel_mask, masked_ranges=masked_ranges, sentinels=sentinels)
+                  pixel_mask=pixel_mask, masked_ranges=masked_ranges, sentinels=sentinels,
+                  response_basis=response_basis)
     with w:
         w.write_spectra(0, spectra)
     return Path(path)
