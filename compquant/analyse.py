@@ -29,8 +29,15 @@ from pathlib import Path
 import numpy as np
 
 from compquant import __version__
-from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError
-from compquant.fileio import require_file, safe_filename, sha256_file, write_text_atomic
+from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError, OutputError
+from compquant.fileio import (
+    refuse_overwriting_inputs,
+    require_file,
+    safe_filename,
+    sha256_file,
+    write_bytes_atomic,
+    write_text_atomic,
+)
 from compquant.identify.sample import detected_not_quantified
 from compquant.report import (
     Certificate,
@@ -50,12 +57,14 @@ from compquant.report import (
     certificate_number,
     load_lab_profile,
     load_specification,
+    release,
 )
+from compquant.report.certificate import result_set_digest
 from compquant.report.config import LabProfile
 from compquant.report.jsonform import canonical_json, write_certificate_json
 from compquant.report.lims import write_lims_csv
 from compquant.report.numbers import finite
-from compquant.report.pdf import write_pdf
+from compquant.report.pdf import render_pdf_bytes
 
 SUMMARY_SCHEMA = "compquant-run-summary"
 SUMMARY_VERSION = 1
@@ -71,6 +80,9 @@ class CertificateOutput:
     valid_for_release: bool
     conformity: str | None
     results: list[dict] = field(default_factory=list)  # element, value, U, unit, flags (as printed)
+    reasons: list[str] = field(default_factory=list)  # why not valid for release (empty: valid)
+    revision: int = 0
+    supersedes: str = ""
 
 
 @dataclass
@@ -84,8 +96,13 @@ class AnalysisOutput:
     summary_json: str
     calibration_json: str | None
     valid_for_release: bool
-    not_reported: list[dict]
+    not_reported: list[dict]  # every (sample, analyte) without a result, with the reason
     failures: dict
+
+    @property
+    def exit_code(self) -> int:
+        """0 when every certificate is valid for release, else :data:`release.EXIT_NOT_VALID`."""
+        return 0 if self.valid_for_release else release.EXIT_NOT_VALID
 
 
 def _now_utc() -> str:
@@ -106,6 +123,22 @@ def _norm_issued_at(issued_at) -> str:
             f"issue time {s!r} is not ISO 8601", where="issued_at", fix="write e.g. 2026-12-01T21:00:00Z"
         ) from exc
     return _norm_issued_at(t)
+
+
+def _measurement_times(run, samples, measured) -> dict[str, str]:
+    """Per sample, when it was measured: from the run, else from ``measured`` (the user)."""
+    out = {str(sid): assemble.measured_when(run, str(sid)) for sid in samples["sample_id"]}
+    if measured is None:
+        return out
+    given = _norm_issued_at(measured)
+    stated = [t for t in out.values() if t]
+    if stated and min(stated)[:10] != given[:10]:
+        raise ConfigError(
+            f"the run states it was measured on {min(stated)[:10]}, not {given[:10]}",
+            where="measured",
+            fix="leave out --measured: the run's own time is used",
+        )
+    return {sid: (t or given) for sid, t in out.items()}
 
 
 def _default_lab() -> LabProfile:
@@ -149,6 +182,8 @@ def analyse(
     memory_limit_bytes: int | None = None,
     progress=None,
     chunk_mapper=None,
+    measured=None,
+    revise: str | None = None,
 ) -> AnalysisOutput:
     """Run the whole analysis and write the certificates (see the module docstring).
 
@@ -166,6 +201,13 @@ def analyse(
     progress : callable ``(stage, done, total)`` for progress display.
     chunk_mapper : compute the line-measurement chunks elsewhere, e.g. on Dask workers
         (:func:`compquant.parallel.chunk_mapper`); the numbers are the same.
+    measured : start time of the measurement (ISO 8601) for a run that states none (e.g. a
+        converted run); refused when the run states a different day.
+    revise : reason for re-issuing certificates already issued in ``outdir``: each becomes a
+        revision ``-R<n>`` naming the one it supersedes.  Without it such a re-analysis is refused.
+
+    Every certificate is checked against the release rules (:mod:`compquant.report.release`);
+    ``AnalysisOutput.valid_for_release`` / ``exit_code`` say whether all are valid for release.
     """
     modes = sum([standards is not None, calibration is not None, bool(cf)])
     if modes != 1:
@@ -194,6 +236,10 @@ def analyse(
     outdir = Path(outdir)
     if outdir.exists() and not outdir.is_dir():
         raise InputError("output path exists and is not a folder", where=str(outdir), fix="choose a folder")
+    inputs = [p for p in (run_path, method_path, standards, calibration, lab, spec) if p is not None]
+    refuse_overwriting_inputs(
+        [outdir] + [outdir / n for n in ("lims.csv", "summary.json", "calibration.json", MANIFEST)], inputs
+    )
 
     def tick(stage, done, total):
         if progress is not None:
@@ -234,7 +280,7 @@ def analyse(
         tick("measure", total, total)
         instrument = dict(run.instrument or {})
         acquisition = dict(run.acquisition or {})
-        measured = {str(sid): assemble.measured_when(run, str(sid)) for sid in samples["sample_id"]}
+        measured_at = _measurement_times(run, samples, measured)
         technique = assemble.technique(method, run)
         n_shots_by_sample = dict(zip(samples["sample_id"].astype(str), samples["n_shots"].astype(int)))
         mean_spec = dict(getattr(meas, "mean_spectra", {}) or {})
@@ -244,6 +290,7 @@ def analyse(
     table = meas.table
     roles = dict(zip(samples["sample_id"].astype(str), samples["role"].astype(str)))
     descriptions = dict(zip(samples["sample_id"].astype(str), samples["description"].astype(str)))
+    refs = dict(zip(samples["sample_id"].astype(str), samples["standard_ref"].astype(str)))
     unknowns = [s for s in samples["sample_id"].astype(str) if roles[s] == "unknown"]
     if not unknowns:
         raise InputError(
@@ -263,8 +310,8 @@ def analyse(
     plasma_by_sample: dict = {}
     cf_by_sample: dict = {}
     curves = {}
-    run_blocks: list[str] = []
-    deviations: list[str] = []
+    deviations: list[release.Deviation] = release.skipped_steps(meas.provenance.get("notes", []))
+    check_samples = {s: refs.get(s, "") for s in samples["sample_id"].astype(str) if roles[s] == "check"}
     parameters: dict = {"basis": basis, "issued_at": issued, "method_settings_sha256": method.settings_digest()}
     if chunk_shots:
         parameters["chunk_shots"] = int(chunk_shots)
@@ -282,12 +329,21 @@ def analyse(
             instrument=instrument,
         )
         results = results_table(cf_results)
+        analytes = _cf_analytes(cf_settings, method)
+        not_evaluated = release.checks_not_evaluated(
+            check_samples, {}, analytes, [],
+            why_missing="calibration-free analysis does not compare check samples with certified values; "
+            "evaluate it with --standards",
+        )
         for res in cf_results:
             cf_by_sample[str(res.sample_id)] = res
             plasma_by_sample[str(res.sample_id)] = assemble.plasma_info(res)
         tick("quantify", len(unknowns), len(unknowns))
     else:
+        import pandas as pd
+
         from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
+        from compquant.calibrate.build import certified_table
         from compquant.quantify import quantify
 
         stds = None
@@ -326,15 +382,28 @@ def analyse(
         q = quantify(meas, cal, standards=stds, run_sha256=run_sha, samples=samples)
         tick("quantify", 1, 1)
         results = q.results
-        checks = assemble.check_results(q.checks)
+        checks = assemble.check_results(q.checks, results)
         drift_info = assemble.drift_info(q.drift)
         if calibration is not None and not q.drift.get("applied") and q.drift.get("mode", "optional") != "off":
-            # a saved calibration applied without drift standardisation departs from the method
+            # a saved calibration applied without drift standardisation departs from the method; the
+            # method allows it (drift = "optional"; "required" stops the analysis), so it does not block
             deviations.append(
-                "drift standardisation with setup samples was not possible: "
-                f"{q.drift.get('reason', 'no usable setup measurement')}"
+                release.Deviation(
+                    "drift standardisation with setup samples was not possible: "
+                    f"{q.drift.get('reason', 'no usable setup measurement')} (allowed by the method: drift = "
+                    f"'{q.drift.get('mode', 'optional')}')",
+                    blocks=False,
+                )
             )
+        analytes = _calibration_analytes(cal)
+        certified = certified_table(stds if stds is not None else pd.DataFrame(cal.standards))
+        not_evaluated = release.checks_not_evaluated(check_samples, certified, analytes, checks)
+        spt = (cal.settings or {}).get("sigma_pt_rel")
+        if spt:
+            parameters["sigma_pt_rel"] = float(spt)
         not_reported = list(q.provenance.get("not_reported", []))
+        not_reported += [{"sample_id": "*", "element": el, "reason": f"no calibration curve: {why}"}
+                         for el, why in sorted(cal.rejected.items())]
         matrix_fraction = dict(q.matrix_fraction)
         curves = dict(cal.curves)
         parameters["calibration_id"] = cal.calibration_id
@@ -346,8 +415,8 @@ def analyse(
         files.append(FileRef("lab profile", Path(labp.source).name, labp.sha256))
     if specp is not None:
         files.append(FileRef("specification", Path(specp.path).name, specp.sha256))
+    files += _method_files(method)
 
-    outdir.mkdir(parents=True, exist_ok=True)
     lab_info = LabInfo.from_profile(labp)
     signatory = Signatory(labp.signatory_name, labp.signatory_title)
     client_info = ClientInfo(
@@ -381,62 +450,29 @@ def analyse(
             remarks.append(f"qualitative identification not possible: {exc.what}")
             return []
 
-    certs: list[Certificate] = []
-    outputs: list[CertificateOutput] = []
+    stems = sample_stems(unknowns)  # distinct file names, decided before anything is written
+    dev_texts = [d.text for d in deviations]
+    step_blocks = release.step_reasons(deviations)
+    drafts: list[Certificate] = []
     skipped: list[str] = []
-    used_stems: set[str] = set()
+    missing_all: list[dict] = []
     for i, sid in enumerate(unknowns):
         tick("certificates", i, len(unknowns))
         rows = assemble.result_rows(results, sid)
-        remarks = []
-        if matrix_el and sid in matrix_fraction and matrix_el not in {r.element for r in rows}:
-            w, uw = matrix_fraction[sid]
-            if finite(w):
-                rows.append(
-                    ResultRow(
-                        matrix_el,
-                        float(w),
-                        U=2.0 * float(uw),
-                        u=float(uw),
-                        k=2.0,
-                        flags=["by_difference"] + (["check_failed"] if any(not c.passed for c in checks) else []),
-                        line_id="by difference",
-                        basis=basis,
-                    )
-                )
-        for nr in not_reported:
-            if str(nr.get("sample_id")) == sid:
-                remarks.append(f"{nr.get('element')} not reported: {nr.get('reason')}")
-        blocks = list(run_blocks)
-        if not rows:
+        nr_sid = [nr for nr in not_reported if str(nr.get("sample_id")) in (sid, "*")]
+        missing = release.analytes_not_reported(analytes, rows, nr_sid)
+        missing_all += [{"sample_id": sid, "element": el, "reason": why} for el, why in missing.items()]
+        if not any(r.below_lod or finite(r.mass_fraction) for r in rows):
             # nothing to certify: no certificate, the reason goes to the summary and the terminal
             failures.setdefault(sid, "no element could be quantified for this sample")
             skipped.append(sid)
             continue
-        number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date)
-        stem = safe_filename(sid)
-        if stem.lower() in used_stems or stem.lower() in ("lims", "summary", "calibration"):
-            stem = f"{stem}-{len(used_stems) + 1}"  # never overwrite another sample's files
-        used_stems.add(stem.lower())
-        figs = []
-        if figures:
-            figs = assemble.sample_figures(
-                sid,
-                stem,
-                outdir,
-                wavelength,
-                mean_spec,
-                lines_marked,
-                curves,
-                rows,
-                matrix_fraction.get(sid, (None, None))[0],
-                cf_by_sample.get(sid),
-                run_path,
-                method,
-            )
-        conf = assess_conformity(specp, rows) if specp is not None else None
+        rows = _complete_rows(rows, missing, matrix_el, matrix_fraction.get(sid), checks, basis, curves)
+        remarks = [f"{el} not reported: {why}" for el, why in missing.items()]
+        if lab is None:
+            remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
         cert = Certificate(
-            number=number,
+            number="",
             issue_date=issue_date,
             lab=lab_info,
             signatory=signatory,
@@ -447,7 +483,7 @@ def analyse(
                 descriptions.get(sid, ""),
                 labp.sample_condition,
                 received if received else labp.sample_received,
-                measured.get(sid, ""),
+                measured_at.get(sid, ""),
                 n_shots_by_sample.get(sid),
                 run_path.name,
             ),
@@ -455,36 +491,21 @@ def analyse(
             provenance=Provenance("compquant", __version__, issued, run_sha, list(files), dict(parameters)),
             calibration=cal_info,
             plasma=plasma_by_sample.get(sid),
-            qc=QCInfo(drift_info, checks, assemble.blank_text(curves)),
-            conformity=conf,
-            detected_not_quantified=_not_quantified(sid, {r.element for r in rows}, remarks),
-            figures=figs,
-            deviations=list(deviations),
+            qc=QCInfo(drift_info, checks, assemble.blank_text(curves), not_evaluated=list(not_evaluated)),
+            conformity=assess_conformity(specp, rows) if specp is not None else None,
+            detected_not_quantified=_not_quantified(sid, {r.element for r in rows if r.line_id != "by difference"},
+                                                    remarks),
+            deviations=list(dev_texts),
             remarks=remarks,
-            release_blocks=blocks,
+            release_blocks=release.analyte_reasons(missing, matrix_el) + step_blocks,
         )
-        if lab is None:
-            cert.remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
-        pdf_path = outdir / f"{stem}.pdf"
-        json_path = outdir / f"{stem}.json"
-        write_certificate_json(cert, json_path)
-        pages = write_pdf(cert, pdf_path)
-        certs.append(cert)
-        outputs.append(
-            CertificateOutput(
-                sid,
-                number,
-                str(pdf_path),
-                str(json_path),
-                pages,
-                cert.valid_for_release,
-                conf.outcome if conf is not None else None,
-                [{"element": r.element, **assemble.printed(r)} for r in rows],
-            )
-        )
+        digest = result_set_digest(basis, files, rows)
+        cert.provenance.parameters["result_set_sha256"] = digest
+        cert.number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date, result_digest=digest)
+        drafts.append(cert)
     tick("certificates", len(unknowns), len(unknowns))
 
-    if not outputs:
+    if not drafts:
         # nothing to certify: an error, and no summary or LIMS file that could pass for a result
         why = "; ".join(f"{k}: {v}" for k, v in sorted(failures.items())) or "no results"
         raise DataQualityError(
@@ -492,11 +513,196 @@ def analyse(
             where=str(run_path),
             fix="see the reasons; check the method's lines and settings against the run",
         )
-    if cal_json_path is not None:
-        write_text_atomic(cal_json_path, cal_text)
-    lims_path = outdir / "lims.csv"
-    write_lims_csv(certs, lims_path)
-    summary = {
+    plan = plan_issue(outdir, drafts, stems, revise)  # refuses before anything is written
+
+    def figures_for(cert, stem):
+        if not figures:
+            return []
+        sid = cert.sample.sample_id
+        return assemble.sample_figures(
+            sid, stem, outdir, wavelength, mean_spec, lines_marked, curves, cert.results,
+            matrix_fraction.get(sid, (None, None))[0] if not any(
+                r.line_id == "by difference" and not finite(r.mass_fraction) for r in cert.results) else None,
+            cf_by_sample.get(sid), run_path, method, write=False,
+        )
+
+    return _write_output_set(
+        outdir, plan, figures_for, cal_json_path, cal_text if cal_json_path is not None else None,
+        _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_info, files, drift_info, checks,
+                      not_evaluated),
+        missing_all, not_reported, failures, skipped, basis,
+    )
+
+
+# ------------------------------------------------------------------------- helpers of analyse()
+
+
+def _calibration_analytes(cal) -> list[str]:
+    """The analytes the method asks for: every [[calibration.analytes]] element and PLS model."""
+    out = [str(a.get("element")) for a in (cal.settings or {}).get("analytes", []) if isinstance(a, dict)]
+    out += [el for el in list(cal.curves) + list(cal.rejected) if el not in out]
+    if cal.pls:
+        out += [el for el in cal.pls.get("models", {}) if el not in out]
+    return out
+
+
+def _cf_analytes(settings, method) -> list[str]:
+    """Elements a calibration-free analysis must report: [cf] elements, else the method's line elements."""
+    if settings.elements:
+        return list(settings.elements)
+    els = list(dict.fromkeys(ln.line_id.split()[0] for ln in method.lines))
+    return [e for e in els if e not in set(settings.exclude_elements)]
+
+
+def _method_files(method) -> list[FileRef]:
+    """Files the method refers to that feed the results (the response curve), with their SHA-256."""
+    out = []
+    pre = method.preprocess
+    if pre.response and pre.response_file:
+        p = method.resolve_path(pre.response_file)
+        out.append(FileRef("response curve", p.name, sha256_file(p)))
+    return out
+
+
+def _complete_rows(rows, missing, matrix_el, matrix, checks, basis, curves) -> list[ResultRow]:
+    """The sample's rows plus one *not determined* row per missing analyte and the matrix row.
+
+    The matrix by difference is *not determined* when any analyte is missing: it is never closed
+    over a subset of the analytes.
+    """
+    rows = list(rows)
+    have = {r.element for r in rows}
+    for el in missing:
+        if el not in have:
+            line = curves[el].line_id if el in curves else ""
+            rows.append(ResultRow(el, None, None, flags=["not_reported"], line_id=line, basis=basis))
+    if matrix_el and matrix_el not in have and (matrix is not None or missing):
+        w, uw = matrix if matrix is not None else (None, None)
+        fl = ["by_difference"] + (["check_failed"] if any(not c.passed for c in checks) else [])
+        if missing or not finite(w):
+            rows.append(ResultRow(matrix_el, None, None, flags=fl + ["not_reported"], line_id="by difference",
+                                  basis=basis))
+        else:
+            rows.append(ResultRow(matrix_el, float(w), U=2.0 * float(uw), u=float(uw), k=2.0, flags=fl,
+                                  line_id="by difference", basis=basis))
+    return rows
+
+
+_RESERVED = {"lims", "summary", "calibration", "manifest", "figures"}
+
+
+def sample_stems(sample_ids) -> dict[str, str]:
+    """File-name stems for the samples, distinct even on a case-blind file system.
+
+    A stem that would clash (case-insensitively) with another sample's, with a run-level file or
+    with the revision suffix ``-R<n>`` gets the first 8 hex digits of the SHA-256 of the sample id
+    appended; should two stems still clash the analysis is refused before anything is written.
+    """
+    import re
+
+    base = {sid: safe_filename(sid) for sid in sample_ids}
+    count: dict[str, int] = {}
+    for st in base.values():
+        count[st.lower()] = count.get(st.lower(), 0) + 1
+    out = {}
+    for sid, st in base.items():
+        if count[st.lower()] > 1 or st.lower() in _RESERVED or re.search(r"-R\d+$", st):
+            st = f"{st}-{hashlib.sha256(sid.encode('utf-8', 'surrogatepass')).hexdigest()[:8]}"
+        out[sid] = st
+    seen: dict[str, str] = {}
+    for sid, st in out.items():
+        if st.lower() in seen:
+            raise InputError(
+                f"samples {seen[st.lower()]!r} and {sid!r} would share the file name {st!r}",
+                where="sample ids",
+                fix="give the samples ids that differ in more than case and punctuation",
+            )
+        seen[st.lower()] = sid
+    return out
+
+
+@dataclass
+class _Issue:
+    cert: Certificate
+    stem: str
+    write: bool  # False: the same result set is already issued in the folder; keep that file
+
+
+def _issued(outdir: Path, stem: str, sid: str) -> list[dict]:
+    """Certificates already issued in ``outdir`` for this sample (its stem, revisions ``-R<n>``)."""
+    import json
+    import re
+
+    found = []
+    if not outdir.is_dir():
+        return found
+    pat = re.compile(re.escape(stem) + r"(-R(\d+))?\.json$", re.IGNORECASE)
+    for p in outdir.iterdir():
+        m = pat.fullmatch(p.name)
+        if not m:
+            continue
+        try:
+            doc = json.loads(p.read_text("utf-8"))
+        except (OSError, UnicodeDecodeError, ValueError):
+            doc = None
+        if not isinstance(doc, dict) or doc.get("schema") != "compquant-certificate":
+            raise InputError("a file that is not a certificate holds this sample's name", where=str(p),
+                             fix="move it away or choose another output folder")
+        if str(doc.get("sample", {}).get("sample_id")) != sid:
+            raise InputError(f"the file holds the certificate of sample {doc['sample'].get('sample_id')!r}, "
+                             f"not {sid!r}", where=str(p), fix="choose another output folder")
+        found.append({"path": p, "doc": doc, "revision": int(doc.get("revision", 0) or 0)})
+    return sorted(found, key=lambda d: d["revision"])
+
+
+def plan_issue(outdir: Path, drafts, stems: dict, revise: str | None) -> list[_Issue]:
+    """Decide, before writing anything, how each certificate is issued (docs/certificate.md).
+
+    No certificate of the sample in the folder: issue it.  The latest one holds the same result
+    set (same result-set digest and issue date): keep it, write nothing.  Otherwise refuse,
+    unless ``revise`` gives the reason for a revision ``<first number>-R<n>`` that names the
+    certificate it supersedes; the issued files stay as they are.
+    """
+    import re
+
+    plan, refused = [], []
+    for cert in drafts:
+        sid = cert.sample.sample_id
+        stem = stems[sid]
+        issued = _issued(Path(outdir), stem, sid)
+        if not issued:
+            plan.append(_Issue(cert, stem, True))
+            continue
+        last = issued[-1]["doc"]
+        same = (last.get("provenance", {}).get("parameters", {}).get("result_set_sha256")
+                == cert.provenance.parameters["result_set_sha256"] and last.get("issue_date") == cert.issue_date)
+        if same:
+            cert.number, cert.revision = str(last["number"]), int(last.get("revision", 0) or 0)
+            sup = last.get("supersedes") or {}
+            cert.supersedes, cert.revision_reason = str(sup.get("number", "")), str(sup.get("reason", ""))
+            cert.provenance.issued_at = str(last.get("provenance", {}).get("issued_at", cert.provenance.issued_at))
+            plan.append(_Issue(cert, Path(issued[-1]["path"]).stem, False))
+            continue
+        if not revise:
+            refused.append(f"{sid} ({last.get('number')})")
+            continue
+        n = issued[-1]["revision"] + 1
+        base = re.sub(r"-R\d+$", "", str(issued[0]["doc"]["number"]))
+        cert.number, cert.revision = f"{base}-R{n}", n
+        cert.supersedes, cert.revision_reason = str(last["number"]), str(revise)
+        plan.append(_Issue(cert, f"{stem}-R{n}", True))
+    if refused:
+        raise OutputError(
+            f"certificates already issued in this folder would be replaced: {', '.join(refused)}",
+            where=str(outdir),
+            fix="choose another output folder, or issue revisions with --revise 'reason' (analyse(revise=...))",
+        )
+    return plan
+
+
+def _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_info, files, drift_info, checks,
+                  not_evaluated) -> dict:
+    return {
         "schema": SUMMARY_SCHEMA,
         "schema_version": SUMMARY_VERSION,
         "software": "compquant",
@@ -533,37 +739,154 @@ def analyse(
             }
             for c in checks
         ],
-        "valid_for_release": all(o.valid_for_release for o in outputs),
-        "certificates": [
-            {
-                "sample_id": o.sample_id,
-                "number": o.number,
-                "pdf": Path(o.pdf).name,
-                "json": Path(o.json).name,
-                "pages": o.pages,
-                "valid_for_release": o.valid_for_release,
-                "conformity": o.conformity,
-            }
-            for o in outputs
-        ],
-        "lims_csv": lims_path.name,
-        "not_reported": [{k: str(v) for k, v in d.items()} for d in not_reported],
-        "failures": {str(k): str(v) for k, v in failures.items()},
-        "not_certified": skipped,
+        "check_samples_not_evaluated": list(not_evaluated),
     }
-    summary_path = outdir / "summary.json"
-    write_text_atomic(summary_path, canonical_json(summary))
+
+
+MANIFEST = "manifest.json"
+MANIFEST_SCHEMA = "compquant-output-manifest"
+
+
+def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, summary: dict, missing_all,
+                      not_reported, failures, skipped, basis) -> AnalysisOutput:
+    """Build the whole output set in a staging folder, move it in, write the manifest last."""
+    import shutil
+    import tempfile
+
+    outdir.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=".staging-", dir=outdir))
+    try:
+        certs, outputs = [], []
+        for it in plan:
+            cert = it.cert
+            cert.figures = figures_for(cert, it.stem)
+            data, pages = render_pdf_bytes(cert)
+            if it.write:
+                assemble.write_figures(staging, cert.figures)
+                write_certificate_json(cert, staging / f"{it.stem}.json")
+                write_bytes_atomic(staging / f"{it.stem}.pdf", data)
+            certs.append(cert)
+            reasons = cert.release_reasons()
+            outputs.append(
+                CertificateOutput(
+                    cert.sample.sample_id,
+                    cert.number,
+                    str(outdir / f"{it.stem}.pdf"),
+                    str(outdir / f"{it.stem}.json"),
+                    pages,
+                    not reasons,
+                    cert.conformity.outcome if cert.conformity is not None else None,
+                    [{"element": r.element, **assemble.printed(r)} for r in cert.results],
+                    reasons,
+                    cert.revision,
+                    cert.supersedes,
+                )
+            )
+        if cal_json_path is not None:
+            write_text_atomic(staging / cal_json_path.name, cal_text)
+        write_lims_csv(certs, staging / "lims.csv")
+        valid = all(o.valid_for_release for o in outputs)
+        summary.update(
+            {
+                "valid_for_release": valid,
+                "release_status": release.release_status(valid),
+                "certificates": [
+                    {
+                        "sample_id": o.sample_id,
+                        "number": o.number,
+                        "revision": o.revision,
+                        "supersedes": o.supersedes,
+                        "pdf": Path(o.pdf).name,
+                        "json": Path(o.json).name,
+                        "pages": o.pages,
+                        "valid_for_release": o.valid_for_release,
+                        "release_status": release.release_status(o.valid_for_release),
+                        "release_reasons": list(o.reasons),
+                        "conformity": o.conformity,
+                    }
+                    for o in outputs
+                ],
+                "lims_csv": "lims.csv",
+                "not_reported": [{k: str(v) for k, v in d.items()} for d in missing_all],
+                "failures": {str(k): str(v) for k, v in failures.items()},
+                "not_certified": skipped,
+            }
+        )
+        write_text_atomic(staging / "summary.json", canonical_json(summary))
+        _commit(staging, outdir)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
     return AnalysisOutput(
         str(outdir),
         basis,
         outputs,
-        str(lims_path),
-        str(summary_path),
+        str(outdir / "lims.csv"),
+        str(outdir / "summary.json"),
         None if cal_json_path is None else str(cal_json_path),
-        summary["valid_for_release"],
-        not_reported,
+        valid,
+        missing_all,
         failures,
     )
 
 
-__all__ = ["analyse", "AnalysisOutput", "CertificateOutput", "SUMMARY_SCHEMA", "SUMMARY_VERSION"]
+def _commit(staging: Path, outdir: Path) -> None:
+    """Move the staged files into ``outdir`` and write the manifest last.
+
+    The old manifest is removed first, so a kill part-way leaves a folder without a manifest,
+    which :func:`verify_output_set` reports as incomplete; the new manifest lists every file of
+    the folder with its SHA-256.
+    """
+    import os
+
+    man = outdir / MANIFEST
+    if man.exists():
+        man.unlink()
+    for p in sorted(staging.rglob("*")):
+        if p.is_file():
+            dest = outdir / p.relative_to(staging)
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            os.replace(p, dest)
+    files = {}
+    for p in sorted(outdir.rglob("*")):
+        rel = p.relative_to(outdir)
+        if p.is_file() and rel.parts[0] != MANIFEST and not rel.parts[0].startswith(".staging-"):
+            files[rel.as_posix()] = sha256_file(p)
+    write_text_atomic(man, canonical_json({"schema": MANIFEST_SCHEMA, "schema_version": 1, "files": files}))
+
+
+def verify_output_set(outdir) -> dict:
+    """Check an output folder against its manifest; return the manifest, raise when it does not hold.
+
+    Readers of an output folder (a LIMS import, a review step) call this first: a folder
+    without a manifest was interrupted while being written, and a file whose SHA-256 differs
+    was changed after the analysis.
+    """
+    import json
+
+    outdir = Path(outdir)
+    man = outdir / MANIFEST
+    if not man.is_file():
+        raise InputError("the output set is incomplete (no manifest.json): it was interrupted while written",
+                         where=str(outdir), fix="run the analysis again into this folder")
+    doc = json.loads(man.read_text("utf-8"))
+    if doc.get("schema") != MANIFEST_SCHEMA:
+        raise InputError("manifest.json is not a compquant output manifest", where=str(man),
+                         fix="run the analysis again")
+    for rel, sha in doc.get("files", {}).items():
+        p = outdir / rel
+        if not p.is_file() or sha256_file(p) != sha:
+            raise InputError(f"{rel} is missing or differs from the manifest", where=str(outdir),
+                             fix="the set was changed after the analysis; run it again")
+    return doc
+
+
+__all__ = [
+    "analyse",
+    "verify_output_set",
+    "sample_stems",
+    "plan_issue",
+    "AnalysisOutput",
+    "CertificateOutput",
+    "SUMMARY_SCHEMA",
+    "SUMMARY_VERSION",
+]

@@ -298,7 +298,7 @@ def test_failed_check_sample_blocks_release(work):
         first_page = PdfReader(c.pdf).pages[0].extract_text()
         assert "NOT VALID FOR RELEASE" in first_page and "CHK-5" in first_page
     rows = list(csv.DictReader(io.StringIO((d / "out-bad" / "lims.csv").read_text())))
-    assert {r["release"] for r in rows} == {"not valid"}
+    assert {r["release"] for r in rows} == {"not valid for release"}
 
 
 def test_calibration_free_path(work):

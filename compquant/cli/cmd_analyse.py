@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import click
 
+from compquant.report.pdf import visible_text
+from compquant.report.release import EXIT_NOT_VALID, NOT_VALID_FOR_RELEASE, release_status
 from compquant.report.safety import safety_plain
 
 _EPILOG = "\b\nSAFETY NOTES (LIBS and spark OES can hurt people)\n\n" + "\n\n".join(
@@ -50,8 +52,6 @@ class StageProgress:
 
 def summary_table(out) -> str:
     """Plain-text table: one row per certificate, one column per element (printed values)."""
-    from compquant.report.pdf import visible_text
-
     elements = []
     for c in out.certificates:
         for r in c.results:
@@ -70,7 +70,7 @@ def summary_table(out) -> str:
         if len(sid) > 24:
             sid = sid[:21] + "..."
         rows.append(
-            [sid, c.number, "ok" if c.valid_for_release else "NOT VALID", c.conformity or "-"]
+            [sid, c.number, release_status(c.valid_for_release), c.conformity or "-"]
             + [vals.get(e, "-") for e in elements]
         )
     widths = [max(len(r[i]) for r in rows) for i in range(len(head))]
@@ -91,12 +91,37 @@ def report_outputs(out) -> None:
         click.echo(f"calibration:  {out.calibration_json}")
     for sid, why in sorted(out.failures.items()):
         click.echo(f"warning: sample {sid}: {why}", err=True)
-    if not out.valid_for_release:
-        click.echo("NOT VALID FOR RELEASE: a quality-control criterion failed; see the certificates.", err=True)
+    click.echo(release_block(out), err=True, nl=False)
 
 
-def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options) -> None:
-    """Several runs (or folders of runs): one output set per run, a combined LIMS CSV, runs.csv."""
+def release_block(out) -> str:
+    """The warning block: every analyte not reported and every reason a certificate is not valid."""
+    lines = []
+    if out.not_reported:
+        lines.append("WARNING: analytes of the method not reported (the matrix by difference is not determined):")
+        groups: dict = {}
+        for d in out.not_reported:
+            groups.setdefault((d["element"], d["reason"]), []).append(visible_text(d["sample_id"]))
+        for (el, why), sids in groups.items():
+            lines.append(f"  {el} in {', '.join(sids)}: {visible_text(why)}")
+    bad = [c for c in out.certificates if not c.valid_for_release]
+    if bad:
+        lines.append(f"{NOT_VALID_FOR_RELEASE.upper()}: {len(bad)} of {len(out.certificates)} certificates "
+                     f"(exit code {EXIT_NOT_VALID}):")
+        same: dict = {}
+        for c in bad:
+            same.setdefault(tuple(c.reasons), []).append(visible_text(c.sample_id))
+        for reasons, sids in same.items():
+            lines.append(f"  {', '.join(sids)}:")
+            lines += [f"    - {visible_text(r)}" for r in reasons]
+    return "".join(line + "\n" for line in lines)
+
+
+def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options) -> bool:
+    """Several runs (or folders of runs): one output set per run, a combined LIMS CSV, runs.csv.
+
+    Returns True when every certificate of every run is valid for release.
+    """
     from pathlib import Path
 
     import pandas as pd
@@ -161,12 +186,14 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
         f"combined LIMS CSV: {out / 'lims-all.csv'} ({len(frames)} of {len(outcomes)} runs); status: {out / 'runs.csv'}"
     )
     failed = [oc.run for oc in outcomes if not oc.ok]
+    all_valid = all(st["valid_for_release"] for st in status)
     if failed:
         raise CompquantError(
             f"{len(failed)} of {len(outcomes)} runs failed: {', '.join(failed)}",
             where=str(out),
             fix="see the error lines above and runs.csv; the other runs' outputs are complete",
         )
+    return all_valid
 
 
 @click.command("analyse", epilog=_EPILOG)
@@ -199,8 +226,18 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     "--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes (loopback only)."
 )
 @click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option(
+    "--measured", metavar="ISO-8601", help="Start time of the measurement, for a run that states none (converted)."
+)
+@click.option(
+    "--revise",
+    metavar="REASON",
+    help="Re-issue certificates already issued in OUTDIR as revisions -R<n>, giving the reason.",
+)
 @click.option("--quiet", is_flag=True, help="No progress bars.")
+@click.pass_context
 def command(
+    ctx,
     run_paths,
     method_path,
     standards,
@@ -217,6 +254,8 @@ def command(
     workers,
     scheduler,
     quiet,
+    measured,
+    revise,
 ):
     """Analyse a run and write a certificate of analysis per unknown sample.
 
@@ -230,6 +269,11 @@ def command(
     plus OUTDIR/lims-all.csv (every run's LIMS rows, a run column first) and OUTDIR/runs.csv.
     A run that fails is named and the others still complete. --workers N / --scheduler ADDRESS
     compute on Dask (one run per task, or the chunks of a single run), with the same numbers.
+
+    \b
+    Exit codes: 0 every certificate is valid for release; 3 the analysis completed but a
+    certificate is not valid for release (the reasons are printed and on the certificates);
+    2 an input error (nothing written).
     """
     from pathlib import Path
 
@@ -247,9 +291,12 @@ def command(
         issued_at=issued_at,
         figures=not no_figures,
         chunk_shots=chunk_shots,
+        measured=measured,
+        revise=revise,
     )
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
-        _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options)
+        if not _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options):
+            ctx.exit(EXIT_NOT_VALID)
         return
     run_path = run_paths[0]
     prog = StageProgress(enabled=not quiet)
@@ -259,3 +306,5 @@ def command(
     finally:
         prog.close()
     report_outputs(out)
+    if not out.valid_for_release:
+        ctx.exit(EXIT_NOT_VALID)

@@ -20,6 +20,7 @@ import io
 from compquant.fileio import write_text_atomic
 from compquant.report.certificate import Certificate
 from compquant.report.pdf import visible_text
+from compquant.report.release import release_status
 
 COLUMNS = [
     "sample_id",
@@ -54,7 +55,7 @@ def _is_number(s: str) -> bool:
 def lims_rows(certs) -> list[list[str]]:
     rows = []
     for cert in certs:
-        rel = "valid" if cert.valid_for_release else "not valid"
+        rel = release_status(cert.valid_for_release)
         for r in cert.results:
             rep = r.reported()
             value = "" if r.below_lod or rep.value == "not determined" else rep.value
