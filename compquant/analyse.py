@@ -321,19 +321,26 @@ def analyse(
         from compquant.cflibs.result import results_table
 
         tick("quantify", 0, len(unknowns))
+        cf_certified, one_point = _cf_references(cf_settings, method, table, refs, acquisition, instrument, files)
+        cf_checks = [s for s, ref in check_samples.items() if (ref or s) in cf_certified]
         cf_results, failures = analyse_cf_samples(
             table,
-            sample_ids=unknowns,
+            sample_ids=unknowns + cf_checks,
             settings=cf_settings,
             acquisition=acquisition,
             instrument=instrument,
+            one_point=one_point,
         )
         results = results_table(cf_results)
         analytes = _cf_analytes(cf_settings, method)
+        checks = _cf_check_results(cf_results, cf_checks, check_samples, cf_certified, results)
+        for s in cf_checks:
+            if s in failures:
+                not_reported.append({"sample_id": s, "element": "*", "reason": failures.pop(s)})
         not_evaluated = release.checks_not_evaluated(
-            check_samples, {}, analytes, [],
-            why_missing="calibration-free analysis does not compare check samples with certified values; "
-            "evaluate it with --standards",
+            check_samples, cf_certified, analytes, checks,
+            why_missing=None if cf_settings.standards_file else
+            "the method's [cf] names no standards_file with the check material's certified values",
         )
         for res in cf_results:
             cf_by_sample[str(res.sample_id)] = res
@@ -512,7 +519,6 @@ def analyse(
             where=str(run_path),
             fix="see the reasons; check the method's lines and settings against the run",
         )
-    plan = plan_issue(outdir, drafts, stems, revise)  # refuses before anything is written
 
     def figures_for(cert, stem):
         if not figures:
@@ -525,12 +531,15 @@ def analyse(
             cf_by_sample.get(sid), run_path, method, write=False,
         )
 
-    return _write_output_set(
-        outdir, plan, figures_for, cal_json_path, cal_text if cal_json_path is not None else None,
-        _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_info, files, drift_info, checks,
-                      not_evaluated),
-        missing_all, not_reported, failures, skipped, basis,
-    )
+    outdir.mkdir(parents=True, exist_ok=True)
+    with _folder_lock(outdir):  # another analysis into this folder waits, then sees what was issued
+        plan = plan_issue(outdir, drafts, stems, revise)  # refuses before anything is written
+        return _write_output_set(
+            outdir, plan, figures_for, cal_json_path, cal_text if cal_json_path is not None else None,
+            _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_info, files, drift_info,
+                          checks, not_evaluated),
+            missing_all, not_reported, failures, skipped, basis,
+        )
 
 
 # ------------------------------------------------------------------------- helpers of analyse()
@@ -553,6 +562,64 @@ def _cf_analytes(settings, method) -> list[str]:
     return [e for e in els if e not in set(settings.exclude_elements)]
 
 
+def _cf_references(settings, method, table, refs, acquisition, instrument, files):
+    """Certified values for calibration-free checks and the one-point calibration the method asks for.
+
+    Returns ``(certified, one_point)``: ``{standard_id: {element: (w, u)}}`` from ``[cf]
+    standards_file`` (hashed into ``files``), and the :func:`compquant.cflibs.onepoint.one_point_calibration`
+    of ``[cf] one_point_standard`` (None when not asked for).
+    """
+    if not settings.standards_file:
+        if settings.one_point_standard:
+            raise ConfigError("one-point calibration needs [cf] standards_file", where=f"{method.where}: [cf]",
+                              fix="give the certified-standards CSV")
+        return {}, None
+    from compquant.calibrate import load_standards
+    from compquant.calibrate.build import certified_table
+    from compquant.cflibs.onepoint import one_point_calibration
+
+    path = method.resolve_path(settings.standards_file)
+    stds = load_standards(path)
+    files.append(FileRef("standards (calibration-free)", path.name, sha256_file(path)))
+    certified = certified_table(stds)
+    one_point = None
+    sid = settings.one_point_standard
+    if sid:
+        ref = refs.get(sid) or sid
+        if sid not in refs or ref not in certified:
+            raise ConfigError(f"one-point standard {sid!r} is not a sample of the run with certified values",
+                              where=f"{method.where}: [cf] one_point_standard",
+                              fix="name a standard sample of the run that the standards file certifies")
+        one_point = one_point_calibration(table, {el: w for el, (w, _u) in certified[ref].items()}, sample_id=sid,
+                                          settings=settings, acquisition=acquisition, instrument=instrument)
+    return certified, one_point
+
+
+def _cf_check_results(cf_results, cf_checks, check_samples, certified, results) -> list[CheckResult]:
+    """Calibration-free results of the check samples against their certified values (|En| <= 1)."""
+    from compquant.calibrate.checks import check_verdict, en_number
+
+    flags = {(str(r.sample_id), str(r.element)): [f for f in str(r.flags or "").split(";") if f]
+             for r in results.itertuples(index=False)}
+    out = []
+    for res in cf_results:
+        sid = str(res.sample_id)
+        if sid not in cf_checks:
+            continue
+        ref = check_samples[sid] or sid
+        for e in res.elements:
+            cv = certified[ref].get(e.element)
+            if cv is None or not finite(e.mass_fraction):
+                continue
+            X, uX = cv
+            U = res.k * e.u if finite(e.u) else float("nan")
+            en = en_number(e.mass_fraction, U, X, 2.0 * uX)
+            out.append(CheckResult(sid, ref, e.element, float(e.mass_fraction), U if finite(U) else None, X,
+                                   2.0 * uX, None, en, check_verdict(en), "|En| <= 1",
+                                   flags.get((sid, e.element), [])))
+    return out
+
+
 def _method_files(method) -> list[FileRef]:
     """Files the method refers to that feed the results (the response curve), with their SHA-256."""
     out = []
@@ -560,6 +627,9 @@ def _method_files(method) -> list[FileRef]:
     if pre.response and pre.response_file:
         p = method.resolve_path(pre.response_file)
         out.append(FileRef("response curve", p.name, sha256_file(p)))
+    if pre.shift != "none" and pre.shift_reference_file:
+        p = method.resolve_path(pre.shift_reference_file)
+        out.append(FileRef("wavelength-shift reference", p.name, sha256_file(p)))
     return out
 
 
@@ -742,6 +812,35 @@ def _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_inf
     }
 
 
+class _folder_lock:
+    """Exclusive lock on an output folder (``.compquant.lock``, POSIX ``flock``) while a set is
+    planned and written; stale staging folders of dead processes are removed once it is held."""
+
+    def __init__(self, outdir: Path):
+        self.path = Path(outdir) / ".compquant.lock"
+        self.fh = None
+
+    def __enter__(self):
+        import shutil
+
+        try:
+            import fcntl
+        except ImportError:  # no flock on this platform: no lock (single writer assumed)
+            return self
+        self.fh = open(self.path, "a")
+        fcntl.flock(self.fh, fcntl.LOCK_EX)
+        for d in self.path.parent.glob(".staging-*"):
+            # holding the lock, no other analysis is between staging and commit in this folder
+            if d.is_dir():
+                shutil.rmtree(d, ignore_errors=True)
+        return self
+
+    def __exit__(self, *exc):
+        if self.fh is not None:
+            self.fh.close()  # releases the flock
+        return False
+
+
 MANIFEST = "manifest.json"
 MANIFEST_SCHEMA = "compquant-output-manifest"
 
@@ -752,7 +851,6 @@ def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, 
     import shutil
     import tempfile
 
-    outdir.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=".staging-", dir=outdir))
     try:
         certs, outputs = [], []
@@ -848,7 +946,7 @@ def _commit(staging: Path, outdir: Path) -> None:
     files = {}
     for p in sorted(outdir.rglob("*")):
         rel = p.relative_to(outdir)
-        if p.is_file() and rel.parts[0] != MANIFEST and not rel.parts[0].startswith(".staging-"):
+        if p.is_file() and rel.parts[0] != MANIFEST and not any(part.startswith(".") for part in rel.parts):
             files[rel.as_posix()] = sha256_file(p)
     write_text_atomic(man, canonical_json({"schema": MANIFEST_SCHEMA, "schema_version": 1, "files": files}))
 

@@ -273,6 +273,24 @@ def test_output_may_not_replace_or_sit_inside_an_input(tmp_path):
         analyse(a, DEMO / "method.toml", calibration=cal, outdir=tmp_path)
 
 
+@pytest.mark.parametrize("cmd", ["lines", "calibrate", "plot"])
+def test_cli_output_equal_to_an_input_is_refused(tmp_path, cmd):
+    """issue 13: 'compquant lines RUN -o RUN' replaced the run with a CSV; 'calibrate -o' could
+    overwrite the method file. Now exit 2 with one error line and the input unchanged."""
+    run = tmp_path / "run.h5"
+    shutil.copy(DEMO / "demo-day1.h5", run)
+    method = tmp_path / "method.toml"
+    shutil.copy(DEMO / "method.toml", method)
+    target = method if cmd == "calibrate" else run
+    before = target.read_bytes()
+    argv = {"lines": ["lines", str(run), "--method", str(method), "-o", str(run)],
+            "calibrate": ["calibrate", str(run), "--method", str(method), "--standards", str(STDS), "-o", str(method)],
+            "plot": ["plot", str(run), "--sample", "LOT-2611-A", "-o", str(run)]}[cmd]
+    r = CliRunner().invoke(main, argv)
+    assert r.exit_code == 2 and "error:" in r.output and "would replace the input" in r.output, r.output
+    assert target.read_bytes() == before
+
+
 def test_runs_with_data_outside_the_file_are_refused(tmp_path):
     src = DEMO / "demo-day1.h5"
     ext = tmp_path / "ext.h5"

@@ -97,6 +97,9 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
     every sample with standard and expanded uncertainty (k = 2 unless the method says
     otherwise), LOD/LOQ, flags, and check samples against their certificates (E_n).
     Writes the results CSV, <stem>-checks.csv and <stem>-provenance.json."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output], [run_path, cal_path, method_path, standards_path])
     from compquant.calibrate import Calibration, load_standards
     from compquant.errors import CalibrationError
     from compquant.fileio import atomic_write
