@@ -63,7 +63,7 @@ from compquant.report.certificate import result_set_digest
 from compquant.report.config import LabProfile
 from compquant.report.jsonform import canonical_json, write_certificate_json
 from compquant.report.lims import write_lims_csv
-from compquant.report.numbers import finite
+from compquant.report.numbers import element_units, finite
 from compquant.report.pdf import render_pdf_bytes
 
 SUMMARY_SCHEMA = "compquant-run-summary"
@@ -184,6 +184,7 @@ def analyse(
     chunk_mapper=None,
     measured=None,
     revise: str | None = None,
+    lims_dialect: str = "rfc4180",
 ) -> AnalysisOutput:
     """Run the whole analysis and write the certificates (see the module docstring).
 
@@ -205,6 +206,8 @@ def analyse(
         converted run); refused when the run states a different day.
     revise : reason for re-issuing certificates already issued in ``outdir``: each becomes a
         revision ``-R<n>`` naming the one it supersedes.  Without it such a re-analysis is refused.
+    lims_dialect : ``"rfc4180"`` (comma, decimal point) or ``"semicolon"`` (``;``, decimal comma)
+        for ``lims.csv`` (:mod:`compquant.report.lims`).
 
     Every certificate is checked against the release rules (:mod:`compquant.report.release`);
     ``AnalysisOutput.valid_for_release`` / ``exit_code`` say whether all are valid for release.
@@ -233,6 +236,11 @@ def analyse(
             raise ConfigError(
                 f"date of receipt {received!r} is not YYYY-MM-DD", where="received", fix="write e.g. 2026-11-27"
             ) from exc
+    from compquant.report.lims import DIALECTS
+
+    if lims_dialect not in DIALECTS:
+        raise ConfigError(f"LIMS CSV dialect {lims_dialect!r} is not known", where="lims_dialect",
+                          fix=f"use one of {', '.join(DIALECTS)}")
     outdir = Path(outdir)
     if outdir.exists() and not outdir.is_dir():
         raise InputError("output path exists and is not a folder", where=str(outdir), fix="choose a folder")
@@ -511,6 +519,10 @@ def analyse(
         drafts.append(cert)
     tick("certificates", len(unknowns), len(unknowns))
 
+    units = element_units((r.element, r.mass_fraction, r.lod, r.below_lod) for c in drafts for r in c.results)
+    for c in drafts:  # one unit per element across the run's certificates, LIMS CSV and screen
+        for r in c.results:
+            r.unit = units.get(r.element, "")
     if not drafts:
         # nothing to certify: an error, and no summary or LIMS file that could pass for a result
         why = "; ".join(f"{k}: {v}" for k, v in sorted(failures.items())) or "no results"
@@ -538,7 +550,7 @@ def analyse(
             outdir, plan, figures_for, cal_json_path, cal_text if cal_json_path is not None else None,
             _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_info, files, drift_info,
                           checks, not_evaluated),
-            missing_all, not_reported, failures, skipped, basis,
+            missing_all, not_reported, failures, skipped, basis, lims_dialect,
         )
 
 
@@ -813,31 +825,35 @@ def _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_inf
 
 
 class _folder_lock:
-    """Exclusive lock on an output folder (``.compquant.lock``, POSIX ``flock``) while a set is
-    planned and written; stale staging folders of dead processes are removed once it is held."""
+    """Exclusive lock on an output folder while a set is planned and written (POSIX ``flock`` on the
+    folder itself, so no file is left behind); stale staging folders of dead processes are removed
+    once it is held."""
 
     def __init__(self, outdir: Path):
-        self.path = Path(outdir) / ".compquant.lock"
-        self.fh = None
+        self.path = Path(outdir)
+        self.fd = None
 
     def __enter__(self):
+        import os
         import shutil
 
         try:
             import fcntl
         except ImportError:  # no flock on this platform: no lock (single writer assumed)
             return self
-        self.fh = open(self.path, "a")
-        fcntl.flock(self.fh, fcntl.LOCK_EX)
-        for d in self.path.parent.glob(".staging-*"):
+        self.fd = os.open(self.path, os.O_RDONLY)
+        fcntl.flock(self.fd, fcntl.LOCK_EX)
+        for d in self.path.glob(".staging-*"):
             # holding the lock, no other analysis is between staging and commit in this folder
             if d.is_dir():
                 shutil.rmtree(d, ignore_errors=True)
         return self
 
     def __exit__(self, *exc):
-        if self.fh is not None:
-            self.fh.close()  # releases the flock
+        import os
+
+        if self.fd is not None:
+            os.close(self.fd)  # releases the flock
         return False
 
 
@@ -846,7 +862,7 @@ MANIFEST_SCHEMA = "compquant-output-manifest"
 
 
 def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, summary: dict, missing_all,
-                      not_reported, failures, skipped, basis) -> AnalysisOutput:
+                      not_reported, failures, skipped, basis, lims_dialect="rfc4180") -> AnalysisOutput:
     """Build the whole output set in a staging folder, move it in, write the manifest last."""
     import shutil
     import tempfile
@@ -881,7 +897,7 @@ def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, 
             )
         if cal_json_path is not None:
             write_text_atomic(staging / cal_json_path.name, cal_text)
-        write_lims_csv(certs, staging / "lims.csv")
+        write_lims_csv(certs, staging / "lims.csv", lims_dialect)
         valid = all(o.valid_for_release for o in outputs)
         summary.update(
             {
@@ -904,6 +920,7 @@ def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, 
                     for o in outputs
                 ],
                 "lims_csv": "lims.csv",
+                "lims_dialect": lims_dialect,
                 "not_reported": [{k: str(v) for k, v in d.items()} for d in missing_all],
                 "failures": {str(k): str(v) for k, v in failures.items()},
                 "not_certified": skipped,

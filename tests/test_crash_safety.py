@@ -58,7 +58,7 @@ def _argv(files, outdir, issued=ISSUED):
 
 def final_files(folder: Path) -> list[Path]:
     """Files under their final names (temporaries are hidden ``.<name>.<random>.part`` files, the
-    staging folder ``.staging-*`` and the lock ``.compquant.lock`` are hidden too)."""
+    staging folder ``.staging-*`` of a killed analysis is hidden too)."""
     if not folder.exists():
         return []
     return sorted(

@@ -131,6 +131,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     from compquant.parallel import analyse_runs, collect_runs, open_executor, run_output_folders
 
     paths = collect_runs(run_paths)
+    sep = ";" if options.get("lims_dialect") == "semicolon" else ","
     out = Path(outdir)
     if out.exists() and not out.is_dir():
         raise OutputError("output path exists and is not a folder", where=str(out), fix="choose a folder")
@@ -143,7 +144,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     for oc in outcomes:
         if oc.ok:
             v = oc.value
-            lims = pd.read_csv(v["lims_csv"], dtype=str, keep_default_na=False)
+            lims = pd.read_csv(v["lims_csv"], dtype=str, keep_default_na=False, sep=sep)
             lims.insert(0, "run", oc.run)
             frames.append(lims)
             status.append(
@@ -178,7 +179,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
                 click.echo(oc.error.traceback, err=True)
     if frames:
         with atomic_write(out / "lims-all.csv", newline="") as fh:
-            pd.concat(frames, ignore_index=True).to_csv(fh, index=False)
+            pd.concat(frames, ignore_index=True).to_csv(fh, index=False, sep=sep)
     cols = ["run", "status", "outputs", "certificates", "valid_for_release", "error"]
     with atomic_write(out / "runs.csv", newline="") as fh:
         pd.DataFrame(status, columns=cols).to_csv(fh, index=False)
@@ -234,6 +235,13 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     metavar="REASON",
     help="Re-issue certificates already issued in OUTDIR as revisions -R<n>, giving the reason.",
 )
+@click.option(
+    "--lims-dialect",
+    type=click.Choice(["rfc4180", "semicolon"]),
+    default="rfc4180",
+    show_default=True,
+    help="lims.csv: comma and decimal point, or ';' and decimal comma (UTF-8 either way).",
+)
 @click.option("--quiet", is_flag=True, help="No progress bars.")
 @click.pass_context
 def command(
@@ -256,6 +264,7 @@ def command(
     quiet,
     measured,
     revise,
+    lims_dialect,
 ):
     """Analyse a run and write a certificate of analysis per unknown sample.
 
@@ -293,6 +302,7 @@ def command(
         chunk_shots=chunk_shots,
         measured=measured,
         revise=revise,
+        lims_dialect=lims_dialect,
     )
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if not _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options):
