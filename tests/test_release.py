@@ -324,3 +324,60 @@ def test_manifest_detects_a_changed_or_incomplete_set(tmp_path):
     (tmp_path / "o" / "manifest.json").unlink()
     with pytest.raises(InputError, match="incomplete"):
         verify_output_set(tmp_path / "o")
+
+
+# ------------------------------------------------------------------------------ units, LIMS CSV
+
+
+def test_one_unit_per_element_and_value_with_u():
+    from compquant.report.numbers import element_units
+
+    # Sn 0.29 % in one sample and 230 mg/kg in another: both in % (the larger reaches 0.1 %)
+    units = element_units([("Sn", 0.0029, 8e-5, False), ("Sn", 0.00023, 8e-5, False), ("Al", 1.4e-4, 3e-5, False)])
+    assert units == {"Sn": "%", "Al": "mg/kg"}
+    row = ResultRow("Sn", 0.00023, 0.00002, unit=units["Sn"])
+    rep = row.reported()
+    assert (rep.unit, rep.value, rep.U) == ("%", "0.0230", "0.0020")  # value and U in one unit
+
+
+def test_lims_csv_columns_and_semicolon_dialect():
+    import csv
+    import io
+
+    from report_helpers import RUN_SHA, make_certificate
+
+    from compquant.report.lims import COLUMNS, lims_csv
+
+    c = make_certificate()
+    rows = list(csv.DictReader(io.StringIO(lims_csv([c]))))
+    pb = next(r for r in rows if r["element"] == "Pb")
+    assert pb["value"] == "2.049" and float(pb["mass_fraction_g_g"]) == 0.02049  # unrounded beside rounded
+    assert pb["run_sha256"] == RUN_SHA and pb["run_file"] == "run.h5"
+    assert (pb["method_id"], pb["method_version"], pb["certificate_revision"]) == ("CU-ALLOY-LIBS", "1.2", "0")
+    assert pb["measured"] == "2026-12-01T10:00:00Z" and pb["release"] == "valid for release"
+    text = lims_csv([c], "semicolon")
+    rows = list(csv.DictReader(io.StringIO(text), delimiter=";"))
+    assert list(rows[0]) == COLUMNS
+    pb = next(r for r in rows if r["element"] == "Pb")
+    assert pb["value"] == "2,049" and pb["mass_fraction_g_g"] == "0,02049" and pb["method_version"] == "1.2"
+
+
+def test_calibration_free_check_sample_is_evaluated():
+    """A calibration-free run's check sample is compared with its certified values (|En| <= 1),
+    not silently ignored (issue 13: 'No check sample was measured' although one was)."""
+    from types import SimpleNamespace as NS
+
+    import pandas as pd
+
+    from compquant.analyse import _cf_check_results
+
+    res = NS(sample_id="CHK-108", k=2.0, elements=[NS(element="Zn", mass_fraction=0.380, u=0.002),
+                                                    NS(element="Sn", mass_fraction=0.0075, u=0.0002)])
+    table = pd.DataFrame({"sample_id": ["CHK-108", "CHK-108"], "element": ["Zn", "Sn"], "flags": ["", "low_snr"]})
+    certified = {"HRM-CA-108": {"Zn": (0.372, 0.00085), "Sn": (0.0078, 0.000029)}}
+    checks = _cf_check_results([res], ["CHK-108"], {"CHK-108": "HRM-CA-108"}, certified, table)
+    by = {c.element: c for c in checks}
+    # En = (x - X) / sqrt(U_x^2 + U_X^2) (ISO 13528:2015): Zn (0.380 - 0.372) / sqrt(0.004^2 + 0.0017^2) = 1.84
+    assert by["Zn"].En == pytest.approx(0.008 / np.hypot(0.004, 0.0017)) and not by["Zn"].passed
+    assert by["Sn"].passed and by["Sn"].flags == ["low_snr"]
+    assert release.checks_not_evaluated({"CHK-108": "HRM-CA-108"}, certified, ["Zn", "Sn"], checks) == []
