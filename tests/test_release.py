@@ -101,6 +101,28 @@ def test_three_standards_not_valid_cu_not_determined(tmp_path):
     assert summary["certificates"][0]["release_reasons"]
     first = " ".join(PdfReader(tmp_path / "out" / "LOT-2611-A.pdf").pages[0].extract_text().split())
     assert "NOT VALID FOR RELEASE" in first and "Cu by difference is not determined" in first
+    # several runs at once print the same block per run, read back from each summary.json
+    from compquant.cli.cmd_analyse import release_block_from_summary
+
+    block = release_block_from_summary(tmp_path / "out" / "summary.json", "three.h5")
+    assert "three.h5:   Zn in LOT-2611-A" in block and "three.h5: NOT VALID FOR RELEASE: 5 of 5" in block
+
+
+def test_check_sample_whose_standard_is_missing(tmp_path):
+    """issue 13: a check sample whose standard is not in the standards file gave 'No check sample
+    was measured in this run' and a valid certificate."""
+    stds = tmp_path / "stds.csv"
+    stds.write_text("".join(ln for ln in STDS.read_text().splitlines(keepends=True) if "HRM-CA-108" not in ln))
+    out = analyse(DEMO / "demo-day1.h5", DEMO / "method.toml", standards=stds, lab=DEMO / "lab.toml",
+                  outdir=tmp_path / "o", issued_at=ISSUED, figures=False)
+    assert out.exit_code == 3
+    doc = json.loads(Path(out.certificates[0].json).read_text())
+    missing = "CHK-108: its standard 'HRM-CA-108' is not in the standards file"
+    assert doc["quality_control"]["not_evaluated"] == [missing]
+    assert doc["release"]["rules"] == ["check-not-evaluated"]
+    text = " ".join("".join(p.extract_text() for p in PdfReader(out.certificates[0].pdf).pages).split())
+    assert "No check sample was measured" not in text
+    assert "Check sample measured but not evaluated: CHK-108" in text
 
 
 def test_demo_day1_certificates_stay_valid(tmp_path):

@@ -117,6 +117,22 @@ def release_block(out) -> str:
     return "".join(line + "\n" for line in lines)
 
 
+def release_block_from_summary(summary_json, run_name: str) -> str:
+    """The warning block of one run of several, read back from its ``summary.json``."""
+    import json
+    from types import SimpleNamespace
+
+    with open(summary_json, encoding="utf-8") as fh:
+        doc = json.load(fh)
+    certs = [
+        SimpleNamespace(sample_id=c["sample_id"], valid_for_release=c["valid_for_release"],
+                        reasons=c.get("release_reasons", []), number=c["number"])
+        for c in doc.get("certificates", [])
+    ]
+    out = SimpleNamespace(not_reported=doc.get("not_reported", []), certificates=certs)
+    return "".join(f"{run_name}: {line}\n" for line in release_block(out).splitlines())
+
+
 def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options) -> bool:
     """Several runs (or folders of runs): one output set per run, a combined LIMS CSV, runs.csv.
 
@@ -163,6 +179,8 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
             )
             for sid, why in sorted(v["failures"].items()):
                 click.echo(f"warning: {oc.run}: sample {sid}: {why}", err=True)
+            if not v["valid_for_release"]:
+                click.echo(release_block_from_summary(v["summary_json"], oc.run), err=True, nl=False)
         else:
             status.append(
                 {
