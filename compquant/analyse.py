@@ -308,123 +308,23 @@ def analyse(
         )
 
     basis = "cf" if cf else "calibration"
-    cal_info = None
-    cal_json_path = None
-    drift_info = DriftInfo(False, "not applicable to calibration-free analysis" if cf else "")
-    checks: list[CheckResult] = []
-    not_reported: list[dict] = []
-    failures: dict = {}
-    matrix_fraction: dict = {}
-    plasma_by_sample: dict = {}
-    cf_by_sample: dict = {}
-    curves = {}
     deviations: list[release.Deviation] = release.skipped_steps(meas.provenance.get("notes", []))
     check_samples = {s: refs.get(s, "") for s in samples["sample_id"].astype(str) if roles[s] == "check"}
     parameters: dict = {"basis": basis, "issued_at": issued, "method_settings_sha256": method.settings_digest()}
     if chunk_shots:
         parameters["chunk_shots"] = int(chunk_shots)
-
     if cf:
-        from compquant.cflibs import analyse_cf_samples
-        from compquant.cflibs.result import results_table
-
-        tick("quantify", 0, len(unknowns))
-        cf_certified, one_point = _cf_references(cf_settings, method, table, refs, acquisition, instrument, files)
-        cf_checks = [s for s, ref in check_samples.items() if (ref or s) in cf_certified]
-        cf_results, failures = analyse_cf_samples(
-            table,
-            sample_ids=unknowns + cf_checks,
-            settings=cf_settings,
-            acquisition=acquisition,
-            instrument=instrument,
-            one_point=one_point,
-        )
-        results = results_table(cf_results)
-        analytes = _cf_analytes(cf_settings, method)
-        checks = _cf_check_results(cf_results, cf_checks, check_samples, cf_certified, results)
-        for s in cf_checks:
-            if s in failures:
-                not_reported.append({"sample_id": s, "element": "*", "reason": failures.pop(s)})
-        not_evaluated = release.checks_not_evaluated(
-            check_samples, cf_certified, analytes, checks,
-            why_missing=None if cf_settings.standards_file else
-            "the method's [cf] names no standards_file with the check material's certified values",
-        )
-        for res in cf_results:
-            cf_by_sample[str(res.sample_id)] = res
-            plasma_by_sample[str(res.sample_id)] = assemble.plasma_info(res)
-        tick("quantify", len(unknowns), len(unknowns))
+        qd = _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acquisition, instrument, files,
+                          tick)
     else:
-        import pandas as pd
-
-        from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
-        from compquant.calibrate.build import certified_table
-        from compquant.quantify import quantify
-
-        stds = None
-        if standards is not None:
-            stds = load_standards(standards)
-            files.append(FileRef("standards", Path(standards).name, stds.attrs.get("sha256", sha256_file(standards))))
-            cfg = parse_calibration_section(method.sections.get("calibration"), source=method.where)
-            tick("calibrate", 0, 1)
-            cal = calibrate(
-                table,
-                stds,
-                cfg,
-                shot_table=meas.shots,
-                samples=samples,
-                method_id=method.id,
-                method_version=method.version,
-                method_sha256=method.sha256 or "",
-                run_sha256=run_sha,
-                run_path=str(run_path),
-            )
-            cal.created_utc = issued  # the calibration is made now; keeps repeated runs identical
-            cal_json_path = outdir / "calibration.json"
-            # written with the certificates at the end: a failure before then leaves no output
-            cal_text = cal.to_json() + "\n"
-            cal_sha = hashlib.sha256(cal_text.encode("utf-8")).hexdigest()
-            files.append(FileRef("calibration (written)", cal_json_path.name, cal_sha))
-            tick("calibrate", 1, 1)
-            cal_info = assemble.calibration_info(cal, cal_json_path.name, cal_sha)
-        else:
-            cal_path = require_file(calibration, "calibration file")
-            cal = Calibration.load(cal_path, method_id=method.id, method_sha256=method.sha256)
-            cal_sha = sha256_file(cal_path)
-            files.append(FileRef("calibration", cal_path.name, cal_sha))
-            cal_info = assemble.calibration_info(cal, cal_path.name, cal_sha)
-        tick("quantify", 0, 1)
-        q = quantify(meas, cal, standards=stds, run_sha256=run_sha, samples=samples)
-        tick("quantify", 1, 1)
-        results = q.results
-        checks = assemble.check_results(q.checks, results)
-        drift_info = assemble.drift_info(q.drift)
-        if calibration is not None and not q.drift.get("applied") and q.drift.get("mode", "optional") != "off":
-            # a saved calibration applied without drift standardisation departs from the method; the
-            # method allows it (drift = "optional"; "required" stops the analysis), so it does not block
-            deviations.append(
-                release.Deviation(
-                    "drift standardisation with setup samples was not possible: "
-                    f"{q.drift.get('reason', 'no usable setup measurement')} (allowed by the method: drift = "
-                    f"'{q.drift.get('mode', 'optional')}')",
-                    blocks=False,
-                )
-            )
-        analytes = _calibration_analytes(cal)
-        certified = certified_table(stds if stds is not None else pd.DataFrame(cal.standards))
-        not_evaluated = release.checks_not_evaluated(check_samples, certified, analytes, checks)
-        spt = (cal.settings or {}).get("sigma_pt_rel")
-        if spt:
-            parameters["sigma_pt_rel"] = float(spt)
-        not_reported = list(q.provenance.get("not_reported", []))
-        not_reported += [{"sample_id": "*", "element": el, "reason": f"no calibration curve: {why}"}
-                         for el, why in sorted(cal.rejected.items())]
-        matrix_fraction = dict(q.matrix_fraction)
-        curves = dict(cal.curves)
-        parameters["calibration_id"] = cal.calibration_id
-        parameters["coverage"] = str(q.provenance.get("coverage", "k2"))
-        if cal.matrix_element:
-            parameters["matrix_element"] = str(cal.matrix_element)
+        qd = _quantify_calibration(meas, samples, method, standards, calibration, run_path, run_sha, issued, outdir,
+                                   files, deviations, parameters, check_samples, tick)
+    results, checks, drift_info, not_reported, failures = (qd.results, qd.checks, qd.drift_info, qd.not_reported,
+                                                           qd.failures)
+    matrix_fraction, plasma_by_sample, cf_by_sample, curves = (qd.matrix_fraction, qd.plasma_by_sample,
+                                                               qd.cf_by_sample, qd.curves)
+    analytes, not_evaluated, cal_info, cal_json_path, cal_text = (qd.analytes, qd.not_evaluated, qd.cal_info,
+                                                                  qd.cal_json_path, qd.cal_text)
 
     if labp.sha256:
         files.append(FileRef("lab profile", Path(labp.source).name, labp.sha256))
@@ -555,6 +455,139 @@ def analyse(
 
 
 # ------------------------------------------------------------------------- helpers of analyse()
+
+
+@dataclass
+class _Quant:
+    """What the quantification step hands on to the certificates."""
+
+    results: object = None  # the results table (compquant.quantify.RESULT_COLUMNS)
+    checks: list = field(default_factory=list)  # CheckResult
+    drift_info: DriftInfo = field(default_factory=lambda: DriftInfo(False, ""))
+    not_reported: list = field(default_factory=list)
+    failures: dict = field(default_factory=dict)
+    matrix_fraction: dict = field(default_factory=dict)
+    plasma_by_sample: dict = field(default_factory=dict)
+    cf_by_sample: dict = field(default_factory=dict)
+    curves: dict = field(default_factory=dict)
+    analytes: list = field(default_factory=list)  # the analytes of the method
+    not_evaluated: list = field(default_factory=list)  # check samples held but not evaluated
+    cal_info: object = None
+    cal_json_path: Path | None = None  # calibration.json to write (calibrated from this run)
+    cal_text: str | None = None
+
+
+def _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acquisition, instrument, files,
+                 tick) -> _Quant:
+    """Calibration-free analysis of the unknowns, and of the check samples the [cf] standards certify."""
+    from compquant.cflibs import analyse_cf_samples
+    from compquant.cflibs.result import results_table
+
+    qd = _Quant(drift_info=DriftInfo(False, "not applicable to calibration-free analysis"))
+    tick("quantify", 0, len(unknowns))
+    cf_certified, one_point = _cf_references(cf_settings, method, table, refs, acquisition, instrument, files)
+    cf_checks = [s for s, ref in check_samples.items() if (ref or s) in cf_certified]
+    cf_results, qd.failures = analyse_cf_samples(
+        table,
+        sample_ids=unknowns + cf_checks,
+        settings=cf_settings,
+        acquisition=acquisition,
+        instrument=instrument,
+        one_point=one_point,
+    )
+    qd.results = results_table(cf_results)
+    qd.analytes = _cf_analytes(cf_settings, method)
+    qd.checks = _cf_check_results(cf_results, cf_checks, check_samples, cf_certified, qd.results)
+    for s in cf_checks:
+        if s in qd.failures:
+            qd.not_reported.append({"sample_id": s, "element": "*", "reason": qd.failures.pop(s)})
+    qd.not_evaluated = release.checks_not_evaluated(
+        check_samples, cf_certified, qd.analytes, qd.checks,
+        why_missing=None if cf_settings.standards_file else
+        "the method's [cf] names no standards_file with the check material's certified values",
+    )
+    for res in cf_results:
+        qd.cf_by_sample[str(res.sample_id)] = res
+        qd.plasma_by_sample[str(res.sample_id)] = assemble.plasma_info(res)
+    tick("quantify", len(unknowns), len(unknowns))
+    return qd
+
+
+def _quantify_calibration(meas, samples, method, standards, calibration, run_path, run_sha, issued, outdir, files,
+                          deviations, parameters, check_samples, tick) -> _Quant:
+    """Calibrate from the run's standards (or load a saved calibration) and quantify every sample."""
+    import pandas as pd
+
+    from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
+    from compquant.calibrate.build import certified_table
+    from compquant.quantify import quantify
+
+    qd = _Quant()
+    stds = None
+    if standards is not None:
+        stds = load_standards(standards)
+        files.append(FileRef("standards", Path(standards).name, stds.attrs.get("sha256", sha256_file(standards))))
+        cfg = parse_calibration_section(method.sections.get("calibration"), source=method.where)
+        tick("calibrate", 0, 1)
+        cal = calibrate(
+            meas.table,
+            stds,
+            cfg,
+            shot_table=meas.shots,
+            samples=samples,
+            method_id=method.id,
+            method_version=method.version,
+            method_sha256=method.sha256 or "",
+            run_sha256=run_sha,
+            run_path=str(run_path),
+        )
+        cal.created_utc = issued  # the calibration is made now; keeps repeated runs identical
+        qd.cal_json_path = outdir / "calibration.json"
+        # written with the certificates at the end: a failure before then leaves no output
+        qd.cal_text = cal.to_json() + "\n"
+        cal_sha = hashlib.sha256(qd.cal_text.encode("utf-8")).hexdigest()
+        files.append(FileRef("calibration (written)", qd.cal_json_path.name, cal_sha))
+        tick("calibrate", 1, 1)
+        qd.cal_info = assemble.calibration_info(cal, qd.cal_json_path.name, cal_sha)
+    else:
+        cal_path = require_file(calibration, "calibration file")
+        cal = Calibration.load(cal_path, method_id=method.id, method_sha256=method.sha256)
+        cal_sha = sha256_file(cal_path)
+        files.append(FileRef("calibration", cal_path.name, cal_sha))
+        qd.cal_info = assemble.calibration_info(cal, cal_path.name, cal_sha)
+    tick("quantify", 0, 1)
+    q = quantify(meas, cal, standards=stds, run_sha256=run_sha, samples=samples)
+    tick("quantify", 1, 1)
+    qd.results = q.results
+    qd.checks = assemble.check_results(q.checks, q.results)
+    qd.drift_info = assemble.drift_info(q.drift)
+    if calibration is not None and not q.drift.get("applied") and q.drift.get("mode", "optional") != "off":
+        # a saved calibration applied without drift standardisation departs from the method; the
+        # method allows it (drift = "optional"; "required" stops the analysis), so it does not block
+        deviations.append(
+            release.Deviation(
+                "drift standardisation with setup samples was not possible: "
+                f"{q.drift.get('reason', 'no usable setup measurement')} (allowed by the method: drift = "
+                f"'{q.drift.get('mode', 'optional')}')",
+                blocks=False,
+            )
+        )
+    qd.analytes = _calibration_analytes(cal)
+    certified = certified_table(stds if stds is not None else pd.DataFrame(cal.standards))
+    qd.not_evaluated = release.checks_not_evaluated(check_samples, certified, qd.analytes, qd.checks)
+    spt = (cal.settings or {}).get("sigma_pt_rel")
+    if spt:
+        parameters["sigma_pt_rel"] = float(spt)
+    qd.not_reported = list(q.provenance.get("not_reported", []))
+    qd.not_reported += [{"sample_id": "*", "element": el, "reason": f"no calibration curve: {why}"}
+                        for el, why in sorted(cal.rejected.items())]
+    qd.matrix_fraction = dict(q.matrix_fraction)
+    qd.curves = dict(cal.curves)
+    parameters["calibration_id"] = cal.calibration_id
+    parameters["coverage"] = str(q.provenance.get("coverage", "k2"))
+    if cal.matrix_element:
+        parameters["matrix_element"] = str(cal.matrix_element)
+    return qd
 
 
 def _calibration_analytes(cal) -> list[str]:

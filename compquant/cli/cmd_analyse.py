@@ -142,6 +142,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 
     import pandas as pd
 
+    from compquant.analyse import verify_output_set
     from compquant.errors import CompquantError, OutputError
     from compquant.fileio import atomic_write
     from compquant.parallel import analyse_runs, collect_runs, open_executor, run_output_folders
@@ -160,6 +161,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     for oc in outcomes:
         if oc.ok:
             v = oc.value
+            verify_output_set(v["outdir"])  # the set is whole before its rows are combined
             lims = pd.read_csv(v["lims_csv"], dtype=str, keep_default_na=False, sep=sep)
             lims.insert(0, "run", oc.run)
             frames.append(lims)
