@@ -929,6 +929,12 @@ def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, 
                 )
             )
         if cal_json_path is not None:
+            old = outdir / cal_json_path.name
+            if old.is_file() and old.read_text("utf-8") != cal_text:
+                # the calibration the earlier (now superseded or kept) certificates name stays in the
+                # folder under its hash, so every certificate's calibration file can still be found
+                sha = sha256_file(old)
+                shutil.copyfile(old, staging / f"{cal_json_path.stem}-{sha[:12]}.json")
             write_text_atomic(staging / cal_json_path.name, cal_text)
         write_lims_csv(certs, staging / "lims.csv", lims_dialect)
         valid = all(o.valid_for_release for o in outputs)

@@ -275,6 +275,9 @@ def test_reanalysis_refuses_or_issues_a_revision(tmp_path):
     assert path.read_bytes() == before
     text = " ".join(PdfReader(c.pdf).pages[0].extract_text().split())
     assert "Supersedes " + first.certificates[0].number in text
+    # the calibration the first certificates name is still in the folder, under its hash
+    cal_sha = json.loads(path.with_suffix(".json").read_text())["calibration"]["file_sha256"]
+    assert (tmp_path / "o" / f"calibration-{cal_sha[:12]}.json").is_file()
     verify_output_set(tmp_path / "o")
 
 
