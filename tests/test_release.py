@@ -106,6 +106,34 @@ def test_three_standards_not_valid_cu_not_determined(tmp_path):
 
     block = release_block_from_summary(tmp_path / "out" / "summary.json", "three.h5")
     assert "three.h5:   Zn in LOT-2611-A" in block and "three.h5: NOT VALID FOR RELEASE: 5 of 5" in block
+    # a re-analysis into the same folder on another day: refused from the CLI, or a revision with --revise
+    argv = [a if a != ISSUED else "2026-12-02T10:00:00Z" for a in _argv(run, tmp_path / "out")]
+    r = CliRunner().invoke(main, argv)
+    assert r.exit_code == 2 and "already issued" in r.output, r.output
+    r = CliRunner().invoke(main, argv + ["--revise", "standards file corrected"])
+    assert r.exit_code == 3, r.output
+    rev = json.loads((tmp_path / "out" / "LOT-2611-A-R1.json").read_text())
+    assert rev["supersedes"] == {"number": doc["number"], "reason": "standards file corrected"}
+    assert json.loads((tmp_path / "out" / "LOT-2611-A.json").read_text()) == doc  # the first issue is kept
+
+
+def test_measurement_time_from_the_run_or_the_user():
+    from types import SimpleNamespace as NS
+
+    import pandas as pd
+
+    from compquant.analyse import _measurement_times
+    from compquant.errors import ConfigError
+
+    samples = pd.DataFrame({"sample_id": ["A", "B"]})
+    shots = pd.DataFrame({"sample_id": ["A", "B"], "time_s": [0.0, 90.0]})
+    converted = NS(acquisition={}, shots=shots, attrs={"created": "2026-12-02T07:00:00Z"})
+    assert _measurement_times(converted, samples, None) == {"A": "", "B": ""}  # never the creation time
+    assert _measurement_times(converted, samples, "2026-11-30T09:00:00Z")["B"] == "2026-11-30T09:00:00Z"
+    stated = NS(acquisition={"start_time": "2026-11-16T08:30:00Z"}, shots=shots, attrs={})
+    assert _measurement_times(stated, samples, None)["B"] == "2026-11-16T08:31:30Z"  # start + the sample's first shot
+    with pytest.raises(ConfigError, match="measured on 2026-11-16"):
+        _measurement_times(stated, samples, "2026-11-30T09:00:00Z")
 
 
 def test_check_sample_whose_standard_is_missing(tmp_path):
