@@ -16,6 +16,7 @@ import shutil
 from pathlib import Path
 
 import h5py
+import jsonschema
 import numpy as np
 import pytest
 from click.testing import CliRunner
@@ -27,6 +28,7 @@ from compquant.errors import InputError, OutputError, RunFormatError
 from compquant.fileio import refuse_overwriting_inputs
 from compquant.report import release
 from compquant.report.certificate import CheckResult, ResultRow, certificate_number, result_set_digest
+from compquant.report.jsonform import load_schema
 from compquant.run import Run, write_run
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -113,6 +115,8 @@ def test_three_standards_not_valid_cu_not_determined(tmp_path):
     r = CliRunner().invoke(main, argv + ["--revise", "standards file corrected"])
     assert r.exit_code == 3, r.output
     rev = json.loads((tmp_path / "out" / "LOT-2611-A-R1.json").read_text())
+    for d in (doc, rev):
+        jsonschema.validate(d, load_schema())  # the schema (package data) knows the new fields
     assert rev["supersedes"] == {"number": doc["number"], "reason": "standards file corrected"}
     assert json.loads((tmp_path / "out" / "LOT-2611-A.json").read_text()) == doc  # the first issue is kept
 
