@@ -101,8 +101,9 @@ class AnalysisOutput:
 
     @property
     def exit_code(self) -> int:
-        """0 when every certificate is valid for release, else :data:`release.EXIT_NOT_VALID`."""
-        return 0 if self.valid_for_release else release.EXIT_NOT_VALID
+        """0 when every certificate is valid for release and every unknown sample got one, else
+        :data:`release.EXIT_NOT_VALID`."""
+        return 0 if self.valid_for_release and not self.failures else release.EXIT_NOT_VALID
 
 
 def _now_utc() -> str:
@@ -375,15 +376,18 @@ def analyse(
         tick("certificates", i, len(unknowns))
         rows = assemble.result_rows(results, sid)
         nr_sid = [nr for nr in not_reported if str(nr.get("sample_id")) in (sid, "*")]
-        missing = release.analytes_not_reported(analytes, rows, nr_sid)
-        missing_all += [{"sample_id": sid, "element": el, "reason": why} for el, why in missing.items()]
-        if not any(r.below_lod or finite(r.mass_fraction) for r in rows):
-            # nothing to certify: no certificate, the reason goes to the summary and the terminal
+        if not rows:
+            # nothing measured: no certificate, the reason goes to the summary and the terminal
             failures.setdefault(sid, "no element could be quantified for this sample")
             skipped.append(sid)
             continue
-        rows = _complete_rows(rows, missing, matrix_el, matrix_fraction.get(sid), checks, basis, curves)
-        remarks = [f"{el} not reported: {why}" for el, why in missing.items()]
+        missing = release.analytes_not_reported(analytes, rows, nr_sid)
+        # with the matrix by difference not determined, every ratio-to-matrix result is not either
+        dependent = release.matrix_dependents(missing, rows, qd.ratio_dependent, matrix_el)
+        missing_all += [{"sample_id": sid, "element": el, "reason": why}
+                        for el, why in {**missing, **dependent}.items()]
+        rows = _complete_rows(rows, missing, dependent, matrix_el, matrix_fraction.get(sid), checks, basis, curves)
+        remarks = [f"{el} not reported: {why}" for el, why in {**missing, **dependent}.items()]
         if lab is None:
             remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
         cert = Certificate(
@@ -411,7 +415,7 @@ def analyse(
             detected_not_quantified=_not_quantified(sid, {r.element for r in rows}, remarks),
             deviations=list(dev_texts),
             remarks=remarks,
-            release_blocks=release.analyte_reasons(missing, matrix_el) + step_blocks,
+            release_blocks=release.analyte_reasons(missing, matrix_el, dependent) + step_blocks,
         )
         digest = result_set_digest(basis, files, rows)
         cert.provenance.parameters["result_set_sha256"] = digest
@@ -471,6 +475,7 @@ class _Quant:
     cf_by_sample: dict = field(default_factory=dict)
     curves: dict = field(default_factory=dict)
     analytes: list = field(default_factory=list)  # the analytes of the method
+    ratio_dependent: set = field(default_factory=set)  # analytes whose mass fraction is a ratio x the matrix
     not_evaluated: list = field(default_factory=list)  # check samples held but not evaluated
     cal_info: object = None
     cal_json_path: Path | None = None  # calibration.json to write (calibrated from this run)
@@ -573,6 +578,9 @@ def _quantify_calibration(meas, samples, method, standards, calibration, run_pat
             )
         )
     qd.analytes = _calibration_analytes(cal)
+    qd.ratio_dependent = {el for el, c in cal.curves.items() if c.basis == "ratio"}
+    if cal.pls and cal.pls.get("target") == "ratio":
+        qd.ratio_dependent |= set(cal.pls.get("models", {}))
     certified = certified_table(stds if stds is not None else pd.DataFrame(cal.standards))
     qd.not_evaluated = release.checks_not_evaluated(check_samples, certified, qd.analytes, qd.checks)
     spt = (cal.settings or {}).get("sigma_pt_rel")
@@ -678,13 +686,18 @@ def _method_files(method) -> list[FileRef]:
     return out
 
 
-def _complete_rows(rows, missing, matrix_el, matrix, checks, basis, curves) -> list[ResultRow]:
+def _complete_rows(rows, missing, dependent, matrix_el, matrix, checks, basis, curves) -> list[ResultRow]:
     """The sample's rows plus one *not determined* row per missing analyte and the matrix row.
 
     The matrix by difference is *not determined* when any analyte is missing: it is never closed
-    over a subset of the analytes.
+    over a subset of the analytes; nor are the results that are ratios to it (``dependent``).
     """
     rows = list(rows)
+    for r in rows:
+        if r.element in dependent:
+            r.mass_fraction = r.U = r.u = r.lod = r.loq = None
+            r.below_lod = r.above_range = False
+            r.flags = [f for f in r.flags if f not in ("below_lod", "below_loq")] + ["not_reported"]
     have = {r.element for r in rows}
     for el in missing:
         if el not in have:

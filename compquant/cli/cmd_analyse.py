@@ -207,7 +207,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
         f"combined LIMS CSV: {out / 'lims-all.csv'} ({len(frames)} of {len(outcomes)} runs); status: {out / 'runs.csv'}"
     )
     failed = [oc.run for oc in outcomes if not oc.ok]
-    all_valid = all(st["valid_for_release"] for st in status)
+    all_valid = all(oc.ok and oc.value["valid_for_release"] and not oc.value["failures"] for oc in outcomes)
     if failed:
         raise CompquantError(
             f"{len(failed)} of {len(outcomes)} runs failed: {', '.join(failed)}",
@@ -336,5 +336,5 @@ def command(
     finally:
         prog.close()
     report_outputs(out)
-    if not out.valid_for_release:
-        ctx.exit(EXIT_NOT_VALID)
+    if out.exit_code:
+        ctx.exit(out.exit_code)

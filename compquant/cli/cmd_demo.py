@@ -116,5 +116,5 @@ def command(ctx, outdir, issued_at, quiet):
     report_outputs(out)
     pdfs = [c.pdf for c in out.certificates]
     click.echo("open the certificates: " + (pdfs[0] if len(pdfs) == 1 else f"{Path(out.outdir)}/*.pdf"))
-    if not out.valid_for_release:
+    if out.exit_code:
         ctx.exit(out.exit_code)

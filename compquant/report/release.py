@@ -12,7 +12,9 @@ rule                      not valid for release when
 analyte-not-reported      an analyte of the method has no result for the sample (curve not
                           made, line not found, all shots rejected, outside the calibrated
                           range by more than the method allows); the matrix by difference is
-                          then *not determined*, never closed over the analytes left
+                          then *not determined*, never closed over the analytes left, and
+                          nor is any result that is a ratio to the matrix
+                          (:func:`matrix_dependents`)
 closure                   the reported elements and the matrix do not close: their sum
                           differs from 100 % by more than its expanded uncertainty, or the
                           matrix by difference is negative / above 100 % beyond its U
@@ -122,8 +124,24 @@ def analytes_not_reported(analytes, rows, not_reported_sample: list[dict]) -> di
     return {el: why.get(el, "no result") for el in analytes if el not in have}
 
 
-def analyte_reasons(missing: dict[str, str], matrix_element: str | None) -> list[str]:
+def matrix_dependents(missing: dict[str, str], rows, ratio_elements, matrix_element: str | None) -> dict[str, str]:
+    """``{element: why}`` for results that are ratios to the matrix, when the matrix is not determined.
+
+    With an internal-standard (ratio) calibration each mass fraction is ``w_a = r_a w_m`` with the
+    matrix ``w_m`` by difference; closed over a subset of the analytes ``w_m`` is too high, and so
+    is every ``w_a``.  So when an analyte is missing none of them is determined.
+    """
+    if not missing or not matrix_element:
+        return {}
+    why = f"a ratio to {matrix_element}, whose mass fraction by difference is not determined"
+    return {r.element: why for r in rows if r.element in set(ratio_elements) and r.element not in missing}
+
+
+def analyte_reasons(missing: dict[str, str], matrix_element: str | None, dependent=None) -> list[str]:
     out = [reason("analyte-not-reported", f"{el} ({why})") for el, why in missing.items()]
+    if dependent:
+        out.append(reason("analyte-not-reported", f"{', '.join(dependent)} not determined: each is "
+                          f"{next(iter(dependent.values()))}"))
     if missing and matrix_element:
         out.append(
             reason(
@@ -377,6 +395,7 @@ __all__ = [
     "rule_of",
     "analytes_not_reported",
     "analyte_reasons",
+    "matrix_dependents",
     "closure_reasons",
     "horwitz_sigma",
     "sigma_pt",
