@@ -581,14 +581,15 @@ def _quantify_calibration(meas, samples, method, standards, calibration, run_pat
     qd.ratio_dependent = {el for el, c in cal.curves.items() if c.basis == "ratio"}
     if cal.pls and cal.pls.get("target") == "ratio":
         qd.ratio_dependent |= set(cal.pls.get("models", {}))
-    certified = certified_table(stds if stds is not None else pd.DataFrame(cal.standards))
-    qd.not_evaluated = release.checks_not_evaluated(check_samples, certified, qd.analytes, qd.checks)
-    spt = (cal.settings or {}).get("sigma_pt_rel")
-    if spt:
-        parameters["sigma_pt_rel"] = float(spt)
     qd.not_reported = list(q.provenance.get("not_reported", []))
     qd.not_reported += [{"sample_id": "*", "element": el, "reason": f"no calibration curve: {why}"}
                         for el, why in sorted(cal.rejected.items())]
+    certified = certified_table(stds if stds is not None else pd.DataFrame(cal.standards))
+    qd.not_evaluated = release.checks_not_evaluated(check_samples, certified, qd.analytes, qd.checks)
+    _drop_matrix_dependent_checks(qd, check_samples, cal.matrix_element)
+    spt = (cal.settings or {}).get("sigma_pt_rel")
+    if spt:
+        parameters["sigma_pt_rel"] = float(spt)
     qd.matrix_fraction = dict(q.matrix_fraction)
     qd.curves = dict(cal.curves)
     parameters["calibration_id"] = cal.calibration_id
@@ -596,6 +597,28 @@ def _quantify_calibration(meas, samples, method, standards, calibration, run_pat
     if cal.matrix_element:
         parameters["matrix_element"] = str(cal.matrix_element)
     return qd
+
+
+def _drop_matrix_dependent_checks(qd: _Quant, check_samples: dict, matrix_el) -> None:
+    """A check sample whose matrix by difference is not determined cannot check its ratio results.
+
+    Their found values rest on a matrix closed over a subset of the analytes; they are taken out of
+    the comparisons and named under ``not_evaluated``.
+    """
+    if not matrix_el or not qd.ratio_dependent:
+        return
+    drop = set()
+    for sid, ref in check_samples.items():
+        rows = assemble.result_rows(qd.results, sid)
+        nr = [n for n in qd.not_reported if str(n.get("sample_id")) in (sid, "*")]
+        dep = release.matrix_dependents(release.analytes_not_reported(qd.analytes, rows, nr), rows,
+                                        qd.ratio_dependent, matrix_el)
+        dep = {el: why for el, why in dep.items() if any(c.sample_id == sid and c.element == el for c in qd.checks)}
+        if dep:
+            why = next(iter(dep.values()))
+            qd.not_evaluated.append(f"{sid} ({ref}): {', '.join(dep)} not comparable, each is {why}")
+            drop |= {(sid, el) for el in dep}
+    qd.checks = [c for c in qd.checks if (c.sample_id, c.element) not in drop]
 
 
 def _calibration_analytes(cal) -> list[str]:

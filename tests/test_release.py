@@ -101,6 +101,9 @@ def test_three_standards_not_valid_cu_not_determined(tmp_path):
     for el in ("Ni", "Fe", "Al", "Mn"):
         assert by_el[el]["mass_fraction"] is None and by_el[el]["reported"]["value"] == "not determined"
     assert "analyte not reported: Ni, Fe, Al, Mn not determined: each is a ratio to Cu" in doc["release"]["reasons"][3]
+    # the check sample's ratio results rest on the same wrong closure: not compared, named instead
+    assert any("Ni, Fe, Al, Mn not comparable" in t for t in doc["quality_control"]["not_evaluated"])
+    assert not doc["quality_control"]["check_samples"]
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert summary["valid_for_release"] is False
     assert {(d["sample_id"], d["element"]) for d in summary["not_reported"]} >= {("LOT-2611-A", "Zn"),
