@@ -372,8 +372,7 @@ def analyse(
     drafts: list[Certificate] = []
     skipped: list[str] = []
     missing_all: list[dict] = []
-    for i, sid in enumerate(unknowns):
-        tick("certificates", i, len(unknowns))
+    for sid in unknowns:
         rows = assemble.result_rows(results, sid)
         nr_sid = [nr for nr in not_reported if str(nr.get("sample_id")) in (sid, "*")]
         if not rows:
@@ -421,7 +420,6 @@ def analyse(
         cert.provenance.parameters["result_set_sha256"] = digest
         cert.number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date, result_digest=digest)
         drafts.append(cert)
-    tick("certificates", len(unknowns), len(unknowns))
 
     units = element_units((r.element, r.mass_fraction, r.lod, r.below_lod) for c in drafts for r in c.results)
     for c in drafts:  # one unit per element across the run's certificates, LIMS CSV and screen
@@ -454,7 +452,7 @@ def analyse(
             outdir, plan, figures_for, cal_json_path, cal_text if cal_json_path is not None else None,
             _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_info, files, drift_info,
                           checks, not_evaluated),
-            missing_all, not_reported, failures, skipped, basis, lims_dialect,
+            missing_all, not_reported, failures, skipped, basis, lims_dialect, tick,
         )
 
 
@@ -931,7 +929,8 @@ MANIFEST_SCHEMA = "compquant-output-manifest"
 
 
 def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, summary: dict, missing_all,
-                      not_reported, failures, skipped, basis, lims_dialect="rfc4180") -> AnalysisOutput:
+                      not_reported, failures, skipped, basis, lims_dialect="rfc4180",
+                      tick=lambda *a: None) -> AnalysisOutput:
     """Build the whole output set in a staging folder, move it in, write the manifest last."""
     import shutil
     import tempfile
@@ -939,7 +938,8 @@ def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, 
     staging = Path(tempfile.mkdtemp(prefix=".staging-", dir=outdir))
     try:
         certs, outputs = [], []
-        for it in plan:
+        for i, it in enumerate(plan):
+            tick("certificates", i, len(plan))
             cert = it.cert
             cert.figures = figures_for(cert, it.stem)
             data, pages = render_pdf_bytes(cert)
@@ -964,6 +964,7 @@ def _write_output_set(outdir: Path, plan, figures_for, cal_json_path, cal_text, 
                     cert.supersedes,
                 )
             )
+        tick("certificates", len(plan), len(plan))
         if cal_json_path is not None:
             old = outdir / cal_json_path.name
             if old.is_file() and old.read_text("utf-8") != cal_text:
