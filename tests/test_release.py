@@ -446,3 +446,22 @@ def test_calibration_free_check_sample_is_evaluated():
     assert by["Zn"].En == pytest.approx(0.008 / np.hypot(0.004, 0.0017)) and not by["Zn"].passed
     assert by["Sn"].passed and by["Sn"].flags == ["low_snr"]
     assert release.checks_not_evaluated({"CHK-108": "HRM-CA-108"}, certified, ["Zn", "Sn"], checks) == []
+
+
+def test_quantify_screen_table_value_and_u_in_one_unit():
+    """issue 13 item 7: the quantify table printed e.g. '0.29 % +- 200 mg/kg'; now one unit per element."""
+    from types import SimpleNamespace as NS
+
+    import pandas as pd
+
+    from compquant.cli.cmd_quantify import results_text
+
+    res = pd.DataFrame({
+        "sample_id": ["A", "B"], "element": ["Sn", "Sn"], "mass_fraction": [0.0029, 0.00023],
+        "U": [0.0002, 0.00002], "lod": [8e-5, 8e-5], "below_lod": [False, False], "basis": ["calibration"] * 2,
+        "flags": ["", ""], "role": ["unknown", "unknown"],
+    })
+    q = NS(results=res, checks=pd.DataFrame(columns=["sample_id", "standard_id", "element", "En", "passed"]),
+           valid_for_release=True, drift={"applied": False, "reason": "calibration run"}, provenance={})
+    text = results_text(q)
+    assert "0.290 +- 0.020 %" in text and "0.0230 +- 0.0020 %" in text and "mg/kg" not in text
