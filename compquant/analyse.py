@@ -803,11 +803,34 @@ def _issued(outdir: Path, stem: str, sid: str) -> list[dict]:
     return sorted(found, key=lambda d: d["revision"])
 
 
+def _same_as_issued(last: dict, cert: Certificate) -> bool:
+    """True when ``cert``, numbered as the issued certificate ``last``, says exactly what it says.
+
+    Compared as canonical JSON (figures aside: they are drawn from the same numbers), so another
+    client name, issue time or lab profile is a different certificate.  When true, ``cert`` keeps
+    the issued number, revision and supersedes; otherwise it is left as it was.
+    """
+    from compquant.report.jsonform import certificate_to_dict
+
+    before = (cert.number, cert.revision, cert.supersedes, cert.revision_reason)
+    sup = last.get("supersedes") or {}
+    cert.number, cert.revision = str(last.get("number", "")), int(last.get("revision", 0) or 0)
+    cert.supersedes, cert.revision_reason = str(sup.get("number", "")), str(sup.get("reason", ""))
+    new = certificate_to_dict(cert)
+    old = dict(last)
+    new.pop("figures", None)
+    old.pop("figures", None)
+    if canonical_json(new) == canonical_json(old):
+        return True
+    cert.number, cert.revision, cert.supersedes, cert.revision_reason = before
+    return False
+
+
 def plan_issue(outdir: Path, drafts, stems: dict, revise: str | None) -> list[_Issue]:
     """Decide, before writing anything, how each certificate is issued (docs/certificate.md).
 
-    No certificate of the sample in the folder: issue it.  The latest one holds the same result
-    set (same result-set digest and issue date): keep it, write nothing.  Otherwise refuse,
+    No certificate of the sample in the folder: issue it.  The latest one says exactly the same
+    (:func:`_same_as_issued`): keep it, write nothing.  Otherwise refuse,
     unless ``revise`` gives the reason for a revision ``<first number>-R<n>`` that names the
     certificate it supersedes; the issued files stay as they are.
     """
@@ -822,13 +845,7 @@ def plan_issue(outdir: Path, drafts, stems: dict, revise: str | None) -> list[_I
             plan.append(_Issue(cert, stem, True))
             continue
         last = issued[-1]["doc"]
-        same = (last.get("provenance", {}).get("parameters", {}).get("result_set_sha256")
-                == cert.provenance.parameters["result_set_sha256"] and last.get("issue_date") == cert.issue_date)
-        if same:
-            cert.number, cert.revision = str(last["number"]), int(last.get("revision", 0) or 0)
-            sup = last.get("supersedes") or {}
-            cert.supersedes, cert.revision_reason = str(sup.get("number", "")), str(sup.get("reason", ""))
-            cert.provenance.issued_at = str(last.get("provenance", {}).get("issued_at", cert.provenance.issued_at))
+        if _same_as_issued(last, cert):
             plan.append(_Issue(cert, Path(issued[-1]["path"]).stem, False))
             continue
         if not revise:

@@ -300,6 +300,9 @@ def test_reanalysis_refuses_or_issues_a_revision(tmp_path):
     # the same result set (same inputs, same issue time, so the same calibration file): kept as it is
     again = analyse(run, DEMO / "method.toml", issued_at=ISSUED, **kw)
     assert again.certificates[0].number == first.certificates[0].number and path.read_bytes() == before
+    # the same numbers for another client is another certificate: never written over the issued one
+    with pytest.raises(OutputError, match="already issued"):
+        analyse(run, DEMO / "method.toml", issued_at=ISSUED, client="Another client (fictional)", **kw)
     # a new issue date: a new result set; refused without a reason ...
     with pytest.raises(OutputError, match="already issued"):
         analyse(run, DEMO / "method.toml", issued_at="2026-12-02T09:00:00Z", **kw)
