@@ -37,8 +37,9 @@ STDS = ROOT / "standards" / "demo-copper-alloys.csv"
 ISSUED = "2026-12-01T21:00:00Z"
 
 
-def subset_run(src, dst, drop=(), response=True, start_time=True) -> Path:
-    """A copy of a run without the samples in ``drop`` (and optionally without response / start time)."""
+def subset_run(src, dst, drop=(), response=True, start_time=True, rename=None) -> Path:
+    """A copy of a run without the samples in ``drop`` (and optionally without response / start time,
+    or with some sample ids renamed)."""
     with Run.open(src) as run:
         s = run.samples
         keep = [i for i, sid in enumerate(s["sample_id"]) if sid not in set(drop)]
@@ -53,7 +54,8 @@ def subset_run(src, dst, drop=(), response=True, start_time=True) -> Path:
             dst,
             run.wavelength,
             run.read_shots(0, run.n_shots)[mask].astype(np.uint16),
-            s.iloc[keep][["sample_id", "role", "standard_ref", "description"]].reset_index(drop=True),
+            s.iloc[keep][["sample_id", "role", "standard_ref", "description"]].reset_index(drop=True)
+            .replace({"sample_id": rename or {}}),
             np.array([remap[i] for i in shots["sample_index"][mask]]),
             dark=run.dark(),
             response=run.response() if response else None,
@@ -289,6 +291,18 @@ def test_sample_stems_never_collide():
     stems = sample_stems(["Q", "q", "q-3", "summary", "A-R1"])
     assert len({s.lower() for s in stems.values()}) == 5
     assert stems["q-3"] == "q-3"  # an id that clashes with nothing keeps its name
+
+
+def test_ids_differing_in_case_keep_both_certificates(tmp_path):
+    """issue 13: 'Q', 'q' and 'q-3' overwrote each other's certificate after file-name cleaning."""
+    run = subset_run(DEMO / "demo-day1.h5", tmp_path / "r.h5", drop=("LOT-2611-D", "LOT-2611-E"),
+                     rename={"LOT-2611-A": "Q", "LOT-2611-B": "q", "LOT-2611-C": "q-3"})
+    out = analyse(run, DEMO / "method.toml", standards=STDS, lab=DEMO / "lab.toml", outdir=tmp_path / "o",
+                  issued_at=ISSUED, figures=False)
+    names = {c.sample_id: Path(c.json).name for c in out.certificates}
+    assert set(names) == {"Q", "q", "q-3"} and len({n.lower() for n in names.values()}) == 3
+    for sid, name in names.items():
+        assert json.loads((tmp_path / "o" / name).read_text())["sample"]["sample_id"] == sid
 
 
 def test_reanalysis_refuses_or_issues_a_revision(tmp_path):
