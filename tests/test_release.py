@@ -131,6 +131,31 @@ def test_three_standards_not_valid_cu_not_determined(tmp_path):
     assert json.loads((tmp_path / "out" / "LOT-2611-A.json").read_text()) == doc  # the first issue is kept
 
 
+def test_calibration_free_certificate_names_its_check_sample(tmp_path):
+    """issue 13: the calibration-free certificate said 'No check sample was measured in this run'
+    although CHK-108 was. With [cf] standards_file the check is analysed and compared; without it,
+    it is named as not evaluated."""
+    run = subset_run(DEMO / "demo-day1.h5", tmp_path / "r.h5",
+                     drop=("HRM-CA-104", "HRM-CA-105", "HRM-CA-106", "HRM-CA-107", "LOT-2611-B", "LOT-2611-C",
+                           "LOT-2611-D", "LOT-2611-E"))
+    text = (DEMO / "method.toml").read_text().replace(
+        "mc_draws = 300", f'mc_draws = 20\nstandards_file = "{STDS.as_posix()}"\none_point_standard = "HRM-CA-101"')
+    (tmp_path / "cf.toml").write_text(text)
+    (tmp_path / "cf0.toml").write_text((DEMO / "method.toml").read_text().replace("mc_draws = 300", "mc_draws = 20"))
+    docs = {}
+    for name in ("cf", "cf0"):
+        out = analyse(run, tmp_path / f"{name}.toml", cf=True, lab=DEMO / "lab.toml", outdir=tmp_path / name,
+                      issued_at=ISSUED, figures=False)
+        docs[name] = json.loads(Path(out.certificates[0].json).read_text())
+        pdf = " ".join("".join(p.extract_text() for p in PdfReader(out.certificates[0].pdf).pages).split())
+        assert "No check sample was measured" not in pdf
+    qc = docs["cf"]["quality_control"]
+    assert {c["sample_id"] for c in qc["check_samples"]} == {"CHK-108"} and not qc["not_evaluated"]
+    assert "standards (calibration-free)" in {f["role"] for f in docs["cf"]["provenance"]["files"]}
+    assert docs["cf0"]["quality_control"]["not_evaluated"][0].startswith("CHK-108 (HRM-CA-108): the method's [cf]")
+    assert "check-not-evaluated" in docs["cf0"]["release"]["rules"]
+
+
 def test_measurement_time_from_the_run_or_the_user():
     from types import SimpleNamespace as NS
 

@@ -98,7 +98,7 @@ def release_block(out) -> str:
     """The warning block: every analyte not reported and every reason a certificate is not valid."""
     lines = []
     if out.not_reported:
-        lines.append("WARNING: analytes of the method not reported (a matrix by difference is then not determined):")
+        lines.append("WARNING: analytes of the method not reported:")
         groups: dict = {}
         for d in out.not_reported:
             groups.setdefault((d["element"], d["reason"]), []).append(visible_text(d["sample_id"]))
