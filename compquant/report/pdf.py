@@ -537,8 +537,9 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     story.append(P("Check samples", "h3"))
     if qc.check_samples:
         crows = []
+        el_unit = {r.element: r.display_unit() for r in cert.results if finite(r.mass_fraction) or r.below_lod}
         for ck in qc.check_samples:
-            unit = choose_unit(ck.certified)
+            unit = el_unit.get(ck.element) or choose_unit(ck.certified)  # the element's unit on this certificate
             mv, mu, _ = _fmt_mf(ck.measured, ck.U_measured, unit)
             cv, cu, _ = _fmt_mf(ck.certified, ck.U_certified, unit)
             crows.append(
@@ -558,7 +559,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
             grid_table(
                 ["Check sample", "Reference", "El.", "Found ± U", "Certified ± U", "Unit", "z", "En", "Result"],
                 crows,
-                [12, 12, 4.5, 15, 15, 7, 6, 6, 7],
+                [12, 12, 4.5, 15, 15, 6, 5.5, 5.5, 9],
                 right_cols=(3, 4, 6, 7),
             )
         )
@@ -573,7 +574,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
                 "A check counts only when it could fail: 'cannot fail' means sqrt(U_found² + U_certified²) "
                 "is not below 3 σ_pt (σ_pt from the method, else the Horwitz function in Thompson's form); "
                 "'flagged' means the found value rests on a flagged line or is below the LOD; "
-                "'not counted (< LOQ)': the certified content is below the LOQ, so the check does not "
+                "'not counted': the certified content is below the LOQ, so the check does not "
                 "verify that element.",
                 "small",
             )

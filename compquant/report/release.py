@@ -256,9 +256,10 @@ def check_reasons(checks, sigma_pt_rel: float | None = None) -> list[str]:
 
 
 def check_state(c, sigma_pt_rel: float | None = None) -> str:
-    """One word for a check's outcome as printed: pass, FAIL, flagged, cannot fail or not counted."""
+    """One word for a check's outcome as printed: pass, FAIL, flagged, cannot fail or not counted
+    (certified content below the LOQ)."""
     if not in_scope(c):
-        return "not counted (< LOQ)"
+        return "not counted"
     if not c.passed:
         return "FAIL"
     if set(getattr(c, "flags", []) or []) & CHECK_BLOCKING_FLAGS:
