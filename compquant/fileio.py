@@ -175,6 +175,37 @@ def safe_filename(name: str, max_len: int = 80) -> str:
     return stem
 
 
+def refuse_overwriting_inputs(outputs, inputs) -> None:
+    """Refuse an output path that is one of the inputs or lies inside one (inputs are sacred).
+
+    ``outputs``/``inputs``: paths (None entries are skipped).  Paths are compared after
+    resolving links, and by device and inode when both exist (hard links, case-blind file
+    systems).  Raises :class:`InputError` naming the output and the input; call it before
+    anything is written.
+    """
+    def _same(a: Path, b: Path) -> bool:
+        try:
+            return a.exists() and b.exists() and os.path.samefile(a, b)
+        except OSError:
+            return False
+
+    ins = [Path(p) for p in inputs if p is not None]
+    for o in outputs:
+        if o is None:
+            continue
+        o = Path(o)
+        ro = o.resolve()
+        for i in ins:
+            ri = i.resolve()
+            if ro == ri or _same(o, i) or ri in ro.parents:
+                raise InputError(
+                    f"the output would {'replace' if ro == ri or _same(o, i) else 'be written inside'} "
+                    f"the input {str(i)!r}",
+                    where=str(o),
+                    fix="choose an output path that is not one of the command's inputs",
+                )
+
+
 def require_file(path: str | os.PathLike, what: str = "file") -> Path:
     """Return ``path`` as a Path if it is an existing, readable regular file; else raise InputError.
 
@@ -325,6 +356,7 @@ def json_ready(obj, nonfinite=None):
 
 
 __all__ = [
+    "refuse_overwriting_inputs",
     "atomic_path",
     "atomic_write",
     "check_keys",

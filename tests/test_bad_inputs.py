@@ -114,7 +114,9 @@ from bad_inputs.hardening import build_hardening, hardening_names  # noqa: E402
 
 HNAMES = hardening_names()
 #: every line the CLI may print on stderr starts with one of these (one message per line)
-STDERR_PREFIXES = ("error: ", "warning: ", "failed: ", "note: ", "wrote ", "no result for ", "measuring ", "analysing ")
+STDERR_PREFIXES = ("error: ", "warning: ", "failed: ", "note: ", "wrote ", "no result for ", "measuring ", "analysing ",
+                   # analyse's release block (docs/certificate.md): headings, then indented sample ids and reasons
+                   "WARNING: ", "NOT VALID FOR RELEASE", "  ")
 
 
 @pytest.fixture(scope="module")
@@ -160,8 +162,9 @@ def test_hostile_input(hardening, name, monkeypatch):
     err = r.stderr.splitlines()
     assert all(line.startswith(STDERR_PREFIXES) for line in err), r.stderr
     errors = [line for line in err if line.startswith("error: ")]
-    if c.expect is None:
-        assert r.exit_code == 0 and errors == [], r.output
+    if c.expect is None:  # completed: exit 0, or 3 when a certificate is not valid for release (the
+        # corpus's small run states no measurement time, so its certificates cannot be)
+        assert r.exit_code in (0, 3) and errors == [], r.output
         if c.check:
             c.check(c, r)
     else:

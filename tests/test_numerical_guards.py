@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from bad_inputs.base import LAB_TOML, METHOD_TOML, SPEC_TOML, STANDARDS_CSV, base_arrays
+from bad_inputs.base import LAB_TOML, METHOD_TOML, N_PIXELS, SPEC_TOML, STANDARDS_CSV, base_arrays
 from click.testing import CliRunner
 
 from compquant.calibrate.build import curve_from_records
@@ -50,11 +50,16 @@ def scan_outputs(out: Path) -> int:
     return n
 
 
+# the run states when it was measured and carries the response curve the method asks for, so its
+# certificates can be valid for release (compquant.report.release: dates, method-step-skipped)
+HONEST = {"acquisition": {"start_time": "2026-11-30T09:00:00Z"}, "response": np.ones(N_PIXELS)}
+
+
 def _analyse(tmp: Path, *, zn_signal=None, noise=True, standards=STANDARDS_CSV, method=METHOD_TOML, spectra_fn=None):
     wl, spectra, samples, idx, dark = base_arrays(zn_signal=zn_signal, noise=noise)
     if spectra_fn is not None:
         spectra = spectra_fn(spectra)
-    run = write_run(tmp / "run.h5", wl, spectra, samples, idx, dark=dark, saturation=65535, created="x")
+    run = write_run(tmp / "run.h5", wl, spectra, samples, idx, dark=dark, saturation=65535, created="x", **HONEST)
     for name, text in (("m.toml", method), ("s.csv", standards), ("lab.toml", LAB_TOML), ("spec.toml", SPEC_TOML)):
         (tmp / name).write_text(text, encoding="utf-8")
     out = tmp / "out"
@@ -103,7 +108,10 @@ def test_zero_slope_gives_below_lod_never_nan(tmp_path):
     if r.exit_code == 2:
         _one_line_error(r)
         return
-    assert r.exit_code == 0, r.output
+    # completed; with every Zn value below the LOD the check sample verifies nothing, so the
+    # certificates are not valid for release (exit 3, compquant.report.release)
+    assert r.exit_code == 3, r.output
+    assert "check sample not evaluated" in r.stderr
     assert scan_outputs(out) >= 4
     lims = (out / "lims.csv").read_text(encoding="utf-8")
     assert "< LOD" in lims or "below_lod" in lims  # a flag, not a number made up from noise
@@ -181,7 +189,7 @@ def test_calibration_free_far_outside_the_plasma_range_is_a_clear_error(tmp_path
         "mc_draws = 5\n"
     )
     wl, spectra, samples, idx, dark = base_arrays()
-    run = write_run(tmp_path / "run.h5", wl, spectra, samples, idx, dark=dark, saturation=65535, created="x")
+    run = write_run(tmp_path / "run.h5", wl, spectra, samples, idx, dark=dark, saturation=65535, created="x", **HONEST)
     (tmp_path / "m.toml").write_text(method, encoding="utf-8")
     out = tmp_path / "out"
     r = CliRunner().invoke(
@@ -216,7 +224,7 @@ def test_quantify_provenance_is_strict_json(tmp_path):
     """The results provenance of `compquant quantify` is strict JSON (RFC 8259 has no NaN or
     Infinity): a missing estimate is null."""
     wl, spectra, samples, idx, dark = base_arrays(zn_signal=lambda ratio: 0.3)
-    run = write_run(tmp_path / "run.h5", wl, spectra, samples, idx, dark=dark, saturation=65535, created="x")
+    run = write_run(tmp_path / "run.h5", wl, spectra, samples, idx, dark=dark, saturation=65535, created="x", **HONEST)
     (tmp_path / "m.toml").write_text(METHOD_TOML, encoding="utf-8")
     (tmp_path / "s.csv").write_text(STANDARDS_CSV, encoding="utf-8")
     cal = tmp_path / "cal.json"

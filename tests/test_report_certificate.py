@@ -271,14 +271,16 @@ def test_failed_check_sample_marks_first_page_not_valid():
     data, _n = render_pdf_bytes(c)
     pages = pdf_pages(data)
     assert "NOT VALID FOR RELEASE" in pages[0]
-    assert "check sample CHK-1 failed for Pb" in " ".join(pages[0].split())
+    assert "check sample failed: CHK-1 (CRM-B2), Pb: |En| <= 1 not met" in " ".join(pages[0].split())
     doc = certificate_to_dict(c)
+    # the release state's words come from compquant.report.release (one name per state)
     assert doc["release"] == {
         "valid": False,
-        "status": "NOT VALID FOR RELEASE",
-        "reasons": ["check sample CHK-1 failed for Pb (|En| <= 1 not met)"],
+        "status": "not valid for release",
+        "reasons": ["check sample failed: CHK-1 (CRM-B2), Pb: |En| <= 1 not met"],
+        "rules": ["check-failed"],
     }
-    assert "not valid" in lims_csv([c])
+    assert "not valid for release" in lims_csv([c])
 
 
 def test_failed_lte_criterion_marks_not_valid_and_shows_plasma():
@@ -381,7 +383,7 @@ def test_lims_csv(tmp_path):
         assert r["flag"] == ";".join(jr["flags"])
         assert r["certificate_number"] == doc["number"]
     assert rows[len(doc["results"])]["sample_id"].startswith("'=")  # no formula injection
-    assert {r["release"] for r in rows[-len(certs[2].results) :]} == {"not valid"}
+    assert {r["release"] for r in rows[-len(certs[2].results) :]} == {"not valid for release"}
 
 
 # ---- safety --------------------------------------------------------------------------------------------

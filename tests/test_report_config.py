@@ -25,7 +25,7 @@ def test_demo_lab_profile_loads():
     assert lab.name == "Harbourside Materials Testing Laboratory"
     assert lab.certificate_prefix == "HMTL"
     assert lab.signatory_name and lab.signatory_title
-    assert lab.sample_received == "2026-11-27"
+    assert lab.sample_received == "2026-11-13"
     assert len(lab.sha256) == 64
 
 

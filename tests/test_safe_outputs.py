@@ -69,6 +69,10 @@ def _build(tmp: Path) -> dict:
         dark=dark,
         saturation=65535,
         created="2026-12-01T00:00:00Z",
+        # when it was measured and the response curve the method asks for: the certificates can be
+        # valid for release (compquant.report.release, rules dates and method-step-skipped)
+        acquisition={"start_time": "2026-11-30T09:00:00Z"},
+        response=np.ones(wl.size),
     )
     files = {"run": run}
     for name, text in (

@@ -22,7 +22,7 @@ SAFETY = (
 )
 
 
-def write_csv(df, path, float_format: str = "%.10g") -> None:
+def write_csv(df, path, float_format: str = "%.10g", sep: str = ",") -> None:
     """Write ``df`` (no index) to ``path`` through :func:`compquant.fileio.atomic_write`.
 
     Every text cell and column name goes through :func:`compquant.fileio.csv_cell` (no formula,
@@ -33,7 +33,7 @@ def write_csv(df, path, float_format: str = "%.10g") -> None:
     df = safe_frame(df)
     try:
         with atomic_write(Path(path), "w", newline="") as fh:
-            df.to_csv(fh, index=False, float_format=float_format)
+            df.to_csv(fh, index=False, float_format=float_format, sep=sep)
     except OSError as exc:
         raise OutputError(
             f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import click
 
+from compquant.fileio import visible_text
+from compquant.report.release import EXIT_NOT_VALID, NOT_VALID_FOR_RELEASE, release_status
 from compquant.report.safety import safety_plain
 
 _EPILOG = "\b\nSAFETY NOTES (LIBS and spark OES can hurt people)\n\n" + "\n\n".join(
@@ -50,8 +52,6 @@ class StageProgress:
 
 def summary_table(out) -> str:
     """Plain-text table: one row per certificate, one column per element (printed values)."""
-    from compquant.report.pdf import visible_text
-
     elements = []
     for c in out.certificates:
         for r in c.results:
@@ -70,7 +70,7 @@ def summary_table(out) -> str:
         if len(sid) > 24:
             sid = sid[:21] + "..."
         rows.append(
-            [sid, c.number, "ok" if c.valid_for_release else "NOT VALID", c.conformity or "-"]
+            [sid, c.number, release_status(c.valid_for_release), c.conformity or "-"]
             + [vals.get(e, "-") for e in elements]
         )
     widths = [max(len(r[i]) for r in rows) for i in range(len(head))]
@@ -93,22 +93,65 @@ def report_outputs(out) -> None:
         click.echo(f"calibration:  {out.calibration_json}")
     for sid, why in sorted(out.failures.items()):
         click.echo(terminal_text(f"warning: sample {sid}: {why}"), err=True)
-    if not out.valid_for_release:
-        click.echo("NOT VALID FOR RELEASE: a quality-control criterion failed; see the certificates.", err=True)
+    click.echo(release_block(out), err=True, nl=False)
 
 
-def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options) -> None:
-    """Several runs (or folders of runs): one output set per run, a combined LIMS CSV, runs.csv."""
+def release_block(out) -> str:
+    """The warning block: every analyte not reported and every reason a certificate is not valid."""
+    lines = []
+    if out.not_reported:
+        lines.append("WARNING: analytes of the method not reported:")
+        groups: dict = {}
+        for d in out.not_reported:
+            groups.setdefault((d["element"], d["reason"]), []).append(visible_text(d["sample_id"]))
+        for (el, why), sids in groups.items():
+            lines.append(f"  {el} in {', '.join(sids)}: {visible_text(why)}")
+    bad = [c for c in out.certificates if not c.valid_for_release]
+    if bad:
+        lines.append(f"{NOT_VALID_FOR_RELEASE.upper()}: {len(bad)} of {len(out.certificates)} certificates "
+                     f"(exit code {EXIT_NOT_VALID}):")
+        same: dict = {}
+        for c in bad:
+            same.setdefault(tuple(c.reasons), []).append(visible_text(c.sample_id))
+        for reasons, sids in same.items():
+            lines.append(f"  {', '.join(sids)}:")
+            lines += [f"    - {visible_text(r)}" for r in reasons]
+    return "".join(line + "\n" for line in lines)
+
+
+def release_block_from_summary(summary_json, run_name: str) -> str:
+    """The warning block of one run of several, read back from its ``summary.json``."""
+    import json
+    from types import SimpleNamespace
+
+    with open(summary_json, encoding="utf-8") as fh:
+        doc = json.load(fh)
+    certs = [
+        SimpleNamespace(sample_id=c["sample_id"], valid_for_release=c["valid_for_release"],
+                        reasons=c.get("release_reasons", []), number=c["number"])
+        for c in doc.get("certificates", [])
+    ]
+    out = SimpleNamespace(not_reported=doc.get("not_reported", []), certificates=certs)
+    return "".join(f"{run_name}: {line}\n" for line in release_block(out).splitlines())
+
+
+def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options) -> bool:
+    """Several runs (or folders of runs): one output set per run, a combined LIMS CSV, runs.csv.
+
+    Returns True when every certificate of every run is valid for release.
+    """
     from pathlib import Path
 
     import pandas as pd
 
+    from compquant.analyse import verify_output_set
     from compquant.cli._common import report_runs, write_csv
     from compquant.errors import CompquantError, OutputError
     from compquant.fileio import terminal_text
     from compquant.parallel import analyse_runs, collect_runs, open_executor, run_output_folders
 
     paths = collect_runs(run_paths)
+    sep = ";" if options.get("lims_dialect") == "semicolon" else ","
     out = Path(outdir)
     if out.exists() and not out.is_dir():
         raise OutputError("output path exists and is not a folder", where=str(out), fix="choose a folder")
@@ -121,7 +164,8 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     for oc in outcomes:
         if oc.ok:
             v = oc.value
-            lims = pd.read_csv(v["lims_csv"], dtype=str, keep_default_na=False)
+            verify_output_set(v["outdir"])  # the set is whole before its rows are combined
+            lims = pd.read_csv(v["lims_csv"], dtype=str, keep_default_na=False, sep=sep)
             lims.insert(0, "run", oc.run)
             frames.append(lims)
             status.append(
@@ -140,6 +184,8 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
             ))
             for sid, why in sorted(v["failures"].items()):
                 click.echo(terminal_text(f"warning: {oc.run}: sample {sid}: {why}"), err=True)
+            if not v["valid_for_release"]:
+                click.echo(release_block_from_summary(v["summary_json"], oc.run), err=True, nl=False)
         else:
             status.append(
                 {
@@ -153,18 +199,20 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
             )
     failed = [oc.run for oc in report_runs(outcomes, out, click.echo)]
     if frames:
-        write_csv(pd.concat(frames, ignore_index=True), out / "lims-all.csv")
+        write_csv(pd.concat(frames, ignore_index=True), out / "lims-all.csv", sep=sep)
     cols = ["run", "status", "outputs", "certificates", "valid_for_release", "error"]
     write_csv(pd.DataFrame(status, columns=cols), out / "runs.csv")
     click.echo(terminal_text(
         f"combined LIMS CSV: {out / 'lims-all.csv'} ({len(frames)} of {len(outcomes)} runs); status: {out / 'runs.csv'}"
     ))
+    all_valid = all(oc.ok and oc.value["valid_for_release"] and not oc.value["failures"] for oc in outcomes)
     if failed:
         raise CompquantError(
             f"{len(failed)} of {len(outcomes)} runs failed: {', '.join(failed)}",
             where=str(out),
             fix="see the 'failed:' lines above and runs.csv; the other runs' outputs are complete",
         )
+    return all_valid
 
 
 @click.command("analyse", epilog=_EPILOG)
@@ -197,9 +245,26 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     "--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes (loopback only)."
 )
 @click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option(
+    "--measured", metavar="ISO-8601", help="Start time of the measurement, for a run that states none (converted)."
+)
+@click.option(
+    "--revise",
+    metavar="REASON",
+    help="Re-issue certificates already issued in OUTDIR as revisions -R<n>, giving the reason.",
+)
+@click.option(
+    "--lims-dialect",
+    type=click.Choice(["rfc4180", "semicolon"]),
+    default="rfc4180",
+    show_default=True,
+    help="lims.csv: comma and decimal point, or ';' and decimal comma (UTF-8 either way).",
+)
 @click.option("--quiet", is_flag=True, help="No progress bars.")
 @click.option("--db", metavar="PATH|URL", help="Store the analysis in the lab's record (default: $COMPQUANT_DB).")
+@click.pass_context
 def command(
+    ctx,
     run_paths,
     method_path,
     standards,
@@ -217,6 +282,9 @@ def command(
     scheduler,
     quiet,
     db,
+    measured,
+    revise,
+    lims_dialect,
 ):
     """Analyse a run and write a certificate of analysis per unknown sample.
 
@@ -230,6 +298,11 @@ def command(
     plus OUTDIR/lims-all.csv (every run's LIMS rows, a run column first) and OUTDIR/runs.csv.
     A run that fails is named and the others still complete. --workers N / --scheduler ADDRESS
     compute on Dask (one run per task, or the chunks of a single run), with the same numbers.
+
+    \b
+    Exit codes: 0 every certificate is valid for release; 3 the analysis completed but a
+    certificate is not valid for release (the reasons are printed and on the certificates);
+    2 an input error (nothing written).
     """
     from pathlib import Path
 
@@ -248,9 +321,13 @@ def command(
         figures=not no_figures,
         chunk_shots=chunk_shots,
         db=db,
+        measured=measured,
+        revise=revise,
+        lims_dialect=lims_dialect,
     )
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
-        _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options)
+        if not _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options):
+            ctx.exit(EXIT_NOT_VALID)
         return
     run_path = run_paths[0]
     prog = StageProgress(enabled=not quiet)
@@ -261,6 +338,8 @@ def command(
         prog.close()
     report_outputs(out)
     _report_record(db)
+    if out.exit_code:
+        ctx.exit(out.exit_code)
 
 
 def _report_record(db) -> None:

@@ -80,6 +80,9 @@ def command(run_path, method_path, standards_path, output, plots_dir, quiet):
     line intensity (or its ratio to the internal-standard line) against certified mass
     fraction, with diagnostics, detection limits and the setup samples' reference
     intensities for drift standardisation. Writes the calibration as versioned JSON."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output, plots_dir], [run_path, method_path, standards_path])
     from compquant.calibrate import calibrate, load_standards, parse_calibration_section
     from compquant.calibrate.pls import fit_pls_block
     from compquant.lines import measure_run

@@ -59,6 +59,9 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
     comes from H-alpha, Stark widths or the Saha balance, LTE criteria are checked, self-absorption
     is detected (and corrected if [cf] asks), and closure gives mass fractions with Monte Carlo
     uncertainty (U = 2u). One-point calibration with a certified standard when [cf] names one."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output, plots_dir], [run_path, method_path])
     from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table, run_intensity_basis
     from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
     from compquant.errors import CompquantError

@@ -41,6 +41,10 @@ def command(spectra, samples_csv, dark, saturation, medium, instrument, acquisit
     """Build a compquant run from plain-text/CSV spectra plus a samples table.
 
     Inputs are only read; the run is written atomically."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    spectra_in = [spectra] if isinstance(spectra, str) else list(spectra)
+    refuse_overwriting_inputs([output], [*spectra_in, samples_csv, *dark])
     report = convert_to_run(spectra, samples_csv, output, dark=dark, saturation=saturation, medium=medium,
                             instrument=_pairs(instrument, "instrument"),
                             acquisition=_pairs(acquisition, "acquisition"), sentinels=sentinels)

@@ -78,7 +78,8 @@ def find_demo_files() -> dict[str, Path | None]:
 )
 @click.option("--issued-at", metavar="ISO-8601", help="Issue time in UTC (default: now).")
 @click.option("--quiet", is_flag=True, help="No progress bars.")
-def command(outdir, issued_at, quiet):
+@click.pass_context
+def command(ctx, outdir, issued_at, quiet):
     """Run 'analyse' on the shipped demo run (fictional lab, standards and samples).
 
     Uses the shipped method, certified standards, lab profile and
@@ -115,3 +116,5 @@ def command(outdir, issued_at, quiet):
     report_outputs(out)
     pdfs = [c.pdf for c in out.certificates]
     click.echo("open the certificates: " + (pdfs[0] if len(pdfs) == 1 else f"{Path(out.outdir)}/*.pdf"))
+    if out.exit_code:
+        ctx.exit(out.exit_code)

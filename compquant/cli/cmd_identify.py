@@ -59,6 +59,9 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
     behind it. With --method, also map the interferences of other detected elements on the
     method's analyte lines and suggest interference-free alternatives. The run is read-only;
     outputs are written atomically. Rules: docs/identification.md."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output, imap_path, peaks_path, plot_path], [run_path, method_path, lines_path])
     from compquant.identify.plot import plot_identification
     from compquant.identify.sample import default_method, identify_sample, identify_table, sample_interference
     from compquant.identify.settings import settings_from_method

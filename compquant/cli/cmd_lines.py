@@ -198,11 +198,13 @@ def command(
     Several runs, or a folder of runs: -o is a folder; each run gets its own output set there,
     plus lines-all.csv (every run's table) and runs.csv. A run that fails is reported by name
     and the others still complete."""
+    from compquant.fileio import refuse_overwriting_inputs
     from compquant.lines import measure_run
     from compquant.method import load_method
     from compquant.parallel import chunk_mapper, open_executor
     from compquant.run import Run
 
+    refuse_overwriting_inputs([output, shots_path, qc_path], [*run_paths, method_path])
     method = load_method(method_path)
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if shots_path or qc_path or no_shots:
@@ -218,6 +220,7 @@ def command(
     stem = out.with_suffix("")
     shots_out = None if no_shots else Path(shots_path or f"{stem}-shots.csv")
     qc_out = Path(qc_path or f"{stem}-qc.csv")
+    refuse_overwriting_inputs([shots_out, qc_out, Path(f"{stem}-provenance.json")], [run_path, method_path])
     with Run.open(run_path) as run, open_executor(workers, scheduler) as ex:
         mapper = chunk_mapper(ex)
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)

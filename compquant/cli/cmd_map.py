@@ -69,6 +69,9 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
     fraction from the calibration curves. Writes maps.h5 (x/y axes in mm, units attributes) and a
     PNG per sample and element with a colour bar and a scale bar. The run is streamed chunk by
     chunk and opened read-only."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([out_dir], [run_path, method_path, calibration_path])
     from compquant.maps.build import make_maps
     from compquant.method import load_method
     from compquant.parallel import open_executor

@@ -97,6 +97,9 @@ def command(run_path, sample_id, method_path, output, wl_range):
     """Plot the mean spectrum of one sample's accepted shots (PNG), with the method's lines
     marked and labelled (red: flagged, e.g. saturated or not found). Without --method the
     spectrum is only dark- and response-corrected."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output], [run_path, method_path])
     from compquant.fileio import safe_filename
     from compquant.lines import measure_run
     from compquant.method import load_method

@@ -30,15 +30,29 @@ def _finite_json(o):
     return o
 
 
-def _fmt(w: float) -> str:
-    return f"{w * 100:.4g} %" if abs(w) >= 1e-3 else f"{w * 1e6:.4g} mg/kg"
+def _fmt(w: float, unit: str) -> str:
+    from compquant.report.numbers import UNIT_FACTOR, finite, round_sig
+
+    return f"{round_sig(w * UNIT_FACTOR[unit], 4)} {unit}" if finite(w) else "n.d."
 
 
 def results_text(q) -> str:
+    """Screen table: value and U of an element in one unit for the whole run (report.numbers)."""
+    from compquant.report.numbers import UNIT_FACTOR, element_units, finite, value_and_u
+
     lines = []
     r = q.results
+    units = element_units(zip(r["element"], r["mass_fraction"], r["lod"], r["below_lod"]))
     for row in r[r["role"].isin(["unknown", "check"])].itertuples(index=False):
-        val = f"< LOD ({_fmt(row.lod)})" if row.below_lod else f"{_fmt(row.mass_fraction)} +- {_fmt(row.U)}"
+        unit = units.get(row.element, "%")
+        f = UNIT_FACTOR[unit]
+        if row.below_lod:
+            val = f"< LOD ({_fmt(row.lod, unit)})"
+        elif not finite(row.mass_fraction):
+            val = "not determined"
+        else:
+            v, U = value_and_u(row.mass_fraction * f, row.U * f if finite(row.U) else None)
+            val = f"{v} +- {U} {unit}" if U else f"{v} {unit}"
         lines.append(f"{terminal_text(row.sample_id):<14} {row.element:<3} {row.basis:<11} {val:<32} {row.flags or ''}")
     for c in q.checks.itertuples(index=False):
         lines.append(
@@ -99,6 +113,9 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
     every sample with standard and expanded uncertainty (k = 2 unless the method says
     otherwise), LOD/LOQ, flags, and check samples against their certificates (E_n).
     Writes the results CSV, <stem>-checks.csv and <stem>-provenance.json."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output], [run_path, cal_path, method_path, standards_path])
     from compquant.calibrate import Calibration, load_standards
     from compquant.errors import CalibrationError
     from compquant.fileio import atomic_write

@@ -38,6 +38,9 @@ def command(scenario, output, seed, truth_path, no_noise):
     controlled area, extract ablation fumes (samples may hold lead), and follow
     local regulations and the lab's laser safety officer.
     """
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output, truth_path], [scenario])
     from compquant.cli._common import write_csv
     from compquant.simulate import load_scenario, simulate_run, truth_table
 

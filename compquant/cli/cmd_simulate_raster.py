@@ -20,6 +20,9 @@ def command(raster_file, output, seed, no_noise):
     scenario the raster file names, after that scenario's own samples. Positions go to
     shots/x_mm, shots/y_mm. The run is synthetic; real rastering uses a Class 4 laser: eyewear,
     interlocks, fume extraction, and your laser safety officer's rules apply."""
+    from compquant.fileio import refuse_overwriting_inputs
+
+    refuse_overwriting_inputs([output], [raster_file])
     from compquant.simulate_raster import load_raster, simulate_raster_run
 
     sc, sample, include = load_raster(raster_file)

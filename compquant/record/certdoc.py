@@ -70,8 +70,9 @@ def _qc(q: dict) -> QCInfo:
     return QCInfo(
         DriftInfo(d["applied"], d["description"], list(d["setup_samples"]), dict(d["factors"])),
         [CheckResult(c["sample_id"], c["standard_ref"], c["element"], c["measured"], c["U_measured"], c["certified"],
-                     c["U_certified"], c["z"], c["En"], c["passed"], c["criterion"]) for c in q["check_samples"]],
-        q["blank"], list(q["notes"]),
+                     c["U_certified"], c["z"], c["En"], c["passed"], c["criterion"], list(c.get("flags", [])),
+                     c.get("loq")) for c in q["check_samples"]],
+        q["blank"], list(q["notes"]), list(q.get("not_evaluated", [])),
     )
 
 

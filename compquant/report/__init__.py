@@ -5,6 +5,7 @@
 - :mod:`~compquant.report.pdf` the PDF (ISO/IEC 17025:2017, 7.8);
 - :mod:`~compquant.report.lims` one CSV per run for LIMS import;
 - :mod:`~compquant.report.conformity` decision rules (ILAC G8:09/2019);
+- :mod:`~compquant.report.release` the release rules (valid / not valid for release);
 - :mod:`~compquant.report.config` lab profile and specification files;
 - :mod:`~compquant.report.figures` spectrum, calibration curve and Boltzmann plot PNGs;
 - :mod:`~compquant.report.safety` the safety notes.

@@ -75,7 +75,11 @@ def result_rows(results, sample_id: str) -> list[ResultRow]:
 
 
 def measured_when(run, sample_id: str) -> str:
-    """Time of the sample's first shot: run start time + shot time, ISO 8601 UTC; else the run's date."""
+    """Time of the sample's first shot: run start time + shot time, ISO 8601 UTC; "" when unknown.
+
+    The start time comes from the run's acquisition record (``start_time``, ``start_utc``,
+    ``measured_utc`` or ``date``), never from the file's creation time.
+    """
     acq = run.acquisition or {}
     start = None
     for key in ("start_time", "start_utc", "measured_utc", "date"):
@@ -95,14 +99,8 @@ def measured_when(run, sample_id: str) -> str:
             if len(ts) and np.isfinite(ts.min()):
                 t0 = t0 + _dt.timedelta(seconds=float(ts.min()))
         return t0.astimezone(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
-    created = getattr(run, "attrs", {}).get("created")
-    try:
-        t = _dt.datetime.fromisoformat(str(created).replace("Z", "+00:00"))
-    except ValueError:
-        return ""  # free text ("yesterday", "x") is never printed as the date of measurement
-    if t.tzinfo is None:
-        t = t.replace(tzinfo=_dt.timezone.utc)
-    return t.astimezone(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    # the file's creation time is when it was written (e.g. converted), not when it was measured
+    return ""
 
 
 def technique(method, run) -> str:
@@ -178,10 +176,17 @@ def drift_info(drift: dict) -> DriftInfo:
     return DriftInfo(bool(drift.get("applied")), desc, [str(s) for s in drift.get("setup_samples", [])], factors)
 
 
-def check_results(checks) -> list[CheckResult]:
+def check_results(checks, results=None) -> list[CheckResult]:
+    """Check-sample comparisons; ``results`` (the results table) gives each check its result flags."""
     out = []
     if checks is None:
         return out
+    flags, loqs = {}, {}
+    if results is not None and len(results):
+        for r in results.itertuples(index=False):
+            fl = _flags(r.flags) + (["below_lod"] if bool(r.below_lod) else [])
+            flags[(str(r.sample_id), str(r.element))] = list(dict.fromkeys(fl))
+            loqs[(str(r.sample_id), str(r.element))] = _f(r.loq)
     for r in checks.itertuples(index=False):
         z = _f(getattr(r, "z", None))
         crit = "|En| <= 1" + (" and |z| < 3" if z is not None else "")
@@ -198,6 +203,8 @@ def check_results(checks) -> list[CheckResult]:
                 _f(r.En),
                 bool(r.passed),
                 crit,
+                flags.get((str(r.sample_id), str(r.element)), []),
+                loqs.get((str(r.sample_id), str(r.element))),
             )
         )
     return out
@@ -332,11 +339,12 @@ def blank_text(curves: dict) -> str:
 
 
 def sample_figures(
-    sid, stem, outdir: Path, wavelength, mean_spec, lines_marked, curves, rows, matrix_w, cf_res, run_path, method
+    sid, stem, outdir: Path, wavelength, mean_spec, lines_marked, curves, rows, matrix_w, cf_res, run_path, method,
+    write: bool = True,
 ) -> list[FigureItem]:
+    """The sample's figures; ``path`` is relative to ``outdir``; written there when ``write``."""
     from compquant.report.figures import spectrum_png
 
-    figdir = outdir / "figures" / stem
     items: list[FigureItem] = []
     spec = mean_spec.get(sid)
     if spec is None:
@@ -396,11 +404,18 @@ def sample_figures(
                 )
             )
     for k, it in enumerate(items, 1):
-        p = figdir / f"fig{k}-{it.kind}.png"
-        with atomic_path(p) as tmp:
-            Path(tmp).write_bytes(it.png)
-        it.path = str(Path("figures") / stem / p.name)
+        it.path = str(Path("figures") / stem / f"fig{k}-{it.kind}.png")
+    if write:
+        write_figures(outdir, items)
     return items
+
+
+def write_figures(outdir: Path, items) -> None:
+    """Write the PNG of each figure to ``outdir / item.path`` (atomically)."""
+    for it in items:
+        if it.png is not None and it.path:
+            with atomic_path(Path(outdir) / it.path) as tmp:
+                Path(tmp).write_bytes(it.png)
 
 
 __all__ = [
@@ -415,5 +430,6 @@ __all__ = [
     "printed",
     "result_rows",
     "sample_figures",
+    "write_figures",
     "technique",
 ]

@@ -9,10 +9,14 @@ Certificate number (deterministic, documented in ``docs/certificate.md``)::
 
     <PREFIX>-<YYYYMMDD>-<H>[-R<revision>]
     H = first 10 hex digits, upper case, of
-        SHA-256( "<PREFIX>\\n<run sha256, lower case>\\n<sample id>\\n<issue date YYYY-MM-DD>" )  (UTF-8)
+        SHA-256( "<PREFIX>\\n<run sha256, lower case>\\n<sample id>\\n<issue date YYYY-MM-DD>"
+                 [+ "\\n<result-set digest>"] )  (UTF-8)
 
-so the same lab, run, sample and issue date always give the same number, and a
-different run file, sample or day gives a different one.
+The result-set digest (:func:`result_set_digest`) is the SHA-256 of the basis, the files the
+results rest on and every number and flag printed, so two result sets -- e.g. the calibration
+and the calibration-free certificate of one sample on one day -- never share a number, and the
+same inputs always give the same number.  A revision keeps the number of the certificate it
+supersedes and appends ``-R<n>``.
 """
 
 from __future__ import annotations
@@ -99,14 +103,30 @@ def flag_text(flag: str) -> str:
     return FLAG_TEXT.get(flag, f"flag '{flag}' set by the analysis (see the method documentation)")
 
 
-def certificate_number(prefix: str, run_sha256: str, sample_id: str, issue_date: str, revision: int = 0) -> str:
+def certificate_number(
+    prefix: str, run_sha256: str, sample_id: str, issue_date: str, revision: int = 0, result_digest: str = ""
+) -> str:
     """Deterministic unique certificate number (see module docstring)."""
-    key = "\n".join([prefix, run_sha256.lower(), sample_id, issue_date]).encode("utf-8", "surrogatepass")
+    parts = [prefix, run_sha256.lower(), sample_id, issue_date] + ([result_digest] if result_digest else [])
+    key = "\n".join(parts).encode("utf-8", "surrogatepass")
     h = hashlib.sha256(key).hexdigest()[:10].upper()
     num = f"{prefix}-{issue_date.replace('-', '')}-{h}"
     if revision:
         num += f"-R{int(revision)}"
     return num
+
+
+def result_set_digest(basis: str, files, rows) -> str:
+    """SHA-256 (hex) of a result set: basis, ``(role, sha256)`` of every input file, and per
+    result the element, value, U, LOD and flags (repr of the floats, so exact)."""
+    h = hashlib.sha256()
+    h.update(f"basis={basis}\n".encode())
+    for f in sorted((str(f.role), str(f.sha256)) for f in files):
+        h.update(f"file={f[0]}:{f[1]}\n".encode())
+    for r in rows:
+        line = f"{r.element}|{r.mass_fraction!r}|{r.U!r}|{r.lod!r}|{int(r.below_lod)}|{';'.join(r.all_flags())}"
+        h.update((line + "\n").encode("utf-8", "surrogatepass"))
+    return h.hexdigest()
 
 
 def uncertainty_statement(ks) -> str:
@@ -344,6 +364,8 @@ class CheckResult:
     En: float | None = None
     passed: bool = True
     criterion: str = "|En| <= 1"
+    flags: list[str] = field(default_factory=list)  # flags of the check sample's result
+    loq: float | None = None  # LOQ of the element in the check sample (g/g)
 
 
 @dataclass
@@ -352,6 +374,7 @@ class QCInfo:
     check_samples: list[CheckResult] = field(default_factory=list)
     blank: str = ""  # where s_blank for LOD came from
     notes: list[str] = field(default_factory=list)
+    not_evaluated: list[str] = field(default_factory=list)  # check samples held by the run, not evaluated
 
 
 @dataclass
@@ -407,22 +430,18 @@ class Certificate:
     figures: list[FigureItem] = field(default_factory=list)
     safety_notes: list[SafetyNote] = field(default_factory=lambda: list(SAFETY_NOTES))
     remarks: list[str] = field(default_factory=list)
-    release_blocks: list[str] = field(default_factory=list)  # other reasons not to release
+    release_blocks: list[str] = field(default_factory=list)  # reasons worked out from the whole run
     revision: int = 0
+    supersedes: str = ""  # number of the certificate this revision replaces
+    revision_reason: str = ""  # why it was revised
 
     # -- derived -------------------------------------------------------------------------------
     def release_reasons(self) -> list[str]:
-        """Why the certificate is not valid for release (empty list: valid)."""
-        reasons = []
-        for c in self.qc.check_samples:
-            if not c.passed:
-                reasons.append(f"check sample {c.sample_id} failed for {c.element} ({c.criterion} not met)")
-        if self.plasma is not None:
-            for chk in self.plasma.lte_checks:
-                if not chk.passed:
-                    reasons.append(f"LTE criterion not met: {chk.name}")
-        reasons.extend(self.release_blocks)
-        return reasons
+        """Why the certificate is not valid for release (empty list: valid); the rules live in
+        :mod:`compquant.report.release`."""
+        from compquant.report.release import certificate_reasons
+
+        return certificate_reasons(self)
 
     @property
     def valid_for_release(self) -> bool:
@@ -460,6 +479,7 @@ __all__ = [
     "flag_text",
     "uncertainty_statement",
     "certificate_number",
+    "result_set_digest",
     "LabInfo",
     "Signatory",
     "ClientInfo",

@@ -24,11 +24,18 @@ from compquant.report.certificate import (
     flag_text,
     uncertainty_statement,
 )
+from compquant.report.release import (
+    NOT_VALID_FOR_RELEASE,
+    VALID_FOR_RELEASE,
+    check_state,
+    rule_of,
+    sigma_pt_rel_of,
+)
 
 SCHEMA_NAME = "compquant-certificate"
 SCHEMA_VERSION = 1
-RELEASE_OK = "valid for release"
-RELEASE_BLOCKED = "NOT VALID FOR RELEASE"
+RELEASE_OK = VALID_FOR_RELEASE
+RELEASE_BLOCKED = NOT_VALID_FOR_RELEASE
 
 
 def _num(x):
@@ -199,9 +206,13 @@ def certificate_to_dict(cert: Certificate, review=None) -> dict:
                 "En": _num(c.En),
                 "passed": bool(c.passed),
                 "criterion": c.criterion,
+                "flags": list(c.flags),
+                "loq": _num(c.loq),
+                "state": check_state(c, sigma_pt_rel_of(cert)),
             }
             for c in qc.check_samples
         ],
+        "not_evaluated": list(qc.not_evaluated),
         "blank": qc.blank,
         "notes": list(qc.notes),
     }
@@ -242,7 +253,11 @@ def certificate_to_dict(cert: Certificate, review=None) -> dict:
             "valid": not reasons,
             "status": RELEASE_BLOCKED if reasons else RELEASE_OK,
             "reasons": reasons,
+            "rules": sorted({rule_of(r) or "other" for r in reasons}),
         },
+        "supersedes": (
+            {"number": cert.supersedes, "reason": cert.revision_reason} if cert.supersedes else None
+        ),
         "laboratory": {
             "name": cert.lab.name,
             "address": list(cert.lab.address),

@@ -5,7 +5,8 @@ forms always agree):
 
 - Unit: ``%`` when the value (or, below LOD, the LOD) is at least 0.1 % (1000
   mg/kg), else ``mg/kg`` (common practice for metal analysis); a result row may
-  force one.
+  force one.  Within a run one unit per element (:func:`element_units`): ``%`` when
+  any sample's value of the element reaches 0.1 %; value and U always share it.
 - The expanded uncertainty U is rounded to two significant digits and the value
   to the same decimal place (JCGM 100:2008, 7.2.6: "it is usually sufficient to
   quote u_c and U to at most two significant digits"; from memory of the GUM).
@@ -36,6 +37,24 @@ def choose_unit(mass_fraction: float | None, lod: float | None = None, below_lod
     if not finite(ref):
         return "%"
     return "%" if abs(ref) >= PERCENT_THRESHOLD else "mg/kg"
+
+
+def element_units(records) -> dict[str, str]:
+    """One display unit per element for a whole run's outputs.
+
+    ``records``: ``(element, mass_fraction, lod, below_lod)`` of every result of the run.  An
+    element is shown in ``%`` when any of its values (below the LOD: its LOD) reaches 0.1 %, else
+    in ``mg/kg``, so every sample's value and U of that element print in the same unit on the
+    certificates, the LIMS CSV and the screen.
+    """
+    out: dict[str, str] = {}
+    for el, w, lod, below in records:
+        u = choose_unit(w, lod, bool(below))
+        if finite(w) or finite(lod):
+            out[el] = "%" if out.get(el) == "%" or u == "%" else "mg/kg"
+        else:
+            out.setdefault(el, u)
+    return out
 
 
 def _plain(d: Decimal) -> str:
@@ -106,6 +125,7 @@ __all__ = [
     "PERCENT_THRESHOLD",
     "finite",
     "choose_unit",
+    "element_units",
     "exponent_of_sig",
     "round_to_exponent",
     "round_sig",

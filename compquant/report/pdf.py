@@ -18,12 +18,11 @@ prints literally and cannot change the document.
 from __future__ import annotations
 
 import io
-import unicodedata
 from pathlib import Path
 from xml.sax.saxutils import escape as _xml_escape
 
 from compquant.errors import InputError
-from compquant.fileio import atomic_path
+from compquant.fileio import atomic_path, visible_text
 from compquant.report.certificate import (
     ITEM_ONLY_STATEMENT,
     LOD_STATEMENT,
@@ -32,23 +31,15 @@ from compquant.report.certificate import (
     uncertainty_statement,
 )
 from compquant.report.conformity import OUTCOME_TEXT, RULES
-from compquant.report.jsonform import RELEASE_BLOCKED
 from compquant.report.numbers import UNIT_FACTOR, choose_unit, finite, round_sig, sci_text, value_and_u
+from compquant.report.release import NOT_VALID_FOR_RELEASE, check_state, sigma_pt_rel_of
+
+#: the banner and page-header words: the release state, in capitals
+RELEASE_BLOCKED = NOT_VALID_FOR_RELEASE.upper()
 
 _FONTS: dict[str, str] | None = None
 
 
-def visible_text(s) -> str:
-    """Replace control, format, surrogate and unassigned characters by visible escapes."""
-    out = []
-    for ch in str(s):
-        cat = unicodedata.category(ch)
-        if cat in ("Cc", "Cf", "Cs", "Co", "Cn", "Zl", "Zp"):
-            o = ord(ch)
-            out.append(f"\\x{o:02x}" if o < 256 else f"\\u{o:04x}")
-        else:
-            out.append(ch)
-    return "".join(out)
 
 
 def escape_text(s) -> str:
@@ -158,6 +149,15 @@ def _styles():
             fontSize=8.5,
             leading=10.5,
             alignment=TA_CENTER,
+            textColor=colors.white,
+        ),
+        "bannerlist": ParagraphStyle(
+            "cq-bannerlist",
+            parent=base,
+            fontSize=8.5,
+            leading=10.5,
+            leftIndent=10,
+            firstLineIndent=-8,
             textColor=colors.white,
         ),
         "end": ParagraphStyle(
@@ -384,7 +384,8 @@ def render_pdf_bytes(cert: Certificate, review=None) -> tuple[bytes, int]:
         Paragraph(f"Date of issue: {E(cert.issue_date)}", st["cellr"]),
     ]
     if cert.revision:
-        right.append(Paragraph(f"Revision {int(cert.revision)}: replaces earlier issues", st["cellr"]))
+        sup = f" {E(cert.supersedes)}" if cert.supersedes else " earlier issues"
+        right.append(Paragraph(f"Revision {int(cert.revision)}: supersedes{sup}", st["cellr"]))
     t = Table([[left, right]], colWidths=[frame_w * 0.55, frame_w * 0.45])
     t.setStyle(
         TableStyle(
@@ -405,12 +406,14 @@ def render_pdf_bytes(cert: Certificate, review=None) -> tuple[bytes, int]:
         rows.append(
             [
                 P(
-                    "Quality-control criteria were not met; these results must not be released "
-                    "or used for decisions. Reasons: " + E("; ".join(reasons)),
+                    "These results are not valid for release and must not be used for decisions. "
+                    "Release rules not met (docs/certificate.md):",
                     "bannersmall",
                 )
             ]
         )
+        for why in reasons:
+            rows.append([P("• " + E(why), "bannerlist")])
         bt = Table(rows, colWidths=[frame_w])
         bt.setStyle(
             TableStyle(
@@ -433,6 +436,11 @@ def render_pdf_bytes(cert: Certificate, review=None) -> tuple[bytes, int]:
         client += "<br/>" + "<br/>".join(E(a) for a in c.address)
     id_rows = [
         ("Certificate number", f"<b>{E(cert.number)}</b>"),
+    ]
+    if cert.supersedes:
+        why = ": " + E(cert.revision_reason) if cert.revision_reason else ""
+        id_rows.append(("Supersedes", E(cert.supersedes) + why))
+    id_rows += [
         ("Client", client),
         ("Client reference", txt_or(c.reference, "none")),
         ("Sample identification", f"<b>{E(s.sample_id)}</b>"),
@@ -590,8 +598,9 @@ def render_pdf_bytes(cert: Certificate, review=None) -> tuple[bytes, int]:
     story.append(P("Check samples", "h3"))
     if qc.check_samples:
         crows = []
+        el_unit = {r.element: r.display_unit() for r in cert.results if finite(r.mass_fraction) or r.below_lod}
         for ck in qc.check_samples:
-            unit = choose_unit(ck.certified)
+            unit = el_unit.get(ck.element) or choose_unit(ck.certified)  # the element's unit on this certificate
             mv, mu, _ = _fmt_mf(ck.measured, ck.U_measured, unit)
             cv, cu, _ = _fmt_mf(ck.certified, ck.U_certified, unit)
             crows.append(
@@ -604,14 +613,14 @@ def render_pdf_bytes(cert: Certificate, review=None) -> tuple[bytes, int]:
                     unit,
                     _fmt_2dp(ck.z) or "–",
                     _fmt_2dp(ck.En) or "–",
-                    "pass" if ck.passed else "FAIL",
+                    check_state(ck, sigma_pt_rel_of(cert)),
                 ]
             )
         story.append(
             grid_table(
                 ["Check sample", "Reference", "El.", "Found ± U", "Certified ± U", "Unit", "z", "En", "Result"],
                 crows,
-                [12, 12, 4.5, 15, 15, 7, 6, 6, 7],
+                [12, 12, 4.5, 15, 15, 6, 5.5, 5.5, 9],
                 right_cols=(3, 4, 6, 7),
             )
         )
@@ -622,12 +631,19 @@ def render_pdf_bytes(cert: Certificate, review=None) -> tuple[bytes, int]:
                 "value with its U. En = (found - certified) / sqrt(U_found² + U_certified²); "
                 "z = (found - certified) / σ_pt, with σ_pt the target standard deviation set in the "
                 "method (– when none is set) (ISO 13528). "
-                "Acceptance criterion: " + E("; ".join(crits)) + ".",
+                "Acceptance criterion: " + E("; ".join(crits)) + ". "
+                "A check counts only when it could fail: 'cannot fail' means sqrt(U_found² + U_certified²) "
+                "is not below 3 σ_pt (σ_pt from the method, else the Horwitz function in Thompson's form); "
+                "'flagged' means the found value rests on a flagged line or is below the LOD; "
+                "'not counted': the certified content is below the LOQ, so the check does not "
+                "verify that element.",
                 "small",
             )
         )
-    else:
+    elif not qc.not_evaluated:
         story.append(P("<i>No check sample was measured in this run.</i>"))
+    for n in qc.not_evaluated:
+        story.append(P("<b>Check sample measured but not evaluated:</b> " + E(n), "small"))
     for n in qc.notes:
         story.append(P(E(n), "small"))
 

@@ -102,6 +102,37 @@ def _attrs(obj) -> dict:
     return out
 
 
+def refuse_outside_data(h5, where: str) -> None:
+    """Refuse a run whose data live outside the file (provenance: the run's SHA-256 must cover them).
+
+    HDF5 external links, datasets with external storage and virtual datasets all let another
+    file change the numbers without changing the run file's hash.  Soft links stay inside the
+    file; where they lead (a loop, nowhere) is checked when the object is opened.
+    """
+    found = []
+
+    def visit(name, link):
+        if isinstance(link, h5py.ExternalLink):
+            found.append(f"'{name}' is a link to another file ({link.filename})")
+            return
+        if isinstance(link, h5py.SoftLink):
+            return
+        obj = h5.get(name)
+        if isinstance(obj, h5py.Dataset):
+            if obj.is_virtual:
+                found.append(f"'{name}' is a virtual dataset")
+            elif obj.external:
+                found.append(f"'{name}' is stored in external files")
+
+    h5.visititems_links(visit)
+    if found:
+        raise RunFormatError(
+            "the run's data live outside the file: " + "; ".join(found[:3]),
+            where=where,
+            fix="copy the data into the run file (e.g. h5repack, or rebuild it with 'compquant convert')",
+        )
+
+
 class Run:
     """A run file opened read-only.
 
@@ -147,6 +178,7 @@ class Run:
             raise RunFormatError("HDF5 file cannot be read (truncated or corrupt)", where=where,
                                  fix="copy the run again from the instrument or re-run 'compquant convert'") from exc
         try:
+            refuse_outside_data(self._h5, where)
             self._read_headers()
         except RunFormatError:
             self._h5.close()
