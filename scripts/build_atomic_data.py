@@ -373,7 +373,7 @@ def _grade_from_dex(err: np.ndarray) -> np.ndarray:
     return out
 
 
-def assemble_lines(all_l, ges, mor, levels, bc):
+def assemble_lines(all_l, ges, levels, bc):
     ges = ges.copy()
     ges["gi"] = _gi_for_ges(ges, levels, bc)
     n_ges_nogi = int((ges["gi"] == 0).sum())
@@ -411,13 +411,12 @@ def assemble_lines(all_l, ges, mor, levels, bc):
     extra["aki_grade"] = "D"
     extra["grade_basis"] = "single compilation; no stated accuracy: D assumed"
     lines = pd.concat([lines, extra[lines.columns.intersection(extra.columns)]], ignore_index=True)
-    lines, dis_m = _apply_morton(lines, mor)
-    return lines, pd.DataFrame(dis + dis_m), n_ges_nogi
+    return lines, dis, n_ges_nogi
 
 
 def _dis_row(a, b, sa, sb, why):
     return {"species": f"{a['element']} {ROMAN[int(a['ion']) - 1]}", "what": "+".join(why),
-            "wavelength_nm_1": round(a["wavelength_nm"], 4), "wavelength_nm_2": round(b["wavelength_nm"], 4),
+            "wavelength_nm_1": round(a["wavelength_nm"], 5), "wavelength_nm_2": round(b["wavelength_nm"], 5),
             "gi_1": int(a["gi"]), "gi_2": int(b["gi"]), "gk_1": int(a["gk"]), "gk_2": int(b["gk"]),
             "ei_ev_1": round(a["ei_ev"], 4), "ei_ev_2": round(b["ei_ev"], 4),
             "aki_1": float(f"{a['aki']:.4g}"), "aki_2": float(f"{b['aki']:.4g}"), "source_1": sa, "source_2": sb}
@@ -438,12 +437,13 @@ def _apply_morton(lines, mor):
             why.append("wavelength")
         if a["gk"] != m["gk"] or a["gi"] != m["gi"]:
             why.append("g")
-        bound = _bound(mg[im]) if mg[im] else 0.25
+        err = m["log_gf_err_dex"]
+        bound = 10.0**err - 1.0 if np.isfinite(err) else 0.25  # Morton's stated error as a ratio
         if r > max(bound, _bound(a["aki_grade"])):
             why.append("gA")
         if why:
             dis.append(_dis_row(a, m, a["source"].split(";")[0], m["source"], why))
-        elif mg[im] and _bound(mg[im]) < _bound(a["aki_grade"]):
+        elif mg[im] and r <= bound and _bound(mg[im]) < _bound(a["aki_grade"]):
             lines.loc[k, "aki_grade"] = mg[im]
             lines.loc[k, "grade_basis"] = "Morton's stated log gf error; values agree within it"
         if not why:
@@ -453,8 +453,19 @@ def _apply_morton(lines, mor):
     new["aki_grade"] = mg[(j < 0) & (mg != "")]
     new["grade_basis"] = "Morton's stated log gf error"
     new["wavelength_unc_nm"] = 0.0005
-    lines = pd.concat([lines, new[lines.columns.intersection(new.columns)]], ignore_index=True)
-    return lines, dis
+    new["wavelength_nm"] = new["wavelength_nm"].round(5)
+    new = new[lines.columns.intersection(new.columns)]
+    # the same strength cut as the line lists, against the species' strongest line
+    kt = constants.k * T_STRENGTH / constants.e
+    both = pd.concat([lines, new], ignore_index=True)
+    st = both["gk"] * both["aki"] * np.exp(-both["ek_ev"] / kt) / both["wavelength_nm"]
+    smax = st.groupby([both["element"], both["ion"]]).transform("max")
+    keep = (st >= STRENGTH_CUT * smax).to_numpy()[len(lines):]
+    lines = pd.concat([lines, new[keep]], ignore_index=True)
+    ids = lines["element"] + lines["ion"].astype(str) + lines["wavelength_nm"].map(lambda w: f"{w:.3f}")
+    lines = lines[~ids.duplicated()]
+    lines["aki_unc_rel"] = lines["aki_grade"].map(_BOUNDS)
+    return lines.sort_values(["element", "ion", "wavelength_nm"]).reset_index(drop=True), dis
 
 
 _BOUNDS = {"AAA": 0.003, "AA": 0.01, "A+": 0.02, "A": 0.03, "B+": 0.07, "B": 0.10, "C+": 0.18, "C": 0.25,
@@ -539,6 +550,27 @@ def finish_lines(lines: pd.DataFrame, ion_e: pd.DataFrame) -> tuple[pd.DataFrame
 
 
 # ---------------------------------------------------------------- partition functions
+def update_element_table(ion_e: pd.DataFrame) -> int:
+    """Write the NIST ASD ionisation energies of stages I and II into elements.csv (the table was
+    filled from mendeleev's copy of NIST; a few values differ in the last digits).  Returns the
+    number of values changed."""
+    el = pd.read_csv(OUT / "elements.csv", dtype=str, keep_default_na=False)
+    nist = dict(zip(ion_e["species"], ion_e["ie_ev"]))
+    n = 0
+    for i, sym in enumerate(el["symbol"]):
+        for ion, col in ((1, "ie1_ev"), (2, "ie2_ev")):
+            v = nist.get(f"{sym} {ROMAN[ion - 1]}")
+            if v is None or not np.isfinite(v) or el.loc[i, col] == "":
+                continue
+            if abs(float(el.loc[i, col]) - v) > 5e-7:
+                el.loc[i, col] = f"{v:.6f}"
+                n += 1
+    tag = "; ionisation energies: NIST ASD table (exojax 2.6.0)"
+    el["source"] = [s if s.endswith(tag) else s + tag for s in el["source"]]
+    el.to_csv(OUT / "elements.csv", index=False, lineterminator="\n")
+    return n
+
+
 def partition_tables(levels, bc, irwin, ion_e, species):
     """Per species: 'levels' (level sum over the NIST levels, agrees with Barklem & Collet within 3 %
     at 5000-10000 K) or 'tabulated' (Barklem & Collet up to 10 000 K, above it Irwin 1981 scaled to
@@ -566,9 +598,11 @@ def partition_tables(levels, bc, irwin, ion_e, species):
                 shape = "level sum (NIST levels, ALL v3) scaled to meet it"
             elif sp in irwin:
                 a = irwin[sp]
-                f = lambda t, a=a: np.exp(np.polyval(a[::-1], np.log(t)))  # noqa: E731
-                hi = f(hi_t) * u_bc[-1] / f(10000.0)
-                shape = "Irwin 1981 polynomial scaled to meet it"
+                # Irwin's fits are made for 1 000-16 000 K: held at their 16 000 K value above
+                f = lambda t, a=a: np.exp(np.polyval(a[::-1], np.log(np.minimum(t, 16000.0))))  # noqa: E731
+                hi = np.maximum.accumulate(f(hi_t) * u_bc[-1] / f(10000.0))
+                hi = np.maximum(hi, u_bc[-1])
+                shape = "Irwin 1981 polynomial scaled to meet it (held above 16000 K)"
             else:
                 hi = np.full(len(hi_t), u_bc[-1])
                 shape = "held at its 10 000 K value"
@@ -603,12 +637,15 @@ def main(src: Path) -> None:
     all_l = read_all_lines(src)
     ges = read_ges(src)
     mor = read_morton(src)
-    lines, dis, n_nogi = assemble_lines(all_l, ges, mor, levels, bc)
+    n_ie = update_element_table(ion_e)
+    lines, dis, n_nogi = assemble_lines(all_l, ges, levels, bc)
     lines, stats = finish_lines(lines, ion_e)
+    lines, dis_m = _apply_morton(lines, mor)
+    dis = pd.DataFrame(dis + dis_m)
     # report only disagreements about lines that are shipped
     names = lines["element"] + " " + lines["ion"].map(lambda k: ROMAN[k - 1])
-    shipped = set(zip(names, lines["wavelength_nm"].round(4)))
-    dis = dis[[k in shipped for k in zip(dis["species"], dis["wavelength_nm_1"].round(4))]].reset_index(drop=True)
+    shipped = set(zip(names, lines["wavelength_nm"].round(5)))
+    dis = dis[[k in shipped for k in zip(dis["species"], dis["wavelength_nm_1"].round(5))]].reset_index(drop=True)
     species = sorted(set(lines["element"] + " " + lines["ion"].map(lambda k: ROMAN[k - 1]))
                      | set(bc.index[bc.index.str.match(r"^[A-Z][a-z]? (I|II|III)$")]))
     species = [s for s in species if s.split()[0] in _symbols()]
@@ -635,7 +672,7 @@ def main(src: Path) -> None:
                       "strength_cut": f"gk Aki exp(-Ek/kT)/lambda >= {STRENGTH_CUT} x species max at {T_STRENGTH} K"},
         "counts": {"lines": len(lines), "species": int(lines.groupby(["element", "ion"]).ngroups),
                    "elements": int(lines["element"].nunique()), "ges_lines_without_lower_g": n_nogi,
-                   "disagreements": len(dis), **stats},
+                   "disagreements": len(dis), "element_ie_values_changed_this_run": n_ie, **stats},
     }
     (OUT / "PROVENANCE.json").write_text(json.dumps(prov, indent=1) + "\n")
     print(json.dumps(prov["counts"]))
