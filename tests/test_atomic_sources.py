@@ -189,3 +189,25 @@ def test_regression_nickel_gA_now_from_three_sources():
     row = atomic.find_line("Ni I", 349.296)
     assert row["gk"] * row["aki"] == pytest.approx(3 * 1.108e8, rel=0.02)
     assert "Morton 2003" in row["source"]
+
+
+def test_disk_cache_is_keyed_by_the_source_file(tmp_path, monkeypatch):
+    from compquant.atomic import _cache
+
+    monkeypatch.setenv("COMPQUANT_CACHE_DIR", str(tmp_path / "c"))
+    src = tmp_path / "t.csv"
+    src.write_text("a\n1\n")
+    calls = []
+
+    def build():
+        calls.append(1)
+        return pd.read_csv(src)
+
+    first = _cache.cached("t", [src], build)
+    again = _cache.cached("t", [src], build)
+    assert len(calls) == 1 and again.equals(first)  # second time from the cache
+    src.write_text("a\n2\n")  # a changed source is never shadowed by the old entry
+    assert _cache.cached("t", [src], build)["a"].tolist() == [2] and len(calls) == 2
+    monkeypatch.setenv("COMPQUANT_CACHE_DIR", "off")
+    _cache.cached("t", [src], build)
+    assert len(calls) == 3

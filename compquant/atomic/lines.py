@@ -269,7 +269,13 @@ def _shipped_all() -> pd.DataFrame:
     """The shipped database (every stage), read once per process.  The file is built and checked by
     scripts/build_atomic_data.py and tests/test_atomic_sources.py, so it is read without the
     row-by-row checks a user file gets."""
+    from compquant.atomic._cache import cached
+
     path = _data_dir() / "lines.csv.gz"
+    return cached("lines", [path], lambda: _read_shipped(path))
+
+
+def _read_shipped(path: Path) -> pd.DataFrame:
     str_cols = ("element", "aki_grade", "grade_basis", "source")
     df = pd.read_csv(path, dtype={c: object for c in str_cols}, keep_default_na=False, na_values={
         c: [""] for c in _REQUIRED_NUMERIC + _OPTIONAL_NUMERIC + ("aki_unc_rel", "wavelength_unc_nm")})

@@ -134,14 +134,28 @@ def species_with_partition_function() -> list[str]:
 
 @functools.lru_cache(maxsize=1)
 def _all_levels() -> dict[str, pd.DataFrame]:
-    df = pd.read_csv(_data_dir() / "levels.csv.gz", dtype={"species": object, "source": object})
+    from compquant.atomic._cache import cached
+
+    path = _data_dir() / "levels.csv.gz"
+    return cached("levels", [path], lambda: _read_levels(path))
+
+
+def _read_levels(path: Path) -> dict[str, pd.DataFrame]:
+    df = pd.read_csv(path, dtype={"species": object, "source": object})
     df["g"] = df["g"].astype(int)
     return {k: g.drop(columns="species").reset_index(drop=True) for k, g in df.groupby("species", sort=False)}
 
 
 @functools.lru_cache(maxsize=1)
 def _all_tabulated() -> dict[str, tuple[np.ndarray, np.ndarray]]:
-    df = pd.read_csv(_data_dir() / "partition.csv.gz", dtype={"species": object})
+    from compquant.atomic._cache import cached
+
+    path = _data_dir() / "partition.csv.gz"
+    return cached("partition", [path], lambda: _read_tabulated(path))
+
+
+def _read_tabulated(path: Path) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    df = pd.read_csv(path, dtype={"species": object})
     out = {}
     for k, g in df.groupby("species", sort=False):
         t = g["t_k"].to_numpy(dtype=float)
