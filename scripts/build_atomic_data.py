@@ -204,7 +204,7 @@ def read_ges(src: Path) -> pd.DataFrame:
         ln = lines[i]
         if ln.startswith("'") and i + 1 < len(lines) and lines[i + 1].startswith("'"):
             code = ln.split()[1]
-            iso = not code.endswith(".000")  # isotopic components (e.g. 29.063) are summed below
+            iso = "" if code.endswith(".000") else code  # isotopic components (e.g. 29.063), see below
             name = lines[i + 1].strip("'").split()
             sp = (name[0], ROMAN.index(name[1]) + 1)
             i += 2
@@ -216,10 +216,19 @@ def read_ges(src: Path) -> pd.DataFrame:
         i += 1
     df = pd.DataFrame(rows, columns=["element", "ion", "wl_a", "elow", "loggf", "gk", "label", "iso"])
     df["gf"] = 10.0 ** df["loggf"]
+    # isotopic blocks (code Z.0AA) each carry the whole gf of the line split into hyperfine
+    # components (Turbospectrum applies the isotopic fractions itself, e.g. Cu I 510.55: 63Cu and
+    # 65Cu components each sum to log gf = -1.52): gf of a line = the mean over its isotopes
+    niso = df[df["iso"] != ""].groupby(["element", "ion", "label"])["iso"].transform("nunique")
+    df.loc[niso.index, "gf"] = df.loc[niso.index, "gf"] / niso
     # hyperfine / isotopic components of one transition: same species, E_low, g_up and level
     # labels, within 0.01 nm -> one line, gf summed, gf-weighted wavelength
     df["key"] = (df["element"] + df["ion"].astype(str) + df["elow"].round(3).astype(str)
                  + df["gk"].astype(str) + df["label"])
+    # the list gives some transitions both as a whole (code Z.000) and split into isotopic
+    # components (codes Z.0AA): keep the components only where the whole line is absent
+    whole = set(df.loc[df["iso"] == "", "key"])
+    df = df[~((df["iso"] != "") & df["key"].isin(whole))]
     df = df.sort_values(["key", "wl_a"]).reset_index(drop=True)
     brk = (df["key"] != df["key"].shift()) | (df["wl_a"].diff() > 0.1)
     df["grp"] = brk.cumsum()
@@ -390,8 +399,10 @@ def assemble_lines(all_l, ges, levels, bc):
     src = np.where(both, all_l["source"] + "; gA checked against " + SRC_GES, all_l["source"])
     lines = all_l.copy()
     lines["aki_grade"] = grade
-    lines["grade_basis"] = np.where(both, "two compilations agree within the grade bound",
-                                    "single compilation; no stated accuracy: D assumed")
+    lines["grade_basis"] = np.where(
+        both & (np.nan_to_num(r, nan=9) <= 0.25), "two compilations agree within the grade bound",
+        np.where(both, "two compilations differ (disagreements.csv); the grade covers the difference",
+                 "single compilation; no stated accuracy: D assumed"))
     lines["source"] = src
     for ia in np.flatnonzero(both):
         a, b = all_l.iloc[ia], ges.iloc[j[ia]]
@@ -441,12 +452,20 @@ def _apply_morton(lines, mor):
         bound = 10.0**err - 1.0 if np.isfinite(err) else 0.25  # Morton's stated error as a ratio
         if r > max(bound, _bound(a["aki_grade"])):
             why.append("gA")
+        if mg[im] and "g" not in why and "wavelength" not in why and _bound(mg[im]) < _bound(a["aki_grade"]):
+            # Morton's evaluated value with a stated error is better than the row's: adopt it
+            if r > bound:
+                dis.append(_dis_row(a, m, a["source"].split(";")[0], m["source"], ["gA"]))
+            lines.loc[k, "aki"] = m["aki"]
+            lines.loc[k, "aki_grade"] = mg[im]
+            lines.loc[k, "grade_basis"] = ("Morton's stated log gf error" + ("; his A adopted" if r > bound else
+                                           "; values agree within it"))
+            lines.loc[k, "source"] = (a["source"] + f"; A from {m['source']}" if r > bound
+                                      else a["source"] + "; checked against " + m["source"])
+            continue
         if why:
             dis.append(_dis_row(a, m, a["source"].split(";")[0], m["source"], why))
-        elif mg[im] and r <= bound and _bound(mg[im]) < _bound(a["aki_grade"]):
-            lines.loc[k, "aki_grade"] = mg[im]
-            lines.loc[k, "grade_basis"] = "Morton's stated log gf error; values agree within it"
-        if not why:
+        else:
             lines.loc[k, "source"] = a["source"] + "; checked against " + m["source"]
     # Morton's lines that neither line list holds (heavy-element resonance lines below 420 nm)
     new = mor[(j < 0) & (mg != "")].copy()
@@ -547,6 +566,25 @@ def finish_lines(lines: pd.DataFrame, ion_e: pd.DataFrame) -> tuple[pd.DataFrame
     lines = lines[cols].sort_values(["element", "ion", "wavelength_nm"]).reset_index(drop=True)
     return lines, {"autoionising_dropped": n_auto, "candidates": n_before,
                    "dropped_weak": n_before - len(lines) - n_dup, "merged_same_id": n_dup}
+
+
+def line_id_aliases(lines: pd.DataFrame) -> pd.DataFrame:
+    """Ids of the line list compquant shipped until 2026-12 (demo_runs/atomic-2026-11/lines.csv)
+    whose published wavelength rounds to another third decimal: the former id is kept for the
+    database line within 0.0025 nm of it (methods and calibrations name lines by id)."""
+    old = pd.read_csv(ROOT / "demo_runs" / "atomic-2026-11" / "lines.csv")
+    names = lines["element"] + " " + lines["ion"].map(lambda k: ROMAN[k - 1])
+    ids = set(names + " " + lines["wavelength_nm"].map(lambda w: f"{w:.3f}"))
+    rows = []
+    for e, k, w in zip(old["element"], old["ion"], old["wavelength_nm"]):
+        sp = f"{e} {ROMAN[int(k) - 1]}"
+        oid = f"{sp} {w:.3f}"
+        m = (names == sp) & ((lines["wavelength_nm"] - w).abs() <= 0.0025)
+        if oid in ids or not m.any():
+            continue
+        j = (lines.loc[m, "wavelength_nm"] - w).abs().idxmin()
+        rows.append((oid, sp, float(lines.loc[j, "wavelength_nm"])))
+    return pd.DataFrame(rows, columns=["line_id", "species", "wavelength_nm"])
 
 
 # ---------------------------------------------------------------- partition functions
@@ -651,6 +689,8 @@ def main(src: Path) -> None:
     species = [s for s in species if s.split()[0] in _symbols()]
     pidx, ptab = partition_tables(levels, bc, irwin, ion_e, species)
     lev_out = levels[levels["species"].isin(pidx.loc[pidx["method"] == "levels", "species"])]
+    aliases = line_id_aliases(lines)
+    aliases.to_csv(OUT / "line_id_aliases.csv", index=False, lineterminator="\n")
     (OUT / "reference").mkdir(exist_ok=True)
     _write_gz(lines, OUT / "lines.csv.gz", float_format="%.10g")
     _write_gz(lev_out[["species", "energy_ev", "g", "source"]], OUT / "levels.csv.gz", float_format="%.7f")

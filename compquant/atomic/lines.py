@@ -28,8 +28,9 @@ Optional columns, always present in what :func:`load_line_list` returns:
 
 Stark cells are empty where unknown.  :func:`load_line_list` adds ``species``
 (``"Cu I"``) and ``line_id`` (``"Cu I 324.754"``, 3 decimals), the contract of
-``docs/architecture.md``; :func:`find_line` resolves a line id whose third
-decimal differs from the published wavelength (tolerance 0.0025 nm).
+``docs/architecture.md``.  For the lines of the list shipped until 2026-12 whose published
+wavelength rounds differently, the former id is kept (``line_id_aliases.csv``, e.g.
+``Cu I 510.554`` for 510.5548 nm); :func:`find_line` resolves any id within 0.0025 nm.
 """
 
 from __future__ import annotations
@@ -272,16 +273,23 @@ def _shipped_all() -> pd.DataFrame:
     from compquant.atomic._cache import cached
 
     path = _data_dir() / "lines.csv.gz"
-    return cached("lines", [path], lambda: _read_shipped(path))
+    alias = _data_dir() / "line_id_aliases.csv"
+    return cached("lines", [path, alias], lambda: _read_shipped(path, alias))
 
 
-def _read_shipped(path: Path) -> pd.DataFrame:
+def _read_shipped(path: Path, alias: Path) -> pd.DataFrame:
     str_cols = ("element", "aki_grade", "grade_basis", "source")
     df = pd.read_csv(path, dtype={c: object for c in str_cols}, keep_default_na=False, na_values={
         c: [""] for c in _REQUIRED_NUMERIC + _OPTIONAL_NUMERIC + ("aki_unc_rel", "wavelength_unc_nm")})
     df["gi"] = df["gi"].astype(int)
     df["gk"] = df["gk"].astype(int)
     df = _add_ids(df)
+    # ids of the former line list kept for the lines they named (line_id_aliases.csv, written by
+    # scripts/build_atomic_data.py): e.g. "Cu I 510.554" for the line at 510.5548 nm
+    al = pd.read_csv(alias)
+    key = dict(zip(zip(al["species"], al["wavelength_nm"].round(5)), al["line_id"]))
+    k = list(zip(df["species"], df["wavelength_nm"].round(5)))
+    df["line_id"] = [key.get(x, lid) for x, lid in zip(k, df["line_id"])]
     return df[_OUT_COLUMNS]
 
 
