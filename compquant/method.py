@@ -480,22 +480,22 @@ def _parse_measure(t: dict, src: str) -> MeasureConfig:
 
 
 def _lookup_line(element: str, ion: int, wl: float) -> float | None:
-    """Wavelength of the shipped line-list entry within 0.0015 nm of ``wl``; None if absent.
+    """``wl`` (the id's wavelength, 3 decimals) if the shipped line list holds a line of the
+    species within :data:`compquant.atomic.LINE_ID_TOLERANCE_NM`; None if absent.
 
-    The list is :func:`compquant.atomic.load_line_list` (docs/atomic-data.md).
+    The list is :func:`compquant.atomic.load_line_list` (docs/atomic-data.md); see
+    :func:`compquant.atomic.find_line`.  The id's wavelength is kept (not the list's, which may
+    differ in the fourth decimal or, for ids written from older tables, by up to the tolerance)
+    so that a method measures where it always did.
     """
-    from compquant.atomic import load_line_list
+    from compquant.atomic import find_line, load_line_list
+    from compquant.atomic.elements import known_symbols
 
-    table = load_line_list()
     species = f"{element} {_ROMAN_INV.get(ion, str(ion))}"
-    sel = table[table["species"] == species]
-    if len(sel) == 0:
+    if species.split()[1] not in ("I", "II") or element not in known_symbols():
         return None
-    d = np.abs(sel["wavelength_nm"].to_numpy(dtype=float) - wl)
-    j = int(np.argmin(d))
-    if d[j] > 0.0015:
-        return None
-    return float(sel["wavelength_nm"].iloc[j])
+    row = find_line(species, wl, lines=load_line_list())
+    return None if row is None else float(wl)
 
 
 def _check_species(element: str, ion: int, where: str) -> None:

@@ -247,11 +247,23 @@ def _ionisation_energy_cached(species: str) -> float:
         return el.ie1_ev
     if ion == 2 and np.isfinite(el.ie2_ev):
         return el.ie2_ev
+    nist = nist_ionisation_energies()
+    name = species_name(sym, ion)
+    if ion >= 3 and name in nist.index:
+        return float(nist.loc[name, "ie_ev"])
     raise AtomicDataError(
         f"no ionisation energy for {species!r}",
         where="element table",
-        fix="only stages I and II are tabulated (and H has no stage II)",
+        fix="stages I-III are tabulated (a bare nucleus such as H II has none)",
     )
+
+
+@functools.lru_cache(maxsize=1)
+def nist_ionisation_energies() -> pd.DataFrame:
+    """NIST ASD ionisation energies of stages I-III, Z = 1..92 (``compquant/data/atomic/
+    ionisation.csv``: ``Z, species, ie_ev, uncertainty_ev, source``; copied by
+    scripts/build_atomic_data.py from the table in the exojax 2.6.0 wheel), indexed by species."""
+    return pd.read_csv(_data_dir() / "ionisation.csv").set_index("species", drop=False)
 
 
 def ionisation_energy(species: str) -> float:
@@ -259,7 +271,7 @@ def ionisation_energy(species: str) -> float:
 
     ``ionisation_energy("Cu I")`` is the first ionisation energy of Cu
     (Cu -> Cu+), ``ionisation_energy("Cu II")`` the second (Cu+ -> Cu2+).
-    Values from the shipped element table (NIST via mendeleev).  Only stages I
-    and II are tabulated.
+    Values from the shipped element table (NIST via mendeleev) for stages I and
+    II, and from the NIST ASD table :func:`nist_ionisation_energies` for stage III.
     """
     return _ionisation_energy_cached(str(species))

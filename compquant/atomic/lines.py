@@ -1,13 +1,13 @@
 """The emission-line list: loading, validation, selection, Aki accuracy grades.
 
-Columns of a line-list CSV (shipped ``compquant/data/atomic/lines.csv`` or the
-user's own file):
+Columns of a line-list CSV (shipped ``compquant/data/atomic/lines.csv.gz``, built by
+``scripts/build_atomic_data.py`` from published compilations, or the user's own file):
 
 =================== ======= ==========================================================
 column              unit    meaning
 =================== ======= ==========================================================
 element                     chemical symbol, e.g. ``Cu``
-ion                         1 = neutral (``Cu I``), 2 = singly ionised (``Cu II``)
+ion                         1 = neutral (``Cu I``), 2 = singly ionised, 3 = doubly ionised
 wavelength_nm       nm      wavelength in standard air (Morton 2000 refractive index)
 aki                 s^-1    transition probability (Einstein A) upper k -> lower i
 aki_grade                   NIST ASD accuracy letter: AAA AA A+ A B+ B C+ C D+ D E
@@ -22,9 +22,15 @@ stark_ne_exponent           optional: width ~ ne**exponent (1 for isolated lines
 source                      where the row comes from
 =================== ======= ==========================================================
 
+Optional columns, always present in what :func:`load_line_list` returns:
+``aki_unc_rel`` (the relative bound of Aki the grade implies, :data:`AKI_GRADES`),
+``grade_basis`` (why the row has its grade) and ``wavelength_unc_nm``.
+
 Stark cells are empty where unknown.  :func:`load_line_list` adds ``species``
 (``"Cu I"``) and ``line_id`` (``"Cu I 324.754"``, 3 decimals), the contract of
-``docs/architecture.md``.
+``docs/architecture.md``.  For the lines of the list shipped until 2026-12 whose published
+wavelength rounds differently, the former id is kept (``line_id_aliases.csv``, e.g.
+``Cu I 510.554`` for 510.5548 nm); :func:`find_line` resolves any id within 0.0025 nm.
 """
 
 from __future__ import annotations
@@ -44,8 +50,10 @@ __all__ = [
     "AKI_GRADES",
     "load_line_list",
     "lines_for",
+    "find_line",
     "aki_relative_uncertainty",
     "aki_standard_uncertainty",
+    "LINE_ID_TOLERANCE_NM",
 ]
 
 LINE_COLUMNS = (
@@ -64,7 +72,12 @@ LINE_COLUMNS = (
     "stark_t_ref_k",
     "source",
 )
-OPTIONAL_COLUMNS = ("stark_ne_exponent",)
+OPTIONAL_COLUMNS = ("stark_ne_exponent", "aki_unc_rel", "grade_basis", "wavelength_unc_nm")
+#: stages the shipped list holds; :func:`load_line_list` returns I and II unless asked
+ALL_STAGES = (1, 2, 3)
+#: a line id resolves to the nearest line of its species within this distance (nm)
+LINE_ID_TOLERANCE_NM = 0.0025
+_ROMAN = {1: "I", 2: "II", 3: "III"}
 _REQUIRED_NUMERIC = ("wavelength_nm", "aki", "ei_ev", "ek_ev", "gi", "gk")
 _OPTIONAL_NUMERIC = ("stark_w_nm", "stark_shift_nm", "stark_ne_ref_cm3", "stark_t_ref_k", "stark_ne_exponent")
 
@@ -139,13 +152,13 @@ def _read_line_list(path: Path) -> pd.DataFrame:
     out["element"] = raw["element"].to_numpy()
     ion = np.empty(len(raw), dtype=int)
     for i, v in enumerate(raw["ion"]):
-        if v not in ("1", "2"):
+        if v not in ("1", "2", "3"):
             _fail(
                 path,
                 ln[i],
                 "ion",
-                f"ion stage {v!r} must be 1 (neutral) or 2 (singly ionised)",
-                "write 1 or 2",
+                f"ion stage {v!r} must be 1 (neutral), 2 (singly) or 3 (doubly ionised)",
+                "write 1, 2 or 3",
             )
         ion[i] = int(v)
     out["ion"] = ion
@@ -225,28 +238,108 @@ def _read_line_list(path: Path) -> pd.DataFrame:
             f"line {out['line_id'][i]!r} is listed twice",
             "keep one row per line (line ids use 3 decimals)",
         )
-    cols = list(LINE_COLUMNS[:-1]) + ["stark_ne_exponent", "source", "species", "line_id"]
-    return out[cols].sort_values(["element", "ion", "wavelength_nm"], kind="stable").reset_index(drop=True)
+    out["aki_unc_rel"] = out["aki_grade"].map(AKI_GRADES).to_numpy(dtype=float)
+    out["grade_basis"] = raw["grade_basis"].to_numpy() if "grade_basis" in raw.columns else "stated by the user"
+    if "wavelength_unc_nm" in raw.columns:
+        out["wavelength_unc_nm"] = pd.to_numeric(raw["wavelength_unc_nm"], errors="coerce").to_numpy()
+    else:
+        out["wavelength_unc_nm"] = np.nan
+    return out[_OUT_COLUMNS].sort_values(["element", "ion", "wavelength_nm"], kind="stable").reset_index(drop=True)
+
+
+_OUT_COLUMNS = list(LINE_COLUMNS[:-1]) + [
+    "stark_ne_exponent",
+    "aki_unc_rel",
+    "grade_basis",
+    "wavelength_unc_nm",
+    "source",
+    "species",
+    "line_id",
+]
+
+
+def _add_ids(df: pd.DataFrame) -> pd.DataFrame:
+    roman = np.array(["", "I", "II", "III"], dtype=object)
+    df["species"] = df["element"].to_numpy(dtype=object) + " " + roman[df["ion"].to_numpy()]
+    df["line_id"] = df["species"].to_numpy(dtype=object) + " " + np.char.mod("%.3f", df["wavelength_nm"].to_numpy())
+    return df
 
 
 @functools.lru_cache(maxsize=1)
-def _shipped_lines() -> pd.DataFrame:
-    return _read_line_list(_data_dir() / "lines.csv")
+def _shipped_all() -> pd.DataFrame:
+    """The shipped database (every stage), read once per process.  The file is built and checked by
+    scripts/build_atomic_data.py and tests/test_atomic_sources.py, so it is read without the
+    row-by-row checks a user file gets."""
+    from compquant.atomic._cache import cached
+
+    path = _data_dir() / "lines.csv.gz"
+    alias = _data_dir() / "line_id_aliases.csv"
+    return cached("lines", [path, alias], lambda: _read_shipped(path, alias))
 
 
-def load_line_list(path: str | os.PathLike | None = None) -> pd.DataFrame:
-    """Load and validate a line list; ``None`` loads the shipped list.
+def _read_shipped(path: Path, alias: Path) -> pd.DataFrame:
+    str_cols = ("element", "aki_grade", "grade_basis", "source")
+    df = pd.read_csv(path, dtype={c: object for c in str_cols}, keep_default_na=False, na_values={
+        c: [""] for c in _REQUIRED_NUMERIC + _OPTIONAL_NUMERIC + ("aki_unc_rel", "wavelength_unc_nm")})
+    df["gi"] = df["gi"].astype(int)
+    df["gk"] = df["gk"].astype(int)
+    df = _add_ids(df)
+    # ids of the former line list kept for the lines they named (line_id_aliases.csv, written by
+    # scripts/build_atomic_data.py): e.g. "Cu I 510.554" for the line at 510.5548 nm
+    al = pd.read_csv(alias)
+    key = dict(zip(zip(al["species"], al["wavelength_nm"].round(5)), al["line_id"]))
+    k = list(zip(df["species"], df["wavelength_nm"].round(5)))
+    df["line_id"] = [key.get(x, lid) for x, lid in zip(k, df["line_id"])]
+    return df[_OUT_COLUMNS]
+
+
+@functools.lru_cache(maxsize=4)
+def _shipped_lines(stages: tuple[int, ...] = (1, 2)) -> pd.DataFrame:
+    df = _shipped_all()
+    from compquant.atomic import overlay
+
+    df = overlay.apply_overlay(df)
+    return df[df["ion"].isin(stages)].reset_index(drop=True)
+
+
+def load_line_list(path: str | os.PathLike | None = None, *, stages=(1, 2)) -> pd.DataFrame:
+    """Load and validate a line list; ``None`` loads the shipped database.
 
     Returns a new DataFrame (columns of :data:`LINE_COLUMNS` plus
-    ``stark_ne_exponent``, ``species`` and ``line_id``) sorted by element, ion
-    and wavelength.  Problems raise :class:`~compquant.errors.AtomicDataError`
-    naming the file, the line number (header = line 1) and the column:
-    missing columns, empty or non-numeric values, Aki <= 0, an unknown element,
-    ek_ev <= ei_ev, an unknown accuracy grade, duplicate line ids.
+    ``stark_ne_exponent``, ``aki_unc_rel``, ``grade_basis``, ``wavelength_unc_nm``,
+    ``species`` and ``line_id``) sorted by element, ion and wavelength.  For the
+    shipped database ``stages`` selects the ionisation stages (default I and II;
+    ``(1, 2, 3)`` adds the stage-III lines) and the lab-local overlay, if any, takes
+    precedence (:mod:`compquant.atomic.overlay`).  Problems with a user file raise
+    :class:`~compquant.errors.AtomicDataError` naming the file, the line number
+    (header = line 1) and the column: missing columns, empty or non-numeric
+    values, Aki <= 0, an unknown element, ek_ev <= ei_ev, an unknown accuracy
+    grade, duplicate line ids.
     """
     if path is None:
-        return _shipped_lines().copy()
+        st = tuple(sorted({int(s) for s in stages}))
+        if not st or any(s not in ALL_STAGES for s in st):
+            raise AtomicDataError(f"stages {stages!r} must be among 1, 2, 3", where="load_line_list",
+                                  fix="pass e.g. stages=(1, 2)")
+        return _shipped_lines(st).copy()
     return _read_line_list(Path(path))
+
+
+def find_line(species: str, wavelength_nm: float, *, lines: pd.DataFrame | None = None,
+              tolerance_nm: float = LINE_ID_TOLERANCE_NM) -> pd.Series | None:
+    """The line of ``species`` nearest ``wavelength_nm`` within ``tolerance_nm``; None if none.
+
+    Line ids carry 3 decimals; a published wavelength may differ from an id written from an
+    older table in the third decimal (e.g. ``Cu I 458.695`` is 458.6967 nm in van Hoof's Atomic
+    Line List v3), so ids resolve within :data:`LINE_ID_TOLERANCE_NM` (docs/atomic-data.md).
+    """
+    tab = _shipped_lines((1, 2, 3)) if lines is None else lines
+    sel = tab[tab["species"] == species_name(*parse_species(species))]
+    if len(sel) == 0:
+        return None
+    d = np.abs(sel["wavelength_nm"].to_numpy(dtype=float) - float(wavelength_nm))
+    j = int(np.argmin(d))
+    return None if d[j] > tolerance_nm else sel.iloc[j]
 
 
 def lines_for(
@@ -257,7 +350,7 @@ def lines_for(
 
     ``lines`` defaults to the shipped list.
     """
-    tab = _shipped_lines() if lines is None else lines
+    tab = _shipped_lines((1, 2)) if lines is None else lines
     text = str(what).strip()
     if " " in text:
         sym, ion = parse_species(text)

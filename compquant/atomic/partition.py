@@ -1,28 +1,26 @@
 """Energy-level tables and internal partition functions U(T).
 
-The internal partition function of a species is the level sum
+Two kinds of shipped data, one per species (``compquant/data/atomic/partition_index.csv``, built
+by ``scripts/build_atomic_data.py``; docs/atomic-data.md):
+
+``levels``: the truncated level sum
 
     U(T) = sum_j g_j exp(-E_j / (k_B T)),   over levels with E_j < E_ion - dE
 
-with ``g_j = 2J + 1``, ``E_j`` in eV above the ground level, ``k_B`` from
-scipy.constants (CODATA), ``E_ion`` the ionisation energy of the species
-(:func:`~compquant.atomic.ionisation_energy`) and ``dE >= 0`` an optional
-lowering of the ionisation energy (e.g. the Debye-Hückel lowering the plasma
-module computes; default 0).  This is the usual truncated level sum (e.g.
-Drawin & Felenbok 1965; Irwin 1981, ApJS 45, 621, discusses the cut-off).
+with ``g_j = 2J + 1``, ``E_j`` in eV above the ground level (the NIST levels as compiled in van
+Hoof's Atomic Line List v3, ``levels.csv.gz``), ``k_B`` from scipy.constants (CODATA), ``E_ion``
+the NIST ionisation energy (:func:`~compquant.atomic.ionisation_energy`) and ``dE >= 0`` an optional
+lowering of the ionisation energy (e.g. the Debye-Hückel lowering the plasma module computes;
+default 0); Irwin 1981 (ApJS 45, 621) discusses the cut-off.  A species gets this kind only
+where the sum agrees with Barklem & Collet (2016, A&A 588, A96, table 8) within 3 % at
+5 000-10 000 K, or where Barklem & Collet do not cover it.
 
-Shipped tables ``compquant/data/atomic/levels/<El>_<ion>.csv`` (columns
-``energy_ev, g, source``) list the low-lying levels of each species; the index
-``levels/index.csv`` gives, per species, ``complete_to_ev``: the energy up to
-which the table is meant to hold every level (fine-structure levels may be
-merged into one term with the summed g, which changes U by far less than 1 %
-at T >= 4000 K when the term splitting is small).  Levels above
-``complete_to_ev`` are missing, so U is an *under*-estimate by roughly
-``sum_missing g exp(-E/kT)``; :func:`partition_function_completeness` gives
-Boltzmann factor ``exp(-complete_to_ev / kT)`` as a rough guide.  Validity:
-4 000-25 000 K; at the top of that range the sum for the complex neutral atoms
-(Fe I, Ni I, Mn I, ...) depends noticeably on the levels near the ionisation
-limit and on the cut-off, as for any truncated level sum.
+``tabulated``: Barklem & Collet (2016) table 8 up to 10 000 K (interpolated linearly in
+ln U - ln T), and above 10 000 K a level sum or Irwin's (1981) polynomial scaled to meet the
+table at 10 000 K (``partition.csv.gz``, 1 000-25 000 K in 250 K steps).  The lowering of
+the ionisation energy is not applied to these species (their tables have no level list).
+
+Validity: 1 000-25 000 K; outside it the tabulated values are held at the end of the grid.
 """
 
 from __future__ import annotations
@@ -54,6 +52,8 @@ __all__ = [
     "partition_function_completeness",
     "level_index",
     "species_with_levels",
+    "species_with_partition_function",
+    "partition_index",
 ]
 
 #: Boltzmann constant in eV/K (CODATA via scipy.constants)
@@ -105,14 +105,65 @@ def load_levels(path: str | os.PathLike) -> pd.DataFrame:
 
 
 @functools.lru_cache(maxsize=1)
+def partition_index() -> pd.DataFrame:
+    """Every species with a shipped partition function: ``species, method`` (``levels`` or
+    ``tabulated``), ``source``, ``complete_to_ev`` (highest listed level, levels only)."""
+    idx = pd.read_csv(_data_dir() / "partition_index.csv")
+    idx["file"] = np.where(idx["method"] == "levels", "levels.csv.gz", "partition.csv.gz")
+    idx["note"] = idx["source"]
+    return idx.set_index("species", drop=False)
+
+
+@functools.lru_cache(maxsize=1)
 def level_index() -> pd.DataFrame:
-    """Index of shipped level tables: ``species, file, complete_to_ev, note``."""
-    return pd.read_csv(_data_dir() / "levels" / "index.csv", keep_default_na=False).set_index("species", drop=False)
+    """Index of shipped level tables: ``species, file, complete_to_ev, note`` (species whose
+    partition function is a level sum)."""
+    idx = partition_index()
+    return idx[idx["method"] == "levels"][["species", "file", "complete_to_ev", "note", "source"]]
 
 
 def species_with_levels() -> list[str]:
     """Species that have a shipped level table."""
     return list(level_index()["species"])
+
+
+def species_with_partition_function() -> list[str]:
+    """Species with a shipped partition function (level sum or tabulated)."""
+    return list(partition_index()["species"])
+
+
+@functools.lru_cache(maxsize=1)
+def _all_levels() -> dict[str, pd.DataFrame]:
+    from compquant.atomic._cache import cached
+
+    path = _data_dir() / "levels.csv.gz"
+    return cached("levels", [path], lambda: _read_levels(path))
+
+
+def _read_levels(path: Path) -> dict[str, pd.DataFrame]:
+    df = pd.read_csv(path, dtype={"species": object, "source": object})
+    df["g"] = df["g"].astype(int)
+    return {k: g.drop(columns="species").reset_index(drop=True) for k, g in df.groupby("species", sort=False)}
+
+
+@functools.lru_cache(maxsize=1)
+def _all_tabulated() -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    from compquant.atomic._cache import cached
+
+    path = _data_dir() / "partition.csv.gz"
+    return cached("partition", [path], lambda: _read_tabulated(path))
+
+
+def _read_tabulated(path: Path) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    df = pd.read_csv(path, dtype={"species": object})
+    out = {}
+    for k, g in df.groupby("species", sort=False):
+        t = g["t_k"].to_numpy(dtype=float)
+        lu = np.log(g["u"].to_numpy(dtype=float))
+        t.flags.writeable = False
+        lu.flags.writeable = False
+        out[k] = (t, lu)
+    return out
 
 
 def _index_row(species: str, asked: str | None = None) -> pd.Series:
@@ -129,7 +180,8 @@ def _index_row(species: str, asked: str | None = None) -> pd.Series:
 
 @functools.cache
 def _shipped_levels(species: str) -> pd.DataFrame:
-    return load_levels(_data_dir() / "levels" / _index_row(species)["file"])
+    _index_row(species)
+    return _all_levels()[species]
 
 
 @functools.cache
@@ -191,8 +243,8 @@ def partition_function(
     ionisation_ev : float, optional
         Ionisation energy used for the cut-off; default the tabulated one.
 
-    A bare nucleus (``"H II"``) has U = 1.  Valid 4 000-25 000 K for the shipped tables (see
-    :func:`partition_function_completeness`).
+    A bare nucleus (``"H II"``) has U = 1.  Valid 1 000-25 000 K for the shipped data (see the
+    module docstring); ``lowering_ev`` applies to level sums only.
     """
     sym, ion = parse_species(species)
     name = species_name(sym, ion)
@@ -200,6 +252,11 @@ def partition_function(
         # a bare nucleus (H II) has no bound electron: U = 1 at every T
         T_arr = _check_t(T, species)
         return np.ones_like(T_arr) if T_arr.ndim else 1.0
+    if levels is None and _method(name) == "tabulated":
+        T_arr = _check_t(T, species)
+        t, lu = _all_tabulated()[name]
+        u = np.exp(np.interp(T_arr, t, lu))
+        return u if u.ndim else float(u)
     if levels is None:
         e, g = _shipped_arrays(name)
     else:
@@ -242,13 +299,28 @@ def partition_function(
     return u if u.ndim else float(u)
 
 
+def _method(name: str) -> str:
+    idx = partition_index()
+    if name not in idx.index:
+        raise AtomicDataError(
+            f"no shipped partition function for {name!r}",
+            where="partition function",
+            fix="pass your own level table with levels=load_levels(path)",
+        )
+    return str(idx.loc[name, "method"])
+
+
 def partition_function_completeness(species: str, T):
     """``exp(-complete_to_ev / (k_B T))``: the Boltzmann factor at the energy up
     to which the shipped table of ``species`` is complete.  Multiplied by the
     statistical weight of the missing levels it bounds roughly the missing part
     of U; values below ~1e-3 mean the missing levels hardly matter.
     """
-    row = _index_row(species_name(*parse_species(species)), species)
+    name = species_name(*parse_species(species))
     T_arr = np.asarray(T, dtype=float)
+    if _method(name) == "tabulated":  # complete by construction (published table)
+        out = np.zeros_like(T_arr)
+        return out if out.ndim else 0.0
+    row = _index_row(name, species)
     out = np.exp(-float(row["complete_to_ev"]) / (K_B_EV * T_arr))
     return out if out.ndim else float(out)

@@ -27,8 +27,10 @@ this is ISO 8466-1:1990, eq. (21) with one measurement of the sample::
 
     s_x0 = (s_y / b) sqrt(1 + 1/N + (y0 - ybar)^2 / (b^2 Sxx))
 
-The effective degrees of freedom follow Welch-Satterthwaite (GUM G.4); with
-``coverage = "student"`` the coverage factor is ``k = t_0.975(nu_eff)``, else 2.
+The effective degrees of freedom follow Welch-Satterthwaite (GUM G.4), with the matrix and fit
+parts merged into one component when both come from the residual variance (``nu = n - p``,
+``Curve._dof_components``); with ``coverage = "student"`` the coverage factor is
+``k = t_0.975(nu_eff)``, else 2.
 """
 
 from __future__ import annotations
@@ -140,18 +142,7 @@ class Curve:
             dx_dxi[el] = -dfdxj / dydx
             v_int += (dfdxj * u_xi.get(el, 0.0)) ** 2
         var = (v_matrix + v_rep + v_fit + v_int) / dydx**2
-        # Welch-Satterthwaite (GUM G.4.1)
-        nu_res = max(self.dof, 1)
-        fit_from_resid = self.scale >= self.scale_stated
-        # sigma_m^2 = sigma_hat^2 - sigma_stated^2 inherits the sampling variance of
-        # sigma_hat^2 (nu = n - p): nu_m = nu (sigma_m^2 / sigma_hat^2)^2 (Satterthwaite 1946)
-        nu_m = max(nu_res * (self.sigma_m2 / self.scale) ** 2, 1.0) if self.scale > 0 else math.inf
-        comps = [
-            (v_matrix / dydx**2, nu_m),
-            (v_rep / dydx**2, max((n_shots or 0) - 1, 1) if n_shots else math.inf),
-            (v_fit / dydx**2, nu_res if fit_from_resid else math.inf),
-            (v_int / dydx**2, math.inf),
-        ]
+        comps = self._dof_components(v_matrix, v_rep, v_fit, v_int, w0, n_shots, dydx)
         den = sum(c**2 / nu for c, nu in comps if c > 0 and math.isfinite(nu))
         dof = var**2 / den if den > 0 else math.inf
         return {
@@ -167,6 +158,31 @@ class Curve:
                 "interference": v_int / dydx**2,
             },
         }
+
+    def _dof_components(self, v_matrix, v_rep, v_fit, v_int, w0, n_shots, dydx) -> list:
+        """(variance, degrees of freedom) of the independent parts of u^2(x0), for
+        Welch-Satterthwaite (GUM G.4.1).
+
+        When the residual scatter sets the coefficient covariance (``sigma_hat >= sigma_stated``),
+        the matrix part ``sigma_m^2 / w0 = (sigma_hat^2 - mean w u_y^2) / w0`` and the fit part
+        ``g'Cg = sigma_hat^2 g'(X'WX)^-1 g`` both scale with the one estimate ``sigma_hat^2``
+        (nu = n - p): they are not independent, so they form one component.  Its random part is
+        ``sigma_hat^2 (1/w0 + g'(X'WX)^-1 g)``, and the known offset ``-mean w u_y^2 / w0`` lowers
+        its degrees of freedom to ``nu (c / c_random)^2`` (Satterthwaite 1946, Biometrics Bull. 2,
+        110, for a linear combination of one mean square).  Otherwise the covariance comes from
+        the stated uncertainties (no sampling error) and only the matrix part inherits
+        ``sigma_hat^2``'s.
+        """
+        nu_res = max(self.dof, 1)
+        d2 = dydx**2
+        nu_rep = max((n_shots or 0) - 1, 1) if n_shots else math.inf
+        if self.scale >= self.scale_stated and self.scale > 0:
+            merged = (v_matrix + v_fit) / d2
+            random = (self.scale / w0 + v_fit) / d2
+            nu_merged = max(nu_res * (merged / random) ** 2, 1.0) if random > 0 else math.inf
+            return [(merged, nu_merged), (v_rep / d2, nu_rep), (v_int / d2, math.inf)]
+        nu_m = max(nu_res * (self.sigma_m2 / self.scale) ** 2, 1.0) if self.scale > 0 else math.inf
+        return [(v_matrix / d2, nu_m), (v_rep / d2, nu_rep), (v_fit / d2, math.inf), (v_int / d2, math.inf)]
 
     def band(self, x, level: float = 0.95, u0: float | None = None) -> tuple:
         """Response of the curve at ``x`` and the half-width of the prediction band.

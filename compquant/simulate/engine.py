@@ -97,6 +97,27 @@ def scenario_lines(scenario: Scenario) -> LineSet:
     return lines
 
 
+def scenario_partition_function(scenario: Scenario):
+    """U(T) from the scenario's own level tables (``[lines] levels = "<dir>"`` holding
+    ``<El>_<ion>.csv`` in :func:`compquant.atomic.load_levels` columns), the shipped data for
+    species without a file; None (the shipped data) when the scenario names no directory."""
+    if scenario.levels_dir is None:
+        return None
+    from compquant.atomic import load_levels, parse_species, partition_function
+
+    d = scenario.levels_dir
+    cache: dict = {}
+
+    def pf(species, T, **kw):
+        sym, ion = parse_species(species)
+        f = d / f"{sym}_{ion}.csv"
+        if f not in cache:
+            cache[f] = load_levels(f) if f.exists() else None
+        return partition_function(species, T, levels=cache[f], **kw)
+
+    return pf
+
+
 def build_model(scenario: Scenario, wl_true: np.ndarray, lines: LineSet | None = None) -> SpectrumModel:
     """The :class:`SpectrumModel` of the scenario (true pixel wavelengths)."""
     ins, pl = scenario.instrument, scenario.plasma
@@ -112,6 +133,7 @@ def build_model(scenario: Scenario, wl_true: np.ndarray, lines: LineSet | None =
         nominal_ne_cm3=pl["ne_cm3"],
         max_stage=pl["max_stage"],
         lowering=pl["ionisation_lowering"],
+        partition_function=scenario_partition_function(scenario),
     )
 
 

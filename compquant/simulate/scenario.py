@@ -81,7 +81,7 @@ _INSTRUMENT = {
 _DRIFT = {"response_scale", "factor_nm", "factor", "wavelength_shift_nm", "description"}
 _DARK = {"frames"}
 _SAMPLE = {"id", "role", "standard", "composition", "shots", "description"}
-_LINES = {"file", "elements"}
+_LINES = {"file", "elements", "levels"}
 
 
 @dataclass(frozen=True)
@@ -115,6 +115,7 @@ class Scenario:
     dark_frames: int
     samples: tuple
     lines_file: Path | None
+    levels_dir: Path | None
     line_elements: tuple | None
     standards_file: Path | None
     certified: dict = field(default_factory=dict)
@@ -390,12 +391,17 @@ def load_scenario(path) -> Scenario:
         check_keys(doc["dark"], _DARK, f"{w}: [dark]")
         dark_frames = _num(doc["dark"], "frames", f"{w}: dark", 0, lo=0, hi=10000, integer=True)
 
-    lines_file, line_elements = None, None
+    lines_file, line_elements, levels_dir = None, None, None
     if "lines" in doc:
         li = doc["lines"]
         check_keys(li, _LINES, f"{w}: [lines]")
         if "file" in li:
             lines_file = (path.parent / _str(li, "file", f"{w}: lines")).resolve()
+        if "levels" in li:
+            levels_dir = (path.parent / _str(li, "levels", f"{w}: lines")).resolve()
+            if not levels_dir.is_dir():
+                raise ConfigError("levels directory not found", where=f"{w}: lines.levels",
+                                  fix="name a directory of <El>_<ion>.csv level tables")
         if "elements" in li:
             v = li["elements"]
             if not isinstance(v, list) or not all(isinstance(x, str) for x in v):
@@ -461,6 +467,7 @@ def load_scenario(path) -> Scenario:
         dark_frames=dark_frames,
         samples=tuple(samples),
         lines_file=lines_file,
+        levels_dir=levels_dir,
         line_elements=line_elements,
         standards_file=std_file,
         certified=certified,
