@@ -19,7 +19,7 @@ from scipy import constants as sc
 from scipy import optimize, special
 
 from compquant.cflibs import CFResult, CFSettings, analyse_cf, one_point_calibration
-from compquant.cflibs.density import (
+from compquant.cflibs.electron_density import (
     h_alpha_width,
     lorentz_from_voigt,
     ne_h_alpha,

@@ -25,8 +25,14 @@ from scipy.special import chdtrc
 
 from compquant.cflibs.atomicdata import default_atomic_data, species_name
 from compquant.cflibs.consistency import plasma_checks
-from compquant.cflibs.density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
-from compquant.cflibs.electron_density import FixedNe, HAlphaNe, StarkLinesNe
+from compquant.cflibs.electron_density import (
+    FixedNe,
+    HAlphaNe,
+    StarkLinesNe,
+    doppler_fwhm_nm,
+    lorentz_from_voigt,
+    stark_width_linear,
+)
 from compquant.cflibs.fitting import wls_batch
 from compquant.cflibs.lineset import LineSet, prepare_lines
 from compquant.cflibs.lte import check_lte
