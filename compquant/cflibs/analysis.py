@@ -23,7 +23,8 @@ import pandas as pd
 from scipy.optimize import minimize_scalar
 from scipy.special import chdtrc
 
-from compquant.cflibs.atomicdata import default_atomic_data, species_name
+from compquant.atomic import species_name
+from compquant.cflibs.atomicdata import default_atomic_data
 from compquant.cflibs.consistency import plasma_checks
 from compquant.cflibs.electron_density import (
     FixedNe,

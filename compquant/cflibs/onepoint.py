@@ -23,8 +23,9 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from compquant.atomic import species_name
 from compquant.cflibs.analysis import _Analysis, _intensity_basis, _select_sample
-from compquant.cflibs.atomicdata import default_atomic_data, species_name
+from compquant.cflibs.atomicdata import default_atomic_data
 from compquant.cflibs.settings import CFSettings
 from compquant.cflibs.solver import logsumexp
 from compquant.errors import CalibrationError

@@ -31,7 +31,7 @@ import math
 
 import numpy as np
 
-from compquant.cflibs.atomicdata import species_name
+from compquant.atomic import species_name
 from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR
 
 MAD_TO_SD = 1.4826  # normal-consistency factor of the median absolute deviation

@@ -37,7 +37,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compquant.cflibs.atomicdata import species_name
+from compquant.atomic import species_name
 from compquant.cflibs.fitting import BatchFit, wls_batch
 from compquant.cflibs.lineset import LineSet
 from compquant.errors import AtomicDataError, PhysicsError
