@@ -306,7 +306,7 @@ def analyse(
         tick("quantify", len(unknowns), len(unknowns))
     else:
         from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
-        from compquant.quantify import quantify
+        from compquant.calibrate.apply import quantify
 
         stds = None
         if standards is not None:

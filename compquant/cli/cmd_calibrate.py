@@ -81,10 +81,10 @@ def command(run_path, method_path, standards_path, output, plots_dir, quiet):
     fraction, with diagnostics, detection limits and the setup samples' reference
     intensities for drift standardisation. Writes the calibration as versioned JSON."""
     from compquant.calibrate import calibrate, load_standards, parse_calibration_section
+    from compquant.calibrate.apply import quantify
     from compquant.calibrate.pls import fit_pls_block
     from compquant.lines import measure_run
     from compquant.method import load_method
-    from compquant.quantify import quantify
     from compquant.run import Run
 
     method = load_method(method_path)

@@ -20,7 +20,7 @@ def command(raster_file, output, seed, no_noise):
     scenario the raster file names, after that scenario's own samples. Positions go to
     shots/x_mm, shots/y_mm. The run is synthetic; real rastering uses a Class 4 laser: eyewear,
     interlocks, fume extraction, and your laser safety officer's rules apply."""
-    from compquant.simulate_raster import load_raster, simulate_raster_run
+    from compquant.simulate.raster import load_raster, simulate_raster_run
 
     sc, sample, include = load_raster(raster_file)
     res = simulate_raster_run(sc, sample, output, seed=seed, noise=not no_noise, include_scenario_samples=include)
