@@ -2,10 +2,11 @@
 
 The flow is one-directional::
 
-    run -> preprocess -> lines -> calibrate | cflibs -> quantify -> report
+    run -> preprocess -> lines -> calibrate (then quantify) | cflibs -> report -> record
 
-Each step is a plain function or small estimator over numpy arrays and pandas
-tables; the command line (``compquant ...``) is a thin shell over this API.
+Each step is a plain function over numpy arrays and pandas tables, importable from
+here (``from compquant import Run, load_method, measure_run, calibrate, quantify``;
+the list is ``__all__``); the command line (``compquant ...``) is a thin shell over it.
 """
 
 from compquant.errors import CompquantError
