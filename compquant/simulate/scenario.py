@@ -270,6 +270,13 @@ def _curve(table: dict, x_key: str, y_key: str, where: str, meaning: str):
     return xs, ys
 
 
+def _section(doc: dict, name: str, keys, w: str, required: set) -> tuple[dict, str]:
+    """A required table of the scenario, its keys checked, and its name for error messages."""
+    table = doc[name]
+    check_keys(table, keys, f"{w}: [{name}]", required=required)
+    return table, f"{w}: {name}"
+
+
 def _standards_table(doc: dict, w: str, path: Path):
     """``[standards]``: (certified values, file, truth seed, clip in sigma)."""
     certified, std_file, truth_seed, clip = {}, None, 0, 2.5
@@ -285,9 +292,7 @@ def _standards_table(doc: dict, w: str, path: Path):
 
 def _plasma_table(doc: dict, w: str) -> dict:
     """``[plasma]``: temperature, electron density, their shot-to-shot spread, the model switches."""
-    pl = doc["plasma"]
-    wp = f"{w}: plasma"
-    check_keys(pl, _PLASMA, f"{w}: [plasma]", required={"temperature_k", "ne_cm3"})
+    pl, wp = _section(doc, "plasma", _PLASMA, w, {"temperature_k", "ne_cm3"})
     plasma = {
         "temperature_k": _num(pl, "temperature_k", wp, lo=3000, hi=30000),
         "temperature_rsd": _num(pl, "temperature_rsd", wp, 0.0, lo=0, hi=0.3),
@@ -308,9 +313,7 @@ def _plasma_table(doc: dict, w: str) -> dict:
 
 def _laser_table(doc: dict, w: str) -> dict:
     """``[laser]``: wavelength, pulse energy and its spread, spot, repetition rate, raster."""
-    la = doc["laser"]
-    wl_ = f"{w}: laser"
-    check_keys(la, _LASER, f"{w}: [laser]", required={"wavelength_nm", "pulse_energy_mj"})
+    la, wl_ = _section(doc, "laser", _LASER, w, {"wavelength_nm", "pulse_energy_mj"})
     laser = {
         "wavelength_nm": _num(la, "wavelength_nm", wl_, lo=100, hi=11000),
         "pulse_energy_mj": _num(la, "pulse_energy_mj", wl_, lo=0, lo_open=True, hi=10000),
@@ -327,13 +330,9 @@ def _laser_table(doc: dict, w: str) -> dict:
 
 def _instrument_table(doc: dict, w: str) -> dict:
     """``[instrument]``: wavelength range, pixels, resolution, detector, gate, response curve."""
-    ins = doc["instrument"]
-    wi = f"{w}: instrument"
-    check_keys(
-        ins,
-        _INSTRUMENT,
-        f"{w}: [instrument]",
-        required={"wavelength_min_nm", "wavelength_max_nm", "n_pixels", "photoelectrons_per_radiance"},
+    ins, wi = _section(
+        doc, "instrument", _INSTRUMENT, w,
+        {"wavelength_min_nm", "wavelength_max_nm", "n_pixels", "photoelectrons_per_radiance"},
     )
     instrument = {
         "name": _str(ins, "name", wi, "simulated spectrometer"),
