@@ -38,9 +38,9 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section  # noqa: E402
+from compquant.calibrate.apply import quantify  # noqa: E402
 from compquant.lines import measure_run  # noqa: E402
 from compquant.method import load_method, method_from_dict  # noqa: E402
-from compquant.quantify import quantify  # noqa: E402
 from compquant.run import Run  # noqa: E402
 from compquant.simulate import load_scenario, simulate_run  # noqa: E402
 from compquant.simulate.scenario import draw_true_composition  # noqa: E402

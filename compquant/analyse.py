@@ -488,7 +488,7 @@ def analyse(
 class _Quant:
     """What the quantification step hands on to the certificates."""
 
-    results: object = None  # the results table (compquant.quantify.RESULT_COLUMNS)
+    results: object = None  # the results table (compquant.calibrate.apply.RESULT_COLUMNS)
     checks: list = field(default_factory=list)  # CheckResult
     drift_info: DriftInfo = field(default_factory=lambda: DriftInfo(False, ""))
     not_reported: list = field(default_factory=list)
@@ -548,7 +548,7 @@ def _quantify_calibration(meas, samples, method, standards, calibration, run_pat
 
     from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
     from compquant.calibrate.build import certified_table
-    from compquant.quantify import quantify
+    from compquant.calibrate.apply import quantify
 
     qd = _Quant()
     stds = None

@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from compquant.calibrate.apply import coverage_factor
 from compquant.calibrate.build import curve_from_records
 from compquant.calibrate.config import AnalyteConfig
-from compquant.quantify import coverage_factor
 
 N_REP = 1000
 # binomial tolerance: 95 % +- 2.2 points is ~3.2 sd of a 1000-trial proportion (sd 0.69 %)

@@ -10,8 +10,8 @@ import pytest
 from calib_synth import LINES, config_dict, make_tables
 
 from compquant.calibrate import Calibration, calibrate, parse_calibration_section
+from compquant.calibrate.apply import RESULT_COLUMNS, quantify
 from compquant.errors import CalibrationError, MethodError
-from compquant.quantify import RESULT_COLUMNS, quantify
 
 
 def _cal(seed=1, cfg=None, **kw):

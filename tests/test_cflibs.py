@@ -19,17 +19,17 @@ from scipy import constants as sc
 from scipy import optimize, special
 
 from compquant.cflibs import CFResult, CFSettings, analyse_cf, one_point_calibration
-from compquant.cflibs.constants import SAHA_PREFACTOR_CM3
-from compquant.cflibs.density import (
+from compquant.cflibs.electron_density import (
     h_alpha_width,
     lorentz_from_voigt,
     ne_h_alpha,
     voigt_fwhm,
 )
 from compquant.cflibs.lte import check_lte, mcwhirter_ne_min
-from compquant.cflibs.saha import ln_saha_ratio
 from compquant.cflibs.selfabs import sa_factor, sa_lorentz
 from compquant.errors import MethodError, PhysicsError
+from compquant.plasma.constants import SAHA_PREFACTOR_CM3
+from compquant.plasma.saha import ln_saha_ratio
 
 W_TRUE = {"Fe": 0.70, "Cr": 0.18, "Ni": 0.12}
 

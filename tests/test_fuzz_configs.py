@@ -221,7 +221,7 @@ def _paths(obj, prefix=()):
 )
 def test_fuzz_calibration_files(env, ops):
     from compquant.calibrate import Calibration
-    from compquant.quantify import quantify
+    from compquant.calibrate.apply import quantify
 
     doc = copy.deepcopy(env["cal"])
     for pick, op, val in ops:
@@ -247,7 +247,7 @@ def test_fuzz_calibration_files(env, ops):
 def test_calibration_fuzz_base_is_valid(env):
     """Guard on the fuzzer: the unmutated calibration loads and quantifies."""
     from compquant.calibrate import Calibration
-    from compquant.quantify import quantify
+    from compquant.calibrate.apply import quantify
 
     p = env["dir"] / "base-cal.json"
     p.write_text(json.dumps(env["cal"]), encoding="utf-8")

@@ -396,13 +396,13 @@ def env(tmp_path_factory):
 def exercise_method(path: Path, env: dict) -> list[str]:
     """Everything the tool does with a method file, on the small run; returns the steps reached."""
     from compquant.calibrate import calibrate, parse_calibration_section
+    from compquant.calibrate.apply import quantify
     from compquant.cflibs import analyse_cf
     from compquant.cflibs.settings import CFSettings
     from compquant.identify.settings import settings_from_method
     from compquant.lines import measure_run
     from compquant.maps.build import parse_map_section
     from compquant.method import load_method
-    from compquant.quantify import quantify
 
     method = load_method(path)
     reached = ["loaded"]

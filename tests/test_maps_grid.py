@@ -10,7 +10,7 @@ import pytest
 from compquant.errors import DataQualityError, ResourceLimitError
 from compquant.maps.grid import GridAccumulator, RasterGrid
 from compquant.maps.output import ElementMap, SampleMaps, read_maps_h5, write_map_png, write_maps_h5
-from compquant.simulate_raster import DiffusionProfile, Inclusion, RasterSample
+from compquant.simulate.raster import DiffusionProfile, Inclusion, RasterSample
 
 
 def _serpentine(nx, ny, step, jitter, rng):

@@ -8,9 +8,12 @@ Public API::
     Calibration.save(path) / Calibration.load(path, method_id=..., method_sha256=...)
     fit_curve(x, y, model=..., weights=...) -> CurveFit
 
-``compquant.quantify.quantify`` applies a Calibration to a run's line table.
+    quantify(measurement, calibration, ...) -> QuantifyResult   (compquant.calibrate.apply)
+
+``quantify`` is the apply half: it turns a run's line table into results with a Calibration.
 """
 
+from compquant.calibrate.apply import RESULT_COLUMNS, QuantifyResult, quantify
 from compquant.calibrate.build import calibrate
 from compquant.calibrate.checks import en_number, z_score, zeta_score
 from compquant.calibrate.config import CalibrationConfig, parse_calibration_section
@@ -34,4 +37,7 @@ __all__ = [
     "zeta_score",
     "z_score",
     "SCHEMA_VERSION",
+    "RESULT_COLUMNS",
+    "QuantifyResult",
+    "quantify",
 ]

@@ -18,7 +18,7 @@ import math
 
 import numpy as np
 
-from compquant.atomic import K_B_EV
+from compquant.plasma.constants import KB_EV
 
 #: lower levels up to this energy count as the ground term (a judgement: fine-structure
 #: components of ground terms lie within a few tenths of an eV and are as heavily populated)
@@ -40,7 +40,7 @@ def suggest_alternatives(lines, istd_id, analyte_id=None, *, temperature_k=10000
                  & (lines["ei_ev"] > GROUND_TERM_EV)]
     if same.empty:
         return []
-    kt = K_B_EV * temperature_k
+    kt = KB_EV * temperature_k
     strength = same["gk"] * same["aki"] * np.exp(-same["ek_ev"] / kt)
     ana = None if analyte_id is None else _row(lines, analyte_id)
     if ana is not None:

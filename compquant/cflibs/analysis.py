@@ -23,11 +23,17 @@ import pandas as pd
 from scipy.optimize import minimize_scalar
 from scipy.special import chdtrc
 
-from compquant.cflibs.atomicdata import default_atomic_data, species_name
+from compquant.atomic import species_name
+from compquant.cflibs.atomicdata import default_atomic_data
 from compquant.cflibs.consistency import plasma_checks
-from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
-from compquant.cflibs.density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
-from compquant.cflibs.electron_density import FixedNe, HAlphaNe, StarkLinesNe
+from compquant.cflibs.electron_density import (
+    FixedNe,
+    HAlphaNe,
+    StarkLinesNe,
+    doppler_fwhm_nm,
+    lorentz_from_voigt,
+    stark_width_linear,
+)
 from compquant.cflibs.fitting import wls_batch
 from compquant.cflibs.lineset import LineSet, prepare_lines
 from compquant.cflibs.lte import check_lte
@@ -43,6 +49,8 @@ from compquant.cflibs.selfabs import (
 from compquant.cflibs.settings import CFSettings
 from compquant.cflibs.solver import Model, Solution
 from compquant.errors import AtomicDataError, DataQualityError, InputError, PhysicsError
+from compquant.plasma.constants import KB_EV as K_B_EV  # one constant; the body keeps its local name
+from compquant.plasma.constants import LN_SAHA_PREFACTOR
 
 
 class CFWarning(UserWarning):

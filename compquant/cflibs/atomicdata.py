@@ -16,11 +16,7 @@ import numpy as np
 import pandas as pd
 
 import compquant.atomic as atomic
-from compquant.atomic import parse_species, species_name
 from compquant.errors import AtomicDataError
-
-#: species names ``"Fe II"`` <-> ``("Fe", 2)``: the shipped parser of compquant.atomic
-split_species = parse_species
 
 
 class PackageAtomicData:
@@ -142,6 +138,4 @@ __all__ = [
     "PackageAtomicData",
     "TableAtomicData",
     "default_atomic_data",
-    "species_name",
-    "split_species",
 ]

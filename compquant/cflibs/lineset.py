@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from compquant.cflibs.atomicdata import species_name, split_species
+from compquant.atomic import parse_species, species_name
 from compquant.errors import AtomicDataError, DataQualityError, InputError
 
 ATOMIC_COLS = ("aki", "gk", "ek_ev", "ei_ev")
@@ -68,7 +68,7 @@ def join_atomic(rows: pd.DataFrame, atomic, where: str) -> pd.DataFrame:
         if c not in out.columns:
             out[c] = np.nan
     if "element" not in out.columns or "ion" not in out.columns:
-        sp = [split_species(str(lid).rsplit(" ", 1)[0]) for lid in out["line_id"]]
+        sp = [parse_species(str(lid).rsplit(" ", 1)[0]) for lid in out["line_id"]]
         out["element"] = [s[0] for s in sp]
         out["ion"] = [s[1] for s in sp]
     if "wavelength_nm" not in out.columns:

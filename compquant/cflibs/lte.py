@@ -38,7 +38,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from compquant.cflibs.constants import K_B_EV
+from compquant.plasma.constants import KB_EV
 
 
 def mcwhirter_ne_min(T, delta_e_ev) -> np.ndarray:
@@ -48,7 +48,7 @@ def mcwhirter_ne_min(T, delta_e_ev) -> np.ndarray:
 
 def relaxation_time_s(ne, T, delta_e_ev, f: float = 0.1, gaunt: float = 0.2) -> np.ndarray:
     """Relaxation time to excitation equilibrium τ_rel (s), Cristoforetti et al. 2010 eq. 8."""
-    kT = K_B_EV * np.asarray(T, dtype=float)
+    kT = KB_EV * np.asarray(T, dtype=float)
     dE = np.asarray(delta_e_ev, dtype=float)
     x = np.minimum(dE / kT, 700.0)  # keeps exp finite; τ is astronomically long there anyway
     return 6.3e4 / (np.asarray(ne, dtype=float) * f * gaunt) * dE * np.sqrt(kT) * np.exp(x)
@@ -56,7 +56,7 @@ def relaxation_time_s(ne, T, delta_e_ev, f: float = 0.1, gaunt: float = 0.2) -> 
 
 def diffusion_length_cm(ne, T, delta_e_ev, mass_u) -> np.ndarray:
     """Diffusion length of atoms during τ_rel (cm), Cristoforetti et al. 2010 eq. 10."""
-    kT = K_B_EV * np.asarray(T, dtype=float)
+    kT = KB_EV * np.asarray(T, dtype=float)
     dE = np.asarray(delta_e_ev, dtype=float)
     x = np.minimum(dE / (2 * kT), 700.0)
     return 1.4e12 * kT**0.75 / np.asarray(ne, dtype=float) * np.sqrt(dE / np.asarray(mass_u)) * np.exp(x)

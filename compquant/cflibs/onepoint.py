@@ -23,12 +23,13 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from compquant.atomic import species_name
 from compquant.cflibs.analysis import _Analysis, _intensity_basis, _select_sample
-from compquant.cflibs.atomicdata import default_atomic_data, species_name
-from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
+from compquant.cflibs.atomicdata import default_atomic_data
 from compquant.cflibs.settings import CFSettings
 from compquant.cflibs.solver import logsumexp
 from compquant.errors import CalibrationError
+from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR
 
 SCHEMA = "compquant.cf-one-point/1"
 
@@ -93,18 +94,18 @@ def one_point_calibration(line_table, certified: dict[str, float], *, sample_id:
         lu2 = float(model.ln_u(species_name(e, 2), Tarr)[0])
         low1 = float(model.lowering(Tarr, np.array([ne]), 1)[0])
         low2 = float(model.lowering(Tarr, np.array([ne]), 2)[0])
-        ln_r1 = ln_saha + lu2 - lu1 - (model.ie1[e] - low1) / (K_B_EV * T)
+        ln_r1 = ln_saha + lu2 - lu1 - (model.ie1[e] - low1) / (KB_EV * T)
         terms = [0.0, ln_r1]
         s3 = species_name(e, 3)
         if s.include_ion3 and model.ie2.get(e) is not None and model.has_u(s3):
             lu3 = float(model.ln_u(s3, Tarr)[0])
-            terms.append(ln_r1 + ln_saha + lu3 - lu2 - (model.ie2[e] - low2) / (K_B_EV * T))
+            terms.append(ln_r1 + ln_saha + lu3 - lu2 - (model.ie2[e] - low2) / (KB_EV * T))
         ln_n1 = lx - logsumexp(terms)
         ln_sp[species_name(e, 1)] = ln_n1 - lu1
         ln_sp[species_name(e, 2)] = ln_n1 + ln_r1 - lu2
     y_meas = np.log(L.intensity * L.wl / L.gA)
     have = np.isin(L.element, els)
-    y_pred = np.array([ln_sp.get(sp, np.nan) for sp in L.species]) - L.ek / (K_B_EV * T)
+    y_pred = np.array([ln_sp.get(sp, np.nan) for sp in L.species]) - L.ek / (KB_EV * T)
     d = (y_meas - y_pred)[have]
     w = a.w[have]
     ln_f = float(np.sum(d * w) / np.sum(w))

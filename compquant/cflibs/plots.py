@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from compquant.cflibs.constants import K_B_EV
+from compquant.plasma.constants import KB_EV
 from compquant.plotting import pyplot, save_png
 
 
@@ -86,7 +86,7 @@ def plot_saha_boltzmann(result, path, dpi: int = 110) -> None:
                  f"T = {T:.0f} ± {result.u_temperature_k:.0f} K, "
                  f"nₑ = {result.electron_density_cm3:.2e} cm⁻³ ({result.ne_method})", fontsize=9)
     if m is not None:
-        ax.text(0.98, 0.97, f"slope −1/kT = {m:.4f} eV⁻¹ (T = {-1 / (K_B_EV * m):.0f} K)",
+        ax.text(0.98, 0.97, f"slope −1/kT = {m:.4f} eV⁻¹ (T = {-1 / (KB_EV * m):.0f} K)",
                 transform=ax.transAxes, ha="right", va="top", fontsize=7)
     ax.legend(fontsize=7)
     fig.tight_layout()

@@ -31,8 +31,8 @@ import math
 
 import numpy as np
 
-from compquant.cflibs.atomicdata import species_name
-from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
+from compquant.atomic import species_name
+from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR
 
 MAD_TO_SD = 1.4826  # normal-consistency factor of the median absolute deviation
 
@@ -107,7 +107,7 @@ def predict_ln_intensity(model, sol, nd, settings):
     out = np.full(nd.n, np.nan)
     u = np.full(nd.n, np.nan)
     low = float(model.lowering(np.array([T]), np.array([ne]), 1)[0])
-    shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T) - math.log(ne) + low / (K_B_EV * T)
+    shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T) - math.log(ne) + low / (KB_EV * T)
     for i in range(nd.n):
         e, z = str(nd.element[i]), int(nd.ion[i])
         key = e if settings.fit == "saha-boltzmann" else species_name(e, z)

@@ -34,7 +34,7 @@ import math
 import numpy as np
 from scipy.special import i0e, i1e, voigt_profile
 
-from compquant.cflibs.constants import K_B_EV
+from compquant.plasma.constants import KB_EV
 from compquant.plasma.emission import line_absorption_integrated
 from compquant.plasma.profiles import voigt
 
@@ -97,7 +97,7 @@ def tau0_slab(
     """
     T = np.asarray(T, dtype=float)
     n_low = np.asarray(n_species_cm3, dtype=float) / np.asarray(u_species, dtype=float) * np.exp(
-        -np.asarray(ei_ev, dtype=float) / (K_B_EV * T))  # n_i / g_i
+        -np.asarray(ei_ev, dtype=float) / (KB_EV * T))  # n_i / g_i
     k_int = line_absorption_integrated(wavelength_nm, gk_aki, 1.0, 1.0, n_low, T)  # m⁻¹ nm
     wg = np.maximum(np.asarray(w_gauss_nm, dtype=float), 1e-12)
     wl = np.maximum(np.asarray(w_lorentz_nm, dtype=float), 0.0)
@@ -119,7 +119,7 @@ def sa_reference_line(intensity, wavelength_nm, gk_aki, ek_ev, ref_index: int, T
     ek = np.asarray(ek_ev, dtype=float)
     r = ref_index
     return (intensity / intensity[r]) * (ga[r] * lam) / (ga * lam[r]) * np.exp(
-        (ek - ek[r]) / (K_B_EV * T))
+        (ek - ek[r]) / (KB_EV * T))
 
 
 __all__ = [

@@ -37,11 +37,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compquant.cflibs.atomicdata import species_name
-from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
+from compquant.atomic import species_name
 from compquant.cflibs.fitting import BatchFit, wls_batch
 from compquant.cflibs.lineset import LineSet
 from compquant.errors import AtomicDataError, PhysicsError
+from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR
 from compquant.plasma.saha import ionisation_lowering_ev
 
 
@@ -192,13 +192,13 @@ class Model:
                     else:
                         ne_now = ne_prev
                     if ne_now is not None:  # Debye–Hückel lowering: y* −= ΔE/kT on ion rows
-                        shift = shift + self.lowering(Tc, ne_now, 1) / (K_B_EV * Tc)
+                        shift = shift + self.lowering(Tc, ne_now, 1) / (KB_EV * Tc)
                     y = y_base - np.where(ion, shift[:, None], 0.0)
                 else:
                     y = y_base
                 fit = wls_batch(X, y, w, scale_by_chi2=s.scale_by_chi2)
                 m = fit.beta[:, 0]
-                T_new = np.where(m < 0, -1.0 / (K_B_EV * m), np.nan)
+                T_new = np.where(m < 0, -1.0 / (KB_EV * m), np.nan)
                 done = bool(np.all(np.isfinite(T_new)) and np.nanmax(np.abs(T_new / T - 1.0)) < 1e-9)
                 if ne_free and self.mode == "saha-boltzmann":
                     ne_fit = np.exp(np.clip(fit.beta[:, -1], -700, 700))
@@ -271,7 +271,7 @@ class Model:
         wts = 1.0 / np.array(variances)
         low = np.zeros_like(T)
         for _ in range(20):  # lowering depends on nₑ: fixed point, converges in a few steps
-            ests = np.array([LN_SAHA_PREFACTOR + 1.5 * np.log(T) - (ie - low) / (K_B_EV * T) - df
+            ests = np.array([LN_SAHA_PREFACTOR + 1.5 * np.log(T) - (ie - low) / (KB_EV * T) - df
                              for ie, df in zip(ies, diffs)])
             ln_ne = np.sum(ests * wts, axis=0) / np.sum(wts, axis=0)
             new = self.lowering(T, np.exp(np.clip(ln_ne, -700, 700)), 1)
@@ -286,7 +286,7 @@ class Model:
         s = self.settings
         d = beta.shape[0]
         ln_saha = LN_SAHA_PREFACTOR + 1.5 * np.log(T) - np.log(ne)
-        kT = K_B_EV * T
+        kT = KB_EV * T
         low1 = self.lowering(T, ne, 1)
         low2 = self.lowering(T, ne, 2)
         out = np.empty((d, len(self.elements)))

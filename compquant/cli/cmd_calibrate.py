@@ -84,10 +84,10 @@ def command(run_path, method_path, standards_path, output, plots_dir, quiet):
 
     refuse_overwriting_inputs([output, plots_dir], [run_path, method_path, standards_path])
     from compquant.calibrate import calibrate, load_standards, parse_calibration_section
+    from compquant.calibrate.apply import quantify
     from compquant.calibrate.pls import fit_pls_block
     from compquant.lines import measure_run
     from compquant.method import load_method
-    from compquant.quantify import quantify
     from compquant.run import Run
 
     method = load_method(method_path)

@@ -117,11 +117,11 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
 
     refuse_overwriting_inputs([output], [run_path, cal_path, method_path, standards_path])
     from compquant.calibrate import Calibration, load_standards
+    from compquant.calibrate.apply import quantify
     from compquant.errors import CalibrationError
     from compquant.fileio import atomic_write
     from compquant.lines import measure_run
     from compquant.method import load_method
-    from compquant.quantify import quantify
     from compquant.run import Run
 
     cal = Calibration.load(cal_path)

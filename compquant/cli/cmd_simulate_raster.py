@@ -23,7 +23,7 @@ def command(raster_file, output, seed, no_noise):
     from compquant.fileio import refuse_overwriting_inputs
 
     refuse_overwriting_inputs([output], [raster_file])
-    from compquant.simulate_raster import load_raster, simulate_raster_run
+    from compquant.simulate.raster import load_raster, simulate_raster_run
 
     sc, sample, include = load_raster(raster_file)
     res = simulate_raster_run(sc, sample, output, seed=seed, noise=not no_noise, include_scenario_samples=include)

@@ -12,7 +12,7 @@ Flow (``make_maps``):
 3. with a calibration, every node becomes a pseudo-sample of the line table (mean
    intensity, ``u = s_shots / sqrt(n_node)`` with ``s_shots`` the sample's shot-to-shot
    standard deviation, since a spot is usually fired once) and
-   :func:`compquant.quantify.quantify` turns it into mass fractions exactly as for a
+   :func:`compquant.calibrate.apply.quantify` turns it into mass fractions exactly as for a
    sample: the same curves, internal-standard closure and drift standardisation.
 
 Memory: the spectra are streamed; held in memory are the per-shot intensities
@@ -260,7 +260,7 @@ def make_maps(
         out.append(sm)
     results = None
     if calibration is not None:
-        from compquant.quantify import quantify
+        from compquant.calibrate.apply import quantify
 
         # the run's own samples come too, so drift standardisation uses its setup samples
         lt = pd.concat([lm.table, *node_tables], ignore_index=True)

@@ -2,9 +2,10 @@
 
 Modules (each docstring gives its equations, units and citations):
 
-* :mod:`~compquant.plasma.constants` - CODATA constants, the Saha constant;
+* :mod:`~compquant.plasma.constants` - CODATA constants, the Saha constant (the one home of
+  both; :mod:`compquant.cflibs` imports them);
 * :mod:`~compquant.plasma.boltzmann` - level populations;
-* :mod:`~compquant.plasma.saha` - Saha ratio, Debye-Hueckel lowering;
+* :mod:`~compquant.plasma.saha` - Saha ratio (linear and log forms), Debye-Hueckel lowering;
 * :mod:`~compquant.plasma.lte` - species densities with charge neutrality;
 * :mod:`~compquant.plasma.emission` - line emissivity, absorption, Planck;
 * :mod:`~compquant.plasma.profiles` - Doppler, Stark, Voigt, instrument;
@@ -16,7 +17,7 @@ Modules (each docstring gives its equations, units and citations):
 from __future__ import annotations
 
 from compquant.plasma.boltzmann import boltzmann_factor, level_population, population_ratio
-from compquant.plasma.constants import KB_EV, SAHA_PREFACTOR_CM3
+from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR, SAHA_PREFACTOR_CM3
 from compquant.plasma.continuum import KRAMERS_C1, continuum_emissivity
 from compquant.plasma.emission import (
     line_absorption_integrated,
@@ -43,12 +44,20 @@ from compquant.plasma.profiles import (
     voigt,
     voigt_fwhm,
 )
-from compquant.plasma.saha import debye_length_m, ionisation_lowering_ev, saha_ratio
+from compquant.plasma.saha import (
+    debye_length_m,
+    ionisation_lowering_ev,
+    ln_saha_factor,
+    ln_saha_ratio,
+    ne_from_ln_ratio,
+    saha_ratio,
+)
 from compquant.plasma.slab import optical_depth, self_absorption_coefficient, slab_radiance, thin_radiance
 
 __all__ = [
     "KB_EV",
     "KRAMERS_C1",
+    "LN_SAHA_PREFACTOR",
     "SAHA_PREFACTOR_CM3",
     "Instrument",
     "LTEState",
@@ -66,8 +75,11 @@ __all__ = [
     "line_absorption_integrated",
     "line_emissivity",
     "line_emissivity_lte",
+    "ln_saha_factor",
+    "ln_saha_ratio",
     "lorentzian",
     "mass_to_number_fractions",
+    "ne_from_ln_ratio",
     "number_to_mass_fractions",
     "optical_depth",
     "planck_radiance",

@@ -2,7 +2,10 @@
 
 ``SAHA_PREFACTOR_CM3`` is the constant of the Saha equation,
 ``2 (2 pi m_e k / h^2)^(3/2)`` = 4.829e15 cm^-3 K^-3/2 (CODATA 2018 values through
-scipy.constants); ``KB_EV`` is the Boltzmann constant in eV/K.
+scipy.constants); ``LN_SAHA_PREFACTOR`` its natural log (for the log form of the Saha
+equation); ``KB_EV`` is the Boltzmann constant in eV/K.  This module is the one home of these
+constants: the forward model (:mod:`compquant.plasma`) and the calibration-free inversion
+(:mod:`compquant.cflibs`) both import them from here.
 """
 
 from __future__ import annotations
@@ -26,6 +29,8 @@ HC_EV_NM = _sc.h * _sc.c / _sc.e * 1e9  #: h c in eV nm (1239.84...)
 SAHA_PREFACTOR_M3 = 2.0 * (2.0 * math.pi * ME * KB / H**2) ** 1.5
 #: the same in cm^-3 K^-3/2 (the trade's unit for densities): 4.83e15
 SAHA_PREFACTOR_CM3 = SAHA_PREFACTOR_M3 * 1e-6
+#: ln of SAHA_PREFACTOR_CM3, used in log-space Saha terms (cm^-3 K^-3/2 inside the log)
+LN_SAHA_PREFACTOR = math.log(SAHA_PREFACTOR_CM3)
 
 __all__ = [
     "AMU",
@@ -36,6 +41,7 @@ __all__ = [
     "HC_EV_NM",
     "KB",
     "KB_EV",
+    "LN_SAHA_PREFACTOR",
     "ME",
     "QE",
     "SAHA_PREFACTOR_CM3",

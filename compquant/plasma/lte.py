@@ -25,19 +25,18 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from compquant.atomic.elements import species_name
 from compquant.errors import PhysicsError
 from compquant.plasma.saha import ionisation_lowering_ev, saha_ratio
 
+#: stages this solver handles (it builds names with :func:`compquant.atomic.species_name`)
 ROMAN = ("I", "II", "III", "IV")
 
 
-def species_name(element: str, stage: int) -> str:
-    """``("Cu", 2) -> "Cu II"`` (stage 1 = neutral)."""
-    return f"{element} {ROMAN[stage - 1]}"
-
-
 def species_stage(species: str) -> int:
-    """``"Cu II" -> 2`` (stage 1 = neutral); inverse of :func:`species_name`."""
+    """``"Cu II" -> 2`` (stage 1 = neutral) for the solver's own keys, any element symbol
+    (toy elements too: the solver is data-agnostic); names are built by
+    :func:`compquant.atomic.species_name`, strict parsing is :func:`compquant.atomic.parse_species`."""
     return ROMAN.index(species.split()[1]) + 1
 
 

@@ -24,6 +24,9 @@ broadcast numpy-style.
 
       w_V = 0.5346 w_L + sqrt(0.2166 w_L^2 + w_G^2)
 
+  and its exact inverse for the Lorentzian (Stark) part given the total and the Gaussian
+  part (:func:`lorentz_from_voigt`, used to measure Stark widths).
+
 * Instrument function: Gaussian of FWHM ``lambda / R`` for resolving power R
   (common practice for grating spectrometers), or a constant FWHM in nm.
 """
@@ -38,6 +41,9 @@ from scipy.special import voigt_profile
 from compquant.plasma.constants import AMU, KB, C
 
 FWHM_TO_SIGMA = 1.0 / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+#: Olivero & Longbothum 1977 coefficients of the Voigt FWHM
+_OL_A = 0.5346
+_OL_B = 0.2166
 
 
 def gaussian(x_nm, centre_nm, fwhm_nm):
@@ -68,7 +74,24 @@ def voigt_fwhm(fwhm_gauss_nm, fwhm_lorentz_nm):
     """Voigt FWHM after Olivero & Longbothum 1977 (JQSRT 17, 233), 0.02 % accuracy."""
     wl = np.asarray(fwhm_lorentz_nm, float)
     wg = np.asarray(fwhm_gauss_nm, float)
-    return 0.5346 * wl + np.sqrt(0.2166 * wl * wl + wg * wg)
+    return _OL_A * wl + np.sqrt(_OL_B * wl * wl + wg * wg)
+
+
+def lorentz_from_voigt(w_voigt, w_gauss) -> np.ndarray:
+    """Lorentzian FWHM that, with Gaussian FWHM ``w_gauss``, gives Voigt FWHM ``w_voigt``.
+
+    Exact inverse of :func:`voigt_fwhm` (Olivero & Longbothum 1977): the smaller root of
+    (A² − B) w_L² − 2A·w_V·w_L + (w_V² − w_G²) = 0.  Returns 0 where w_V ≤ w_G
+    (no Lorentzian part resolvable).
+    """
+    wv = np.asarray(w_voigt, dtype=float)
+    wg = np.asarray(w_gauss, dtype=float)
+    a = _OL_A**2 - _OL_B
+    b = -2.0 * _OL_A * wv
+    c = wv**2 - wg**2
+    disc = np.maximum(b**2 - 4 * a * c, 0.0)
+    root = (-b - np.sqrt(disc)) / (2 * a)
+    return np.where(wv > wg, np.maximum(root, 0.0), 0.0)
 
 
 def doppler_fwhm(wavelength_nm, temperature_k, mass_u):
@@ -119,6 +142,7 @@ __all__ = [
     "doppler_fwhm",
     "gaussian",
     "instrument_fwhm",
+    "lorentz_from_voigt",
     "lorentzian",
     "stark_fwhm",
     "stark_shift",

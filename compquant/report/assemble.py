@@ -1,7 +1,7 @@
 """From the analysis objects to certificate parts (used by :mod:`compquant.analyse`).
 
 Adapters from the outputs of the earlier steps -- the results table of
-:mod:`compquant.quantify`, a :class:`compquant.calibrate.Calibration`, a
+:mod:`compquant.calibrate.apply`, a :class:`compquant.calibrate.Calibration`, a
 :class:`compquant.cflibs.result.CFResult`, the run -- to the plain certificate
 dataclasses of :mod:`compquant.report.certificate`, and the figures of one
 sample.  The objects are read by attribute (duck typing), so this module

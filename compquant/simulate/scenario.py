@@ -271,19 +271,15 @@ def _curve(table: dict, x_key: str, y_key: str, where: str, meaning: str):
     return xs, ys
 
 
-def load_scenario(path) -> Scenario:
-    """Read and validate a scenario TOML file."""
-    path = Path(path)
-    doc = load_toml(path, "scenario file")
-    w = str(path)
-    check_keys(doc, _TOP, w, required={"scenario", "plasma", "laser", "instrument", "samples"})
-    sc = doc["scenario"]
-    check_keys(sc, _SCENARIO, f"{w}: [scenario]", required={"id"})
-    ws = f"{w}: scenario"
-    matrix = _str(sc, "matrix", ws, "Cu")
-    seed = _num(sc, "seed", ws, 0, lo=0, integer=True)
-    interval = _num(sc, "sample_interval_s", ws, 60.0, lo=0)
+def _section(doc: dict, name: str, keys, w: str, required: set) -> tuple[dict, str]:
+    """A required table of the scenario, its keys checked, and its name for error messages."""
+    table = doc[name]
+    check_keys(table, keys, f"{w}: [{name}]", required=required)
+    return table, f"{w}: {name}"
 
+
+def _standards_table(doc: dict, w: str, path: Path):
+    """``[standards]``: (certified values, file, truth seed, clip in sigma)."""
     certified, std_file, truth_seed, clip = {}, None, 0, 2.5
     if "standards" in doc:
         st = doc["standards"]
@@ -292,10 +288,12 @@ def load_scenario(path) -> Scenario:
         truth_seed = _num(st, "truth_seed", f"{w}: standards", 0, lo=0, integer=True)
         clip = _num(st, "truth_clip_sigma", f"{w}: standards", 2.5, lo=0, lo_open=True)
         certified = load_standards_csv(std_file)
+    return certified, std_file, truth_seed, clip
 
-    pl = doc["plasma"]
-    wp = f"{w}: plasma"
-    check_keys(pl, _PLASMA, f"{w}: [plasma]", required={"temperature_k", "ne_cm3"})
+
+def _plasma_table(doc: dict, w: str) -> dict:
+    """``[plasma]``: temperature, electron density, their shot-to-shot spread, the model switches."""
+    pl, wp = _section(doc, "plasma", _PLASMA, w, {"temperature_k", "ne_cm3"})
     plasma = {
         "temperature_k": _num(pl, "temperature_k", wp, lo=3000, hi=30000),
         "temperature_rsd": _num(pl, "temperature_rsd", wp, 0.0, lo=0, hi=0.3),
@@ -311,9 +309,12 @@ def load_scenario(path) -> Scenario:
         "temperature_energy_exponent": _num(pl, "temperature_energy_exponent", wp, 0.0, lo=-2, hi=2),
         "ne_energy_exponent": _num(pl, "ne_energy_exponent", wp, 0.0, lo=-2, hi=2),
     }
-    la = doc["laser"]
-    wl_ = f"{w}: laser"
-    check_keys(la, _LASER, f"{w}: [laser]", required={"wavelength_nm", "pulse_energy_mj"})
+    return plasma
+
+
+def _laser_table(doc: dict, w: str) -> dict:
+    """``[laser]``: wavelength, pulse energy and its spread, spot, repetition rate, raster."""
+    la, wl_ = _section(doc, "laser", _LASER, w, {"wavelength_nm", "pulse_energy_mj"})
     laser = {
         "wavelength_nm": _num(la, "wavelength_nm", wl_, lo=100, hi=11000),
         "pulse_energy_mj": _num(la, "pulse_energy_mj", wl_, lo=0, lo_open=True, hi=10000),
@@ -325,13 +326,14 @@ def load_scenario(path) -> Scenario:
         "raster_step_mm": _num(la, "raster_step_mm", wl_, 0.3, lo=0),
         "raster_columns": _num(la, "raster_columns", wl_, 10, lo=1, integer=True),
     }
-    ins = doc["instrument"]
-    wi = f"{w}: instrument"
-    check_keys(
-        ins,
-        _INSTRUMENT,
-        f"{w}: [instrument]",
-        required={"wavelength_min_nm", "wavelength_max_nm", "n_pixels", "photoelectrons_per_radiance"},
+    return laser
+
+
+def _instrument_table(doc: dict, w: str) -> dict:
+    """``[instrument]``: wavelength range, pixels, resolution, detector, gate, response curve."""
+    ins, wi = _section(
+        doc, "instrument", _INSTRUMENT, w,
+        {"wavelength_min_nm", "wavelength_max_nm", "n_pixels", "photoelectrons_per_radiance"},
     )
     instrument = {
         "name": _str(ins, "name", wi, "simulated spectrometer"),
@@ -373,7 +375,11 @@ def load_scenario(path) -> Scenario:
     instrument["response_nm"], instrument["response"] = _curve(
         ins, "response_nm", "response", wi, "response is a list of relative values at the wavelengths response_nm"
     )
+    return instrument
 
+
+def _drift_table(doc: dict, w: str) -> dict:
+    """``[drift]``: response scale and curve, wavelength shift (defaults: no drift)."""
     drift = {"response_scale": 1.0, "factor_nm": None, "factor": None, "wavelength_shift_nm": 0.0, "description": ""}
     if "drift" in doc:
         dr = doc["drift"]
@@ -385,12 +391,11 @@ def load_scenario(path) -> Scenario:
         drift["factor_nm"], drift["factor"] = _curve(
             dr, "factor_nm", "factor", wd, "factor is a list of response multipliers at wavelengths factor_nm"
         )
+    return drift
 
-    dark_frames = 0
-    if "dark" in doc:
-        check_keys(doc["dark"], _DARK, f"{w}: [dark]")
-        dark_frames = _num(doc["dark"], "frames", f"{w}: dark", 0, lo=0, hi=10000, integer=True)
 
+def _lines_table(doc: dict, w: str, path: Path):
+    """``[lines]``: (line-list file or None, element subset or None, level-table folder or None)."""
     lines_file, line_elements, levels_dir = None, None, None
     if "lines" in doc:
         li = doc["lines"]
@@ -409,7 +414,11 @@ def load_scenario(path) -> Scenario:
                     "elements must be a list of symbols", where=f"{w}: lines.elements", fix='e.g. ["Cu", "Zn"]'
                 )
             line_elements = tuple(v)
+    return lines_file, line_elements, levels_dir
 
+
+def _samples_table(doc: dict, w: str, certified: dict, matrix: str, truth_seed: int, clip: float) -> list:
+    """``[[samples]]``: one SampleSpec each, true compositions drawn for certified materials."""
     samples_raw = doc["samples"]
     if not isinstance(samples_raw, list) or not samples_raw:
         raise ConfigError("no [[samples]]", where=w, fix="add at least one [[samples]] table")
@@ -450,6 +459,34 @@ def load_scenario(path) -> Scenario:
                 fix="set standard = '<id in the standards file>'",
             )
         samples.append(SampleSpec(sid, role, ref, _str(s, "description", wsmp, ""), shots, comp))
+    return samples
+
+
+def load_scenario(path) -> Scenario:
+    """Read and validate a scenario TOML file."""
+    path = Path(path)
+    doc = load_toml(path, "scenario file")
+    w = str(path)
+    check_keys(doc, _TOP, w, required={"scenario", "plasma", "laser", "instrument", "samples"})
+    sc = doc["scenario"]
+    check_keys(sc, _SCENARIO, f"{w}: [scenario]", required={"id"})
+    ws = f"{w}: scenario"
+    matrix = _str(sc, "matrix", ws, "Cu")
+    seed = _num(sc, "seed", ws, 0, lo=0, integer=True)
+    interval = _num(sc, "sample_interval_s", ws, 60.0, lo=0)
+
+    certified, std_file, truth_seed, clip = _standards_table(doc, w, path)
+    plasma = _plasma_table(doc, w)
+    laser = _laser_table(doc, w)
+    instrument = _instrument_table(doc, w)
+    drift = _drift_table(doc, w)
+    dark_frames = 0
+    if "dark" in doc:
+        check_keys(doc["dark"], _DARK, f"{w}: [dark]")
+        dark_frames = _num(doc["dark"], "frames", f"{w}: dark", 0, lo=0, hi=10000, integer=True)
+
+    lines_file, line_elements, levels_dir = _lines_table(doc, w, path)
+    samples = _samples_table(doc, w, certified, matrix, truth_seed, clip)
 
     return Scenario(
         path=path,

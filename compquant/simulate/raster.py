@@ -299,6 +299,51 @@ def load_raster(path):
     return sc, sample, bool(r.get("include_scenario_samples", True))
 
 
+def _run_samples(sc, sample: RasterSample, include_scenario_samples: bool) -> list[dict]:
+    """The run's sample table: the scenario's samples (if included), then the rastered one."""
+    samples = []
+    if include_scenario_samples:
+        samples = [
+            {"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref, "description": s.description}
+            for s in sc.samples
+        ]
+    if sample.sample_id in {s["sample_id"] for s in samples}:
+        raise ConfigError(
+            f"raster sample id {sample.sample_id!r} is already a scenario sample",
+            where="[raster] sample_id",
+            fix="give the rastered sample its own id",
+        )
+    samples.append(
+        {"sample_id": sample.sample_id, "role": "unknown", "standard_ref": "", "description": sample.description}
+    )
+    return samples
+
+
+def _run_metadata(sc, sample: RasterSample, seed: int) -> tuple[dict, dict]:
+    """The run's ``acquisition`` and ``instrument`` records for a rastered simulation."""
+    la = sc.laser
+    acquisition = {
+        "technique": "LIBS",
+        "gate_delay_us": sc.instrument["gate_delay_us"],
+        "gate_width_us": sc.instrument["gate_width_us"],
+        "laser_wavelength_nm": la["wavelength_nm"],
+        "pulse_energy_mj": la["pulse_energy_mj"],
+        "spot_size_um": la["spot_diameter_um"],
+        "repetition_rate_hz": la["repetition_rate_hz"],
+        "atmosphere": sc.instrument["atmosphere"],
+        "accumulations": 1,
+        "raster_step_mm": sample.step_mm,
+    }
+    instrument = {
+        "name": sc.instrument["name"],
+        "simulated": True,
+        "simulator": "compquant simulate-raster",
+        "scenario": sc.id,
+        "seed": seed,
+    }
+    return acquisition, instrument
+
+
 def simulate_raster_run(
     scenario,
     sample: RasterSample,
@@ -340,21 +385,7 @@ def simulate_raster_run(
     n_base = 0 if base is None else int(base["spectra"].shape[0])
     n_raster = sample.n_shots
     n = n_base + n_raster
-    samples = []
-    if include_scenario_samples:
-        samples = [
-            {"sample_id": s.sample_id, "role": s.role, "standard_ref": s.standard_ref, "description": s.description}
-            for s in sc.samples
-        ]
-    if sample.sample_id in {s["sample_id"] for s in samples}:
-        raise ConfigError(
-            f"raster sample id {sample.sample_id!r} is already a scenario sample",
-            where="[raster] sample_id",
-            fix="give the rastered sample its own id",
-        )
-    samples.append(
-        {"sample_id": sample.sample_id, "role": "unknown", "standard_ref": "", "description": sample.description}
-    )
+    samples = _run_samples(sc, sample, include_scenario_samples)
     index = np.concatenate(
         [base["sample_index"] if base else np.zeros(0, np.int32), np.full(n_raster, len(samples) - 1, dtype=np.int32)]
     )
@@ -371,25 +402,7 @@ def simulate_raster_run(
     dark = base["dark"] if base else None
     if dark is None and sc.dark_frames:
         dark = det.dark_frames(sc.dark_frames, wl.size, pattern, rng, noise)
-    acquisition = {
-        "technique": "LIBS",
-        "gate_delay_us": sc.instrument["gate_delay_us"],
-        "gate_width_us": sc.instrument["gate_width_us"],
-        "laser_wavelength_nm": la["wavelength_nm"],
-        "pulse_energy_mj": la["pulse_energy_mj"],
-        "spot_size_um": la["spot_diameter_um"],
-        "repetition_rate_hz": la["repetition_rate_hz"],
-        "atmosphere": sc.instrument["atmosphere"],
-        "accumulations": 1,
-        "raster_step_mm": sample.step_mm,
-    }
-    instrument = {
-        "name": sc.instrument["name"],
-        "simulated": True,
-        "simulator": "compquant simulate-raster",
-        "scenario": sc.id,
-        "seed": seed,
-    }
+    acquisition, instrument = _run_metadata(sc, sample, seed)
     sp = sample.shots_per_spot
     with RunWriter(
         output,
