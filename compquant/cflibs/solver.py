@@ -80,6 +80,9 @@ class Solution:
 class Model:
     """The linear model of one sample's lines (design fixed, ordinates per draw)."""
 
+    #: temperatures whose ln U tables are kept (0: none; benchmarks/cf_speed.py switches it off)
+    LN_U_MEMO = 16
+
     def __init__(self, lines: LineSet, atomic, settings):
         self.lines = lines
         self.atomic = atomic
@@ -105,6 +108,7 @@ class Model:
         #: Monte Carlo: per-draw offsets of ln U(T) by species (set around a batched solve)
         self.ln_u_shift: dict[str, np.ndarray] | None = None
         self._stage_rows: list | None = None
+        self._lu_memo: dict = {}
 
     # -- partition functions ------------------------------------------------------------
     def ln_u(self, species: str, T: np.ndarray) -> np.ndarray:
@@ -295,6 +299,31 @@ class Model:
             self._stage_rows = rows
         return self._stage_rows
 
+    def _ln_u_stages(self, stages, T):
+        """ln U of stages I, II, III (columns: elements; III zero where it does not enter) at T.
+
+        Kept for the last few temperatures of up to 8 draws when no Monte Carlo shift is set: the
+        self-absorption fit's Jacobian asks again at the same T for every parameter but T.
+        """
+        key = T.tobytes() if self.ln_u_shift is None and T.size <= 8 and self.LN_U_MEMO else None
+        hit = self._lu_memo.get(key) if key is not None else None
+        if hit is not None:
+            return hit
+        d, n = T.shape[0], len(stages)
+        lu1, lu2, lu3 = np.empty((d, n)), np.empty((d, n)), np.zeros((d, n))
+        for j, (s1, s2, s3, use3) in enumerate(stages):  # same order as the per-element loop
+            lu1[:, j] = self.ln_u(s1, T)
+            lu2[:, j] = self.ln_u(s2, T)
+            if use3:
+                lu3[:, j] = self.ln_u(s3, T)
+        if key is not None:
+            if len(self._lu_memo) >= self.LN_U_MEMO:
+                self._lu_memo.clear()
+            for a in (lu1, lu2, lu3):
+                a.flags.writeable = False
+            self._lu_memo[key] = (lu1, lu2, lu3)
+        return lu1, lu2, lu3
+
     def _composition(self, beta, groups, T, ne):
         """Relative ln number density per element (and per species), all elements at once.
 
@@ -303,19 +332,12 @@ class Model:
         ln n_e = ln Σ_stages n (log-sum-exp; an absent stage III enters as e^{−∞} = 0).
         """
         p0 = 1
-        d = beta.shape[0]
         stages = self._stages()
-        n = len(stages)
         ln_saha = (LN_SAHA_PREFACTOR + 1.5 * np.log(T) - np.log(ne))[:, None]
         kT = (K_B_EV * T)[:, None]
         low1 = self.lowering(T, ne, 1)[:, None]
         low2 = self.lowering(T, ne, 2)[:, None]
-        lu1, lu2, lu3 = np.empty((d, n)), np.empty((d, n)), np.zeros((d, n))
-        for j, (s1, s2, s3, use3) in enumerate(stages):  # same order as the per-element loop
-            lu1[:, j] = self.ln_u(s1, T)
-            lu2[:, j] = self.ln_u(s2, T)
-            if use3:
-                lu3[:, j] = self.ln_u(s3, T)
+        lu1, lu2, lu3 = self._ln_u_stages(stages, T)
         use3 = np.array([r[3] for r in stages], dtype=bool)
         ie1 = np.array([self.ie1[e] for e in self.elements])[None, :]
         ie2 = np.array([self.ie2[e] if r[3] else 0.0 for e, r in zip(self.elements, stages)])[None, :]
