@@ -566,7 +566,8 @@ def measure_run(
     run : compquant.run.Run (open)
     method : compquant.method.Method
     chunk_shots : shots per streamed chunk (default ``[measure] chunk_shots``, 4096); peak
-        memory grows about ``chunk_shots * n_pixels * 24`` bytes.
+        memory grows about ``chunk_shots * n_pixels * 24`` bytes, plus about 10 bytes per shot x line
+        for the whole run (the float64 ``shot_intensity`` and two bool flag arrays).
     progress : callable(n_shots_done_in_step) or None, called once per chunk and pass.
     chunk_mapper : None (serial) or ``callable(run, ranges, plan)`` yielding
         :func:`~compquant.lines.chunk.process_chunk` results in range order, e.g. on Dask
