@@ -547,8 +547,8 @@ def _quantify_calibration(meas, samples, method, standards, calibration, run_pat
     import pandas as pd
 
     from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
-    from compquant.calibrate.build import certified_table
     from compquant.calibrate.apply import quantify
+    from compquant.calibrate.build import certified_table
 
     qd = _Quant()
     stds = None

@@ -127,6 +127,33 @@ def test_self_absorption_factor_ladenburg_reiche():
     assert float(sa_factor(t, 0.05, 0.0)) == pytest.approx(series, rel=2e-4)
 
 
+def test_self_absorption_factor_kept_profiles_serve_any_optical_depth():
+    # the Voigt profile of a width set is kept between calls (issue 22): a second call with the
+    # same widths and other optical depths still follows Ladenburg & Reiche 1913 (scipy.special.iv)
+    wg, wl = np.full(3, 1e-7), np.full(3, 0.05)
+    for tau in (np.array([0.05, 0.5, 2.0]), np.array([8.0, 40.0, 0.3])):
+        ref = np.exp(-tau / 2) * (special.iv(0, tau / 2) + special.iv(1, tau / 2))
+        assert np.allclose(sa_factor(tau, wg, wl), ref, rtol=2e-4)
+
+
+def test_partition_function_memo_and_availability():
+    # a bare nucleus has no bound electron: U(H II) = 1 at any T (textbook); Fe III has no shipped
+    # level table (docs/atomic-data.md), so it has no partition function, answered without raising
+    pytest.importorskip("compquant.atomic")
+    from compquant.cflibs import PackageAtomicData
+
+    pa = PackageAtomicData()
+    assert pa.has_partition_function("H II") and pa.has_partition_function("Fe I")
+    assert not pa.has_partition_function("Fe III")
+    T = np.array([8000.0, 12000.0])
+    assert np.array_equal(pa.partition_function("H II", T), np.ones(2))
+    u1 = pa.partition_function("Fe I", T)
+    u1[:] = -1.0  # a caller changing its copy does not change the kept value
+    u2 = pa.partition_function("Fe I", T)
+    # U(Fe I) about 40-50 at 8,000 K and 80-100 at 12,000 K (from memory of Irwin 1981, ApJS 45, 621)
+    assert 30 < u2[0] < 60 and 60 < u2[1] < 130
+
+
 # ------------------------------------------------------------------------- recovery
 @pytest.mark.parametrize("fit", ["saha-boltzmann", "boltzmann"])
 def test_recovers_T_ne_composition_exactly(fit):

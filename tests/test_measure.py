@@ -173,6 +173,26 @@ def test_internal_standard_normalisation(run_path):
     assert 1.2 < ratio < 2.0  # 400/250 in areas, window-limited
 
 
+def test_normalised_shots_are_raw_over_the_internal_standard_exactly(run_path):
+    # internal-standard normalisation (common practice): each shot's line intensity over the same
+    # shot's intensity of the reference line; filled and divided in place, so bit for bit the raw
+    # per-shot values (normalise none) over the reference column; window and fit lines interleaved
+    lines = [{"id": k, "mode": "fit", "fwhm_nm": 0.04} if i == 1 else {"id": k} for i, k in enumerate(LINES)]
+    ref = "Cu I 327.396"
+    with Run.open(run_path) as run:
+        raw = measure_run(run, method(lines=lines))
+        norm = measure_run(run, method(lines=lines, preprocess={"normalise": {"how": "internal_standard",
+                                                                              "line": ref}}))
+    r = raw.shot_intensity
+    f = r[:, raw.line_ids.index(ref)]
+    good = np.isfinite(f) & (f > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        expected = np.where(good[:, None], r / np.where(good, f, 1.0)[:, None], np.nan)
+    assert norm.shot_intensity.shape == r.shape and norm.shot_intensity.dtype == np.float64
+    assert np.array_equal(norm.shot_intensity, expected, equal_nan=True)
+    assert np.isfinite(expected).sum() > 0.5 * expected.size
+
+
 def test_mean_spectrum_excludes_rejected_shots(run_path):
     m = method()
     with Run.open(run_path) as run:

@@ -293,6 +293,12 @@ class _Analysis:
             wl[meas] = lorentz_from_voigt(L.fwhm[meas], wg) * sa[meas] ** (-EL_SHERBINI_ALPHA)
         return wl
 
+    def _u_per_line(self, atomic, T: float) -> np.ndarray:
+        """U(T) of each line's species (one partition-function call per species)."""
+        species = self.L.species
+        u = {sp: float(atomic.partition_function(sp, np.array([T]))[0]) for sp in dict.fromkeys(species)}
+        return np.array([u[sp] for sp in species])
+
     def sa_cog(self, sol: Solution, length_cm: float, sa_prev):
         """Curve-of-growth SA of every line for a slab of length ``length_cm``."""
         L = self.L
@@ -300,7 +306,7 @@ class _Analysis:
         ne = float(sol.ne[0])
         nabs = self.absolute_species(sol)
         n_sp = np.array([nabs[s] for s in L.species])
-        u_sp = np.array([float(self.model.atomic.partition_function(s, np.array([T]))[0]) for s in L.species])
+        u_sp = self._u_per_line(self.model.atomic, T)
         wg = doppler_fwhm_nm(L.wl, T, self.mass_line)
         wlz = self.lorentz_thin(T, ne, sa_prev)
         tau = tau0_slab(L.wl, L.gA, L.ei, T, n_sp, u_sp, length_cm, wg, wlz)
@@ -323,7 +329,7 @@ class _Analysis:
         wlz = self.lorentz_thin(T, ne, np.ones(L.n))
         nabs = self.absolute_species(sol)
         n_sp = np.array([nabs[s] for s in L.species])
-        u_sp = np.array([float(self.atomic.partition_function(s, np.array([T]))[0]) for s in L.species])
+        u_sp = self._u_per_line(self.atomic, T)
         t = tau0_slab(L.wl, L.gA, L.ei, T, n_sp, u_sp, 1.0, wg, wlz)  # per cm
         eps = 1e-4
         kappa = -np.log(sa_factor(np.full(L.n, eps), wg, wlz)) / eps

@@ -20,21 +20,55 @@ from compquant.errors import AtomicDataError
 
 
 class PackageAtomicData:
-    """Atomic data from :mod:`compquant.atomic` (the shipped tables)."""
+    """Atomic data from :mod:`compquant.atomic` (the shipped tables).
+
+    Partition functions are memoised per (species, temperature): the self-absorption fit asks
+    for U(T) of every species at every trial temperature, and a finite-difference Jacobian
+    repeats each temperature for all other parameters, so most calls hit the memo.  The memo
+    returns copies of exactly what :func:`compquant.atomic.partition_function` returned (same
+    numbers, not an interpolation) and holds at most ``MEMO_SIZE`` entries of ≤ ``MEMO_MAX_T``
+    temperatures each (batched Monte Carlo calls pass through uncached).
+    """
+
+    MEMO_SIZE = 4096
+    MEMO_MAX_T = 8
 
     def __init__(self):
         self._atomic = atomic
+        self._u_memo: dict = {}
+        self._has_u: dict[str, bool] = {}
 
     def partition_function(self, species: str, T) -> np.ndarray:
-        """U(T) by the level sum of :func:`compquant.atomic.partition_function` (vectorised over T;
-        fast enough per call that no tabulation is needed)."""
-        return np.asarray(self._atomic.partition_function(species, np.asarray(T, dtype=float)), dtype=float)
+        """U(T) by the level sum of :func:`compquant.atomic.partition_function` (vectorised over T),
+        memoised for small T arrays."""
+        T = np.asarray(T, dtype=float)
+        if T.size > self.MEMO_MAX_T:
+            return np.asarray(self._atomic.partition_function(species, T), dtype=float)
+        key = (species, T.shape, T.tobytes())
+        u = self._u_memo.get(key)
+        if u is None:
+            u = np.asarray(self._atomic.partition_function(species, T), dtype=float)
+            if len(self._u_memo) >= self.MEMO_SIZE:
+                self._u_memo.clear()
+            self._u_memo[key] = u
+        return u.copy()
 
     def has_partition_function(self, species: str) -> bool:
-        try:
-            v = self.partition_function(species, np.array([10000.0]))
-        except Exception:
+        """True when the shipped tables give a finite, positive U for ``species``: a shipped level
+        table, or a bare nucleus (U = 1).  Decided once per species, without raising."""
+        known = self._has_u.get(species)
+        if known is None:
+            known = self._check_has_u(species)
+            self._has_u[species] = known
+        return known
+
+    def _check_has_u(self, species: str) -> bool:
+        sym, ion = atomic.parse_species(species)
+        name = atomic.species_name(sym, ion)
+        bare = ion == self._atomic.element(sym).Z + 1
+        if not bare and name not in set(self._atomic.species_with_levels()):
             return False
+        v = self.partition_function(name, np.array([10000.0]))
         return bool(np.all(np.isfinite(v)) and np.all(v > 0))
 
     def ionisation_energy(self, species: str) -> float:

@@ -30,6 +30,7 @@ I ∝ g_k A_ki/λ · e^{−E_k/kT}::
 from __future__ import annotations
 
 import math
+from collections import OrderedDict
 
 import numpy as np
 from scipy.special import i0e, i1e, voigt_profile
@@ -66,23 +67,49 @@ def sa_factor(tau0, w_gauss_nm, w_lorentz_nm) -> np.ndarray:
     t0 = tau0.ravel()
     wg = np.maximum(wg.ravel(), 1e-12)
     wl = np.maximum(wl.ravel(), 0.0)
-    wv = 0.5346 * wl + np.sqrt(0.2166 * wl**2 + wg**2)
-    sigma = wg / (2.0 * math.sqrt(2.0 * math.log(2.0)))
-    gamma = wl / 2.0
     out = np.ones_like(t0)
     todo = t0 > 1e-9
     if np.any(todo):
-        scale = wv[todo][:, None] * 0.5
-        x = _XS[None, :] * scale
-        phi = voigt_profile(x, sigma[todo][:, None], gamma[todo][:, None])
-        phi0 = voigt_profile(0.0, sigma[todo], gamma[todo])
+        phi, dx, phi0 = _profile_on_grid(wg[todo], wl[todo])
         tau = t0[todo][:, None] * phi / phi0[:, None]
         g = tau + np.expm1(-tau)  # τ − 1 + e^{−τ} ≥ 0
-        dx = _DX[None, :] * scale
         num = np.sum(g * dx, axis=1)
         den = t0[todo] / phi0  # ∫τ dλ exactly, φ normalised
         out[todo] = 1.0 - num / den
     return np.clip(out, 0.0, 1.0).reshape(shape)
+
+
+_PROFILE_MEMO: OrderedDict = OrderedDict()
+_PROFILE_MEMO_SIZE = 16
+
+
+def _profile_on_grid(wg: np.ndarray, wl: np.ndarray):
+    """φ(x) on the sinh grid, the grid steps dx and φ(0), per line (rows), for Voigt FWHMs
+    ``wg`` (Gaussian) and ``wl`` (Lorentzian).
+
+    The profile depends on the widths only, not on τ₀; the self-absorption fit evaluates the same
+    widths for every parameter but T and nₑ of a finite-difference Jacobian, so the last few
+    results are kept (exact copies of the same computation; read-only arrays).
+    """
+    key = (wg.tobytes(), wl.tobytes())
+    hit = _PROFILE_MEMO.get(key)
+    if hit is not None:
+        _PROFILE_MEMO.move_to_end(key)
+        return hit
+    wv = 0.5346 * wl + np.sqrt(0.2166 * wl**2 + wg**2)
+    sigma = wg / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+    gamma = wl / 2.0
+    scale = wv[:, None] * 0.5
+    x = _XS[None, :] * scale
+    phi = voigt_profile(x, sigma[:, None], gamma[:, None])
+    phi0 = voigt_profile(0.0, sigma, gamma)
+    out = (phi, _DX[None, :] * scale, phi0)
+    for a in out:
+        a.flags.writeable = False
+    _PROFILE_MEMO[key] = out
+    if len(_PROFILE_MEMO) > _PROFILE_MEMO_SIZE:
+        _PROFILE_MEMO.popitem(last=False)
+    return out
 
 
 def tau0_slab(

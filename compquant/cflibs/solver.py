@@ -80,6 +80,9 @@ class Solution:
 class Model:
     """The linear model of one sample's lines (design fixed, ordinates per draw)."""
 
+    #: temperatures whose ln U tables are kept (0: none; benchmarks/cf_speed.py switches it off)
+    LN_U_MEMO = 16
+
     def __init__(self, lines: LineSet, atomic, settings):
         self.lines = lines
         self.atomic = atomic
@@ -104,12 +107,15 @@ class Model:
         self.y0 = np.log(lines.wl) - np.log(lines.gA)  # + ln I per draw
         #: Monte Carlo: per-draw offsets of ln U(T) by species (set around a batched solve)
         self.ln_u_shift: dict[str, np.ndarray] | None = None
+        self._stage_rows: list | None = None
+        self._lu_memo: dict = {}
 
     # -- partition functions ------------------------------------------------------------
     def ln_u(self, species: str, T: np.ndarray) -> np.ndarray:
-        u = self.atomic.partition_function(species, T)
-        u = np.broadcast_to(np.asarray(u, dtype=float), np.shape(T))
-        if not np.all(np.isfinite(u)) or np.any(u <= 0):
+        u = np.asarray(self.atomic.partition_function(species, T), dtype=float)
+        if u.shape != np.shape(T):
+            u = np.broadcast_to(u, np.shape(T))
+        if not (np.isfinite(u).all() and (u > 0).all()):
             raise PhysicsError("partition function is not finite and positive", where=species,
                                fix="check the temperature range of the partition-function data")
         out = np.log(u)
@@ -280,42 +286,81 @@ class Model:
             low = new
         return ln_ne, np.sqrt(1.0 / np.sum(wts, axis=0))
 
+    def _stages(self) -> list[tuple[str, str, str, bool]]:
+        """Per element: the names of stages I, II, III and whether stage III enters the closure
+        (``[cf] include_ion3``, a second ionisation energy and a partition function); decided once."""
+        if self._stage_rows is None:
+            s = self.settings
+            rows = []
+            for e in self.elements:
+                s3 = species_name(e, 3)
+                use3 = bool(s.include_ion3 and self.ie2.get(e) is not None and self.has_u(s3))
+                rows.append((species_name(e, 1), species_name(e, 2), s3, use3))
+            self._stage_rows = rows
+        return self._stage_rows
+
+    def _ln_u_stages(self, stages, T):
+        """ln U of stages I, II, III (columns: elements; III zero where it does not enter) at T.
+
+        Kept for the last few temperatures of up to 8 draws when no Monte Carlo shift is set: the
+        self-absorption fit's Jacobian asks again at the same T for every parameter but T.
+        """
+        key = T.tobytes() if self.ln_u_shift is None and T.size <= 8 and self.LN_U_MEMO else None
+        hit = self._lu_memo.get(key) if key is not None else None
+        if hit is not None:
+            return hit
+        d, n = T.shape[0], len(stages)
+        lu1, lu2, lu3 = np.empty((d, n)), np.empty((d, n)), np.zeros((d, n))
+        for j, (s1, s2, s3, use3) in enumerate(stages):  # same order as the per-element loop
+            lu1[:, j] = self.ln_u(s1, T)
+            lu2[:, j] = self.ln_u(s2, T)
+            if use3:
+                lu3[:, j] = self.ln_u(s3, T)
+        if key is not None:
+            if len(self._lu_memo) >= self.LN_U_MEMO:
+                self._lu_memo.clear()
+            for a in (lu1, lu2, lu3):
+                a.flags.writeable = False
+            self._lu_memo[key] = (lu1, lu2, lu3)
+        return lu1, lu2, lu3
+
     def _composition(self, beta, groups, T, ne):
-        """Relative ln number density per element (and per species)."""
+        """Relative ln number density per element (and per species), all elements at once.
+
+        Per element e (columns): ln n_II/n_I = ln S + ln U_II − ln U_I − (E_ion,I − ΔE₁)/kT and
+        ln n_III/n_II likewise with E_ion,II and ΔE₂ (Saha; S = 2(2πmₑkT/h²)^{3/2}/nₑ), then
+        ln n_e = ln Σ_stages n (log-sum-exp; an absent stage III enters as e^{−∞} = 0).
+        """
         p0 = 1
-        s = self.settings
-        d = beta.shape[0]
-        ln_saha = LN_SAHA_PREFACTOR + 1.5 * np.log(T) - np.log(ne)
-        kT = KB_EV * T
-        low1 = self.lowering(T, ne, 1)
-        low2 = self.lowering(T, ne, 2)
-        out = np.empty((d, len(self.elements)))
+        stages = self._stages()
+        ln_saha = (LN_SAHA_PREFACTOR + 1.5 * np.log(T) - np.log(ne))[:, None]
+        kT = (KB_EV * T)[:, None]
+        low1 = self.lowering(T, ne, 1)[:, None]
+        low2 = self.lowering(T, ne, 2)[:, None]
+        lu1, lu2, lu3 = self._ln_u_stages(stages, T)
+        use3 = np.array([r[3] for r in stages], dtype=bool)
+        ie1 = np.array([self.ie1[e] for e in self.elements])[None, :]
+        ie2 = np.array([self.ie2[e] if r[3] else 0.0 for e, r in zip(self.elements, stages)])[None, :]
+        ln_r1 = ln_saha + lu2 - lu1 - (ie1 - low1) / kT
+        ln_r2 = ln_saha + lu3 - lu2 - (ie2 - low2) / kT
+        if self.mode == "saha-boltzmann":
+            ln_n1 = beta[:, [p0 + groups.index(e) for e in self.elements]] + lu1
+            ln_n2 = ln_n1 + ln_r1
+        else:
+            has1 = np.array([r[0] in groups for r in stages])
+            has2 = np.array([r[1] in groups for r in stages])
+            n1 = beta[:, [p0 + (groups.index(r[0]) if r[0] in groups else 0) for r in stages]] + lu1
+            n2 = beta[:, [p0 + (groups.index(r[1]) if r[1] in groups else 0) for r in stages]] + lu2
+            ln_n1 = np.where(has1, n1, n2 - ln_r1)
+            ln_n2 = np.where(has2, n2, ln_n1 + ln_r1)
+        ln_n3 = np.where(use3, ln_n2 + ln_r2, -np.inf)
+        out = logsumexp(np.stack([ln_n1, ln_n2, ln_n3]), axis=0)
         ln_sp = {}
-        for j, e in enumerate(self.elements):
-            s1, s2, s3 = species_name(e, 1), species_name(e, 2), species_name(e, 3)
-            lu1 = self.ln_u(s1, T)
-            lu2 = self.ln_u(s2, T)
-            ln_r1 = ln_saha + lu2 - lu1 - (self.ie1[e] - low1) / kT
-            use3 = s.include_ion3 and self.ie2.get(e) is not None and self.has_u(s3)
-            ln_r2 = (ln_saha + self.ln_u(s3, T) - lu2 - (self.ie2[e] - low2) / kT) if use3 else None
-            if self.mode == "saha-boltzmann":
-                ln_n1 = beta[:, p0 + groups.index(e)] + lu1
-                ln_n2 = ln_n1 + ln_r1
-            else:
-                has1, has2 = s1 in groups, s2 in groups
-                ln_n1 = beta[:, p0 + groups.index(s1)] + lu1 if has1 else None
-                ln_n2 = beta[:, p0 + groups.index(s2)] + lu2 if has2 else None
-                if ln_n1 is None:
-                    ln_n1 = ln_n2 - ln_r1
-                if ln_n2 is None:
-                    ln_n2 = ln_n1 + ln_r1
-            terms = [ln_n1, ln_n2]
-            if ln_r2 is not None:
-                terms.append(ln_n2 + ln_r2)
-                ln_sp[s3] = ln_n2 + ln_r2
-            out[:, j] = logsumexp(np.vstack(terms), axis=0)
-            ln_sp[s1] = ln_n1
-            ln_sp[s2] = ln_n2
+        for j, (s1, s2, s3, u3) in enumerate(stages):
+            if u3:
+                ln_sp[s3] = ln_n3[:, j]
+            ln_sp[s1] = ln_n1[:, j]
+            ln_sp[s2] = ln_n2[:, j]
         return out, ln_sp
 
 

@@ -566,7 +566,8 @@ def measure_run(
     run : compquant.run.Run (open)
     method : compquant.method.Method
     chunk_shots : shots per streamed chunk (default ``[measure] chunk_shots``, 4096); peak
-        memory grows about ``chunk_shots * n_pixels * 24`` bytes.
+        memory grows about ``chunk_shots * n_pixels * 24`` bytes, plus about 10 bytes per shot x line
+        for the whole run (the float64 ``shot_intensity`` and two bool flag arrays).
     progress : callable(n_shots_done_in_step) or None, called once per chunk and pass.
     chunk_mapper : None (serial) or ``callable(run, ranges, plan)`` yielding
         :func:`~compquant.lines.chunk.process_chunk` results in range order, e.g. on Dask
@@ -588,7 +589,6 @@ def measure_run(
     # pass 0: per-sample wavelength corrections
     if pre.shift != "none":
         setup.corr.update(_find_shifts(run, setup, chunk, progress, chunk_mapper))
-    shifts = {s: (c.a if c.applied else 0.0) for s, c in setup.corr.items()}
     # pass 1: preprocessing + window lines + sums
     plan = setup.base_plan()
     ww_shared = setup.window_weights(None) if setup.win_idx else None
@@ -605,7 +605,11 @@ def measure_run(
                 plan.support_by_sample[s] = support_mask(setup.wl.size, ww.support)
     else:
         plan.measure_windows = False
-    win = np.full((n_shots, len(setup.win_idx)), np.nan)
+    # the one per-shot array: raw intensities in method line order, filled in place by both passes
+    # and normalised in place by _aggregate (no per-pass or per-step copies of shots x lines)
+    per_shot = np.full((n_shots, n_lines), np.nan)
+    win_cols = _column_index(setup.win_idx)
+    fit_cols = _column_index(setup.fit_idx)
     sat = np.zeros((n_shots, n_lines), dtype=bool)
     total = np.empty(n_shots)
     bg = np.empty(n_shots)
@@ -613,7 +617,7 @@ def measure_run(
     counts: dict[int, int] = {}
     for start, stop, res in _chunk_results(run, setup, chunk, plan, chunk_mapper):
         if res.window is not None:
-            win[start:stop] = res.window
+            per_shot[start:stop, win_cols] = res.window
         if res.sat_window is not None:
             sat[start:stop, setup.win_idx] = res.sat_window
         if res.masked_window is not None:
@@ -626,7 +630,6 @@ def measure_run(
             progress(stop - start)
     means = {s: sums[s] / counts[s] for s in sums}
     # pass 2: fitted groups
-    fit_vals = np.full((n_shots, len(setup.fit_idx)), np.nan)
     fits: dict[tuple[int, int], GroupFit] = {}
     if setup.groups:
         fplan = setup.base_plan()
@@ -646,22 +649,23 @@ def measure_run(
             fplan.fit[s] = projs
             fplan.fit_support[s] = fsup
         for start, stop, res in _chunk_results(run, setup, chunk, fplan, chunk_mapper):
-            fit_vals[start:stop] = res.fit
+            per_shot[start:stop, fit_cols] = res.fit
             if res.sat_fit is not None:
                 sat[start:stop, setup.fit_idx] = res.sat_fit
             if res.masked_fit is not None:
                 setup.masked_line[start:stop, setup.fit_idx] = res.masked_fit
             if progress:
                 progress(stop - start)
-    # assemble per-shot intensities in method line order
-    raw_int = np.full((n_shots, n_lines), np.nan)
-    if setup.win_idx:
-        raw_int[:, setup.win_idx] = win
-    if setup.fit_idx:
-        raw_int[:, setup.fit_idx] = fit_vals
-    raw_int[setup.masked_line] = np.nan  # a masked pixel never enters an integral or a fit
+    per_shot[setup.masked_line] = np.nan  # a masked pixel never enters an integral or a fit
     setup.notes += _masked_notes(setup)
-    return _aggregate(setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk)
+    return _aggregate(setup, run, per_shot, sat, total, bg, means, fits, ww_shared, ww_by_sample, chunk)
+
+
+def _column_index(cols: list[int]):
+    """``cols`` as a slice when they are consecutive (a view on assignment), else the list."""
+    if cols and cols == list(range(cols[0], cols[0] + len(cols))):
+        return slice(cols[0], cols[0] + len(cols))
+    return cols
 
 
 def _fit_one_group(setup: _Setup, mean: np.ndarray, members: list[int], s: int) -> GroupFit:
@@ -938,34 +942,72 @@ def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_n
     }
 
 
-def _aggregate(
-    setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk
-) -> LineMeasurement:
-    method = setup.method
-    pre = method.preprocess
-    n_shots, n_lines = raw_int.shape
-    line_ids = [ln.line_id for ln in setup.lines]
-    # per-shot normalisation factors
+def _shot_factors(setup: _Setup, per_shot, total, bg) -> tuple[np.ndarray, np.ndarray]:
+    """Per-shot normalisation factor (``[preprocess] normalise``, times the pulse-energy factor when
+    asked) and the pulse-energy factor alone (ones when off), from the raw intensities."""
+    pre = setup.method.preprocess
+    n_shots = per_shot.shape[0]
     factor = np.ones(n_shots)
     if pre.normalise == "total_area":
         factor = total.copy()
     elif pre.normalise == "background":
         factor = bg.copy()
     elif pre.normalise == "internal_standard":
-        factor = raw_int[:, line_ids.index(pre.normalise_line)].copy()
+        factor = per_shot[:, _line_index(setup, pre.normalise_line)].copy()
     pulse_f = np.ones(n_shots)
     if pre.pulse_energy_normalise:
         e = setup.pulse
         ref = float(np.nanmedian(e)) if np.isfinite(e).any() else np.nan
         pulse_f = e / ref if np.isfinite(ref) and ref > 0 else np.ones(n_shots)
         factor = factor * pulse_f
+    return factor, pulse_f
+
+
+def _line_index(setup: _Setup, line_id: str) -> int:
+    return [ln.line_id for ln in setup.lines].index(line_id)
+
+
+def _qc_quantity(setup: _Setup, per_shot, total, pulse_f, good_f) -> np.ndarray:
+    """The shot-QC quantity per shot (``[preprocess.qc] quantity``: the total or one line's raw
+    intensity, over the pulse-energy factor); NaN where the normalisation factor is unusable."""
+    pre = setup.method.preprocess
     with np.errstate(divide="ignore", invalid="ignore"):
-        good_f = np.isfinite(factor) & (factor > 0)
-        inten = np.where(good_f[:, None], raw_int / np.where(good_f, factor, 1.0)[:, None], np.nan)
         qc_x = total / np.where(np.isfinite(pulse_f) & (pulse_f > 0), pulse_f, np.nan)
         if pre.qc_quantity != "total":
-            qc_x = raw_int[:, line_ids.index(pre.qc_quantity)] / pulse_f
-    qc_x = np.where(good_f, qc_x, np.nan)
+            qc_x = per_shot[:, _line_index(setup, pre.qc_quantity)] / pulse_f
+    return np.where(good_f, qc_x, np.nan)
+
+
+def _normalise_in_place(per_shot: np.ndarray, factor: np.ndarray) -> np.ndarray:
+    """Divide each shot's raw intensities by its factor, in place (NaN for shots whose factor is not
+    finite and positive); returns the mask of usable factors.  Same arithmetic as
+    ``np.where(good, raw / np.where(good, factor, 1), nan)``, without a shots x lines temporary."""
+    good_f = np.isfinite(factor) & (factor > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        np.divide(per_shot, np.where(good_f, factor, 1.0)[:, None], out=per_shot)
+    per_shot[~good_f] = np.nan
+    return good_f
+
+
+def _qc_row(pre, sid: str, role: str, idx: np.ndarray, dec) -> dict:
+    return {
+        "sample_id": sid,
+        "role": role,
+        "n_shots": int(idx.size),
+        "n_accepted": int(dec.accepted.sum()),
+        "n_rejected": dec.n_rejected,
+        "reasons": ";".join(f"{k}={v}" for k, v in sorted(dec.counts.items())),
+        "qc_quantity": pre.qc_quantity,
+        "qc_median": dec.median,
+        "qc_robust_sd": dec.robust_sd,
+    }
+
+
+def _per_sample(setup: _Setup, run, inten, sat, qc_x, factor, means, fits, ww_shared, ww_by_sample):
+    """Shot QC and the line-table rows of every sample: ``(accepted, reasons, qc_rows, rows,
+    shift_rows, ref_rows)``.  DataQualityError when a sample has no accepted shot."""
+    pre = setup.method.preprocess
+    n_shots = inten.shape[0]
     accepted = np.zeros(n_shots, dtype=bool)
     reasons = [""] * n_shots
     qc_rows, rows, shift_rows, ref_rows = [], [], [], []
@@ -979,19 +1021,7 @@ def _aggregate(
         accepted[idx] = dec.accepted
         for j, i in enumerate(idx):
             reasons[i] = dec.reasons[j]
-        qc_rows.append(
-            {
-                "sample_id": sid,
-                "role": role,
-                "n_shots": int(idx.size),
-                "n_accepted": int(dec.accepted.sum()),
-                "n_rejected": dec.n_rejected,
-                "reasons": ";".join(f"{k}={v}" for k, v in sorted(dec.counts.items())),
-                "qc_quantity": pre.qc_quantity,
-                "qc_median": dec.median,
-                "qc_robust_sd": dec.robust_sd,
-            }
-        )
+        qc_rows.append(_qc_row(pre, sid, role, idx, dec))
         if not dec.accepted.any():
             raise _all_rejected_error(setup, run, s, idx, dec)
         shift_rows.append(_shift_row(setup, s, sid, flag_nm))
@@ -1006,8 +1036,15 @@ def _aggregate(
                 _line_row(setup, s, sid, role, li, inten[acc, li], sat[acc, li], setup.masked_line[acc, li],
                           mean_spec, u_noise_win, f_mean, fits, flag_nm)
             )
-    table = pd.DataFrame(rows, columns=LINE_TABLE_COLUMNS)
-    prov = {
+    return accepted, reasons, qc_rows, rows, shift_rows, ref_rows
+
+
+def _provenance(setup: _Setup, run, chunk: int, ref_rows: list[dict]) -> dict:
+    method = setup.method
+    pre = method.preprocess
+    from compquant import __version__
+
+    return {
         "run_path": str(run.path),
         "run_sha256": run.sha256(),
         **method.provenance(),
@@ -1033,21 +1070,31 @@ def _aggregate(
             "min_signal": pre.qc_min_signal,
         },
         "notes": list(setup.notes),
+        "compquant_version": __version__,
     }
-    from compquant import __version__
 
-    prov["compquant_version"] = __version__
+
+def _aggregate(setup: _Setup, run, per_shot, sat, total, bg, means, fits, ww_shared, ww_by_sample,
+               chunk) -> LineMeasurement:
+    """Normalise the per-shot intensities (in place: ``per_shot`` becomes the result's
+    ``shot_intensity``), run shot QC and build the line table of every sample."""
+    factor, pulse_f = _shot_factors(setup, per_shot, total, bg)
+    good_f = np.isfinite(factor) & (factor > 0)
+    qc_x = _qc_quantity(setup, per_shot, total, pulse_f, good_f)  # from the raw intensities
+    _normalise_in_place(per_shot, factor)
+    accepted, reasons, qc_rows, rows, shift_rows, ref_rows = _per_sample(
+        setup, run, per_shot, sat, qc_x, factor, means, fits, ww_shared, ww_by_sample)
     return LineMeasurement(
-        table=table,
+        table=pd.DataFrame(rows, columns=LINE_TABLE_COLUMNS),
         qc=pd.DataFrame(qc_rows),
         shifts=pd.DataFrame(shift_rows, columns=SHIFT_TABLE_COLUMNS),
         references=pd.DataFrame(ref_rows, columns=REFERENCE_TABLE_COLUMNS),
         masked_pixels=_masked_table(setup),
-        provenance=prov,
-        line_ids=line_ids,
+        provenance=_provenance(setup, run, chunk, ref_rows),
+        line_ids=[ln.line_id for ln in setup.lines],
         shot_sample=setup.sample_index,
         shot_number=np.asarray(setup.shot_number),
-        shot_intensity=inten,
+        shot_intensity=per_shot,
         shot_accepted=accepted,
         shot_saturated=sat,
         shot_reasons=reasons,
