@@ -137,14 +137,14 @@ def test_self_absorption_factor_kept_profiles_serve_any_optical_depth():
 
 
 def test_partition_function_memo_and_availability():
-    # a bare nucleus has no bound electron: U(H II) = 1 at any T (textbook); Fe III has no shipped
-    # level table (docs/atomic-data.md), so it has no partition function, answered without raising
+    # a bare nucleus has no bound electron: U(H II) = 1 at any T (textbook); Cu IV has no shipped
+    # level table (stages I-III only, docs/atomic-data.md), so no partition function, answered without raising
     pytest.importorskip("compquant.atomic")
     from compquant.cflibs import PackageAtomicData
 
     pa = PackageAtomicData()
     assert pa.has_partition_function("H II") and pa.has_partition_function("Fe I")
-    assert not pa.has_partition_function("Fe III")
+    assert not pa.has_partition_function("Cu IV")
     T = np.array([8000.0, 12000.0])
     assert np.array_equal(pa.partition_function("H II", T), np.ones(2))
     u1 = pa.partition_function("Fe I", T)
