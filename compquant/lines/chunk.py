@@ -17,7 +17,9 @@ Per block of rows (cache sized for SNIP) the steps are, in this order:
    profile amplitudes of fitted groups ``A = y[pixels] @ P^T``;
 6. per-shot QC quantities: total emission ``y @ t`` (trapezoid weights) and the
    mean removed baseline (for ``background`` normalisation);
-7. per-sample sums of the processed spectra (for sample mean spectra).
+7. per-sample sums of the processed spectra (for sample mean spectra), kept as exact
+   fixed-point sums (:class:`compquant.exactsum.FixedPointSum`) so that they, and all that
+   follows from the mean spectra, do not depend on the chunk size or the number of workers.
 """
 
 from __future__ import annotations
@@ -26,6 +28,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from compquant.exactsum import FixedPointSum, row_products
 from compquant.preprocess.baseline import SNIP_BLOCK_ROWS, SnipWorkspace, estimate_baseline, snip_block
 
 #: rows per block for the AsLS / arPLS solvers (memory about 12 x rows x pixels x 8 bytes)
@@ -78,7 +81,7 @@ class ChunkResult:
     sat_fit: np.ndarray | None  # (n, n_fit) bool
     total: np.ndarray  # (n,) total emission after baseline removal, counts*nm
     background: np.ndarray  # (n,) mean removed baseline, counts
-    sums: dict[int, np.ndarray]  # sample index -> sum of processed spectra
+    sums: dict[int, FixedPointSum]  # sample index -> sum of processed spectra (exact, order-free)
     counts: dict[int, int]
 
 
@@ -141,14 +144,14 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
             if plan.background_level:
                 bg[r0:r1] = base.mean(axis=1)
             y -= base
-        total[r0:r1] = y @ tw
+        total[r0:r1] = row_products(y, tw)
         for s in samples_here:
             s = int(s)
             rows = slice(None) if samples_here.size == 1 else (sib == s)
             ys = y[rows]
             if n_win:
                 pix, Wc = W_by_sample.get(s, W_shared)
-                win[r0:r1][rows] = ys[:, pix] @ Wc
+                win[r0:r1][rows] = row_products(ys[:, pix], Wc)
                 if sat is not None:
                     if sat_w is None:
                         sat_w = np.zeros((n, n_win), dtype=bool)
@@ -158,17 +161,16 @@ def process_chunk(raw, sample_index, plan: ChunkPlan) -> ChunkResult:
                 idx = np.arange(r0, r1) if isinstance(rows, slice) else r0 + np.nonzero(rows)[0]
                 fit[idx] = np.nan
                 for fp in plan.fit.get(s, []):
-                    fit[np.ix_(idx, fp.cols)] = ys[:, fp.pixels] @ fp.P.T
+                    fit[np.ix_(idx, fp.cols)] = row_products(ys[:, fp.pixels], fp.P.T)
                 if sat is not None and s in plan.fit_support:
                     if sat_f is None:
                         sat_f = np.zeros((n, plan.n_fit), dtype=bool)
                     sat_f[r0:r1][rows] = _sat_any(sat[rows], plan.fit_support[s])
-            if plan.accumulate:
-                add = ys.sum(axis=0)
+            if plan.accumulate:  # exact fixed-point sums: the same for any chunking (compquant.exactsum)
                 if s in sums:
-                    sums[s] += add
+                    sums[s].add_rows(ys)
                 else:
-                    sums[s] = add
+                    sums[s] = FixedPointSum.of_rows(ys)
                 counts[s] = counts.get(s, 0) + (ys.shape[0])
     return ChunkResult(
         window=win, fit=fit, sat_window=sat_w, sat_fit=sat_f, total=total, background=bg, sums=sums, counts=counts
