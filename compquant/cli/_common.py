@@ -1,32 +1,63 @@
-"""Small helpers shared by the CLI commands: the safety epilog, plain-text tables, CSV output.
+"""Small helpers shared by the CLI commands: the safety epilog, plain-text tables, CSV output,
+progress bars that follow the verbosity (-q / -v).
 
 Not a command module (no ``cmd_`` prefix), so the lazy command discovery skips it.
 """
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Collection, Sequence
 from pathlib import Path
+
+import click
 
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write
 
-#: the usual cautions printed under a command's help (common practice of laser and
-#: spark-source labs; local regulations and the licensed safety officer decide)
+#: the short safety note under every command's help; the full notes (compquant.report.safety,
+#: also on every certificate) are printed by ``compquant safety``.  Common practice of laser and
+#: spark-source labs; local regulations and the licensed safety officer decide.
 SAFETY = (
-    "Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-    "density for the laser wavelength, keep interlocks and a controlled area); ablation makes "
-    "fumes and particles, some toxic (Pb, Cd, Be): use fume extraction; spark and flashlamp "
-    "sources use high voltage and emit UV; argon purge gas can displace air in closed rooms. "
-    "Follow local regulations and your laser safety officer."
+    "Safety: LIBS and spark OES involve Class 4 laser radiation (eyes, skin, fire), toxic ablation "
+    "fumes (Pb, Cd, Be), high voltage, UV and ozone, and argon purge gas in closed rooms. Local "
+    "regulations and your licensed laser safety officer take precedence. Full notes: 'compquant safety'."
 )
 
 
+#: -q / -v of the running command (compquant.cli.set_verbosity): -2 errors only, -1 quiet,
+#: 0 default, 1 and more: details
+VERBOSITY = 0
+
+
+class _NoBar:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+    def update(self, n: int = 1, current_item=None) -> None:
+        pass
+
+
+def progress_bar(length: int, label: str, *, enabled: bool = True):
+    """A click progress bar on stderr (context manager with ``update(n)``), or one that draws
+    nothing when ``-q`` was given or ``enabled`` is false."""
+    if not enabled or VERBOSITY < 0:
+        return _NoBar()
+    return click.progressbar(length=max(int(length), 1), label=label, file=sys.stderr)
+
+
 def write_csv(df, path, float_format: str = "%.10g") -> None:
-    """Write ``df`` (no index) to ``path`` through :func:`compquant.fileio.atomic_write`.
+    """Write ``df`` (no index) to ``path`` through :func:`compquant.fileio.atomic_write`;
+    ``-`` writes it to standard output instead.
 
     An OS error becomes :class:`~compquant.errors.OutputError` naming the path.
     """
+    if is_stdio(path):
+        df.to_csv(sys.stdout, index=False, float_format=float_format)
+        return
     try:
         with atomic_write(Path(path), "w", newline="") as fh:
             df.to_csv(fh, index=False, float_format=float_format)
@@ -34,6 +65,11 @@ def write_csv(df, path, float_format: str = "%.10g") -> None:
         raise OutputError(
             f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
         ) from exc
+
+
+def is_stdio(path) -> bool:
+    """True for the path ``-``: standard input or output, for commands that read or write one table."""
+    return path is not None and str(path) == "-"
 
 
 def format_columns(rows: Sequence[Sequence[str]], *, right: Collection[int] = (), indent: str = "") -> str:
@@ -50,4 +86,4 @@ def format_columns(rows: Sequence[Sequence[str]], *, right: Collection[int] = ()
     )
 
 
-__all__ = ["SAFETY", "format_columns", "write_csv"]
+__all__ = ["SAFETY", "VERBOSITY", "format_columns", "is_stdio", "progress_bar", "write_csv"]

@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
+import sys
+
 import click
 
-from compquant.report.safety import safety_plain
-
-_EPILOG = "\b\nSAFETY NOTES (LIBS and spark OES can hurt people)\n\n" + "\n\n".join(
-    "\b\n" + para for para in safety_plain(width=78).split("\n\n")
-)
+from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
 
 
 class StageProgress:
@@ -35,7 +33,7 @@ class StageProgress:
             self.stage = stage
             self.done = 0
             self.bar = click.progressbar(
-                length=max(int(total), 1), label=self.LABELS.get(stage, stage), file=click.get_text_stream("stderr")
+                length=max(int(total), 1), label=self.LABELS.get(stage, stage), file=sys.stderr
             )
             self.bar.__enter__()
         if done > self.done:
@@ -101,6 +99,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 
     import pandas as pd
 
+    from compquant.cli._common import progress_bar
     from compquant.errors import CompquantError, OutputError
     from compquant.fileio import atomic_write
     from compquant.parallel import analyse_runs, collect_runs, open_executor, run_output_folders
@@ -113,7 +112,8 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     with open_executor(workers, scheduler) as ex:
         if not quiet:
             click.echo(f"analysing {len(paths)} runs on {ex.describe()}", err=True)
-        outcomes = analyse_runs(ex, paths, method_path, folders, **options)
+        with progress_bar(len(paths), "runs              ", enabled=not quiet) as bar:  # one step per run
+            outcomes = analyse_runs(ex, paths, method_path, folders, progress=lambda oc: bar.update(1), **options)
     frames, status = [], []
     for oc in outcomes:
         if oc.ok:

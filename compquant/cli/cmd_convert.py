@@ -5,7 +5,6 @@ from __future__ import annotations
 import click
 
 from compquant.errors import InputError
-from compquant.run.convert import convert_to_run
 
 
 def _pairs(values, what):
@@ -38,6 +37,8 @@ def command(spectra, samples_csv, dark, saturation, medium, instrument, acquisit
     """Build a compquant run from plain-text/CSV spectra plus a samples table.
 
     Inputs are only read; the run is written atomically."""
+    from compquant.run.convert import convert_to_run
+
     report = convert_to_run(spectra, samples_csv, output, dark=dark, saturation=saturation, medium=medium,
                             instrument=_pairs(instrument, "instrument"),
                             acquisition=_pairs(acquisition, "acquisition"))

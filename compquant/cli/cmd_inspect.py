@@ -7,7 +7,6 @@ import json
 import click
 
 from compquant.cli._common import format_columns
-from compquant.run import Run, summarise_run
 
 
 def _fmt_settings(d: dict) -> str:
@@ -59,6 +58,8 @@ def command(run_path, as_json, chunk_shots):
     """Show a run's instrument and acquisition settings, wavelength axis, samples
     (role, certified-standard reference, shots, saturated pixels) and validation
     findings. The file is opened read-only."""
+    from compquant.run import Run, summarise_run
+
     with Run.open(run_path) as run:
         summary = summarise_run(run, chunk_shots=chunk_shots)
     if as_json:

@@ -10,11 +10,12 @@ task for several runs (compquant.parallel); the numbers equal the serial ones.
 from __future__ import annotations
 
 import json
+import sys
 from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, write_csv
+from compquant.cli._common import SAFETY, format_columns, is_stdio, progress_bar, write_csv
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write
 
@@ -64,6 +65,8 @@ def write_outputs(lm, out: Path, shots_out: Path | None, qc_out: Path) -> list[P
     write_csv(lm.table, out)
     if shots_out is not None:
         write_csv(lm.shots, shots_out)
+    if qc_out is None:  # line table on standard output (-o -) and no QC file asked for
+        return [out] + ([shots_out] if shots_out is not None else [])
     qc = lm.qc.merge(lm.shifts, on="sample_id", how="left")
     write_csv(qc, qc_out)
     prov_path = Path(f"{stem}-provenance.json")
@@ -94,7 +97,9 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     with open_executor(workers, scheduler) as ex:
         if not quiet:
             click.echo(f"measuring {len(paths)} runs on {ex.describe()}", err=True)
-        outcomes = measure_runs(ex, paths, method, chunk_shots=chunk_shots, outputs=folders, writer=write_run_outputs)
+        with progress_bar(len(paths), "runs     ", enabled=not quiet) as bar:  # one step per run
+            outcomes = measure_runs(ex, paths, method, chunk_shots=chunk_shots, outputs=folders,
+                                    writer=write_run_outputs, progress=lambda oc: bar.update(1))
     tables, status = [], []
     for oc in outcomes:
         if oc.ok:
@@ -152,7 +157,8 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     "--output",
     required=True,
     type=click.Path(),
-    help="Line table CSV for one run; an output folder for several runs or a folder of runs.",
+    help="Line table CSV for one run ('-': standard output, no other file unless named); "
+    "an output folder for several runs or a folder of runs.",
 )
 @click.option(
     "--shots",
@@ -219,8 +225,12 @@ def command(
     run_path = run_paths[0]
     out = Path(output)
     stem = out.with_suffix("")
-    shots_out = None if no_shots else Path(shots_path or f"{stem}-shots.csv")
-    qc_out = Path(qc_path or f"{stem}-qc.csv")
+    if is_stdio(output):  # the line table on standard output; other files only when named
+        shots_out = Path(shots_path) if shots_path and not no_shots else None
+        qc_out = Path(qc_path) if qc_path else None
+    else:
+        shots_out = None if no_shots else Path(shots_path or f"{stem}-shots.csv")
+        qc_out = Path(qc_path or f"{stem}-qc.csv")
     with Run.open(run_path) as run, open_executor(workers, scheduler) as ex:
         mapper = chunk_mapper(ex)
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
@@ -228,11 +238,15 @@ def command(
         if quiet or total < 20000:
             lm = measure_run(run, method, chunk_shots=chunk_shots, chunk_mapper=mapper, threads=threads)
         else:
-            with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
+            with click.progressbar(length=total, label="measuring", file=sys.stderr) as bar:
                 lm = measure_run(
                     run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper, threads=threads
                 )
     written = write_outputs(lm, out, shots_out, qc_out)
+    if is_stdio(output):
+        if not quiet and len(written) > 1:
+            click.echo("wrote " + ", ".join(str(p) for p in written[1:]), err=True)
+        return
     if not quiet:
         click.echo(_short_table(lm.table))
         rej = lm.qc[lm.qc["n_rejected"] > 0]

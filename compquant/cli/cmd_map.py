@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import sys
 from pathlib import Path
 
 import click
@@ -87,7 +88,7 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
         else:
             passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
             with click.progressbar(
-                length=run.n_shots * passes, label="measuring", file=click.get_text_stream("stderr")
+                length=run.n_shots * passes, label="measuring", file=sys.stderr
             ) as bar:
                 result = make_maps(
                     run,

@@ -29,12 +29,14 @@ def _analyse_one(path: str, ctx: dict) -> dict:
 
 
 def analyse_runs(
-    executor, paths: list[str | os.PathLike], method_path, outdirs: dict[str, Path], **options
+    executor, paths: list[str | os.PathLike], method_path, outdirs: dict[str, Path], *, progress=None, **options
 ) -> list[RunOutcome]:
-    """:func:`compquant.analyse.analyse` for every run (``options`` as for one run); outcomes in order."""
+    """:func:`compquant.analyse.analyse` for every run (``options`` as for one run); outcomes in order.
+
+    ``progress(outcome)`` is called as each run finishes (see :func:`map_runs`)."""
     items = [str(p) for p in paths]
     ctx = {"method_path": str(method_path), "outdirs": {str(k): v for k, v in outdirs.items()}, "options": options}
-    return map_runs(executor, items, _analyse_one, ctx)
+    return map_runs(executor, items, _analyse_one, ctx, progress=progress)
 
 
 __all__ = ["analyse_runs"]

@@ -81,12 +81,14 @@ def measure_runs(
     chunk_shots: int | None = None,
     outputs: dict[str, Path] | None = None,
     writer: Callable | None = None,
+    progress: Callable | None = None,
 ) -> list[RunOutcome]:
     """Measure every run, one run per task; one :class:`RunOutcome` per run, in the order given.
 
     ``writer(lm, out_dir) -> [paths]`` (a module-level function) writes a run's output set
     on the worker that measured it; ``outputs`` maps each run path to its output folder.
     The outcome's value holds the line table, QC table, notes and the files written.
+    ``progress(outcome)`` is called as each run finishes (see :func:`map_runs`).
     """
     items = [str(p) for p in paths]
     ctx = {
@@ -95,7 +97,7 @@ def measure_runs(
         "writer": writer,
         "outputs": {str(k): v for k, v in (outputs or {}).items()},
     }
-    return map_runs(executor, items, _measure_one, ctx)
+    return map_runs(executor, items, _measure_one, ctx, progress=progress)
 
 
 __all__ = ["chunk_mapper", "measure_run_on", "measure_runs", "process_chunk_task"]
