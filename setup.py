@@ -7,12 +7,13 @@ relative layout, so ``../standards/...`` in a scenario file still resolves), whi
 ``compquant demo`` finds them after ``pip install``.  Everything else is in pyproject.toml.
 """
 
-from setuptools import find_packages, setup
+from setuptools import find_namespace_packages, setup
 
 DEMO = {"compquant.demo.demo_runs": "demo_runs", "compquant.demo.standards": "standards"}
 
 setup(
-    packages=find_packages(include=["compquant", "compquant.*"]) + list(DEMO),
+    # namespace discovery, as pyproject's packages.find did: compquant.maps has no __init__.py
+    packages=find_namespace_packages(include=["compquant", "compquant.*"]) + list(DEMO),
     package_dir=DEMO,
     package_data={
         "compquant": ["data/*", "data/**/*"],

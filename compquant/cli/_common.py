@@ -67,6 +67,23 @@ def write_csv(df, path, float_format: str = "%.10g") -> None:
         ) from exc
 
 
+def scheduler_file_option(fn):
+    """``--scheduler-file FILE`` for commands with ``--scheduler``: the file a Dask scheduler writes
+    (``dask scheduler --scheduler-file FILE``); the command passes it on with :func:`fold_scheduler`."""
+    return click.option(
+        "--scheduler-file", type=click.Path(exists=True, dir_okay=False), default=None,
+        help="Compute on the existing Dask cluster described by this scheduler file.",
+    )(fn)
+
+
+def fold_scheduler(scheduler: str | None, scheduler_file: str | None) -> str | None:
+    """One ``scheduler`` argument for :func:`compquant.parallel.open_executor`, which reads a
+    value naming an existing file as a scheduler file."""
+    if scheduler and scheduler_file:
+        raise click.UsageError("give --scheduler or --scheduler-file, not both")
+    return scheduler_file or scheduler
+
+
 def is_stdio(path) -> bool:
     """True for the path ``-``: standard input or output, for commands that read or write one table."""
     return path is not None and str(path) == "-"
@@ -86,4 +103,13 @@ def format_columns(rows: Sequence[Sequence[str]], *, right: Collection[int] = ()
     )
 
 
-__all__ = ["SAFETY", "VERBOSITY", "format_columns", "is_stdio", "progress_bar", "write_csv"]
+__all__ = [
+    "SAFETY",
+    "VERBOSITY",
+    "fold_scheduler",
+    "format_columns",
+    "is_stdio",
+    "progress_bar",
+    "scheduler_file_option",
+    "write_csv",
+]

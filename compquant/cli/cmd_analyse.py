@@ -7,6 +7,7 @@ import sys
 import click
 
 from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
+from compquant.cli._common import fold_scheduler, scheduler_file_option
 
 
 class StageProgress:
@@ -198,7 +199,9 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 @click.option(
     "--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes (loopback only)."
 )
-@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option("--scheduler", default=None,
+              help="Compute on an existing Dask cluster at this address (default: DASK_SCHEDULER_ADDRESS if set).")
+@scheduler_file_option
 @click.option("--quiet", is_flag=True, help="No progress bars.")
 def command(
     run_paths,
@@ -216,6 +219,7 @@ def command(
     chunk_shots,
     workers,
     scheduler,
+    scheduler_file,
     quiet,
 ):
     """Analyse a run and write a certificate of analysis per unknown sample.
@@ -236,6 +240,7 @@ def command(
     from compquant.analyse import analyse
     from compquant.parallel import chunk_mapper, open_executor
 
+    scheduler = fold_scheduler(scheduler, scheduler_file)
     options = dict(
         standards=standards,
         calibration=calibration,

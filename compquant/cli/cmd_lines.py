@@ -15,7 +15,15 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, is_stdio, progress_bar, write_csv
+from compquant.cli._common import (
+    SAFETY,
+    fold_scheduler,
+    format_columns,
+    is_stdio,
+    progress_bar,
+    scheduler_file_option,
+    write_csv,
+)
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write
 
@@ -187,7 +195,9 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     default=None,
     help="Start a local Dask cluster of N worker processes (loopback only) and compute there.",
 )
-@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option("--scheduler", default=None,
+              help="Compute on an existing Dask cluster at this address (default: DASK_SCHEDULER_ADDRESS if set).")
+@scheduler_file_option
 @click.option(
     "--threads",
     type=click.IntRange(1, 64),
@@ -197,7 +207,8 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
 )
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
 def command(
-    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, threads, quiet
+    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, scheduler_file,
+    threads, quiet,
 ):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
@@ -212,6 +223,7 @@ def command(
     from compquant.parallel import chunk_mapper, open_executor
     from compquant.run import Run
 
+    scheduler = fold_scheduler(scheduler, scheduler_file)
     method = load_method(method_path)
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if shots_path or qc_path or no_shots:
