@@ -324,6 +324,8 @@ def _type_ok(value, annotation: str) -> bool:
             return True
         if alt in ("str", "list", "dict") and isinstance(value, {"str": str, "list": list, "dict": dict}[alt]):
             return True
+        if type(value).__name__ == alt:  # a nested dataclass already rebuilt (e.g. PLSConfig)
+            return True
     return False
 
 

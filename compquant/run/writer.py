@@ -24,6 +24,7 @@ import pandas as pd
 from compquant import __version__
 from compquant.errors import RunFormatError
 from compquant.fileio import atomic_path
+from compquant.interchange import add_nxdata
 from compquant.run import _checks
 from compquant.run.format import FORMAT_NAME, FORMAT_VERSION, SAMPLE_COLUMNS
 
@@ -195,6 +196,8 @@ class RunWriter:
         ag = f.create_group("acquisition")
         for k, v in self.acquisition.items():
             ag.attrs[str(k)] = _attr_value(v)
+        # NeXus NXdata group and HDF5 dimension scales, so viewers and xarray show the axis
+        add_nxdata(f, "spectra", ["shot_index", "wavelength"])
 
     def write_spectra(self, start: int, block) -> None:
         """Write ``block`` (n × n_pixels) as shots ``start .. start+n-1``."""
