@@ -8,8 +8,9 @@ without numpy, pandas or h5py; adding a command touches no shared file.
 
 Conventions shared by every command (added here, so a command module does not repeat them):
 
-* ``-v`` / ``--verbose`` (more detail, repeatable) and ``-q`` / ``--quiet`` (no progress bars
-  or notes; ``-qq`` errors only), before or after the command name.  Messages go through the
+* ``-v`` / ``--verbose`` (more detail, repeatable) and ``-q`` / ``--quiet`` (no progress bars,
+  notes or warnings: errors only; warnings stay in the outputs' flags), before or after the
+  command name.  Messages go through the
   standard :mod:`logging` module (logger ``compquant``) to stderr;
 * Python warnings raised while a command runs (e.g. a calibration-free fit outside its
   range) are routed to that log as one line each, never printed raw with source lines;
@@ -93,8 +94,8 @@ class _Formatter(logging.Formatter):
 def set_verbosity(level: int) -> None:
     """Set the ``compquant`` log level from the verbosity (-q = -1, default 0, -v = 1, -vv = 2).
 
-    -qq: errors only; -q: warnings; default: notes (INFO); -v: details (DEBUG) of compquant;
-    -vv: also the DEBUG messages of the libraries (e.g. Dask).
+    -q: errors only (the outputs carry the warnings as flags); default: notes (INFO) and
+    warnings; -v: details (DEBUG) of compquant; -vv: also the DEBUG messages of the libraries.
     """
     import compquant.cli._common as common
 
@@ -104,7 +105,7 @@ def set_verbosity(level: int) -> None:
         h.setFormatter(_Formatter())
         log.addHandler(h)
         log.propagate = False
-    log.setLevel({-2: logging.ERROR, -1: logging.WARNING, 0: logging.INFO}.get(max(level, -2), logging.DEBUG))
+    log.setLevel(logging.ERROR if level < 0 else logging.INFO if level == 0 else logging.DEBUG)
     if level >= 2:
         logging.basicConfig(level=logging.DEBUG)
 
@@ -146,7 +147,7 @@ def _add_verbosity_options(cmd: click.Command) -> click.Command:
     else:
         cmd.params.append(
             click.Option(["-q", "--quiet"], count=True, expose_value=False, is_eager=True,
-                         callback=_verbosity_callback, help="No progress bars or notes (-qq: errors only).")
+                         callback=_verbosity_callback, help="No progress bars, notes or warnings: errors only.")
         )
     cmd._compquant_verbosity = True
     return cmd
@@ -199,7 +200,7 @@ class CompquantGroup(click.Group):
 @click.option("-v", "--verbose", count=True, expose_value=False, is_eager=True, callback=_verbosity_callback,
               help="More detail on stderr (also after the command name).")
 @click.option("-q", "--quiet", count=True, expose_value=False, is_eager=True, callback=_verbosity_callback,
-              help="No progress bars or notes; -qq: errors only (also after the command name).")
+              help="No progress bars, notes or warnings: errors only (also after the command name).")
 def main():
     """compquant: concentrations you can sign, from one LIBS or spark-OES run.
 

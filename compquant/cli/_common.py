@@ -25,7 +25,7 @@ SAFETY = (
 )
 
 
-#: -q / -v of the running command (compquant.cli.set_verbosity): -2 errors only, -1 quiet,
+#: -q / -v of the running command (compquant.cli.set_verbosity): below 0 quiet (errors only),
 #: 0 default, 1 and more: details
 VERBOSITY = 0
 
