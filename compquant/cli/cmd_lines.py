@@ -10,7 +10,6 @@ task for several runs (compquant.parallel); the numbers equal the serial ones.
 from __future__ import annotations
 
 import json
-import sys
 from pathlib import Path
 
 import click
@@ -247,13 +246,10 @@ def command(
         mapper = chunk_mapper(ex)
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * passes
-        if quiet or total < 20000:
-            lm = measure_run(run, method, chunk_shots=chunk_shots, chunk_mapper=mapper, threads=threads)
-        else:
-            with click.progressbar(length=total, label="measuring", file=sys.stderr) as bar:
-                lm = measure_run(
-                    run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper, threads=threads
-                )
+        with progress_bar(total, "measuring", enabled=not quiet) as bar:  # shots x passes over the run
+            lm = measure_run(
+                run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper, threads=threads
+            )
     written = write_outputs(lm, out, shots_out, qc_out)
     if is_stdio(output):
         if not quiet and len(written) > 1:
