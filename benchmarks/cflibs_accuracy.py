@@ -176,6 +176,13 @@ def summarise(name, out, w_target, n_cases):
         return {"dT_max": float("inf"), "dne_max": float("inf"), "major_max": float("inf"), "cov_w": 0,
                 "cov_T": 0, "cov_ne": 0}
     print(f"--- {name}: {len(out)} of {n_cases} samples gave a result")
+    refused = [o for o in out if not o["result"].plasma_consistent]
+    if refused:  # a refused solution has no certified number: counted, not scored
+        print(f"  not certified (plasma checks): {', '.join(o['case']['sample_id'] for o in refused)}")
+        out = [o for o in out if o["result"].plasma_consistent]
+        if not out:
+            return {"dT_max": float("inf"), "dne_max": float("inf"), "major_max": float("inf"), "cov_w": 0,
+                    "cov_T": 0, "cov_ne": 0}
     dT = np.array([abs(o["dT"]) for o in out])
     dne = np.array([abs(o["dne"]) for o in out])
     maj = np.array([abs(o["errs"][e]) for o in out for e, w in o["case"]["comp"].items() if w >= MAJOR])

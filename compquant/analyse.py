@@ -29,8 +29,15 @@ from pathlib import Path
 import numpy as np
 
 from compquant import __version__
-from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError
-from compquant.fileio import require_file, safe_filename, sha256_file, write_text_atomic
+from compquant.errors import CompquantError, ConfigError, DataQualityError, InputError, OutputError
+from compquant.fileio import (
+    output_error,
+    require_file,
+    safe_filename,
+    sha256_file,
+    write_bytes_atomic,
+    write_text_atomic,
+)
 from compquant.identify.sample import detected_not_quantified
 from compquant.report import (
     Certificate,
@@ -51,11 +58,11 @@ from compquant.report import (
     load_lab_profile,
     load_specification,
 )
-from compquant.report.config import LabProfile
+from compquant.report.config import LabProfile, check_certificate_texts
 from compquant.report.jsonform import canonical_json, write_certificate_json
 from compquant.report.lims import write_lims_csv
 from compquant.report.numbers import finite
-from compquant.report.pdf import write_pdf
+from compquant.report.pdf import render_pdf_bytes
 
 SUMMARY_SCHEMA = "compquant-run-summary"
 SUMMARY_VERSION = 1
@@ -149,6 +156,7 @@ def analyse(
     memory_limit_bytes: int | None = None,
     progress=None,
     chunk_mapper=None,
+    db=None,
 ) -> AnalysisOutput:
     """Run the whole analysis and write the certificates (see the module docstring).
 
@@ -166,6 +174,9 @@ def analyse(
     progress : callable ``(stage, done, total)`` for progress display.
     chunk_mapper : compute the line-measurement chunks elsewhere, e.g. on Dask workers
         (:func:`compquant.parallel.chunk_mapper`); the numbers are the same.
+    db : the lab's record (path or URL; default ``COMPQUANT_DB``): the analysis and its certificates
+        are stored there (:mod:`compquant.record`).  Certificates are DRAFTs unless the lab profile
+        sets ``[review] required = false``.
     """
     modes = sum([standards is not None, calibration is not None, bool(cf)])
     if modes != 1:
@@ -184,6 +195,12 @@ def analyse(
     method = load_method(method_path)
     labp = load_lab_profile(lab) if lab is not None else _default_lab()
     specp = load_specification(spec) if spec is not None else None
+    # the record is opened before the work (a damaged record fails fast); the review state is printed
+    from compquant.record.states import initial_review
+    from compquant.record.store import recorder_for_analysis
+
+    recorder = recorder_for_analysis(db, method)
+    review = initial_review(labp, lab is not None, issued)
     if received:
         try:
             received = _dt.date.fromisoformat(str(received)).isoformat()
@@ -218,9 +235,10 @@ def analyse(
 
     files = [FileRef("run", run_path.name, ""), FileRef("method", Path(method_path).name, method.sha256 or "")]
     with Run.open(run_path, memory_limit_bytes=memory_limit_bytes) as run:
+        samples = run.samples.copy()
+        check_certificate_texts(samples["sample_id"], samples["description"], client, str(run_path))
         run_sha = run.sha256()
         files[0].sha256 = run_sha
-        samples = run.samples.copy()
         n_passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * n_passes
         done = [0]
@@ -347,7 +365,10 @@ def analyse(
     if specp is not None:
         files.append(FileRef("specification", Path(specp.path).name, specp.sha256))
 
-    outdir.mkdir(parents=True, exist_ok=True)
+    try:
+        outdir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise output_error(exc, outdir) from exc
     lab_info = LabInfo.from_profile(labp)
     signatory = Signatory(labp.signatory_name, labp.signatory_title)
     client_info = ClientInfo(
@@ -414,6 +435,8 @@ def analyse(
             skipped.append(sid)
             continue
         number = certificate_number(labp.certificate_prefix, run_sha, sid, issue_date)
+        if recorder is not None:
+            recorder.check_number(number)  # never overwrite a released certificate's files
         stem = safe_filename(sid)
         if stem.lower() in used_stems or stem.lower() in ("lims", "summary", "calibration"):
             stem = f"{stem}-{len(used_stems) + 1}"  # never overwrite another sample's files
@@ -467,8 +490,9 @@ def analyse(
             cert.remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
         pdf_path = outdir / f"{stem}.pdf"
         json_path = outdir / f"{stem}.json"
-        write_certificate_json(cert, json_path)
-        pages = write_pdf(cert, pdf_path)
+        pdf_bytes, pages = _render_pdf(cert, sid, review)  # first: a PDF that cannot be made leaves no JSON alone
+        write_certificate_json(cert, json_path, review=review)
+        write_bytes_atomic(pdf_path, pdf_bytes)
         certs.append(cert)
         outputs.append(
             CertificateOutput(
@@ -553,6 +577,10 @@ def analyse(
     }
     summary_path = outdir / "summary.json"
     write_text_atomic(summary_path, canonical_json(summary))
+    if recorder is not None:
+        recorder.store(run_file=run_path, run_sha256=run_sha, instrument=instrument, samples=samples, measured=measured,
+                       method=method, basis=basis, issued_at=issued, certificates=certs, outputs=outputs, review=review,
+                       calibration=cal_info, drift=drift_info, checks=checks, outdir=outdir)
     return AnalysisOutput(
         str(outdir),
         basis,
@@ -565,5 +593,17 @@ def analyse(
         failures,
     )
 
+
+
+def _render_pdf(cert, sid: str, review=None) -> tuple[bytes, int]:
+    """The certificate's PDF bytes and page count; a page-layout failure is one clear error line."""
+    from reportlab.platypus.doctemplate import LayoutError
+
+    try:
+        return render_pdf_bytes(cert, review)
+    except LayoutError as exc:
+        raise OutputError(f"the certificate of sample {sid[:40]!r} cannot be laid out on A4 pages "
+                          f"({str(exc)[:80]})", where="certificate PDF",
+                          fix="shorten the long texts (lab profile, client, sample description)") from None
 
 __all__ = ["analyse", "AnalysisOutput", "CertificateOutput", "SUMMARY_SCHEMA", "SUMMARY_VERSION"]

@@ -13,9 +13,11 @@ Sample ids and other user-supplied strings become file names only through
 from __future__ import annotations
 
 import contextlib
+import errno
 import hashlib
 import os
 import re
+import stat
 import sys
 import tempfile
 import unicodedata
@@ -64,7 +66,12 @@ def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     except OSError as exc:
         raise OutputError(f"cannot create output folder ({exc.strerror})", where=str(folder),
                           fix="choose a writable output folder") from exc
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name[:40]}.", suffix=".part", dir=folder)
+    if target.is_dir():
+        raise OutputError("output path is a folder", where=str(target), fix="give a file name inside the folder")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name[:40]}.", suffix=".part", dir=folder)
+    except OSError as exc:
+        raise output_error(exc, folder) from exc
     os.close(fd)
     tmp_path = Path(tmp)
     # mkstemp creates 0600; give the final file the permissions a normal open() would (0666 & ~umask)
@@ -75,9 +82,11 @@ def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
         with open(tmp_path, "rb+") as fh:
             os.fsync(fh.fileno())
         os.replace(tmp_path, target)
-    except BaseException:
+    except BaseException as exc:
         with contextlib.suppress(OSError):
             tmp_path.unlink()
+        if isinstance(exc, OSError) and not isinstance(exc, OutputError):
+            raise output_error(exc, target) from exc
         raise
     with contextlib.suppress(OSError):  # make the rename durable
         dfd = os.open(folder, os.O_RDONLY)
@@ -105,6 +114,26 @@ def atomic_write(target: str | os.PathLike, mode: str = "w", encoding: str | Non
             yield fh
             fh.flush()
             os.fsync(fh.fileno())
+
+
+#: errno values of a full or limited disk, and what to do about them
+_DISK_FIXES = {
+    errno.ENOSPC: "the disk is full: free some space or choose another output folder",
+    errno.EFBIG: "the file is larger than this system allows (file-size limit): raise the limit or choose "
+                 "another file system",
+    errno.EDQUOT: "the disk quota is used up: free some space or choose another output folder",
+    errno.EROFS: "the file system is read-only: choose a writable output folder",
+    errno.EACCES: "no permission to write there: choose a writable output folder",
+    errno.EPERM: "no permission to write there: choose a writable output folder",
+    errno.ENOTDIR: "a part of the path is a file, not a folder: choose another output path",
+}
+
+
+def output_error(exc: OSError, where: str | os.PathLike) -> OutputError:
+    """The one-line :class:`OutputError` for an OS error met while writing ``where``."""
+    why = exc.strerror or type(exc).__name__
+    fix = _DISK_FIXES.get(exc.errno, "choose a writable output path")
+    return OutputError(f"cannot write ({why}); nothing was written under this name", where=str(where), fix=fix)
 
 
 def write_text_atomic(target: str | os.PathLike, text: str) -> None:
@@ -147,13 +176,31 @@ def safe_filename(name: str, max_len: int = 80) -> str:
 
 
 def require_file(path: str | os.PathLike, what: str = "file") -> Path:
-    """Return ``path`` as a Path if it is an existing, readable file; else raise InputError."""
+    """Return ``path`` as a Path if it is an existing, readable regular file; else raise InputError.
+
+    A FIFO, a socket or a device (``/dev/zero``) is refused *before* it is opened: reading one
+    could block forever or never end.
+    """
     p = Path(path)
-    if not p.exists():
-        raise InputError(f"{what} not found", where=str(p), fix="check the path and spelling")
-    if p.is_dir():
+    if "\x00" in str(p):
+        raise InputError(f"{what} name holds a NUL character", where=repr(str(p)), fix="check the path")
+    try:
+        st = os.stat(p)
+    except FileNotFoundError:
+        if os.path.islink(p):
+            raise InputError(f"{what} is a broken symbolic link", where=str(p), fix="check the path") from None
+        raise InputError(f"{what} not found", where=str(p), fix="check the path and spelling") from None
+    except OSError as exc:
+        raise InputError(f"{what} cannot be reached ({exc.strerror})", where=str(p),
+                         fix="check the path and the folder permissions") from exc
+    if stat.S_ISDIR(st.st_mode):
         raise InputError(f"{what} is a folder, not a file", where=str(p),
                          fix="give the path of the file itself")
+    if not stat.S_ISREG(st.st_mode):
+        kind = ("a FIFO (named pipe)" if stat.S_ISFIFO(st.st_mode) else "a socket" if stat.S_ISSOCK(st.st_mode)
+                else "a device" if stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode) else "not a regular file")
+        raise InputError(f"{what} is {kind}, not a regular file", where=str(p),
+                         fix="give a regular file (copy the data to a file first)")
     if not os.access(p, os.R_OK):
         raise InputError(f"{what} is not readable", where=str(p), fix="check file permissions")
     return p
@@ -188,6 +235,69 @@ def check_keys(table: dict, allowed: set[str] | frozenset[str], where: str,
                     fix="add them; see the file's documentation")
 
 
+# ------------------------------------------------------------------ one escaping policy for text
+# Every CSV cell (csv_cell) and every line shown on a terminal (terminal_text) goes through the
+# same rule: control characters (C0, DEL, C1), Unicode format characters (bidirectional
+# overrides and isolates, zero-width joiners ...), line and paragraph separators, surrogates,
+# private-use and unassigned code points are shown as visible escapes \xNN / \uNNNN, so text
+# from a file can neither move the cursor, recolour or reorder a line, nor start a new one.
+# CSV cells also lose their power as spreadsheet formulas (OWASP, "CSV Injection").
+
+_HIDDEN_CATEGORIES = frozenset({"Cc", "Cf", "Cs", "Co", "Cn", "Zl", "Zp"})
+
+
+def visible_text(s, keep: str = "") -> str:
+    """``s`` with every hidden or control character (except those in ``keep``) as ``\\xNN``/``\\uNNNN``."""
+    s = str(s)
+    if s.isascii() and s.isprintable():
+        return s
+    out = []
+    for ch in s:
+        if ch not in keep and unicodedata.category(ch) in _HIDDEN_CATEGORIES:
+            o = ord(ch)
+            out.append(f"\\x{o:02x}" if o < 256 else (f"\\u{o:04x}" if o < 0x10000 else f"\\U{o:08x}"))
+        else:
+            out.append(ch)
+    return "".join(out)
+
+
+def terminal_text(s) -> str:
+    """One line of text for a terminal: :func:`visible_text`, newlines included."""
+    return visible_text(s)
+
+
+_FORMULA_START = frozenset("=+-@")
+
+
+def _looks_numeric(s: str) -> bool:
+    try:
+        float(s)
+    except ValueError:
+        return False
+    return True
+
+
+def csv_cell(value):
+    """A CSV cell that no spreadsheet runs as a formula and no reader splits.
+
+    Text goes through :func:`visible_text`; then, when its first character that is not a
+    space, NFKC-normalised (so the full-width ``＝＋－＠`` count too), is ``= + - @``, or when it
+    starts with a space or an escaped tab / carriage return, it is prefixed with an apostrophe
+    (OWASP guidance on CSV injection). Numbers (and text that is a number, like ``-1.5``) are
+    kept as they are.
+    """
+    if not isinstance(value, str):
+        return value
+    s = visible_text(value)
+    if not s or _looks_numeric(s):
+        return s
+    head = s.lstrip(" \u3000")
+    first = unicodedata.normalize("NFKC", head[:1]) if head else ""
+    if first[:1] in _FORMULA_START or head.startswith(("\\x09", "\\x0d", "\\x0a")) or s[0].isspace():
+        s = "'" + s
+    return s
+
+
 def json_ready(obj, nonfinite=None):
     """A copy of ``obj`` that :func:`json.dump` writes as strict JSON: dict keys become text,
     tuples and numpy arrays lists, numpy scalars Python numbers; a NaN or infinite float ``f``
@@ -218,12 +328,16 @@ __all__ = [
     "atomic_path",
     "atomic_write",
     "check_keys",
+    "csv_cell",
     "json_ready",
     "load_toml",
+    "output_error",
     "require_file",
     "safe_filename",
     "sha256_file",
+    "terminal_text",
     "tomllib",
+    "visible_text",
     "write_bytes_atomic",
     "write_text_atomic",
 ]

@@ -25,10 +25,13 @@ import numpy as np
 from compquant.errors import MethodError
 from compquant.fileio import check_keys, load_toml, sha256_file
 
-TOP_LEVEL = frozenset({"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map"})
-OTHER_SECTIONS = ("calibration", "cf", "identify", "map")
+TOP_LEVEL = frozenset(
+    {"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map", "control_chart"}
+)
+OTHER_SECTIONS = ("calibration", "cf", "identify", "map", "control_chart")
 
-METHOD_KEYS = frozenset({"id", "version", "technique", "description"})
+METHOD_KEYS = frozenset({"id", "version", "technique", "description", "medium"})
+MEDIA = ("air", "vacuum")
 PREPROCESS_TABLES = frozenset({"dark", "response", "saturation", "qc", "baseline", "normalise", "shift"})
 DARK_KEYS = frozenset({"enabled", "statistic", "scale_exposure"})
 RESPONSE_KEYS = frozenset({"enabled", "file"})
@@ -40,7 +43,10 @@ BASELINE_KEYS = frozenset(
     {"method", "max_half_window", "decreasing", "lls", "lam", "p", "diff_order", "max_iter", "tol"}
 )
 NORMALISE_KEYS = frozenset({"how", "line"})
-SHIFT_KEYS = frozenset({"method", "lines", "reference_file", "max_shift_nm", "search_nm", "flag_nm"})
+SHIFT_KEYS = frozenset(
+    {"method", "lines", "reference_file", "max_shift_nm", "search_nm", "flag_nm", "model", "min_refs", "tolerance_nm"}
+)
+SHIFT_MODELS = ("shift", "linear")
 MEASURE_KEYS = frozenset(
     {
         "mode",
@@ -130,6 +136,9 @@ class PreprocessConfig:
     max_shift_nm: float = 0.2
     shift_search_nm: float = 0.1
     shift_flag_nm: float | None = None
+    shift_model: str = "shift"
+    shift_min_refs: int | None = None
+    shift_tolerance_nm: float | None = None
 
 
 @dataclass
@@ -182,6 +191,7 @@ class Method:
     path: str | None = None
     sha256: str | None = None
     raw: dict = field(default_factory=dict, repr=False)
+    medium: str = "air"
 
     @property
     def where(self) -> str:
@@ -232,7 +242,8 @@ class Method:
         """SHA-256 of the resolved preprocessing, measurement and line settings."""
         blob = json.dumps(
             {
-                "preprocess": asdict(self.preprocess),
+                **({"medium": self.medium} if self.medium != "air" else {}),
+                "preprocess": _digest_preprocess(self.preprocess),
                 "measure": asdict(self.measure),
                 "lines": [asdict(x) for x in self.lines],
             },
@@ -240,6 +251,16 @@ class Method:
             default=str,
         )
         return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def _digest_preprocess(pre: PreprocessConfig) -> dict:
+    """Preprocessing settings for the digest; settings added later are left out while at their
+    defaults, so digests of existing methods do not change."""
+    d = asdict(pre)
+    for key, default in (("shift_model", "shift"), ("shift_min_refs", None), ("shift_tolerance_nm", None)):
+        if d.get(key) == default:
+            d.pop(key)
+    return d
 
 
 def window_width_nm(line: LineSpec, pitch_nm: float) -> float:
@@ -417,6 +438,12 @@ def _parse_preprocess(pre: dict, src: str) -> PreprocessConfig:
     c.max_shift_nm = _num(t, "max_shift_nm", wsh, positive=True, default=c.max_shift_nm)
     c.shift_search_nm = _num(t, "search_nm", wsh, positive=True, default=c.shift_search_nm)
     c.shift_flag_nm = _num(t, "flag_nm", wsh, positive=True)
+    c.shift_model = _str(t, "model", wsh, c.shift_model, SHIFT_MODELS)
+    c.shift_min_refs = _num(t, "min_refs", wsh, positive=True, integer=True)
+    c.shift_tolerance_nm = _num(t, "tolerance_nm", wsh, positive=True)
+    if c.shift_model == "linear" and c.shift_min_refs is not None and c.shift_min_refs < 3:
+        raise _err(f"{wsh} min_refs", "a linear correction (shift + dispersion) needs at least 3 references",
+                   "set min_refs = 3 or more, or model = \"shift\"")
     if c.shift == "lines" and not c.shift_lines:
         raise _err(
             f"{wsh} lines",
@@ -471,7 +498,33 @@ def _lookup_line(element: str, ion: int, wl: float) -> float | None:
     return float(sel["wavelength_nm"].iloc[j])
 
 
-def _parse_lines(items, src: str, measure: MeasureConfig) -> list[LineSpec]:
+def _check_species(element: str, ion: int, where: str) -> None:
+    """Refuse an unknown element symbol or an ion stage the element cannot have (stage <= Z + 1)."""
+    from compquant.atomic import element as element_data
+    from compquant.atomic.elements import species_name
+    from compquant.errors import AtomicDataError
+
+    try:
+        el = element_data(element)
+        species_name(element, ion)
+    except AtomicDataError as exc:
+        raise _err(where, f"{exc.what} ({element!r}, ion {ion!r})",
+                   "use a chemical symbol (Z = 1..92) and an ion stage 1 (neutral), 2 (singly ionised), ...") from exc
+    if int(ion) > el.Z + 1:
+        raise _err(where, f"{element} has no ion stage {ion} (Z = {el.Z})",
+                   f"use an ion stage from 1 to {el.Z + 1}")
+
+
+def _id_wavelength(parsed_nm: float, medium: str) -> float:
+    """The wavelength an id stands for in the method's medium (ids carry air wavelengths)."""
+    if medium == "air":
+        return parsed_nm
+    from compquant.atomic.airvac import air_to_vacuum
+
+    return float(air_to_vacuum(parsed_nm))
+
+
+def _parse_lines(items, src: str, measure: MeasureConfig, medium: str = "air") -> list[LineSpec]:
     if not isinstance(items, list) or not items:
         raise _err(
             f"{src}: [[lines]]",
@@ -507,7 +560,7 @@ def _parse_lines(items, src: str, measure: MeasureConfig) -> list[LineSpec]:
                         f"{name} = {given!r} contradicts the id {lid!r}",
                         "correct the id or remove the key",
                     )
-            if wl is not None and abs(wl - parsed[2]) > 0.0015:
+            if wl is not None and min(abs(wl - parsed[2]), abs(wl - _id_wavelength(parsed[2], medium))) > 0.0015:
                 raise _err(
                     f"{w} wavelength_nm",
                     f"wavelength_nm = {wl} contradicts the id {lid!r}",
@@ -523,11 +576,12 @@ def _parse_lines(items, src: str, measure: MeasureConfig) -> list[LineSpec]:
                         f"line {lid!r} is not in the line list",
                         "check the id, or give wavelength_nm (and element, ion) explicitly",
                     )
-                wl = found
+                wl = _id_wavelength(found, medium)  # the line list holds air wavelengths
         if element is None or ion is None or wl is None:
             raise _err(
                 w, "a line needs an id, or element + ion + wavelength_nm", 'add id = "Cu I 324.754" or the three keys'
             )
+        _check_species(element, ion, w)
         if lid is None:
             lid = make_line_id(element, ion, wl)
         if lid in seen:
@@ -573,9 +627,10 @@ def method_from_dict(data: dict, *, source: str = "<method>", sha256: str | None
     if not isinstance(version, (str, int)) or isinstance(version, bool):
         raise _err(f"{wm} version", f"expected text or a whole number, got {version!r}", 'write version = "1.0"')
     technique = _str(meta, "technique", wm, "LIBS", TECHNIQUES)
+    medium = _str(meta, "medium", wm, "air", MEDIA)
     pre = _parse_preprocess(data.get("preprocess", {}), source)
     measure = _parse_measure(data.get("measure", {}), source)
-    lines = _parse_lines(data.get("lines"), source, measure)
+    lines = _parse_lines(data.get("lines"), source, measure, medium)
     ids = {ln.line_id for ln in lines}
     if pre.normalise == "internal_standard" and pre.normalise_line not in ids:
         raise _err(
@@ -618,6 +673,7 @@ def method_from_dict(data: dict, *, source: str = "<method>", sha256: str | None
         path=None if source == "<method>" else source,
         sha256=sha256,
         raw=data,
+        medium=medium,
     )
 
 

@@ -11,13 +11,27 @@ from compquant.errors import OutputError
 from compquant.fileio import atomic_path
 
 
+def plain_text() -> None:
+    """Draw every text of every figure as plain text: no mathtext, no LaTeX.
+
+    Sample ids, line ids and names come from files; ``$\\foo$`` in one of them must print as
+    typed, not be parsed as mathtext (an unknown command would stop the figure). Labels that
+    are meant as mathematics ask for it with ``parse_math=True`` (compquant.cflibs.plots).
+    """
+    import matplotlib
+
+    matplotlib.rcParams["text.parse_math"] = False
+    matplotlib.rcParams["text.usetex"] = False
+
+
 def pyplot():
-    """``matplotlib.pyplot`` on the non-interactive Agg backend (no display needed)."""
+    """``matplotlib.pyplot`` on the non-interactive Agg backend (no display needed), plain text."""
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
+    plain_text()
     return plt
 
 
@@ -40,4 +54,4 @@ def save_png(fig, path, dpi: float | None = None) -> Path:
     return out
 
 
-__all__ = ["pyplot", "save_png"]
+__all__ = ["plain_text", "pyplot", "save_png"]

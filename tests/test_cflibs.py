@@ -211,11 +211,13 @@ def test_unphysical_slope_is_physics_error_not_nan():
     lt = cf_hand.line_table(W_TRUE, 11000.0, 3e16)
     # invert the Boltzmann plot: intensities rising with E_k (no finite positive T)
     lt["intensity"] = lt["intensity"] * np.exp(3.0 * lt["ek_ev"] / (cf_hand.KB_EV * 11000.0))
+    lt["u_intensity"] = 0.01 * lt["intensity"]  # keep the measurement's relative u
     with pytest.raises(PhysicsError):
         quiet(line_table=lt, atomic=cf_hand.atomic(), settings={"mc_draws": 0})
     # a very cold apparent plasma (600 K) is refused with a clear error, not NaN
     lt = cf_hand.line_table(W_TRUE, 11000.0, 3e16)
     lt["intensity"] = lt["intensity"] * np.exp(-lt["ek_ev"] * (1 / (cf_hand.KB_EV * 600.0)))
+    lt["u_intensity"] = 0.01 * lt["intensity"]
     with pytest.raises(PhysicsError, match="outside"):
         quiet(line_table=lt, atomic=cf_hand.atomic(), settings={"mc_draws": 0})
 
@@ -334,7 +336,11 @@ def test_assumed_stark_width_for_lines_without_data():
     got = {ln["line_id"]: ln["sa_factor"] for ln in r.lines}
     assert all(got[k] == pytest.approx(sa_true[k], rel=5e-3) for k in got)
     doppler_only = quiet(line_table=lt, atomic=cf_hand.atomic(), settings=base)
-    err = max(abs(doppler_only.element(e).mass_fraction / w - 1) for e, w in W_TRUE.items())
+    # the wrong absorption profile leaves the lines scattered far beyond their u: the solution is
+    # refused (fit_quality), and its uncertified values are indeed more than 1 % off
+    assert not doppler_only.plasma_consistent
+    assert [c["check"] for c in doppler_only.plasma_checks if c["checked"] and not c["passed"]] == ["fit_quality"]
+    err = max(abs(doppler_only.element(e).uncertified_mass_fraction / w - 1) for e, w in W_TRUE.items())
     assert err > 0.01
 
 

@@ -59,3 +59,16 @@ def test_cf_command_rejects_bad_cf_table(run_and_method):
                                     "-o", str(d / "x.csv")])
     assert res.exit_code == 2
     assert "unknown key" in res.output and "[cf]" in res.output
+
+
+def test_cf_failure_reason_is_shown_even_with_quiet(run_and_method):
+    # nₑ from H-alpha is asked for, but the run has no H I 656.28 nm line: every sample fails,
+    # and the reason reaches the user with --quiet too, in the one error line (nothing is written)
+    d = run_and_method
+    (d / "ha.toml").write_text(cf_synth.method_toml('ne_method = "h_alpha"\nmc_draws = 0\n'))
+    res = CliRunner().invoke(main, ["cf", str(d / "run.h5"), "--method", str(d / "ha.toml"),
+                                    "-o", str(d / "ha.csv"), "--quiet"])
+    assert res.exit_code == 2
+    err = res.output.split("error:")[-1]
+    assert res.output.count("error:") == 1 and "LOT-1" in err and "has no usable data" in err
+    assert not (d / "ha.csv").exists()

@@ -52,4 +52,4 @@ def test_day2_wavelength_drift_is_found():
     with Run.open(DEMO / "demo-day2.h5") as run:
         lm = measure_run(run, m, threads=2)
     assert lm.shifts.shift_nm.to_numpy() == pytest.approx(-0.008, abs=0.002)
-    assert not lm.table["flags"].str.contains("shifted").any()  # below flag_nm = 0.02 nm
+    assert not lm.table["flags"].str.contains("shifted").any()  # corrected centres within flag_nm = 0.02 nm

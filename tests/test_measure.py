@@ -140,8 +140,17 @@ def test_shift_found_corrected_and_flagged(tmp_path):
     assert sh.loc["B", "shift_nm"] == pytest.approx(0.025, abs=0.002)
     assert abs(sh.loc["A", "shift_nm"]) < 0.002
     t = lm.table
-    assert t[t.sample_id == "B"]["flags"].str.contains("shifted").all()
-    assert not t[t.sample_id == "A"]["flags"].str.contains("shifted").any()
+    # issue 16: after the correction the centres sit at table + shift, so no line is 'shifted';
+    # the sample's axis offset is reported in the shifts table instead
+    assert bool(sh.loc["B", "shifted"]) and not bool(sh.loc["A", "shifted"])
+    assert not t["flags"].str.contains("shifted").any()
+    with Run.open(p) as run:
+        raw = measure_run(run, method(preprocess={"baseline": {"method": "snip", "max_half_window": 25},
+                                                  "shift": {"method": "none", "flag_nm": 0.01}}))
+    # without correction, lines 0.025 nm off position (> flag_nm) are flagged
+    rt = raw.table
+    assert rt[rt.sample_id == "B"]["flags"].str.contains("shifted").all()
+    assert not rt[rt.sample_id == "A"]["flags"].str.contains("shifted").any()
     a = t[t.sample_id == "A"].intensity.to_numpy()
     b = t[t.sample_id == "B"].intensity.to_numpy()
     assert b == pytest.approx(a, rel=0.03)  # windows moved with the shift
@@ -210,7 +219,8 @@ def test_xcorr_shift_with_reference_file(tmp_path):
     with Run.open(p) as run:
         lm = measure_run(run, m)
     assert lm.shifts.shift_nm.iloc[0] == pytest.approx(-0.03, abs=0.002)
-    assert lm.table["flags"].str.contains("shifted").all()
+    assert lm.shifts.shifted.all()  # the sample's axis is off by more than one pixel
+    assert not lm.table["flags"].str.contains("shifted").any()  # corrected centres agree (issue 16)
 
 
 def test_pulse_energy_without_column_is_method_error(run_path):

@@ -191,7 +191,10 @@ def test_nan_in_spectra_is_a_finding(tmp_path):
     p = tmp_path / "nan.h5"
     write_run(p, wl, sp, samples, idx)
     f = validate_run(p)
-    assert any(x.level == "error" and "NaN" in x.message for x in f)
+    # issue 16: a NaN pixel is masked (never measured), reported with its pixel and shot
+    hit = [x for x in f if "masked" in x.message]
+    assert hit and hit[0].level == "warning"
+    assert "pixel 3 " in hit[0].message and "non-finite" in hit[0].message and "shot 0" in hit[0].message
 
 
 def test_writer_refuses_bad_input(tmp_path):

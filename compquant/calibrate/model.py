@@ -267,6 +267,7 @@ class Calibration:
             _check_types(cal, "calibration")
             for el, c in cal.curves.items():
                 _check_curve(c, f"curve {el}")
+                _check_curve_numbers(el, c, where)
             _check_settings(cal.settings)
             if cal.pls is not None:
                 _check_pls(cal.pls)
@@ -324,7 +325,7 @@ def _type_ok(value, annotation: str) -> bool:
             return True
         if alt in ("str", "list", "dict") and isinstance(value, {"str": str, "list": list, "dict": dict}[alt]):
             return True
-        if type(value).__name__ == alt:  # a nested dataclass already rebuilt (e.g. PLSConfig)
+        if type(value).__name__ == alt:  # a nested settings class (PLSConfig ...), checked on its own
             return True
     return False
 
@@ -360,6 +361,43 @@ def _check_curve(c: Curve, what: str) -> None:
         isinstance(it, dict) and isinstance(it.get("element"), str) for it in c.interferences
     ):
         raise TypeError(f"{what}: 'standards' / 'interferences' should be tables")
+
+
+def _check_curve_numbers(key: str, c: Curve, where: str) -> None:
+    """What a curve must hold to give a right answer: a known element, finite numbers, a
+    non-negative variance and a response that rises with the content over the calibrated range.
+
+    A slope at or below zero, a NaN or a negative variance makes every content from the curve
+    wrong or undefined (ISO 11095:1996, linear calibration: the inverse needs a non-zero slope;
+    a variance is never negative), so the file is refused when it is read, not after the work.
+    """
+    from compquant.atomic.elements import known_symbols
+
+    w = f"{where}: curve {key!r:.24}"
+    fix = "the calibration was edited or damaged; re-create it with 'compquant calibrate'"
+    if key != c.element or c.element not in known_symbols():
+        raise CalibrationError(f"curve element {c.element!r:.24} is not a chemical element symbol"
+                               + ("" if key == c.element else f" or differs from its key {key!r:.24}"),
+                               where=w, fix=fix)
+    nums = {"beta": c.beta, "cov": [x for r in c.cov for x in r], "cov_fit": [x for r in c.cov_fit for x in r],
+            "range_x": c.range_x, "scale": [c.scale], "sigma_m2": [c.sigma_m2]}
+    for name, vals in nums.items():
+        if not all(math.isfinite(float(v)) for v in vals):
+            raise CalibrationError(f"'{name}' holds NaN or infinite numbers", where=w, fix=fix)
+    p = len(c.terms)
+    variances = [c.cov[i][i] for i in range(p)] + [c.cov_fit[i][i] for i in range(p)] + [c.scale, c.sigma_m2]
+    if min(variances) < 0:
+        raise CalibrationError("a variance is negative (covariance diagonal, scale or sigma_m2)", where=w, fix=fix)
+    lo, hi = (float(v) for v in c.range_x)
+    if not hi >= lo:
+        raise CalibrationError(f"calibrated range {lo:g} to {hi:g} is reversed", where=w, fix=fix)
+    grid = np.linspace(lo, hi if hi > lo else lo + 1.0, 9)
+    xi = {it["element"]: 0.0 for it in c.interferences}
+    slopes = [float(slope_at(c.terms, c._beta(), float(x), xi)) for x in grid]
+    if not all(math.isfinite(v) and v > 0 for v in slopes):
+        bad = next(v for v in slopes if not (math.isfinite(v) and v > 0))
+        raise CalibrationError(f"the response does not rise with the content (slope {bad:.3g} within the "
+                               "calibrated range)", where=w, fix=fix)
 
 
 def _check_settings(settings: dict) -> None:

@@ -7,7 +7,7 @@ closure, Monte Carlo uncertainty.  See ``docs/calibration-free.md``.
 
 from __future__ import annotations
 
-from compquant.cflibs.analysis import CFWarning, analyse_cf, analyse_cf_samples
+from compquant.cflibs.analysis import CFWarning, analyse_cf, analyse_cf_samples, run_intensity_basis
 from compquant.cflibs.atomicdata import PackageAtomicData, TableAtomicData, default_atomic_data
 from compquant.cflibs.onepoint import OnePointCalibration, one_point_calibration
 from compquant.cflibs.result import CFResult, ElementResult, results_table
@@ -26,4 +26,5 @@ __all__ = [
     "default_atomic_data",
     "one_point_calibration",
     "results_table",
+    "run_intensity_basis",
 ]

@@ -24,6 +24,7 @@ from scipy.optimize import minimize_scalar
 from scipy.special import chdtrc
 
 from compquant.cflibs.atomicdata import default_atomic_data, species_name
+from compquant.cflibs.consistency import plasma_checks
 from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
 from compquant.cflibs.density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
 from compquant.cflibs.electron_density import FixedNe, HAlphaNe, StarkLinesNe
@@ -31,6 +32,7 @@ from compquant.cflibs.fitting import wls_batch
 from compquant.cflibs.lineset import LineSet, prepare_lines
 from compquant.cflibs.lte import check_lte
 from compquant.cflibs.result import CFResult, ElementResult
+from compquant.cflibs.screening import nondetection_conflicts, outlier_lines, too_few_lines
 from compquant.cflibs.selfabs import (
     EL_SHERBINI_ALPHA,
     sa_factor,
@@ -122,16 +124,28 @@ def _select_sample(line_table: pd.DataFrame, sample_id, where):
 class _Analysis:
     """State of one analysis; methods are the steps."""
 
-    def __init__(self, rows, sample_id, settings, atomic, acquisition, instrument, one_point, where):
+    def __init__(self, rows, sample_id, settings, atomic, acquisition, instrument, one_point, where,
+                 elements=None, drop=None, basis="energy"):
         self.s = settings
         self.atomic = atomic
         self.where = where
         self.sample_id = sample_id
         self.warnings: list[str] = []
         self.flags: list[str] = []
-        self.L, self.excluded, self.h_alpha = prepare_lines(rows, atomic, settings, where)
-        self.acq = acquisition or {}
         self.w_instr_fn = _instrument_width(settings, instrument or {}, self._warn)
+        self.elements_requested = settings.elements_for(sample_id) if elements is None else elements
+        self.L, self.excluded, self.h_alpha, self.nd = prepare_lines(
+            rows, atomic, settings, where, w_instr_fn=self.w_instr_fn, elements=self.elements_requested,
+            drop=drop)
+        if basis == "photon":  # photon radiance → energy radiance: I_E ∝ I_ph · hc/λ (§1)
+            f = 500.0 / self.L.wl
+            self.L.intensity, self.L.u_intensity = self.L.intensity * f, self.L.u_intensity * f
+            self.nd.intensity = self.nd.intensity * 500.0 / self.nd.wl
+        self.basis = basis
+        self.undetermined: dict[str, list[str]] = {}
+        self.rejected: list[dict] = []
+        self.upper_limit_checks: list[dict] = []
+        self.acq = acquisition or {}
         self.w_instr = self.w_instr_fn(self.L.wl)  # per line
         self.one_point = one_point
         self._apply_one_point()
@@ -146,6 +160,8 @@ class _Analysis:
         self.sa_info: dict = {"method": settings.self_absorption}
 
     def _warn(self, msg):
+        if msg in self.warnings:
+            return
         self.warnings.append(msg)
         warnings.warn(f"{self.where}: {msg}", CFWarning, stacklevel=3)
 
@@ -190,13 +206,38 @@ class _Analysis:
             for k in ("h_alpha", "stark"):
                 if k in cands:
                     return k, cands[k]
-            return "saha", None
+            if self.s.fit == "boltzmann" or Model(self.L, self.atomic, self.s).both_stage_elements:
+                return "saha", None
+            if "fixed" in cands:
+                self._warn("electron density from the method's fixed value: " + self.ne_missing())
+                return "fixed", cands["fixed"]
+            raise PhysicsError("electron density cannot be found: " + self.ne_missing(), where=self.where,
+                               fix="measure H I 656.28 nm or lines with Stark parameters, add ion lines of "
+                               "an element with neutral lines, or give [cf] ne_fixed_cm3")
         if m == "saha":
             return "saha", None
         if m not in cands:
             raise PhysicsError(f"electron density method {m!r} has no usable data", where=self.where,
                                fix="use ne_method = 'auto' or measure the needed line widths")
         return m, cands[m]
+
+    def ne_missing(self) -> str:
+        """What each electron-density route lacks, in words (for messages)."""
+        L = self.L
+        parts = []
+        parts.append("no usable H I 656.28 nm width" if self.h_alpha is None else
+                     "H I 656.28 nm not broader than instrument + Doppler")
+        have = np.isfinite(L.stark_w) & (L.stark_w > 0)
+        parts.append("no line with Stark parameters" if not np.any(have) else
+                     "no line with Stark parameters has a measured width above instrument + Doppler")
+        stages = {e: sorted(set(L.ion[L.element == e])) for e in sorted(set(L.element))}
+        both = [e for e, z in stages.items() if z == [1, 2]]
+        if not both:
+            desc = ", ".join(f"{e} {'/'.join('I' * z for z in zz)}" for e, zz in stages.items())
+            parts.append(f"no element with both neutral and ion lines ({desc})")
+        if self.s.ne_fixed_cm3 is None:
+            parts.append("no [cf] ne_fixed_cm3")
+        return "; ".join(parts)
 
     # -- central solve -----------------------------------------------------------------
     def solve_central(self, sa, ne_name, ne_est, T0=None) -> Solution:
@@ -293,8 +334,8 @@ class _Analysis:
     def drop_lines(self, mask, reason: str):
         """Remove lines (e.g. too optically thick to correct) and rebuild the model."""
         keep = ~np.asarray(mask)
-        for lid in self.L.line_id[~keep]:
-            self.excluded.append({"line_id": str(lid), "reason": reason})
+        for lid, el in zip(self.L.line_id[~keep], self.L.element[~keep]):
+            self.excluded.append({"line_id": str(lid), "element": str(el), "reason": reason})
         if not np.any(keep):
             raise DataQualityError("no line left after removing " + reason, where=self.where,
                                    fix="use weaker lines or a shorter plasma length")
@@ -305,6 +346,7 @@ class _Analysis:
         self.model = Model(self.L, self.atomic, self.s)
         for e in sorted(gone):
             self._warn(f"element {e}: no line left after removing lines ({reason})")
+            self.undetermined.setdefault(e, []).append(f"no line left after removing lines ({reason})")
 
     def iterate_cog(self, length_cm, ne_pick, max_iter=60, tol=1e-6, allow_drop=False):
         """Fixed point SA → (T, nₑ, composition) → τ₀ → SA for a slab of length ``length_cm``.
@@ -545,6 +587,11 @@ class _Analysis:
             self.drop_lines(mask, f"too optically thick (SA < {self.s.sa_min_factor})")
 
     def run(self, mc_draws, seed) -> CFResult:
+        self.solve()
+        return self.build(mc_draws, seed)
+
+    def solve(self):
+        """Plasma and line solution (T, nₑ, SA factors) of the current lines; no closure yet."""
         s = self.s
 
         def ne_pick(sa):
@@ -590,7 +637,7 @@ class _Analysis:
         self.sol = sol
         self.ne_name, self.ne_est = ne_name, ne_est
         self.tau = tau
-        return self.build(mc_draws, seed)
+        return sol
 
     def fit_length(self, ne_pick, coarse: bool = False):
         """Columnar density fit: plasma length L minimising the fit's χ² (Cristoforetti &
@@ -652,6 +699,21 @@ class _Analysis:
         self.sa_info.update(reference_lines=refs)
         ne_name, ne_est = ne_pick(sa)
         return sa, self.solve_central(sa, ne_name, ne_est), ne_name, ne_est
+
+    # -- robust closure ------------------------------------------------------------------
+    def screen(self):
+        """Rules 2 and 3 of :mod:`compquant.cflibs.screening` on the current solution:
+        ``(line_drops, element_drops)``, each mapping id → reason."""
+        sol = self.sol
+        ne_free = self.ne_est is None
+
+        def can_drop(mask):
+            return self._can_drop(mask, ne_free)
+
+        lines = outlier_lines(self.L, sol, self.u_y, self.s, can_drop)
+        checks, els = nondetection_conflicts(self.L, self.nd, self.model, sol, self.s)
+        self.upper_limit_checks = checks
+        return lines, els
 
     # -- detection -----------------------------------------------------------------------
     def detection(self, sol):
@@ -728,31 +790,40 @@ class _Analysis:
         if self.s.scale_by_chi2 and np.isfinite(birge) and birge > 1:
             # scatter beyond the stated u: spread it over the lines as extra ordinate noise
             extra = math.sqrt(birge - 1.0)
-        ln_i = np.log(I_d) - np.log(self.sa)[None, :] - self.ln_zeta[None, :]
+        ln_sa = np.log(self.sa)[None, :]
+        if self.s.self_absorption in ("curve_of_growth", "columnar", "reference_line") and self.s.mc_sa_u_rel:
+            # self-absorption model parameters (slab length, assumed widths, reference lines):
+            # one relative error per draw on every line's ln SA, correlated across lines
+            ln_sa = ln_sa * (1.0 + self.s.mc_sa_u_rel * rng.standard_normal((n, 1)))
+        ln_i = np.log(I_d) - ln_sa - self.ln_zeta[None, :]
+        if self.s.response_u_rel:
+            # spectral response within its stated relative u: an offset and a tilt across the lines
+            span = max(float(np.ptp(L.wl)), 1e-9)
+            t = 2.0 * (L.wl - float(np.min(L.wl))) / span - 1.0
+            e = rng.standard_normal((n, 2))
+            ln_i = ln_i + self.s.response_u_rel * (e[:, :1] + e[:, 1:2] * t[None, :]) / math.sqrt(2.0)
         if extra:
             ln_i = ln_i + extra * self.u_y[None, :] * rng.standard_normal((n, L.n))
         ne_f = None if self.ne_est is None else self.ne_est.sampler(rng, n)
-        sol = self.model.solve(ln_i, dln_a, self.w[None, :], ne_f,
-                               T0=np.full(n, float(self.sol.T[0])), strict=False)
+        if self.s.mc_partition_u_rel:
+            self.model.ln_u_shift = {sp: self.s.mc_partition_u_rel * rng.standard_normal(n)
+                                     for e in self.model.elements for sp in
+                                     (species_name(e, 1), species_name(e, 2), species_name(e, 3))}
+        try:
+            sol = self.model.solve(ln_i, dln_a, self.w[None, :], ne_f,
+                                   T0=np.full(n, float(self.sol.T[0])), strict=False)
+        finally:
+            self.model.ln_u_shift = None
         return sol
 
     # -- result --------------------------------------------------------------------------
-    def build(self, mc_draws, seed) -> CFResult:
-        s, L, sol = self.s, self.L, self.sol
-        T = float(sol.T[0])
-        ne = float(sol.ne[0])
-        k_b = K_B_EV
-        u_T_fit = float(sol.u_slope[0] / (k_b * sol.slope[0] ** 2))
-        if sol.ne_from_fit:
-            u_ln_ne_c = float(sol.u_ln_ne_fit[0])
-        else:
-            u_ln_ne_c = float(self.ne_est.u_ln(np.array([T])))
+    def _mc_summary(self, mc_draws, seed, u_T, u_ne):
+        """Monte Carlo standard deviations and intervals: ``(u_T, u_ne, u_w, u_x, summary, ok)``."""
+        s, sol = self.s, self.sol
         mc = {"draws": int(mc_draws), "seed": int(seed), "aki_perturbed": bool(s.mc_include_aki)}
         u_w = np.full(len(sol.elements), np.nan)
         u_x = np.full(len(sol.elements), np.nan)
-        u_T, u_ne = u_T_fit, ne * u_ln_ne_c
         mc_ok = mc_draws >= 10
-        fixed_el = next(iter(s.fixed), None)
         if mc_ok:
             msol = self.monte_carlo(mc_draws, seed)
             v = msol.valid
@@ -776,11 +847,32 @@ class _Analysis:
                 )
             else:
                 mc_ok = False
+        return u_T, u_ne, u_w, u_x, mc, mc_ok
+
+    def build(self, mc_draws, seed) -> CFResult:
+        s, L, sol = self.s, self.L, self.sol
+        T = float(sol.T[0])
+        ne = float(sol.ne[0])
+        k_b = K_B_EV
+        u_T_fit = float(sol.u_slope[0] / (k_b * sol.slope[0] ** 2))
+        if sol.ne_from_fit:
+            u_ln_ne_c = float(sol.u_ln_ne_fit[0])
+        else:
+            u_ln_ne_c = float(self.ne_est.u_ln(np.array([T])))
+        fixed_el = next(iter(s.fixed), None)
+        u_T, u_ne, u_w, u_x, mc, mc_ok = self._mc_summary(mc_draws, seed, u_T_fit, ne * u_ln_ne_c)
         if not mc_ok:
             mc["note"] = "no Monte Carlo: u from the fit covariance for T and nₑ only"
             self.flags.append("no_concentration_uncertainty")
         wfrac, closure_sum = self._apply_fixed(sol.mass_fraction, sol.elements)
         wfrac = wfrac[0]
+        share = float(sum(getattr(self, "missing_share", {}).values()))
+        if share > 0 and not fixed_el and mc_ok:
+            # elements removed from the closure: the others are high by their share, at most
+            # `share`; rectangular over [0, share] read with half-width `share` (GUM 4.3.7),
+            # a conservative term added to every u
+            u_w = np.sqrt(u_w**2 + (wfrac * share / math.sqrt(3.0)) ** 2)
+            mc["missing_share_bound"] = dict(self.missing_share)
         # LTE
         dE = float(np.max(L.ek - L.ei))
         lte = check_lte(T, ne, dE, gate_delay_s=_gate_delay_s(self.acq),
@@ -811,29 +903,24 @@ class _Analysis:
                 fl.append("no_one_point_factor")
             if e == fixed_el:
                 fl.append("fixed_content")
-            elements.append(ElementResult(
+            er = ElementResult(
                 element=e, mass_fraction=float(wfrac[j]), u=float(u_w[j]) if e != fixed_el else 0.0,
                 number_fraction=float(sol.number_fraction[0, j]), u_number_fraction=float(u_x[j]),
                 n_lines=int(len(idx)), lines=[str(x) for x in L.line_id[idx]], flags=fl,
-                fixed=e == fixed_el))
-        requested = (s.elements or []) + ([fixed_el] if fixed_el else [])
-        for e in dict.fromkeys(requested):
-            if e in sol.elements or e in s.exclude_elements:
-                continue
-            if e == fixed_el:
-                elements.append(ElementResult(e, float(s.fixed[e]), 0.0, float("nan"), float("nan"),
-                                              0, [], ["fixed_content"], True))
-                continue
-            if s.missing == "error":
-                raise DataQualityError(f"element {e} has no usable lines", where=self.where,
-                                       fix="add lines for it, or set [cf] missing = 'omit'")
-            self._warn(f"element {e} has no usable lines: left out of the closure")
-            elements.append(ElementResult(e, float("nan"), float("nan"), float("nan"), float("nan"),
-                                          0, [], ["no_usable_lines"], False))
+                fixed=e == fixed_el)
+            if e in self.undetermined and e != fixed_el:
+                er.uncertified_mass_fraction = er.mass_fraction
+                er.mass_fraction, er.u = float("nan"), float("nan")
+                er.determined, er.reasons = False, list(self.undetermined[e])
+                er.flags.append("not_determined")
+            elements.append(er)
+        elements += self._undetermined_rows(sol, fixed_el)
         if fixed_el:
             self.sa_info.setdefault("note", "")
         ne_estimates = self._ne_estimates(T)
         species_rows = self._species_rows(sol)
+        checks, failed, ne_agreement = self._certify(T, u_T_fit, ne, u_ne, ne_estimates, lte, species_rows,
+                                                     elements, p, fit, dof)
         return CFResult(
             sample_id=self.sample_id, temperature_k=T, u_temperature_k=float(u_T),
             electron_density_cm3=ne, u_electron_density_cm3=float(u_ne),
@@ -851,8 +938,76 @@ class _Analysis:
             monte_carlo=mc,
             one_point=None if self.one_point is None else self.one_point.summary(),
             flags=list(dict.fromkeys(self.flags)), warnings=list(self.warnings),
-            settings=s.to_dict(),
+            settings=s.to_dict(), plasma_consistent=not failed, plasma_checks=checks,
+            rejected_lines=list(self.rejected), upper_limits=list(self.upper_limit_checks),
+            ne_agreement=ne_agreement, intensity_basis=self.basis,
         )
+
+    def _certify(self, T, u_T_fit, ne, u_ne, ne_estimates, lte, species_rows, elements, p, fit, dof):
+        """Plasma checks (§4a); a failed one un-determines every element. Returns
+        ``(checks, failed, ne_agreement)``."""
+        s = self.s
+        # the temperature checks compare line sets of one solution: the joint T's own fit u, not
+        # the Monte Carlo u that also carries the model inputs those line sets share
+        checks, failed = plasma_checks(T=T, u_T=u_T_fit, ne=ne, u_ln_ne=u_ne / ne if ne > 0 else float("nan"),
+                                       ne_used=self.ne_name, ne_estimates=ne_estimates, lte=lte.to_dict(),
+                                       species=species_rows, sa_info=self.sa_info, settings=s,
+                                       fit={"birge_ratio": float(fit.birge[0]) if dof > 0 else None,
+                                            "p_value": p},
+                                       thin=self.thin_subset_temperature())
+        if any(c["check"] == "species_temperatures" and c["checked"] and not c["passed"] for c in checks):
+            self.flags.append("species_temperatures_disagree")
+        if failed:
+            self.flags.append("plasma_inconsistent")
+            notes = "; ".join(f"{c['check']}: {c['note'] or c['value']}" for c in checks if c["check"] in failed)
+            self._warn(f"plasma solution failed {', '.join(failed)} ({notes}): no mass fraction certified")
+            for el in elements:
+                if el.determined and not el.fixed:
+                    el.uncertified_mass_fraction = el.mass_fraction
+                    el.mass_fraction, el.u = float("nan"), float("nan")
+                    el.determined = False
+                    el.reasons.append("plasma solution failed: " + ", ".join(failed))
+                    el.flags.append("not_determined")
+        route = next(c for c in checks if c["check"] == "ne_routes")
+        ne_agreement = {"routes": [{"method": x["method"], "ne_cm3": x.get("ne_cm3"), "u_ne_cm3": x.get("u_ne_cm3"),
+                                    "used": x.get("used")} for x in ne_estimates],
+                        "compared": route["checked"], "consistent": route["passed"],
+                        "max_ratio": route["value"], "note": route["note"]}
+        return checks, failed, ne_agreement
+
+    def _undetermined_rows(self, sol, fixed_el):
+        """Rows of requested, fixed, rejected or all-lines-failed elements not in the closure."""
+        s = self.s
+        requested = list(self.elements_requested or []) + ([fixed_el] if fixed_el else [])
+        requested += list(self.undetermined)
+        failed_el: dict[str, list[str]] = {}
+        for x in self.excluded:
+            el = x.get("element")
+            if (el and el not in sol.elements and el not in s.exclude_elements
+                    and (self.elements_requested is None or el in self.elements_requested)):
+                failed_el.setdefault(el, []).append(f"{x['line_id']}: {x['reason']}")
+        requested += list(failed_el)
+        out = []
+        nan = float("nan")
+        for e in dict.fromkeys(requested):
+            if e in sol.elements or e in s.exclude_elements:
+                continue
+            if e == fixed_el:
+                out.append(ElementResult(e, float(s.fixed[e]), 0.0, nan, nan, 0, [], ["fixed_content"], True))
+                continue
+            reasons = list(self.undetermined.get(e, []))
+            flags = ["not_determined"]
+            if not reasons:
+                if s.missing == "error":
+                    raise DataQualityError(f"element {e} has no usable lines", where=self.where,
+                                           fix="add lines for it, or set [cf] missing = 'omit'")
+                why = failed_el.get(e, [])
+                self._warn(f"element {e} has no usable lines: left out of the closure")
+                reasons = ["no usable line" + (": " + "; ".join(why[:6]) if why else " in the line table")]
+                flags.append("no_usable_lines")
+            out.append(ElementResult(e, nan, nan, nan, nan, 0, [], flags, False, determined=False,
+                                     reasons=reasons))
+        return out
 
     def _apply_fixed(self, wfrac, elements):
         """Fixed content of one element: scale (element measured) or close to 1 − w_fixed."""
@@ -934,6 +1089,27 @@ class _Analysis:
                             "used": False, "note": exc.what})
         return out
 
+    def thin_subset_temperature(self):
+        """T (and its fit u) from the nearly thin lines alone (SA ≥ ``sa_flag_below``), for the
+        self-absorption fits: evidence that does not rest on the slab model (§4a); ``None``
+        when those lines cannot determine T."""
+        if self.s.self_absorption not in ("columnar", "curve_of_growth"):
+            return None
+        keep = self.sa >= self.s.sa_flag_below
+        if keep.sum() < 3 or keep.all():
+            return None
+        try:
+            sub = Model(self.L.subset(keep), self.atomic, self.s)
+            ln_i = (np.log(self.L.intensity) - np.log(self.sa) - self.ln_zeta)[keep]
+            sol = sub.solve(ln_i[None], 0.0, self.w[keep], self.ne_est, strict=True,
+                            T0=np.array([float(self.sol.T[0])]))
+        except (PhysicsError, AtomicDataError):
+            return None
+        T = float(sol.T[0])
+        u = float(sol.u_slope[0] / (K_B_EV * sol.slope[0] ** 2))
+        return {"temperature_k": T, "u_temperature_k": u, "n_lines": int(keep.sum()),
+                "lines": [str(x) for x in self.L.line_id[keep]]}
+
     def _species_rows(self, sol):
         """Per-species Boltzmann plots (own slope) as a diagnostic beside the joint fit."""
         L = self.L
@@ -970,6 +1146,7 @@ def analyse_cf(
     mc_draws: int | None = None,
     seed: int | None = None,
     where: str | None = None,
+    intensity_basis: str | None = None,
 ) -> CFResult:
     """Calibration-free composition of one sample.
 
@@ -986,6 +1163,9 @@ def analyse_cf(
         check; instrumental FWHM for width-based nₑ).
     one_point : a :class:`~compquant.cflibs.onepoint.OnePointCalibration` to apply.
     mc_draws, seed : override the settings' Monte Carlo draws and seed.
+    intensity_basis : ``"energy"`` or ``"photon"``: the basis of the run's response curve (run
+        attribute ``response_basis``); ``[cf] response_basis`` overrides it; ``"unknown"`` is
+        refused.  Photon-basis intensities are converted to energy (× hc/λ).
     """
     s = CFSettings.from_section(settings) if not isinstance(settings, CFSettings) else settings
     sid, rows = _select_sample(line_table, sample_id, where or "line table")
@@ -996,11 +1176,110 @@ def analyse_cf(
         import dataclasses
 
         s = dataclasses.replace(s, self_absorption="detect")
-    a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where)
+    basis = _intensity_basis(s, intensity_basis, where)
+    a = _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis)
     if double:
         a._warn("one-point calibration applied: self-absorption correction switched to detection only "
                 "(the factors already carry the standard's self-absorption)")
-    return a.run(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
+    return a.build(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
+
+
+def _missing_share_bound(e, w_est, checks, s) -> float:
+    """Upper bound (g/g) of the share of an element removed from the closure.
+
+    Contradicted non-detections scale the element's estimate down by its largest
+    predicted/limit ratio (its content cannot exceed what keeps every non-detected line below
+    its limit; the estimate is scaled relative to the rest of the sample, w/(1 − w), as the
+    closure does); otherwise (a weak element removed for its size) ``weak_element_closure_max``.
+    """
+    ratios = [c["ratio"] for c in checks if c["element"] == e and c["contradicted"]]
+    if ratios and 0.0 < w_est < 1.0:
+        # the lines scale with the element's content relative to the rest of the sample
+        x = w_est / (1.0 - w_est) / max(ratios)
+        return float(x / (1.0 + x))
+    return float(s.weak_element_closure_max)
+
+
+def _intensity_basis(s, given, where) -> str:
+    """Basis of the line intensities: ``[cf] response_basis`` wins over the run's attribute.
+
+    ``None`` (the run does not say) is taken as energy — compquant's convention — when the run
+    carries no response curve; a run whose response curve has no stated basis is refused
+    (``"unknown"``): a photon-basis curve read as energy biases T by tens of per cent."""
+    basis = s.response_basis or given or "energy"
+    if basis not in ("energy", "photon"):
+        raise InputError(f"the run's response curve has an unknown basis ({basis!r})", where=where,
+                         fix="record response_basis = 'photon' or 'energy' in the run (compquant convert "
+                         "--response-basis), or set [cf] response_basis in the method")
+    return basis
+
+
+def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis):
+    """Solve, apply the robust-closure rules, re-solve until nothing changes (≤ 12 rounds)."""
+    drop: dict[str, str] = {}
+    undetermined: dict[str, list[str]] = {}
+    rejected: list[dict] = []
+    limits: dict[str, dict] = {}  # non-detection checks of every round (dropped elements keep theirs)
+    missing: dict[str, float] = {}  # upper bound of the share of each element removed from the closure
+    elements = s.elements_for(sid)
+    for _ in range(12):
+        a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where,
+                      elements=elements, drop=drop, basis=basis)
+        few = too_few_lines(a.L, s)
+        a.solve()
+        line_drops, el_drops = a.screen()
+        limits.update({c["line_id"]: c for c in a.upper_limit_checks})
+        # rule 1: a weakly measured element stays in the closure (value not reported) unless the
+        # non-detections contradict it or its estimate is too large for a weak signal
+        w_now = dict(zip(a.sol.elements, a.sol.mass_fraction[0]))
+        for e, why in few.items():
+            if e not in el_drops and w_now.get(e, 0.0) > s.weak_element_closure_max \
+                    and len(few) < len(set(a.L.element)):
+                el_drops[e] = (f"{why}; its unreported estimate {w_now[e]:.3g} g/g is above "
+                               f"weak_element_closure_max = {s.weak_element_closure_max:g}: removed from the closure")
+        if not line_drops and not el_drops:
+            break
+        for lid, why in line_drops.items():
+            drop[lid] = why
+            rejected.append({"line_id": lid, "element": str(a.L.element[a.L.line_id == lid][0]), "reason": why})
+        for e, why in el_drops.items():
+            undetermined.setdefault(e, []).append(why)
+            for lid in a.L.line_id[a.L.element == e]:
+                drop[str(lid)] = f"element {e} not determined (non-detections)"
+            missing[e] = _missing_share_bound(e, w_now.get(e, 0.0), a.upper_limit_checks, s)
+    else:
+        a._warn("robust closure did not settle in 12 rounds")
+    for e, why in few.items():
+        if e not in undetermined:
+            undetermined[e] = [why + "; kept in the closure, its value not reported"]
+    for e, why in undetermined.items():
+        a.undetermined[e] = list(dict.fromkeys(why))
+    gone = sorted(e for e in undetermined if e not in set(a.L.element))
+    if gone:  # their share is missing from the closure: every other value is an upper estimate
+        a.flags.append("closure_incomplete")
+        a.missing_share = {e: missing[e] for e in gone if e in missing}
+        a._warn("closure without " + ", ".join(gone) + " (not determined): the other mass fractions "
+                "are too high by their share, at most " + ", ".join(
+                    f"{e} {v:.3g}" for e, v in a.missing_share.items()) + " g/g (in their U)")
+    a.rejected = rejected
+    a.upper_limit_checks = list(limits.values())
+    return a
+
+
+def run_intensity_basis(method, run) -> str | None:
+    """Basis of a run's response-corrected line intensities, for ``analyse_cf(intensity_basis=...)``:
+    ``"photon"``, ``"energy"``, ``None`` (no response correction: counts, taken as compquant's
+    energy convention) or ``"unknown"``
+    (a response is applied whose basis nobody recorded — refused by the analysis unless
+    ``[cf] response_basis`` says it)."""
+    pre = method.preprocess
+    if not pre.response:
+        return None
+    if pre.response_file:
+        return "unknown"
+    if run.response() is None:
+        return None
+    return run.response_basis or "unknown"
 
 
 def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unknown", "check"),
@@ -1026,4 +1305,4 @@ def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unk
     return results, failures
 
 
-__all__ = ["CFWarning", "analyse_cf", "analyse_cf_samples", "species_name", "LineSet"]
+__all__ = ["CFWarning", "LineSet", "analyse_cf", "analyse_cf_samples", "run_intensity_basis", "species_name"]

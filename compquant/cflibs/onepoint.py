@@ -23,7 +23,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from compquant.cflibs.analysis import _Analysis, _select_sample
+from compquant.cflibs.analysis import _Analysis, _intensity_basis, _select_sample
 from compquant.cflibs.atomicdata import default_atomic_data, species_name
 from compquant.cflibs.constants import K_B_EV, LN_SAHA_PREFACTOR
 from compquant.cflibs.settings import CFSettings
@@ -58,7 +58,7 @@ class OnePointCalibration:
 
 def one_point_calibration(line_table, certified: dict[str, float], *, sample_id: str | None = None,
                           settings=None, atomic=None, acquisition=None, instrument=None,
-                          where: str | None = None) -> OnePointCalibration:
+                          where: str | None = None, intensity_basis: str | None = None) -> OnePointCalibration:
     """Derive per-line correction factors from one certified standard (see module docstring).
 
     ``certified`` maps element → certified mass fraction (g/g).  Lines of elements not
@@ -73,7 +73,8 @@ def one_point_calibration(line_table, certified: dict[str, float], *, sample_id:
     if not certified:
         raise CalibrationError("no certified values for the one-point standard", where=where,
                                fix="give the standard's certified mass fractions")
-    a = _Analysis(rows, sid, s, atomic, acquisition, instrument, None, where)
+    basis = _intensity_basis(s, intensity_basis, where)  # the same conversion as the unknowns'
+    a = _Analysis(rows, sid, s, atomic, acquisition, instrument, None, where, basis=basis)
     res = a.run(0, s.seed)
     T, ne = res.temperature_k, res.electron_density_cm3
     L, model = a.L, a.model

@@ -41,8 +41,8 @@ def plot_boltzmann(result, path, dpi: int = 110) -> None:
         if row.get("slope_per_ev") is not None:
             xx = np.linspace(x.min() - 0.2, x.max() + 0.2, 2)
             ax.plot(xx, row["intercept"] + row["slope_per_ev"] * xx, "-", color=c, lw=1)
-    ax.set_xlabel("upper-level energy $E_k$ (eV)")
-    ax.set_ylabel(r"$\ln(I\lambda / g_k A_{ki})$")
+    ax.set_xlabel("upper-level energy $E_k$ (eV)", parse_math=True)
+    ax.set_ylabel(r"$\ln(I\lambda / g_k A_{ki})$", parse_math=True)
     ax.set_title(f"Boltzmann plot, sample {result.sample_id}", fontsize=10)
     ax.legend(fontsize=7)
     fig.tight_layout()
@@ -79,8 +79,9 @@ def plot_saha_boltzmann(result, path, dpi: int = 110) -> None:
             xx = np.linspace(x.min() - 0.3, x.max() + 0.3, 2)
             ax.plot(xx, inter[g] + m * xx, "-", color=c, lw=1)
     T = result.temperature_k
-    ax.set_xlabel("$E_k$ (+ ionisation energy for ion lines) (eV)" if sb else "$E_k$ (eV)")
-    ax.set_ylabel(r"$\ln(I\lambda/g_kA_{ki})$ (ion lines − Saha term)" if sb else r"$\ln(I\lambda/g_kA_{ki})$")
+    ax.set_xlabel("$E_k$ (+ ionisation energy for ion lines) (eV)" if sb else "$E_k$ (eV)", parse_math=True)
+    ax.set_ylabel(r"$\ln(I\lambda/g_kA_{ki})$ (ion lines − Saha term)" if sb else r"$\ln(I\lambda/g_kA_{ki})$",
+                  parse_math=True)
     ax.set_title(f"{'Saha–Boltzmann' if sb else 'Joint Boltzmann'} plot, sample {result.sample_id}: "
                  f"T = {T:.0f} ± {result.u_temperature_k:.0f} K, "
                  f"nₑ = {result.electron_density_cm3:.2e} cm⁻³ ({result.ne_method})", fontsize=9)

@@ -38,6 +38,12 @@ class ElementResult:
     lines: list[str]
     flags: list[str] = field(default_factory=list)
     fixed: bool = False
+    #: False: no mass fraction is reported (robust-closure rules, failed measurements or an
+    #: inconsistent plasma solution); ``reasons`` says why (docs/calibration-free.md §5a)
+    determined: bool = True
+    reasons: list[str] = field(default_factory=list)
+    #: the closure's value before the plasma checks refused it (diagnosis only, never reported)
+    uncertified_mass_fraction: float | None = None
 
 
 @dataclass
@@ -64,6 +70,17 @@ class CFResult:
     flags: list[str] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
     settings: dict = field(default_factory=dict)
+    #: False when the plasma solution failed a physical check (``plasma_checks``): no mass
+    #: fraction of the sample is certified (flag ``plasma_inconsistent``)
+    plasma_consistent: bool = True
+    plasma_checks: list[dict] = field(default_factory=list)
+    #: lines rejected by the robust closure (outliers), with reasons
+    rejected_lines: list[dict] = field(default_factory=list)
+    #: non-detected lines used as upper limits: prediction, limit, contradicted
+    upper_limits: list[dict] = field(default_factory=list)
+    #: agreement of the electron-density routes (``ne_estimates``)
+    ne_agreement: dict = field(default_factory=dict)
+    intensity_basis: str = "energy"
     k: float = 2.0
     schema: str = SCHEMA
 
@@ -77,14 +94,22 @@ class CFResult:
                 return e
         raise KeyError(symbol)
 
+    def not_determined(self) -> dict[str, list[str]]:
+        """Elements with no reported mass fraction → reasons (for the release rule)."""
+        return {e.element: list(e.reasons) for e in self.elements if not e.determined}
+
     def results_table(self) -> pd.DataFrame:
-        """Rows of the results-table contract (basis ``"cf"``; lod/loq not defined → NaN)."""
+        """Rows of the results-table contract (basis ``"cf"``; lod/loq not defined → NaN).
+
+        Elements that are not determined have NaN mass fraction and u and the flag
+        ``not_determined``."""
         rows = []
         for e in self.elements:
             fl = list(dict.fromkeys([*self.flags, *e.flags]))
+            w, u = (e.mass_fraction, e.u) if e.determined else (np.nan, np.nan)
             rows.append({
                 "sample_id": self.sample_id, "element": e.element,
-                "mass_fraction": e.mass_fraction, "u": e.u, "U": self.k * e.u, "k": self.k,
+                "mass_fraction": w, "u": u, "U": self.k * u, "k": self.k,
                 "lod": np.nan, "loq": np.nan, "below_lod": False, "flags": ";".join(fl),
                 "basis": "cf", "line_id": ";".join(e.lines),
             })
@@ -102,10 +127,23 @@ class CFResult:
                 "u_T_K": self.u_temperature_k, "T_species_K": sp.get("temperature_k"),
                 "ne_cm3": self.electron_density_cm3, "u_ne_cm3": self.u_electron_density_cm3,
                 "ne_method": self.ne_method,
-                "mass_fraction": e.mass_fraction if e else np.nan,
-                "U": self.k * e.u if e else np.nan,
+                "mass_fraction": e.mass_fraction if e and e.determined else np.nan,
+                "U": self.k * e.u if e and e.determined else np.nan,
                 "flags": ";".join(dict.fromkeys([*self.flags, *(e.flags if e else [])])),
+                "reason": "; ".join(e.reasons) if e else "",
             })
+        done = {sp["element"] for sp in self.species}
+        for e in self.elements:  # elements with no line in the fit: one row with the reason
+            if e.element in done:
+                continue
+            rows.append({"sample_id": self.sample_id, "species": e.element, "n_lines": 0, "lines": "",
+                         "T_K": self.temperature_k, "u_T_K": self.u_temperature_k, "T_species_K": np.nan,
+                         "ne_cm3": self.electron_density_cm3, "u_ne_cm3": self.u_electron_density_cm3,
+                         "ne_method": self.ne_method,
+                         "mass_fraction": e.mass_fraction if e.determined else np.nan,
+                         "U": self.k * e.u if e.determined else np.nan,
+                         "flags": ";".join(dict.fromkeys([*self.flags, *e.flags])),
+                         "reason": "; ".join(e.reasons)})
         return pd.DataFrame(rows)
 
     # -- serialisation -------------------------------------------------------------------

@@ -15,6 +15,7 @@ FIT_MODES = ("saha-boltzmann", "boltzmann")
 NE_METHODS = ("auto", "h_alpha", "stark", "saha", "fixed")
 SA_METHODS = ("none", "detect", "curve_of_growth", "columnar", "reference_line")
 MISSING = ("omit", "error")
+BASES = ("energy", "photon")
 
 
 @dataclass
@@ -60,9 +61,40 @@ class CFSettings:
     gradient_length_mm: float | None = None
     one_point_standard: str | None = None
     standards_file: str | None = None
+    # robust closure and failed measurements (docs/calibration-free.md §5a)
+    elements_by_sample: dict[str, list[str]] = field(default_factory=dict)
+    min_lines_per_element: int = 2
+    single_line_min_snr: float = 10.0
+    weak_element_closure_max: float = 0.2
+    outlier_sigma: float = 4.0
+    upper_limit_sigma: float = 3.0
+    collapsed_fwhm_fraction: float = 0.5
+    max_line_fwhm_nm: float | None = None
+    # plausibility of the plasma solution (§4a)
+    ne_agreement_factor: float = 2.0
+    t_species_tolerance: float = 0.07
+    t_thin_tolerance: float = 0.03
+    sa_fit_p_min: float = 0.001
+    plausible_length_mm: list[float] = field(default_factory=lambda: [0.01, 5.0])
+    plausible_ne_cm3: list[float] = field(default_factory=lambda: [1.0e14, 1.0e19])
+    # Monte Carlo inputs beyond intensities and A_ki (§8)
+    mc_partition_u_rel: float = 0.03
+    mc_sa_u_rel: float = 0.2
+    response_u_rel: float = 0.0
+    response_basis: str | None = None
 
     def to_dict(self) -> dict:
         return asdict(self)
+
+    def elements_for(self, sample_id: str) -> list[str] | None:
+        """Element list of one sample: the first ``elements_by_sample`` pattern (shell-style,
+        :func:`fnmatch.fnmatchcase`) that matches the sample id, else ``elements``."""
+        from fnmatch import fnmatchcase
+
+        for pattern, els in self.elements_by_sample.items():
+            if fnmatchcase(str(sample_id), pattern):
+                return list(els)
+        return self.elements
 
     @classmethod
     def from_section(cls, section: dict | None, where: str = "[cf]") -> CFSettings:
@@ -100,6 +132,14 @@ class CFSettings:
             raise MethodError(f"missing must be one of {MISSING}", where=f"{where}.missing", fix="pick one")
         if out.t_min_k >= out.t_max_k:
             raise MethodError("t_min_k must be below t_max_k", where=where, fix="fix the range")
+        if out.response_basis is not None and out.response_basis not in BASES:
+            raise MethodError(f"response_basis must be one of {BASES}", where=f"{where}.response_basis",
+                              fix="'energy' (radiance in W) or 'photon' (photon radiance)")
+        for key in ("plausible_length_mm", "plausible_ne_cm3"):
+            lo_hi = getattr(out, key)
+            if len(lo_hi) != 2 or not (0 < lo_hi[0] < lo_hi[1]):
+                raise MethodError("expected [low, high] with 0 < low < high", where=f"{where}.{key}",
+                                  fix="e.g. [0.01, 5.0]")
         if len(out.fixed) > 1:
             raise MethodError("at most one element's content can be fixed", where=f"{where}.fixed",
                               fix="keep one element in [cf.fixed]")
@@ -112,11 +152,14 @@ class CFSettings:
 
 _FLOAT_POS = {"ne_fixed_u_rel", "u_rel_fwhm", "h_alpha_relation_u_rel", "stark_param_u_rel",
               "u_rel_floor", "t_start_k", "t_min_k", "t_max_k", "lte_f", "lte_gaunt",
-              "lte_transient_ratio", "lte_diffusion_ratio"}
+              "lte_transient_ratio", "lte_diffusion_ratio", "single_line_min_snr", "outlier_sigma",
+              "upper_limit_sigma", "ne_agreement_factor", "t_species_tolerance",
+              "t_thin_tolerance", "sa_fit_p_min"}
 _FLOAT_POS_OPT = {"ne_fixed_cm3", "plasma_length_mm", "gradient_length_mm", "resolving_power",
-                  "stark_fallback_fwhm_nm", "stark_fallback_ne_cm3"}
+                  "stark_fallback_fwhm_nm", "stark_fallback_ne_cm3", "max_line_fwhm_nm"}
 _FLOAT_NONNEG_OPT = {"instrument_fwhm_nm"}
-_FRACTION = {"sa_flag_below", "sa_min_factor"}
+_FRACTION = {"sa_flag_below", "sa_min_factor", "collapsed_fwhm_fraction", "weak_element_closure_max"}
+_NONNEG = {"mc_partition_u_rel", "mc_sa_u_rel", "response_u_rel"}
 
 
 def _num(val, where):
@@ -136,7 +179,26 @@ def _check(key, val, where):
         return None if val is None else _strlist(val, where)
     if key in ("exclude_elements", "exclude_flags"):
         return _strlist(val, where)
-    if key in ("fit", "ne_method", "self_absorption", "missing", "one_point_standard", "standards_file"):
+    if key == "elements_by_sample":
+        if not isinstance(val, dict):
+            raise MethodError("expected a table sample-id pattern = list of elements", where=where,
+                              fix='[cf.elements_by_sample] "MG-*" = ["Mg", "Al", "Zn", "Mn"]')
+        return {str(k): _strlist(v, f"{where}.{k}") for k, v in val.items()}
+    if key in ("plausible_length_mm", "plausible_ne_cm3"):
+        if not isinstance(val, list):
+            raise MethodError("expected [low, high]", where=where, fix="e.g. [0.01, 5.0]")
+        return [_num(v, where) for v in val]
+    if key == "min_lines_per_element":
+        if isinstance(val, bool) or not isinstance(val, int) or val < 1:
+            raise MethodError("expected a whole number ≥ 1", where=where, fix="e.g. 2")
+        return int(val)
+    if key in _NONNEG:
+        v = _num(val, where)
+        if v < 0:
+            raise MethodError("must be ≥ 0", where=where, fix="a relative standard uncertainty, e.g. 0.03")
+        return v
+    if key in ("fit", "ne_method", "self_absorption", "missing", "one_point_standard", "standards_file",
+               "response_basis"):
         if not isinstance(val, str):
             raise MethodError("expected text", where=where, fix="quote the value")
         return val
@@ -181,4 +243,4 @@ def _check(key, val, where):
     raise MethodError(f"unknown key {key!r}", where=where, fix="see docs/calibration-free.md")
 
 
-__all__ = ["CFSettings", "FIT_MODES", "MISSING", "NE_METHODS", "SA_METHODS"]
+__all__ = ["BASES", "CFSettings", "FIT_MODES", "MISSING", "NE_METHODS", "SA_METHODS"]

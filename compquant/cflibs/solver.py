@@ -102,6 +102,8 @@ class Model:
             {e for e in self.elements if (1 in set(lines.ion[lines.element == e]))
              and (2 in set(lines.ion[lines.element == e]))})
         self.y0 = np.log(lines.wl) - np.log(lines.gA)  # + ln I per draw
+        #: Monte Carlo: per-draw offsets of ln U(T) by species (set around a batched solve)
+        self.ln_u_shift: dict[str, np.ndarray] | None = None
 
     # -- partition functions ------------------------------------------------------------
     def ln_u(self, species: str, T: np.ndarray) -> np.ndarray:
@@ -110,7 +112,11 @@ class Model:
         if not np.all(np.isfinite(u)) or np.any(u <= 0):
             raise PhysicsError("partition function is not finite and positive", where=species,
                                fix="check the temperature range of the partition-function data")
-        return np.log(u)
+        out = np.log(u)
+        shift = None if self.ln_u_shift is None else self.ln_u_shift.get(species)
+        if shift is not None and np.shape(shift) == np.shape(out):
+            out = out + shift
+        return out
 
     def lowering(self, T, ne, charge_produced: int) -> np.ndarray:
         """Debye–Hückel lowering of the ionisation energy (eV), as in the forward model

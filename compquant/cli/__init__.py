@@ -13,18 +13,29 @@ Conventions shared by every command (added here, so a command module does not re
   command name.  Messages go through the
   standard :mod:`logging` module (logger ``compquant``) to stderr;
 * Python warnings raised while a command runs (e.g. a calibration-free fit outside its
-  range) are routed to that log as one line each, never printed raw with source lines;
+  range) are collected while it runs (see :func:`safe_output` below) and, when it succeeds,
+  sent to that log as one escaped line each, never printed raw with source lines;
 * the short safety note under each command's help (``compquant.cli._common.SAFETY``) and
   ``compquant safety`` for the full notes.
 
 User errors (:class:`compquant.errors.CompquantError`) are printed as one line,
-``error: <where>: <what>; <fix>``, on stderr with exit code 2.  Any other
+``error: <where>: <what>; <fix>``, on stderr with exit code 2; so are click's own usage
+errors (a missing option, a folder where a file is expected ...).  Any other
 exception is a bug and keeps its traceback.
+
+Everything the commands print goes through :class:`SafeStream`: control characters, escape
+sequences and bidirectional or other invisible format characters from file contents or names
+are shown as visible escapes (compquant.fileio.visible_text), so a run cannot recolour,
+reorder or overwrite the user's terminal.  numpy's floating-point warnings are not printed
+(the values are checked and flagged where they matter); other warnings become one ``warning:``
+line each, shown once, after a command that succeeds: a failing command prints its one
+``error:`` line and nothing else.
 """
 
 from __future__ import annotations
 
 import ast
+import contextlib
 import importlib
 import logging
 import pkgutil
@@ -36,6 +47,7 @@ import click
 
 from compquant import __version__
 from compquant.errors import CompquantError
+from compquant.fileio import terminal_text, visible_text
 
 EXIT_USER_ERROR = 2
 
@@ -75,8 +87,10 @@ class _ClickHandler(logging.Handler):
     def emit(self, record):
         try:
             msg = self.format(record)
-            prefix = "\r\x1b[K" if sys.stderr.isatty() else ""
-            click.echo(prefix + msg, err=True)
+            if sys.stderr.isatty():  # clear a bar's line (written raw: SafeStream would escape it)
+                raw = getattr(sys.stderr, "_stream", sys.stderr)
+                raw.write("\r\x1b[K")
+            click.echo(msg, err=True)
         except Exception:  # pragma: no cover - logging must never raise
             self.handleError(record)
 
@@ -110,9 +124,12 @@ def set_verbosity(level: int) -> None:
         logging.basicConfig(level=logging.DEBUG)
 
 
-def _show_warning(message, category, filename, lineno, file=None, line=None):
-    """Route a Python warning to the log as one line (category and message, no source line)."""
-    logging.getLogger("compquant.warnings").warning("%s: %s", category.__name__, message)
+def _show_warning_line(line: str) -> None:
+    """Log one collected warning line (``warning: <kind>: <message>``, see :func:`safe_output`)."""
+    import compquant.cli._common as common
+
+    if common.VERBOSITY >= 0:
+        logging.getLogger("compquant.warnings").warning("%s", line.removeprefix("warning: "))
 
 
 def _verbosity_callback(ctx, param, value):
@@ -151,10 +168,89 @@ def _add_verbosity_options(cmd: click.Command) -> click.Command:
         )
     cmd._compquant_verbosity = True
     return cmd
+class SafeStream:
+    """A text stream that shows hidden and control characters as visible escapes.
+
+    Newlines and tabs pass (tables span lines); a carriage return passes only to a terminal
+    (progress bars); everything else that is not printable text -- ESC, C1 controls, the
+    bidirectional overrides and isolates, zero-width characters -- is escaped.
+    """
+
+    def __init__(self, stream):
+        self._stream = stream
+        try:
+            tty = bool(stream.isatty())
+        except (AttributeError, ValueError):
+            tty = False
+        self._keep = "\n\t\r" if tty else "\n\t"
+
+    def write(self, s):
+        if isinstance(s, str):
+            s = visible_text(s, keep=self._keep)
+        return self._stream.write(s)
+
+    def __getattr__(self, name):
+        return getattr(self._stream, name)
+
+
+@contextlib.contextmanager
+def safe_output():
+    """Escape what is printed and collect warnings, for the duration of a command.
+
+    Yields the list of warning lines (``warning: <kind>: <message>``, each once); the caller
+    prints them when the command succeeds. When it fails, its one ``error:`` line is all the
+    user sees on stderr.
+    """
+    old_out, old_err = sys.stdout, sys.stderr
+    sys.stdout, sys.stderr = SafeStream(old_out), SafeStream(old_err)
+    collected: list[str] = []
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        text = f"warning: {category.__name__}: {' '.join(terminal_text(message).split())}"
+        if text not in collected:
+            collected.append(text)
+
+    try:
+        with warnings.catch_warnings():
+            # floating-point warnings from numpy (overflow, invalid value, mean of empty slice ...)
+            # are handled where they matter: the values are checked and flagged, not printed
+            warnings.simplefilter("ignore", RuntimeWarning)
+            warnings.showwarning = show
+            yield collected
+    finally:
+        sys.stdout, sys.stderr = old_out, old_err
+
+
+def usage_error_line(exc: click.ClickException) -> str:
+    """Click's usage error as one ``error:`` line: the command, what is wrong, where to look."""
+    ctx = getattr(exc, "ctx", None)
+    cmd = ctx.command_path if ctx is not None else "compquant"
+    msg = " ".join(terminal_text(exc.format_message()).split()).rstrip(".")
+    fix = f"see '{cmd} --help'" if isinstance(exc, click.UsageError) else "check the command line"
+    return f"error: {cmd}: {msg}; {fix}"
 
 
 class CompquantGroup(click.Group):
     """Click group that discovers commands lazily and turns user errors into one line."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+        with safe_output() as warned:
+            try:
+                rv = super().main(args, prog_name, complete_var, standalone_mode=False, **extra)
+            except click.ClickException as exc:
+                click.echo(usage_error_line(exc), err=True)
+                sys.exit(EXIT_USER_ERROR)
+            except click.Abort:
+                click.echo("error: compquant: aborted; nothing more was written", err=True)
+                sys.exit(1)
+            code = rv if isinstance(rv, int) else 0
+            if code == 0:
+                # the collected warnings, once each, through the log (so -q hides them)
+                for line in warned:
+                    _show_warning_line(line)
+        sys.exit(code)
 
     def list_commands(self, ctx):
         return sorted(set(super().list_commands(ctx)) | set(_command_modules()))
@@ -185,13 +281,11 @@ class CompquantGroup(click.Group):
                 formatter.write_dl(rows)
 
     def invoke(self, ctx):
-        with warnings.catch_warnings():  # the filters stay as they are; only the display changes
-            warnings.showwarning = _show_warning
-            try:
-                return super().invoke(ctx)
-            except CompquantError as exc:
-                click.echo(f"error: {exc.one_line()}", err=True)
-                ctx.exit(EXIT_USER_ERROR)
+        try:
+            return super().invoke(ctx)
+        except CompquantError as exc:
+            click.echo(f"error: {exc.one_line()}", err=True)
+            ctx.exit(EXIT_USER_ERROR)
 
 
 @click.group(cls=CompquantGroup, context_settings={"help_option_names": ["-h", "--help"]},

@@ -13,7 +13,7 @@ from pathlib import Path
 import click
 
 from compquant.errors import OutputError
-from compquant.fileio import atomic_write
+from compquant.fileio import atomic_write, csv_cell, terminal_text, write_text_atomic
 
 #: the short safety note under every command's help; the full notes (compquant.report.safety,
 #: also on every certificate) are printed by ``compquant safety``.  Common practice of laser and
@@ -43,18 +43,31 @@ class _NoBar:
 
 def progress_bar(length: int, label: str, *, enabled: bool = True):
     """A click progress bar on stderr (context manager with ``update(n)``), or one that draws
-    nothing when ``-q`` was given or ``enabled`` is false."""
-    if not enabled or VERBOSITY < 0:
+    nothing when ``-q`` was given, ``enabled`` is false or stderr is not a terminal."""
+    raw = getattr(sys.stderr, "_stream", sys.stderr)
+    try:
+        tty = bool(raw.isatty())
+    except (AttributeError, ValueError):
+        tty = False
+    # only on a terminal: in a log or a pipe a bar is just its label, a line that is no
+    # error, warning or note (stderr keeps its one-line-per-message form)
+    if not enabled or VERBOSITY < 0 or not tty:
         return _NoBar()
-    return click.progressbar(length=max(int(length), 1), label=label, file=sys.stderr)
+    # the label is escaped here; the bar itself is drawn on the raw stderr, because the
+    # command's SafeStream (compquant.cli.safe_output) would show its cursor codes as escapes
+    return click.progressbar(length=max(int(length), 1), label=terminal_text(label), file=raw)
 
 
 def write_csv(df, path, float_format: str = "%.10g") -> None:
     """Write ``df`` (no index) to ``path`` through :func:`compquant.fileio.atomic_write`;
     ``-`` writes it to standard output instead.
 
-    An OS error becomes :class:`~compquant.errors.OutputError` naming the path.
+    Every text cell and column name goes through :func:`compquant.fileio.csv_cell` (no formula,
+    no raw newline or control character); an infinite number is written as an empty cell, like
+    NaN (the flags of the row say why). An OS error becomes
+    :class:`~compquant.errors.OutputError` naming the path.
     """
+    df = safe_frame(df)
     if is_stdio(path):
         df.to_csv(sys.stdout, index=False, float_format=float_format)
         return
@@ -87,6 +100,40 @@ def fold_scheduler(scheduler: str | None, scheduler_file: str | None) -> str | N
 def is_stdio(path) -> bool:
     """True for the path ``-``: standard input or output, for commands that read or write one table."""
     return path is not None and str(path) == "-"
+def safe_frame(df):
+    """A copy of ``df`` ready for CSV: text cells through :func:`csv_cell`, infinities as missing."""
+    import numpy as np
+
+    out = df.copy()
+    out.columns = [csv_cell(str(c)) for c in out.columns]
+    for i, dt in enumerate(out.dtypes):
+        col = out.iloc[:, i]
+        if str(dt) in ("object", "string", "category", "str"):
+            out.isetitem(i, col.map(csv_cell).astype(object))
+        elif np.issubdtype(dt, np.floating) and np.isinf(col.to_numpy()).any():
+            out.isetitem(i, col.where(np.isfinite(col.to_numpy())))
+    return out
+
+
+def report_runs(outcomes, out_dir: Path, echo) -> list:
+    """Print one ``failed:`` line per run that failed and keep bugs' tracebacks in a file.
+
+    A run that failed on a user error shows its one-line reason; one that hit a bug in
+    compquant says so and its traceback goes to ``OUT_DIR/runs-failures.txt`` (not on the
+    screen), so the screen keeps one line per run and the call's one ``error:`` line at the
+    end. Returns the failed outcomes.
+    """
+    failed = [oc for oc in outcomes if not oc.ok]
+    traces = []
+    for oc in failed:
+        line = terminal_text(oc.error.one_line())
+        if oc.error.traceback:
+            line += f" (a bug in compquant, not in the run: please report it with {out_dir / 'runs-failures.txt'})"
+            traces.append(f"run {oc.run}\n{oc.error.traceback}\n")
+        echo(f"failed: {line}", err=True)
+    if traces:
+        write_text_atomic(Path(out_dir) / "runs-failures.txt", "\n".join(traces))
+    return failed
 
 
 def format_columns(rows: Sequence[Sequence[str]], *, right: Collection[int] = (), indent: str = "") -> str:
@@ -110,6 +157,8 @@ __all__ = [
     "format_columns",
     "is_stdio",
     "progress_bar",
+    "report_runs",
+    "safe_frame",
     "scheduler_file_option",
     "write_csv",
 ]

@@ -2,12 +2,10 @@
 
 from __future__ import annotations
 
-import sys
-
 import click
 
 from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
-from compquant.cli._common import fold_scheduler, scheduler_file_option
+from compquant.cli._common import fold_scheduler, progress_bar, scheduler_file_option
 
 
 class StageProgress:
@@ -33,9 +31,7 @@ class StageProgress:
             self.close()
             self.stage = stage
             self.done = 0
-            self.bar = click.progressbar(
-                length=max(int(total), 1), label=self.LABELS.get(stage, stage), file=sys.stderr
-            )
+            self.bar = progress_bar(total, self.LABELS.get(stage, stage))  # compquant.cli._common
             self.bar.__enter__()
         if done > self.done:
             self.bar.update(done - self.done)
@@ -79,6 +75,8 @@ def summary_table(out) -> str:
 
 
 def report_outputs(out) -> None:
+    from compquant.fileio import terminal_text
+
     click.echo("")
     click.echo(summary_table(out))
     click.echo("")
@@ -89,7 +87,7 @@ def report_outputs(out) -> None:
     if out.calibration_json:
         click.echo(f"calibration:  {out.calibration_json}")
     for sid, why in sorted(out.failures.items()):
-        click.echo(f"warning: sample {sid}: {why}", err=True)
+        click.echo(terminal_text(f"warning: sample {sid}: {why}"), err=True)
     if not out.valid_for_release:
         click.echo("NOT VALID FOR RELEASE: a quality-control criterion failed; see the certificates.", err=True)
 
@@ -100,9 +98,9 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 
     import pandas as pd
 
-    from compquant.cli._common import progress_bar
+    from compquant.cli._common import report_runs, write_csv
     from compquant.errors import CompquantError, OutputError
-    from compquant.fileio import atomic_write
+    from compquant.fileio import terminal_text
     from compquant.parallel import analyse_runs, collect_runs, open_executor, run_output_folders
 
     paths = collect_runs(run_paths)
@@ -132,12 +130,12 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
                     "error": "",
                 }
             )
-            click.echo(
+            click.echo(terminal_text(
                 f"ok: {oc.run} -> {v['outdir']} ({v['n_certificates']} certificates"
                 f"{'' if v['valid_for_release'] else ', NOT VALID FOR RELEASE'})"
-            )
+            ))
             for sid, why in sorted(v["failures"].items()):
-                click.echo(f"warning: {oc.run}: sample {sid}: {why}", err=True)
+                click.echo(terminal_text(f"warning: {oc.run}: sample {sid}: {why}"), err=True)
         else:
             status.append(
                 {
@@ -149,24 +147,19 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
                     "error": oc.error.one_line(),
                 }
             )
-            click.echo(f"error: {oc.error.one_line()}", err=True)
-            if oc.error.traceback:
-                click.echo(oc.error.traceback, err=True)
+    failed = [oc.run for oc in report_runs(outcomes, out, click.echo)]
     if frames:
-        with atomic_write(out / "lims-all.csv", newline="") as fh:
-            pd.concat(frames, ignore_index=True).to_csv(fh, index=False)
+        write_csv(pd.concat(frames, ignore_index=True), out / "lims-all.csv")
     cols = ["run", "status", "outputs", "certificates", "valid_for_release", "error"]
-    with atomic_write(out / "runs.csv", newline="") as fh:
-        pd.DataFrame(status, columns=cols).to_csv(fh, index=False)
-    click.echo(
+    write_csv(pd.DataFrame(status, columns=cols), out / "runs.csv")
+    click.echo(terminal_text(
         f"combined LIMS CSV: {out / 'lims-all.csv'} ({len(frames)} of {len(outcomes)} runs); status: {out / 'runs.csv'}"
-    )
-    failed = [oc.run for oc in outcomes if not oc.ok]
+    ))
     if failed:
         raise CompquantError(
             f"{len(failed)} of {len(outcomes)} runs failed: {', '.join(failed)}",
             where=str(out),
-            fix="see the error lines above and runs.csv; the other runs' outputs are complete",
+            fix="see the 'failed:' lines above and runs.csv; the other runs' outputs are complete",
         )
 
 
@@ -203,6 +196,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
               help="Compute on an existing Dask cluster at this address (default: DASK_SCHEDULER_ADDRESS if set).")
 @scheduler_file_option
 @click.option("--quiet", is_flag=True, help="No progress bars.")
+@click.option("--db", metavar="PATH|URL", help="Store the analysis in the lab's record (default: $COMPQUANT_DB).")
 def command(
     run_paths,
     method_path,
@@ -221,6 +215,7 @@ def command(
     scheduler,
     scheduler_file,
     quiet,
+    db,
 ):
     """Analyse a run and write a certificate of analysis per unknown sample.
 
@@ -252,6 +247,7 @@ def command(
         issued_at=issued_at,
         figures=not no_figures,
         chunk_shots=chunk_shots,
+        db=db,
     )
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options)
@@ -264,3 +260,13 @@ def command(
     finally:
         prog.close()
     report_outputs(out)
+    _report_record(db)
+
+
+def _report_record(db) -> None:
+    """Where the analysis was recorded (compquant.record), and what comes next."""
+    from compquant.record.db import configured, shown
+
+    if configured(db):
+        click.echo(f"record:       {shown(configured(db))} (see 'compquant record pending'; drafts leave the "
+                   "lab only after 'compquant record release')")

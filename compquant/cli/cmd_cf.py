@@ -11,7 +11,7 @@ import click
 
 from compquant.cli._common import SAFETY, format_columns, progress_bar, write_csv
 from compquant.errors import ConfigError, StandardsError
-from compquant.fileio import atomic_write, safe_filename
+from compquant.fileio import atomic_write, json_ready, safe_filename, terminal_text
 
 NOTE = ("Calibration-free results rest on LTE, an optically thin (or corrected) homogeneous plasma "
         "and the atomic data; read the flags. " + SAFETY)
@@ -33,7 +33,7 @@ def _screen(results) -> str:
     rows = [cols]
     for r in results:
         for row in r.summary_table().itertuples(index=False):
-            rows.append((str(row.sample_id), row.species, str(row.n_lines), f"{row.T_K:.0f}±{row.u_T_K:.0f}",
+            rows.append((terminal_text(row.sample_id), row.species, str(row.n_lines), f"{row.T_K:.0f}±{row.u_T_K:.0f}",
                          f"{row.ne_cm3:.2e}", row.ne_method,
                          "n.d." if not math.isfinite(row.mass_fraction) else f"{100 * row.mass_fraction:.3f}",
                          "-" if not math.isfinite(row.U) else f"{100 * row.U:.3f}", row.flags or "-"))
@@ -59,7 +59,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
     comes from H-alpha, Stark widths or the Saha balance, LTE criteria are checked, self-absorption
     is detected (and corrected if [cf] asks), and closure gives mass fractions with Monte Carlo
     uncertainty (U = 2u). One-point calibration with a certified standard when [cf] names one."""
-    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table
+    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table, run_intensity_basis
     from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
     from compquant.errors import CompquantError
     from compquant.lines import measure_run
@@ -77,6 +77,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         acquisition, instrument = dict(run.acquisition or {}), dict(run.instrument or {})
         sample_table = run.samples.copy()
         run_sha = run.sha256()
+        basis = run_intensity_basis(method, run)
     table = lm.table
     known = list(dict.fromkeys(table["sample_id"].astype(str)))
     if samples:
@@ -100,7 +101,8 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         ref = sample_table.set_index(sample_table["sample_id"].astype(str)).loc[sid].get("standard_ref") or sid
         cert = _certified(method.resolve_path(settings.standards_file), str(ref))
         one_point = one_point_calibration(table, cert, sample_id=sid, settings=settings,
-                                          acquisition=acquisition, instrument=instrument)
+                                          acquisition=acquisition, instrument=instrument,
+                                          intensity_basis=basis)
     results, failures = [], {}
     with progress_bar(len(ids), "calibration-free  ", enabled=not quiet) as bar:  # one step per sample
         for sid in ids:
@@ -109,10 +111,15 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                     warnings.simplefilter("ignore")
                     results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
                                               instrument=instrument, one_point=one_point, mc_draws=draws,
-                                              seed=seed))
+                                              seed=seed, intensity_basis=basis))
             except CompquantError as exc:
                 failures[sid] = exc.one_line()
             bar.update(1)
+    if failures and not results:  # before anything is written; the reasons in the line itself
+        first, why = next(iter(failures.items()))
+        more = f" (and {len(failures) - 1} more sample(s))" if len(failures) > 1 else ""
+        raise ConfigError(f"no sample gave a calibration-free result; {first}: {why}{more}", where=str(run_path),
+                          fix="check the method's lines and [cf] settings against the run")
     out = Path(output)
     stem = out.with_suffix("")
     import pandas as pd
@@ -129,7 +136,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
            "failures": failures, "one_point": None if one_point is None else one_point.to_dict(),
            "note": "mass fractions in g/g; U = k·u with k = 2 (GUM)"}
     with atomic_write(js_path) as fh:
-        json.dump(doc, fh, indent=2, ensure_ascii=False, allow_nan=False)
+        json.dump(json_ready(doc), fh, indent=2, ensure_ascii=False, allow_nan=False)
     written = [str(out), str(res_path), str(js_path)]
     if plots_dir:
         pdir = Path(plots_dir)
@@ -139,15 +146,13 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
             plot_boltzmann(r, p1)
             plot_saha_boltzmann(r, p2)
             written += [str(p1), str(p2)]
+    for sid, why in failures.items():  # on stderr even with --quiet: a failure is never silent
+        click.echo(terminal_text(f"no result for {sid}: {why}"), err=True)
     if not quiet:
         if results:
             click.echo(_screen(results))
-        for sid, why in failures.items():
-            click.echo(f"no result for {sid}: {why}", err=True)
         for r in results:
             for w in r.warnings:
-                click.echo(f"note: {r.sample_id}: {w}")
+                click.echo(terminal_text(f"note: {r.sample_id}: {w}"))
         click.echo("wrote " + ", ".join(written))
-    if failures and not results:
-        raise ConfigError("no sample gave a calibration-free result", where=str(run_path),
-                          fix="see the messages above")
+

@@ -32,8 +32,11 @@ def _pairs(values, what):
               help="Medium of the wavelength axis.")
 @click.option("--instrument", multiple=True, help="Instrument setting KEY=VALUE (repeatable).")
 @click.option("--acquisition", multiple=True, help="Acquisition setting KEY=VALUE, e.g. gate_delay_us=1.5.")
+@click.option("--sentinel", "sentinels", multiple=True, type=float,
+              help="A value the instrument writes for blanked or dead pixels, e.g. -9999 (repeatable); "
+                   "such pixels are masked, like NaN, infinite and implausible values.")
 @click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Run file to write (.h5).")
-def command(spectra, samples_csv, dark, saturation, medium, instrument, acquisition, output):
+def command(spectra, samples_csv, dark, saturation, medium, instrument, acquisition, sentinels, output):
     """Build a compquant run from plain-text/CSV spectra plus a samples table.
 
     Inputs are only read; the run is written atomically."""
@@ -41,5 +44,5 @@ def command(spectra, samples_csv, dark, saturation, medium, instrument, acquisit
 
     report = convert_to_run(spectra, samples_csv, output, dark=dark, saturation=saturation, medium=medium,
                             instrument=_pairs(instrument, "instrument"),
-                            acquisition=_pairs(acquisition, "acquisition"))
+                            acquisition=_pairs(acquisition, "acquisition"), sentinels=sentinels)
     click.echo(report.text())

@@ -8,7 +8,7 @@ import click
 
 from compquant.cli._common import SAFETY, format_columns, write_csv
 from compquant.errors import InputError
-from compquant.fileio import safe_filename
+from compquant.fileio import safe_filename, terminal_text
 
 
 def render_table(table) -> str:
@@ -20,7 +20,7 @@ def render_table(table) -> str:
         for r in shown.itertuples(index=False):
             rows.append((r.element, r.species.split(" ", 1)[1], r.status, f"{r.score:.2f}",
                          f"{r.lines_found:g}/{r.lines_expected}", r.best_lines or "-"))
-        out.append(f"sample {sid} (T = {t['temperature_k'].iloc[0]:.0f} K"
+        out.append(f"sample {terminal_text(sid)} (T = {t['temperature_k'].iloc[0]:.0f} K"
                    f"{' fitted' if t['temperature_fitted'].iloc[0] else ''}, R = {t['resolving_power'].iloc[0]:.0f})")
         out.append(format_columns(rows, right={3}, indent="  "))
         nd = sorted(set(t.loc[t["status"] == "not detected", "element"]) - set(shown["element"]))
@@ -118,7 +118,7 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
         click.echo(render_table(table))
         for sid, n in n_unexplained.items():
             if n:
-                click.echo(f"unexplained peaks in {sid}: {n} (strongest at {unexplained[sid]} nm; "
+                click.echo(f"unexplained peaks in {terminal_text(sid)}: {n} (strongest at {unexplained[sid]} nm; "
                            "lines missing from the line database, or noise)")
         if imaps:
             im = pd.concat(imaps, ignore_index=True)
@@ -126,7 +126,7 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
             for r in ov.itertuples(index=False):
                 size = (f"{r.relative_contribution:.1%} of the analyte signal" if r.analyte_signal > 0
                         else f"{r.interferer_snr:.0f} sigma, analyte not seen")
-                click.echo(f"overlap: {r.sample_id}: {r.line_id} <- {r.interferer_line_id} ({size}); "
+                click.echo(f"overlap: {terminal_text(r.sample_id)}: {r.line_id} <- {r.interferer_line_id} ({size}); "
                            f"alternatives: {r.alternatives or 'none free'}")
     for w in written:
         click.echo(f"wrote {w}", err=quiet)

@@ -7,6 +7,7 @@ import json
 import click
 
 from compquant.cli._common import format_columns
+from compquant.fileio import terminal_text
 
 
 def _fmt_settings(d: dict) -> str:
@@ -37,9 +38,11 @@ def render_summary(s: dict) -> str:
     ]
     rows = [("sample", "role", "standard", "shots", "saturated px")]
     for smp in s["samples"]:
-        rows.append((smp["sample_id"], smp["role"], smp["standard_ref"] or "-", str(smp["n_shots"]),
+        rows.append((terminal_text(smp["sample_id"]), terminal_text(smp["role"]),
+                     terminal_text(smp["standard_ref"] or "-"), str(smp["n_shots"]),
                      str(smp["saturated_pixels"])))
     lines.append(format_columns(rows, right={3, 4}, indent="  "))
+    lines += _masked_lines(s)
     lines.append("")
     if s["findings"]:
         lines.append("findings:")
@@ -50,19 +53,41 @@ def render_summary(s: dict) -> str:
     return "\n".join(lines)
 
 
+def _masked_lines(s: dict, limit: int = 20) -> list[str]:
+    """Masked pixels by sample and pixel range (compquant.run.mask)."""
+    from compquant.run.mask import describe_shots
+
+    out = []
+    for smp in s["samples"]:
+        for m in smp.get("masked", [])[:limit]:
+            px = (f"pixel {m['first_pixel']}" if m["first_pixel"] == m["last_pixel"]
+                  else f"pixels {m['first_pixel']}-{m['last_pixel']}")
+            out.append(f"  {smp['sample_id']}: {px} ({m['first_nm']:.3f}-{m['last_nm']:.3f} nm), {m['reason']}, "
+                       f"{describe_shots(m['shots'])}")
+        extra = len(smp.get("masked", [])) - limit
+        if extra > 0:
+            out.append(f"  {smp['sample_id']}: ... and {extra} more masked range(s) (--json lists all)")
+    if not out:
+        return ["masked pixels: none"]
+    return [f"masked pixels ({s['spectra'].get('masked_if', 'non-finite or implausible values')}, "
+            "or masked in the file):"] + out
+
+
 @click.command("inspect")
 @click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
 @click.option("--json", "as_json", is_flag=True, help="Print the summary as JSON.")
 @click.option("--chunk-shots", default=4096, show_default=True, help="Shots read per chunk while scanning.")
 def command(run_path, as_json, chunk_shots):
     """Show a run's instrument and acquisition settings, wavelength axis, samples
-    (role, certified-standard reference, shots, saturated pixels) and validation
+    (role, certified-standard reference, shots, saturated pixels), masked pixels by range, and validation
     findings. The file is opened read-only."""
     from compquant.run import Run, summarise_run
 
     with Run.open(run_path) as run:
         summary = summarise_run(run, chunk_shots=chunk_shots)
     if as_json:
-        click.echo(json.dumps(summary, indent=2, sort_keys=True, default=str))
+        from compquant.fileio import json_ready
+
+        click.echo(json.dumps(json_ready(summary, str), indent=2, sort_keys=True, default=str, allow_nan=False))
     else:
         click.echo(render_summary(summary))

@@ -20,11 +20,12 @@ from compquant.cli._common import (
     format_columns,
     is_stdio,
     progress_bar,
+    report_runs,
     scheduler_file_option,
     write_csv,
 )
 from compquant.errors import OutputError
-from compquant.fileio import atomic_write
+from compquant.fileio import atomic_write, json_ready, terminal_text
 
 
 def _columns(rows) -> str:
@@ -38,7 +39,7 @@ def _short_table(table, max_rows: int = 60) -> str:
         for r in table.itertuples(index=False):
             rows.append(
                 (
-                    str(r.sample_id),
+                    terminal_text(r.sample_id),
                     str(r.line_id),
                     f"{r.intensity:.4g}",
                     f"{r.u_intensity:.2g}",
@@ -55,7 +56,7 @@ def _short_table(table, max_rows: int = 60) -> str:
         kinds = sorted({f for fl in flagged["flags"] for f in fl.split(";")})
         rows.append(
             (
-                str(sid),
+                terminal_text(sid),
                 str(role),
                 str(int(g["n_shots"].max())),
                 str(len(g)),
@@ -78,7 +79,7 @@ def write_outputs(lm, out: Path, shots_out: Path | None, qc_out: Path) -> list[P
     write_csv(qc, qc_out)
     prov_path = Path(f"{stem}-provenance.json")
     with atomic_write(prov_path) as fh:
-        json.dump(lm.provenance, fh, indent=2, sort_keys=True, default=str)
+        json.dump(json_ready(lm.provenance, str), fh, indent=2, sort_keys=True, default=str, allow_nan=False)
     return [out] + ([shots_out] if shots_out is not None else []) + [qc_out, prov_path]
 
 
@@ -123,30 +124,27 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
                 }
             )
             if not quiet:
-                click.echo(f"ok: {oc.run} -> {folders[oc.run]}")
+                click.echo(terminal_text(f"ok: {oc.run} -> {folders[oc.run]}"))
                 for note in oc.value["notes"]:
-                    click.echo(f"note: {oc.run}: {note}")
+                    click.echo(terminal_text(f"note: {oc.run}: {note}"))
         else:
             status.append(
                 {"run": oc.run, "status": "failed", "outputs": "", "n_shots": 0, "error": oc.error.one_line()}
             )
-            click.echo(f"error: {oc.error.one_line()}", err=True)
-            if oc.error.traceback:
-                click.echo(oc.error.traceback, err=True)
+    failed = report_runs(outcomes, out_dir, click.echo)
     if tables:
         write_csv(pd.concat(tables, ignore_index=True), out_dir / "lines-all.csv")
     write_csv(pd.DataFrame(status, columns=["run", "status", "outputs", "n_shots", "error"]), out_dir / "runs.csv")
-    failed = [oc for oc in outcomes if not oc.ok]
     if not quiet:
-        click.echo(
+        click.echo(terminal_text(
             f"wrote {out_dir / 'lines-all.csv'} ({len(tables)} of {len(outcomes)} runs) and {out_dir / 'runs.csv'}"
-        )
+        ))
     if failed:
         names = ", ".join(oc.run for oc in failed)
         raise CompquantError(
             f"{len(failed)} of {len(outcomes)} runs failed: {names}",
             where=str(out_dir),
-            fix="see the error lines above and runs.csv; the other runs' outputs are complete",
+            fix="see the 'failed:' lines above and runs.csv; the other runs' outputs are complete",
         )
 
 
@@ -259,7 +257,8 @@ def command(
         click.echo(_short_table(lm.table))
         rej = lm.qc[lm.qc["n_rejected"] > 0]
         for r in rej.itertuples(index=False):
-            click.echo(f"shot QC: {r.sample_id}: {r.n_rejected} of {r.n_shots} shots rejected ({r.reasons})")
+            sid = terminal_text(r.sample_id)
+            click.echo(f"shot QC: {sid}: {r.n_rejected} of {r.n_shots} shots rejected ({r.reasons})")
         for note in lm.provenance.get("notes", []):
-            click.echo(f"note: {note}")
+            click.echo(f"note: {terminal_text(note)}")
         click.echo("wrote " + ", ".join(str(p) for p in written))

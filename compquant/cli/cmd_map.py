@@ -3,17 +3,17 @@
 from __future__ import annotations
 
 import json
-import sys
 from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, fold_scheduler, scheduler_file_option, write_csv
+from compquant.cli._common import SAFETY, fold_scheduler, progress_bar, scheduler_file_option, write_csv
+from compquant.fileio import terminal_text
 
 
 def write_map_outputs(result, out_dir: Path) -> list[Path]:
     """``maps.h5``, one PNG per sample and element, ``maps-provenance.json`` (and node results CSV)."""
-    from compquant.fileio import atomic_write, safe_filename
+    from compquant.fileio import atomic_write, json_ready, safe_filename
     from compquant.maps.output import write_map_png, write_maps_h5
 
     out_dir = Path(out_dir)
@@ -29,7 +29,7 @@ def write_map_outputs(result, out_dir: Path) -> list[Path]:
         written.append(p)
     p = out_dir / "maps-provenance.json"
     with atomic_write(p) as fh:
-        json.dump(result.provenance, fh, indent=2, sort_keys=True, default=str)
+        json.dump(json_ready(result.provenance, str), fh, indent=2, sort_keys=True, default=str, allow_nan=False)
     written.append(p)
     return written
 
@@ -91,9 +91,7 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
             )
         else:
             passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
-            with click.progressbar(
-                length=run.n_shots * passes, label="measuring", file=sys.stderr
-            ) as bar:
+            with progress_bar(run.n_shots * passes, "measuring") as bar:
                 result = make_maps(
                     run,
                     method,
@@ -104,11 +102,13 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
                     samples=list(samples) or None,
                 )
     written = write_map_outputs(result, Path(out_dir))
+    for note in result.provenance.get("notes", []):
+        click.echo(terminal_text(f"warning: {note}"), err=True)
     if not quiet:
         for sm in result.samples:
             g = sm.grid
             click.echo(
-                f"{sm.sample_id}: {g.nx} x {g.ny} nodes, step {g.dx_mm:g} x {g.dy_mm:g} mm, "
+                f"{terminal_text(sm.sample_id)}: {g.nx} x {g.ny} nodes, step {g.dx_mm:g} x {g.dy_mm:g} mm, "
                 f"{int(sm.shots.sum())} shots; maps: {', '.join(m.element for m in sm.maps)}"
             )
         click.echo(f"wrote {len(written)} files to {out_dir}")

@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from compquant.cli._common import SAFETY, is_stdio, write_csv
+from compquant.fileio import terminal_text
 
 
 def _finite_json(o):
@@ -38,10 +39,11 @@ def results_text(q) -> str:
     r = q.results
     for row in r[r["role"].isin(["unknown", "check"])].itertuples(index=False):
         val = f"< LOD ({_fmt(row.lod)})" if row.below_lod else f"{_fmt(row.mass_fraction)} +- {_fmt(row.U)}"
-        lines.append(f"{row.sample_id:<14} {row.element:<3} {row.basis:<11} {val:<32} {row.flags or ''}")
+        lines.append(f"{terminal_text(row.sample_id):<14} {row.element:<3} {row.basis:<11} {val:<32} {row.flags or ''}")
     for c in q.checks.itertuples(index=False):
         lines.append(
-            f"check {c.sample_id} ({c.standard_id}) {c.element}: En = {c.En:+.2f} {'pass' if c.passed else 'FAIL'}"
+            f"check {terminal_text(c.sample_id)} ({c.standard_id}) {c.element}: "
+            f"En = {c.En:+.2f} {'pass' if c.passed else 'FAIL'}"
         )
     if not q.valid_for_release:
         lines.append("a check sample failed: the run's results are NOT VALID FOR RELEASE")
@@ -57,7 +59,7 @@ def results_text(q) -> str:
         )
     )
     for nr in q.provenance.get("not_reported", []):
-        lines.append(f"not reported: {nr['sample_id']} {nr['element']}: {nr['reason']}")
+        lines.append(f"not reported: {terminal_text(nr['sample_id'])} {nr['element']}: {nr['reason']}")
     return "\n".join(lines)
 
 

@@ -30,7 +30,7 @@ def _resolving_power(run) -> float | None:
         val = float(val)
     except (TypeError, ValueError):
         return None
-    return val if val > 0 else None
+    return val if 0 < val < float("inf") else None  # NaN, inf, 0 and negative: not stated
 
 
 def identify_sample(run, sample_id: str, method=None, *, settings: IdentifySettings | None = None,

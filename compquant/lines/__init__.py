@@ -6,6 +6,7 @@ Public API
 * :func:`measure_lines` -> line table (pandas DataFrame, columns in docs/architecture.md)
 * :func:`mean_spectrum` -> (wavelength, mean spectrum, info) of one sample
 * :func:`process_chunk` / :class:`ChunkPlan` -- the pure chunk-level function (for Dask)
+* :func:`calibrate_wavelength` -- per-sample wavelength calibration from reference lines
 """
 
 from compquant.lines.chunk import ChunkPlan, ChunkResult, FitProjection, process_chunk
@@ -19,6 +20,7 @@ from compquant.lines.measure import (
     measure_lines,
     measure_run,
 )
+from compquant.lines.wavecal import WavecalResult, WavecalSettings, calibrate_wavelength
 from compquant.lines.windows import build_window_weights, integrate_windows, window_geometry
 
 __all__ = [
@@ -30,7 +32,10 @@ __all__ = [
     "FitProjection",
     "GroupFit",
     "LineMeasurement",
+    "WavecalResult",
+    "WavecalSettings",
     "build_window_weights",
+    "calibrate_wavelength",
     "fit_group",
     "fwhm_of",
     "integrate_windows",

@@ -47,8 +47,18 @@ import numpy as np
 import pandas as pd
 
 from compquant.errors import DataQualityError, MethodError
-from compquant.lines.chunk import ChunkPlan, ChunkResult, FitProjection, process_chunk, process_chunk_threaded
+from compquant.lines.chunk import (
+    ChunkPlan,
+    ChunkResult,
+    FitProjection,
+    find_masked,
+    masked_ranges,
+    process_chunk,
+    process_chunk_threaded,
+    repair_masked,
+)
 from compquant.lines.fit import GroupFit, fit_group, fit_group_fixed
+from compquant.lines.wavecal import WavecalResult, WavecalSettings, calibrate_wavelength, noise_sd, peak_fwhm
 from compquant.lines.windows import (
     WindowWeights,
     build_window_weights,
@@ -60,7 +70,8 @@ from compquant.method import LineSpec, Method, parse_line_id, side_width_nm, win
 from compquant.preprocess.baseline import estimate_baseline
 from compquant.preprocess.corrections import dark_reference, exposure_ratio, trapezoid_weights
 from compquant.preprocess.qc import QCDecision, qc_decide
-from compquant.preprocess.shift import shift_by_cross_correlation, shift_from_lines
+from compquant.preprocess.shift import shift_by_cross_correlation
+from compquant.run.mask import describe_range
 
 LINE_TABLE_COLUMNS = [
     "sample_id",
@@ -79,7 +90,34 @@ LINE_TABLE_COLUMNS = [
     "flags",
 ]
 SHOT_TABLE_COLUMNS = ["sample_id", "shot", "line_id", "intensity", "accepted", "saturated"]
-FLAG_ORDER = ("saturated", "not_found", "overlapped", "low_snr", "shifted", "single_shot")
+FLAG_ORDER = (
+    "saturated",
+    "masked",
+    "not_found",
+    "overlapped",
+    "low_snr",
+    "shifted",
+    "window_clips",
+    "wavelength_refs_disagree",
+    "single_shot",
+)
+SHIFT_TABLE_COLUMNS = [
+    "sample_id",
+    "shift_nm",
+    "method",
+    "shifted",
+    "model",
+    "dispersion_nm_per_nm",
+    "u_shift_nm",
+    "u_dispersion",
+    "rms_residual_nm",
+    "n_refs",
+    "n_used",
+    "status",
+    "applied",
+    "wavelength_refs_disagree",
+]
+REFERENCE_TABLE_COLUMNS = ["sample_id", "reference_nm", "found_nm", "residual_nm", "status"]
 
 
 @dataclass
@@ -101,6 +139,10 @@ class LineMeasurement:
     wavelength: np.ndarray
     mean_spectra: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     fits: dict = field(default_factory=dict, repr=False)
+    references: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=REFERENCE_TABLE_COLUMNS))
+    masked_pixels: pd.DataFrame = field(
+        default_factory=lambda: pd.DataFrame(columns=["sample_id", "shot", "first_pixel", "last_pixel"])
+    )
 
     @property
     def shots(self) -> pd.DataFrame:
@@ -180,7 +222,11 @@ def _response_vector(run, method: Method, notes: list) -> np.ndarray | None:
                 where=where,
                 fix="give a response curve over the whole run range",
             )
-        return np.interp(wl, x, r)
+        from compquant.run._checks import check_response
+
+        curve = np.interp(wl, x, r)
+        check_response(curve, where)  # positive, finite, a sane range: the same rule as a stored response
+        return curve
     r = run.response()
     if r is None:
         notes.append("response correction asked for but the run stores no response: not applied")
@@ -259,9 +305,19 @@ def _shift_lines_nm(method: Method) -> list[float]:
 
 
 def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
-    c = int(chunk_shots or method.measure.chunk_shots)
+    c = int(method.measure.chunk_shots if chunk_shots is None else chunk_shots)  # 0 is refused, not "default"
     if c < 1:
         raise MethodError(f"chunk size {c} is not positive", where="chunk_shots", fix="use >= 1 shot")
+    limit = getattr(run, "memory_limit", None)
+    if limit:  # the run's memory limit holds for the chunk buffers too (about 24 bytes per value)
+        fit = int(limit) // (24 * max(1, int(run.n_pixels)))
+        if fit < 1:
+            from compquant.errors import ResourceLimitError
+
+            raise ResourceLimitError(f"one shot of {run.n_pixels} pixels needs {24 * run.n_pixels} bytes to process, "
+                                     f"above the memory limit of {int(limit)} bytes", where="memory limit",
+                                     fix="raise COMPQUANT_MEMORY_LIMIT")
+        c = min(c, fit)
     align = max(1, int(getattr(run, "chunk_rows", 1)))
     if c > align:
         c = (c // align) * align
@@ -269,24 +325,14 @@ def _chunk_size(run, chunk_shots: int | None, method: Method) -> int:
 
 
 def _iter_raw(run, chunk: int, prefetch: bool = True):
-    """Yield ``(start, stop, raw)`` chunks; with ``prefetch`` the next chunk is read by one
-    helper thread while the caller processes the current one (h5py releases the GIL while it
-    reads and decompresses, so reading overlaps computing).  Memory: two chunks of raw counts.
+    """Yield ``(start, stop, raw)`` chunks; with ``prefetch`` the next chunks are read and
+    decompressed on every core while the caller processes the current one
+    (:func:`compquant.run.fastread.iter_raw`).  Memory: three chunks of raw counts.
     """
-    bounds = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
-    if not prefetch or len(bounds) < 2:
-        for a, b in bounds:
-            yield a, b, run.read_raw(a, b)
-        return
-    from concurrent.futures import ThreadPoolExecutor
+    from compquant.run.fastread import iter_raw
 
-    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="compquant-read") as ex:
-        fut = ex.submit(run.read_raw, *bounds[0])
-        for k, (a, b) in enumerate(bounds):
-            raw = fut.result()
-            if k + 1 < len(bounds):
-                fut = ex.submit(run.read_raw, *bounds[k + 1])
-            yield a, b, raw
+    bounds = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
+    yield from iter_raw(run, bounds, threads=None if prefetch else 0)
 
 
 def _chunk_results(run, setup, chunk: int, plan: ChunkPlan, chunk_mapper=None):
@@ -313,6 +359,27 @@ def _chunk_results(run, setup, chunk: int, plan: ChunkPlan, chunk_mapper=None):
         yield start, stop, res
 
 
+def _axis_in_method_medium(run, method: Method) -> tuple[np.ndarray, str]:
+    """The run's wavelength axis in the method's medium (air or vacuum).
+
+    When the media differ the axis is converted with the Edlen (1966) / Birch & Downs
+    (1994) refractive index of standard air as given by Morton (2000, ApJS 130, 403,
+    eq. 8) (:mod:`compquant.atomic.airvac`); the note says so for the provenance.
+    """
+    from compquant.atomic.airvac import air_to_vacuum, vacuum_to_air
+
+    wl = np.asarray(run.wavelength, dtype=np.float64)
+    run_medium = getattr(run, "medium", "air")
+    want = getattr(method, "medium", "air")
+    if run_medium == want:
+        return wl, f"run and method wavelengths both in {want}: no conversion"
+    conv = vacuum_to_air(wl) if want == "air" else air_to_vacuum(wl)
+    return np.asarray(conv, dtype=np.float64), (
+        f"run axis converted from {run_medium} to {want} wavelengths (Edlen 1966 / Birch & Downs 1994 "
+        f"refractive index of standard air, Morton 2000 eq. 8); shift at {wl[0]:.3f} nm: {conv[0] - wl[0]:+.5f} nm"
+    )
+
+
 # --------------------------------------------------------------------------- main driver
 
 
@@ -320,13 +387,16 @@ class _Setup:
     """Resolved, run-specific settings shared by measure_run and mean_spectrum."""
 
     def __init__(self, run, method: Method):
-        method.check_run(run.wavelength)
+        self.notes: list[str] = []
+        self.wl, self.medium_note = _axis_in_method_medium(run, method)
+        method.check_run(self.wl)
         self.method = method
         self.threads = 1
         pre = method.preprocess
-        self.wl = np.asarray(run.wavelength, dtype=np.float64)
         self.pitch = _pitch(self.wl)
-        self.notes: list[str] = []
+        self.corr: dict[int, WavecalResult] = {}
+        self.masked_line: np.ndarray | None = None
+        self.masked_ranges: list[tuple[int, int, int]] = []
         self.dark, self.dark_scale = _dark_vector(run, method, self.notes)
         self.response = _response_vector(run, method, self.notes)
         self.inv_response = _inverse_response(self.response)
@@ -358,14 +428,22 @@ class _Setup:
         self.groups = _fit_groups(self.lines, self.wl)
         self.fit_idx = [i for g in self.groups for i in g]
 
-    def geometry(self, i: int, shift: float = 0.0):
+    def shift_of(self, s: int | None, wavelength_nm: float) -> float:
+        """Wavelength correction (nm) of sample ``s`` at a table wavelength (0 without one)."""
+        c = self.corr.get(s) if s is not None else None
+        return 0.0 if c is None else float(c.shift_at(wavelength_nm))
+
+    def geometry(self, i: int, s: int | None = None):
         ln = self.lines[i]
         return window_geometry(
-            ln.wavelength_nm + shift, window_width_nm(ln, self.pitch), side_width_nm(ln, self.pitch), ln.gap_nm or 0.0
+            ln.wavelength_nm + self.shift_of(s, ln.wavelength_nm),
+            window_width_nm(ln, self.pitch),
+            side_width_nm(ln, self.pitch),
+            ln.gap_nm or 0.0,
         )
 
-    def window_weights(self, shift: float = 0.0) -> WindowWeights:
-        return build_window_weights(self.wl, [self.geometry(i, shift) for i in self.win_idx])
+    def window_weights(self, s: int | None = None) -> WindowWeights:
+        return build_window_weights(self.wl, [self.geometry(i, s) for i in self.win_idx])
 
     def base_plan(self) -> ChunkPlan:
         pre = self.method.preprocess
@@ -381,43 +459,92 @@ class _Setup:
         )
 
 
-def _find_shifts(run, setup: _Setup, chunk: int, progress, chunk_mapper=None) -> dict[int, float]:
-    """Pass 0: per-sample shift (nm) from the mean of dark/response-corrected spectra."""
+def _find_shifts(run, setup: _Setup, chunk: int, progress, chunk_mapper=None) -> dict[int, WavecalResult]:
+    """Pass 0: per-sample wavelength correction from the mean of dark/response-corrected spectra."""
     pre = setup.method.preprocess
     plan = setup.base_plan()
     plan.baseline = "none"
     plan.measure_windows = False
     sums: dict[int, np.ndarray] = {}
     counts: dict[int, int] = {}
+    masked_count: dict[int, np.ndarray] = {}
     for start, stop, res in _chunk_results(run, setup, chunk, plan, chunk_mapper):
         _merge_sums(sums, counts, res)
+        for r, a, b in res.masked:
+            s = int(setup.sample_index[start + r])
+            masked_count.setdefault(s, np.zeros(setup.wl.size, dtype=np.int64))[a : b + 1] += 1
         if progress:
             progress(stop - start)
-    ref = None
-    if pre.shift == "xcorr":
-        ref = _load_curve_csv(
-            setup.method.resolve_path(pre.shift_reference_file),
-            ("wavelength_nm", "intensity"),
-            f"{setup.method.where}: [preprocess.shift] reference_file",
-        )
-    lines_nm = _shift_lines_nm(setup.method)
     out = {}
     for s, tot in sums.items():
         mean = tot / counts[s]
         if pre.baseline != "none":
             mean = mean - estimate_baseline(mean, pre.baseline, **pre.baseline_params)
-        if pre.shift == "lines":
-            d, _ = shift_from_lines(setup.wl, mean, lines_nm, pre.shift_search_nm)
-        else:
-            d = shift_by_cross_correlation(setup.wl, mean, ref[0], ref[1], pre.max_shift_nm)
-        if not np.isfinite(d) or abs(d) > pre.max_shift_nm:
+        invalid = masked_count[s] * 2 >= counts[s] if s in masked_count else None
+        out[s] = _sample_correction(setup, mean, invalid)
+        c = out[s]
+        if c.status != "ok":
             setup.notes.append(
-                f"sample {setup.sample_ids[s]!r}: no usable wavelength shift found "
-                f"(estimate {d:.4g} nm); windows left at table positions"
+                f"sample {setup.sample_ids[s]!r}: wavelength correction {c.status.replace('_', ' ')} "
+                f"({c.n_used} of {len(c.refs)} references agree; correction "
+                + (f"{c.a:+.5f} nm applied)" if c.applied else "not applied: windows left at table positions)")
             )
-            d = 0.0
-        out[s] = float(d)
     return out
+
+
+def _sample_correction(setup: _Setup, mean: np.ndarray, invalid=None) -> WavecalResult:
+    """Wavelength correction of one sample's mean spectrum (lines: compquant.lines.wavecal)."""
+    pre = setup.method.preprocess
+    if pre.shift == "xcorr":
+        x, r = _load_curve_csv(
+            setup.method.resolve_path(pre.shift_reference_file),
+            ("wavelength_nm", "intensity"),
+            f"{setup.method.where}: [preprocess.shift] reference_file",
+        )
+        d = shift_by_cross_correlation(setup.wl, mean, x, r, pre.max_shift_nm)
+        ok = bool(np.isfinite(d) and abs(d) <= pre.max_shift_nm)
+        return WavecalResult(model="shift", a=float(d) if ok else 0.0, applied=ok, status="ok" if ok else "no_match")
+    refs = _shift_lines_nm(setup.method)
+    settings = WavecalSettings(
+        search_nm=pre.shift_search_nm,
+        fwhm_nm=_expected_fwhm(setup, mean, refs),
+        pitch_nm=setup.pitch,
+        model=pre.shift_model,
+        min_refs=pre.shift_min_refs,
+        tolerance_nm=pre.shift_tolerance_nm,
+        max_shift_nm=pre.max_shift_nm,
+    )
+    return calibrate_wavelength(setup.wl, mean, refs, settings, catalogue_nm=_catalogue_nm(setup), invalid=invalid)
+
+
+def _expected_fwhm(setup: _Setup, mean: np.ndarray, refs: list[float]) -> float:
+    """Line FWHM for the reference windows: stated in the method, else the median measured
+    FWHM of the references' peaks, else 3 pixels (common practice)."""
+    m = setup.method
+    stated = [ln.fwhm_nm for ln in m.lines if ln.fwhm_nm and any(abs(ln.wavelength_nm - r) < 1e-6 for r in refs)]
+    if stated or m.measure.fwhm_nm:
+        return float(stated[0] if stated else m.measure.fwhm_nm)
+    s = m.preprocess.shift_search_nm
+    fw = [peak_centre_fwhm(setup.wl, mean, r - s, r + s)[1] for r in refs]
+    fw = [f for f in fw if np.isfinite(f) and f > 0]
+    return float(np.median(fw)) if fw else 3.0 * setup.pitch
+
+
+def _catalogue_nm(setup: _Setup) -> np.ndarray:
+    """Known line positions for the neighbour check: the method's lines and the shipped line
+    list (docs/atomic-data.md), in the method's medium."""
+    from compquant.atomic import load_line_list
+    from compquant.atomic.airvac import air_to_vacuum
+
+    own = [ln.wavelength_nm for ln in setup.lines]
+    try:
+        listed = load_line_list()["wavelength_nm"].to_numpy(dtype=float)
+    except Exception:
+        listed = np.zeros(0)
+    if getattr(setup.method, "medium", "air") == "vacuum":
+        listed = np.asarray(air_to_vacuum(listed), dtype=float)
+    cat = np.unique(np.concatenate([np.asarray(own, dtype=float), listed]))
+    return cat[(cat >= setup.wl[0]) & (cat <= setup.wl[-1])]
 
 
 def _merge_sums(sums, counts, res: ChunkResult) -> None:
@@ -458,20 +585,21 @@ def measure_run(
     chunk = _chunk_size(run, chunk_shots, method)
     n_shots = run.n_shots
     n_lines = len(setup.lines)
-    # pass 0: shifts
-    shifts = {s: 0.0 for s in range(len(setup.sample_ids))}
+    # pass 0: per-sample wavelength corrections
     if pre.shift != "none":
-        shifts.update(_find_shifts(run, setup, chunk, progress, chunk_mapper))
+        setup.corr.update(_find_shifts(run, setup, chunk, progress, chunk_mapper))
+    shifts = {s: (c.a if c.applied else 0.0) for s, c in setup.corr.items()}
     # pass 1: preprocessing + window lines + sums
     plan = setup.base_plan()
-    ww_shared = setup.window_weights(0.0) if setup.win_idx else None
+    ww_shared = setup.window_weights(None) if setup.win_idx else None
     ww_by_sample: dict[int, WindowWeights] = {}
+    setup.masked_line = np.zeros((n_shots, n_lines), dtype=bool)
     if setup.win_idx:
         plan.W = ww_shared.W
         plan.support = support_mask(setup.wl.size, ww_shared.support)
-        for s, d in shifts.items():
-            if d != 0.0:
-                ww = setup.window_weights(d)
+        for s, c in setup.corr.items():
+            if c.applied:
+                ww = setup.window_weights(s)
                 ww_by_sample[s] = ww
                 plan.W_by_sample[s] = ww.W
                 plan.support_by_sample[s] = support_mask(setup.wl.size, ww.support)
@@ -488,6 +616,9 @@ def measure_run(
             win[start:stop] = res.window
         if res.sat_window is not None:
             sat[start:stop, setup.win_idx] = res.sat_window
+        if res.masked_window is not None:
+            setup.masked_line[start:stop, setup.win_idx] = res.masked_window
+        setup.masked_ranges += [(start + r, a, b) for r, a, b in res.masked]
         total[start:stop] = res.total
         bg[start:stop] = res.background
         _merge_sums(sums, counts, res)
@@ -507,7 +638,7 @@ def measure_run(
             projs = []
             fsup = np.zeros((setup.wl.size, fplan.n_fit), dtype=bool)
             for g, members in enumerate(setup.groups):
-                gf = _fit_one_group(setup, mean, members, shifts.get(s, 0.0), s)
+                gf = _fit_one_group(setup, mean, members, s)
                 fits[(s, g)] = gf
                 cols = np.array([col_of[i] for i in members])
                 projs.append(FitProjection(pixels=gf.pixels, P=gf.projection(), cols=cols))
@@ -518,6 +649,8 @@ def measure_run(
             fit_vals[start:stop] = res.fit
             if res.sat_fit is not None:
                 sat[start:stop, setup.fit_idx] = res.sat_fit
+            if res.masked_fit is not None:
+                setup.masked_line[start:stop, setup.fit_idx] = res.masked_fit
             if progress:
                 progress(stop - start)
     # assemble per-shot intensities in method line order
@@ -526,13 +659,15 @@ def measure_run(
         raw_int[:, setup.win_idx] = win
     if setup.fit_idx:
         raw_int[:, setup.fit_idx] = fit_vals
+    raw_int[setup.masked_line] = np.nan  # a masked pixel never enters an integral or a fit
+    setup.notes += _masked_notes(setup)
     return _aggregate(setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk)
 
 
-def _fit_one_group(setup: _Setup, mean: np.ndarray, members: list[int], shift: float, s: int) -> GroupFit:
+def _fit_one_group(setup: _Setup, mean: np.ndarray, members: list[int], s: int) -> GroupFit:
     m = setup.method.measure
     lines = [setup.lines[i] for i in members]
-    centres = np.array([ln.wavelength_nm for ln in lines]) + shift
+    centres = np.array([ln.wavelength_nm + setup.shift_of(s, ln.wavelength_nm) for ln in lines])
     fw = [ln.fwhm_nm for ln in lines if ln.fwhm_nm]
     fwhm0 = float(fw[0]) if fw else 3.0 * setup.pitch
     halves = [0.5 * window_width_nm(ln, setup.pitch) for ln in lines]
@@ -583,11 +718,231 @@ def _qc_decide(pre, qc_x: np.ndarray, pulse: np.ndarray | None, rows: np.ndarray
     )
 
 
+def _all_rejected_error(setup: _Setup, run, s: int, idx: np.ndarray, dec, hits=None) -> DataQualityError:
+    """The error for a sample without accepted shots; names masked pixels when they are the cause
+    (``hits``: its masked ranges ``(row, first, last)``, default those found by the measurement)."""
+    sid = setup.sample_ids[s]
+    shot_no = np.asarray(setup.shot_number)
+    rows = set(idx.tolist())
+    if hits is None:
+        hits = [(r, a, b) for r, a, b in setup.masked_ranges if r in rows]
+    if hits:
+        shown = "; ".join(
+            f"shot {int(shot_no[r])}: {describe_range(a, b, setup.wl)}" for r, a, b in hits[:5]
+        ) + (f"; and {len(hits) - 5} more range(s)" if len(hits) > 5 else "")
+        return DataQualityError(
+            f"no usable shot in sample {sid!r}: its spectra hold masked pixels (NaN, infinite, sentinel or "
+            f"implausible values, or masked in the run) -- {shown}",
+            where=f"{run.path}: sample {sid}",
+            fix="re-export the sample's spectra from the instrument; 'compquant inspect' lists every masked range",
+        )
+    return DataQualityError(
+        f"all {idx.size} shots of sample {sid!r} were rejected by shot QC "
+        f"({', '.join(f'{k}: {v}' for k, v in sorted(dec.counts.items()))})",
+        where=f"{run.path}: sample {sid}",
+        fix="check the sample's spectra ('compquant plot'), or relax [preprocess.qc] "
+        "(k, min_fraction, min_signal) or disable it",
+    )
+
+
+def _shift_row(setup: _Setup, s: int, sid: str, flag_nm: float) -> dict:
+    pre = setup.method.preprocess
+    c = setup.corr.get(s)
+    if c is None:
+        c = WavecalResult(model="shift", status="ok" if pre.shift == "none" else "too_few_refs")
+    d = c.a if c.applied else 0.0
+    return {
+        "sample_id": sid,
+        "shift_nm": d,
+        "method": pre.shift,
+        "shifted": bool(pre.shift != "none" and abs(d) > flag_nm),
+        "model": c.model,
+        "dispersion_nm_per_nm": c.b if c.applied else 0.0,
+        "u_shift_nm": c.u_shift_nm,
+        "u_dispersion": c.u_dispersion,
+        "rms_residual_nm": c.rms_nm,
+        "n_refs": len(c.refs),
+        "n_used": c.n_used,
+        "status": c.status,
+        "applied": bool(c.applied),
+        "wavelength_refs_disagree": bool(pre.shift != "none" and c.disagree),
+    }
+
+
+def _reference_rows(setup: _Setup, s: int, sid: str) -> list[dict]:
+    c = setup.corr.get(s)
+    if c is None:
+        return []
+    return [
+        {"sample_id": sid, "reference_nm": r.ref_nm, "found_nm": r.found_nm, "residual_nm": r.residual_nm,
+         "status": r.status}
+        for r in c.refs
+    ]
+
+
+def _masked_notes(setup: _Setup, limit: int = 3) -> list[str]:
+    """One note per sample with masked pixels: how many ranges, the first few by shot and pixels."""
+    by_sample: dict[int, list] = {}
+    for r, a, b in setup.masked_ranges:
+        by_sample.setdefault(int(setup.sample_index[r]), []).append((r, a, b))
+    shot_no = np.asarray(setup.shot_number)
+    notes = []
+    for s, items in sorted(by_sample.items()):
+        shown = "; ".join(f"shot {int(shot_no[r])} {describe_range(a, b, setup.wl)}" for r, a, b in items[:limit])
+        more = f"; and {len(items) - limit} more" if len(items) > limit else ""
+        notes.append(f"sample {setup.sample_ids[s]!r}: {len(items)} masked pixel range(s) ({shown}{more}); "
+                     "lines touching them are left out of those shots and flagged 'masked'")
+    return notes
+
+
+def _masked_table(setup: _Setup) -> pd.DataFrame:
+    shot_no = np.asarray(setup.shot_number)
+    return pd.DataFrame(
+        [
+            {"sample_id": setup.sample_ids[int(setup.sample_index[r])], "shot": int(shot_no[r]),
+             "first_pixel": a, "last_pixel": b}
+            for r, a, b in setup.masked_ranges
+        ],
+        columns=["sample_id", "shot", "first_pixel", "last_pixel"],
+    )
+
+
+def _centre_uncertainty(fwhm: float, snr: float, a: float, b: float) -> float:
+    """Standard uncertainty of a measured line centre, ``FWHM / SNR`` (a conservative form of
+    the centroid precision sigma / SNR of a Gaussian line, common practice); a third of the
+    window stands in for an unmeasured FWHM."""
+    w = fwhm if np.isfinite(fwhm) and fwhm > 0 else (b - a) / 3.0
+    return float(w / snr) if np.isfinite(snr) and snr > 0 else float("inf")
+
+
+def _window_clips(centre: float, fwhm: float, a: float, b: float, u_c: float) -> bool:
+    """The line is wider than its window, or its half-maximum extent ``centre +- FWHM/2`` leaves
+    the window, beyond twice the centre's uncertainty (docs: line flags)."""
+    if not (np.isfinite(centre) and np.isfinite(fwhm)):
+        return False
+    m = 2.0 * u_c
+    return bool(fwhm - m > (b - a) or centre - 0.5 * fwhm + m < a or centre + 0.5 * fwhm - m > b)
+
+
+def _wider_than_window(setup: _Setup, s: int, mean_spec, lo: float, hi: float) -> bool:
+    """A clear peak (> 20 noise SDs) in the window whose own FWHM, measured on the mean spectrum
+    beyond the window (compquant.lines.wavecal.peak_fwhm), exceeds the window: flagged even when
+    the narrow window or fit then finds no line."""
+    if mean_spec is None:
+        return False
+    cache = setup.__dict__.setdefault("_noise", {})
+    if s not in cache:
+        cache[s] = noise_sd(mean_spec)
+    i0 = int(np.searchsorted(setup.wl, lo))
+    i1 = int(np.searchsorted(setup.wl, hi, side="right"))
+    if i1 - i0 < 3 or not np.isfinite(cache[s]) or cache[s] <= 0:
+        return False
+    j = i0 + int(np.argmax(mean_spec[i0:i1]))
+    if j in (i0, i1 - 1) or mean_spec[j] < 20.0 * cache[s]:
+        return False
+    w = peak_fwhm(setup.wl, mean_spec, j, max_pixels=4 * (i1 - i0))
+    return bool(np.isfinite(w) and w > hi - lo)
+
+
+def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_noise_win, f_mean, fits,
+              flag_nm) -> dict:
+    """One row of the line table: statistics over the accepted shots and the line's flags."""
+    meas, pre = setup.method.measure, setup.method.preprocess
+    ln = setup.lines[li]
+    ok = np.isfinite(vals)
+    nv = int(ok.sum())
+    flags = set()
+    intensity = float(np.mean(vals[ok])) if nv else float("nan")
+    sd = float(np.std(vals[ok], ddof=1)) if nv >= 2 else float("nan")
+    if sat.any():
+        flags.add("saturated")
+    if masked.any():
+        flags.add("masked")
+    expected = ln.wavelength_nm + setup.shift_of(s, ln.wavelength_nm)
+    if ln.mode == "window":
+        k = setup.win_idx.index(li)
+        if nv >= 2:
+            u = sd / math.sqrt(nv)
+        else:
+            u = float(u_noise_win[k]) / f_mean if u_noise_win is not None else float("nan")
+        g = setup.geometry(li, s)
+        centre = fwhm = float("nan")
+        if mean_spec is not None:
+            centre, fwhm = peak_centre_fwhm(setup.wl, mean_spec, g.a, g.b)
+        lo = g.left[0] if g.left else g.a
+        hi = g.right[1] if g.right else g.b
+        for other in setup.lines:
+            if other is not ln and lo <= other.wavelength_nm + setup.shift_of(s, other.wavelength_nm) <= hi:
+                flags.add("overlapped")
+        win_lo, win_hi = g.a, g.b
+    else:
+        gi = next(gx for gx, mem in enumerate(setup.groups) if li in mem)
+        gf = fits[(s, gi)]
+        j = setup.groups[gi].index(li)
+        var_full = float(gf.cov_areas[j, j])
+        u_shape2 = max(var_full - float(gf.var_areas_linear[j]), 0.0)
+        if nv >= 2:
+            u = math.sqrt(sd * sd / nv + u_shape2 / (f_mean * f_mean))
+        else:
+            u = math.sqrt(max(var_full, 0.0)) / f_mean
+        centre, fwhm = float(gf.centres[j]), float(gf.fwhm[j])
+        for jj in range(len(gf.centres)):
+            if jj != j and abs(gf.centres[jj] - centre) < max(gf.fwhm[j], gf.fwhm[jj]):
+                flags.add("overlapped")
+        if not gf.success:
+            flags.add("not_found")
+        win_lo, win_hi = float(setup.wl[gf.pixels[0]]), float(setup.wl[gf.pixels[-1]])
+    if np.isfinite(u) and u > 0:
+        snr = intensity / u
+    elif u == 0 and np.isfinite(intensity) and intensity > 0:
+        snr = float("inf")  # exact by construction (the normalising line itself)
+    else:
+        snr = float("nan")
+    if nv == 0 and "masked" in flags:
+        pass  # not measured: every accepted shot has a masked pixel on the line ('masked' says why)
+    elif np.isnan(snr) or snr < meas.snr_detect:
+        flags.add("not_found")
+    elif snr < meas.snr_min:
+        flags.add("low_snr")
+    if "not_found" in flags or nv == 0:
+        centre = fwhm = float("nan")  # a position in noise means nothing, in any mode
+    well_measured = np.isfinite(snr) and snr >= meas.snr_min
+    u_c = _centre_uncertainty(fwhm, snr, win_lo, win_hi)
+    if well_measured and np.isfinite(centre) and abs(centre - expected) > flag_nm + 2.0 * u_c:
+        flags.add("shifted")
+    single = ln.mode == "window" or len(next(g for g in setup.groups if li in g)) == 1  # blends: no
+    if (well_measured and _window_clips(centre, fwhm, win_lo, win_hi, u_c)) or (
+        single and _wider_than_window(setup, s, mean_spec, win_lo, win_hi)
+    ):
+        flags.add("window_clips")
+    c = setup.corr.get(s)
+    if pre.shift != "none" and c is not None and c.disagree:
+        flags.add("wavelength_refs_disagree")
+    if nv == 1:
+        flags.add("single_shot")
+    return {
+        "sample_id": sid,
+        "role": role,
+        "line_id": ln.line_id,
+        "element": ln.element,
+        "ion": int(ln.ion),
+        "wavelength_nm": ln.wavelength_nm,
+        "intensity": intensity,
+        "u_intensity": u,
+        "sd_shots": sd,
+        "n_shots": nv,
+        "centre_nm": centre,
+        "fwhm_nm": fwhm,
+        "snr": snr,
+        "flags": ";".join(f for f in FLAG_ORDER if f in flags),
+    }
+
+
 def _aggregate(
     setup: _Setup, run, raw_int, sat, total, bg, means, shifts, fits, ww_shared, ww_by_sample, chunk
 ) -> LineMeasurement:
     method = setup.method
-    pre, meas = method.preprocess, method.measure
+    pre = method.preprocess
     n_shots, n_lines = raw_int.shape
     line_ids = [ln.line_id for ln in setup.lines]
     # per-shot normalisation factors
@@ -613,9 +968,8 @@ def _aggregate(
     qc_x = np.where(good_f, qc_x, np.nan)
     accepted = np.zeros(n_shots, dtype=bool)
     reasons = [""] * n_shots
-    qc_rows, rows, shift_rows = [], [], []
-    pitch = setup.pitch
-    flag_nm = pre.shift_flag_nm if pre.shift_flag_nm else pitch
+    qc_rows, rows, shift_rows, ref_rows = [], [], [], []
+    flag_nm = pre.shift_flag_nm if pre.shift_flag_nm else setup.pitch
     for s, sid in enumerate(setup.sample_ids):
         role = str(setup.samples["role"].iloc[s])
         idx = np.flatnonzero(setup.sample_index == s)
@@ -639,108 +993,18 @@ def _aggregate(
             }
         )
         if not dec.accepted.any():
-            raise DataQualityError(
-                f"all {idx.size} shots of sample {sid!r} were rejected by shot QC "
-                f"({', '.join(f'{k}: {v}' for k, v in sorted(dec.counts.items()))})",
-                where=f"{run.path}: sample {sid}",
-                fix="check the sample's spectra ('compquant plot'), or relax [preprocess.qc] "
-                "(k, min_fraction, min_signal) or disable it",
-            )
-        d = shifts.get(s, 0.0)
-        shift_rows.append(
-            {
-                "sample_id": sid,
-                "shift_nm": d,
-                "method": pre.shift,
-                "shifted": bool(pre.shift != "none" and abs(d) > flag_nm),
-            }
-        )
+            raise _all_rejected_error(setup, run, s, idx, dec)
+        shift_rows.append(_shift_row(setup, s, sid, flag_nm))
+        ref_rows += _reference_rows(setup, s, sid)
         acc = idx[dec.accepted]
         mean_spec = means.get(s)
         ww = ww_by_sample.get(s, ww_shared)
         u_noise_win = ww.u_noise(mean_spec) if (ww is not None and mean_spec is not None) else None
         f_mean = float(np.mean(factor[acc])) if pre.normalise != "none" or pre.pulse_energy_normalise else 1.0
-        for li, ln in enumerate(setup.lines):
-            vals = inten[acc, li]
-            ok = np.isfinite(vals)
-            nv = int(ok.sum())
-            flags = set()
-            intensity = float(np.mean(vals[ok])) if nv else float("nan")
-            sd = float(np.std(vals[ok], ddof=1)) if nv >= 2 else float("nan")
-            if sat[acc, li].any():
-                flags.add("saturated")
-            centre = fwhm = float("nan")
-            if ln.mode == "window":
-                k = setup.win_idx.index(li)
-                if nv >= 2:
-                    u = sd / math.sqrt(nv)
-                else:
-                    u = float(u_noise_win[k]) / f_mean if u_noise_win is not None else float("nan")
-                g = setup.geometry(li, d)
-                if mean_spec is not None:
-                    centre, fwhm = peak_centre_fwhm(setup.wl, mean_spec, g.a, g.b)
-                lo = g.left[0] if g.left else g.a
-                hi = g.right[1] if g.right else g.b
-                for other in setup.lines:
-                    if other is not ln and lo <= other.wavelength_nm + d <= hi:
-                        flags.add("overlapped")
-                expected = ln.wavelength_nm + d
-                # the window still holds the line while its centre is within a quarter window
-                centre_tol = max(flag_nm, 0.25 * (g.b - g.a))
-            else:
-                gi = next(gx for gx, mem in enumerate(setup.groups) if li in mem)
-                gf = fits[(s, gi)]
-                j = setup.groups[gi].index(li)
-                var_full = float(gf.cov_areas[j, j])
-                u_shape2 = max(var_full - float(gf.var_areas_linear[j]), 0.0)
-                if nv >= 2:
-                    u = math.sqrt(sd * sd / nv + u_shape2 / (f_mean * f_mean))
-                else:
-                    u = math.sqrt(max(var_full, 0.0)) / f_mean
-                centre, fwhm = float(gf.centres[j]), float(gf.fwhm[j])
-                for jj in range(len(gf.centres)):
-                    if jj != j and abs(gf.centres[jj] - centre) < max(gf.fwhm[j], gf.fwhm[jj]):
-                        flags.add("overlapped")
-                if not gf.success:
-                    flags.add("not_found")
-                expected = ln.wavelength_nm + d
-                centre_tol = max(flag_nm, 0.5 * fwhm) if np.isfinite(fwhm) else flag_nm
-            if np.isfinite(u) and u > 0:
-                snr = intensity / u
-            elif u == 0 and np.isfinite(intensity) and intensity > 0:
-                snr = float("inf")  # exact by construction (the normalising line itself)
-            else:
-                snr = float("nan")
-            if np.isnan(snr) or snr < meas.snr_detect:
-                flags.add("not_found")
-                if ln.mode == "window":  # a peak position in noise means nothing
-                    centre = fwhm = float("nan")
-            elif snr < meas.snr_min:
-                flags.add("low_snr")
-            if pre.shift != "none" and abs(d) > flag_nm:
-                flags.add("shifted")
-            well_measured = np.isfinite(snr) and snr >= meas.snr_min
-            if well_measured and np.isfinite(centre) and abs(centre - expected) > centre_tol:
-                flags.add("shifted")
-            if nv == 1:
-                flags.add("single_shot")
+        for li in range(len(setup.lines)):
             rows.append(
-                {
-                    "sample_id": sid,
-                    "role": role,
-                    "line_id": ln.line_id,
-                    "element": ln.element,
-                    "ion": int(ln.ion),
-                    "wavelength_nm": ln.wavelength_nm,
-                    "intensity": intensity,
-                    "u_intensity": u,
-                    "sd_shots": sd,
-                    "n_shots": nv,
-                    "centre_nm": centre,
-                    "fwhm_nm": fwhm,
-                    "snr": snr,
-                    "flags": ";".join(f for f in FLAG_ORDER if f in flags),
-                }
+                _line_row(setup, s, sid, role, li, inten[acc, li], sat[acc, li], setup.masked_line[acc, li],
+                          mean_spec, u_noise_win, f_mean, fits, flag_nm)
             )
     table = pd.DataFrame(rows, columns=LINE_TABLE_COLUMNS)
     prov = {
@@ -757,6 +1021,10 @@ def _aggregate(
         "normalise": pre.normalise,
         "pulse_energy_normalise": pre.pulse_energy_normalise,
         "shift": pre.shift,
+        "shift_model": pre.shift_model,
+        "medium": {"method": setup.method.medium, "run": getattr(run, "medium", "air"), "note": setup.medium_note},
+        "masked_ranges": len(setup.masked_ranges),
+        "wavelength_references": ref_rows,
         "qc": {
             "enabled": pre.qc,
             "quantity": pre.qc_quantity,
@@ -772,7 +1040,9 @@ def _aggregate(
     return LineMeasurement(
         table=table,
         qc=pd.DataFrame(qc_rows),
-        shifts=pd.DataFrame(shift_rows),
+        shifts=pd.DataFrame(shift_rows, columns=SHIFT_TABLE_COLUMNS),
+        references=pd.DataFrame(ref_rows, columns=REFERENCE_TABLE_COLUMNS),
+        masked_pixels=_masked_table(setup),
         provenance=prov,
         line_ids=line_ids,
         shot_sample=setup.sample_index,
@@ -834,10 +1104,15 @@ def mean_spectrum(
     if pre.qc_quantity != "total":
         # QC on a line: its window integral at the table position (fit-mode lines too)
         li = [ln.line_id for ln in setup.lines].index(pre.qc_quantity)
-        qc_weights = build_window_weights(setup.wl, [setup.geometry(li, 0.0)]).W[:, 0]
+        qc_weights = build_window_weights(setup.wl, [setup.geometry(li, None)]).W[:, 0]
     pos = 0
+    hits: list = []  # masked ranges (row, first, last), for the error when no shot is usable
     for sub in pieces:
-        y = _preprocessed(run.read_raw(int(sub[0]), int(sub[-1]) + 1), plan)
+        raw = run.read_raw(int(sub[0]), int(sub[-1]) + 1)
+        bad = find_masked(raw)
+        if bad is not None:
+            hits += [(int(sub[r]), a, b) for r, a, b in masked_ranges(bad)]
+        y = _preprocessed(raw, plan)
         totals[pos : pos + sub.size] = y @ qc_weights
         pos += sub.size
     qc_x = totals
@@ -846,11 +1121,7 @@ def mean_spectrum(
         qc_x = totals / (e[rows] / np.nanmedian(e))
     dec = _qc_decide(pre, qc_x, setup.pulse, rows)
     if not dec.accepted.any():
-        raise DataQualityError(
-            f"all {rows.size} shots of sample {sample_id!r} were rejected by shot QC",
-            where=f"{run.path}: sample {sample_id}",
-            fix="relax [preprocess.qc] or check the sample's spectra",
-        )
+        raise _all_rejected_error(setup, run, s, rows, dec, hits)
     pos = 0
     for sub in pieces:
         m = dec.accepted[pos : pos + sub.size]
@@ -861,33 +1132,24 @@ def mean_spectrum(
         spectra_sum += y[m].sum(axis=0)
     mean = spectra_sum / dec.accepted.sum()
     d = 0.0
+    wl = setup.wl
     if pre.shift != "none":
-        d = _find_shifts_for_mean(setup, mean)
-    return setup.wl - d, mean, {"n_shots": int(rows.size), "n_accepted": int(dec.accepted.sum()), "shift_nm": d}
+        c = _sample_correction(setup, mean)
+        if c.applied:
+            d = float(c.a)
+            wl = setup.wl - np.asarray(c.shift_at(setup.wl))
+    return wl, mean, {"n_shots": int(rows.size), "n_accepted": int(dec.accepted.sum()), "shift_nm": d}
 
 
 def _preprocessed(raw, plan: ChunkPlan) -> np.ndarray:
     y = np.asarray(raw).astype(np.float64, copy=True)
+    bad = find_masked(np.asarray(raw))
     if plan.dark is not None:
         y -= plan.dark
     if plan.inv_response is not None:
         y *= plan.inv_response
+    if bad is not None:  # bridged after dark and response, as process_chunk does
+        repair_masked(y, bad)
     if plan.baseline != "none":
         y -= estimate_baseline(y, plan.baseline, **plan.baseline_params)
     return y
-
-
-def _find_shifts_for_mean(setup: _Setup, mean: np.ndarray) -> float:
-    pre = setup.method.preprocess
-    if pre.shift == "lines":
-        d, _ = shift_from_lines(setup.wl, mean, _shift_lines_nm(setup.method), pre.shift_search_nm)
-    else:
-        x, r = _load_curve_csv(
-            setup.method.resolve_path(pre.shift_reference_file),
-            ("wavelength_nm", "intensity"),
-            f"{setup.method.where}: [preprocess.shift] reference_file",
-        )
-        d = shift_by_cross_correlation(setup.wl, mean, x, r, pre.max_shift_nm)
-    if not np.isfinite(d) or abs(d) > pre.max_shift_nm:
-        return 0.0
-    return float(d)

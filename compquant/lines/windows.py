@@ -9,8 +9,12 @@ windows ``[a - g - s, a - g]`` and ``[b + g, b + g + s]``::
 where ``y(l)`` is the piecewise-linear interpolant through the pixel values
 (so window edges need not fall on pixel centres) and ``(alpha, beta)`` the
 least-squares line through the side pixels.  Both terms are linear in the
-pixel values, so every line reduces to one weight vector ``w`` and a batch of
-spectra is measured by one matrix product ``I = Y @ W`` (n_shots x n_lines).
+pixel values, so every line reduces to one weight vector ``w``.  Each vector is
+non-zero only on the line's own pixels (window, bracketing pixels and side
+windows), so it is stored sparse, per line (pixel indices and weights): measuring
+``L`` lines costs ``O(L x pixels per line)`` per spectrum, linear in the number of
+lines, where a dense ``(n_pixels, L)`` matrix would cost ``O(n_pixels x L)``.  The
+dense matrix ``W`` (``I = Y @ W``) is still available, built on demand.
 
 When only one side window lies inside the spectrum the background is the
 constant mean of that side; without side pixels there is no background
@@ -38,6 +42,23 @@ def interpolant_integral_weights(wavelength, a: float, b: float) -> np.ndarray:
     x = np.asarray(wavelength, dtype=np.float64)
     w = np.zeros_like(x)
     if b <= a:
+        return w
+    lo, hi = _bracket(x, a, b)
+    w[lo:hi] = _local_interpolant_weights(x[lo:hi], a, b)
+    return w
+
+
+def _bracket(x: np.ndarray, a: float, b: float) -> tuple[int, int]:
+    """Pixel range ``[lo, hi)`` holding every pixel whose interpolant weight on ``[a, b]`` can be non-zero."""
+    lo = max(0, int(np.searchsorted(x, a, side="right")) - 1)
+    hi = min(x.size, int(np.searchsorted(x, b, side="left")) + 1)
+    return lo, max(hi, lo)
+
+
+def _local_interpolant_weights(x: np.ndarray, a: float, b: float) -> np.ndarray:
+    """:func:`interpolant_integral_weights` on the pixels ``x`` only (the segments between them)."""
+    w = np.zeros_like(x)
+    if b <= a or x.size < 2:
         return w
     x0, x1 = x[:-1], x[1:]
     u = np.clip(a, x0, x1)
@@ -80,17 +101,40 @@ def _side_pixels(wl: np.ndarray, rng: tuple[float, float] | None) -> np.ndarray:
 
 @dataclass
 class WindowWeights:
-    """Weight matrix and noise operators for a set of window-integrated lines."""
+    """Per-line sparse weights and noise operators for a set of window-integrated lines.
 
-    W: np.ndarray  # (n_pixels, n_lines): I = Y @ W
+    Line ``j`` is ``I_j = sum_k weights[j][k] * y[pixels[j][k]]``; ``pixels[j]`` are the
+    pixels where its weight vector is non-zero (sorted), so storage and work are
+    linear in the number of lines.
+    """
+
+    pixels: list[np.ndarray]  # per line: pixel indices with non-zero weight
+    weights: list[np.ndarray]  # per line: the weights on those pixels
     support: list[np.ndarray]  # pixel indices each line touches (line + side windows)
     side: list[np.ndarray]  # side pixel indices
     background: list[str]  # "linear", "constant" or "none"
     geometry: list[WindowLine]
+    n_pixels: int = 0
 
     @property
     def n_lines(self) -> int:
-        return self.W.shape[1]
+        return len(self.pixels)
+
+    @property
+    def W(self) -> np.ndarray:
+        """The dense ``(n_pixels, n_lines)`` matrix with ``I = Y @ W`` (built on each call)."""
+        W = np.zeros((self.n_pixels, self.n_lines))
+        for j, (idx, w) in enumerate(zip(self.pixels, self.weights)):
+            W[idx, j] = w
+        return W
+
+    def integrate(self, spectra) -> np.ndarray:
+        """Intensities of all lines: ``(n_shots, n_lines)`` (or ``(n_lines,)`` for one spectrum)."""
+        Y = np.asarray(spectra, dtype=np.float64)
+        out = np.empty(Y.shape[:-1] + (self.n_lines,))
+        for j, (idx, w) in enumerate(zip(self.pixels, self.weights)):
+            out[..., j] = Y[..., idx] @ w
+        return out
 
     def noise_sigma(self, spectrum: np.ndarray) -> np.ndarray:
         """Per-line pixel noise of ONE spectrum from its side-pixel scatter (NaN if < 3 pixels)."""
@@ -110,20 +154,32 @@ class WindowWeights:
 
     def u_noise(self, spectrum: np.ndarray) -> np.ndarray:
         """Standard uncertainty of each line's intensity from pixel noise: ``sigma * ||w||``."""
-        return self.noise_sigma(spectrum) * np.linalg.norm(self.W, axis=0)
+        norms = np.array([np.linalg.norm(w) for w in self.weights])
+        return self.noise_sigma(spectrum) * norms
 
 
 def build_window_weights(wavelength, geometries: list[WindowLine]) -> WindowWeights:
-    """Weight vectors for window integration minus local linear background (module docstring)."""
+    """Weight vectors for window integration minus local linear background (module docstring).
+
+    Each line's weights are computed on its own pixels only (window, bracketing pixels,
+    side windows): the cost is linear in the number of lines.
+    """
     wl = np.asarray(wavelength, dtype=np.float64)
     n = wl.size
-    W = np.zeros((n, len(geometries)))
-    supports, sides, kinds = [], [], []
-    for j, g in enumerate(geometries):
-        w = interpolant_integral_weights(wl, g.a, g.b)
+    pixels, weights, supports, sides, kinds = [], [], [], [], []
+    for g in geometries:
+        lo, hi = _bracket(wl, g.a, g.b)
         li = _side_pixels(wl, g.left)
         ri = _side_pixels(wl, g.right)
         idx = np.concatenate([li, ri])
+        # support: pixels inside the window and those bracketing its edges, and the side pixels
+        s_lo = max(0, int(np.searchsorted(wl, g.a)) - 1)
+        s_hi = min(n, int(np.searchsorted(wl, g.b, side="right")) + 1)
+        sup = np.union1d(np.arange(s_lo, s_hi), idx).astype(np.intp)  # sorted, unique; holds [lo, hi)
+        w = np.zeros(sup.size)
+        pos = np.searchsorted(sup, np.arange(lo, hi))
+        w[pos] = _local_interpolant_weights(wl[lo:hi], g.a, g.b)
+        side_pos = np.searchsorted(sup, idx)
         if li.size and ri.size and idx.size >= 2:
             x = wl[idx] - g.centre_nm
             A = np.column_stack([np.ones(idx.size), x])
@@ -131,33 +187,29 @@ def build_window_weights(wavelength, geometries: list[WindowLine]) -> WindowWeig
             # int_a^b alpha + beta (l - c) dl
             ua, ub = g.a - g.centre_nm, g.b - g.centre_nm
             g_row = np.array([ub - ua, 0.5 * (ub**2 - ua**2)])
-            w[idx] -= g_row @ P
+            w[side_pos] -= g_row @ P
             kind = "linear"
         elif idx.size >= 1:
-            w[idx] -= (g.b - g.a) / idx.size
+            w[side_pos] -= (g.b - g.a) / idx.size
             kind = "constant"
         else:
             kind = "none"
-        W[:, j] = w
-        inside = np.nonzero((wl >= g.a) & (wl <= g.b))[0]
-        # pixels bracketing the window edges also contribute to the interpolant
-        lo = max(0, int(np.searchsorted(wl, g.a)) - 1)
-        hi = min(n, int(np.searchsorted(wl, g.b, side="right")) + 1)
-        sup = np.union1d(np.union1d(inside, np.arange(lo, hi)), idx)
-        supports.append(sup.astype(np.intp))
+        nz = w != 0
+        pixels.append(sup[nz])
+        weights.append(w[nz])
+        supports.append(sup)
         sides.append(idx.astype(np.intp))
         kinds.append(kind)
-    out = WindowWeights(W=W, support=supports, side=sides, background=kinds, geometry=geometries)
+    out = WindowWeights(
+        pixels=pixels, weights=weights, support=supports, side=sides, background=kinds, geometry=geometries, n_pixels=n
+    )
     out._wl = wl  # type: ignore[attr-defined]
     return out
 
 
 def integrate_windows(spectra, weights: WindowWeights) -> np.ndarray:
-    """Intensities of all lines in all spectra: ``Y @ W`` -> (n_shots, n_lines)."""
-    Y = np.asarray(spectra, dtype=np.float64)
-    if Y.ndim == 1:
-        return Y @ weights.W
-    return Y @ weights.W
+    """Intensities of all lines in all spectra -> (n_shots, n_lines) (per-line sparse sums)."""
+    return weights.integrate(spectra)
 
 
 def support_mask(n_pixels: int, supports: list[np.ndarray]) -> np.ndarray:

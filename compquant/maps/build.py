@@ -29,6 +29,7 @@ Memory: the spectra are streamed; held in memory are the per-shot intensities
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -73,10 +74,12 @@ def parse_map_section(section: dict | None, where: str = "method") -> MapSetting
     if "step_mm" in section:
         v = section["step_mm"]
         vals = v if isinstance(v, list) else [v]
-        ok = len(vals) in (1, 2) and all(isinstance(x, int | float) and not isinstance(x, bool) and x > 0 for x in vals)
+        ok = len(vals) in (1, 2) and all(
+            isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) and x > 0 for x in vals
+        )
         if not ok:
             raise MethodError(
-                f"step_mm {v!r} is not a positive number or [dx, dy]",
+                f"step_mm {v!r} is not a positive finite number or [dx, dy]",
                 where=f"{w} step_mm",
                 fix="write step_mm = 0.05 or step_mm = [0.05, 0.1]",
             )
@@ -237,12 +240,13 @@ def make_maps(
     y = run.shots["y_mm"].to_numpy(dtype=float)
     idx = run.shots["sample_index"].to_numpy()
     col = {lid: k for k, lid in enumerate(lm.line_ids)}
-    out, node_tables, grids = [], [], {}
+    out, node_tables, grids, notes = [], [], {}, []
     for s in rows_of:
         sid = lm.sample_ids[s]
         rows = np.flatnonzero(idx == s)
         grid = RasterGrid.from_positions(x[rows], y[rows], settings.step_mm, where=f"{run.path}: sample {sid}")
         grids[sid] = grid
+        _note_outliers(notes, sid, grid, x[rows], y[rows])
         acc = _accumulate(lm, rows, grid, x, y, list(range(len(lm.line_ids))))
         role = str(run.samples["role"].iloc[s])
         sm = SampleMaps(sid, role, grid, acc.count_map())
@@ -294,8 +298,23 @@ def make_maps(
             for sid, g in grids.items()
         },
         "measurement": lm.provenance,
+        "notes": notes,
     }
     return MapResult(out, lm, prov["quantity"], prov, results)
+
+
+def _note_outliers(notes: list, sid: str, grid: RasterGrid, x: np.ndarray, y: np.ndarray) -> None:
+    """Say how many shots of ``sid`` lie off the grid (stray stage positions), and where."""
+    ok = np.isfinite(x) & np.isfinite(y)
+    off = ok & (grid.node_index(x, y) < 0)
+    if off.any():
+        k = int(np.argmax(off))
+        notes.append(
+            f"sample {sid}: {int(off.sum())} shot(s) at stray stage positions (first at x = {x[k]:.6g}, "
+            f"y = {y[k]:.6g} mm) lie outside the raster and are left out of the map"
+        )
+    if (~ok).any():
+        notes.append(f"sample {sid}: {int((~ok).sum())} shot(s) without a finite position are left out of the map")
 
 
 __all__ = [

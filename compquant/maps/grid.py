@@ -6,6 +6,8 @@ sits at ``x = x0 + i·dx``, ``y = y0 + j·dy`` with ``x0``, ``y0`` the smallest 
 Each shot is assigned to its nearest node, ``i = rint((x - x0)/dx)``; several shots on one
 node (repeated pulses on a spot) are averaged. Steps are inferred from the positions (the
 median spacing of the distinct coordinates) unless the method's ``[map] step_mm`` sets them.
+Stray positions (a coordinate beyond Tukey's far-out fences, 3 interquartile ranges outside
+the quartiles) do not stretch the grid: they are left off it, and the map says how many.
 
 The accumulator adds per-shot values chunk by chunk into per-node sums and counts, so a map
 of millions of shots needs memory for the grid only. Sums are formed with ``np.bincount``
@@ -50,6 +52,23 @@ def _step_of(values: np.ndarray) -> float | None:
     return float(np.median(np.diff(centres)))
 
 
+#: Tukey's far-out fence factor: a coordinate further than this many interquartile ranges
+#: outside the quartiles is a stray stage position (Tukey, Exploratory Data Analysis, 1977)
+OUTLIER_FENCE = 3.0
+
+
+def _inliers(v: np.ndarray) -> np.ndarray:
+    """Coordinates inside Tukey's far-out fences; at least half of the shots always stay.
+
+    A raster covers its range evenly, so its quartiles lie well inside it and its whole extent
+    sits within 1.5 interquartile ranges of them; one stray position (x = 1e9 mm) is far outside.
+    When the quartiles coincide (most shots at one coordinate) the fence is the jitter floor.
+    """
+    q1, q3 = np.percentile(v, [25, 75])
+    span = max(q3 - q1, 10 * _ROUND_MM)
+    return (v >= q1 - OUTLIER_FENCE * span) & (v <= q3 + OUTLIER_FENCE * span)
+
+
 @dataclass(frozen=True)
 class RasterGrid:
     """Rectangular grid: origin ``x0_mm, y0_mm``, steps ``dx_mm, dy_mm``, size ``nx, ny``."""
@@ -76,11 +95,13 @@ class RasterGrid:
                 fix="map a rastered sample (shots/x_mm and shots/y_mm set)",
             )
         x, y = x[ok], y[ok]
+        keep = _inliers(x) & _inliers(y)
+        x, y = x[keep], y[keep]
         if step_mm is not None:
             dx, dy = (float(step_mm), float(step_mm)) if np.isscalar(step_mm) else map(float, step_mm)
-            if not (dx > 0 and dy > 0):
+            if not (np.isfinite(dx) and np.isfinite(dy) and dx > 0 and dy > 0):
                 raise DataQualityError(
-                    f"map step {step_mm!r} mm is not positive",
+                    f"map step {step_mm!r} mm is not a positive finite number",
                     where="[map] step_mm",
                     fix="give the raster step in mm, e.g. step_mm = 0.05",
                 )

@@ -125,12 +125,11 @@ def write_maps_h5(path: str | os.PathLike, samples: list[SampleMaps], attrs: dic
 
 def write_map_png(path: str | os.PathLike, sm: SampleMaps, em: ElementMap, *, dpi: int = 120) -> Path:
     """PNG of one map: node values with a colour bar (quantity and units) and a scale bar in mm."""
-    import matplotlib
-
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
     from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
+    from compquant.plotting import pyplot
+
+    plt = pyplot()
     g = sm.grid
     values = em.values
     label = em.units

@@ -29,8 +29,10 @@ them by name); lambdas and ``__main__`` functions do not travel.
 from __future__ import annotations
 
 import contextlib
+import ipaddress
 import logging
 import os
+import re
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
 from typing import Any
@@ -116,17 +118,53 @@ class DaskExecutor:
 Executor = SerialExecutor | DaskExecutor
 
 
+#: transports a Dask scheduler listens on (distributed.comm): tcp, tls, and websockets
+SCHEDULER_SCHEMES = ("tcp", "tls", "ws", "wss")
+
+_LABEL = r"[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?"
+_HOST = re.compile(rf"^{_LABEL}(?:\.{_LABEL})*$")  # host names (RFC 1123)
+
+
 def _check_address(address: str) -> str:
-    a = address.strip()
-    if not a or any(ch.isspace() for ch in a):
-        raise ConfigError(
-            f"scheduler address {address!r} is not an address",
-            where="--scheduler",
-            fix="give the scheduler address, e.g. tcp://10.0.0.5:8786",
-        )
-    if "://" not in a:
-        a = "tcp://" + a
-    return a
+    """``[scheme://]host:port`` with a known scheme, a host name or IP address and a port 1-65535.
+
+    Returns the address with its scheme (``tcp://`` when none was given). Anything else is a
+    one-line :class:`ConfigError` that shows the expected form, before any connection is tried.
+    """
+    form = "give it as [tcp://]HOST:PORT, e.g. tcp://10.0.0.5:8786 (schemes: " + ", ".join(SCHEDULER_SCHEMES) + ")"
+
+    def bad(why: str) -> ConfigError:
+        return ConfigError(f"scheduler address {address!r:.80} {why}", where="--scheduler", fix=form)
+
+    a = str(address).strip()
+    if not a or not a.isprintable() or any(ch.isspace() for ch in a):
+        raise bad("is empty or holds spaces or control characters")
+    scheme, sep, rest = a.partition("://")
+    if not sep:
+        scheme, rest = "tcp", a
+    if scheme.lower() not in SCHEDULER_SCHEMES:
+        raise bad(f"has an unknown scheme {scheme!r:.20}")
+    if "/" in rest or "@" in rest or "?" in rest or "#" in rest:
+        raise bad("has a path, user or query part")
+    if rest.startswith("["):  # [IPv6]:port
+        host, _, port = rest[1:].partition("]")
+        port = port[1:] if port.startswith(":") else ""
+        try:
+            ipaddress.IPv6Address(host)
+        except ValueError:
+            raise bad("has a bad IPv6 address") from None
+    else:
+        host, _, port = rest.rpartition(":")
+        if not host:
+            raise bad("has no host and port")
+        try:
+            ipaddress.IPv4Address(host)
+        except ValueError:
+            if not _HOST.match(host) or host.replace(".", "").isdigit():
+                raise bad(f"has a bad host name {host!r:.40}") from None
+    if not (port.isdigit() and 0 < int(port) < 65536):
+        raise bad(f"needs a port number from 1 to 65535, got {port!r:.12}")
+    return f"{scheme.lower()}://{rest}"
 
 
 def _worker_versions() -> dict:

@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from compquant.errors import CompquantError, InputError
+from compquant.fileio import require_file
 
 
 @dataclass
@@ -86,8 +87,8 @@ def collect_runs(inputs: Iterable[str | os.PathLike], pattern: str = "*.h5") -> 
                     where=str(p),
                     fix="give run files or a folder that holds .h5 runs",
                 )
-        elif p.is_file():
-            found = [p]
+        elif p.exists() or p.is_symlink():
+            found = [require_file(p, "run file")]  # a FIFO or a device is refused before any work
         else:
             raise InputError("no such run file or folder", where=str(p), fix="check the path")
         for q in found:
@@ -100,19 +101,25 @@ def collect_runs(inputs: Iterable[str | os.PathLike], pattern: str = "*.h5") -> 
     return out
 
 
+#: the files a multi-run call writes beside the runs' folders (a run folder never takes these names)
+COMBINED_OUTPUTS = ("runs.csv", "lines-all.csv", "lims-all.csv", "runs-failures.txt")
+
+
 def run_output_folders(paths, out_dir: str | os.PathLike) -> dict[str, Path]:
     """One output folder per run under ``out_dir``, named from the run file (safe name, numbered if repeated)."""
     from compquant.fileio import safe_filename
 
-    used: set[str] = set()
+    used: set[str] = set(COMBINED_OUTPUTS)
     folders = {}
     for p in paths:
         name = safe_filename(Path(p).stem)
+        if name.casefold() in used:  # a run called runs.csv.h5 must not take the combined table's name
+            name = f"{name}-run"
         base, k = name, 1
-        while name in used:
+        while name.casefold() in used:
             k += 1
             name = f"{base}-{k}"
-        used.add(name)
+        used.add(name.casefold())
         folders[str(p)] = Path(out_dir) / name
     return folders
 
@@ -137,4 +144,4 @@ def map_runs(
     return out
 
 
-__all__ = ["RunError", "RunOutcome", "collect_runs", "map_runs", "run_output_folders"]
+__all__ = ["COMBINED_OUTPUTS", "RunError", "RunOutcome", "collect_runs", "map_runs", "run_output_folders"]

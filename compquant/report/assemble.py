@@ -86,7 +86,7 @@ def measured_when(run, sample_id: str) -> str:
         try:
             t0 = _dt.datetime.fromisoformat(start.replace("Z", "+00:00"))
         except ValueError:
-            return start
+            return ""  # free text is not a date of measurement: the certificate says "not recorded"
         if t0.tzinfo is None:
             t0 = t0.replace(tzinfo=_dt.timezone.utc)
         shots = run.shots
@@ -96,7 +96,13 @@ def measured_when(run, sample_id: str) -> str:
                 t0 = t0 + _dt.timedelta(seconds=float(ts.min()))
         return t0.astimezone(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
     created = getattr(run, "attrs", {}).get("created")
-    return str(created) if created else ""
+    try:
+        t = _dt.datetime.fromisoformat(str(created).replace("Z", "+00:00"))
+    except ValueError:
+        return ""  # free text ("yesterday", "x") is never printed as the date of measurement
+    if t.tzinfo is None:
+        t = t.replace(tzinfo=_dt.timezone.utc)
+    return t.astimezone(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
 
 
 def technique(method, run) -> str:

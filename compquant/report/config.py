@@ -19,6 +19,9 @@ Lab profile (``lab.toml``, see ``docs/certificate.md``)::
     [samples]                         # optional defaults for the sample block
     condition = "..."  received = "YYYY-MM-DD"
 
+    [review]                          # optional (compquant.record, docs/record.md)
+    required = true                   # false: issue certificates authorised by the signatory, no DRAFT
+
 Specification (``spec-<grade>.toml``)::
 
     [specification]
@@ -54,7 +57,16 @@ ELEMENT_SYMBOLS = frozenset(
     "Bk Cf Es Fm Md No Lr Rf Db Sg Bh Hs Mt Ds Rg Cn Nh Fl Mc Lv Ts Og".split()
 )
 
-_PREFIX = re.compile(r"^[A-Za-z0-9]{1,12}$")
+_PREFIX = re.compile(r"[A-Za-z0-9]{1,12}")  # whole text only (fullmatch: a trailing newline is refused)
+
+#: longest text accepted in a one-line field of the certificate (names, titles, address lines,
+#: client, ids) and in a description; longer text cannot be laid out on an A4 page without
+#: breaking the page layout, so it is refused with one line before any work is done
+MAX_FIELD_CHARS = 200
+MAX_DESCRIPTION_CHARS = 2000
+MAX_LINES = 8
+MAX_ID_CHARS = 300
+_BREAKS = frozenset("\r\n\v\f\x85\u2028\u2029")
 
 
 def _text(table: dict, key: str, where: str, required: bool = False, default: str = "") -> str:
@@ -67,7 +79,38 @@ def _text(table: dict, key: str, where: str, required: bool = False, default: st
         raise ConfigError(
             f"{key!r} must be a non-empty text string", where=f"{where}.{key}", fix=f'write {key} = "..."'
         )
+    check_printed_text(v, f"{where}.{key}")
     return v
+
+
+def check_printed_text(text: str, where: str, limit: int = MAX_FIELD_CHARS) -> None:
+    """Refuse text too long for its place on the certificate, or holding a line break where one
+    line is printed, with one clear line (before any work)."""
+    if len(text) > limit:
+        raise ConfigError(f"text of {len(text)} characters is too long for the certificate (at most {limit})",
+                          where=where, fix="shorten it; put long notes in a separate document")
+    if limit == MAX_FIELD_CHARS and _BREAKS.intersection(text):
+        raise ConfigError("text holds a line break where one line is printed", where=where,
+                          fix="write it on one line (use a list of lines for an address)")
+
+
+def check_certificate_texts(ids, descriptions, client, where: str) -> None:
+    """The run's sample ids and descriptions and the client name fit on a certificate: lengths
+    within the limits above, and every character of an id drawable by the certificate font (an
+    id printed as empty boxes could not be told from another one)."""
+    from compquant.report.pdf import missing_glyphs
+
+    for sid, desc in zip(ids, descriptions):
+        sid, desc = str(sid), str(desc)
+        check_printed_text(sid, f"{where}: sample id {sid[:40]!r}", MAX_ID_CHARS)
+        check_printed_text(desc, f"{where}: description of sample {sid[:40]!r}", MAX_DESCRIPTION_CHARS)
+        miss = missing_glyphs(sid)
+        if miss:
+            codes = " ".join(f"U+{ord(c):04X}" for c in miss[:6])
+            raise ConfigError(f"sample id {sid[:40]!r} holds characters the certificate font cannot show ({codes})",
+                              where=where, fix="give the sample an id in Latin, Greek or Cyrillic letters and digits")
+    if client:
+        check_printed_text(str(client), "--client")
 
 
 def _lines(table: dict, key: str, where: str, required: bool = False) -> list[str]:
@@ -84,6 +127,11 @@ def _lines(table: dict, key: str, where: str, required: bool = False) -> list[st
             where=f"{where}.{key}",
             fix=f'write {key} = ["line 1", "line 2"]',
         )
+    if len(v) > MAX_LINES:
+        raise ConfigError(f"{key!r} has {len(v)} lines, more than the {MAX_LINES} the certificate prints",
+                          where=f"{where}.{key}", fix="shorten it")
+    for i, x in enumerate(v):
+        check_printed_text(x, f"{where}.{key}[{i}]")
     return list(v)
 
 
@@ -123,6 +171,17 @@ class LabProfile:
     sample_received: str = ""
     source: str = ""
     sha256: str = ""
+    review_required: bool = True  # certificates are issued as DRAFT until a reviewer releases them
+
+
+def _review_required(data: dict, w: str) -> bool:
+    rev = data.get("review", {})
+    check_keys(rev, {"required"}, f"{w} [review]")
+    req = rev.get("required", True)
+    if not isinstance(req, bool):
+        raise ConfigError("'required' must be true or false", where=f"{w} [review].required",
+                          fix="write required = true (certificates issued as DRAFT until released)")
+    return req
 
 
 def load_lab_profile(path) -> LabProfile:
@@ -130,7 +189,7 @@ def load_lab_profile(path) -> LabProfile:
     p = Path(path)
     data = load_toml(p, "lab profile")
     w = str(p)
-    check_keys(data, {"lab", "signatory", "client", "samples"}, w, required={"lab", "signatory"})
+    check_keys(data, {"lab", "signatory", "client", "samples", "review"}, w, required={"lab", "signatory"})
     lab = data["lab"]
     check_keys(
         lab,
@@ -145,7 +204,7 @@ def load_lab_profile(path) -> LabProfile:
     smp = data.get("samples", {})
     check_keys(smp, {"condition", "received"}, f"{w} [samples]")
     prefix = _text(lab, "certificate_prefix", f"{w} [lab]", required=True)
-    if not _PREFIX.match(prefix):
+    if not _PREFIX.fullmatch(prefix):
         raise ConfigError(
             f"certificate_prefix {prefix!r} must be 1 to 12 letters or digits",
             where=f"{w} [lab].certificate_prefix",
@@ -168,6 +227,7 @@ def load_lab_profile(path) -> LabProfile:
         sample_received=_date(smp, "received", f"{w} [samples]"),
         source=str(p),
         sha256=sha256_file(p),
+        review_required=_review_required(data, w),
     )
 
 

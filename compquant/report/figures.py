@@ -17,6 +17,9 @@ _DPI = 150
 def _new(figsize=(6.4, 3.2)):
     from matplotlib.figure import Figure  # no pyplot: no global state, Agg canvas on save
 
+    from compquant.plotting import plain_text
+
+    plain_text()  # ids from files print as typed, never as mathtext
     fig = Figure(figsize=figsize, dpi=_DPI)
     ax = fig.add_subplot(1, 1, 1)
     return fig, ax

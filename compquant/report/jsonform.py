@@ -79,8 +79,21 @@ def canonical_json(obj) -> str:
     return _canon(obj) + "\n"
 
 
-def certificate_to_dict(cert: Certificate) -> dict:
-    """Plain-data form of a certificate, following schema version 1."""
+def review_fields(cert: Certificate, review) -> dict:
+    """``authorised_by`` and ``review`` for the review state (None: the lab profile's signatory,
+    no ``review`` key, as before the review step existed)."""
+    if review is None:
+        return {"authorised_by": {"name": cert.signatory.name, "title": cert.signatory.title}}
+    if review.state == "released":
+        who = {"name": review.reviewer, "title": review.role}
+    else:
+        who = {"name": "nobody yet (draft awaiting review)", "title": ""}
+    return {"authorised_by": who, "review": review.as_dict()}
+
+
+def certificate_to_dict(cert: Certificate, review=None) -> dict:
+    """Plain-data form of a certificate, following schema version 1 (``review``: a
+    :class:`compquant.record.states.Review` or None, see :func:`review_fields`)."""
     cert.validate()
     reasons = cert.release_reasons()
     results = []
@@ -218,7 +231,7 @@ def certificate_to_dict(cert: Certificate) -> dict:
             ],
         }
     pv = cert.provenance
-    return {
+    doc = {
         "schema": SCHEMA_NAME,
         "schema_version": SCHEMA_VERSION,
         "title": cert.title,
@@ -238,7 +251,6 @@ def certificate_to_dict(cert: Certificate) -> dict:
             "phone": cert.lab.phone,
             "email": cert.lab.email,
         },
-        "authorised_by": {"name": cert.signatory.name, "title": cert.signatory.title},
         "client": {
             "name": cert.client.name,
             "address": list(cert.client.address),
@@ -288,16 +300,18 @@ def certificate_to_dict(cert: Certificate) -> dict:
             "parameters": {k: (_num(v) if isinstance(v, (int, float)) else v) for k, v in pv.parameters.items()},
         },
     }
+    doc.update(review_fields(cert, review))
+    return doc
 
 
-def certificate_json(cert: Certificate) -> str:
+def certificate_json(cert: Certificate, review=None) -> str:
     """Canonical JSON text of a certificate."""
-    return canonical_json(certificate_to_dict(cert))
+    return canonical_json(certificate_to_dict(cert, review))
 
 
-def write_certificate_json(cert: Certificate, path) -> None:
+def write_certificate_json(cert: Certificate, path, review=None) -> None:
     """Write the canonical JSON atomically."""
-    write_text_atomic(path, certificate_json(cert))
+    write_text_atomic(path, certificate_json(cert, review))
 
 
 def read_certificate_json(path) -> dict:
@@ -334,6 +348,7 @@ __all__ = [
     "RELEASE_BLOCKED",
     "canonical_json",
     "certificate_to_dict",
+    "review_fields",
     "certificate_json",
     "write_certificate_json",
     "load_schema",

@@ -8,8 +8,9 @@ Columns (RFC 4180 CSV, UTF-8, CRLF line ends, header row)::
 below the LOD ``value`` is empty and ``flag`` holds ``below_lod``.  ``flag`` joins all
 flags with ``;``.  ``release`` is ``valid`` or ``not valid``.  A cell that a spreadsheet
 would read as a formula (starting with ``=``, ``+``, ``-``, ``@``, tab or carriage
-return) is prefixed with an apostrophe (OWASP guidance on CSV injection), and control
-characters are shown as ``\\xNN``, as on the PDF.
+return, also after leading spaces or in full-width form) is prefixed with an apostrophe
+(OWASP guidance on CSV injection), and control characters are shown as ``\\xNN``, as on the
+PDF: :func:`compquant.fileio.csv_cell`, the rule of every CSV compquant writes.
 """
 
 from __future__ import annotations
@@ -17,9 +18,8 @@ from __future__ import annotations
 import csv
 import io
 
-from compquant.fileio import write_text_atomic
+from compquant.fileio import csv_cell, write_text_atomic
 from compquant.report.certificate import Certificate
-from compquant.report.pdf import visible_text
 
 COLUMNS = [
     "sample_id",
@@ -37,18 +37,8 @@ COLUMNS = [
 
 
 def _cell(s) -> str:
-    s = visible_text("" if s is None else s)
-    if s and s[0] in "=+-@\t\r" and not _is_number(s):
-        s = "'" + s
-    return s
-
-
-def _is_number(s: str) -> bool:
-    try:
-        float(s)
-    except ValueError:
-        return False
-    return True
+    # the one CSV escaping policy of compquant (also leading spaces and full-width ＝＋－＠)
+    return csv_cell("" if s is None else str(s))
 
 
 def lims_rows(certs) -> list[list[str]]:

@@ -93,6 +93,19 @@ def _fonts() -> dict[str, str]:
     return _FONTS
 
 
+def missing_glyphs(text) -> str:
+    """The characters of ``text`` (as printed, after :func:`visible_text`) that the certificate's
+    body font cannot draw; they would print as empty boxes, so two different ids could look alike."""
+    from reportlab.pdfbase import pdfmetrics
+
+    name = _fonts()["normal"]
+    shown = visible_text(text)
+    if name == "Helvetica":
+        return "".join(dict.fromkeys(ch for ch in shown if ord(ch) > 255))
+    face = pdfmetrics.getFont(name).face
+    return "".join(dict.fromkeys(ch for ch in shown if ord(ch) not in face.charToGlyph))
+
+
 def _styles():
     from reportlab.lib import colors
     from reportlab.lib.enums import TA_CENTER, TA_RIGHT
@@ -228,8 +241,68 @@ def _standards_tables(standards, P, E, frame_w, table_style, per_table: int = 7)
     return out
 
 
-def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
-    """Render the certificate; return ``(pdf_bytes, n_pages)``."""
+#: watermark text on every page of a certificate that has not been released
+DRAFT_WATERMARK = "DRAFT"
+
+
+def draw_review_watermark(canvas, review, page_w: float, page_h: float, font: str) -> None:
+    """The DRAFT watermark across the page, for any review state other than ``released``.
+
+    ``review`` is a :class:`compquant.record.states.Review` (or None: nothing drawn, the
+    certificate predates the review step).
+    """
+    if review is None or review.state == "released":
+        return
+    from reportlab.lib import colors
+
+    canvas.saveState()
+    canvas.setFillColor(colors.HexColor("#b0171f"))
+    canvas.setFillAlpha(0.16)
+    canvas.setFont(font, 120)
+    canvas.translate(page_w / 2, page_h / 2)
+    canvas.rotate(52)
+    canvas.drawCentredString(0, -40, DRAFT_WATERMARK)
+    canvas.setFillAlpha(0.55)
+    canvas.setFont(font, 13)
+    canvas.drawCentredString(0, -70, "not reviewed - not authorised for release")
+    canvas.restoreState()
+
+
+def authorisation_rows(cert: Certificate, review, E) -> list[tuple[str, str]]:
+    """Rows of the authorisation block (ISO/IEC 17025:2017, 7.8.2.1 o) for the review state.
+
+    No review (None): the lab profile's signatory, as before the review step existed.  A draft
+    names nobody; a released certificate names its reviewer, role, time and statement.
+    """
+    if review is None:
+        sig = cert.signatory
+        return [
+            ("Authorised by", f"<b>{E(sig.name)}</b>, {E(sig.title)}"),
+            ("Signature", "<br/>______________________________"),
+            ("Date of issue", E(cert.issue_date)),
+        ]
+    if review.state != "released":
+        return [
+            ("Review state", f"<b>{E(review.state.upper())}</b>: not reviewed, not authorised for release"),
+            ("Authorised by", "<i>nobody yet: a certificate is authorised when a reviewer releases it</i>"),
+            ("Date of issue", E(cert.issue_date) + " (draft)"),
+        ]
+    rows = [
+        ("Authorised by", f"<b>{E(review.reviewer)}</b>" + (f", {E(review.role)}" if review.role else "")),
+        ("Released (UTC)", E(review.at)),
+    ]
+    if review.statement:
+        rows.append(("Statement", E(review.statement)))
+    rows.append(("Date of issue", E(cert.issue_date)))
+    return rows
+
+
+def render_pdf_bytes(cert: Certificate, review=None) -> tuple[bytes, int]:
+    """Render the certificate; return ``(pdf_bytes, n_pages)``.
+
+    ``review`` (a :class:`compquant.record.states.Review`, optional) sets the authorisation
+    block and, unless released, the DRAFT watermark on every page.
+    """
     from reportlab.lib import colors
     from reportlab.lib.pagesizes import A4
     from reportlab.lib.units import mm
@@ -652,17 +725,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
             story.append(P("• " + E(rm)))
 
     # ---- authorisation ----------------------------------------------------------------------------------
-    sig = cert.signatory
-    auth = [
-        P(f"{sec}  Authorisation", "h2"),
-        kv_table(
-            [
-                ("Authorised by", f"<b>{E(sig.name)}</b>, {E(sig.title)}"),
-                ("Signature", "<br/>______________________________"),
-                ("Date of issue", E(cert.issue_date)),
-            ]
-        ),
-    ]
+    auth = [P(f"{sec}  Authorisation", "h2"), kv_table(authorisation_rows(cert, review, E))]
     sec += 1
     story.append(KeepTogether(auth))
 
@@ -792,6 +855,7 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
 
         def _decorate(self, n):
             pg = self._pageNumber
+            draw_review_watermark(self, review, page_w, page_h, fonts["bold"])
             self.saveState()
             self.setFont(fonts["normal"], 7.2)
             self.setFillColor(colors.HexColor("#333333"))
@@ -831,12 +895,14 @@ def render_pdf_bytes(cert: Certificate) -> tuple[bytes, int]:
     return buf.getvalue(), pages_seen[0]
 
 
-def write_pdf(cert: Certificate, path) -> int:
-    """Render the certificate to ``path`` atomically; return the number of pages."""
-    data, n = render_pdf_bytes(cert)
+def write_pdf(cert: Certificate, path, review=None) -> int:
+    """Render the certificate to ``path`` atomically; return the number of pages (``review``: see
+    :func:`render_pdf_bytes`)."""
+    data, n = render_pdf_bytes(cert, review)
     with atomic_path(path) as tmp:
         Path(tmp).write_bytes(data)
     return n
 
 
-__all__ = ["escape_text", "visible_text", "render_pdf_bytes", "write_pdf"]
+__all__ = ["escape_text", "visible_text", "render_pdf_bytes", "write_pdf", "draw_review_watermark",
+           "authorisation_rows", "DRAFT_WATERMARK"]

@@ -91,3 +91,29 @@ def check_shot_column(name: str, values: np.ndarray, n_shots: int, where: str) -
     if not np.issubdtype(values.dtype, np.number):
         raise RunFormatError(f"'shots/{name}' has non-numeric dtype {values.dtype}", where=where,
                              fix="store it as numbers")
+
+
+#: widest ratio between the largest and the smallest relative response value accepted; beyond it,
+#: dividing by the response turns counts into numbers no detector gives (a response of 1e-300
+#: would make every count 1e300). Common practice: a grating/detector response varies by a few
+#: orders of magnitude across its range at most.
+MAX_RESPONSE_RANGE = 1e6
+
+
+def check_response(r: np.ndarray, where: str) -> None:
+    bad = ~np.isfinite(r)
+    if bad.any():
+        raise RunFormatError(f"'response' holds NaN or infinite values (first at pixel {int(np.argmax(bad))})",
+                             where=where, fix="re-measure or re-export the relative response")
+    if (r <= 0).any():
+        i = int(np.argmax(r <= 0))
+        raise RunFormatError(f"'response' is {r[i]:.6g} at pixel {i}, not above zero", where=where,
+                             fix="a relative response is positive at every pixel")
+    if r.max() > MAX_RESPONSE_RANGE or r.min() < 1.0 / MAX_RESPONSE_RANGE**2:
+        raise RunFormatError(f"'response' spans {r.min():.3g} to {r.max():.3g}, outside the range of a relative "
+                             f"response ({1.0 / MAX_RESPONSE_RANGE**2:.0e} to {MAX_RESPONSE_RANGE:.0e})", where=where,
+                             fix="normalise the response curve (e.g. to 1 at its maximum)")
+    if r.max() / r.min() > MAX_RESPONSE_RANGE:
+        raise RunFormatError(f"'response' spans {r.min():.3g} to {r.max():.3g}, a range above "
+                             f"{MAX_RESPONSE_RANGE:.0e}", where=where,
+                             fix="check the response curve; crop the pixels the spectrometer does not cover")

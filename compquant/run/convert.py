@@ -28,13 +28,23 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from compquant.errors import InputError, RunFormatError
+from compquant.errors import InputError
 from compquant.fileio import require_file
 from compquant.run._checks import check_samples, check_wavelength
+from compquant.run.mask import (
+    REASON_NONFINITE,
+    REASON_SENTINEL,
+    describe_range,
+    find_bad,
+    pixel_ranges,
+    reason_codes,
+    value_limits,
+)
 from compquant.run.writer import write_run
 
 SPECTRUM_SUFFIXES = (".txt", ".csv", ".tsv", ".dat", ".asc")
-_NUM = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?$")
+# numbers, and NaN / inf cells, which become masked pixels (compquant.run.mask)
+_NUM = re.compile(r"^[+-]?((\d+(\.\d*)?|\.\d+)([eE][+-]?\d+)?|nan|inf|infinity)$", re.IGNORECASE)
 
 
 @dataclass
@@ -50,6 +60,7 @@ class ConvertReport:
     n_dark: int = 0
     shots_per_sample: dict = field(default_factory=dict)
     skipped_files: list = field(default_factory=list)
+    masked: list = field(default_factory=list)  # (sample_id, shot, first_pixel, last_pixel, reason)
 
     def text(self) -> str:
         lines = [f"wrote {self.output}",
@@ -60,6 +71,12 @@ class ConvertReport:
         if self.skipped_files:
             lines.append(f"ignored {len(self.skipped_files)} file(s) matching no sample: "
                          + ", ".join(self.skipped_files[:10]) + (" ..." if len(self.skipped_files) > 10 else ""))
+        if self.masked:
+            lines.append(f"masked {len(self.masked)} pixel range(s) (stored as NaN, listed in the run's /mask):")
+            for sid, shot, a, b, reason in self.masked[:10]:
+                lines.append(f"  {sid} shot {shot}: {describe_range(a, b)}, {reason}")
+            if len(self.masked) > 10:
+                lines.append(f"  ... and {len(self.masked) - 10} more ('compquant inspect' lists them all)")
         return "\n".join(lines)
 
 
@@ -209,13 +226,37 @@ def _storage_dtype(arr: np.ndarray):
     return np.float64
 
 
+def _mask_values(data: np.ndarray, idx: np.ndarray, samples, saturation, sentinels, report) -> tuple:
+    """NaN at non-finite, sentinel and implausible values (compquant.run.mask); the masked
+    ranges as ``/mask`` rows ``(shot, first, last, reason)`` and in ``report.masked``."""
+    limits = value_limits(np.float64, saturation, sentinels)
+    bad = find_bad(data, limits)
+    if bad is None:
+        return data, []
+    codes = reason_codes(data, bad)
+    data = np.where(bad, np.nan, data)
+    rows = []
+    for i in np.flatnonzero(bad.any(axis=1)):
+        for code, reason in ((1, REASON_NONFINITE), (2, REASON_SENTINEL)):
+            for a, b in pixel_ranges(codes[i] == code):
+                rows.append((int(i), a, b, reason))
+    shot_in_sample = np.zeros(idx.size, dtype=int)
+    for k in np.unique(idx):
+        shot_in_sample[idx == k] = np.arange(int((idx == k).sum()))
+    report.masked = [(str(samples.sample_id.iloc[int(idx[i])]), int(shot_in_sample[i]), a, b, r)
+                     for i, a, b, r in rows]
+    return data, rows
+
+
 def convert_to_run(spectra: str | Path, samples_csv: str | Path, output: str | Path, *, dark=(),
                    saturation: float | None = None, medium: str = "air", instrument: dict | None = None,
-                   acquisition: dict | None = None) -> ConvertReport:
+                   acquisition: dict | None = None, sentinels=()) -> ConvertReport:
     """Build a run file from text spectra (folder of two-column files, or one wide CSV) and a samples CSV.
 
     The spectra axis must be strictly increasing and shared by every file; a
-    sample listed without spectra is an error. Inputs are only read.
+    sample listed without spectra is an error. Inputs are only read. Non-finite,
+    sentinel (``sentinels``, e.g. ``-9999``) and implausible values (compquant.run.mask)
+    become masked pixels: stored as NaN, listed in the run's ``/mask`` and in the report.
     """
     spectra = Path(spectra)
     samples = _read_samples(Path(samples_csv))
@@ -262,14 +303,14 @@ def convert_to_run(spectra: str | Path, samples_csv: str | Path, output: str | P
     if empty:
         raise InputError(f"no spectra found for sample(s) {', '.join(map(repr, empty))}", where=str(spectra),
                          fix="add their files/columns or remove them from the samples table")
-    if not np.isfinite(data).all():
-        raise RunFormatError("spectra hold NaN or infinite values", where=str(spectra),
-                             fix="re-export the spectra; blank cells are not allowed")
     dk = _read_dark(dark, wl)
     order = np.argsort(idx, kind="stable")
-    write_run(output, wl, data[order], samples[["sample_id", "role", "standard_ref", "description"]],
-              idx[order], dark=dk, saturation=saturation, medium=medium, instrument=instrument or {},
-              acquisition=acquisition or {}, dtype=_storage_dtype(data))
+    data, idx = data[order], idx[order]
+    data, mask_rows = _mask_values(data, idx, samples, saturation, sentinels, report)
+    write_run(output, wl, data, samples[["sample_id", "role", "standard_ref", "description"]],
+              idx, dark=dk, saturation=saturation, medium=medium, instrument=instrument or {},
+              acquisition=acquisition or {}, dtype=_storage_dtype(data), masked_ranges=mask_rows,
+              sentinels=sentinels)
     report.n_shots, report.n_pixels = data.shape
     report.wl_min, report.wl_max = float(wl[0]), float(wl[-1])
     report.n_dark = 0 if dk is None else dk.shape[0]

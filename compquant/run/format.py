@@ -11,6 +11,11 @@ ROLES = ("standard", "blank", "check", "unknown", "setup")
 #: or with the environment variable COMPQUANT_MEMORY_LIMIT (bytes, or with K/M/G suffix)
 DEFAULT_MEMORY_LIMIT = 2 * 1024**3
 
+#: largest magnitude accepted for a stored (float) count: no detector reading or accumulated sum
+#: comes near it (2^32 counts x 1e6 accumulations is 4e15), and squares and sums of values below
+#: it stay far from the float64 overflow at 1.8e308; a run scaled by 1e196 is refused on reading
+MAX_ABS_COUNTS = 1e18
+
 #: default number of shots per streamed chunk
 DEFAULT_CHUNK_SHOTS = 4096
 

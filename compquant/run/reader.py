@@ -24,8 +24,10 @@ from compquant.run.format import (
     DEFAULT_MEMORY_LIMIT,
     FORMAT_NAME,
     FORMAT_VERSION,
+    MAX_ABS_COUNTS,
     SAMPLE_COLUMNS,
 )
+from compquant.run.mask import StoredMask, find_bad, value_limits
 
 
 def memory_limit_from_env(default: int = DEFAULT_MEMORY_LIMIT) -> int:
@@ -34,13 +36,19 @@ def memory_limit_from_env(default: int = DEFAULT_MEMORY_LIMIT) -> int:
     if not raw:
         return default
     mult = {"K": 1024, "M": 1024**2, "G": 1024**3, "T": 1024**4}
+    fix = "use a positive number of bytes or a size like 512M or 4G"
     try:
         if raw[-1].upper() in mult:
-            return int(float(raw[:-1]) * mult[raw[-1].upper()])
-        return int(float(raw))
+            value = float(raw[:-1]) * mult[raw[-1].upper()]
+        else:
+            value = float(raw)
     except ValueError as exc:
         raise ResourceLimitError(f"COMPQUANT_MEMORY_LIMIT={raw!r} is not a size", where="environment",
-                                 fix="use a number of bytes or a size like 512M or 4G") from exc
+                                 fix=fix) from exc
+    if not (value >= 1 and value < 2**62):  # also refuses NaN, inf, zero and negative sizes
+        raise ResourceLimitError(f"COMPQUANT_MEMORY_LIMIT={raw!r} is not a positive size", where="environment",
+                                 fix=fix)
+    return int(value)
 
 
 def _decode(values) -> list[str]:
@@ -50,6 +58,35 @@ def _decode(values) -> list[str]:
             v = v.decode("utf-8", "replace")
         out.append(str(v))
     return out
+
+
+_CHUNK_FLOOR = 1 << 20
+
+
+def _size(n: int) -> str:
+    """A byte count for people: 3 MiB, 512 KiB, 900 bytes."""
+    for unit, div in (("GiB", 1024**3), ("MiB", 1024**2), ("KiB", 1024)):
+        if abs(n) >= div:
+            return f"{n / div:.0f} {unit}"
+    return f"{n} bytes"
+
+
+def _is_lock_error(exc: OSError) -> bool:
+    return isinstance(exc, BlockingIOError) or "unable to lock file" in str(exc).lower()
+
+
+def _positive_attr(obj, key: str, name: str, where: str) -> float | None:
+    """An optional attribute that must be one finite number above zero (saturation, exposure)."""
+    v = obj.attrs.get(key)
+    if v is None:
+        return None
+    arr = np.asarray(v)
+    ok = arr.size == 1 and (np.issubdtype(arr.dtype, np.integer) or np.issubdtype(arr.dtype, np.floating))
+    x = float(arr.reshape(-1)[0]) if ok else float("nan")
+    if not (ok and np.isfinite(x) and x > 0):
+        raise RunFormatError(f"'{name}' attribute '{key}' is {v!r}, not a positive finite number", where=where,
+                             fix=f"store {key} as a number above zero, or leave it out when it is not known")
+    return x
 
 
 def _attrs(obj) -> dict:
@@ -89,6 +126,9 @@ class Run:
     def __init__(self, path: str | os.PathLike, memory_limit_bytes: int | None = None):
         self.path = require_file(path, "run file")
         self.memory_limit = int(memory_limit_bytes) if memory_limit_bytes is not None else memory_limit_from_env()
+        if self.memory_limit < 1:
+            raise ResourceLimitError(f"memory limit {self.memory_limit} bytes is not positive", where="memory limit",
+                                     fix="give a positive number of bytes")
         where = str(self.path)
         self._where = where
         try:
@@ -96,6 +136,10 @@ class Run:
         except OSError as exc:
             with open(self.path, "rb") as fh:
                 sig = fh.read(8)
+            if _is_lock_error(exc):
+                raise RunFormatError("the run is locked: another program has it open for writing", where=where,
+                                     fix="wait until the instrument or converter has finished writing it, "
+                                         "or analyse a copy") from exc
             if sig != b"\x89HDF\r\n\x1a\n":
                 raise RunFormatError("not an HDF5 file", where=where,
                                      fix="give a compquant run (.h5); build one from text spectra with "
@@ -107,7 +151,7 @@ class Run:
         except RunFormatError:
             self._h5.close()
             raise
-        except (OSError, KeyError, ValueError, TypeError) as exc:
+        except (OSError, KeyError, ValueError, TypeError, RuntimeError, OverflowError) as exc:
             self._h5.close()
             raise RunFormatError(f"run file is damaged ({type(exc).__name__}: {exc})", where=where,
                                  fix="copy the run again or re-run 'compquant convert'") from exc
@@ -134,22 +178,46 @@ class Run:
     def __repr__(self) -> str:
         return f"Run({str(self.path)!r}, shots={self.n_shots}, pixels={self.n_pixels}, samples={len(self.samples)})"
 
-    def _need(self, name: str):
-        if name not in self._h5:
-            raise RunFormatError(f"dataset '{name}' is missing", where=self._where,
+    def _need(self, name: str, kind: type = h5py.Dataset, required: bool = True):
+        """The object ``name`` of the file, which must be a ``kind`` (dataset or group).
+
+        Links are checked before they are followed: a link to another file is refused (a run
+        is one file), and a soft link that loops or leads nowhere is a clear error.
+        """
+        what = "dataset" if kind is h5py.Dataset else "group"
+        try:
+            link = self._h5.get(name, getlink=True)
+            if isinstance(link, h5py.ExternalLink):
+                raise RunFormatError(f"'{name}' is a link to another file ({link.filename})", where=self._where,
+                                     fix="a run is one self-contained file; copy the data into it")
+            obj = self._h5.get(name) if link is not None else None
+        except (RuntimeError, KeyError) as exc:
+            raise RunFormatError(f"'{name}' is a link that cannot be followed (a loop or a dangling link)",
+                                 where=self._where, fix="rebuild the run without soft links") from exc
+        if obj is None and link is not None:
+            raise RunFormatError(f"'{name}' is a dangling link", where=self._where,
+                                 fix="rebuild the run without soft links")
+        if obj is None:
+            if not required:
+                return None
+            raise RunFormatError(f"{what} '{name}' is missing", where=self._where,
                                  fix="the file is not a complete compquant run; rebuild it with "
                                      "'compquant convert' or the instrument export")
-        obj = self._h5[name]
+        if not isinstance(obj, kind):
+            other = "group" if isinstance(obj, h5py.Group) else "dataset" if isinstance(obj, h5py.Dataset) else "object"
+            raise RunFormatError(f"'{name}' is a {other}, expected a {what}", where=self._where,
+                                 fix="rebuild the run with 'compquant convert'")
         return obj
 
-    def _check_alloc(self, shape: tuple, itemsize: int, what: str) -> None:
-        n = itemsize
+    def _check_alloc(self, shape: tuple, itemsize: int, what: str, floor: int = 0) -> None:
+        """Refuse an allocation of ``shape`` x ``itemsize`` bytes above the limit (and above ``floor``)."""
+        n = int(itemsize)
         for s in shape:
-            n *= int(s)
-        if n > self.memory_limit:
+            n *= int(s)  # Python integers: no overflow for any declared shape
+        if (n > self.memory_limit and n > floor) or n < 0:
             raise ResourceLimitError(
-                f"{what} would need {n / 1024**2:.0f} MiB, above the memory limit of "
-                f"{self.memory_limit / 1024**2:.0f} MiB (declared shape {tuple(int(s) for s in shape)})",
+                f"{what} would need {_size(n)}, above the memory limit of "
+                f"{_size(self.memory_limit)} (declared shape {tuple(int(s) for s in shape)})",
                 where=self._where,
                 fix="stream the run in chunks, or raise the limit with COMPQUANT_MEMORY_LIMIT / memory_limit_bytes")
 
@@ -169,9 +237,8 @@ class Run:
                                  where=where, fix="upgrade compquant")
         self.format_version = int(ver)
         wl_ds = self._need("wavelength")
-        if not isinstance(wl_ds, h5py.Dataset):
-            raise RunFormatError("'wavelength' is not a dataset", where=where, fix="rebuild the run")
         self._check_alloc(wl_ds.shape, 8, "the wavelength axis")
+        self._check_chunks(wl_ds, "wavelength")
         self.wavelength = np.asarray(wl_ds[()], dtype=wl_ds.dtype)
         _checks.check_wavelength(self.wavelength, f"{where}: wavelength")
         self.wavelength = self.wavelength.astype(np.float64)
@@ -187,29 +254,25 @@ class Run:
             raise RunFormatError(f"wavelength units are {units!r}, expected 'nm'", where=where,
                                  fix="store wavelengths in nm")
         sp = self._need("spectra")
-        if not isinstance(sp, h5py.Dataset):
-            raise RunFormatError("'spectra' is not a dataset", where=where, fix="rebuild the run")
         self._spectra = sp
         _checks.check_spectra_header(sp.shape, sp.dtype, self.wavelength.size, where)
         self.n_shots, self.n_pixels = int(sp.shape[0]), int(sp.shape[1])
-        sat = sp.attrs.get("saturation")
-        self.saturation = float(sat) if sat is not None else None
-        exp = sp.attrs.get("exposure_s")
-        self.exposure_s = float(exp) if exp is not None else None
+        self._check_chunks(sp, "spectra")
+        self.saturation = _positive_attr(sp, "saturation", "spectra", where)
+        self.exposure_s = _positive_attr(sp, "exposure_s", "spectra", where)
         self.spectra_dtype = sp.dtype
         # samples
-        sg = self._need("samples")
+        self._need("samples", h5py.Group)
         cols = {}
         for col in SAMPLE_COLUMNS:
-            if col not in sg:
+            ds = self._need(f"samples/{col}", required=False)
+            if ds is None:
                 if col in ("sample_id", "role"):
                     raise RunFormatError(f"sample table has no '{col}' column", where=where,
                                          fix="rebuild the run with 'compquant convert'")
                 cols[col] = None
                 continue
-            ds = sg[col]
-            self._check_alloc(ds.shape, 64, f"sample column '{col}'")
-            cols[col] = _decode(ds[()])
+            cols[col] = self._text_column(ds, f"samples/{col}")
         n_samp = len(cols["sample_id"])
         for col in SAMPLE_COLUMNS:
             if cols[col] is None:
@@ -219,19 +282,22 @@ class Run:
                                      where=where, fix="rebuild the sample table")
         _checks.check_samples(cols["sample_id"], cols["role"], cols["standard_ref"], where)
         # shots
-        shg = self._need("shots")
-        if "sample_index" not in shg:
-            raise RunFormatError("per-shot column 'shots/sample_index' is missing", where=where,
-                                 fix="give each shot its sample index")
-        # the per-shot table is held in memory: about 8 bytes per column (plus the sample-id column) per shot
+        shg = self._need("shots", h5py.Group)
+        si = self._need("shots/sample_index")
+        # the per-shot table is held in memory: the columns as read, as int64/float64, the pandas
+        # frame and its object sample-id column, and the temporaries that build them (measured:
+        # about 24 bytes per column and shot, plus 64 bytes per shot)
         n_cols = 2 + sum(1 for k in shg.keys() if k != "sample_index") + 2
-        self._check_alloc(shg["sample_index"].shape, 8 * n_cols, "the per-shot table")
-        idx = np.asarray(shg["sample_index"][()])
+        self._check_alloc(si.shape, 24 * n_cols + 64, "the per-shot table", floor=_CHUNK_FLOOR)
+        self._check_chunks(si, "shots/sample_index")
+        idx = np.asarray(si[()])
         _checks.check_sample_index(idx, n_samp, self.n_shots, where)
         shots = {"sample_index": idx.astype(np.int64)}
         for name in ("shot", "pulse_energy_mj", "time_s", "x_mm", "y_mm"):
-            if name in shg:
-                vals = np.asarray(shg[name][()])
+            ds = self._need(f"shots/{name}", required=False)
+            if ds is not None:
+                self._check_chunks(ds, f"shots/{name}")
+                vals = np.asarray(ds[()])
                 _checks.check_shot_column(name, vals, self.n_shots, where)
                 shots[name] = vals
         if "shot" not in shots:
@@ -248,20 +314,119 @@ class Run:
         self.shots = df
         self._index_of = {sid: i for i, sid in enumerate(cols["sample_id"])}
         # optional arrays and groups
-        self._dark = self._h5.get("dark")
+        self._dark = self._need("dark", required=False)
         if self._dark is not None:
             _checks.check_spectra_header(self._dark.shape, self._dark.dtype, self.n_pixels, where, "dark")
-            de = self._dark.attrs.get("exposure_s")
-            self.dark_exposure_s = float(de) if de is not None else None
+            self._check_chunks(self._dark, "dark")
+            self.dark_exposure_s = _positive_attr(self._dark, "exposure_s", "dark", where)
         else:
             self.dark_exposure_s = None
-        self._response = self._h5.get("response")
-        if self._response is not None and self._response.shape != (self.n_pixels,):
-            raise RunFormatError(f"'response' has shape {self._response.shape}, expected ({self.n_pixels},)",
-                                 where=where, fix="store one relative response value per pixel")
-        self.instrument = _attrs(self._h5["instrument"]) if "instrument" in self._h5 else {}
+        self._response = self._need("response", required=False)
+        if self._response is not None:
+            self._response_values = self._read_response()
+        ins = self._need("instrument", h5py.Group, required=False)
+        self.instrument = _attrs(ins) if ins is not None else {}
+        #: "photon" | "energy" | None (not recorded): basis of the response-corrected spectrum
+        basis = None if self._response is None else self._response.attrs.get("basis")
+        self.response_basis = None if basis is None else (basis.decode() if isinstance(basis, bytes) else str(basis))
         self.instrument.pop("NX_class", None)
-        self.acquisition = _attrs(self._h5["acquisition"]) if "acquisition" in self._h5 else {}
+        acq = self._need("acquisition", h5py.Group, required=False)
+        self.acquisition = _attrs(acq) if acq is not None else {}
+        self._open_mask()
+
+    # -- pixel masks (compquant.run.mask) ---------------------------------------------
+    def _open_mask(self) -> None:
+        """Read the optional ``/mask`` group and the ``sentinel`` attribute; set the value limits."""
+        where = f"{self._where}: mask"
+        sent = self._spectra.attrs.get("sentinel", ())
+        try:
+            sent = np.atleast_1d(np.asarray(sent, dtype=np.float64))
+        except (TypeError, ValueError) as exc:
+            raise RunFormatError(f"'spectra' attribute 'sentinel' is not numeric ({sent!r})", where=self._where,
+                                 fix="store sentinel values as numbers") from exc
+        self.value_limits = value_limits(self.spectra_dtype, self.saturation, sent)
+        g = self._h5.get("mask")
+        cols = {}
+        if g is not None:
+            for name in ("shot", "first_pixel", "last_pixel", "reason"):
+                if not isinstance(g.get(name), h5py.Dataset) or g[name].ndim != 1:
+                    raise RunFormatError(f"'/mask/{name}' is missing or not 1-D", where=where,
+                                         fix="write the mask with compquant (shot, first_pixel, last_pixel, reason)")
+                self._check_alloc(g[name].shape, 64, f"'/mask/{name}'")
+                cols[name] = g[name][()]
+            cols["reason"] = _decode(cols["reason"])
+        self.mask = StoredMask(cols.get("shot", []), cols.get("first_pixel", []), cols.get("last_pixel", []),
+                               cols.get("reason", []), self.n_shots, self.n_pixels, where)
+
+    def mask_rows(self, rows, raw: np.ndarray) -> np.ndarray | None:
+        """Masked pixels of file rows ``rows`` whose stored values are ``raw``: the stored mask
+        OR'ed with the implausible values (:func:`compquant.run.mask.find_bad`); None if none."""
+        bad = find_bad(raw, self.value_limits)
+        if not self.mask.empty:
+            stored = self.mask.rows(np.asarray(rows))
+            if stored is not None:
+                bad = stored if bad is None else (bad | stored)
+        return bad
+
+    def _masked(self, rows, data: np.ndarray) -> np.ndarray:
+        bad = self.mask_rows(rows, data)
+        if bad is None:
+            return data
+        if data.dtype != np.float64:
+            self._check_alloc(data.shape, 8, "masking these spectra")
+            data = data.astype(np.float64)
+        data[bad] = np.nan  # ``data`` is a fresh array read from the file: changed in place
+        return data
+
+    def _check_chunks(self, ds, name: str) -> None:
+        """Refuse a dataset whose HDF5 chunks would need more memory than the limit to decompress.
+
+        HDF5 decompresses a whole chunk to read any element of it, so one huge chunk (declared
+        shape, or the stored, compressed size of a chunk) breaks the limit even for a one-row read.
+        """
+        if ds.chunks is None:
+            return
+        # chunks up to 1 MiB pass whatever the limit: HDF5's own chunk cache is of that order
+        self._check_alloc(ds.chunks, ds.dtype.itemsize, f"one HDF5 chunk of '{name}'", floor=_CHUNK_FLOOR)
+        try:
+            n = ds.id.get_num_chunks()
+            biggest = max((ds.id.get_chunk_info(i).size for i in range(min(n, 64))), default=0)
+        except (OSError, RuntimeError, ValueError):  # very old HDF5 libraries cannot say
+            return
+        if biggest > max(self.memory_limit, _CHUNK_FLOOR):
+            self._check_alloc((biggest,), 1, f"one stored chunk of '{name}'")
+
+    def _text_column(self, ds, name: str) -> list[str]:
+        """A 1-D column of text (sample ids, roles ...), decoded from UTF-8."""
+        if ds.ndim != 1:
+            raise RunFormatError(f"'{name}' has shape {ds.shape}, expected one text value per sample",
+                                 where=self._where, fix="store the sample table as 1-D text columns")
+        if h5py.check_string_dtype(ds.dtype) is None and ds.dtype.kind not in "SU":
+            raise RunFormatError(f"'{name}' holds {ds.dtype} values, not text", where=self._where,
+                                 fix="store the sample table as text columns")
+        self._check_alloc(ds.shape, 64, f"sample column '{name}'")
+        self._check_chunks(ds, name)
+        values = _decode(ds[()])
+        for i, v in enumerate(values):
+            if "\x00" in v:
+                raise RunFormatError(f"'{name}' row {i} holds a NUL character", where=self._where,
+                                     fix="remove control characters from the sample table")
+        return values
+
+    def _read_response(self) -> np.ndarray:
+        """The stored relative response, checked: one finite, positive value per pixel."""
+        r = self._response
+        if r.shape != (self.n_pixels,):
+            raise RunFormatError(f"'response' has shape {r.shape}, expected ({self.n_pixels},)",
+                                 where=self._where, fix="store one relative response value per pixel")
+        if not (np.issubdtype(r.dtype, np.integer) or np.issubdtype(r.dtype, np.floating)):
+            raise RunFormatError(f"'response' has non-numeric dtype {r.dtype}", where=self._where,
+                                 fix="store the relative response as float64")
+        self._check_chunks(r, "response")
+        v = np.asarray(r[()], dtype=np.float64)
+        _checks.check_response(v, self._where)
+        v.setflags(write=False)
+        return v
 
     # -- properties ------------------------------------------------------------
     @property
@@ -288,20 +453,42 @@ class Run:
         except (OSError, ValueError) as exc:
             raise RunFormatError(f"spectra cannot be read ({exc})", where=self._where,
                                  fix="the file is truncated or corrupt; copy the run again") from exc
-        return np.asarray(data, dtype=np.float64)
+        rows = np.arange(sel.start, sel.stop) if isinstance(sel, slice) else np.asarray(sel)
+        return self.screen(rows, np.asarray(data, dtype=np.float64))
+
+    def screen(self, rows, data: np.ndarray) -> np.ndarray:
+        """Stored rows ``rows`` read as ``data``: masked pixels (stored mask, sentinels and
+        implausible values) set to NaN (:meth:`_masked`), then the remaining values checked
+        against :data:`MAX_ABS_COUNTS` (:meth:`_check_range`).  Every read of spectra ends here."""
+        data = self._masked(rows, data)
+        self._check_range(data, "spectra")
+        return data
+
+    def _check_range(self, data: np.ndarray, name: str) -> None:
+        """Refuse stored float counts beyond :data:`MAX_ABS_COUNTS` (an overflow waiting to happen)."""
+        if data.size == 0 or not np.issubdtype(data.dtype, np.floating):
+            return
+        finite = np.isfinite(data)  # NaN and inf pixels are shot QC's business ("not_finite")
+        big = max(float(np.max(data, where=finite, initial=0.0)), -float(np.min(data, where=finite, initial=0.0)))
+        if big > MAX_ABS_COUNTS:
+            raise RunFormatError(f"'{name}' holds values out of range ({big:.3g} counts; a detector gives "
+                                 f"less than {MAX_ABS_COUNTS:.0e})", where=self._where,
+                                 fix="check the export: the counts were scaled or the data type misread")
 
     def dark(self) -> np.ndarray | None:
         """Dark frames (n_dark, n_pixels) as float64, or None when the run has none."""
         if self._dark is None:
             return None
         self._check_alloc(self._dark.shape, 16, "the dark frames")
-        return np.asarray(self._dark[()], dtype=np.float64)
+        data = self._dark[()]
+        self._check_range(data, "dark")
+        return np.asarray(data, dtype=np.float64)
 
     def response(self) -> np.ndarray | None:
-        """Relative spectral response (n_pixels,) or None."""
+        """Relative spectral response (n_pixels,) or None (checked when the run was opened)."""
         if self._response is None:
             return None
-        return np.asarray(self._response[()], dtype=np.float64)
+        return self._response_values.copy()
 
     def sample_indices(self, sample_id: str) -> np.ndarray:
         """Row numbers (shots) of ``sample_id`` in the spectra dataset."""
@@ -324,15 +511,19 @@ class Run:
         start, stop = max(0, int(start)), min(self.n_shots, int(stop))
         return self._read(slice(start, stop), max(0, stop - start))
 
-    def read_raw(self, start: int, stop: int) -> np.ndarray:
-        """Shots ``start:stop`` in their stored dtype (no conversion)."""
+    def read_raw(self, start: int, stop: int, masked: bool = True) -> np.ndarray:
+        """Shots ``start:stop`` in their stored dtype; with ``masked`` (default) a block holding
+        masked pixels comes back as float64 with NaN at those pixels (docs/run-format.md)."""
         start, stop = max(0, int(start)), min(self.n_shots, int(stop))
         self._check_alloc((stop - start, self.n_pixels), self.spectra_dtype.itemsize, "reading these spectra")
         try:
-            return self._spectra[start:stop]
+            data = self._spectra[start:stop]
         except (OSError, ValueError) as exc:
             raise RunFormatError(f"spectra cannot be read ({exc})", where=self._where,
                                  fix="the file is truncated or corrupt; copy the run again") from exc
+        if not masked:
+            return data
+        return self.screen(np.arange(start, stop), data)
 
     def iter_chunks(self, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> Iterator[tuple[int, int, np.ndarray]]:
         """Yield ``(start, stop, spectra)`` over all shots in chunks of ``chunk_shots`` rows (float64)."""

@@ -3,7 +3,8 @@
 :meth:`Run.open` already refuses runs whose *structure* is broken (format
 name or version, missing datasets, shapes, wavelength order, sample table).
 :func:`validate_run` adds what can only be seen in the data, streaming the
-spectra in chunks: NaN or infinite values, negative or all-zero shots,
+spectra in chunks: masked pixels (NaN, infinite, sentinel or implausible values, and
+pixels masked in the file; listed by pixel range, reason and shot), negative or all-zero shots,
 saturated pixels per sample, samples without shots, and missing dark frames
 or standards.  Findings are warnings or errors; an error means the run cannot
 give a trustworthy result as it is.
@@ -15,8 +16,17 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from compquant.errors import CompquantError
+from compquant.errors import CompquantError, ResourceLimitError
 from compquant.run.format import DEFAULT_CHUNK_SHOTS
+from compquant.run.mask import (
+    REASON_NONFINITE,
+    REASON_SENTINEL,
+    REASON_STORED,
+    describe_range,
+    describe_shots,
+    pixel_ranges,
+    reason_codes,
+)
 from compquant.run.reader import Run
 
 
@@ -33,35 +43,89 @@ class Finding:
 
 
 def scan_spectra(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> dict:
-    """Stream over all shots once and count, per sample, non-finite values, negative and
-    all-zero shots, and saturated pixels (value >= the run's saturation level).
+    """Stream over all shots once and count, per sample, masked values (non-finite, sentinel or
+    implausible values, and pixels masked in the file), negative and all-zero shots, and
+    saturated pixels (value >= the run's saturation level).
 
-    Returns a dict of per-sample integer arrays (index = sample row) and run totals.
+    Returns a dict of per-sample integer arrays (index = sample row), run totals, and
+    ``masked``: per sample a list of ``(first_pixel, last_pixel, reason, shot numbers)``.
     """
     n_s = len(run.samples)
     idx_all = run.shots["sample_index"].to_numpy()
+    shot_no = run.shots["shot"].to_numpy()
     out = {k: np.zeros(n_s, dtype=np.int64) for k in
-           ("nonfinite_values", "negative_shots", "zero_shots", "saturated_pixels", "saturated_shots")}
+           ("nonfinite_values", "masked_values", "negative_shots", "zero_shots", "saturated_pixels",
+            "saturated_shots")}
+    masked: list[dict] = [{} for _ in range(n_s)]
     total_min, total_max = np.inf, -np.inf
-    for start, stop, block in run.iter_chunks(chunk_shots):
+    if chunk_shots < 1:
+        raise ResourceLimitError(f"chunk size {chunk_shots} is not positive", where="chunk_shots",
+                                 fix="use a chunk size of at least 1 shot")
+    for start in range(0, run.n_shots, int(chunk_shots)):
+        stop = min(run.n_shots, start + int(chunk_shots))
+        raw = run.read_raw(start, stop, masked=False)
+        block = np.asarray(raw, dtype=np.float64)
         idx = idx_all[start:stop]
+        bad = run.mask_rows(np.arange(start, stop), raw)
         finite = np.isfinite(block)
-        nf = (~finite).sum(axis=1)
-        clean = np.where(finite, block, 0.0)
+        if bad is not None:
+            np.add.at(out["masked_values"], idx, bad.sum(axis=1))
+            _collect_masked(masked, block, raw, bad, run, np.arange(start, stop), idx, shot_no)
+        good = finite if bad is None else (finite & ~bad)
+        np.add.at(out["nonfinite_values"], idx, (~finite).sum(axis=1))
+        clean = np.where(good, block, 0.0)
         neg = (clean < 0).any(axis=1) & (clean.sum(axis=1) < 0)
-        zero = finite.all(axis=1) & (clean == 0).all(axis=1)
-        np.add.at(out["nonfinite_values"], idx, nf)
+        zero = good.all(axis=1) & (clean == 0).all(axis=1)
         np.add.at(out["negative_shots"], idx, neg.astype(np.int64))
         np.add.at(out["zero_shots"], idx, zero.astype(np.int64))
         if run.saturation is not None:
             sat = (clean >= run.saturation).sum(axis=1)
             np.add.at(out["saturated_pixels"], idx, sat)
             np.add.at(out["saturated_shots"], idx, (sat > 0).astype(np.int64))
-        if finite.any():
-            total_min = min(total_min, float(clean[finite].min()))
-            total_max = max(total_max, float(clean[finite].max()))
+        if good.any():
+            total_min = min(total_min, float(clean[good].min()))
+            total_max = max(total_max, float(clean[good].max()))
     out["min_value"] = total_min if np.isfinite(total_min) else None
     out["max_value"] = total_max if np.isfinite(total_max) else None
+    out["masked"] = [[(a, b, r, sorted(shots)) for (a, b, r), shots in sorted(m.items())] for m in masked]
+    return out
+
+
+def _collect_masked(masked, block, raw, bad, run: Run, rows, idx, shot_no) -> None:
+    """Add the masked pixel ranges of a block to ``masked[sample][(first, last, reason)] -> shots``.
+
+    Rows with the same pattern of reasons are grouped (np.unique), so a dead pixel in every
+    shot costs one range computation per block.
+    """
+    codes = reason_codes(raw, bad)
+    if not run.mask.empty:
+        stored = run.mask.rows(rows)
+        if stored is not None:
+            codes[stored] = 3
+    hit = np.flatnonzero(bad.any(axis=1))
+    pats, inv = np.unique(codes[hit], axis=0, return_inverse=True)
+    names = {1: REASON_NONFINITE, 2: REASON_SENTINEL, 3: REASON_STORED}
+    for k, pat in enumerate(pats):
+        members = hit[np.asarray(inv).reshape(-1) == k]
+        for code, reason in names.items():
+            for a, b in pixel_ranges(pat == code):
+                for i in members:
+                    masked[int(idx[i])].setdefault((a, b, reason), set()).add(int(shot_no[rows[i]]))
+
+
+def masked_findings(run: Run, scan: dict, limit: int = 8) -> list[Finding]:
+    """One warning per sample with masked pixels, listing pixel ranges, reasons and shots."""
+    out = []
+    for i, row in run.samples.iterrows():
+        items = scan["masked"][i]
+        if not items:
+            continue
+        parts = [f"{describe_range(a, b, run.wavelength)} {reason} in {describe_shots(shots)}"
+                 for a, b, reason, shots in items[:limit]]
+        more = f"; and {len(items) - limit} more range(s)" if len(items) > limit else ""
+        out.append(Finding("warning", f"{run.path}: sample {row['sample_id']!r}",
+                           f"{int(scan['masked_values'][i])} masked pixel values: " + "; ".join(parts) + more
+                           + " (never integrated or fitted: lines touching them are flagged 'masked' or not measured)"))
     return out
 
 
@@ -78,9 +142,9 @@ def validate_open_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> tuple
             findings.append(Finding("warning", sw, "has no shots"))
         elif row["n_shots"] == 1:
             findings.append(Finding("warning", sw, "has a single shot: uncertainties come from the fit alone"))
-        if scan["nonfinite_values"][i]:
-            findings.append(Finding("error", sw, f"{int(scan['nonfinite_values'][i])} NaN or infinite values "
-                                                 "in its spectra; re-export the run from the instrument"))
+        if scan["masked_values"][i] and scan["masked_values"][i] >= row["n_shots"] * run.n_pixels:
+            findings.append(Finding("error", sw, "every pixel of every shot is masked (NaN, infinite, sentinel "
+                                                 "or implausible values); re-export the run from the instrument"))
         if scan["zero_shots"][i]:
             findings.append(Finding("warning", sw, f"{int(scan['zero_shots'][i])} shots are all zero "
                                                    "(shot QC will reject them)"))
@@ -93,6 +157,7 @@ def validate_open_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> tuple
             findings.append(Finding(level, sw, f"{int(scan['saturated_pixels'][i])} saturated pixels in "
                                                f"{int(scan['saturated_shots'][i])} of {int(row['n_shots'])} "
                                                "shots (lines touching them are flagged)"))
+    findings += masked_findings(run, scan)
     if run._dark is None:
         findings.append(Finding("warning", where, "no dark frames: dark subtraction is not possible "
                                                   "(only baseline removal will act)"))
@@ -130,6 +195,10 @@ def summarise_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> dict:
             "n_shots": int(row["n_shots"]),
             "saturated_pixels": int(scan["saturated_pixels"][i]),
             "saturated_shots": int(scan["saturated_shots"][i]),
+            "masked_values": int(scan["masked_values"][i]),
+            "masked": [{"first_pixel": a, "last_pixel": b, "first_nm": float(run.wavelength[a]),
+                        "last_nm": float(run.wavelength[b]), "reason": r, "shots": shots}
+                       for a, b, r, shots in scan["masked"][i]],
         })
     dark = run._dark
     return {
@@ -153,6 +222,7 @@ def summarise_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> dict:
             "exposure_s": run.exposure_s,
             "min_value": scan["min_value"],
             "max_value": scan["max_value"],
+            "masked_if": run.value_limits.describe(),
         },
         "dark": None if dark is None else {"n_frames": int(dark.shape[0]), "exposure_s": run.dark_exposure_s},
         "response": run._response is not None,
@@ -162,4 +232,4 @@ def summarise_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> dict:
     }
 
 
-__all__ = ["Finding", "scan_spectra", "summarise_run", "validate_open_run", "validate_run"]
+__all__ = ["Finding", "masked_findings", "scan_spectra", "summarise_run", "validate_open_run", "validate_run"]

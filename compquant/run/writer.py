@@ -27,6 +27,7 @@ from compquant.fileio import atomic_path
 from compquant.interchange import add_nxdata
 from compquant.run import _checks
 from compquant.run.format import FORMAT_NAME, FORMAT_VERSION, SAMPLE_COLUMNS
+from compquant.run.mask import mask_entries
 
 _STR = h5py.string_dtype(encoding="utf-8")
 
@@ -85,7 +86,8 @@ class RunWriter:
                  pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
                  instrument: Mapping | None = None, acquisition: Mapping | None = None,
                  medium: str = "air", compression: str | None = "gzip", compression_opts: int | None = 4,
-                 created: str | None = None):
+                 created: str | None = None, pixel_mask=None, masked_ranges=(), sentinels=(),
+                 response_basis: str | None = None):
         self.path = Path(path)
         where = str(self.path)
         self.wavelength = np.asarray(wavelength, dtype=np.float64)
@@ -125,6 +127,10 @@ class RunWriter:
         if self.response is not None and self.response.shape != (self.n_pixels,):
             raise RunFormatError(f"'response' has shape {self.response.shape}, expected ({self.n_pixels},)",
                                  where=where, fix="give one response value per pixel")
+        if response_basis not in (None, "photon", "energy"):
+            raise RunFormatError(f"response_basis {response_basis!r} is not 'photon' or 'energy'", where=where,
+                                 fix="say whether the response converts counts to photon or energy radiance")
+        self.response_basis = response_basis
         self.saturation = saturation
         self.exposure_s = exposure_s
         self.dark_exposure_s = dark_exposure_s
@@ -133,9 +139,27 @@ class RunWriter:
         self.compression = compression
         self.created = created
         self.compression_opts = compression_opts if compression == "gzip" else None
+        self._set_mask(pixel_mask, masked_ranges, sentinels, where)
         self._written = np.zeros(self.n_shots, dtype=bool)
         self._ctx = None
         self._h5 = None
+
+    def _set_mask(self, pixel_mask, masked_ranges, sentinels, where: str) -> None:
+        """Optional ``/mask`` rows and declared sentinel values (docs/run-format.md, "Pixel masks")."""
+        self.mask = mask_entries(pixel_mask, masked_ranges, self.n_shots, self.n_pixels, where)
+        self.sentinels = tuple(float(v) for v in np.atleast_1d(np.asarray(sentinels, dtype=float)))
+
+    def _write_mask(self, f) -> None:
+        if self.sentinels:
+            f["spectra"].attrs["sentinel"] = np.asarray(self.sentinels, dtype=np.float64)
+        if self.mask.empty:
+            return
+        g = f.create_group("mask")
+        g.attrs["NX_class"] = "NXcollection"
+        g.create_dataset("shot", data=self.mask.shot.astype(np.int64))
+        g.create_dataset("first_pixel", data=self.mask.first.astype(np.int64))
+        g.create_dataset("last_pixel", data=self.mask.last.astype(np.int64))
+        g.create_dataset("reason", data=np.array(self.mask.reason, dtype=object), dtype=_STR)
 
     def __enter__(self) -> RunWriter:
         self._ctx = atomic_path(self.path)
@@ -177,6 +201,8 @@ class RunWriter:
         if self.response is not None:
             r = f.create_dataset("response", data=self.response)
             r.attrs["units"] = "relative"
+            if self.response_basis is not None:
+                r.attrs["basis"] = self.response_basis
         g = f.create_group("shots")
         g.attrs["NX_class"] = "NXcollection"
         g.create_dataset("sample_index", data=self.sample_index.astype(np.int32))
@@ -198,6 +224,7 @@ class RunWriter:
             ag.attrs[str(k)] = _attr_value(v)
         # NeXus NXdata group and HDF5 dimension scales, so viewers and xarray show the axis
         add_nxdata(f, "spectra", ["shot_index", "wavelength"])
+        self._write_mask(f)
 
     def write_spectra(self, start: int, block) -> None:
         """Write ``block`` (n × n_pixels) as shots ``start .. start+n-1``."""
@@ -233,7 +260,8 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
               sample_index, *, dark=None, response=None, saturation=None, exposure_s=None,
               dark_exposure_s=None, pulse_energy_mj=None, time_s=None, x_mm=None, y_mm=None, shot=None,
               instrument: Mapping | None = None, acquisition: Mapping | None = None, medium: str = "air",
-              dtype=None, compression: str | None = "gzip", created: str | None = None) -> Path:
+              dtype=None, compression: str | None = "gzip", created: str | None = None, pixel_mask=None,
+              masked_ranges=(), sentinels=(), response_basis: str | None = None) -> Path:
     """Write a whole run to ``path`` atomically and return the path.
 
     Parameters
@@ -244,10 +272,16 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
     sample_index : (n_shots,) int array, row of ``samples`` for each shot
     dark : (n_dark, n_pixels) array, optional dark frames
     response : (n_pixels,) relative spectral response, optional
+    response_basis : ``"photon"`` or ``"energy"``: whether the response-corrected spectrum is
+        photon or energy radiance (stored as the response dataset's ``basis`` attribute)
     saturation : detector saturation level in counts, optional
     dtype : storage dtype (default: that of ``spectra``)
     created : ISO 8601 time stored as the run's creation time (default: now, UTC); give a fixed
         value to make regenerated files byte-identical
+    pixel_mask : (n_pixels,) bool, pixels masked in every shot (dead or blanked detector pixels)
+    masked_ranges : iterable of ``(shot, first_pixel, last_pixel[, reason])`` masked in one shot
+        (inclusive; shot -1 = every shot)
+    sentinels : values the instrument writes for blanked pixels (e.g. -9999); read as masked
     """
     spectra = np.asarray(spectra)
     if spectra.ndim != 2:
@@ -257,7 +291,9 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
                   dtype=dtype or spectra.dtype, dark=dark, response=response, saturation=saturation,
                   exposure_s=exposure_s, dark_exposure_s=dark_exposure_s, pulse_energy_mj=pulse_energy_mj,
                   time_s=time_s, x_mm=x_mm, y_mm=y_mm, shot=shot, instrument=instrument,
-                  acquisition=acquisition, medium=medium, compression=compression, created=created)
+                  acquisition=acquisition, medium=medium, compression=compression, created=created,
+                  pixel_mask=pixel_mask, masked_ranges=masked_ranges, sentinels=sentinels,
+                  response_basis=response_basis)
     with w:
         w.write_spectra(0, spectra)
     return Path(path)

@@ -281,6 +281,7 @@ def simulate_run(
         arr["sample_index"],
         dark=arr["dark"],
         response=arr["response"],
+        response_basis="energy",  # the detector model converts energy radiance (W m⁻² sr⁻¹) to counts
         saturation=arr["saturation"],
         exposure_s=arr["exposure_s"],
         dark_exposure_s=arr["exposure_s"] if arr["dark"] is not None else None,

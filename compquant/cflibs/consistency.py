@@ -1,0 +1,128 @@
+"""Is the fitted plasma physical?  Checks of a solution against independent evidence.
+
+A calibration-free solution — above all a self-absorption (columnar-density) fit, which can
+settle on a hot, dense, thin false minimum — is certified only when it agrees with what the
+spectrum says independently (docs/calibration-free.md §4a).  Each check gives
+``{"check", "checked", "passed", "value", "limit", "note", "refuses"}``; a failed check that
+refuses makes the sample's
+``plasma_consistent`` false and no mass fraction of it is certified.
+
+* ``ne_routes`` — every other electron-density route the sample allows (H-alpha Stark width,
+  Stark widths of metal lines, the Saha balance of ion/atom pairs) agrees with the nₑ used:
+  a disagreement counts when the ratio exceeds ``ne_agreement_factor`` **and** 3 combined
+  standard uncertainties (in ln nₑ);
+* ``lte_mcwhirter`` — McWhirter's criterion (McWhirter 1965, as in Cristoforetti et al.
+  2010, *Spectrochim. Acta B* 65, 86, eq. 3) at the fitted T, nₑ; it refuses only solutions
+  whose nₑ comes out of a self-absorption fit (elsewhere the failure stays the flag
+  ``lte_mcwhirter_failed``, a necessary condition only);
+* ``species_temperatures`` — (refuses self-absorption fits; elsewhere reported with the flag
+  ``species_temperatures_disagree``) each species' own Boltzmann-plot temperature (≥ 3 lines over
+  ≥ 1 eV of E_k) agrees with the joint T within ``t_species_tolerance`` (7 %) or 3 combined u
+  (common practice: a single LTE temperature must describe every species);
+* ``ne_plausible`` — nₑ inside ``plausible_ne_cm3`` (common practice for laser and spark
+  plasmas at the usual delays: 10¹⁴–10¹⁹ cm⁻³);
+* ``thin_lines_temperature`` — for the self-absorption fits, the lines that the fit itself
+  finds nearly thin (SA ≥ ``sa_flag_below``) are fitted alone (same nₑ route): their T must
+  agree with the solution's within ``t_thin_tolerance`` (3 %) or 2 u — evidence that does
+  not rest on the slab model;
+* ``fit_quality`` — for the self-absorption fits, the χ² p-value of the self-absorbed model
+  at least ``sa_fit_p_min`` (0.001, the ``cf_fit_poor`` limit): a model that leaves the lines
+  scattered far beyond their uncertainties has not found the plasma;
+* ``slab_length`` — for the self-absorption fits, the slab length inside
+  ``plausible_length_mm`` (common practice: LIBS plumes are 0.1–few mm) and not at the
+  search bound.
+"""
+
+from __future__ import annotations
+
+import math
+
+
+def _check(name, checked, passed, value=None, limit=None, note="", refuses=True):
+    return {"check": name, "checked": bool(checked), "passed": bool(passed) if checked else True,
+            "value": value, "limit": limit, "note": note, "refuses": bool(refuses)}
+
+
+def ne_route_check(ne, u_ln_ne, used, estimates, factor):
+    """Agreement of every other available nₑ route with the one used."""
+    others = [e for e in estimates if not e.get("used") and e.get("ne_cm3")
+              and e.get("method") not in ("fixed",) and e.get("u_ne_cm3") is not None]
+    if not others:
+        return _check("ne_routes", False, True, note=f"only one route ({used}) available")
+    worst, notes = 0.0, []
+    passed = True
+    for e in others:
+        d = abs(math.log(e["ne_cm3"] / ne))
+        u = math.hypot(u_ln_ne, (e["u_ne_cm3"] or 0.0) / e["ne_cm3"])
+        ratio = math.exp(d)
+        worst = max(worst, ratio)
+        bad = ratio > factor and d > 3.0 * u
+        passed &= not bad
+        notes.append(f"{e['method']} {e['ne_cm3']:.3g} cm⁻³ ({'disagrees' if bad else 'agrees'})")
+    return _check("ne_routes", True, passed, value=worst, limit=factor,
+                  note=f"used {used} {ne:.3g} cm⁻³; " + "; ".join(notes))
+
+
+def species_t_check(T, u_T, species, tol):
+    rows = [s for s in species if s.get("temperature_k") and s["n_lines"] >= 3
+            and s["e_k_range_ev"][1] - s["e_k_range_ev"][0] >= 1.0]
+    if not rows:
+        return _check("species_temperatures", False, True, note="no species with ≥ 3 lines over ≥ 1 eV")
+    passed, worst, notes = True, 0.0, []
+    for s in rows:
+        d = abs(s["temperature_k"] / T - 1.0)
+        u = math.hypot(u_T, s.get("u_temperature_k") or 0.0) / T
+        bad = d > tol and d > 3.0 * u
+        passed &= not bad
+        worst = max(worst, d)
+        notes.append(f"{s['species']} {s['temperature_k']:.0f} K")
+    return _check("species_temperatures", True, passed, value=worst, limit=tol,
+                  note=f"joint {T:.0f} K; " + ", ".join(notes))
+
+
+def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, sa_info, settings, fit=None,
+                  thin=None):
+    """All checks of one solution; returns ``(checks, failed_names)``."""
+    corrected = settings.self_absorption in ("columnar", "curve_of_growth")
+    out = [ne_route_check(ne, u_ln_ne, ne_used, ne_estimates, settings.ne_agreement_factor)]
+    mw = next((c for c in (lte or {}).get("checks", []) if c.get("name") == "mcwhirter"), {})
+    out.append(_check("lte_mcwhirter", bool(mw.get("checked", False)) and corrected, bool(mw.get("passed", True)),
+                      value=ne, limit=mw.get("limit"),
+                      note="nₑ must exceed McWhirter's bound" + ("" if corrected else
+                           " (refuses self-absorption-fitted solutions only; else the flag "
+                           "lte_mcwhirter_failed)")))
+    st = species_t_check(T, u_T, species, settings.t_species_tolerance)
+    st["refuses"] = corrected  # without a slab model a disagreement is reported, not refused
+    out.append(st)
+    lo, hi = settings.plausible_ne_cm3
+    out.append(_check("ne_plausible", True, lo <= ne <= hi, value=ne, limit=[lo, hi]))
+    length = sa_info.get("plasma_length_mm")
+    fitted = sa_info.get("fitted") and settings.self_absorption in ("columnar", "curve_of_growth")
+    if fitted and length is not None:
+        lo, hi = settings.plausible_length_mm
+        out.append(_check("slab_length", True, lo <= length <= hi, value=length, limit=[lo, hi],
+                          note="fitted length of the self-absorbing slab (mm)"))
+    else:
+        out.append(_check("slab_length", False, True, note="no slab length fitted"))
+    if thin is not None:
+        d = abs(thin["temperature_k"] / T - 1.0)
+        u = thin["u_temperature_k"] / T
+        out.append(_check("thin_lines_temperature", True, not (d > settings.t_thin_tolerance and d > 2.0 * u),
+                          value=thin["temperature_k"], limit=settings.t_thin_tolerance,
+                          note=f"{thin['n_lines']} nearly thin lines alone give {thin['temperature_k']:.0f} "
+                               f"± {thin['u_temperature_k']:.0f} K against {T:.0f} K"))
+    else:
+        out.append(_check("thin_lines_temperature", False, True,
+                          note="self-absorption fits with ≥ 3 nearly thin lines only"))
+    p = (fit or {}).get("p_value")
+    if corrected and p is not None and p == p:
+        out.append(_check("fit_quality", True, p >= settings.sa_fit_p_min, value=p, limit=settings.sa_fit_p_min,
+                          note=f"χ² p-value of the self-absorbed model (χ²/ν = {(fit or {}).get('birge_ratio')}): "
+                               "below the limit the model does not describe the lines"))
+    else:
+        out.append(_check("fit_quality", False, True, note="checked for self-absorption fits only"))
+    failed = [c["check"] for c in out if c["checked"] and not c["passed"] and c["refuses"]]
+    return out, failed
+
+
+__all__ = ["ne_route_check", "plasma_checks", "species_t_check"]
