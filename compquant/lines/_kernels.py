@@ -160,20 +160,17 @@ def add_row(s1, s2, rest, y):
     ``q2 = (r + C2) - C2`` (on the grid 2**-40) -- numba compiles without fast-math here, so
     these are kept as written -- and ``q1``, ``q2`` are added to the float blocks ``s1``,
     ``s2`` (exact while fewer than ``BLOCK_ROWS`` rows are in them); values ``|x| >= 2**39``
-    and non-finite ones go to the float channel ``rest``. Returns True when ``rest`` was used.
+    and non-finite ones go to the float channel ``rest`` (``x - xs``: 0 for the others).
+    Branch-free, so that the loop runs in SIMD instructions.
     """
-    used = False
     for i in range(y.shape[0]):
         x = np.float64(y[i])
-        if abs(x) < _LIMIT:
-            q1 = (x + _C1) - _C1
-            r = x - q1
-            s1[i] += q1
-            s2[i] += (r + _C2) - _C2
-        else:
-            rest[i] += x
-            used = True
-    return used
+        xs = x if abs(x) < _LIMIT else 0.0  # NaN fails the test
+        q1 = (xs + _C1) - _C1
+        r = xs - q1
+        s1[i] += q1
+        s2[i] += (r + _C2) - _C2
+        rest[i] += x - xs
 
 
 @jit
@@ -207,7 +204,7 @@ def kernel(
     raw, slot, op_of_row, dark, inv_resp, sat_thr, use_sat, mask_run, mask_rows,
     m, decreasing, lls, do_base, want_bg, accumulate, tw,
     idx, w, cnt, defined, sidx, scnt, proto,
-    vals, satf, maskf, total, bg, s1, s2, hi, lo, rest, has_rest, block_rows,
+    vals, satf, maskf, total, bg, s1, s2, hi, lo, rest, block_rows,
 ):  # fmt: skip
     n, npx = raw.shape
     n_lines = cnt.shape[1]
@@ -251,8 +248,7 @@ def kernel(
         total[r] = dot(y, tw)
         if accumulate:
             k = slot[r]
-            if add_row(s1[k], s2[k], rest[k], y):
-                has_rest[k] = True
+            add_row(s1[k], s2[k], rest[k], y)
             in_block[k] += 1
             if in_block[k] == block_rows:
                 flush_sums(s1[k], s2[k], hi[k], lo[k])

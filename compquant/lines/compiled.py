@@ -82,13 +82,12 @@ def run_kernel(raw, slot, op_of_row, geo: dict, ops, n_slots: int, precision: st
     ns = n_slots if geo["accumulate"] else 1
     s1, s2, rest = np.zeros((ns, npx)), np.zeros((ns, npx)), np.zeros((ns, npx))
     hi, lo = np.zeros((ns, npx), dtype=np.int64), np.zeros((ns, npx), dtype=np.int64)
-    has_rest = np.zeros(ns, dtype=bool)
     proto = np.full(1, 0.5, dtype=np.float32 if precision == "float32" else np.float64)
     any_sat, any_mask = kern(
         raw, slot, op_of_row, geo["dark"], geo["inv_resp"], geo["sat_thr"], geo["use_sat"], geo["mask_run"],
         geo["mask_rows"], geo["m"], geo["decreasing"], geo["lls"], geo["do_base"], geo["want_bg"],
         geo["accumulate"], geo["tw"], ops.idx, ops.w, ops.cnt, ops.defined, ops.sidx, ops.scnt, proto,
-        vals, satf, maskf, total, bg, s1, s2, hi, lo, rest, has_rest, BLOCK_ROWS,
+        vals, satf, maskf, total, bg, s1, s2, hi, lo, rest, BLOCK_ROWS,
     )  # fmt: skip
     sums = []
     if geo["accumulate"]:
@@ -96,7 +95,8 @@ def run_kernel(raw, slot, op_of_row, geo: dict, ops, n_slots: int, precision: st
         for k in range(n_slots):
             acc = FixedPointSum(npx)
             acc.hi, acc.lo, acc.n = hi[k], lo[k], int(per[k])
-            acc.rest = rest[k] if has_rest[k] else None
+            # the float channel only where a value went there (as FixedPointSum.add_rows)
+            acc.rest = None if np.all(rest[k] == 0.0) else rest[k]
             sums.append(acc)
     return {
         "vals": vals,
