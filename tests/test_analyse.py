@@ -342,7 +342,13 @@ def test_cli_errors_and_help(work):
         ],
     )
     assert r.exit_code == 2 and "nope.toml" in r.output
+    # help carries a short note (issue 20: the full text filled half of it) ...
     r = CliRunner().invoke(main, ["analyse", "--help"])
+    assert r.exit_code == 0
+    for word in ("Class 4", "fumes", "argon", "licensed laser safety officer", "compquant safety"):
+        assert word.lower() in " ".join(r.output.split()).lower()
+    # ... and 'compquant safety' the full notes (compquant.report.safety)
+    r = CliRunner().invoke(main, ["safety"])
     assert r.exit_code == 0
     for word in ("SAFETY NOTES", "Class 4", "ANSI Z136.1", "beryllium", "argon", "licensed safety officer"):
         assert word.lower() in r.output.lower()

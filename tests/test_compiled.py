@@ -107,7 +107,56 @@ def test_compiled_equals_numpy(params, mask):
         assert a.masked_fit[9, :2].all() and np.isnan(a.fit[9, :2]).all()
     assert a.counts == b.counts == {0: 25, 1: 20, 2: 16}
     for s in b.sums:
-        _close(a.sums[s], b.sums[s], 1e-12)
+        _close(np.asarray(a.sums[s]), np.asarray(b.sums[s]), 1e-12)
+        assert a.sums[s].n == b.sums[s].n == a.counts[s]
+
+
+@needs_numba
+@pytest.mark.parametrize("mask", [False, True])
+def test_compiled_sums_are_the_exact_fixed_point_sums(mask):
+    """Without a baseline both paths compute the same spectra bit for bit, so the kernel's
+    per-sample sums (pre-rounded to the grid of compquant.exactsum, int64 accumulators) must
+    equal the NumPy path's FixedPointSum exactly, in one chunk or in any split of it, and
+    equal math.fsum (Python's correctly rounded sum) of the grid values."""
+    import math
+
+    from compquant.exactsum import FixedPointSum
+
+    raw = _raw()
+    si = np.repeat([0, 1, 2, 0], [15, 20, 16, 10])
+    pm = np.zeros((raw.shape[0], NPX), bool)
+    pm[9, 129] = True
+    pm = pm if mask else None
+    b = process_chunk(raw, si, _plan(None, "numpy", mask=mask), pixel_mask=pm)
+    a = process_chunk(raw, si, _plan(None, "compiled", mask=mask), pixel_mask=pm)
+    parts = [process_chunk(raw[i:j], si[i:j], _plan(None, "compiled", mask=mask),
+                           pixel_mask=None if pm is None else pm[i:j]) for i, j in ((0, 7), (7, 40), (40, 61))]
+    merged = {}
+    for p in parts:
+        for s, v in p.sums.items():
+            merged[s] = merged[s] + v if s in merged else v.copy()
+    for s in b.sums:
+        for got in (a.sums[s], merged[s]):
+            assert isinstance(got, FixedPointSum)
+            assert np.array_equal(got.hi, b.sums[s].hi) and np.array_equal(got.lo, b.sums[s].lo)
+            assert got.rest is None and b.sums[s].rest is None
+    # against math.fsum of the spectra of sample 1 (unmasked pixels 5 and 300), as the kernel saw them
+    plan = _plan(None, "numpy", mask=mask)
+    y = (raw[si == 1].astype(np.float64) - plan.dark) * plan.inv_response
+    for px in (5, 300):
+        assert abs(np.asarray(a.sums[1])[px] - math.fsum(y[:, px])) <= 20 * 2.0**-41
+
+
+@needs_numba
+def test_compiled_sums_keep_non_finite_values_apart():
+    """A NaN or huge value goes to the float channel of the sums, as in the NumPy path."""
+    raw = _raw(n=6).astype(np.float64)
+    raw[2, 50] = 1e300
+    plan = ChunkPlan(n_pixels=NPX, kernel="compiled")
+    a = process_chunk(raw, np.zeros(6, int), plan)
+    b = process_chunk(raw, np.zeros(6, int), ChunkPlan(n_pixels=NPX, kernel="numpy"))
+    assert a.sums[0].rest is not None and np.array_equal(np.asarray(a.sums[0]), np.asarray(b.sums[0]))
+    assert np.asarray(a.sums[0])[50] == raw[:, 50].sum()
 
 
 @needs_numba

@@ -6,6 +6,7 @@ import json
 import os
 
 import jsonschema
+import pytest
 from click.testing import CliRunner
 from pypdf import PdfReader
 
@@ -14,6 +15,7 @@ from compquant.cli.cmd_demo import find_demo_files
 from compquant.report.jsonform import load_schema
 
 
+@pytest.mark.slow
 def test_demo_end_to_end(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)  # demo files are found beside the package source tree, not in ./
     files = find_demo_files()

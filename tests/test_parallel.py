@@ -236,3 +236,80 @@ def test_maps_on_cluster_equal_serial(cluster, method, tmp_path):
         assert (sa.grid.nx, sa.grid.ny) == (15, 10)
         for ma, mb in zip(sa.maps, sb.maps):
             assert np.array_equal(ma.values, mb.values, equal_nan=True)
+
+
+# ------------------------------------------------------------------ issue 20: Dask done properly
+
+
+def test_split_ranges_cover_in_order_and_align():
+    from compquant.parallel.lines import split_ranges
+
+    pieces = split_ranges([(0, 640)], 4, align=42)
+    assert len(pieces) >= 4 and pieces[0][1] == 0 and pieces[-1][2] == 640
+    assert all(a[2] == b[1] for a, b in zip(pieces, pieces[1:]))
+    assert all(p[1] % 42 == 0 for p in pieces)  # no stored HDF5 chunk read by two tasks
+    assert split_ranges([(0, 100), (100, 200)], 2) == [(0, 0, 100), (1, 100, 200)]  # enough already
+
+
+def test_default_chunking_gives_every_worker_work_and_same_numbers(cluster, runs, method, monkeypatch):
+    # a 450-shot run is a single chunk of the default 4096 shots: before issue 20 one task did it all
+    import compquant.parallel.lines as plines
+
+    seen = []
+    real = plines.map_chunks
+
+    def spy(executor, path, fn, ctx, **kw):
+        seen.append(len(kw["ranges"]))
+        return real(executor, path, fn, ctx, **kw)
+
+    monkeypatch.setattr(plines, "map_chunks", spy)
+    with Run.open(runs[0]) as run:
+        serial = measure_run(run, method)
+        dist = measure_run_on(cluster, run, method)
+    assert seen and min(seen) >= 2 * cluster.n_workers
+    pd.testing.assert_frame_equal(serial.table, dist.table, check_exact=True)
+    assert np.array_equal(serial.shot_intensity, dist.shot_intensity, equal_nan=True)
+
+
+def test_scheduler_from_environment_and_scheduler_file(cluster, tmp_path, monkeypatch):
+    import json
+
+    monkeypatch.setenv("DASK_SCHEDULER_ADDRESS", cluster.address)
+    with open_executor() as ex:
+        assert ex.kind == "dask" and ex.address == cluster.address and ex.n_workers == 2
+    monkeypatch.delenv("DASK_SCHEDULER_ADDRESS")
+    with open_executor() as ex:
+        assert ex.kind == "serial"
+    f = tmp_path / "scheduler.json"
+    f.write_text(json.dumps({"address": cluster.address}))  # the key Dask's scheduler file holds
+    with open_executor(scheduler_file=f) as ex:
+        assert ex.address == cluster.address
+    with open_executor(scheduler=str(f)) as ex:  # what --scheduler-file passes on
+        assert ex.address == cluster.address
+
+
+def test_version_mismatch_is_a_clear_error(cluster, monkeypatch):
+    import compquant
+    import compquant.parallel.cluster as pc
+    from compquant.errors import ConfigError
+
+    pc.check_versions(cluster.client, "tcp://test")  # equal: no error
+    # this process claims another version; the worker processes keep the real one
+    monkeypatch.setattr(compquant, "__version__", "0.0.0-other")
+    with pytest.raises(ConfigError) as ei:
+        pc.check_versions(cluster.client, "tcp://test")
+    assert "compquant" in ei.value.one_line() and "same versions" in ei.value.one_line()
+
+
+def test_configuration_files_travel_by_value(tmp_path):
+    from compquant.parallel.analyse import _by_value, _on_worker
+
+    cfg = tmp_path / "method.toml"
+    cfg.write_text("[method]\nid = 'x'\n")
+    sent = _by_value(cfg)
+    # the worker has the same file: it uses the real path (the certificate names it)
+    assert _on_worker(sent, tmp_path / "copy") == str(cfg.resolve())
+    # the worker does not have it (no shared file system): a private copy of the bytes sent
+    cfg.unlink()
+    local = _on_worker(sent, tmp_path / "copy")
+    assert local != str(cfg) and open(local, "rb").read() == b"[method]\nid = 'x'\n"

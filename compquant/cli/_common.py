@@ -1,29 +1,66 @@
-"""Small helpers shared by the CLI commands: the safety epilog, plain-text tables, CSV output.
+"""Small helpers shared by the CLI commands: the safety epilog, plain-text tables, CSV output,
+progress bars that follow the verbosity (-q / -v).
 
 Not a command module (no ``cmd_`` prefix), so the lazy command discovery skips it.
 """
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Collection, Sequence
 from pathlib import Path
+
+import click
 
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write, csv_cell, terminal_text, write_text_atomic
 
-#: the usual cautions printed under a command's help (common practice of laser and
-#: spark-source labs; local regulations and the licensed safety officer decide)
+#: the short safety note under every command's help; the full notes (compquant.report.safety,
+#: also on every certificate) are printed by ``compquant safety``.  Common practice of laser and
+#: spark-source labs; local regulations and the licensed safety officer decide.
 SAFETY = (
-    "Safety: LIBS uses Class 4 lasers (eye and skin hazard: wear eyewear of the right optical "
-    "density for the laser wavelength, keep interlocks and a controlled area); ablation makes "
-    "fumes and particles, some toxic (Pb, Cd, Be): use fume extraction; spark and flashlamp "
-    "sources use high voltage and emit UV; argon purge gas can displace air in closed rooms. "
-    "Follow local regulations and your laser safety officer."
+    "Safety: LIBS and spark OES involve Class 4 laser radiation (eyes, skin, fire), toxic ablation "
+    "fumes (Pb, Cd, Be), high voltage, UV and ozone, and argon purge gas in closed rooms. Local "
+    "regulations and your licensed laser safety officer take precedence. Full notes: 'compquant safety'."
 )
 
 
+#: -q / -v of the running command (compquant.cli.set_verbosity): below 0 quiet (errors only),
+#: 0 default, 1 and more: details
+VERBOSITY = 0
+
+
+class _NoBar:
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+    def update(self, n: int = 1, current_item=None) -> None:
+        pass
+
+
+def progress_bar(length: int, label: str, *, enabled: bool = True):
+    """A click progress bar on stderr (context manager with ``update(n)``), or one that draws
+    nothing when ``-q`` was given, ``enabled`` is false or stderr is not a terminal."""
+    raw = getattr(sys.stderr, "_stream", sys.stderr)
+    try:
+        tty = bool(raw.isatty())
+    except (AttributeError, ValueError):
+        tty = False
+    # only on a terminal: in a log or a pipe a bar is just its label, a line that is no
+    # error, warning or note (stderr keeps its one-line-per-message form)
+    if not enabled or VERBOSITY < 0 or not tty:
+        return _NoBar()
+    # the label is escaped here; the bar itself is drawn on the raw stderr, because the
+    # command's SafeStream (compquant.cli.safe_output) would show its cursor codes as escapes
+    return click.progressbar(length=max(int(length), 1), label=terminal_text(label), file=raw)
+
+
 def write_csv(df, path, float_format: str = "%.10g", sep: str = ",") -> None:
-    """Write ``df`` (no index) to ``path`` through :func:`compquant.fileio.atomic_write`.
+    """Write ``df`` (no index) to ``path`` through :func:`compquant.fileio.atomic_write`;
+    ``-`` writes it to standard output instead.
 
     Every text cell and column name goes through :func:`compquant.fileio.csv_cell` (no formula,
     no raw newline or control character); an infinite number is written as an empty cell, like
@@ -31,6 +68,9 @@ def write_csv(df, path, float_format: str = "%.10g", sep: str = ",") -> None:
     :class:`~compquant.errors.OutputError` naming the path.
     """
     df = safe_frame(df)
+    if is_stdio(path):
+        df.to_csv(sys.stdout, index=False, float_format=float_format)
+        return
     try:
         with atomic_write(Path(path), "w", newline="") as fh:
             df.to_csv(fh, index=False, float_format=float_format, sep=sep)
@@ -40,6 +80,26 @@ def write_csv(df, path, float_format: str = "%.10g", sep: str = ",") -> None:
         ) from exc
 
 
+def scheduler_file_option(fn):
+    """``--scheduler-file FILE`` for commands with ``--scheduler``: the file a Dask scheduler writes
+    (``dask scheduler --scheduler-file FILE``); the command passes it on with :func:`fold_scheduler`."""
+    return click.option(
+        "--scheduler-file", type=click.Path(exists=True, dir_okay=False), default=None,
+        help="Compute on the existing Dask cluster described by this scheduler file.",
+    )(fn)
+
+
+def fold_scheduler(scheduler: str | None, scheduler_file: str | None) -> str | None:
+    """One ``scheduler`` argument for :func:`compquant.parallel.open_executor`, which reads a
+    value naming an existing file as a scheduler file."""
+    if scheduler and scheduler_file:
+        raise click.UsageError("give --scheduler or --scheduler-file, not both")
+    return scheduler_file or scheduler
+
+
+def is_stdio(path) -> bool:
+    """True for the path ``-``: standard input or output, for commands that read or write one table."""
+    return path is not None and str(path) == "-"
 def safe_frame(df):
     """A copy of ``df`` ready for CSV: text cells through :func:`csv_cell`, infinities as missing."""
     import numpy as np
@@ -90,4 +150,15 @@ def format_columns(rows: Sequence[Sequence[str]], *, right: Collection[int] = ()
     )
 
 
-__all__ = ["SAFETY", "format_columns", "report_runs", "safe_frame", "write_csv"]
+__all__ = [
+    "SAFETY",
+    "VERBOSITY",
+    "fold_scheduler",
+    "format_columns",
+    "is_stdio",
+    "progress_bar",
+    "report_runs",
+    "safe_frame",
+    "scheduler_file_option",
+    "write_csv",
+]

@@ -4,13 +4,8 @@ from __future__ import annotations
 
 import click
 
-from compquant.fileio import visible_text
-from compquant.report.release import EXIT_NOT_VALID, NOT_VALID_FOR_RELEASE, release_status
-from compquant.report.safety import safety_plain
-
-_EPILOG = "\b\nSAFETY NOTES (LIBS and spark OES can hurt people)\n\n" + "\n\n".join(
-    "\b\n" + para for para in safety_plain(width=78).split("\n\n")
-)
+from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
+from compquant.cli._common import fold_scheduler, progress_bar, scheduler_file_option
 
 
 class StageProgress:
@@ -36,9 +31,7 @@ class StageProgress:
             self.close()
             self.stage = stage
             self.done = 0
-            self.bar = click.progressbar(
-                length=max(int(total), 1), label=self.LABELS.get(stage, stage), file=click.get_text_stream("stderr")
-            )
+            self.bar = progress_bar(total, self.LABELS.get(stage, stage))  # compquant.cli._common
             self.bar.__enter__()
         if done > self.done:
             self.bar.update(done - self.done)
@@ -50,8 +43,18 @@ class StageProgress:
             self.bar = None
 
 
+def _release_words():
+    """The release-state words and exit code (imported when used: ``--help`` stays light)."""
+    from compquant.report.release import EXIT_NOT_VALID, NOT_VALID_FOR_RELEASE, release_status
+
+    return EXIT_NOT_VALID, NOT_VALID_FOR_RELEASE, release_status
+
+
 def summary_table(out) -> str:
     """Plain-text table: one row per certificate, one column per element (printed values)."""
+    from compquant.fileio import visible_text
+
+    _, _, release_status = _release_words()
     elements = []
     for c in out.certificates:
         for r in c.results:
@@ -98,6 +101,9 @@ def report_outputs(out) -> None:
 
 def release_block(out) -> str:
     """The warning block: every analyte not reported and every reason a certificate is not valid."""
+    from compquant.fileio import visible_text
+
+    EXIT_NOT_VALID, NOT_VALID_FOR_RELEASE, _ = _release_words()
     lines = []
     if out.not_reported:
         lines.append("WARNING: analytes of the method not reported:")
@@ -159,7 +165,8 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     with open_executor(workers, scheduler) as ex:
         if not quiet:
             click.echo(f"analysing {len(paths)} runs on {ex.describe()}", err=True)
-        outcomes = analyse_runs(ex, paths, method_path, folders, **options)
+        with progress_bar(len(paths), "runs              ", enabled=not quiet) as bar:  # one step per run
+            outcomes = analyse_runs(ex, paths, method_path, folders, progress=lambda oc: bar.update(1), **options)
     frames, status = [], []
     for oc in outcomes:
         if oc.ok:
@@ -244,7 +251,9 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 @click.option(
     "--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes (loopback only)."
 )
-@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option("--scheduler", default=None,
+              help="Compute on an existing Dask cluster at this address (default: DASK_SCHEDULER_ADDRESS if set).")
+@scheduler_file_option
 @click.option(
     "--measured", metavar="ISO-8601", help="Start time of the measurement, for a run that states none (converted)."
 )
@@ -280,6 +289,7 @@ def command(
     chunk_shots,
     workers,
     scheduler,
+    scheduler_file,
     quiet,
     db,
     measured,
@@ -309,6 +319,7 @@ def command(
     from compquant.analyse import analyse
     from compquant.parallel import chunk_mapper, open_executor
 
+    scheduler = fold_scheduler(scheduler, scheduler_file)
     options = dict(
         standards=standards,
         calibration=calibration,
@@ -327,7 +338,7 @@ def command(
     )
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if not _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options):
-            ctx.exit(EXIT_NOT_VALID)
+            ctx.exit(_release_words()[0])
         return
     run_path = run_paths[0]
     prog = StageProgress(enabled=not quiet)

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, write_csv
+from compquant.cli._common import SAFETY, format_columns, progress_bar, write_csv
 from compquant.errors import ConfigError, StandardsError
 from compquant.fileio import atomic_write, json_ready, safe_filename, terminal_text
 
@@ -74,7 +74,9 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
     if draws is not None and draws < 0:
         raise ConfigError("--draws must be ≥ 0", where="--draws", fix="e.g. --draws 300")
     with Run.open(run_path) as run:
-        lm = measure_run(run, method)
+        passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
+        with progress_bar(run.n_shots * passes, "measuring lines   ", enabled=not quiet) as bar:
+            lm = measure_run(run, method, progress=bar.update)
         acquisition, instrument = dict(run.acquisition or {}), dict(run.instrument or {})
         sample_table = run.samples.copy()
         run_sha = run.sha256()
@@ -105,15 +107,17 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                                           acquisition=acquisition, instrument=instrument,
                                           intensity_basis=basis)
     results, failures = [], {}
-    for sid in ids:
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
-                                          instrument=instrument, one_point=one_point, mc_draws=draws,
-                                          seed=seed, intensity_basis=basis))
-        except CompquantError as exc:
-            failures[sid] = exc.one_line()
+    with progress_bar(len(ids), "calibration-free  ", enabled=not quiet) as bar:  # one step per sample
+        for sid in ids:
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
+                                              instrument=instrument, one_point=one_point, mc_draws=draws,
+                                              seed=seed, intensity_basis=basis))
+            except CompquantError as exc:
+                failures[sid] = exc.one_line()
+            bar.update(1)
     if failures and not results:  # before anything is written; the reasons in the line itself
         first, why = next(iter(failures.items()))
         more = f" (and {len(failures) - 1} more sample(s))" if len(failures) > 1 else ""

@@ -5,7 +5,6 @@ from __future__ import annotations
 import click
 
 from compquant.errors import InputError
-from compquant.run.convert import convert_to_run
 
 
 def _pairs(values, what):
@@ -45,6 +44,8 @@ def command(spectra, samples_csv, dark, saturation, medium, instrument, acquisit
 
     spectra_in = [spectra] if isinstance(spectra, str) else list(spectra)
     refuse_overwriting_inputs([output], [*spectra_in, samples_csv, *dark])
+    from compquant.run.convert import convert_to_run
+
     report = convert_to_run(spectra, samples_csv, output, dark=dark, saturation=saturation, medium=medium,
                             instrument=_pairs(instrument, "instrument"),
                             acquisition=_pairs(acquisition, "acquisition"), sentinels=sentinels)

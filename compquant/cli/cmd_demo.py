@@ -11,8 +11,10 @@ from compquant.errors import InputError
 
 
 def _roots() -> list[Path]:
+    """Folders that may hold ``demo_runs/`` and ``standards/``: the current folder, the source
+    tree holding ``compquant/``, and the package's own copy (``compquant/demo``, in the wheel)."""
     here = Path(__file__).resolve()
-    roots = [Path.cwd(), here.parents[2]]  # ./ and the source tree holding compquant/
+    roots = [Path.cwd(), here.parents[2], here.parents[1] / "demo"]
     out = []
     for r in roots:
         if r not in out:
@@ -30,8 +32,9 @@ DEMO_STANDARDS = "demo-copper-alloys.csv"
 def find_demo_files() -> dict[str, Path | None]:
     """Locate the demo run (or its scenario), method, standards, lab profile and specification.
 
-    Looks in ``./demo_runs`` and in ``demo_runs`` beside the package source tree; standards in
-    ``standards/`` beside it.  ``run`` is None when only the scenario is shipped (then
+    Looks in ``./demo_runs``, in ``demo_runs`` beside the package source tree and in the
+    installed package's copy (``compquant/demo/demo_runs``); standards in ``standards/``
+    beside it.  ``run`` is None when only the scenario is shipped (then
     ``compquant demo`` simulates the run first).
     """
     tried = []
@@ -57,13 +60,13 @@ def find_demo_files() -> dict[str, Path | None]:
             raise InputError(
                 f"demo files missing: {', '.join(missing)}",
                 where=str(d),
-                fix="run from the compquant source tree, which ships demo_runs/ and standards/",
+                fix="reinstall compquant (the wheel ships demo_runs/ and standards/), or run from its source tree",
             )
         return found
     raise InputError(
         "demo files not found",
         where=" or ".join(tried),
-        fix="run 'compquant demo' from the root of the compquant source tree",
+        fix="reinstall compquant (the wheel ships the demo files in compquant/demo/) or run from its source tree",
     )
 
 

@@ -5,14 +5,13 @@ from __future__ import annotations
 from pathlib import Path
 
 import click
-import pandas as pd
 
 from compquant.cli._common import SAFETY, format_columns, write_csv
 from compquant.errors import InputError
 from compquant.fileio import safe_filename, terminal_text
 
 
-def render_table(table: pd.DataFrame) -> str:
+def render_table(table) -> str:
     """Readable text of the identification table: detected and possible species, then the rest in one line."""
     out = []
     for sid, t in table.groupby("sample_id", sort=False):
@@ -59,6 +58,8 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
     behind it. With --method, also map the interferences of other detected elements on the
     method's analyte lines and suggest interference-free alternatives. The run is read-only;
     outputs are written atomically. Rules: docs/identification.md."""
+    import pandas as pd
+
     from compquant.fileio import refuse_overwriting_inputs
 
     refuse_overwriting_inputs([output, imap_path, peaks_path, plot_path], [run_path, method_path, lines_path])

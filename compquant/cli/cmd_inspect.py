@@ -8,8 +8,6 @@ import click
 
 from compquant.cli._common import format_columns
 from compquant.fileio import terminal_text
-from compquant.run import Run, summarise_run
-from compquant.run.mask import describe_shots
 
 
 def _fmt_settings(d: dict) -> str:
@@ -57,6 +55,8 @@ def render_summary(s: dict) -> str:
 
 def _masked_lines(s: dict, limit: int = 20) -> list[str]:
     """Masked pixels by sample and pixel range (compquant.run.mask)."""
+    from compquant.run.mask import describe_shots
+
     out = []
     for smp in s["samples"]:
         for m in smp.get("masked", [])[:limit]:
@@ -81,6 +81,8 @@ def command(run_path, as_json, chunk_shots):
     """Show a run's instrument and acquisition settings, wavelength axis, samples
     (role, certified-standard reference, shots, saturated pixels), masked pixels by range, and validation
     findings. The file is opened read-only."""
+    from compquant.run import Run, summarise_run
+
     with Run.open(run_path) as run:
         summary = summarise_run(run, chunk_shots=chunk_shots)
     if as_json:

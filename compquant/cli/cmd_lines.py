@@ -14,7 +14,16 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, report_runs, write_csv
+from compquant.cli._common import (
+    SAFETY,
+    fold_scheduler,
+    format_columns,
+    is_stdio,
+    progress_bar,
+    report_runs,
+    scheduler_file_option,
+    write_csv,
+)
 from compquant.errors import OutputError
 from compquant.fileio import atomic_write, json_ready, terminal_text
 
@@ -64,6 +73,8 @@ def write_outputs(lm, out: Path, shots_out: Path | None, qc_out: Path) -> list[P
     write_csv(lm.table, out)
     if shots_out is not None:
         write_csv(lm.shots, shots_out)
+    if qc_out is None:  # line table on standard output (-o -) and no QC file asked for
+        return [out] + ([shots_out] if shots_out is not None else [])
     qc = lm.qc.merge(lm.shifts, on="sample_id", how="left")
     write_csv(qc, qc_out)
     prov_path = Path(f"{stem}-provenance.json")
@@ -94,7 +105,9 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     with open_executor(workers, scheduler) as ex:
         if not quiet:
             click.echo(f"measuring {len(paths)} runs on {ex.describe()}", err=True)
-        outcomes = measure_runs(ex, paths, method, chunk_shots=chunk_shots, outputs=folders, writer=write_run_outputs)
+        with progress_bar(len(paths), "runs     ", enabled=not quiet) as bar:  # one step per run
+            outcomes = measure_runs(ex, paths, method, chunk_shots=chunk_shots, outputs=folders,
+                                    writer=write_run_outputs, progress=lambda oc: bar.update(1))
     tables, status = [], []
     for oc in outcomes:
         if oc.ok:
@@ -149,7 +162,8 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     "--output",
     required=True,
     type=click.Path(),
-    help="Line table CSV for one run; an output folder for several runs or a folder of runs.",
+    help="Line table CSV for one run ('-': standard output, no other file unless named); "
+    "an output folder for several runs or a folder of runs.",
 )
 @click.option(
     "--shots",
@@ -178,7 +192,9 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
     default=None,
     help="Start a local Dask cluster of N worker processes (loopback only) and compute there.",
 )
-@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option("--scheduler", default=None,
+              help="Compute on an existing Dask cluster at this address (default: DASK_SCHEDULER_ADDRESS if set).")
+@scheduler_file_option
 @click.option(
     "--threads",
     type=click.IntRange(1, 64),
@@ -188,7 +204,8 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
 )
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
 def command(
-    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, threads, quiet
+    run_paths, method_path, output, shots_path, no_shots, qc_path, chunk_shots, workers, scheduler, scheduler_file,
+    threads, quiet,
 ):
     """Preprocess every shot of RUN as the method says (dark, response, saturation, shot QC,
     baseline, normalisation, shift) and measure its lines: intensity with standard uncertainty,
@@ -205,6 +222,7 @@ def command(
     from compquant.run import Run
 
     refuse_overwriting_inputs([output, shots_path, qc_path], [*run_paths, method_path])
+    scheduler = fold_scheduler(scheduler, scheduler_file)
     method = load_method(method_path)
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if shots_path or qc_path or no_shots:
@@ -218,21 +236,28 @@ def command(
     run_path = run_paths[0]
     out = Path(output)
     stem = out.with_suffix("")
-    shots_out = None if no_shots else Path(shots_path or f"{stem}-shots.csv")
-    qc_out = Path(qc_path or f"{stem}-qc.csv")
-    refuse_overwriting_inputs([shots_out, qc_out, Path(f"{stem}-provenance.json")], [run_path, method_path])
+    if is_stdio(output):  # the line table on standard output; other files only when named
+        shots_out = Path(shots_path) if shots_path and not no_shots else None
+        qc_out = Path(qc_path) if qc_path else None
+    else:
+        shots_out = None if no_shots else Path(shots_path or f"{stem}-shots.csv")
+        qc_out = Path(qc_path or f"{stem}-qc.csv")
+    refuse_overwriting_inputs(
+        [shots_out, qc_out] + ([] if is_stdio(output) else [Path(f"{stem}-provenance.json")]), [run_path, method_path]
+    )
     with Run.open(run_path) as run, open_executor(workers, scheduler) as ex:
         mapper = chunk_mapper(ex)
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         total = run.n_shots * passes
-        if quiet or total < 20000:
-            lm = measure_run(run, method, chunk_shots=chunk_shots, chunk_mapper=mapper, threads=threads)
-        else:
-            with click.progressbar(length=total, label="measuring", file=click.get_text_stream("stderr")) as bar:
-                lm = measure_run(
-                    run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper, threads=threads
-                )
+        with progress_bar(total, "measuring", enabled=not quiet) as bar:  # shots x passes over the run
+            lm = measure_run(
+                run, method, chunk_shots=chunk_shots, progress=bar.update, chunk_mapper=mapper, threads=threads
+            )
     written = write_outputs(lm, out, shots_out, qc_out)
+    if is_stdio(output):
+        if not quiet and len(written) > 1:
+            click.echo("wrote " + ", ".join(str(p) for p in written[1:]), err=True)
+        return
     if not quiet:
         click.echo(_short_table(lm.table))
         rej = lm.qc[lm.qc["n_rejected"] > 0]

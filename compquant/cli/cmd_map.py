@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, write_csv
+from compquant.cli._common import SAFETY, fold_scheduler, progress_bar, scheduler_file_option, write_csv
 from compquant.fileio import terminal_text
 
 
@@ -61,9 +61,12 @@ def write_map_outputs(result, out_dir: Path) -> list[Path]:
 @click.option("--sample", "samples", multiple=True, help="Sample to map (repeatable) [default: rastered ones].")
 @click.option("--chunk-shots", type=int, default=None, help="Shots per streamed chunk [method default].")
 @click.option("--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes.")
-@click.option("--scheduler", default=None, help="Compute on an existing Dask cluster at this address.")
+@click.option("--scheduler", default=None,
+              help="Compute on an existing Dask cluster at this address (default: DASK_SCHEDULER_ADDRESS if set).")
+@scheduler_file_option
 @click.option("--quiet", is_flag=True, help="No progress bar or summary.")
-def command(run_path, method_path, calibration_path, out_dir, samples, chunk_shots, workers, scheduler, quiet):
+def command(run_path, method_path, calibration_path, out_dir, samples, chunk_shots, workers, scheduler, scheduler_file,
+            quiet):
     """Per-element maps of a rastered run (shots with x, y stage positions): each grid node holds
     the mean over its accepted shots of the line intensity, or with --calibration the mass
     fraction from the calibration curves. Writes maps.h5 (x/y axes in mm, units attributes) and a
@@ -83,6 +86,7 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
         from compquant.calibrate.model import Calibration
 
         cal = Calibration.load(calibration_path)
+    scheduler = fold_scheduler(scheduler, scheduler_file)
     with Run.open(run_path) as run, open_executor(workers, scheduler) as ex:
         if quiet or run.n_shots < 20000:
             result = make_maps(
@@ -90,9 +94,7 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
             )
         else:
             passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
-            with click.progressbar(
-                length=run.n_shots * passes, label="measuring", file=click.get_text_stream("stderr")
-            ) as bar:
+            with progress_bar(run.n_shots * passes, "measuring") as bar:
                 result = make_maps(
                     run,
                     method,

@@ -5,10 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 
 import click
-import numpy as np
 
 from compquant.errors import InputError
-from compquant.plotting import pyplot, save_png
 
 
 def plot_sample(
@@ -27,7 +25,10 @@ def plot_sample(
     line is labelled with its id and flags (red: saturated or not found; orange: other flags).
     ``wl_range`` = (lo, hi) nm zooms into part of the spectrum.  Written atomically as PNG (matplotlib Agg).
     """
+    import numpy as np
+
     from compquant.lines import mean_spectrum
+    from compquant.plotting import pyplot, save_png
 
     plt = pyplot()
 

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, write_csv
+from compquant.cli._common import SAFETY, is_stdio, write_csv
 from compquant.fileio import terminal_text
 
 
@@ -105,7 +105,8 @@ def results_text(q) -> str:
     "--output",
     required=True,
     type=click.Path(dir_okay=False),
-    help="Results CSV (one row per sample and element, mass fractions in g/g).",
+    help="Results CSV (one row per sample and element, mass fractions in g/g); '-': the results "
+    "on standard output and no other file.",
 )
 @click.option("--quiet", is_flag=True, help="Do not print the results.")
 def command(run_path, cal_path, method_path, standards_path, output, quiet):
@@ -139,6 +140,8 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
     out = Path(output)
     stem = out.with_suffix("")
     write_csv(q.results, out)
+    if is_stdio(output):  # results on standard output, nothing else (see --help)
+        return
     write_csv(q.checks, Path(f"{stem}-checks.csv"))
     prov = dict(q.provenance)
     prov.update(

@@ -145,10 +145,42 @@ def dot(y, t):
     return acc
 
 
+#: the fixed grid of :mod:`compquant.exactsum` (the same constants: the two paths give the same sums)
+_C1 = 1.5 * 2.0**52
+_C2 = 1.5 * 2.0 ** (52 - 40)
+_LIMIT = 2.0**39
+_LO_SCALE = 2.0**40
+
+
 @jit
-def add_row(acc, y):
+def add_row(s1, s2, rest, y):
+    """Add ``y`` to the exact per-sample sums (:class:`compquant.exactsum.FixedPointSum`).
+
+    Each value is rounded on its own, ``q1 = (x + C1) - C1`` (an integer), ``r = x - q1``,
+    ``q2 = (r + C2) - C2`` (on the grid 2**-40) -- numba compiles without fast-math here, so
+    these are kept as written -- and ``q1``, ``q2`` are added to the float blocks ``s1``,
+    ``s2`` (exact while fewer than ``BLOCK_ROWS`` rows are in them); values ``|x| >= 2**39``
+    and non-finite ones go to the float channel ``rest`` (``x - xs``: 0 for the others).
+    Branch-free, so that the loop runs in SIMD instructions.
+    """
     for i in range(y.shape[0]):
-        acc[i] += y[i]
+        x = np.float64(y[i])
+        xs = x if abs(x) < _LIMIT else 0.0  # NaN fails the test
+        q1 = (xs + _C1) - _C1
+        r = xs - q1
+        s1[i] += q1
+        s2[i] += (r + _C2) - _C2
+        rest[i] += x - xs
+
+
+@jit
+def flush_sums(s1, s2, hi, lo):
+    """Move the exact float blocks into the int64 accumulators and clear them."""
+    for i in range(s1.shape[0]):
+        hi[i] += np.int64(s1[i])
+        lo[i] += np.int64(s2[i] * _LO_SCALE)
+        s1[i] = 0.0
+        s2[i] = 0.0
 
 
 @jit
@@ -172,7 +204,7 @@ def kernel(
     raw, slot, op_of_row, dark, inv_resp, sat_thr, use_sat, mask_run, mask_rows,
     m, decreasing, lls, do_base, want_bg, accumulate, tw,
     idx, w, cnt, defined, sidx, scnt, proto,
-    vals, satf, maskf, total, bg, sums,
+    vals, satf, maskf, total, bg, s1, s2, hi, lo, rest, block_rows,
 ):  # fmt: skip
     n, npx = raw.shape
     n_lines = cnt.shape[1]
@@ -193,6 +225,7 @@ def kernel(
         sxx += xc[k] * xc[k]
     any_sat = False
     any_mask = False
+    in_block = np.zeros(s1.shape[0], np.int64)  # rows in each sample's float blocks
     for r in range(n):
         load_row(raw[r], dark, inv_resp, y)
         nm = 0
@@ -214,7 +247,12 @@ def kernel(
             bg[r] = 0.0
         total[r] = dot(y, tw)
         if accumulate:
-            add_row(sums[slot[r]], y)
+            k = slot[r]
+            add_row(s1[k], s2[k], rest[k], y)
+            in_block[k] += 1
+            if in_block[k] == block_rows:
+                flush_sums(s1[k], s2[k], hi[k], lo[k])
+                in_block[k] = 0
         o = op_of_row[r]
         for j in range(n_lines):
             if not defined[o, j]:
@@ -235,4 +273,7 @@ def kernel(
             vals[r, j] = np.nan if fm else acc
             satf[r, j] = fs
             maskf[r, j] = fm
+    if accumulate:
+        for k in range(s1.shape[0]):
+            flush_sums(s1[k], s2[k], hi[k], lo[k])
     return any_sat, any_mask

@@ -23,13 +23,17 @@ Per shot the steps are, in this order:
    number of lines;
 6. per-shot QC quantities: total emission ``y @ t`` (trapezoid weights) and the
    mean removed baseline (for ``background`` normalisation);
-7. per-sample sums of the processed spectra (for sample mean spectra).
+7. per-sample sums of the processed spectra (for sample mean spectra), kept as exact
+   fixed-point sums (:class:`compquant.exactsum.FixedPointSum`) so that they, and all that
+   follows from the mean spectra, do not depend on the chunk size or the number of workers.
 
 Two implementations give the same numbers (to round-off, <= 1e-12 relative, held by
 the tests): the NumPy reference, on blocks of rows sized for the CPU cache, and the
 compiled one-pass kernel of :mod:`compquant.lines.compiled` (numba, used when it
 imports and the baseline is none or SNIP; ``ChunkPlan.kernel`` / ``COMPQUANT_KERNEL``
-choose).
+choose).  Both compute each shot on its own (per-line sparse sums, one dot product per
+row for the total emission: the numbers of a shot do not depend on which other shots
+share its chunk) and both add the per-sample sums on the same fixed grid, exactly.
 """
 
 from __future__ import annotations
@@ -39,6 +43,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from compquant.exactsum import FixedPointSum, row_products
 from compquant.preprocess.baseline import SNIP_BLOCK_ROWS, SnipWorkspace, estimate_baseline, snip_block
 
 #: rows per block for the AsLS / arPLS solvers (memory about 12 x rows x pixels x 8 bytes)
@@ -117,7 +122,7 @@ class ChunkResult:
     sat_fit: np.ndarray | None  # (n, n_fit) bool
     total: np.ndarray  # (n,) total emission after baseline removal, counts*nm
     background: np.ndarray  # (n,) mean removed baseline, counts
-    sums: dict[int, np.ndarray]  # sample index -> sum of processed spectra
+    sums: dict[int, FixedPointSum]  # sample index -> sum of processed spectra (exact, order-free)
     counts: dict[int, int]
     masked_window: np.ndarray | None = None  # (n, n_win) bool
     masked_fit: np.ndarray | None = None  # (n, n_fit) bool
@@ -431,7 +436,7 @@ def _numpy_chunk(raw, si, plan: ChunkPlan, ops: StackedOperators, run_mask, row_
     maskf = None
     total = np.empty(n)
     bg = np.zeros(n)
-    sums: dict[int, np.ndarray] = {}
+    sums: dict[int, FixedPointSum] = {}
     counts: dict[int, int] = {}
     # SNIP: cache-sized blocks; Whittaker solvers: blocks that bound memory (about 12 arrays)
     block = SNIP_BLOCK_ROWS if plan.baseline == "snip" else WHITTAKER_BLOCK_ROWS if plan.baseline != "none" else n
@@ -478,7 +483,7 @@ def _numpy_chunk(raw, si, plan: ChunkPlan, ops: StackedOperators, run_mask, row_
             if plan.background_level:
                 bg[r0:r1] = base.mean(axis=1)
             y -= base
-        total[r0:r1] = y @ tw
+        total[r0:r1] = row_products(y, tw)
         for s in samples_here:
             s = int(s)
             rows = slice(None) if samples_here.size == 1 else (sib == s)
@@ -499,12 +504,11 @@ def _numpy_chunk(raw, si, plan: ChunkPlan, ops: StackedOperators, run_mask, row_
                     maskf[r0:r1][rows] = hit
                     v[hit] = np.nan
                 vals[r0:r1][rows] = v
-            if plan.accumulate:
-                add = ys.sum(axis=0)
+            if plan.accumulate:  # exact fixed-point sums: the same for any chunking (compquant.exactsum)
                 if s in sums:
-                    sums[s] += add
+                    sums[s].add_rows(ys)
                 else:
-                    sums[s] = add
+                    sums[s] = FixedPointSum.of_rows(ys)
                 counts[s] = counts.get(s, 0) + (ys.shape[0])
     return vals, satf, maskf, total, bg, sums, counts
 
@@ -528,7 +532,7 @@ def merge_chunk_results(parts: list[ChunkResult]) -> ChunkResult:
             [a if a is not None else np.zeros((n, width), dtype=bool) for a, n in zip(arrs, ns)], axis=0
         )
 
-    sums: dict[int, np.ndarray] = {}
+    sums: dict[int, FixedPointSum] = {}
     counts: dict[int, int] = {}
     for p in parts:
         for s, v in p.sums.items():

@@ -14,7 +14,11 @@ cache from the raw counts to the line intensities:
    step ``v_p[i] = min(v_{p-1}[i], (v_{p-1}[i-p] + v_{p-1}[i+p]) / 2)`` writes a second
    buffer (the two buffers swap), so every step reads only the previous one;
 3. the mean removed baseline, ``y - baseline``, the total emission ``y . t`` and the
-   per-sample sums;
+   per-sample sums, exact and order-free like the NumPy path's
+   (:class:`compquant.exactsum.FixedPointSum`: every value pre-rounded to the same fixed
+   grid, integer and fraction parts added in float blocks of at most ``BLOCK_ROWS`` rows,
+   then moved to int64; non-finite or huge values in a float channel), so both paths,
+   any chunking and any worker count give the same sums for the same spectra;
 4. every line as ``sum_k w_k y[p_k]`` over its own pixels (sparse, per line), NaN with a
    flag where a masked pixel touches the line, a saturation flag where a saturated one does.
 
@@ -30,6 +34,8 @@ imports; the kernel is compiled on first use per input dtype and cached on disk.
 from __future__ import annotations
 
 import numpy as np
+
+from compquant.exactsum import BLOCK_ROWS, FixedPointSum
 
 _KERNEL = None
 _IMPORT_ERROR: str | None = None
@@ -73,14 +79,25 @@ def run_kernel(raw, slot, op_of_row, geo: dict, ops, n_slots: int, precision: st
     maskf = np.zeros((n, n_lines), dtype=bool)
     total = np.empty(n)
     bg = np.empty(n)
-    sums = np.zeros((n_slots if geo["accumulate"] else 1, npx))
+    ns = n_slots if geo["accumulate"] else 1
+    s1, s2, rest = np.zeros((ns, npx)), np.zeros((ns, npx)), np.zeros((ns, npx))
+    hi, lo = np.zeros((ns, npx), dtype=np.int64), np.zeros((ns, npx), dtype=np.int64)
     proto = np.full(1, 0.5, dtype=np.float32 if precision == "float32" else np.float64)
     any_sat, any_mask = kern(
         raw, slot, op_of_row, geo["dark"], geo["inv_resp"], geo["sat_thr"], geo["use_sat"], geo["mask_run"],
         geo["mask_rows"], geo["m"], geo["decreasing"], geo["lls"], geo["do_base"], geo["want_bg"],
         geo["accumulate"], geo["tw"], ops.idx, ops.w, ops.cnt, ops.defined, ops.sidx, ops.scnt, proto,
-        vals, satf, maskf, total, bg, sums,
+        vals, satf, maskf, total, bg, s1, s2, hi, lo, rest, BLOCK_ROWS,
     )  # fmt: skip
+    sums = []
+    if geo["accumulate"]:
+        per = np.bincount(slot, minlength=n_slots)
+        for k in range(n_slots):
+            acc = FixedPointSum(npx)
+            acc.hi, acc.lo, acc.n = hi[k], lo[k], int(per[k])
+            # the float channel only where a value went there (as FixedPointSum.add_rows)
+            acc.rest = None if np.all(rest[k] == 0.0) else rest[k]
+            sums.append(acc)
     return {
         "vals": vals,
         "sat": satf if any_sat else None,

@@ -28,6 +28,7 @@ import numpy as np
 
 from compquant import __version__
 from compquant.fileio import atomic_path, safe_filename
+from compquant.interchange import add_nxdata
 from compquant.maps.grid import RasterGrid
 
 MAPS_FORMAT = "compquant-maps"
@@ -112,6 +113,13 @@ def write_maps_h5(path: str | os.PathLike, samples: list[SampleMaps], attrs: dic
                 d.dims[1].attach_scale(xs)
                 d.dims[0].label = "y"
                 d.dims[1].label = "x"
+            # NeXus: each sample group an NXentry whose NXdata shows the first map on its mm axes
+            g.attrs["NX_class"] = "NXentry"
+            names = [d.name.rsplit("/", 1)[-1] for d in datasets]  # shots first, then the maps
+            signal = names[1] if len(names) > 1 else names[0]
+            add_nxdata(g, signal, ["y_mm", "x_mm"], auxiliary=[n for n in names if n != signal])
+            if "default" not in f.attrs:
+                f.attrs["default"] = name
     return path
 
 
@@ -182,8 +190,8 @@ def read_maps_h5(path: str | os.PathLike) -> dict:
         for name, g in f.items():
             d = {"x_mm": g["x_mm"][()], "y_mm": g["y_mm"][()], "shots": g["shots"][()]}
             for key, ds in g.items():
-                if key in ("x_mm", "y_mm", "shots"):
-                    continue
+                if key in ("x_mm", "y_mm", "shots") or not isinstance(ds, h5py.Dataset):
+                    continue  # the axes, and the NXdata group of links (interchange.add_nxdata)
                 d[str(ds.attrs["element"])] = (
                     ds[()],
                     {

@@ -5,7 +5,13 @@
 * no options: :class:`SerialExecutor`, everything in this process, in order;
 * ``workers=N``: a ``distributed.LocalCluster`` of ``N`` worker *processes* with one thread
   each, listening on loopback only (127.0.0.1), shut down when the block ends;
-* ``scheduler="tcp://host:8786"``: a client of an existing Dask cluster (not shut down).
+* ``scheduler="tcp://host:8786"``, ``scheduler_file="scheduler.json"`` (the file a
+  ``dask scheduler --scheduler-file`` writes), or neither but the environment variable
+  ``DASK_SCHEDULER_ADDRESS`` set: a client of an existing Dask cluster (not shut down).
+  On connecting, the versions of Dask, distributed and compquant on the workers are compared
+  with this process's (:func:`check_versions`): a mismatch is a clear error, not a wrong result.
+
+The dashboard address is logged (``compquant`` logger, shown by default on the command line).
 
 Both executors offer the same two operations, so the serial and the distributed path call
 the same step functions and gather their results in the same order:
@@ -32,6 +38,8 @@ from collections.abc import Callable, Iterable, Iterator
 from typing import Any
 
 from compquant.errors import ConfigError
+
+log = logging.getLogger("compquant.parallel")
 
 
 class SerialExecutor:
@@ -159,27 +167,82 @@ def _check_address(address: str) -> str:
     return f"{scheme.lower()}://{rest}"
 
 
+def _worker_versions() -> dict:
+    """Task body: the versions a worker process runs (module-level so it travels by name)."""
+    import sys
+
+    import dask
+    import distributed
+
+    import compquant
+
+    return {
+        "compquant": compquant.__version__,
+        "dask": dask.__version__,
+        "distributed": distributed.__version__,
+        "python": ".".join(map(str, sys.version_info[:2])),
+    }
+
+
+def check_versions(client, where: str) -> None:
+    """Raise :class:`ConfigError` unless every worker runs this process's compquant, Dask,
+    distributed and Python (major.minor) versions (pickled tasks and results are only
+    guaranteed between equal versions)."""
+    mine = _worker_versions()
+    try:
+        theirs = client.run(_worker_versions)
+    except Exception as exc:  # e.g. compquant not importable on a worker
+        raise ConfigError(
+            f"cannot read the workers' versions ({type(exc).__name__}: {exc})",
+            where=where,
+            fix="install the same compquant (and compquant[scale]) on every worker",
+        ) from exc
+    for worker, vers in sorted(theirs.items()):
+        diff = [f"{k} {vers.get(k)} (here {v})" for k, v in mine.items() if vers.get(k) != v]
+        if diff:
+            raise ConfigError(
+                f"worker {worker} runs other versions: {', '.join(diff)}",
+                where=where,
+                fix="install the same versions of compquant, dask and distributed on every worker and here",
+            )
+
+
+def _log_dashboard(client) -> None:
+    link = getattr(client, "dashboard_link", None)
+    if link:
+        log.info("Dask dashboard: %s", link)
+
+
 @contextlib.contextmanager
 def open_executor(
     workers: int | None = None,
     scheduler: str | None = None,
     *,
+    scheduler_file: str | os.PathLike | None = None,
     memory_limit: str | int | None = "auto",
     timeout_s: float = 30.0,
 ) -> Iterator:
-    """Yield an executor: serial, a local cluster of ``workers`` processes, or ``scheduler``'s cluster.
+    """Yield an executor: serial, a local cluster of ``workers`` processes, or an existing cluster
+    (``scheduler`` address, ``scheduler_file``, or ``DASK_SCHEDULER_ADDRESS`` from the environment).
 
-    ``workers`` and ``scheduler`` exclude each other. The local cluster binds to 127.0.0.1
-    (its status web page too, on a free loopback port), one thread per worker process, and ``memory_limit`` per worker
-    (Dask's own accounting; ``"auto"`` shares the machine's memory).
+    ``workers`` and the existing-cluster options exclude each other. The local cluster binds to
+    127.0.0.1 (its status web page too, on a free loopback port), one thread per worker process,
+    and ``memory_limit`` per worker (Dask's own accounting; ``"auto"`` shares the machine's memory).
     """
-    if workers is not None and scheduler is not None:
+    given = [n for n, v in (("--workers", workers), ("--scheduler", scheduler), ("--scheduler-file", scheduler_file))
+             if v is not None]
+    if len(given) > 1:
         raise ConfigError(
-            "both --workers and --scheduler given",
+            f"both {' and '.join(given)} given",
             where="command line",
-            fix="use --workers N for a local cluster or --scheduler ADDRESS for an existing one",
+            fix="use --workers N for a local cluster, or --scheduler ADDRESS or --scheduler-file FILE",
         )
-    if workers is None and scheduler is None:
+    if scheduler is not None and scheduler_file is None and os.path.isfile(scheduler):
+        scheduler, scheduler_file = None, scheduler  # --scheduler-file folded into --scheduler by the CLI
+    if not given and os.environ.get("DASK_SCHEDULER_ADDRESS", "").strip():
+        scheduler = os.environ["DASK_SCHEDULER_ADDRESS"]
+        log.info("using the Dask scheduler of DASK_SCHEDULER_ADDRESS (%s)", scheduler.strip())
+    if workers is None and scheduler is None and scheduler_file is None:
         yield SerialExecutor()
         return
     try:
@@ -190,17 +253,27 @@ def open_executor(
             where="--workers/--scheduler",
             fix="install compquant[scale] (dask[array], distributed)",
         ) from exc
-    if scheduler is not None:
-        address = _check_address(scheduler)
+    if scheduler is not None or scheduler_file is not None:
+        if scheduler_file is not None:
+            where = str(scheduler_file)
+            if not os.path.isfile(scheduler_file):
+                raise ConfigError("no such scheduler file", where=where,
+                                  fix="give the file written by 'dask scheduler --scheduler-file FILE'")
+            connect = {"scheduler_file": str(scheduler_file)}
+        else:
+            where = _check_address(scheduler)
+            connect = {"address": where}
         try:
-            client = Client(address, timeout=timeout_s)
+            client = Client(**connect, timeout=timeout_s)
         except (OSError, TimeoutError, ValueError) as exc:
             raise ConfigError(
                 f"cannot reach the Dask scheduler ({exc})",
-                where=address,
-                fix="check the address and that the scheduler is running",
+                where=where,
+                fix="check the address or scheduler file and that the scheduler is running",
             ) from exc
         try:
+            check_versions(client, where)
+            _log_dashboard(client)
             yield DaskExecutor(client)
         finally:
             client.close()
@@ -210,13 +283,13 @@ def open_executor(
             f"--workers {workers} is not a positive number", where="--workers", fix="give at least 1 worker"
         )
     # the scheduler runs in this process: keep its routine messages off the user's screen
-    log = logging.getLogger("distributed")
-    level = log.level
-    log.setLevel(logging.WARNING)
+    dlog = logging.getLogger("distributed")
+    level = dlog.level
+    dlog.setLevel(logging.WARNING)
     try:
         yield from _local_cluster(int(workers), memory_limit)
     finally:
-        log.setLevel(level)
+        dlog.setLevel(level)
 
 
 def _local_cluster(workers: int, memory_limit) -> Iterator:
@@ -254,6 +327,7 @@ def _local_cluster(workers: int, memory_limit) -> Iterator:
     try:
         client = Client(cluster)
         try:
+            _log_dashboard(client)
             yield DaskExecutor(client)
         finally:
             client.close()
@@ -270,4 +344,4 @@ def peak_rss_bytes() -> int:
     return int(peak if sys.platform == "darwin" else peak * 1024)
 
 
-__all__ = ["DaskExecutor", "Executor", "SerialExecutor", "open_executor", "peak_rss_bytes"]
+__all__ = ["DaskExecutor", "Executor", "SerialExecutor", "check_versions", "open_executor", "peak_rss_bytes"]

@@ -31,19 +31,56 @@ def process_chunk_task(run, start: int, stop: int, plan):
     return process_chunk(run.read_raw(start, stop), sample_index, plan)
 
 
-def chunk_mapper(executor, max_in_flight: int | None = None) -> Callable | None:
+def split_ranges(ranges: list[tuple[int, int]], n_tasks: int, align: int = 1) -> list[tuple[int, int, int]]:
+    """Cut shot ranges into at least ``n_tasks`` pieces (when they have that many shots):
+    ``[(parent index, start, stop), ...]`` in shot order, cuts at multiples of ``align`` (the
+    file's HDF5 chunk rows) where the range is long enough, so no stored chunk is read twice."""
+    total = sum(b - a for a, b in ranges)
+    if len(ranges) >= n_tasks or total <= 0:
+        return [(i, a, b) for i, (a, b) in enumerate(ranges)]
+    size = max(1, -(-total // n_tasks))  # ceil
+    align = max(1, int(align))
+    if size >= align:
+        size -= size % align
+    out = []
+    for i, (a, b) in enumerate(ranges):
+        cut = a
+        while cut < b:
+            nxt = min(b, (cut // size + 1) * size) if size >= align else min(b, cut + size)
+            out.append((i, cut, nxt))
+            cut = nxt
+    return out
+
+
+def chunk_mapper(executor, max_in_flight: int | None = None, tasks_per_worker: int = 2) -> Callable | None:
     """A ``chunk_mapper`` for :func:`compquant.lines.measure_run`; None for the serial executor.
 
     The mapper ships the chunk plan to every worker once per pass and yields the chunk
     results in range order, at most ``max_in_flight`` (default 4 per worker) held at a time.
+    When the run has fewer chunks than ``tasks_per_worker`` x workers (a 640-shot run is one
+    4096-shot chunk), each chunk is cut into pieces computed on different workers and merged
+    back (:func:`compquant.lines.chunk.merge_chunk_results`): per-shot results are row-stable
+    and per-sample sums exact (:mod:`compquant.exactsum`), so the table is the same, bit for bit.
     """
     if executor is None or isinstance(executor, SerialExecutor):
         return None
 
     def mapper(run, ranges, plan) -> Iterator:
-        yield from map_chunks(
-            executor, run.path, process_chunk_task, plan, chunk_shots=1, ranges=ranges, max_in_flight=max_in_flight
+        from compquant.lines.chunk import merge_chunk_results
+
+        pieces = split_ranges(list(ranges), tasks_per_worker * executor.n_workers, getattr(run, "chunk_rows", 1))
+        results = map_chunks(
+            executor, run.path, process_chunk_task, plan, chunk_shots=1,
+            ranges=[(a, b) for _, a, b in pieces], max_in_flight=max_in_flight,
         )
+        parent, parts = 0, []
+        for (i, _, _), res in zip(pieces, results):
+            if i != parent:
+                yield merge_chunk_results(parts)
+                parent, parts = i, []
+            parts.append(res)
+        if parts:
+            yield merge_chunk_results(parts)
 
     return mapper
 
@@ -81,12 +118,14 @@ def measure_runs(
     chunk_shots: int | None = None,
     outputs: dict[str, Path] | None = None,
     writer: Callable | None = None,
+    progress: Callable | None = None,
 ) -> list[RunOutcome]:
     """Measure every run, one run per task; one :class:`RunOutcome` per run, in the order given.
 
     ``writer(lm, out_dir) -> [paths]`` (a module-level function) writes a run's output set
     on the worker that measured it; ``outputs`` maps each run path to its output folder.
     The outcome's value holds the line table, QC table, notes and the files written.
+    ``progress(outcome)`` is called as each run finishes (see :func:`map_runs`).
     """
     items = [str(p) for p in paths]
     ctx = {
@@ -95,7 +134,7 @@ def measure_runs(
         "writer": writer,
         "outputs": {str(k): v for k, v in (outputs or {}).items()},
     }
-    return map_runs(executor, items, _measure_one, ctx)
+    return map_runs(executor, items, _measure_one, ctx, progress=progress)
 
 
-__all__ = ["chunk_mapper", "measure_run_on", "measure_runs", "process_chunk_task"]
+__all__ = ["chunk_mapper", "measure_run_on", "measure_runs", "process_chunk_task", "split_ranges"]

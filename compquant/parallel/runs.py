@@ -124,15 +124,24 @@ def run_output_folders(paths, out_dir: str | os.PathLike) -> dict[str, Path]:
     return folders
 
 
-def map_runs(executor, paths: Iterable[str | os.PathLike], fn: Callable, context: Any = None) -> list[RunOutcome]:
+def map_runs(
+    executor, paths: Iterable[str | os.PathLike], fn: Callable, context: Any = None, progress: Callable | None = None
+) -> list[RunOutcome]:
     """``fn(path, context)`` for every run; one :class:`RunOutcome` per run, in the order given.
 
     ``fn`` must be a module-level function. Each run is processed whole by one worker with
     the serial step functions, so its numbers equal a serial run of that file exactly.
+    ``progress(outcome)`` is called as each run's outcome arrives (in the order given), e.g.
+    to advance a progress bar or report the run at once.
     """
     ctx = executor.broadcast(context)
     items = [str(p) for p in paths]
-    return list(executor.map_ordered(_guarded, items, fn, ctx, max_in_flight=len(items) or 1))
+    out = []
+    for oc in executor.map_ordered(_guarded, items, fn, ctx, max_in_flight=len(items) or 1):
+        out.append(oc)
+        if progress is not None:
+            progress(oc)
+    return out
 
 
 __all__ = ["COMBINED_OUTPUTS", "RunError", "RunOutcome", "collect_runs", "map_runs", "run_output_folders"]

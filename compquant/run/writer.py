@@ -24,6 +24,7 @@ import pandas as pd
 from compquant import __version__
 from compquant.errors import RunFormatError
 from compquant.fileio import atomic_path
+from compquant.interchange import add_nxdata
 from compquant.run import _checks
 from compquant.run.format import FORMAT_NAME, FORMAT_VERSION, SAMPLE_COLUMNS
 from compquant.run.mask import mask_entries
@@ -221,6 +222,8 @@ class RunWriter:
         ag = f.create_group("acquisition")
         for k, v in self.acquisition.items():
             ag.attrs[str(k)] = _attr_value(v)
+        # NeXus NXdata group and HDF5 dimension scales, so viewers and xarray show the axis
+        add_nxdata(f, "spectra", ["shot_index", "wavelength"])
         self._write_mask(f)
 
     def write_spectra(self, start: int, block) -> None:
