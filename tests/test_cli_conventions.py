@@ -58,9 +58,11 @@ def test_every_command_has_verbose_and_quiet_and_the_short_safety_note(name):
     if name != "safety":
         # the full notes filled 42 of 84 lines of analyse --help; now the note is short (checked here)
         # and the rest of the help is the command's own options
-        assert "Safety:" in r.output
-        note = r.output[r.output.index("Safety:"):]
-        assert 2 <= len(note.splitlines()) <= 8, note
+        if name in ("analyse", "calibrate", "cf", "lines", "demo"):  # the commands that drive the method
+            assert "Safety:" in r.output
+        if "Safety:" in r.output:
+            note = r.output[r.output.index("Safety:"):]
+            assert 2 <= len(note.splitlines()) <= 8, note
     if cmd.epilog and "safety" in cmd.epilog.lower():  # the short note, not the full text
         assert SAFETY in cmd.epilog and "compquant safety" in text
 
