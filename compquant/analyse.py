@@ -388,8 +388,11 @@ def analyse(
         rows = assemble.result_rows(results, sid)
         nr_sid = [nr for nr in not_reported if str(nr.get("sample_id")) in (sid, "*")]
         if not rows:
-            # nothing measured: no certificate, the reason goes to the summary and the terminal
-            failures.setdefault(sid, "no element could be quantified for this sample")
+            # nothing measured: no certificate, the reasons go to the summary and the terminal
+            why = "; ".join(f"{d.get('element')}: {d.get('reason')}" for d in nr_sid if d.get("reason"))
+            failures.setdefault(sid, "no element could be quantified for this sample" + (f" ({why})" if why else ""))
+            missing_all += [{"sample_id": sid, "element": str(d.get("element", "")), "reason": str(d.get("reason", ""))}
+                            for d in nr_sid]
             skipped.append(sid)
             continue
         missing = release.analytes_not_reported(analytes, rows, nr_sid)

@@ -207,6 +207,12 @@ def test_two_point_formula_and_one_point_fallback():
 def test_range_flags_and_student_coverage():
     unk = [{"Zn": 0.45, "Sn": 0.012, "Fe": 0.005}, {"Zn": 0.012, "Sn": 0.012, "Fe": 0.005}]
     cal, (lt, st, sm, std, truth) = _cal(seed=10, unknown_contents=unk, n_unknowns=2)
+    # Zn 0.45 lies beyond the method's default allowance above the top standard: not reported
+    q0 = quantify((lt, st, sm), cal, run_sha256="run-a")
+    assert ("UNK-1", "Zn") not in set(zip(q0.results["sample_id"], q0.results["element"]))
+    assert any(d["sample_id"] == "UNK-1" and d["element"] == "Zn" and "above the calibrated range" in d["reason"]
+               for d in q0.provenance["not_reported"])
+    cal.settings["max_above_range"] = 1.0  # a method that allows it: reported and flagged
     q = quantify((lt, st, sm), cal, run_sha256="run-a")
     r = q.results.set_index(["sample_id", "element"])
     assert "above_range" in r.loc[("UNK-1", "Zn"), "flags"]

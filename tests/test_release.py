@@ -100,11 +100,14 @@ def test_three_standards_not_valid_cu_not_determined(tmp_path):
         assert any(x.startswith(f"analyte not reported: {el} (no calibration curve") for x in doc["release"]["reasons"])
     # Ni, Fe, Al, Mn are ratios to Cu: with Cu closed over a subset they came out about 1.7x too high
     # (Ni 0.257 % against 0.152 % from all seven standards), so they are not determined either
+    # (Mn of this lot lies far above the three standards' range: not reported in its own right)
     for el in ("Ni", "Fe", "Al", "Mn"):
         assert by_el[el]["mass_fraction"] is None and by_el[el]["reported"]["value"] == "not determined"
-    assert "analyte not reported: Ni, Fe, Al, Mn not determined: each is a ratio to Cu" in doc["release"]["reasons"][3]
+    reasons = " | ".join(doc["release"]["reasons"])
+    assert "analyte not reported: Ni, Fe, Al not determined: each is a ratio to Cu" in reasons
+    assert "Mn (" in reasons and "above the calibrated range" in reasons
     # the check sample's ratio results rest on the same wrong closure: not compared, named instead
-    assert any("Ni, Fe, Al, Mn not comparable" in t for t in doc["quality_control"]["not_evaluated"])
+    assert any("not comparable" in t and "Ni" in t for t in doc["quality_control"]["not_evaluated"])
     assert not doc["quality_control"]["check_samples"]
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert summary["valid_for_release"] is False
@@ -507,3 +510,45 @@ def test_quantify_screen_table_value_and_u_in_one_unit():
            valid_for_release=True, drift={"applied": False, "reason": "calibration run"}, provenance={})
     text = results_text(q)
     assert "0.290 +- 0.020 %" in text and "0.0230 +- 0.0020 %" in text and "mg/kg" not in text
+
+
+@pytest.mark.parametrize("allow", [0.10, 0.5])
+def test_result_far_above_the_calibrated_range_is_not_reported(tmp_path, allow):
+    """Rule "analyte not reported", case "outside the calibrated range by more than the method allows"
+    (docs/certificate.md): a calibration from standards up to 25 % Zn, a lot of 28 % Zn (invented
+    scenario; Zn/Cu ratio about 17 % above the top standard's).  Allowed 10 %: no Zn number, Cu by
+    difference not determined, certificate not valid (exit 3 from the CLI).  Allowed 50 %: reported,
+    flagged ``above_range``."""
+    import sys
+
+    sys.path.insert(0, str(ROOT / "tests"))
+    from test_analyse import METHOD, SCENARIO, STANDARDS
+
+    from compquant.simulate import load_scenario, simulate_run
+
+    scen = SCENARIO.replace("self_absorption = true", "self_absorption = false")
+    scen = scen.replace('\n[[samples]]\nid = "T-4"\nrole = "standard"\nstandard = "T-4"\nshots = 15\n', "\n")
+    assert '"T-4"' not in scen
+    (tmp_path / "stds.csv").write_text(STANDARDS)
+    (tmp_path / "scenario.toml").write_text(scen)
+    settings = f'model = "linear"\nsigma_pt_rel = 0.05\nmax_above_range = {allow}\n'
+    method = METHOD.replace('model = "linear"\n', settings, 1)
+    (tmp_path / "method.toml").write_text(method)
+    simulate_run(load_scenario(tmp_path / "scenario.toml"), tmp_path / "run.h5", seed=11)
+    r = CliRunner().invoke(main, ["analyse", str(tmp_path / "run.h5"), "--method", str(tmp_path / "method.toml"),
+                                  "--standards", str(tmp_path / "stds.csv"), "-o", str(tmp_path / "out"),
+                                  "--issued-at", ISSUED, "--no-figures", "-q"])
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    if allow == 0.10:  # Zn is the method's only analyte: LOT-1 gets no certificate at all, and says why
+        assert r.exit_code == 3, r.output
+        assert "LOT-1" in summary["not_certified"] and "LOT-1" not in [c["sample_id"] for c in summary["certificates"]]
+        assert "above the calibrated range" in summary["failures"]["LOT-1"]
+        assert any("above the calibrated range" in x["reason"] for x in summary["not_reported"]
+                   if x["sample_id"] == "LOT-1" and x["element"] == "Zn")
+        assert "LOT-1" in r.output and "above the calibrated range" in r.output
+    else:
+        lot1 = next(c for c in summary["certificates"] if c["sample_id"] == "LOT-1")
+        doc = json.loads((tmp_path / "out" / lot1["json"]).read_text())
+        zn = next(x for x in doc["results"] if x["element"] == "Zn")
+        assert "above_range" in str(zn.get("flags")), zn
+        assert not any(x["element"] == "Zn" and x["sample_id"] == "LOT-1" for x in summary["not_reported"])

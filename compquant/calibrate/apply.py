@@ -242,6 +242,19 @@ def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reporte
     return rows
 
 
+def _beyond_range(x: float, range_x, allow: float) -> str:
+    """Why a predicted content ``x`` is not reported: above the top of the calibrated range
+    ``range_x`` by more than the fraction ``allow`` of it (the method's ``max_above_range``); "" if not.
+    Inverse prediction beyond the standards rests on the curve's form alone: a calibration holds
+    over the range of its reference materials (ISO 11095:1996, linear calibration using reference
+    materials; from memory of that standard)."""
+    top = float(range_x[1])
+    if not (top > 0 and math.isfinite(x)) or x <= top * (1 + allow) * (1 + 1e-9):
+        return ""
+    return (f"{100 * (x / top - 1):.0f} % above the calibrated range (the method allows "
+            f"{100 * allow:g} %): add a standard above it")
+
+
 def quantify(
     measurement,
     calibration: Calibration,
@@ -255,6 +268,7 @@ def quantify(
     samples = samples if samples is not None else sm
     cfg = calibration.settings
     drift_mode = cfg.get("drift", "optional")
+    allow_above = float(cfg.get("max_above_range", 0.10))  # saved before the setting existed: 10 %
     smap = standard_map(lt, samples)
     drift = {"applied": False, "mode": drift_mode, "level": "response"}
     run_flags = []
@@ -361,6 +375,10 @@ def quantify(
         for i, el in enumerate(good):
             c = curves[el]
             p = preds[el]
+            why = _beyond_range(p["x"], c.range_x, allow_above)
+            if why:  # extrapolated too far: no number (docs/certificate.md, release rules)
+                not_reported.append({"sample_id": sid, "element": el, "reason": why})
+                continue
             r = resp[el].loc[sid]
             wmul = wm if c.basis == "ratio" else 1.0
             lod, loq = c.lod_x * wmul, c.loq_x * wmul

@@ -13,6 +13,8 @@ Layout (docs/calibration.md has the full reference)::
     coverage = "k2"                 # "k2" (U = 2u) or "student" (k = t95 at the effective dof)
     drift = "optional"              # "optional" | "required" | "off"
     sigma_pt_rel = 0.05             # optional: target sd for check-sample z scores (relative)
+    max_above_range = 0.10          # a result above the top standard by more than this fraction of it
+                                    # is not reported (the certificate is then not valid for release)
 
     [[calibration.analytes]]
     element = "Zn"
@@ -47,6 +49,7 @@ _TOP = {
     "coverage",
     "drift",
     "sigma_pt_rel",
+    "max_above_range",
     "analytes",
     "pls",
 }
@@ -99,6 +102,7 @@ class CalibrationConfig:
     drift: str = "optional"
     sigma_pt_rel: float | None = None
     pls: PLSConfig | None = None
+    max_above_range: float = 0.10
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -161,6 +165,10 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
     spt = section.get("sigma_pt_rel")
     if spt is not None and (not isinstance(spt, (int, float)) or spt <= 0):
         raise MethodError("'sigma_pt_rel' must be a positive number", where=base, fix="e.g. 0.05")
+    mar = section.get("max_above_range", 0.10)
+    if isinstance(mar, bool) or not isinstance(mar, (int, float)) or not 0 <= mar <= 1:
+        raise MethodError("'max_above_range' must be a fraction between 0 and 1", where=base,
+                          fix="e.g. 0.10 (10 % above the top standard at most)")
     matrix = section.get("matrix_element")
     if matrix is not None:
         _element(matrix, base, "matrix_element")
@@ -292,6 +300,7 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
         drift=drift,
         sigma_pt_rel=None if spt is None else float(spt),
         pls=pls,
+        max_above_range=float(mar),
     )
 
 
