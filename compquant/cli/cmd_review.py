@@ -1,0 +1,58 @@
+"""``compquant review``: the local review page over the lab's record (see docs/review-page.md)."""
+
+from __future__ import annotations
+
+import click
+
+from compquant.errors import InputError
+
+LOOPBACK = ("127.0.0.1", "localhost", "::1")
+
+
+def _app(db):
+    try:
+        from compquant.web.app import create_app
+    except ImportError as exc:
+        raise InputError(f"the review page needs Flask ({exc})", where="review",
+                         fix="pip install 'compquant[web]'") from exc
+    from compquant.record import open_record
+
+    rec = open_record(db)
+    return rec, create_app(rec)
+
+
+@click.command("review", context_settings={"help_option_names": ["-h", "--help"]})
+@click.option("--db", metavar="PATH|URL",
+              help="The record: SQLite file path or database URL (default: $COMPQUANT_DB, else the per-user record).")
+@click.option("--host", default="127.0.0.1", show_default=True,
+              help="Address to listen on. Anything but this computer's loopback lets others on the network "
+                   "review and release: there is no login.")
+@click.option("--port", default=8765, show_default=True, type=click.IntRange(0, 65535), help="Port (0: any free port).")
+def command(db, host, port):
+    """Start the local review page: runs, samples, check samples, certificates, control charts, release.
+
+    Open the printed address in a browser on this computer.  Release, reject and amend from the
+    page are the same steps as 'compquant record release|reject|amend', with the same audit
+    trail.  Stop with Ctrl-C.
+    """
+    from werkzeug.serving import make_server
+
+    rec, app = _app(db)
+    if host not in LOOPBACK:
+        click.echo(f"warning: serving on {host}: anyone who can reach this computer on port {port} can release "
+                   "certificates (the page has no login); use the default 127.0.0.1 unless the network is trusted",
+                   err=True)
+    try:
+        server = make_server(host, port, app, threaded=True)
+    except OSError as exc:
+        raise InputError(f"cannot listen on {host}:{port} ({exc.strerror})", where="--host/--port",
+                         fix="choose another --port, or stop the program using it") from exc
+    shown = f"[{host}]" if ":" in host else host
+    click.echo(f"review page of {rec.where} at http://{shown}:{server.server_port}/  (Ctrl-C stops it)")
+    try:
+        server.serve_forever()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        server.server_close()
+        rec.dispose()
