@@ -20,6 +20,7 @@ import threading
 from pathlib import Path
 
 import pytest
+from pypdf import PdfReader
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
@@ -127,6 +128,9 @@ def test_release_typed_into_the_page_lands_in_the_record(served):
     assert json.loads(last["detail"])["role"] == "Quality manager"
     doc = json.loads((d / "b" / "RUN-B-S000.json").read_text("utf-8"))
     assert doc["review"]["state"] == "released" and doc["authorised_by"]["name"] == REVIEWER
+    # the re-rendered PDF carries the authorisation and no DRAFT watermark (text read back with pypdf)
+    text = "".join(p.extract_text() for p in PdfReader(str(d / "b" / "RUN-B-S000.pdf")).pages)
+    assert REVIEWER in text and "Quality manager" in text and "DRAFT" not in text
 
 
 def test_forged_form_and_path_traversal_are_refused_in_the_browser(served):
