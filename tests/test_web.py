@@ -116,6 +116,15 @@ def test_pages_load_and_show_the_record(site):
     for u in chart_urls:
         r = client.get(u.replace("&amp;", "&"))
         assert r.status_code == 200 and r.data[:4] == b"\x89PNG"
+    if "data-chart=" in charts:  # bokeh installed: the same chart as a Bokeh JSON item, BokehJS from the package
+        item = client.get(re.search(r'data-chart="([^"]+)"', charts).group(1).replace("&amp;", "&")).get_json()
+        assert {"doc", "root_id", "target_id"} <= set(item)
+        import bokeh
+
+        js = client.get("/bokeh.min.js").data
+        assert js == (Path(bokeh.__file__).parent / "server" / "static" / "js" / "bokeh.min.js").read_bytes()
+        assert "'unsafe-inline'" in client.get("/charts").headers["Content-Security-Policy"].split("style-src")[1]
+    assert "'unsafe-inline'" not in cert.headers["Content-Security-Policy"]
     assert client.get("/sample?id=RUN-B-S001").text.count("RUN-B.h5") == 6  # one row per element
     assert "issue draft" in client.get("/audit").text
 
@@ -249,3 +258,16 @@ def test_command_binds_loopback_and_warns_on_another_host(tmp_path, monkeypatch)
     res = CliRunner().invoke(main, ["review", "--db", db, "--host", "0.0.0.0", "--port", "9000"])
     assert res.exit_code == 0 and calls[-2] == ("0.0.0.0", 9000) and calls[-1] == "closed"
     assert "warning: serving on 0.0.0.0" in res.output
+
+
+def test_charts_fall_back_to_png_without_bokeh(site, monkeypatch):
+    import compquant.web.interactive as interactive
+
+    monkeypatch.setattr(interactive, "available", lambda: False)
+    client = site[0]
+    page = client.get("/charts")
+    assert "data-chart=" not in page.text and "<script" not in page.text
+    assert page.text.count('<img src="/chart/') == 2
+    assert "'unsafe-inline'" not in page.headers["Content-Security-Policy"]
+    assert client.get("/chart/check.json?material=CRM-B2&element=Pb").status_code == 404
+    assert client.get("/bokeh.min.js").status_code == 404

@@ -93,6 +93,15 @@ def images_ok(driver) -> bool:
         "return Array.from(document.images).every(i => i.complete && i.naturalWidth > 0);")
 
 
+def wait_for_charts(driver) -> None:
+    """Until every interactive chart is drawn (BokehJS fetched its JSON item and rendered it)."""
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    WebDriverWait(driver, 15).until(lambda d: d.execute_script(
+        "const c = document.querySelectorAll('.bk-chart');"
+        "return c.length > 0 && Array.from(c).every(e => e.children.length > 0);"))
+
+
 def test_main_pages_load_without_console_errors(served):
     from selenium.webdriver.common.by import By
 
@@ -103,6 +112,8 @@ def test_main_pages_load_without_console_errors(served):
              "review-charts": base + "/charts", "review-pending": base + "/pending"}
     for name, url in pages.items():
         driver.get(url)
+        if name == "review-charts":
+            wait_for_charts(driver)
         assert driver.find_element(By.TAG_NAME, "h1").text, name
         assert images_ok(driver), name
         assert console_errors(driver) == [], name
@@ -131,6 +142,26 @@ def test_release_typed_into_the_page_lands_in_the_record(served):
     # the re-rendered PDF carries the authorisation and no DRAFT watermark (text read back with pypdf)
     text = "".join(p.extract_text() for p in PdfReader(str(d / "b" / "RUN-B-S000.pdf")).pages)
     assert REVIEWER in text and "Quality manager" in text and "DRAFT" not in text
+
+
+def test_control_chart_zooms_with_the_mouse_wheel(served):
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.actions.wheel_input import ScrollOrigin
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    driver, base = served[:2]
+    driver.get(base + "/charts")
+    wait_for_charts(driver)
+    spans = "return Bokeh.documents.map(d => { const r = d.roots()[0].x_range; return r.end - r.start; });"
+    before = driver.execute_script(spans)
+    chart = driver.find_element(By.ID, "chart-1")
+    ActionChains(driver).scroll_from_origin(ScrollOrigin.from_element(chart), 0, -300).perform()
+    WebDriverWait(driver, 5).until(lambda d: d.execute_script(spans) != before)
+    after = driver.execute_script(spans)
+    zoomed = [(b, a) for b, a in zip(before, after) if a != b]
+    assert len(zoomed) == 1 and zoomed[0][1] < zoomed[0][0]  # one chart, narrower x range: zoomed in
+    assert console_errors(driver) == []
 
 
 def test_forged_form_and_path_traversal_are_refused_in_the_browser(served):

@@ -17,19 +17,20 @@ the recorded SHA-256 (see :mod:`compquant.web.data`).
 from __future__ import annotations
 
 import hmac
+import json
 import re
 import secrets
 import tempfile
 from pathlib import Path
 from urllib.parse import urlsplit
 
-from flask import Flask, Response, abort, flash, redirect, render_template, request, session, url_for
+from flask import Flask, Response, abort, flash, g, redirect, render_template, request, session, url_for
 
 from compquant.errors import CompquantError
-from compquant.web import data
+from compquant.web import data, interactive
 
 _SHA = re.compile(r"[0-9a-f]{64}")
-_CSP = ("default-src 'self'; img-src 'self' data:; script-src 'self'; style-src 'self'; object-src 'none'; "
+_CSP = ("default-src 'self'; img-src 'self' data:; script-src 'self'; style-src 'self'{}; object-src 'none'; "
         "base-uri 'none'; form-action 'self'; frame-ancestors 'none'")
 _MIME = {"pdf": "application/pdf", "json": "application/json"}
 
@@ -67,7 +68,8 @@ def _headers(resp: Response) -> Response:
     resp.headers["Referrer-Policy"] = "no-referrer"
     resp.headers["Cache-Control"] = "no-store"
     if resp.mimetype == "text/html":
-        resp.headers["Content-Security-Policy"] = _CSP
+        # BokehJS styles its plots with inline <style> (the charts page only); scripts stay 'self' only
+        resp.headers["Content-Security-Policy"] = _CSP.format(" 'unsafe-inline'" if g.get("bokeh") else "")
         resp.headers["X-Frame-Options"] = "DENY"
     return resp
 
@@ -134,9 +136,10 @@ def _pages(app: Flask, rec) -> None:
     def charts():
         from compquant.record.queries import drift_lines, materials
 
+        g.bokeh = interactive.available()
         with rec.transaction() as conn:
             return render_template("charts.html", title="Control charts", checks=materials(conn),
-                                   drifts=drift_lines(conn))
+                                   drifts=drift_lines(conn), interactive=g.bokeh)
 
 
 
@@ -163,11 +166,10 @@ def _files(app: Flask, rec) -> None:
             abort(404)
         return Response(png, mimetype="image/png")
 
-    @app.get("/chart/<kind>.png")
-    def chart_png(kind: str):
-        from compquant.record.charts import draw_chart
+    def find_chart():
         from compquant.record.queries import check_chart, drift_chart, drift_lines, latest_settings, materials
 
+        kind = request.view_args["kind"]
         with rec.transaction() as conn:
             settings = latest_settings(conn)
             if kind == "check":
@@ -179,9 +181,30 @@ def _files(app: Flask, rec) -> None:
                 ch = None
         if ch is None or not ch.points:
             abort(404)
+        return ch
+
+    @app.get("/chart/<kind>.png")
+    def chart_png(kind: str):
+        from compquant.record.charts import draw_chart
+
+        ch = find_chart()
         with tempfile.TemporaryDirectory(prefix="compquant-chart-") as tmp:
             draw_chart(ch, Path(tmp) / "chart.png")
             return Response((Path(tmp) / "chart.png").read_bytes(), mimetype="image/png")
+
+    @app.get("/chart/<kind>.json")
+    def chart_json(kind: str):
+        if not interactive.available():
+            abort(404)
+        # json.dumps keeps Bokeh's key order (Flask's JSON sorts keys, and BokehJS needs each
+        # object defined before it is referenced)
+        return Response(json.dumps(interactive.chart_item(find_chart())), mimetype="application/json")
+
+    @app.get("/bokeh.min.js")
+    def bokehjs():
+        if not interactive.available():
+            abort(404)
+        return Response(interactive.bokehjs_file().read_bytes(), mimetype="text/javascript")
 
 
 def _review_step(number: str, step, ok_text: str, then: str | None = None):
