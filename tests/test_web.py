@@ -193,6 +193,7 @@ def test_forged_posts_are_refused(site):
     good = token_of(client, numbers[0])
     assert client.post(url, data={**form, "csrf_token": good},
                        headers={"Origin": "http://evil.example"}).status_code == 403
+    assert client.post(url, data={**form, "csrf_token": good}, headers={"Origin": "null"}).status_code == 403
     assert client.get(url).status_code == 405  # no state change by GET
     assert audit_rows(rec) == before and state_of(rec, numbers[0]) == "draft"
 

@@ -58,14 +58,14 @@ def _check_post() -> None:
     sent, mine = request.form.get("csrf_token", ""), session.get("csrf", "")
     if not mine or not sent or not hmac.compare_digest(sent.encode(), mine.encode()):
         abort(400, "missing or wrong CSRF token: reload the page and try again")
-    origin = request.headers.get("Origin")
-    if origin and origin != "null" and urlsplit(origin).netloc != request.host:
+    origin = request.headers.get("Origin")  # browsers send it with every POST (Referrer-Policy same-origin)
+    if origin is not None and urlsplit(origin).netloc != request.host:
         abort(403, "request from another site")
 
 
 def _headers(resp: Response) -> Response:
     resp.headers["X-Content-Type-Options"] = "nosniff"
-    resp.headers["Referrer-Policy"] = "no-referrer"
+    resp.headers["Referrer-Policy"] = "same-origin"  # "no-referrer" would make browsers send Origin: null
     resp.headers["Cache-Control"] = "no-store"
     if resp.mimetype == "text/html":
         # BokehJS styles its plots with inline <style> (the charts page only); scripts stay 'self' only
@@ -207,8 +207,11 @@ def _files(app: Flask, rec) -> None:
         return Response(interactive.bokehjs_file().read_bytes(), mimetype="text/javascript")
 
 
-def _review_step(number: str, step, ok_text: str, then: str | None = None):
-    """Run one review step; an error of the record becomes a message on the certificate's page."""
+def _review_step(number: str, step, ok_text: str, then=None):
+    """Run one review step; an error of the record becomes a message on the certificate's page.
+
+    ``then(result)`` names the certificate to show afterwards (default: ``number``).
+    """
     try:
         out = step()
     except CompquantError as exc:
