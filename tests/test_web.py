@@ -239,7 +239,7 @@ def test_command_binds_loopback_and_warns_on_another_host(tmp_path, monkeypatch)
     calls = []
 
     class FakeServer:
-        server_port = 8765
+        port = 8765
 
         def serve_forever(self):
             raise KeyboardInterrupt
@@ -247,17 +247,17 @@ def test_command_binds_loopback_and_warns_on_another_host(tmp_path, monkeypatch)
         def server_close(self):
             calls.append("closed")
 
-    def fake_make_server(host, port, app, threaded):
+    def fake_make_server(host, port, app, threaded, fd):
         calls.append((host, port))
         return FakeServer()
 
     monkeypatch.setattr(werkzeug.serving, "make_server", fake_make_server)
     db = str(tmp_path / "r.sqlite")
-    res = CliRunner().invoke(main, ["review", "--db", db])
-    assert res.exit_code == 0 and calls[0] == ("127.0.0.1", 8765) and "warning" not in res.output
+    res = CliRunner().invoke(main, ["review", "--db", db, "--port", "0"])
+    assert res.exit_code == 0 and calls[0] == ("127.0.0.1", 0) and "warning" not in res.output
     assert "http://127.0.0.1:8765/" in res.output
-    res = CliRunner().invoke(main, ["review", "--db", db, "--host", "0.0.0.0", "--port", "9000"])
-    assert res.exit_code == 0 and calls[-2] == ("0.0.0.0", 9000) and calls[-1] == "closed"
+    res = CliRunner().invoke(main, ["review", "--db", db, "--host", "0.0.0.0", "--port", "0"])
+    assert res.exit_code == 0 and calls[-2] == ("0.0.0.0", 0) and calls[-1] == "closed"
     assert "warning: serving on 0.0.0.0" in res.output
 
 
@@ -272,3 +272,16 @@ def test_charts_fall_back_to_png_without_bokeh(site, monkeypatch):
     assert "'unsafe-inline'" not in page.headers["Content-Security-Policy"]
     assert client.get("/chart/check.json?material=CRM-B2&element=Pb").status_code == 404
     assert client.get("/bokeh.min.js").status_code == 404
+
+
+def test_port_in_use_is_one_error_line(tmp_path):
+    import socket
+
+    with socket.socket() as busy:
+        busy.bind(("127.0.0.1", 0))
+        busy.listen()
+        port = busy.getsockname()[1]
+        res = CliRunner().invoke(main, ["review", "--db", str(tmp_path / "r.sqlite"), "--port", str(port)])
+    assert res.exit_code == 2
+    lines = res.output.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: --host/--port: cannot listen on 127.0.0.1:")

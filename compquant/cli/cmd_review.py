@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import socket
+
 import click
 
 from compquant.errors import InputError
@@ -19,6 +21,21 @@ def _app(db):
 
     rec = open_record(db)
     return rec, create_app(rec)
+
+
+def _listen(host: str, port: int) -> socket.socket:
+    """A listening socket (werkzeug's own bind error would exit 1 with several lines of text)."""
+    family = socket.AF_INET6 if ":" in host else socket.AF_INET
+    sock = socket.socket(family, socket.SOCK_STREAM)
+    try:
+        sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        sock.bind((host, port))
+        sock.listen(128)
+    except OSError as exc:
+        sock.close()
+        raise InputError(f"cannot listen on {host}:{port} ({exc.strerror})", where="--host/--port",
+                         fix="choose another --port (0: any free port), or stop the program using it") from exc
+    return sock
 
 
 @click.command("review", context_settings={"help_option_names": ["-h", "--help"]})
@@ -42,13 +59,13 @@ def command(db, host, port):
         click.echo(f"warning: serving on {host}: anyone who can reach this computer on port {port} can release "
                    "certificates (the page has no login); use the default 127.0.0.1 unless the network is trusted",
                    err=True)
+    sock = _listen(host, port)
     try:
-        server = make_server(host, port, app, threaded=True)
-    except OSError as exc:
-        raise InputError(f"cannot listen on {host}:{port} ({exc.strerror})", where="--host/--port",
-                         fix="choose another --port, or stop the program using it") from exc
+        server = make_server(host, port, app, threaded=True, fd=sock.fileno())
+    finally:
+        sock.close()  # the server holds its own duplicate of the socket
     shown = f"[{host}]" if ":" in host else host
-    click.echo(f"review page of {rec.where} at http://{shown}:{server.server_port}/  (Ctrl-C stops it)")
+    click.echo(f"review page of {rec.where} at http://{shown}:{server.port}/  (Ctrl-C stops it)")
     try:
         server.serve_forever()
     except KeyboardInterrupt:
