@@ -195,6 +195,10 @@ def test_forged_posts_are_refused(site):
                        headers={"Origin": "http://evil.example"}).status_code == 403
     assert client.post(url, data={**form, "csrf_token": good}, headers={"Origin": "null"}).status_code == 403
     assert client.get(url).status_code == 405  # no state change by GET
+    # DNS rebinding: a page whose name resolves to 127.0.0.1 names its own host
+    assert client.get("/", headers={"Host": "attacker.example:8765"}).status_code == 400
+    assert client.post(url, data={**form, "csrf_token": good}, headers={
+        "Host": "attacker.example:8765", "Origin": "http://attacker.example:8765"}).status_code == 400
     assert audit_rows(rec) == before and state_of(rec, numbers[0]) == "draft"
 
 

@@ -11,16 +11,20 @@ from compquant.errors import InputError
 LOOPBACK = ("127.0.0.1", "localhost", "::1")
 
 
-def _app(db):
+def _app(db, host: str):
     try:
-        from compquant.web.app import create_app
+        from compquant.web.app import LOOPBACK_HOSTS, create_app
     except ImportError as exc:
         raise InputError(f"the review page needs Flask ({exc})", where="review",
                          fix="pip install 'compquant[web]'") from exc
     from compquant.record import open_record
 
     rec = open_record(db)
-    return rec, create_app(rec)
+    if host in ("0.0.0.0", "::", ""):
+        hosts = None  # reached by any of this computer's names
+    else:
+        hosts = [*LOOPBACK_HOSTS, host, f"[{host}]"]
+    return rec, create_app(rec, trusted_hosts=hosts)
 
 
 def _listen(host: str, port: int) -> socket.socket:
@@ -54,7 +58,7 @@ def command(db, host, port):
     """
     from werkzeug.serving import make_server
 
-    rec, app = _app(db)
+    rec, app = _app(db, host)
     if host not in LOOPBACK:
         click.echo(f"warning: serving on {host}: anyone who can reach this computer on port {port} can release "
                    "certificates (the page has no login); use the default 127.0.0.1 unless the network is trusted",

@@ -74,9 +74,19 @@ def _headers(resp: Response) -> Response:
     return resp
 
 
-def create_app(rec) -> Flask:
-    """The application over an open :class:`compquant.record.Record` (the caller keeps it open)."""
+#: host names a request may name on loopback (anything else is refused: DNS rebinding)
+LOOPBACK_HOSTS = ["127.0.0.1", "localhost", "[::1]", "::1"]
+
+
+def create_app(rec, trusted_hosts: list[str] | None = LOOPBACK_HOSTS) -> Flask:
+    """The application over an open :class:`compquant.record.Record` (the caller keeps it open).
+
+    ``trusted_hosts``: the host names a request's Host header may carry (400 otherwise), so that a
+    web page whose name is made to resolve to 127.0.0.1 (DNS rebinding) cannot read or post to
+    the page; None accepts any (only when serving on all addresses, with a warning).
+    """
     app = Flask(__name__)  # templates/ and static/ beside this module
+    app.config["TRUSTED_HOSTS"] = trusted_hosts
     app.secret_key = secrets.token_bytes(32)  # per start: sessions and their CSRF secrets end with the server
     app.config.update(SESSION_COOKIE_SAMESITE="Strict", SESSION_COOKIE_HTTPONLY=True, MAX_CONTENT_LENGTH=64 * 1024)
     app.jinja_env.autoescape = True
