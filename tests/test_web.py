@@ -289,3 +289,29 @@ def test_port_in_use_is_one_error_line(tmp_path):
     assert res.exit_code == 2
     lines = res.output.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("error: --host/--port: cannot listen on 127.0.0.1:")
+
+
+def test_the_command_serves_the_page_on_loopback(tmp_path):
+    """The real command in a process: it prints its address, serves the runs page, refuses other hosts."""
+    import os
+    import subprocess
+    import urllib.error
+    import urllib.request
+
+    db = str(tmp_path / "record.sqlite")
+    fill_record(db, tmp_path, hostile=False)
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parent.parent)}
+    proc = subprocess.Popen([sys.executable, "-m", "compquant", "review", "--db", db, "--port", "0"],
+                            stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, env=env)
+    try:
+        line = proc.stdout.readline()
+        url = re.search(r"http://127\.0\.0\.1:\d+/", line).group(0)
+        with urllib.request.urlopen(url, timeout=20) as r:
+            assert r.status == 200 and "RUN-B.h5" in r.read().decode("utf-8")
+        req = urllib.request.Request(url, headers={"Host": "attacker.example"})
+        with pytest.raises(urllib.error.HTTPError) as err:
+            urllib.request.urlopen(req, timeout=20)
+        assert err.value.code == 400
+    finally:
+        proc.terminate()
+        proc.wait(20)
