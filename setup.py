@@ -17,6 +17,7 @@ setup(
     package_dir=DEMO,
     package_data={
         "compquant": ["data/*", "data/**/*"],
+        "compquant.web": ["templates/*", "static/*", "static/**/*"],  # the review page (compquant review)
         "compquant.demo.demo_runs": ["*.h5", "*.toml", "*.csv", "*.md", "*.sh"],
         "compquant.demo.standards": ["*.csv"],
     },
