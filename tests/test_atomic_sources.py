@@ -201,10 +201,9 @@ def test_former_line_ids_still_name_their_lines():
         assert lid in ids, lid
 
 
-def test_disk_cache_is_keyed_by_the_source_file(tmp_path, monkeypatch):
+def test_memo_is_keyed_by_the_source_file_contents(tmp_path):
     from compquant.atomic import _cache
 
-    monkeypatch.setenv("COMPQUANT_CACHE_DIR", str(tmp_path / "c"))
     src = tmp_path / "t.csv"
     src.write_text("a\n1\n")
     calls = []
@@ -215,9 +214,6 @@ def test_disk_cache_is_keyed_by_the_source_file(tmp_path, monkeypatch):
 
     first = _cache.cached("t", [src], build)
     again = _cache.cached("t", [src], build)
-    assert len(calls) == 1 and again.equals(first)  # second time from the cache
+    assert len(calls) == 1 and again.equals(first)  # second time from the memo
     src.write_text("a\n2\n")  # a changed source is never shadowed by the old entry
     assert _cache.cached("t", [src], build)["a"].tolist() == [2] and len(calls) == 2
-    monkeypatch.setenv("COMPQUANT_CACHE_DIR", "off")
-    _cache.cached("t", [src], build)
-    assert len(calls) == 3
