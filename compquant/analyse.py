@@ -307,6 +307,11 @@ def analyse(
         mean_spec = dict(getattr(meas, "mean_spectra", {}) or {})
         medium = run.medium
         wavelength = np.asarray(meas.wavelength, float)
+        intensity_basis = None
+        if cf:
+            from compquant.cflibs import run_intensity_basis
+
+            intensity_basis = run_intensity_basis(method, run)
 
     table = meas.table
     roles = dict(zip(samples["sample_id"].astype(str), samples["role"].astype(str)))
@@ -328,7 +333,7 @@ def analyse(
         parameters["chunk_shots"] = int(chunk_shots)
     if cf:
         qd = _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acquisition, instrument, files,
-                          tick)
+                          tick, intensity_basis)
     else:
         qd = _quantify_calibration(meas, samples, method, standards, calibration, run_path, run_sha, issued, outdir,
                                    files, deviations, parameters, check_samples, tick)
@@ -509,14 +514,19 @@ class _Quant:
 
 
 def _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acquisition, instrument, files,
-                 tick) -> _Quant:
-    """Calibration-free analysis of the unknowns, and of the check samples the [cf] standards certify."""
+                 tick, intensity_basis=None) -> _Quant:
+    """Calibration-free analysis of the unknowns, and of the check samples the [cf] standards certify.
+
+    ``intensity_basis``: the basis of the run's response-corrected intensities
+    (:func:`compquant.cflibs.run_intensity_basis`; a photon-basis curve is converted, an unstated
+    one refused unless ``[cf] response_basis`` states it)."""
     from compquant.cflibs import analyse_cf_samples
     from compquant.cflibs.result import results_table
 
     qd = _Quant(drift_info=DriftInfo(False, "not applicable to calibration-free analysis"))
     tick("quantify", 0, len(unknowns))
-    cf_certified, one_point = _cf_references(cf_settings, method, table, refs, acquisition, instrument, files)
+    cf_certified, one_point = _cf_references(cf_settings, method, table, refs, acquisition, instrument, files,
+                                             intensity_basis)
     cf_checks = [s for s, ref in check_samples.items() if (ref or s) in cf_certified]
     cf_results, qd.failures = analyse_cf_samples(
         table,
@@ -525,6 +535,8 @@ def _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acqu
         acquisition=acquisition,
         instrument=instrument,
         one_point=one_point,
+        intensity_basis=intensity_basis,
+        progress=lambda done, total: tick("quantify", done, total),  # per sample: the slow step
     )
     qd.results = results_table(cf_results)
     qd.analytes = _cf_analytes(cf_settings, method)
@@ -664,7 +676,7 @@ def _cf_analytes(settings, method) -> list[str]:
     return [e for e in els if e not in set(settings.exclude_elements)]
 
 
-def _cf_references(settings, method, table, refs, acquisition, instrument, files):
+def _cf_references(settings, method, table, refs, acquisition, instrument, files, intensity_basis=None):
     """Certified values for calibration-free checks and the one-point calibration the method asks for.
 
     Returns ``(certified, one_point)``: ``{standard_id: {element: (w, u)}}`` from ``[cf]
@@ -693,7 +705,8 @@ def _cf_references(settings, method, table, refs, acquisition, instrument, files
                               where=f"{method.where}: [cf] one_point_standard",
                               fix="name a standard sample of the run that the standards file certifies")
         one_point = one_point_calibration(table, {el: w for el, (w, _u) in certified[ref].items()}, sample_id=sid,
-                                          settings=settings, acquisition=acquisition, instrument=instrument)
+                                          settings=settings, acquisition=acquisition, instrument=instrument,
+                                          intensity_basis=intensity_basis)
     return certified, one_point
 
 

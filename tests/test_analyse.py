@@ -18,6 +18,7 @@ from pypdf import PdfReader
 
 from compquant.analyse import analyse
 from compquant.cli import main
+from compquant.errors import CompquantError
 from compquant.report.jsonform import load_schema
 from compquant.simulate import load_scenario, simulate_run, truth_table
 
@@ -380,3 +381,34 @@ def test_saved_calibration_without_setup_samples_is_a_deviation(first, work, tmp
     text = " ".join(_text(out.certificates[0].pdf).split())
     assert "drift standardisation with setup samples was not possible" in text
     assert "No lab profile was given" in text  # no --lab: stated on the certificate
+
+
+def test_calibration_free_path_reads_the_runs_response_basis(work, tmp_path):
+    """The run's response-curve basis reaches the calibration-free analysis of ``analyse`` (issue 18,
+    item 5): the simulated run states "energy"; the same run relabelled "photon" is converted (line
+    intensities times hc/lambda changes the Boltzmann slopes, so T differs), and with no stated basis
+    it is refused in one clear error unless [cf] response_basis says it (docs/calibration-free.md)."""
+    import shutil
+
+    import h5py
+
+    d, _ = work
+    temps = {}
+    for basis in ("energy", "photon", None):
+        run = tmp_path / f"run-{basis}.h5"
+        shutil.copy(d / "run1.h5", run)
+        with h5py.File(run, "a") as f:
+            assert f["response"].attrs["basis"] == "energy"  # what simulate records
+            if basis is None:
+                del f["response"].attrs["basis"]
+            else:
+                f["response"].attrs["basis"] = basis
+        kw = dict(cf=True, lab=DEMO / "lab.toml", outdir=tmp_path / f"out-{basis}", issued_at=ISSUED, figures=False)
+        if basis is None:
+            with pytest.raises(CompquantError, match="unknown basis"):
+                analyse(run, d / "method.toml", **kw)
+            continue
+        out = analyse(run, d / "method.toml", **kw)
+        doc = json.loads(open(out.certificates[0].json, encoding="utf-8").read())
+        temps[basis] = doc["plasma"]["temperature_K"]
+    assert temps["photon"] != pytest.approx(temps["energy"], rel=1e-3), temps

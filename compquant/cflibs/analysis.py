@@ -1296,12 +1296,13 @@ def run_intensity_basis(method, run) -> str | None:
     return run.response_basis or "unknown"
 
 
-def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unknown", "check"),
+def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unknown", "check"), progress=None,
                        **kwargs) -> tuple[list[CFResult], dict[str, str]]:
     """Run :func:`analyse_cf` for several samples; returns ``(results, failures)``.
 
     ``failures`` maps sample id → one-line reason for samples with no valid solution
     (a :class:`~compquant.errors.CompquantError`), so one bad sample does not stop a run.
+    ``progress``: callable ``(done, total)``, called before the first sample and after each.
     """
     from compquant.errors import CompquantError
 
@@ -1311,11 +1312,16 @@ def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unk
             t = t[t["role"].isin(roles)]
         sample_ids = list(dict.fromkeys(t["sample_id"].astype(str)))
     results, failures = [], {}
-    for sid in sample_ids:
+    sample_ids = list(sample_ids)
+    for k, sid in enumerate(sample_ids):
+        if progress is not None:
+            progress(k, len(sample_ids))
         try:
             results.append(analyse_cf(line_table, sample_id=sid, **kwargs))
         except CompquantError as exc:
             failures[sid] = exc.one_line()
+    if progress is not None:
+        progress(len(sample_ids), len(sample_ids))
     return results, failures
 
 
