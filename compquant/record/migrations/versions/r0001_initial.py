@@ -256,4 +256,4 @@ def upgrade():
 
 
 def downgrade():  # the record is never downgraded: a newer schema is refused, not undone
-    raise NotImplementedError("the lab's record is not downgraded")
+    raise RuntimeError("the lab's record is never downgraded: its audit trail is append-only")
