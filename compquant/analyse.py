@@ -485,7 +485,8 @@ def analyse(
         recorder.store(run_file=run_path, run_sha256=run_sha, instrument=instrument, samples=samples,
                        measured=measured_at, method=method, basis=basis, issued_at=issued, certificates=certs,
                        outputs=out.certificates, review=review, calibration=cal_info, drift=drift_info,
-                       checks=checks, outdir=outdir)
+                       checks=checks, outdir=outdir, evidence=dict(meas=meas, method=method, curves=curves,
+                       cf=cf_by_sample, matrix_fraction=matrix_fraction))  # what the review page draws
     return out
 
 
