@@ -98,6 +98,13 @@ def test_upgrade_from_r0001_keeps_every_row_and_adds_append_only_evidence(db, tm
                     c.exec_driver_sql(sql)
         with rec.transaction() as conn:
             assert conn.execute(sa.select(sa.func.count()).select_from(S.evidence_arrays)).scalar_one() == 2
+            run_id = conn.execute(sa.select(sa.func.max(S.runs.c.id))).scalar_one()
+            row = conn.execute(sa.select(S.evidence_arrays.c.sample_row).where(
+                S.evidence_arrays.c.name == "mean_spectrum")).scalar_one()
+            assert np.array_equal(read_array(conn, run_id, None, "wavelength"), wl)  # float64 kept exactly
+            assert np.array_equal(read_array(conn, run_id, row, "mean_spectrum"), np.ones(50))
+            (m,) = read_items(conn, run_id, "map", None)
+            assert m["lod"] == 0.001 and m["values"][2] == [0.01, 0.01]
     finally:
         rec.dispose()
 

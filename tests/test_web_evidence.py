@@ -10,12 +10,15 @@ by a plain sweep; for the pages, Jinja2's autoescaping and Bokeh's own JSON item
 
 from __future__ import annotations
 
+import base64
+import gzip
 import json
 import random
 import re
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 pytest.importorskip("flask")
@@ -142,3 +145,47 @@ def test_record_without_evidence_says_so(tmp_path):
         assert c.get("/analysis/3/spectrum.json").status_code == 404
     finally:
         rec.dispose()
+
+
+def test_map_shows_nodes_below_lod_blank(tmp_path):
+    """A stored map is drawn with every node below its LOD as NaN (Bokeh draws NaN in nan_color:
+    transparent), never as a number of noise (LOD = 3 s_blank / slope, IUPAC)."""
+    from compquant.record.evidence import map_item
+
+    db = str(tmp_path / "m.sqlite")
+    kw = fake_analysis(tmp_path / "a", "RUN-M", n_samples=1)
+    sid = kw["certificates"][0].sample.sample_id
+    grid = map_item("Pb map", [0.0, 0.5, 1.0], [0.0, 0.5], [[-0.001, 0.0004, 0.003], [0.002, 0.0009, 0.004]],
+                    0.001, element="Pb")
+    with open_record(db) as rec:
+        store_analysis(rec, **kw, evidence={"maps": [{**grid, "sample_id": sid}]})
+    rec = open_record(db)
+    try:
+        app = create_app(rec)
+        app.testing = True
+        c = app.test_client()
+        with rec.transaction() as conn:
+            row = conn.execute(sa.select(S.samples.c.id).where(S.samples.c.sample_id == sid)).scalar_one()
+        assert 'id="maps"' in c.get(f"/analysis/{row}").get_data(as_text=True)
+        item = _item_ok(c.get(f"/analysis/{row}/map.json?name=Pb%20map"))
+        text = json.dumps(item)
+        assert "blank nodes: below the LOD (0.001 g/g)" in text
+        # the image: Bokeh's serialised ndarray (base64 bytes, dtype, shape), decoded with numpy
+        nd = next(v for v in _walk(item) if isinstance(v, dict) and v.get("type") == "ndarray"
+                  and v.get("shape") == [2, 3])
+        raw = base64.b64decode(nd["array"]["data"])
+        raw = gzip.decompress(raw) if raw[:2] == b"\x1f\x8b" else raw  # Bokeh may gzip the buffer (RFC 1952)
+        img = np.frombuffer(raw, dtype=nd["dtype"]).reshape(2, 3)
+        assert sorted(img[np.isfinite(img)].tolist()) == [0.002, 0.003, 0.004]
+    finally:
+        rec.dispose()
+
+
+def _walk(obj):
+    yield obj
+    if isinstance(obj, dict):
+        for v in obj.values():
+            yield from _walk(v)
+    elif isinstance(obj, list):
+        for v in obj:
+            yield from _walk(v)
