@@ -106,11 +106,12 @@ def _line_groups(method, wl) -> list[list[int]]:
     return _fit_groups(list(method.lines), np.asarray(wl, float))
 
 
-def _row_of(table, sid: str, line_id: str) -> dict:
+def _rows_of(table, sid: str) -> dict[str, dict]:
+    """The line-table rows of one sample, by line id."""
     if table is None or len(table) == 0:
         return {}
-    hit = table[(table["sample_id"].astype(str) == sid) & (table["line_id"].astype(str) == line_id)]
-    return hit.iloc[0].to_dict() if len(hit) else {}
+    hit = table[table["sample_id"].astype(str) == sid]
+    return {str(r["line_id"]): r for r in hit.to_dict("records")}
 
 
 def _shift_of(meas, sid: str) -> float:
@@ -173,13 +174,14 @@ def line_items(meas, method, sid: str) -> list[dict]:
             for j, i in enumerate(members):
                 where_fit[i] = (g, j)
     shift = _shift_of(meas, sid)
+    table = _rows_of(getattr(meas, "table", None), sid)
     out = []
     for i, ln in enumerate(lines):
         gf = None
         if i in where_fit:
             gf = (getattr(meas, "fits", None) or {}).get((sid, where_fit[i][0]))
         item = _fit_line(gf, where_fit[i][1], wl, y) if gf is not None else _window_line(ln, wl, y, shift)
-        row = _row_of(getattr(meas, "table", None), sid, ln.line_id)
+        row = table.get(ln.line_id, {})
         item.update(line_id=ln.line_id, element=ln.element, wavelength_nm=float(ln.wavelength_nm), mode=ln.mode,
                     intensity=_f(row.get("intensity")), u_intensity=_f(row.get("u_intensity")),
                     snr=_f(row.get("snr")), centre_nm=_f(row.get("centre_nm")), fwhm_nm=_f(row.get("fwhm_nm")),
