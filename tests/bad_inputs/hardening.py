@@ -46,6 +46,7 @@ class HCase:
     check: Callable | None = None  # check(case, result) for cases that must work
     multi: bool = False  # a multi-run call: the good run's outputs must be complete
     folder: Path = field(default=Path("."))
+    stdin: bytes | None = None  # what is piped into standard input (None: nothing, an empty stdin)
 
 
 # ----------------------------------------------------------------------------------- run mutations
