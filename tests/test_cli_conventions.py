@@ -256,3 +256,22 @@ def test_only_one_option_reads_standard_input():
     assert len(errors) == 1 and "only one input can be read from standard input" in errors[0]
     r = CliRunner().invoke(grp, ["two", "--first", "x.csv", "--second", "-"], input=b"a,b\n1,2\n")
     assert r.exit_code == 0 and r.stdout.strip() == "x.csv <stdin>"
+
+
+def test_standards_from_standard_input_in_multi_run_mode(tmp_path):
+    import json
+    import shutil
+
+    run, method, std = _calib_files(tmp_path)
+    runs = tmp_path / "runs"
+    runs.mkdir()
+    shutil.copy(run, runs / "a.h5")
+    shutil.copy(run, runs / "b.h5")
+    r = CliRunner().invoke(main, ["analyse", str(runs / "a.h5"), str(runs / "b.h5"), "--method", str(method),
+                                  "--standards", "-", "-o", str(tmp_path / "out"), "--no-figures", "-q",
+                                  "--issued-at", "2026-12-01T12:00:00Z"], input=std.read_bytes())
+    assert r.exit_code in (0, 3), r.output  # 3: the invented run states no measurement time
+    for name in ("a", "b"):
+        cert = json.loads(next((tmp_path / "out" / name).glob("LOT-1*.json")).read_text())
+        files = {f["role"]: f for f in cert["provenance"]["files"]}
+        assert files["standards"] == {"name": "<stdin>", "role": "standards", "sha256": _sha256_hex(std.read_bytes())}
