@@ -273,7 +273,9 @@ def analyse(
         cf_settings = CFSettings.from_section(method.sections.get("cf"), where=f"{method.where}: [cf]")
     elif standards is not None:
         from compquant.calibrate import load_standards, parse_calibration_section
+        from compquant.fileio import read_input
 
+        standards = read_input(standards, "standards file")  # read once: '-' is standard input
         load_standards(standards)
         parse_calibration_section(method.sections.get("calibration"), source=method.where)
     else:
@@ -570,7 +572,7 @@ def _quantify_calibration(meas, samples, method, standards, calibration, run_pat
     stds = None
     if standards is not None:
         stds = load_standards(standards)
-        files.append(FileRef("standards", Path(standards).name, stds.attrs.get("sha256", sha256_file(standards))))
+        files.append(FileRef("standards", stds.attrs["name"], stds.attrs["sha256"]))
         cfg = parse_calibration_section(method.sections.get("calibration"), source=method.where)
         tick("calibrate", 0, 1)
         cal = calibrate(

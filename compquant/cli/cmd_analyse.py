@@ -6,6 +6,7 @@ import click
 
 from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
 from compquant.cli._common import fold_scheduler, progress_bar, scheduler_file_option
+from compquant.cli._stdin import table_input
 
 
 class StageProgress:
@@ -225,9 +226,9 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 @click.command("analyse", epilog=_EPILOG)
 @click.argument("run_paths", metavar="RUN...", nargs=-1, required=True, type=click.Path())
 @click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False), help="Method file (TOML).")
-@click.option(
+@table_input(
     "--standards",
-    type=click.Path(dir_okay=False),
+    what="standards file",
     help="Certified-standards file: calibrate from the standards measured in this run.",
 )
 @click.option(

@@ -7,6 +7,7 @@ from pathlib import Path
 import click
 
 from compquant.cli._common import SAFETY, format_columns
+from compquant.cli._stdin import table_input
 
 
 def curve_table(cal) -> str:
@@ -59,11 +60,11 @@ def curve_table(cal) -> str:
     type=click.Path(dir_okay=False),
     help="Method file (TOML) with [calibration] and [[calibration.analytes]].",
 )
-@click.option(
+@table_input(
     "--standards",
     "standards_path",
     required=True,
-    type=click.Path(dir_okay=False),
+    what="standards file",
     help="Certified standards (CSV or TOML, see docs/calibration.md).",
 )
 @click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Calibration JSON to write.")

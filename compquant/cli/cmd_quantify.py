@@ -8,6 +8,7 @@ from pathlib import Path
 import click
 
 from compquant.cli._common import SAFETY, is_stdio, write_csv
+from compquant.cli._stdin import table_input
 from compquant.fileio import terminal_text
 
 
@@ -93,11 +94,11 @@ def results_text(q) -> str:
     default=None,
     help="Method file [default: the one recorded in the calibration; must be identical].",
 )
-@click.option(
+@table_input(
     "--standards",
     "standards_path",
-    type=click.Path(dir_okay=False),
     default=None,
+    what="standards file",
     help="Certified standards for the check samples [default: those stored in the calibration].",
 )
 @click.option(
@@ -148,6 +149,8 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
         run_path=str(Path(run_path).resolve()),
         calibration_path=str(Path(cal_path).resolve()),
         method_path=str(Path(mpath).resolve()),
+        standards=None if standards is None else {"name": standards.attrs["name"], "path": standards.attrs["path"],
+                                                  "sha256": standards.attrs["sha256"]},
         drift=q.drift,
         valid_for_release=q.valid_for_release,
         matrix_fraction_by_difference={k: {"w": v[0], "u": v[1]} for k, v in q.matrix_fraction.items()},
