@@ -158,8 +158,12 @@ def spectrum_png(
     return figure_png(fig)
 
 
-#: legend text of the standards' error bars on a calibration curve (the coverage stated)
-STANDARDS_LABEL = "standards"
+#: one colour per species on a Boltzmann plot (ten, so that a brass's species do not share one)
+SPECIES_COLOURS = ["#1f3b73", "#b03a2e", "#1e8449", "#7d3c98", "#b9770e", "#2e86c1", "#6e2c00", "#e91e63",
+                   "#7f8c8d", "#17a589"]
+
+#: legend text of the standards on a calibration curve: their error bars are U with k = 2
+STANDARDS_LABEL = "standards (U, k = 2)"
 
 
 def _points(ax, x, y, *, xerr=None, yerr=None, fmt="o", ms=4, color, ecolor=None, capsize=2, lw=0.8, label):
@@ -293,7 +297,7 @@ def boltzmann_figure(
         raise ValueError("energies and ordinates must have equal length")
     sp = np.asarray(species if species is not None else ["lines"] * len(E), dtype=object)
     fig, ax = new_axes((4.6, 3.2))
-    colours = ["#1f3b73", "#b03a2e", "#1e8449", "#7d3c98", "#b9770e", "#2e86c1"]
+    colours = SPECIES_COLOURS
     for i, name in enumerate(dict.fromkeys(sp.tolist())):
         m = sp == name
         c = colours[i % len(colours)]
@@ -340,6 +344,7 @@ def write_png(png: bytes, path) -> Path:
 
 
 __all__ = [
+    "SPECIES_COLOURS",
     "STANDARDS_LABEL",
     "boltzmann_figure",
     "boltzmann_png",

@@ -137,6 +137,7 @@ def test_calibration_error_bars_are_expanded_uncertainties_with_k_2(options):
     xh, yh = _bars(ax, "standards")
     assert np.allclose(xh, [2 * s["u_x"] * 100 for s in used])  # x in %, mass fraction × 100
     assert np.allclose(yh, [2 * s["u_y"] for s in used])
+    assert "k = 2" in " ".join(t.get_text() for t in ax.get_legend().get_texts())
 
 
 def test_certificate_and_command_draw_the_calibration_curve_with_one_function(tmp_path):
