@@ -16,7 +16,6 @@ from pathlib import Path
 
 import numpy as np
 
-from compquant.errors import CompquantError
 from compquant.fileio import atomic_path
 from compquant.report.certificate import (
     CalibrationInfo,
@@ -291,27 +290,21 @@ def blank_text(curves: dict) -> str:
 
 
 def sample_figures(
-    sid, stem, outdir: Path, wavelength, mean_spec, lines_marked, curves, rows, matrix_w, cf_res, run_path, method,
-    write: bool = True,
+    sid, stem, outdir: Path, wavelength, mean_spec, lines_marked, curves, rows, matrix_w, cf_res, write: bool = True,
 ) -> list[FigureItem]:
-    """The sample's figures; ``path`` is relative to ``outdir``; written there when ``write``."""
+    """The sample's figures; ``path`` is relative to ``outdir``; written there when ``write``.
+
+    ``mean_spec`` maps sample ids to the mean spectra the line measurement already computed
+    (:attr:`compquant.lines.LineMeasurement.mean_spectra`, on ``wavelength``); the run is not
+    read again.  A sample without one gets no spectrum figure.
+    """
     from compquant.report.figures import spectrum_png
 
     items: list[FigureItem] = []
     spec = mean_spec.get(sid)
-    if spec is None:
-        try:
-            from compquant.lines import mean_spectrum
-            from compquant.run import Run
-
-            with Run.open(run_path) as run:
-                wl, spec, _info = mean_spectrum(run, method, sid)
-                wavelength = np.asarray(wl, float)
-        except CompquantError:
-            spec = None
-    if spec is not None and np.asarray(spec).shape == wavelength.shape:
+    if spec is not None and np.asarray(spec).shape == np.shape(wavelength):
         png = spectrum_png(
-            wavelength,
+            np.asarray(wavelength, float),
             np.asarray(spec, float),
             lines_marked,
             title="Mean preprocessed spectrum of the accepted shots",
