@@ -22,7 +22,7 @@ from functools import partial
 from pathlib import Path
 
 from compquant.fileio import atomic_path, visible_text
-from compquant.report import pdf_back, pdf_front
+from compquant.report import pdf_back, pdf_figures, pdf_front
 from compquant.report.certificate import Certificate
 from compquant.report.pdf_back import authorisation_rows
 from compquant.report.pdf_front import RELEASE_BLOCKED
@@ -71,7 +71,7 @@ def _numbered_sections(review) -> list:
         pdf_back.plasma_section,
         pdf_back.remarks_section,
         partial(pdf_back.authorisation_section, review=review),
-        pdf_back.figures_section,
+        pdf_figures.figures_section,
         pdf_back.safety_section,
         pdf_back.provenance_section,
     ]
