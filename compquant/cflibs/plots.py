@@ -25,18 +25,18 @@ from compquant.plasma.constants import KB_EV
 from compquant.plotting import boltzmann_figure, figure_png, write_png
 
 
-def _finite(x):
+def _value(x) -> float:
+    """``x`` as a float; NaN when it is missing or not a number."""
     try:
-        v = float(x)
+        return float(x)
     except (TypeError, ValueError):
-        return None
-    return v if math.isfinite(v) else None
+        return math.nan
 
 
 def _label(line_id: str) -> str:
     """The wavelength of a line id such as ``Cu I 324.754``, to 0.1 nm (the id itself otherwise)."""
-    wl = _finite(str(line_id).rsplit(" ", 1)[-1])
-    return str(line_id) if wl is None else f"{wl:.1f}"
+    wl = _value(str(line_id).rsplit(" ", 1)[-1])
+    return f"{wl:.1f}" if math.isfinite(wl) else str(line_id)
 
 
 def saha_boltzmann_figure(result, *, detailed: bool = False):
@@ -47,13 +47,15 @@ def saha_boltzmann_figure(result, *, detailed: bool = False):
     ``detailed`` (the command line) adds the line labels, nₑ in the title and the fitted slope.
     """
     lines = result.lines or []
-    pts = [ln for ln in lines if _finite(ln.get("x_ev")) is not None and _finite(ln.get("y")) is not None]
+    pts = [ln for ln in lines if math.isfinite(_value(ln.get("x_ev"))) and math.isfinite(_value(ln.get("y")))]
     if len(pts) < 2:
         return None
     E = np.array([float(p["x_ev"]) for p in pts])
     Y = np.array([float(p["y"]) for p in pts])
-    yfit = np.array([_finite(p.get("y_fit")) if _finite(p.get("y_fit")) is not None else np.nan for p in pts])
-    yerr = np.array([_finite(p.get("u_ordinate")) or 0.0 for p in pts])
+    yfit = np.array([_value(p.get("y_fit")) for p in pts])
+    yfit[~np.isfinite(yfit)] = np.nan
+    yerr = np.array([_value(p.get("u_ordinate")) for p in pts])
+    yerr[~np.isfinite(yerr)] = 0.0
     sp = [str(p.get("species", "lines")) for p in pts]
     saha = str(result.fit_mode) == "saha-boltzmann"
     title = f"{'Saha-' if saha else ''}Boltzmann plot, T = {result.temperature_k:.0f} K"
@@ -87,7 +89,7 @@ def saha_boltzmann_png(result, **kw) -> bytes | None:
 def species_boltzmann_figure(result):
     """Boltzmann plot per species: ln(Iλ/(g_k A_ki)) vs E_k, self-absorption corrected, each
     species with its own fitted line and temperature; None without lines."""
-    lines = [ln for ln in (result.lines or []) if _finite(ln.get("ek_ev")) is not None]
+    lines = [ln for ln in (result.lines or []) if math.isfinite(_value(ln.get("ek_ev")))]
     if not lines:
         return None
     rows = {r["species"]: r for r in result.species}
