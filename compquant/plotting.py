@@ -27,8 +27,8 @@ def plain_text() -> None:
     """Draw every text of every figure as plain text: no mathtext, no LaTeX.
 
     Sample ids, line ids and names come from files; ``$\\foo$`` in one of them must print as
-    typed, not be parsed as mathtext (an unknown command would stop the figure). Labels that
-    are meant as mathematics ask for it with ``parse_math=True`` (compquant.cflibs.plots).
+    typed, not be parsed as mathtext (an unknown command would stop the figure). A label meant
+    as mathematics would ask for it with ``parse_math=True``; the figures here use none.
     """
     import matplotlib
 
