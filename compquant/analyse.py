@@ -464,7 +464,7 @@ def analyse(
             sid, stem, outdir, wavelength, mean_spec, lines_marked, curves, cert.results,
             matrix_fraction.get(sid, (None, None))[0] if not any(
                 r.line_id == "by difference" and not finite(r.mass_fraction) for r in cert.results) else None,
-            cf_by_sample.get(sid), run_path, method, write=False,
+            cf_by_sample.get(sid), write=False,
         )
 
     try:
