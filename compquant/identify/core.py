@@ -44,6 +44,13 @@ set out with their sources in ``docs/identification.md``; in short:
   of its own is *hidden* rather than missing when active lines of other
   elements within 1.5 FWHM are predicted to put more intensity at its position
   than it would have.
+* **Explaining lines.**  Only the ``max_lines_per_species`` strongest lines of
+  a species are scored, but every other database line in range of a detected
+  or possible species takes part in the sharing with its predicted
+  contribution ``a_s r``: a peak that a weak matrix line accounts for (Fe I
+  429.412 nm) is not evidence for an absent element whose line lies within the
+  tolerance (W I 429.461 nm).  A species' own lines never compete with each
+  other for a peak.
 """
 
 from __future__ import annotations
@@ -82,7 +89,8 @@ class Identification:
     lines : DataFrame, one row per line group of every candidate species: ``species, element,
         ion, group, line_id, members, wavelength_nm, rel_intensity, ek_ev, tolerance_nm, peak_id,
         peak_centre_nm, delta_nm, share, observed_area, predicted_area, predicted_snr, expected,
-        strong, found, missing``
+        strong, found, missing, scored``; ``scored`` is False for the weaker lines of a detected
+        or possible species that only explain peaks (never found or missing)
     peaks : DataFrame of :func:`compquant.identify.peaks.find_peaks` plus ``explained_by``
         (species with a share of at least 10 %, detected or possible) and ``unexplained``
     temperature_k : excitation temperature used for the LTE estimate
