@@ -434,7 +434,8 @@ def assemble_lines(all_l, ges, levels, bc, with_ges: bool = False):
                 for k in ("wavelength_nm_2", "gi_2", "gk_2", "ei_ev_2", "aki_2"):
                     row[k] = np.nan
                 row["source_2"] = SRC_GES + " (values not shipped: GPL-3.0; --with-gaia-eso build)"
-                row["gA_ratio"] = round(float(gb[np.searchsorted(np.flatnonzero(both), ia)] / ga[ia]), 3)
+                # the ratio gA(Gaia-ESO) / gA(ALL v3) to 2 significant figures: how far apart, not the value
+                row["gA_ratio"] = float(f"{gb[np.searchsorted(np.flatnonzero(both), ia)] / ga[ia]:.2g}")
             dis.append(row)
     if not with_ges:
         return lines, dis, n_ges_nogi

