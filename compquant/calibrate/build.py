@@ -160,6 +160,17 @@ def curve_from_records(
     (+ ``w`` mass fraction, ``matrix_fraction`` for basis 'ratio', ``xi:<El>`` and
     ``uxi:<El>`` per interferer, ``shots`` per-shot responses or None,
     ``line_flags``).  ``blank``: ``(s, source, n)`` from :func:`blank_sd` or None.
+
+    Steps: fit with Bonferroni outlier exclusion (:func:`_fit_excluding_outliers`), sensitivity
+    checks (:func:`_check_sensitivity`), the stated variance and excess scatter
+    (:func:`_scatter`), per-standard and curve diagnostics (:func:`_diagnostics`), detection
+    limits (:func:`_detection_limits`, IUPAC 3s/10s and ISO 11843-2) and the interference
+    coefficients (:func:`_interference_terms`).  Equations: docs/calibration.md.
+
+    References
+    ----------
+    .. [1] ISO 11843-2:2000, capability of detection, linear calibration.
+    .. [2] JCGM 100:2008 (GUM), 5.1.2 (uncertainty of x through the local slope).
     """
     recs = [dict(r) for r in recs]
     for r in recs:
@@ -169,13 +180,71 @@ def curve_from_records(
         r.setdefault("line_flags", "")
     weighted = a.model in WEIGHTED_MODELS
     interf = [(it["element"], it["kind"]) for it in a.interferences]
-    limit_used = None
+    fit, use, lim = _fit_excluding_outliers(a, recs, weighted, interf, outlier_alpha, where)
+    x = np.array([r["x"] for r in use])
+    y = np.array([r["y"] for r in use])
+    uy = np.array([r["u_y"] for r in use])
+    xi = {el: np.array([r[f"xi:{el}"] for r in use]) for el, _ in interf}
+    slope = _check_sensitivity(fit, x, xi, where)
+    scale_stated, sigma_m2, cov = _scatter(fit, use, interf, x, uy, slope)
+    lof, mandel, resid_sd = _diagnostics(a, fit, use, lim, x, y, uy, weighted, interf)
+    lod_x, loq_x, s_blank, lod_source = _detection_limits(fit, interf, blank, resid_sd, y, where)
+    iso = iso11843_2(x, y) if not interf else None
+    ws = np.array([r.get("w", r["x"]) for r in use])
+    wm_nom = float(np.mean([r["matrix_fraction"] for r in use])) if a.basis == "ratio" else 1.0
+    if iso is not None and a.basis == "ratio":
+        iso["x_c_mass_fraction"] = iso["x_c"] * wm_nom
+        iso["x_d_mass_fraction"] = iso["x_d"] * wm_nom
+    return Curve(
+        element=a.element,
+        line_id=a.line,
+        basis=a.basis,
+        internal_standard=a.internal_standard,
+        model=a.model,
+        through_origin=a.through_origin,
+        weighted=weighted,
+        terms=list(fit.terms),
+        beta=fit.beta.tolist(),
+        cov_fit=fit.cov.tolist(),
+        cov=cov.tolist(),
+        scale=float(fit.scale),
+        scale_stated=scale_stated,
+        sigma_m2=sigma_m2,
+        dof=int(fit.dof),
+        r2=float(fit.r2),
+        residual_sd=resid_sd,
+        range_x=[float(x.min()), float(x.max())],
+        range_mass_fraction=[float(ws.min()), float(ws.max())],
+        matrix_fraction_nominal=wm_nom,
+        lod_x=float(lod_x),
+        loq_x=float(loq_x),
+        lod=float(lod_x * wm_nom),
+        loq=float(loq_x * wm_nom),
+        lod_source=lod_source,
+        iso11843=iso,
+        standards=[{k: v for k, v in r.items() if k != "shots"} for r in recs],
+        interferences=_interference_terms(fit, interf, cov),
+        diagnostics={
+            "lack_of_fit": lof,
+            "mandel": mandel,
+            "outlier_limit": float(lim),
+            "n_used": int(fit.n),
+            "n_excluded": int(sum(not r["used"] for r in recs)),
+            "s_blank": float(s_blank),
+        },
+    )
+
+
+def _fit_excluding_outliers(a: AnalyteConfig, recs: list, weighted: bool, interf: list, outlier_alpha: float,
+                            where: str):
+    """Fit the curve, excluding one standard at a time whose studentised residual exceeds the
+    Bonferroni limit (``outliers = "exclude"``) while enough standards remain.
+
+    Returns ``(fit, used records, outlier limit)``; excluded records get ``used=False`` and a reason.
+    """
     while True:
         use = [r for r in recs if r["used"]]
-        x = np.array([r["x"] for r in use])
-        y = np.array([r["y"] for r in use])
         uy = np.array([r["u_y"] for r in use])
-        xi = {el: np.array([r[f"xi:{el}"] for r in use]) for el, _ in interf}
         if weighted and np.any(uy <= 0):
             raise CalibrationError(
                 "a standard has zero response uncertainty; weights 1/u^2 undefined",
@@ -183,12 +252,12 @@ def curve_from_records(
                 fix="use model 'linear'",
             )
         fit = fit_curve(
-            x,
-            y,
+            np.array([r["x"] for r in use]),
+            np.array([r["y"] for r in use]),
             model=a.model,
             through_origin=a.through_origin,
             weights=1.0 / uy**2 if weighted else None,
-            xi=xi,
+            xi={el: np.array([r[f"xi:{el}"] for r in use]) for el, _ in interf},
             interferences=interf,
             where=where,
         )
@@ -203,7 +272,12 @@ def curve_from_records(
                 f"{outlier_alpha})",
             )
             continue
-        break
+        return fit, use, limit_used
+
+
+def _check_sensitivity(fit, x, xi, where: str) -> np.ndarray:
+    """The local slope at each standard; refuse a curve whose sensitivity is not positive over the
+    standards' range or a quadratic that turns over inside it."""
     beta = fit.beta
     slope = slope_at(fit.terms, beta, x, xi)
     if (
@@ -224,7 +298,14 @@ def curve_from_records(
                 where=where,
                 fix="use the linear model or fewer high standards",
             )
-    # stated variance: repeatability + certified uncertainty through the local slope
+    return slope
+
+
+def _scatter(fit, use, interf, x, uy, slope):
+    """``(scale_stated, sigma_m2, cov)``: the stated variance (repeatability + certified uncertainty
+    through the local slope + interferers' uncertainties), the excess scatter of a new sample, and
+    the coefficients' covariance scaled by the larger of observed and stated variance."""
+    beta = fit.beta
     ux = np.array([r["u_x"] for r in use])
     kstat = uy**2 + (slope * ux) ** 2
     for el, _ in interf:
@@ -235,9 +316,12 @@ def curve_from_records(
     # observed residual variance (never less than the stated one) minus the
     # standards' mean repeatability, which the unknown's replaces
     sigma_m2 = max(scale_used - float(np.mean(fit.w * uy**2)), 0.0)
-    cov = scale_used * fit.xtwx_inv
-    # per-standard diagnostics
-    lim = limit_used
+    return scale_stated, sigma_m2, scale_used * fit.xtwx_inv
+
+
+def _diagnostics(a, fit, use, lim, x, y, uy, weighted, interf):
+    """Per-standard diagnostics (written into the records), lack of fit, Mandel's test and the
+    residual standard deviation: ``(lack_of_fit, mandel, residual_sd)``."""
     for i, r in enumerate(use):
         r.update(
             fitted=float(fit.fitted[i]),
@@ -256,9 +340,16 @@ def curve_from_records(
         if a.model not in QUADRATIC_MODELS and not interf and not a.through_origin
         else None
     )
-    resid_sd = float(np.sqrt(np.sum(fit.resid**2) / fit.dof))
-    # detection limits
-    s0 = slope_at(fit.terms, beta, 0.0, {el: 0.0 for el, _ in interf})
+    return lof, mandel, float(np.sqrt(np.sum(fit.resid**2) / fit.dof))
+
+
+def _detection_limits(fit, interf, blank, resid_sd, y, where: str):
+    """LOD and LOQ in content units (3 s / slope, 10 s / slope at zero content, IUPAC practice) with
+    s from the blank or, without a usable blank, the calibration residuals.
+
+    Returns ``(lod_x, loq_x, s_blank, lod_source)``.
+    """
+    s0 = slope_at(fit.terms, fit.beta, 0.0, {el: 0.0 for el, _ in interf})
     if s0 <= 0:
         raise CalibrationError(
             "curve sensitivity at zero content is not positive",
@@ -279,21 +370,20 @@ def curve_from_records(
             fix="measure a blank with several shots; identical shots suggest copied or simulated noise-free data",
         )
     lod_x, loq_x = lod_loq(s_blank, s0)
-    iso = iso11843_2(x, y) if not interf else None
-    ws = np.array([r.get("w", r["x"]) for r in use])
-    wm_nom = float(np.mean([r["matrix_fraction"] for r in use])) if a.basis == "ratio" else 1.0
-    if iso is not None and a.basis == "ratio":
-        iso["x_c_mass_fraction"] = iso["x_c"] * wm_nom
-        iso["x_d_mass_fraction"] = iso["x_d"] * wm_nom
-    icorr = []
+    return lod_x, loq_x, s_blank, lod_source
+
+
+def _interference_terms(fit, interf, cov) -> list[dict]:
+    """The fitted interference coefficients with their standard uncertainties."""
+    out = []
     for el, kind in interf:
         term = f"{'add' if kind == 'additive' else 'mul'}:{el}"
         j = fit.terms.index(term)
-        icorr.append(
+        out.append(
             {
                 "element": el,
                 "kind": kind,
-                "coefficient": float(beta[j]),
+                "coefficient": float(fit.beta[j]),
                 "u": float(math.sqrt(cov[j, j])),
                 "meaning": (
                     "response added per unit content of the interferer"
@@ -302,48 +392,7 @@ def curve_from_records(
                 ),
             }
         )
-    stds_out = []
-    for r in recs:
-        d = {k: v for k, v in r.items() if k != "shots"}
-        stds_out.append(d)
-    return Curve(
-        element=a.element,
-        line_id=a.line,
-        basis=a.basis,
-        internal_standard=a.internal_standard,
-        model=a.model,
-        through_origin=a.through_origin,
-        weighted=weighted,
-        terms=list(fit.terms),
-        beta=beta.tolist(),
-        cov_fit=fit.cov.tolist(),
-        cov=cov.tolist(),
-        scale=float(fit.scale),
-        scale_stated=scale_stated,
-        sigma_m2=sigma_m2,
-        dof=int(fit.dof),
-        r2=float(fit.r2),
-        residual_sd=resid_sd,
-        range_x=[float(x.min()), float(x.max())],
-        range_mass_fraction=[float(ws.min()), float(ws.max())],
-        matrix_fraction_nominal=wm_nom,
-        lod_x=float(lod_x),
-        loq_x=float(loq_x),
-        lod=float(lod_x * wm_nom),
-        loq=float(loq_x * wm_nom),
-        lod_source=lod_source,
-        iso11843=iso,
-        standards=stds_out,
-        interferences=icorr,
-        diagnostics={
-            "lack_of_fit": lof,
-            "mandel": mandel,
-            "outlier_limit": float(lim),
-            "n_used": int(fit.n),
-            "n_excluded": int(sum(not r["used"] for r in recs)),
-            "s_blank": float(s_blank),
-        },
-    )
+    return out
 
 
 def calibrate(

@@ -164,7 +164,58 @@ def fit_curve(
     n = len(x)
     xi = {k: np.asarray(v, float).ravel() for k, v in (xi or {}).items()}
     terms = design_terms(model, through_origin, interferences)
-    p = len(terms)
+    _check_data(x, y, len(terms), where)
+    w = _weights(weights, model, n, where)
+    X = design_matrix(terms, x, xi)
+    sw = np.sqrt(w)
+    Xw = X * sw[:, None]
+    yw = y * sw
+    # scale columns before the rank test so that tiny contents do not look singular
+    colscale = np.linalg.norm(Xw, axis=0)
+    if np.any(colscale == 0) or np.linalg.matrix_rank(Xw / colscale) < len(terms):
+        raise CalibrationError(
+            "singular calibration design (a term does not vary between standards)",
+            where=where,
+            fix="drop the term (e.g. an interference whose content is constant) or add standards",
+        )
+    Q, R = np.linalg.qr(Xw)
+    beta = np.linalg.solve(R, Q.T @ yw)
+    Rinv = np.linalg.inv(R)
+    xtwx_inv = Rinv @ Rinv.T
+    fitted = X @ beta
+    resid = y - fitted
+    dof = n - len(terms)
+    ssr = float(np.sum(w * resid**2))
+    scale = ssr / dof
+    lev = np.sum(Q**2, axis=1)
+    if "1" in terms:
+        ybar = np.sum(w * y) / np.sum(w)
+        sst = float(np.sum(w * (y - ybar) ** 2))
+    else:
+        sst = float(np.sum(w * y**2))
+    r2 = 1.0 - ssr / sst if sst > 0 else float("nan")
+    return CurveFit(
+        terms=terms,
+        beta=beta,
+        cov=scale * xtwx_inv,
+        xtwx_inv=xtwx_inv,
+        scale=scale,
+        dof=dof,
+        x=x,
+        y=y,
+        w=w,
+        xi=xi,
+        fitted=fitted,
+        resid=resid,
+        leverage=lev,
+        studentized=_studentized(resid, sw, lev, scale, dof),
+        r2=r2,
+    )
+
+
+def _check_data(x, y, p: int, where: str) -> None:
+    """Refuse fewer than 3 standards, fewer than ``p + 1``, non-finite data or identical contents."""
+    n = len(x)
     if n < 3:
         raise CalibrationError(
             f"only {n} standard(s) usable; at least 3 are needed",
@@ -187,6 +238,10 @@ def fit_curve(
             where=where,
             fix="use standards that span the calibration range",
         )
+
+
+def _weights(weights, model: str, n: int, where: str) -> np.ndarray:
+    """The least-squares weights: ones (OLS), or the given 1/u^2, finite and positive."""
     if weights is None:
         if model in WEIGHTED_MODELS:
             raise CalibrationError(
@@ -194,46 +249,21 @@ def fit_curve(
                 where=where,
                 fix="use model 'linear' or provide u_intensity",
             )
-        w = np.ones(n)
-    else:
-        w = np.asarray(weights, float).ravel()
-        if w.shape != (n,) or not np.all(np.isfinite(w)) or np.any(w <= 0):
-            raise CalibrationError(
-                "weights must be finite and > 0 (zero response uncertainty?)",
-                where=where,
-                fix="check u_intensity of the standards",
-            )
-    X = design_matrix(terms, x, xi)
-    sw = np.sqrt(w)
-    Xw = X * sw[:, None]
-    yw = y * sw
-    # scale columns before the rank test so that tiny contents do not look singular
-    colscale = np.linalg.norm(Xw, axis=0)
-    if np.any(colscale == 0) or np.linalg.matrix_rank(Xw / colscale) < p:
+        return np.ones(n)
+    w = np.asarray(weights, float).ravel()
+    if w.shape != (n,) or not np.all(np.isfinite(w)) or np.any(w <= 0):
         raise CalibrationError(
-            "singular calibration design (a term does not vary between standards)",
+            "weights must be finite and > 0 (zero response uncertainty?)",
             where=where,
-            fix="drop the term (e.g. an interference whose content is constant) or add standards",
+            fix="check u_intensity of the standards",
         )
-    Q, R = np.linalg.qr(Xw)
-    beta = np.linalg.solve(R, Q.T @ yw)
-    Rinv = np.linalg.inv(R)
-    xtwx_inv = Rinv @ Rinv.T
-    fitted = X @ beta
-    resid = y - fitted
-    dof = n - p
-    ssr = float(np.sum(w * resid**2))
-    scale = ssr / dof
-    cov = scale * xtwx_inv
-    lev = np.sum(Q**2, axis=1)
-    if "1" in terms:
-        ybar = np.sum(w * y) / np.sum(w)
-        sst = float(np.sum(w * (y - ybar) ** 2))
-    else:
-        sst = float(np.sum(w * y**2))
-    r2 = 1.0 - ssr / sst if sst > 0 else float("nan")
-    # externally studentised residuals (Belsley, Kuh & Welsch 1980; statsmodels
-    # OLSInfluence.resid_studentized_external)
+    return w
+
+
+def _studentized(resid, sw, lev, scale: float, dof: int) -> np.ndarray:
+    """Externally studentised residuals (Belsley, Kuh & Welsch 1980; statsmodels
+    OLSInfluence.resid_studentized_external); NaN (too few degrees of freedom) as 0."""
+    n = len(resid)
     with np.errstate(divide="ignore", invalid="ignore"):
         if scale > 0:
             r_int = resid * sw / np.sqrt(scale * np.clip(1 - lev, 1e-300, None))
@@ -243,23 +273,7 @@ def fit_curve(
             t_ext = r_int * np.sqrt((dof - 1) / np.clip(dof - r_int**2, 1e-300, None))
         else:
             t_ext = np.full(n, np.nan)
-    return CurveFit(
-        terms=terms,
-        beta=beta,
-        cov=cov,
-        xtwx_inv=xtwx_inv,
-        scale=scale,
-        dof=dof,
-        x=x,
-        y=y,
-        w=w,
-        xi=xi,
-        fitted=fitted,
-        resid=resid,
-        leverage=lev,
-        studentized=np.nan_to_num(t_ext, nan=0.0),
-        r2=r2,
-    )
+    return np.nan_to_num(t_ext, nan=0.0)
 
 
 def outlier_limit(n: int, p: int, alpha: float = 0.05) -> float:
