@@ -5,7 +5,14 @@ from __future__ import annotations
 import click
 
 from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
-from compquant.cli._common import fold_scheduler, progress_bar, scheduler_file_option
+from compquant.cli._common import (
+    file_option,
+    fold_scheduler,
+    folder_option,
+    method_option,
+    progress_bar,
+    scheduler_file_option,
+)
 
 
 class StageProgress:
@@ -224,25 +231,16 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 
 @click.command("analyse", epilog=_EPILOG)
 @click.argument("run_paths", metavar="RUN...", nargs=-1, required=True, type=click.Path())
-@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False), help="Method file (TOML).")
-@click.option(
-    "--standards",
-    type=click.Path(dir_okay=False),
-    help="Certified-standards file: calibrate from the standards measured in this run.",
-)
-@click.option(
+@method_option("Method file (TOML).")
+@file_option("--standards", help="Certified-standards file: calibrate from the standards measured in this run.")
+@file_option(
     "--calibration",
-    type=click.Path(dir_okay=False),
     help="Saved calibration (JSON): apply it, with drift standardisation from setup samples.",
 )
 @click.option("--cf", is_flag=True, help="Calibration-free analysis (plasma physics, closure to 100 %).")
-@click.option("--lab", type=click.Path(dir_okay=False), help="Lab profile (TOML): name, address, signatory.")
-@click.option(
-    "--spec",
-    type=click.Path(dir_okay=False),
-    help="Specification (TOML): element limits and decision rule for a conformity statement.",
-)
-@click.option("-o", "--outdir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@file_option("--lab", help="Lab profile (TOML): name, address, signatory.")
+@file_option("--spec", help="Specification (TOML): element limits and decision rule for a conformity statement.")
+@folder_option("-o", "--outdir", help="Output folder.", required=True)
 @click.option("--client", help="Client name (overrides the lab profile's default).")
 @click.option("--received", metavar="YYYY-MM-DD", help="Date the samples were received.")
 @click.option("--issued-at", metavar="ISO-8601", help="Issue time in UTC (default: now); fixes the outputs.")

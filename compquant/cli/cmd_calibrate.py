@@ -6,7 +6,15 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns
+from compquant.cli._common import (
+    SAFETY,
+    file_option,
+    folder_option,
+    format_columns,
+    method_option,
+    output_option,
+    run_argument,
+)
 
 
 def curve_table(cal) -> str:
@@ -51,27 +59,16 @@ def curve_table(cal) -> str:
 
 
 @click.command("calibrate", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option(
-    "--method",
-    "method_path",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Method file (TOML) with [calibration] and [[calibration.analytes]].",
-)
-@click.option(
-    "--standards",
-    "standards_path",
-    required=True,
-    type=click.Path(dir_okay=False),
+@run_argument
+@method_option("Method file (TOML) with [calibration] and [[calibration.analytes]].")
+@file_option(
+    "--standards", "standards_path",
     help="Certified standards (CSV or TOML, see docs/calibration.md).",
+    required=True,
 )
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Calibration JSON to write.")
-@click.option(
-    "--plots",
-    "plots_dir",
-    type=click.Path(file_okay=False),
-    default=None,
+@output_option("Calibration JSON to write.")
+@folder_option(
+    "--plots", "plots_dir",
     help="Folder for one PNG per curve (standards, fit, prediction band, samples).",
 )
 @click.option("--quiet", is_flag=True, help="Do not print the table of curves.")

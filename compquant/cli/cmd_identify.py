@@ -6,7 +6,15 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, write_csv
+from compquant.cli._common import (
+    SAFETY,
+    file_option,
+    format_columns,
+    method_option,
+    output_option,
+    run_argument,
+    write_csv,
+)
 from compquant.errors import InputError
 from compquant.fileio import safe_filename, terminal_text
 
@@ -29,22 +37,31 @@ def render_table(table) -> str:
 
 
 @click.command("identify", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@run_argument
 @click.option("--sample", "samples", multiple=True,
               help="Sample id (repeat for several) [default: every sample of the run].")
-@click.option("--method", "method_path", type=click.Path(dir_okay=False), default=None,
-              help="Method file: its preprocessing, [identify] settings and analyte lines (interference map).")
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Identification CSV (one row per sample and candidate species).")
-@click.option("--interference", "imap_path", type=click.Path(dir_okay=False), default=None,
-              help="Interference-map CSV [default with --method: <output stem>-interference.csv].")
-@click.option("--peaks", "peaks_path", type=click.Path(dir_okay=False), default=None,
-              help="Also write the detected peaks (with the lines explaining them) to this CSV.")
-@click.option("--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
-              help="PNG of the spectrum with identified lines labelled (one file per sample: "
-                   "<stem>-<sample>.png when several samples).")
-@click.option("--lines", "lines_path", type=click.Path(dir_okay=False), default=None,
-              help="Line database CSV in the columns of docs/atomic-data.md [default: the shipped list].")
+@method_option(
+    "Method file: its preprocessing, [identify] settings and analyte lines (interference map).",
+    required=False,
+)
+@output_option("Identification CSV (one row per sample and candidate species).")
+@file_option(
+    "--interference", "imap_path",
+    help="Interference-map CSV [default with --method: <output stem>-interference.csv].",
+)
+@file_option(
+    "--peaks", "peaks_path",
+    help="Also write the detected peaks (with the lines explaining them) to this CSV.",
+)
+@file_option(
+    "--plot", "plot_path",
+    help="PNG of the spectrum with identified lines labelled (one file per sample: "
+    "<stem>-<sample>.png when several samples).",
+)
+@file_option(
+    "--lines", "lines_path",
+    help="Line database CSV in the columns of docs/atomic-data.md [default: the shipped list].",
+)
 @click.option("--temperature", type=float, default=None,
               help="Excitation temperature for the LTE estimate, K [default: method, else fitted].")
 @click.option("--resolving-power", type=float, default=None,
