@@ -232,6 +232,24 @@ def test_outputs_written(first, work):
     assert {r["certificate_number"] for r in rows} == {c.number for c in first.certificates}
 
 
+def test_analysis_output_frame_and_summary(first, work):
+    """AnalysisOutput.to_frame() holds the numbers as printed on the certificates (the JSON form,
+    docs/certificate.md) and summary() names every certificate and its release state."""
+    d, _ = work
+    frame = first.to_frame()
+    assert list(frame.columns) == ["sample_id", "certificate", "element", "value", "U", "unit", "flags",
+                                   "valid_for_release"]
+    for c in first.certificates:
+        doc = json.loads(open(c.json, encoding="utf-8").read())
+        rows = frame[frame["certificate"] == c.number].set_index("element")
+        assert set(rows.index) == {r["element"] for r in doc["results"]}
+        for r in doc["results"]:
+            assert rows.loc[r["element"], "value"] == r["reported"]["value"]
+    text = first.summary()
+    assert all(c.number in text for c in first.certificates)
+    assert "valid for release:" in text and "NOT valid: " in text  # check-not-evaluated (above)
+
+
 def test_cli_repeats_identical_outputs(first, work):
     d, _ = work
     r = CliRunner().invoke(

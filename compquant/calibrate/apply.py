@@ -36,6 +36,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from compquant import results as _results
 from compquant.calibrate.build import certified_table, standard_map
 from compquant.calibrate.checks import check_verdict, en_number, z_score, zeta_score
 from compquant.calibrate.drift import correct, reference_response, two_point
@@ -43,22 +44,8 @@ from compquant.calibrate.model import Calibration
 from compquant.calibrate.response import sample_responses
 from compquant.errors import CalibrationError, DataQualityError
 
-RESULT_COLUMNS = [
-    "sample_id",
-    "element",
-    "mass_fraction",
-    "u",
-    "U",
-    "k",
-    "lod",
-    "loq",
-    "below_lod",
-    "flags",
-    "basis",
-    "line_id",
-    "role",
-    "dof",
-]
+#: the results table's columns, declared once (name, dtype, unit, meaning) in compquant.results
+RESULT_COLUMNS = list(_results.RESULT_COLUMNS)
 CHECK_COLUMNS = [
     "sample_id",
     "standard_id",
@@ -86,6 +73,26 @@ class QuantifyResult:
     provenance: dict
     valid_for_release: bool = True
     matrix_fraction: dict = field(default_factory=dict)  # sample -> (w, u) by difference
+
+    def to_frame(self) -> pd.DataFrame:
+        """The results as the declared contract (:mod:`compquant.results`: columns, order, dtypes)."""
+        return _results.to_frame(self.results)
+
+    def summary(self) -> str:
+        """A plain-text summary: calibration, drift, checks, then one line per result."""
+        prov = self.provenance or {}
+        info = {
+            "basis": "calibration",
+            "calibration": prov.get("calibration_id", ""),
+            "coverage": prov.get("coverage", "k2"),
+            "drift standardisation": "applied" if self.drift.get("applied") else
+            f"not applied ({self.drift.get('reason', '')})",
+            "check samples": f"{int(self.checks['passed'].sum())} of {len(self.checks)} passed"
+            if len(self.checks) else "none",
+            "valid for release": "yes" if self.valid_for_release else "NO",
+            "not reported": len(prov.get("not_reported", [])),
+        }
+        return _results.summary_text(self.to_frame(), "Calibrated results (compquant.calibrate.quantify)", info)
 
 
 def _tables(measurement):

@@ -54,6 +54,38 @@ class AnalysisOutput:
     not_reported: list[dict]  # every (sample, analyte) without a result, with the reason
     failures: dict
 
+    def to_frame(self):
+        """One row per (certificate, element) as printed: ``sample_id, certificate, element, value,
+        U, unit, flags, valid_for_release`` (strings as on the certificate; :mod:`compquant.report`)."""
+        import pandas as pd
+
+        cols = ["sample_id", "certificate", "element", "value", "U", "unit", "flags", "valid_for_release"]
+        rows = [{"sample_id": c.sample_id, "certificate": c.number, "element": r.get("element", ""),
+                 "value": r.get("value", ""), "U": r.get("U", ""), "unit": r.get("unit", ""),
+                 "flags": r.get("flags", ""), "valid_for_release": c.valid_for_release}
+                for c in self.certificates for r in c.results]
+        return pd.DataFrame(rows, columns=cols)
+
+    def summary(self) -> str:
+        """A plain-text summary of what was issued: the certificates, their release state and what
+        was not reported."""
+        width = 78
+        lines = ["=" * width, f"Analysis ({self.basis}): {len(self.certificates)} certificate(s) in {self.outdir}",
+                 "=" * width, f"{'valid for release:':<24}{'yes' if self.valid_for_release else 'NO'}"]
+        for c in self.certificates:
+            state = "valid for release" if c.valid_for_release else "NOT valid: " + "; ".join(c.reasons)
+            lines.append(f"{c.sample_id[:15]:<16}{c.number:<28}{state}")
+        lines.append("-" * width)
+        lines += [f"{'sample':<16}{'element':<8}{'value':>12}{'U':>10} {'unit':<7}flags", "-" * width]
+        for r in self.to_frame().itertuples(index=False):
+            lines.append(f"{r.sample_id[:15]:<16}{r.element:<8}{r.value:>12}{r.U:>10} {r.unit:<7}{r.flags}")
+        for d in self.not_reported:
+            lines.append(f"not reported: {d.get('sample_id')} {d.get('element')}: {d.get('reason')}")
+        for sid, why in self.failures.items():
+            lines.append(f"no certificate: {sid}: {why}")
+        lines.append("=" * width)
+        return "\n".join(lines)
+
     @property
     def exit_code(self) -> int:
         """0 when every certificate is valid for release and every unknown sample got one, else
