@@ -414,7 +414,10 @@ def calibrate(
 
     Analytes whose curve cannot be made (too few standards, non-positive slope ...)
     are listed in ``Calibration.rejected`` with the reason; if none can be made a
-    :class:`CalibrationError` is raised.  ``pls``: optional fitted PLS block
+    :class:`CalibrationError` is raised.  An internal-standard line that is a resonance line or
+    self-absorbed over the standards (:func:`compquant.calibrate.istd_check.check_calibration`)
+    gives an :class:`~compquant.calibrate.istd_check.InternalStandardWarning` with alternatives,
+    kept in each curve's ``diagnostics["internal_standard"]``.  ``pls``: optional fitted PLS block
     (``compquant.calibrate.pls``) stored in the calibration.
     """
     smap = standard_map(line_table, samples)
@@ -433,6 +436,13 @@ def calibrate(
             where=str(run_path) if run_path else method_id,
             fix="see the reasons; check standards, lines and models",
         )
+    # internal-standard lines that are resonance lines or self-absorbed: warned, kept with the curves
+    from compquant.calibrate.istd_check import check_calibration
+
+    for istd, rec in check_calibration(curves, line_table, smap, certs, config.matrix_element).items():
+        for c in curves.values():
+            if c.internal_standard == istd:
+                c.diagnostics["internal_standard"] = rec
     refs = {ref for role, ref in smap.values() if ref}
     std_rows = standards[standards["standard_id"].isin(refs)].to_dict(orient="records")
     lines = sorted(

@@ -187,7 +187,7 @@ def _certificate(sid, job, m, sc, qd, parts, out: Drafts):
     out.missing_all += [{"sample_id": sid, "element": el, "reason": why} for el, why in not_reported.items()]
     rows = _complete_rows(rows, missing, dependent, matrix_el, qd.matrix_fraction.get(sid), qd.checks, basis,
                           qd.curves)
-    remarks = [f"{el} not reported: {why}" for el, why in not_reported.items()]
+    remarks = [f"{el} not reported: {why}" for el, why in not_reported.items()] + list(qd.remarks)
     if job.lab is None:
         remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
     labp = job.labp

@@ -40,6 +40,7 @@ class Quantified:
     cal_info: object = None
     cal_json_path: Path | None = None  # calibration.json to write (calibrated from this run)
     cal_text: str | None = None
+    remarks: list = field(default_factory=list)  # run-wide remarks (e.g. internal-standard warnings)
 
 
 def quantify_samples(job, m, sc) -> Quantified:
@@ -103,6 +104,7 @@ def quantify_calibrated(job, m, sc) -> Quantified:
 
     from compquant.calibrate.apply import quantify
     from compquant.calibrate.build import certified_table
+    from compquant.calibrate.istd_check import remarks as istd_remarks
 
     qd = Quantified()
     cal, stds = calibration_for(job, m, qd)
@@ -136,6 +138,7 @@ def quantify_calibrated(job, m, sc) -> Quantified:
     _calibration_parameters(sc.parameters, cal, q)
     qd.matrix_fraction = dict(q.matrix_fraction)
     qd.curves = dict(cal.curves)
+    qd.remarks = istd_remarks(cal.curves)  # resonance / self-absorbed internal standard
     return qd
 
 
