@@ -17,6 +17,13 @@ written atomically; inputs are only read.
 
 The issue time defaults to now (UTC); pass ``issued_at`` to make the outputs
 byte-for-byte repeatable (the certificate numbers depend on the issue date).
+
+:func:`analyse` is a short sequence of named steps, each a function of :mod:`compquant.workflow`
+that a notebook can call on its own (prepare, check_options, measure, screen_samples,
+quantify_samples, assemble_certificates, stage_outputs), followed by storing the analysis in the
+lab's record.  The names this module had before the split (``AnalysisOutput``,
+``verify_output_set``, ``sample_stems``, ``plan_issue`` and a few private helpers) are imported
+here from their new homes.
 """
 
 from __future__ import annotations

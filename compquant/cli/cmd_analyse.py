@@ -270,30 +270,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 @click.option("--quiet", is_flag=True, help="No progress bars.")
 @click.option("--db", metavar="PATH|URL", help="Store the analysis in the lab's record (default: $COMPQUANT_DB).")
 @click.pass_context
-def command(
-    ctx,
-    run_paths,
-    method_path,
-    standards,
-    calibration,
-    cf,
-    lab,
-    spec,
-    outdir,
-    client,
-    received,
-    issued_at,
-    no_figures,
-    chunk_shots,
-    workers,
-    scheduler,
-    scheduler_file,
-    quiet,
-    db,
-    measured,
-    revise,
-    lims_dialect,
-):
+def command(ctx, run_paths, method_path, outdir, no_figures, workers, scheduler, scheduler_file, quiet, **options):
     """Analyse a run and write a certificate of analysis per unknown sample.
 
     Preprocesses every shot, measures the method's lines, calibrates from the
@@ -318,22 +295,7 @@ def command(
     from compquant.parallel import chunk_mapper, open_executor
 
     scheduler = fold_scheduler(scheduler, scheduler_file)
-    options = dict(
-        standards=standards,
-        calibration=calibration,
-        cf=cf,
-        lab=lab,
-        spec=spec,
-        client=client,
-        received=received,
-        issued_at=issued_at,
-        figures=not no_figures,
-        chunk_shots=chunk_shots,
-        db=db,
-        measured=measured,
-        revise=revise,
-        lims_dialect=lims_dialect,
-    )
+    options["figures"] = not no_figures  # the other options are analyse()'s keywords of the same names
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if not _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options):
             ctx.exit(_release_words()[0])
@@ -346,7 +308,7 @@ def command(
     finally:
         prog.close()
     report_outputs(out)
-    _report_record(db)
+    _report_record(options["db"])
     if out.exit_code:
         ctx.exit(out.exit_code)
 

@@ -95,7 +95,6 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
     method = load_method(method_path) if method_path else default_method()
     st = settings_from_method(method).with_overrides(temperature_k=temperature, resolving_power=resolving_power)
     out = Path(output)
-    stem = out.with_suffix("")
     tables, imaps, peak_tables = [], [], []
     unexplained: dict[str, str] = {}
     n_unexplained: dict[str, int] = {}
@@ -123,10 +122,21 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
                 plot_identification(ident, target, medium=medium, title=f"{sid}: identified lines "
                                     f"(T = {ident.temperature_k:.0f} K, R = {ident.resolving_power:.0f})")
     table = pd.concat(tables, ignore_index=True)
+    written = _write_tables(table, out, imaps, imap_path, peak_tables, peaks_path)
+    if not quiet:
+        _echo_results(table, n_unexplained, unexplained, imaps)
+    for w in written:
+        click.echo(f"wrote {w}", err=quiet)
+
+
+def _write_tables(table, out: Path, imaps, imap_path, peak_tables, peaks_path) -> list[Path]:
+    """The identification CSV, the interference map (with --method) and the peak list (--peaks)."""
+    import pandas as pd
+
     write_csv(table, out, float_format="%.6g")
     written = [out]
     if imaps:
-        ip = Path(imap_path) if imap_path else Path(f"{stem}-interference.csv")
+        ip = Path(imap_path) if imap_path else Path(f"{out.with_suffix('')}-interference.csv")
         write_csv(pd.concat(imaps, ignore_index=True), ip, float_format="%.6g")
         written.append(ip)
     if peak_tables:
@@ -134,19 +144,23 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
         write_csv(pt[["sample_id"] + [c for c in pt.columns if c != "sample_id"]], Path(peaks_path),
                   float_format="%.6g")
         written.append(Path(peaks_path))
-    if not quiet:
-        click.echo(render_table(table))
-        for sid, n in n_unexplained.items():
-            if n:
-                click.echo(f"unexplained peaks in {terminal_text(sid)}: {n} (strongest at {unexplained[sid]} nm; "
-                           "lines missing from the line database, or noise)")
-        if imaps:
-            im = pd.concat(imaps, ignore_index=True)
-            ov = im[im["overlapped"] & (im["interferer_line_id"] != "")]
-            for r in ov.itertuples(index=False):
-                size = (f"{r.relative_contribution:.1%} of the analyte signal" if r.analyte_signal > 0
-                        else f"{r.interferer_snr:.0f} sigma, analyte not seen")
-                click.echo(f"overlap: {terminal_text(r.sample_id)}: {r.line_id} <- {r.interferer_line_id} ({size}); "
-                           f"alternatives: {r.alternatives or 'none free'}")
-    for w in written:
-        click.echo(f"wrote {w}", err=quiet)
+    return written
+
+
+def _echo_results(table, n_unexplained: dict, unexplained: dict, imaps) -> None:
+    """The table on screen, the unexplained peaks and the overlaps on the method's lines."""
+    import pandas as pd
+
+    click.echo(render_table(table))
+    for sid, n in n_unexplained.items():
+        if n:
+            click.echo(f"unexplained peaks in {terminal_text(sid)}: {n} (strongest at {unexplained[sid]} nm; "
+                       "lines missing from the line database, or noise)")
+    if imaps:
+        im = pd.concat(imaps, ignore_index=True)
+        ov = im[im["overlapped"] & (im["interferer_line_id"] != "")]
+        for r in ov.itertuples(index=False):
+            size = (f"{r.relative_contribution:.1%} of the analyte signal" if r.analyte_signal > 0
+                    else f"{r.interferer_snr:.0f} sigma, analyte not seen")
+            click.echo(f"overlap: {terminal_text(r.sample_id)}: {r.line_id} <- {r.interferer_line_id} ({size}); "
+                       f"alternatives: {r.alternatives or 'none free'}")
