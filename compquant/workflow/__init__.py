@@ -13,17 +13,16 @@ Each step is a function a notebook can call on its own and hands the next one a 
     drafts = assemble_certificates(job, m, sc, qd)
     out, certs = stage_outputs(job, m, qd, drafts)   # the output set, manifest last
 
-=================  ==========================================  ==================================
-step               function                                    module
-=================  ==========================================  ==================================
-inputs             :func:`prepare`, :func:`check_options`      :mod:`compquant.workflow.prepare`
-load & measure     :func:`measure`, :func:`screen_samples`     :mod:`compquant.workflow.prepare`
-calibrate/quantify :func:`quantify_samples` (``quantify_calibrated`` | ``quantify_cf``)  :mod:`.quantify`
-certificates       :func:`assemble_certificates`               :mod:`compquant.workflow.certify`
-issue plan         :func:`sample_stems`, :func:`plan_issue`    :mod:`compquant.workflow.issue`
-outputs            :func:`stage_outputs`, :func:`verify_output_set`  :mod:`compquant.workflow.outputs`
-record             ``recorder.store(...)`` in :func:`compquant.analyse.analyse`  :mod:`compquant.record.store`
-=================  ==========================================  ==================================
+The steps and their modules:
+
+- inputs: :func:`prepare`, :func:`check_options` (:mod:`compquant.workflow.prepare`);
+- load and measure: :func:`measure`, :func:`screen_samples` (:mod:`compquant.workflow.prepare`);
+- calibrate and quantify, or calibration-free: :func:`quantify_samples` (``quantify_calibrated``
+  or ``quantify_cf``; :mod:`compquant.workflow.quantify`);
+- certificates: :func:`assemble_certificates` (:mod:`compquant.workflow.certify`);
+- issue plan: :func:`sample_stems`, :func:`plan_issue` (:mod:`compquant.workflow.issue`);
+- outputs: :func:`stage_outputs`, :func:`verify_output_set` (:mod:`compquant.workflow.outputs`);
+- record: ``recorder.store(...)`` in :func:`compquant.analyse.analyse` (:mod:`compquant.record.store`).
 """
 
 from compquant.workflow.certify import Drafts, assemble_certificates
