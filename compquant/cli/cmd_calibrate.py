@@ -61,16 +61,10 @@ def curve_table(cal) -> str:
 @click.command("calibrate", epilog=SAFETY)
 @run_argument
 @method_option("Method file (TOML) with [calibration] and [[calibration.analytes]].")
-@file_option(
-    "--standards", "standards_path",
-    help="Certified standards (CSV or TOML, see docs/calibration.md).",
-    required=True,
-)
+@file_option("--standards", "standards_path", required=True,
+             help="Certified standards (CSV or TOML, see docs/calibration.md).")
 @output_option("Calibration JSON to write.")
-@folder_option(
-    "--plots", "plots_dir",
-    help="Folder for one PNG per curve (standards, fit, prediction band, samples).",
-)
+@folder_option("--plots", "plots_dir", help="Folder for one PNG per curve (standards, fit, prediction band, samples).")
 @click.option("--quiet", is_flag=True, help="Do not print the table of curves.")
 def command(run_path, method_path, standards_path, output, plots_dir, quiet):
     """Fit a calibration curve per analyte from the certified standards measured in RUN:
