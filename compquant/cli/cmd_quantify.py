@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, is_stdio, write_csv
+from compquant.cli._common import SAFETY, file_option, is_stdio, method_option, output_option, run_argument, write_csv
 from compquant.cli._stdin import table_input
 from compquant.fileio import terminal_text
 
@@ -79,21 +79,9 @@ def results_text(q) -> str:
 
 
 @click.command("quantify", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option(
-    "--calibration",
-    "cal_path",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Calibration JSON written by 'compquant calibrate'.",
-)
-@click.option(
-    "--method",
-    "method_path",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Method file [default: the one recorded in the calibration; must be identical].",
-)
+@run_argument
+@file_option("--calibration", "cal_path", help="Calibration JSON written by 'compquant calibrate'.", required=True)
+@method_option("Method file [default: the one recorded in the calibration; must be identical].", required=False)
 @table_input(
     "--standards",
     "standards_path",
@@ -101,12 +89,8 @@ def results_text(q) -> str:
     what="standards file",
     help="Certified standards for the check samples [default: those stored in the calibration].",
 )
-@click.option(
-    "-o",
-    "--output",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Results CSV (one row per sample and element, mass fractions in g/g); '-': the results "
+@output_option(
+    "Results CSV (one row per sample and element, mass fractions in g/g); '-': the results "
     "on standard output and no other file.",
 )
 @click.option("--quiet", is_flag=True, help="Do not print the results.")
