@@ -25,7 +25,8 @@ def _write(path, dtype, compression, n=4000):
 
 
 @pytest.mark.parametrize(
-    ("dtype", "compression"), [("uint16", "gzip"), ("float32", "gzip"), ("int32", None), ("float64", "gzip")]
+    ("dtype", "compression"),
+    [("uint16", "gzip"), ("float32", "gzip"), ("int32", None), ("uint16", None), ("float64", "gzip")],
 )
 def test_direct_read_equals_h5py(tmp_path, dtype, compression):
     p = _write(tmp_path / "r.h5", dtype, compression)

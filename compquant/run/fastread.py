@@ -138,6 +138,9 @@ def iter_raw(run, bounds: list[tuple[int, int]], threads: int | None = None, ahe
     ds, cr, shuffle, deflate = lay
     for a, b in bounds:
         run._check_alloc((b - a, ds.shape[1]), ds.dtype.itemsize, "reading these spectra")
+    if not (deflate or shuffle):
+        yield from _iter_unfiltered(run, ds, bounds, ahead)
+        return
     with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="compquant-inflate") as pool:
         queue: deque = deque()
         nxt = 0
@@ -148,6 +151,34 @@ def iter_raw(run, bounds: list[tuple[int, int]], threads: int | None = None, ahe
             raw = _assemble(run, ds, a, b, queue.popleft())
             # the run's masked pixels come back as NaN, exactly as from ``run.read_raw``
             yield a, b, run.screen(np.arange(a, b), raw) if hasattr(run, "screen") else raw
+
+
+def _read_into(run, ds, a: int, b: int) -> np.ndarray:
+    """Rows ``a:b`` of an unfiltered dataset read by HDF5 straight into a new array (one copy,
+    no intermediate buffer), then screened as ``run.read_raw`` does."""
+    out = np.empty((b - a, ds.shape[1]), dtype=ds.dtype)
+    try:
+        if b > a:
+            ds.read_direct(out, np.s_[a:b], np.s_[0 : b - a])
+    except (OSError, ValueError, TypeError) as exc:
+        raise RunFormatError(f"spectra cannot be read ({exc})", where=str(getattr(run, "path", "")),
+                             fix="the file is truncated or corrupt; copy the run again") from exc
+    return run.screen(np.arange(a, b), out) if hasattr(run, "screen") else out
+
+
+def _iter_unfiltered(run, ds, bounds, ahead: int):
+    """Uncompressed runs: one helper thread reads the next ``ahead`` ranges with
+    ``Dataset.read_direct`` into fresh arrays while the caller works on the current one
+    (reading is a copy from the file cache: more threads would not help).  About half the CPU
+    time per shot of the chunk-by-chunk direct path (docs/performance.md)."""
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="compquant-read") as ex:
+        queue: deque = deque()
+        nxt = 0
+        for a, b in bounds:
+            while nxt < len(bounds) and len(queue) <= ahead:
+                queue.append(ex.submit(_read_into, run, ds, *bounds[nxt]))
+                nxt += 1
+            yield a, b, queue.popleft().result()
 
 
 def _iter_plain(run, bounds, prefetch: bool):
