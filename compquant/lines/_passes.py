@@ -221,7 +221,7 @@ class WindowPass:
     sample means (exact sums over all shots / counts) and the window weights used."""
 
     total: np.ndarray  # (n_shots,) total emission
-    background: np.ndarray  # (n_shots,) mean removed baseline
+    background: np.ndarray | None  # (n_shots,) mean removed baseline (background normalisation only)
     means: dict[int, np.ndarray]
     ww_shared: WindowWeights | None
     ww_by_sample: dict[int, WindowWeights]
@@ -247,7 +247,7 @@ def window_pass(run, setup: _Setup, chunk: int, per_shot, sat, progress=None, ch
     win_cols = _column_index(setup.win_idx)
     n_shots = run.n_shots
     total = np.empty(n_shots)
-    bg = np.empty(n_shots)
+    bg = np.empty(n_shots) if setup.method.preprocess.normalise == "background" else None
     sums: dict[int, np.ndarray] = {}
     counts: dict[int, int] = {}
     for start, stop, res in _chunk_results(run, setup, chunk, plan, chunk_mapper):
@@ -259,7 +259,8 @@ def window_pass(run, setup: _Setup, chunk: int, per_shot, sat, progress=None, ch
             setup.masked_line.write(start, stop, win_cols, res.masked_window)
         setup.masked_ranges += [(start + r, a, b) for r, a, b in res.masked]
         total[start:stop] = res.total
-        bg[start:stop] = res.background
+        if bg is not None:
+            bg[start:stop] = res.background
         _merge_sums(sums, counts, res)
         if progress:
             progress(stop - start)

@@ -219,7 +219,7 @@ class _Setup:
                 where=f"{method.where}: [preprocess.normalise] how",
                 fix="set [preprocess.baseline] method, or choose another normalisation",
             )
-        self.sample_index = run.shots["sample_index"].to_numpy().astype(np.int64)
+        self.sample_index = np.asarray(run.shots["sample_index"].to_numpy(), dtype=np.int64)  # no copy
         self.shot_number = run.shots["shot"].to_numpy() if "shot" in run.shots.columns else np.arange(run.n_shots)
         self.samples = run.samples.reset_index(drop=True)
         self.sample_ids = [str(s) for s in self.samples["sample_id"]]

@@ -201,24 +201,24 @@ def measure_lines(
     ).table
 
 
-def _shot_factors(setup: _Setup, per_shot, total, bg) -> tuple[np.ndarray, np.ndarray]:
+def _shot_factors(setup: _Setup, per_shot, total, bg) -> tuple[np.ndarray | None, np.ndarray | None]:
     """Per-shot normalisation factor (``[preprocess] normalise``, times the pulse-energy factor when
-    asked) and the pulse-energy factor alone (ones when off), from the raw intensities."""
+    asked) and the pulse-energy factor alone, from the raw intensities; None stands for a factor
+    of 1 for every shot (no per-shot vector is kept: dividing by 1 changes no number)."""
     pre = setup.method.preprocess
-    n_shots = per_shot.shape[0]
-    factor = np.ones(n_shots)
+    factor = None
     if pre.normalise == "total_area":
         factor = total.copy()
     elif pre.normalise == "background":
         factor = bg.copy()
     elif pre.normalise == "internal_standard":
         factor = per_shot.column(_line_index(setup, pre.normalise_line))
-    pulse_f = np.ones(n_shots)
+    pulse_f = None
     if pre.pulse_energy_normalise:
         e = setup.pulse
         ref = float(np.nanmedian(e)) if np.isfinite(e).any() else np.nan
-        pulse_f = e / ref if np.isfinite(ref) and ref > 0 else np.ones(n_shots)
-        factor = factor * pulse_f
+        pulse_f = e / ref if np.isfinite(ref) and ref > 0 else np.ones(per_shot.shape[0])
+        factor = pulse_f.copy() if factor is None else factor * pulse_f
     return factor, pulse_f
 
 
@@ -228,13 +228,19 @@ def _line_index(setup: _Setup, line_id: str) -> int:
 
 def _qc_quantity(setup: _Setup, per_shot, total, pulse_f, good_f) -> np.ndarray:
     """The shot-QC quantity per shot (``[preprocess.qc] quantity``: the total or one line's raw
-    intensity, over the pulse-energy factor); NaN where the normalisation factor is unusable."""
+    intensity, over the pulse-energy factor; ``pulse_f`` None: 1); NaN where the normalisation
+    factor is unusable (``good_f`` None: every factor is usable)."""
     pre = setup.method.preprocess
     with np.errstate(divide="ignore", invalid="ignore"):
-        qc_x = total / np.where(np.isfinite(pulse_f) & (pulse_f > 0), pulse_f, np.nan)
         if pre.qc_quantity != "total":
-            qc_x = per_shot.column(_line_index(setup, pre.qc_quantity)) / pulse_f
-    return np.where(good_f, qc_x, np.nan)
+            qc_x = per_shot.column(_line_index(setup, pre.qc_quantity))
+            if pulse_f is not None:
+                qc_x /= pulse_f
+        elif pulse_f is not None:
+            qc_x = total / np.where(np.isfinite(pulse_f) & (pulse_f > 0), pulse_f, np.nan)
+        else:
+            qc_x = total  # read only from here on
+    return qc_x if good_f is None else np.where(good_f, qc_x, np.nan)
 
 
 def _normalise_in_place(per_shot: ShotArray, factor: np.ndarray) -> np.ndarray:
@@ -302,9 +308,10 @@ def _aggregate(setup: _Setup, run, per_shot: ShotArray, sat: ShotArray, p1: Wind
     ``shot_intensity``), run shot QC and build the line table of every sample."""
     total, means = p1.total, p1.means
     factor, pulse_f = _shot_factors(setup, per_shot, total, p1.background)
-    good_f = np.isfinite(factor) & (factor > 0)
+    good_f = None if factor is None else np.isfinite(factor) & (factor > 0)
     qc_x = _qc_quantity(setup, per_shot, total, pulse_f, good_f)  # from the raw intensities
-    _normalise_in_place(per_shot, factor)
+    if factor is not None:
+        _normalise_in_place(per_shot, factor)
     accepted, reasons, qc_rows, rows, shift_rows, ref_rows = _per_sample(
         setup, run, per_shot, sat, qc_x, factor, means, fits, p1.ww_shared, p1.ww_by_sample)
     return LineMeasurement(
