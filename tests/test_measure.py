@@ -328,3 +328,11 @@ def test_spilled_measurement_is_identical(run_path, tmp_path, monkeypatch):
     assert np.array_equal(mem.shot_saturated, disk.shot_saturated)
     assert np.array_equal(mem.shot_accepted, disk.shot_accepted) and (~mem.shot_accepted).any()
     assert mem.table.equals(disk.table) and mem.qc.equals(disk.qc) and mem.shots.equals(disk.shots)
+
+
+def test_spill_into_a_missing_folder_is_a_resource_error(run_path, tmp_path):
+    # a spill folder that does not exist: a CompquantError naming it, not an OSError traceback
+    from compquant.errors import ResourceLimitError
+
+    with Run.open(run_path) as run, pytest.raises(ResourceLimitError, match="spill file"):
+        measure_run(run, method(), spill=True, spill_dir=tmp_path / "missing")

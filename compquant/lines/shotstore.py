@@ -60,7 +60,10 @@ class ShotArray:
             return
         self._a = None
         folder = spill_dir or os.environ.get("COMPQUANT_SPILL_DIR") or tempfile.gettempdir()
-        fd, path = tempfile.mkstemp(prefix="compquant-shots-", suffix=".npy", dir=folder)
+        try:
+            fd, path = tempfile.mkstemp(prefix="compquant-shots-", suffix=".npy", dir=folder)
+        except OSError as exc:
+            raise _spill_error(exc, folder) from exc
         self.path = path
         self._f = os.fdopen(fd, "w+b", buffering=0)  # unbuffered: the file always holds what was written
         self._finalizer = weakref.finalize(self, _remove, self._f, path)
@@ -68,7 +71,11 @@ class ShotArray:
         np.lib.format.write_array_header_1_0(self._f, header)
         self._offset = self._f.tell()
         self._row_bytes = self.shape[1] * self.dtype.itemsize
-        self._f.truncate(self._offset + self.shape[0] * self._row_bytes)
+        try:
+            self._f.truncate(self._offset + self.shape[0] * self._row_bytes)
+        except OSError as exc:
+            self._finalizer()
+            raise _spill_error(exc, folder) from exc
         self.block_rows = max(1, BLOCK_BYTES // max(1, self._row_bytes))
         filler = np.full((min(self.block_rows, self.shape[0]), self.shape[1]), fill, dtype=self.dtype)
         if filler.size and np.any(filler != 0):  # the file starts as zeros (NaN != 0 too)
@@ -94,8 +101,11 @@ class ShotArray:
     def _write(self, start: int, block: np.ndarray) -> None:
         view = memoryview(np.ascontiguousarray(block, dtype=self.dtype).reshape(-1).view(np.uint8))
         pos, off = 0, self._offset + start * self._row_bytes
-        while pos < view.nbytes:
-            pos += os.pwrite(self._f.fileno(), view[pos:], off + pos)
+        try:
+            while pos < view.nbytes:
+                pos += os.pwrite(self._f.fileno(), view[pos:], off + pos)
+        except OSError as exc:  # e.g. the disk is full
+            raise _spill_error(exc, os.path.dirname(self.path)) from exc
 
     # ----------------------------------------------------------------- the steps of measure_run
     def write(self, start: int, stop: int, cols, values: np.ndarray, nan_where: np.ndarray | None = None) -> None:
@@ -170,6 +180,14 @@ class ShotArray:
         """Remove the spill file (a no-op in memory or after :meth:`result`)."""
         if self.spilled and self._finalizer.alive:
             self._finalizer()
+
+
+def _spill_error(exc: OSError, folder):
+    from compquant.errors import ResourceLimitError
+
+    return ResourceLimitError(f"cannot write the per-shot spill file ({exc.strerror or exc})", where=str(folder),
+                              fix="set COMPQUANT_SPILL_DIR to a writable folder with free space "
+                                  "(about 10 bytes per shot x line)")
 
 
 def _remove(f, path) -> None:

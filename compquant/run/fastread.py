@@ -10,6 +10,11 @@ library's ``zlib``) releases the GIL while it works, and
 the byte un-shuffle of the HDF5 shuffle filter is one NumPy transpose-copy, so several
 chunks decompress at once, on every core, while the caller processes the previous range.
 
+Uncompressed runs need no decoding: one helper thread reads each range with
+``Dataset.read_direct`` straight into its array (one copy from the file cache).
+:func:`read_range` does the same work for one range in the calling thread, for Dask workers
+(each core already has one).
+
 Only the layout the run writer makes is read this way: chunks spanning whole spectra
 (``chunks = (rows, n_pixels)``), filters deflate and/or shuffle.  Anything else (another
 filter, a chunk stored with a filter skipped, an unallocated chunk) is read through h5py,
