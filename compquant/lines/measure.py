@@ -173,6 +173,7 @@ def measure_run(
     setup = _Setup(run, method)
     setup.threads = max(1, int(threads))
     chunk = _chunk_size(run, chunk_shots, method)
+    hashing = _hash_in_background(run)  # the provenance's SHA-256, while the passes run
     if method.preprocess.shift != "none":  # pass 0: per-sample wavelength corrections
         setup.corr.update(_find_shifts(run, setup, chunk, progress, chunk_mapper))
     # the per-shot x per-line arrays, in memory or spilled to a file (compquant.lines.shotstore):
@@ -186,10 +187,31 @@ def measure_run(
         p1 = window_pass(run, setup, chunk, per_shot, sat, progress, chunk_mapper)
         fits = fit_pass(run, setup, chunk, p1.means, per_shot, sat, progress, chunk_mapper)
         setup.notes += _masked_notes(setup)
+        if hashing is not None:
+            hashing.join()
         return _aggregate(setup, run, per_shot, sat, p1, fits, chunk)
     finally:
         for a in (per_shot, sat, setup.masked_line):
             a.close()
+
+
+def _hash_in_background(run):
+    """Start ``run.sha256()`` (cached by the run) in a thread: hashing releases the GIL, so the
+    file's SHA-256 for the provenance costs no time on the critical path (about 2.4 ms per MB,
+    0.8 s of client CPU for a 340 MB run on Dask workers).  None when the run has no ``sha256``."""
+    if not callable(getattr(run, "sha256", None)) or hasattr(run, "_sha"):
+        return None
+    import threading
+
+    def work():
+        try:
+            run.sha256()
+        except Exception:  # the provenance step calls it again and reports the error there
+            pass
+
+    t = threading.Thread(target=work, name="compquant-sha256", daemon=True)
+    t.start()
+    return t
 
 
 def measure_lines(

@@ -158,7 +158,13 @@ class ShotArray:
             end = int(np.searchsorted(rows, b, side="left"))
             sel = rows[pos:end]
             lo, hi = int(sel[0]), int(sel[-1]) + 1
-            out[pos:end] = self._read(lo, hi)[sel - lo][:, cols]
+            block = self._read(lo, hi)
+            if sel.size == hi - lo:  # consecutive rows: no row gather
+                out[pos:end] = block[:, cols]
+            elif isinstance(cols, slice):
+                out[pos:end] = block[sel - lo, cols]
+            else:
+                out[pos:end] = block[np.ix_(sel - lo, cols)]
             pos = end
         return out
 
