@@ -101,7 +101,7 @@ class AnalysisEvidence:
 
 
 def _line_groups(method, wl) -> list[list[int]]:
-    from compquant.lines.measure import _fit_groups  # the grouping the measurement used (same function)
+    from compquant.lines._setup import _fit_groups  # the grouping the measurement used (same function)
 
     return _fit_groups(list(method.lines), np.asarray(wl, float))
 
