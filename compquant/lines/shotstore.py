@@ -173,7 +173,8 @@ class ShotArray:
         (the file is unlinked at once where the system allows it, else when the map is freed)."""
         if not self.spilled:
             return self._a
-        m = np.load(self.path, mmap_mode="r")
+        # mapped at the header offset this object wrote (np.memmap, never a loader that could unpickle)
+        m = np.memmap(self.path, dtype=self.dtype, mode="r", offset=self._offset, shape=self.shape)
         self._finalizer.detach()
         self._f.close()
         try:
