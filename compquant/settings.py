@@ -184,9 +184,10 @@ class Setting:
         if self.type == "list":
             if not isinstance(v, list) or (self.length is not None and len(v) != self.length) or (
                     self.nonempty and not v):
-                size = f"{self.length} " if self.length else ("a non-empty " if self.nonempty else "")
-                raise error(f"expected a list of {size}{_TYPE_WORDS[self.item or 'any']} values, got {_short(v)}",
-                            where=where, fix=self.fix or f"write {self.key} = [...]")
+                size = f"{self.length} " if self.length else ("non-empty " if self.nonempty else "")
+                of = f" of {_TYPE_WORDS[self.item]} values" if self.item and self.item != "any" else ""
+                raise error(f"expected a {size}list{of}, got {_short(v)}", where=where,
+                            fix=self.fix or f"write {self.key} = [...]")
             v = [self._scalar(self.item or "any", x, where, error, in_list=True) for x in v]
         elif self.type == "table":
             if not isinstance(v, dict):
