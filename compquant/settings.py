@@ -37,7 +37,7 @@ from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from typing import Any
 
-from compquant.errors import CompquantError, MethodError
+from compquant.errors import MethodError
 
 #: marks a setting without a default: the key is required
 REQUIRED = object()
@@ -184,10 +184,11 @@ class Setting:
         if self.type == "list":
             if not isinstance(v, list) or (self.length is not None and len(v) != self.length) or (
                     self.nonempty and not v):
-                size = f"{self.length} " if self.length else ("non-empty " if self.nonempty else "")
-                of = f" of {_TYPE_WORDS[self.item]} values" if self.item and self.item != "any" else ""
-                raise error(f"expected a {size}list{of}, got {_short(v)}", where=where,
-                            fix=self.fix or f"write {self.key} = [...]")
+                size = f" {self.length}" if self.length else ""
+                word = f" {_TYPE_WORDS[self.item]}" if self.item and self.item != "any" else ""
+                of = f" of{size}{word} values" if size or word else ""
+                raise error(f"expected a {'non-empty ' if self.nonempty else ''}list{of}, got {_short(v)}",
+                            where=where, fix=self.fix or f"write {self.key} = [...]")
             v = [self._scalar(self.item or "any", x, where, error, in_list=True) for x in v]
         elif self.type == "table":
             if not isinstance(v, dict):
@@ -208,6 +209,11 @@ def _fmt(x: float) -> str:
     if isinstance(x, float) and x.is_integer() and abs(x) < 1e6:
         return str(int(x))
     return f"{x:g}"
+
+
+def toml_text(v) -> str:
+    """A value as written in TOML (for references and hints)."""
+    return _toml(v)
 
 
 def _toml(v) -> str:
@@ -339,5 +345,5 @@ def reference_markdown(tables: Iterable[Table], title: str, intro: str = "") -> 
     return "\n".join(parts).rstrip("\n") + "\n"
 
 
-__all__ = ["REQUIRED", "TYPES", "CompquantError", "Setting", "Table", "parse_table", "reference_markdown",
-           "table_markdown"]
+__all__ = ["REQUIRED", "TYPES", "Setting", "Table", "parse_table", "reference_markdown",
+           "table_markdown", "toml_text"]

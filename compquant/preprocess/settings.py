@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from compquant.preprocess.baseline import BASELINES
 from compquant.preprocess.corrections import NORMALISATIONS
-from compquant.settings import Setting, Table
+from compquant.settings import Setting, Table, toml_text
 
 OWNER = "compquant.preprocess"
 SHIFT_METHODS = ("none", "lines", "xcorr")
@@ -60,7 +60,7 @@ for _entry in BASELINES.values():
 
 def _union_doc(key: str) -> str:
     users = [e for e in BASELINES.values() if key in e.keys]
-    defaults = ", ".join(f"{e.name}: {e.params[e.keys.index(key)].default}" for e in users)
+    defaults = ", ".join(f"{e.name}: {toml_text(e.params[e.keys.index(key)].default)}" for e in users)
     return f"{_BASELINE_PARAMS[key].doc} (default {defaults})"
 
 
