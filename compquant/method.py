@@ -30,7 +30,7 @@ from compquant.preprocess.settings import NORMALISE as NORMALISE_TABLE
 from compquant.preprocess.settings import SHIFT as SHIFT_TABLE
 from compquant.preprocess.settings import TABLES as PREPROCESS_SCHEMAS
 from compquant.preprocess.settings import baseline_params
-from compquant.settings import REQUIRED, Setting, Table
+from compquant.settings import REQUIRED, Setting, Table, settings_dataclass
 
 TOP_LEVEL = frozenset(
     {"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map", "control_chart"}
@@ -163,21 +163,9 @@ class PreprocessConfig:
     shift_tolerance_nm: float | None = None
 
 
-@dataclass
-class MeasureConfig:
-    """Line-measurement defaults; each ``[[lines]]`` entry may override them."""
-
-    mode: str = "window"
-    window_nm: float | None = None
-    side_nm: float | None = None
-    gap_nm: float = 0.0
-    profile: str = "voigt"
-    shared_width: bool = True
-    fwhm_nm: float | None = None
-    max_offset_nm: float | None = None
-    snr_detect: float = 3.0
-    snr_min: float = 10.0
-    chunk_shots: int = 4096
+#: line-measurement defaults; each ``[[lines]]`` entry may override them (fields: :data:`MEASURE_TABLE`)
+MeasureConfig = settings_dataclass(MEASURE_TABLE, "MeasureConfig", module=__name__,
+                                   doc="Line-measurement defaults; each ``[[lines]]`` entry may override them.")
 
 
 @dataclass

@@ -299,6 +299,38 @@ class Table:
         return out
 
 
+def _annotation(s: Setting) -> str:
+    base = {"bool": "bool", "int": "int", "float": "float", "str": "str", "list": "list", "table": "dict",
+            "any": "object"}[s.type]
+    if isinstance(s.default, tuple):
+        base = "tuple"
+    return f"{base} | None" if s.default is None else base
+
+
+def settings_dataclass(table: Table, name: str, *, module: str, bases: tuple = (), frozen: bool = False,
+                       doc: str = ""):
+    """A dataclass with one field per setting of ``table`` (same order, types and defaults), so a
+    settings object is declared once, by its table.  Methods come from ``bases`` (a mix-in class;
+    its ``__post_init__``, if any, runs after ``__init__``).  Mutable defaults are copied per
+    instance."""
+    import dataclasses
+
+    specs = []
+    for s in table.settings:
+        if s.required:
+            specs.append((s.key, _annotation(s)))
+        elif isinstance(s.default, (list, dict)):
+            specs.append((s.key, _annotation(s), dataclasses.field(default_factory=lambda d=s.default: _copy(d))))
+        else:
+            specs.append((s.key, _annotation(s), dataclasses.field(default=s.default)))
+    cls = dataclasses.make_dataclass(name, specs, bases=bases, frozen=frozen, namespace={"__module__": module})
+    cls.__qualname__ = name
+    cls.__doc__ = (doc or f"Settings of [{table.name}].") + "\n\nFields: the settings of " + (
+        f"``[{table.name}]`` (generated from its :class:`compquant.settings.Table`)")
+    cls.TABLE = table
+    return cls
+
+
 def _copy(v):
     if isinstance(v, list):
         return [_copy(x) for x in v]
@@ -346,4 +378,4 @@ def reference_markdown(tables: Iterable[Table], title: str, intro: str = "") -> 
 
 
 __all__ = ["REQUIRED", "TYPES", "Setting", "Table", "parse_table", "reference_markdown",
-           "table_markdown", "toml_text"]
+           "settings_dataclass", "table_markdown", "toml_text"]

@@ -9,68 +9,16 @@ naming the file and key.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 
 from compquant.errors import MethodError
-from compquant.settings import Setting, Table
+from compquant.settings import Setting, Table, settings_dataclass
 
 
-@dataclass(frozen=True)
-class IdentifySettings:
-    """Parameters of peak detection, line matching, scoring and the interference map.
+class _IdentifyMethods:
+    """Methods of :class:`IdentifySettings` (its fields are generated from :data:`IDENTIFY_TABLE`)."""
 
-    Attributes
-    ----------
-    k_sigma : peak threshold in noise σ (height and prominence)
-    noise_window : pixels of the running noise window (0 = one global σ)
-    min_width_frac : minimum peak FWHM as a fraction of the instrument FWHM λ/R
-    resolving_power : R = λ/Δλ; None = from the run's instrument table, else estimated from the peaks
-    wavelength_uncertainty_nm : standard uncertainty of the wavelength calibration, nm
-    tolerance_fwhm : half-width of the matching window in instrument FWHM (before the calibration term)
-    tolerance_k : coverage factor applied to the wavelength-calibration uncertainty
-    temperature_k : excitation temperature for the LTE estimate, K; None = fitted
-    temperature_grid_k : (low, high, step) of the temperature search, K
-    default_temperature_k : used when the fit has too few lines
-    expect_margin : a line is a *strong expected* line when its predicted SNR ≥ expect_margin · k_sigma
-    intensity_factor : an observed line weaker than predicted by more than this factor counts as missing;
-        also the scale of the intensity-agreement term of the score
-    max_lines_per_species : strongest predicted lines of each species considered
-    min_lines_detected : share-weighted found lines needed for *detected*
-    detected_score, possible_score : score thresholds of the two classes
-    elements : restrict the candidates to these element symbols (empty = all in the line list)
-    exclude_elements : never report these (e.g. the ambient gas when it is not wanted)
-    interference_fraction : an interfering line predicted to add at least this fraction of the
-        analyte line's signal flags the analyte line
-    interference_snr : with no analyte signal to compare, an interfering line predicted at or
-        above this SNR at the analyte position flags the line
-    n_alternatives : alternative analyte lines suggested per flagged line
-    iterations : passes of evidence sharing between species that match the same peaks
-    """
-
-    k_sigma: float = 5.0
-    noise_window: int = 201
-    min_width_frac: float = 0.5
-    resolving_power: float | None = None
-    wavelength_uncertainty_nm: float = 0.005
-    tolerance_fwhm: float = 0.5
-    tolerance_k: float = 2.0
-    temperature_k: float | None = None
-    temperature_grid_k: tuple[float, float, float] = (5000.0, 20000.0, 500.0)
-    default_temperature_k: float = 10000.0
-    expect_margin: float = 2.0
-    intensity_factor: float = 3.0
-    max_lines_per_species: int = 40
-    min_lines_detected: float = 2.0
-    detected_score: float = 0.5
-    possible_score: float = 0.25
-    elements: tuple[str, ...] = field(default_factory=tuple)
-    exclude_elements: tuple[str, ...] = field(default_factory=tuple)
-    interference_fraction: float = 0.05
-    interference_snr: float = 3.0
-    n_alternatives: int = 3
-    iterations: int = 6
-
-    def with_overrides(self, **kw) -> IdentifySettings:
+    def with_overrides(self, **kw):
         """A copy with some fields replaced (``None`` values are ignored)."""
         return replace(self, **{k: v for k, v in kw.items() if v is not None})
 
@@ -102,50 +50,54 @@ def _noise_window(val, where, error):
     return val
 
 
-_D = IdentifySettings()  # the defaults are the dataclass's (declared once, above)
+_DOC = "Parameters of peak detection, line matching, scoring and the interference map."
 _POS = {"min": 0, "min_open": True}
 _AUTO = {"auto": None, "fit": None}
 
 
-def _s(key, type_, doc, unit="", **kw):
-    default = getattr(_D, key)
-    return Setting(key, type_, list(default) if isinstance(default, tuple) else default, doc, unit, **kw)
+def _s(key, type_, default, doc, unit="", **kw):
+    return Setting(key, type_, default, doc, unit, **kw)
 
 
 #: the ``[identify]`` table (docs/identification.md)
 IDENTIFY_TABLE = Table("identify", (
-    _s("k_sigma", "float", "peak threshold in noise σ (height and prominence)", **_POS),
-    _s("noise_window", "int", "pixels of the running noise window (0 = one global σ, else >= 15)", "pixels", min=0,
+    _s("k_sigma", "float", 5.0, "peak threshold in noise σ (height and prominence)", **_POS),
+    _s("noise_window", "int", 201, "pixels of the running noise window (0 = one global σ, else >= 15)", "pixels", min=0,
        check=_noise_window),
-    _s("min_width_frac", "float", "minimum peak FWHM as a fraction of the instrument FWHM λ/R", min=0),
-    _s("resolving_power", "float", 'R = λ/Δλ; "auto": from the run, else estimated from the peaks', aliases=_AUTO,
+    _s("min_width_frac", "float", 0.5, "minimum peak FWHM as a fraction of the instrument FWHM λ/R", min=0),
+    _s("resolving_power", "float", None, 'R = λ/Δλ; "auto": from the run, else estimated from the peaks', aliases=_AUTO,
        fix='give λ/Δλ, e.g. 5000, or "auto"', **_POS),
-    _s("wavelength_uncertainty_nm", "float", "standard uncertainty of the wavelength calibration", "nm", min=0),
-    _s("tolerance_fwhm", "float", "half-width of the matching window in instrument FWHM", **_POS),
-    _s("tolerance_k", "float", "coverage factor applied to the wavelength-calibration uncertainty", **_POS),
-    _s("temperature_k", "float", 'excitation temperature for the LTE estimate; "fit": fitted', "K", min=1000,
+    _s("wavelength_uncertainty_nm", "float", 0.005, "standard uncertainty of the wavelength calibration", "nm", min=0),
+    _s("tolerance_fwhm", "float", 0.5, "half-width of the matching window in instrument FWHM", **_POS),
+    _s("tolerance_k", "float", 2.0, "coverage factor applied to the wavelength-calibration uncertainty", **_POS),
+    _s("temperature_k", "float", None, 'excitation temperature for the LTE estimate; "fit": fitted', "K", min=1000,
        max=100000, aliases=_AUTO, fix='give a plasma temperature or "fit"'),
-    _s("temperature_grid_k", "list", "(low, high, step) of the temperature search", "K", item="float", length=3,
+    _s("temperature_grid_k", "list", (5000.0, 20000.0, 500.0), "(low, high, step) of the temperature search", "K",
+       item="float", length=3,
        check=_grid, fix="e.g. [5000, 20000, 500]"),
-    _s("default_temperature_k", "float", "used when the fit has too few lines", "K", **_POS),
-    _s("expect_margin", "float", "a strong expected line has predicted SNR >= expect_margin · k_sigma", **_POS),
-    _s("intensity_factor", "float", "an observed line weaker than predicted by more than this factor is missing",
+    _s("default_temperature_k", "float", 10000.0, "used when the fit has too few lines", "K", **_POS),
+    _s("expect_margin", "float", 2.0, "a strong expected line has predicted SNR >= expect_margin · k_sigma", **_POS),
+    _s("intensity_factor", "float", 3.0, "an observed line weaker than predicted by more than this factor is missing",
        min=1, min_open=True, fix="use e.g. 3"),
-    _s("max_lines_per_species", "int", "strongest predicted lines of each species considered", min=1),
-    _s("min_lines_detected", "float", "share-weighted found lines needed for detected", min=0),
-    _s("detected_score", "float", "score threshold of detected", min=0, max=1, min_open=True),
-    _s("possible_score", "float", "score threshold of possible", min=0, max=1, min_open=True),
-    _s("elements", "list", "restrict the candidates to these elements (empty = all in the line list)", item="str",
+    _s("max_lines_per_species", "int", 40, "strongest predicted lines of each species considered", min=1),
+    _s("min_lines_detected", "float", 2.0, "share-weighted found lines needed for detected", min=0),
+    _s("detected_score", "float", 0.5, "score threshold of detected", min=0, max=1, min_open=True),
+    _s("possible_score", "float", 0.25, "score threshold of possible", min=0, max=1, min_open=True),
+    _s("elements", "list", (), "restrict the candidates to these elements (empty = all in the line list)", item="str",
        check=_symbols, fix='e.g. ["Fe", "Cu"]'),
-    _s("exclude_elements", "list", "never report these", item="str", check=_symbols, fix='e.g. ["Fe", "Cu"]'),
-    _s("interference_fraction", "float", "an interfering line adding at least this fraction of the analyte "
+    _s("exclude_elements", "list", (), "never report these", item="str", check=_symbols, fix='e.g. ["Fe", "Cu"]'),
+    _s("interference_fraction", "float", 0.05, "an interfering line adding at least this fraction of the analyte "
        "line's signal flags it", min=0),
-    _s("interference_snr", "float", "with no analyte signal, an interfering line at or above this SNR flags the "
+    _s("interference_snr", "float", 3.0, "with no analyte signal, an interfering line at or above this SNR flags the "
        "line", min=0),
-    _s("n_alternatives", "int", "alternative analyte lines suggested per flagged line", min=0),
-    _s("iterations", "int", "passes of evidence sharing between species that match the same peaks", min=1),
+    _s("n_alternatives", "int", 3, "alternative analyte lines suggested per flagged line", min=0),
+    _s("iterations", "int", 6, "passes of evidence sharing between species that match the same peaks", min=1),
 ), "Qualitative analysis (docs/identification.md).", "compquant.identify",
     notes=("possible_score <= detected_score.",))
+
+
+IdentifySettings = settings_dataclass(IDENTIFY_TABLE, "IdentifySettings", module=__name__, bases=(_IdentifyMethods,),
+                                      frozen=True, doc=_DOC)
 
 
 def settings_from_dict(table: dict | None, where: str = "[identify]") -> IdentifySettings:
