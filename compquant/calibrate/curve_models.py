@@ -16,10 +16,15 @@ names are the combinations registered in :data:`MODELS_BY_NAME` (``"linear"``, `
 
 Contract a new entry must meet
 ------------------------------
-* A new **weighting** of the existing forms: add a :class:`Weighting` to :data:`WEIGHTINGS`
-  (``needs_weights`` true when the fit must be given 1/u² weights, which it then uses) and the
-  model name(s) to :data:`MODELS_BY_NAME`, with a test in ``tests/test_calib_fit.py`` that
-  checks the fit against statsmodels WLS/OLS.
+* A new **combination** of a registered form and weighting (e.g. a weighted straight line
+  through the origin is already ``through_origin``; a ``weighted_cubic`` is not): add the
+  model name to :data:`MODELS_BY_NAME` with a test in ``tests/test_calib_fit.py`` that checks
+  the fit against statsmodels WLS/OLS.  Nothing else changes: the method file accepts the name,
+  ``docs/method-reference.md`` lists it after ``python scripts/make_method_reference.py``.
+* A new **weighting**: add a :class:`Weighting` to :data:`WEIGHTINGS` (``needs_weights``: the
+  fit is given weights ``1/u²`` of the standards' responses, computed in
+  ``calibrate/build.py``); weights of another kind (``1/x²`` ...) also need their computation
+  there.
 * A new **form**: add a :class:`Form` whose ``terms`` are design-matrix column names known to
   :func:`compquant.calibrate.fit.design_matrix` (``"x"``, ``"x2"``; the intercept ``"1"`` is
   added by the fit unless ``through_origin``) and the model name(s), with a test against
