@@ -24,10 +24,7 @@ import numpy as np
 
 from compquant.errors import MethodError
 from compquant.fileio import check_keys, load_toml, sha256_file
-from compquant.preprocess.baseline import BASELINES as BASELINE_REGISTRY
 from compquant.preprocess.settings import BASELINE as BASELINE_TABLE
-from compquant.preprocess.settings import NORMALISE as NORMALISE_TABLE
-from compquant.preprocess.settings import SHIFT as SHIFT_TABLE
 from compquant.preprocess.settings import TABLES as PREPROCESS_SCHEMAS
 from compquant.preprocess.settings import baseline_params
 from compquant.settings import REQUIRED, Setting, Table, settings_dataclass
@@ -42,10 +39,6 @@ TECHNIQUES = ("LIBS", "spark-OES", "arc-OES", "other")
 MODES = ("window", "fit")
 PROFILES = ("voigt", "lorentzian", "gaussian")
 PREPROCESS_TABLES = frozenset(t.name.split(".", 1)[1] for t in PREPROCESS_SCHEMAS)
-BASELINES = tuple(BASELINE_REGISTRY)
-NORMALISATIONS = NORMALISE_TABLE["how"].choices
-SHIFT_METHODS = SHIFT_TABLE["method"].choices
-SHIFT_MODELS = SHIFT_TABLE["model"].choices
 _POS = {"min": 0, "min_open": True}
 
 
