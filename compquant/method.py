@@ -95,6 +95,13 @@ LINE_TABLE = Table("lines", (
    "compquant.lines)", notes=("A line is listed once; element, ion and wavelength_nm must agree with the id.",),
     array=True)
 
+#: one line to measure, resolved to element, ion stage and wavelength (the rest: :data:`LINE_TABLE`)
+LineSpec = settings_dataclass(
+    LINE_TABLE, "LineSpec", module=__name__, leading=(("line_id", "str"), ("element", "str"), ("ion", "int"),
+                                                      ("wavelength_nm", "float")),
+    skip=("id", "element", "ion", "wavelength_nm"), defaults={"mode": "window"},
+    doc="One line to measure, resolved to element, ion stage and wavelength.")
+
 #: the method file's own tables, in the order of the generated reference
 TABLES = (METHOD_TABLE, *PREPROCESS_SCHEMAS, MEASURE_TABLE, LINE_TABLE)
 METHOD_KEYS = frozenset(METHOD_TABLE.keys)
@@ -159,24 +166,6 @@ class PreprocessConfig:
 #: line-measurement defaults; each ``[[lines]]`` entry may override them (fields: :data:`MEASURE_TABLE`)
 MeasureConfig = settings_dataclass(MEASURE_TABLE, "MeasureConfig", module=__name__,
                                    doc="Line-measurement defaults; each ``[[lines]]`` entry may override them.")
-
-
-@dataclass
-class LineSpec:
-    """One line to measure, resolved to element, ion stage and wavelength."""
-
-    line_id: str
-    element: str
-    ion: int
-    wavelength_nm: float
-    mode: str = "window"
-    window_nm: float | None = None
-    side_nm: float | None = None
-    gap_nm: float | None = None
-    group: str | None = None
-    profile: str | None = None
-    fwhm_nm: float | None = None
-    label: str | None = None
 
 
 @dataclass

@@ -308,15 +308,21 @@ def _annotation(s: Setting) -> str:
 
 
 def settings_dataclass(table: Table, name: str, *, module: str, bases: tuple = (), frozen: bool = False,
-                       doc: str = ""):
+                       doc: str = "", leading: tuple = (), skip: Iterable[str] = (), defaults: dict | None = None):
     """A dataclass with one field per setting of ``table`` (same order, types and defaults), so a
     settings object is declared once, by its table.  Methods come from ``bases`` (a mix-in class;
     its ``__post_init__``, if any, runs after ``__init__``).  Mutable defaults are copied per
-    instance."""
+    instance.  ``leading`` adds required fields ``(name, annotation)`` first (values resolved by
+    the owner, e.g. a line's id), ``skip`` leaves settings out and ``defaults`` replaces defaults."""
     import dataclasses
 
-    specs = []
+    specs = list(leading)
+    skip, defaults = set(skip), defaults or {}
     for s in table.settings:
+        if s.key in skip:
+            continue
+        if s.key in defaults:
+            s = dataclasses.replace(s, default=defaults[s.key])
         if s.required:
             specs.append((s.key, _annotation(s)))
         elif isinstance(s.default, (list, dict)):

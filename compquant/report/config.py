@@ -199,6 +199,7 @@ REVIEW_TABLE = Table("review", (
             fix="write required = true (certificates issued as DRAFT until released)"),
 ), "Optional (compquant.record, docs/record.md).", _LAB)
 LAB_PROFILE_TABLES = (LAB_TABLE, SIGNATORY_TABLE, CLIENT_TABLE, SAMPLES_TABLE, REVIEW_TABLE)
+_FIELD_PREFIX = {"lab": "", "signatory": "signatory_", "client": "client_", "samples": "sample_"}
 
 
 def load_lab_profile(path) -> LabProfile:
@@ -208,33 +209,17 @@ def load_lab_profile(path) -> LabProfile:
     w = str(p)
     check_keys(data, {t.name for t in LAB_PROFILE_TABLES}, w, required={"lab", "signatory"})
     v = {t.name: t.parse(data.get(t.name, {}), f"{w} [{t.name}]", ConfigError) for t in LAB_PROFILE_TABLES}
-    lab, sig, cli, smp = v["lab"], v["signatory"], v["client"], v["samples"]
-    prefix = lab["certificate_prefix"]
+    prefix = v["lab"]["certificate_prefix"]
     if not _PREFIX.fullmatch(prefix):
         raise ConfigError(
             f"certificate_prefix {prefix!r} must be 1 to 12 letters or digits",
             where=f"{w} [lab].certificate_prefix",
             fix='e.g. certificate_prefix = "HMTL"',
         )
-    return LabProfile(
-        name=lab["name"],
-        address=lab["address"],
-        certificate_prefix=prefix.upper(),
-        signatory_name=sig["name"],
-        signatory_title=sig["title"],
-        accreditation=lab["accreditation"],
-        site=lab["site"],
-        phone=lab["phone"],
-        email=lab["email"],
-        client_name=cli["name"],
-        client_address=cli["address"],
-        client_reference=cli["reference"],
-        sample_condition=smp["condition"],
-        sample_received=smp["received"],
-        source=str(p),
-        sha256=sha256_file(p),
-        review_required=v["review"]["required"],
-    )
+    # LabProfile's fields are the tables' keys, prefixed by their table (signatory_name ...)
+    kw = {_FIELD_PREFIX[t] + k: x for t, vals in v.items() if t in _FIELD_PREFIX for k, x in vals.items()}
+    kw["certificate_prefix"] = prefix.upper()
+    return LabProfile(**kw, source=str(p), sha256=sha256_file(p), review_required=v["review"]["required"])
 
 
 @dataclass
