@@ -182,6 +182,58 @@ def _or(value, default):
     return default if value is None else value
 
 
+def _analyte(a, i: int, top: dict, source: str) -> AnalyteConfig:
+    """One ``[[calibration.analytes]]`` entry; unset keys take the ``[calibration]`` values."""
+    w = f"{source}: [[calibration.analytes]] #{i}"
+    ANALYTE_TABLE.check_table(a, w, MethodError)
+    el = _element(a["element"], f"{w}.element")
+    w = f"{source}: calibration.analytes {el}"
+    v = ANALYTE_TABLE.parse(a, w, MethodError)
+    basis = _or(v["basis"], top["basis"])
+    istd = _or(v["internal_standard"], top["internal_standard"])
+    if basis == "ratio":
+        if not istd:
+            raise MethodError("basis 'ratio' needs an internal-standard line", where=w,
+                              fix='set internal_standard = "Cu I 510.554" in [calibration]')
+        if not top["matrix_element"]:
+            raise MethodError("basis 'ratio' needs matrix_element", where=f"{source}: [calibration]",
+                              fix='set matrix_element = "Cu"')
+        if el == top["matrix_element"]:
+            raise MethodError("the matrix element cannot be an analyte of a ratio calibration", where=w,
+                              fix="its content follows by difference")
+    for e in v["exclude"]:
+        EXCLUDE_TABLE.parse(e, f"{w}.exclude", MethodError)
+    for e in v["interferences"]:
+        INTERFERENCE_TABLE.parse(e, f"{w}.interferences", MethodError)
+        if e["element"] == el:
+            raise MethodError("an analyte cannot interfere with itself", where=w, fix="remove the entry")
+    return AnalyteConfig(
+        element=el,
+        line=v["line"],
+        model=_or(v["model"], top["model"]),
+        through_origin=_or(v["through_origin"], top["through_origin"]),
+        basis=basis,
+        internal_standard=istd if basis == "ratio" else None,
+        outliers=_or(v["outliers"], top["outliers"]),
+        exclude=[dict(e) for e in v["exclude"]],
+        interferences=[{"element": e["element"], "kind": e["kind"]} for e in v["interferences"]],
+    )
+
+
+def _pls(table, top: dict, source: str) -> PLSConfig:
+    """``[calibration.pls]``; the default normalisation follows the calibration's basis."""
+    w = f"{source}: [calibration.pls]"
+    ps = PLS_TABLE.parse(table, w, MethodError)
+    istd = top["internal_standard"]
+    norm = _or(ps["normalise"], "internal_standard" if (top["basis"] == "ratio" and istd) else "total")
+    if norm == "internal_standard" and not istd:
+        raise MethodError("normalise = 'internal_standard' needs [calibration] internal_standard",
+                          where=w, fix='set internal_standard = "Cu I 510.554" or normalise = "total"')
+    return PLSConfig(analytes=list(ps["analytes"]), half_width_nm=ps["half_width_nm"],
+                     max_components=ps["max_components"], cv_folds=ps["cv_folds"], alpha=ps["alpha"],
+                     lines=ps["lines"], normalise=norm)
+
+
 def parse_calibration_section(section: dict | None, source: str = "method") -> CalibrationConfig:
     """Validate ``Method.sections['calibration']`` (a plain dict) into a CalibrationConfig.
 
@@ -189,92 +241,39 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
     :data:`PLS_TABLE`), then the rules that tie them together.  Raises :class:`MethodError`
     naming ``<source>: [calibration].<key>``.
     """
-    base = f"{source}: [calibration]"
     if not section:
         raise MethodError(
             "the method has no [calibration] section",
             where=source,
             fix="add [calibration] and [[calibration.analytes]] (see docs/calibration.md)",
         )
-    top = CALIBRATION_TABLE.parse(section, base, MethodError)
-    basis, matrix, istd = top["basis"], top["matrix_element"], top["internal_standard"]
+    top = CALIBRATION_TABLE.parse(section, f"{source}: [calibration]", MethodError)
     analytes, seen = [], set()
     for i, a in enumerate(top["analytes"], 1):
-        w = f"{source}: [[calibration.analytes]] #{i}"
-        ANALYTE_TABLE.check_table(a, w, MethodError)
-        el = _element(a["element"], f"{w}.element")
-        w = f"{source}: calibration.analytes {el}"
-        v = ANALYTE_TABLE.parse(a, w, MethodError)
-        if el in seen:
-            raise MethodError(f"analyte {el} listed twice", where=w, fix="keep one entry per element")
-        seen.add(el)
-        ab = _or(v["basis"], basis)
-        ai = _or(v["internal_standard"], istd)
-        if ab == "ratio":
-            if not ai:
-                raise MethodError(
-                    "basis 'ratio' needs an internal-standard line",
-                    where=w,
-                    fix='set internal_standard = "Cu I 510.554" in [calibration]',
-                )
-            if not matrix:
-                raise MethodError("basis 'ratio' needs matrix_element", where=base, fix='set matrix_element = "Cu"')
-            if el == matrix:
-                raise MethodError(
-                    "the matrix element cannot be an analyte of a ratio calibration",
-                    where=w,
-                    fix="its content follows by difference",
-                )
-        for e in v["exclude"]:
-            EXCLUDE_TABLE.parse(e, f"{w}.exclude", MethodError)
-        for e in v["interferences"]:
-            INTERFERENCE_TABLE.parse(e, f"{w}.interferences", MethodError)
-            if e["element"] == el:
-                raise MethodError("an analyte cannot interfere with itself", where=w, fix="remove the entry")
-        analytes.append(
-            AnalyteConfig(
-                element=el,
-                line=v["line"],
-                model=_or(v["model"], top["model"]),
-                through_origin=_or(v["through_origin"], top["through_origin"]),
-                basis=ab,
-                internal_standard=ai if ab == "ratio" else None,
-                outliers=_or(v["outliers"], top["outliers"]),
-                exclude=[dict(e) for e in v["exclude"]],
-                interferences=[{"element": e["element"], "kind": e["kind"]} for e in v["interferences"]],
-            )
-        )
-    names = {a.element for a in analytes}
+        an = _analyte(a, i, top, source)
+        if an.element in seen:
+            raise MethodError(f"analyte {an.element} listed twice", where=f"{source}: calibration.analytes "
+                              f"{an.element}", fix="keep one entry per element")
+        seen.add(an.element)
+        analytes.append(an)
     for a in analytes:
         for e in a.interferences:
-            if e["element"] not in names:
+            if e["element"] not in seen:
                 raise MethodError(
                     f"interfering element {e['element']} is not an analyte",
                     where=f"{source}: calibration.analytes {a.element}",
                     fix="its content in unknowns must be measured: add it as an analyte",
                 )
-    pls = None
-    if top["pls"] is not None:
-        w = f"{source}: [calibration.pls]"
-        ps = PLS_TABLE.parse(section["pls"], w, MethodError)
-        dflt = "internal_standard" if (basis == "ratio" and istd) else "total"
-        norm = _or(ps["normalise"], dflt)
-        if norm == "internal_standard" and not istd:
-            raise MethodError("normalise = 'internal_standard' needs [calibration] internal_standard",
-                              where=w, fix='set internal_standard = "Cu I 510.554" or normalise = "total"')
-        pls = PLSConfig(analytes=list(ps["analytes"]), half_width_nm=ps["half_width_nm"],
-                        max_components=ps["max_components"], cv_folds=ps["cv_folds"], alpha=ps["alpha"],
-                        lines=ps["lines"], normalise=norm)
     return CalibrationConfig(
         analytes=analytes,
-        basis=basis,
-        matrix_element=matrix,
-        internal_standard=istd,
+        basis=top["basis"],
+        matrix_element=top["matrix_element"],
+        internal_standard=top["internal_standard"],
         outlier_alpha=top["outlier_alpha"],
         coverage=top["coverage"],
         drift=top["drift"],
         sigma_pt_rel=top["sigma_pt_rel"],
-        pls=pls,
+        pls=None if top["pls"] is None else _pls(section["pls"], top, source),
         max_above_range=top["max_above_range"],
     )
 
