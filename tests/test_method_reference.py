@@ -88,3 +88,32 @@ def test_method_file_errors_name_the_key(tmp_path):
     with pytest.raises(MethodError) as ei:
         method_from_dict(doc, source="m.toml")
     assert ei.value.one_line() == "m.toml: [preprocess.qc].k: value -1 out of range; use a finite value > 0"
+
+
+def _doc_keys(text: str) -> dict[str, set[str]]:
+    """Keys in the first column of each table of docs/method-file.md, by the table heading above."""
+    import re
+
+    out: dict[str, set[str]] = {}
+    current = None
+    for line in text.splitlines():
+        m = re.match(r"^#{2,3} `\[\[?([a-z_.]+)\]?\]`", line)
+        if m:
+            current = m.group(1)
+            out.setdefault(current, set())
+        elif line.startswith("## ") or line.startswith("### "):
+            current = None
+        elif current and line.startswith("| `"):
+            first = line.split("|")[1]
+            out[current].update(re.findall(r"`([a-z_]+)`", first))
+    return out
+
+
+def test_method_file_page_names_exactly_the_declared_keys():
+    """The prose page (docs/method-file.md) explains every key of the tables compquant.method owns,
+    and no key the tables do not know (its tables were typed by hand before the declarations)."""
+    from compquant.method import TABLES
+
+    documented = _doc_keys((ROOT / "docs" / "method-file.md").read_text(encoding="utf-8"))
+    for t in TABLES:
+        assert documented.get(t.name) == set(t.keys), t.name
