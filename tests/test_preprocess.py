@@ -195,3 +195,22 @@ def test_baseline_registry_entry_meets_its_contract(name):
     ref = np.array([getattr(REF, _PYBASELINES[name])(y, **ref_kw)[0] for y in Y])
     assert np.max(np.abs(got - ref)) <= 1e-6 * np.max(np.abs(Y))
     assert estimate_baseline(Y, "none") is None
+
+
+@pytest.mark.parametrize("name", list(BASELINES))
+def test_method_file_takes_each_registered_baseline_and_only_its_keys(name):
+    """[preprocess.baseline] accepts every registry entry with its declared keys (defaults filled in
+    from the entry) and refuses a key that belongs to another entry only."""
+    from compquant.errors import MethodError
+    from compquant.method import method_from_dict
+
+    entry = BASELINES[name]
+    doc = {"method": {"id": "m"}, "lines": [{"id": "Cu I 324.754"}],
+           "preprocess": {"baseline": {"method": name, **{s.key: s.default for s in entry.params}}}}
+    m = method_from_dict(doc)
+    assert m.preprocess.baseline == name and m.preprocess.baseline_params == {s.key: s.default for s in entry.params}
+    foreign = sorted({s.key for e in BASELINES.values() for s in e.params} - set(entry.keys))
+    if foreign:
+        doc["preprocess"]["baseline"][foreign[0]] = 1
+        with pytest.raises(MethodError, match=f"does not apply to method '{name}'"):
+            method_from_dict(doc)
