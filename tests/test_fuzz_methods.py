@@ -159,7 +159,9 @@ def plausible(setting) -> list:
         if isinstance(setting.default, (int, float)) and not isinstance(setting.default, bool):
             vals.append(setting.default)
         return [round(v) if setting.type == "int" else float(v) for v in vals]
-    return [setting.default] if setting.default not in (None, REQUIRED) else []
+    if setting.default is None or setting.default is REQUIRED:
+        return []
+    return [list(setting.default) if isinstance(setting.default, tuple) else setting.default]
 
 
 # values that name things of the small run (its lines and elements), which no table can know
