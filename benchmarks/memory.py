@@ -2,8 +2,8 @@
 
 Usage::
 
-    /work/venv/bin/python benchmarks/memory.py [--dir /tmp/compquant-mem] [--scale 0.2]
-        [--keep] [--case 20|200|both]
+    /work/venv/bin/python benchmarks/memory.py [--dir /tmp/compquant-mem] [--scale 1]
+        [--keep] [--case 20|200|both] [--spill auto|on|off]
 
 For each case (2,000,000 shots x 20 lines and 200,000 shots x 200 lines, times ``--scale``)
 writes a synthetic gzip run (uint16 counts, 10 samples, one Gaussian line per line window
@@ -11,7 +11,10 @@ on a flat continuum with Poisson-like noise; invented data) and runs ``measure_r
 fresh process at the full case size and at a quarter of it.  Prints the peak resident memory
 of each child, the growth per shot between the two sizes, that growth per (shot x line) and its
 ratio to the 8 bytes of the one float64 result array ``shot_intensity`` (plus 2 bytes of
-per-shot flags: saturated and masked), and the peak extrapolated to the full issue size.
+per-shot flags: saturated and masked), and the peak at the full issue size (measured at
+``--scale 1``, else extrapolated from the growth).  ``--spill`` sets ``COMPQUANT_SPILL_CELLS`` in
+the children: ``auto`` (the default threshold), ``on`` (0: always spill the per-shot x per-line
+arrays to a file, compquant.lines.shotstore), ``off`` (never).
 The run files are deleted afterwards unless ``--keep``.  Goal (issue 22): <= 0.5 GB peak at
 2 M shots x 20 lines and at 200 k x 200 lines.
 """
@@ -89,10 +92,15 @@ def _child(path: str, centres, q) -> None:
     before = _hwm_bytes()
     with Run.open(path) as run:
         lm = measure_run(run, method)
-    q.put((before, _hwm_bytes(), lm.shot_intensity.nbytes, int(lm.table["n_shots"].sum())))
+    q.put((before, _hwm_bytes(), lm.shot_intensity.nbytes, int(lm.table["n_shots"].sum()),
+           isinstance(lm.shot_intensity, np.memmap)))
 
 
-def _measure(path: Path, centres) -> tuple:
+def _measure(path: Path, centres, spill: str = "auto") -> tuple:
+    if spill == "auto":
+        os.environ.pop("COMPQUANT_SPILL_CELLS", None)
+    else:
+        os.environ["COMPQUANT_SPILL_CELLS"] = "0" if spill == "on" else str(2**62)
     ctx = mp.get_context("spawn")
     q = ctx.Queue()
     p = ctx.Process(target=_child, args=(str(path), list(centres), q))
@@ -105,13 +113,14 @@ def _measure(path: Path, centres) -> tuple:
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--dir", default="/tmp/compquant-mem")
-    ap.add_argument("--scale", type=float, default=0.2, help="fraction of the issue's shot counts to run")
+    ap.add_argument("--scale", type=float, default=1.0, help="fraction of the issue's shot counts to run")
+    ap.add_argument("--spill", choices=("auto", "on", "off"), default="auto", help="spill per-shot arrays to a file")
     ap.add_argument("--keep", action="store_true", help="keep the run files")
     ap.add_argument("--case", choices=("20", "200", "both"), default="both", help="lines: 20, 200 or both")
     a = ap.parse_args(argv)
     d = Path(a.dir)
     d.mkdir(parents=True, exist_ok=True)
-    print(f"load average {os.getloadavg()[0]:.1f}; scale {a.scale:g} of the issue's shot counts")
+    print(f"load average {os.getloadavg()[0]:.1f}; scale {a.scale:g} of the issue's shot counts; spill {a.spill}")
     try:
         cases = [(2_000_000, 20), (200_000, 200)]
         for full_shots, n_lines in [c for c in cases if a.case in ("both", str(c[1]))]:
@@ -120,18 +129,19 @@ def main(argv=None) -> int:
             for shots in (n // 4, n):
                 path = d / f"mem-{shots}x{n_lines}.h5"
                 centres = make_run(path, shots, n_lines)
-                base, peak, nbytes, accepted = _measure(path, centres)
+                base, peak, nbytes, accepted, spilled = _measure(path, centres, a.spill)
                 peaks[shots] = peak
                 print(f"  {shots:>9,} shots x {n_lines:>3} lines: peak {peak / 2**20:7.0f} MiB "
                       f"(after imports {base / 2**20:.0f} MiB), shot_intensity {nbytes / 2**20:.0f} MiB, "
-                      f"{accepted:,} shot-lines accepted")
+                      f"{accepted:,} shot-lines accepted, {'spilled to a file' if spilled else 'in memory'}")
                 path.unlink()
             grow = (peaks[n] - peaks[n // 4]) / (n - n // 4)
             per_cell = grow / n_lines
             full = peaks[n] + grow * (full_shots - n)
-            print(f"{full_shots:,} x {n_lines}: growth {grow:.0f} B/shot = {per_cell:.1f} B per shot x line "
+            how = "measured" if n == full_shots else "extrapolated"
+            print(f"{full_shots:,} x {n_lines}: growth {grow:.0f} B/shot = {per_cell:.2f} B per shot x line "
                   f"= {per_cell / 10:.2f}x the 10 B of the result arrays; "
-                  f"peak extrapolated to {full_shots:,} shots: {full / 1e9:.2f} GB (goal <= 0.5 GB: "
+                  f"peak {how} at {full_shots:,} shots: {full / 1e9:.3f} GB (goal <= 0.5 GB: "
                   f"{'met' if full <= 0.5e9 else 'missed'})")
     finally:
         if not a.keep:

@@ -105,8 +105,8 @@ def measure(run, method, chunk: int, kernel: str, direct: bool):
 def lines_scaling(run: Run, method, repeat: int) -> list[tuple]:
     """The chunk function on 4,096 shots with the method's 20 lines and 10 / 50 / 200 lines spread over the
     axis: (lines, kernel, precision, cpu us/shot, wall us/shot, relative differences to NumPy)."""
+    from compquant.lines._setup import _Setup
     from compquant.lines.chunk import process_chunk
-    from compquant.lines.measure import _Setup
     from compquant.lines.windows import build_window_weights, support_mask, window_geometry
 
     setup = _Setup(run, method)

@@ -22,6 +22,7 @@ import sys
 import tempfile
 import unicodedata
 from collections.abc import Iterator
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import IO
 
@@ -178,7 +179,9 @@ def safe_filename(name: str, max_len: int = 80) -> str:
 def refuse_overwriting_inputs(outputs, inputs) -> None:
     """Refuse an output path that is one of the inputs or lies inside one (inputs are sacred).
 
-    ``outputs``/``inputs``: paths (None entries are skipped).  Paths are compared after
+    ``outputs``/``inputs``: paths (None entries are skipped; so is ``-``, standard input or
+    output: no file can be overwritten there) or, for inputs, :class:`InputBytes` (the file it
+    was read from is kept safe; one read from standard input is skipped).  Paths are compared after
     resolving links, and by device and inode when both exist (hard links, case-blind file
     systems).  Raises :class:`InputError` naming the output and the input; call it before
     anything is written.
@@ -189,9 +192,14 @@ def refuse_overwriting_inputs(outputs, inputs) -> None:
         except OSError:
             return False
 
-    ins = [Path(p) for p in inputs if p is not None]
+    ins = []
+    for p in inputs:
+        if isinstance(p, InputBytes):
+            p = p.path
+        if p is not None and str(p) != STDIO:
+            ins.append(Path(p))
     for o in outputs:
-        if o is None:
+        if o is None or str(o) == STDIO:
             continue
         o = Path(o)
         ro = o.resolve()
@@ -235,6 +243,123 @@ def require_file(path: str | os.PathLike, what: str = "file") -> Path:
     if not os.access(p, os.R_OK):
         raise InputError(f"{what} is not readable", where=str(p), fix="check file permissions")
     return p
+
+
+#: the path that names standard input (for an input) or standard output (for an output)
+STDIO = "-"
+
+#: the name provenance records (certificate, manifest, calibration) for a table read from
+#: standard input, in place of a file name
+STDIN_NAME = "<stdin>"
+
+#: the largest text table (certified standards ...) read whole, from a file or from standard
+#: input: far above any real one (the demo's standards file is 3 KiB), small enough to hold
+MAX_TABLE_BYTES = 16 * 1024 * 1024
+
+
+@dataclass(frozen=True)
+class InputBytes:
+    """One input read whole, from a file or from standard input, and what provenance records.
+
+    ``name``: the file name recorded in provenance (``<stdin>`` for standard input); ``where``:
+    how messages name it (the path, or ``<stdin>``); ``data``: the bytes; ``sha256``: their
+    SHA-256 hex digest (FIPS 180-4), the same number :func:`sha256_file` gives for a file of
+    these bytes; ``path``: the file, or None for standard input.
+    """
+
+    name: str
+    where: str
+    data: bytes = field(repr=False)
+    sha256: str
+    path: Path | None = None
+
+    @property
+    def suffix(self) -> str:
+        """The file's suffix in lower case ('' for standard input)."""
+        return self.path.suffix.lower() if self.path is not None else ""
+
+    def text(self, error: type = InputError, what: str = "file") -> str:
+        """The bytes as UTF-8 text (a leading byte-order mark dropped); ``error`` if they are not."""
+        try:
+            return self.data.decode("utf-8-sig")
+        except UnicodeDecodeError as exc:
+            raise error(f"{what} is not UTF-8 text (byte {exc.start})", where=self.where,
+                        fix="save it as UTF-8") from exc
+
+
+def _too_large(what: str, where: str, limit: int, error: type):
+    return error(f"{what} is larger than {limit // (1024 * 1024)} MiB, the limit for a table read whole",
+                 where=where, fix="check that this is the right file; a table of certified values is far smaller")
+
+
+def read_stdin(what: str = "table", *, limit: int = MAX_TABLE_BYTES, error: type = InputError,
+               stream=None) -> InputBytes:
+    """Read one table whole from standard input (or ``stream``, a binary or text file object).
+
+    Refused with a one-line ``error`` when standard input is a terminal (nothing was piped in:
+    reading would wait for typing), when it is empty, and when it holds more than ``limit``
+    bytes (read no further than ``limit + 1``: a never-ending pipe cannot fill the memory).
+    The bytes are hashed as a file's would be; provenance names them :data:`STDIN_NAME`.
+    """
+    src = sys.stdin if stream is None else stream
+    where = STDIN_NAME
+    fix = f"pipe the {what} in ('... < file' or 'cat file | ...'), or give its path instead of '-'"
+    if src is None:
+        raise error("standard input is closed", where=where, fix=fix)
+    try:
+        tty = bool(src.isatty())
+    except (AttributeError, ValueError):
+        tty = False
+    if tty:
+        raise error(f"standard input is a terminal, not a piped {what}", where=where, fix=fix)
+    raw = getattr(src, "buffer", src)
+    try:
+        data = raw.read(limit + 1)
+    except OSError as exc:
+        raise error(f"cannot read standard input ({exc.strerror or type(exc).__name__})", where=where,
+                    fix=fix) from exc
+    except ValueError as exc:  # a closed stream
+        raise error("standard input is closed", where=where, fix=fix) from exc
+    if isinstance(data, str):
+        data = data.encode("utf-8")
+    if not data:
+        raise error(f"standard input is empty: no {what} was piped in", where=where, fix=fix)
+    if len(data) > limit:
+        raise _too_large(what, where, limit, error)
+    return InputBytes(STDIN_NAME, where, bytes(data), hashlib.sha256(data).hexdigest(), None)
+
+
+def read_input(source, what: str = "file", *, limit: int = MAX_TABLE_BYTES,
+               error: type = InputError) -> InputBytes:
+    """Read one table whole from a file or, for ``-``, from standard input (:func:`read_stdin`).
+
+    An :class:`InputBytes` is returned as it is (already read). A file is checked by
+    :func:`require_file` and refused above ``limit`` bytes before it is read; its bytes are read
+    once, so what is parsed is exactly what is hashed.
+    """
+    if isinstance(source, InputBytes):
+        return source
+    if str(source) == STDIO:
+        return read_stdin(what, limit=limit, error=error)
+    p = require_file(source, what)
+    if p.stat().st_size > limit:
+        raise _too_large(what, str(p), limit, error)
+    try:
+        with open(p, "rb") as fh:
+            data = fh.read(limit + 1)
+    except OSError as exc:
+        raise error(f"{what} cannot be read ({exc.strerror})", where=str(p), fix="check the file") from exc
+    if len(data) > limit:  # grew while being read
+        raise _too_large(what, str(p), limit, error)
+    return InputBytes(p.name, str(p), data, hashlib.sha256(data).hexdigest(), p)
+
+
+def parse_toml(text: str, where: str, error: type = ConfigError) -> dict:
+    """Parse TOML text into a dict, turning a syntax error into a one-line ``error``."""
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise error(f"not valid TOML ({exc})", where=where, fix="fix the syntax at the position given") from exc
 
 
 def load_toml(path: str | os.PathLike, what: str = "TOML file",
@@ -356,6 +481,13 @@ def json_ready(obj, nonfinite=None):
 
 
 __all__ = [
+    "InputBytes",
+    "MAX_TABLE_BYTES",
+    "STDIN_NAME",
+    "STDIO",
+    "parse_toml",
+    "read_input",
+    "read_stdin",
     "refuse_overwriting_inputs",
     "atomic_path",
     "atomic_write",

@@ -1,11 +1,23 @@
-"""Shared matplotlib plumbing for the PNG figures: the non-interactive backend and atomic saving.
+"""The figures of compquant, one function per figure, and their matplotlib plumbing.
+
+The spectrum, the calibration curve and the Boltzmann plot are each drawn by one function here
+(:func:`spectrum_png`, :func:`calibration_figure`, :func:`boltzmann_figure`), from plain arrays, so
+the certificate (:mod:`compquant.report.assemble`) and the commands (``compquant calibrate
+--plots``, ``compquant cf --plots``, through :mod:`compquant.calibrate.plots` and
+:mod:`compquant.cflibs.plots`) show the same figure.  Error bars of a calibration curve are
+expanded uncertainties U = k·u with k = 2, as the certificate reports them (JCGM 100:2008,
+6.2-6.3); Boltzmann-plot error bars are standard uncertainties u of the ordinate.  PNGs are
+written without a time stamp, so the same data give the same bytes.
 
 matplotlib is imported only when a figure is drawn, so importing compquant stays light.
 """
 
 from __future__ import annotations
 
+import io
 from pathlib import Path
+
+import numpy as np
 
 from compquant.errors import OutputError
 from compquant.fileio import atomic_path
@@ -15,8 +27,8 @@ def plain_text() -> None:
     """Draw every text of every figure as plain text: no mathtext, no LaTeX.
 
     Sample ids, line ids and names come from files; ``$\\foo$`` in one of them must print as
-    typed, not be parsed as mathtext (an unknown command would stop the figure). Labels that
-    are meant as mathematics ask for it with ``parse_math=True`` (compquant.cflibs.plots).
+    typed, not be parsed as mathtext (an unknown command would stop the figure). A label meant
+    as mathematics would ask for it with ``parse_math=True``; the figures here use none.
     """
     import matplotlib
 
@@ -54,4 +66,295 @@ def save_png(fig, path, dpi: float | None = None) -> Path:
     return out
 
 
-__all__ = ["plain_text", "pyplot", "save_png"]
+_DPI = 150
+
+
+def new_axes(figsize=(6.4, 3.2)):
+    """A figure with one axes, outside pyplot (no global state; Agg canvas on save), plain text."""
+    from matplotlib.figure import Figure
+
+    plain_text()  # ids from files print as typed, never as mathtext
+    fig = Figure(figsize=figsize, dpi=_DPI)
+    ax = fig.add_subplot(1, 1, 1)
+    return fig, ax
+
+
+def figure_png(fig) -> bytes:
+    """PNG bytes of a figure from :func:`new_axes`: fixed margins, no time stamp (same data, same bytes)."""
+    buf = io.BytesIO()
+    # fixed margins (tight_layout would draw every figure twice)
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=0.75 / w, right=1 - 0.15 / w, bottom=0.5 / h, top=1 - 0.3 / h)
+    # about 160 dots per inch as printed (full-width spectrum and half-width plots alike)
+    dpi = _DPI if w > 6 else 120
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def _envelope(x, y, n_bins: int = 1500):
+    """Min/max envelope of a long trace (keeps every peak at figure resolution, far fewer points)."""
+    n = x.size
+    if n <= 2 * n_bins:
+        return x, y
+    starts = np.linspace(0, n, n_bins + 1).astype(int)[:-1]
+    lo = np.minimum.reduceat(y, starts)
+    hi = np.maximum.reduceat(y, starts)
+    xc = x[starts]
+    return np.repeat(xc, 2), np.column_stack([lo, hi]).ravel()
+
+
+def spectrum_png(
+    wavelength_nm,
+    intensity,
+    lines=(),
+    *,
+    title: str = "",
+    ylabel: str = "intensity (a.u.)",
+    max_labels: int = 25,
+) -> bytes:
+    """Mean spectrum with the analytical lines marked.
+
+    Parameters
+    ----------
+    wavelength_nm, intensity : 1-D arrays of equal length
+    lines : iterable of ``(label, wavelength_nm)`` pairs, e.g. ``("Cu I 324.754", 324.754)``
+    """
+    wl = np.asarray(wavelength_nm, dtype=float)
+    y = np.asarray(intensity, dtype=float)
+    if wl.ndim != 1 or wl.shape != y.shape:
+        raise ValueError("wavelength and intensity must be 1-D arrays of equal length")
+    fig, ax = new_axes((6.8, 3.0))
+    xw, yw = _envelope(wl, y)
+    ax.plot(xw, yw, lw=0.6, color="#1f3b73")
+    lines = list(lines)
+    top = np.nanmax(y) if y.size else 1.0
+    span = float(wl[-1] - wl[0]) if wl.size > 1 else 1.0
+    last_w, level = None, 0
+    for i, (label, w) in enumerate(sorted(lines, key=lambda t: float(t[1]))):
+        w = float(w)
+        ax.axvline(w, color="#b03a2e", lw=0.6, ls="--", alpha=0.8)
+        if i >= max_labels:
+            continue
+        # labels of lines closer than 2 % of the axis are stepped down so they do not overlap
+        level = level + 1 if last_w is not None and w - last_w < 0.02 * span else 0
+        last_w = w
+        ax.annotate(
+            str(label),
+            (w, top),
+            xytext=(2, -2 - 48 * (level % 3)),
+            textcoords="offset points",
+            rotation=90,
+            va="top",
+            ha="left",
+            fontsize=5.5,
+            color="#b03a2e",
+        )
+    ax.set_xlabel("wavelength (nm)")
+    ax.set_ylabel(ylabel)
+    if title:
+        ax.set_title(title, fontsize=9)
+    ax.margins(x=0)
+    ax.tick_params(labelsize=7)
+    return figure_png(fig)
+
+
+#: one colour per species on a Boltzmann plot (ten, so that a brass's species do not share one)
+SPECIES_COLOURS = ["#1f3b73", "#b03a2e", "#1e8449", "#7d3c98", "#b9770e", "#2e86c1", "#6e2c00", "#e91e63",
+                   "#7f8c8d", "#17a589"]
+
+#: legend text of the standards on a calibration curve: their error bars are U with k = 2
+STANDARDS_LABEL = "standards (U, k = 2)"
+
+
+def _points(ax, x, y, *, xerr=None, yerr=None, fmt="o", ms=4, color, ecolor=None, capsize=2, lw=0.8, label):
+    """Points with error bars (``None``: no bar on that axis)."""
+    ax.errorbar(
+        x,
+        y,
+        xerr=None if xerr is None else np.asarray(xerr, float),
+        yerr=None if yerr is None else np.asarray(yerr, float),
+        fmt=fmt,
+        ms=ms,
+        color=color,
+        ecolor=ecolor,
+        capsize=capsize,
+        lw=lw,
+        label=label,
+    )
+
+
+def _mark_samples(ax, samples, label: str) -> None:
+    """Samples on a calibration curve: ``(name, x, y, x_err)`` each, a diamond with its name."""
+    for name, x, y, xerr in samples:
+        _points(ax, [float(x)], [float(y)], xerr=None if xerr is None else [float(xerr)], fmt="D", ms=5,
+                color="#b9770e", label=None)
+        ax.annotate(str(name), (float(x), float(y)), xytext=(4, -10), textcoords="offset points", fontsize=5.5)
+    if samples:
+        ax.plot([], [], "D", color="#b9770e", label=label)
+
+
+def calibration_figure(
+    x_std,
+    y_std,
+    *,
+    fit_x=None,
+    fit_y=None,
+    x_err=None,
+    y_err=None,
+    labels=None,
+    sample_x=None,
+    sample_y=None,
+    sample_xerr=None,
+    sample_label: str = "sample",
+    xlabel: str = "certified mass fraction (%)",
+    ylabel: str = "intensity ratio",
+    title: str = "",
+    band=None,
+    excluded=None,
+    samples=(),
+    samples_label: str = "samples",
+    standards_label: str = STANDARDS_LABEL,
+):
+    """Calibration curve: standards (with error bars), the fitted curve and the sample(s) marked.
+
+    ``x_std``/``y_std`` are the standards' certified values and measured responses, ``x_err`` /
+    ``y_err`` the half-lengths of their error bars (the caller passes U = 2u and says so in
+    ``standards_label``); ``fit_x``/``fit_y`` sample the fitted curve; ``sample_x``/``sample_y``
+    place one sample (value found, response).  For the command line: ``band`` = ``(x, lo, hi,
+    label)`` shades a prediction band, ``excluded`` = ``(x, y)`` marks standards left out of the
+    fit, ``samples`` = ``[(name, x, y, x_err), ...]`` marks several samples.  Returns the
+    matplotlib Figure (:func:`figure_png` gives its PNG).
+    """
+    xs = np.asarray(x_std, dtype=float)
+    ys = np.asarray(y_std, dtype=float)
+    if xs.shape != ys.shape:
+        raise ValueError("x_std and y_std must have equal length")
+    fig, ax = new_axes((4.6, 3.2))
+    if band is not None:
+        bx, lo, hi, blabel = band
+        ax.fill_between(np.asarray(bx, float), lo, hi, color="0.88", lw=0, label=blabel)
+    _points(ax, xs, ys, xerr=x_err, yerr=y_err, color="#1f3b73", ecolor="#7f8fa6", label=standards_label)
+    if excluded is not None and len(excluded[0]):
+        ax.plot(excluded[0], excluded[1], "x", color="#b03a2e", ms=6, label="excluded standards")
+    if labels is not None:
+        for xi, yi, lab in zip(xs, ys, labels):
+            ax.annotate(str(lab), (xi, yi), xytext=(3, 3), textcoords="offset points", fontsize=5.5)
+    if fit_x is not None and fit_y is not None:
+        ax.plot(np.asarray(fit_x, float), np.asarray(fit_y, float), "-", color="#444444", lw=1, label="fit")
+    if sample_x is not None and sample_y is not None:
+        sx, sy = float(sample_x), float(sample_y)
+        _points(ax, [sx], [sy], xerr=None if sample_xerr is None else [float(sample_xerr)], fmt="D", ms=6,
+                color="#b03a2e", capsize=3, lw=None, label=sample_label)
+        ax.axhline(sy, color="#b03a2e", lw=0.5, ls=":")
+        ax.axvline(sx, color="#b03a2e", lw=0.5, ls=":")
+    _mark_samples(ax, list(samples), samples_label)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    if title:
+        ax.set_title(title, fontsize=9)
+    ax.legend(fontsize=6.5, loc="best")
+    ax.tick_params(labelsize=7)
+    return fig
+
+
+def calibration_png(x_std, y_std, **kw) -> bytes:
+    """PNG bytes of :func:`calibration_figure` (same arguments)."""
+    return figure_png(calibration_figure(x_std, y_std, **kw))
+
+
+def boltzmann_figure(
+    upper_energy_eV,
+    ordinate,
+    species=None,
+    *,
+    fits=None,
+    fit_y=None,
+    yerr=None,
+    title: str = "",
+    xlabel: str = "upper level energy E_k (eV)",
+    ylabel: str = "ln(I·λ / (g_k·A_ki))",
+    species_labels=None,
+    point_labels=None,
+    note: str = "",
+):
+    """Boltzmann plot: ``ln(I λ / (g_k A_ki))`` against upper-level energy, one colour per species.
+
+    ``fits`` maps a species name to ``(slope_per_eV, intercept)``, or ``fit_y`` gives the fitted
+    ordinate of every point (joined per species); the plasma temperature is
+    ``T = -1 / (k_B · slope)`` with ``k_B`` in eV/K (architecture contract: energy-unit intensities).
+    ``yerr``: standard uncertainties u of the ordinates.  ``species_labels`` maps a species to its
+    legend text, ``point_labels`` names each point, ``note`` is written in the upper right corner.
+    Returns the matplotlib Figure (:func:`figure_png` gives its PNG).
+
+    References
+    ----------
+    Tognoni, E. et al. (2010), Calibration-free laser-induced breakdown spectroscopy: state of the
+    art, Spectrochim. Acta B 65, 1-14 (the Boltzmann and Saha-Boltzmann plots).
+    """
+    E = np.asarray(upper_energy_eV, dtype=float)
+    Y = np.asarray(ordinate, dtype=float)
+    if E.shape != Y.shape:
+        raise ValueError("energies and ordinates must have equal length")
+    sp = np.asarray(species if species is not None else ["lines"] * len(E), dtype=object)
+    fig, ax = new_axes((4.6, 3.2))
+    colours = SPECIES_COLOURS
+    for i, name in enumerate(dict.fromkeys(sp.tolist())):
+        m = sp == name
+        c = colours[i % len(colours)]
+        lab = (species_labels or {}).get(name, str(name))
+        _points(ax, E[m], Y[m], yerr=None if yerr is None else np.asarray(yerr, float)[m], color=c, label=lab)
+        if fits and name in fits:
+            slope, icpt = fits[name]
+            xx = np.linspace(E[m].min(), E[m].max(), 2)
+            ax.plot(xx, slope * xx + icpt, "-", color=c, lw=1)
+        if fit_y is not None:
+            fy = np.asarray(fit_y, dtype=float)[m]
+            order = np.argsort(E[m])
+            ok = np.isfinite(fy[order])
+            ax.plot(E[m][order][ok], fy[order][ok], "-", color=c, lw=1)
+    for xi, yi, text in zip(E, Y, point_labels or ()):
+        ax.annotate(str(text), (xi, yi), xytext=(3, 3), textcoords="offset points", fontsize=5)
+    if note:
+        ax.text(0.98, 0.97, note, transform=ax.transAxes, ha="right", va="top", fontsize=6)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    if title:
+        ax.set_title(title, fontsize=9)
+    ax.legend(fontsize=6.5)
+    ax.tick_params(labelsize=7)
+    return fig
+
+
+def boltzmann_png(upper_energy_eV, ordinate, species=None, **kw) -> bytes:
+    """PNG bytes of :func:`boltzmann_figure` (same arguments)."""
+    return figure_png(boltzmann_figure(upper_energy_eV, ordinate, species, **kw))
+
+
+def write_png(png: bytes, path) -> Path:
+    """Write PNG bytes to ``path`` atomically; an OS error becomes :class:`~compquant.errors.OutputError`."""
+    out = Path(path)
+    try:
+        with atomic_path(out) as tmp:
+            Path(tmp).write_bytes(png)
+    except OSError as exc:
+        raise OutputError(
+            f"cannot write ({exc.strerror})", where=str(out), fix="choose a writable output path"
+        ) from exc
+    return out
+
+
+__all__ = [
+    "SPECIES_COLOURS",
+    "STANDARDS_LABEL",
+    "boltzmann_figure",
+    "boltzmann_png",
+    "calibration_figure",
+    "calibration_png",
+    "figure_png",
+    "new_axes",
+    "plain_text",
+    "pyplot",
+    "save_png",
+    "spectrum_png",
+    "write_png",
+]

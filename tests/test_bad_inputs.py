@@ -151,7 +151,7 @@ def test_hostile_input(hardening, name, monkeypatch):
     signal.alarm(60)
     try:
         with c.setup() if c.setup else nullcontext():
-            r = CliRunner().invoke(main, c.argv)
+            r = CliRunner().invoke(main, c.argv, input=c.stdin)
     finally:
         signal.alarm(0)
         signal.signal(signal.SIGALRM, old)

@@ -12,7 +12,7 @@ import pytest
 
 from compquant.errors import RunFormatError
 from compquant.run import Run, write_run
-from compquant.run.fastread import _layout, iter_raw
+from compquant.run.fastread import _layout, iter_raw, read_range
 
 NPX = 300
 
@@ -25,7 +25,8 @@ def _write(path, dtype, compression, n=4000):
 
 
 @pytest.mark.parametrize(
-    ("dtype", "compression"), [("uint16", "gzip"), ("float32", "gzip"), ("int32", None), ("float64", "gzip")]
+    ("dtype", "compression"),
+    [("uint16", "gzip"), ("float32", "gzip"), ("int32", None), ("uint16", None), ("float64", "gzip")],
 )
 def test_direct_read_equals_h5py(tmp_path, dtype, compression):
     p = _write(tmp_path / "r.h5", dtype, compression)
@@ -77,3 +78,14 @@ def test_direct_read_returns_masked_pixels_as_nan_like_read_raw(tmp_path):
         ref = run.read_raw(0, n)
     assert np.isnan(got[1234, 17]) and np.isnan(got[2500, 40:43]).all()
     assert np.array_equal(got, ref, equal_nan=True)
+
+
+@pytest.mark.parametrize(("dtype", "compression"), [("uint16", "gzip"), ("uint16", None), ("float32", "gzip")])
+def test_read_range_equals_h5py(tmp_path, dtype, compression):
+    # the worker-side read (no thread pool) against h5py's own read of the same rows
+    p = _write(tmp_path / "r.h5", dtype, compression)
+    with Run.open(p) as run, h5py.File(p, "r") as f:
+        ref = f["spectra"][()]
+        for a, b in [(0, 1), (5, 2701), (3999, 4000), (0, 4000)]:
+            raw = read_range(run, a, b)
+            assert raw.dtype == ref.dtype and np.array_equal(raw, ref[a:b])

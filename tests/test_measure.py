@@ -283,3 +283,56 @@ def test_mean_spectrum_qc_on_a_line(run_path):
         _, _, info = mean_spectrum(run, m, "STD")
     q = lm.qc.set_index("sample_id")
     assert info["n_accepted"] == q.loc["STD", "n_accepted"] == 39
+
+
+def test_shot_array_spill_file_is_npy_and_matches_numpy(tmp_path, monkeypatch):
+    # the spill file is a NumPy .npy file (NumPy's NEP 1 format, read back by numpy's own np.load) and
+    # every operation gives what the same numpy indexing gives on an in-memory array
+    from compquant.lines import shotstore
+
+    monkeypatch.setattr(shotstore, "BLOCK_BYTES", 3 * 5 * 8)  # 3 rows per block: many blocks
+    rng = np.random.default_rng(3)
+    ref = np.full((11, 5), np.nan)
+    a = shotstore.ShotArray(11, 5, np.float64, np.nan, spill=True, spill_dir=tmp_path)
+    assert a.spilled and a.block_rows == 3
+    for start, stop, cols in [(0, 4, slice(0, 5)), (4, 11, [0, 2, 3]), (2, 9, slice(1, 2))]:
+        v = rng.normal(size=(stop - start, ref[0, cols].size))
+        nan_where = v > 1.0
+        a.write(start, stop, cols, v, nan_where)
+        ref[start:stop, cols] = np.where(nan_where, np.nan, v)
+    assert np.array_equal(np.load(a.path), ref, equal_nan=True)
+    assert np.array_equal(a.column(2), ref[:, 2], equal_nan=True)
+    rows = np.array([0, 1, 5, 9, 10])
+    assert np.array_equal(a.take(rows, slice(1, 4)), ref[rows][:, 1:4], equal_nan=True)
+    f = rng.uniform(0.5, 2.0, 11)
+    a.update_rows(lambda b, i, j: np.divide(b, f[i:j, None], out=b))
+    m = a.result()
+    assert not list(tmp_path.iterdir())  # unlinked at once (POSIX); the map stays readable
+    assert np.array_equal(m, ref / f[:, None], equal_nan=True) and not m.flags.writeable
+
+
+def test_spilled_measurement_is_identical(run_path, tmp_path, monkeypatch):
+    # spilling the per-shot arrays to disk is storage only: every number, flag and per-shot value must
+    # be the same as in memory, bit for bit (window and fit lines, internal standard, QC rejections)
+    from compquant.lines import shotstore
+
+    monkeypatch.setattr(shotstore, "BLOCK_BYTES", 7 * 4 * 8)  # blocks of 7 rows / few lines
+    lines = [{"id": k, "mode": "fit", "fwhm_nm": 0.04} if i == 1 else {"id": k} for i, k in enumerate(LINES)]
+    m = method(lines=lines, preprocess={"normalise": {"how": "internal_standard", "line": "Cu I 324.754"}})
+    with Run.open(run_path) as run:
+        mem = measure_run(run, m, spill=False, chunk_shots=16)
+        disk = measure_run(run, m, spill=True, spill_dir=tmp_path, chunk_shots=16)
+    assert not list(tmp_path.iterdir())
+    assert isinstance(disk.shot_intensity, np.memmap) and not isinstance(mem.shot_intensity, np.memmap)
+    assert np.array_equal(mem.shot_intensity, disk.shot_intensity, equal_nan=True)
+    assert np.array_equal(mem.shot_saturated, disk.shot_saturated)
+    assert np.array_equal(mem.shot_accepted, disk.shot_accepted) and (~mem.shot_accepted).any()
+    assert mem.table.equals(disk.table) and mem.qc.equals(disk.qc) and mem.shots.equals(disk.shots)
+
+
+def test_spill_into_a_missing_folder_is_a_resource_error(run_path, tmp_path):
+    # a spill folder that does not exist: a CompquantError naming it, not an OSError traceback
+    from compquant.errors import ResourceLimitError
+
+    with Run.open(run_path) as run, pytest.raises(ResourceLimitError, match="spill file"):
+        measure_run(run, method(), spill=True, spill_dir=tmp_path / "missing")

@@ -81,3 +81,102 @@ def test_docs_safety_page_matches_the_code():
 
     page = (Path(__file__).resolve().parents[1] / "docs" / "safety.md").read_text("utf-8")
     assert page.split("\n", 1)[1] == safety_markdown(1)
+
+
+# ---- one figure function per figure, for the certificate and the commands alike (issue 19) ----
+
+
+def _curve(basis="intensity"):
+    """A duck-typed straight-line curve y = 2 x + 0.01 with four standards (invented numbers)."""
+    from types import SimpleNamespace
+
+    std = [
+        {"standard_id": f"S{i}", "x": x, "u_x": ux, "y": 2 * x + 0.01, "u_y": uy, "used": used}
+        for i, (x, ux, uy, used) in enumerate(
+            [(0.01, 0.0002, 0.001, True), (0.02, 0.0003, 0.002, True), (0.04, 0.0004, 0.003, True),
+             (0.03, 0.0003, 0.002, False)]
+        )
+    ]
+
+    def band(x, level=0.95):
+        x = np.asarray(x, float)
+        return 2 * x + 0.01, np.full_like(x, 0.004)
+
+    return SimpleNamespace(
+        element="Pb", line_id="Pb I 405.781", internal_standard="", model="linear", basis=basis,
+        standards=std, response=lambda x: 2 * np.atleast_1d(np.asarray(x, float)) + 0.01, band=band,
+    )
+
+
+def _bars(ax, label_start):
+    """Half-lengths of the x and y error bars of the errorbar container whose label starts so."""
+    cont = next(c for c in ax.containers if str(c.get_label()).startswith(label_start))
+    out = {0: np.array([]), 1: np.array([])}
+    for col in cont.lines[2]:  # one LineCollection per axis that has bars
+        segs = col.get_segments()
+        axis = 0 if segs[0][0][1] == segs[0][1][1] else 1  # horizontal bars: x error bars
+        out[axis] = np.array([abs(s[1][axis] - s[0][axis]) / 2 for s in segs])
+    return out[0], out[1]
+
+
+@pytest.mark.parametrize(
+    "options",
+    [
+        {"sample_x": 0.025},  # as on the certificate
+        {"unknowns": [("U-1", 0.025, 0.0005, 0.06)], "band_level": 0.95, "show_excluded": True},  # as the CLI
+    ],
+)
+def test_calibration_error_bars_are_expanded_uncertainties_with_k_2(options):
+    # certificates report U = k·u with k = 2 (JCGM 100:2008, 6.2.1 and 6.3.3, from memory): the
+    # curve's error bars are U, the same whichever caller draws it, and the legend says so
+    from compquant.calibrate.plots import curve_figure
+
+    c = _curve()
+    ax = curve_figure(c, **options).axes[0]
+    used = [s for s in c.standards if s["used"]]
+    xh, yh = _bars(ax, "standards")
+    assert np.allclose(xh, [2 * s["u_x"] * 100 for s in used])  # x in %, mass fraction × 100
+    assert np.allclose(yh, [2 * s["u_y"] for s in used])
+    assert "k = 2" in " ".join(t.get_text() for t in ax.get_legend().get_texts())
+
+
+def test_certificate_and_command_draw_the_calibration_curve_with_one_function(tmp_path):
+    from compquant.calibrate.plots import curve_png, plot_curve
+    from compquant.report.assemble import curve_figure as certificate_curve
+    from compquant.report.certificate import ResultRow
+
+    c = _curve()
+    row = ResultRow("Pb", 0.025, U=0.001)
+    assert certificate_curve(c, row, None) == curve_png(c, sample_x=0.025)
+    title = "Pb: R² = 0.99900, n = 3, LOD = 0.0001 g/g"
+    c.r2, c.lod = 0.999, 0.0001
+    p = plot_curve(c, tmp_path / "pb.png", unknowns=[("U-1", 0.025, 0.0005, 0.06)])
+    assert p.read_bytes() == curve_png(
+        c, unknowns=[("U-1", 0.025, 0.0005, 0.06)], band_level=0.95, show_excluded=True, title=title
+    )
+
+
+def test_saha_boltzmann_plot_of_a_result_states_the_temperature_of_its_slope():
+    # T = -1 / (k_B · slope), k_B from CODATA via scipy.constants (eV/K); error bars are the
+    # ordinates' standard uncertainties u (k = 1)
+    from types import SimpleNamespace
+
+    from compquant.cflibs.plots import saha_boltzmann_figure, saha_boltzmann_png
+    from compquant.report.assemble import boltzmann_figure
+
+    kB = constants.physical_constants["Boltzmann constant in eV/K"][0]
+    T, m = 9000.0, -1 / (constants.physical_constants["Boltzmann constant in eV/K"][0] * 9000.0)
+    xs = [3.8, 4.5, 5.1, 6.0]
+    lines = [
+        {"x_ev": x, "y": m * x + 1, "y_fit": m * x + 1, "u_ordinate": 0.1 + 0.05 * i, "species": "Fe I",
+         "line_id": f"Fe I {400 + i}.123"}
+        for i, x in enumerate(xs)
+    ]
+    res = SimpleNamespace(lines=lines, fit_mode="boltzmann", temperature_k=T, u_temperature_k=250.0,
+                          electron_density_cm3=1e17, ne_method="fixed", sample_id="X-1", fit={"slope_per_ev": m})
+    assert boltzmann_figure(res) == saha_boltzmann_png(res)  # the certificate draws the same figure
+    ax = saha_boltzmann_figure(res, detailed=True).axes[0]
+    _, yh = _bars(ax, "Fe I")
+    assert np.allclose(yh, [ln["u_ordinate"] for ln in lines])
+    texts = " ".join(t.get_text() for t in ax.texts)
+    assert f"T = {-1 / (kB * m):.0f} K" in texts and "T = 9000 K" in texts

@@ -13,13 +13,23 @@ a later import replaces an earlier row of the same line id.
 
 Importers:
 
-- :func:`read_nist_lines` -- the NIST Atomic Spectra Database line form, "tab-delimited" output
-  (columns ``element``, ``sp_num``, ``obs_wl_air(nm)`` or ``ritz_wl_air(nm)``, ``Aki(s^-1)``,
-  ``Acc``, ``Ei(eV)``, ``Ek(eV)``, ``g_i``, ``g_k``; from memory of the ASD output format, Kramida
-  et al., NIST ASD v5); values written as ``="324.754"`` and energies in brackets or parentheses
-  (theoretical / derived levels) are read as numbers.
-- :func:`read_nist_levels` -- the ASD level form, tab-delimited (``Configuration, Term, J, g,
-  Level (eV)``), for a level table (:func:`compquant.atomic.load_levels` columns).
+- :func:`read_nist_lines` -- the NIST Atomic Spectra Database lines form, "tab-delimited"
+  output.  Column headings as the ASD writes them (NIST ASD Lines Help, "Output for Lines",
+  physics.nist.gov/PhysRefData/ASD/Html/lineshelp.html; the same headings are listed in the ASDCache
+  documentation's data schema): ``element``, ``sp_num``, the wavelengths
+  ``obs_wl_air(nm)`` / ``ritz_wl_air(nm)`` or ``obs_wl_vac(nm)`` / ``ritz_wl_vac(nm)`` (the unit in
+  the brackets follows the form's wavelength unit: ``nm``, ``A``, ``um``), ``unc_obs_wl``,
+  ``unc_ritz_wl``, ``wn(cm-1)``, ``intens``, ``Aki(s^-1)`` (``gA(s^-1)`` when g_k A_ki was chosen
+  as the transition strength), ``fik``, ``S(a.u.)``, ``log_gf``, ``Acc``, ``Ei(<unit>)`` /
+  ``Ek(<unit>)`` in the form's energy unit (``cm-1``, the ASD default, or ``eV``), ``conf_i``,
+  ``term_i``, ``J_i``, ``conf_k``, ``term_k``, ``J_k``, ``g_i``, ``g_k``, ``Type``, ``tp_ref``,
+  ``line_ref``.  Values written as ``="324.754"`` and energies in brackets or parentheses
+  (derived / theoretical levels) are read as numbers; vacuum wavelengths are converted to
+  standard air (Morton 2000), energies in cm⁻¹ to eV (CODATA).
+- :func:`read_nist_levels` -- the ASD levels form, tab-delimited (``Configuration``, ``Term``,
+  ``J``, ``g``, ``Level (eV)`` or ``Level (cm-1)``, ``Uncertainty (...)``, ``Reference``; the
+  ``Limit`` row is the ionisation limit, not a level), for a level table
+  (:func:`compquant.atomic.load_levels` columns).
 - :func:`read_mapped_csv` -- any CSV with a column mapping ``{our column: their column}``.
 - :func:`add_to_overlay` -- merge imported lines into an overlay directory (atomic write).
 """
@@ -32,6 +42,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy import constants as _const
 
 from compquant.atomic.elements import known_symbols, species_name
 from compquant.errors import AtomicDataError, InputError
@@ -94,49 +105,109 @@ def _pick(df: pd.DataFrame, names: tuple[str, ...], path: Path) -> pd.Series:
                           fix="export the NIST ASD form as tab-delimited with these columns ticked")
 
 
+#: 1 cm^-1 in eV: h c (100 cm/m) / e, CODATA (scipy.constants)
+_CM1_TO_EV = _const.h * _const.c * 100.0 / _const.e
+_WL_UNIT_TO_NM = {"nm": 1.0, "A": 0.1, "um": 1000.0}
+_WL_COLUMN = re.compile(r"^(obs|ritz)_wl_(air|vac)\((nm|A|um)\)$")
+
+
+def _wavelength_air_nm(df: pd.DataFrame, path: Path) -> pd.Series:
+    """Observed wavelength where there is one, else Ritz; in standard air, nm."""
+    cols = {}
+    for c in df.columns:
+        m = _WL_COLUMN.match(c)
+        if m:
+            cols[m.group(1)] = (c, m.group(2), m.group(3))
+    if not cols:
+        raise AtomicDataError("no wavelength column (obs_wl_air(nm), ritz_wl_air(nm), obs_wl_vac(nm), ...)",
+                              where=str(path), fix="export the NIST ASD lines form as tab-delimited with "
+                              "observed and Ritz wavelengths ticked")
+    from compquant.atomic.airvac import vacuum_to_air
+
+    out = pd.Series(np.nan, index=df.index)
+    for kind in ("ritz", "obs"):  # observed wins where both are given
+        if kind not in cols:
+            continue
+        c, medium, unit = cols[kind]
+        wl = df[c].map(_number) * _WL_UNIT_TO_NM[unit]
+        if medium == "vac":
+            wl = pd.Series(vacuum_to_air(wl.to_numpy(float)), index=df.index)
+        out = wl.where(np.isfinite(wl), out)
+    return out
+
+
+def _energy_ev(df: pd.DataFrame, stem: str, path: Path) -> pd.Series:
+    if f"{stem}(eV)" in df.columns:
+        return df[f"{stem}(eV)"].map(_number)
+    if f"{stem}(cm-1)" in df.columns:
+        return df[f"{stem}(cm-1)"].map(_number) * _CM1_TO_EV
+    raise AtomicDataError(f"no column {stem}(eV) or {stem}(cm-1)", where=str(path),
+                          fix="tick level energies in the NIST ASD lines form")
+
+
 def read_nist_lines(path: str | os.PathLike, *, source: str | None = None) -> pd.DataFrame:
     """Lines from a NIST ASD tab-delimited line export, in the line-list columns.
 
-    Rows without Aki, g or level energies are left out (they cannot serve the physics).  The ASD
-    ``Acc`` letter becomes ``aki_grade`` (empty -> E).  ``source`` defaults to
-    ``"NIST ASD export <file name>"``.
+    Rows without Aki (or g_k A_ki), g or level energies are left out (they cannot serve the
+    physics).  The ASD ``Acc`` letter becomes ``aki_grade`` (empty -> E).  ``source`` defaults to
+    ``"NIST ASD export <file name>"``.  Column headings: see the module docstring.
     """
     path = Path(path)
     df = _read_table(path, "\t")
-    wl = _pick(df, ("obs_wl_air(nm)", "ritz_wl_air(nm)"), path).map(_number)
-    if "ritz_wl_air(nm)" in df.columns:
-        wl = wl.fillna(df["ritz_wl_air(nm)"].map(_number))
+    wl = _wavelength_air_nm(df, path)
     el = _pick(df, ("element",), path)
     ion = _pick(df, ("sp_num",), path).map(_number)
-    out = pd.DataFrame({"element": el, "ion": ion, "wavelength_nm": wl,
-                        "aki": _pick(df, ("Aki(s^-1)",), path).map(_number),
+    gk = _pick(df, ("g_k",), path).map(_number)
+    if "Aki(s^-1)" in df.columns:
+        aki = df["Aki(s^-1)"].map(_number)
+    elif "gA(s^-1)" in df.columns:
+        aki = df["gA(s^-1)"].map(_number) / gk
+    else:
+        raise AtomicDataError("no column Aki(s^-1) or gA(s^-1)", where=str(path),
+                              fix="choose Aki (or gk Aki) as the transition strength in the NIST ASD lines form")
+    out = pd.DataFrame({"element": el, "ion": ion, "wavelength_nm": wl, "aki": aki,
                         "aki_grade": _pick(df, ("Acc",), path).str.upper().replace("", "E"),
-                        "ei_ev": _pick(df, ("Ei(eV)",), path).map(_number),
-                        "ek_ev": _pick(df, ("Ek(eV)",), path).map(_number),
-                        "gi": _pick(df, ("g_i",), path).map(_number),
-                        "gk": _pick(df, ("g_k",), path).map(_number)})
+                        "ei_ev": _energy_ev(df, "Ei", path), "ek_ev": _energy_ev(df, "Ek", path),
+                        "gi": _pick(df, ("g_i",), path).map(_number), "gk": gk})
     out["source"] = source or f"NIST ASD export {path.name}"
     out["grade_basis"] = "NIST ASD accuracy letter"
     return _finish(out, path)
 
 
 def read_nist_levels(path: str | os.PathLike, *, source: str | None = None) -> pd.DataFrame:
-    """A level table (``energy_ev, g, source``) from a NIST ASD tab-delimited level export."""
+    """A level table (``energy_ev, g, source``) from a NIST ASD tab-delimited level export.
+
+    ``Level (eV)`` or ``Level (cm-1)``; ``g`` where exported, else ``2J + 1`` (a ``J`` listed as
+    ``"2,3,4"`` -- levels not resolved -- gives the sum of the 2J + 1); the ``Limit`` row (the
+    ionisation limit) is left out.
+    """
     path = Path(path)
     df = _read_table(path, "\t")
-    e = _pick(df, ("Level (eV)",), path).map(_number)
+    if "Term" in df.columns:
+        df = df[df["Term"].str.strip().str.lower() != "limit"]
+    if "Level (eV)" in df.columns:
+        e = df["Level (eV)"].map(_number)
+    else:
+        e = _pick(df, ("Level (cm-1)",), path).map(_number) * _CM1_TO_EV
     if "g" in df.columns:
         g = df["g"].map(_number)
     else:
-        g = 2 * _pick(df, ("J",), path).map(lambda j: _number(_frac(j))) + 1
+        g = _pick(df, ("J",), path).map(_weight_of_j)
     out = pd.DataFrame({"energy_ev": e, "g": g}).dropna()
     out = out[(out["g"] > 0) & (out["energy_ev"] >= 0)]
     if not len(out) or not np.any(out["energy_ev"] == 0):
-        raise AtomicDataError("no ground level (Level (eV) = 0) in the export", where=str(path),
+        raise AtomicDataError("no ground level (Level = 0) in the export", where=str(path),
                               fix="export the levels from the ground level up")
     out["g"] = out["g"].round().astype(int)
     out["source"] = source or f"NIST ASD export {path.name}"
     return out.sort_values("energy_ev", kind="stable").reset_index(drop=True)
+
+
+def _weight_of_j(j) -> float:
+    """``Σ (2J + 1)`` over the J values of a cell (``"3/2"``, ``"2"``, ``"2,3,4"``); NaN if none."""
+    parts = [p for p in str(j).replace('"', "").split(",") if p.strip()]
+    vals = [_number(_frac(p)) for p in parts]
+    return float(sum(2 * v + 1 for v in vals)) if vals and all(np.isfinite(vals)) else np.nan
 
 
 def _frac(j: str) -> str:

@@ -34,31 +34,18 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from compquant import results as _results
 from compquant.calibrate.build import certified_table, standard_map
 from compquant.calibrate.checks import check_verdict, en_number, z_score, zeta_score
 from compquant.calibrate.drift import correct, reference_response, two_point
 from compquant.calibrate.model import Calibration
+from compquant.calibrate.predict import coverage_factor, pls_rows, predict_sample, sample_rows
 from compquant.calibrate.response import sample_responses
 from compquant.errors import CalibrationError, DataQualityError
 
-RESULT_COLUMNS = [
-    "sample_id",
-    "element",
-    "mass_fraction",
-    "u",
-    "U",
-    "k",
-    "lod",
-    "loq",
-    "below_lod",
-    "flags",
-    "basis",
-    "line_id",
-    "role",
-    "dof",
-]
+#: the results table's columns, declared once (name, dtype, unit, meaning) in compquant.results
+RESULT_COLUMNS = list(_results.RESULT_COLUMNS)
 CHECK_COLUMNS = [
     "sample_id",
     "standard_id",
@@ -86,6 +73,26 @@ class QuantifyResult:
     provenance: dict
     valid_for_release: bool = True
     matrix_fraction: dict = field(default_factory=dict)  # sample -> (w, u) by difference
+
+    def to_frame(self) -> pd.DataFrame:
+        """The results as the declared contract (:mod:`compquant.results`: columns, order, dtypes)."""
+        return _results.to_frame(self.results)
+
+    def summary(self) -> str:
+        """A plain-text summary: calibration, drift, checks, then one line per result."""
+        prov = self.provenance or {}
+        info = {
+            "basis": "calibration",
+            "calibration": prov.get("calibration_id", ""),
+            "coverage": prov.get("coverage", "k2"),
+            "drift standardisation": "applied" if self.drift.get("applied") else
+            f"not applied ({self.drift.get('reason', '')})",
+            "check samples": f"{int(self.checks['passed'].sum())} of {len(self.checks)} passed"
+            if len(self.checks) else "none",
+            "valid for release": "yes" if self.valid_for_release else "NO",
+            "not reported": len(prov.get("not_reported", [])),
+        }
+        return _results.summary_text(self.to_frame(), "Calibrated results (compquant.calibrate.quantify)", info)
 
 
 def _tables(measurement):
@@ -130,131 +137,6 @@ def _tables(measurement):
     return lt, st, sm
 
 
-def coverage_factor(mode: str, dof: float) -> float:
-    """2, or ``t_0.975(nu_eff)`` for mode 'student' (GUM G.3-G.4)."""
-    if mode == "student" and math.isfinite(dof):
-        return float(stats.t.ppf(0.975, max(dof, 1.0)))
-    return 2.0
-
-
-def _closure(elements, x, ux, bases):
-    """Mass fractions from contents (ratios or mass fractions) with the matrix by difference."""
-    x = np.asarray(x, float)
-
-    def f(v):
-        r = np.where(bases == "ratio", v, 0.0)
-        wi = np.where(bases == "intensity", v, 0.0)
-        wm = (1.0 - wi.sum()) / (1.0 + r.sum())
-        return np.where(bases == "ratio", v * wm, v), wm
-
-    w, wm = f(x)
-    n = len(x)
-    J = np.zeros((n + 1, n))
-    for j in range(n):
-        h = 1e-7 * max(abs(x[j]), 1e-6)
-        xp, xm = x.copy(), x.copy()
-        xp[j] += h
-        xm[j] -= h
-        (wp, wmp), (wq, wmq) = f(xp), f(xm)
-        J[:n, j] = (wp - wq) / (2 * h)
-        J[n, j] = (wmp - wmq) / (2 * h)
-    cov = J @ np.diag(np.asarray(ux, float) ** 2) @ J.T
-    u = np.sqrt(np.clip(np.diag(cov), 0, None))
-    return w, u[:n], float(wm), float(u[n]), J
-
-
-def _pls_rows(measurement, calibration, smap, sample_ids, run_flags, not_reported,
-              matrix_fraction) -> list:
-    """Results of the PLS models (basis 'pls') when the measurement carries mean spectra."""
-    pls = calibration.pls
-    spectra = getattr(measurement, "mean_spectra", None)
-    wl = getattr(measurement, "wavelength", None)
-    if not pls or not spectra or wl is None:
-        if pls:
-            not_reported.append(
-                {
-                    "sample_id": "*",
-                    "element": ",".join(pls["models"]),
-                    "reason": "PLS needs the mean spectra of the measurement",
-                }
-            )
-        return []
-    from compquant.calibrate.pls import predict_pls, spectra_matrix
-
-    wl = np.asarray(wl, float)
-    ids = [s for s in sample_ids if s in spectra]
-    is_mask = None
-    if pls.get("is_mask_nm"):
-        is_mask = np.isin(np.round(wl, 6), np.round(np.asarray(pls["is_mask_nm"], float), 6))
-    if pls.get("target") == "ratio":
-        for s in ids:
-            if s not in matrix_fraction:
-                not_reported.append({"sample_id": s, "element": ",".join(pls["models"]),
-                                     "reason": "PLS ratio result needs the matrix fraction from the curves"})
-        ids = [s for s in ids if s in matrix_fraction]
-    if not ids:
-        return []
-    rows = []
-    for el, m in pls["models"].items():
-        want = np.asarray(m["wavelength_mask_nm"], float)
-        mask = np.isin(np.round(wl, 6), np.round(want, 6))
-        bad_is = is_mask is not None and int(is_mask.sum()) != len(pls["is_mask_nm"])
-        if int(mask.sum()) != len(want) or bad_is:
-            not_reported.append({"sample_id": "*", "element": el,
-                                 "reason": "the run's wavelength axis differs from the PLS calibration's"})
-            continue
-        X = spectra_matrix(spectra, ids, mask, pls.get("normalise", "none"), is_mask)
-        pr = predict_pls(m, X)
-        for i, sid in enumerate(ids):
-            f = matrix_fraction[sid][0] if pls.get("target") == "ratio" else 1.0
-            u = m["rmsecv"] * f
-            y = float(pr["y"][i]) * f
-            lo_r, hi_r = m["y_range"][0] * f, m["y_range"][1] * f
-            flags = []
-            below = y < 3 * u
-            if below:
-                flags.append("below_lod")
-            if not pr["inside"][i]:
-                flags.append("outside_model_space")
-            if y > hi_r:
-                flags.append("above_range")
-            elif y < lo_r and not below:
-                flags.append("below_range")
-            flags += run_flags
-            rows.append(
-                {
-                    "sample_id": sid,
-                    "element": el,
-                    "mass_fraction": y,
-                    "u": u,
-                    "U": 2 * u,
-                    "k": 2.0,
-                    "lod": 3 * u,
-                    "loq": 10 * u,
-                    "below_lod": bool(below),
-                    "flags": ";".join(flags),
-                    "basis": "pls",
-                    "line_id": f"PLS {m['n_components']} comp.: " + ", ".join(m["lines"]),
-                    "role": smap.get(sid, ("unknown", None))[0],
-                    "dof": float(m["n"] - 1),
-                }
-            )
-    return rows
-
-
-def _beyond_range(x: float, range_x, allow: float) -> str:
-    """Why a predicted content ``x`` is not reported: above the top of the calibrated range
-    ``range_x`` by more than the fraction ``allow`` of it (the method's ``max_above_range``); "" if not.
-    Inverse prediction beyond the standards rests on the curve's form alone: a calibration holds
-    over the range of its reference materials (ISO 11095:1996, linear calibration using reference
-    materials; from memory of that standard)."""
-    top = float(range_x[1])
-    if not (top > 0 and math.isfinite(x)) or x <= top * (1 + allow) * (1 + 1e-9):
-        return ""
-    return (f"{100 * (x / top - 1):.0f} % above the calibrated range (the method allows "
-            f"{100 * allow:g} %): add a standard above it")
-
-
 def quantify(
     measurement,
     calibration: Calibration,
@@ -263,170 +145,170 @@ def quantify(
     run_sha256: str | None = None,
     samples: pd.DataFrame | None = None,
 ) -> QuantifyResult:
-    """Results per (sample, element) for every non-setup sample of the run."""
+    """Results per (sample, element) for every non-setup sample of the run.
+
+    Parameters
+    ----------
+    measurement : LineMeasurement, DataFrame or tuple
+        The run's line table (and shot and sample tables), from :func:`compquant.lines.measure_run`.
+    calibration : Calibration
+        The calibration to apply (:func:`compquant.calibrate.calibrate` or ``Calibration.load``).
+    standards : DataFrame, optional
+        Certified values for the check samples (default: those stored in the calibration).
+    run_sha256 : str, optional
+        SHA-256 of the run; the calibration run itself is not drift-standardised.
+    samples : DataFrame, optional
+        The run's sample table (roles, standard references).
+
+    Returns
+    -------
+    QuantifyResult
+        ``results`` (columns :data:`RESULT_COLUMNS`, declared in :mod:`compquant.results`),
+        ``checks`` (:data:`CHECK_COLUMNS`), ``drift``, ``provenance``, ``valid_for_release``,
+        ``matrix_fraction``.
+
+    Notes
+    -----
+    Steps 1-5 of the module docstring: drift standardisation (:func:`_drift_standardise`),
+    inverse prediction with interference corrections, closure with the matrix by difference,
+    flags and ``U = k u`` (:mod:`compquant.calibrate.predict`: ``predict_sample``,
+    ``sample_rows``), check samples (:func:`_check_table`).
+
+    References
+    ----------
+    .. [1] JCGM 100:2008 (GUM), 5.1.2 and G.3-G.4.
+    .. [2] ISO 13528:2015, E_n, zeta and z scores.
+    """
     lt, st, sm = _tables(measurement)
     samples = samples if samples is not None else sm
     cfg = calibration.settings
     drift_mode = cfg.get("drift", "optional")
     allow_above = float(cfg.get("max_above_range", 0.10))  # saved before the setting existed: 10 %
     smap = standard_map(lt, samples)
-    drift = {"applied": False, "mode": drift_mode, "level": "response"}
-    run_flags = []
     curves = calibration.curves
-    els = list(curves)
-    resp = {}
-    for el, c in curves.items():
-        resp[el] = sample_responses(lt, c.line_id, c.internal_standard, st, where=f"quantify {el} ({c.line_id})")
-    if drift_mode == "off":
-        drift["reason"] = "drift standardisation switched off in the method"
-    elif run_sha256 and run_sha256 == calibration.run_sha256:
-        drift["reason"] = "this is the calibration run (setup references measured here)"
-    else:
-        # per curve: the response (intensity or ratio to the internal standard) of each setup sample
-        # now, against its reference from the stored setup intensities
-        coefs, missing = {}, []
-        setups = [s for s, (role, _) in smap.items() if role == "setup"]
-        for el, c in curves.items():
-            key = c.line_id + (f" / {c.internal_standard}" if c.internal_standard else "")
-            pts = []
-            for sid in setups:
-                ref = reference_response(calibration.setup_reference, sid, c.line_id, c.internal_standard)
-                if ref is None or sid not in resp[el].index:
-                    continue
-                m = resp[el].loc[sid]
-                # a setup measurement scatters about its expected response like any sample:
-                # its repeatability plus the curve's excess scatter sigma_m (docs/calibration.md)
-                uy = float(m["u_y"])
-                w0 = 1.0 / uy**2 if (c.weighted and uy > 0) else 1.0
-                pts.append((ref[0], float(m["y"]), float(np.sqrt(uy**2 + c.sigma_m2 / w0)), sid))
-            coef = two_point(pts)
-            if coef is None:
-                missing.append(key)
-                continue
-            coef["element"] = el
-            coefs[key] = coef
-            r = resp[el].copy()
-            y, u = correct(r["y"].to_numpy(float), r["u_y"].to_numpy(float), coef)
-            r["y"], r["u_y"] = y, u
-            resp[el] = r
-        if coefs:
-            drift.update(applied=True, coefficients=coefs,
-                         setup_samples=sorted({s for c in coefs.values() for s in c["samples"]}),
-                         uncorrected_lines=missing)
-        if missing and drift_mode == "required":
-            raise DataQualityError(
-                "drift standardisation required but the run has no usable setup "
-                f"measurement for {', '.join(missing)}",
-                where="quantify",
-                fix="measure the setup samples of the calibration in this run",
-            )
-        if missing:
-            drift["reason"] = ("no setup samples in the run" if not coefs else
-                               f"setup measurements missing for {', '.join(missing)}")
-            run_flags.append("no_drift_correction" if not coefs else "partial_drift_correction")
+    resp = {el: sample_responses(lt, c.line_id, c.internal_standard, st, where=f"quantify {el} ({c.line_id})")
+            for el, c in curves.items()}
+    drift, run_flags = _drift_standardise(curves, resp, calibration, smap, drift_mode, run_sha256)
     sample_ids = [s for s in dict.fromkeys(map(str, lt["sample_id"])) if smap.get(s, ("unknown", None))[0] != "setup"]
     coverage = cfg.get("coverage", "k2")
     rows, not_reported, matrix_fraction = [], [], {}
     for sid in sample_ids:
-        role = smap.get(sid, ("unknown", None))[0]
-        ok = [el for el in els if sid in resp[el].index and np.isfinite(resp[el].loc[sid, "y"])]
-        for el in els:
-            if el not in ok:
-                not_reported.append({"sample_id": sid, "element": el, "reason": "no valid response"})
-        # fixed-point iteration over interference corrections
-        xcur = {el: 0.0 for el in ok}
-        ucur = {el: 0.0 for el in ok}
-        preds = {}
-        failed = {}
-        for _ in range(100):
-            change = 0.0
-            for el in ok:
-                c = curves[el]
-                r = resp[el].loc[sid]
-                xi = {it["element"]: xcur.get(it["element"], 0.0) for it in c.interferences}
-                uxi = {it["element"]: ucur.get(it["element"], 0.0) for it in c.interferences}
-                try:
-                    p = c.predict_content(
-                        float(r["y"]),
-                        float(r["u_y"]),
-                        int(r["n_shots"]),
-                        xi,
-                        uxi,
-                        where=f"sample {sid}, {el}",
-                    )
-                except CalibrationError as exc:
-                    failed[el] = exc.one_line()
-                    continue
-                failed.pop(el, None)
-                change = max(change, abs(p["x"] - xcur[el]) / max(abs(p["x"]), 1e-12))
-                xcur[el], ucur[el] = p["x"], p["u"]
-                preds[el] = p
-            if change < 1e-12:
-                break
-        for el, why in failed.items():
-            not_reported.append({"sample_id": sid, "element": el, "reason": why})
+        ok = [el for el in curves if sid in resp[el].index and np.isfinite(resp[el].loc[sid, "y"])]
+        not_reported += [{"sample_id": sid, "element": el, "reason": "no valid response"}
+                         for el in curves if el not in ok]
+        preds, failed = predict_sample(sid, ok, curves, resp)
+        not_reported += [{"sample_id": sid, "element": el, "reason": why} for el, why in failed.items()]
         good = [el for el in ok if el in preds and el not in failed]
-        if not good:
-            continue
-        bases = np.array([curves[el].basis for el in good])
-        w, uw, wm, uwm, _ = _closure(good, [preds[el]["x"] for el in good], [preds[el]["u"] for el in good], bases)
-        if np.any(bases == "ratio"):
-            matrix_fraction[sid] = (wm, uwm)
-        for i, el in enumerate(good):
-            c = curves[el]
-            p = preds[el]
-            why = _beyond_range(p["x"], c.range_x, allow_above)
-            if why:  # extrapolated too far: no number (docs/certificate.md, release rules)
-                not_reported.append({"sample_id": sid, "element": el, "reason": why})
-                continue
-            r = resp[el].loc[sid]
-            wmul = wm if c.basis == "ratio" else 1.0
-            lod, loq = c.lod_x * wmul, c.loq_x * wmul
-            flags = list(r["flags"])
-            below = bool(w[i] < lod)
-            if below:
-                flags.append("below_lod")
-            elif w[i] < loq:
-                flags.append("below_loq")
-            if p["x"] > c.range_x[1] * (1 + 1e-9):
-                flags.append("above_range")
-            elif p["x"] < c.range_x[0] * (1 - 1e-9) and not below:
-                flags.append("below_range")
-            if c.interferences:
-                flags.append("interference_corrected")
-            flags += run_flags
-            k = coverage_factor(coverage, p["dof"])
-            rows.append(
-                {
-                    "sample_id": sid,
-                    "element": el,
-                    "mass_fraction": float(w[i]),
-                    "u": float(uw[i]),
-                    "U": float(k * uw[i]),
-                    "k": k,
-                    "lod": float(lod),
-                    "loq": float(loq),
-                    "below_lod": below,
-                    "flags": ";".join(dict.fromkeys(flags)),
-                    "basis": "calibration",
-                    "line_id": c.line_id,
-                    "role": role,
-                    "dof": float(p["dof"]),
-                }
-            )
+        if good:
+            rows += sample_rows(sid, smap.get(sid, ("unknown", None))[0], good, preds, curves, resp, allow_above,
+                                 coverage, run_flags, not_reported, matrix_fraction)
     # the PLS spectra are not drift-standardised: in a later run say so on every PLS result
     later = drift_mode != "off" and not (run_sha256 and run_sha256 == calibration.run_sha256)
     pls_flags = [f for f in run_flags if f not in ("no_drift_correction", "partial_drift_correction")]
     if later:
         pls_flags.append("no_drift_correction")
-    rows += _pls_rows(measurement, calibration, smap, sample_ids, pls_flags, not_reported,
+    rows += pls_rows(measurement, calibration, smap, sample_ids, pls_flags, not_reported,
                       matrix_fraction)
     results = pd.DataFrame(rows, columns=RESULT_COLUMNS)
-    # check samples
     certs = (
         certified_table(standards) if standards is not None else certified_table(pd.DataFrame(calibration.standards))
     )
-    spt = cfg.get("sigma_pt_rel")
+    checks = _check_table(results, smap, certs, cfg.get("sigma_pt_rel"))
+    valid = bool(checks["passed"].all()) if len(checks) else True
+    if not valid:
+        results["flags"] = [
+            ";".join([f for f in (fl.split(";") if fl else [])] + ["check_failed"]) for fl in results["flags"]
+        ]
+    prov = {
+        "calibration_id": calibration.calibration_id,
+        "method_id": calibration.method_id,
+        "method_sha256": calibration.method_sha256,
+        "calibration_created": calibration.created_utc,
+        "run_sha256": run_sha256 or "",
+        "coverage": coverage,
+        "not_reported": not_reported,
+        "rejected_analytes": dict(calibration.rejected),
+        "checks_passed": valid,
+        "n_checks": int(len(checks)),
+        "matrix_element": calibration.matrix_element,
+    }
+    return QuantifyResult(
+        results=results,
+        checks=checks,
+        drift=drift,
+        provenance=prov,
+        valid_for_release=valid,
+        matrix_fraction=matrix_fraction,
+    )
+
+
+def _drift_standardise(curves, resp, calibration, smap, drift_mode, run_sha256) -> tuple[dict, list]:
+    """Two-point drift standardisation of every curve's responses ``resp`` (corrected in place).
+
+    Per curve, the response (intensity or ratio to the internal standard) of each setup sample now,
+    against its reference from the stored setup intensities (:mod:`compquant.calibrate.drift`).
+    Returns the drift record and the flags every result of the run carries.
+    """
+    drift = {"applied": False, "mode": drift_mode, "level": "response"}
+    run_flags: list[str] = []
+    if drift_mode == "off":
+        drift["reason"] = "drift standardisation switched off in the method"
+        return drift, run_flags
+    if run_sha256 and run_sha256 == calibration.run_sha256:
+        drift["reason"] = "this is the calibration run (setup references measured here)"
+        return drift, run_flags
+    coefs, missing = {}, []
+    setups = [s for s, (role, _) in smap.items() if role == "setup"]
+    for el, c in curves.items():
+        key = c.line_id + (f" / {c.internal_standard}" if c.internal_standard else "")
+        coef = two_point(_setup_points(c, resp[el], setups, calibration.setup_reference))
+        if coef is None:
+            missing.append(key)
+            continue
+        coef["element"] = el
+        coefs[key] = coef
+        r = resp[el].copy()
+        y, u = correct(r["y"].to_numpy(float), r["u_y"].to_numpy(float), coef)
+        r["y"], r["u_y"] = y, u
+        resp[el] = r
+    if coefs:
+        drift.update(applied=True, coefficients=coefs,
+                     setup_samples=sorted({s for c in coefs.values() for s in c["samples"]}),
+                     uncorrected_lines=missing)
+    if missing and drift_mode == "required":
+        raise DataQualityError(
+            "drift standardisation required but the run has no usable setup "
+            f"measurement for {', '.join(missing)}",
+            where="quantify",
+            fix="measure the setup samples of the calibration in this run",
+        )
+    if missing:
+        drift["reason"] = ("no setup samples in the run" if not coefs else
+                           f"setup measurements missing for {', '.join(missing)}")
+        run_flags.append("no_drift_correction" if not coefs else "partial_drift_correction")
+    return drift, run_flags
+
+
+def _setup_points(c, resp_el, setups, setup_reference) -> list:
+    """``(reference, now, u_now, sample)`` of each setup sample measured now for curve ``c``.
+
+    A setup measurement scatters about its expected response like any sample: its repeatability
+    plus the curve's excess scatter sigma_m (docs/calibration.md).
+    """
+    pts = []
+    for sid in setups:
+        ref = reference_response(setup_reference, sid, c.line_id, c.internal_standard)
+        if ref is None or sid not in resp_el.index:
+            continue
+        m = resp_el.loc[sid]
+        uy = float(m["u_y"])
+        w0 = 1.0 / uy**2 if (c.weighted and uy > 0) else 1.0
+        pts.append((ref[0], float(m["y"]), float(np.sqrt(uy**2 + c.sigma_m2 / w0)), sid))
+    return pts
+
+
+def _check_table(results: pd.DataFrame, smap: dict, certs: dict, spt) -> pd.DataFrame:
+    """Check samples against their certified values: E_n, zeta and z (ISO 13528), pass or fail."""
     chk = []
     for r in results[(results["role"] == "check") & (results["basis"] == "calibration")].itertuples():
         ref = smap[r.sample_id][1]
@@ -455,33 +337,7 @@ def quantify(
                 "passed": check_verdict(en, z),
             }
         )
-    checks = pd.DataFrame(chk, columns=CHECK_COLUMNS)
-    valid = bool(checks["passed"].all()) if len(checks) else True
-    if not valid:
-        results["flags"] = [
-            ";".join([f for f in (fl.split(";") if fl else [])] + ["check_failed"]) for fl in results["flags"]
-        ]
-    prov = {
-        "calibration_id": calibration.calibration_id,
-        "method_id": calibration.method_id,
-        "method_sha256": calibration.method_sha256,
-        "calibration_created": calibration.created_utc,
-        "run_sha256": run_sha256 or "",
-        "coverage": coverage,
-        "not_reported": not_reported,
-        "rejected_analytes": dict(calibration.rejected),
-        "checks_passed": valid,
-        "n_checks": int(len(checks)),
-        "matrix_element": calibration.matrix_element,
-    }
-    return QuantifyResult(
-        results=results,
-        checks=checks,
-        drift=drift,
-        provenance=prov,
-        valid_for_release=valid,
-        matrix_fraction=matrix_fraction,
-    )
+    return pd.DataFrame(chk, columns=CHECK_COLUMNS)
 
 
 __all__ = ["quantify", "QuantifyResult", "RESULT_COLUMNS", "CHECK_COLUMNS", "coverage_factor"]

@@ -12,19 +12,9 @@ import numpy as np
 import pandas as pd
 
 from compquant.calibrate.config import AnalyteConfig, CalibrationConfig
+from compquant.calibrate.curve import curve_from_records
 from compquant.calibrate.drift import reference_intensities
-from compquant.calibrate.fit import (
-    QUADRATIC_MODELS,
-    WEIGHTED_MODELS,
-    d_dxi,
-    fit_curve,
-    lack_of_fit,
-    lack_of_fit_shots,
-    mandel_test,
-    outlier_limit,
-    slope_at,
-)
-from compquant.calibrate.limits import blank_sd, iso11843_2, lod_loq
+from compquant.calibrate.limits import blank_sd
 from compquant.calibrate.model import Calibration, Curve
 from compquant.calibrate.response import sample_responses
 from compquant.errors import CalibrationError, StandardsError
@@ -146,206 +136,6 @@ def _curve_for(a: AnalyteConfig, cfg: CalibrationConfig, line_table, shot_table,
     return curve_from_records(a, recs, outlier_alpha=cfg.outlier_alpha, blank=bl, where=where)
 
 
-def curve_from_records(
-    a: AnalyteConfig,
-    recs: list,
-    *,
-    outlier_alpha: float = 0.05,
-    blank: tuple | None = None,
-    where: str = "calibration",
-) -> Curve:
-    """Fit one analyte's curve from per-standard records.
-
-    Each record: ``standard_id, sample_id, x, u_x, y, u_y, n_shots, used, reason``
-    (+ ``w`` mass fraction, ``matrix_fraction`` for basis 'ratio', ``xi:<El>`` and
-    ``uxi:<El>`` per interferer, ``shots`` per-shot responses or None,
-    ``line_flags``).  ``blank``: ``(s, source, n)`` from :func:`blank_sd` or None.
-    """
-    recs = [dict(r) for r in recs]
-    for r in recs:
-        r.setdefault("reason", "")
-        r.setdefault("used", True)
-        r.setdefault("shots", None)
-        r.setdefault("line_flags", "")
-    weighted = a.model in WEIGHTED_MODELS
-    interf = [(it["element"], it["kind"]) for it in a.interferences]
-    limit_used = None
-    while True:
-        use = [r for r in recs if r["used"]]
-        x = np.array([r["x"] for r in use])
-        y = np.array([r["y"] for r in use])
-        uy = np.array([r["u_y"] for r in use])
-        xi = {el: np.array([r[f"xi:{el}"] for r in use]) for el, _ in interf}
-        if weighted and np.any(uy <= 0):
-            raise CalibrationError(
-                "a standard has zero response uncertainty; weights 1/u^2 undefined",
-                where=where,
-                fix="use model 'linear'",
-            )
-        fit = fit_curve(
-            x,
-            y,
-            model=a.model,
-            through_origin=a.through_origin,
-            weights=1.0 / uy**2 if weighted else None,
-            xi=xi,
-            interferences=interf,
-            where=where,
-        )
-        limit_used = outlier_limit(fit.n, len(fit.terms), outlier_alpha)
-        worst = int(np.argmax(np.abs(fit.studentized)))
-        t_worst = float(fit.studentized[worst])
-        if a.outliers == "exclude" and abs(t_worst) > limit_used and fit.n - 1 >= max(3, len(fit.terms) + 2):
-            use[worst].update(
-                used=False,
-                reason=f"outlier: studentised residual {t_worst:.2f} beyond "
-                f"+-{limit_used:.2f} (Bonferroni, alpha "
-                f"{outlier_alpha})",
-            )
-            continue
-        break
-    beta = fit.beta
-    slope = slope_at(fit.terms, beta, x, xi)
-    if (
-        np.any(slope <= 0)
-        or slope_at(fit.terms, beta, np.array([x.min(), x.max()]), {k: np.zeros(2) for k in xi}).min() <= 0
-    ):
-        raise CalibrationError(
-            f"curve sensitivity is not positive over the standards' range (slope {float(np.min(slope)):.3g})",
-            where=where,
-            fix="check the line choice, the standards, or the model",
-        )
-    if "x2" in fit.terms:
-        c2 = beta[fit.terms.index("x2")]
-        c1 = beta[fit.terms.index("x")]
-        if c2 < 0 and -c1 / (2 * c2) < x.max():
-            raise CalibrationError(
-                "quadratic curve turns over inside the calibrated range",
-                where=where,
-                fix="use the linear model or fewer high standards",
-            )
-    # stated variance: repeatability + certified uncertainty through the local slope
-    ux = np.array([r["u_x"] for r in use])
-    kstat = uy**2 + (slope * ux) ** 2
-    for el, _ in interf:
-        kstat = kstat + (np.asarray(d_dxi(fit.terms, beta, x, el)) * np.array([r[f"uxi:{el}"] for r in use])) ** 2
-    scale_stated = float(np.mean(fit.w * kstat))
-    scale_used = max(fit.scale, scale_stated)
-    # scatter of a new sample about the curve beyond its own repeatability: the
-    # observed residual variance (never less than the stated one) minus the
-    # standards' mean repeatability, which the unknown's replaces
-    sigma_m2 = max(scale_used - float(np.mean(fit.w * uy**2)), 0.0)
-    cov = scale_used * fit.xtwx_inv
-    # per-standard diagnostics
-    lim = limit_used
-    for i, r in enumerate(use):
-        r.update(
-            fitted=float(fit.fitted[i]),
-            residual=float(fit.resid[i]),
-            studentized=float(fit.studentized[i]),
-            leverage=float(fit.leverage[i]),
-            outlier=bool(abs(fit.studentized[i]) > lim),
-        )
-    # lack of fit: repeated standards first, else shots
-    refs = [r["standard_id"] for r in use]
-    lof = lack_of_fit(fit, refs) if len(set(refs)) < len(refs) else None
-    if lof is None and all(r["shots"] is not None for r in use):
-        lof = lack_of_fit_shots(fit, [r["shots"] for r in use])
-    mandel = (
-        mandel_test(x, y, 1.0 / uy**2 if weighted else None)
-        if a.model not in QUADRATIC_MODELS and not interf and not a.through_origin
-        else None
-    )
-    resid_sd = float(np.sqrt(np.sum(fit.resid**2) / fit.dof))
-    # detection limits
-    s0 = slope_at(fit.terms, beta, 0.0, {el: 0.0 for el, _ in interf})
-    if s0 <= 0:
-        raise CalibrationError(
-            "curve sensitivity at zero content is not positive",
-            where=where,
-            fix="check the model (a quadratic may bend at low content)",
-        )
-    if blank is not None and blank[0] > 0:
-        s_blank, lod_source = blank[0], f"blank: {blank[1]}"
-    else:
-        s_blank, lod_source = resid_sd, "calibration residual sd (no usable blank in the run)"
-    # a zero scatter (identical blank shots and a perfect fit: copied or noise-free data) gives
-    # no detection limit at all; refuse rather than certify against LOD = 0
-    y_scale = float(np.max(np.abs(y))) if len(y) else 0.0
-    if not (np.isfinite(s_blank) and s_blank > 1e-12 * max(y_scale, 1e-300)):
-        raise CalibrationError(
-            "the blank scatter and the calibration residuals are both zero: no detection limit can be computed",
-            where=where,
-            fix="measure a blank with several shots; identical shots suggest copied or simulated noise-free data",
-        )
-    lod_x, loq_x = lod_loq(s_blank, s0)
-    iso = iso11843_2(x, y) if not interf else None
-    ws = np.array([r.get("w", r["x"]) for r in use])
-    wm_nom = float(np.mean([r["matrix_fraction"] for r in use])) if a.basis == "ratio" else 1.0
-    if iso is not None and a.basis == "ratio":
-        iso["x_c_mass_fraction"] = iso["x_c"] * wm_nom
-        iso["x_d_mass_fraction"] = iso["x_d"] * wm_nom
-    icorr = []
-    for el, kind in interf:
-        term = f"{'add' if kind == 'additive' else 'mul'}:{el}"
-        j = fit.terms.index(term)
-        icorr.append(
-            {
-                "element": el,
-                "kind": kind,
-                "coefficient": float(beta[j]),
-                "u": float(math.sqrt(cov[j, j])),
-                "meaning": (
-                    "response added per unit content of the interferer"
-                    if kind == "additive"
-                    else "sensitivity change per unit content of the interferer"
-                ),
-            }
-        )
-    stds_out = []
-    for r in recs:
-        d = {k: v for k, v in r.items() if k != "shots"}
-        stds_out.append(d)
-    return Curve(
-        element=a.element,
-        line_id=a.line,
-        basis=a.basis,
-        internal_standard=a.internal_standard,
-        model=a.model,
-        through_origin=a.through_origin,
-        weighted=weighted,
-        terms=list(fit.terms),
-        beta=beta.tolist(),
-        cov_fit=fit.cov.tolist(),
-        cov=cov.tolist(),
-        scale=float(fit.scale),
-        scale_stated=scale_stated,
-        sigma_m2=sigma_m2,
-        dof=int(fit.dof),
-        r2=float(fit.r2),
-        residual_sd=resid_sd,
-        range_x=[float(x.min()), float(x.max())],
-        range_mass_fraction=[float(ws.min()), float(ws.max())],
-        matrix_fraction_nominal=wm_nom,
-        lod_x=float(lod_x),
-        loq_x=float(loq_x),
-        lod=float(lod_x * wm_nom),
-        loq=float(loq_x * wm_nom),
-        lod_source=lod_source,
-        iso11843=iso,
-        standards=stds_out,
-        interferences=icorr,
-        diagnostics={
-            "lack_of_fit": lof,
-            "mandel": mandel,
-            "outlier_limit": float(lim),
-            "n_used": int(fit.n),
-            "n_excluded": int(sum(not r["used"] for r in recs)),
-            "s_blank": float(s_blank),
-        },
-    )
-
-
 def calibrate(
     line_table: pd.DataFrame,
     standards: pd.DataFrame,
@@ -365,7 +155,10 @@ def calibrate(
 
     Analytes whose curve cannot be made (too few standards, non-positive slope ...)
     are listed in ``Calibration.rejected`` with the reason; if none can be made a
-    :class:`CalibrationError` is raised.  ``pls``: optional fitted PLS block
+    :class:`CalibrationError` is raised.  An internal-standard line that is a resonance line or
+    self-absorbed over the standards (:func:`compquant.calibrate.istd_check.check_calibration`)
+    gives an :class:`~compquant.calibrate.istd_check.InternalStandardWarning` with alternatives,
+    kept in each curve's ``diagnostics["internal_standard"]``.  ``pls``: optional fitted PLS block
     (``compquant.calibrate.pls``) stored in the calibration.
     """
     smap = standard_map(line_table, samples)
@@ -384,6 +177,13 @@ def calibrate(
             where=str(run_path) if run_path else method_id,
             fix="see the reasons; check standards, lines and models",
         )
+    # internal-standard lines that are resonance lines or self-absorbed: warned, kept with the curves
+    from compquant.calibrate.istd_check import check_calibration
+
+    for istd, rec in check_calibration(curves, line_table, smap, certs, config.matrix_element).items():
+        for c in curves.values():
+            if c.internal_standard == istd:
+                c.diagnostics["internal_standard"] = rec
     refs = {ref for role, ref in smap.values() if ref}
     std_rows = standards[standards["standard_id"].isin(refs)].to_dict(orient="records")
     lines = sorted(

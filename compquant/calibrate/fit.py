@@ -161,7 +161,58 @@ def fit_curve(
     n = len(x)
     xi = {k: np.asarray(v, float).ravel() for k, v in (xi or {}).items()}
     terms = design_terms(model, through_origin, interferences)
-    p = len(terms)
+    _check_data(x, y, len(terms), where)
+    w = _weights(weights, model, n, where)
+    X = design_matrix(terms, x, xi)
+    sw = np.sqrt(w)
+    Xw = X * sw[:, None]
+    yw = y * sw
+    # scale columns before the rank test so that tiny contents do not look singular
+    colscale = np.linalg.norm(Xw, axis=0)
+    if np.any(colscale == 0) or np.linalg.matrix_rank(Xw / colscale) < len(terms):
+        raise CalibrationError(
+            "singular calibration design (a term does not vary between standards)",
+            where=where,
+            fix="drop the term (e.g. an interference whose content is constant) or add standards",
+        )
+    Q, R = np.linalg.qr(Xw)
+    beta = np.linalg.solve(R, Q.T @ yw)
+    Rinv = np.linalg.inv(R)
+    xtwx_inv = Rinv @ Rinv.T
+    fitted = X @ beta
+    resid = y - fitted
+    dof = n - len(terms)
+    ssr = float(np.sum(w * resid**2))
+    scale = ssr / dof
+    lev = np.sum(Q**2, axis=1)
+    if "1" in terms:
+        ybar = np.sum(w * y) / np.sum(w)
+        sst = float(np.sum(w * (y - ybar) ** 2))
+    else:
+        sst = float(np.sum(w * y**2))
+    r2 = 1.0 - ssr / sst if sst > 0 else float("nan")
+    return CurveFit(
+        terms=terms,
+        beta=beta,
+        cov=scale * xtwx_inv,
+        xtwx_inv=xtwx_inv,
+        scale=scale,
+        dof=dof,
+        x=x,
+        y=y,
+        w=w,
+        xi=xi,
+        fitted=fitted,
+        resid=resid,
+        leverage=lev,
+        studentized=_studentized(resid, sw, lev, scale, dof),
+        r2=r2,
+    )
+
+
+def _check_data(x, y, p: int, where: str) -> None:
+    """Refuse fewer than 3 standards, fewer than ``p + 1``, non-finite data or identical contents."""
+    n = len(x)
     if n < 3:
         raise CalibrationError(
             f"only {n} standard(s) usable; at least 3 are needed",
@@ -184,6 +235,10 @@ def fit_curve(
             where=where,
             fix="use standards that span the calibration range",
         )
+
+
+def _weights(weights, model: str, n: int, where: str) -> np.ndarray:
+    """The least-squares weights: ones (OLS), or the given 1/u^2, finite and positive."""
     if weights is None:
         if model in WEIGHTED_MODELS:
             raise CalibrationError(
@@ -191,46 +246,21 @@ def fit_curve(
                 where=where,
                 fix="use model 'linear' or provide u_intensity",
             )
-        w = np.ones(n)
-    else:
-        w = np.asarray(weights, float).ravel()
-        if w.shape != (n,) or not np.all(np.isfinite(w)) or np.any(w <= 0):
-            raise CalibrationError(
-                "weights must be finite and > 0 (zero response uncertainty?)",
-                where=where,
-                fix="check u_intensity of the standards",
-            )
-    X = design_matrix(terms, x, xi)
-    sw = np.sqrt(w)
-    Xw = X * sw[:, None]
-    yw = y * sw
-    # scale columns before the rank test so that tiny contents do not look singular
-    colscale = np.linalg.norm(Xw, axis=0)
-    if np.any(colscale == 0) or np.linalg.matrix_rank(Xw / colscale) < p:
+        return np.ones(n)
+    w = np.asarray(weights, float).ravel()
+    if w.shape != (n,) or not np.all(np.isfinite(w)) or np.any(w <= 0):
         raise CalibrationError(
-            "singular calibration design (a term does not vary between standards)",
+            "weights must be finite and > 0 (zero response uncertainty?)",
             where=where,
-            fix="drop the term (e.g. an interference whose content is constant) or add standards",
+            fix="check u_intensity of the standards",
         )
-    Q, R = np.linalg.qr(Xw)
-    beta = np.linalg.solve(R, Q.T @ yw)
-    Rinv = np.linalg.inv(R)
-    xtwx_inv = Rinv @ Rinv.T
-    fitted = X @ beta
-    resid = y - fitted
-    dof = n - p
-    ssr = float(np.sum(w * resid**2))
-    scale = ssr / dof
-    cov = scale * xtwx_inv
-    lev = np.sum(Q**2, axis=1)
-    if "1" in terms:
-        ybar = np.sum(w * y) / np.sum(w)
-        sst = float(np.sum(w * (y - ybar) ** 2))
-    else:
-        sst = float(np.sum(w * y**2))
-    r2 = 1.0 - ssr / sst if sst > 0 else float("nan")
-    # externally studentised residuals (Belsley, Kuh & Welsch 1980; statsmodels
-    # OLSInfluence.resid_studentized_external)
+    return w
+
+
+def _studentized(resid, sw, lev, scale: float, dof: int) -> np.ndarray:
+    """Externally studentised residuals (Belsley, Kuh & Welsch 1980; statsmodels
+    OLSInfluence.resid_studentized_external); NaN (too few degrees of freedom) as 0."""
+    n = len(resid)
     with np.errstate(divide="ignore", invalid="ignore"):
         if scale > 0:
             r_int = resid * sw / np.sqrt(scale * np.clip(1 - lev, 1e-300, None))
@@ -240,23 +270,7 @@ def fit_curve(
             t_ext = r_int * np.sqrt((dof - 1) / np.clip(dof - r_int**2, 1e-300, None))
         else:
             t_ext = np.full(n, np.nan)
-    return CurveFit(
-        terms=terms,
-        beta=beta,
-        cov=cov,
-        xtwx_inv=xtwx_inv,
-        scale=scale,
-        dof=dof,
-        x=x,
-        y=y,
-        w=w,
-        xi=xi,
-        fitted=fitted,
-        resid=resid,
-        leverage=lev,
-        studentized=np.nan_to_num(t_ext, nan=0.0),
-        r2=r2,
-    )
+    return np.nan_to_num(t_ext, nan=0.0)
 
 
 def outlier_limit(n: int, p: int, alpha: float = 0.05) -> float:
@@ -270,84 +284,6 @@ def outlier_limit(n: int, p: int, alpha: float = 0.05) -> float:
     if dof < 1:
         return float("inf")
     return float(stats.t.ppf(1 - alpha / (2 * n), dof))
-
-
-def lack_of_fit(fit: CurveFit, groups) -> dict | None:
-    """Lack-of-fit F test from replicate points (same standard measured several times).
-
-    ``groups``: group label per fitted point.  ``SS_pe = sum w (y - ybar_g)^2``
-    (pure error, ``n - m`` dof), ``SS_lof = SS_res - SS_pe`` (``m - p`` dof),
-    ``F = (SS_lof/(m-p)) / (SS_pe/(n-m))`` (Draper & Smith 1998, *Applied
-    Regression Analysis*, 3rd ed., sec. 2.1).  None when replicates do not allow it.
-    """
-    g = np.asarray(groups)
-    labels = np.unique(g)
-    m, n, p = len(labels), fit.n, len(fit.terms)
-    if n - m < 1 or m - p < 1:
-        return None
-    ss_pe = 0.0
-    for lab in labels:
-        s = g == lab
-        ww, yy = fit.w[s], fit.y[s]
-        ss_pe += float(np.sum(ww * (yy - np.sum(ww * yy) / np.sum(ww)) ** 2))
-    ss_res = float(np.sum(fit.w * fit.resid**2))
-    return _lof_result(ss_res - ss_pe, m - p, ss_pe, n - m, "repeated standards")
-
-
-def lack_of_fit_shots(fit: CurveFit, shot_values: list) -> dict | None:
-    """Lack-of-fit test with the shots of each standard as replicates.
-
-    ``shot_values[i]``: per-shot responses of standard i.  ``SS_lof = sum_i n_i
-    (ybar_i - yhat_i)^2`` with ``m - p`` dof against the shot-to-shot pure error
-    (same reference as :func:`lack_of_fit`).  In LIBS the between-standard
-    (matrix) scatter usually exceeds shot noise, so this test is often
-    significant; it is reported, not enforced.
-    """
-    m, p = fit.n, len(fit.terms)
-    if m - p < 1 or any(len(v) < 2 for v in shot_values):
-        return None
-    ss_pe = float(sum(np.sum((np.asarray(v) - np.mean(v)) ** 2) for v in shot_values))
-    nu_pe = int(sum(len(v) - 1 for v in shot_values))
-    ss_lof = float(sum(len(v) * (np.mean(v) - fh) ** 2 for v, fh in zip(shot_values, fit.fitted)))
-    return _lof_result(ss_lof, m - p, ss_pe, nu_pe, "shots")
-
-
-def _lof_result(ss_lof, nu_lof, ss_pe, nu_pe, basis):
-    if ss_pe <= 0:
-        return None
-    F = (max(ss_lof, 0.0) / nu_lof) / (ss_pe / nu_pe)
-    pval = float(stats.f.sf(F, nu_lof, nu_pe))
-    return {
-        "F": float(F),
-        "dof_lof": int(nu_lof),
-        "dof_pe": int(nu_pe),
-        "p_value": pval,
-        "significant": bool(pval < 0.05),
-        "basis": basis,
-    }
-
-
-def mandel_test(x, y, weights=None) -> dict | None:
-    """Mandel's fitting test, linear vs quadratic (ISO 8466-1:1990, sec. 6.2; DIN 38402-51).
-
-    ``DS^2 = (N-2) s_1^2 - (N-3) s_2^2``, ``PW = DS^2 / s_2^2`` compared with
-    ``F(1, N-3)`` at 99 %; a significant result says the quadratic fits better.
-    """
-    x = np.asarray(x, float)
-    if len(x) < 5:
-        return None
-    try:
-        f1 = fit_curve(x, y, model="linear", weights=weights)
-        f2 = fit_curve(x, y, model="quadratic", weights=weights)
-    except CalibrationError:
-        return None
-    N = len(x)
-    if f2.scale <= 0:
-        return None
-    ds2 = (N - 2) * f1.scale - (N - 3) * f2.scale
-    pw = ds2 / f2.scale
-    crit = float(stats.f.ppf(0.99, 1, N - 3))
-    return {"PW": float(pw), "F_crit_99": crit, "quadratic_better": bool(pw > crit)}
 
 
 def invert(terms, beta, y, xi=None, *, lo=None, hi=None):
@@ -384,6 +320,9 @@ def invert(terms, beta, y, xi=None, *, lo=None, hi=None):
         )
     return x, dydx
 
+
+# the tests of the curve's form live in compquant.calibrate.lof (imported here for callers of fit)
+from compquant.calibrate.lof import lack_of_fit, lack_of_fit_shots, mandel_test  # noqa: E402
 
 __all__ = [
     "MODELS",

@@ -21,12 +21,11 @@ from __future__ import annotations
 import csv
 import io
 import math
-from pathlib import Path
 
 import pandas as pd
 
 from compquant.errors import StandardsError
-from compquant.fileio import load_toml, require_file, sha256_file
+from compquant.fileio import STDIN_NAME, InputBytes, parse_toml, read_input
 
 #: chemical element symbols Z = 1..118 (IUPAC names of the elements; checked
 #: against ``periodictable`` in tests)
@@ -133,11 +132,8 @@ def _record(raw: dict, where_row: str, seen: dict) -> dict:
     }
 
 
-def _load_csv(p: Path) -> list[dict]:
-    try:
-        text = p.read_text(encoding="utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise StandardsError("not UTF-8 text", where=str(p), fix="save the file as UTF-8") from exc
+def _load_csv(text: str, p: str) -> list[dict]:
+    text = text.replace("\r\n", "\n").replace("\r", "\n")  # universal newlines, as a text-mode open reads
     lines = [ln for ln in text.splitlines()]
     reader = csv.reader(io.StringIO(text))
     rows = list(reader)
@@ -186,8 +182,8 @@ def _load_csv(p: Path) -> list[dict]:
     return out
 
 
-def _load_toml(p: Path) -> list[dict]:
-    data = load_toml(p, "standards file", StandardsError)
+def _load_toml(text: str, p: str) -> list[dict]:
+    data = parse_toml(text, p, StandardsError)
     stds = data.get("standard")
     if not isinstance(stds, list) or not stds:
         raise StandardsError(
@@ -241,27 +237,46 @@ def _load_toml(p: Path) -> list[dict]:
     return out
 
 
+def _is_toml(src: InputBytes, text: str) -> bool:
+    """A ``.toml`` file, or text from standard input whose first line that is neither blank nor
+    a comment opens a table (``[[standard]]``); a CSV file starts with its header."""
+    if src.path is not None:
+        return src.suffix == ".toml"
+    for ln in text.splitlines():
+        s = ln.strip()
+        if s and not s.startswith("#"):
+            return s.startswith("[")
+    return False
+
+
 def load_standards(path) -> pd.DataFrame:
     """Load and validate a certified-standards file (``.csv`` or ``.toml``).
 
+    ``path``: the file; ``-`` reads the table from standard input
+    (:func:`compquant.fileio.read_stdin`: refused when it is a terminal or empty, bounded in
+    size); an :class:`compquant.fileio.InputBytes` is a table already read (from a file or
+    standard input). Text from standard input is TOML when its first line that is neither blank
+    nor a comment opens a table (``[[standard]]``), CSV otherwise. Files and standard input are
+    limited to :data:`compquant.fileio.MAX_TABLE_BYTES`.
+
     Returns a DataFrame with columns ``standard_id, matrix, element,
     mass_fraction (g/g), u (standard uncertainty, g/g), U (expanded, g/g), k,
-    source``; ``df.attrs`` holds ``path`` and ``sha256`` of the file.
+    source``; ``df.attrs`` holds ``path`` (the path, or ``<stdin>``), ``name`` (the file name
+    provenance records, ``<stdin>`` for standard input) and ``sha256`` of the bytes read.
 
     Raises :class:`~compquant.errors.StandardsError` for: unknown element,
     missing value, negative value, mass fraction above 1, duplicated
     (standard, element) entry, bad unit, ``k <= 0``, malformed rows.
     """
-    p = require_file(path, "standards file")
-    if p.suffix.lower() == ".toml":
-        recs = _load_toml(p)
-    else:
-        recs = _load_csv(p)
+    src = read_input(path, "standards file", error=StandardsError)
+    text = src.text(StandardsError, "standards file")
+    recs = _load_toml(text, src.where) if _is_toml(src, text) else _load_csv(text, src.where)
     if not recs:
-        raise StandardsError("no certified values in file", where=str(p), fix="add one row per standard and element")
+        raise StandardsError("no certified values in file", where=src.where, fix="add one row per standard and element")
     df = pd.DataFrame.from_records(recs, columns=list(TABLE_COLUMNS))
-    df.attrs["path"] = str(p)
-    df.attrs["sha256"] = sha256_file(p)
+    df.attrs["path"] = str(src.path) if src.path is not None else STDIN_NAME
+    df.attrs["name"] = src.name
+    df.attrs["sha256"] = src.sha256
     return df
 
 

@@ -1,96 +1,140 @@
 """Boltzmann and Saha–Boltzmann plots of a :class:`~compquant.cflibs.result.CFResult` (PNG).
 
-Each line is a labelled point with its ±u error bar; the fitted lines are drawn from the
-result itself (per-species slopes for the Boltzmann plot, the joint fit for the
-Saha–Boltzmann plot), so the figure shows exactly what was fitted.
+The Saha–Boltzmann (or joint Boltzmann) plot is one figure for the certificate
+(:func:`compquant.report.assemble.boltzmann_figure`) and for ``compquant cf --plots``
+(:func:`plot_saha_boltzmann`, with the line labels and the fitted slope written on it); the
+per-species Boltzmann plot is drawn for the command only.  Both are drawn by
+:func:`compquant.plotting.boltzmann_figure`.  Each line is a point with its ±u error bar
+(standard uncertainty of the ordinate); the fitted lines come from the result itself, so the
+figure shows exactly what was fitted.
+
+References
+----------
+Ciucci, A. et al. (1999), New procedure for quantitative elemental analysis by laser-induced
+plasma spectroscopy, Appl. Spectrosc. 53, 960-964 (the Boltzmann plot of calibration-free LIBS);
+Tognoni, E. et al. (2010), Spectrochim. Acta B 65, 1-14 (the Saha-Boltzmann plot).
 """
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from compquant.plasma.constants import KB_EV
-from compquant.plotting import pyplot, save_png
+from compquant.plotting import boltzmann_figure, figure_png, write_png
+
+
+def _value(x) -> float:
+    """``x`` as a float; NaN when it is missing or not a number."""
+    try:
+        return float(x)
+    except (TypeError, ValueError):
+        return math.nan
 
 
 def _label(line_id: str) -> str:
-    sp, wl = line_id.rsplit(" ", 1)
-    return f"{float(wl):.1f}"
+    """The wavelength of a line id such as ``Cu I 324.754``, to 0.1 nm (the id itself otherwise)."""
+    wl = _value(str(line_id).rsplit(" ", 1)[-1])
+    return f"{wl:.1f}" if math.isfinite(wl) else str(line_id)
 
 
-def plot_boltzmann(result, path, dpi: int = 110) -> None:
-    """Boltzmann plot per species: ln(Iλ/(g_k A_ki)) vs E_k, SA-corrected, own fit per species."""
-    plt = pyplot()
-    fig, ax = plt.subplots(figsize=(7.0, 4.8))
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
-    sp_rows = {r["species"]: r for r in result.species}
-    for k, sp in enumerate(sorted({ln["species"] for ln in result.lines})):
-        c = colours[k % len(colours)]
-        ls = [ln for ln in result.lines if ln["species"] == sp]
-        x = np.array([ln["ek_ev"] for ln in ls])
-        y = np.array([ln["ordinate"] + np.log(ln["correction_factor"]) - np.log(ln["one_point_factor"])
-                      for ln in ls])
-        u = np.array([ln["u_ordinate"] for ln in ls])
-        row = sp_rows.get(sp, {})
-        lab = sp
-        if row.get("temperature_k"):
-            lab += f"  T = {row['temperature_k']:.0f} ± {row['u_temperature_k']:.0f} K"
-        ax.errorbar(x, y, yerr=u, fmt="o", color=c, ms=4, capsize=2, label=lab)
-        for xi, yi, ln in zip(x, y, ls):
-            ax.annotate(_label(ln["line_id"]), (xi, yi), fontsize=6, xytext=(3, 3), textcoords="offset points")
+def saha_boltzmann_figure(result, *, detailed: bool = False):
+    """The (Saha-)Boltzmann plot of the lines used, with the fitted ordinates; None below 2 lines.
+
+    Abscissa ``x_ev`` (upper-level energy, ion lines shifted by the ionisation energy), ordinate
+    ``y`` (ion lines Saha-corrected), fitted ordinate ``y_fit``, one colour per species.
+    ``detailed`` (the command line) adds the line labels, nₑ in the title and the fitted slope.
+    """
+    lines = result.lines or []
+    pts = [ln for ln in lines if math.isfinite(_value(ln.get("x_ev"))) and math.isfinite(_value(ln.get("y")))]
+    if len(pts) < 2:
+        return None
+    E = np.array([float(p["x_ev"]) for p in pts])
+    Y = np.array([float(p["y"]) for p in pts])
+    yfit = np.array([_value(p.get("y_fit")) for p in pts])
+    yfit[~np.isfinite(yfit)] = np.nan
+    yerr = np.array([_value(p.get("u_ordinate")) for p in pts])
+    yerr[~np.isfinite(yerr)] = 0.0
+    sp = [str(p.get("species", "lines")) for p in pts]
+    saha = str(result.fit_mode) == "saha-boltzmann"
+    title = f"{'Saha-' if saha else ''}Boltzmann plot, T = {result.temperature_k:.0f} K"
+    note = ""
+    if detailed:
+        title = f"{title} ± {result.u_temperature_k:.0f} K, sample {result.sample_id}"
+        note = f"nₑ = {result.electron_density_cm3:.2e} cm⁻³ ({result.ne_method})"
+        m = (result.fit or {}).get("slope_per_ev")
+        if m:
+            note += f"\nslope −1/kT = {m:.4f} eV⁻¹ (T = {-1 / (KB_EV * m):.0f} K)"
+    return boltzmann_figure(
+        E,
+        Y,
+        sp,
+        fit_y=yfit,
+        yerr=yerr,
+        title=title,
+        xlabel="upper level energy (eV)" + (", ions + ionisation energy" if saha else ""),
+        ylabel="ln(I·λ / (g_k·A_ki))" + (" (ions Saha-corrected)" if saha else ""),
+        point_labels=[_label(p.get("line_id", "")) for p in pts] if detailed else None,
+        note=note,
+    )
+
+
+def saha_boltzmann_png(result, **kw) -> bytes | None:
+    """PNG bytes of :func:`saha_boltzmann_figure` (same arguments); None when it draws nothing."""
+    fig = saha_boltzmann_figure(result, **kw)
+    return None if fig is None else figure_png(fig)
+
+
+def species_boltzmann_figure(result):
+    """Boltzmann plot per species: ln(Iλ/(g_k A_ki)) vs E_k, self-absorption corrected, each
+    species with its own fitted line and temperature; None without lines."""
+    lines = [ln for ln in (result.lines or []) if math.isfinite(_value(ln.get("ek_ev")))]
+    if not lines:
+        return None
+    rows = {r["species"]: r for r in result.species}
+    E = np.array([float(ln["ek_ev"]) for ln in lines])
+    Y = np.array(
+        [ln["ordinate"] + np.log(ln["correction_factor"]) - np.log(ln["one_point_factor"]) for ln in lines]
+    )
+    sp = [str(ln["species"]) for ln in lines]
+    fits, labels = {}, {}
+    for name in dict.fromkeys(sp):
+        row = rows.get(name, {})
         if row.get("slope_per_ev") is not None:
-            xx = np.linspace(x.min() - 0.2, x.max() + 0.2, 2)
-            ax.plot(xx, row["intercept"] + row["slope_per_ev"] * xx, "-", color=c, lw=1)
-    ax.set_xlabel("upper-level energy $E_k$ (eV)", parse_math=True)
-    ax.set_ylabel(r"$\ln(I\lambda / g_k A_{ki})$", parse_math=True)
-    ax.set_title(f"Boltzmann plot, sample {result.sample_id}", fontsize=10)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
-    save_png(fig, path, dpi=dpi)
+            fits[name] = (row["slope_per_ev"], row["intercept"])
+        if row.get("temperature_k"):
+            labels[name] = f"{name}  T = {row['temperature_k']:.0f} ± {row['u_temperature_k']:.0f} K"
+    return boltzmann_figure(
+        E,
+        Y,
+        sp,
+        fits=fits,
+        yerr=np.array([float(ln["u_ordinate"]) for ln in lines]),
+        title=f"Boltzmann plot per species, sample {result.sample_id}",
+        species_labels=labels,
+        point_labels=[_label(ln["line_id"]) for ln in lines],
+    )
 
 
-def plot_saha_boltzmann(result, path, dpi: int = 110) -> None:
-    """Saha–Boltzmann (or joint Boltzmann) plot: shifted ordinates vs shifted energies, joint fit."""
-    plt = pyplot()
-    fig, ax = plt.subplots(figsize=(7.0, 4.8))
-    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
-    groups = result.fit.get("groups", [])
-    inter = dict(zip(groups, result.fit.get("intercepts", [])))
-    m = result.fit.get("slope_per_ev")
-    sb = result.fit_mode == "saha-boltzmann"
-    for k, g in enumerate(groups):
-        c = colours[k % len(colours)]
-        ls = [ln for ln in result.lines if (ln["element"] if sb else ln["species"]) == g]
-        if not ls:
-            continue
-        x = np.array([ln["x_ev"] for ln in ls])
-        y = np.array([ln["y"] for ln in ls])
-        u = np.array([ln["u_ordinate"] for ln in ls])
-        neutral = np.array([ln["ion"] == 1 for ln in ls])
-        ax.errorbar(x[neutral], y[neutral], yerr=u[neutral], fmt="o", color=c, ms=4, capsize=2,
-                    label=f"{g} I" if sb else g)
-        if sb and np.any(~neutral):
-            ax.errorbar(x[~neutral], y[~neutral], yerr=u[~neutral], fmt="s", color=c, ms=4, capsize=2,
-                        label=f"{g} II (Saha-shifted)")
-        for xi, yi, ln in zip(x, y, ls):
-            ax.annotate(_label(ln["line_id"]) + ("" if ln["ion"] == 1 else " II"), (xi, yi), fontsize=6,
-                        xytext=(3, 3), textcoords="offset points")
-        if m is not None and g in inter:
-            xx = np.linspace(x.min() - 0.3, x.max() + 0.3, 2)
-            ax.plot(xx, inter[g] + m * xx, "-", color=c, lw=1)
-    T = result.temperature_k
-    ax.set_xlabel("$E_k$ (+ ionisation energy for ion lines) (eV)" if sb else "$E_k$ (eV)", parse_math=True)
-    ax.set_ylabel(r"$\ln(I\lambda/g_kA_{ki})$ (ion lines − Saha term)" if sb else r"$\ln(I\lambda/g_kA_{ki})$",
-                  parse_math=True)
-    ax.set_title(f"{'Saha–Boltzmann' if sb else 'Joint Boltzmann'} plot, sample {result.sample_id}: "
-                 f"T = {T:.0f} ± {result.u_temperature_k:.0f} K, "
-                 f"nₑ = {result.electron_density_cm3:.2e} cm⁻³ ({result.ne_method})", fontsize=9)
-    if m is not None:
-        ax.text(0.98, 0.97, f"slope −1/kT = {m:.4f} eV⁻¹ (T = {-1 / (KB_EV * m):.0f} K)",
-                transform=ax.transAxes, ha="right", va="top", fontsize=7)
-    ax.legend(fontsize=7)
-    fig.tight_layout()
-    save_png(fig, path, dpi=dpi)
+def plot_boltzmann(result, path) -> None:
+    """Write :func:`species_boltzmann_figure` as PNG to ``path`` (nothing without lines)."""
+    fig = species_boltzmann_figure(result)
+    if fig is not None:
+        write_png(figure_png(fig), path)
 
 
-__all__ = ["plot_boltzmann", "plot_saha_boltzmann"]
+def plot_saha_boltzmann(result, path) -> None:
+    """Write the certificate's (Saha-)Boltzmann plot, detailed, as PNG to ``path`` (nothing below 2 lines)."""
+    png = saha_boltzmann_png(result, detailed=True)
+    if png is not None:
+        write_png(png, path)
+
+
+__all__ = [
+    "plot_boltzmann",
+    "plot_saha_boltzmann",
+    "saha_boltzmann_figure",
+    "saha_boltzmann_png",
+    "species_boltzmann_figure",
+]

@@ -14,12 +14,14 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 import pandas as pd
 
+from compquant import results as _results
 from compquant.fileio import json_ready
 
 SCHEMA = "compquant.cf-result/1"
 
-RESULT_COLUMNS = ["sample_id", "element", "mass_fraction", "u", "U", "k", "lod", "loq",
-                  "below_lod", "flags", "basis", "line_id"]
+#: the columns of :meth:`CFResult.results_table`: the results contract's core columns
+#: (:data:`compquant.results.CORE_COLUMNS`, declared once with dtype, unit and meaning)
+RESULT_COLUMNS = list(_results.CORE_COLUMNS)
 
 
 def _clean(obj):
@@ -114,6 +116,23 @@ class CFResult:
                 "basis": "cf", "line_id": ";".join(e.lines),
             })
         return pd.DataFrame(rows, columns=RESULT_COLUMNS)
+
+    def to_frame(self) -> pd.DataFrame:
+        """The results as the declared contract (:mod:`compquant.results`; ``role`` empty, ``dof`` NaN)."""
+        return _results.to_frame(self.results_table())
+
+    def summary(self) -> str:
+        """A plain-text summary: plasma temperature and electron density, then one line per element."""
+        info = {
+            "basis": "cf (calibration-free)",
+            "sample": self.sample_id,
+            "temperature / K": f"{self.temperature_k:.0f} +- {self.k * self.u_temperature_k:.0f} (U, k = {self.k:g})",
+            "electron density / cm-3": f"{self.electron_density_cm3:.3e} ({self.ne_method})",
+            "fit": self.fit_mode,
+            "plasma consistent": "yes" if self.plasma_consistent else "NO",
+            "flags": ";".join(self.flags) or "-",
+        }
+        return _results.summary_text(self.to_frame(), "Calibration-free result (compquant.cflibs.analyse_cf)", info)
 
     def summary_table(self) -> pd.DataFrame:
         """One row per species: lines used, T, nₑ, concentration, U, flags (for the CLI)."""

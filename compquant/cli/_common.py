@@ -89,6 +89,35 @@ def scheduler_file_option(fn):
     )(fn)
 
 
+def run_argument(fn):
+    """The ``RUN`` argument of the commands that read one run file."""
+    return click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))(fn)
+
+
+def file_option(*decls: str, help: str, required: bool = False, **kwargs):
+    """``click.option`` for one input or output file (not a folder): ``--method``, ``--standards``,
+    ``--calibration``, ``-o``; ``decls`` are the option names and the parameter name."""
+    return click.option(*decls, required=required, type=click.Path(dir_okay=False), help=help, **kwargs)
+
+
+def folder_option(*decls: str, help: str, required: bool = False, **kwargs):
+    """``click.option`` for a folder (``--plots``, an output folder)."""
+    return click.option(*decls, required=required, type=click.Path(file_okay=False), help=help, **kwargs)
+
+
+def method_option(help: str = "Method file (TOML, docs/method-file.md).", *, required: bool = True):
+    """``--method FILE`` (parameter ``method_path``)."""
+    return file_option("--method", "method_path", required=required, help=help)
+
+
+def output_option(help: str, *, required: bool = True, dest: str | None = None, folder: bool = False):
+    """``-o/--output``: a file (default), a folder (``folder=True``) or either (``folder=None``)."""
+    decls = ("-o", "--output") + ((dest,) if dest else ())
+    if folder is None:
+        return click.option(*decls, required=required, type=click.Path(), help=help)
+    return (folder_option if folder else file_option)(*decls, required=required, help=help)
+
+
 def fold_scheduler(scheduler: str | None, scheduler_file: str | None) -> str | None:
     """One ``scheduler`` argument for :func:`compquant.parallel.open_executor`, which reads a
     value naming an existing file as a scheduler file."""
@@ -153,11 +182,16 @@ def format_columns(rows: Sequence[Sequence[str]], *, right: Collection[int] = ()
 __all__ = [
     "SAFETY",
     "VERBOSITY",
+    "file_option",
     "fold_scheduler",
+    "folder_option",
     "format_columns",
     "is_stdio",
+    "method_option",
+    "output_option",
     "progress_bar",
     "report_runs",
+    "run_argument",
     "safe_frame",
     "scheduler_file_option",
     "write_csv",

@@ -5,7 +5,15 @@ from __future__ import annotations
 import click
 
 from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
-from compquant.cli._common import fold_scheduler, progress_bar, scheduler_file_option
+from compquant.cli._common import (
+    file_option,
+    fold_scheduler,
+    folder_option,
+    method_option,
+    progress_bar,
+    scheduler_file_option,
+)
+from compquant.cli._stdin import table_input
 
 
 class StageProgress:
@@ -224,25 +232,20 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 
 @click.command("analyse", epilog=_EPILOG)
 @click.argument("run_paths", metavar="RUN...", nargs=-1, required=True, type=click.Path())
-@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False), help="Method file (TOML).")
-@click.option(
+@method_option("Method file (TOML).")
+@table_input(
     "--standards",
-    type=click.Path(dir_okay=False),
+    what="standards file",
     help="Certified-standards file: calibrate from the standards measured in this run.",
 )
-@click.option(
+@file_option(
     "--calibration",
-    type=click.Path(dir_okay=False),
     help="Saved calibration (JSON): apply it, with drift standardisation from setup samples.",
 )
 @click.option("--cf", is_flag=True, help="Calibration-free analysis (plasma physics, closure to 100 %).")
-@click.option("--lab", type=click.Path(dir_okay=False), help="Lab profile (TOML): name, address, signatory.")
-@click.option(
-    "--spec",
-    type=click.Path(dir_okay=False),
-    help="Specification (TOML): element limits and decision rule for a conformity statement.",
-)
-@click.option("-o", "--outdir", required=True, type=click.Path(file_okay=False), help="Output folder.")
+@file_option("--lab", help="Lab profile (TOML): name, address, signatory.")
+@file_option("--spec", help="Specification (TOML): element limits and decision rule for a conformity statement.")
+@folder_option("-o", "--outdir", help="Output folder.", required=True)
 @click.option("--client", help="Client name (overrides the lab profile's default).")
 @click.option("--received", metavar="YYYY-MM-DD", help="Date the samples were received.")
 @click.option("--issued-at", metavar="ISO-8601", help="Issue time in UTC (default: now); fixes the outputs.")
@@ -272,30 +275,7 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
 @click.option("--quiet", is_flag=True, help="No progress bars.")
 @click.option("--db", metavar="PATH|URL", help="Store the analysis in the lab's record (default: $COMPQUANT_DB).")
 @click.pass_context
-def command(
-    ctx,
-    run_paths,
-    method_path,
-    standards,
-    calibration,
-    cf,
-    lab,
-    spec,
-    outdir,
-    client,
-    received,
-    issued_at,
-    no_figures,
-    chunk_shots,
-    workers,
-    scheduler,
-    scheduler_file,
-    quiet,
-    db,
-    measured,
-    revise,
-    lims_dialect,
-):
+def command(ctx, run_paths, method_path, outdir, no_figures, workers, scheduler, scheduler_file, quiet, **options):
     """Analyse a run and write a certificate of analysis per unknown sample.
 
     Preprocesses every shot, measures the method's lines, calibrates from the
@@ -320,22 +300,7 @@ def command(
     from compquant.parallel import chunk_mapper, open_executor
 
     scheduler = fold_scheduler(scheduler, scheduler_file)
-    options = dict(
-        standards=standards,
-        calibration=calibration,
-        cf=cf,
-        lab=lab,
-        spec=spec,
-        client=client,
-        received=received,
-        issued_at=issued_at,
-        figures=not no_figures,
-        chunk_shots=chunk_shots,
-        db=db,
-        measured=measured,
-        revise=revise,
-        lims_dialect=lims_dialect,
-    )
+    options["figures"] = not no_figures  # the other options are analyse()'s keywords of the same names
     if len(run_paths) > 1 or Path(run_paths[0]).is_dir():
         if not _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, options):
             ctx.exit(_release_words()[0])
@@ -348,7 +313,7 @@ def command(
     finally:
         prog.close()
     report_outputs(out)
-    _report_record(db)
+    _report_record(options["db"])
     if out.exit_code:
         ctx.exit(out.exit_code)
 

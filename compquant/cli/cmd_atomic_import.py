@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from compquant.cli._common import folder_option
 from compquant.errors import InputError
 
 
@@ -20,8 +21,11 @@ def _mapping(values) -> dict[str, str]:
 
 @click.command("atomic-import")
 @click.argument("table", type=click.Path(dir_okay=False))
-@click.option("--overlay", required=True, type=click.Path(file_okay=False),
-              help="Overlay directory (created if absent); use it with COMPQUANT_ATOMIC_OVERLAY=<dir>.")
+@folder_option(
+    "--overlay",
+    help="Overlay directory (created if absent); use it with COMPQUANT_ATOMIC_OVERLAY=<dir>.",
+    required=True,
+)
 @click.option("--format", "fmt", type=click.Choice(["nist", "csv"]), default="nist", show_default=True,
               help="nist: NIST ASD tab-delimited line output; csv: any CSV with --map.")
 @click.option("--map", "maps", multiple=True,

@@ -6,7 +6,15 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns
+from compquant.cli._common import (
+    SAFETY,
+    folder_option,
+    format_columns,
+    method_option,
+    output_option,
+    run_argument,
+)
+from compquant.cli._stdin import table_input
 
 
 def curve_table(cal) -> str:
@@ -51,29 +59,17 @@ def curve_table(cal) -> str:
 
 
 @click.command("calibrate", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option(
-    "--method",
-    "method_path",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Method file (TOML) with [calibration] and [[calibration.analytes]].",
-)
-@click.option(
+@run_argument
+@method_option("Method file (TOML) with [calibration] and [[calibration.analytes]].")
+@table_input(
     "--standards",
     "standards_path",
     required=True,
-    type=click.Path(dir_okay=False),
+    what="standards file",
     help="Certified standards (CSV or TOML, see docs/calibration.md).",
 )
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Calibration JSON to write.")
-@click.option(
-    "--plots",
-    "plots_dir",
-    type=click.Path(file_okay=False),
-    default=None,
-    help="Folder for one PNG per curve (standards, fit, prediction band, samples).",
-)
+@output_option("Calibration JSON to write.")
+@folder_option("--plots", "plots_dir", help="Folder for one PNG per curve (standards, fit, prediction band, samples).")
 @click.option("--quiet", is_flag=True, help="Do not print the table of curves.")
 def command(run_path, method_path, standards_path, output, plots_dir, quiet):
     """Fit a calibration curve per analyte from the certified standards measured in RUN:

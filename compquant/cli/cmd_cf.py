@@ -9,7 +9,16 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, progress_bar, write_csv
+from compquant.cli._common import (
+    SAFETY,
+    folder_option,
+    format_columns,
+    method_option,
+    output_option,
+    progress_bar,
+    run_argument,
+    write_csv,
+)
 from compquant.errors import ConfigError, StandardsError
 from compquant.fileio import atomic_write, json_ready, safe_filename, terminal_text
 
@@ -41,14 +50,16 @@ def _screen(results) -> str:
 
 
 @click.command("cf", epilog=NOTE)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option("--method", "method_path", required=True, type=click.Path(dir_okay=False),
-              help="Method file (TOML) with [[lines]] and an optional [cf] table.")
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Summary CSV: sample, species, lines used, T, nₑ, mass fraction, U (k=2), flags. "
-                   "Also writes <stem>-results.csv (results table) and <stem>.json (full results).")
-@click.option("--plots", "plots_dir", type=click.Path(file_okay=False), default=None,
-              help="Folder for PNG Boltzmann and Saha–Boltzmann plots (one pair per sample).")
+@run_argument
+@method_option("Method file (TOML) with [[lines]] and an optional [cf] table.")
+@output_option(
+    "Summary CSV: sample, species, lines used, T, nₑ, mass fraction, U (k=2), flags. "
+    "Also writes <stem>-results.csv (results table) and <stem>.json (full results).",
+)
+@folder_option(
+    "--plots", "plots_dir",
+    help="Folder for PNG Boltzmann and Saha–Boltzmann plots (one pair per sample).",
+)
 @click.option("--samples", default=None, help="Comma-separated sample ids [default: unknowns and checks].")
 @click.option("--draws", type=int, default=None, help="Monte Carlo draws [method [cf] mc_draws, 300].")
 @click.option("--seed", type=int, default=None, help="Monte Carlo seed [method [cf] seed].")
@@ -62,71 +73,103 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
     from compquant.fileio import refuse_overwriting_inputs
 
     refuse_overwriting_inputs([output, plots_dir], [run_path, method_path])
-    from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table, run_intensity_basis
-    from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
-    from compquant.errors import CompquantError
-    from compquant.lines import measure_run
+    from compquant.cflibs import CFSettings, analyse_cf_samples
     from compquant.method import load_method
-    from compquant.run import Run
 
     method = load_method(method_path)
     settings = CFSettings.from_section(method.sections.get("cf"), where=f"{method.where}: [cf]")
     if draws is not None and draws < 0:
         raise ConfigError("--draws must be ≥ 0", where="--draws", fix="e.g. --draws 300")
+    m = _measure(run_path, method, quiet)
+    ids = _sample_ids(m, samples)
+    one_point = _one_point(m, method, settings)
+    done = [0]
+
+    def tick(k, total):  # analyse_cf_samples reports (done, total) before each sample and at the end
+        bar.update(k - done[0])
+        done[0] = k
+
+    with progress_bar(len(ids), "calibration-free  ", enabled=not quiet) as bar, warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # the result's own warnings are printed below
+        results, failures = analyse_cf_samples(
+            m["table"], sample_ids=ids, settings=settings, acquisition=m["acquisition"], instrument=m["instrument"],
+            one_point=one_point, mc_draws=draws, seed=seed, intensity_basis=m["basis"], progress=tick,
+        )
+    if failures and not results:  # before anything is written; the reasons in the line itself
+        first, why = next(iter(failures.items()))
+        more = f" (and {len(failures) - 1} more sample(s))" if len(failures) > 1 else ""
+        raise ConfigError(f"no sample gave a calibration-free result; {first}: {why}{more}", where=str(run_path),
+                          fix="check the method's lines and [cf] settings against the run")
+    written = _write_outputs(Path(output), plots_dir, results, failures, one_point, run_path, m["run_sha"], method)
+    for sid, why in failures.items():  # on stderr even with --quiet: a failure is never silent
+        click.echo(terminal_text(f"no result for {sid}: {why}"), err=True)
+    if not quiet:
+        if results:
+            click.echo(_screen(results))
+        for r in results:
+            for w in r.warnings:
+                click.echo(terminal_text(f"note: {r.sample_id}: {w}"))
+        click.echo("wrote " + ", ".join(written))
+
+
+def _measure(run_path, method, quiet: bool) -> dict:
+    """Measure the method's lines in the run; the line table and what the analysis needs of the run."""
+    from compquant.cflibs import run_intensity_basis
+    from compquant.lines import measure_run
+    from compquant.run import Run
+
     with Run.open(run_path) as run:
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         with progress_bar(run.n_shots * passes, "measuring lines   ", enabled=not quiet) as bar:
             lm = measure_run(run, method, progress=bar.update)
-        acquisition, instrument = dict(run.acquisition or {}), dict(run.instrument or {})
-        sample_table = run.samples.copy()
-        run_sha = run.sha256()
-        basis = run_intensity_basis(method, run)
-    table = lm.table
-    known = list(dict.fromkeys(table["sample_id"].astype(str)))
+        return {"table": lm.table, "acquisition": dict(run.acquisition or {}),
+                "instrument": dict(run.instrument or {}), "samples": run.samples.copy(), "run_sha": run.sha256(),
+                "basis": run_intensity_basis(method, run)}
+
+
+def _sample_ids(m: dict, samples: str | None) -> list[str]:
+    """The samples named by ``--samples``, else the run's unknowns and checks, in run order."""
+    known = list(dict.fromkeys(m["table"]["sample_id"].astype(str)))
     if samples:
         ids = [s.strip() for s in samples.split(",") if s.strip()]
         missing = [s for s in ids if s not in known]
         if missing:
             raise ConfigError(f"sample(s) {', '.join(missing)} not in the run", where="--samples",
                               fix=f"choose from {', '.join(known[:12])}")
-    else:
-        roles = dict(zip(sample_table["sample_id"].astype(str), sample_table["role"].astype(str)))
-        ids = [s for s in known if roles.get(s) in ("unknown", "check")]
-    one_point = None
-    if settings.one_point_standard:
-        sid = settings.one_point_standard
-        if sid not in known:
-            raise ConfigError(f"one-point standard {sid!r} is not a sample of the run",
-                              where=f"{method.where}: [cf] one_point_standard", fix="use a sample id of the run")
-        if not settings.standards_file:
-            raise ConfigError("one-point calibration needs [cf] standards_file",
-                              where=f"{method.where}: [cf]", fix="give the certified-standards CSV")
-        ref = sample_table.set_index(sample_table["sample_id"].astype(str)).loc[sid].get("standard_ref") or sid
-        cert = _certified(method.resolve_path(settings.standards_file), str(ref))
-        one_point = one_point_calibration(table, cert, sample_id=sid, settings=settings,
-                                          acquisition=acquisition, instrument=instrument,
-                                          intensity_basis=basis)
-    results, failures = [], {}
-    with progress_bar(len(ids), "calibration-free  ", enabled=not quiet) as bar:  # one step per sample
-        for sid in ids:
-            try:
-                with warnings.catch_warnings():
-                    warnings.simplefilter("ignore")
-                    results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
-                                              instrument=instrument, one_point=one_point, mc_draws=draws,
-                                              seed=seed, intensity_basis=basis))
-            except CompquantError as exc:
-                failures[sid] = exc.one_line()
-            bar.update(1)
-    if failures and not results:  # before anything is written; the reasons in the line itself
-        first, why = next(iter(failures.items()))
-        more = f" (and {len(failures) - 1} more sample(s))" if len(failures) > 1 else ""
-        raise ConfigError(f"no sample gave a calibration-free result; {first}: {why}{more}", where=str(run_path),
-                          fix="check the method's lines and [cf] settings against the run")
-    out = Path(output)
-    stem = out.with_suffix("")
+        return ids
+    st = m["samples"]
+    roles = dict(zip(st["sample_id"].astype(str), st["role"].astype(str)))
+    return [s for s in known if roles.get(s) in ("unknown", "check")]
+
+
+def _one_point(m: dict, method, settings):
+    """The one-point calibration of ``[cf] one_point_standard`` (None when the method names none)."""
+    if not settings.one_point_standard:
+        return None
+    from compquant.cflibs import one_point_calibration
+
+    sid = settings.one_point_standard
+    if sid not in set(m["table"]["sample_id"].astype(str)):
+        raise ConfigError(f"one-point standard {sid!r} is not a sample of the run",
+                          where=f"{method.where}: [cf] one_point_standard", fix="use a sample id of the run")
+    if not settings.standards_file:
+        raise ConfigError("one-point calibration needs [cf] standards_file",
+                          where=f"{method.where}: [cf]", fix="give the certified-standards CSV")
+    st = m["samples"]
+    ref = st.set_index(st["sample_id"].astype(str)).loc[sid].get("standard_ref") or sid
+    cert = _certified(method.resolve_path(settings.standards_file), str(ref))
+    return one_point_calibration(m["table"], cert, sample_id=sid, settings=settings, acquisition=m["acquisition"],
+                                 instrument=m["instrument"], intensity_basis=m["basis"])
+
+
+def _write_outputs(out: Path, plots_dir, results, failures, one_point, run_path, run_sha, method) -> list[str]:
+    """The summary CSV, ``<stem>-results.csv`` (the results table), ``<stem>.json`` and the plots."""
     import pandas as pd
 
+    from compquant.cflibs import results_table
+    from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
+
+    stem = out.with_suffix("")
     summary = pd.concat([r.summary_table() for r in results], ignore_index=True) if results else \
         pd.DataFrame(columns=["sample_id", "species", "n_lines", "lines", "T_K", "u_T_K", "T_species_K",
                               "ne_cm3", "u_ne_cm3", "ne_method", "mass_fraction", "U", "flags"])
@@ -149,13 +192,4 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
             plot_boltzmann(r, p1)
             plot_saha_boltzmann(r, p2)
             written += [str(p1), str(p2)]
-    for sid, why in failures.items():  # on stderr even with --quiet: a failure is never silent
-        click.echo(terminal_text(f"no result for {sid}: {why}"), err=True)
-    if not quiet:
-        if results:
-            click.echo(_screen(results))
-        for r in results:
-            for w in r.warnings:
-                click.echo(terminal_text(f"note: {r.sample_id}: {w}"))
-        click.echo("wrote " + ", ".join(written))
-
+    return written

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from compquant.cli._common import file_option, output_option
 from compquant.errors import InputError
 
 
@@ -24,8 +25,11 @@ def _pairs(values, what):
 @click.command("convert")
 @click.option("--spectra", required=True, type=click.Path(exists=False),
               help="Folder of two-column files (one per shot) or one wide CSV table.")
-@click.option("--samples", "samples_csv", required=True, type=click.Path(dir_okay=False),
-              help="Samples CSV: sample_id, role, standard_ref, description [, files].")
+@file_option(
+    "--samples", "samples_csv",
+    help="Samples CSV: sample_id, role, standard_ref, description [, files].",
+    required=True,
+)
 @click.option("--dark", multiple=True, type=click.Path(), help="Dark-frame file or folder (repeatable).")
 @click.option("--saturation", type=float, default=None, help="Detector saturation level in counts.")
 @click.option("--medium", type=click.Choice(["air", "vacuum"]), default="air", show_default=True,
@@ -35,7 +39,7 @@ def _pairs(values, what):
 @click.option("--sentinel", "sentinels", multiple=True, type=float,
               help="A value the instrument writes for blanked or dead pixels, e.g. -9999 (repeatable); "
                    "such pixels are masked, like NaN, infinite and implausible values.")
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), help="Run file to write (.h5).")
+@output_option("Run file to write (.h5).")
 def command(spectra, samples_csv, dark, saturation, medium, instrument, acquisition, sentinels, output):
     """Build a compquant run from plain-text/CSV spectra plus a samples table.
 

@@ -6,7 +6,15 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, format_columns, write_csv
+from compquant.cli._common import (
+    SAFETY,
+    file_option,
+    format_columns,
+    method_option,
+    output_option,
+    run_argument,
+    write_csv,
+)
 from compquant.errors import InputError
 from compquant.fileio import safe_filename, terminal_text
 
@@ -29,22 +37,31 @@ def render_table(table) -> str:
 
 
 @click.command("identify", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@run_argument
 @click.option("--sample", "samples", multiple=True,
               help="Sample id (repeat for several) [default: every sample of the run].")
-@click.option("--method", "method_path", type=click.Path(dir_okay=False), default=None,
-              help="Method file: its preprocessing, [identify] settings and analyte lines (interference map).")
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Identification CSV (one row per sample and candidate species).")
-@click.option("--interference", "imap_path", type=click.Path(dir_okay=False), default=None,
-              help="Interference-map CSV [default with --method: <output stem>-interference.csv].")
-@click.option("--peaks", "peaks_path", type=click.Path(dir_okay=False), default=None,
-              help="Also write the detected peaks (with the lines explaining them) to this CSV.")
-@click.option("--plot", "plot_path", type=click.Path(dir_okay=False), default=None,
-              help="PNG of the spectrum with identified lines labelled (one file per sample: "
-                   "<stem>-<sample>.png when several samples).")
-@click.option("--lines", "lines_path", type=click.Path(dir_okay=False), default=None,
-              help="Line database CSV in the columns of docs/atomic-data.md [default: the shipped list].")
+@method_option(
+    "Method file: its preprocessing, [identify] settings and analyte lines (interference map).",
+    required=False,
+)
+@output_option("Identification CSV (one row per sample and candidate species).")
+@file_option(
+    "--interference", "imap_path",
+    help="Interference-map CSV [default with --method: <output stem>-interference.csv].",
+)
+@file_option(
+    "--peaks", "peaks_path",
+    help="Also write the detected peaks (with the lines explaining them) to this CSV.",
+)
+@file_option(
+    "--plot", "plot_path",
+    help="PNG of the spectrum with identified lines labelled (one file per sample: "
+    "<stem>-<sample>.png when several samples).",
+)
+@file_option(
+    "--lines", "lines_path",
+    help="Line database CSV in the columns of docs/atomic-data.md [default: the shipped list].",
+)
 @click.option("--temperature", type=float, default=None,
               help="Excitation temperature for the LTE estimate, K [default: method, else fitted].")
 @click.option("--resolving-power", type=float, default=None,
@@ -78,7 +95,6 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
     method = load_method(method_path) if method_path else default_method()
     st = settings_from_method(method).with_overrides(temperature_k=temperature, resolving_power=resolving_power)
     out = Path(output)
-    stem = out.with_suffix("")
     tables, imaps, peak_tables = [], [], []
     unexplained: dict[str, str] = {}
     n_unexplained: dict[str, int] = {}
@@ -106,10 +122,21 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
                 plot_identification(ident, target, medium=medium, title=f"{sid}: identified lines "
                                     f"(T = {ident.temperature_k:.0f} K, R = {ident.resolving_power:.0f})")
     table = pd.concat(tables, ignore_index=True)
+    written = _write_tables(table, out, imaps, imap_path, peak_tables, peaks_path)
+    if not quiet:
+        _echo_results(table, n_unexplained, unexplained, imaps)
+    for w in written:
+        click.echo(f"wrote {w}", err=quiet)
+
+
+def _write_tables(table, out: Path, imaps, imap_path, peak_tables, peaks_path) -> list[Path]:
+    """The identification CSV, the interference map (with --method) and the peak list (--peaks)."""
+    import pandas as pd
+
     write_csv(table, out, float_format="%.6g")
     written = [out]
     if imaps:
-        ip = Path(imap_path) if imap_path else Path(f"{stem}-interference.csv")
+        ip = Path(imap_path) if imap_path else Path(f"{out.with_suffix('')}-interference.csv")
         write_csv(pd.concat(imaps, ignore_index=True), ip, float_format="%.6g")
         written.append(ip)
     if peak_tables:
@@ -117,19 +144,23 @@ def command(run_path, samples, method_path, output, imap_path, peaks_path, plot_
         write_csv(pt[["sample_id"] + [c for c in pt.columns if c != "sample_id"]], Path(peaks_path),
                   float_format="%.6g")
         written.append(Path(peaks_path))
-    if not quiet:
-        click.echo(render_table(table))
-        for sid, n in n_unexplained.items():
-            if n:
-                click.echo(f"unexplained peaks in {terminal_text(sid)}: {n} (strongest at {unexplained[sid]} nm; "
-                           "lines missing from the line database, or noise)")
-        if imaps:
-            im = pd.concat(imaps, ignore_index=True)
-            ov = im[im["overlapped"] & (im["interferer_line_id"] != "")]
-            for r in ov.itertuples(index=False):
-                size = (f"{r.relative_contribution:.1%} of the analyte signal" if r.analyte_signal > 0
-                        else f"{r.interferer_snr:.0f} sigma, analyte not seen")
-                click.echo(f"overlap: {terminal_text(r.sample_id)}: {r.line_id} <- {r.interferer_line_id} ({size}); "
-                           f"alternatives: {r.alternatives or 'none free'}")
-    for w in written:
-        click.echo(f"wrote {w}", err=quiet)
+    return written
+
+
+def _echo_results(table, n_unexplained: dict, unexplained: dict, imaps) -> None:
+    """The table on screen, the unexplained peaks and the overlaps on the method's lines."""
+    import pandas as pd
+
+    click.echo(render_table(table))
+    for sid, n in n_unexplained.items():
+        if n:
+            click.echo(f"unexplained peaks in {terminal_text(sid)}: {n} (strongest at {unexplained[sid]} nm; "
+                       "lines missing from the line database, or noise)")
+    if imaps:
+        im = pd.concat(imaps, ignore_index=True)
+        ov = im[im["overlapped"] & (im["interferer_line_id"] != "")]
+        for r in ov.itertuples(index=False):
+            size = (f"{r.relative_contribution:.1%} of the analyte signal" if r.analyte_signal > 0
+                    else f"{r.interferer_snr:.0f} sigma, analyte not seen")
+            click.echo(f"overlap: {terminal_text(r.sample_id)}: {r.line_id} <- {r.interferer_line_id} ({size}); "
+                       f"alternatives: {r.alternatives or 'none free'}")

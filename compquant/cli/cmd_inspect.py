@@ -6,7 +6,7 @@ import json
 
 import click
 
-from compquant.cli._common import format_columns
+from compquant.cli._common import format_columns, run_argument
 from compquant.fileio import terminal_text
 
 
@@ -74,7 +74,7 @@ def _masked_lines(s: dict, limit: int = 20) -> list[str]:
 
 
 @click.command("inspect")
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@run_argument
 @click.option("--json", "as_json", is_flag=True, help="Print the summary as JSON.")
 @click.option("--chunk-shots", default=4096, show_default=True, help="Shots read per chunk while scanning.")
 def command(run_path, as_json, chunk_shots):

@@ -16,9 +16,12 @@ import click
 
 from compquant.cli._common import (
     SAFETY,
+    file_option,
     fold_scheduler,
     format_columns,
     is_stdio,
+    method_option,
+    output_option,
     progress_bar,
     report_runs,
     scheduler_file_option,
@@ -150,36 +153,15 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
 
 @click.command("lines", epilog=SAFETY)
 @click.argument("run_paths", metavar="RUN...", nargs=-1, required=True, type=click.Path())
-@click.option(
-    "--method",
-    "method_path",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Method file (TOML, docs/method-file.md).",
-)
-@click.option(
-    "-o",
-    "--output",
-    required=True,
-    type=click.Path(),
-    help="Line table CSV for one run ('-': standard output, no other file unless named); "
+@method_option("Method file (TOML, docs/method-file.md).")
+@output_option(
+    "Line table CSV for one run ('-': standard output, no other file unless named); "
     "an output folder for several runs or a folder of runs.",
+    folder=None,
 )
-@click.option(
-    "--shots",
-    "shots_path",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Per-shot CSV [default: <output stem>-shots.csv beside the output].",
-)
+@file_option("--shots", "shots_path", help="Per-shot CSV [default: <output stem>-shots.csv beside the output].")
 @click.option("--no-shots", is_flag=True, help="Do not write the per-shot CSV.")
-@click.option(
-    "--qc",
-    "qc_path",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Shot-QC report CSV [default: <output stem>-qc.csv].",
-)
+@file_option("--qc", "qc_path", help="Shot-QC report CSV [default: <output stem>-qc.csv].")
 @click.option(
     "--chunk-shots",
     type=int,

@@ -7,7 +7,17 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, fold_scheduler, progress_bar, scheduler_file_option, write_csv
+from compquant.cli._common import (
+    SAFETY,
+    file_option,
+    fold_scheduler,
+    method_option,
+    output_option,
+    progress_bar,
+    run_argument,
+    scheduler_file_option,
+    write_csv,
+)
 from compquant.fileio import terminal_text
 
 
@@ -35,29 +45,13 @@ def write_map_outputs(result, out_dir: Path) -> list[Path]:
 
 
 @click.command("map", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option(
-    "--method",
-    "method_path",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Method file (TOML); its [map] table picks lines, grid step and samples.",
-)
-@click.option(
-    "--calibration",
-    "calibration_path",
-    type=click.Path(dir_okay=False),
-    default=None,
+@run_argument
+@method_option("Method file (TOML); its [map] table picks lines, grid step and samples.")
+@file_option(
+    "--calibration", "calibration_path",
     help="Calibration JSON: map mass fractions instead of line intensities.",
 )
-@click.option(
-    "-o",
-    "--output",
-    "out_dir",
-    required=True,
-    type=click.Path(file_okay=False),
-    help="Output folder (maps.h5, PNG images, provenance).",
-)
+@output_option("Output folder (maps.h5, PNG images, provenance).", dest="out_dir", folder=True)
 @click.option("--sample", "samples", multiple=True, help="Sample to map (repeatable) [default: rastered ones].")
 @click.option("--chunk-shots", type=int, default=None, help="Shots per streamed chunk [method default].")
 @click.option("--workers", type=int, default=None, help="Compute on a local Dask cluster of N worker processes.")

@@ -6,6 +6,7 @@ from pathlib import Path
 
 import click
 
+from compquant.cli._common import method_option, output_option, run_argument
 from compquant.errors import InputError
 
 
@@ -75,22 +76,10 @@ def plot_sample(
 
 
 @click.command("plot")
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
+@run_argument
 @click.option("--sample", "sample_id", required=True, help="Sample id (see 'compquant inspect').")
-@click.option(
-    "--method",
-    "method_path",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Method file: its preprocessing is applied and its lines are marked and measured.",
-)
-@click.option(
-    "-o",
-    "--output",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="PNG file [default: <sample>.png, name made safe].",
-)
+@method_option("Method file: its preprocessing is applied and its lines are marked and measured.", required=False)
+@output_option("PNG file [default: <sample>.png, name made safe].", required=False)
 @click.option(
     "--range", "wl_range", type=(float, float), default=None, metavar="LO HI", help="Wavelength range to show, nm."
 )

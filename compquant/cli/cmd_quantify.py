@@ -7,7 +7,8 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, is_stdio, write_csv
+from compquant.cli._common import SAFETY, file_option, is_stdio, method_option, output_option, run_argument, write_csv
+from compquant.cli._stdin import table_input
 from compquant.fileio import terminal_text
 
 
@@ -78,34 +79,18 @@ def results_text(q) -> str:
 
 
 @click.command("quantify", epilog=SAFETY)
-@click.argument("run_path", metavar="RUN", type=click.Path(dir_okay=False))
-@click.option(
-    "--calibration",
-    "cal_path",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Calibration JSON written by 'compquant calibrate'.",
-)
-@click.option(
-    "--method",
-    "method_path",
-    type=click.Path(dir_okay=False),
-    default=None,
-    help="Method file [default: the one recorded in the calibration; must be identical].",
-)
-@click.option(
+@run_argument
+@file_option("--calibration", "cal_path", help="Calibration JSON written by 'compquant calibrate'.", required=True)
+@method_option("Method file [default: the one recorded in the calibration; must be identical].", required=False)
+@table_input(
     "--standards",
     "standards_path",
-    type=click.Path(dir_okay=False),
     default=None,
+    what="standards file",
     help="Certified standards for the check samples [default: those stored in the calibration].",
 )
-@click.option(
-    "-o",
-    "--output",
-    required=True,
-    type=click.Path(dir_okay=False),
-    help="Results CSV (one row per sample and element, mass fractions in g/g); '-': the results "
+@output_option(
+    "Results CSV (one row per sample and element, mass fractions in g/g); '-': the results "
     "on standard output and no other file.",
 )
 @click.option("--quiet", is_flag=True, help="Do not print the results.")
@@ -148,6 +133,8 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
         run_path=str(Path(run_path).resolve()),
         calibration_path=str(Path(cal_path).resolve()),
         method_path=str(Path(mpath).resolve()),
+        standards=None if standards is None else {"name": standards.attrs["name"], "path": standards.attrs["path"],
+                                                  "sha256": standards.attrs["sha256"]},
         drift=q.drift,
         valid_for_release=q.valid_for_release,
         matrix_fraction_by_difference={k: {"w": v[0], "u": v[1]} for k, v in q.matrix_fraction.items()},

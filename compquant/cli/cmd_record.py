@@ -13,7 +13,7 @@ import sys
 
 import click
 
-from compquant.cli._common import format_columns, write_csv
+from compquant.cli._common import file_option, folder_option, format_columns, write_csv
 
 _DB_HELP = "The record: SQLite file path or database URL (default: $COMPQUANT_DB, else the per-user record)."
 
@@ -67,8 +67,11 @@ def pending(db):
 @click.option("--reviewer", required=True, help="Name of the person who reviewed and releases the certificate.")
 @click.option("--role", default="", help="The reviewer's role (e.g. head of laboratory).")
 @click.option("--statement", default="", help="Review statement printed with the authorisation.")
-@click.option("-o", "--outdir", type=click.Path(file_okay=False), help="Write the released files here "
-              "(default: the draft's folder, replacing the draft files).")
+@folder_option(
+    "-o", "--outdir",
+    help="Write the released files here "
+    "(default: the draft's folder, replacing the draft files).",
+)
 @_db_option
 def release_cmd(number, reviewer, role, statement, outdir, db):
     """Release a draft: the final PDF and JSON carry the reviewer's authorisation."""
@@ -97,9 +100,11 @@ def reject_cmd(number, reviewer, reason, db):
 @command.command("amend")
 @click.argument("number")
 @click.option("--reason", required=True, help="What is changed and why (printed on the new revision).")
-@click.option("--from", "from_json", type=click.Path(dir_okay=False),
-              help="Certificate JSON with the corrected content (default: the released content).")
-@click.option("-o", "--outdir", type=click.Path(file_okay=False), help="Folder of the new revision's draft.")
+@file_option(
+    "--from", "from_json",
+    help="Certificate JSON with the corrected content (default: the released content).",
+)
+@folder_option("-o", "--outdir", help="Folder of the new revision's draft.")
 @_db_option
 def amend_cmd(number, reason, from_json, outdir, db):
     """Issue a new revision of a released certificate, as a draft awaiting review."""
@@ -144,7 +149,7 @@ def verify_cmd(files, db):
 
 @command.command("history")
 @click.argument("sample_id")
-@click.option("--csv", "csv_path", type=click.Path(dir_okay=False), help="Also write the history as CSV.")
+@file_option("--csv", "csv_path", help="Also write the history as CSV.")
 @_db_option
 def history_cmd(sample_id, csv_path, db):
     """A sample's results across runs, with its certificates and their states."""
@@ -166,7 +171,7 @@ def history_cmd(sample_id, csv_path, db):
 
 
 @command.command("chart")
-@click.option("-o", "--outdir", required=True, type=click.Path(file_okay=False), help="Folder for PNG and CSV.")
+@folder_option("-o", "--outdir", help="Folder for PNG and CSV.", required=True)
 @click.option("--material", help="Only this check material (standard reference).")
 @click.option("--element", help="Only this element.")
 @click.option("--drift/--no-drift", default=True, help="Also chart the drift-correction factors (default: yes).")
@@ -187,7 +192,7 @@ def chart_cmd(outdir, material, element, drift, db):
 
 @command.command("audit")
 @click.argument("subject", required=False)
-@click.option("--csv", "csv_path", type=click.Path(dir_okay=False), help="Also write the trail as CSV.")
+@file_option("--csv", "csv_path", help="Also write the trail as CSV.")
 @_db_option
 def audit_cmd(subject, csv_path, db):
     """The audit trail (who, when, what, why), optionally for one certificate and its revisions."""

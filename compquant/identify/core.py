@@ -44,6 +44,13 @@ set out with their sources in ``docs/identification.md``; in short:
   of its own is *hidden* rather than missing when active lines of other
   elements within 1.5 FWHM are predicted to put more intensity at its position
   than it would have.
+* **Explaining lines.**  Only the ``max_lines_per_species`` strongest lines of
+  a species are scored, but every other database line in range of a detected
+  or possible species takes part in the sharing with its predicted
+  contribution ``a_s r``: a peak that a weak matrix line accounts for (Fe I
+  429.412 nm) is not evidence for an absent element whose line lies within the
+  tolerance (W I 429.461 nm).  A species' own lines never compete with each
+  other for a peak.
 """
 
 from __future__ import annotations
@@ -64,7 +71,7 @@ _STATUS_RANK = {"detected": 0, "possible": 1, "not detected": 2}
 
 LINE_COLUMNS = ["species", "element", "ion", "group", "line_id", "members", "wavelength_nm", "rel_intensity",
                 "ek_ev", "tolerance_nm", "peak_id", "peak_centre_nm", "delta_nm", "share", "observed_area",
-                "predicted_area", "predicted_snr", "expected", "strong", "found", "missing"]
+                "predicted_area", "predicted_snr", "expected", "strong", "found", "missing", "scored"]
 
 SPECIES_COLUMNS = ["element", "ion", "species", "status", "score", "lines_found", "lines_expected",
                    "lines_missing", "rms_log_residual", "rank_correlation", "scale", "best_lines",
@@ -82,7 +89,8 @@ class Identification:
     lines : DataFrame, one row per line group of every candidate species: ``species, element,
         ion, group, line_id, members, wavelength_nm, rel_intensity, ek_ev, tolerance_nm, peak_id,
         peak_centre_nm, delta_nm, share, observed_area, predicted_area, predicted_snr, expected,
-        strong, found, missing``
+        strong, found, missing, scored``; ``scored`` is False for the weaker lines of a detected
+        or possible species that only explain peaks (never found or missing)
     peaks : DataFrame of :func:`compquant.identify.peaks.find_peaks` plus ``explained_by``
         (species with a share of at least 10 %, detected or possible) and ``unexplained``
     temperature_k : excitation temperature used for the LTE estimate
@@ -222,12 +230,16 @@ def _group_lines(df: pd.DataFrame, tol: np.ndarray, strength: np.ndarray):
 class _Problem:
     """Arrays of the grouped candidate lines and the peaks, shared by all passes."""
 
-    def __init__(self, members: pd.DataFrame, peaks: pd.DataFrame, noise_at, fwhm_instr_fn, settings):
+    def __init__(self, members: pd.DataFrame, peaks: pd.DataFrame, noise_at, fwhm_instr_fn, settings,
+                 n_scored: int | None = None):
         self.members = members
         self.settings = settings
         g = members.groupby("group", sort=True)
         first = g.head(1).set_index("group").sort_index()
         self.n_groups = len(first)
+        # groups 0 .. n_scored-1 are scored (the species' strongest lines); the others only
+        # explain peaks (see _explaining_lines)
+        self.scored = np.arange(self.n_groups) < (self.n_groups if n_scored is None else n_scored)
         self.species = first["species"].to_numpy()
         self.element = first["element"].to_numpy()
         self.ion = first["ion"].to_numpy().astype(int)
@@ -270,7 +282,7 @@ class _Problem:
 
     def width(self, s: int, share: np.ndarray) -> np.ndarray:
         """Line width used for predicted heights: instrument FWHM, or wider if the species' peaks are."""
-        idx = np.flatnonzero(self.sp_index == s)
+        idx = np.flatnonzero((self.sp_index == s) & self.scored)
         w = self.fwhm_instr[idx]
         m = (self.peak[idx] >= 0) & (share[idx] >= 0.5)
         if m.any():
@@ -282,7 +294,7 @@ class _Problem:
 def _evaluate_species(prob: _Problem, s: int, share: np.ndarray, mask: np.ndarray | None = None):
     """Best scale and found/missing bookkeeping for species index ``s`` (vectorised over candidates)."""
     st = prob.settings
-    idx = np.flatnonzero(prob.sp_index == s)
+    idx = np.flatnonzero((prob.sp_index == s) & prob.scored)
     r = prob.r[idx]
     pk = prob.peak[idx]
     matched = pk >= 0
@@ -367,8 +379,12 @@ def _share(prob: _Problem, scale_of_group: np.ndarray, active_group: np.ndarray)
     contrib = np.where(m, scale_of_group * prob.r, 0.0)
     act = np.where(m & active_group, contrib, 0.0)
     total_active = np.bincount(prob.peak[m], weights=act[m], minlength=prob.n_peaks)
-    # others = active total at the peak minus my own active part
-    others = total_active[prob.peak[m]] - act[m]
+    # others = active total at the peak minus the active part of my own species (its strongest
+    # lines and its weaker, explaining lines do not compete with each other)
+    n_sp = len(prob.species_codes)
+    key = prob.peak[m] * n_sp + prob.sp_index[m]
+    own_species = np.bincount(key, weights=act[m], minlength=prob.n_peaks * n_sp)
+    others = np.maximum(total_active[prob.peak[m]] - own_species[key], 0.0)
     own = contrib[m]
     with np.errstate(divide="ignore", invalid="ignore"):
         sh = np.where(own + others > 0, own / (own + others), 1.0)
@@ -391,12 +407,13 @@ def _masking(prob: _Problem, scale_of_group: np.ndarray, active_group: np.ndarra
     order = src[np.argsort(prob.wl[src])]
     swl = prob.wl[order]
     w = prob.fwhm_instr
-    lo = np.searchsorted(swl, prob.wl - 1.5 * w, "left")
-    hi = np.searchsorted(swl, prob.wl + 1.5 * w, "right")
+    tgt = np.flatnonzero(prob.scored)  # only scored lines can be missing
+    lo = np.searchsorted(swl, prob.wl[tgt] - 1.5 * w[tgt], "left")
+    hi = np.searchsorted(swl, prob.wl[tgt] + 1.5 * w[tgt], "right")
     cnt = hi - lo
     if cnt.sum() == 0:
         return mask
-    g = np.repeat(np.arange(n), cnt)
+    g = np.repeat(tgt, cnt)
     h = order[np.concatenate([np.arange(a, b) for a, b in zip(lo, hi) if b > a])]
     other = prob.element[g] != prob.element[h]
     g, h = g[other], h[other]
@@ -547,10 +564,18 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
     tmp = lines0.assign(_a=s_lo, _b=s_hi)
     keep = ((tmp.groupby("species")["_a"].rank(ascending=False) <= st.max_lines_per_species)
             | (tmp.groupby("species")["_b"].rank(ascending=False) <= st.max_lines_per_species))
-    lines0 = lines0[keep.to_numpy()].reset_index(drop=True)
-    tol = tol[keep.to_numpy()]
-    members = _group_lines(lines0, tol, relative_line_strength(lines0, T0))
-    prob = _Problem(members, peaks, noise_at, fwhm_instr, st)
+    keep = keep.to_numpy()
+    # the strongest lines are scored; every other line of the database in range only *explains*
+    # peaks: a weak matrix line (e.g. Fe I 429.412 nm, outside Fe I's 40 strongest) takes its
+    # predicted share of its peak, so an absent element's line at the same place is not counted
+    # as found on a peak the matrix already accounts for (docs/identification.md, section 4)
+    scored = _group_lines(lines0[keep].reset_index(drop=True), tol[keep],
+                          relative_line_strength(lines0[keep], T0))
+    explain = _group_lines(lines0[~keep].reset_index(drop=True), tol[~keep],
+                           relative_line_strength(lines0[~keep], T0))
+    n_scored = int(scored["group"].max()) + 1
+    members = pd.concat([scored, explain.assign(group=explain["group"] + n_scored)], ignore_index=True)
+    prob = _Problem(members, peaks, noise_at, fwhm_instr, st, n_scored=n_scored)
     results, evals, share = _solve(prob, st)
     T = T0
     fitted = False
@@ -579,6 +604,13 @@ def _tables(prob: _Problem, members, results, evals, share, peaks, T):
         pred[i], snr[i], obs[i] = ev["pred"], ev["snr"], ev["obs"]
         for k in flags:
             flags[k][i] = ev[k]
+    # explaining (not scored) lines: predicted with their species' scale, observed = their share
+    expl = ~prob.scored
+    scale_sp = np.array([res["scale"] for res in results])
+    active_sp = np.array([res["status"] != "not detected" for res in results])
+    pred[expl] = scale_sp[prob.sp_index[expl]] * prob.r[expl]
+    snr[expl] = pred[expl] / (GAUSS_AREA_FACTOR * prob.fwhm_instr[expl] * prob.sigma[expl])
+    obs[expl] = share[expl] * prob.peak_area[prob.peak[expl]]
     # group labels: strongest member's line id, all members
     mem = members.sort_values("_s", ascending=False)
     label = mem.groupby("group")["line_id"].first().reindex(range(n)).to_numpy()
@@ -592,8 +624,10 @@ def _tables(prob: _Problem, members, results, evals, share, peaks, T):
         "ek_ev": ek, "tolerance_nm": prob.tol, "peak_id": prob.peak,
         "peak_centre_nm": np.where(prob.peak >= 0, pc[np.maximum(prob.peak, 0)] if len(pc) else np.nan, np.nan),
         "delta_nm": prob.delta, "share": share, "observed_area": obs, "predicted_area": pred,
-        "predicted_snr": snr, **flags,
+        "predicted_snr": snr, **flags, "scored": prob.scored,
     })
+    # the explaining lines of species that are not detected or possible explain nothing: left out
+    groups = groups[prob.scored | active_sp[prob.sp_index]].reset_index(drop=True)
     top_found = (groups[groups["found"]].sort_values("observed_area", ascending=False)
                  .groupby("species")["line_id"].agg(lambda x: "; ".join(x.head(3))))
     top_missing = (groups[groups["missing"]].sort_values("predicted_snr", ascending=False)

@@ -124,67 +124,8 @@ def fit_group(
     yy = y[pix]
     c0 = np.asarray(centres0, dtype=np.float64)
     n = c0.size
-    x_ref = 0.5 * (lo_nm + hi_nm)
-    s0, g0 = widths_for_fwhm(kind, fwhm0)
-    use_s = kind in ("voigt", "gaussian")
-    use_g = kind in ("voigt", "lorentzian")
-    nw = 1 if shared_width else n
-    max_fwhm_nm = max_fwhm_nm or 10.0 * fwhm0
-    wmin = 1e-4 * fwhm0
-
-    def unpack(p):
-        A = p[:n]
-        c = p[n : 2 * n]
-        k = 2 * n
-        if use_s:
-            s = p[k : k + nw]
-            k += nw
-        else:
-            s = np.zeros(nw)
-        if use_g:
-            g = p[k : k + nw]
-            k += nw
-        else:
-            g = np.zeros(nw)
-        b = p[k : k + 2]
-        if shared_width:
-            s = np.repeat(s, n)
-            g = np.repeat(g, n)
-        return A, c, s, g, b
-
-    def model(p):
-        A, c, s, g, b = unpack(p)
-        out = b[0] + b[1] * (x - x_ref)
-        for j in range(n):
-            out = out + A[j] * profile(x - c[j], kind, s[j], g[j])
-        return out
-
-    # starting areas: linear least squares at the starting shapes
-    G0 = _design(x, c0, np.full(n, s0), np.full(n, g0), kind, x_ref)
-    lin0, *_ = np.linalg.lstsq(G0, yy, rcond=None)
-    p0 = [lin0[:n], c0]
-    lb = [np.full(n, -np.inf), c0 - max_offset_nm]
-    ub = [np.full(n, np.inf), c0 + max_offset_nm]
-    wmax_s = max_fwhm_nm / SIG2FWHM
-    wmax_g = max_fwhm_nm / 2.0
-    if use_s:
-        p0.append(np.full(nw, s0))
-        lb.append(np.full(nw, wmin))
-        ub.append(np.full(nw, wmax_s))
-    if use_g:
-        p0.append(np.full(nw, g0))
-        lb.append(np.full(nw, wmin))
-        ub.append(np.full(nw, wmax_g))
-    p0.append(lin0[n:])
-    lb.append(np.full(2, -np.inf))
-    ub.append(np.full(2, np.inf))
-    p0 = np.concatenate(p0)
-    lb = np.concatenate(lb)
-    ub = np.concatenate(ub)
-    p0[~np.isfinite(p0)] = 0.0
-    fin = np.isfinite(lb) & np.isfinite(ub)
-    eps = 1e-9 * (ub[fin] - lb[fin])
-    p0[fin] = np.clip(p0[fin], lb[fin] + eps, ub[fin] - eps)
+    model = _GroupModel(x, n, kind, shared_width, 0.5 * (lo_nm + hi_nm))
+    p0, lb, ub = _start_and_bounds(model, yy, c0, fwhm0, max_offset_nm, max_fwhm_nm or 10.0 * fwhm0)
     scale = max(float(np.max(np.abs(yy))), 1e-300)
 
     def resid(p):
@@ -198,14 +139,14 @@ def fit_group(
         resid, p0, bounds=(lb, ub), method="trf", x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=2000
     )
     p = res.x
-    A, c, s, g, b = unpack(p)
+    A, c, s, g, b = model.unpack(p)
     J = res.jac * scale
     r = model(p) - yy
     rss = float(r @ r)
     dof = m - npar
     s2 = rss / dof
     cov = np.linalg.pinv(J.T @ J) * s2
-    G = _design(x, c, s, g, kind, x_ref)
+    G = _design(x, c, s, g, kind, model.x_ref)
     cov_lin = np.linalg.pinv(G.T @ G) * s2
     fw = np.array([fwhm_of(kind, s[j], g[j]) for j in range(n)])
     return GroupFit(
@@ -223,6 +164,80 @@ def fit_group(
         rss=rss,
         dof=dof,
     )
+
+
+class _GroupModel:
+    """The profile sum of one group plus a straight background, over a parameter vector
+    ``[areas (n), centres (n), sigma (nw, Gaussian part), gamma (nw, Lorentzian part), b0, b1]``
+    (``nw`` = 1 with a shared width, else ``n``; sigma/gamma only where the profile has them)."""
+
+    def __init__(self, x, n: int, kind: str, shared_width: bool, x_ref: float):
+        self.x, self.n, self.kind, self.shared_width, self.x_ref = x, n, kind, shared_width, x_ref
+        self.use_s = kind in ("voigt", "gaussian")
+        self.use_g = kind in ("voigt", "lorentzian")
+        self.nw = 1 if shared_width else n
+
+    def unpack(self, p):
+        """``(areas, centres, sigma, gamma, background)``, widths repeated per line."""
+        n, nw = self.n, self.nw
+        A = p[:n]
+        c = p[n : 2 * n]
+        k = 2 * n
+        if self.use_s:
+            s = p[k : k + nw]
+            k += nw
+        else:
+            s = np.zeros(nw)
+        if self.use_g:
+            g = p[k : k + nw]
+            k += nw
+        else:
+            g = np.zeros(nw)
+        b = p[k : k + 2]
+        if self.shared_width:
+            s = np.repeat(s, n)
+            g = np.repeat(g, n)
+        return A, c, s, g, b
+
+    def __call__(self, p):
+        A, c, s, g, b = self.unpack(p)
+        x = self.x
+        out = b[0] + b[1] * (x - self.x_ref)
+        for j in range(self.n):
+            out = out + A[j] * profile(x - c[j], self.kind, s[j], g[j])
+        return out
+
+
+def _start_and_bounds(model: _GroupModel, yy, c0, fwhm0: float, max_offset_nm: float, max_fwhm_nm: float):
+    """Starting vector and bounds ``(p0, lb, ub)``: areas and background by linear least squares at
+    the starting shapes, centres within ``+- max_offset_nm``, widths in ``(1e-4 fwhm0, max_fwhm_nm]``."""
+    n, nw, kind = model.n, model.nw, model.kind
+    s0, g0 = widths_for_fwhm(kind, fwhm0)
+    wmin = 1e-4 * fwhm0
+    G0 = _design(model.x, c0, np.full(n, s0), np.full(n, g0), kind, model.x_ref)
+    lin0, *_ = np.linalg.lstsq(G0, yy, rcond=None)
+    p0 = [lin0[:n], c0]
+    lb = [np.full(n, -np.inf), c0 - max_offset_nm]
+    ub = [np.full(n, np.inf), c0 + max_offset_nm]
+    if model.use_s:
+        p0.append(np.full(nw, s0))
+        lb.append(np.full(nw, wmin))
+        ub.append(np.full(nw, max_fwhm_nm / SIG2FWHM))
+    if model.use_g:
+        p0.append(np.full(nw, g0))
+        lb.append(np.full(nw, wmin))
+        ub.append(np.full(nw, max_fwhm_nm / 2.0))
+    p0.append(lin0[n:])
+    lb.append(np.full(2, -np.inf))
+    ub.append(np.full(2, np.inf))
+    p0 = np.concatenate(p0)
+    lb = np.concatenate(lb)
+    ub = np.concatenate(ub)
+    p0[~np.isfinite(p0)] = 0.0
+    fin = np.isfinite(lb) & np.isfinite(ub)
+    eps = 1e-9 * (ub[fin] - lb[fin])
+    p0[fin] = np.clip(p0[fin], lb[fin] + eps, ub[fin] - eps)
+    return p0, lb, ub
 
 
 def fit_group_fixed(

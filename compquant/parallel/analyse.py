@@ -27,6 +27,10 @@ def _by_value(path) -> dict | None:
     """A configuration file as sent to the workers: its absolute path, bytes and sha256."""
     if path is None:
         return None
+    from compquant.fileio import InputBytes
+
+    if isinstance(path, InputBytes):  # read already (standard input): sent as it is
+        return {"input": path}
     p = Path(path)
     try:
         data = p.read_bytes()
@@ -39,6 +43,8 @@ def _on_worker(f: dict | None, folder: Path) -> str | None:
     """The path a worker uses for a file sent by value (see the module docstring)."""
     if f is None:
         return None
+    if "input" in f:
+        return f["input"]
     p = Path(f["path"])
     if f["data"] is None:
         return str(p)

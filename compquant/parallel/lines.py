@@ -24,11 +24,14 @@ from compquant.parallel.runs import RunOutcome, map_runs
 
 
 def process_chunk_task(run, start: int, stop: int, plan):
-    """Worker side: ``process_chunk`` on shots ``start:stop`` of the worker-local ``run``."""
+    """Worker side: ``process_chunk`` on shots ``start:stop`` of the worker-local ``run``, read by
+    :func:`compquant.run.fastread.read_range` (the stored chunks inflated in the worker's thread,
+    ISA-L when installed: the same bytes as ``run.read_raw``)."""
     from compquant.lines.chunk import process_chunk
+    from compquant.run.fastread import read_range
 
     sample_index = run.shots["sample_index"].to_numpy()[start:stop].astype(np.int64)
-    return process_chunk(run.read_raw(start, stop), sample_index, plan)
+    return process_chunk(read_range(run, start, stop), sample_index, plan)
 
 
 def split_ranges(ranges: list[tuple[int, int]], n_tasks: int, align: int = 1) -> list[tuple[int, int, int]]:

@@ -7,6 +7,7 @@ and SHA-256, the schema revision and the time of export.
 
 from __future__ import annotations
 
+import base64
 import json
 from pathlib import Path
 
@@ -19,18 +20,26 @@ from compquant.record import schema as S
 from compquant.record.db import Record, RecordError, now_utc
 
 
+def _frame(conn, t) -> pd.DataFrame:
+    """One table; binary columns (the evidence arrays) as base64 text, so CSV and Parquet carry them as text."""
+    rows = conn.execute(sa.select(t).order_by(*t.primary_key.columns)).all()
+    df = pd.DataFrame(rows, columns=[c.name for c in t.columns])
+    for c in t.columns:
+        if isinstance(c.type, sa.LargeBinary):
+            df[c.name] = [base64.b64encode(bytes(v)).decode("ascii") if v is not None else None for v in df[c.name]]
+    return df
+
+
 def _frames(rec: Record) -> dict[str, pd.DataFrame]:
     out = {}
     if rec.dialect == "postgresql":
         with rec.engine.connect().execution_options(isolation_level="REPEATABLE READ") as conn, conn.begin():
             for t in S.TABLES:
-                out[t.name] = pd.DataFrame(conn.execute(sa.select(t).order_by(*t.primary_key.columns)).all(),
-                                           columns=[c.name for c in t.columns])
+                out[t.name] = _frame(conn, t)
         return out
     with rec.transaction() as conn:
         for t in S.TABLES:
-            out[t.name] = pd.DataFrame(conn.execute(sa.select(t).order_by(*t.primary_key.columns)).all(),
-                                       columns=[c.name for c in t.columns])
+            out[t.name] = _frame(conn, t)
     return out
 
 

@@ -177,6 +177,40 @@ certificate_files = sa.Table(
     sa.Index("ix_certificate_files_sha256", "sha256"),
 )
 
+#: arrays an analysis stored for review (revision 0002): the run's wavelength axis (sample_row
+#: NULL, float64) and each sample's mean spectrum (float32), zlib-compressed little-endian bytes
+#: with the SHA-256 of the uncompressed bytes; append-only
+evidence_arrays = sa.Table(
+    "evidence_arrays",
+    metadata,
+    sa.Column("id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=False),
+    sa.Column("sample_row", sa.Integer, sa.ForeignKey("samples.id")),
+    sa.Column("name", sa.String(32), nullable=False),
+    sa.Column("dtype", sa.String(8), nullable=False),
+    sa.Column("length", sa.Integer, nullable=False),
+    sa.Column("codec", sa.String(16), nullable=False),
+    sa.Column("data", sa.LargeBinary, nullable=False),
+    sa.Column("sha256", sa.String(64), nullable=False),
+    sa.Index("ix_evidence_arrays_run", "run_id", "sample_row"),
+)
+
+#: what the review page draws beside the numbers (revision 0002), as canonical JSON with its
+#: SHA-256: kind line (window, fit, residuals), curve, mark (the sample on a curve), boltzmann,
+#: map (compquant.record.evidence); append-only
+evidence = sa.Table(
+    "evidence",
+    metadata,
+    sa.Column("id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("run_id", sa.Integer, sa.ForeignKey("runs.id"), nullable=False),
+    sa.Column("sample_row", sa.Integer, sa.ForeignKey("samples.id")),
+    sa.Column("kind", sa.String(16), nullable=False),
+    sa.Column("key", sa.Text, nullable=False),
+    sa.Column("data", sa.Text, nullable=False),
+    sa.Column("sha256", sa.String(64), nullable=False),
+    sa.Index("ix_evidence_run", "run_id", "kind", "sample_row"),
+)
+
 #: tables in the order of the export and of foreign keys
 TABLES = (record_info, audit, runs, samples, results, calibrations, drift_factors, checks, certificates,
-          certificate_files)
+          certificate_files, evidence_arrays, evidence)

@@ -1,5 +1,6 @@
 """One analysis into the record: the run, its samples, every result, the calibration, drift
-factors, check-sample evaluations and the certificates, in one transaction.
+factors, check-sample evaluations, the certificates and the evidence the review page draws
+(:mod:`compquant.record.evidence`), in one transaction.
 
 Called by :func:`compquant.analyse.analyse` at its end when a record is given (``--db``) or
 configured (``COMPQUANT_DB``).  Either everything of the analysis is stored or nothing is: a kill
@@ -172,8 +173,18 @@ def _insert_certificates(rec, conn, run_id, certificates, outputs, review, outdi
 
 def store_analysis(rec: Record, *, run_file, run_sha256: str, instrument: dict, samples, measured: dict, method,
                    basis: str, issued_at: str, certificates, outputs, review, calibration=None, drift=None,
-                   checks=(), outdir, chart: ChartSettings | None = None, who: str | None = None) -> list[dict]:
-    """Store one analysis (see the module docstring); return the certificates' record entries."""
+                   checks=(), outdir, chart: ChartSettings | None = None, who: str | None = None,
+                   evidence=None) -> list[dict]:
+    """Store one analysis (see the module docstring); return the certificates' record entries.
+
+    ``evidence``: what the review page draws (mean spectra, line windows and fits, curves,
+    Boltzmann plots), a :class:`compquant.record.evidence.AnalysisEvidence` or the keyword
+    arguments of one; stored in the same transaction (:func:`compquant.record.evidence.store_evidence`).
+    """
+    from compquant.record.evidence import AnalysisEvidence, store_evidence
+
+    if isinstance(evidence, dict):
+        evidence = AnalysisEvidence(**evidence)
     who = who or current_user()
     outdir = Path(outdir)
     if chart is None:
@@ -201,6 +212,7 @@ def store_analysis(rec: Record, *, run_file, run_sha256: str, instrument: dict, 
                     criterion=c.criterion) for c in checks]
         if chk:
             conn.execute(S.checks.insert(), chk)
+        store_evidence(conn, evidence, run_id, sample_ids, certificates)
         audit: list[dict] = []
         entries = (_insert_certificates(rec, conn, run_id, certificates, outputs, review, outdir, who, audit)
                    if certificates else [])

@@ -16,7 +16,6 @@ from pathlib import Path
 
 import numpy as np
 
-from compquant.errors import CompquantError
 from compquant.fileio import atomic_path
 from compquant.report.certificate import (
     CalibrationInfo,
@@ -211,48 +210,17 @@ def check_results(checks, results=None) -> list[CheckResult]:
 
 
 def curve_figure(c, sample_row: ResultRow | None, matrix_w: float | None) -> bytes | None:
-    from compquant.report.figures import calibration_png
+    """The calibration-curve figure of the certificate (:func:`compquant.calibrate.plots.curve_png`,
+    the figure ``compquant calibrate --plots`` draws too) with this sample marked when it has a value
+    (for a curve on the ratio basis, also a matrix mass fraction ``matrix_w``)."""
+    from compquant.calibrate.plots import curve_png
 
-    used = [s for s in c.standards if s.get("used", True)]
-    if len(used) < 2:
-        return None
-    ratio = c.basis == "ratio"
-    f = 1.0 if ratio else 100.0
-    xs = np.array([float(s["x"]) for s in used]) * f
-    ys = np.array([float(s["y"]) for s in used])
-    xe = np.array([float(s.get("u_x", 0.0) or 0.0) for s in used]) * 2 * f
-    ye = np.array([float(s.get("u_y", 0.0) or 0.0) for s in used]) * 2
-    lo, hi = float(xs.min()), float(xs.max())
-    grid = np.linspace(0.0 if lo > 0 else lo, hi * 1.08, 120)
-    try:
-        fit_y = np.asarray(c.response(grid / f), float)
-    except Exception:  # a curve that cannot be evaluated on the grid: draw the standards only
-        fit_y = None
-    sx = sy = None
+    x0 = None
     if sample_row is not None and finite(sample_row.mass_fraction):
         x0 = sample_row.mass_fraction
-        if ratio:
+        if c.basis == "ratio":
             x0 = x0 / matrix_w if matrix_w else None
-        if x0 is not None:
-            sx = x0 * f
-            sy = float(np.asarray(c.response(np.array([x0])), float)[0])
-    xl = f"{c.element} / matrix mass-fraction ratio" if ratio else f"{c.element} mass fraction (%)"
-    yl = f"{c.line_id}" + (f" / {c.internal_standard}" if c.internal_standard else "")
-    return calibration_png(
-        xs,
-        ys,
-        fit_x=grid if fit_y is not None else None,
-        fit_y=fit_y,
-        x_err=xe,
-        y_err=ye,
-        labels=[str(s.get("standard_id", "")) for s in used],
-        sample_x=sx,
-        sample_y=sy,
-        sample_label="this sample",
-        xlabel=xl,
-        ylabel=yl,
-        title=f"Calibration curve {c.element} ({c.model})",
-    )
+    return curve_png(c, sample_x=x0, sample_label="this sample")
 
 
 # ------------------------------------------------------------------------- calibration-free path
@@ -304,28 +272,11 @@ def plasma_info(res) -> PlasmaInfo:
 
 
 def boltzmann_figure(res) -> bytes | None:
-    """(Saha-)Boltzmann plot of the lines used, with the fitted values."""
-    from compquant.report.figures import boltzmann_png
+    """(Saha-)Boltzmann plot of the lines used, with the fitted values
+    (:func:`compquant.cflibs.plots.saha_boltzmann_png`, the figure ``compquant cf --plots`` draws too)."""
+    from compquant.cflibs.plots import saha_boltzmann_png
 
-    pts = [ln for ln in (res.lines or []) if _f(ln.get("x_ev")) is not None and _f(ln.get("y")) is not None]
-    if len(pts) < 2:
-        return None
-    E = np.array([float(p["x_ev"]) for p in pts])
-    Y = np.array([float(p["y"]) for p in pts])
-    yfit = np.array([_f(p.get("y_fit")) if _f(p.get("y_fit")) is not None else np.nan for p in pts])
-    yerr = np.array([_f(p.get("u_ordinate")) or 0.0 for p in pts])
-    sp = [str(p.get("species", "lines")) for p in pts]
-    saha = str(res.fit_mode) == "saha-boltzmann"
-    return boltzmann_png(
-        E,
-        Y,
-        sp,
-        fit_y=yfit,
-        yerr=yerr,
-        title=f"{'Saha-' if saha else ''}Boltzmann plot, T = {res.temperature_k:.0f} K",
-        xlabel="upper level energy (eV)" + (", ions shifted by the ionisation energy" if saha else ""),
-        ylabel="ln(I·λ / (g_k·A_ki))" + (" (ions Saha-corrected)" if saha else ""),
-    )
+    return saha_boltzmann_png(res)
 
 
 def printed(r: ResultRow) -> dict:
@@ -339,27 +290,21 @@ def blank_text(curves: dict) -> str:
 
 
 def sample_figures(
-    sid, stem, outdir: Path, wavelength, mean_spec, lines_marked, curves, rows, matrix_w, cf_res, run_path, method,
-    write: bool = True,
+    sid, stem, outdir: Path, wavelength, mean_spec, lines_marked, curves, rows, matrix_w, cf_res, write: bool = True,
 ) -> list[FigureItem]:
-    """The sample's figures; ``path`` is relative to ``outdir``; written there when ``write``."""
+    """The sample's figures; ``path`` is relative to ``outdir``; written there when ``write``.
+
+    ``mean_spec`` maps sample ids to the mean spectra the line measurement already computed
+    (:attr:`compquant.lines.LineMeasurement.mean_spectra`, on ``wavelength``); the run is not
+    read again.  A sample without one gets no spectrum figure.
+    """
     from compquant.report.figures import spectrum_png
 
     items: list[FigureItem] = []
     spec = mean_spec.get(sid)
-    if spec is None:
-        try:
-            from compquant.lines import mean_spectrum
-            from compquant.run import Run
-
-            with Run.open(run_path) as run:
-                wl, spec, _info = mean_spectrum(run, method, sid)
-                wavelength = np.asarray(wl, float)
-        except CompquantError:
-            spec = None
-    if spec is not None and np.asarray(spec).shape == wavelength.shape:
+    if spec is not None and np.asarray(spec).shape == np.shape(wavelength):
         png = spectrum_png(
-            wavelength,
+            np.asarray(wavelength, float),
             np.asarray(spec, float),
             lines_marked,
             title="Mean preprocessed spectrum of the accepted shots",

@@ -98,150 +98,149 @@ def review_fields(cert: Certificate, review) -> dict:
     return {"authorised_by": who, "review": review.as_dict()}
 
 
-def certificate_to_dict(cert: Certificate, review=None) -> dict:
-    """Plain-data form of a certificate, following schema version 1 (``review``: a
-    :class:`compquant.record.states.Review` or None, see :func:`review_fields`)."""
-    cert.validate()
-    reasons = cert.release_reasons()
-    results = []
+def _pick(obj, keys: str, conv: dict | None = None, rename: dict | None = None) -> dict:
+    """``{key: value}`` for the space-separated ``keys``, each read from ``obj``'s attribute of the
+    same name (or ``rename[key]``) and passed through ``conv[key]`` when given."""
+    conv, rename = conv or {}, rename or {}
+    out = {}
+    for key in keys.split():
+        v = getattr(obj, rename.get(key, key))
+        out[key] = conv[key](v) if key in conv else v
+    return out
+
+
+def _as(kind, keys: str) -> dict:
+    """``{key: kind}`` for the space-separated ``keys`` (the ``conv`` of :func:`_pick`)."""
+    return dict.fromkeys(keys.split(), kind)
+
+
+def _results_part(cert: Certificate) -> list[dict]:
+    """``results``: one entry per element; a result below the LOD has no value, u or U."""
+    out = []
     for r in cert.results:
         rep = r.reported()
-        results.append(
-            {
-                "element": r.element,
-                "mass_fraction": None if r.below_lod else _num(r.mass_fraction),
-                "u": None if r.below_lod else _num(r.u),
-                "U": None if r.below_lod else _num(r.U),
-                "k": _num(r.k),
-                "lod": _num(r.lod),
-                "loq": _num(r.loq),
-                "below_lod": bool(r.below_lod),
-                "above_range": bool(r.above_range),
-                "flags": r.all_flags(),
-                "line_id": r.line_id,
-                "basis": r.basis,
-                "reported": {
-                    "unit": rep.unit,
-                    "value": rep.value,
-                    "U": rep.U,
-                    "lod": rep.lod,
-                    "loq": rep.loq,
-                },
-            }
-        )
-    cal = None
-    if cert.calibration is not None:
-        c = cert.calibration
-        cal = {
-            "calibration_id": c.calibration_id,
-            "created": c.created,
-            "description": c.description,
-            "file_name": c.file_name,
-            "file_sha256": c.file_sha256,
-            "curves": [
-                {
-                    "element": cv.element,
-                    "line_id": cv.line_id,
-                    "model": cv.model,
-                    "internal_standard": cv.internal_standard,
-                    "range_low": _num(cv.range_low),
-                    "range_high": _num(cv.range_high),
-                    "n_standards": cv.n_standards,
-                    "r_squared": _num(cv.r_squared),
-                    "lod_basis": cv.lod_basis,
-                }
-                for cv in c.curves
-            ],
-            "standards": [
-                {
-                    "standard_id": s.standard_id,
-                    "element": s.element,
-                    "mass_fraction": _num(s.mass_fraction),
-                    "U": _num(s.U),
-                    "k": _num(s.k),
-                    "source": s.source,
-                }
-                for s in c.standards
-            ],
+        hide = bool(r.below_lod)
+        entry = {
+            "element": r.element,
+            "mass_fraction": None if hide else _num(r.mass_fraction),
+            "u": None if hide else _num(r.u),
+            "U": None if hide else _num(r.U),
         }
-    plasma = None
-    if cert.plasma is not None:
-        p = cert.plasma
-        plasma = {
-            "temperature_K": _num(p.temperature_K),
-            "U_temperature_K": _num(p.U_temperature_K),
-            "electron_density_cm3": _num(p.electron_density_cm3),
-            "U_electron_density_cm3": _num(p.U_electron_density_cm3),
-            "method": p.method,
-            "lte_checks": [
-                {
-                    "name": c.name,
-                    "criterion": c.criterion,
-                    "value": _num(c.value),
-                    "limit": _num(c.limit),
-                    "unit": c.unit,
-                    "passed": bool(c.passed),
-                }
-                for c in p.lte_checks
-            ],
-        }
+        entry.update(_pick(r, "k lod loq", _as(_num, "k lod loq")))
+        entry.update(_pick(r, "below_lod above_range", _as(bool, "below_lod above_range")))
+        entry.update({"flags": r.all_flags(), "line_id": r.line_id, "basis": r.basis})
+        entry["reported"] = _pick(rep, "unit value U lod loq")
+        out.append(entry)
+    return out
+
+
+def _calibration_part(cert: Certificate) -> dict | None:
+    """``calibration``: id, date, file, curves and the certified values of the standards used."""
+    c = cert.calibration
+    if c is None:
+        return None
+    out = _pick(c, "calibration_id created description file_name file_sha256")
+    curve_keys = "element line_id model internal_standard range_low range_high n_standards r_squared lod_basis"
+    curve_nums = _as(_num, "range_low range_high r_squared")
+    out["curves"] = [_pick(cv, curve_keys, curve_nums) for cv in c.curves]
+    std_nums = _as(_num, "mass_fraction U k")
+    out["standards"] = [_pick(s, "standard_id element mass_fraction U k source", std_nums) for s in c.standards]
+    return out
+
+
+def _plasma_part(cert: Certificate) -> dict | None:
+    """``plasma``: T and nₑ with their U (k = 2), the diagnostics and the LTE checks."""
+    p = cert.plasma
+    if p is None:
+        return None
+    nums = "temperature_K U_temperature_K electron_density_cm3 U_electron_density_cm3"
+    out = _pick(p, nums + " method", _as(_num, nums))
+    check_conv = {**_as(_num, "value limit"), "passed": bool}
+    out["lte_checks"] = [_pick(c, "name criterion value limit unit passed", check_conv) for c in p.lte_checks]
+    return out
+
+
+def _quality_control_part(cert: Certificate) -> dict:
+    """``quality_control``: drift standardisation, check samples with their state, blank, notes."""
     qc = cert.qc
-    qc_d = {
-        "drift": {
-            "applied": bool(qc.drift.applied),
-            "description": qc.drift.description,
-            "setup_samples": list(qc.drift.setup_samples),
-            "factors": {k: _num(v) for k, v in qc.drift.factors.items()},
-        },
-        "check_samples": [
-            {
-                "sample_id": c.sample_id,
-                "standard_ref": c.standard_ref,
-                "element": c.element,
-                "measured": _num(c.measured),
-                "U_measured": _num(c.U_measured),
-                "certified": _num(c.certified),
-                "U_certified": _num(c.U_certified),
-                "z": _num(c.z),
-                "En": _num(c.En),
-                "passed": bool(c.passed),
-                "criterion": c.criterion,
-                "flags": list(c.flags),
-                "loq": _num(c.loq),
-                "state": check_state(c, sigma_pt_rel_of(cert)),
-            }
-            for c in qc.check_samples
-        ],
+    drift = _pick(qc.drift, "applied description setup_samples", {"applied": bool, "setup_samples": list})
+    drift["factors"] = {k: _num(v) for k, v in qc.drift.factors.items()}
+    check_keys = (
+        "sample_id standard_ref element measured U_measured certified U_certified z En passed criterion flags loq"
+    )
+    check_conv = {**_as(_num, "measured U_measured certified U_certified z En loq"), "passed": bool, "flags": list}
+    sigma_pt = sigma_pt_rel_of(cert)
+    checks = [{**_pick(c, check_keys, check_conv), "state": check_state(c, sigma_pt)} for c in qc.check_samples]
+    return {
+        "drift": drift,
+        "check_samples": checks,
         "not_evaluated": list(qc.not_evaluated),
         "blank": qc.blank,
         "notes": list(qc.notes),
     }
-    conf = None
-    if cert.conformity is not None:
-        cs = cert.conformity
-        conf = {
-            "specification": cs.specification,
-            "grade": cs.grade,
-            "source": cs.source,
-            "decision_rule": cs.rule,
-            "decision_rule_text": cs.rule_text,
-            "outcome": cs.outcome,
-            "statement": cs.statement,
-            "elements": [
-                {
-                    "element": e.element,
-                    "min": _num(e.lower),
-                    "max": _num(e.upper),
-                    "unit": e.unit,
-                    "outcome": e.outcome,
-                    "reason": e.reason,
-                    "value": _num(e.value),
-                    "U": _num(e.U),
-                }
-                for e in cs.elements
-            ],
-        }
+
+
+def _conformity_part(cert: Certificate) -> dict | None:
+    """``conformity``: specification, decision rule, overall outcome and one entry per element."""
+    cs = cert.conformity
+    if cs is None:
+        return None
+    out = _pick(cs, "specification grade source")
+    out.update({"decision_rule": cs.rule, "decision_rule_text": cs.rule_text})
+    out.update(_pick(cs, "outcome statement"))
+    el_nums = _as(_num, "min max value U")
+    renamed = {"min": "lower", "max": "upper"}
+    out["elements"] = [_pick(e, "element min max unit outcome reason value U", el_nums, renamed) for e in cs.elements]
+    return out
+
+
+def _release_part(reasons: list[str]) -> dict:
+    """``release``: valid or not, its state name, the reasons and the rules they come from."""
+    return {
+        "valid": not reasons,
+        "status": RELEASE_BLOCKED if reasons else RELEASE_OK,
+        "reasons": reasons,
+        "rules": sorted({rule_of(r) or "other" for r in reasons}),
+    }
+
+
+def _parties_part(cert: Certificate) -> dict:
+    """``laboratory``, ``client``, ``method`` and ``sample``: who, how and what was tested."""
+    return {
+        "laboratory": _pick(cert.lab, "name address accreditation site phone email", {"address": list}),
+        "client": _pick(cert.client, "name address reference", {"address": list}),
+        "method": _pick(
+            cert.method, "technique method_id version description file_name file_sha256 basis instrument"
+        ),
+        "sample": _pick(cert.sample, "sample_id description condition received measured n_shots run_file"),
+    }
+
+
+def _statements_part(cert: Certificate) -> dict:
+    """``statements`` and ``flags_explained``: the fixed texts and the meaning of each flag used."""
+    return {
+        "statements": {
+            "item_only": ITEM_ONLY_STATEMENT,
+            "uncertainty": uncertainty_statement(cert.coverage_factors()),
+            "lod": LOD_STATEMENT,
+        },
+        "flags_explained": [{"flag": f, "text": flag_text(f)} for f in cert.flags_used()],
+    }
+
+
+def _provenance_part(cert: Certificate) -> dict:
+    """``provenance``: software, time of issue, SHA-256 of the run and of every file, parameters."""
     pv = cert.provenance
+    out = _pick(pv, "software version issued_at run_sha256")
+    out["files"] = [_pick(f, "role name sha256") for f in pv.files]
+    out["parameters"] = {k: (_num(v) if isinstance(v, (int, float)) else v) for k, v in pv.parameters.items()}
+    return out
+
+
+def certificate_to_dict(cert: Certificate, review=None) -> dict:
+    """Plain-data form of a certificate, following schema version 1 (``review``: a
+    :class:`compquant.record.states.Review` or None, see :func:`review_fields`)."""
+    cert.validate()
     doc = {
         "schema": SCHEMA_NAME,
         "schema_version": SCHEMA_VERSION,
@@ -249,71 +248,23 @@ def certificate_to_dict(cert: Certificate, review=None) -> dict:
         "number": cert.number,
         "revision": int(cert.revision),
         "issue_date": cert.issue_date,
-        "release": {
-            "valid": not reasons,
-            "status": RELEASE_BLOCKED if reasons else RELEASE_OK,
-            "reasons": reasons,
-            "rules": sorted({rule_of(r) or "other" for r in reasons}),
-        },
+        "release": _release_part(cert.release_reasons()),
         "supersedes": (
             {"number": cert.supersedes, "reason": cert.revision_reason} if cert.supersedes else None
         ),
-        "laboratory": {
-            "name": cert.lab.name,
-            "address": list(cert.lab.address),
-            "accreditation": cert.lab.accreditation,
-            "site": cert.lab.site,
-            "phone": cert.lab.phone,
-            "email": cert.lab.email,
-        },
-        "client": {
-            "name": cert.client.name,
-            "address": list(cert.client.address),
-            "reference": cert.client.reference,
-        },
-        "method": {
-            "technique": cert.method.technique,
-            "method_id": cert.method.method_id,
-            "version": cert.method.version,
-            "description": cert.method.description,
-            "file_name": cert.method.file_name,
-            "file_sha256": cert.method.file_sha256,
-            "basis": cert.method.basis,
-            "instrument": cert.method.instrument,
-        },
-        "sample": {
-            "sample_id": cert.sample.sample_id,
-            "description": cert.sample.description,
-            "condition": cert.sample.condition,
-            "received": cert.sample.received,
-            "measured": cert.sample.measured,
-            "n_shots": cert.sample.n_shots,
-            "run_file": cert.sample.run_file,
-        },
-        "results": results,
-        "statements": {
-            "item_only": ITEM_ONLY_STATEMENT,
-            "uncertainty": uncertainty_statement(cert.coverage_factors()),
-            "lod": LOD_STATEMENT,
-        },
-        "flags_explained": [{"flag": f, "text": flag_text(f)} for f in cert.flags_used()],
+        **_parties_part(cert),
+        "results": _results_part(cert),
+        **_statements_part(cert),
         "deviations": list(cert.deviations),
         "remarks": list(cert.remarks),
-        "calibration": cal,
-        "plasma": plasma,
-        "quality_control": qc_d,
-        "conformity": conf,
+        "calibration": _calibration_part(cert),
+        "plasma": _plasma_part(cert),
+        "quality_control": _quality_control_part(cert),
+        "conformity": _conformity_part(cert),
         "detected_not_quantified": list(cert.detected_not_quantified),
-        "figures": [{"title": f.title, "caption": f.caption, "kind": f.kind, "path": f.path} for f in cert.figures],
-        "safety_notes": [{"title": n.title, "text": n.text} for n in cert.safety_notes],
-        "provenance": {
-            "software": pv.software,
-            "version": pv.version,
-            "issued_at": pv.issued_at,
-            "run_sha256": pv.run_sha256,
-            "files": [{"role": f.role, "name": f.name, "sha256": f.sha256} for f in pv.files],
-            "parameters": {k: (_num(v) if isinstance(v, (int, float)) else v) for k, v in pv.parameters.items()},
-        },
+        "figures": [_pick(f, "title caption kind path") for f in cert.figures],
+        "safety_notes": [_pick(n, "title text") for n in cert.safety_notes],
+        "provenance": _provenance_part(cert),
     }
     doc.update(review_fields(cert, review))
     return doc

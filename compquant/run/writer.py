@@ -5,6 +5,9 @@ Two entry points:
 * :func:`write_run` writes a whole run held in memory;
 * :class:`RunWriter` streams spectra block by block, for runs larger than memory.
 
+:func:`add_axes` copies a run written before the NeXus ``NXdata`` group and the HDF5
+dimension scales existed (issue 20) into one that has them, its data untouched.
+
 Both write to a temporary file beside the target and rename it into place only
 when the run is complete, so an interrupted write never leaves a run under
 its final name.
@@ -300,4 +303,45 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
 
 
 
-__all__ = ["RunWriter", "write_run"]
+def _has_axes(f: h5py.File) -> bool:
+    g = f.get("data")
+    return (isinstance(g, h5py.Group) and g.attrs.get("NX_class") == "NXdata" and "wavelength" in f
+            and f["wavelength"].is_scale and "shot_index" in f and f["shot_index"].is_scale)
+
+
+def add_axes(src: str | os.PathLike, dst: str | os.PathLike) -> bool:
+    """Write a copy of the run ``src`` to ``dst`` with the ``NXdata`` group and dimension scales.
+
+    What is added is what :class:`RunWriter` writes into every new run
+    (:func:`compquant.interchange.add_nxdata`): the group ``/data`` (NeXus ``NXdata``, NIAC:
+    ``signal = "spectra"``, ``axes = ["shot_index", "wavelength"]``), the dataset ``/shot_index``
+    (``0 .. n_shots-1``), the root attribute ``default = "data"``, and ``/wavelength`` and
+    ``/shot_index`` made HDF5 dimension scales (HDF5 Dimension Scale specification) attached to
+    the two dimensions of ``/spectra``. Nothing else changes: every dataset keeps its bytes, its
+    storage (chunks, filters) and its attributes, so a file's numbers are the same before and
+    after; its SHA-256 changes (it is another file).
+
+    ``src`` is validated as a run first (:meth:`compquant.run.Run.open`) and only read; the copy
+    is made beside ``dst`` and renamed into place when complete
+    (:func:`compquant.fileio.atomic_path`), so ``dst`` may be ``src`` itself (the file is then
+    replaced in one step, as ``scripts/add_run_axes.py`` does for the demo runs). Returns False
+    when ``src`` already had them (then ``dst`` is a byte-for-byte copy), True otherwise.
+    """
+    import shutil
+
+    from compquant.fileio import require_file
+    from compquant.run.reader import Run
+
+    src = require_file(src, "run file")
+    with Run.open(src):  # a valid run, or a one-line RunFormatError
+        pass
+    with atomic_path(dst) as tmp:
+        shutil.copyfile(src, tmp)
+        with h5py.File(tmp, "r+") as f:
+            if _has_axes(f):
+                return False
+            add_nxdata(f, "spectra", ["shot_index", "wavelength"])
+    return True
+
+
+__all__ = ["RunWriter", "add_axes", "write_run"]

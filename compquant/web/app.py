@@ -96,6 +96,7 @@ def create_app(rec, trusted_hosts: list[str] | None = LOOPBACK_HOSTS) -> Flask:
     app.after_request(_headers)
     app.extensions["compquant_record"] = rec
     _pages(app, rec)
+    _evidence(app, rec)
     _files(app, rec)
     _actions(app, rec)
     return app
@@ -151,6 +152,78 @@ def _pages(app: Flask, rec) -> None:
             return render_template("charts.html", title="Control charts", checks=materials(conn),
                                    drifts=drift_lines(conn), interactive=g.bokeh)
 
+
+
+def _evidence(app: Flask, rec) -> None:
+    """A recorded sample's analysis: spectrum, line windows and fits, curves, Boltzmann plot, maps."""
+
+    @app.get("/analysis/<int:row>")
+    def analysis(row: int):
+        g.bokeh = interactive.available()
+        with rec.transaction() as conn:
+            d = data.sample_row(conn, row)
+        if d is None:
+            abort(404)
+        figs = (d["latest"] or {}).get("figures", [])
+        static = {"spectrum": [f for f in figs if f.get("kind") == "spectrum"],
+                  "boltzmann": [f for f in figs if f.get("kind") == "boltzmann"],
+                  "curve": {el: [f for f in figs if f.get("kind") == "calibration" and f" {el} (" in f.get("title", "")]
+                            for el in d["curves"]}}
+        return render_template("analysis.html", title=f"Sample {d['sample']['sample_id']}", d=d, static=static,
+                               interactive=g.bokeh)
+
+    def item(build):
+        if not interactive.available():
+            abort(404)
+        out = build()
+        if out is None:
+            abort(404)
+        return Response(json.dumps(out), mimetype="application/json")  # Bokeh's key order kept
+
+    @app.get("/analysis/<int:row>/spectrum.json")
+    def spectrum_json(row: int):
+        def build():
+            with rec.transaction() as conn:
+                hit = data.evidence_spectrum(conn, row)
+            return None if hit is None else interactive.spectrum_item(*hit)
+        return item(build)
+
+    @app.get("/analysis/<int:row>/lines.json")
+    def lines_json(row: int):
+        def build():
+            with rec.transaction() as conn:
+                its = data.evidence_items(conn, row, "line")
+            return interactive.lines_item(its) if its else None
+        return item(build)
+
+    @app.get("/analysis/<int:row>/curve.json")
+    def curve_json(row: int):
+        el, log = request.args.get("element", ""), request.args.get("scale") == "log"
+
+        def build():
+            with rec.transaction() as conn:
+                curve = next((c for c in data.evidence_items(conn, row, "curve") if c["element"] == el), None)
+                mark = next((m for m in data.evidence_items(conn, row, "mark") if m["element"] == el), None)
+            return None if curve is None else interactive.curve_item(curve, mark, log=log)
+        return item(build)
+
+    @app.get("/analysis/<int:row>/boltzmann.json")
+    def boltzmann_json(row: int):
+        def build():
+            with rec.transaction() as conn:
+                its = data.evidence_items(conn, row, "boltzmann")
+            return interactive.boltzmann_item(its[0]) if its else None
+        return item(build)
+
+    @app.get("/analysis/<int:row>/map.json")
+    def map_json(row: int):
+        name = request.args.get("name", "")
+
+        def build():
+            with rec.transaction() as conn:
+                m = next((m for m in data.evidence_items(conn, row, "map") if m["name"] == name), None)
+            return None if m is None else interactive.map_item(m)
+        return item(build)
 
 
 def _files(app: Flask, rec) -> None:

@@ -86,7 +86,10 @@ def certificate_detail(conn, number: str) -> dict | None:
     chart_msgs, blocking = run_chart_violations(conn, row["run_id"])
     revisions = [dict(r) for r in conn.execute(sa.select(C.c.number, C.c.revision, C.c.state).where(
         C.c.base_number == row["base_number"]).order_by(C.c.revision)).mappings()]
+    sample_row = conn.execute(sa.select(S.samples.c.id).where(S.samples.c.run_id == row["run_id"],
+                                                              S.samples.c.sample_id == row["sample_id"])).scalar()
     return {"cert": _certificate_summary(row), "doc": doc, "figures": figures, "files": files, "run": dict(run),
+            "sample_row": sample_row,
             "chart": chart_msgs, "chart_blocks": blocking, "revisions": revisions}
 
 
@@ -123,4 +126,60 @@ def figure_png(conn, cert_id: int, sha256: str) -> bytes | None:
     return None
 
 
-__all__ = ["list_runs", "run_detail", "certificate_detail", "certificate_file", "figure_png"]
+def sample_row(conn, row: int) -> dict | None:
+    """A recorded sample (by its row id) with its run, results, certificates and what evidence exists."""
+    from compquant.record.evidence import read_items
+
+    s = conn.execute(sa.select(S.samples).where(S.samples.c.id == row)).mappings().first()
+    if s is None:
+        return None
+    s = dict(s)
+    run = dict(conn.execute(sa.select(R.c.id, R.c.file_name, R.c.basis, R.c.method_id, R.c.analysed_at)
+                            .where(R.c.id == s["run_id"])).mappings().one())
+    results = [dict(r) for r in conn.execute(sa.select(S.results).where(S.results.c.sample_row == row)
+                                             .order_by(S.results.c.id)).mappings()]
+    certs = [dict(r) for r in conn.execute(sa.select(C.c.id, C.c.number, C.c.state, C.c.revision).where(
+        C.c.run_id == s["run_id"], C.c.sample_id == s["sample_id"]).order_by(C.c.id)).mappings()]
+    E, A = S.evidence, S.evidence_arrays
+    kinds = {k for (k,) in conn.execute(sa.select(E.c.kind).where(E.c.run_id == s["run_id"], sa.or_(
+        E.c.sample_row == row, E.c.sample_row.is_(None))).distinct()).all()}
+    has_spectrum = conn.execute(sa.select(sa.func.count()).select_from(A).where(
+        A.c.sample_row == row, A.c.name == "mean_spectrum")).scalar_one() > 0
+    curves = [c["element"] for c in read_items(conn, s["run_id"], "curve", run_wide=True)]
+    maps = [m["name"] for m in read_items(conn, s["run_id"], "map", row)]
+    latest = certificate_detail(conn, certs[-1]["number"]) if certs else None
+    return {"sample": s, "run": run, "results": results, "certificates": certs, "spectrum": has_spectrum,
+            "lines": "line" in kinds, "curves": curves, "boltzmann": "boltzmann" in kinds, "maps": maps,
+            "latest": latest}
+
+
+def evidence_spectrum(conn, row: int) -> tuple | None:
+    """(wavelength, mean spectrum, [(line id, nm)]) of a recorded sample; None without them."""
+    from compquant.record.evidence import read_array, read_items
+
+    s = conn.execute(sa.select(S.samples.c.run_id).where(S.samples.c.id == row)).scalar()
+    if s is None:
+        return None
+    wl, y = read_array(conn, s, None, "wavelength"), read_array(conn, s, row, "mean_spectrum")
+    if wl is None or y is None or wl.shape != y.shape:
+        return None
+    lines = [(it["line_id"], it["wavelength_nm"]) for it in read_items(conn, s, "line", row)]
+    used = {c["line_id"] for c in read_items(conn, s, "curve", run_wide=True)}
+    used |= {c["internal_standard"] for c in read_items(conn, s, "curve", run_wide=True) if c["internal_standard"]}
+    if used:  # as the certificate's figure: the lines the numbers rest on
+        lines = [ln for ln in lines if ln[0] in used] or lines
+    return wl, y, sorted(lines, key=lambda t: t[1])
+
+
+def evidence_items(conn, row: int, kind: str) -> list[dict]:
+    """Evidence items of ``kind`` for a recorded sample (run-wide for curves)."""
+    from compquant.record.evidence import read_items
+
+    run_id = conn.execute(sa.select(S.samples.c.run_id).where(S.samples.c.id == row)).scalar()
+    if run_id is None:
+        return []
+    return read_items(conn, run_id, kind, None if kind == "curve" else row, run_wide=kind == "curve")
+
+
+__all__ = ["list_runs", "run_detail", "certificate_detail", "certificate_file", "figure_png", "sample_row",
+           "evidence_spectrum", "evidence_items"]

@@ -46,6 +46,7 @@ class HCase:
     check: Callable | None = None  # check(case, result) for cases that must work
     multi: bool = False  # a multi-run call: the good run's outputs must be complete
     folder: Path = field(default=Path("."))
+    stdin: bytes | None = None  # what is piped into standard input (None: nothing, an empty stdin)
 
 
 # ----------------------------------------------------------------------------------- run mutations
@@ -325,6 +326,7 @@ def build_hardening(folder: Path, cal_json: Path | None) -> list[HCase]:
                          str(SP), "-o", str(o), "--quiet", "--no-figures", "--issued-at", ISSUED], [o]),
             "map": (["map", str(run), "--method", str(M), "-o", str(o), "--quiet"], [o]),
             "multi": (["lines", str(good), str(run), "--method", str(M), "-o", str(o), "--quiet"], [o]),
+            "upgrade": (["upgrade", str(run), "-o", str(o / "new.h5")], [o]),  # issue 20: NXdata for old runs
         }
         return table[cmd]
 
@@ -343,19 +345,21 @@ def build_hardening(folder: Path, cal_json: Path | None) -> list[HCase]:
                                (lambda r=run: setup(r)) if setup else None, check, cmd == "multi" and not early, d))
 
     # ------------------------------------------------------------------ item 2: run files
-    run_case("run_sample_id_is_group", ["'samples/sample_id' is a group"], mutate=_as_group("samples/sample_id"))
+    run_case("run_sample_id_is_group", ["'samples/sample_id' is a group"], mutate=_as_group("samples/sample_id"),
+             cmds=RUN_COMMANDS + ("upgrade",))
     run_case("run_sample_index_is_group", ["'shots/sample_index' is a group"], mutate=_as_group("shots/sample_index"))
     run_case("run_dark_is_group", ["'dark' is a group"], mutate=_as_group("dark"))
     run_case("run_response_is_group", ["'response' is a group"], mutate=lambda f: f.create_group("response"))
     run_case("run_spectra_is_group", ["'spectra' is a group"], mutate=_as_group("spectra"),
-             cmds=("inspect", "lines", "analyse", "multi"))
-    run_case("run_soft_link_loop", ["cannot be followed"], mutate=_loop("samples/sample_id", "samples/loop"))
+             cmds=("inspect", "lines", "analyse", "multi", "upgrade"))
+    run_case("run_soft_link_loop", ["cannot be followed"], mutate=_loop("samples/sample_id", "samples/loop"),
+             cmds=RUN_COMMANDS + ("upgrade",))
     run_case("run_self_link", ["cannot be followed"], mutate=_soft("dark", "/dark"),
-             cmds=("inspect", "lines", "analyse", "multi"))
+             cmds=("inspect", "lines", "analyse", "multi", "upgrade"))
     run_case("run_dangling_link", ["dangling"], mutate=_soft("response", "/nowhere"),
-             cmds=("inspect", "lines", "cf", "multi"))
+             cmds=("inspect", "lines", "cf", "multi", "upgrade"))
     run_case("run_external_link", ["link to another file"], mutate=_external("response", other),
-             cmds=("inspect", "lines", "quantify", "multi"))
+             cmds=("inspect", "lines", "quantify", "multi", "upgrade"))
     run_case("run_ids_2d", ["shape (8, 1)"],
              mutate=_text_column("samples/sample_id", np.array([[f"S{i}".encode()] for i in range(8)])))
     run_case("run_ids_numbers", ["not text"], mutate=_text_column("samples/sample_id", np.arange(8)),
@@ -368,12 +372,14 @@ def build_hardening(folder: Path, cal_json: Path | None) -> list[HCase]:
         return p
 
     run_case("run_is_fifo", ["FIFO", "not a regular file"], build=fifo, early=True,
-             cmds=("inspect", "lines", "plot", "identify", "calibrate", "quantify", "cf", "analyse", "map", "multi"))
+             cmds=("inspect", "lines", "plot", "identify", "calibrate", "quantify", "cf", "analyse", "map", "multi",
+                   "upgrade"))
     run_case("run_is_dev_zero", ["device"], build=lambda p: Path("/dev/zero"),
-             cmds=("inspect", "lines", "plot", "identify", "calibrate", "quantify", "cf", "analyse", "map", "multi"),
+             cmds=("inspect", "lines", "plot", "identify", "calibrate", "quantify", "cf", "analyse", "map", "multi",
+                   "upgrade"),
              bad="/dev/zero", early=True)
     run_case("run_locked_by_writer", ["locked", "open for writing"], setup=_locked,
-             cmds=("inspect", "lines", "analyse", "cf", "multi"))
+             cmds=("inspect", "lines", "analyse", "cf", "multi", "upgrade"))
     n_pix = 500
     nan_resp = np.ones(n_pix)
     nan_resp[123] = np.nan

@@ -94,14 +94,15 @@ def _edit_cal(doc: dict, fn) -> dict:
 def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP, CAL, shared):
     """Add the cases of items 4-10 and of the inputs that are not files to ``cases``."""
 
-    def add(name, argv, outputs, expect, bad=None, inputs=(), check=None, setup=None, env=None, multi=False, d=None):
+    def add(name, argv, outputs, expect, bad=None, inputs=(), check=None, setup=None, env=None, multi=False, d=None,
+            stdin=None):
         cases.append(HCase(name, [str(a) for a in argv], list(inputs) + shared, outputs, expect, bad, dict(env or {}),
-                           setup, check, multi, d or folder))
+                           setup, check, multi, d or folder, stdin))
 
     c = SimpleNamespace(add=add, new_dir=new_dir, command=command, run_case=run_case, good=good, folder=folder, M=M,
                         MCF=MCF, S=S, L=L, SP=SP, CAL=CAL, map_run=_raster_run(folder / "raster.h5"))
     sections = (_calibration_cases, _map_cases, _text_cases, _certificate_text_cases, _injection_cases,
-                _output_cases, _scheduler_cases, _option_cases, _message_cases, _not_a_file_cases)
+                _output_cases, _scheduler_cases, _option_cases, _message_cases, _not_a_file_cases, _stdin_cases)
     for section in sections:
         section(c)
 
@@ -553,3 +554,50 @@ def _rename_std(new_id):
         f["samples"].create_dataset("sample_id", data=np.array(ids, dtype=object), dtype=h5py.string_dtype())
 
     return fn
+
+
+def _stdin_cases(c) -> None:
+    """Issue 20, item 3: '-' reads the certified standards from standard input; what is piped in is
+    checked like a file, and standard input itself can be empty, endless or binary."""
+    import hashlib
+
+    from compquant.fileio import MAX_TABLE_BYTES
+
+    add, good, M, S, CAL, folder = c.add, c.good, c.M, c.S, c.CAL, c.folder
+    o = folder / "stdin"
+    header = b"standard_id,matrix,element,mass_fraction,expanded_uncertainty,k,unit,source\n"
+    for label, data, expect in (
+        ("empty", b"", ["standard input is empty"]),
+        ("too_large", header + b"#" * MAX_TABLE_BYTES, ["larger than"]),
+        ("not_utf8", header.replace(b"source", b"\xff\xfe"), ["not UTF-8"]),
+        ("hdf5_bytes", good.read_bytes()[:4096], ["not UTF-8"]),
+        ("bad_element", header + b"ZS-05,copper alloy,Zq,5,0.05,2,%,x\n", ["unknown element 'Zq'", "line 2"]),
+        ("header_only", header, ["no certified values"]),
+        ("escape_in_element", header + b"ZS-05,cu,Z\x1b[31mn,5,0.1,2,%,x\n", ["unknown element", "\\x1b[31m"]),
+    ):
+        for cmd, argv in (
+            ("calibrate", ["calibrate", good, "--method", M, "--standards", "-", "-o", o / f"c-{label}" / "c.json"]),
+            ("analyse", ["analyse", good, "--method", M, "--standards", "-", "-o", o / f"a-{label}", "--quiet",
+                         "--no-figures", "--issued-at", ISSUED]),
+        ):
+            out = Path(argv[argv.index("-o") + 1])
+            add(f"stdin_{label}@{cmd}", argv, [out if out.suffix == "" else out.parent], expect, "<stdin>",
+                stdin=data)
+    sha = hashlib.sha256(S.read_bytes()).hexdigest()
+
+    def named_stdin(case, result):
+        cert = json.loads(next(case.outputs[0].glob("LOT-*.json")).read_text(encoding="utf-8"))
+        files = {f["role"]: f for f in cert["provenance"]["files"]}
+        assert files["standards"]["name"] == "<stdin>" and files["standards"]["sha256"] == sha, files
+
+    add("stdin_standards_work@analyse", ["analyse", good, "--method", M, "--standards", "-", "-o", o / "a-ok",
+                                         "--quiet", "--no-figures", "--issued-at", ISSUED], [o / "a-ok"], None,
+        stdin=S.read_bytes(), check=named_stdin)
+
+    def csv_on_stdout(case, result):
+        assert result.stdout.startswith("sample_id,element,mass_fraction"), result.stdout[:200]
+        assert not (Path(case.folder) / "-").exists()
+
+    add("stdin_standards_stdout_results@quantify", ["quantify", good, "--calibration", CAL, "--method", M,
+                                                     "--standards", "-", "-o", "-"], [], None, stdin=S.read_bytes(),
+        check=csv_on_stdout)
