@@ -31,7 +31,7 @@ Layout (docs/calibration.md has the full reference)::
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields
 
 from compquant.calibrate.curve_models import MODELS, model_doc
 from compquant.calibrate.standards import ELEMENT_SYMBOLS
@@ -176,6 +176,7 @@ PLS_TABLE = Table("calibration.pls", (
 ), "Optional multivariate (PLS) calibration.", "compquant.calibrate")
 
 TABLES = (CALIBRATION_TABLE, ANALYTE_TABLE, PLS_TABLE)
+_CONFIG_FIELDS = frozenset(f.name for f in fields(CalibrationConfig))
 
 
 def _or(value, default):
@@ -264,18 +265,11 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
                     where=f"{source}: calibration.analytes {a.element}",
                     fix="its content in unknowns must be measured: add it as an analyte",
                 )
-    return CalibrationConfig(
-        analytes=analytes,
-        basis=top["basis"],
-        matrix_element=top["matrix_element"],
-        internal_standard=top["internal_standard"],
-        outlier_alpha=top["outlier_alpha"],
-        coverage=top["coverage"],
-        drift=top["drift"],
-        sigma_pt_rel=top["sigma_pt_rel"],
-        pls=None if top["pls"] is None else _pls(section["pls"], top, source),
-        max_above_range=top["max_above_range"],
-    )
+    # the calibration-wide settings are fields of the same name; model, through_origin and
+    # outliers live on in each analyte
+    wide = {k: v for k, v in top.items() if k in _CONFIG_FIELDS and k not in ("analytes", "pls")}
+    pls = None if top["pls"] is None else _pls(section["pls"], top, source)
+    return CalibrationConfig(analytes=analytes, pls=pls, **wide)
 
 
 __all__ = ["ANALYTE_TABLE", "CALIBRATION_TABLE", "PLS_TABLE", "AnalyteConfig", "PLSConfig", "CalibrationConfig",
