@@ -24,67 +24,89 @@ import numpy as np
 
 from compquant.errors import MethodError
 from compquant.fileio import check_keys, load_toml, sha256_file
+from compquant.preprocess.settings import BASELINE as BASELINE_TABLE
+from compquant.preprocess.settings import TABLES as PREPROCESS_SCHEMAS
+from compquant.preprocess.settings import baseline_params
+from compquant.settings import REQUIRED, Setting, Table, settings_dataclass
 
 TOP_LEVEL = frozenset(
     {"method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map", "control_chart"}
 )
 OTHER_SECTIONS = ("calibration", "cf", "identify", "map", "control_chart")
 
-METHOD_KEYS = frozenset({"id", "version", "technique", "description", "medium"})
 MEDIA = ("air", "vacuum")
-PREPROCESS_TABLES = frozenset({"dark", "response", "saturation", "qc", "baseline", "normalise", "shift"})
-DARK_KEYS = frozenset({"enabled", "statistic", "scale_exposure"})
-RESPONSE_KEYS = frozenset({"enabled", "file"})
-SATURATION_KEYS = frozenset({"enabled", "level", "margin"})
-QC_KEYS = frozenset(
-    {"enabled", "quantity", "k", "min_fraction", "min_signal", "pulse_energy_normalise", "min_pulse_fraction"}
-)
-BASELINE_KEYS = frozenset(
-    {"method", "max_half_window", "decreasing", "lls", "lam", "p", "diff_order", "max_iter", "tol"}
-)
-NORMALISE_KEYS = frozenset({"how", "line"})
-SHIFT_KEYS = frozenset(
-    {"method", "lines", "reference_file", "max_shift_nm", "search_nm", "flag_nm", "model", "min_refs", "tolerance_nm"}
-)
-SHIFT_MODELS = ("shift", "linear")
-MEASURE_KEYS = frozenset(
-    {
-        "mode",
-        "window_nm",
-        "side_nm",
-        "gap_nm",
-        "profile",
-        "shared_width",
-        "fwhm_nm",
-        "max_offset_nm",
-        "snr_detect",
-        "snr_min",
-        "chunk_shots",
-    }
-)
-LINE_KEYS = frozenset(
-    {
-        "id",
-        "element",
-        "ion",
-        "wavelength_nm",
-        "mode",
-        "window_nm",
-        "side_nm",
-        "gap_nm",
-        "group",
-        "profile",
-        "fwhm_nm",
-        "label",
-    }
-)
-
 TECHNIQUES = ("LIBS", "spark-OES", "arc-OES", "other")
 MODES = ("window", "fit")
 PROFILES = ("voigt", "lorentzian", "gaussian")
-BASELINES = ("none", "snip", "asls", "arpls")
-NORMALISATIONS = ("none", "total_area", "background", "internal_standard")
-SHIFT_METHODS = ("none", "lines", "xcorr")
+PREPROCESS_TABLES = frozenset(t.name.split(".", 1)[1] for t in PREPROCESS_SCHEMAS)
+_POS = {"min": 0, "min_open": True}
+
+
+def _version(v, where, error):
+    if not isinstance(v, (str, int)) or isinstance(v, bool):
+        raise error(f"expected text or a whole number, got {v!r}", where=where, fix='write version = "1.0"')
+    return str(v)
+
+
+METHOD_TABLE = Table("method", (
+    Setting("id", "str", REQUIRED, "method identifier, printed on every output"),
+    Setting("version", "any", "1", "method version (text or a whole number)", check=_version),
+    Setting("technique", "str", "LIBS", "excitation technique", choices=TECHNIQUES),
+    Setting("description", "str", "", "free text"),
+    Setting("medium", "str", "air", "medium of the method's wavelengths (line ids always carry the air "
+            "wavelength; a run in the other medium is converted, Morton 2000 eq. 8)", choices=MEDIA),
+), "The method's identity.", "compquant.method")
+
+MEASURE_TABLE = Table("measure", (
+    Setting("mode", "str", "window", '"window": integration minus a local linear background; "fit": '
+            "least-squares profile fit", choices=MODES),
+    Setting("window_nm", "float", None, "full width of the integration window; not set: 3 x fwhm_nm, else "
+            "9 pixels", unit="nm", **_POS),
+    Setting("side_nm", "float", None, "width of each background side window; not set: half the window "
+            "(>= 3 pixels)", unit="nm", min=0),
+    Setting("gap_nm", "float", 0.0, "gap between the window and each side window", unit="nm", min=0),
+    Setting("profile", "str", "voigt", "line profile of fit mode", choices=PROFILES),
+    Setting("shared_width", "bool", True, "one width for all lines of a fitted group"),
+    Setting("fwhm_nm", "float", None, "starting FWHM of fitted lines; not set: 3 pixels", unit="nm", **_POS),
+    Setting("max_offset_nm", "float", None, "fitted centres stay within this of the table position; not set: "
+            "max(FWHM/2, 1.5 pixels)", unit="nm", **_POS),
+    Setting("snr_detect", "float", 3.0, "below: flag not_found", min=0),
+    Setting("snr_min", "float", 10.0, "below: flag low_snr", min=0),
+    Setting("chunk_shots", "int", 4096, "shots streamed per chunk (memory about chunk x pixels x 24 bytes)",
+            **_POS),
+), "Line-measurement defaults; each [[lines]] entry may override mode, window_nm, side_nm, gap_nm, profile, "
+   "fwhm_nm.", "compquant.method (used by compquant.lines)")
+
+LINE_TABLE = Table("lines", (
+    Setting("id", "str", None, '"<Element> <ion roman> <air wavelength nm>", e.g. "Cu I 324.754"; without '
+            "wavelength_nm it must match the shipped line list within 0.0015 nm"),
+    Setting("element", "str", None, "element symbol of an explicit line"),
+    Setting("ion", "int", None, "ion stage of an explicit line (1 = neutral)", **_POS),
+    Setting("wavelength_nm", "float", None, "wavelength of an explicit line", unit="nm", **_POS),
+    Setting("mode", "str", None, "override of [measure] mode", choices=MODES),
+    Setting("window_nm", "float", None, "override of [measure] window_nm", unit="nm", **_POS),
+    Setting("side_nm", "float", None, "override of [measure] side_nm", unit="nm", min=0),
+    Setting("gap_nm", "float", None, "override of [measure] gap_nm", unit="nm", min=0),
+    Setting("group", "str", None, "lines of one group are fitted together"),
+    Setting("profile", "str", None, "override of [measure] profile", choices=PROFILES),
+    Setting("fwhm_nm", "float", None, "override of [measure] fwhm_nm", unit="nm", **_POS),
+    Setting("label", "str", None, "label shown in plots"),
+), "One entry per line to measure: an id, or element + ion + wavelength_nm.", "compquant.method (used by "
+   "compquant.lines)", notes=("A line is listed once; element, ion and wavelength_nm must agree with the id.",),
+    array=True)
+
+#: one line to measure, resolved to element, ion stage and wavelength (the rest: :data:`LINE_TABLE`)
+LineSpec = settings_dataclass(
+    LINE_TABLE, "LineSpec", module=__name__, leading=(("line_id", "str"), ("element", "str"), ("ion", "int"),
+                                                      ("wavelength_nm", "float")),
+    skip=("id", "element", "ion", "wavelength_nm"), defaults={"mode": "window"},
+    doc="One line to measure, resolved to element, ion stage and wavelength.")
+
+#: the method file's own tables, in the order of the generated reference
+TABLES = (METHOD_TABLE, *PREPROCESS_SCHEMAS, MEASURE_TABLE, LINE_TABLE)
+METHOD_KEYS = frozenset(METHOD_TABLE.keys)
+MEASURE_KEYS = frozenset(MEASURE_TABLE.keys)
+LINE_KEYS = frozenset(LINE_TABLE.keys)
 
 _ROMAN = {"I": 1, "II": 2, "III": 3, "IV": 4, "V": 5, "VI": 6}
 _ROMAN_INV = {v: k for k, v in _ROMAN.items()}
@@ -141,39 +163,9 @@ class PreprocessConfig:
     shift_tolerance_nm: float | None = None
 
 
-@dataclass
-class MeasureConfig:
-    """Line-measurement defaults; each ``[[lines]]`` entry may override them."""
-
-    mode: str = "window"
-    window_nm: float | None = None
-    side_nm: float | None = None
-    gap_nm: float = 0.0
-    profile: str = "voigt"
-    shared_width: bool = True
-    fwhm_nm: float | None = None
-    max_offset_nm: float | None = None
-    snr_detect: float = 3.0
-    snr_min: float = 10.0
-    chunk_shots: int = 4096
-
-
-@dataclass
-class LineSpec:
-    """One line to measure, resolved to element, ion stage and wavelength."""
-
-    line_id: str
-    element: str
-    ion: int
-    wavelength_nm: float
-    mode: str = "window"
-    window_nm: float | None = None
-    side_nm: float | None = None
-    gap_nm: float | None = None
-    group: str | None = None
-    profile: str | None = None
-    fwhm_nm: float | None = None
-    label: str | None = None
+#: line-measurement defaults; each ``[[lines]]`` entry may override them (fields: :data:`MEASURE_TABLE`)
+MeasureConfig = settings_dataclass(MEASURE_TABLE, "MeasureConfig", module=__name__,
+                                   doc="Line-measurement defaults; each ``[[lines]]`` entry may override them.")
 
 
 @dataclass
@@ -291,49 +283,6 @@ def _err(where: str, what: str, fix: str) -> MethodError:
     return MethodError(what, where=where, fix=fix)
 
 
-def _num(
-    table: dict,
-    key: str,
-    where: str,
-    *,
-    positive: bool = False,
-    minimum: float | None = None,
-    integer: bool = False,
-    default=None,
-):
-    if key not in table:
-        return default
-    v = table[key]
-    if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise _err(f"{where} {key}", f"expected a number, got {v!r}", "write a plain number")
-    if integer and not float(v).is_integer():
-        raise _err(f"{where} {key}", f"expected a whole number, got {v!r}", "write an integer")
-    if not np.isfinite(v) or (positive and v <= 0) or (minimum is not None and v < minimum):
-        cond = "> 0" if positive else f">= {minimum}"
-        raise _err(f"{where} {key}", f"value {v!r} out of range", f"use a finite value {cond}")
-    return int(v) if integer else float(v)
-
-
-def _bool(table: dict, key: str, where: str, default: bool) -> bool:
-    if key not in table:
-        return default
-    v = table[key]
-    if not isinstance(v, bool):
-        raise _err(f"{where} {key}", f"expected true or false, got {v!r}", "write true or false")
-    return v
-
-
-def _str(table: dict, key: str, where: str, default=None, choices=None):
-    if key not in table:
-        return default
-    v = table[key]
-    if not isinstance(v, str):
-        raise _err(f"{where} {key}", f"expected text, got {v!r}", "quote the value")
-    if choices is not None and v not in choices:
-        raise _err(f"{where} {key}", f"unknown value {v!r}", f"use one of {', '.join(choices)}")
-    return v
-
-
 def _table(parent: dict, key: str, where: str) -> dict:
     v = parent.get(key, {})
     if not isinstance(v, dict):
@@ -342,117 +291,51 @@ def _table(parent: dict, key: str, where: str) -> dict:
 
 
 def _parse_preprocess(pre: dict, src: str) -> PreprocessConfig:
+    """``[preprocess.*]`` through the tables of :mod:`compquant.preprocess.settings`, then the rules
+    that tie settings together."""
     w = f"{src}: [preprocess]"
     if not isinstance(pre, dict):
         raise _err(w, "must be a table", "write [preprocess.<step>] tables")
     check_keys(pre, PREPROCESS_TABLES, w, MethodError)
-    c = PreprocessConfig()
-
-    t = _table(pre, "dark", w)
-    wd = f"{src}: [preprocess.dark]"
-    check_keys(t, DARK_KEYS, wd, MethodError)
-    c.dark = _bool(t, "enabled", wd, c.dark)
-    c.dark_statistic = _str(t, "statistic", wd, c.dark_statistic, ("mean", "median"))
-    c.dark_scale_exposure = _bool(t, "scale_exposure", wd, c.dark_scale_exposure)
-
-    t = _table(pre, "response", w)
-    wr = f"{src}: [preprocess.response]"
-    check_keys(t, RESPONSE_KEYS, wr, MethodError)
-    c.response = _bool(t, "enabled", wr, c.response)
-    c.response_file = _str(t, "file", wr, None)
-
-    t = _table(pre, "saturation", w)
-    ws = f"{src}: [preprocess.saturation]"
-    check_keys(t, SATURATION_KEYS, ws, MethodError)
-    c.saturation = _bool(t, "enabled", ws, c.saturation)
-    c.saturation_level = _num(t, "level", ws, positive=True)
-    c.saturation_margin = _num(t, "margin", ws, minimum=0.0, default=0.0)
-    if c.saturation_margin >= 1:
-        raise _err(f"{ws} margin", "margin must be below 1", "use a fraction such as 0.02")
-
-    t = _table(pre, "qc", w)
-    wq = f"{src}: [preprocess.qc]"
-    check_keys(t, QC_KEYS, wq, MethodError)
-    c.qc = _bool(t, "enabled", wq, c.qc)
-    c.qc_quantity = _str(t, "quantity", wq, c.qc_quantity)
-    c.qc_k = _num(t, "k", wq, positive=True, default=c.qc_k)
-    c.qc_min_fraction = _num(t, "min_fraction", wq, minimum=0.0, default=c.qc_min_fraction)
-    c.qc_min_signal = _num(t, "min_signal", wq)
-    c.pulse_energy_normalise = _bool(t, "pulse_energy_normalise", wq, c.pulse_energy_normalise)
-    c.min_pulse_fraction = _num(t, "min_pulse_fraction", wq, minimum=0.0, default=0.0)
-    if c.qc_min_fraction >= 1:
-        raise _err(f"{wq} min_fraction", "must be below 1", "use e.g. 0.1 (10 % of the median)")
-
-    t = _table(pre, "baseline", w)
-    wb = f"{src}: [preprocess.baseline]"
-    check_keys(t, BASELINE_KEYS, wb, MethodError)
-    c.baseline = _str(t, "method", wb, c.baseline, BASELINES)
-    allowed = {
-        "snip": {"max_half_window", "decreasing", "lls"},
-        "asls": {"lam", "p", "diff_order", "max_iter", "tol"},
-        "arpls": {"lam", "diff_order", "max_iter", "tol"},
-        "none": set(),
-    }[c.baseline]
-    extra = sorted(set(t) - allowed - {"method"})
-    if extra:
-        raise _err(
-            f"{wb} {extra[0]}",
-            f"key {extra[0]!r} does not apply to method {c.baseline!r}",
-            f"keys for {c.baseline}: {', '.join(sorted(allowed)) or 'none'}",
-        )
-    params: dict = {}
-    if c.baseline == "snip":
-        params["max_half_window"] = _num(t, "max_half_window", wb, positive=True, integer=True, default=20)
-        params["decreasing"] = _bool(t, "decreasing", wb, False)
-        params["lls"] = _bool(t, "lls", wb, False)
-    elif c.baseline in ("asls", "arpls"):
-        params["lam"] = _num(t, "lam", wb, positive=True, default=1e6 if c.baseline == "asls" else 1e5)
-        if c.baseline == "asls":
-            params["p"] = _num(t, "p", wb, positive=True, default=0.01)
-            if params["p"] >= 1:
-                raise _err(f"{wb} p", "p must be between 0 and 1", "use e.g. 0.01")
-        params["diff_order"] = _num(t, "diff_order", wb, positive=True, integer=True, default=2)
-        params["max_iter"] = _num(t, "max_iter", wb, positive=True, integer=True, default=50)
-        params["tol"] = _num(t, "tol", wb, positive=True, default=1e-3)
-    c.baseline_params = params
-
-    t = _table(pre, "normalise", w)
-    wn = f"{src}: [preprocess.normalise]"
-    check_keys(t, NORMALISE_KEYS, wn, MethodError)
-    c.normalise = _str(t, "how", wn, c.normalise, NORMALISATIONS)
-    c.normalise_line = _str(t, "line", wn, None)
+    v = {}
+    for schema in PREPROCESS_SCHEMAS:
+        step = schema.name.split(".", 1)[1]
+        t = _table(pre, step, w)
+        only = ("method",) if schema is BASELINE_TABLE else None
+        v[step] = schema.parse(t, f"{src}: [{schema.name}]", MethodError, only=only)
+    d, r, sa, q, b, n, sh = (v[k] for k in ("dark", "response", "saturation", "qc", "baseline", "normalise", "shift"))
+    c = PreprocessConfig(
+        dark=d["enabled"], dark_statistic=d["statistic"], dark_scale_exposure=d["scale_exposure"],
+        response=r["enabled"], response_file=r["file"],
+        saturation=sa["enabled"], saturation_level=sa["level"], saturation_margin=sa["margin"],
+        qc=q["enabled"], qc_quantity=q["quantity"], qc_k=q["k"], qc_min_fraction=q["min_fraction"],
+        qc_min_signal=q["min_signal"], pulse_energy_normalise=q["pulse_energy_normalise"],
+        min_pulse_fraction=q["min_pulse_fraction"],
+        baseline=b["method"],
+        baseline_params=baseline_params(_table(pre, "baseline", w), b["method"], f"{src}: [preprocess.baseline]",
+                                        MethodError),
+        normalise=n["how"], normalise_line=n["line"],
+        shift=sh["method"], shift_lines=sh["lines"], shift_reference_file=sh["reference_file"],
+        max_shift_nm=sh["max_shift_nm"], shift_search_nm=sh["search_nm"], shift_flag_nm=sh["flag_nm"],
+        shift_model=sh["model"], shift_min_refs=sh["min_refs"], shift_tolerance_nm=sh["tolerance_nm"],
+    )
+    wn, wsh = f"{src}: [preprocess.normalise]", f"{src}: [preprocess.shift]"
     if c.normalise == "internal_standard" and not c.normalise_line:
         raise _err(
-            f"{wn} line", "internal-standard normalisation needs a line", 'add line = "<id of a line in [[lines]]>"'
+            f"{wn}.line", "internal-standard normalisation needs a line", 'add line = "<id of a line in [[lines]]>"'
         )
-
-    t = _table(pre, "shift", w)
-    wsh = f"{src}: [preprocess.shift]"
-    check_keys(t, SHIFT_KEYS, wsh, MethodError)
-    c.shift = _str(t, "method", wsh, c.shift, SHIFT_METHODS)
-    lines = t.get("lines", [])
-    if not isinstance(lines, list):
-        raise _err(f"{wsh} lines", "expected a list", 'write lines = ["Cu I 324.754", 510.554]')
-    c.shift_lines = list(lines)
-    c.shift_reference_file = _str(t, "reference_file", wsh, None)
-    c.max_shift_nm = _num(t, "max_shift_nm", wsh, positive=True, default=c.max_shift_nm)
-    c.shift_search_nm = _num(t, "search_nm", wsh, positive=True, default=c.shift_search_nm)
-    c.shift_flag_nm = _num(t, "flag_nm", wsh, positive=True)
-    c.shift_model = _str(t, "model", wsh, c.shift_model, SHIFT_MODELS)
-    c.shift_min_refs = _num(t, "min_refs", wsh, positive=True, integer=True)
-    c.shift_tolerance_nm = _num(t, "tolerance_nm", wsh, positive=True)
     if c.shift_model == "linear" and c.shift_min_refs is not None and c.shift_min_refs < 3:
-        raise _err(f"{wsh} min_refs", "a linear correction (shift + dispersion) needs at least 3 references",
+        raise _err(f"{wsh}.min_refs", "a linear correction (shift + dispersion) needs at least 3 references",
                    "set min_refs = 3 or more, or model = \"shift\"")
     if c.shift == "lines" and not c.shift_lines:
         raise _err(
-            f"{wsh} lines",
+            f"{wsh}.lines",
             "shift method 'lines' needs reference lines",
             "list line ids or wavelengths (nm) of strong, isolated lines",
         )
     if c.shift == "xcorr" and not c.shift_reference_file:
         raise _err(
-            f"{wsh} reference_file",
+            f"{wsh}.reference_file",
             "shift method 'xcorr' needs a reference spectrum",
             "give a CSV file with columns wavelength_nm,intensity",
         )
@@ -463,20 +346,7 @@ def _parse_measure(t: dict, src: str) -> MeasureConfig:
     w = f"{src}: [measure]"
     if not isinstance(t, dict):
         raise _err(w, "must be a table", "write [measure] with key = value lines")
-    check_keys(t, MEASURE_KEYS, w, MethodError)
-    m = MeasureConfig()
-    m.mode = _str(t, "mode", w, m.mode, MODES)
-    m.window_nm = _num(t, "window_nm", w, positive=True)
-    m.side_nm = _num(t, "side_nm", w, minimum=0.0)
-    m.gap_nm = _num(t, "gap_nm", w, minimum=0.0, default=0.0)
-    m.profile = _str(t, "profile", w, m.profile, PROFILES)
-    m.shared_width = _bool(t, "shared_width", w, m.shared_width)
-    m.fwhm_nm = _num(t, "fwhm_nm", w, positive=True)
-    m.max_offset_nm = _num(t, "max_offset_nm", w, positive=True)
-    m.snr_detect = _num(t, "snr_detect", w, minimum=0.0, default=m.snr_detect)
-    m.snr_min = _num(t, "snr_min", w, minimum=0.0, default=m.snr_min)
-    m.chunk_shots = _num(t, "chunk_shots", w, positive=True, integer=True, default=m.chunk_shots)
-    return m
+    return MeasureConfig(**MEASURE_TABLE.parse(t, w, MethodError))
 
 
 def _lookup_line(element: str, ion: int, wl: float) -> float | None:
@@ -524,6 +394,11 @@ def _id_wavelength(parsed_nm: float, medium: str) -> float:
     return float(air_to_vacuum(parsed_nm))
 
 
+def _or(value, default):
+    """A line's own setting, else the [measure] default."""
+    return default if value is None else value
+
+
 def _parse_lines(items, src: str, measure: MeasureConfig, medium: str = "air") -> list[LineSpec]:
     if not isinstance(items, list) or not items:
         raise _err(
@@ -539,15 +414,12 @@ def _parse_lines(items, src: str, measure: MeasureConfig, medium: str = "air") -
             raise _err(w, "each [[lines]] entry must be a table", "write [[lines]] then key = value")
         if "id" in t and isinstance(t["id"], str):
             w = f"{src}: [[lines]] {t['id']}"
-        check_keys(t, LINE_KEYS, w, MethodError)
-        lid = _str(t, "id", w)
-        element = _str(t, "element", w)
-        ion = _num(t, "ion", w, positive=True, integer=True)
-        wl = _num(t, "wavelength_nm", w, positive=True)
+        v = LINE_TABLE.parse(t, w, MethodError)
+        lid, element, ion, wl = v["id"], v["element"], v["ion"], v["wavelength_nm"]
         parsed = parse_line_id(lid) if lid else None
         if lid and parsed is None and (element is None or ion is None or wl is None):
             raise _err(
-                f"{w} id",
+                f"{w}.id",
                 f"cannot read line id {lid!r}",
                 "write '<Element> <ion roman> <wavelength nm>' e.g. 'Cu I 324.754', "
                 "or give element, ion and wavelength_nm",
@@ -556,13 +428,13 @@ def _parse_lines(items, src: str, measure: MeasureConfig, medium: str = "air") -
             for name, given, from_id in (("element", element, parsed[0]), ("ion", ion, parsed[1])):
                 if given is not None and given != from_id:
                     raise _err(
-                        f"{w} {name}",
+                        f"{w}.{name}",
                         f"{name} = {given!r} contradicts the id {lid!r}",
                         "correct the id or remove the key",
                     )
             if wl is not None and min(abs(wl - parsed[2]), abs(wl - _id_wavelength(parsed[2], medium))) > 0.0015:
                 raise _err(
-                    f"{w} wavelength_nm",
+                    f"{w}.wavelength_nm",
                     f"wavelength_nm = {wl} contradicts the id {lid!r}",
                     "make the id carry the same wavelength (3 decimals) or remove wavelength_nm",
                 )
@@ -587,20 +459,19 @@ def _parse_lines(items, src: str, measure: MeasureConfig, medium: str = "air") -
         if lid in seen:
             raise _err(w, f"line {lid!r} is listed twice", "remove the duplicate")
         seen.add(lid)
-        mode = _str(t, "mode", w, measure.mode, MODES)
         spec = LineSpec(
             line_id=lid,
             element=element,
             ion=ion,
             wavelength_nm=wl,
-            mode=mode,
-            window_nm=_num(t, "window_nm", w, positive=True, default=measure.window_nm),
-            side_nm=_num(t, "side_nm", w, minimum=0.0, default=measure.side_nm),
-            gap_nm=_num(t, "gap_nm", w, minimum=0.0, default=measure.gap_nm),
-            group=_str(t, "group", w),
-            profile=_str(t, "profile", w, measure.profile, PROFILES),
-            fwhm_nm=_num(t, "fwhm_nm", w, positive=True, default=measure.fwhm_nm),
-            label=_str(t, "label", w),
+            mode=_or(v["mode"], measure.mode),
+            window_nm=_or(v["window_nm"], measure.window_nm),
+            side_nm=_or(v["side_nm"], measure.side_nm),
+            gap_nm=_or(v["gap_nm"], measure.gap_nm),
+            group=v["group"],
+            profile=_or(v["profile"], measure.profile),
+            fwhm_nm=_or(v["fwhm_nm"], measure.fwhm_nm),
+            label=v["label"],
         )
         out.append(spec)
     return out
@@ -620,40 +491,35 @@ def method_from_dict(data: dict, *, source: str = "<method>", sha256: str | None
     meta = data.get("method")
     if not isinstance(meta, dict):
         raise _err(f"{source}: [method]", "missing [method] table", "add [method] with id, version and technique")
-    check_keys(meta, METHOD_KEYS, f"{source}: [method]", MethodError, required={"id"})
     wm = f"{source}: [method]"
-    mid = _str(meta, "id", wm)
-    version = meta.get("version", "1")
-    if not isinstance(version, (str, int)) or isinstance(version, bool):
-        raise _err(f"{wm} version", f"expected text or a whole number, got {version!r}", 'write version = "1.0"')
-    technique = _str(meta, "technique", wm, "LIBS", TECHNIQUES)
-    medium = _str(meta, "medium", wm, "air", MEDIA)
+    mv = METHOD_TABLE.parse(meta, wm, MethodError)
+    mid, version, technique, medium = mv["id"], mv["version"], mv["technique"], mv["medium"]
     pre = _parse_preprocess(data.get("preprocess", {}), source)
     measure = _parse_measure(data.get("measure", {}), source)
     lines = _parse_lines(data.get("lines"), source, measure, medium)
     ids = {ln.line_id for ln in lines}
     if pre.normalise == "internal_standard" and pre.normalise_line not in ids:
         raise _err(
-            f"{source}: [preprocess.normalise] line",
+            f"{source}: [preprocess.normalise].line",
             f"line {pre.normalise_line!r} is not in [[lines]]",
             "add it to [[lines]]",
         )
     if pre.qc_quantity != "total" and pre.qc_quantity not in ids:
         raise _err(
-            f"{source}: [preprocess.qc] quantity",
+            f"{source}: [preprocess.qc].quantity",
             f"{pre.qc_quantity!r} is neither 'total' nor a line in [[lines]]",
             "use 'total' or the id of a measured line",
         )
     for ref in pre.shift_lines:
         if isinstance(ref, str) and parse_line_id(ref) is None:
             raise _err(
-                f"{source}: [preprocess.shift] lines",
+                f"{source}: [preprocess.shift].lines",
                 f"cannot read line id {ref!r}",
                 "use ids like 'Cu I 324.754' or wavelengths in nm",
             )
         if not isinstance(ref, (str, int, float)) or isinstance(ref, bool):
             raise _err(
-                f"{source}: [preprocess.shift] lines",
+                f"{source}: [preprocess.shift].lines",
                 f"bad entry {ref!r}",
                 "use ids like 'Cu I 324.754' or wavelengths in nm",
             )
@@ -663,9 +529,9 @@ def method_from_dict(data: dict, *, source: str = "<method>", sha256: str | None
             raise _err(f"{source}: [{name}]", f"[{name}] must be a table", "see docs/method-file.md")
     return Method(
         id=mid,
-        version=str(version),
+        version=str(version),  # the default "1" when absent
         technique=technique,
-        description=_str(meta, "description", wm, ""),
+        description=mv["description"],
         preprocess=pre,
         measure=measure,
         lines=lines,

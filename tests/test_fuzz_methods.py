@@ -25,9 +25,15 @@ from bad_inputs.base import METHOD_TOML, STANDARDS_CSV, base_arrays
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from compquant.calibrate.config import ANALYTE_TABLE, CALIBRATION_TABLE, PLS_TABLE
+from compquant.cflibs.settings import CF_TABLE
 from compquant.errors import CompquantError
+from compquant.identify.settings import IDENTIFY_TABLE
 from compquant.method import LINE_KEYS as METHOD_LINE_KEYS
+from compquant.method import TABLES as METHOD_TABLES
+from compquant.method import TOP_LEVEL
 from compquant.run import Run, write_run
+from compquant.settings import REQUIRED
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -93,7 +99,7 @@ def test_toml_writer_round_trips():
     assert tomllib.loads(to_toml(BASE)) == BASE
 
 
-# ---------------------------------------------------------------- strategies
+# ---------------------------------------------------------------- strategies (keys and values from the tables)
 
 _text = st.text(alphabet=st.characters(blacklist_categories=("Cs",)), max_size=12)
 LINE_IDS = [
@@ -111,6 +117,9 @@ LINE_IDS = [
     "",
     "324.754",
 ]
+# every text choice any table declares (valid values of one key are plausible junk for another)
+CHOICES = sorted({c for t in (*METHOD_TABLES, CF_TABLE, IDENTIFY_TABLE, CALIBRATION_TABLE, ANALYTE_TABLE, PLS_TABLE)
+                  for x in t.settings for c in (x.choices or ()) if isinstance(c, str)})
 _scalar = st.one_of(
     st.booleans(),
     st.integers(-5, 5),
@@ -118,41 +127,7 @@ _scalar = st.one_of(
     st.floats(allow_nan=True, allow_infinity=True),
     st.sampled_from([0.0, 1e-300, 1e300, -1.0, 0.5, 0.99, 1.0, 2.0, 1e6, 1e-6]),
     _text,
-    st.sampled_from(
-        LINE_IDS
-        + [
-            "none",
-            "snip",
-            "asls",
-            "arpls",
-            "median",
-            "mean",
-            "total",
-            "fit",
-            "window",
-            "voigt",
-            "gaussian",
-            "lines",
-            "xcorr",
-            "internal_standard",
-            "total_area",
-            "ratio",
-            "absolute",
-            "linear",
-            "weighted",
-            "quadratic",
-            "Cu",
-            "Zn",
-            "Xx",
-            "boltzmann",
-            "saha-boltzmann",
-            "fixed",
-            "auto",
-            "stark",
-            "h_alpha",
-            "k2",
-        ]
-    ),
+    st.sampled_from(LINE_IDS + CHOICES + ["absolute", "Cu", "Zn", "Xx"]),
 )
 _value = st.recursive(
     _scalar,
@@ -160,145 +135,49 @@ _value = st.recursive(
     max_leaves=6,
 )
 
-# the keys each table knows (docs/method-file.md and the owning modules) plus a few unknown ones
-KEYS = {
-    ("method",): ["id", "version", "technique", "description"],
-    ("preprocess", "dark"): ["enabled", "statistic", "scale_exposure"],
-    ("preprocess", "response"): ["enabled", "file"],
-    ("preprocess", "saturation"): ["enabled", "level", "margin"],
-    ("preprocess", "qc"): [
-        "enabled",
-        "quantity",
-        "k",
-        "min_fraction",
-        "min_signal",
-        "pulse_energy_normalise",
-        "min_pulse_fraction",
-    ],
-    ("preprocess", "baseline"): [
-        "method",
-        "max_half_window",
-        "decreasing",
-        "lls",
-        "lam",
-        "p",
-        "diff_order",
-        "max_iter",
-        "tol",
-    ],
-    ("preprocess", "normalise"): ["how", "line"],
-    ("preprocess", "shift"): ["method", "lines", "reference_file", "max_shift_nm", "search_nm", "flag_nm"],
-    ("measure",): [
-        "mode",
-        "window_nm",
-        "side_nm",
-        "gap_nm",
-        "profile",
-        "shared_width",
-        "fwhm_nm",
-        "max_offset_nm",
-        "snr_detect",
-        "snr_min",
-        "chunk_shots",
-    ],
-    ("calibration",): [
-        "basis",
-        "matrix_element",
-        "internal_standard",
-        "model",
-        "outliers",
-        "coverage",
-        "drift",
-        "through_origin",
-        "analytes",
-        "pls",
-        "outlier_alpha",
-    ],
-    ("cf",): [
-        "elements",
-        "fit",
-        "ne_method",
-        "ne_fixed_cm3",
-        "mc_draws",
-        "t_start_k",
-        "t_min_k",
-        "t_max_k",
-        "self_absorption",
-        "plasma_length_mm",
-        "resolving_power",
-        "fixed",
-        "missing",
-        "seed",
-        "lte_f",
-    ],
-    ("identify",): [
-        "k_sigma",
-        "wavelength_uncertainty_nm",
-        "temperature_k",
-        "interference_fraction",
-        "n_alternatives",
-        "elements",
-    ],
-    ("map",): ["lines", "step_mm", "samples"],
-    (): ["method", "preprocess", "lines", "measure", "calibration", "cf", "identify", "map"],
-}
-# plausible values per key (most mutations should get past the first check)
-PLAUSIBLE = {
-    "enabled": [True, False],
-    "statistic": ["mean", "median"],
-    "scale_exposure": [True, False],
-    "level": [60000.0, 1000.0, 1.0],
-    "margin": [0.0, 0.02, 0.5],
+# the keys of each table and plausible values come from the tables the packages declare
+# (compquant.settings): a key added to a table is fuzzed without editing this file
+SCHEMAS = {tuple(t.name.split(".")): t for t in (*METHOD_TABLES, CF_TABLE, IDENTIFY_TABLE, CALIBRATION_TABLE,
+                                                 PLS_TABLE) if not t.array}
+KEYS = {path: list(t.keys) for path, t in SCHEMAS.items()}
+KEYS[("map",)] = ["lines", "step_mm", "samples"]  # [map] is checked by compquant.maps.build
+KEYS[()] = sorted(TOP_LEVEL)
+
+
+def plausible(setting) -> list:
+    """Values a setting accepts (its choices, bounds, default and a value inside its range)."""
+    if setting.choices:
+        return list(setting.choices)
+    if setting.type == "bool":
+        return [True, False]
+    if setting.type in ("int", "float"):
+        lo = setting.min if setting.min is not None else (setting.max - 10 if setting.max is not None else -1.0)
+        hi = setting.max if setting.max is not None else lo + 100.0
+        vals = [lo + 1e-3 * (hi - lo), 0.5 * (lo + hi), hi if not setting.max_open else lo + 0.999 * (hi - lo)]
+        if not setting.min_open:
+            vals.append(lo)
+        if isinstance(setting.default, (int, float)) and not isinstance(setting.default, bool):
+            vals.append(setting.default)
+        return [round(v) if setting.type == "int" else float(v) for v in vals]
+    if setting.default is None or setting.default is REQUIRED:
+        return []
+    return [list(setting.default) if isinstance(setting.default, tuple) else setting.default]
+
+
+# values that name things of the small run (its lines and elements), which no table can know
+RUN_VALUES = {
     "quantity": ["total", "Cu I 327.396", "Zn I 330.259"],
-    "k": [1.0, 3.0, 5.0, 100.0],
-    "min_fraction": [0.0, 0.1, 0.9],
-    "min_signal": [0.0, 1e3, 1e9],
-    "pulse_energy_normalise": [True, False],
-    "min_pulse_fraction": [0.0, 0.5],
-    "method": ["none", "snip", "asls", "arpls", "lines", "xcorr"],
-    "max_half_window": [1, 5, 20, 1000],
-    "lam": [1.0, 1e5, 1e12],
-    "p": [0.001, 0.01, 0.5],
-    "diff_order": [1, 2, 3],
-    "max_iter": [1, 5, 50],
-    "tol": [1e-6, 1e-3, 0.5],
-    "how": ["none", "total_area", "background", "internal_standard"],
     "line": ["Cu I 327.396", "Zn I 330.259", "Cu I 324.754"],
     "lines": [["Cu I 324.754"], [327.396], ["Cu I 327.396", 330.259]],
-    "max_shift_nm": [0.01, 0.2, 5.0],
-    "search_nm": [0.01, 0.1, 3.0],
-    "flag_nm": [0.001, 0.05],
-    "mode": ["window", "fit"],
-    "window_nm": [0.01, 0.1, 0.3, 5.0, 30.0],
-    "side_nm": [0.0, 0.05, 0.2, 10.0],
-    "gap_nm": [0.0, 0.02, 1.0],
-    "profile": ["voigt", "lorentzian", "gaussian"],
-    "shared_width": [True, False],
-    "fwhm_nm": [0.001, 0.05, 0.2, 3.0],
-    "max_offset_nm": [0.001, 0.05, 1.0],
-    "snr_detect": [0.0, 3.0, 1e6],
-    "snr_min": [0.0, 10.0, 1e6],
-    "chunk_shots": [1, 2, 7, 4096],
-    "basis": ["ratio", "absolute", "mass_fraction"],
-    "matrix_element": ["Cu", "Zn", "Fe"],
     "internal_standard": ["Cu I 327.396", "Cu I 324.754", "Zn I 334.502"],
-    "model": ["linear", "weighted", "quadratic", "weighted_quadratic"],
-    "outliers": ["flag", "reject", "keep"],
-    "coverage": ["k2", "student"],
-    "drift": ["optional", "required", "none"],
-    "through_origin": [True, False],
-    "fit": ["boltzmann", "saha-boltzmann"],
-    "ne_method": ["fixed", "auto", "saha", "stark", "h_alpha"],
-    "ne_fixed_cm3": [1e15, 1e17, 1e30],
-    "mc_draws": [0, 1, 5],
-    "t_start_k": [3000.0, 10000.0, 1e6],
-    "t_min_k": [1.0, 3000.0],
-    "t_max_k": [5000.0, 50000.0, 1e9],
-    "self_absorption": ["none", "detect"],
+    "matrix_element": ["Cu", "Zn", "Fe"],
     "elements": [["Cu", "Zn"], ["Zn"], []],
-    "k_sigma": [0.1, 5.0, 100.0],
     "step_mm": [0.1, [0.1, 0.2]],
 }
+PLAUSIBLE = {
+    path: {s.key: RUN_VALUES.get(s.key) or plausible(s) for s in t.settings} for path, t in SCHEMAS.items()
+}
+PLAUSIBLE[("map",)] = {k: RUN_VALUES.get(k, []) for k in KEYS[("map",)]}
 LINE_KEYS = sorted(METHOD_LINE_KEYS)  # the keys the loader accepts in a [[lines]] entry
 
 
@@ -327,7 +206,7 @@ def methods(draw):
             table = table[p]
         if op == "set":
             key = draw(st.sampled_from(KEYS[path]))
-            good = PLAUSIBLE.get(key)
+            good = PLAUSIBLE.get(path, {}).get(key)
             table[key] = draw(st.sampled_from(good)) if good and draw(st.integers(0, 2)) > 0 else draw(_value)
         elif op == "delete" and table:
             table.pop(draw(st.sampled_from(sorted(table))), None)
@@ -341,18 +220,7 @@ def methods(draw):
                 cal["analytes"] = draw(
                     st.lists(
                         st.dictionaries(
-                            st.sampled_from(
-                                [
-                                    "element",
-                                    "line",
-                                    "model",
-                                    "internal_standard",
-                                    "exclude",
-                                    "interferences",
-                                    "through_origin",
-                                    "x",
-                                ]
-                            ),
+                            st.sampled_from([*ANALYTE_TABLE.keys, "x"]),
                             st.one_of(_scalar, st.sampled_from(["Zn", "Cu", "Zn I 330.259", "Zn I 334.502"])),
                             max_size=4,
                         ),

@@ -6,24 +6,21 @@ import numpy as np
 import pytest
 from pybaselines import Baseline
 from scipy.stats import median_abs_deviation
-from sklearn.base import clone
-from sklearn.pipeline import make_pipeline
 
 from compquant.preprocess import (
-    BaselineRemoval,
-    DarkSubtraction,
-    ResponseCorrection,
-    ShotQC,
+    BASELINES,
     arpls,
     asls,
     correct_response,
     dark_reference,
+    estimate_baseline,
     exposure_ratio,
     qc_decide,
     saturation_mask,
     shift_by_cross_correlation,
     shift_from_lines,
     snip,
+    subtract_dark,
 )
 from compquant.preprocess.baseline import lls_forward, lls_inverse
 from compquant.preprocess.qc import MAD_TO_SD
@@ -114,8 +111,8 @@ def test_dark_reference_and_exposure():
     # dark current scales linearly with exposure (common practice)
     assert exposure_ratio(2.0, 0.5) == 4.0
     assert exposure_ratio(None, 0.5) == 1.0
-    step = DarkSubtraction(dark_frames=d, statistic="median", exposure_s=1.0, dark_exposure_s=2.0).fit()
-    assert np.allclose(step.transform(np.full((2, 50), 100.0)), 100.0 - 0.5 * np.median(d, axis=0))
+    got = subtract_dark(np.full((2, 50), 100.0), dark_reference(d, "median"), exposure_ratio(1.0, 2.0))
+    assert np.allclose(got, 100.0 - 0.5 * np.median(d, axis=0))
 
 
 def test_response_correction_zero_pixels():
@@ -172,19 +169,48 @@ def test_shift_by_cross_correlation_recovers_known_shift():
         assert len(each) == 2
 
 
-def test_sklearn_pipeline_and_clone():
-    rng = np.random.default_rng(0)
-    dark = rng.normal(100, 1, (3, X.size))
-    pipe = make_pipeline(
-        DarkSubtraction(dark_frames=dark),
-        ResponseCorrection(response=np.full(X.size, 2.0)),
-        BaselineRemoval(method="snip", max_half_window=20),
-    )
-    out = pipe.fit_transform(Y + 100)
-    expect = (Y + 100 - dark.mean(axis=0)) / 2.0
-    expect = expect - snip(expect, 20)
-    assert np.allclose(out, expect)
-    c = clone(BaselineRemoval(method="asls", lam=1e5, p=0.02))
-    assert c.get_params()["lam"] == 1e5
-    kept = ShotQC(k=5, min_fraction=0.5).fit(Y).transform(np.vstack([Y, np.zeros((1, X.size))]))
-    assert kept.shape[0] == Y.shape[0]
+# pybaselines' name of each registered estimator (outside reference for the registry's defaults)
+_PYBASELINES = {"snip": "snip", "asls": "asls", "arpls": "arpls"}
+
+
+@pytest.mark.parametrize("name", [n for n in BASELINES if n != "none"])
+def test_baseline_registry_entry_meets_its_contract(name):
+    """Each registry entry: keyword parameters = its declared settings, defaults as declared,
+    a baseline per row, rows independent; at its defaults it equals pybaselines' estimator of the
+    same name called with those values (pybaselines 1.2, tolerance 1e-6 of the data scale)."""
+    import inspect
+
+    entry = BASELINES[name]
+    sig = inspect.signature(entry.function)
+    for s in entry.params:
+        assert s.key in sig.parameters
+        if sig.parameters[s.key].default is not inspect.Parameter.empty:
+            assert sig.parameters[s.key].default == s.default, s.key
+    kw = {s.key: s.default for s in entry.params}
+    got = estimate_baseline(Y, name, **kw)
+    assert got.shape == Y.shape and got.dtype == np.float64
+    assert np.allclose(estimate_baseline(Y[1:2], name, **kw)[0], got[1], rtol=1e-12, atol=1e-9)
+    # lls = false is the plain estimator (pybaselines has no such keyword: the transform is applied outside)
+    ref_kw = {k: v for k, v in kw.items() if k != "lls"}
+    ref = np.array([getattr(REF, _PYBASELINES[name])(y, **ref_kw)[0] for y in Y])
+    assert np.max(np.abs(got - ref)) <= 1e-6 * np.max(np.abs(Y))
+    assert estimate_baseline(Y, "none") is None
+
+
+@pytest.mark.parametrize("name", list(BASELINES))
+def test_method_file_takes_each_registered_baseline_and_only_its_keys(name):
+    """[preprocess.baseline] accepts every registry entry with its declared keys (defaults filled in
+    from the entry) and refuses a key that belongs to another entry only."""
+    from compquant.errors import MethodError
+    from compquant.method import method_from_dict
+
+    entry = BASELINES[name]
+    doc = {"method": {"id": "m"}, "lines": [{"id": "Cu I 324.754"}],
+           "preprocess": {"baseline": {"method": name, **{s.key: s.default for s in entry.params}}}}
+    m = method_from_dict(doc)
+    assert m.preprocess.baseline == name and m.preprocess.baseline_params == {s.key: s.default for s in entry.params}
+    foreign = sorted({s.key for e in BASELINES.values() for s in e.params} - set(entry.keys))
+    if foreign:
+        doc["preprocess"]["baseline"][foreign[0]] = 1
+        with pytest.raises(MethodError, match=f"does not apply to method '{name}'"):
+            method_from_dict(doc)

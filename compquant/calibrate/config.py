@@ -31,40 +31,12 @@ Layout (docs/calibration.md has the full reference)::
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, fields
 
-from compquant.calibrate.fit import MODELS
+from compquant.calibrate.curve_models import MODELS, model_doc
 from compquant.calibrate.standards import ELEMENT_SYMBOLS
 from compquant.errors import MethodError
-from compquant.fileio import check_keys
-
-_TOP = {
-    "basis",
-    "matrix_element",
-    "internal_standard",
-    "model",
-    "through_origin",
-    "outliers",
-    "outlier_alpha",
-    "coverage",
-    "drift",
-    "sigma_pt_rel",
-    "max_above_range",
-    "analytes",
-    "pls",
-}
-_AN = {
-    "element",
-    "line",
-    "model",
-    "through_origin",
-    "internal_standard",
-    "outliers",
-    "exclude",
-    "interferences",
-    "basis",
-}
-_PLS = {"analytes", "half_width_nm", "max_components", "cv_folds", "alpha", "lines", "normalise"}
+from compquant.settings import REQUIRED, Setting, Table
 
 
 @dataclass
@@ -116,192 +88,189 @@ class CalibrationConfig:
         return cls(**d)
 
 
-def _choice(v, allowed, where, key):
-    if v not in allowed:
-        raise MethodError(
-            f"'{key}' must be one of {', '.join(map(str, allowed))} (got {v!r})",
-            where=where,
-            fix=f'set {key} = "{allowed[0]}"',
-        )
-    return v
-
-
-def _bool(v, where, key):
-    if not isinstance(v, bool):
-        raise MethodError(f"'{key}' must be true or false", where=where, fix=f"write {key} = false")
-    return v
-
-
-def _element(v, where, key):
+def _element(v, where, error=MethodError):
     if not isinstance(v, str) or v not in ELEMENT_SYMBOLS:
-        raise MethodError(
-            f"'{key}' = {v!r} is not an element symbol", where=where, fix="use a symbol such as Cu, Zn, Pb"
-        )
+        raise error(f"{v!r} is not an element symbol", where=where, fix="use a symbol such as Cu, Zn, Pb")
     return v
+
+
+def _elements(v, where, error=MethodError):
+    for el in v:
+        _element(el, where, error)
+    return v
+
+
+def _cv_folds(v, where, error):
+    if v == 1:
+        raise error("'cv_folds' must be 0 (leave-one-out) or >= 2", where=where, fix="use 0")
+    return v
+
+
+BASES = ("ratio", "intensity")
+OUTLIERS = ("flag", "exclude")
+_MODEL_DOC = "curve model: " + "; ".join(model_doc(m) for m in MODELS)
+
+#: ``[calibration]``; the analytes and the PLS part have tables of their own
+CALIBRATION_TABLE = Table("calibration", (
+    Setting("basis", "str", "ratio", "response: ratio to the internal-standard line, or the line intensity",
+            choices=BASES),
+    Setting("matrix_element", "str", None, "element whose line is the internal standard (its content follows by "
+            "difference)", check=_element),
+    Setting("internal_standard", "str", None, 'internal-standard line id, e.g. "Cu I 510.554"',
+            fix='write internal_standard = "Cu I 510.554"'),
+    Setting("model", "str", "linear", _MODEL_DOC + " (registry compquant.calibrate.curve_models)", choices=MODELS),
+    Setting("through_origin", "bool", False, "curve without intercept"),
+    Setting("outliers", "str", "flag", "outlying standards (Bonferroni test on studentised residuals): flag or "
+            "exclude", choices=OUTLIERS),
+    Setting("outlier_alpha", "float", 0.05, "significance level of the outlier test", min=0, max=0.5,
+            min_open=True, max_open=True, fix="use 0.05"),
+    Setting("coverage", "str", "k2", '"k2" (U = 2u) or "student" (k = t95 at the effective dof)',
+            choices=("k2", "student")),
+    Setting("drift", "str", "optional", "drift standardisation with setup samples", choices=("optional", "required",
+                                                                                                 "off")),
+    Setting("sigma_pt_rel", "float", None, "target sd of check-sample z scores (relative)", min=0, min_open=True,
+            fix="e.g. 0.05"),
+    Setting("max_above_range", "float", 0.10, "a result above the top standard by more than this fraction of it "
+            "is not reported", min=0, max=1, fix="e.g. 0.10 (10 % above the top standard at most)"),
+    Setting("analytes", "list", REQUIRED, "one [[calibration.analytes]] table per element", nonempty=True,
+            fix="add one [[calibration.analytes]] table per element"),
+    Setting("pls", "table", None, "optional multivariate calibration: [calibration.pls]"),
+), "Calibration from certified standards (docs/calibration.md).", "compquant.calibrate",
+    notes=('basis = "ratio" needs internal_standard and matrix_element; the matrix element is not an analyte.',))
+
+ANALYTE_TABLE = Table("calibration.analytes", (
+    Setting("element", "str", REQUIRED, "analyte element", check=_element),
+    Setting("line", "str", REQUIRED, 'analyte line id, e.g. "Zn I 481.053"', fix='write line = "Zn I 481.053"'),
+    Setting("model", "str", None, "curve model; not set: [calibration] model", choices=MODELS),
+    Setting("through_origin", "bool", None, "not set: [calibration] through_origin"),
+    Setting("internal_standard", "str", None, "not set: [calibration] internal_standard"),
+    Setting("outliers", "str", None, "not set: [calibration] outliers", choices=OUTLIERS),
+    Setting("exclude", "list", [], 'standards left out: [{standard = "CRM-1", reason = "..."}]',
+            fix='write exclude = [{standard = "CRM-1", reason = "..."}]'),
+    Setting("interferences", "list", [], 'interfering analytes: [{element = "Fe", kind = "additive"}] (kind '
+            "additive or multiplicative)", fix='write interferences = [{element = "Fe", kind = "additive"}]'),
+    Setting("basis", "str", None, "not set: [calibration] basis", choices=BASES),
+), "One analyte's curve.", "compquant.calibrate", array=True,
+    notes=("An element is listed once; an interfering element must itself be an analyte.",))
+
+EXCLUDE_TABLE = Table("calibration.analytes.exclude", (
+    Setting("standard", "any", REQUIRED, "standard id"), Setting("reason", "any", REQUIRED, "why")))
+INTERFERENCE_TABLE = Table("calibration.analytes.interferences", (
+    Setting("element", "any", REQUIRED, "interfering element", check=_element),
+    Setting("kind", "str", REQUIRED, "additive or multiplicative", choices=("additive", "multiplicative"))))
+
+PLS_TABLE = Table("calibration.pls", (
+    Setting("analytes", "list", REQUIRED, "elements calibrated by PLS", item="str", nonempty=True, check=_elements,
+            fix='write analytes = ["Sn"]'),
+    Setting("half_width_nm", "float", 0.3, "half-width of each line window of the X block", unit="nm", min=0,
+            min_open=True, fix="e.g. 0.3"),
+    Setting("max_components", "int", 5, "largest number of PLS components tried", min=1, fix="e.g. 5"),
+    Setting("cv_folds", "int", 0, "cross-validation folds (0 = leave-one-out, else >= 2)", min=0, check=_cv_folds,
+            fix="use 0"),
+    Setting("alpha", "float", 0.05, "significance level", min=0, max=0.5, min_open=True, max_open=True,
+            fix="use 0.05"),
+    Setting("lines", "list", None, "line ids whose windows form the X block; not set: all method lines",
+            item="str", fix="or leave it out"),
+    Setting("normalise", "str", None, 'row normalisation; not set: "internal_standard" for a ratio calibration '
+            'with an internal standard, else "total"', choices=("internal_standard", "total", "none")),
+), "Optional multivariate (PLS) calibration.", "compquant.calibrate")
+
+TABLES = (CALIBRATION_TABLE, ANALYTE_TABLE, PLS_TABLE)
+_CONFIG_FIELDS = frozenset(f.name for f in fields(CalibrationConfig))
+
+
+def _or(value, default):
+    return default if value is None else value
+
+
+def _analyte(a, i: int, top: dict, source: str) -> AnalyteConfig:
+    """One ``[[calibration.analytes]]`` entry; unset keys take the ``[calibration]`` values."""
+    w = f"{source}: [[calibration.analytes]] #{i}"
+    ANALYTE_TABLE.check_table(a, w, MethodError)
+    el = _element(a["element"], f"{w}.element")
+    w = f"{source}: calibration.analytes {el}"
+    v = ANALYTE_TABLE.parse(a, w, MethodError)
+    basis = _or(v["basis"], top["basis"])
+    istd = _or(v["internal_standard"], top["internal_standard"])
+    if basis == "ratio":
+        if not istd:
+            raise MethodError("basis 'ratio' needs an internal-standard line", where=w,
+                              fix='set internal_standard = "Cu I 510.554" in [calibration]')
+        if not top["matrix_element"]:
+            raise MethodError("basis 'ratio' needs matrix_element", where=f"{source}: [calibration]",
+                              fix='set matrix_element = "Cu"')
+        if el == top["matrix_element"]:
+            raise MethodError("the matrix element cannot be an analyte of a ratio calibration", where=w,
+                              fix="its content follows by difference")
+    for e in v["exclude"]:
+        EXCLUDE_TABLE.parse(e, f"{w}.exclude", MethodError)
+    for e in v["interferences"]:
+        INTERFERENCE_TABLE.parse(e, f"{w}.interferences", MethodError)
+        if e["element"] == el:
+            raise MethodError("an analyte cannot interfere with itself", where=w, fix="remove the entry")
+    return AnalyteConfig(
+        element=el,
+        line=v["line"],
+        model=_or(v["model"], top["model"]),
+        through_origin=_or(v["through_origin"], top["through_origin"]),
+        basis=basis,
+        internal_standard=istd if basis == "ratio" else None,
+        outliers=_or(v["outliers"], top["outliers"]),
+        exclude=[dict(e) for e in v["exclude"]],
+        interferences=[{"element": e["element"], "kind": e["kind"]} for e in v["interferences"]],
+    )
+
+
+def _pls(table, top: dict, source: str) -> PLSConfig:
+    """``[calibration.pls]``; the default normalisation follows the calibration's basis."""
+    w = f"{source}: [calibration.pls]"
+    ps = PLS_TABLE.parse(table, w, MethodError)
+    istd = top["internal_standard"]
+    norm = _or(ps["normalise"], "internal_standard" if (top["basis"] == "ratio" and istd) else "total")
+    if norm == "internal_standard" and not istd:
+        raise MethodError("normalise = 'internal_standard' needs [calibration] internal_standard",
+                          where=w, fix='set internal_standard = "Cu I 510.554" or normalise = "total"')
+    return PLSConfig(analytes=list(ps["analytes"]), half_width_nm=ps["half_width_nm"],
+                     max_components=ps["max_components"], cv_folds=ps["cv_folds"], alpha=ps["alpha"],
+                     lines=ps["lines"], normalise=norm)
 
 
 def parse_calibration_section(section: dict | None, source: str = "method") -> CalibrationConfig:
     """Validate ``Method.sections['calibration']`` (a plain dict) into a CalibrationConfig.
 
-    Raises :class:`MethodError` naming ``<source>: calibration.<key>``.
+    Each table goes through its declaration (:data:`CALIBRATION_TABLE`, :data:`ANALYTE_TABLE`,
+    :data:`PLS_TABLE`), then the rules that tie them together.  Raises :class:`MethodError`
+    naming ``<source>: [calibration].<key>``.
     """
-    base = f"{source}: [calibration]"
     if not section:
         raise MethodError(
             "the method has no [calibration] section",
             where=source,
             fix="add [calibration] and [[calibration.analytes]] (see docs/calibration.md)",
         )
-    check_keys(section, _TOP, base, MethodError, required={"analytes"})
-    basis = _choice(section.get("basis", "ratio"), ("ratio", "intensity"), base, "basis")
-    model = _choice(section.get("model", "linear"), MODELS, base, "model")
-    origin = _bool(section.get("through_origin", False), base, "through_origin")
-    outl = _choice(section.get("outliers", "flag"), ("flag", "exclude"), base, "outliers")
-    alpha = section.get("outlier_alpha", 0.05)
-    if not isinstance(alpha, (int, float)) or not 0 < alpha < 0.5:
-        raise MethodError("'outlier_alpha' must be a number in (0, 0.5)", where=base, fix="use 0.05")
-    coverage = _choice(section.get("coverage", "k2"), ("k2", "student"), base, "coverage")
-    drift = _choice(section.get("drift", "optional"), ("optional", "required", "off"), base, "drift")
-    spt = section.get("sigma_pt_rel")
-    if spt is not None and (not isinstance(spt, (int, float)) or spt <= 0):
-        raise MethodError("'sigma_pt_rel' must be a positive number", where=base, fix="e.g. 0.05")
-    mar = section.get("max_above_range", 0.10)
-    if isinstance(mar, bool) or not isinstance(mar, (int, float)) or not 0 <= mar <= 1:
-        raise MethodError("'max_above_range' must be a fraction between 0 and 1", where=base,
-                          fix="e.g. 0.10 (10 % above the top standard at most)")
-    matrix = section.get("matrix_element")
-    if matrix is not None:
-        _element(matrix, base, "matrix_element")
-    istd = section.get("internal_standard")
-    if istd is not None and not isinstance(istd, str):
-        raise MethodError(
-            "'internal_standard' must be a line id string",
-            where=base,
-            fix='write internal_standard = "Cu I 510.554"',
-        )
-    ans = section["analytes"]
-    if not isinstance(ans, list) or not ans:
-        raise MethodError(
-            "[[calibration.analytes]] is empty",
-            where=base,
-            fix="add one [[calibration.analytes]] table per element",
-        )
+    top = CALIBRATION_TABLE.parse(section, f"{source}: [calibration]", MethodError)
     analytes, seen = [], set()
-    for i, a in enumerate(ans, 1):
-        w = f"{source}: [[calibration.analytes]] #{i}"
-        check_keys(a, _AN, w, MethodError, required={"element", "line"})
-        el = _element(a["element"], w, "element")
-        w = f"{source}: calibration.analytes {el}"
-        if el in seen:
-            raise MethodError(f"analyte {el} listed twice", where=w, fix="keep one entry per element")
-        seen.add(el)
-        if not isinstance(a["line"], str):
-            raise MethodError("'line' must be a line id string", where=w, fix='write line = "Zn I 481.053"')
-        ab = _choice(a.get("basis", basis), ("ratio", "intensity"), w, "basis")
-        ai = a.get("internal_standard", istd)
-        if ab == "ratio":
-            if not ai:
-                raise MethodError(
-                    "basis 'ratio' needs an internal-standard line",
-                    where=w,
-                    fix='set internal_standard = "Cu I 510.554" in [calibration]',
-                )
-            if not matrix:
-                raise MethodError("basis 'ratio' needs matrix_element", where=base, fix='set matrix_element = "Cu"')
-            if el == matrix:
-                raise MethodError(
-                    "the matrix element cannot be an analyte of a ratio calibration",
-                    where=w,
-                    fix="its content follows by difference",
-                )
-        excl = a.get("exclude", [])
-        if not isinstance(excl, list):
-            raise MethodError(
-                "'exclude' must be a list of {standard, reason}",
-                where=w,
-                fix='write exclude = [{standard = "CRM-1", reason = "..."}]',
-            )
-        for e in excl:
-            check_keys(e, {"standard", "reason"}, f"{w} exclude", MethodError, required={"standard", "reason"})
-        intf = a.get("interferences", [])
-        if not isinstance(intf, list):
-            raise MethodError(
-                "'interferences' must be a list of {element, kind}",
-                where=w,
-                fix='write interferences = [{element = "Fe", kind = "additive"}]',
-            )
-        for e in intf:
-            check_keys(e, {"element", "kind"}, f"{w} interferences", MethodError, required={"element", "kind"})
-            _element(e["element"], f"{w} interferences", "element")
-            _choice(e["kind"], ("additive", "multiplicative"), f"{w} interferences", "kind")
-            if e["element"] == el:
-                raise MethodError("an analyte cannot interfere with itself", where=w, fix="remove the entry")
-        analytes.append(
-            AnalyteConfig(
-                element=el,
-                line=a["line"],
-                model=_choice(a.get("model", model), MODELS, w, "model"),
-                through_origin=_bool(a.get("through_origin", origin), w, "through_origin"),
-                basis=ab,
-                internal_standard=ai if ab == "ratio" else None,
-                outliers=_choice(a.get("outliers", outl), ("flag", "exclude"), w, "outliers"),
-                exclude=[dict(e) for e in excl],
-                interferences=[{"element": e["element"], "kind": e["kind"]} for e in intf],
-            )
-        )
-    names = {a.element for a in analytes}
+    for i, a in enumerate(top["analytes"], 1):
+        an = _analyte(a, i, top, source)
+        if an.element in seen:
+            raise MethodError(f"analyte {an.element} listed twice", where=f"{source}: calibration.analytes "
+                              f"{an.element}", fix="keep one entry per element")
+        seen.add(an.element)
+        analytes.append(an)
     for a in analytes:
         for e in a.interferences:
-            if e["element"] not in names:
+            if e["element"] not in seen:
                 raise MethodError(
                     f"interfering element {e['element']} is not an analyte",
                     where=f"{source}: calibration.analytes {a.element}",
                     fix="its content in unknowns must be measured: add it as an analyte",
                 )
-    pls = None
-    if section.get("pls") is not None:
-        ps = section["pls"]
-        w = f"{source}: [calibration.pls]"
-        check_keys(ps, _PLS, w, MethodError, required={"analytes"})
-        pa = ps["analytes"]
-        if not isinstance(pa, list) or not pa:
-            raise MethodError("'analytes' must be a non-empty list of elements", where=w, fix='write analytes = ["Sn"]')
-        for el in pa:
-            _element(el, w, "analytes")
-        hw = ps.get("half_width_nm", 0.3)
-        if not isinstance(hw, (int, float)) or hw <= 0:
-            raise MethodError("'half_width_nm' must be > 0", where=w, fix="e.g. 0.3")
-        mc = ps.get("max_components", 5)
-        if not isinstance(mc, int) or isinstance(mc, bool) or mc < 1:
-            raise MethodError("'max_components' must be an integer >= 1", where=w, fix="e.g. 5")
-        cv = ps.get("cv_folds", 0)
-        if not isinstance(cv, int) or isinstance(cv, bool) or cv < 0 or cv == 1:
-            raise MethodError("'cv_folds' must be 0 (leave-one-out) or >= 2", where=w, fix="use 0")
-        al = ps.get("alpha", 0.05)
-        if not isinstance(al, (int, float)) or not 0 < al < 0.5:
-            raise MethodError("'alpha' must be in (0, 0.5)", where=w, fix="use 0.05")
-        lines = ps.get("lines")
-        if lines is not None and (not isinstance(lines, list) or not all(isinstance(s, str) for s in lines)):
-            raise MethodError("'lines' must be a list of line ids", where=w, fix="or leave it out")
-        dflt = "internal_standard" if (basis == "ratio" and istd) else "total"
-        norm = _choice(ps.get("normalise", dflt), ("internal_standard", "total", "none"), w, "normalise")
-        if norm == "internal_standard" and not istd:
-            raise MethodError("normalise = 'internal_standard' needs [calibration] internal_standard",
-                              where=w, fix='set internal_standard = "Cu I 510.554" or normalise = "total"')
-        pls = PLSConfig(analytes=list(pa), half_width_nm=float(hw), max_components=mc, cv_folds=cv,
-                        alpha=float(al), lines=lines, normalise=norm)
-    return CalibrationConfig(
-        analytes=analytes,
-        basis=basis,
-        matrix_element=matrix,
-        internal_standard=istd,
-        outlier_alpha=float(alpha),
-        coverage=coverage,
-        drift=drift,
-        sigma_pt_rel=None if spt is None else float(spt),
-        pls=pls,
-        max_above_range=float(mar),
-    )
+    # the calibration-wide settings are fields of the same name; model, through_origin and
+    # outliers live on in each analyte
+    wide = {k: v for k, v in top.items() if k in _CONFIG_FIELDS and k not in ("analytes", "pls")}
+    pls = None if top["pls"] is None else _pls(section["pls"], top, source)
+    return CalibrationConfig(analytes=analytes, pls=pls, **wide)
 
 
-__all__ = ["AnalyteConfig", "PLSConfig", "CalibrationConfig", "parse_calibration_section"]
+__all__ = ["ANALYTE_TABLE", "CALIBRATION_TABLE", "PLS_TABLE", "AnalyteConfig", "PLSConfig", "CalibrationConfig",
+           "parse_calibration_section"]

@@ -29,11 +29,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import stats
 
+from compquant.calibrate.curve_models import MODELS, QUADRATIC_MODELS, WEIGHTED_MODELS
 from compquant.errors import CalibrationError
-
-MODELS = ("linear", "weighted", "quadratic", "weighted_quadratic")
-WEIGHTED_MODELS = ("weighted", "weighted_quadratic")
-QUADRATIC_MODELS = ("quadratic", "weighted_quadratic")
 
 
 def design_terms(model: str, through_origin: bool, interferences=()) -> list[str]:

@@ -45,6 +45,7 @@ import numpy as np
 from scipy import stats
 
 from compquant import __version__
+from compquant.calibrate.curve_models import TERMS
 from compquant.calibrate.fit import d_dxi, design_matrix, invert, slope_at
 from compquant.errors import CalibrationError
 from compquant.fileio import json_ready, require_file, write_text_atomic
@@ -326,7 +327,7 @@ class Calibration:
 
 
 _NONFINITE = "__nonfinite__"
-_TERM = re.compile(r"^(1|x|x2|(add|mul):[A-Z][a-z]?)$")
+_TERM = re.compile(rf"^({'|'.join(map(re.escape, TERMS))}|(add|mul):[A-Z][a-z]?)$")  # terms of the registered forms
 
 
 def _type_ok(value, annotation: str) -> bool:

@@ -1,8 +1,8 @@
 """Baseline (continuum) removal, vectorised over many spectra.
 
 Three published estimators, each a plain function over a 2-D array
-``(n_shots, n_pixels)`` returning the baseline of every row, plus a small
-scikit-learn transformer that subtracts it:
+``(n_shots, n_pixels)`` returning the baseline of every row, chosen by name from the
+registry :data:`BASELINES` (its docstring states what a new entry must meet):
 
 * :func:`snip` -- Statistics-sensitive Non-linear Iterative Peak clipping,
   Ryan, Clayton, Griffin, Sie & Cousens, Nucl. Instrum. Meth. B 34 (1988)
@@ -39,14 +39,16 @@ Units: the baseline has the units of the spectra (counts or radiance).
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from dataclasses import dataclass
 from math import comb
 
 import numpy as np
 from scipy.linalg import get_lapack_funcs
 from scipy.special import expit
-from sklearn.base import BaseEstimator, TransformerMixin
 
 from compquant.errors import MethodError
+from compquant.settings import Setting
 
 #: rows per block in SNIP.  SNIP keeps two buffers of ``rows x (pixels + 2 M)`` float64: at
 #: 16 rows and 4,096 pixels that is 2 x 0.5 MiB, inside a 2 MiB L2 cache with room for the
@@ -296,78 +298,96 @@ def arpls(spectra, lam: float = 1e5, *, diff_order: int = 2, max_iter: int = 50,
     return z[0] if squeeze else z
 
 
-BASELINE_METHODS = ("none", "snip", "asls", "arpls")
+# --------------------------------------------------------------------------- the registry
+
+
+@dataclass(frozen=True)
+class BaselineEstimator:
+    """One entry of :data:`BASELINES`: a baseline estimator the method file can choose.
+
+    Contract a new entry must meet (add it here and a test in ``tests/test_preprocess.py``
+    that checks it against an outside reference, e.g. pybaselines; nothing else changes:
+    ``[preprocess.baseline] method`` accepts its name, its parameters become keys of that
+    table, ``docs/method-reference.md`` lists them after ``python scripts/make_method_reference.py``,
+    and the fuzz tests draw them):
+
+    * ``function(spectra, **params) -> baseline``: ``spectra`` a float64 array
+      ``(n_shots, n_pixels)`` (C-contiguous, NaN-free: masked pixels are already bridged),
+      the baseline of every row returned as a new float64 array of the same shape, in the
+      units of the spectra; rows are independent (the result of a row must not depend on the
+      other rows or on how a run is cut into chunks), no I/O, no global state;
+    * ``params``: one :class:`compquant.settings.Setting` per keyword argument of ``function``,
+      with type, range and default (the default is what the method file gets when it leaves
+      the key out); keys shared with other entries keep the same meaning;
+    * ``reference``: the publication (or standard) the estimator follows, also cited in the
+      function's docstring with its equation.
+
+    ``function`` is None only for ``"none"`` (no baseline removal).
+    """
+
+    name: str
+    function: Callable | None
+    params: tuple[Setting, ...]
+    reference: str
+    doc: str = ""
+
+    @property
+    def keys(self) -> tuple[str, ...]:
+        return tuple(s.key for s in self.params)
+
+
+_LAM = "smoothness λ of the penalised fit (larger: stiffer baseline)"
+_WHITTAKER_TAIL = (
+    Setting("diff_order", "int", 2, "order d of the difference penalty", min=0, min_open=True),
+    Setting("max_iter", "int", 50, "reweighting iterations at most", min=0, min_open=True),
+    Setting("tol", "float", 1e-3, "convergence: relative change of the weights", min=0, min_open=True),
+)
+
+#: the baseline estimators, by the name ``[preprocess.baseline] method`` gives
+BASELINES: dict[str, BaselineEstimator] = {
+    "none": BaselineEstimator("none", None, (), "", "no baseline removal"),
+    "snip": BaselineEstimator(
+        "snip",
+        snip,
+        (
+            Setting("max_half_window", "int", 20, "largest clipping half-width M, about half the broadest peak's "
+                    "full width", unit="pixels", min=0, min_open=True),
+            Setting("decreasing", "bool", False, "clip from M down to 1 (Morhac et al. 1997)"),
+            Setting("lls", "bool", False, "log-log-square-root transform before clipping (Ryan et al. 1988)"),
+        ),
+        "Ryan et al., Nucl. Instrum. Meth. B 34 (1988) 396-402",
+        "SNIP peak clipping",
+    ),
+    "asls": BaselineEstimator(
+        "asls",
+        asls,
+        (
+            Setting("lam", "float", 1e6, _LAM, min=0, min_open=True),
+            Setting("p", "float", 0.01, "asymmetry: weight of points above the baseline", min=0, max=1,
+                    min_open=True, max_open=True, fix="use e.g. 0.01"),
+            *_WHITTAKER_TAIL,
+        ),
+        "Eilers & Boelens (2005), Baseline correction with asymmetric least squares smoothing",
+        "asymmetric least squares",
+    ),
+    "arpls": BaselineEstimator(
+        "arpls",
+        arpls,
+        (Setting("lam", "float", 1e5, _LAM, min=0, min_open=True), *_WHITTAKER_TAIL),
+        "Baek et al., Analyst 140 (2015) 250-257",
+        "asymmetrically reweighted penalised least squares",
+    ),
+}
+BASELINE_METHODS = tuple(BASELINES)
 
 
 def estimate_baseline(spectra, method: str, **params) -> np.ndarray | None:
-    """Dispatch to :func:`snip`, :func:`asls` or :func:`arpls`; ``None`` for ``"none"``."""
-    if method == "none":
-        return None
-    if method == "snip":
-        return snip(spectra, **params)
-    if method == "asls":
-        return asls(spectra, **params)
-    if method == "arpls":
-        return arpls(spectra, **params)
-    raise MethodError(
-        f"unknown baseline method {method!r}",
-        where="[preprocess.baseline] method",
-        fix=f"use one of {', '.join(BASELINE_METHODS)}",
-    )
-
-
-class BaselineRemoval(BaseEstimator, TransformerMixin):
-    """scikit-learn step: subtract a SNIP / AsLS / arPLS baseline from every row.
-
-    Parameters are those of :func:`snip` (``max_half_window``, ``decreasing``,
-    ``lls``), :func:`asls` (``lam``, ``p``) or :func:`arpls` (``lam``).
-    """
-
-    def __init__(
-        self,
-        method: str = "snip",
-        max_half_window: int = 20,
-        decreasing: bool = False,
-        lls: bool = False,
-        lam: float = 1e6,
-        p: float = 1e-2,
-        diff_order: int = 2,
-        max_iter: int = 50,
-        tol: float = 1e-3,
-    ):
-        self.method = method
-        self.max_half_window = max_half_window
-        self.decreasing = decreasing
-        self.lls = lls
-        self.lam = lam
-        self.p = p
-        self.diff_order = diff_order
-        self.max_iter = max_iter
-        self.tol = tol
-
-    def params_for_method(self) -> dict:
-        if self.method == "snip":
-            return {"max_half_window": self.max_half_window, "decreasing": self.decreasing, "lls": self.lls}
-        if self.method == "asls":
-            return {
-                "lam": self.lam,
-                "p": self.p,
-                "diff_order": self.diff_order,
-                "max_iter": self.max_iter,
-                "tol": self.tol,
-            }
-        if self.method == "arpls":
-            return {"lam": self.lam, "diff_order": self.diff_order, "max_iter": self.max_iter, "tol": self.tol}
-        return {}
-
-    def fit(self, X, y=None):
-        return self
-
-    def baseline(self, X) -> np.ndarray:
-        X = np.asarray(X, dtype=np.float64)
-        b = estimate_baseline(X, self.method, **self.params_for_method())
-        return np.zeros_like(X) if b is None else b
-
-    def transform(self, X):
-        X = np.asarray(X, dtype=np.float64)
-        return X - self.baseline(X)
+    """The baseline of every row by the estimator ``method`` of :data:`BASELINES`; ``None`` for ``"none"``."""
+    entry = BASELINES.get(method)
+    if entry is None:
+        raise MethodError(
+            f"unknown baseline method {method!r}",
+            where="[preprocess.baseline] method",
+            fix=f"use one of {', '.join(BASELINE_METHODS)}",
+        )
+    return None if entry.function is None else entry.function(spectra, **params)

@@ -1,15 +1,13 @@
 """Detector corrections: dark subtraction, spectral response, saturation mask, normalisation.
 
 All functions act on float arrays ``(n_shots, n_pixels)`` and never modify
-their input.  Each has a scikit-learn-style step object (parameters in
-``__init__``, ``fit``/``transform``) so steps can sit in an
-:class:`sklearn.pipeline.Pipeline`.
+their input.  The streaming pipeline that applies them to a run is
+:func:`compquant.lines.measure_run` (its chunk kernel :mod:`compquant.lines.chunk`).
 """
 
 from __future__ import annotations
 
 import numpy as np
-from sklearn.base import BaseEstimator, TransformerMixin
 
 from compquant.errors import MethodError
 
@@ -53,32 +51,6 @@ def subtract_dark(spectra, dark_ref, scale: float = 1.0) -> np.ndarray:
     return np.asarray(spectra, dtype=np.float64) - scale * np.asarray(dark_ref, dtype=np.float64)
 
 
-class DarkSubtraction(BaseEstimator, TransformerMixin):
-    """Subtract the per-pixel dark level, scaled by ``exposure_s / dark_exposure_s``."""
-
-    def __init__(
-        self,
-        dark_frames=None,
-        statistic: str = "mean",
-        exposure_s: float | None = None,
-        dark_exposure_s: float | None = None,
-    ):
-        self.dark_frames = dark_frames
-        self.statistic = statistic
-        self.exposure_s = exposure_s
-        self.dark_exposure_s = dark_exposure_s
-
-    def fit(self, X=None, y=None):
-        if self.dark_frames is None:
-            raise ValueError("DarkSubtraction needs dark_frames")
-        self.dark_ = dark_reference(self.dark_frames, self.statistic)
-        self.scale_ = exposure_ratio(self.exposure_s, self.dark_exposure_s)
-        return self
-
-    def transform(self, X):
-        return subtract_dark(X, self.dark_, self.scale_)
-
-
 # --------------------------------------------------------------------------- response
 
 
@@ -95,22 +67,6 @@ def correct_response(spectra, response) -> np.ndarray:
     return np.asarray(spectra, dtype=np.float64) * inv
 
 
-class ResponseCorrection(BaseEstimator, TransformerMixin):
-    """Divide by the relative spectral response (from the run or a separate file)."""
-
-    def __init__(self, response=None):
-        self.response = response
-
-    def fit(self, X=None, y=None):
-        if self.response is None:
-            raise ValueError("ResponseCorrection needs a response curve")
-        self.response_ = np.asarray(self.response, dtype=np.float64)
-        return self
-
-    def transform(self, X):
-        return correct_response(X, self.response_)
-
-
 # --------------------------------------------------------------------------- saturation
 
 
@@ -124,21 +80,6 @@ def saturation_mask(raw, level: float | None, margin: float = 0.0) -> np.ndarray
         return None
     raw = np.asarray(raw)
     return raw >= level * (1.0 - margin)
-
-
-class SaturationMask(BaseEstimator):
-    """Find saturated pixels in raw counts; the mask travels to line measurement."""
-
-    def __init__(self, level: float | None = None, margin: float = 0.0):
-        self.level = level
-        self.margin = margin
-
-    def fit(self, X=None, y=None):
-        return self
-
-    def mask(self, X) -> np.ndarray:
-        m = saturation_mask(X, self.level, self.margin)
-        return np.zeros(np.shape(X), dtype=bool) if m is None else m
 
 
 # --------------------------------------------------------------------------- normalisation
@@ -173,42 +114,3 @@ def normalise(spectra, factors) -> np.ndarray:
     good = np.isfinite(f) & (f > 0)
     inv = np.where(good, 1.0 / np.where(good, f, 1.0), np.nan)
     return np.asarray(spectra, dtype=np.float64) * inv[:, None]
-
-
-class Normalisation(BaseEstimator, TransformerMixin):
-    """Normalise each shot by total area (``"total_area"``) or mean baseline (``"background"``).
-
-    ``"internal_standard"`` needs a line intensity per shot and is applied by
-    :mod:`compquant.lines` after window integration; ``transform`` with a
-    ``factors`` array does the division for any of them.
-    """
-
-    def __init__(self, how: str = "none", wavelength=None):
-        self.how = how
-        self.wavelength = wavelength
-
-    def fit(self, X=None, y=None):
-        if self.how not in NORMALISATIONS:
-            raise MethodError(
-                f"unknown normalisation {self.how!r}",
-                where="[preprocess.normalise] how",
-                fix=f"use one of {NORMALISATIONS}",
-            )
-        return self
-
-    def factors(self, X, baseline=None) -> np.ndarray:
-        X = np.asarray(X, dtype=np.float64)
-        if self.how == "none":
-            return np.ones(X.shape[0])
-        if self.how == "total_area":
-            wl = self.wavelength if self.wavelength is not None else np.arange(X.shape[1], dtype=float)
-            return total_area(X, wl)
-        if self.how == "background":
-            if baseline is None:
-                raise ValueError("background normalisation needs the removed baseline")
-            return np.asarray(baseline).mean(axis=1)
-        raise ValueError("internal-standard normalisation needs line intensities")
-
-    def transform(self, X, factors=None):
-        f = self.factors(X) if factors is None else factors
-        return normalise(X, f)

@@ -24,7 +24,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.stats import norm
-from sklearn.base import BaseEstimator
 
 #: MAD -> standard deviation for normal data, 1 / Phi^-1(3/4) = 1.482602... (Rousseeuw & Croux
 #: 1993); the one copy of this factor in compquant (identify.peaks uses it too)
@@ -114,35 +113,3 @@ def pulse_energy_factors(pulse_energy, reference: float | None = None) -> np.nda
     if not np.isfinite(ref) or ref <= 0:
         return np.ones_like(e)
     return e / ref
-
-
-class ShotQC(BaseEstimator):
-    """Step object for shot QC on the total emission of one sample's spectra.
-
-    ``fit(X)`` learns median and robust SD of the total emission;
-    ``accept(X)`` returns the boolean mask; ``transform(X)`` keeps accepted rows.
-    """
-
-    def __init__(self, k: float = 5.0, min_fraction: float = 0.0, min_signal: float | None = None):
-        self.k = k
-        self.min_fraction = min_fraction
-        self.min_signal = min_signal
-
-    @staticmethod
-    def quantity(X) -> np.ndarray:
-        return np.asarray(X, dtype=np.float64).sum(axis=1)
-
-    def fit(self, X, y=None):
-        self.decision_ = qc_decide(
-            self.quantity(X), k=self.k, min_fraction=self.min_fraction, min_signal=self.min_signal
-        )
-        return self
-
-    def accept(self, X) -> np.ndarray:
-        return qc_decide(
-            self.quantity(X), k=self.k, min_fraction=self.min_fraction, min_signal=self.min_signal
-        ).accepted
-
-    def transform(self, X):
-        X = np.asarray(X, dtype=np.float64)
-        return X[self.accept(X)]

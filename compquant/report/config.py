@@ -45,6 +45,7 @@ from pathlib import Path
 from compquant.errors import ConfigError
 from compquant.fileio import check_keys, load_toml, sha256_file
 from compquant.report.conformity import RULES
+from compquant.settings import REQUIRED, Setting, Table
 
 #: mass fraction units accepted in specification and standards files -> factor to g/g
 UNIT_TO_GG = {"%": 1e-2, "mg/kg": 1e-6, "g/g": 1.0}
@@ -67,20 +68,6 @@ MAX_DESCRIPTION_CHARS = 2000
 MAX_LINES = 8
 MAX_ID_CHARS = 300
 _BREAKS = frozenset("\r\n\v\f\x85\u2028\u2029")
-
-
-def _text(table: dict, key: str, where: str, required: bool = False, default: str = "") -> str:
-    if key not in table:
-        if required:
-            raise ConfigError(f"missing required key {key!r}", where=where, fix=f'add {key} = "..."')
-        return default
-    v = table[key]
-    if not isinstance(v, str) or (required and not v.strip()):
-        raise ConfigError(
-            f"{key!r} must be a non-empty text string", where=f"{where}.{key}", fix=f'write {key} = "..."'
-        )
-    check_printed_text(v, f"{where}.{key}")
-    return v
 
 
 def check_printed_text(text: str, where: str, limit: int = MAX_FIELD_CHARS) -> None:
@@ -113,44 +100,6 @@ def check_certificate_texts(ids, descriptions, client, where: str) -> None:
         check_printed_text(str(client), "--client")
 
 
-def _lines(table: dict, key: str, where: str, required: bool = False) -> list[str]:
-    if key not in table:
-        if required:
-            raise ConfigError(f"missing required key {key!r}", where=where, fix=f'add {key} = ["line 1", "line 2"]')
-        return []
-    v = table[key]
-    if isinstance(v, str):
-        v = [v]
-    if not isinstance(v, list) or not all(isinstance(x, str) for x in v) or (required and not v):
-        raise ConfigError(
-            f"{key!r} must be a string or a list of strings",
-            where=f"{where}.{key}",
-            fix=f'write {key} = ["line 1", "line 2"]',
-        )
-    if len(v) > MAX_LINES:
-        raise ConfigError(f"{key!r} has {len(v)} lines, more than the {MAX_LINES} the certificate prints",
-                          where=f"{where}.{key}", fix="shorten it")
-    for i, x in enumerate(v):
-        check_printed_text(x, f"{where}.{key}[{i}]")
-    return list(v)
-
-
-def _date(table: dict, key: str, where: str) -> str:
-    if key not in table:
-        return ""
-    v = table[key]
-    if isinstance(v, _dt.datetime):
-        return v.date().isoformat()
-    if isinstance(v, _dt.date):
-        return v.isoformat()
-    if isinstance(v, str):
-        try:
-            return _dt.date.fromisoformat(v).isoformat()
-        except ValueError:
-            pass
-    raise ConfigError(f"{key!r} must be a date YYYY-MM-DD", where=f"{where}.{key}", fix=f"write {key} = 2026-12-01")
-
-
 @dataclass
 class LabProfile:
     """The issuing laboratory: printed on every certificate (ISO/IEC 17025:2017, 7.8.2.1 b, o)."""
@@ -174,14 +123,83 @@ class LabProfile:
     review_required: bool = True  # certificates are issued as DRAFT until a reviewer releases them
 
 
-def _review_required(data: dict, w: str) -> bool:
-    rev = data.get("review", {})
-    check_keys(rev, {"required"}, f"{w} [review]")
-    req = rev.get("required", True)
-    if not isinstance(req, bool):
-        raise ConfigError("'required' must be true or false", where=f"{w} [review].required",
-                          fix="write required = true (certificates issued as DRAFT until released)")
-    return req
+def _text_check(required: bool):
+    def check(v, where, error):
+        key = where.rsplit(".", 1)[-1]
+        if not isinstance(v, str) or (required and not v.strip()):
+            raise error(f"{key!r} must be a non-empty text string", where=where, fix=f'write {key} = "..."')
+        check_printed_text(v, where)
+        return v
+
+    return check
+
+
+def _lines_check(required: bool):
+    return lambda v, where, error: _lines_value(v, where, error, required)
+
+
+def _lines_value(v, where, error, required):
+    key = where.rsplit(".", 1)[-1]
+    if isinstance(v, str):
+        v = [v]
+    if not isinstance(v, list) or not all(isinstance(x, str) for x in v) or (required and not v):
+        raise error(f"{key!r} must be a string or a list of strings", where=where,
+                    fix=f'write {key} = ["line 1", "line 2"]')
+    if len(v) > MAX_LINES:
+        raise error(f"{key!r} has {len(v)} lines, more than the {MAX_LINES} the certificate prints", where=where,
+                    fix="shorten it")
+    for i, x in enumerate(v):
+        check_printed_text(x, f"{where}[{i}]")
+    return list(v)
+
+
+def _date_check(v, where, error):
+    key = where.rsplit(".", 1)[-1]
+    if isinstance(v, _dt.datetime):
+        return v.date().isoformat()
+    if isinstance(v, _dt.date):
+        return v.isoformat()
+    if isinstance(v, str):
+        try:
+            return _dt.date.fromisoformat(v).isoformat()
+        except ValueError:
+            pass
+    raise error(f"{key!r} must be a date YYYY-MM-DD", where=where, fix=f"write {key} = 2026-12-01")
+
+
+def _text(key, doc, required=False):
+    return Setting(key, "any", REQUIRED if required else "", doc, check=_text_check(required))
+
+
+def _lines_s(key, doc, required=False):
+    return Setting(key, "any", REQUIRED if required else [], doc + " (a string or a list of lines)",
+                   check=_lines_check(required))
+
+
+_LAB = "compquant.report.config"
+LAB_TABLE = Table("lab", (
+    _text("name", "laboratory name", True),
+    _lines_s("address", "laboratory address", True),
+    _text("site", "where the work was done (default: the address)"),
+    _text("accreditation", "accreditation / status statement, printed as given"),
+    _text("certificate_prefix", "prefix of certificate numbers: 1-12 letters or digits", True),
+    _text("phone", "telephone"),
+    _text("email", "e-mail address"),
+), "The issuing laboratory (ISO/IEC 17025:2017, 7.8.2.1 b).", _LAB)
+SIGNATORY_TABLE = Table("signatory", (_text("name", "who authorises certificates", True),
+                                      _text("title", "their title", True)), "Required.", _LAB)
+CLIENT_TABLE = Table("client", (_text("name", "client"), _lines_s("address", "client address"),
+                                _text("reference", "client's reference")),
+                     "Optional defaults for the certificate's client block.", _LAB)
+SAMPLES_TABLE = Table("samples", (_text("condition", "condition of the items on receipt"),
+                                  Setting("received", "any", "", "date of receipt YYYY-MM-DD", check=_date_check)),
+                      "Optional defaults for the sample block.", _LAB)
+REVIEW_TABLE = Table("review", (
+    Setting("required", "bool", True, "issue certificates as DRAFT until a reviewer releases them",
+            fix="write required = true (certificates issued as DRAFT until released)"),
+), "Optional (compquant.record, docs/record.md).", _LAB)
+LAB_PROFILE_TABLES = (LAB_TABLE, SIGNATORY_TABLE, CLIENT_TABLE, SAMPLES_TABLE, REVIEW_TABLE)
+_FIELD_PREFIX = {"lab": "", "signatory": "signatory_", "client": "client_", "samples": "sample_"}
 
 
 def load_lab_profile(path) -> LabProfile:
@@ -189,46 +207,19 @@ def load_lab_profile(path) -> LabProfile:
     p = Path(path)
     data = load_toml(p, "lab profile")
     w = str(p)
-    check_keys(data, {"lab", "signatory", "client", "samples", "review"}, w, required={"lab", "signatory"})
-    lab = data["lab"]
-    check_keys(
-        lab,
-        {"name", "address", "site", "accreditation", "certificate_prefix", "phone", "email"},
-        f"{w} [lab]",
-        required={"name", "address", "certificate_prefix"},
-    )
-    sig = data["signatory"]
-    check_keys(sig, {"name", "title"}, f"{w} [signatory]", required={"name", "title"})
-    cli = data.get("client", {})
-    check_keys(cli, {"name", "address", "reference"}, f"{w} [client]")
-    smp = data.get("samples", {})
-    check_keys(smp, {"condition", "received"}, f"{w} [samples]")
-    prefix = _text(lab, "certificate_prefix", f"{w} [lab]", required=True)
+    check_keys(data, {t.name for t in LAB_PROFILE_TABLES}, w, required={"lab", "signatory"})
+    v = {t.name: t.parse(data.get(t.name, {}), f"{w} [{t.name}]", ConfigError) for t in LAB_PROFILE_TABLES}
+    prefix = v["lab"]["certificate_prefix"]
     if not _PREFIX.fullmatch(prefix):
         raise ConfigError(
             f"certificate_prefix {prefix!r} must be 1 to 12 letters or digits",
             where=f"{w} [lab].certificate_prefix",
             fix='e.g. certificate_prefix = "HMTL"',
         )
-    return LabProfile(
-        name=_text(lab, "name", f"{w} [lab]", required=True),
-        address=_lines(lab, "address", f"{w} [lab]", required=True),
-        certificate_prefix=prefix.upper(),
-        signatory_name=_text(sig, "name", f"{w} [signatory]", required=True),
-        signatory_title=_text(sig, "title", f"{w} [signatory]", required=True),
-        accreditation=_text(lab, "accreditation", f"{w} [lab]"),
-        site=_text(lab, "site", f"{w} [lab]"),
-        phone=_text(lab, "phone", f"{w} [lab]"),
-        email=_text(lab, "email", f"{w} [lab]"),
-        client_name=_text(cli, "name", f"{w} [client]"),
-        client_address=_lines(cli, "address", f"{w} [client]"),
-        client_reference=_text(cli, "reference", f"{w} [client]"),
-        sample_condition=_text(smp, "condition", f"{w} [samples]"),
-        sample_received=_date(smp, "received", f"{w} [samples]"),
-        source=str(p),
-        sha256=sha256_file(p),
-        review_required=_review_required(data, w),
-    )
+    # LabProfile's fields are the tables' keys, prefixed by their table (signatory_name ...)
+    kw = {_FIELD_PREFIX[t] + k: x for t, vals in v.items() if t in _FIELD_PREFIX for k, x in vals.items()}
+    kw["certificate_prefix"] = prefix.upper()
+    return LabProfile(**kw, source=str(p), sha256=sha256_file(p), review_required=v["review"]["required"])
 
 
 @dataclass
@@ -261,10 +252,25 @@ class Specification:
         return None
 
 
-def _number(v, where: str) -> float:
+def _number(v, where: str, error=ConfigError) -> float:
     if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)) or v < 0:
-        raise ConfigError("must be a finite number >= 0", where=where, fix="write e.g. max = 0.35")
+        raise error("must be a finite number >= 0", where=where, fix="write e.g. max = 0.35")
     return float(v)
+
+
+SPECIFICATION_TABLE = Table("specification", (
+    _text("name", "specification name", True),
+    _text("grade", "material grade", True),
+    _text("source", "where the limits come from"),
+    _text("decision_rule", f"decision rule: {', '.join(sorted(RULES))}", True),
+), "The material specification (grade) a result is compared with (docs/certificate.md).", _LAB)
+LIMIT_TABLE = Table("limits.<El>", (
+    Setting("min", "any", None, "lower limit, in unit", check=lambda v, w, e: _number(v, w, e)),
+    Setting("max", "any", None, "upper limit, in unit", check=lambda v, w, e: _number(v, w, e)),
+    Setting("unit", "any", None, "unit of min and max: %, mg/kg or g/g"),
+    Setting("remainder", "bool", False, "balance element: reported, no limit checked",
+            fix="write remainder = true"),
+), "Limits of one element: min and/or max with unit, or remainder = true.", _LAB)
 
 
 def load_specification(path) -> Specification:
@@ -273,14 +279,8 @@ def load_specification(path) -> Specification:
     data = load_toml(p, "specification")
     w = str(p)
     check_keys(data, {"specification", "limits"}, w, required={"specification", "limits"})
-    spec = data["specification"]
-    check_keys(
-        spec,
-        {"name", "grade", "source", "decision_rule"},
-        f"{w} [specification]",
-        required={"name", "grade", "decision_rule"},
-    )
-    rule = _text(spec, "decision_rule", f"{w} [specification]", required=True)
+    spec = SPECIFICATION_TABLE.parse(data["specification"], f"{w} [specification]", ConfigError)
+    rule = spec["decision_rule"]
     if rule not in RULES:
         raise ConfigError(
             f"unknown decision_rule {rule!r}",
@@ -299,11 +299,8 @@ def load_specification(path) -> Specification:
         wl = f"{w} [limits.{el}]"
         if el not in ELEMENT_SYMBOLS:
             raise ConfigError(f"{el!r} is not an element symbol", where=wl, fix="use symbols such as Cu, Pb")
-        check_keys(t, {"min", "max", "unit", "remainder"}, wl)
-        remainder = t.get("remainder", False)
-        if not isinstance(remainder, bool):
-            raise ConfigError("remainder must be true or false", where=f"{wl}.remainder", fix="write remainder = true")
-        if remainder:
+        lim = LIMIT_TABLE.parse(t, wl, ConfigError, only=("remainder",))
+        if lim["remainder"]:
             if "min" in t or "max" in t:
                 raise ConfigError(
                     "a remainder element takes no min / max",
@@ -322,25 +319,29 @@ def load_specification(path) -> Specification:
                 fix='write unit = "%" or unit = "mg/kg"',
             )
         f = UNIT_TO_GG[unit]
-        lo = _number(t["min"], f"{wl}.min") * f if "min" in t else None
-        hi = _number(t["max"], f"{wl}.max") * f if "max" in t else None
+        lim = LIMIT_TABLE.parse(t, wl, ConfigError)
+        lo = lim["min"] * f if lim["min"] is not None else None
+        hi = lim["max"] * f if lim["max"] is not None else None
         if lo is not None and hi is not None and lo > hi:
             raise ConfigError("min is above max", where=wl, fix="swap the values")
         if (hi is not None and hi > 1.0) or (lo is not None and lo > 1.0):
             raise ConfigError("a limit above 100 % mass fraction", where=wl, fix="check the unit")
         out.append(ElementLimit(el, lo, hi, unit))
     return Specification(
-        name=_text(spec, "name", f"{w} [specification]", required=True),
-        grade=_text(spec, "grade", f"{w} [specification]", required=True),
+        name=spec["name"],
+        grade=spec["grade"],
         decision_rule=rule,
         limits=out,
-        source=_text(spec, "source", f"{w} [specification]"),
+        source=spec["source"],
         path=str(p),
         sha256=sha256_file(p),
     )
 
 
 __all__ = [
+    "LAB_PROFILE_TABLES",
+    "LIMIT_TABLE",
+    "SPECIFICATION_TABLE",
     "UNIT_TO_GG",
     "ELEMENT_SYMBOLS",
     "LabProfile",

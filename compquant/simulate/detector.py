@@ -19,44 +19,39 @@ bias and b_p a fixed per-pixel bias pattern, and c_sat the saturation level
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 from compquant.errors import ConfigError
+from compquant.settings import REQUIRED, Setting, Table, settings_dataclass
+
+_POS = {"min": 0, "min_open": True}
+
+#: the detector settings (the detector part of a scenario's ``[instrument]``, docs/scenario.md)
+DETECTOR_TABLE = Table("instrument (detector)", (
+    Setting("photoelectrons_per_radiance", "float", REQUIRED, "sensitivity S at unit relative response",
+            "e- per W m⁻² sr⁻¹", **_POS),
+    Setting("gain_counts_per_pe", "float", 1.0, "gain G", "counts per e-", **_POS),
+    Setting("bias_counts", "float", 500.0, "bias b", "counts", min=0),
+    Setting("bias_pattern_counts", "float", 0.0, "sd of the fixed per-pixel bias pattern", "counts", min=0),
+    Setting("dark_current_pe_per_s", "float", 0.0, "dark current D", "e-/s", min=0),
+    Setting("read_noise_counts", "float", 0.0, "read noise sd", "counts", min=0),
+    Setting("saturation_counts", "float", 65535.0, "saturation level of the 16-bit digitiser", "counts", min=0,
+            max=65535, min_open=True),
+    Setting("exposure_s", "float", 0.01, "exposure t_exp", "s", **_POS),
+), "Detector model of the simulation.", "compquant.simulate.detector")
 
 
-@dataclass(frozen=True)
-class Detector:
-    """Settings of the detector model (units in the field names)."""
-
-    photoelectrons_per_radiance: float
-    gain_counts_per_pe: float = 1.0
-    bias_counts: float = 500.0
-    bias_pattern_counts: float = 0.0
-    dark_current_pe_per_s: float = 0.0
-    read_noise_counts: float = 0.0
-    saturation_counts: float = 65535.0
-    exposure_s: float = 0.01
+class _DetectorModel:
+    """The detector model's methods (fields of :class:`Detector`: :data:`DETECTOR_TABLE`)."""
 
     def __post_init__(self):
-        checks = {
-            "photoelectrons_per_radiance": self.photoelectrons_per_radiance > 0,
-            "gain_counts_per_pe": self.gain_counts_per_pe > 0,
-            "bias_counts": self.bias_counts >= 0,
-            "bias_pattern_counts": self.bias_pattern_counts >= 0,
-            "dark_current_pe_per_s": self.dark_current_pe_per_s >= 0,
-            "read_noise_counts": self.read_noise_counts >= 0,
-            "saturation_counts": 0 < self.saturation_counts <= 65535,
-            "exposure_s": self.exposure_s > 0,
-        }
-        for key, ok in checks.items():
-            if not ok:
-                raise ConfigError(
-                    f"detector setting {key} = {getattr(self, key)!r} is out of range",
-                    where=f"instrument.{key}",
-                    fix="sensitivity, gain and exposure > 0; noise, bias >= 0; saturation in (0, 65535]",
-                )
+        for setting in DETECTOR_TABLE.settings:
+            v = getattr(self, setting.key)
+            try:
+                v = float(v)  # numpy scalars too
+            except (TypeError, ValueError):
+                pass
+            setting.validate(v, f"instrument.{setting.key}", ConfigError)
 
     def bias_pattern(self, n_pixels: int, rng: np.random.Generator) -> np.ndarray:
         """Fixed per-pixel bias offsets (counts), drawn once per instrument."""
@@ -102,4 +97,7 @@ class Detector:
         )
 
 
-__all__ = ["Detector"]
+Detector = settings_dataclass(DETECTOR_TABLE, "Detector", module=__name__, bases=(_DetectorModel,), frozen=True,
+                              doc="Settings of the detector model (units in the field names).")
+
+__all__ = ["DETECTOR_TABLE", "Detector"]
