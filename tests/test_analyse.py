@@ -315,6 +315,23 @@ def test_cli_repeats_identical_outputs(first, work):
         assert (d / "out1" / name).read_bytes() == (d / "out1b" / name).read_bytes(), name
 
 
+def test_same_inputs_from_another_folder_give_the_same_certificate_numbers(first, work, tmp_path):
+    """A certificate number names the result set (inputs by content, results), not where the
+    files were: the same run, method and standards copied elsewhere give the same numbers (the
+    written calibration JSON holds the input paths and is left out of the digest).  Common
+    practice: a re-issue of identical results keeps its number."""
+    import shutil
+
+    d, _ = work
+    for name in ("run1.h5", "method.toml", "stds.csv"):
+        shutil.copy2(d / name, tmp_path / name)
+    again = analyse(tmp_path / "run1.h5", tmp_path / "method.toml", standards=tmp_path / "stds.csv",
+                    lab=DEMO / "lab.toml", spec=DEMO / "spec-HB58-Pb2.toml", outdir=tmp_path / "out",
+                    issued_at=ISSUED)
+    assert sorted(c.number for c in again.certificates) == sorted(c.number for c in first.certificates)
+    assert (tmp_path / "out" / "calibration.json").read_bytes() != (d / "out1" / "calibration.json").read_bytes()
+
+
 def test_saved_calibration_with_drift_on_a_later_run(first, work):
     d, truth = work
     out = analyse(

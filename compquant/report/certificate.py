@@ -118,10 +118,15 @@ def certificate_number(
 
 def result_set_digest(basis: str, files, rows) -> str:
     """SHA-256 (hex) of a result set: basis, ``(role, sha256)`` of every input file, and per
-    result the element, value, U, LOD and flags (repr of the floats, so exact)."""
+    result the element, value, U, LOD and flags (repr of the floats, so exact).
+
+    Files the analysis wrote itself (role ending in ``(written)``, e.g. the calibration JSON of
+    this run) are left out: they are derived from the inputs already counted, and their bytes
+    hold where the inputs were read from, so the same inputs read from another folder give the
+    same digest and the same certificate number."""
     h = hashlib.sha256()
     h.update(f"basis={basis}\n".encode())
-    for f in sorted((str(f.role), str(f.sha256)) for f in files):
+    for f in sorted((str(f.role), str(f.sha256)) for f in files if not str(f.role).endswith("(written)")):
         h.update(f"file={f[0]}:{f[1]}\n".encode())
     for r in rows:
         line = f"{r.element}|{r.mass_fraction!r}|{r.U!r}|{r.lod!r}|{int(r.below_lod)}|{';'.join(r.all_flags())}"
