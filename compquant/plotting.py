@@ -193,6 +193,46 @@ def _mark_samples(ax, samples, label: str) -> None:
         ax.plot([], [], "D", color="#b9770e", label=label)
 
 
+#: label offsets tried in turn (points from the marker): right-above first, then rows below and above
+_LABEL_OFFSETS = [(3, 3), (3, -9), (3, 10), (3, -16), (3, 17), (3, -23), (3, 24)]
+
+
+def place_point_labels(ax, x, y, labels, fontsize: float = 5.5) -> list[str]:
+    """Name points without overlapping labels; returns the names left out.
+
+    Each label is a box of its text's estimated size (``0.55 * fontsize`` points per character,
+    ``1.2 * fontsize`` high) beside its point.  Points are taken in order of their x position and
+    each label takes the first offset of ``_LABEL_OFFSETS`` whose box overlaps no label placed
+    before (greedy first fit, as for the line labels of the review page: ``compquant.web.labels``).
+    A label that fits nowhere is left out rather than printed over another; the figure says how
+    many were left out (their values are in the certificate's calibration table).
+    """
+    x = np.asarray(x, float)
+    y = np.asarray(y, float)
+    ax.autoscale_view()
+    to_px = ax.transData.transform
+    pt = ax.figure.dpi / 72.0  # pixels per point
+    placed: list[tuple[float, float, float, float]] = []
+    left_out: list[str] = []
+    ok = np.isfinite(x) & np.isfinite(y)
+    for i in sorted(np.flatnonzero(ok), key=lambda k: (x[k], y[k])):
+        text = str(labels[i])
+        w, h = 0.55 * fontsize * len(text) * pt, 1.2 * fontsize * pt
+        px, py = to_px((x[i], y[i]))
+        for dx, dy in _LABEL_OFFSETS:
+            box = (px + dx * pt, py + dy * pt, px + dx * pt + w, py + dy * pt + h)
+            if all(box[2] <= b[0] or b[2] <= box[0] or box[3] <= b[1] or b[3] <= box[1] for b in placed):
+                placed.append(box)
+                ax.annotate(text, (x[i], y[i]), xytext=(dx, dy), textcoords="offset points", fontsize=fontsize)
+                break
+        else:
+            left_out.append(text)
+    if left_out:
+        ax.text(0.02, 0.97, f"{len(left_out)} crowded label(s) left out", transform=ax.transAxes, ha="left",
+                va="top", fontsize=5.5, color="0.35")
+    return left_out
+
+
 def calibration_figure(
     x_std,
     y_std,
@@ -236,9 +276,6 @@ def calibration_figure(
     _points(ax, xs, ys, xerr=x_err, yerr=y_err, color="#1f3b73", ecolor="#7f8fa6", label=standards_label)
     if excluded is not None and len(excluded[0]):
         ax.plot(excluded[0], excluded[1], "x", color="#b03a2e", ms=6, label="excluded standards")
-    if labels is not None:
-        for xi, yi, lab in zip(xs, ys, labels):
-            ax.annotate(str(lab), (xi, yi), xytext=(3, 3), textcoords="offset points", fontsize=5.5)
     if fit_x is not None and fit_y is not None:
         ax.plot(np.asarray(fit_x, float), np.asarray(fit_y, float), "-", color="#444444", lw=1, label="fit")
     if sample_x is not None and sample_y is not None:
@@ -248,6 +285,8 @@ def calibration_figure(
         ax.axhline(sy, color="#b03a2e", lw=0.5, ls=":")
         ax.axvline(sx, color="#b03a2e", lw=0.5, ls=":")
     _mark_samples(ax, list(samples), samples_label)
+    if labels is not None:  # last: the label boxes are laid out on the final axis limits
+        place_point_labels(ax, xs, ys, labels)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     if title:

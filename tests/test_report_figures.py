@@ -180,3 +180,31 @@ def test_saha_boltzmann_plot_of_a_result_states_the_temperature_of_its_slope():
     assert np.allclose(yh, [ln["u_ordinate"] for ln in lines])
     texts = " ".join(t.get_text() for t in ax.texts)
     assert f"T = {-1 / (kB * m):.0f} K" in texts and "T = 9000 K" in texts
+
+
+def test_crowded_standard_labels_do_not_overlap():
+    """Standards crowded at the low end of a curve get labels that do not overlap (their drawn
+    text boxes, measured by matplotlib after drawing, are disjoint); one that cannot be placed is
+    left out and counted on the figure.  Common practice: a label printed over another is unreadable."""
+    import numpy as np
+
+    from compquant.plotting import calibration_figure
+
+    x = np.array([0.0005, 0.001, 0.0015, 0.002, 0.0025, 0.025, 0.064, 0.108])
+    y = 20 * x
+    names = [f"HRM-CA-{100 + i}" for i in range(x.size)]
+    fig = calibration_figure(x, y, fit_x=x, fit_y=y, labels=names, x_err=0 * x, y_err=0.01 * y)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    r = canvas.get_renderer()
+    ax = fig.axes[0]
+    texts = [t for t in ax.texts if t.get_text() in names]
+    boxes = [t.get_window_extent(r) for t in texts]
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j]), (texts[i].get_text(), texts[j].get_text())
+    left = [t for t in ax.texts if "left out" in t.get_text()]
+    assert len(texts) + (int(left[0].get_text().split()[0]) if left else 0) == len(names)
+    assert len(texts) >= 5  # the cluster is spread over rows, not dropped

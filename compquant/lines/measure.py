@@ -103,6 +103,8 @@ class LineMeasurement:
     shot_reasons: list[str]
     sample_ids: list[str]
     wavelength: np.ndarray
+    # per sample, the preprocessed mean of ALL its shots from the first pass (shot QC is decided
+    # after it); the mean of the accepted shots alone: mean_spectrum()
     mean_spectra: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     fits: dict = field(default_factory=dict, repr=False)
     references: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=REFERENCE_TABLE_COLUMNS))

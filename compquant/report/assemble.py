@@ -307,7 +307,7 @@ def sample_figures(
             np.asarray(wavelength, float),
             np.asarray(spec, float),
             lines_marked,
-            title="Mean preprocessed spectrum of the accepted shots",
+            title="Mean preprocessed spectrum of all the sample's shots (before shot QC)",
             ylabel="intensity (a.u.)",
         )
         items.append(
