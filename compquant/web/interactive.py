@@ -99,7 +99,8 @@ def spectrum_item(wavelength, intensity, lines) -> dict:
     bottom = min(0.0, min(finite)) if finite else 0.0
     lab = spectrum_labels(lines, wl[0], wl[-1], SPECTRUM_WIDTH_PX, top)
     n_rows = max(lab["row"], default=-1) + 1
-    fig = figure(title="Mean preprocessed spectrum of all the sample's shots (before shot QC), analytical lines dashed", height=420,
+    fig = figure(title="Mean preprocessed spectrum of all the sample's shots (before shot QC), analytical lines dashed",
+                 height=420,
                  sizing_mode="stretch_width", tools="xpan,xwheel_zoom,xbox_zoom,reset,save", name="spectrum",
                  x_axis_label="wavelength (nm)", y_axis_label="intensity (a.u.)",
                  x_range=Range1d(wl[0], wl[-1], name="spectrum-x"),
