@@ -25,6 +25,7 @@ from scipy.special import chdtrc
 
 from compquant.atomic import species_name
 from compquant.cflibs.atomicdata import default_atomic_data
+from compquant.cflibs.capture import window_capture_fraction
 from compquant.cflibs.consistency import plasma_checks
 from compquant.cflibs.electron_density import (
     FixedNe,
@@ -56,6 +57,10 @@ from compquant.plasma.constants import LN_SAHA_PREFACTOR
 class CFWarning(UserWarning):
     """A calibration-free result was produced with a caveat (also stored in the result)."""
 
+
+#: smallest window capture fraction corrected for (a line that much wider than its window is
+#: measured mostly as background; its correction would rest on the assumed widths alone)
+CAPTURE_MIN = 0.3
 
 _INSTR_KEYS = ("instrument_fwhm_nm", "resolution_fwhm_nm", "fwhm_nm", "resolution_nm")
 
@@ -133,7 +138,7 @@ class _Analysis:
     """State of one analysis; methods are the steps."""
 
     def __init__(self, rows, sample_id, settings, atomic, acquisition, instrument, one_point, where,
-                 elements=None, drop=None, basis="energy"):
+                 elements=None, drop=None, basis="energy", windows=None):
         self.s = settings
         self.atomic = atomic
         self.where = where
@@ -150,6 +155,9 @@ class _Analysis:
             self.L.intensity, self.L.u_intensity = self.L.intensity * f, self.L.u_intensity * f
             self.nd.intensity = self.nd.intensity * 500.0 / self.nd.wl
         self.basis = basis
+        self.windows = dict(windows) if windows else None
+        self.ln_capture = np.zeros(self.L.n)  # ln of each line's window capture fraction (§1a)
+        self.dln_capture = np.zeros(self.L.n)  # its change for a +u_rel change of the Stark widths
         self.undetermined: dict[str, list[str]] = {}
         self.rejected: list[dict] = []
         self.upper_limit_checks: list[dict] = []
@@ -267,7 +275,7 @@ class _Analysis:
         lnK = math.log(sol.ne[j]) - ln_e
         return {k: math.exp(v + lnK) for k, v in zip(names, lns)}
 
-    def lorentz_thin(self, T, ne, sa):
+    def lorentz_thin(self, T, ne, sa, lines=None, mass=None, w_instr=None):
         """Thin-line Stark FWHM per line for the absorption profile.
 
         From the line's Stark parameters at nₑ; lines without them get ``[cf]
@@ -277,7 +285,9 @@ class _Analysis:
         broadening by self-absorption) — measured widths of self-absorbed Doppler-dominated
         lines are broadened in a way no Lorentzian explains, so this is off by default.
         """
-        L = self.L
+        L = self.L if lines is None else lines
+        mass_line = self.mass_line if mass is None else mass
+        w_ins = self.w_instr if w_instr is None else w_instr
         wl = np.zeros(L.n)
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
         t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
@@ -289,7 +299,7 @@ class _Analysis:
             return wl
         meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0) & bool(self.s.sa_width_from_measured)
         if np.any(meas):
-            wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
+            wg = np.sqrt(w_ins[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, mass_line[meas]) ** 2)
             wl[meas] = lorentz_from_voigt(L.fwhm[meas], wg) * sa[meas] ** (-EL_SHERBINI_ALPHA)
         return wl
 
@@ -355,7 +365,7 @@ class _Analysis:
                                    fix="use weaker lines or a shorter plasma length")
         gone = set(self.L.element) - set(self.L.element[keep])
         self.L = self.L.subset(keep)
-        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa"):
+        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa", "ln_capture", "dln_capture"):
             setattr(self, name, getattr(self, name)[keep])
         self.model = Model(self.L, self.atomic, self.s)
         for e in sorted(gone):
@@ -614,6 +624,8 @@ class _Analysis:
             return self.choose_ne(cands)
 
         self._T_guess = s.t_start_k
+        if self.windows:
+            self.apply_window_capture(ne_pick)
         # first pass without self-absorption correction
         ne_name, ne_est = ne_pick(None)
         try:
@@ -652,6 +664,52 @@ class _Analysis:
         self.ne_name, self.ne_est = ne_name, ne_est
         self.tau = tau
         return sol
+
+    def _capture_ln(self, L, T, ne, mass, w_instr, stark_scale=1.0):
+        """ln f of each line of ``L`` (:func:`compquant.cflibs.capture.window_capture_fraction`):
+        Gaussian part √(instrument² + Doppler²), Lorentzian part the thin-line Stark FWHM at nₑ
+        (line-list parameters, else ``stark_fallback_fwhm_nm``) times ``stark_scale``; 0 for
+        lines without a window (fitted profiles measure the whole area)."""
+        out = np.zeros(L.n)
+        geo = np.array([self.windows.get(str(x), (np.nan, np.nan, np.nan)) for x in L.line_id], float).reshape(-1, 3)
+        have = np.all(np.isfinite(geo), axis=1) & (geo[:, 0] > 0)
+        if not np.any(have):
+            return out
+        wg = np.sqrt(w_instr**2 + doppler_fwhm_nm(L.wl, T, mass) ** 2)
+        wlz = self.lorentz_thin(T, ne, np.ones(L.n), lines=L, mass=mass, w_instr=w_instr) * stark_scale
+        ok = have & ((wg > 0) | (wlz > 0))
+        f = window_capture_fraction(geo[ok, 0], geo[ok, 1], geo[ok, 2], wg[ok], wlz[ok])
+        out[ok] = np.log(np.clip(f, CAPTURE_MIN, 1.0))
+        return out
+
+    def apply_window_capture(self, ne_pick):
+        """Divide every window-integrated intensity by its capture fraction f (§1a).
+
+        A fixed window with side-band background keeps a fraction f of a line's area that
+        depends on the line's width (instrument λ/R, Doppler, Stark), so lines of one plot are
+        measured with different f; uncorrected, this tilts the Boltzmann plot.  f is taken at
+        the plasma of a first, uncorrected solution (it changes slowly with T and nₑ) and the
+        non-detection limits are scaled alike.  The relative u of the intensities is unchanged;
+        the Stark widths' own uncertainty (``stark_param_u_rel``) enters the Monte Carlo as one
+        common relative change per draw (``dln_capture``).
+        """
+        try:
+            ne_name, ne_est = ne_pick(None)
+            sol = self.solve_central(self.sa, ne_name, ne_est)
+        except PhysicsError:
+            return  # no first solution: the analysis reports why further on
+        T, ne = float(sol.T[0]), float(sol.ne[0])
+        L = self.L
+        self.ln_capture = self._capture_ln(L, T, ne, self.mass_line, self.w_instr)
+        u_st = float(self.s.stark_param_u_rel)
+        self.dln_capture = self._capture_ln(L, T, ne, self.mass_line, self.w_instr, 1.0 + u_st) - self.ln_capture
+        f = np.exp(-self.ln_capture)
+        L.intensity, L.u_intensity = L.intensity * f, L.u_intensity * f
+        nd = self.nd
+        if nd.n:
+            m_nd = np.array([self.atomic.mass_u(e) for e in nd.element])
+            nd.intensity = nd.intensity * np.exp(-self._capture_ln(nd, T, ne, m_nd, self.w_instr_fn(nd.wl)))
+        self._T_warm = None
 
     def fit_length(self, ne_pick, coarse: bool = False):
         """Columnar density fit: plasma length L minimising the fit's χ² (Cristoforetti &
@@ -818,6 +876,10 @@ class _Analysis:
             ln_i = ln_i + self.s.response_u_rel * (e[:, :1] + e[:, 1:2] * t[None, :]) / math.sqrt(2.0)
         if extra:
             ln_i = ln_i + extra * self.u_y[None, :] * rng.standard_normal((n, L.n))
+        if np.any(self.dln_capture):
+            # window capture fractions (§1a): the assumed Stark widths within stark_param_u_rel,
+            # one relative change per draw shared by every line
+            ln_i = ln_i - rng.standard_normal((n, 1)) * self.dln_capture[None, :]
         ne_f = None if self.ne_est is None else self.ne_est.sampler(rng, n)
         if self.s.mc_partition_u_rel:
             self.model.ln_u_shift = {sp: self.s.mc_partition_u_rel * rng.standard_normal(n)
@@ -1069,6 +1131,7 @@ class _Analysis:
                 "sa_factor": float(self.sa[i]), "correction_factor": float(1.0 / self.sa[i]),
                 "one_point_factor": float(math.exp(self.ln_zeta[i])),
                 "tau0": None if self.tau is None else float(self.tau[i]),
+                "window_fraction": float(math.exp(self.ln_capture[i])),
                 "sa_cog": float(det["sa_cog"][i]), "sa_ratio": float(det["sa_ratio"][i]),
                 "u_sa_ratio": float(det["u_sa_ratio"][i]), "sa_width": float(det["sa_width"][i]),
                 "u_sa_width": float(det["u_sa_width"][i]), "reference_line": det["ref_line"][i],
@@ -1161,6 +1224,7 @@ def analyse_cf(
     seed: int | None = None,
     where: str | None = None,
     intensity_basis: str | None = None,
+    windows: dict | None = None,
 ) -> CFResult:
     """Calibration-free composition of one sample.
 
@@ -1180,6 +1244,10 @@ def analyse_cf(
     intensity_basis : ``"energy"`` or ``"photon"``: the basis of the run's response curve (run
         attribute ``response_basis``); ``[cf] response_basis`` overrides it; ``"unknown"`` is
         refused.  Photon-basis intensities are converted to energy (× hc/λ).
+    windows : ``line_id → (window_nm, side_nm, gap_nm)`` of the window-integrated lines
+        (:func:`compquant.cflibs.capture.method_windows`); each such line is divided by the
+        fraction of its area the window measures (docs/calibration-free.md §1a).  Without it
+        the intensities are taken as whole line areas.
     """
     s = CFSettings.from_section(settings) if not isinstance(settings, CFSettings) else settings
     sid, rows = _select_sample(line_table, sample_id, where or "line table")
@@ -1191,7 +1259,9 @@ def analyse_cf(
 
         s = dataclasses.replace(s, self_absorption="detect")
     basis = _intensity_basis(s, intensity_basis, where)
-    a = _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis)
+    if one_point is not None:
+        windows = None  # the one-point factors already carry each line's window capture fraction
+    a = _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows)
     if double:
         a._warn("one-point calibration applied: self-absorption correction switched to detection only "
                 "(the factors already carry the standard's self-absorption)")
@@ -1228,7 +1298,7 @@ def _intensity_basis(s, given, where) -> str:
     return basis
 
 
-def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis):
+def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows=None):
     """Solve, apply the robust-closure rules, re-solve until nothing changes (≤ 12 rounds)."""
     drop: dict[str, str] = {}
     undetermined: dict[str, list[str]] = {}
@@ -1238,7 +1308,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     elements = s.elements_for(sid)
     for _ in range(12):
         a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where,
-                      elements=elements, drop=drop, basis=basis)
+                      elements=elements, drop=drop, basis=basis, windows=windows)
         few = too_few_lines(a.L, s)
         a.solve()
         line_drops, el_drops = a.screen()

@@ -63,6 +63,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
 
     refuse_overwriting_inputs([output, plots_dir], [run_path, method_path])
     from compquant.cflibs import CFSettings, analyse_cf, one_point_calibration, results_table, run_intensity_basis
+    from compquant.cflibs.capture import method_windows
     from compquant.cflibs.plots import plot_boltzmann, plot_saha_boltzmann
     from compquant.errors import CompquantError
     from compquant.lines import measure_run
@@ -82,6 +83,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         run_sha = run.sha256()
         basis = run_intensity_basis(method, run)
     table = lm.table
+    windows = method_windows(method, lm.wavelength)  # window capture fractions (docs/calibration-free.md §1a)
     known = list(dict.fromkeys(table["sample_id"].astype(str)))
     if samples:
         ids = [s.strip() for s in samples.split(",") if s.strip()]
@@ -114,7 +116,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                     warnings.simplefilter("ignore")
                     results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
                                               instrument=instrument, one_point=one_point, mc_draws=draws,
-                                              seed=seed, intensity_basis=basis))
+                                              seed=seed, intensity_basis=basis, windows=windows))
             except CompquantError as exc:
                 failures[sid] = exc.one_line()
             bar.update(1)
