@@ -91,3 +91,40 @@ def test_window_capture_correction_removes_the_boltzmann_plot_tilt():
         assert fixed.element(e).mass_fraction == pytest.approx(w, rel=0.01)
     fr = {x["line_id"]: x["window_fraction"] for x in fixed.lines}
     assert 0.5 < min(fr.values()) < max(fr.values()) < 1.0
+
+
+# ------------------------------------------------------------------ Paule–Mandel weighting
+def test_paule_mandel_scatter_matches_statsmodels_meta_analysis():
+    # reference: statsmodels' random-effects combination with the Paule–Mandel τ² (method_re="pm")
+    from statsmodels.stats.meta_analysis import combine_effects
+
+    from compquant.cflibs.fitting import paule_mandel_scatter
+
+    y = np.array([1.02, 0.95, 1.10, 0.88, 1.05, 0.97, 1.20])
+    u = np.array([0.01, 0.03, 0.02, 0.05, 0.01, 0.04, 0.06])
+    ref = combine_effects(y, u**2, method_re="pm")
+    s = paule_mandel_scatter(np.ones((y.size, 1)), y, u, rounds=6)
+    assert s**2 == pytest.approx(ref.tau2, rel=1e-3)
+    # consistent data need no extra scatter
+    assert paule_mandel_scatter(np.ones((3, 1)), np.array([1.0, 1.001, 0.999]), np.full(3, 0.01)) == 0.0
+
+
+def test_scatter_beyond_the_stated_u_is_measured_and_carried_into_U():
+    # every line moved by 10 % (log-normal) of unstated interference while its stated u is 1 %:
+    # the Paule–Mandel s of the fit recovers about 0.1 in ln I, the flag says the lines disagree
+    # with their u, and U = 2u (GUM, k = 2) still covers T and the composition
+    T, ne = 10000.0, 8e16
+    lt = cf_hand.line_table(W_TRUE, T, ne, rel_u=0.01)
+    lt["aki_grade"] = "A"
+    rng = np.random.default_rng(3)
+    lt["intensity"] *= np.exp(0.1 * rng.standard_normal(len(lt)))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = analyse_cf(lt, atomic=cf_hand.atomic(), settings={"mc_draws": 200, "outlier_sigma": 100.0},
+                       instrument={"instrument_fwhm_nm": 0.05})
+    assert 0.05 < r.fit["model_scatter_ln"] < 0.2
+    assert r.fit["birge_ratio"] == pytest.approx(1.0, abs=0.05)  # weights consistent with the scatter
+    assert "cf_fit_poor" in r.flags  # judged against the stated u: the disagreement is still said
+    assert abs(r.temperature_k - T) <= 2 * r.u_temperature_k
+    for e, w in W_TRUE.items():
+        assert abs(r.element(e).mass_fraction - w) <= 2 * r.element(e).u
