@@ -128,3 +128,27 @@ def test_scatter_beyond_the_stated_u_is_measured_and_carried_into_U():
     assert abs(r.temperature_k - T) <= 2 * r.u_temperature_k
     for e, w in W_TRUE.items():
         assert abs(r.element(e).mass_fraction - w) <= 2 * r.element(e).u
+
+
+# ------------------------------------------------------------------ McWhirter and the Saha nₑ
+def test_saha_balance_ne_below_mcwhirter_is_refused():
+    # nₑ = 1e15 cm⁻³ at 11 000 K, largest ΔE = E_k − E_i = 5.349 eV (Ni II 231.604): McWhirter
+    # (1965, as in Cristoforetti et al. 2010 eq. 3) asks for 1.6e12·√11000·5.349³ ≈ 2.57e16 cm⁻³
+    # (hand calculation); the Saha balance, which assumes LTE, finds 1e15 exactly, 26× below (more than the factor 2 allowed for an
+    # order-of-magnitude criterion): a self-contradicting solution, so nothing is certified
+    T, ne = 11000.0, 1e15
+    lt = cf_hand.line_table(W_TRUE, T, ne)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = analyse_cf(lt, atomic=cf_hand.atomic(), settings={"mc_draws": 0})
+    assert r.ne_method == "saha_balance" and r.electron_density_cm3 == pytest.approx(ne, rel=1e-5)
+    assert not r.plasma_consistent
+    mw = next(c for c in r.plasma_checks if c["check"] == "lte_mcwhirter")
+    assert mw["checked"] and not mw["passed"] and mw["limit"] == pytest.approx(
+        1.6e12 * math.sqrt(T) * max(ek - ei for *_, ek, ei, _ga, _g in cf_hand.LINES) ** 3 / 2, rel=1e-6)
+    assert all(not r.element(e).determined for e in W_TRUE)
+    # at 1e17 cm⁻³ the same lines pass the bound and are certified
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ok = analyse_cf(cf_hand.line_table(W_TRUE, T, 1e17), atomic=cf_hand.atomic(), settings={"mc_draws": 0})
+    assert ok.plasma_consistent
