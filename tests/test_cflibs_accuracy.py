@@ -135,7 +135,8 @@ def test_saha_balance_ne_below_mcwhirter_is_refused():
     # nₑ = 1e15 cm⁻³ at 11 000 K, largest ΔE = E_k − E_i = 5.349 eV (Ni II 231.604): McWhirter
     # (1965, as in Cristoforetti et al. 2010 eq. 3) asks for 1.6e12·√11000·5.349³ ≈ 2.57e16 cm⁻³
     # (hand calculation); the Saha balance, which assumes LTE, finds 1e15 exactly, 26× below
-    # (more than the factor 2 allowed for an order-of-magnitude criterion): a self-contradicting solution, so nothing is certified
+    # (more than the factor 2 allowed for an order-of-magnitude criterion): a self-contradicting
+    # solution, so nothing is certified
     T, ne = 11000.0, 1e15
     lt = cf_hand.line_table(W_TRUE, T, ne)
     with warnings.catch_warnings():
