@@ -185,7 +185,8 @@ def analyse_family(family, regime, cases, *, rng, draws, seed, workdir, length_m
     make_run(run_path, family, cases, self_absorption=thick, length_mm=length_mm, rng=rng)
     method = method_from_dict(tomllib.loads(method_toml(LINES[family], cf)), source=f"{family}-method")
     with Run.open(run_path) as run:
-        table = measure_run(run, method).table
+        lm = measure_run(run, method)
+        table = lm.table
         acq, ins = dict(run.acquisition), dict(run.instrument)
         windows = method_windows(method, run.wavelength)
     out = []
@@ -194,7 +195,8 @@ def analyse_family(family, regime, cases, *, rng, draws, seed, workdir, length_m
             warnings.simplefilter("ignore")
             try:
                 r = analyse_cf(table, sample_id=c["sample_id"], settings=method.sections["cf"],
-                               acquisition=acq, instrument=ins, mc_draws=draws, windows=windows)
+                               acquisition=acq, instrument=ins, mc_draws=draws, windows=windows,
+                               measurement=lm)
             except CompquantError as exc:
                 out.append({"case": c, "result": None, "why": exc.one_line()})
                 continue

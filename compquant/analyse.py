@@ -335,7 +335,8 @@ def analyse(
         from compquant.cflibs.capture import method_windows
 
         qd = _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acquisition, instrument, files,
-                          tick, intensity_basis, windows=method_windows(method, meas.wavelength))
+                          tick, intensity_basis, windows=method_windows(method, meas.wavelength),
+                          measurement=meas)
     else:
         qd = _quantify_calibration(meas, samples, method, standards, calibration, run_path, run_sha, issued, outdir,
                                    files, deviations, parameters, check_samples, tick)
@@ -516,7 +517,7 @@ class _Quant:
 
 
 def _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acquisition, instrument, files,
-                 tick, intensity_basis=None, windows=None) -> _Quant:
+                 tick, intensity_basis=None, windows=None, measurement=None) -> _Quant:
     """Calibration-free analysis of the unknowns, and of the check samples the [cf] standards certify.
 
     ``intensity_basis``: the basis of the run's response-corrected intensities
@@ -539,6 +540,7 @@ def _quantify_cf(table, unknowns, check_samples, refs, cf_settings, method, acqu
         one_point=one_point,
         intensity_basis=intensity_basis,
         windows=windows,
+        measurement=measurement,
         progress=lambda done, total: tick("quantify", done, total),  # per sample: the slow step
     )
     qd.results = results_table(cf_results)

@@ -153,3 +153,33 @@ def test_saha_balance_ne_below_mcwhirter_is_refused():
         warnings.simplefilter("ignore")
         ok = analyse_cf(cf_hand.line_table(W_TRUE, T, 1e17), atomic=cf_hand.atomic(), settings={"mc_draws": 0})
     assert ok.plasma_consistent
+
+
+# ------------------------------------------------------------------ correlated shot draws
+def test_shot_correlation_of_line_means_enters_u_of_T():
+    # 24 shots of one plasma whose T jitters by 3 % from shot to shot: every line of a shot moves
+    # with that shot's T, so the line means are correlated.  Reference: the standard error of the
+    # mean of the 24 per-shot temperatures, s/√n (textbook; each shot analysed alone, exact data).
+    from types import SimpleNamespace
+
+    rng = np.random.default_rng(11)
+    n = 24
+    Ts = 10000.0 * (1 + 0.03 * rng.standard_normal(n))
+    tabs = [cf_hand.line_table(W_TRUE, t, 8e16) for t in Ts]
+    M = np.array([t["intensity"].to_numpy() for t in tabs])
+    lt = tabs[0].copy()
+    lt["intensity"] = M.mean(axis=0)
+    lt["u_intensity"] = M.std(axis=0, ddof=1) / math.sqrt(n)
+    meas = SimpleNamespace(sample_ids=["S1"], shot_sample=np.zeros(n, int), shot_accepted=np.ones(n, bool),
+                           line_ids=list(lt["line_id"]), shot_intensity=M)
+    settings = {"mc_draws": 400, "mc_include_aki": False, "mc_partition_u_rel": 0.0, "u_rel_floor": 1e-6,
+                "ne_method": "fixed", "ne_fixed_cm3": 8e16, "ne_fixed_u_rel": 1e-6}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        per_shot = [analyse_cf(t, atomic=cf_hand.atomic(), settings={**settings, "mc_draws": 0}).temperature_k
+                    for t in tabs]
+        corr = analyse_cf(lt, atomic=cf_hand.atomic(), settings=settings, measurement=meas)
+        ind = analyse_cf(lt, atomic=cf_hand.atomic(), settings=settings)
+    ref = np.std(per_shot, ddof=1) / math.sqrt(n)
+    assert corr.u_temperature_k == pytest.approx(ref, rel=0.2)
+    assert ind.u_temperature_k < 0.7 * ref  # independent draws miss most of it

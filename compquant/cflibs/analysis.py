@@ -138,7 +138,7 @@ class _Analysis:
     """State of one analysis; methods are the steps."""
 
     def __init__(self, rows, sample_id, settings, atomic, acquisition, instrument, one_point, where,
-                 elements=None, drop=None, basis="energy", windows=None):
+                 elements=None, drop=None, basis="energy", windows=None, measurement=None):
         self.s = settings
         self.atomic = atomic
         self.where = where
@@ -171,6 +171,7 @@ class _Analysis:
         self.u_y = np.maximum(self.u_y, settings.u_rel_floor)
         self.w = 1.0 / self.u_y**2
         self.u_model = 0.0  # Paule–Mandel scatter of the ordinates beyond their u (§2)
+        self.shot_dev = _shot_deviations(measurement, sample_id, self.L.line_id)
         self.model = Model(L, atomic, settings)
         self.mass_line = np.array([atomic.mass_u(e) for e in L.element])
         self.sa = np.ones(L.n)
@@ -368,6 +369,8 @@ class _Analysis:
         self.L = self.L.subset(keep)
         for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa", "ln_capture", "dln_capture"):
             setattr(self, name, getattr(self, name)[keep])
+        if self.shot_dev is not None:
+            self.shot_dev = self.shot_dev[:, keep]
         self.model = Model(self.L, self.atomic, self.s)
         for e in sorted(gone):
             self._warn(f"element {e}: no line left after removing lines ({reason})")
@@ -713,7 +716,8 @@ class _Analysis:
         A fixed window with side-band background keeps a fraction f of a line's area that
         depends on the line's width (instrument λ/R, Doppler, Stark), so lines of one plot are
         measured with different f; uncorrected, this tilts the Boltzmann plot.  f is taken at
-        the plasma of a first, uncorrected solution (it changes slowly with T and nₑ) and the
+        the plasma of a first, uncorrected solution (it changes slowly with T and nₑ; without
+        one, at ``t_start_k`` and ``stark_fallback_ne_cm3``) and the
         non-detection limits are scaled alike.  The relative u of the intensities is unchanged;
         the Stark widths' own uncertainty (``stark_param_u_rel``) enters the Monte Carlo as one
         common relative change per draw (``dln_capture``).
@@ -721,9 +725,11 @@ class _Analysis:
         try:
             ne_name, ne_est = ne_pick(None)
             sol = self.solve_central(self.sa, ne_name, ne_est)
+            T, ne = float(sol.T[0]), float(sol.ne[0])
         except PhysicsError:
-            return  # no first solution: the analysis reports why further on
-        T, ne = float(sol.T[0]), float(sol.ne[0])
+            # no uncorrected solution (strong self-absorption): f at the start temperature and the
+            # assumed widths' reference density (f changes slowly with both)
+            T, ne = float(self.s.t_start_k), float(self.s.stark_fallback_ne_cm3)
         L = self.L
         self.ln_capture = self._capture_ln(L, T, ne, self.mass_line, self.w_instr)
         u_st = float(self.s.stark_param_u_rel)
@@ -877,7 +883,19 @@ class _Analysis:
         L = self.L
         rng = np.random.default_rng(seed)
         eps = rng.standard_normal((n, L.n))
-        I_d = L.intensity[None, :] + L.u_intensity[None, :] * eps
+        if self.shot_dev is None:
+            I_d = L.intensity[None, :] + L.u_intensity[None, :] * eps
+        else:
+            # the line means of one set of shots share every shot's plasma (T, nₑ, ablated mass):
+            # draw them from the shots' own covariance / n_shots (GUM 5.2 and C.3.4, correlation of
+            # input estimates from simultaneous observations; JCGM 102:2011 §6.4.3), the part of
+            # u_I not explained by the shot scatter independently
+            D = self.shot_dev
+            k = D.shape[0]
+            rel = rng.standard_normal((n, k)) @ D / math.sqrt(k * (k - 1.0))
+            u_shot = L.intensity * np.sqrt(np.sum(D**2, axis=0) / (k * (k - 1.0)))
+            u_rest = np.sqrt(np.maximum(L.u_intensity**2 - u_shot**2, 0.0))
+            I_d = L.intensity[None, :] * (1.0 + rel) + u_rest[None, :] * eps
         I_d = np.maximum(I_d, 1e-3 * L.intensity[None, :])
         dln_a = L.u_ln_a[None, :] * rng.standard_normal((n, L.n))
         if not self.s.mc_include_aki:
@@ -1257,6 +1275,7 @@ def analyse_cf(
     where: str | None = None,
     intensity_basis: str | None = None,
     windows: dict | None = None,
+    measurement=None,
 ) -> CFResult:
     """Calibration-free composition of one sample.
 
@@ -1280,6 +1299,9 @@ def analyse_cf(
         (:func:`compquant.cflibs.capture.method_windows`); each such line is divided by the
         fraction of its area the window measures (docs/calibration-free.md §1a).  Without it
         the intensities are taken as whole line areas.
+    measurement : the :class:`~compquant.lines.LineMeasurement` the line table came from; its
+        per-shot intensities give the Monte Carlo the correlation of the line means (every line
+        of a shot sees the same plasma; §8).  Without it the line means are drawn independently.
     """
     s = CFSettings.from_section(settings) if not isinstance(settings, CFSettings) else settings
     sid, rows = _select_sample(line_table, sample_id, where or "line table")
@@ -1293,11 +1315,42 @@ def analyse_cf(
     basis = _intensity_basis(s, intensity_basis, where)
     if one_point is not None:
         windows = None  # the one-point factors already carry each line's window capture fraction
-    a = _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows)
+    a = _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows,
+                         measurement)
     if double:
         a._warn("one-point calibration applied: self-absorption correction switched to detection only "
                 "(the factors already carry the standard's self-absorption)")
     return a.build(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
+
+
+def _shot_deviations(measurement, sample_id, line_ids) -> np.ndarray | None:
+    """Relative deviations I_k/Ī − 1 of the accepted shots of one sample, (n_shots, n_lines) in the
+    order of ``line_ids`` (0 for a line the measurement lacks or a shot without a value); ``None``
+    without a measurement or with fewer than 3 shots."""
+    if measurement is None:
+        return None
+    try:
+        s_idx = list(map(str, measurement.sample_ids)).index(str(sample_id))
+    except ValueError:
+        return None
+    rows = (np.asarray(measurement.shot_sample) == s_idx) & np.asarray(measurement.shot_accepted, bool)
+    if rows.sum() < 3:
+        return None
+    col = {str(x): j for j, x in enumerate(measurement.line_ids)}
+    M = np.asarray(measurement.shot_intensity)[rows]
+    out = np.zeros((M.shape[0], len(line_ids)))
+    for i, lid in enumerate(line_ids):
+        j = col.get(str(lid))
+        if j is None:
+            continue
+        v = M[:, j]
+        ok = np.isfinite(v)
+        if ok.sum() < 3 or not np.all(ok):
+            continue  # incomplete shots: independent draws for this line
+        mean = float(np.mean(v))
+        if mean > 0:
+            out[:, i] = v / mean - 1.0
+    return out
 
 
 def _missing_share_bound(e, w_est, checks, s) -> float:
@@ -1330,7 +1383,8 @@ def _intensity_basis(s, given, where) -> str:
     return basis
 
 
-def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows=None):
+def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows=None,
+                     measurement=None):
     """Solve, apply the robust-closure rules, re-solve until nothing changes (≤ 12 rounds)."""
     drop: dict[str, str] = {}
     undetermined: dict[str, list[str]] = {}
@@ -1340,7 +1394,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     elements = s.elements_for(sid)
     for _ in range(12):
         a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where,
-                      elements=elements, drop=drop, basis=basis, windows=windows)
+                      elements=elements, drop=drop, basis=basis, windows=windows, measurement=measurement)
         few = too_few_lines(a.L, s)
         a.solve()
         line_drops, el_drops = a.screen()

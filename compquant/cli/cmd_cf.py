@@ -116,7 +116,8 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
                     warnings.simplefilter("ignore")
                     results.append(analyse_cf(table, sample_id=sid, settings=settings, acquisition=acquisition,
                                               instrument=instrument, one_point=one_point, mc_draws=draws,
-                                              seed=seed, intensity_basis=basis, windows=windows))
+                                              seed=seed, intensity_basis=basis, windows=windows,
+                                              measurement=lm))
             except CompquantError as exc:
                 failures[sid] = exc.one_line()
             bar.update(1)
