@@ -716,20 +716,24 @@ class _Analysis:
         A fixed window with side-band background keeps a fraction f of a line's area that
         depends on the line's width (instrument λ/R, Doppler, Stark), so lines of one plot are
         measured with different f; uncorrected, this tilts the Boltzmann plot.  f is taken at
-        the plasma of a first, uncorrected solution (it changes slowly with T and nₑ; without
-        one, at ``t_start_k`` and ``stark_fallback_ne_cm3``) and the
+        the plasma of a first, uncorrected solution (it changes slowly with T and nₑ); in the
+        self-absorption fits, and without such a solution, at ``t_start_k`` and
+        ``stark_fallback_ne_cm3`` (an uncorrected fit of thick lines can be a hot, dense false
+        solution whose Stark widths would swamp every window); the
         non-detection limits are scaled alike.  The relative u of the intensities is unchanged;
         the Stark widths' own uncertainty (``stark_param_u_rel``) enters the Monte Carlo as one
         common relative change per draw (``dln_capture``).
         """
-        try:
-            ne_name, ne_est = ne_pick(None)
-            sol = self.solve_central(self.sa, ne_name, ne_est)
-            T, ne = float(sol.T[0]), float(sol.ne[0])
-        except PhysicsError:
-            # no uncorrected solution (strong self-absorption): f at the start temperature and the
-            # assumed widths' reference density (f changes slowly with both)
-            T, ne = float(self.s.t_start_k), float(self.s.stark_fallback_ne_cm3)
+        T, ne = float(self.s.t_start_k), float(self.s.stark_fallback_ne_cm3)
+        if self.s.self_absorption not in ("curve_of_growth", "columnar"):
+            # the self-absorption fits keep the start plasma: their uncorrected first solution can be
+            # a hot, dense false one whose Stark widths would swamp every window
+            try:
+                ne_name, ne_est = ne_pick(None)
+                sol = self.solve_central(self.sa, ne_name, ne_est)
+                T, ne = float(sol.T[0]), float(sol.ne[0])
+            except PhysicsError:
+                pass
         L = self.L
         self.ln_capture = self._capture_ln(L, T, ne, self.mass_line, self.w_instr)
         u_st = float(self.s.stark_param_u_rel)
