@@ -33,6 +33,7 @@ Run:  /work/venv/bin/python benchmarks/accuracy_families.py [--cases 3] [--seed 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import tempfile
 import time
@@ -319,6 +320,8 @@ def main(argv=None):
                                      workdir=Path(tmp), length_mm=args.length_mm)
                 scores[(family, regime)] = score(out, target)
     print_tables(scores)
+    print(f"\n{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}; load average (1, 5, 15 min) at the end: "
+          + ", ".join(f"{x:.1f}" for x in os.getloadavg()) + f" on {os.cpu_count()} CPUs")
     return 0
 
 
