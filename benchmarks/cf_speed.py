@@ -38,6 +38,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from compquant.cflibs import CFSettings, analyse_cf, run_intensity_basis, selfabs  # noqa: E402
 from compquant.cflibs.atomicdata import PackageAtomicData, default_atomic_data  # noqa: E402
+from compquant.cflibs.capture import method_windows  # noqa: E402
 from compquant.cflibs.solver import Model  # noqa: E402
 from compquant.lines import measure_run  # noqa: E402
 from compquant.method import load_method  # noqa: E402
@@ -53,13 +54,13 @@ def _memos(on: bool) -> None:
     Model.LN_U_MEMO = 16 if on else 0
 
 
-def _analyse_all(table, ids, settings, acq, instr, basis):
+def _analyse_all(table, ids, settings, acq, instr, basis, windows=None):
     out = []
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for sid in ids:
             r = analyse_cf(table, sample_id=sid, settings=settings, acquisition=acq, instrument=instr,
-                           intensity_basis=basis)
+                           intensity_basis=basis, windows=windows)
             out.append(r.to_dict())
     return out
 
@@ -90,6 +91,7 @@ def main(argv=None) -> int:
         roles = dict(zip(run.samples["sample_id"].astype(str), run.samples["role"].astype(str)))
         acq, instr = dict(run.acquisition or {}), dict(run.instrument or {})
         basis = run_intensity_basis(method, run)
+        windows = method_windows(method, run.wavelength)  # as `compquant cf` does
     ids = [s for s in dict.fromkeys(table["sample_id"].astype(str)) if roles.get(s) in ("unknown", "check")]
     print(f"{Path(a.run).name}: {len(ids)} samples, load average {os.getloadavg()[0]:.1f}")
     cpu, docs = {}, {}
@@ -98,7 +100,7 @@ def main(argv=None) -> int:
         for _ in range(a.repeat):
             _memos(on)
             t0 = time.process_time()
-            docs[name] = _analyse_all(table, ids, settings, acq, instr, basis)
+            docs[name] = _analyse_all(table, ids, settings, acq, instr, basis, windows)
             best = min(best, time.process_time() - t0)
         cpu[name] = best / len(ids)
         print(f"({name:4s}) {cpu[name]:.3f} s CPU per sample   load average {os.getloadavg()[0]:.1f}")

@@ -112,6 +112,7 @@ def make_run(path, cases, *, self_absorption, length_mm, rng, shots=10, resolvin
 
 def run_regime(name, cases, *, self_absorption, length_mm, cf, rng, draws, workdir):
     from compquant.cflibs import analyse_cf
+    from compquant.cflibs.capture import method_windows
     from compquant.errors import CompquantError
     from compquant.fileio import tomllib
     from compquant.lines import measure_run
@@ -126,6 +127,7 @@ def run_regime(name, cases, *, self_absorption, length_mm, cf, rng, draws, workd
     with Run.open(run_path) as run:
         table = measure_run(run, method).table
         acq, ins = dict(run.acquisition), dict(run.instrument)
+        windows = method_windows(method, run.wavelength)  # as `compquant cf` does
     t2 = time.perf_counter()
     rows = []
     for c in cases:
@@ -134,7 +136,7 @@ def run_regime(name, cases, *, self_absorption, length_mm, cf, rng, draws, workd
             ts = time.perf_counter()
             try:
                 r = analyse_cf(table, sample_id=c["sample_id"], settings=method.sections["cf"],
-                               acquisition=acq, instrument=ins, mc_draws=draws)
+                               acquisition=acq, instrument=ins, mc_draws=draws, windows=windows)
             except CompquantError as exc:
                 print(f"  {c['sample_id']}: NO RESULT: {exc.one_line()}")
                 continue

@@ -228,8 +228,12 @@ def test_failed_lte_flags_every_result():
     # nₑ = 1e15 cm⁻³ at 11 000 K with ΔE ≈ 4.8 eV fails McWhirter (hand: 1.6e12·104.9·4.77³ ≈ 1.8e16)
     T, ne = 11000.0, 1e15
     lt = cf_hand.line_table(W_TRUE, T, ne)
-    r = quiet(line_table=lt, atomic=cf_hand.atomic(), settings={"mc_draws": 0})
+    # nₑ given (fixed, as a Stark-width measurement would give it): the failure is a flag on every
+    # row; a Saha-balance nₑ below the bound is refused (test_cflibs_accuracy.py)
+    r = quiet(line_table=lt, atomic=cf_hand.atomic(),
+              settings={"mc_draws": 0, "ne_method": "fixed", "ne_fixed_cm3": ne})
     assert "lte_mcwhirter_failed" in r.flags
+    assert r.plasma_consistent
     tab = r.results_table()
     assert len(tab) == 3 and all("lte_mcwhirter_failed" in f.split(";") for f in tab["flags"])
 

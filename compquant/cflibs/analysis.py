@@ -25,6 +25,7 @@ from scipy.special import chdtrc
 
 from compquant.atomic import species_name
 from compquant.cflibs.atomicdata import default_atomic_data
+from compquant.cflibs.capture import window_capture_fraction
 from compquant.cflibs.consistency import plasma_checks
 from compquant.cflibs.electron_density import (
     FixedNe,
@@ -34,7 +35,7 @@ from compquant.cflibs.electron_density import (
     lorentz_from_voigt,
     stark_width_linear,
 )
-from compquant.cflibs.fitting import wls_batch
+from compquant.cflibs.fitting import paule_mandel_scatter, wls_batch
 from compquant.cflibs.lineset import LineSet, prepare_lines
 from compquant.cflibs.lte import check_lte
 from compquant.cflibs.result import CFResult, ElementResult
@@ -56,6 +57,10 @@ from compquant.plasma.constants import LN_SAHA_PREFACTOR
 class CFWarning(UserWarning):
     """A calibration-free result was produced with a caveat (also stored in the result)."""
 
+
+#: smallest window capture fraction corrected for (a line that much wider than its window is
+#: measured mostly as background; its correction would rest on the assumed widths alone)
+CAPTURE_MIN = 0.3
 
 _INSTR_KEYS = ("instrument_fwhm_nm", "resolution_fwhm_nm", "fwhm_nm", "resolution_nm")
 
@@ -133,7 +138,7 @@ class _Analysis:
     """State of one analysis; methods are the steps."""
 
     def __init__(self, rows, sample_id, settings, atomic, acquisition, instrument, one_point, where,
-                 elements=None, drop=None, basis="energy"):
+                 elements=None, drop=None, basis="energy", windows=None, measurement=None):
         self.s = settings
         self.atomic = atomic
         self.where = where
@@ -150,6 +155,9 @@ class _Analysis:
             self.L.intensity, self.L.u_intensity = self.L.intensity * f, self.L.u_intensity * f
             self.nd.intensity = self.nd.intensity * 500.0 / self.nd.wl
         self.basis = basis
+        self.windows = dict(windows) if windows else None
+        self.ln_capture = np.zeros(self.L.n)  # ln of each line's window capture fraction (§1a)
+        self.dln_capture = np.zeros(self.L.n)  # its change for a +u_rel change of the Stark widths
         self.undetermined: dict[str, list[str]] = {}
         self.rejected: list[dict] = []
         self.upper_limit_checks: list[dict] = []
@@ -162,6 +170,8 @@ class _Analysis:
         self.u_y = np.sqrt(rel**2 + L.u_ln_a**2 + 0.0)
         self.u_y = np.maximum(self.u_y, settings.u_rel_floor)
         self.w = 1.0 / self.u_y**2
+        self.u_model = 0.0  # Paule–Mandel scatter of the ordinates beyond their u (§2)
+        self.shot_dev = _shot_deviations(measurement, sample_id, self.L.line_id)
         self.model = Model(L, atomic, settings)
         self.mass_line = np.array([atomic.mass_u(e) for e in L.element])
         self.sa = np.ones(L.n)
@@ -267,7 +277,7 @@ class _Analysis:
         lnK = math.log(sol.ne[j]) - ln_e
         return {k: math.exp(v + lnK) for k, v in zip(names, lns)}
 
-    def lorentz_thin(self, T, ne, sa):
+    def lorentz_thin(self, T, ne, sa, lines=None, mass=None, w_instr=None):
         """Thin-line Stark FWHM per line for the absorption profile.
 
         From the line's Stark parameters at nₑ; lines without them get ``[cf]
@@ -277,7 +287,9 @@ class _Analysis:
         broadening by self-absorption) — measured widths of self-absorbed Doppler-dominated
         lines are broadened in a way no Lorentzian explains, so this is off by default.
         """
-        L = self.L
+        L = self.L if lines is None else lines
+        mass_line = self.mass_line if mass is None else mass
+        w_ins = self.w_instr if w_instr is None else w_instr
         wl = np.zeros(L.n)
         have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
         t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
@@ -289,7 +301,7 @@ class _Analysis:
             return wl
         meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0) & bool(self.s.sa_width_from_measured)
         if np.any(meas):
-            wg = np.sqrt(self.w_instr[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, self.mass_line[meas]) ** 2)
+            wg = np.sqrt(w_ins[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, mass_line[meas]) ** 2)
             wl[meas] = lorentz_from_voigt(L.fwhm[meas], wg) * sa[meas] ** (-EL_SHERBINI_ALPHA)
         return wl
 
@@ -355,8 +367,10 @@ class _Analysis:
                                    fix="use weaker lines or a shorter plasma length")
         gone = set(self.L.element) - set(self.L.element[keep])
         self.L = self.L.subset(keep)
-        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa"):
+        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa", "ln_capture", "dln_capture"):
             setattr(self, name, getattr(self, name)[keep])
+        if self.shot_dev is not None:
+            self.shot_dev = self.shot_dev[:, keep]
         self.model = Model(self.L, self.atomic, self.s)
         for e in sorted(gone):
             self._warn(f"element {e}: no line left after removing lines ({reason})")
@@ -614,6 +628,8 @@ class _Analysis:
             return self.choose_ne(cands)
 
         self._T_guess = s.t_start_k
+        if self.windows:
+            self.apply_window_capture(ne_pick)
         # first pass without self-absorption correction
         ne_name, ne_est = ne_pick(None)
         try:
@@ -626,6 +642,8 @@ class _Analysis:
             if s.self_absorption not in ("curve_of_growth", "columnar"):
                 raise
             sol = None  # strongly self-absorbed: the corrected fit below starts without it
+        if sol is not None and s.self_absorption in ("detect", "none", "reference_line"):
+            sol = self.consistent_weights(sol, ne_pick)
         tau = None
         length_cm = None
         mode = s.self_absorption
@@ -652,6 +670,81 @@ class _Analysis:
         self.ne_name, self.ne_est = ne_name, ne_est
         self.tau = tau
         return sol
+
+    def consistent_weights(self, sol, ne_pick):
+        """Give every ordinate the extra variance s² of :func:`paule_mandel_scatter` and re-solve
+        (twice: T moves the ion rows a little).
+
+        The ordinates' u (intensity, A_ki grade) does not hold blends, side-band interference or
+        other unstated effects; in line-rich spectra these move lines by 10–30 % while a grade-A
+        line claims 2 %, and the few smallest-u lines then decide T and nₑ alone.  With
+        u_i² + s² the weights follow the scatter actually seen (Paule & Mandel 1982); s enters
+        the Monte Carlo as independent extra noise on every line (§8) and is reported as
+        ``fit.model_scatter_ln``.  Thin modes only: in the self-absorption fits the scatter of
+        the thin solution is the self-absorption being fitted.
+        """
+        for _ in range(2):
+            s_new = paule_mandel_scatter(sol.X, sol.y[0], self.u_y)
+            if abs(s_new - self.u_model) <= 1e-4 * max(s_new, 1e-12):
+                break
+            self.u_model = s_new
+            self.w = 1.0 / (self.u_y**2 + s_new**2)
+            ne_name, ne_est = ne_pick(None)
+            sol = self.solve_central(self.sa, ne_name, ne_est)
+        return sol
+
+    def _capture_ln(self, L, T, ne, mass, w_instr, stark_scale=1.0):
+        """ln f of each line of ``L`` (:func:`compquant.cflibs.capture.window_capture_fraction`):
+        Gaussian part √(instrument² + Doppler²), Lorentzian part the thin-line Stark FWHM at nₑ
+        (line-list parameters, else ``stark_fallback_fwhm_nm``) times ``stark_scale``; 0 for
+        lines without a window (fitted profiles measure the whole area)."""
+        out = np.zeros(L.n)
+        geo = np.array([self.windows.get(str(x), (np.nan, np.nan, np.nan)) for x in L.line_id], float).reshape(-1, 3)
+        have = np.all(np.isfinite(geo), axis=1) & (geo[:, 0] > 0)
+        if not np.any(have):
+            return out
+        wg = np.sqrt(w_instr**2 + doppler_fwhm_nm(L.wl, T, mass) ** 2)
+        wlz = self.lorentz_thin(T, ne, np.ones(L.n), lines=L, mass=mass, w_instr=w_instr) * stark_scale
+        ok = have & ((wg > 0) | (wlz > 0))
+        f = window_capture_fraction(geo[ok, 0], geo[ok, 1], geo[ok, 2], wg[ok], wlz[ok])
+        out[ok] = np.log(np.clip(f, CAPTURE_MIN, 1.0))
+        return out
+
+    def apply_window_capture(self, ne_pick):
+        """Divide every window-integrated intensity by its capture fraction f (§1a).
+
+        A fixed window with side-band background keeps a fraction f of a line's area that
+        depends on the line's width (instrument λ/R, Doppler, Stark), so lines of one plot are
+        measured with different f; uncorrected, this tilts the Boltzmann plot.  f is taken at
+        the plasma of a first, uncorrected solution (it changes slowly with T and nₑ); in the
+        self-absorption fits, and without such a solution, at ``t_start_k`` and
+        ``stark_fallback_ne_cm3`` (an uncorrected fit of thick lines can be a hot, dense false
+        solution whose Stark widths would swamp every window); the
+        non-detection limits are scaled alike.  The relative u of the intensities is unchanged;
+        the Stark widths' own uncertainty (``stark_param_u_rel``) enters the Monte Carlo as one
+        common relative change per draw (``dln_capture``).
+        """
+        T, ne = float(self.s.t_start_k), float(self.s.stark_fallback_ne_cm3)
+        if self.s.self_absorption not in ("curve_of_growth", "columnar"):
+            # the self-absorption fits keep the start plasma: their uncorrected first solution can be
+            # a hot, dense false one whose Stark widths would swamp every window
+            try:
+                ne_name, ne_est = ne_pick(None)
+                sol = self.solve_central(self.sa, ne_name, ne_est)
+                T, ne = float(sol.T[0]), float(sol.ne[0])
+            except PhysicsError:
+                pass
+        L = self.L
+        self.ln_capture = self._capture_ln(L, T, ne, self.mass_line, self.w_instr)
+        u_st = float(self.s.stark_param_u_rel)
+        self.dln_capture = self._capture_ln(L, T, ne, self.mass_line, self.w_instr, 1.0 + u_st) - self.ln_capture
+        f = np.exp(-self.ln_capture)
+        L.intensity, L.u_intensity = L.intensity * f, L.u_intensity * f
+        nd = self.nd
+        if nd.n:
+            m_nd = np.array([self.atomic.mass_u(e) for e in nd.element])
+            nd.intensity = nd.intensity * np.exp(-self._capture_ln(nd, T, ne, m_nd, self.w_instr_fn(nd.wl)))
+        self._T_warm = None
 
     def fit_length(self, ne_pick, coarse: bool = False):
         """Columnar density fit: plasma length L minimising the fit's χ² (Cristoforetti &
@@ -794,7 +887,19 @@ class _Analysis:
         L = self.L
         rng = np.random.default_rng(seed)
         eps = rng.standard_normal((n, L.n))
-        I_d = L.intensity[None, :] + L.u_intensity[None, :] * eps
+        if self.shot_dev is None:
+            I_d = L.intensity[None, :] + L.u_intensity[None, :] * eps
+        else:
+            # the line means of one set of shots share every shot's plasma (T, nₑ, ablated mass):
+            # draw them from the shots' own covariance / n_shots (GUM 5.2 and C.3.4, correlation of
+            # input estimates from simultaneous observations; JCGM 102:2011 §6.4.3), the part of
+            # u_I not explained by the shot scatter independently
+            D = self.shot_dev
+            k = D.shape[0]
+            rel = rng.standard_normal((n, k)) @ D / math.sqrt(k * (k - 1.0))
+            u_shot = L.intensity * np.sqrt(np.sum(D**2, axis=0) / (k * (k - 1.0)))
+            u_rest = np.sqrt(np.maximum(L.u_intensity**2 - u_shot**2, 0.0))
+            I_d = L.intensity[None, :] * (1.0 + rel) + u_rest[None, :] * eps
         I_d = np.maximum(I_d, 1e-3 * L.intensity[None, :])
         dln_a = L.u_ln_a[None, :] * rng.standard_normal((n, L.n))
         if not self.s.mc_include_aki:
@@ -818,6 +923,13 @@ class _Analysis:
             ln_i = ln_i + self.s.response_u_rel * (e[:, :1] + e[:, 1:2] * t[None, :]) / math.sqrt(2.0)
         if extra:
             ln_i = ln_i + extra * self.u_y[None, :] * rng.standard_normal((n, L.n))
+        if self.u_model > 0:
+            # scatter of the lines beyond their stated u (Paule–Mandel, §2): independent per line
+            ln_i = ln_i + self.u_model * rng.standard_normal((n, L.n))
+        if np.any(self.dln_capture):
+            # window capture fractions (§1a): the assumed Stark widths within stark_param_u_rel,
+            # one relative change per draw shared by every line
+            ln_i = ln_i - rng.standard_normal((n, 1)) * self.dln_capture[None, :]
         ne_f = None if self.ne_est is None else self.ne_est.sampler(rng, n)
         if self.s.mc_partition_u_rel:
             self.model.ln_u_shift = {sp: self.s.mc_partition_u_rel * rng.standard_normal(n)
@@ -898,7 +1010,10 @@ class _Analysis:
         fit = sol.fit
         chi2, dof = float(fit.chi2[0]), fit.dof
         p = float(chdtrc(dof, chi2)) if dof > 0 else float("nan")  # χ² survival function
-        if dof > 0 and p < 1e-3:
+        # the flag judges the lines against their stated u (before any Paule–Mandel scatter)
+        chi2_stated = float(np.sum(fit.residuals[0] ** 2 / self.u_y**2)) if self.u_model > 0 else chi2
+        p_stated = float(chdtrc(dof, chi2_stated)) if dof > 0 else float("nan")
+        if dof > 0 and p_stated < 1e-3:
             self.flags.append("cf_fit_poor")
         det = self.detection(sol)
         lines = self._line_rows(sol, det)
@@ -948,7 +1063,8 @@ class _Analysis:
                  "birge_ratio": float(fit.birge[0]) if dof > 0 else None,
                  "groups": [str(g) for g in sol.groups],
                  "intercepts": [float(x) for x in fit.beta[0, 1:1 + len(sol.groups)]],
-                 "iterations": sol.iterations, "closure_sum": float(closure_sum[0])},
+                 "iterations": sol.iterations, "closure_sum": float(closure_sum[0]),
+                 "model_scatter_ln": float(self.u_model)},
             monte_carlo=mc,
             one_point=None if self.one_point is None else self.one_point.summary(),
             flags=list(dict.fromkeys(self.flags)), warnings=list(self.warnings),
@@ -1069,6 +1185,7 @@ class _Analysis:
                 "sa_factor": float(self.sa[i]), "correction_factor": float(1.0 / self.sa[i]),
                 "one_point_factor": float(math.exp(self.ln_zeta[i])),
                 "tau0": None if self.tau is None else float(self.tau[i]),
+                "window_fraction": float(math.exp(self.ln_capture[i])),
                 "sa_cog": float(det["sa_cog"][i]), "sa_ratio": float(det["sa_ratio"][i]),
                 "u_sa_ratio": float(det["u_sa_ratio"][i]), "sa_width": float(det["sa_width"][i]),
                 "u_sa_width": float(det["u_sa_width"][i]), "reference_line": det["ref_line"][i],
@@ -1161,6 +1278,8 @@ def analyse_cf(
     seed: int | None = None,
     where: str | None = None,
     intensity_basis: str | None = None,
+    windows: dict | None = None,
+    measurement=None,
 ) -> CFResult:
     """Calibration-free composition of one sample.
 
@@ -1180,6 +1299,13 @@ def analyse_cf(
     intensity_basis : ``"energy"`` or ``"photon"``: the basis of the run's response curve (run
         attribute ``response_basis``); ``[cf] response_basis`` overrides it; ``"unknown"`` is
         refused.  Photon-basis intensities are converted to energy (× hc/λ).
+    windows : ``line_id → (window_nm, side_nm, gap_nm)`` of the window-integrated lines
+        (:func:`compquant.cflibs.capture.method_windows`); each such line is divided by the
+        fraction of its area the window measures (docs/calibration-free.md §1a).  Without it
+        the intensities are taken as whole line areas.
+    measurement : the :class:`~compquant.lines.LineMeasurement` the line table came from; its
+        per-shot intensities give the Monte Carlo the correlation of the line means (every line
+        of a shot sees the same plasma; §8).  Without it the line means are drawn independently.
     """
     s = CFSettings.from_section(settings) if not isinstance(settings, CFSettings) else settings
     sid, rows = _select_sample(line_table, sample_id, where or "line table")
@@ -1191,11 +1317,44 @@ def analyse_cf(
 
         s = dataclasses.replace(s, self_absorption="detect")
     basis = _intensity_basis(s, intensity_basis, where)
-    a = _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis)
+    if one_point is not None:
+        windows = None  # the one-point factors already carry each line's window capture fraction
+    a = _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows,
+                         measurement)
     if double:
         a._warn("one-point calibration applied: self-absorption correction switched to detection only "
                 "(the factors already carry the standard's self-absorption)")
     return a.build(s.mc_draws if mc_draws is None else int(mc_draws), s.seed if seed is None else int(seed))
+
+
+def _shot_deviations(measurement, sample_id, line_ids) -> np.ndarray | None:
+    """Relative deviations I_k/Ī − 1 of the accepted shots of one sample, (n_shots, n_lines) in the
+    order of ``line_ids`` (0 for a line the measurement lacks or a shot without a value); ``None``
+    without a measurement or with fewer than 3 shots."""
+    if measurement is None:
+        return None
+    try:
+        s_idx = list(map(str, measurement.sample_ids)).index(str(sample_id))
+    except ValueError:
+        return None
+    rows = (np.asarray(measurement.shot_sample) == s_idx) & np.asarray(measurement.shot_accepted, bool)
+    if rows.sum() < 3:
+        return None
+    col = {str(x): j for j, x in enumerate(measurement.line_ids)}
+    M = np.asarray(measurement.shot_intensity)[rows]
+    out = np.zeros((M.shape[0], len(line_ids)))
+    for i, lid in enumerate(line_ids):
+        j = col.get(str(lid))
+        if j is None:
+            continue
+        v = M[:, j]
+        ok = np.isfinite(v)
+        if ok.sum() < 3 or not np.all(ok):
+            continue  # incomplete shots: independent draws for this line
+        mean = float(np.mean(v))
+        if mean > 0:
+            out[:, i] = v / mean - 1.0
+    return out
 
 
 def _missing_share_bound(e, w_est, checks, s) -> float:
@@ -1228,7 +1387,8 @@ def _intensity_basis(s, given, where) -> str:
     return basis
 
 
-def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis):
+def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, where, basis, windows=None,
+                     measurement=None):
     """Solve, apply the robust-closure rules, re-solve until nothing changes (≤ 12 rounds)."""
     drop: dict[str, str] = {}
     undetermined: dict[str, list[str]] = {}
@@ -1238,7 +1398,7 @@ def _robust_solution(rows, sid, s, atomic, acquisition, instrument, one_point, w
     elements = s.elements_for(sid)
     for _ in range(12):
         a = _Analysis(rows, sid, s, atomic, acquisition, instrument, one_point, where,
-                      elements=elements, drop=drop, basis=basis)
+                      elements=elements, drop=drop, basis=basis, windows=windows, measurement=measurement)
         few = too_few_lines(a.L, s)
         a.solve()
         line_drops, el_drops = a.screen()

@@ -72,4 +72,45 @@ def wls_batch(X: np.ndarray, y: np.ndarray, w: np.ndarray, scale_by_chi2: bool =
     return BatchFit(beta=beta, cov=cov, cov_raw=cov_raw, chi2=chi2, dof=dof, residuals=resid)
 
 
-__all__ = ["BatchFit", "wls_batch"]
+def paule_mandel_scatter(X: np.ndarray, y: np.ndarray, u: np.ndarray, rounds: int = 3) -> float:
+    """Extra standard deviation s of every ordinate that makes the weighted fit consistent.
+
+    Paule & Mandel (1982, *J. Res. Natl. Bur. Stand.* 87, 377): when the residuals scatter
+    more than the stated uncertainties u_i explain, each ordinate is given the variance
+    u_i² + s² with s² chosen so that the weighted χ² equals its degrees of freedom ν,
+
+        Σ_i (y_i − x_iᵀβ(s²))² / (u_i² + s²) = ν,     β(s²) the weighted fit,
+
+    and s² = 0 when χ² ≤ ν already.  χ² falls monotonically with s², so the root is found
+    on a logarithmic grid of s² (all fits of a grid in one :func:`wls_batch` call), refined
+    ``rounds`` times.  Unlike the Birge-ratio scaling, which keeps the relative weights, this
+    stops lines with a tiny stated u from deciding the fit alone when some unstated effect
+    (blends, side-band interference, atomic data) moves every line.
+    """
+    X = np.asarray(X, float)
+    y = np.ravel(np.asarray(y, float))
+    u2 = np.asarray(u, float) ** 2
+    nu = X.shape[0] - X.shape[1]
+    if nu <= 0:
+        return 0.0
+
+    def chi2(s2):
+        w = 1.0 / (u2[None, :] + np.asarray(s2, float)[:, None])
+        return wls_batch(X, np.broadcast_to(y, w.shape), w, scale_by_chi2=False).chi2
+
+    if chi2(np.array([0.0]))[0] <= nu:
+        return 0.0
+    lo, hi = 1e-12, max(float(np.var(y)) * 10.0, 1e-6)
+    for _ in range(rounds):
+        grid = np.geomspace(lo, hi, 24)
+        c = chi2(grid)
+        k = int(np.searchsorted(-c, -nu))  # first grid point with χ² ≤ ν
+        if k == 0:
+            return float(np.sqrt(grid[0]))
+        if k >= grid.size:
+            return float(np.sqrt(grid[-1]))
+        lo, hi = grid[k - 1], grid[k]
+    return float(np.sqrt(0.5 * (lo + hi)))
+
+
+__all__ = ["BatchFit", "paule_mandel_scatter", "wls_batch"]

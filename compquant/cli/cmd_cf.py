@@ -74,6 +74,7 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
 
     refuse_overwriting_inputs([output, plots_dir], [run_path, method_path])
     from compquant.cflibs import CFSettings, analyse_cf_samples
+    from compquant.cflibs.capture import method_windows
     from compquant.method import load_method
 
     method = load_method(method_path)
@@ -94,6 +95,8 @@ def command(run_path, method_path, output, plots_dir, samples, draws, seed, quie
         results, failures = analyse_cf_samples(
             m["table"], sample_ids=ids, settings=settings, acquisition=m["acquisition"], instrument=m["instrument"],
             one_point=one_point, mc_draws=draws, seed=seed, intensity_basis=m["basis"], progress=tick,
+            windows=method_windows(method, m["lm"].wavelength),  # window capture fractions (calibration-free.md §1a)
+            measurement=m["lm"],
         )
     if failures and not results:  # before anything is written; the reasons in the line itself
         first, why = next(iter(failures.items()))
@@ -122,7 +125,7 @@ def _measure(run_path, method, quiet: bool) -> dict:
         passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
         with progress_bar(run.n_shots * passes, "measuring lines   ", enabled=not quiet) as bar:
             lm = measure_run(run, method, progress=bar.update)
-        return {"table": lm.table, "acquisition": dict(run.acquisition or {}),
+        return {"lm": lm, "table": lm.table, "acquisition": dict(run.acquisition or {}),
                 "instrument": dict(run.instrument or {}), "samples": run.samples.copy(), "run_sha": run.sha256(),
                 "basis": run_intensity_basis(method, run)}
 

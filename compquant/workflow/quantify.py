@@ -58,6 +58,7 @@ def quantify_cf(job, m, sc) -> Quantified:
     table, unknowns, check_samples, cf_settings = m.meas.table, sc.unknowns, sc.check_samples, job.cf_settings
     tick = job.tick
     from compquant.cflibs import analyse_cf_samples
+    from compquant.cflibs.capture import method_windows
     from compquant.cflibs.result import results_table
 
     qd = Quantified(drift_info=DriftInfo(False, "not applicable to calibration-free analysis"))
@@ -73,6 +74,8 @@ def quantify_cf(job, m, sc) -> Quantified:
         instrument=m.instrument,
         one_point=one_point,
         intensity_basis=m.intensity_basis,
+        windows=method_windows(job.method, m.meas.wavelength),  # window capture fractions
+        measurement=m.meas,  # per-shot covariance of the line means in the Monte Carlo
         progress=lambda done, total: tick("quantify", done, total),  # per sample: the slow step
     )
     qd.results = results_table(cf_results)
