@@ -113,7 +113,11 @@ def _fixed_margins(fig) -> None:
     fig.subplots_adjust(left=left / w, right=1 - right / w, bottom=bottom / h, top=1 - top / h)
 
 
-def _stagger_line_labels(fig, ax, texts, gap_pt: float = 3.0) -> int:
+#: points kept free at the bottom of the spectrum's axes for the "labels left out" note
+NOTE_STRIP_PT = 10.0
+
+
+def _stagger_line_labels(fig, ax, texts, gap_pt: float = 3.0, note: bool = False) -> int:
     """Place the vertical line labels ``texts`` (annotations hanging from the top of the spectrum)
     in rows so that no two drawn text boxes overlap; return how many were left out.
 
@@ -122,7 +126,9 @@ def _stagger_line_labels(fig, ax, texts, gap_pt: float = 3.0) -> int:
     first-fit colouring of an interval graph, Golumbic 2004, ch. 8 -- the rule of the review page)
     gives each label the lowest row free there.  Row ``r`` hangs below the longest label of rows
     ``0 .. r-1`` plus a gap, so boxes of different rows cannot meet either.  A label whose row would
-    reach below the axes is removed (and counted), never printed over the axis text.
+    reach below the axes is removed (and counted), never printed over the axis text; when any is
+    left out (or ``note``: labels are left out anyway), the rows keep clear of a strip at the
+    bottom for the note that counts them.
 
     References
     ----------
@@ -144,19 +150,25 @@ def _stagger_line_labels(fig, ax, texts, gap_pt: float = 3.0) -> int:
     length = [max((b.height for b, r in zip(boxes, rows) if r == k), default=0.0) for k in range(n_rows)]
     ax.get_ylim()  # settles the autoscaled limits, so transData is the drawn one
     anchor = ax.transData.transform(texts[0].xy)[1]  # every label hangs from the same height (the top)
-    room = anchor - ax.get_window_extent(renderer).y0 - 2.0 / pt_per_px  # pixels from the anchor to the axis
+    # pixels from the anchor down to the axis; when labels must be left out, less a strip at the
+    # bottom for the note that counts them
+    full = anchor - ax.get_window_extent(renderer).y0 - 2.0 / pt_per_px
+    strip = full - NOTE_STRIP_PT / pt_per_px
+    for room in (strip,) if note else (full, strip):
+        offsets, below = {}, 0.0  # below: pixels from the first row's top to this row's top
+        for k in range(n_rows):
+            if below + length[k] <= room:
+                offsets[k] = -2.0 - below * pt_per_px
+            below += length[k] + gap_px
+        if len(offsets) == n_rows:
+            break
     left_out = 0
-    below = 0.0  # pixels from the first row's top to this row's top
-    for k in range(n_rows):
-        for t, r in zip(texts, rows):
-            if r != k:
-                continue
-            if below + length[k] > room:
-                t.remove()
-                left_out += 1
-            else:
-                t.xyann = (2.0, -2.0 - below * pt_per_px)
-        below += length[k] + gap_px
+    for t, r in zip(texts, rows):
+        if r in offsets:
+            t.xyann = (2.0, offsets[r])
+        else:
+            t.remove()
+            left_out += 1
     return left_out
 
 
@@ -207,7 +219,8 @@ def spectrum_figure(
     ax.margins(x=0)
     ax.tick_params(labelsize=7)
     _fixed_margins(fig)
-    left_out = _stagger_line_labels(fig, ax, texts) + max(0, len(lines) - max_labels)
+    skipped = max(0, len(lines) - max_labels)
+    left_out = _stagger_line_labels(fig, ax, texts, note=skipped > 0) + skipped
     if left_out:
         ax.text(0.995, 0.02, f"{left_out} line labels left out (too crowded)", transform=ax.transAxes,
                 ha="right", va="bottom", fontsize=5.5, color="#b03a2e")

@@ -221,7 +221,7 @@ def _drawn_label_boxes(fig, names):
     return ax, texts, [t.get_window_extent(r) for t in texts], r
 
 
-@pytest.mark.parametrize("case", ["demo", "cluster", "dense"])
+@pytest.mark.parametrize("case", ["demo", "cluster", "dense", "capped"])
 def test_crowded_spectrum_labels_do_not_overlap(case):
     """Line labels on the certificate's spectrum: the drawn text boxes (measured by matplotlib's
     renderer after drawing) are pairwise disjoint and none reaches below the axes; labels that
@@ -240,10 +240,11 @@ def test_crowded_spectrum_labels_do_not_overlap(case):
         # four labels within 3 nm: the old fixed 3-level rule put the fourth (Pb) over the first (Mn)
         "cluster": [("Al I 394.401", 394.401), ("Mn I 403.075", 403.075), ("Mn I 403.307", 403.307),
                     ("Mn I 403.449", 403.449), ("Pb I 405.781", 405.781)],
-        "dense": [(f"X I {w:.3f}", w) for w in np.linspace(400.0, 402.0, 20)],
+        "dense": [(f"X I {w:.3f}", w) for w in np.linspace(630.0, 632.0, 20)],  # by the note, bottom right
+        "capped": [(f"X I {w:.3f}", w) for w in np.linspace(630.0, 632.0, 8)],  # max_labels = 4 below
     }[case]
     names = [n for n, _ in lines]
-    fig = spectrum_figure(wl, y, lines)
+    fig = spectrum_figure(wl, y, lines, **({"max_labels": 4} if case == "capped" else {}))
     ax, texts, boxes, r = _drawn_label_boxes(fig, names)
     for i in range(len(boxes)):
         for j in range(i + 1, len(boxes)):
@@ -252,7 +253,9 @@ def test_crowded_spectrum_labels_do_not_overlap(case):
     assert all(b.y0 >= axbox.y0 for b in boxes)
     left = [t for t in ax.texts if "left out" in t.get_text()]
     assert len(texts) + (int(left[0].get_text().split()[0]) if left else 0) == len(names)
-    if case != "dense":
+    for t in left:  # the note is not printed over a label either
+        assert not any(t.get_window_extent(r).overlaps(b) for b in boxes)
+    if case in ("demo", "cluster"):
         assert len(texts) == len(names) and not left  # a few crowded lines all get a label
     else:
         assert len(texts) >= 3 and left  # twenty in 2 nm: as many rows as fit the axes, the rest counted
