@@ -325,7 +325,12 @@ def test_map_with_db_is_stored_for_the_recorded_run_and_shown_on_the_review_page
     db = tmp_path / "record.sqlite"
     r = CliRunner()
     common = ["--method", str(d / "method.toml"), "--calibration", str(d / "cal.json"), "--quiet"]
+    # no record at that path: refused, and no empty record is created there
+    res = r.invoke(main, ["map", str(d / "scan.h5"), *common, "-o", str(tmp_path / "m0"), "--db", str(db)])
+    assert res.exit_code == 2 and not db.exists() and not (tmp_path / "m0").exists(), res.output
+    assert res.output.startswith("error:") and "no record here" in res.output
     # a run not in the (empty) record: refused before any work, no output folder
+    open_record(str(db)).dispose()
     res = r.invoke(main, ["map", str(d / "scan.h5"), *common, "-o", str(tmp_path / "m0"), "--db", str(db)])
     assert res.exit_code == 2 and not (tmp_path / "m0").exists(), res.output
     err = [ln for ln in res.output.splitlines() if ln.strip()]

@@ -103,9 +103,14 @@ class MapRecorder:
 def recorder_for_maps(db, run_path) -> MapRecorder | None:
     """Open the record for ``compquant map`` (None when no record is given or configured) and find
     the run by the SHA-256 of its file; a run the record does not hold is refused (:class:`RecordError`)."""
+    from compquant.record.db import is_url
+
     location = configured(db)
     if location is None:
         return None
+    if not is_url(location) and not Path(location).expanduser().is_file():  # not a new, empty record
+        raise RecordError("no record here", where=str(location),
+                          fix="give the record the run was analysed into ('compquant analyse RUN --db ...')")
     rec = open_record(location)
     run_name = Path(run_path).name
     try:
