@@ -84,7 +84,7 @@ def figure_png(fig) -> bytes:
     buf = io.BytesIO()
     # fixed margins (tight_layout would draw every figure twice)
     w, h = fig.get_size_inches()
-    fig.subplots_adjust(left=0.75 / w, right=1 - 0.15 / w, bottom=0.5 / h, top=1 - 0.3 / h)
+    _fixed_margins(fig)
     # about 160 dots per inch as printed (full-width spectrum and half-width plots alike)
     dpi = _DPI if w > 6 else 120
     fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
@@ -103,7 +103,76 @@ def _envelope(x, y, n_bins: int = 1500):
     return np.repeat(xc, 2), np.column_stack([lo, hi]).ravel()
 
 
-def spectrum_png(
+#: margins of every figure in inches (left, right, bottom, top), as :func:`figure_png` sets them
+_MARGINS_IN = (0.75, 0.15, 0.5, 0.3)
+
+
+def _fixed_margins(fig) -> None:
+    w, h = fig.get_size_inches()
+    left, right, bottom, top = _MARGINS_IN
+    fig.subplots_adjust(left=left / w, right=1 - right / w, bottom=bottom / h, top=1 - top / h)
+
+
+#: points kept free at the bottom of the spectrum's axes for the "labels left out" note
+NOTE_STRIP_PT = 10.0
+
+
+def _stagger_line_labels(fig, ax, texts, gap_pt: float = 3.0, note: bool = False) -> int:
+    """Place the vertical line labels ``texts`` (annotations hanging from the top of the spectrum)
+    in rows so that no two drawn text boxes overlap; return how many were left out.
+
+    Each label's box is measured by matplotlib's Agg renderer at row 0; its horizontal extent
+    (pixels) is an interval on the wavelength axis and :func:`compquant.web.labels.stagger` (greedy
+    first-fit colouring of an interval graph, Golumbic 2004, ch. 8 -- the rule of the review page)
+    gives each label the lowest row free there.  Row ``r`` hangs below the longest label of rows
+    ``0 .. r-1`` plus a gap, so boxes of different rows cannot meet either.  A label whose row would
+    reach below the axes is removed (and counted), never printed over the axis text; when any is
+    left out (or ``note``: labels are left out anyway), the rows keep clear of a strip at the
+    bottom for the note that counts them.
+
+    References
+    ----------
+    Golumbic, M. C., *Algorithmic Graph Theory and Perfect Graphs*, 2nd ed. (2004), ch. 8.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    from compquant.label_rows import stagger
+
+    if not texts:
+        return 0
+    canvas = fig.canvas if isinstance(fig.canvas, FigureCanvasAgg) else FigureCanvasAgg(fig)
+    renderer = canvas.get_renderer()
+    boxes = [t.get_window_extent(renderer) for t in texts]
+    pt_per_px = 72.0 / fig.dpi
+    gap_px = gap_pt / pt_per_px
+    rows = stagger([b.x0 for b in boxes], [b.width for b in boxes], gap_px=gap_px)
+    n_rows = max(rows) + 1
+    length = [max((b.height for b, r in zip(boxes, rows) if r == k), default=0.0) for k in range(n_rows)]
+    ax.get_ylim()  # settles the autoscaled limits, so transData is the drawn one
+    anchor = ax.transData.transform(texts[0].xy)[1]  # every label hangs from the same height (the top)
+    # pixels from the anchor down to the axis; when labels must be left out, less a strip at the
+    # bottom for the note that counts them
+    full = anchor - ax.get_window_extent(renderer).y0 - 2.0 / pt_per_px
+    strip = full - NOTE_STRIP_PT / pt_per_px
+    for room in (strip,) if note else (full, strip):
+        offsets, below = {}, 0.0  # below: pixels from the first row's top to this row's top
+        for k in range(n_rows):
+            if below + length[k] <= room:
+                offsets[k] = -2.0 - below * pt_per_px
+            below += length[k] + gap_px
+        if len(offsets) == n_rows:
+            break
+    left_out = 0
+    for t, r in zip(texts, rows):
+        if r in offsets:
+            t.xyann = (2.0, offsets[r])
+        else:
+            t.remove()
+            left_out += 1
+    return left_out
+
+
+def spectrum_figure(
     wavelength_nm,
     intensity,
     lines=(),
@@ -111,13 +180,11 @@ def spectrum_png(
     title: str = "",
     ylabel: str = "intensity (a.u.)",
     max_labels: int = 25,
-) -> bytes:
-    """Mean spectrum with the analytical lines marked.
+):
+    """The figure of :func:`spectrum_png` (a matplotlib ``Figure`` with the margins it is saved with).
 
-    Parameters
-    ----------
-    wavelength_nm, intensity : 1-D arrays of equal length
-    lines : iterable of ``(label, wavelength_nm)`` pairs, e.g. ``("Cu I 324.754", 324.754)``
+    Line labels are vertical text hanging from the top of the spectrum; crowded ones are staggered
+    into rows by :func:`_stagger_line_labels` so no two overlap (measured text boxes).
     """
     wl = np.asarray(wavelength_nm, dtype=float)
     y = np.asarray(intensity, dtype=float)
@@ -128,34 +195,60 @@ def spectrum_png(
     ax.plot(xw, yw, lw=0.6, color="#1f3b73")
     lines = list(lines)
     top = np.nanmax(y) if y.size else 1.0
-    span = float(wl[-1] - wl[0]) if wl.size > 1 else 1.0
-    last_w, level = None, 0
+    texts = []
     for i, (label, w) in enumerate(sorted(lines, key=lambda t: float(t[1]))):
         w = float(w)
         ax.axvline(w, color="#b03a2e", lw=0.6, ls="--", alpha=0.8)
         if i >= max_labels:
             continue
-        # labels of lines closer than 2 % of the axis are stepped down so they do not overlap
-        level = level + 1 if last_w is not None and w - last_w < 0.02 * span else 0
-        last_w = w
-        ax.annotate(
+        texts.append(ax.annotate(
             str(label),
             (w, top),
-            xytext=(2, -2 - 48 * (level % 3)),
+            xytext=(2, -2),
             textcoords="offset points",
             rotation=90,
             va="top",
             ha="left",
             fontsize=5.5,
             color="#b03a2e",
-        )
+        ))
     ax.set_xlabel("wavelength (nm)")
     ax.set_ylabel(ylabel)
     if title:
         ax.set_title(title, fontsize=9)
     ax.margins(x=0)
     ax.tick_params(labelsize=7)
-    return figure_png(fig)
+    _fixed_margins(fig)
+    skipped = max(0, len(lines) - max_labels)
+    left_out = _stagger_line_labels(fig, ax, texts, note=skipped > 0) + skipped
+    if left_out:
+        ax.text(0.995, 0.02, f"{left_out} line labels left out (too crowded)", transform=ax.transAxes,
+                ha="right", va="bottom", fontsize=5.5, color="#b03a2e")
+    return fig
+
+
+def spectrum_png(
+    wavelength_nm,
+    intensity,
+    lines=(),
+    *,
+    title: str = "",
+    ylabel: str = "intensity (a.u.)",
+    max_labels: int = 25,
+) -> bytes:
+    """Mean spectrum with the analytical lines marked, labels staggered so none overlap.
+
+    Parameters
+    ----------
+    wavelength_nm, intensity : 1-D arrays of equal length
+    lines : iterable of ``(label, wavelength_nm)`` pairs, e.g. ``("Cu I 324.754", 324.754)``
+
+    Returns
+    -------
+    PNG bytes of :func:`spectrum_figure`.
+    """
+    return figure_png(spectrum_figure(wavelength_nm, intensity, lines, title=title, ylabel=ylabel,
+                                      max_labels=max_labels))
 
 
 #: one colour per species on a Boltzmann plot (ten, so that a brass's species do not share one)

@@ -287,3 +287,116 @@ def test_analyse_many_runs_combined_csv_and_failing_run(cal_setup, tmp_path):
         own = pd.read_csv(next((out / name).glob("*.csv")), dtype=str, keep_default_na=False)
         sub = lims[lims["run"] == str(folder / f"{name}.h5")].drop(columns="run").reset_index(drop=True)
         pd.testing.assert_frame_equal(sub, own)
+
+
+def _decoded_image(item, shape):
+    """The image array of a Bokeh JSON item (``bokeh.embed.json_item``: serialised ndarray = base64
+    bytes with dtype and shape, the buffer possibly gzip-compressed, RFC 1952), decoded with numpy."""
+    import base64
+    import gzip
+
+    def walk(o):
+        yield o
+        for v in o.values() if isinstance(o, dict) else o if isinstance(o, list) else ():
+            yield from walk(v)
+
+    nd = next(v for v in walk(item) if isinstance(v, dict) and v.get("type") == "ndarray" and v.get("shape") == shape)
+    raw = base64.b64decode(nd["array"]["data"])
+    raw = gzip.decompress(raw) if raw[:2] == b"\x1f\x8b" else raw
+    return np.frombuffer(raw, dtype=nd["dtype"]).reshape(shape)
+
+
+def test_map_with_db_is_stored_for_the_recorded_run_and_shown_on_the_review_page(cal_setup, tmp_path):
+    """``map --db`` of a run analysed into the record: the mass-fraction map is stored as evidence
+    of that run's sample and the review page draws it (Flask test client, Bokeh JSON item) with the
+    same node values as maps.h5; a run the record does not hold is refused (one error line, exit 2,
+    nothing written)."""
+    pytest.importorskip("flask")
+    pytest.importorskip("bokeh")
+    import json
+
+    import sqlalchemy as sa
+
+    from compquant.record import open_record
+    from compquant.record import schema as S
+    from compquant.web.app import create_app
+
+    d = cal_setup
+    db = tmp_path / "record.sqlite"
+    r = CliRunner()
+    common = ["--method", str(d / "method.toml"), "--calibration", str(d / "cal.json"), "--quiet"]
+    # no record at that path: refused, and no empty record is created there
+    res = r.invoke(main, ["map", str(d / "scan.h5"), *common, "-o", str(tmp_path / "m0"), "--db", str(db)])
+    assert res.exit_code == 2 and not db.exists() and not (tmp_path / "m0").exists(), res.output
+    assert res.output.startswith("error:") and "no record here" in res.output
+    # a run not in the (empty) record: refused before any work, no output folder
+    open_record(str(db)).dispose()
+    res = r.invoke(main, ["map", str(d / "scan.h5"), *common, "-o", str(tmp_path / "m0"), "--db", str(db)])
+    assert res.exit_code == 2 and not (tmp_path / "m0").exists(), res.output
+    err = [ln for ln in res.output.splitlines() if ln.strip()]
+    assert len(err) == 1 and err[0].startswith("error:") and "not in the record" in err[0], res.output
+    res = r.invoke(main, ["analyse", str(d / "scan.h5"), *common, "-o", str(tmp_path / "a"), "--no-figures",
+                          "--issued-at", "2026-12-01T12:00:00Z", "--measured", "2026-11-30T09:00:00Z", "--db", str(db)])
+    assert res.exit_code == 0, res.output
+    out = tmp_path / "m1"
+    res = r.invoke(main, ["map", str(d / "scan.h5"), *common[:-1], "-o", str(out), "--db", str(db)])
+    assert res.exit_code == 0, res.output
+    assert "record: 1 map(s) stored" in res.output
+    # the same map again: not stored twice (the evidence tables are append-only)
+    res = r.invoke(main, ["map", str(d / "scan.h5"), *common[:-1], "-o", str(tmp_path / "m2"), "--db", str(db)])
+    assert res.exit_code == 0 and "record: 0 map(s) stored" in res.output, res.output
+    zn = read_maps_h5(out / "maps.h5")["SCAN-1"]["Zn"][0]
+    rec = open_record(str(db))
+    try:
+        with rec.transaction() as conn:
+            row = conn.execute(sa.select(S.samples.c.id).where(S.samples.c.sample_id == "SCAN-1")).scalar_one()
+            n_audit = conn.execute(sa.select(sa.func.count()).select_from(S.audit)
+                                   .where(S.audit.c.action == "store maps")).scalar_one()
+        assert n_audit == 2
+        app = create_app(rec)
+        app.testing = True
+        c = app.test_client()
+        page = c.get(f"/analysis/{row}").get_data(as_text=True)
+        assert 'id="maps"' in page
+        name = "Zn mass fraction (Zn I 330.259)"
+        assert 'name=Zn+mass+fraction' in page or "name=Zn%20mass%20fraction" in page
+        resp = c.get(f"/analysis/{row}/map.json", query_string={"name": name})
+        assert resp.status_code == 200 and resp.mimetype == "application/json"
+        item = json.loads(resp.get_data(as_text=True))
+        assert "blank nodes: below the LOD" in json.dumps(item)
+        img = _decoded_image(item, list(zn.shape))
+        # every node of this map lies far above the LOD (0.15-0.35 g/g): the page shows them all, as
+        # maps.h5 holds them (7 significant digits kept by the record)
+        ok = np.isfinite(zn)
+        assert np.array_equal(np.isfinite(img), ok)
+        assert np.allclose(img[ok], zn[ok], rtol=1e-6)
+    finally:
+        rec.dispose()
+
+
+def test_stored_map_blanks_each_node_below_its_own_lod():
+    """Nodes with different LODs (ratio basis): each node is compared with its own LOD (LOD =
+    3 s_blank / slope, IUPAC; Long and Winefordner, Anal. Chem. 55 (1983) 712A) and left blank
+    below it; the map's LOD is the smallest, so the page's own masking removes nothing more."""
+    from types import SimpleNamespace
+
+    import pandas as pd
+
+    from compquant.maps.grid import RasterGrid
+    from compquant.maps.output import ElementMap
+    from compquant.record.evidence import maps_evidence, masked_below_lod
+
+    grid = RasterGrid(0.0, 0.0, 0.5, 0.5, 3, 2)
+    values = np.array([[0.0004, 0.0030, 0.0011], [0.0020, 0.0009, np.nan]])
+    lods = np.array([[0.001, 0.001, 0.0012], [0.001, 0.0008, 0.001]])
+    ids = [f"S@{i},{j}" for j in range(2) for i in range(3)]
+    results = pd.DataFrame({"sample_id": ids, "element": "Pb", "lod": lods.ravel(),
+                            "below_lod": (values < lods).ravel()})
+    sm = SimpleNamespace(sample_id="S", grid=grid, maps=[ElementMap("Pb", "Pb I 405.781", "mass_fraction", "g/g",
+                                                                   values)])
+    (m,) = maps_evidence(SimpleNamespace(samples=[sm], results=results))
+    assert m["lod"] == 0.0008 and m["sample_id"] == "S" and m["x"] == [0.0, 0.5, 1.0] and m["y"] == [0.0, 0.5]
+    shown = masked_below_lod(np.array([[np.nan if v is None else v for v in r] for r in m["values"]]), m["lod"])
+    expect = np.where(values >= lods, values, np.nan)  # by hand: 0.0030 >= 0.001, 0.0020 >= 0.001, 0.0009 >= 0.0008
+    assert np.array_equal(np.isfinite(shown), np.isfinite(expect))
+    assert np.allclose(shown[np.isfinite(shown)], [0.0030, 0.0020, 0.0009])

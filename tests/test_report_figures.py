@@ -208,3 +208,54 @@ def test_crowded_standard_labels_do_not_overlap():
     left = [t for t in ax.texts if "left out" in t.get_text()]
     assert len(texts) + (int(left[0].get_text().split()[0]) if left else 0) == len(names)
     assert len(texts) >= 5  # the cluster is spread over rows, not dropped
+
+
+def _drawn_label_boxes(fig, names):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    r = canvas.get_renderer()
+    ax = fig.axes[0]
+    texts = [t for t in ax.texts if t.get_text() in names]
+    return ax, texts, [t.get_window_extent(r) for t in texts], r
+
+
+@pytest.mark.parametrize("case", ["demo", "cluster", "dense", "capped"])
+def test_crowded_spectrum_labels_do_not_overlap(case):
+    """Line labels on the certificate's spectrum: the drawn text boxes (measured by matplotlib's
+    renderer after drawing) are pairwise disjoint and none reaches below the axes; labels that
+    cannot be placed are left out and counted on the figure.  Common practice: a label printed over
+    another is unreadable.  Wavelengths: Al I 394.401, Mn I 403.075,
+    403.307 and 403.449, Pb I 405.781
+    (NIST ASD lines, from memory of the NIST Atomic Spectra Database)."""
+    from compquant.plotting import spectrum_figure
+
+    wl = np.linspace(220.0, 640.0, 8000)
+    y = 1000 * np.exp(-0.5 * ((wl - 324.75) / 0.05) ** 2) + 10
+    lines = {
+        "demo": [("Sn I 283.999", 283.999), ("Ni I 349.296", 349.296), ("Al I 394.401", 394.401),
+                 ("Mn I 403.075", 403.075), ("Pb I 405.781", 405.781), ("Cu I 427.511", 427.511),
+                 ("Fe I 438.354", 438.354), ("Zn I 468.014", 468.014)],
+        # four labels within 3 nm: the old fixed 3-level rule put the fourth (Pb) over the first (Mn)
+        "cluster": [("Al I 394.401", 394.401), ("Mn I 403.075", 403.075), ("Mn I 403.307", 403.307),
+                    ("Mn I 403.449", 403.449), ("Pb I 405.781", 405.781)],
+        "dense": [(f"X I {w:.3f}", w) for w in np.linspace(630.0, 632.0, 20)],  # by the note, bottom right
+        "capped": [(f"X I {w:.3f}", w) for w in np.linspace(630.0, 632.0, 8)],  # max_labels = 4 below
+    }[case]
+    names = [n for n, _ in lines]
+    fig = spectrum_figure(wl, y, lines, **({"max_labels": 4} if case == "capped" else {}))
+    ax, texts, boxes, r = _drawn_label_boxes(fig, names)
+    for i in range(len(boxes)):
+        for j in range(i + 1, len(boxes)):
+            assert not boxes[i].overlaps(boxes[j]), (texts[i].get_text(), texts[j].get_text())
+    axbox = ax.get_window_extent(r)
+    assert all(b.y0 >= axbox.y0 for b in boxes)
+    left = [t for t in ax.texts if "left out" in t.get_text()]
+    assert len(texts) + (int(left[0].get_text().split()[0]) if left else 0) == len(names)
+    for t in left:  # the note is not printed over a label either
+        assert not any(t.get_window_extent(r).overlaps(b) for b in boxes)
+    if case in ("demo", "cluster"):
+        assert len(texts) == len(names) and not left  # a few crowded lines all get a label
+    else:
+        assert len(texts) >= 3 and left  # twenty in 2 nm: as many rows as fit the axes, the rest counted

@@ -58,9 +58,11 @@ def write_map_outputs(result, out_dir: Path) -> list[Path]:
 @click.option("--scheduler", default=None,
               help="Compute on an existing Dask cluster at this address (default: DASK_SCHEDULER_ADDRESS if set).")
 @scheduler_file_option
+@click.option("--db", metavar="PATH|URL",
+              help="Store the maps in the lab's record, with the run's recorded analysis (default: $COMPQUANT_DB).")
 @click.option("--quiet", is_flag=True, help="No progress bar or summary.")
 def command(run_path, method_path, calibration_path, out_dir, samples, chunk_shots, workers, scheduler, scheduler_file,
-            quiet):
+            db, quiet):
     """Per-element maps of a rastered run (shots with x, y stage positions): each grid node holds
     the mean over its accepted shots of the line intensity, or with --calibration the mass
     fraction from the calibration curves. Writes maps.h5 (x/y axes in mm, units attributes) and a
@@ -72,9 +74,11 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
     from compquant.maps.build import make_maps
     from compquant.method import load_method
     from compquant.parallel import open_executor
+    from compquant.record.store import recorder_for_maps
     from compquant.run import Run
 
     method = load_method(method_path)
+    recorder = recorder_for_maps(db, run_path)  # fail fast: before the work
     cal = None
     if calibration_path:
         from compquant.calibrate.model import Calibration
@@ -98,7 +102,15 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
                     progress=bar.update,
                     samples=list(samples) or None,
                 )
+    stored = None
+    if recorder is not None:
+        from compquant.record.evidence import maps_evidence
+
+        items = maps_evidence(result)
+        recorder.check_samples(sorted({m["sample_id"] for m in items}))
     written = write_map_outputs(result, Path(out_dir))
+    if recorder is not None:
+        stored = recorder.store(items)
     for note in result.provenance.get("notes", []):
         click.echo(terminal_text(f"warning: {note}"), err=True)
     if not quiet:
@@ -109,3 +121,6 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
                 f"{int(sm.shots.sum())} shots; maps: {', '.join(m.element for m in sm.maps)}"
             )
         click.echo(f"wrote {len(written)} files to {out_dir}")
+        if stored is not None:
+            click.echo(f"record: {len(stored)} map(s) stored with run {terminal_text(Path(run_path).name)} in "
+                       f"{terminal_text(recorder.record.where)}")

@@ -16,7 +16,8 @@ An analysis stores, at the time it runs (:func:`store_evidence`, called by
 * per calibration-free sample: the (Saha-)Boltzmann plot points, their fitted ordinates and the
   plasma temperature (``kind = "boltzmann"``);
 * element maps, when a caller has them (:func:`map_item`): the grid of mass fractions with the
-  LOD, so the page can mask the nodes below it (``kind = "map"``).
+  LOD, so the page can mask the nodes below it (``kind = "map"``); ``compquant map --db`` adds the
+  maps of a run already in the record afterwards (:func:`maps_evidence`, :func:`store_maps`).
 
 Both tables are append-only (migration r0002): the evidence of a recorded analysis never changes.
 Everything here reads what the analysis already computed; nothing is measured or fitted again
@@ -292,6 +293,78 @@ def masked_below_lod(values, lod) -> np.ndarray:
     return v
 
 
+def _node_lods(results, sample_id: str, element: str, nx: int, ny: int):
+    """(LOD of each node or None, below-LOD mask) of an element map from the per-node results of
+    :func:`compquant.maps.build.make_maps` (node ids ``SAMPLE@i,j``)."""
+    lods = np.full(nx * ny, np.nan)
+    below = np.zeros(nx * ny, bool)
+    if results is None or len(results) == 0 or "lod" not in results.columns:
+        return None, below.reshape(ny, nx)
+    r = results[(results["element"].astype(str) == element)
+                & results["sample_id"].astype(str).str.startswith(f"{sample_id}@")]
+    for nid, lod, bl in zip(r["sample_id"].astype(str), r["lod"], r.get("below_lod", [False] * len(r))):
+        i, _, j = nid.rpartition("@")[2].partition(",")
+        try:
+            k = int(j) * nx + int(i)
+        except ValueError:
+            continue
+        if 0 <= k < nx * ny:
+            lods[k] = _f(lod) if _f(lod) is not None else np.nan
+            below[k] = bool(bl)
+    return lods.reshape(ny, nx), below.reshape(ny, nx)
+
+
+def maps_evidence(result) -> list[dict]:
+    """The element maps of a :class:`compquant.maps.build.MapResult` as :func:`map_item` dicts
+    (with ``sample_id``), ready for :func:`store_maps`.
+
+    Mass-fraction maps carry the LOD of their nodes (LOD = 3 s_blank / slope, IUPAC; Long and
+    Winefordner, Anal. Chem. 55 (1983) 712A) as quantify gave it.  When nodes have different LODs
+    (ratio basis: the LOD scales with each node's matrix fraction) the map keeps the smallest and
+    every node that quantify found below its own LOD is stored blank, so no node below its LOD is
+    ever shown.  Intensity maps have no LOD (``lod`` None) and are shown as measured.
+    """
+    out = []
+    for sm in result.samples:
+        g = sm.grid
+        for em in sm.maps:
+            values = np.array(em.values, float)
+            lod = None
+            if em.quantity == "mass_fraction":
+                lods, below = _node_lods(getattr(result, "results", None), sm.sample_id, em.element, g.nx, g.ny)
+                if lods is not None and np.isfinite(lods).any():
+                    lod = float(np.nanmin(lods))
+                    values[below | (values < lods)] = np.nan  # each node against its own LOD
+            name = f"{em.element} {em.quantity.replace('_', ' ')} ({em.line_id})"
+            item = map_item(name, g.x_mm, g.y_mm, values, lod, unit=em.units, element=em.element)
+            out.append({**item, "sample_id": sm.sample_id, "line_id": em.line_id, "quantity": em.quantity})
+    return out
+
+
+def store_maps(conn, run_id: int, sample_ids: dict[str, int], maps: list[dict]) -> list[str]:
+    """Insert map items (:func:`maps_evidence`) of a recorded run in the caller's transaction; return
+    the names stored.  A map already stored for its sample with the same content is not stored again;
+    a different map under a name already used gets `` #2``, `` #3``, ... (the tables are append-only)."""
+    E = S.evidence
+    stored = []
+    for m in maps:
+        row = sample_ids[m["sample_id"]]
+        old = {r.key: r.sha256 for r in conn.execute(sa.select(E.c.key, E.c.sha256).where(
+            E.c.run_id == run_id, E.c.kind == "map", E.c.sample_row == row)).all()}
+        base, n = m["name"], 1
+        while True:
+            item = _item_row(run_id, row, "map", m["name"], m)
+            if old.get(m["name"]) in (None, item["sha256"]):
+                break
+            n += 1
+            m = {**m, "name": f"{base} #{n}"}
+        if old.get(m["name"]) == item["sha256"]:
+            continue
+        conn.execute(E.insert().values(**item))
+        stored.append(m["name"])
+    return stored
+
+
 # ------------------------------------------------------------------------- storing and reading
 
 
@@ -371,5 +444,5 @@ def read_items(conn, run_id: int, kind: str, sample_row: int | None = None, *, r
 
 
 __all__ = ["AnalysisEvidence", "boltzmann_item", "curve_item", "evidence_rows", "line_items", "map_item",
-           "mark_items", "masked_below_lod", "pack_array", "read_array", "read_items", "store_evidence",
-           "unpack_array"]
+           "maps_evidence", "mark_items", "masked_below_lod", "pack_array", "read_array", "read_items",
+           "store_evidence", "store_maps", "unpack_array"]

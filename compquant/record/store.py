@@ -66,6 +66,74 @@ def recorder_for_analysis(db, method) -> AnalysisRecorder | None:
     return AnalysisRecorder(open_record(location), chart)
 
 
+@dataclass
+class MapRecorder:
+    """A record opened before ``compquant map --db``: the recorded analysis of the run (the latest
+    when it was analysed more than once) whose samples the maps are stored for."""
+
+    record: Record
+    run_id: int
+    run_name: str
+    sample_ids: dict
+
+    def check_samples(self, sample_ids) -> None:
+        """Refuse maps of a sample that the record does not hold for this run (before files are written)."""
+        missing = [s for s in sample_ids if s not in self.sample_ids]
+        if missing:
+            self.record.dispose()
+            raise RecordError(f"sample {', '.join(missing)} of run {self.run_name} is not in the record",
+                              where=self.record.where, fix="analyse the run with these samples first ('compquant "
+                              "analyse RUN --db ...'), or leave out --db")
+
+    def store(self, maps: list[dict], who: str | None = None) -> list[str]:
+        """Store the map items (:func:`compquant.record.evidence.maps_evidence`) with an audit row."""
+        from compquant.record.evidence import store_maps
+
+        try:
+            with self.record.transaction() as conn:
+                names = store_maps(conn, self.run_id, self.sample_ids, maps)
+                conn.execute(S.audit.insert(), [self.record.audit_row(
+                    "store maps", self.run_name, "element maps", who=who,
+                    detail={"run_id": self.run_id, "maps": names})])
+            return names
+        finally:
+            self.record.dispose()
+
+
+def recorder_for_maps(db, run_path) -> MapRecorder | None:
+    """Open the record for ``compquant map`` (None when no record is given or configured) and find
+    the run by the SHA-256 of its file; a run the record does not hold is refused (:class:`RecordError`)."""
+    from compquant.record.db import is_url
+
+    location = configured(db)
+    if location is None:
+        return None
+    if not is_url(location) and not Path(location).expanduser().is_file():  # not a new, empty record
+        raise RecordError("no record here", where=str(location),
+                          fix="give the record the run was analysed into ('compquant analyse RUN --db ...')")
+    rec = open_record(location)
+    run_name = Path(run_path).name
+    try:
+        run_sha256 = sha256_file(run_path)
+    except BaseException:
+        rec.dispose()
+        raise
+    try:
+        with rec.transaction() as conn:
+            run_id = conn.execute(sa.select(S.runs.c.id).where(S.runs.c.sha256 == run_sha256)
+                                  .order_by(S.runs.c.id.desc())).scalars().first()
+            ids = {} if run_id is None else {r.sample_id: r.id for r in conn.execute(
+                sa.select(S.samples.c.sample_id, S.samples.c.id).where(S.samples.c.run_id == run_id)).all()}
+    except BaseException:
+        rec.dispose()
+        raise
+    if run_id is None:
+        rec.dispose()
+        raise RecordError(f"run {run_name} (SHA-256 {run_sha256[:12]}...) is not in the record", where=rec.where,
+                          fix="analyse it first with 'compquant analyse RUN --db ...', or leave out --db")
+    return MapRecorder(rec, int(run_id), run_name, ids)
+
+
 def _insert_run(conn, run_file, run_sha256, instrument, measured, method, basis, issued_at, chart, outdir, who):
     dates = sorted(v for v in measured.values() if v)
     desc = next((str(instrument[k]) for k in ("description", "name", "model", "id") if instrument.get(k)), "")
@@ -223,4 +291,4 @@ def store_analysis(rec: Record, *, run_file, run_sha256: str, instrument: dict, 
     return entries
 
 
-__all__ = ["store_analysis", "recorder_for_analysis", "AnalysisRecorder"]
+__all__ = ["store_analysis", "recorder_for_analysis", "recorder_for_maps", "AnalysisRecorder", "MapRecorder"]
