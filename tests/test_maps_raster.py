@@ -335,6 +335,10 @@ def test_map_with_db_is_stored_for_the_recorded_run_and_shown_on_the_review_page
     assert res.exit_code == 2 and not (tmp_path / "m0").exists(), res.output
     err = [ln for ln in res.output.splitlines() if ln.strip()]
     assert len(err) == 1 and err[0].startswith("error:") and "not in the record" in err[0], res.output
+    # the record only configured (COMPQUANT_DB), not asked for: the run is mapped, nothing stored
+    res = r.invoke(main, ["map", str(d / "scan.h5"), *common, "-o", str(tmp_path / "m-env")],
+                   env={"COMPQUANT_DB": str(db)})
+    assert res.exit_code == 0 and (tmp_path / "m-env" / "maps.h5").exists(), res.output
     res = r.invoke(main, ["analyse", str(d / "scan.h5"), *common, "-o", str(tmp_path / "a"), "--no-figures",
                           "--issued-at", "2026-12-01T12:00:00Z", "--measured", "2026-11-30T09:00:00Z", "--db", str(db)])
     assert res.exit_code == 0, res.output

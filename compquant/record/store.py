@@ -102,13 +102,23 @@ class MapRecorder:
 
 def recorder_for_maps(db, run_path) -> MapRecorder | None:
     """Open the record for ``compquant map`` (None when no record is given or configured) and find
-    the run by the SHA-256 of its file; a run the record does not hold is refused (:class:`RecordError`)."""
+    the run by the SHA-256 of its file.  With ``--db`` given, a missing record or a run the record
+    does not hold is refused (:class:`RecordError`); with the record only configured
+    (``COMPQUANT_DB``), such a run is mapped as without a record and a log line says the maps
+    were not stored (mapping a run that was never analysed stays possible)."""
+    import logging
+
     from compquant.record.db import is_url
 
     location = configured(db)
     if location is None:
         return None
+    explicit = db is not None
+    log = logging.getLogger("compquant")
     if not is_url(location) and not Path(location).expanduser().is_file():  # not a new, empty record
+        if not explicit:
+            log.info("maps not stored: no record at %s (COMPQUANT_DB)", location)
+            return None
         raise RecordError("no record here", where=str(location),
                           fix="give the record the run was analysed into ('compquant analyse RUN --db ...')")
     rec = open_record(location)
@@ -129,6 +139,9 @@ def recorder_for_maps(db, run_path) -> MapRecorder | None:
         raise
     if run_id is None:
         rec.dispose()
+        if not explicit:
+            log.info("maps not stored: run %s is not in the record %s (COMPQUANT_DB)", run_name, location)
+            return None
         raise RecordError(f"run {run_name} (SHA-256 {run_sha256[:12]}...) is not in the record", where=rec.where,
                           fix="analyse it first with 'compquant analyse RUN --db ...', or leave out --db")
     return MapRecorder(rec, int(run_id), run_name, ids)
