@@ -444,3 +444,22 @@ def test_terminal_as_standard_input_is_refused_for_lab_and_calibration(base_set,
     assert p.returncode == 2
     assert p.stderr.count("error:") == 1 and "standard input is a terminal" in p.stderr
     assert not (tmp_path / "out").exists()
+
+
+def test_lab_profile_from_standard_input_in_multi_run_mode(base_set, tmp_path):
+    import shutil
+
+    runs = tmp_path / "runs"
+    runs.mkdir()
+    for name in ("a", "b"):
+        shutil.copy(base_set["run"], runs / f"{name}.h5")
+    argv = ["analyse", str(runs / "a.h5"), str(runs / "b.h5"), "--method", str(base_set["method"]),
+            "--calibration", str(base_set["cal"]), "--lab", "-", "-o", str(tmp_path / "out"), "--no-figures", "-q",
+            "--issued-at", ISSUED]
+    r = CliRunner().invoke(main, argv, input=base_set["lab"].read_bytes())
+    assert r.exit_code in (0, 3), r.output  # 3: the invented run states no measurement time
+    for name in ("a", "b"):  # read once, sent to each run's task by value: every certificate names it
+        files = {f["role"]: f for f in _certificate(tmp_path / "out" / name)["provenance"]["files"]}
+        assert files["lab profile"] == {"role": "lab profile", "name": "<stdin>",
+                                        "sha256": _sha256_hex(base_set["lab"].read_bytes())}
+        assert files["calibration"]["name"] == "cal.json"
