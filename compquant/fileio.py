@@ -256,6 +256,11 @@ STDIN_NAME = "<stdin>"
 #: input: far above any real one (the demo's standards file is 3 KiB), small enough to hold
 MAX_TABLE_BYTES = 16 * 1024 * 1024
 
+#: the largest calibration JSON read whole (file or standard input): a PLS model keeps its
+#: loadings and rotations per element (pixels x components numbers each), so it is allowed far
+#: more than a table of certified values; small enough to parse in memory
+MAX_CALIBRATION_BYTES = 256 * 1024 * 1024
+
 
 @dataclass(frozen=True)
 class InputBytes:
@@ -482,6 +487,7 @@ def json_ready(obj, nonfinite=None):
 
 __all__ = [
     "InputBytes",
+    "MAX_CALIBRATION_BYTES",
     "MAX_TABLE_BYTES",
     "STDIN_NAME",
     "STDIO",

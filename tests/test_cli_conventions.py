@@ -275,3 +275,191 @@ def test_standards_from_standard_input_in_multi_run_mode(tmp_path):
         cert = json.loads(next((tmp_path / "out" / name).glob("LOT-1*.json")).read_text())
         files = {f["role"]: f for f in cert["provenance"]["files"]}
         assert files["standards"] == {"name": "<stdin>", "role": "standards", "sha256": _sha256_hex(std.read_bytes())}
+
+
+# ------------------- '-' for the lab profile, the specification, the saved calibration, convert's samples
+
+
+ISSUED = "2026-12-01T12:00:00Z"
+
+
+@pytest.fixture(scope="module")
+def base_set(tmp_path_factory):
+    """The bad-input corpus's valid base set (run, method, standards, lab profile, specification) and a
+    calibration made from it."""
+    from bad_inputs.base import write_base_files
+
+    files = write_base_files(tmp_path_factory.mktemp("stdin-base"))
+    files["cal"] = files["run"].parent / "cal.json"
+    r = CliRunner().invoke(main, ["calibrate", str(files["run"]), "--method", str(files["method"]), "--standards",
+                                  str(files["standards"]), "-o", str(files["cal"]), "--quiet"])
+    assert r.exit_code == 0, r.output
+    return files
+
+
+def _analyse(files, out, stdin_opt=None, data=None):
+    """``analyse`` with the saved calibration, lab profile and specification; ``stdin_opt`` given ``-``
+    and its file piped in (or ``data``)."""
+    opts = {"--calibration": files["cal"], "--lab": files["lab"], "--spec": files["spec"]}
+    argv = ["analyse", str(files["run"]), "--method", str(files["method"]), "-o", str(out), "--no-figures", "-q",
+            "--issued-at", ISSUED]
+    for opt, path in opts.items():
+        argv += [opt, "-" if opt == stdin_opt else str(path)]
+    if data is None and stdin_opt:
+        data = opts[stdin_opt].read_bytes()
+    return CliRunner().invoke(main, argv, input=data)
+
+
+def _certificate(out: Path) -> dict:
+    import json
+
+    return json.loads(next(out.glob("LOT-1*.json")).read_text(encoding="utf-8"))
+
+
+@pytest.mark.parametrize("opt,role,key", [("--calibration", "calibration", "cal"), ("--lab", "lab profile", "lab"),
+                                          ("--spec", "specification", "spec")])
+def test_lab_spec_calibration_from_standard_input_give_the_file_results(base_set, tmp_path, opt, role, key):
+    r_file = _analyse(base_set, tmp_path / "file")
+    r_in = _analyse(base_set, tmp_path / "stdin", opt)
+    assert r_file.exit_code in (0, 3) and r_in.exit_code in (0, 3), r_in.output  # 3: no measurement time
+    assert r_in.exit_code == r_file.exit_code
+    c_file, c_in = _certificate(tmp_path / "file"), _certificate(tmp_path / "stdin")
+    f_file = {f["role"]: f for f in c_file["provenance"]["files"]}
+    f_in = {f["role"]: f for f in c_in["provenance"]["files"]}
+    # provenance: the SHA-256 (FIPS 180-4, hashlib) of the bytes piped in, named <stdin>; the file's own hash
+    data = base_set[key].read_bytes()
+    assert f_in[role] == {"role": role, "name": "<stdin>", "sha256": _sha256_hex(data)}
+    assert f_file[role] == {"role": role, "name": base_set[key].name, "sha256": _sha256_hex(data)}
+    # the same bytes give the same certificate: number, results, conformity, lab block (common practice:
+    # a certificate depends on what was read, not where from)
+    f_in[role] = f_file[role]
+    c_in["provenance"]["files"] = [f_in[f["role"]] for f in c_in["provenance"]["files"]]
+    if role == "calibration":  # the calibration block names the file applied, too
+        assert c_in["calibration"]["file_name"] == "<stdin>" and c_file["calibration"]["file_name"] == "cal.json"
+        assert c_in["calibration"]["file_sha256"] == c_file["calibration"]["file_sha256"] == _sha256_hex(data)
+        c_in["calibration"]["file_name"] = "cal.json"
+    assert c_in == c_file
+
+
+def test_calibration_from_standard_input_in_quantify(base_set, tmp_path):
+    import json
+
+    run, method, cal = str(base_set["run"]), str(base_set["method"]), base_set["cal"]
+    r_file = CliRunner().invoke(main, ["quantify", run, "--method", method, "--calibration", str(cal),
+                                       "-o", str(tmp_path / "file.csv"), "--quiet"])
+    r_in = CliRunner().invoke(main, ["quantify", run, "--method", method, "--calibration", "-",
+                                     "-o", str(tmp_path / "stdin.csv"), "--quiet"], input=cal.read_bytes())
+    assert r_file.exit_code == 0 and r_in.exit_code == 0, r_in.output
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "stdin.csv"), pd.read_csv(tmp_path / "file.csv"))
+    p_in = json.loads((tmp_path / "stdin-provenance.json").read_text())
+    p_file = json.loads((tmp_path / "file-provenance.json").read_text())
+    # SHA-256 (FIPS 180-4, hashlib) of the bytes piped in, which are the file's
+    assert p_in["calibration_path"] == "<stdin>" and p_file["calibration_path"] == str(cal.resolve())
+    assert p_in["calibration_file"] == {"name": "<stdin>", "sha256": _sha256_hex(cal.read_bytes())}
+    assert p_file["calibration_file"] == {"name": cal.name, "sha256": _sha256_hex(cal.read_bytes())}
+
+
+def test_convert_samples_from_standard_input(tmp_path):
+    import numpy as np
+
+    from compquant.run import Run
+
+    wl = np.linspace(300, 310, 20)
+    tab = tmp_path / "wide.csv"
+    tab.write_text("\n".join(["wavelength,CRM-1:1,CRM-1:2,LOT-9"]
+                             + [f"{w},{1 + i},{2 + i},{3 + i}" for i, w in enumerate(wl)]) + "\n")
+    samples = b"sample_id,role,standard_ref,description\nCRM-1,standard,CRM-1,first standard\nLOT-9,unknown,,lot 9\n"
+    smp = tmp_path / "samples.csv"
+    smp.write_bytes(samples)
+    r_file = CliRunner().invoke(main, ["convert", "--spectra", str(tab), "--samples", str(smp),
+                                       "-o", str(tmp_path / "file.h5")])
+    r_in = CliRunner().invoke(main, ["convert", "--spectra", str(tab), "--samples", "-",
+                                     "-o", str(tmp_path / "stdin.h5")], input=samples)
+    assert r_file.exit_code == 0 and r_in.exit_code == 0, r_in.output
+    with Run.open(tmp_path / "file.h5") as a, Run.open(tmp_path / "stdin.h5") as b:
+        pd.testing.assert_frame_equal(a.samples, b.samples)
+        # the wide table's values, shot by shot (the input itself)
+        np.testing.assert_array_equal(b.sample_spectra("LOT-9")[0], 3 + np.arange(20))
+        np.testing.assert_array_equal(a.sample_spectra("CRM-1"), b.sample_spectra("CRM-1"))
+
+
+def _one_error(r, *fragments):
+    assert r.exit_code == 2, r.output
+    errors = [ln for ln in r.stderr.splitlines() if ln.startswith("error:")]
+    assert len(errors) == 1 and "Traceback" not in r.output, r.stderr
+    for frag in fragments:
+        assert frag in errors[0], errors[0]
+
+
+@pytest.mark.parametrize("opt", ["--calibration", "--lab", "--spec"])
+def test_empty_standard_input_is_refused_for_each_option(base_set, tmp_path, opt):
+    r = _analyse(base_set, tmp_path / "out", opt, b"")
+    _one_error(r, "standard input is empty", "<stdin>")
+    assert not (tmp_path / "out").exists()
+
+
+def test_oversize_standard_input_is_refused(base_set, tmp_path, monkeypatch):
+    from compquant import fileio
+
+    # the lab profile: MAX_TABLE_BYTES (16 MiB) + 1 byte, a TOML comment that never ends
+    r = _analyse(base_set, tmp_path / "out", "--lab", b"#" * (fileio.MAX_TABLE_BYTES + 1))
+    _one_error(r, "larger than 16 MiB", "<stdin>")
+    # the calibration's own limit, looked up when the option is used (lowered here: 256 MiB is too much to pipe)
+    monkeypatch.setattr(fileio, "MAX_CALIBRATION_BYTES", 1024 * 1024)
+    r = CliRunner().invoke(main, ["quantify", str(base_set["run"]), "--calibration", "-", "-o",
+                                  str(tmp_path / "out" / "q.csv")], input=b" " * (1024 * 1024 + 1))
+    _one_error(r, "larger than 1 MiB", "<stdin>")
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("argv", [
+    ["analyse", "{run}", "--method", "{method}", "--standards", "-", "--lab", "-", "-o", "{out}"],
+    ["analyse", "{run}", "--method", "{method}", "--calibration", "-", "--spec", "-", "-o", "{out}"],
+    ["quantify", "{run}", "--calibration", "-", "--standards", "-", "-o", "{out}/q.csv"],
+])
+def test_a_second_dash_is_refused(base_set, tmp_path, argv):
+    argv = [a.format(run=base_set["run"], method=base_set["method"], out=tmp_path / "out") for a in argv]
+    r = CliRunner().invoke(main, argv, input=base_set["standards"].read_bytes())
+    _one_error(r, "only one input can be read from standard input")
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("opt", ["--lab", "--calibration"])
+def test_terminal_as_standard_input_is_refused_for_lab_and_calibration(base_set, tmp_path, opt):
+    # a real pseudo-terminal as standard input: the command must not wait for typing
+    import pty
+
+    master, slave = pty.openpty()
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    argv = ["analyse", str(base_set["run"]), "--method", str(base_set["method"]), opt, "-",
+            "-o", str(tmp_path / "out")]
+    if opt == "--lab":
+        argv += ["--calibration", str(base_set["cal"])]
+    try:
+        p = subprocess.run([sys.executable, "-m", "compquant", *argv], stdin=slave, capture_output=True, text=True,
+                           env=env, timeout=120)
+    finally:
+        os.close(master)
+        os.close(slave)
+    assert p.returncode == 2
+    assert p.stderr.count("error:") == 1 and "standard input is a terminal" in p.stderr
+    assert not (tmp_path / "out").exists()
+
+
+def test_lab_profile_from_standard_input_in_multi_run_mode(base_set, tmp_path):
+    import shutil
+
+    runs = tmp_path / "runs"
+    runs.mkdir()
+    for name in ("a", "b"):
+        shutil.copy(base_set["run"], runs / f"{name}.h5")
+    argv = ["analyse", str(runs / "a.h5"), str(runs / "b.h5"), "--method", str(base_set["method"]),
+            "--calibration", str(base_set["cal"]), "--lab", "-", "-o", str(tmp_path / "out"), "--no-figures", "-q",
+            "--issued-at", ISSUED]
+    r = CliRunner().invoke(main, argv, input=base_set["lab"].read_bytes())
+    assert r.exit_code in (0, 3), r.output  # 3: the invented run states no measurement time
+    for name in ("a", "b"):  # read once, sent to each run's task by value: every certificate names it
+        files = {f["role"]: f for f in _certificate(tmp_path / "out" / name)["provenance"]["files"]}
+        assert files["lab profile"] == {"role": "lab profile", "name": "<stdin>",
+                                        "sha256": _sha256_hex(base_set["lab"].read_bytes())}
+        assert files["calibration"]["name"] == "cal.json"

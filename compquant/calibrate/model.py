@@ -48,7 +48,7 @@ from compquant import __version__
 from compquant.calibrate.curve_models import TERMS
 from compquant.calibrate.fit import d_dxi, design_matrix, invert, slope_at
 from compquant.errors import CalibrationError
-from compquant.fileio import json_ready, require_file, write_text_atomic
+from compquant.fileio import MAX_CALIBRATION_BYTES, json_ready, read_input, write_text_atomic
 
 SCHEMA = "compquant.calibration"
 SCHEMA_VERSION = 1
@@ -298,16 +298,23 @@ class Calibration:
 
     @classmethod
     def load(cls, path, *, method_id: str | None = None, method_sha256: str | None = None) -> Calibration:
-        """Read a calibration JSON; refuse newer schemas and a different method id or hash."""
-        p = require_file(path, "calibration file")
+        """Read a calibration JSON; refuse newer schemas and a different method id or hash.
+
+        ``path``: the file, ``-`` for standard input (:func:`compquant.fileio.read_stdin`: refused
+        when a terminal or empty) or an :class:`~compquant.fileio.InputBytes` already read (the
+        caller keeps its ``name`` and ``sha256``, the SHA-256 of the bytes parsed, for provenance).
+        At most :data:`compquant.fileio.MAX_CALIBRATION_BYTES`.
+        """
+        src = read_input(path, "calibration file", limit=MAX_CALIBRATION_BYTES, error=CalibrationError)
+        where = src.where
         try:
-            d = json.loads(p.read_text(encoding="utf-8"))
+            d = json.loads(src.data.decode("utf-8"))
         except (json.JSONDecodeError, UnicodeDecodeError) as exc:
             raise CalibrationError(
-                f"not valid JSON ({exc})", where=str(p), fix="give the JSON written by 'compquant calibrate'"
+                f"not valid JSON ({exc})", where=where, fix="give the JSON written by 'compquant calibrate'"
             ) from None
-        cal = cls.from_dict(d, where=str(p))
-        cal.check_method(method_id, method_sha256, where=str(p))
+        cal = cls.from_dict(d, where=where)
+        cal.check_method(method_id, method_sha256, where=where)
         return cal
 
     def check_method(self, method_id=None, method_sha256=None, where="calibration") -> None:

@@ -26,7 +26,7 @@ _CLAIM = "compquant.stdin_option"
 STDIN_HELP = "'-' reads it from standard input."
 
 
-def _read_stdin_once(what: str):
+def _read_stdin_once(what: str, limit: int | str):
     def callback(ctx: click.Context, param: click.Parameter, value):
         if value is None or str(value) != "-":
             return value
@@ -37,21 +37,23 @@ def _read_stdin_once(what: str):
             raise InputError(f"only one input can be read from standard input, and {first} already is",
                              where=f"{name} -", fix=f"give {name} a file path")
         root.meta[_CLAIM] = name
-        from compquant.fileio import read_stdin
+        from compquant import fileio
 
-        return read_stdin(what)
+        return fileio.read_stdin(what, limit=getattr(fileio, limit) if isinstance(limit, str) else limit)
 
     return callback
 
 
-def table_input(*param_decls: str, what: str, help: str, **kwargs):
+def table_input(*param_decls: str, what: str, help: str, limit: int | str = "MAX_TABLE_BYTES", **kwargs):
     """A ``click.option`` for one input table, a file path or ``-`` for standard input.
 
     ``what`` names the table in messages ("standards file"); ``help`` is the option's help, to
-    which :data:`STDIN_HELP` is added.
+    which :data:`STDIN_HELP` is added; ``limit``: the most bytes read from standard input, a
+    number or the name of a :mod:`compquant.fileio` limit, looked up when the option is used
+    (default :data:`compquant.fileio.MAX_TABLE_BYTES`; the loader applies the same to a file).
     """
     return click.option(*param_decls, type=click.Path(dir_okay=False, allow_dash=True),
-                        callback=_read_stdin_once(what), help=f"{help} {STDIN_HELP}", **kwargs)
+                        callback=_read_stdin_once(what, limit), help=f"{help} {STDIN_HELP}", **kwargs)
 
 
 __all__ = ["STDIN_HELP", "table_input"]

@@ -6,7 +6,6 @@ import click
 
 from compquant.cli._common import SAFETY as _EPILOG  # short note; full text: compquant safety
 from compquant.cli._common import (
-    file_option,
     fold_scheduler,
     folder_option,
     method_option,
@@ -238,13 +237,16 @@ def _many_runs(run_paths, method_path, outdir, workers, scheduler, quiet, option
     what="standards file",
     help="Certified-standards file: calibrate from the standards measured in this run.",
 )
-@file_option(
+@table_input(
     "--calibration",
+    what="calibration file",
+    limit="MAX_CALIBRATION_BYTES",
     help="Saved calibration (JSON): apply it, with drift standardisation from setup samples.",
 )
 @click.option("--cf", is_flag=True, help="Calibration-free analysis (plasma physics, closure to 100 %).")
-@file_option("--lab", help="Lab profile (TOML): name, address, signatory.")
-@file_option("--spec", help="Specification (TOML): element limits and decision rule for a conformity statement.")
+@table_input("--lab", what="lab profile", help="Lab profile (TOML): name, address, signatory.")
+@table_input("--spec", what="specification",
+             help="Specification (TOML): element limits and decision rule for a conformity statement.")
 @folder_option("-o", "--outdir", help="Output folder.", required=True)
 @click.option("--client", help="Client name (overrides the lab profile's default).")
 @click.option("--received", metavar="YYYY-MM-DD", help="Date the samples were received.")

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import click
 
-from compquant.cli._common import file_option, output_option
+from compquant.cli._common import output_option
+from compquant.cli._stdin import table_input
 from compquant.errors import InputError
 
 
@@ -25,8 +26,9 @@ def _pairs(values, what):
 @click.command("convert")
 @click.option("--spectra", required=True, type=click.Path(exists=False),
               help="Folder of two-column files (one per shot) or one wide CSV table.")
-@file_option(
+@table_input(
     "--samples", "samples_csv",
+    what="samples CSV",
     help="Samples CSV: sample_id, role, standard_ref, description [, files].",
     required=True,
 )

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from compquant.cli._common import SAFETY, file_option, is_stdio, method_option, output_option, run_argument, write_csv
+from compquant.cli._common import SAFETY, is_stdio, method_option, output_option, run_argument, write_csv
 from compquant.cli._stdin import table_input
 from compquant.fileio import terminal_text
 
@@ -80,7 +80,8 @@ def results_text(q) -> str:
 
 @click.command("quantify", epilog=SAFETY)
 @run_argument
-@file_option("--calibration", "cal_path", help="Calibration JSON written by 'compquant calibrate'.", required=True)
+@table_input("--calibration", "cal_path", what="calibration file", limit="MAX_CALIBRATION_BYTES", required=True,
+             help="Calibration JSON written by 'compquant calibrate'.")
 @method_option("Method file [default: the one recorded in the calibration; must be identical].", required=False)
 @table_input(
     "--standards",
@@ -105,17 +106,20 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
     from compquant.calibrate import Calibration, load_standards
     from compquant.calibrate.apply import quantify
     from compquant.errors import CalibrationError
-    from compquant.fileio import atomic_write
+    from compquant.fileio import MAX_CALIBRATION_BYTES, STDIN_NAME, atomic_write, read_input
     from compquant.lines import measure_run
     from compquant.method import load_method
     from compquant.run import Run
 
-    cal = Calibration.load(cal_path)
+    # read once ('-': standard input, read already): the bytes parsed are the bytes hashed
+    cal_src = read_input(cal_path, "calibration file", limit=MAX_CALIBRATION_BYTES, error=CalibrationError)
+    cal = Calibration.load(cal_src)
     mpath = method_path or cal.method_path
     if not mpath:
-        raise CalibrationError("the calibration records no method file", where=cal_path, fix="give --method FILE")
+        raise CalibrationError("the calibration records no method file", where=cal_src.where,
+                               fix="give --method FILE")
     method = load_method(mpath)
-    cal.check_method(method.id, method.sha256, where=f"{cal_path} with {mpath}")
+    cal.check_method(method.id, method.sha256, where=f"{cal_src.where} with {mpath}")
     standards = load_standards(standards_path) if standards_path else None
     with Run.open(run_path) as run:
         lm = measure_run(run, method)
@@ -131,7 +135,8 @@ def command(run_path, cal_path, method_path, standards_path, output, quiet):
     prov = dict(q.provenance)
     prov.update(
         run_path=str(Path(run_path).resolve()),
-        calibration_path=str(Path(cal_path).resolve()),
+        calibration_path=str(cal_src.path.resolve()) if cal_src.path is not None else STDIN_NAME,
+        calibration_file={"name": cal_src.name, "sha256": cal_src.sha256},
         method_path=str(Path(mpath).resolve()),
         standards=None if standards is None else {"name": standards.attrs["name"], "path": standards.attrs["path"],
                                                   "sha256": standards.attrs["sha256"]},

@@ -40,10 +40,9 @@ import datetime as _dt
 import math
 import re
 from dataclasses import dataclass, field
-from pathlib import Path
 
 from compquant.errors import ConfigError
-from compquant.fileio import check_keys, load_toml, sha256_file
+from compquant.fileio import STDIN_NAME, check_keys, parse_toml, read_input
 from compquant.report.conformity import RULES
 from compquant.settings import REQUIRED, Setting, Table
 
@@ -202,11 +201,29 @@ LAB_PROFILE_TABLES = (LAB_TABLE, SIGNATORY_TABLE, CLIENT_TABLE, SAMPLES_TABLE, R
 _FIELD_PREFIX = {"lab": "", "signatory": "signatory_", "client": "client_", "samples": "sample_"}
 
 
+def _read_toml(source, what: str):
+    """``(data, src)``: a TOML file, ``-`` (standard input) or an :class:`~compquant.fileio.InputBytes`
+    read once (:func:`compquant.fileio.read_input`, at most ``MAX_TABLE_BYTES``) and parsed; the
+    bytes parsed are the bytes hashed (``src.sha256``)."""
+    src = read_input(source, what, error=ConfigError)
+    return parse_toml(src.text(ConfigError, what), src.where), src
+
+
+def _source_name(src) -> str:
+    """The path provenance keeps for an input: the file's path, or ``<stdin>``."""
+    return str(src.path) if src.path is not None else STDIN_NAME
+
+
 def load_lab_profile(path) -> LabProfile:
-    """Read and validate a lab profile TOML file; raise :class:`ConfigError` naming file and key."""
-    p = Path(path)
-    data = load_toml(p, "lab profile")
-    w = str(p)
+    """Read and validate a lab profile TOML file; raise :class:`ConfigError` naming file and key.
+
+    ``path``: the file, ``-`` for standard input (:func:`compquant.fileio.read_stdin`: refused when
+    a terminal or empty, at most 16 MiB) or an :class:`~compquant.fileio.InputBytes` already read.
+    ``source`` is the path (``<stdin>`` for standard input) and ``sha256`` the SHA-256 (FIPS 180-4)
+    of the bytes parsed.
+    """
+    data, src = _read_toml(path, "lab profile")
+    w = src.where
     check_keys(data, {t.name for t in LAB_PROFILE_TABLES}, w, required={"lab", "signatory"})
     v = {t.name: t.parse(data.get(t.name, {}), f"{w} [{t.name}]", ConfigError) for t in LAB_PROFILE_TABLES}
     prefix = v["lab"]["certificate_prefix"]
@@ -219,7 +236,7 @@ def load_lab_profile(path) -> LabProfile:
     # LabProfile's fields are the tables' keys, prefixed by their table (signatory_name ...)
     kw = {_FIELD_PREFIX[t] + k: x for t, vals in v.items() if t in _FIELD_PREFIX for k, x in vals.items()}
     kw["certificate_prefix"] = prefix.upper()
-    return LabProfile(**kw, source=str(p), sha256=sha256_file(p), review_required=v["review"]["required"])
+    return LabProfile(**kw, source=_source_name(src), sha256=src.sha256, review_required=v["review"]["required"])
 
 
 @dataclass
@@ -274,10 +291,14 @@ LIMIT_TABLE = Table("limits.<El>", (
 
 
 def load_specification(path) -> Specification:
-    """Read and validate a specification TOML file; raise :class:`ConfigError` naming file and key."""
-    p = Path(path)
-    data = load_toml(p, "specification")
-    w = str(p)
+    """Read and validate a specification TOML file; raise :class:`ConfigError` naming file and key.
+
+    ``path``: the file, ``-`` for standard input or an :class:`~compquant.fileio.InputBytes`
+    already read, as for :func:`load_lab_profile`; ``path`` of the result is the file's path
+    (``<stdin>`` for standard input), ``sha256`` that of the bytes parsed.
+    """
+    data, src = _read_toml(path, "specification")
+    w = src.where
     check_keys(data, {"specification", "limits"}, w, required={"specification", "limits"})
     spec = SPECIFICATION_TABLE.parse(data["specification"], f"{w} [specification]", ConfigError)
     rule = spec["decision_rule"]
@@ -333,8 +354,8 @@ def load_specification(path) -> Specification:
         decision_rule=rule,
         limits=out,
         source=spec["source"],
-        path=str(p),
-        sha256=sha256_file(p),
+        path=_source_name(src),
+        sha256=src.sha256,
     )
 
 

@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from compquant.errors import InputError
-from compquant.fileio import require_file
+from compquant.fileio import read_input, require_file
 from compquant.run._checks import check_samples, check_wavelength
 from compquant.run.mask import (
     REASON_NONFINITE,
@@ -112,10 +112,11 @@ def read_two_column(path: Path) -> tuple[np.ndarray, np.ndarray]:
     return np.asarray(wl), np.asarray(y)
 
 
-def _read_samples(path: Path) -> pd.DataFrame:
-    require_file(path, "samples CSV")
+def _read_samples(src) -> pd.DataFrame:
+    """The samples table from ``src`` (:class:`compquant.fileio.InputBytes`: a file or standard input, read once)."""
+    path = src.where
     try:
-        df = pd.read_csv(path, dtype=str, keep_default_na=False)
+        df = pd.read_csv(io.BytesIO(src.data), dtype=str, keep_default_na=False)
     except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError) as exc:
         raise InputError(f"cannot read the samples table ({exc})", where=str(path),
                          fix="give a CSV with columns sample_id, role, standard_ref, description") from exc
@@ -257,13 +258,17 @@ def convert_to_run(spectra: str | Path, samples_csv: str | Path, output: str | P
     sample listed without spectra is an error. Inputs are only read. Non-finite,
     sentinel (``sentinels``, e.g. ``-9999``) and implausible values (compquant.run.mask)
     become masked pixels: stored as NaN, listed in the run's ``/mask`` and in the report.
+    ``samples_csv``: a file, ``-`` for standard input or an :class:`compquant.fileio.InputBytes`
+    already read (:func:`compquant.fileio.read_input`; at most ``MAX_TABLE_BYTES``).
     """
     spectra = Path(spectra)
-    samples = _read_samples(Path(samples_csv))
+    src = read_input(samples_csv, "samples CSV")
+    samples = _read_samples(src)
+    samples_file = src.path.resolve() if src.path is not None else None
     report = ConvertReport(output=Path(output))
     if spectra.is_dir():
         files = sorted(f for f in spectra.rglob("*") if f.is_file() and f.suffix.lower() in SPECTRUM_SUFFIXES
-                       and f.resolve() != Path(samples_csv).resolve())
+                       and f.resolve() != samples_file)
         if not files:
             raise InputError("the spectra folder holds no .txt/.csv/.tsv/.dat/.asc files", where=str(spectra),
                              fix="put one two-column file per shot in the folder")

@@ -16,8 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
-from compquant.errors import ConfigError, InputError
-from compquant.fileio import refuse_overwriting_inputs, require_file
+from compquant.errors import CalibrationError, ConfigError, InputError
+from compquant.fileio import MAX_CALIBRATION_BYTES, read_input, refuse_overwriting_inputs, require_file
 from compquant.report import FileRef, assemble, load_lab_profile, load_specification, release
 from compquant.report.config import LabProfile
 
@@ -80,9 +80,9 @@ class Job:
     standards: object = None
     calibration: object = None
     cf: bool = False
-    lab: object = None  # the lab profile file given (None: the default profile)
+    lab: object = None  # the lab profile given, as read (fileio.InputBytes; None: the default profile)
     labp: LabProfile | None = None
-    spec: object = None  # the specification file given
+    spec: object = None  # the specification given, as read (fileio.InputBytes)
     specp: object = None
     outdir: Path = Path("compquant-out")
     client: str | None = None
@@ -132,6 +132,11 @@ def prepare(run_path, method_path, *, standards=None, calibration=None, cf=False
     issued = _norm_issued_at(issued_at)
     run_path = require_file(run_path, "run file")
     method = load_method(method_path)
+    # read once ('-': standard input, or an InputBytes read already): what is parsed is what is hashed
+    if lab is not None:
+        lab = read_input(lab, "lab profile", error=ConfigError)
+    if spec is not None:
+        spec = read_input(spec, "specification", error=ConfigError)
     labp = load_lab_profile(lab) if lab is not None else _default_lab()
     specp = load_specification(spec) if spec is not None else None
     files = [FileRef("run", run_path.name, ""), FileRef("method", Path(method_path).name, method.sha256 or "")]
@@ -176,7 +181,6 @@ def _check_step_settings(job: Job) -> None:
         job.cf_settings = CFSettings.from_section(method.sections.get("cf"), where=f"{method.where}: [cf]")
     elif job.standards is not None:
         from compquant.calibrate import load_standards, parse_calibration_section
-        from compquant.fileio import read_input
 
         job.standards = read_input(job.standards, "standards file")  # read once: '-' is standard input
         load_standards(job.standards)
@@ -184,8 +188,10 @@ def _check_step_settings(job: Job) -> None:
     else:
         from compquant.calibrate import Calibration
 
-        cal_file = require_file(job.calibration, "calibration file")
-        Calibration.load(cal_file, method_id=method.id, method_sha256=method.sha256)
+        # read once ('-' is standard input): the bytes checked here are those applied and hashed
+        job.calibration = read_input(job.calibration, "calibration file", limit=MAX_CALIBRATION_BYTES,
+                                     error=CalibrationError)
+        Calibration.load(job.calibration, method_id=method.id, method_sha256=method.sha256)
 
 
 @dataclass

@@ -15,8 +15,8 @@ import hashlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from compquant.errors import ConfigError
-from compquant.fileio import require_file, sha256_file
+from compquant.errors import CalibrationError, ConfigError
+from compquant.fileio import MAX_CALIBRATION_BYTES, read_input, sha256_file
 from compquant.report import CheckResult, DriftInfo, FileRef, assemble, release
 from compquant.report.numbers import finite
 
@@ -166,11 +166,10 @@ def calibration_for(job, m, qd: Quantified):
 
     method = job.method
     if job.standards is None:
-        cal_path = require_file(job.calibration, "calibration file")
-        cal = Calibration.load(cal_path, method_id=method.id, method_sha256=method.sha256)
-        cal_sha = sha256_file(cal_path)
-        job.files.append(FileRef("calibration", cal_path.name, cal_sha))
-        qd.cal_info = assemble.calibration_info(cal, cal_path.name, cal_sha)
+        src = read_input(job.calibration, "calibration file", limit=MAX_CALIBRATION_BYTES, error=CalibrationError)
+        cal = Calibration.load(src, method_id=method.id, method_sha256=method.sha256)  # the bytes hashed
+        job.files.append(FileRef("calibration", src.name, src.sha256))
+        qd.cal_info = assemble.calibration_info(cal, src.name, src.sha256)
         return cal, None
     stds = load_standards(job.standards)
     job.files.append(FileRef("standards", stds.attrs["name"], stds.attrs["sha256"]))

@@ -102,7 +102,8 @@ def build_more(cases, folder, new_dir, command, run_case, good, M, MCF, S, L, SP
     c = SimpleNamespace(add=add, new_dir=new_dir, command=command, run_case=run_case, good=good, folder=folder, M=M,
                         MCF=MCF, S=S, L=L, SP=SP, CAL=CAL, map_run=_raster_run(folder / "raster.h5"))
     sections = (_calibration_cases, _map_cases, _text_cases, _certificate_text_cases, _injection_cases,
-                _output_cases, _scheduler_cases, _option_cases, _message_cases, _not_a_file_cases, _stdin_cases)
+                _output_cases, _scheduler_cases, _option_cases, _message_cases, _not_a_file_cases, _stdin_cases,
+                _stdin_config_cases)
     for section in sections:
         section(c)
 
@@ -601,3 +602,110 @@ def _stdin_cases(c) -> None:
     add("stdin_standards_stdout_results@quantify", ["quantify", good, "--calibration", CAL, "--method", M,
                                                      "--standards", "-", "-o", "-"], [], None, stdin=S.read_bytes(),
         check=csv_on_stdout)
+
+
+def _stdin_config_cases(c) -> None:
+    """Issue 20, item 3 (continued): '-' for the lab profile, the specification, the saved calibration
+    and convert's samples table: what is piped in is checked like the file, named ``<stdin>``."""
+    import hashlib
+
+    from compquant.fileio import MAX_TABLE_BYTES
+
+    add, good, M, S, L, SP, CAL, folder = c.add, c.good, c.M, c.S, c.L, c.SP, c.CAL, c.folder
+    o = folder / "stdin-config"
+    lab, spec = L.read_text(encoding="utf-8"), SP.read_text(encoding="utf-8")
+    cal_doc = json.loads(CAL.read_text(encoding="utf-8"))
+    other_method = dict(cal_doc, method_id="ANOTHER-METHOD") if cal_doc else {}
+    hdf5 = good.read_bytes()[:4096]
+
+    def analyse(opt, label):
+        out = o / f"a-{opt.strip('-')}-{label}"
+        argv = ["analyse", good, "--method", M, "-o", out, "--quiet", "--no-figures", "--issued-at", ISSUED]
+        for name, path in (("--calibration", CAL), ("--lab", L), ("--spec", SP)):
+            argv += [name, "-" if name == opt else path]
+        return argv, [out]
+
+    table = (
+        ("--lab", (
+            ("empty", b"", ["standard input is empty"]),
+            ("bad_toml", b"[lab\nname = 1\n", ["not valid TOML"]),
+            ("unknown_table", (lab + "\n[extra]\nx = 1\n").encode(), ["unknown key(s) 'extra'"]),
+            ("not_utf8", b"\xff\xfe[lab]\n", ["lab profile is not UTF-8"]),
+            ("hdf5_bytes", hdf5, ["not UTF-8"]),
+            ("bad_prefix", lab.replace('"TBL"', '"T-B"').encode(), ["certificate_prefix"]),
+            ("escape_in_prefix", lab.replace('"TBL"', '"T\\u001b[31mB"').encode(), ["certificate_prefix", "\\x1b"]),
+        )),
+        ("--spec", (
+            ("empty", b"", ["standard input is empty"]),
+            ("too_large", b"#" * (MAX_TABLE_BYTES + 1), ["larger than 16 MiB"]),
+            ("unknown_element", spec.replace("limits.Zn", "limits.Zq").encode(), ["'Zq' is not an element"]),
+            ("bad_rule", spec.replace("simple-acceptance", "coin-toss").encode(), ["unknown decision_rule"]),
+        )),
+        ("--calibration", (
+            ("empty", b"", ["standard input is empty"]),
+            ("not_json", b"{not json", ["not valid JSON"]),
+            ("not_a_calibration", b"{}", ["not a compquant calibration"]),
+            ("hdf5_bytes", hdf5, ["not valid JSON"]),
+            ("other_method", json.dumps(other_method).encode(),
+             ["made with method 'ANOTHER-METHOD'" if cal_doc else "not a compquant calibration"]),
+        )),
+    )
+    for opt, cases in table:
+        for label, data, expect in cases:
+            argv, outs = analyse(opt, label)
+            add(f"stdin_{opt.strip('-')}_{label}@analyse", argv, outs, expect, "<stdin>", stdin=data)
+    q = o / "q-not-json"
+    add("stdin_calibration_not_json@quantify", ["quantify", good, "--calibration", "-", "--method", M, "-o",
+                                                q / "r.csv"], [q], ["not valid JSON"], "<stdin>", stdin=b"{not json")
+    # one '-' per command: the second is refused before anything is read for it
+    for name, argv in (
+        ("standards_and_lab@analyse", ["analyse", good, "--method", M, "--standards", "-", "--lab", "-",
+                                       "-o", o / "two-a", "--quiet"]),
+        ("calibration_and_spec@analyse", ["analyse", good, "--method", M, "--calibration", "-", "--spec", "-",
+                                          "-o", o / "two-b", "--quiet"]),
+        ("calibration_and_standards@quantify", ["quantify", good, "--calibration", "-", "--standards", "-",
+                                                "-o", o / "two-q" / "r.csv"]),
+    ):
+        out = Path(argv[argv.index("-o") + 1])
+        add(f"stdin_second_dash_{name}", argv, [out if out.suffix == "" else out.parent],
+            ["only one input can be read from standard input"], stdin=S.read_bytes())
+    # convert --samples -: the samples table piped in, checked like the file
+    wide = o / "wide.csv"
+    wide.parent.mkdir(parents=True, exist_ok=True)
+    wide.write_text("wavelength,LOT-1\n" + "".join(f"{300 + 0.1 * i:.1f},{100 + i}\n" for i in range(20)),
+                    encoding="utf-8")
+    head = b"sample_id,role,standard_ref,description\n"
+    for label, data, expect in (
+        ("empty", b"", ["standard input is empty"]),
+        ("bad_role", head + b"LOT-1,mystery,,lot 1\n", ["mystery"]),
+        ("no_sample_id", b"id,role\nLOT-1,unknown\n", ["needs columns 'sample_id' and 'role'"]),
+        ("hdf5_bytes", hdf5, ["cannot read the samples table"]),
+    ):
+        out = o / f"conv-{label}"
+        add(f"stdin_samples_{label}@convert", ["convert", "--spectra", wide, "--samples", "-", "-o", out / "r.h5"],
+            [out], expect, "<stdin>", inputs=[wide], stdin=data)
+
+    # and what must work: the certificate names <stdin> with the bytes' SHA-256; quantify records both
+    def named(role, path):
+        sha = hashlib.sha256(path.read_bytes()).hexdigest()
+
+        def check(case, result):
+            cert = json.loads(next(case.outputs[0].glob("LOT-*.json")).read_text(encoding="utf-8"))
+            files = {f["role"]: f for f in cert["provenance"]["files"]}
+            assert files[role] == {"role": role, "name": "<stdin>", "sha256": sha}, files
+
+        return check
+
+    for opt, role, path in (("--lab", "lab profile", L), ("--spec", "specification", SP),
+                            ("--calibration", "calibration", CAL)):
+        argv, outs = analyse(opt, "ok")
+        add(f"stdin_{opt.strip('-')}_works@analyse", argv, outs, None, stdin=path.read_bytes(), check=named(role, path))
+
+    def cal_recorded(case, result):
+        prov = json.loads((o / "q-ok" / "r-provenance.json").read_text(encoding="utf-8"))
+        assert prov["calibration_path"] == "<stdin>"
+        assert prov["calibration_file"] == {"name": "<stdin>", "sha256": hashlib.sha256(CAL.read_bytes()).hexdigest()}
+
+    add("stdin_calibration_works@quantify", ["quantify", good, "--calibration", "-", "--method", M, "-o",
+                                             o / "q-ok" / "r.csv", "--quiet"], [o / "q-ok"], None,
+        stdin=CAL.read_bytes(), check=cal_recorded)
