@@ -118,3 +118,21 @@ def test_calibration_and_results_from_view_equal_long_table():
     qa = quantify((lt, st, sm), a, run_sha256="r").results
     qb = quantify((lt, view, sm), a, run_sha256="r").results
     pd.testing.assert_frame_equal(qa, qb, check_exact=True)
+
+
+@pytest.mark.parametrize("shot_numbers", [[3, 1, 2, 0, 5, 4], [0, 1, 1, 2, 3, 3]])
+def test_responses_with_unsorted_or_repeated_shot_numbers(shot_numbers):
+    # shot numbers out of order, or repeated within a sample (a run file may hold either): the view
+    # must give what the long table gives (sorted by shot; repeated shots merged pairwise by pandas)
+    rng = np.random.default_rng(7)
+    inten = rng.uniform(50, 150, (12, 2))
+    sidx = np.repeat([0, 1], 6)
+    view = ShotView(["A", "B"], ["L1", "L2"], sidx, np.array(shot_numbers * 2), inten,
+                    np.array([True] * 5 + [False] + [True] * 6), np.zeros((12, 2), bool))
+    lt = pd.DataFrame([{"sample_id": s, "line_id": lid, "intensity": 100.0, "u_intensity": 1.0, "n_shots": 6,
+                        "flags": ""} for s in "AB" for lid in ("L1", "L2")])
+    for istd in (None, "L2"):
+        a = sample_responses(lt, "L1", istd, view.to_frame())
+        b = sample_responses(lt, "L1", istd, view)
+        pd.testing.assert_frame_equal(a.drop(columns="shots"), b.drop(columns="shots"), check_exact=True)
+        assert all(np.array_equal(x, y) for x, y in zip(a["shots"], b["shots"], strict=True))

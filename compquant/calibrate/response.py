@@ -26,6 +26,13 @@ def _line_rows(line_table: pd.DataFrame, line_id: str) -> pd.DataFrame:
     return line_table[line_table["line_id"] == line_id].set_index("sample_id")
 
 
+def _by_shot(g: pd.DataFrame) -> pd.DataFrame:
+    """``g.sort_values("shot")``; ``g`` itself (no copy) when its shot numbers already strictly
+    increase, which is the same frame: the identity order, whatever the sorting algorithm."""
+    s = g["shot"]
+    return g if s.is_monotonic_increasing and s.is_unique else g.sort_values("shot")
+
+
 def sample_responses(
     line_table: pd.DataFrame,
     line_id: str,
@@ -61,9 +68,9 @@ def sample_responses(
             )
     shots_a = shots_s = None
     if hasattr(shot_table, "line_frames") and len(shot_table):  # compact view: per sample, one line
-        shots_a = {k: g.sort_values("shot") for k, g in shot_table.line_frames(line_id).items()}
+        shots_a = {k: _by_shot(g) for k, g in shot_table.line_frames(line_id).items()}
         if internal_standard:
-            shots_s = {k: g.sort_values("shot") for k, g in shot_table.line_frames(internal_standard).items()}
+            shots_s = {k: _by_shot(g) for k, g in shot_table.line_frames(internal_standard).items()}
     elif shot_table is not None and len(shot_table):
         if "accepted" in shot_table:
             shot_table = shot_table[shot_table["accepted"].astype(bool)]
