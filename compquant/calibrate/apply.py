@@ -118,7 +118,10 @@ def _tables(measurement):
             where="quantify",
             fix="pass the result of compquant.lines.measure_run",
         )
-    st = next(
+    # the compact per-shot view first (LineMeasurement.shot_view): ``shots`` would build the whole
+    # long table (about 35 bytes per shot x line)
+    view = getattr(measurement, "shot_view", None)
+    st = view if hasattr(view, "line_frames") else next(
         (
             getattr(measurement, n)
             for n in ("shots", "shot_table", "per_shot")

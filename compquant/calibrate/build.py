@@ -141,7 +141,7 @@ def calibrate(
     standards: pd.DataFrame,
     config: CalibrationConfig,
     *,
-    shot_table: pd.DataFrame | None = None,
+    shot_table=None,
     samples: pd.DataFrame | None = None,
     method_id: str = "method",
     method_version: str = "",
@@ -158,7 +158,9 @@ def calibrate(
     :class:`CalibrationError` is raised.  An internal-standard line that is a resonance line or
     self-absorbed over the standards (:func:`compquant.calibrate.istd_check.check_calibration`)
     gives an :class:`~compquant.calibrate.istd_check.InternalStandardWarning` with alternatives,
-    kept in each curve's ``diagnostics["internal_standard"]``.  ``pls``: optional fitted PLS block
+    kept in each curve's ``diagnostics["internal_standard"]``.  ``shot_table``: the long per-shot
+    table or, using memory independent of the number of lines, ``LineMeasurement.shot_view``
+    (:func:`compquant.calibrate.response.sample_responses`).  ``pls``: optional fitted PLS block
     (``compquant.calibrate.pls``) stored in the calibration.
     """
     smap = standard_map(line_table, samples)

@@ -26,14 +26,26 @@ def _line_rows(line_table: pd.DataFrame, line_id: str) -> pd.DataFrame:
     return line_table[line_table["line_id"] == line_id].set_index("sample_id")
 
 
+def _by_shot(g: pd.DataFrame) -> pd.DataFrame:
+    """``g.sort_values("shot")``; ``g`` itself (no copy) when its shot numbers already strictly
+    increase, which is the same frame: the identity order, whatever the sorting algorithm."""
+    s = g["shot"]
+    return g if s.is_monotonic_increasing and s.is_unique else g.sort_values("shot")
+
+
 def sample_responses(
     line_table: pd.DataFrame,
     line_id: str,
     internal_standard: str | None = None,
-    shot_table: pd.DataFrame | None = None,
+    shot_table=None,
     where: str = "calibration",
 ) -> pd.DataFrame:
     """Per sample: ``y, u_y, n_shots, flags`` and ``shots`` (array of per-shot responses or None).
+
+    ``shot_table``: the long per-shot table (``sample_id, shot, line_id, intensity[, accepted]``),
+    or a :class:`compquant.lines.shotview.ShotView` (``LineMeasurement.shot_view``), which gives the
+    same rows per sample for the analyte and internal-standard lines only, so memory stays
+    independent of the number of lines; None: no per-shot values.
 
     Raises CalibrationError when the analyte (or internal-standard) line is not in
     the line table.
@@ -55,7 +67,11 @@ def sample_responses(
                 fix="add it to the method's [[lines]] or fix the line id",
             )
     shots_a = shots_s = None
-    if shot_table is not None and len(shot_table):
+    if hasattr(shot_table, "line_frames") and len(shot_table):  # compact view: per sample, one line
+        shots_a = {k: _by_shot(g) for k, g in shot_table.line_frames(line_id).items()}
+        if internal_standard:
+            shots_s = {k: _by_shot(g) for k, g in shot_table.line_frames(internal_standard).items()}
+    elif shot_table is not None and len(shot_table):
         if "accepted" in shot_table:
             shot_table = shot_table[shot_table["accepted"].astype(bool)]
         sa = shot_table[shot_table["line_id"] == line_id]

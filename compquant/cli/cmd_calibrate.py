@@ -93,7 +93,7 @@ def command(run_path, method_path, standards_path, output, plots_dir, quiet):
         lm = measure_run(run, method)
         samples = run.samples
         run_sha = run.sha256()
-    shots = lm.shots
+    shots = lm.shot_view  # per-shot values per sample and line, not the whole long table
     pls = fit_pls_block(cfg, lm, samples, standards) if cfg.pls else None
     cal = calibrate(
         lm.table,

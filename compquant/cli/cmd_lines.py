@@ -70,12 +70,37 @@ def _short_table(table, max_rows: int = 60) -> str:
     return _columns(rows)
 
 
+def write_shots_csv(lm, path) -> None:
+    """The per-shot CSV (``sample_id, shot, line_id, intensity, accepted, saturated``), written in
+    blocks of rows from the measurement's compact arrays (``lm.shot_view``), so memory does not
+    grow with shots x lines; the bytes equal ``write_csv(lm.shots, path)``."""
+    import sys
+
+    from compquant.cli._common import safe_frame
+    from compquant.fileio import atomic_write
+
+    def _write(fh) -> None:
+        for i, block in enumerate(lm.shot_view.frames()):
+            safe_frame(block).to_csv(fh, index=False, header=i == 0, float_format="%.10g")
+
+    if is_stdio(path):
+        _write(sys.stdout)
+        return
+    try:
+        with atomic_write(Path(path), "w", newline="") as fh:
+            _write(fh)
+    except OSError as exc:
+        raise OutputError(
+            f"cannot write ({exc.strerror})", where=str(path), fix="choose a writable output path"
+        ) from exc
+
+
 def write_outputs(lm, out: Path, shots_out: Path | None, qc_out: Path) -> list[Path]:
     """Write the line table, per-shot table, QC report and provenance of one run; return the paths."""
     stem = out.with_suffix("")
     write_csv(lm.table, out)
     if shots_out is not None:
-        write_csv(lm.shots, shots_out)
+        write_shots_csv(lm, shots_out)
     if qc_out is None:  # line table on standard output (-o -) and no QC file asked for
         return [out] + ([shots_out] if shots_out is not None else [])
     qc = lm.qc.merge(lm.shifts, on="sample_id", how="left")

@@ -71,6 +71,7 @@ from compquant.lines._table import (
 )
 from compquant.lines.mean import mean_spectrum
 from compquant.lines.shotstore import ShotArray, spill_cells
+from compquant.lines.shotview import ShotView
 from compquant.method import Method
 
 __all__ = [
@@ -113,21 +114,20 @@ class LineMeasurement:
     )
 
     @property
+    def shot_view(self) -> ShotView:
+        """The per-shot table kept as the compact arrays (:class:`compquant.lines.shotview.ShotView`):
+        per-sample frames of one line and row blocks of the long table, built only when asked for,
+        so memory does not grow with shots x lines."""
+        return ShotView(self.sample_ids, self.line_ids, self.shot_sample, self.shot_number,
+                        self.shot_intensity, self.shot_accepted, self.shot_saturated)
+
+    @property
     def shots(self) -> pd.DataFrame:
-        """Per-shot table: sample_id, shot, line_id, intensity, accepted, saturated (long form)."""
-        n, k = self.shot_intensity.shape
-        sid = np.asarray(self.sample_ids, dtype=object)[self.shot_sample]
-        return pd.DataFrame(
-            {
-                "sample_id": np.repeat(sid, k),
-                "shot": np.repeat(self.shot_number, k),
-                "line_id": np.tile(np.asarray(self.line_ids, dtype=object), n),
-                "intensity": self.shot_intensity.reshape(-1),
-                "accepted": np.repeat(self.shot_accepted, k),
-                "saturated": self.shot_saturated.reshape(-1),
-            },
-            columns=SHOT_TABLE_COLUMNS,
-        )
+        """Per-shot table: sample_id, shot, line_id, intensity, accepted, saturated (long form).
+
+        Built whole in memory (about 35 bytes per shot x line); the steps of the tool use
+        :attr:`shot_view` instead."""
+        return self.shot_view.to_frame()
 
     def rejected_shots(self) -> pd.DataFrame:
         """Shots refused by QC: sample_id, shot, reason."""

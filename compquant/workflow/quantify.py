@@ -175,7 +175,7 @@ def calibration_for(job, m, qd: Quantified):
     job.files.append(FileRef("standards", stds.attrs["name"], stds.attrs["sha256"]))
     cfg = parse_calibration_section(method.sections.get("calibration"), source=method.where)
     job.tick("calibrate", 0, 1)
-    cal = calibrate(m.meas.table, stds, cfg, shot_table=m.meas.shots, samples=m.samples, method_id=method.id,
+    cal = calibrate(m.meas.table, stds, cfg, shot_table=m.meas.shot_view, samples=m.samples, method_id=method.id,
                     method_version=method.version, method_sha256=method.sha256 or "", run_sha256=m.run_sha,
                     run_path=str(job.run_path))
     cal.created_utc = job.issued  # the calibration is made now; keeps repeated runs identical
