@@ -36,9 +36,11 @@ def method_tables():
     from compquant.calibrate.config import TABLES as CALIBRATION
     from compquant.cflibs.settings import CF_TABLE
     from compquant.identify.settings import IDENTIFY_TABLE
+    from compquant.maps.build import MAP_TABLE
     from compquant.method import TABLES as METHOD
+    from compquant.record.charts import CHART_TABLE
 
-    return (*METHOD, *CALIBRATION, CF_TABLE, IDENTIFY_TABLE)
+    return (*METHOD, *CALIBRATION, CF_TABLE, IDENTIFY_TABLE, MAP_TABLE, CHART_TABLE)
 
 
 def render() -> str:

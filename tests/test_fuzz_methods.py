@@ -29,9 +29,11 @@ from compquant.calibrate.config import ANALYTE_TABLE, CALIBRATION_TABLE, PLS_TAB
 from compquant.cflibs.settings import CF_TABLE
 from compquant.errors import CompquantError
 from compquant.identify.settings import IDENTIFY_TABLE
+from compquant.maps.build import MAP_TABLE
 from compquant.method import LINE_KEYS as METHOD_LINE_KEYS
 from compquant.method import TABLES as METHOD_TABLES
 from compquant.method import TOP_LEVEL
+from compquant.record.charts import CHART_TABLE
 from compquant.run import Run, write_run
 from compquant.settings import REQUIRED
 
@@ -138,9 +140,8 @@ _value = st.recursive(
 # the keys of each table and plausible values come from the tables the packages declare
 # (compquant.settings): a key added to a table is fuzzed without editing this file
 SCHEMAS = {tuple(t.name.split(".")): t for t in (*METHOD_TABLES, CF_TABLE, IDENTIFY_TABLE, CALIBRATION_TABLE,
-                                                 PLS_TABLE) if not t.array}
+                                                 PLS_TABLE, MAP_TABLE, CHART_TABLE) if not t.array}
 KEYS = {path: list(t.keys) for path, t in SCHEMAS.items()}
-KEYS[("map",)] = ["lines", "step_mm", "samples"]  # [map] is checked by compquant.maps.build
 KEYS[()] = sorted(TOP_LEVEL)
 
 
@@ -177,7 +178,6 @@ RUN_VALUES = {
 PLAUSIBLE = {
     path: {s.key: RUN_VALUES.get(s.key) or plausible(s) for s in t.settings} for path, t in SCHEMAS.items()
 }
-PLAUSIBLE[("map",)] = {k: RUN_VALUES.get(k, []) for k in KEYS[("map",)]}
 LINE_KEYS = sorted(METHOD_LINE_KEYS)  # the keys the loader accepts in a [[lines]] entry
 
 
@@ -271,6 +271,7 @@ def exercise_method(path: Path, env: dict) -> list[str]:
     from compquant.lines import measure_run
     from compquant.maps.build import parse_map_section
     from compquant.method import load_method
+    from compquant.record.charts import parse_chart_section
 
     method = load_method(path)
     reached = ["loaded"]
@@ -278,6 +279,7 @@ def exercise_method(path: Path, env: dict) -> list[str]:
     for step in (
         lambda: settings_from_method(method),
         lambda: parse_map_section(method.sections.get("map"), method.where),
+        lambda: parse_chart_section(method.sections.get("control_chart"), method.where),
     ):
         try:
             step()

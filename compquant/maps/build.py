@@ -36,11 +36,9 @@ import numpy as np
 import pandas as pd
 
 from compquant.errors import DataQualityError, MethodError
-from compquant.fileio import check_keys
 from compquant.maps.grid import GridAccumulator, RasterGrid
 from compquant.maps.output import ElementMap, SampleMaps
-
-MAP_KEYS = frozenset({"lines", "step_mm", "samples"})
+from compquant.settings import Setting, Table
 
 #: shots added to the grids per block (bounded working memory)
 BLOCK_SHOTS = 65536
@@ -55,36 +53,34 @@ class MapSettings:
     samples: list[str] | None = None
 
 
+def _step(v, where, error):
+    """A grid step: one positive number (mm) or ``[dx, dy]``."""
+    vals = v if isinstance(v, list) else [v]
+    ok = len(vals) in (1, 2) and all(
+        isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) and x > 0 for x in vals)
+    if not ok:
+        raise error(f"step_mm {v!r} is not a positive finite number or [dx, dy]", where=where,
+                    fix="write step_mm = 0.05 or step_mm = [0.05, 0.1]")
+    return float(vals[0]) if len(vals) == 1 else (float(vals[0]), float(vals[1]))
+
+
+#: the ``[map]`` table of a method file (owned here)
+MAP_TABLE = Table("map", (
+    Setting("lines", "list", None, "one line per element to map (default: the first line of each element in "
+            "[[lines]])", item="str", nonempty=True, fix='write lines = ["..."]'),
+    Setting("step_mm", "any", None, "grid step, one number or [dx, dy] (default: inferred from the shot positions)",
+            "mm", check=_step),
+    Setting("samples", "list", None, "samples to map (default: every rastered sample)", item="str", nonempty=True,
+            fix='write samples = ["..."]'),
+), doc="Element maps of rastered samples (compquant map).", owner="compquant.maps.build")
+
+MAP_KEYS = frozenset(MAP_TABLE.keys)
+
+
 def parse_map_section(section: dict | None, where: str = "method") -> MapSettings:
-    """Check the method's ``[map]`` table (keys: lines, step_mm, samples)."""
-    w = f"{where}: [map]"
-    section = section or {}
-    if not isinstance(section, dict):
-        raise MethodError("[map] must be a table", where=w, fix="write [map] with key = value lines")
-    check_keys(section, MAP_KEYS, w, MethodError)
-    s = MapSettings()
-    for key in ("lines", "samples"):
-        if key in section:
-            v = section[key]
-            if not isinstance(v, list) or not v or not all(isinstance(x, str) for x in v):
-                raise MethodError(
-                    f"{key} must be a non-empty list of text", where=f"{w} {key}", fix=f'write {key} = ["..."]'
-                )
-            setattr(s, key, list(v))
-    if "step_mm" in section:
-        v = section["step_mm"]
-        vals = v if isinstance(v, list) else [v]
-        ok = len(vals) in (1, 2) and all(
-            isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) and x > 0 for x in vals
-        )
-        if not ok:
-            raise MethodError(
-                f"step_mm {v!r} is not a positive finite number or [dx, dy]",
-                where=f"{w} step_mm",
-                fix="write step_mm = 0.05 or step_mm = [0.05, 0.1]",
-            )
-        s.step_mm = float(vals[0]) if len(vals) == 1 else (float(vals[0]), float(vals[1]))
-    return s
+    """Check the method's ``[map]`` table through :data:`MAP_TABLE`."""
+    v = MAP_TABLE.parse(section or {}, f"{where}: [map]", MethodError)
+    return MapSettings(lines=v["lines"], step_mm=v["step_mm"], samples=v["samples"])
 
 
 def map_lines(method, settings: MapSettings) -> list[tuple[str, str]]:

@@ -43,6 +43,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from compquant.errors import MethodError
+from compquant.settings import Setting, Table
 
 #: d2 for moving ranges of two consecutive values (ISO 7870-2:2023, Table of factors; n = 2)
 D2_N2 = 1.128
@@ -80,33 +81,29 @@ class ChartSettings:
         return cls(**d)
 
 
-def parse_chart_section(section: dict | None, where: str = "method") -> ChartSettings:
-    """Validate a method's ``[control_chart]`` table (None: the defaults)."""
-    from compquant.fileio import check_keys
+#: the ``[control_chart]`` table of a method file (owned here; docs/record.md)
+CHART_TABLE = Table("control_chart", (
+    Setting("limits", "str", "first-runs", "where the limits come from: the check material's certified value "
+            "(ISO 7870-2 standard values given) or the first runs (moving range)",
+            choices=("first-runs", "certified")),
+    Setting("first_runs", "int", 20, "N for limits from the first runs (provisional until N runs exist)", min=2,
+            fix="e.g. first_runs = 20"),
+    Setting("k", "float", 2.0, "coverage factor of the certified values' U (sigma = U / k)", min=0, min_open=True,
+            fix="e.g. k = 2"),
+    Setting("rules", "list", [1, 2, 3, 5, 6], "tests for special causes a run must pass (ISO 7870-2, 1 to 8)",
+            item="int", min=1, max=8, fix="e.g. rules = [1, 2, 3]"),
+    Setting("block_release", "bool", False, "a broken rule at a run blocks the release of its certificates"),
+), doc="Shewhart individuals charts of check samples and drift factors (ISO 7870-2).",
+   owner="compquant.record.charts")
 
-    w = f"{where}: [control_chart]"
+
+def parse_chart_section(section: dict | None, where: str = "method") -> ChartSettings:
+    """Validate a method's ``[control_chart]`` table (None: the defaults) through :data:`CHART_TABLE`."""
     if section is None:
         return ChartSettings()
-    check_keys(section, {"limits", "first_runs", "k", "rules", "block_release"}, w, error=MethodError)
-    out = ChartSettings()
-    limits = section.get("limits", out.limits)
-    if limits not in ("certified", "first-runs"):
-        raise MethodError(f"limits {limits!r} is not known", where=f"{w}.limits", fix='use "certified" or "first-runs"')
-    n = section.get("first_runs", out.first_runs)
-    if not isinstance(n, int) or isinstance(n, bool) or n < 2:
-        raise MethodError("first_runs must be a whole number >= 2", where=f"{w}.first_runs", fix="e.g. first_runs = 20")
-    k = section.get("k", out.k)
-    if isinstance(k, bool) or not isinstance(k, (int, float)) or not math.isfinite(k) or k <= 0:
-        raise MethodError("k must be a positive number", where=f"{w}.k", fix="e.g. k = 2")
-    rules = section.get("rules", list(out.rules))
-    if not isinstance(rules, list) or any(isinstance(r, bool) or r not in RULE_TEXT for r in rules):
-        raise MethodError("rules must be a list of test numbers 1 to 8", where=f"{w}.rules",
-                          fix="e.g. rules = [1, 2, 3]")
-    block = section.get("block_release", out.block_release)
-    if not isinstance(block, bool):
-        raise MethodError("block_release must be true or false", where=f"{w}.block_release",
-                          fix="write block_release = true")
-    return ChartSettings(limits, n, float(k), tuple(sorted(set(rules))), block)
+    v = CHART_TABLE.parse(section, f"{where}: [control_chart]", MethodError)
+    return ChartSettings(v["limits"], v["first_runs"], float(v["k"]), tuple(sorted(set(v["rules"]))),
+                         v["block_release"])
 
 
 @dataclass

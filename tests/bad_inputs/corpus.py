@@ -556,7 +556,7 @@ def build_corpus(folder: Path, cal_json: Path | None) -> list[Case]:
     # ------------------------------------------------------------------ the lab's record (issue 14)
     analyse_case("lab_review_not_bool", "lab", ["required", "true or false"], "lab",
                  lab=LAB_TOML + '\n[review]\nrequired = "yes"\n')
-    analyse_case("method_control_chart_bad_limits", "method", ["limits", "not known"], "method",
+    analyse_case("method_control_chart_bad_limits", "method", ["limits", "unknown value"], "method",
                  method=METHOD_TOML + '\n[control_chart]\nlimits = "median"\n')
 
     def record_case(name, expect, make):
