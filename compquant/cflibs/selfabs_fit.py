@@ -125,46 +125,9 @@ class SelfAbsFit:
                 y_raw = np.log(self.L.intensity) + self.model.y0 - self.ln_zeta
                 b0 = self.initial_beta(s.t_start_k, ne_est, X, y_raw)
             if fit_length:
-                resid_f, _, bounds_f = self._residual_fn(X, groups, ne_est, False, None)
-                best = None
-                beta = b0
-                n_grid = 7 if coarse else 11
-                for L_try in np.geomspace(1e-5, 1.0, n_grid):  # cm
-                    resid_g, _, bounds_g = self._residual_fn(X, groups, ne_est, False, float(L_try))
-                    out = self._lsq(resid_g, beta, bounds_g, coarse=True)
-                    if out is None:
-                        continue
-                    chi_g, beta = out
-                    if best is None or chi_g < best[0]:
-                        best = (chi_g, beta.copy(), float(L_try))
-                if best is None:
-                    raise PhysicsError("the self-absorbed Saha–Boltzmann fit found no solution",
-                                       where=f"{self.where}: self-absorption correction",
-                                       fix="use weaker lines, or set self_absorption = 'detect'")
-                resid, _, bounds = self._residual_fn(X, groups, ne_est, True, None)
-                th0 = np.concatenate([best[1], [math.log(best[2])]])
-                out = self._lsq(resid, th0, bounds, coarse)
-                chi2, th = out if out is not None and out[0] <= best[0] else (best[0], th0)
-                L_cm = math.exp(th[-1])
-                beta = th[:-1]
+                chi2, beta, L_cm = self._fit_free_length(X, groups, ne_est, b0, coarse)
             else:
-                resid, _, bounds = self._residual_fn(X, groups, ne_est, False, length_cm)
-                cands = [b0] + [self.initial_beta(T0, ne_est, X, np.log(self.L.intensity) + self.model.y0
-                                                  - self.ln_zeta) for T0 in (s.t_start_k, 0.75 * s.t_start_k,
-                                                                              1.35 * s.t_start_k)]
-                best = None
-                for c in cands[: 2 if coarse else None]:
-                    out = self._lsq(resid, c, bounds, coarse)
-                    if out is not None and (best is None or out[0] < best[0]):
-                        best = out
-                    # a start that fits within the noise (χ²/ν ≤ 2) needs no other start
-                    if best is not None and best[0] <= 2.0 * max(self.L.n - X.shape[1], 1):
-                        break
-                if best is None:
-                    raise PhysicsError("the self-absorbed Saha–Boltzmann fit found no solution",
-                                       where=f"{self.where}: self-absorption correction",
-                                       fix="check the plasma length or use weaker lines")
-                chi2, beta = best
+                chi2, beta = self._fit_known_length(X, groups, ne_est, b0, length_cm, coarse)
             sa_new = np.maximum(self.sa_of_beta(beta, L_cm, ne_est, groups)[0], 1e-300)
             step = float(np.max(np.abs(np.log(sa_new) - np.log(sa))))
             sa = sa_new
@@ -174,6 +137,53 @@ class SelfAbsFit:
         sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
         _, tau = self.sa_cog(sol, L_cm, sa)
         return sa, sol, tau, ne_name, ne_est, L_cm, chi2
+
+    def _fit_free_length(self, X, groups, ne_est, b0, coarse):
+        """Fit with the plasma length L free: continuation along a logarithmic grid of L (cm) from
+        nearly thin to 1 cm, each step warm-started from the previous one, then the best grid point
+        refined with L free (see :meth:`nls_selfabs`).  Returns ``(chi2, beta, length_cm)``."""
+        best = None
+        beta = b0
+        n_grid = 7 if coarse else 11
+        for L_try in np.geomspace(1e-5, 1.0, n_grid):  # cm
+            resid_g, _, bounds_g = self._residual_fn(X, groups, ne_est, False, float(L_try))
+            out = self._lsq(resid_g, beta, bounds_g, coarse=True)
+            if out is None:
+                continue
+            chi_g, beta = out
+            if best is None or chi_g < best[0]:
+                best = (chi_g, beta.copy(), float(L_try))
+        if best is None:
+            raise PhysicsError("the self-absorbed Saha–Boltzmann fit found no solution",
+                               where=f"{self.where}: self-absorption correction",
+                               fix="use weaker lines, or set self_absorption = 'detect'")
+        resid, _, bounds = self._residual_fn(X, groups, ne_est, True, None)
+        th0 = np.concatenate([best[1], [math.log(best[2])]])
+        out = self._lsq(resid, th0, bounds, coarse)
+        chi2, th = out if out is not None and out[0] <= best[0] else (best[0], th0)
+        return chi2, th[:-1], math.exp(th[-1])
+
+    def _fit_known_length(self, X, groups, ne_est, b0, length_cm, coarse):
+        """Fit at a given plasma length (cm) from the start ``b0`` and starts with the slope fixed
+        at 1, 0.75 and 1.35 × ``t_start_k``; the lowest χ² wins.  Returns ``(chi2, beta)``."""
+        s = self.s
+        resid, _, bounds = self._residual_fn(X, groups, ne_est, False, length_cm)
+        cands = [b0] + [self.initial_beta(T0, ne_est, X, np.log(self.L.intensity) + self.model.y0
+                                          - self.ln_zeta) for T0 in (s.t_start_k, 0.75 * s.t_start_k,
+                                                                      1.35 * s.t_start_k)]
+        best = None
+        for c in cands[: 2 if coarse else None]:
+            out = self._lsq(resid, c, bounds, coarse)
+            if out is not None and (best is None or out[0] < best[0]):
+                best = out
+            # a start that fits within the noise (χ²/ν ≤ 2) needs no other start
+            if best is not None and best[0] <= 2.0 * max(self.L.n - X.shape[1], 1):
+                break
+        if best is None:
+            raise PhysicsError("the self-absorbed Saha–Boltzmann fit found no solution",
+                               where=f"{self.where}: self-absorption correction",
+                               fix="check the plasma length or use weaker lines")
+        return best
 
     def _can_drop(self, mask, ne_free: bool) -> bool:
         """Would the fit still determine T (and nₑ when fitted) without the lines in ``mask``?"""
