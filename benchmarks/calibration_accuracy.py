@@ -114,6 +114,11 @@ def summary(r: pd.DataFrame, title: str) -> None:
         if len(g):
             print(f"  {cls}s above LOQ: {len(g)} results, median |err| {np.median(np.abs(g['rel_err'])) * 100:.2f} %, "
                   f"within {tgt * 100:.0f} %: {np.mean(np.abs(g['rel_err']) <= tgt) * 100:.0f} %")
+    for cls in ("major", "minor"):
+        g, ga = r[r["class"] == cls], q[q["class"] == cls]
+        if len(g):
+            ab = f", above LOQ {ga['cover_k2'].mean() * 100:.1f} % of {len(ga)}" if len(ga) else ""
+            print(f"  {cls}s: coverage of U (k = 2) {g['cover_k2'].mean() * 100:.1f} % of {len(g)} results{ab}")
     print(f"  coverage over all {len(r)} results: k = 2 {r['cover_k2'].mean() * 100:.1f} %, "
           f"k = t95(nu_eff) {r['cover_t95'].mean() * 100:.1f} % (nominal 95 %)")
 

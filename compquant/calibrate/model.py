@@ -133,6 +133,7 @@ class Curve:
         v_fit = float(g @ C @ g)
         u0 = float(u0) if np.isfinite(u0) else 0.0
         w0 = 1.0 / u0**2 if (self.weighted and u0 > 0) else 1.0
+        w0 = min(w0, self._matrix_weight(y0))
         v_matrix = self.sigma_m2 / w0
         v_rep = u0**2
         dx_dxi = {}
@@ -159,6 +160,28 @@ class Curve:
                 "interference": v_int / dydx**2,
             },
         }
+
+    def _matrix_weight(self, y0: float) -> float:
+        """Weight that turns the excess scatter ``sigma_m^2`` (weighted units) into response units
+        at ``y0`` for a weighted curve: ``1 / (rho^2 y0^2)`` with ``rho^2 = 1 / mean_i(y_i^2 / u_y,i^2)``
+        the standards' relative repeatability (harmonic mean of ``(u_y,i / y_i)^2``); ``inf`` for
+        unweighted curves or without usable standards.
+
+        With stated variances ``u_i^2`` and a relative matrix scatter ``tau^2 y^2`` the excess is
+        ``sigma_m^2 = mean_i tau^2 y_i^2 / u_i^2 = tau^2 / rho^2``, so ``sigma_m^2 / w = tau^2 y0^2``:
+        the matrix part of a new sample, which its own shots do not reduce (the multiplicative
+        between-standards dispersion model, Birge ratio; R. T. Birge, Phys. Rev. 40 (1932) 207;
+        compare the additive Paule-Mandel estimate, J. Res. NBS 87 (1982) 377).  The caller takes
+        the smaller of this and ``1/u0^2``, so an unknown with more (or better correlated) shots
+        than the standards keeps the matrix part it shares with them.
+        """
+        if not self.weighted or not math.isfinite(y0) or y0 == 0:
+            return math.inf
+        q = [s["y"] ** 2 / s["u_y"] ** 2 for s in self.standards
+             if s.get("used", True) and s.get("u_y", 0) > 0 and math.isfinite(s.get("y", math.nan))]
+        if not q:
+            return math.inf
+        return float(np.mean(q)) / y0**2
 
     def _dof_components(self, v_matrix, v_rep, v_fit, v_int, w0, n_shots, dydx) -> list:
         """(variance, degrees of freedom) of the independent parts of u^2(x0), for
