@@ -48,10 +48,8 @@ class CompquantError(Exception):
     Attributes
     ----------
     what, where, fix : str or None
-        The three parts, each on one line.
-    kind : str
-        Short name of the kind of problem, used in JSON error reports (``"error"`` here; each
-        subclass has its own).
+        The three parts, each on one line (``kind``, below, names the kind of problem: ``"error"``
+        here, each subclass has its own).
 
     See Also
     --------
