@@ -140,8 +140,9 @@ def analyse(
     Raises
     ------
     CompquantError
-        Any problem with the inputs (run, method, standards, calibration, options), raised before
-        anything is written (one line: what, where, how to fix it).
+        Any problem with the inputs (run, method, standards, calibration, options), as one line:
+        what, where, how to fix it.  The options and the later steps' settings are checked before
+        any work is done, so such a mistake fails fast and writes nothing.
 
     See Also
     --------

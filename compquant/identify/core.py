@@ -506,7 +506,6 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
     resolving_power : R of the instrument (e.g. ``run.instrument["resolving_power"]``);
         ``settings.resolving_power`` wins; estimated from the peak widths when neither is given
     peaks : precomputed peaks (columns of :func:`find_peaks`); detected here when None
-
     medium : ``"air"`` or ``"vacuum"``, the medium of ``wavelength`` (the database's air
         wavelengths are converted for a vacuum axis)
 

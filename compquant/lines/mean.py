@@ -34,7 +34,8 @@ def mean_spectrum(
     window integral at the table position is used.
 
     The mean is ``S(lambda) = (1/n) sum_i s_i(lambda)`` over the ``n`` accepted shots ``i``
-    (shot QC: ``|x - median(x)| > k * 1.4826 * MAD(x)`` rejects a shot), in the project's energy
+    (shot QC rejects a shot when ``|x - median(x)| > k * 1.4826 * MAD(x)`` or when it fails the
+    minimum-signal rule), in the project's energy
     units (docs/architecture.md); it is what plots and :func:`compquant.identify_spectrum` use.
 
     Parameters

@@ -104,7 +104,8 @@ class LineMeasurement:
         wavelength_nm, intensity, u_intensity, sd_shots, n_shots, centre_nm, fwhm_nm, snr, flags``
         (wavelengths in nm).
     qc : DataFrame
-        The shot-QC report, one row per sample.
+        The shot-QC report, one row per sample: ``sample_id, role, n_shots, n_accepted,
+        n_rejected, reasons, qc_quantity, qc_median, qc_robust_sd``.
     shifts : DataFrame
         The wavelength correction found per sample (``shift_nm``, ``dispersion_nm_per_nm``, their
         uncertainties, status ...).
@@ -119,7 +120,8 @@ class LineMeasurement:
     shot_accepted : (n_shots,) bool array
         Shot-QC decision.
     shot_saturated : (n_shots, n_lines) bool array
-        Saturated pixels in the line's window.
+        Whether the line's pixels were saturated in the shot (raw counts at or above the
+        saturation level).
     shot_reasons : list of str
         Why each shot was rejected (empty when accepted).
     sample_ids : list of str
@@ -216,7 +218,8 @@ def measure_run(
     Streams ``chunk_shots`` shots at a time: dark and response correction, baseline removal (SNIP,
     AsLS or arPLS), optional wavelength-shift correction, then window integration minus a local
     linear background (``mode = "window"``) or a least-squares profile fit (``mode = "fit"``),
-    shot QC (``|x - median(x)| > k * 1.4826 * MAD(x)`` rejects a shot) and normalisation.  Per
+    shot QC (a shot is rejected when ``|x - median(x)| > k * 1.4826 * MAD(x)`` or when it fails the
+    minimum-signal rule) and normalisation.  Per
     (sample, line) over the accepted shots, ``intensity`` is the mean of the per-shot intensities
     and ``u_intensity = sd / sqrt(n)`` (window lines) or ``sqrt(sd^2 / n + u_shape^2)`` (fitted
     lines), JCGM 100:2008, 4.2.3 type A.  Intensities are in the project's energy units
