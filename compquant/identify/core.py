@@ -84,15 +84,17 @@ class Identification:
 
     Attributes
     ----------
-    species : DataFrame, one row per candidate species (columns :data:`SPECIES_COLUMNS`),
-        sorted by status then score
-    lines : DataFrame, one row per line group of every candidate species: ``species, element,
-        ion, group, line_id, members, wavelength_nm, rel_intensity, ek_ev, tolerance_nm, peak_id,
+    species : DataFrame
+        One row per candidate species (columns :data:`SPECIES_COLUMNS`), sorted by status then score.
+    lines : DataFrame
+        One row per line group of every candidate species: ``species, element, ion, group,
+        line_id, members, wavelength_nm, rel_intensity, ek_ev, tolerance_nm, peak_id,
         peak_centre_nm, delta_nm, share, observed_area, predicted_area, predicted_snr, expected,
         strong, found, missing, scored``; ``scored`` is False for the weaker lines of a detected
-        or possible species that only explain peaks (never found or missing)
-    peaks : DataFrame of :func:`compquant.identify.peaks.find_peaks` plus ``explained_by``
-        (species with a share of at least 10 %, detected or possible) and ``unexplained``
+        or possible species that only explain peaks (never found or missing).
+    peaks : DataFrame
+        The peaks of :func:`compquant.identify.peaks.find_peaks` plus ``explained_by`` (species
+        with a share of at least 10 %, detected or possible) and ``unexplained``.
     temperature_k : excitation temperature used for the LTE estimate
     temperature_fitted : whether it was fitted
     resolving_power : R used; ``resolving_power_source`` says where it came from
