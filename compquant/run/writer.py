@@ -334,10 +334,11 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
     >>> wl = np.linspace(300.0, 400.0, 64)
     >>> spectra = np.full((3, 64), 100.0)
     >>> samples = [{"sample_id": "S1", "role": "unknown", "standard_ref": "", "description": ""}]
-    >>> out = write_run(pathlib.Path(tempfile.mkdtemp()) / "tiny.h5", wl, spectra, samples, [0, 0, 0],
-    ...                 created="2026-01-01T00:00:00Z")
-    >>> with Run.open(out) as run:
-    ...     print(run.n_shots, list(run.samples.sample_id))
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     out = write_run(pathlib.Path(d) / "tiny.h5", wl, spectra, samples, [0, 0, 0],
+    ...                     created="2026-01-01T00:00:00Z")
+    ...     with Run.open(out) as run:
+    ...         print(run.n_shots, list(run.samples.sample_id))
     3 ['S1']
     """
     spectra = np.asarray(spectra)
