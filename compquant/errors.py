@@ -30,6 +30,12 @@ def _one_line(text: object) -> str:
 class CompquantError(Exception):
     """Base of all user-facing errors.
 
+    Every error raised because of the user's input (a file, a setting, the data itself) is a
+    ``CompquantError`` (or one of its subclasses: ``InputError``, ``RunFormatError``,
+    ``MethodError``, ...); the command line prints it as one line ``error: <where>: <what>; <fix>``
+    and exits with status 2.  Anything else that escapes is a bug and keeps its traceback.
+    Whitespace and control characters in the three parts are collapsed so the message is one line.
+
     Parameters
     ----------
     what : str
@@ -38,6 +44,31 @@ class CompquantError(Exception):
         The file, dataset, sample, line or setting concerned.
     fix : str, optional
         How to fix it.
+
+    Attributes
+    ----------
+    what, where, fix : str or None
+        The three parts, each on one line (``kind``, below, names the kind of problem: ``"error"``
+        here, each subclass has its own).
+
+    See Also
+    --------
+    CompquantError.one_line : the message as printed.
+
+    References
+    ----------
+    .. [1] compquant documentation: docs/reliability.md (bad input: one ``error:`` line, exit
+       code 2, nothing written) and docs/cli.md.
+
+    Examples
+    --------
+    >>> from compquant import CompquantError
+    >>> err = CompquantError("dataset 'wavelength' is not strictly increasing (pixel 812)",
+    ...                      where="run.h5", fix="re-export the run")
+    >>> print(err)
+    run.h5: dataset 'wavelength' is not strictly increasing (pixel 812); re-export the run
+    >>> err.kind
+    'error'
     """
 
     #: short name of the kind of problem, used in JSON error reports

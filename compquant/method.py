@@ -170,7 +170,57 @@ MeasureConfig = settings_dataclass(MEASURE_TABLE, "MeasureConfig", module=__name
 
 @dataclass
 class Method:
-    """A loaded method file."""
+    """A loaded method file.
+
+    One TOML file describes one analytical method: how spectra are cleaned (``[preprocess.*]``),
+    which lines are measured and how (``[measure]``, ``[[lines]]``), and the tables owned by
+    other modules (``[calibration]``, ``[cf]``, ``[identify]``, ``[map]``, ``[control_chart]``),
+    kept untouched in :attr:`sections` and checked by their owners.  Wavelengths are in nm, in
+    the method's ``medium``; line ids always carry the air wavelength.
+
+    Attributes
+    ----------
+    id, version, technique, description : str
+        The ``[method]`` table (``technique``: ``"LIBS"``, ``"spark-OES"``, ``"arc-OES"``,
+        ``"other"``).
+    preprocess : PreprocessConfig
+        The resolved ``[preprocess.*]`` settings.
+    measure : MeasureConfig
+        Line-measurement defaults (``[measure]``).
+    lines : list of LineSpec
+        The lines to measure, resolved to element, ion stage and wavelength (nm).
+    sections : dict
+        The tables owned by other modules, as parsed.
+    path : str or None
+        The file's path (provenance).
+    sha256 : str or None
+        SHA-256 of the file (provenance).
+    raw : dict
+        The whole parsed document.
+    medium : {"air", "vacuum"}
+        Medium of the method's wavelengths.
+
+    See Also
+    --------
+    load_method : read a method file.
+    method_from_dict : build one from a parsed document.
+
+    References
+    ----------
+    .. [1] TOML v1.0.0, Tom's Obvious Minimal Language, specification (https://toml.io/en/v1.0.0),
+       read with Python's ``tomllib``.
+    .. [2] Morton, Astrophys. J. Suppl. Ser. 130 (2000) 403, eq. 8: the Edlen (1966) / Birch &
+       Downs (1994) refractive index of standard air, for a run axis in the other medium.
+    .. [3] FIPS 180-4, Secure Hash Standard (SHA-256 of the file, ``Method.sha256``).
+    .. [4] compquant documentation: docs/method-file.md and the generated docs/method-reference.md.
+
+    Examples
+    --------
+    >>> from compquant import load_method
+    >>> m = load_method("demo_runs/method.toml")
+    >>> m.lines[0].line_id, m.medium
+    ('Cu I 510.554', 'air')
+    """
 
     id: str
     version: str
@@ -478,7 +528,54 @@ def _parse_lines(items, src: str, measure: MeasureConfig, medium: str = "air") -
 
 
 def method_from_dict(data: dict, *, source: str = "<method>", sha256: str | None = None) -> Method:
-    """Build a :class:`Method` from an already parsed TOML document (same checks as the file)."""
+    """Build a :class:`Method` from an already parsed TOML document (same checks as the file).
+
+    Refuses unknown top-level tables and unknown keys in the tables the method owns
+    (``[method]``, ``[preprocess.*]``, ``[measure]``, ``[[lines]]``), resolves each line (by id
+    such as ``"Cu I 324.754"``, looked up in the shipped line list within 0.0015 nm, or by explicit
+    ``element``, ``ion`` and ``wavelength_nm`` in nm) and keeps the tables owned by other modules
+    in :attr:`Method.sections`.
+
+    Parameters
+    ----------
+    data : dict
+        The parsed document (e.g. from ``tomllib.loads``).
+    source : str, default ``"<method>"``
+        Name used in error messages and as :attr:`Method.path`.
+    sha256 : str, optional
+        SHA-256 of the source file, kept for provenance.
+
+    Returns
+    -------
+    Method
+
+    Raises
+    ------
+    MethodError
+        Naming the table and key at fault (``<source>: [table] key``), what is wrong and how to
+        fix it.
+
+    See Also
+    --------
+    load_method : the same from a file.
+
+    References
+    ----------
+    .. [1] TOML v1.0.0, Tom's Obvious Minimal Language, specification (https://toml.io/en/v1.0.0),
+       read with Python's ``tomllib``.
+    .. [2] Morton, Astrophys. J. Suppl. Ser. 130 (2000) 403, eq. 8: the Edlen (1966) / Birch &
+       Downs (1994) refractive index of standard air, for a run axis in the other medium.
+    .. [3] FIPS 180-4, Secure Hash Standard (SHA-256 of the file, ``Method.sha256``).
+    .. [4] compquant documentation: docs/method-file.md and the generated docs/method-reference.md.
+
+    Examples
+    --------
+    >>> from compquant import method_from_dict
+    >>> m = method_from_dict({"method": {"id": "demo"},
+    ...                      "lines": [{"element": "Cu", "ion": 1, "wavelength_nm": 324.754}]})
+    >>> m.id, len(m.lines), m.lines[0].element
+    ('demo', 1, 'Cu')
+    """
     if not isinstance(data, dict):
         raise _err(source, "a method must be a TOML table", "see docs/method-file.md")
     unknown = sorted(set(data) - TOP_LEVEL)
@@ -544,7 +641,47 @@ def method_from_dict(data: dict, *, source: str = "<method>", sha256: str | None
 
 
 def load_method(path) -> Method:
-    """Read and check a method file (docs/method-file.md)."""
+    """Read and check a method file (docs/method-file.md).
+
+    The file is parsed as TOML and checked by :func:`method_from_dict`; its SHA-256 and path are
+    kept for provenance.  Relative file paths in the method (response curve, reference spectrum)
+    are relative to the method file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The method file (``.toml``).
+
+    Returns
+    -------
+    Method
+
+    Raises
+    ------
+    MethodError
+        The file cannot be read, is not valid TOML, or a table or key is unknown or wrong (named
+        with the file and key).
+
+    See Also
+    --------
+    method_from_dict : the same from a parsed document.
+    Method.check_run : check the lines against a run's wavelength range.
+
+    References
+    ----------
+    .. [1] TOML v1.0.0, Tom's Obvious Minimal Language, specification (https://toml.io/en/v1.0.0),
+       read with Python's ``tomllib``.
+    .. [2] Morton, Astrophys. J. Suppl. Ser. 130 (2000) 403, eq. 8: the Edlen (1966) / Birch &
+       Downs (1994) refractive index of standard air, for a run axis in the other medium.
+    .. [3] FIPS 180-4, Secure Hash Standard (SHA-256 of the file, ``Method.sha256``).
+    .. [4] compquant documentation: docs/method-file.md and the generated docs/method-reference.md.
+
+    Examples
+    --------
+    >>> from compquant import load_method
+    >>> load_method("demo_runs/method.toml").id
+    'demo-cu-alloys-libs'
+    """
     data = load_toml(path, "method file", MethodError)
     m = method_from_dict(data, source=str(path), sha256=sha256_file(path))
     return m

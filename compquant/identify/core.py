@@ -84,15 +84,17 @@ class Identification:
 
     Attributes
     ----------
-    species : DataFrame, one row per candidate species (columns :data:`SPECIES_COLUMNS`),
-        sorted by status then score
-    lines : DataFrame, one row per line group of every candidate species: ``species, element,
-        ion, group, line_id, members, wavelength_nm, rel_intensity, ek_ev, tolerance_nm, peak_id,
+    species : DataFrame
+        One row per candidate species (columns :data:`SPECIES_COLUMNS`), sorted by status then score.
+    lines : DataFrame
+        One row per line group of every candidate species: ``species, element, ion, group,
+        line_id, members, wavelength_nm, rel_intensity, ek_ev, tolerance_nm, peak_id,
         peak_centre_nm, delta_nm, share, observed_area, predicted_area, predicted_snr, expected,
         strong, found, missing, scored``; ``scored`` is False for the weaker lines of a detected
-        or possible species that only explain peaks (never found or missing)
-    peaks : DataFrame of :func:`compquant.identify.peaks.find_peaks` plus ``explained_by``
-        (species with a share of at least 10 %, detected or possible) and ``unexplained``
+        or possible species that only explain peaks (never found or missing).
+    peaks : DataFrame
+        The peaks of :func:`compquant.identify.peaks.find_peaks` plus ``explained_by`` (species
+        with a share of at least 10 %, detected or possible) and ``unexplained``.
     temperature_k : excitation temperature used for the LTE estimate
     temperature_fitted : whether it was fitted
     resolving_power : R used; ``resolving_power_source`` says where it came from
@@ -488,6 +490,15 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
                       medium: str = "air", peaks: pd.DataFrame | None = None) -> Identification:
     """Detect peaks in one preprocessed mean spectrum and identify the elements behind them.
 
+    Peaks are detected above ``k_sigma`` times the local noise ``sigma = 1.4826 MAD(dy) / sqrt(2)``
+    (``dy`` the first difference); a database line at ``lambda`` (nm) matches the nearest peak
+    within ``tol(lambda) = sqrt((t_f lambda / R)^2 + (k u_cal)^2)`` (``t_f`` = 0.5 instrument FWHM,
+    ``k = 2``, ``u_cal`` the wavelength-calibration standard uncertainty, nm).  Within a species the
+    relative integrated intensities follow the LTE estimate ``r_i ∝ g_k A_ki / lambda
+    exp(-E_k / kT)``; each species is scored ``score = f q c`` (found fraction, agreement of
+    relative intensities, number of lines) and classed detected, possible or not detected
+    (module docstring and docs/identification.md).
+
     Parameters
     ----------
     wavelength : (n_pixels,) nm; ``medium`` says whether air or vacuum
@@ -497,10 +508,45 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
     resolving_power : R of the instrument (e.g. ``run.instrument["resolving_power"]``);
         ``settings.resolving_power`` wins; estimated from the peak widths when neither is given
     peaks : precomputed peaks (columns of :func:`find_peaks`); detected here when None
+    medium : ``"air"`` or ``"vacuum"``, the medium of ``wavelength`` (the database's air
+        wavelengths are converted for a vacuum axis)
 
     Returns
     -------
     :class:`Identification`
+        Species, line groups and peaks with their status, score and evidence; the temperature
+        (K) and resolving power used.
+
+    Raises
+    ------
+    InputError
+        ``spectrum`` not on the wavelength axis, or an unknown ``medium``.
+
+    See Also
+    --------
+    compquant.mean_spectrum : the input spectrum of one sample.
+    compquant.identify.peaks.find_peaks : the peak detection alone.
+
+    References
+    ----------
+    .. [1] Rousseeuw & Croux, J. Am. Stat. Assoc. 88 (1993) 1273 (the factor
+       1/Phi^-1(3/4) = 1.4826 of the noise estimate).
+    .. [2] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM) (coverage factor 2 of the matching tolerance).
+    .. [3] Griem, Plasma Spectroscopy (1964) (Boltzmann distribution of the LTE estimate).
+    .. [4] Morton, Astrophys. J. Suppl. Ser. 130 (2000) 403 (air-vacuum conversion).
+    .. [5] van Hoof, Galaxies 6 (2018) 63, Atomic Line List v3.00b4 (the shipped line
+       database, docs/atomic-data.md).
+    .. [6] compquant documentation: docs/identification.md (every rule with its source).
+
+    Examples
+    --------
+    >>> from compquant import Run, load_method, mean_spectrum, identify_spectrum
+    >>> with Run.open("demo_runs/demo-day1.h5") as run:
+    ...     wl, mean, _ = mean_spectrum(run, load_method("demo_runs/method.toml"), "HRM-CA-101")
+    ...     ident = identify_spectrum(wl, mean, resolving_power=run.instrument.get("resolving_power"))
+    >>> ident.elements().query("status == 'detected'").element.tolist()
+    ['Sn', 'Al', 'Mn', 'Ni', 'Fe', 'Pb']
     """
     st = settings or IdentifySettings()
     wl = np.asarray(wavelength, float)

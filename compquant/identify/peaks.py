@@ -187,9 +187,9 @@ def find_peaks(wavelength, spectrum, *, k_sigma: float = 5.0, resolving_power: f
 
     Returns
     -------
-    DataFrame with columns ``peak_id, pixel, centre_nm, height, area, fwhm_nm,
-    snr, noise, left_nm, right_nm`` (see the module docstring for each
-    definition), sorted by wavelength.
+    DataFrame
+        Columns ``peak_id, pixel, centre_nm, height, area, fwhm_nm, snr, noise, left_nm,
+        right_nm`` (see the module docstring for each definition), sorted by wavelength.
     """
     wl = np.asarray(wavelength, dtype=float)
     y = np.asarray(spectrum, dtype=float)

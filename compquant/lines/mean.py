@@ -32,6 +32,55 @@ def mean_spectrum(
     ``n_shots``, ``n_accepted``, ``shift_nm``.  Reads only that sample's shots.
     Shot QC is that of :func:`measure_run`; when its quantity is a line, the line's
     window integral at the table position is used.
+
+    The mean is ``S(lambda) = (1/n) sum_i s_i(lambda)`` over the ``n`` accepted shots ``i``
+    (shot QC rejects a shot when ``|x - median(x)| > k * 1.4826 * MAD(x)`` or when it fails the
+    minimum-signal rule), in the project's energy
+    units (docs/architecture.md); it is what plots and :func:`compquant.identify_spectrum` use.
+
+    Parameters
+    ----------
+    run : compquant.run.Run (open)
+    method : compquant.method.Method
+    sample_id : str
+        The sample (a ``sample_id`` of ``run.samples``).
+    chunk_shots : int, optional
+        Shots read at a time (default ``[measure] chunk_shots``).
+
+    Returns
+    -------
+    wavelength : (n_pixels,) float64 array, nm
+    mean : (n_pixels,) float64 array
+    info : dict
+        ``n_shots``, ``n_accepted``, ``shift_nm``.
+
+    Raises
+    ------
+    InputError
+        No such sample in the run.
+    DataQualityError
+        Every shot of the sample rejected by shot QC.
+
+    See Also
+    --------
+    measure_run : the line measurement over every sample.
+    compquant.identify_spectrum : identify the elements in the mean spectrum.
+
+    References
+    ----------
+    .. [1] Ryan, Clayton, Griffin, Sie & Cousens, Nucl. Instrum. Meth. B 34
+       (1988) 396-402 (SNIP baseline); Eilers & Boelens (2005), "Baseline
+       correction with asymmetric least squares smoothing"; Baek, Park, Ahn & Choo, Analyst 140 (2015) 250-257 (arPLS).
+    .. [2] Rousseeuw & Croux, J. Am. Stat. Assoc. 88 (1993) 1273-1283 (1.4826 MAD, shot QC).
+    .. [3] compquant documentation: docs/method-file.md (``[preprocess.*]``).
+
+    Examples
+    --------
+    >>> from compquant import Run, load_method, mean_spectrum
+    >>> with Run.open("demo_runs/demo-day1.h5") as run:
+    ...     wl, mean, info = mean_spectrum(run, load_method("demo_runs/method.toml"), "HRM-CA-101")
+    >>> wl.shape == mean.shape, sorted(info)[:2]
+    (True, ['n_accepted', 'n_shots'])
     """
     setup = _Setup(run, method)
     pre = method.preprocess

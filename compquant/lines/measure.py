@@ -89,7 +89,75 @@ __all__ = [
 
 @dataclass
 class LineMeasurement:
-    """All results of :func:`measure_run`."""
+    """All results of :func:`measure_run`.
+
+    Statistics per (sample, line) are over the shots accepted by shot QC: ``intensity`` the
+    mean of the per-shot intensities (after normalisation; energy units, docs/architecture.md),
+    ``sd_shots`` their standard deviation (ddof = 1) and ``u_intensity`` the standard uncertainty
+    of the mean, ``u = sd / sqrt(n)`` for window lines and ``u = sqrt(sd^2 / n + u_shape^2)`` for
+    fitted lines (JCGM 100:2008, 4.2.3 type A; module docstring); ``snr = intensity / u``.
+
+    Attributes
+    ----------
+    table : DataFrame
+        The line table, one row per (sample, line): ``sample_id, role, line_id, element, ion,
+        wavelength_nm, intensity, u_intensity, sd_shots, n_shots, centre_nm, fwhm_nm, snr, flags``
+        (wavelengths in nm).
+    qc : DataFrame
+        The shot-QC report, one row per sample: ``sample_id, role, n_shots, n_accepted,
+        n_rejected, reasons, qc_quantity, qc_median, qc_robust_sd``.
+    shifts : DataFrame
+        The wavelength correction found per sample (``shift_nm``, ``dispersion_nm_per_nm``, their
+        uncertainties, status ...).
+    provenance : dict
+        Run, method and settings the numbers came from (SHA-256 of the run and method).
+    line_ids : list of str
+        The method's lines, in method order (the columns of the per-shot arrays).
+    shot_sample, shot_number : (n_shots,) int arrays
+        Sample index and shot number of each shot.
+    shot_intensity : (n_shots, n_lines) float64 array
+        Per-shot line intensities, normalised.
+    shot_accepted : (n_shots,) bool array
+        Shot-QC decision.
+    shot_saturated : (n_shots, n_lines) bool array
+        Whether the line's pixels were saturated in the shot (raw counts at or above the
+        saturation level).
+    shot_reasons : list of str
+        Why each shot was rejected (empty when accepted).
+    sample_ids : list of str
+    wavelength : (n_pixels,) float64 array, nm
+    mean_spectra : dict
+        Per sample, the preprocessed mean of all its shots from the first pass (shot QC is decided
+        after it); the mean of the accepted shots alone: :func:`mean_spectrum`.
+    fits : dict
+        Fit results of ``mode = "fit"`` line groups.
+    references : DataFrame
+        Each wavelength reference's found centre: ``sample_id, reference_nm, found_nm,
+        residual_nm, status``.
+    masked_pixels : DataFrame
+        ``sample_id, shot, first_pixel, last_pixel`` of masked pixel ranges met.
+
+    See Also
+    --------
+    measure_run : makes it.
+    mean_spectrum : the mean spectrum of a sample's accepted shots.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 4.2.3 (type A standard uncertainty of the mean).
+    .. [2] Ryan, Clayton, Griffin, Sie & Cousens, Nucl. Instrum. Meth. B 34
+       (1988) 396-402 (SNIP baseline); Morhac et al., Nucl. Instrum. Meth. A 401 (1997) 113-132
+       (decreasing window).
+    .. [3] Eilers & Boelens (2005), "Baseline correction with asymmetric least
+       squares smoothing" (AsLS baseline); Baek, Park, Ahn & Choo, Analyst 140
+       (2015) 250-257 (arPLS baseline).
+    .. [4] Rousseeuw & Croux, J. Am. Stat. Assoc. 88 (1993) 1273-1283 (1.4826 MAD, shot QC).
+    .. [5] Olivero & Longbothum, J. Quant. Spectrosc. Radiat. Transfer 17 (1977) 233-236
+       (Voigt FWHM of fitted lines); Press et al., Numerical Recipes, 3rd ed., 15.5 (fit
+       covariance).
+    .. [6] compquant documentation: docs/architecture.md (line table and flags).
+    """
 
     table: pd.DataFrame
     qc: pd.DataFrame
@@ -147,6 +215,16 @@ def measure_run(
 ) -> LineMeasurement:
     """Preprocess every shot of ``run`` and measure the method's lines (module docstring).
 
+    Streams ``chunk_shots`` shots at a time: dark and response correction, baseline removal (SNIP,
+    AsLS or arPLS), optional wavelength-shift correction, then window integration minus a local
+    linear background (``mode = "window"``) or a least-squares profile fit (``mode = "fit"``),
+    shot QC (a shot is rejected when ``|x - median(x)| > k * 1.4826 * MAD(x)`` or when it fails the
+    minimum-signal rule) and normalisation.  Per
+    (sample, line) over the accepted shots, ``intensity`` is the mean of the per-shot intensities
+    and ``u_intensity = sd / sqrt(n)`` (window lines) or ``sqrt(sd^2 / n + u_shape^2)`` (fitted
+    lines), JCGM 100:2008, 4.2.3 type A.  Intensities are in the project's energy units
+    (docs/architecture.md), wavelengths in nm.
+
     Parameters
     ----------
     run : compquant.run.Run (open)
@@ -167,10 +245,46 @@ def measure_run(
         than ``COMPQUANT_SPILL_CELLS`` (2,000,000) shot x line cells.  The numbers are the same.
     spill_dir : folder of the spill file (default ``COMPQUANT_SPILL_DIR``, else the system's temp dir).
 
+    Returns
+    -------
+    LineMeasurement
+        The line table, the per-shot arrays, the shot-QC report per sample, the wavelength shifts
+        found and the provenance.
+
     Raises
     ------
     MethodError : a line outside the run's range, settings that do not fit the run.
     DataQualityError : every shot of a sample rejected by shot QC (names the sample).
+
+    See Also
+    --------
+    mean_spectrum : the preprocessed mean spectrum of one sample.
+    compquant.lines.measure_lines : the same, returning only the line table.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 4.2.3 (type A standard uncertainty of the mean).
+    .. [2] Ryan, Clayton, Griffin, Sie & Cousens, Nucl. Instrum. Meth. B 34
+       (1988) 396-402 (SNIP baseline); Morhac et al., Nucl. Instrum. Meth. A 401 (1997) 113-132
+       (decreasing window).
+    .. [3] Eilers & Boelens (2005), "Baseline correction with asymmetric least
+       squares smoothing" (AsLS baseline); Baek, Park, Ahn & Choo, Analyst 140
+       (2015) 250-257 (arPLS baseline).
+    .. [4] Rousseeuw & Croux, J. Am. Stat. Assoc. 88 (1993) 1273-1283 (1.4826 MAD, shot QC).
+    .. [5] Olivero & Longbothum, J. Quant. Spectrosc. Radiat. Transfer 17 (1977) 233-236
+       (Voigt FWHM of fitted lines); Press et al., Numerical Recipes, 3rd ed., 15.5 (fit
+       covariance).
+    .. [6] compquant documentation: docs/method-file.md (``[preprocess.*]``, ``[measure]``) and
+       docs/architecture.md (line table).
+
+    Examples
+    --------
+    >>> from compquant import Run, load_method, measure_run
+    >>> with Run.open("demo_runs/demo-day1.h5") as run:
+    ...     m = measure_run(run, load_method("demo_runs/method.toml"))
+    >>> list(m.table.columns[:4])
+    ['sample_id', 'role', 'line_id', 'element']
     """
     setup = _Setup(run, method)
     setup.threads = max(1, int(threads))

@@ -136,11 +136,27 @@ def refuse_outside_data(h5, where: str) -> None:
 class Run:
     """A run file opened read-only.
 
+    A run is one HDF5 file holding everything one spectrometer session measured (dark frames,
+    wavelength axis, sample table, spectra, per-shot columns; docs/run-format.md).  Opening it
+    reads the headers and small tables only; spectra are read on demand, by sample
+    (:meth:`sample_spectra`) or in chunks of shots (:meth:`iter_chunks`).  Every array the
+    reader allocates is checked against the memory limit before allocation, so an absurd
+    declared shape is refused with a clear error instead of exhausting memory.  Spectra are in
+    counts on the wavelength axis ``wavelength`` (nm, in ``medium``).
+
     Use :meth:`open` (or the constructor) as a context manager::
 
         with Run.open("day1.h5") as run:
             for sid in run.samples.sample_id:
                 spectra = run.sample_spectra(sid)
+
+    Parameters
+    ----------
+    path : str or path-like
+        The run file (``.h5``).
+    memory_limit_bytes : int, optional
+        Largest array the reader may allocate, bytes (default ``COMPQUANT_MEMORY_LIMIT``, e.g.
+        ``512M``, else the format's default).
 
     Attributes
     ----------
@@ -152,6 +168,37 @@ class Run:
     instrument, acquisition, attrs : dict
     saturation : float or None, counts
     exposure_s, dark_exposure_s : float or None, s
+
+    Raises
+    ------
+    RunFormatError
+        Not an HDF5 file, truncated or corrupt, locked for writing, data stored outside the file,
+        or a structure that does not follow the run format (docs/run-format.md, "What the reader
+        checks on open").
+    ResourceLimitError
+        A declared shape larger than the memory limit, or a non-positive limit.
+
+    See Also
+    --------
+    write_run : write a run.
+    validate_run : findings in the data beyond the structure.
+
+    References
+    ----------
+    .. [1] The HDF Group, HDF5 file format specification (Hierarchical Data Format, version 5),
+       and the HDF5 Dimension Scale specification.
+    .. [2] NeXus International Advisory Committee (NIAC), NeXus "NXdata" base class (attributes
+       ``signal``, ``axes``, ``<axis>_indices``).
+    .. [3] compquant documentation: docs/run-format.md (the run format, version 1).
+
+    Examples
+    --------
+    From the repository root (shipped demo run, invented scenario):
+
+    >>> from compquant import Run
+    >>> with Run.open("demo_runs/demo-day1.h5") as run:
+    ...     print(run.n_shots, run.wavelength.size, run.medium)
+    640 12288 air
     """
 
     def __init__(self, path: str | os.PathLike, memory_limit_bytes: int | None = None):

@@ -173,7 +173,49 @@ def validate_open_run(run: Run, chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> tuple
 
 def validate_run(path, memory_limit_bytes: int | None = None,
                  chunk_shots: int = DEFAULT_CHUNK_SHOTS) -> list[Finding]:
-    """Validate a run file; structural problems come back as a single error finding."""
+    """Validate a run file; structural problems come back as a single error finding.
+
+    Opening the run (:meth:`Run.open`) already refuses runs whose structure is broken; this adds
+    what can only be seen in the data, streaming the spectra in chunks of ``chunk_shots`` shots:
+    masked pixels (NaN, infinite, sentinel or implausible values, and pixels masked in the file;
+    listed by pixel range, reason and shot), negative or all-zero shots, saturated pixels per
+    sample, samples without shots, and missing dark frames or standards.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The run file.
+    memory_limit_bytes : int, optional
+        Memory limit of the reader, bytes (default ``COMPQUANT_MEMORY_LIMIT``).
+    chunk_shots : int
+        Shots read at a time.
+
+    Returns
+    -------
+    list of Finding
+        Each with ``level`` (``"error"``, ``"warning"`` or ``"info"``), ``where`` and ``message``;
+        an error means the run cannot give a trustworthy result as it is.  A run that cannot be
+        opened gives one error finding (its ``CompquantError`` message) instead of an exception.
+
+    See Also
+    --------
+    Run : the reader and its structural checks.
+    compquant.run.validate.summarise_run : the JSON-ready summary (``compquant inspect``).
+
+    References
+    ----------
+    .. [1] The HDF Group, HDF5 file format specification (Hierarchical Data Format, version 5),
+       and the HDF5 Dimension Scale specification.
+    .. [2] NeXus International Advisory Committee (NIAC), NeXus "NXdata" base class (attributes
+       ``signal``, ``axes``, ``<axis>_indices``).
+    .. [3] compquant documentation: docs/run-format.md ("What the validator adds").
+
+    Examples
+    --------
+    >>> from compquant import validate_run
+    >>> [f.level for f in validate_run("demo_runs/demo-day1.h5") if f.level == "error"]
+    []
+    """
     try:
         with Run.open(path, memory_limit_bytes) as run:
             findings, _ = validate_open_run(run, chunk_shots)

@@ -267,8 +267,17 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
               masked_ranges=(), sentinels=(), response_basis: str | None = None) -> Path:
     """Write a whole run to ``path`` atomically and return the path.
 
+    The run is written in the compquant HDF5 run format (docs/run-format.md) to a temporary file
+    beside the target and renamed into place only when complete, so an interrupted write never
+    leaves a run under its final name.  The file carries a NeXus ``NXdata`` group and HDF5
+    dimension scales so general HDF5/NeXus viewers and xarray show the spectra against the
+    wavelength axis (:func:`compquant.interchange.add_nxdata`).  For runs larger than memory use
+    :class:`compquant.run.writer.RunWriter`, which streams spectra block by block.
+
     Parameters
     ----------
+    path : str or path-like
+        The run file to write.
     wavelength : (n_pixels,) array, nm, strictly increasing
     spectra : (n_shots, n_pixels) array of counts (integer or float)
     samples : DataFrame or list of dicts with ``sample_id``, ``role``, ``standard_ref``, ``description``
@@ -285,6 +294,52 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
     masked_ranges : iterable of ``(shot, first_pixel, last_pixel[, reason])`` masked in one shot
         (inclusive; shot -1 = every shot)
     sentinels : values the instrument writes for blanked pixels (e.g. -9999); read as masked
+    exposure_s, dark_exposure_s : exposure times of the spectra and of the dark frames, s, optional
+    pulse_energy_mj, time_s, x_mm, y_mm, shot : optional per-shot columns, (n_shots,) each: pulse
+        energy (mJ), time (s), stage position (mm), shot number
+    instrument, acquisition : mappings stored as the run's groups of settings, optional
+    medium : ``"air"`` or ``"vacuum"``, the medium of ``wavelength``
+    compression : HDF5 filter of the datasets (``"gzip"``, the deflate of RFC 1950/1951) or None
+
+    Returns
+    -------
+    Path
+        ``path``, now holding the complete run.
+
+    Raises
+    ------
+    RunFormatError
+        Arrays or tables that do not make a valid run (e.g. ``spectra`` not 2-D, shapes that do not
+        match, a wavelength axis not strictly increasing).
+
+    See Also
+    --------
+    Run : read a run.
+    validate_run : check a run's data.
+
+    References
+    ----------
+    .. [1] The HDF Group, HDF5 file format specification (Hierarchical Data Format, version 5),
+       and the HDF5 Dimension Scale specification.
+    .. [2] NeXus International Advisory Committee (NIAC), NeXus "NXdata" base class (attributes
+       ``signal``, ``axes``, ``<axis>_indices``).
+    .. [3] RFC 1950, ZLIB Compressed Data Format Specification version 3.3 (the ``gzip`` filter).
+    .. [4] ISO 8601, Date and time -- Representations for information interchange (``created``).
+    .. [5] compquant documentation: docs/run-format.md (the run format, version 1).
+
+    Examples
+    --------
+    >>> import numpy as np, tempfile, pathlib
+    >>> from compquant import Run, write_run
+    >>> wl = np.linspace(300.0, 400.0, 64)
+    >>> spectra = np.full((3, 64), 100.0)
+    >>> samples = [{"sample_id": "S1", "role": "unknown", "standard_ref": "", "description": ""}]
+    >>> with tempfile.TemporaryDirectory() as d:
+    ...     out = write_run(pathlib.Path(d) / "tiny.h5", wl, spectra, samples, [0, 0, 0],
+    ...                     created="2026-01-01T00:00:00Z")
+    ...     with Run.open(out) as run:
+    ...         print(run.n_shots, list(run.samples.sample_id))
+    3 ['S1']
     """
     spectra = np.asarray(spectra)
     if spectra.ndim != 2:

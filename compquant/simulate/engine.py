@@ -254,6 +254,63 @@ def simulate_run(
     ``seed`` overrides the scenario's ``[scenario] seed``.  ``noise=False``
     gives the expected counts (rounded) without shot-to-shot fluctuation or
     detector noise.
+
+    Per shot the plasma varies with the pulse energy (module docstring): ``E_i = E0 (1 + s_E z1)``,
+    ``T_i = T0 (E_i/E0)^a_T exp(s_T z2)`` (K), ``ne_i = ne0 (E_i/E0)^a_n exp(s_n z3)`` (cm^-3) and
+    the collected light ``F_i = (E_i/E0)^a_F exp(s_F z4)``; the forward model (LTE Boltzmann and
+    Saha populations, Voigt line profiles, continuum, homogeneous-slab radiative transfer,
+    docs/physics.md) gives the pixel radiance ``L_p`` (W m^-2 sr^-1), and the detector the counts
+    ``c_p = clip(round(G Poisson(S R_p L_p + D t_exp) + N(0, sigma_read) + b + b_p), 0, c_sat)``
+    (:mod:`compquant.simulate.detector`).  One :class:`numpy.random.SeedSequence` of the seed gives
+    independent streams, so a given seed regenerates the same arrays bit for bit.
+
+    Parameters
+    ----------
+    scenario : Scenario, str or path-like
+        A loaded scenario or the path of its TOML file.
+    output : str or path-like
+        The run file to write (docs/run-format.md).
+    seed : int, optional
+        Overrides ``[scenario] seed``.
+    noise : bool, default True
+        False: expected counts only.
+
+    Returns
+    -------
+    SimulationResult
+        ``path``, ``n_shots``, ``n_pixels``, ``n_dark``, ``seconds``, ``bytes`` and ``truth``
+        (``sample_id -> {element: mass fraction}``, g/g), which is never stored in the run.
+
+    Raises
+    ------
+    ConfigError
+        A bad scenario (named file and key).
+    ResourceLimitError
+        A run larger than the memory limit.
+
+    See Also
+    --------
+    load_scenario : read a scenario.
+    write_run : the writer used.
+
+    References
+    ----------
+    .. [1] Saha (1920) (ionisation balance); Griem, Plasma Spectroscopy (1964), ch. 6 and eq. 6-40
+       (Boltzmann and Saha populations).
+    .. [2] Konjevic et al., J. Phys. Chem. Ref. Data 31 (2002) 819 (Stark widths); Olivero &
+       Longbothum, J. Quant. Spectrosc. Radiat. Transfer 17 (1977) 233 (Voigt FWHM).
+    .. [3] Rybicki & Lightman, Radiative Processes in Astrophysics (1979), eq. 1.30;
+       Aragon & Aguilera, Spectrochim. Acta B 63 (2008) 893 (homogeneous slab).
+    .. [4] Janesick, Scientific Charge-Coupled Devices (2001) (detector model).
+    .. [5] compquant documentation: docs/physics.md and docs/scenario.md.
+
+    Examples
+    --------
+    From the repository root (writes a run of the invented demo scenario)::
+
+        from compquant import simulate_run
+        res = simulate_run("demo_runs/scenario-day1.toml", "day1.h5")
+        print(res.n_shots, res.truth)
     """
     from compquant.run import write_run
 

@@ -463,7 +463,49 @@ def _samples_table(doc: dict, w: str, certified: dict, matrix: str, truth_seed: 
 
 
 def load_scenario(path) -> Scenario:
-    """Read and validate a scenario TOML file."""
+    """Read and validate a scenario TOML file.
+
+    A scenario states what was measured (samples with roles and true compositions, or
+    references to certified standards), the plasma, the laser, the spectrometer and detector, an
+    optional instrument drift, and dark frames (docs/scenario.md).  Mass fractions are g/g;
+    paths in the file are relative to it.  The true composition of a certified material is drawn
+    as ``w = w_cert + u z`` per certified element other than the matrix, ``z`` a standard normal
+    truncated at ``+-truth_clip_sigma`` and seeded by ``[standards] truth_seed``, so every run
+    made from the same standards file sees the same materials.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The scenario file (``.toml``).
+
+    Returns
+    -------
+    Scenario
+        The validated scenario (every key of docs/scenario.md, defaults filled in).
+
+    Raises
+    ------
+    ConfigError
+        Unknown keys, wrong types or out-of-range values, naming the file and key.
+
+    See Also
+    --------
+    simulate_run : make a run file from it.
+
+    References
+    ----------
+    .. [1] TOML v1.0.0, Tom's Obvious Minimal Language, specification (https://toml.io/en/v1.0.0).
+    .. [2] ISO 8601, Date and time -- Representations for information interchange
+       (``[scenario] start_time``).
+    .. [3] compquant documentation: docs/scenario.md (every key) and docs/physics.md.
+
+    Examples
+    --------
+    >>> from compquant import load_scenario
+    >>> sc = load_scenario("demo_runs/scenario-day1.toml")
+    >>> sc.id, sc.matrix
+    ('demo-day1', 'Cu')
+    """
     path = Path(path)
     doc = load_toml(path, "scenario file")
     w = str(path)

@@ -42,7 +42,47 @@ class CertificateOutput:
 
 @dataclass
 class AnalysisOutput:
-    """What :func:`analyse` wrote, for the CLI summary table and for callers."""
+    """What :func:`analyse` wrote, for the CLI summary table and for callers.
+
+    Returned by :func:`compquant.analyse.analyse`; it describes the output set in ``outdir``
+    (certificates as PDF and JSON, ``lims.csv``, ``summary.json``, the calibration and
+    ``manifest.json``, written last).  Results are reported as on the certificate: value and
+    expanded uncertainty ``U = k u_c``, ``k = 2`` (JCGM 100:2008), in the certificate's unit.
+
+    Attributes
+    ----------
+    outdir : str
+        The output folder.
+    basis : {"calibration", "cf"}
+        How the results were obtained: a calibration (made from the run's standards or a saved
+        one), or calibration-free.
+    certificates : list of CertificateOutput
+        One per unknown sample: number, PDF and JSON paths, pages, release state, conformity,
+        results as printed, reasons for not being valid for release, revision and the number it
+        supersedes.
+    lims_csv, summary_json : str
+        Paths of the run's LIMS CSV (RFC 4180 or the semicolon dialect) and run summary.
+    calibration_json : str or None
+        Path of the calibration saved beside the certificates (None when none was made).
+    valid_for_release : bool
+        Whether every certificate passed the release rules (:mod:`compquant.report.release`).
+    not_reported : list of dict
+        Every (sample, analyte) without a result, with the reason.
+    failures : dict
+        ``sample_id -> reason`` for each sample that got no certificate.
+
+    See Also
+    --------
+    compquant.analyse.analyse : makes it.
+    verify_output_set : checks an output folder against its ``manifest.json``.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 7.2.6 (reporting a result with its expanded uncertainty).
+    .. [2] RFC 4180, Common Format and MIME Type for Comma-Separated Values (CSV) Files.
+    .. [3] compquant documentation: docs/certificate.md (certificate and summary contents).
+    """
 
     outdir: str
     basis: str
