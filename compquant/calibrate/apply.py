@@ -65,7 +65,37 @@ CHECK_COLUMNS = [
 
 @dataclass
 class QuantifyResult:
-    """Results table, check-sample table, drift record and provenance of one quantification."""
+    """Results table, check-sample table, drift record and provenance of one quantification.
+
+    Attributes
+    ----------
+    results : DataFrame
+        One row per (sample, element): columns :data:`RESULT_COLUMNS` (docs/architecture.md,
+        :mod:`compquant.results`), mass fractions in g/g, ``U = k u``.
+    checks : DataFrame
+        One row per (check sample, element): measured and certified values with the ISO 13528
+        ``E_n``, ``zeta`` and ``z`` scores and ``passed`` (:data:`CHECK_COLUMNS`).
+    drift : dict
+        The drift standardisation record (``applied``, or the ``reason`` it was not).
+    provenance : dict
+        Calibration, run and settings the numbers came from.
+    valid_for_release : bool
+        False when a check sample failed (every result is then flagged ``check_failed``).
+    matrix_fraction : dict
+        Sample -> ``(w, u)`` of the matrix element by difference (ratio calibrations).
+
+    See Also
+    --------
+    quantify : makes it.
+    QuantifyResult.to_frame : the results as the declared contract.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 5.1.2.
+    .. [2] ISO 13528:2015, E_n, zeta and z scores of the check samples.
+    .. [3] compquant documentation: docs/calibration.md, docs/architecture.md (results table).
+    """
 
     results: pd.DataFrame
     checks: pd.DataFrame
@@ -170,6 +200,12 @@ def quantify(
         ``checks`` (:data:`CHECK_COLUMNS`), ``drift``, ``provenance``, ``valid_for_release``,
         ``matrix_fraction``.
 
+    See Also
+    --------
+    calibrate : makes the calibration.
+    Calibration.load : reads a saved one.
+    compquant.analyse : the whole analysis, certificates included.
+
     Notes
     -----
     Steps 1-5 of the module docstring: drift standardisation (:func:`_drift_standardise`),
@@ -181,6 +217,17 @@ def quantify(
     ----------
     .. [1] JCGM 100:2008 (GUM), 5.1.2 and G.3-G.4.
     .. [2] ISO 13528:2015, E_n, zeta and z scores.
+    .. [3] ISO 8466-1:1990, inverse prediction of the straight line, ``x = (y - b0) / b1``.
+    .. [4] compquant documentation: docs/calibration.md.
+
+    Examples
+    --------
+    From the repository root, the shipped demo (invented scenario), with ``method``, ``m``,
+    ``samples`` and ``cal`` as in the example of :func:`calibrate`::
+
+        from compquant import quantify
+        q = quantify(m, cal, samples=samples)
+        print(q.summary())
     """
     lt, st, sm = _tables(measurement)
     samples = samples if samples is not None else sm

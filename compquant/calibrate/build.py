@@ -153,15 +153,83 @@ def calibrate(
 ) -> Calibration:
     """Fit every analyte curve of ``config`` to the standards in ``line_table``.
 
-    Analytes whose curve cannot be made (too few standards, non-positive slope ...)
+    Each analyte's response (line intensity, or its ratio to the internal-standard line) is
+    fitted against the certified mass fractions of the standards measured in the run with the
+    analyte's model (``linear``, ``weighted`` or ``quadratic``; docs/calibration.md), with
+    outlier, lack-of-fit and Mandel tests, LOD/LOQ and the inverse-prediction uncertainty
+    budget (:mod:`compquant.calibrate.model`; for an OLS straight line ISO 8466-1:1990,
+    eq. (21)).  Analytes whose curve cannot be made (too few standards, non-positive slope ...)
     are listed in ``Calibration.rejected`` with the reason; if none can be made a
     :class:`CalibrationError` is raised.  An internal-standard line that is a resonance line or
     self-absorbed over the standards (:func:`compquant.calibrate.istd_check.check_calibration`)
     gives an :class:`~compquant.calibrate.istd_check.InternalStandardWarning` with alternatives,
-    kept in each curve's ``diagnostics["internal_standard"]``.  ``shot_table``: the long per-shot
-    table or, using memory independent of the number of lines, ``LineMeasurement.shot_view``
-    (:func:`compquant.calibrate.response.sample_responses`).  ``pls``: optional fitted PLS block
-    (``compquant.calibrate.pls``) stored in the calibration.
+    kept in each curve's ``diagnostics["internal_standard"]``.
+
+    Parameters
+    ----------
+    line_table : DataFrame
+        The run's line table (docs/architecture.md), e.g. ``LineMeasurement.table`` of
+        :func:`compquant.lines.measure_run`.
+    standards : DataFrame
+        Certified values, mass fractions in g/g (:func:`load_standards`).
+    config : CalibrationConfig
+        The method's ``[calibration]`` section (:func:`parse_calibration_section`).
+    shot_table : DataFrame or shot view, optional
+        The long per-shot table or, using memory independent of the number of lines,
+        ``LineMeasurement.shot_view`` (:func:`compquant.calibrate.response.sample_responses`).
+    samples : DataFrame, optional
+        The run's sample table (roles and standard references of the samples).
+    method_id, method_version, method_sha256, method_path : str
+        Provenance of the method, stored in the calibration.
+    run_sha256, run_path : str
+        Provenance of the calibration run (SHA-256 of its file and its path).
+    pls : optional
+        Fitted PLS block (``compquant.calibrate.pls``) stored in the calibration.
+
+    Returns
+    -------
+    Calibration
+        The curves per element, the rejected analytes with their reasons, the setup samples'
+        reference intensities (for drift standardisation) and the provenance.
+
+    Raises
+    ------
+    CalibrationError
+        When no analyte could be calibrated.
+
+    See Also
+    --------
+    quantify : apply the calibration to a run.
+    Calibration.save, Calibration.load : the calibration as versioned JSON.
+    compquant.calibrate.fit_curve : one curve.
+
+    References
+    ----------
+    .. [1] ISO 8466-1:1990, Water quality -- Calibration and evaluation of analytical methods and
+       estimation of performance characteristics -- Part 1: Statistical evaluation of the linear
+       calibration function (inverse prediction, Mandel's fitting test).
+    .. [2] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 5.1.2 and G.4 (delta method, Welch-Satterthwaite).
+    .. [3] Orear, Am. J. Phys. 50 (1982) 912 (effective variance of the certified values).
+    .. [4] Draper & Smith 1998, sec. 2.1 (lack-of-fit F test); Belsley, Kuh & Welsch 1980
+       (studentised residuals, Bonferroni outlier test); DIN 38402-51 (Mandel's test).
+    .. [5] Currie, Anal. Chem. 40 (1968) 586; ISO 11843-2:2000 (detection limits).
+    .. [6] compquant documentation: docs/calibration.md.
+
+    Examples
+    --------
+    From the repository root, the shipped demo (invented scenario)::
+
+        from compquant import Run, load_method, load_standards, measure_run
+        from compquant import calibrate, parse_calibration_section
+        method = load_method("demo_runs/method.toml")
+        with Run.open("demo_runs/demo-day1.h5") as run:
+            m = measure_run(run, method)
+            samples = run.samples
+        cal = calibrate(m.table, load_standards("standards/demo-copper-alloys.csv"),
+                        parse_calibration_section(method.sections["calibration"]),
+                        shot_table=m.shot_view, samples=samples)
+        print(sorted(cal.curves), cal.rejected)
     """
     smap = standard_map(line_table, samples)
     certs = certified_table(standards)

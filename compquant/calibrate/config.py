@@ -239,8 +239,50 @@ def parse_calibration_section(section: dict | None, source: str = "method") -> C
     """Validate ``Method.sections['calibration']`` (a plain dict) into a CalibrationConfig.
 
     Each table goes through its declaration (:data:`CALIBRATION_TABLE`, :data:`ANALYTE_TABLE`,
-    :data:`PLS_TABLE`), then the rules that tie them together.  Raises :class:`MethodError`
-    naming ``<source>: [calibration].<key>``.
+    :data:`PLS_TABLE`), then the rules that tie them together.
+
+    Parameters
+    ----------
+    section : dict or None
+        The parsed ``[calibration]`` table of a method file (layout in the module docstring and
+        docs/calibration.md).
+    source : str, default "method"
+        Where the section came from, named in the error messages.
+
+    Returns
+    -------
+    CalibrationConfig
+        The validated settings: basis, matrix element, internal standard, default model,
+        outlier rule, coverage (``"k2"``: ``U = 2u``; ``"student"``: ``k = t95`` at the effective
+        degrees of freedom), drift rule and one ``AnalyteConfig`` per analyte.
+
+    Raises
+    ------
+    MethodError
+        Naming ``<source>: [calibration].<key>``, e.g. when the section is missing or a value is
+        not one of its choices.
+
+    See Also
+    --------
+    calibrate : uses it.
+    load_method : reads the method file whose ``sections["calibration"]`` this validates.
+
+    References
+    ----------
+    .. [1] TOML v1.0.0, Tom's Obvious Minimal Language, specification (https://toml.io/en/v1.0.0).
+    .. [2] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 6.2-6.3 and G.4 (``coverage``).
+    .. [3] compquant documentation: docs/calibration.md (the ``[calibration]`` reference) and
+       docs/method-file.md.
+
+    Examples
+    --------
+    >>> from compquant import parse_calibration_section
+    >>> cfg = parse_calibration_section({
+    ...     "basis": "ratio", "matrix_element": "Cu", "internal_standard": "Cu I 510.554",
+    ...     "analytes": [{"element": "Zn", "line": "Zn I 481.053"}]})
+    >>> cfg.basis, cfg.analytes[0].model, cfg.coverage
+    ('ratio', 'linear', 'k2')
     """
     if not section:
         raise MethodError(

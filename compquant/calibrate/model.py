@@ -229,7 +229,62 @@ class Curve:
 
 @dataclass
 class Calibration:
-    """A calibration made from one run of certified standards with one method."""
+    """A calibration made from one run of certified standards with one method.
+
+    Per analyte, a curve ``y = f(x; beta)`` of the response (line intensity, or its ratio to the
+    internal-standard line) against the certified mass fraction ``x`` (g/g), and everything
+    needed to apply it to later runs: the setup samples' reference intensities for drift
+    standardisation, the certified values of the standards and the provenance.  A content is
+    found by inverse prediction with the uncertainty budget of the module docstring
+    (docs/calibration.md, sec. 3; GUM 5.1.2, Welch-Satterthwaite G.4), ``U = k u``.
+    Stored as versioned JSON (``save`` / ``load``, docs/calibration.md).
+
+    Attributes
+    ----------
+    method_id, method_version, method_sha256, method_path : str
+        The method the calibration was made with (its SHA-256 is checked on loading).
+    run_sha256, run_path : str
+        The calibration run.
+    standards_sha256, standards_path : str
+        The certified-standards file.
+    standards : list
+        Certified values of every standard referenced by the run.
+    basis : str
+        ``"ratio"`` (to the internal standard) or ``"intensity"``.
+    matrix_element : str or None
+        Element whose line is the internal standard (closure by difference).
+    curves : dict
+        Element -> ``Curve`` (coefficients, covariance, diagnostics, LOD/LOQ).
+    rejected : dict
+        Element -> reason, for analytes whose curve could not be made.
+    setup_reference : dict
+        Setup sample -> line -> ``[I, u]``, the references of drift standardisation.
+    settings : dict
+        The validated ``[calibration]`` section.
+    lines : list of str
+        The lines the curves use (analyte and internal-standard lines).
+    pls : dict or None
+        Optional PLS block (``compquant.calibrate.pls``).
+    created_utc : str
+        Creation time, ISO 8601 UTC (default now).
+    package_version, schema, schema_version
+        Version of compquant that made it and of the JSON schema.
+
+    See Also
+    --------
+    calibrate : makes it.
+    quantify : applies it to a run.
+
+    References
+    ----------
+    .. [1] ISO 8466-1:1990, Water quality -- Calibration and evaluation of analytical methods and
+       estimation of performance characteristics -- Part 1: Statistical evaluation of the linear
+       calibration function (eq. (21), inverse prediction).
+    .. [2] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 5.1.2 and G.4.
+    .. [3] Orear, Am. J. Phys. 50 (1982) 912 (effective variance).
+    .. [4] compquant documentation: docs/calibration.md (statistics and the JSON file).
+    """
 
     method_id: str
     method_version: str

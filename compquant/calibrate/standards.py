@@ -252,21 +252,56 @@ def _is_toml(src: InputBytes, text: str) -> bool:
 def load_standards(path) -> pd.DataFrame:
     """Load and validate a certified-standards file (``.csv`` or ``.toml``).
 
-    ``path``: the file; ``-`` reads the table from standard input
-    (:func:`compquant.fileio.read_stdin`: refused when it is a terminal or empty, bounded in
-    size); an :class:`compquant.fileio.InputBytes` is a table already read (from a file or
-    standard input). Text from standard input is TOML when its first line that is neither blank
-    nor a comment opens a table (``[[standard]]``), CSV otherwise. Files and standard input are
-    limited to :data:`compquant.fileio.MAX_TABLE_BYTES`.
+    Values in ``%``, ``mg/kg`` or ``g/g`` are converted to mass fraction g/g, and the standard
+    uncertainty is ``u = U / k`` from the certified expanded uncertainty ``U`` and coverage
+    factor ``k`` (JCGM 100:2008, 6.2/6.3; module docstring for the CSV and TOML layouts).
 
-    Returns a DataFrame with columns ``standard_id, matrix, element,
-    mass_fraction (g/g), u (standard uncertainty, g/g), U (expanded, g/g), k,
-    source``; ``df.attrs`` holds ``path`` (the path, or ``<stdin>``), ``name`` (the file name
-    provenance records, ``<stdin>`` for standard input) and ``sha256`` of the bytes read.
+    Parameters
+    ----------
+    path : str, path-like or InputBytes
+        The file; ``-`` reads the table from standard input
+        (:func:`compquant.fileio.read_stdin`: refused when it is a terminal or empty, bounded in
+        size); an :class:`compquant.fileio.InputBytes` is a table already read (from a file or
+        standard input). Text from standard input is TOML when its first line that is neither
+        blank nor a comment opens a table (``[[standard]]``), CSV otherwise. Files and standard
+        input are limited to :data:`compquant.fileio.MAX_TABLE_BYTES`.
 
-    Raises :class:`~compquant.errors.StandardsError` for: unknown element,
-    missing value, negative value, mass fraction above 1, duplicated
-    (standard, element) entry, bad unit, ``k <= 0``, malformed rows.
+    Returns
+    -------
+    DataFrame
+        Columns ``standard_id, matrix, element, mass_fraction (g/g), u (standard uncertainty,
+        g/g), U (expanded, g/g), k, source``; ``df.attrs`` holds ``path`` (the path, or
+        ``<stdin>``), ``name`` (the file name provenance records, ``<stdin>`` for standard
+        input) and ``sha256`` of the bytes read.
+
+    Raises
+    ------
+    StandardsError
+        For: unknown element, missing value, negative value, mass fraction above 1, duplicated
+        (standard, element) entry, bad unit, ``k <= 0``, malformed rows; the message names the
+        file, the row (1-based line number of the CSV file, header = line 1) and the column.
+
+    See Also
+    --------
+    calibrate : fits the curves to these certified values.
+    quantify : compares the check samples with them.
+
+    References
+    ----------
+    .. [1] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM), 6.2-6.3 (``u = U / k``).
+    .. [2] RFC 4180, Common Format and MIME Type for Comma-Separated Values (CSV) Files; TOML
+       v1.0.0 specification (https://toml.io/en/v1.0.0).
+    .. [3] FIPS 180-4, Secure Hash Standard (SHA-256 of the bytes read, ``df.attrs["sha256"]``).
+    .. [4] compquant documentation: docs/calibration.md (standards file), docs/architecture.md.
+
+    Examples
+    --------
+    >>> from compquant import load_standards
+    >>> df = load_standards("standards/demo-copper-alloys.csv")
+    >>> row = df.iloc[0]
+    >>> print(row.standard_id, row.element, row.mass_fraction, row.u, row.U, row.k)
+    HRM-CA-101 Cu 0.6114 0.0006 0.0012 2.0
     """
     src = read_input(path, "standards file", error=StandardsError)
     text = src.text(StandardsError, "standards file")
