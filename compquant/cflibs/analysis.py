@@ -218,29 +218,94 @@ def analyse_cf(
 ) -> CFResult:
     """Calibration-free composition of one sample.
 
+    The steps of the module docstring (docs/calibration-free.md): in LTE the Boltzmann-plot
+    ordinate of a line k -> i of species s is ``y = ln(I lambda / (g_k A_ki)) = ln(F hc n_s / U_s)
+    - E_k / kT`` (intensities in energy units); one temperature T (K) and one intercept per
+    species are fitted jointly, ion lines moved onto their neutral with the Saha equation in
+    Saha-Boltzmann mode; the electron density n_e (cm^-3) comes from H-alpha, Stark widths, a
+    fixed value or the Saha balance; the closure ``sum C_s = 1`` gives number fractions and mass
+    fractions ``w_el = x_el M_el / sum x M`` (g/g), with self-absorption detection or correction,
+    LTE checks (McWhirter) and a Monte Carlo for ``u``; ``U = k u``, ``k = 2``.
+
     Parameters
     ----------
-    line_table : the line table of a run (docs/architecture.md); rows of other samples are
+    line_table : DataFrame
+        The line table of a run (docs/architecture.md); rows of other samples are
         ignored.  Atomic columns (``aki``, ``gk``, ``ek_ev``, ``ei_ev``, ``aki_grade``,
         Stark parameters) are taken from the table if present, else joined from the line
         list by ``line_id``.
-    sample_id : which sample (needed when the table holds several).
-    settings : :class:`CFSettings` or the ``[cf]`` dict of a method file.
-    atomic : atomic-data provider (default: the shipped tables, compquant.atomic).
-    acquisition, instrument : the run's attribute dicts (gate delay for the transient LTE
-        check; instrumental FWHM for width-based nₑ).
-    one_point : a :class:`~compquant.cflibs.onepoint.OnePointCalibration` to apply.
-    mc_draws, seed : override the settings' Monte Carlo draws and seed.
-    intensity_basis : ``"energy"`` or ``"photon"``: the basis of the run's response curve (run
-        attribute ``response_basis``); ``[cf] response_basis`` overrides it; ``"unknown"`` is
-        refused.  Photon-basis intensities are converted to energy (× hc/λ).
-    windows : ``line_id → (window_nm, side_nm, gap_nm)`` of the window-integrated lines
+    sample_id : str, optional
+        Which sample (needed when the table holds several).
+    settings : CFSettings or dict, optional
+        :class:`CFSettings` or the ``[cf]`` dict of a method file (default: the defaults).
+    atomic : optional
+        Atomic-data provider (default: the shipped tables, compquant.atomic).
+    acquisition, instrument : dict, optional
+        The run's attribute dicts (gate delay for the transient LTE check; instrumental FWHM
+        for width-based nₑ).
+    one_point : OnePointCalibration, optional
+        A :class:`~compquant.cflibs.onepoint.OnePointCalibration` to apply.
+    mc_draws, seed : int, optional
+        Override the settings' Monte Carlo draws and seed.
+    where : str, optional
+        Where the data came from, named in error messages (default ``sample <id>``).
+    intensity_basis : {"energy", "photon"}, optional
+        The basis of the run's response curve (run attribute ``response_basis``);
+        ``[cf] response_basis`` overrides it; ``"unknown"`` is refused.  Photon-basis
+        intensities are converted to energy (× hc/λ).
+    windows : dict, optional
+        ``line_id → (window_nm, side_nm, gap_nm)`` of the window-integrated lines
         (:func:`compquant.cflibs.capture.method_windows`); each such line is divided by the
         fraction of its area the window measures (docs/calibration-free.md §1a).  Without it
         the intensities are taken as whole line areas.
-    measurement : the :class:`~compquant.lines.LineMeasurement` the line table came from; its
+    measurement : LineMeasurement, optional
+        The :class:`~compquant.lines.LineMeasurement` the line table came from; its
         per-shot intensities give the Monte Carlo the correlation of the line means (every line
         of a shot sees the same plasma; §8).  Without it the line means are drawn independently.
+
+    Returns
+    -------
+    CFResult
+        Plasma conditions (T, nₑ and its route, LTE checks, self-absorption factors), the fit,
+        mass and number fractions per element with ``u``, flags and warnings.
+
+    Raises
+    ------
+    CompquantError
+        When the sample has no valid solution (e.g. bad settings, unknown sample, refused
+        intensity basis), as one line.
+
+    See Also
+    --------
+    analyse_cf_samples : the same for several samples of a run.
+    CFSettings : the ``[cf]`` settings.
+    compquant.analyse : the whole analysis (``cf=True``), certificates included.
+
+    References
+    ----------
+    .. [1] Ciucci et al., Appl. Spectrosc. 53 (1999) 960 (calibration-free LIBS: Boltzmann plot
+       and closure).
+    .. [2] Aragón & Aguilera, Spectrochim. Acta B 63 (2008) 893; Tognoni et al., Spectrochim.
+       Acta B 65 (2010) 1 (Saha-Boltzmann plot; Aragón & Aguilera also the
+       self-absorbed homogeneous slab).
+    .. [3] Cristoforetti et al., Spectrochim. Acta B 65 (2010) 86 (McWhirter criterion,
+       transient and inhomogeneous plasmas).
+    .. [4] Paule & Mandel, J. Res. Natl. Bur. Stand. 87 (1982) 377 (scatter of the fit).
+    .. [5] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM); JCGM 102:2011 (Monte Carlo of the line means).
+    .. [6] compquant documentation: docs/calibration-free.md.
+
+    Examples
+    --------
+    From the repository root, the shipped demo (invented scenario)::
+
+        from compquant import Run, analyse_cf, load_method, measure_run
+        method = load_method("demo_runs/method.toml")
+        with Run.open("demo_runs/demo-day1.h5") as run:
+            m = measure_run(run, method)
+        r = analyse_cf(m.table, sample_id="LOT-2611-A", settings=method.sections.get("cf"),
+                       measurement=m)
+        print(r.summary())
     """
     s = CFSettings.from_section(settings) if not isinstance(settings, CFSettings) else settings
     sid, rows = _select_sample(line_table, sample_id, where or "line table")
@@ -333,11 +398,53 @@ def run_intensity_basis(method, run) -> str | None:
 
 def analyse_cf_samples(line_table: pd.DataFrame, *, sample_ids=None, roles=("unknown", "check"), progress=None,
                        **kwargs) -> tuple[list[CFResult], dict[str, str]]:
-    """Run :func:`analyse_cf` for several samples; returns ``(results, failures)``.
+    """Run :func:`analyse_cf` for several samples of one line table.
 
-    ``failures`` maps sample id → one-line reason for samples with no valid solution
-    (a :class:`~compquant.errors.CompquantError`), so one bad sample does not stop a run.
-    ``progress``: callable ``(done, total)``, called before the first sample and after each.
+    Each sample is analysed on its own (its own T, nₑ and closure; docs/calibration-free.md), so
+    one bad sample does not stop a run.
+
+    Parameters
+    ----------
+    line_table : DataFrame
+        The line table of a run (docs/architecture.md).
+    sample_ids : list of str, optional
+        The samples, in order; default every sample of the table whose role is in ``roles``.
+    roles : tuple of str or None, default ("unknown", "check")
+        Roles analysed when ``sample_ids`` is not given (``None``: every sample).
+    progress : callable, optional
+        ``(done, total)``, called before the first sample and after each.
+    **kwargs
+        Passed to :func:`analyse_cf` (``settings``, ``acquisition``, ``instrument``,
+        ``one_point``, ``intensity_basis``, ``windows``, ``measurement`` ...).
+
+    Returns
+    -------
+    results : list of CFResult
+        One per sample with a valid solution.
+    failures : dict
+        Sample id → one-line reason for samples with no valid solution
+        (a :class:`~compquant.errors.CompquantError`).
+
+    See Also
+    --------
+    analyse_cf : one sample.
+    compquant.cflibs.result.results_table : the results of several samples as one table.
+
+    References
+    ----------
+    .. [1] Ciucci et al., Appl. Spectrosc. 53 (1999) 960 (calibration-free LIBS).
+    .. [2] compquant documentation: docs/calibration-free.md.
+
+    Examples
+    --------
+    From the repository root, with ``method`` and ``m`` as in the example of
+    :func:`analyse_cf`::
+
+        from compquant import analyse_cf_samples
+        results, failures = analyse_cf_samples(m.table, settings=method.sections.get("cf"),
+                                               measurement=m)
+        for r in results:
+            print(r.sample_id, r.mass_fractions())
     """
     from compquant.errors import CompquantError
 

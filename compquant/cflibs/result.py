@@ -50,7 +50,64 @@ class ElementResult:
 
 @dataclass
 class CFResult:
-    """Calibration-free result for one sample.  Mass fractions are g/g; U = k·u, k = 2."""
+    """Calibration-free result for one sample.  Mass fractions are g/g; U = k·u, k = 2.
+
+    Round-trips through JSON (``to_json`` / ``from_json``, schema ``compquant.cf-result/1``);
+    ``results_table()`` gives the rows of the results-table contract (docs/architecture.md,
+    basis ``"cf"``).
+
+    Attributes
+    ----------
+    sample_id : str
+    temperature_k, u_temperature_k : float
+        Plasma temperature and its standard uncertainty, K.
+    electron_density_cm3, u_electron_density_cm3 : float
+        Electron density and its standard uncertainty, cm⁻³.
+    ne_method : str
+        Route of the electron density (``saha_balance``, ``h_alpha_stark_width``,
+        ``stark_widths``, ``fixed``); ``ne_estimates`` and ``ne_agreement`` hold every route's
+        value and their agreement.
+    fit_mode : str
+        ``"boltzmann"`` or ``"saha-boltzmann"``.
+    elements : list of ElementResult
+        Per element: mass and number fractions with ``u``, lines used, flags, whether it is
+        determined (and why not).
+    lte : dict
+        Each LTE criterion (McWhirter, transient, inhomogeneous): checked, passed, value, limit.
+    species, lines, excluded_lines : list of dict
+        Per-species Boltzmann T; per line the ordinate, fit, residual, self-absorption and
+        correction factors and flags; the lines left out, with reasons.
+    self_absorption, fit, monte_carlo : dict
+        Self-absorption treatment; the fit (slope, χ², p-value, intercepts); the Monte Carlo
+        summary.
+    one_point : dict or None
+        The one-point calibration applied, if any.
+    flags, warnings : list of str
+    settings : dict
+        The ``[cf]`` settings used.
+    plasma_consistent : bool
+        False when the plasma solution failed a physical check (``plasma_checks``): no mass
+        fraction of the sample is certified (flag ``plasma_inconsistent``).
+    rejected_lines, upper_limits : list of dict
+        Lines rejected by the robust closure; non-detected lines used as upper limits.
+    intensity_basis : str
+        Basis of the line intensities (``"energy"``).
+    k : float
+        Coverage factor, 2.
+
+    See Also
+    --------
+    analyse_cf : makes it.
+    compquant.cflibs.result.results_table : several results as one table.
+
+    References
+    ----------
+    .. [1] Ciucci et al., Appl. Spectrosc. 53 (1999) 960 (calibration-free LIBS).
+    .. [2] Cristoforetti et al., Spectrochim. Acta B 65 (2010) 86 (LTE criteria).
+    .. [3] JCGM 100:2008, Evaluation of measurement data -- Guide to the expression of uncertainty
+       in measurement (GUM) (``U = 2u``).
+    .. [4] compquant documentation: docs/calibration-free.md §9 (results), docs/architecture.md.
+    """
 
     sample_id: str
     temperature_k: float

@@ -161,8 +161,55 @@ CF_TABLE = Table("cf", (
            "[cf.fixed] holds one element with 0 < w < 1.",))
 
 
+#: numpydoc docstring of :class:`CFSettings` (``settings_dataclass`` appends the "Fields" line)
+_CF_DOC = """Settings of the calibration-free analysis (see docs/calibration-free.md).
+
+The ``[cf]`` table of a method file, validated by :meth:`from_section` through :data:`CF_TABLE`
+(every key with its type, default, unit and range: docs/method-reference.md), then the rules
+that tie settings together: ``ne_method = "fixed"`` needs ``ne_fixed_cm3``;
+``self_absorption = "curve_of_growth"`` needs ``plasma_length_mm``; ``t_min_k < t_max_k``.
+
+Attributes
+----------
+fit : {"saha-boltzmann", "boltzmann"}, default "saha-boltzmann"
+    Boltzmann or Saha-Boltzmann plot (docs/calibration-free.md §2).
+ne_method : str, default "auto"
+    Route to the electron density (§3); ``ne_fixed_cm3`` (cm⁻³) for ``"fixed"``.
+t_min_k, t_max_k : float, default 3000.0, 50000.0
+    Accepted temperature range, K.
+self_absorption : str, default "detect"
+    Self-absorption treatment (§6); ``plasma_length_mm`` (mm) for ``"curve_of_growth"``.
+lte_f, lte_gaunt, lte_transient_ratio : float
+    LTE criteria (§4): McWhirter factor, Gaunt factor, relaxation time / gate delay at most.
+mc_draws, seed : int, default 300, 20261201
+    Monte Carlo draws and their seed (§8).
+elements, exclude_elements, exclude_flags : list
+    Elements to report, elements never in the closure, line-table flags that drop a line.
+fixed : dict
+    ``[cf.fixed]`` element = mass fraction (g/g) held fixed (one element at most).
+
+See Also
+--------
+analyse_cf : uses them.
+compquant.settings.Table : the declaration the fields are generated from.
+
+References
+----------
+.. [1] Ciucci et al., Appl. Spectrosc. 53 (1999) 960 (calibration-free LIBS).
+.. [2] Cristoforetti et al., Spectrochim. Acta B 65 (2010) 86 (McWhirter criterion as written
+   there; transient and inhomogeneous plasmas).
+.. [3] compquant documentation: docs/calibration-free.md §10 (``[cf]`` settings) and the
+   generated docs/method-reference.md.
+
+Examples
+--------
+>>> from compquant import CFSettings
+>>> s = CFSettings.from_section({"ne_method": "stark", "mc_draws": 200})
+>>> s.fit, s.ne_method, s.self_absorption, s.mc_draws
+('saha-boltzmann', 'stark', 'detect', 200)
+"""
+
 CFSettings = settings_dataclass(
-    CF_TABLE, "CFSettings", module=__name__, bases=(_CFSettingsMethods,),
-    doc="Settings of the calibration-free analysis (see docs/calibration-free.md).")
+    CF_TABLE, "CFSettings", module=__name__, bases=(_CFSettingsMethods,), doc=_CF_DOC)
 
 __all__ = ["BASES", "CF_TABLE", "CFSettings", "FIT_MODES", "MISSING", "NE_METHODS", "SA_METHODS"]
