@@ -85,9 +85,9 @@ class CFResult:
     flags, warnings : list of str
     settings : dict
         The ``[cf]`` settings used.
-    plasma_consistent : bool
-        False when the plasma solution failed a physical check (``plasma_checks``): no mass
-        fraction of the sample is certified (flag ``plasma_inconsistent``).
+    plasma_consistent, plasma_checks : bool, list of dict
+        False when the plasma solution failed a physical check (listed in ``plasma_checks``):
+        no mass fraction of the sample is certified (flag ``plasma_inconsistent``).
     rejected_lines, upper_limits : list of dict
         Lines rejected by the robust closure; non-detected lines used as upper limits.
     intensity_basis : str

@@ -297,7 +297,7 @@ def write_run(path: str | os.PathLike, wavelength, spectra, samples: pd.DataFram
     exposure_s, dark_exposure_s : exposure times of the spectra and of the dark frames, s, optional
     pulse_energy_mj, time_s, x_mm, y_mm, shot : optional per-shot columns, (n_shots,) each: pulse
         energy (mJ), time (s), stage position (mm), shot number
-    instrument, acquisition : mappings stored as the run's groups of settings, optional
+    instrument, acquisition : mappings stored as the run's two groups of attributes, optional
     medium : ``"air"`` or ``"vacuum"``, the medium of ``wavelength``
     compression : HDF5 filter of the datasets (``"gzip"``, the deflate of RFC 1950/1951) or None
 
