@@ -113,6 +113,15 @@ def _package_grade_u(grade) -> float:
     return float(atomic.aki_standard_uncertainty(str(grade)))
 
 
+def _checked_t(T, species: str, part) -> np.ndarray:
+    """``T`` as a float array, finite and > 0 K, else the error of
+    :func:`compquant.atomic.partition_function` (a cheaper test of the same condition)."""
+    T_arr = np.asarray(T, dtype=float)
+    if np.isfinite(T_arr).all() and (T_arr > 0).all():
+        return T_arr
+    return part._check_t(T, species)
+
+
 def _u_evaluator(species: str):
     """U(T) of one shipped species as a function of T, with the per-species look-ups done once;
     ``None`` where :func:`compquant.atomic.partition_function` would raise or needs data it reads
@@ -126,7 +135,7 @@ def _u_evaluator(species: str):
     name = atomic.species_name(sym, ion)
     if ion == part._atomic_number(sym) + 1:
         def bare(T):
-            T_arr = part._check_t(T, species)
+            T_arr = _checked_t(T, species, part)
             return np.ones_like(T_arr) if T_arr.ndim else 1.0
         return bare
     idx = part.partition_index()
@@ -136,7 +145,7 @@ def _u_evaluator(species: str):
         t, lu = part._all_tabulated()[name]
 
         def tabulated(T):
-            T_arr = part._check_t(T, species)
+            T_arr = _checked_t(T, species, part)
             u = np.exp(np.interp(T_arr, t, lu))
             return u if u.ndim else float(u)
         return tabulated
@@ -149,7 +158,7 @@ def _u_evaluator(species: str):
     k_b = part.K_B_EV
 
     def level_sum(T):
-        T_arr = part._check_t(T, species)
+        T_arr = _checked_t(T, species, part)
         beta = 1.0 / (k_b * T_arr.reshape(-1))
         u = np.exp(-np.outer(beta, e)) @ g
         u = u.reshape(T_arr.shape)
