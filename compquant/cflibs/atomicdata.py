@@ -37,21 +37,40 @@ class PackageAtomicData:
         self._atomic = atomic
         self._u_memo: dict = {}
         self._has_u: dict[str, bool] = {}
+        self._u_eval: dict[str, Callable | None] = {}
 
     def partition_function(self, species: str, T) -> np.ndarray:
         """U(T) by the level sum of :func:`compquant.atomic.partition_function` (vectorised over T),
         memoised for small T arrays."""
         T = np.asarray(T, dtype=float)
         if T.size > self.MEMO_MAX_T:
-            return np.asarray(self._atomic.partition_function(species, T), dtype=float)
+            return self._u_uncached(species, T)
         key = (species, T.shape, T.tobytes())
         u = self._u_memo.get(key)
         if u is None:
-            u = np.asarray(self._atomic.partition_function(species, T), dtype=float)
+            u = self._u_uncached(species, T)
             if len(self._u_memo) >= self.MEMO_SIZE:
                 self._u_memo.clear()
             self._u_memo[key] = u
         return u.copy()
+
+    def _u_uncached(self, species: str, T: np.ndarray) -> np.ndarray:
+        """:func:`compquant.atomic.partition_function` of ``species`` at ``T`` (no lowering).
+
+        The species' kind (bare nucleus, tabulated, level sum) and its level arrays are looked
+        up once per species; the arithmetic is the same as in
+        :func:`compquant.atomic.partition_function` (same operations in the same order, so the
+        same numbers; tests/test_cflibs_speed.py checks them bit for bit).  Species the
+        evaluator does not know go through :func:`compquant.atomic.partition_function` itself,
+        which raises its usual error.
+        """
+        ev = self._u_eval.get(species, False)
+        if ev is False:
+            ev = _u_evaluator(species) if self._atomic is atomic else None
+            self._u_eval[species] = ev
+        if ev is None:
+            return np.asarray(self._atomic.partition_function(species, T), dtype=float)
+        return np.asarray(ev(T), dtype=float)
 
     def has_partition_function(self, species: str) -> bool:
         """True when the shipped tables give a finite, positive U for ``species``: a shipped level
@@ -92,6 +111,59 @@ def _package_grade_u(grade) -> float:
     """Relative standard uncertainty of A_ki from :func:`compquant.atomic.aki_standard_uncertainty`
     (NIST grade bound / √3, GUM 4.3.7): the one shipped grade table."""
     return float(atomic.aki_standard_uncertainty(str(grade)))
+
+
+def _checked_t(T, species: str, part) -> np.ndarray:
+    """``T`` as a float array, finite and > 0 K, else the error of
+    :func:`compquant.atomic.partition_function` (a cheaper test of the same condition)."""
+    T_arr = np.asarray(T, dtype=float)
+    if np.isfinite(T_arr).all() and (T_arr > 0).all():
+        return T_arr
+    return part._check_t(T, species)
+
+
+def _u_evaluator(species: str):
+    """U(T) of one shipped species as a function of T, with the per-species look-ups done once;
+    ``None`` where :func:`compquant.atomic.partition_function` would raise or needs data it reads
+    per call.  Mirrors that function's default path (no level table given, no lowering):
+    U = 1 for a bare nucleus; ``exp(interp(T, t, ln U))`` for tabulated species; else
+    ``exp(-outer(1/(k_B T), E)) @ g`` over the levels below the ionisation energy
+    (Irwin 1981, ApJS 45, 621; see :mod:`compquant.atomic.partition`)."""
+    from compquant.atomic import partition as part
+
+    sym, ion = atomic.parse_species(species)
+    name = atomic.species_name(sym, ion)
+    if ion == part._atomic_number(sym) + 1:
+        def bare(T):
+            T_arr = _checked_t(T, species, part)
+            return np.ones_like(T_arr) if T_arr.ndim else 1.0
+        return bare
+    idx = part.partition_index()
+    if name not in idx.index:
+        return None
+    if str(idx.loc[name, "method"]) == "tabulated":
+        t, lu = part._all_tabulated()[name]
+
+        def tabulated(T):
+            T_arr = _checked_t(T, species, part)
+            u = np.exp(np.interp(T_arr, t, lu))
+            return u if u.ndim else float(u)
+        return tabulated
+    e, g = part._shipped_arrays(name)
+    e_ion = atomic.ionisation_energy(name)
+    if not 0.0 < e_ion:
+        return None
+    keep = e < e_ion - float(np.asarray(0.0, dtype=float))
+    e, g = e[keep], g[keep]
+    k_b = part.K_B_EV
+
+    def level_sum(T):
+        T_arr = _checked_t(T, species, part)
+        beta = 1.0 / (k_b * T_arr.reshape(-1))
+        u = np.exp(-np.outer(beta, e)) @ g
+        u = u.reshape(T_arr.shape)
+        return u if u.ndim else float(u)
+    return level_sum
 
 
 class TableAtomicData:

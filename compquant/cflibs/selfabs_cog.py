@@ -6,6 +6,7 @@ correction at a known or fitted length, and the internal reference line method
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -18,6 +19,19 @@ from compquant.cflibs.solver import Model, Solution
 from compquant.errors import PhysicsError
 from compquant.plasma.constants import KB_EV as K_B_EV
 
+_COG_MEMO_SIZE = 8
+
+
+@functools.lru_cache(maxsize=64)
+def _charges(names: tuple[str, ...]):
+    """Charged species of ``names`` ("Cu II" → charge 1, …) and ln of their charges."""
+    z = np.array([int(len(k.split()[1]) if k.split()[1] != "IV" else 4) - 1 for k in names])
+    charged = z > 0
+    ln_z = np.log(z[charged])
+    charged.flags.writeable = False
+    ln_z.flags.writeable = False
+    return charged, ln_z
+
 
 class CurveOfGrowth:
     """Mixin of :class:`compquant.cflibs.analysis._Analysis`: curve-of-growth self-absorption."""
@@ -27,9 +41,8 @@ class CurveOfGrowth:
         sp = sol.ln_n_species
         names = list(sp)
         lns = np.array([sp[k][j] for k in names])
-        z = np.array([int(len(k.split()[1]) if k.split()[1] != "IV" else 4) - 1 for k in names])
-        charged = z > 0
-        ln_e = np.logaddexp.reduce(lns[charged] + np.log(z[charged]))
+        charged, ln_z = _charges(tuple(names))
+        ln_e = np.logaddexp.reduce(lns[charged] + ln_z)
         lnK = math.log(sol.ne[j]) - ln_e
         return {k: math.exp(v + lnK) for k, v in zip(names, lns)}
 
@@ -67,6 +80,31 @@ class CurveOfGrowth:
         u = {sp: float(atomic.partition_function(sp, np.array([T]))[0]) for sp in dict.fromkeys(species)}
         return np.array([u[sp] for sp in species])
 
+    def _cog_widths(self, T: float, ne: float, sa_prev):
+        """U(T) per line, Doppler and thin Lorentzian FWHM per line at (T, nₑ, SA) for
+        :meth:`sa_cog`.  The self-absorption fit asks again at the same (T, nₑ) for every
+        parameter of a finite-difference Jacobian but T and nₑ, so the last few results are kept
+        (read-only, exactly what the calls return); the memo starts afresh when the lines,
+        masses, instrumental widths or model change."""
+        owner = (self.L, self.mass_line, self.w_instr, self.model)
+        memo = getattr(self, "_cog_memo", None)
+        if memo is None or any(a is not b for a, b in zip(memo[0], owner)):
+            memo = (owner, {})
+            self._cog_memo = memo
+        sa_prev = np.asarray(sa_prev, dtype=float)
+        key = (T, ne, sa_prev.tobytes())
+        hit = memo[1].get(key)
+        if hit is not None:
+            return hit
+        out = (self._u_per_line(self.model.atomic, T), doppler_fwhm_nm(self.L.wl, T, self.mass_line),
+               self.lorentz_thin(T, ne, sa_prev))
+        for a in out:
+            a.flags.writeable = False
+        if len(memo[1]) >= _COG_MEMO_SIZE:
+            memo[1].clear()
+        memo[1][key] = out
+        return out
+
     def sa_cog(self, sol: Solution, length_cm: float, sa_prev):
         """Curve-of-growth SA of every line for a slab of length ``length_cm``."""
         L = self.L
@@ -74,9 +112,7 @@ class CurveOfGrowth:
         ne = float(sol.ne[0])
         nabs = self.absolute_species(sol)
         n_sp = np.array([nabs[s] for s in L.species])
-        u_sp = self._u_per_line(self.model.atomic, T)
-        wg = doppler_fwhm_nm(L.wl, T, self.mass_line)
-        wlz = self.lorentz_thin(T, ne, sa_prev)
+        u_sp, wg, wlz = self._cog_widths(T, ne, sa_prev)
         tau = tau0_slab(L.wl, L.gA, L.ei, T, n_sp, u_sp, length_cm, wg, wlz)
         return sa_factor(tau, wg, wlz), tau
 

@@ -324,6 +324,33 @@ class Model:
             self._lu_memo[key] = (lu1, lu2, lu3)
         return lu1, lu2, lu3
 
+    def _composition_indices(self, stages, groups):
+        """The per-element constants of :meth:`_composition` for the parameter ``groups``
+        (stage III flags, ionisation energies, columns of the intercepts), built once per groups."""
+        key = tuple(groups)
+        memo = self.__dict__.setdefault("_ci_memo", {})
+        hit = memo.get(key)
+        if hit is not None:
+            return hit
+        p0 = 1
+        use3 = np.array([r[3] for r in stages], dtype=bool)
+        ie1 = np.array([self.ie1[e] for e in self.elements])[None, :]
+        ie2 = np.array([self.ie2[e] if r[3] else 0.0 for e, r in zip(self.elements, stages)])[None, :]
+        if self.mode == "saha-boltzmann":
+            idx1 = [p0 + groups.index(e) for e in self.elements]
+            idx2 = has1 = has2 = None
+        else:
+            has1 = np.array([r[0] in groups for r in stages])
+            has2 = np.array([r[1] in groups for r in stages])
+            idx1 = [p0 + (groups.index(r[0]) if r[0] in groups else 0) for r in stages]
+            idx2 = [p0 + (groups.index(r[1]) if r[1] in groups else 0) for r in stages]
+        out = (use3, ie1, ie2, idx1, idx2, has1, has2)
+        for a in out:
+            if isinstance(a, np.ndarray):
+                a.flags.writeable = False
+        memo[key] = out
+        return out
+
     def _composition(self, beta, groups, T, ne):
         """Relative ln number density per element (and per species), all elements at once.
 
@@ -331,26 +358,21 @@ class Model:
         ln n_III/n_II likewise with E_ion,II and ΔE₂ (Saha; S = 2(2πmₑkT/h²)^{3/2}/nₑ), then
         ln n_e = ln Σ_stages n (log-sum-exp; an absent stage III enters as e^{−∞} = 0).
         """
-        p0 = 1
         stages = self._stages()
         ln_saha = (LN_SAHA_PREFACTOR + 1.5 * np.log(T) - np.log(ne))[:, None]
         kT = (KB_EV * T)[:, None]
         low1 = self.lowering(T, ne, 1)[:, None]
         low2 = self.lowering(T, ne, 2)[:, None]
         lu1, lu2, lu3 = self._ln_u_stages(stages, T)
-        use3 = np.array([r[3] for r in stages], dtype=bool)
-        ie1 = np.array([self.ie1[e] for e in self.elements])[None, :]
-        ie2 = np.array([self.ie2[e] if r[3] else 0.0 for e, r in zip(self.elements, stages)])[None, :]
+        use3, ie1, ie2, idx1, idx2, has1, has2 = self._composition_indices(stages, groups)
         ln_r1 = ln_saha + lu2 - lu1 - (ie1 - low1) / kT
         ln_r2 = ln_saha + lu3 - lu2 - (ie2 - low2) / kT
         if self.mode == "saha-boltzmann":
-            ln_n1 = beta[:, [p0 + groups.index(e) for e in self.elements]] + lu1
+            ln_n1 = beta[:, idx1] + lu1
             ln_n2 = ln_n1 + ln_r1
         else:
-            has1 = np.array([r[0] in groups for r in stages])
-            has2 = np.array([r[1] in groups for r in stages])
-            n1 = beta[:, [p0 + (groups.index(r[0]) if r[0] in groups else 0) for r in stages]] + lu1
-            n2 = beta[:, [p0 + (groups.index(r[1]) if r[1] in groups else 0) for r in stages]] + lu2
+            n1 = beta[:, idx1] + lu1
+            n2 = beta[:, idx2] + lu2
             ln_n1 = np.where(has1, n1, n2 - ln_r1)
             ln_n2 = np.where(has2, n2, ln_n1 + ln_r1)
         ln_n3 = np.where(use3, ln_n2 + ln_r2, -np.inf)
