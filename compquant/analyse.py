@@ -28,7 +28,7 @@ here from their new homes.
 
 from __future__ import annotations
 
-from compquant.workflow.certify import _complete_rows, _method_files, assemble_certificates  # noqa: F401
+from compquant.workflow.certify import assemble_certificates
 from compquant.workflow.issue import plan_issue, sample_stems
 from compquant.workflow.outputs import (  # noqa: F401
     MANIFEST,
@@ -42,7 +42,6 @@ from compquant.workflow.outputs import (  # noqa: F401
 )
 from compquant.workflow.prepare import (  # noqa: F401
     _measurement_times,
-    _norm_issued_at,
     check_options,
     measure,
     prepare,

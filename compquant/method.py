@@ -104,8 +104,6 @@ LineSpec = settings_dataclass(
 
 #: the method file's own tables, in the order of the generated reference
 TABLES = (METHOD_TABLE, *PREPROCESS_SCHEMAS, MEASURE_TABLE, LINE_TABLE)
-METHOD_KEYS = frozenset(METHOD_TABLE.keys)
-MEASURE_KEYS = frozenset(MEASURE_TABLE.keys)
 LINE_KEYS = frozenset(LINE_TABLE.keys)
 
 _ROMAN = {"I": 1, "II": 2, "III": 3, "IV": 4, "V": 5, "VI": 6}

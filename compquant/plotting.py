@@ -464,14 +464,13 @@ def boltzmann_png(upper_energy_eV, ordinate, species=None, **kw) -> bytes:
 
 def write_png(png: bytes, path) -> Path:
     """Write PNG bytes to ``path`` atomically; an OS error becomes :class:`~compquant.errors.OutputError`."""
+    from compquant.fileio import output_error, write_bytes_atomic
+
     out = Path(path)
     try:
-        with atomic_path(out) as tmp:
-            Path(tmp).write_bytes(png)
+        write_bytes_atomic(out, png)
     except OSError as exc:
-        raise OutputError(
-            f"cannot write ({exc.strerror})", where=str(out), fix="choose a writable output path"
-        ) from exc
+        raise output_error(exc, out) from exc
     return out
 
 

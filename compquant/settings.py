@@ -345,11 +345,6 @@ def _copy(v):
     return v
 
 
-def parse_table(schema: Table, data, where: str, error: type = MethodError) -> dict:
-    """Function form of :meth:`Table.parse`."""
-    return schema.parse(data, where, error)
-
-
 # ---------------------------------------------------------------------- the generated reference
 def table_markdown(t: Table) -> str:
     """One table's reference: a heading, its doc, one row per setting, and its notes."""
@@ -383,5 +378,5 @@ def reference_markdown(tables: Iterable[Table], title: str, intro: str = "") -> 
     return "\n".join(parts).rstrip("\n") + "\n"
 
 
-__all__ = ["REQUIRED", "TYPES", "Setting", "Table", "parse_table", "reference_markdown",
+__all__ = ["REQUIRED", "TYPES", "Setting", "Table", "reference_markdown",
            "settings_dataclass", "table_markdown", "toml_text"]

@@ -78,30 +78,24 @@ def command(run_path, method_path, calibration_path, out_dir, samples, chunk_sho
     from compquant.run import Run
 
     method = load_method(method_path)
-    recorder = recorder_for_maps(db, run_path)  # fail fast: before the work
     cal = None
     if calibration_path:
         from compquant.calibrate.model import Calibration
 
         cal = Calibration.load(calibration_path)
     scheduler = fold_scheduler(scheduler, scheduler_file)
-    with Run.open(run_path) as run, open_executor(workers, scheduler) as ex:
-        if quiet or run.n_shots < 20000:
-            result = make_maps(
-                run, method, calibration=cal, chunk_shots=chunk_shots, executor=ex, samples=list(samples) or None
-            )
-        else:
-            passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
-            with progress_bar(run.n_shots * passes, "measuring") as bar:
+    with Run.open(run_path) as run:
+        recorder = recorder_for_maps(db, run)  # fail fast: before the work; the run keeps its hash
+        with open_executor(workers, scheduler) as ex:
+            if quiet or run.n_shots < 20000:
                 result = make_maps(
-                    run,
-                    method,
-                    calibration=cal,
-                    chunk_shots=chunk_shots,
-                    executor=ex,
-                    progress=bar.update,
-                    samples=list(samples) or None,
+                    run, method, calibration=cal, chunk_shots=chunk_shots, executor=ex, samples=list(samples) or None
                 )
+            else:
+                passes = 1 + (method.preprocess.shift != "none") + any(ln.mode == "fit" for ln in method.lines)
+                with progress_bar(run.n_shots * passes, "measuring") as bar:
+                    result = make_maps(run, method, calibration=cal, chunk_shots=chunk_shots, executor=ex,
+                                       progress=bar.update, samples=list(samples) or None)
     stored = None
     if recorder is not None:
         from compquant.record.evidence import maps_evidence

@@ -74,8 +74,6 @@ MAP_TABLE = Table("map", (
             fix='write samples = ["..."]'),
 ), doc="Element maps of rastered samples (compquant map).", owner="compquant.maps.build")
 
-MAP_KEYS = frozenset(MAP_TABLE.keys)
-
 
 def parse_map_section(section: dict | None, where: str = "method") -> MapSettings:
     """Check the method's ``[map]`` table through :data:`MAP_TABLE`."""

@@ -100,9 +100,10 @@ class MapRecorder:
             self.record.dispose()
 
 
-def recorder_for_maps(db, run_path) -> MapRecorder | None:
+def recorder_for_maps(db, run) -> MapRecorder | None:
     """Open the record for ``compquant map`` (None when no record is given or configured) and find
-    the run by the SHA-256 of its file.  With ``--db`` given, a missing record or a run the record
+    the run (an open :class:`compquant.run.Run`) by the SHA-256 of its file, which the run keeps,
+    so the map's provenance does not hash the file again.  With ``--db`` given, a missing record or a run the record
     does not hold is refused (:class:`RecordError`); with the record only configured
     (``COMPQUANT_DB``), such a run is mapped as without a record and a log line says the maps
     were not stored (mapping a run that was never analysed stays possible)."""
@@ -122,9 +123,9 @@ def recorder_for_maps(db, run_path) -> MapRecorder | None:
         raise RecordError("no record here", where=str(location),
                           fix="give the record the run was analysed into ('compquant analyse RUN --db ...')")
     rec = open_record(location)
-    run_name = Path(run_path).name
+    run_name = Path(run.path).name
     try:
-        run_sha256 = sha256_file(run_path)
+        run_sha256 = run.sha256()
     except BaseException:
         rec.dispose()
         raise

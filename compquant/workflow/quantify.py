@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from compquant.errors import CalibrationError, ConfigError
-from compquant.fileio import MAX_CALIBRATION_BYTES, read_input, sha256_file
+from compquant.fileio import MAX_CALIBRATION_BYTES, read_input
 from compquant.report import CheckResult, DriftInfo, FileRef, assemble, release
 from compquant.report.numbers import finite
 
@@ -245,7 +245,7 @@ def _cf_references(settings, method, table, refs, acquisition, instrument, files
 
     path = method.resolve_path(settings.standards_file)
     stds = load_standards(path)
-    files.append(FileRef("standards (calibration-free)", path.name, sha256_file(path)))
+    files.append(FileRef("standards (calibration-free)", stds.attrs["name"], stds.attrs["sha256"]))  # as parsed
     certified = certified_table(stds)
     one_point = None
     sid = settings.one_point_standard
