@@ -56,10 +56,10 @@ from scipy import constants
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 from compquant.atomic.airvac import vacuum_to_air  # noqa: E402
+from compquant.plasma.constants import CM1_TO_EV as CM_TO_EV  # noqa: E402  1 cm^-1 in eV (CODATA)
+from compquant.plasma.constants import HC_EV_NM  # noqa: E402  h c in eV nm (CODATA)
 
 OUT = ROOT / "compquant" / "data" / "atomic"
-CM_TO_EV = constants.h * constants.c * 100.0 / constants.e  # 1 cm^-1 in eV (CODATA)
-HC_EV_NM = constants.h * constants.c / constants.e * 1e9  # eV nm
 #: A_ki = (2 pi e^2 / (eps0 m_e c lambda^2)) g_i f_ik / g_k  (SI; e.g. Hilborn 1982, Am. J. Phys. 50, 982)
 GF_TO_A = 2 * np.pi * constants.e**2 / (constants.epsilon_0 * constants.m_e * constants.c)
 ROMAN = ("I", "II", "III")
