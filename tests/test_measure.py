@@ -42,6 +42,23 @@ def test_table_columns_and_accuracy_fit_mode(run_path):
     assert blk["flags"].str.contains("not_found").all()
 
 
+def test_fit_groups_name_the_lines_each_fit_measured(run_path):
+    # the two Cu lines share a group name (fitted together); each Zn line is fitted alone
+    lines = [{"id": k, "mode": "fit", "fwhm_nm": 0.04, **({"group": "cu"} if k.startswith("Cu") else {})}
+             for k in LINES]
+    with Run.open(run_path) as run:
+        lm = measure_run(run, method(lines=lines))
+    assert lm.fit_groups == [[0, 1], [2], [3]]
+    std = lm.table[lm.table.sample_id == "STD"].set_index("line_id")
+    for g, members in enumerate(lm.fit_groups):
+        fit = lm.fits[("STD", g)]
+        assert fit.areas.size == len(members) == fit.design.shape[1] - 2  # profile columns, then background
+        for i in members:
+            # invented run: the fitted line of the group recovers its own area within 2 %
+            assert std.loc[lm.line_ids[i], "intensity"] == pytest.approx(AREAS[lm.line_ids[i]], rel=0.02)
+            assert fit.centres[members.index(i)] == pytest.approx(LINES[lm.line_ids[i]], abs=0.002)
+
+
 def test_qc_report_counts_rejected_shot(run_path):
     with Run.open(run_path) as run:
         lm = measure_run(run, method())

@@ -62,6 +62,18 @@ def test_saha_prefactor_hand_calculation():
     assert SAHA_PREFACTOR_CM3 == pytest.approx(4.83e15, rel=1e-3)
 
 
+def test_wavenumber_and_wavelength_energy_conversions():
+    from compquant.plasma.constants import CM1_TO_EV, HC_EV_NM
+
+    # CODATA "inverse meter-electron volt relationship" (scipy.constants.physical_constants): 1 m^-1 in eV;
+    # h, c and e are exact in the SI since 2019, so the listed value is h c / e itself
+    per_m = sc.physical_constants["inverse meter-electron volt relationship"][0]
+    assert CM1_TO_EV == pytest.approx(100.0 * per_m, rel=1e-15)
+    assert HC_EV_NM == pytest.approx(1e9 * per_m, rel=1e-15)
+    # from memory of the NIST ASD: 1 eV = 8065.544 cm^-1
+    assert 1.0 / CM1_TO_EV == pytest.approx(8065.544, abs=1e-3)
+
+
 def test_hydrogen_ionisation_energy_from_rydberg():
     # from memory of NIST ASD: ionisation energy of H 13.598434 eV; the Bohr formula with reduced
     # mass omits relativistic and QED terms (~1.5e-4 eV)

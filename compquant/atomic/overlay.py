@@ -42,7 +42,6 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from scipy import constants as _const
 
 from compquant.atomic.elements import known_symbols, species_name
 from compquant.errors import AtomicDataError, InputError
@@ -105,8 +104,6 @@ def _pick(df: pd.DataFrame, names: tuple[str, ...], path: Path) -> pd.Series:
                           fix="export the NIST ASD form as tab-delimited with these columns ticked")
 
 
-#: 1 cm^-1 in eV: h c (100 cm/m) / e, CODATA (scipy.constants)
-_CM1_TO_EV = _const.h * _const.c * 100.0 / _const.e
 _WL_UNIT_TO_NM = {"nm": 1.0, "A": 0.1, "um": 1000.0}
 _WL_COLUMN = re.compile(r"^(obs|ritz)_wl_(air|vac)\((nm|A|um)\)$")
 
@@ -140,7 +137,9 @@ def _energy_ev(df: pd.DataFrame, stem: str, path: Path) -> pd.Series:
     if f"{stem}(eV)" in df.columns:
         return df[f"{stem}(eV)"].map(_number)
     if f"{stem}(cm-1)" in df.columns:
-        return df[f"{stem}(cm-1)"].map(_number) * _CM1_TO_EV
+        from compquant.plasma.constants import CM1_TO_EV  # here: the plasma package is not needed to load lines
+
+        return df[f"{stem}(cm-1)"].map(_number) * CM1_TO_EV
     raise AtomicDataError(f"no column {stem}(eV) or {stem}(cm-1)", where=str(path),
                           fix="tick level energies in the NIST ASD lines form")
 
@@ -188,7 +187,9 @@ def read_nist_levels(path: str | os.PathLike, *, source: str | None = None) -> p
     if "Level (eV)" in df.columns:
         e = df["Level (eV)"].map(_number)
     else:
-        e = _pick(df, ("Level (cm-1)",), path).map(_number) * _CM1_TO_EV
+        from compquant.plasma.constants import CM1_TO_EV
+
+        e = _pick(df, ("Level (cm-1)",), path).map(_number) * CM1_TO_EV
     if "g" in df.columns:
         g = df["g"].map(_number)
     else:

@@ -130,7 +130,11 @@ class LineMeasurement:
         Per sample, the preprocessed mean of all its shots from the first pass (shot QC is decided
         after it); the mean of the accepted shots alone: :func:`mean_spectrum`.
     fits : dict
-        Fit results of ``mode = "fit"`` line groups.
+        Fit results of ``mode = "fit"`` line groups (:class:`compquant.lines.fit.GroupFit`), by
+        ``(sample_id, group)``: ``group`` is an index into ``fit_groups``.
+    fit_groups : list of list of int
+        The groups of ``mode = "fit"`` lines fitted together, each the indices of its lines in
+        ``line_ids`` (grouped by their ``group`` name, else by overlapping fit windows).
     references : DataFrame
         Each wavelength reference's found centre: ``sample_id, reference_nm, found_nm,
         residual_nm, status``.
@@ -176,6 +180,7 @@ class LineMeasurement:
     # after it); the mean of the accepted shots alone: mean_spectrum()
     mean_spectra: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     fits: dict = field(default_factory=dict, repr=False)
+    fit_groups: list[list[int]] = field(default_factory=list, repr=False)
     references: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=REFERENCE_TABLE_COLUMNS))
     masked_pixels: pd.DataFrame = field(
         default_factory=lambda: pd.DataFrame(columns=["sample_id", "shot", "first_pixel", "last_pixel"])
@@ -470,4 +475,5 @@ def _aggregate(setup: _Setup, run, per_shot: ShotArray, sat: ShotArray, p1: Wind
         wavelength=setup.wl,
         mean_spectra={setup.sample_ids[s]: m for s, m in means.items()},
         fits={(setup.sample_ids[s], g): f for (s, g), f in fits.items()},
+        fit_groups=[list(g) for g in setup.groups],
     )

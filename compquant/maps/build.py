@@ -38,19 +38,10 @@ import pandas as pd
 from compquant.errors import DataQualityError, MethodError
 from compquant.maps.grid import GridAccumulator, RasterGrid
 from compquant.maps.output import ElementMap, SampleMaps
-from compquant.settings import Setting, Table
+from compquant.settings import Setting, Table, settings_dataclass
 
 #: shots added to the grids per block (bounded working memory)
 BLOCK_SHOTS = 65536
-
-
-@dataclass
-class MapSettings:
-    """Validated ``[map]`` table."""
-
-    lines: list[str] | None = None
-    step_mm: float | tuple[float, float] | None = None
-    samples: list[str] | None = None
 
 
 def _step(v, where, error):
@@ -74,11 +65,13 @@ MAP_TABLE = Table("map", (
             fix='write samples = ["..."]'),
 ), doc="Element maps of rastered samples (compquant map).", owner="compquant.maps.build")
 
+#: the validated ``[map]`` table: ``lines``, ``step_mm`` (a float or ``(dx, dy)``), ``samples``
+MapSettings = settings_dataclass(MAP_TABLE, "MapSettings", module=__name__, doc="Validated ``[map]`` table.")
+
 
 def parse_map_section(section: dict | None, where: str = "method") -> MapSettings:
     """Check the method's ``[map]`` table through :data:`MAP_TABLE`."""
-    v = MAP_TABLE.parse(section or {}, f"{where}: [map]", MethodError)
-    return MapSettings(lines=v["lines"], step_mm=v["step_mm"], samples=v["samples"])
+    return MapSettings(**MAP_TABLE.parse(section or {}, f"{where}: [map]", MethodError))
 
 
 def map_lines(method, settings: MapSettings) -> list[tuple[str, str]]:

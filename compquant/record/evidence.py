@@ -84,7 +84,7 @@ class AnalysisEvidence:
     """What :func:`compquant.analyse.analyse` already holds when it stores the record.
 
     ``meas``: the :class:`compquant.lines.measure.LineMeasurement` (wavelength, mean spectra, line
-    table, group fits); ``method``: the method (its lines); ``curves``: element -> calibration
+    table, group fits and the groups); ``method``: the method (its lines); ``curves``: element -> calibration
     curve; ``cf``: sample id -> :class:`compquant.cflibs.result.CFResult`; ``matrix_fraction``:
     sample id -> (matrix mass fraction, u) for ratio-basis curves; ``maps``: optional list of
     :func:`map_item` dicts.
@@ -99,12 +99,6 @@ class AnalysisEvidence:
 
 
 # ------------------------------------------------------------------------- lines and their windows
-
-
-def _line_groups(method, wl) -> list[list[int]]:
-    from compquant.lines._setup import _fit_groups  # the grouping the measurement used (same function)
-
-    return _fit_groups(list(method.lines), np.asarray(wl, float))
 
 
 def _rows_of(table, sid: str) -> dict[str, dict]:
@@ -169,11 +163,9 @@ def line_items(meas, method, sid: str) -> list[dict]:
         return []
     y = np.asarray(spec, float)
     lines = list(method.lines)
-    where_fit: dict[int, tuple[int, int]] = {}
-    if any(ln.mode == "fit" for ln in lines):
-        for g, members in enumerate(_line_groups(method, wl)):
-            for j, i in enumerate(members):
-                where_fit[i] = (g, j)
+    # line index -> (its group, its place in the group), as the measurement grouped and fitted them
+    where_fit = {i: (g, j) for g, members in enumerate(getattr(meas, "fit_groups", None) or [])
+                 for j, i in enumerate(members)}
     shift = _shift_of(meas, sid)
     table = _rows_of(getattr(meas, "table", None), sid)
     out = []

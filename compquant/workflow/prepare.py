@@ -97,6 +97,9 @@ class Job:
     revise: str | None = None
     lims_dialect: str = "rfc4180"
     cf_settings: object = None  # CFSettings when cf
+    standards_table: object = None  # the standards as parsed (calibrate.load_standards), when standards
+    calibration_config: object = None  # the method's [calibration] as parsed (CalibrationConfig), when standards
+    saved_calibration: object = None  # the saved calibration as loaded (calibrate.Calibration), when calibration
     files: list = field(default_factory=list)  # FileRef of every input, in provenance order
 
     @property
@@ -169,11 +172,18 @@ def check_options(job: Job) -> None:
     refuse_overwriting_inputs(
         [outdir] + [outdir / n for n in ("lims.csv", "summary.json", "calibration.json", MANIFEST)], inputs
     )
-    _check_step_settings(job)
+    parse_step_settings(job)
 
 
-def _check_step_settings(job: Job) -> None:
-    """Settings owned by later steps are checked before the run is measured: fail fast, write nothing."""
+def parse_step_settings(job: Job) -> None:
+    """Parse the inputs and settings owned by later steps before the run is measured (fail fast,
+    write nothing), once: the parsed objects stay on the job for :mod:`compquant.workflow.quantify`.
+
+    ``cf``: :attr:`Job.cf_settings` from ``[cf]``.  ``standards``: the file read once (``-`` is
+    standard input) and parsed into :attr:`Job.standards_table`, the method's ``[calibration]`` into
+    :attr:`Job.calibration_config`.  ``calibration``: the saved calibration read once and loaded into
+    :attr:`Job.saved_calibration` (the bytes checked here are those applied and hashed).
+    """
     method = job.method
     if job.cf:
         from compquant.cflibs.settings import CFSettings
@@ -182,16 +192,15 @@ def _check_step_settings(job: Job) -> None:
     elif job.standards is not None:
         from compquant.calibrate import load_standards, parse_calibration_section
 
-        job.standards = read_input(job.standards, "standards file")  # read once: '-' is standard input
-        load_standards(job.standards)
-        parse_calibration_section(method.sections.get("calibration"), source=method.where)
+        job.standards = read_input(job.standards, "standards file")
+        job.standards_table = load_standards(job.standards)
+        job.calibration_config = parse_calibration_section(method.sections.get("calibration"), source=method.where)
     else:
         from compquant.calibrate import Calibration
 
-        # read once ('-' is standard input): the bytes checked here are those applied and hashed
         job.calibration = read_input(job.calibration, "calibration file", limit=MAX_CALIBRATION_BYTES,
                                      error=CalibrationError)
-        Calibration.load(job.calibration, method_id=method.id, method_sha256=method.sha256)
+        job.saved_calibration = Calibration.load(job.calibration, method_id=method.id, method_sha256=method.sha256)
 
 
 @dataclass

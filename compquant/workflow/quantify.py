@@ -15,8 +15,7 @@ import hashlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from compquant.errors import CalibrationError, ConfigError
-from compquant.fileio import MAX_CALIBRATION_BYTES, read_input
+from compquant.errors import ConfigError
 from compquant.report import CheckResult, DriftInfo, FileRef, assemble, release
 from compquant.report.numbers import finite
 
@@ -162,18 +161,19 @@ def calibration_for(job, m, qd: Quantified):
     A calibration made now is kept as text in ``qd.cal_text`` (written with the certificates at the
     end: a failure before then leaves no output); its file and hash join ``job.files``.
     """
-    from compquant.calibrate import Calibration, calibrate, load_standards, parse_calibration_section
+    from compquant.calibrate import calibrate
+    from compquant.workflow.prepare import parse_step_settings
 
     method = job.method
+    if (job.saved_calibration if job.standards is None else job.standards_table) is None:
+        parse_step_settings(job)  # check_options was not called (a notebook): parse them now
     if job.standards is None:
-        src = read_input(job.calibration, "calibration file", limit=MAX_CALIBRATION_BYTES, error=CalibrationError)
-        cal = Calibration.load(src, method_id=method.id, method_sha256=method.sha256)  # the bytes hashed
+        src, cal = job.calibration, job.saved_calibration  # as read and loaded by prepare: the bytes hashed
         job.files.append(FileRef("calibration", src.name, src.sha256))
         qd.cal_info = assemble.calibration_info(cal, src.name, src.sha256)
         return cal, None
-    stds = load_standards(job.standards)
+    stds, cfg = job.standards_table, job.calibration_config  # as parsed by prepare
     job.files.append(FileRef("standards", stds.attrs["name"], stds.attrs["sha256"]))
-    cfg = parse_calibration_section(method.sections.get("calibration"), source=method.where)
     job.tick("calibrate", 0, 1)
     cal = calibrate(m.meas.table, stds, cfg, shot_table=m.meas.shot_view, samples=m.samples, method_id=method.id,
                     method_version=method.version, method_sha256=method.sha256 or "", run_sha256=m.run_sha,
