@@ -40,6 +40,7 @@ pixel-noise propagation ``sigma * ||w||`` (window) or the full fit covariance
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -210,8 +211,8 @@ class LineMeasurement:
 
 
 def measure_run(
-    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int = 1,
-    spill: bool | None = None, spill_dir=None,
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None,
+    threads: int | None = None, spill: bool | None = None, spill_dir=None,
 ) -> LineMeasurement:
     """Preprocess every shot of ``run`` and measure the method's lines (module docstring).
 
@@ -237,7 +238,10 @@ def measure_run(
         :func:`~compquant.lines.chunk.process_chunk` results in range order, e.g. on Dask
         workers (:func:`compquant.parallel.chunk_mapper`); the results are the same.
     threads : worker threads for the serial path (each chunk split into ``threads`` row
-        ranges processed concurrently; numpy releases the GIL); the results are the same.
+        ranges processed concurrently; numpy and the compiled kernel release the GIL); the
+        results are the same.  None (default): :func:`default_threads` -- every core (at most
+        8) for a run stored uncompressed measured by the compiled kernel, else 1 (a gzip
+        run's decompression already runs on the other cores, docs/performance.md).
     spill : write the per-shot x per-line arrays to a file as the chunks arrive and read them
         back in bounded blocks (:class:`compquant.lines.shotstore.ShotArray`), so peak memory does
         not grow with shots x lines; ``shot_intensity`` and ``shot_saturated`` are then read-only
@@ -287,7 +291,7 @@ def measure_run(
     ['sample_id', 'role', 'line_id', 'element']
     """
     setup = _Setup(run, method)
-    setup.threads = max(1, int(threads))
+    setup.threads = default_threads(run, setup) if threads is None else max(1, int(threads))
     chunk = _chunk_size(run, chunk_shots, method)
     hashing = _hash_in_background(run)  # the provenance's SHA-256, while the passes run
     if method.preprocess.shift != "none":  # pass 0: per-sample wavelength corrections
@@ -311,6 +315,35 @@ def measure_run(
             a.close()
 
 
+#: most threads :func:`default_threads` gives (each splits a chunk of 4,096 shots)
+MAX_DEFAULT_THREADS = 8
+
+
+def default_threads(run, setup) -> int:
+    """Threads of the serial path when ``measure_run(threads=None)``.
+
+    Every core the process may use (at most :data:`MAX_DEFAULT_THREADS`) when the run's
+    spectra are stored unfiltered (:func:`compquant.run.fastread.stored_unfiltered`: reading
+    is a copy, the per-shot kernel is the work) and the compiled kernel runs (one shot at a
+    time: any split of a chunk gives the same bits); otherwise 1, because decompressing a
+    gzip run already keeps the other cores busy (:mod:`compquant.run.fastread`) and the NumPy
+    path's blocks are not split by default.  ``COMPQUANT_THREADS`` (an integer >= 1) overrides.
+    """
+    env = os.environ.get("COMPQUANT_THREADS", "").strip()
+    if env.isdigit() and int(env) >= 1:
+        return int(env)
+    from compquant.lines.chunk import use_compiled
+    from compquant.run.fastread import stored_unfiltered
+
+    if not (stored_unfiltered(run) and use_compiled(setup.base_plan())):
+        return 1
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):  # not on Linux
+        cores = os.cpu_count() or 1
+    return max(1, min(MAX_DEFAULT_THREADS, cores))
+
+
 def _hash_in_background(run):
     """Start ``run.sha256()`` (cached by the run) in a thread: hashing releases the GIL, so the
     file's SHA-256 for the provenance costs no time on the critical path (about 2.4 ms per MB,
@@ -331,7 +364,7 @@ def _hash_in_background(run):
 
 
 def measure_lines(
-    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int = 1
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int | None = None
 ) -> pd.DataFrame:
     """The line table of :func:`measure_run` (docs/architecture.md columns)."""
     return measure_run(
