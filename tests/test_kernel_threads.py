@@ -80,3 +80,13 @@ def test_default_equals_one_thread_bit_for_bit(runs, monkeypatch):
             a, b = np.asarray(one.shot_intensity), np.asarray(got.shot_intensity)
             assert np.array_equal(a.view(np.int64), b.view(np.int64)), threads
             assert one.table.equals(got.table)
+
+
+@pytest.mark.skipif(not compiled.available(), reason="numba not installed")
+def test_warm_loads_the_kernel_signature():
+    # numba's own record of the machine code it holds (Dispatcher.signatures)
+    from compquant.lines import _kernels
+
+    assert compiled.warm(("uint16", "float32"))
+    raw_types = {str(sig[0]) for sig in _kernels.kernel.signatures}
+    assert any("uint16" in t for t in raw_types) and any("float32" in t for t in raw_types)

@@ -62,6 +62,25 @@ def _build():
     return kernel
 
 
+def warm(dtypes=("uint16",)) -> bool:
+    """Load the kernel's machine code for raw counts of each of ``dtypes`` now (float64 precision).
+
+    numba loads (or compiles) a signature's machine code on its first call, about 0.2-0.3 s of
+    CPU per process; a Dask worker would pay it inside its first task.  Calling this when a
+    process starts (:func:`compquant.parallel.open_executor` does, on every local worker) moves
+    that cost out of the measurement, as the serial path's process pays it once at its first
+    chunk.  Returns False when numba is missing (nothing to load).
+    """
+    if _kernel() is None:
+        return False
+    from compquant.lines.chunk import ChunkPlan, process_chunk
+
+    plan = ChunkPlan(n_pixels=16, baseline="snip", baseline_params={"max_half_window": 2}, kernel="compiled")
+    for dt in dtypes:
+        process_chunk(np.ones((2, 16), dtype=np.dtype(dt)), np.zeros(2, dtype=np.int64), plan)
+    return True
+
+
 def snip_baseline(spectra, max_half_window: int = 20, *, decreasing: bool = False, tile: int | None = None):
     """The compiled kernel's SNIP baseline of every row of ``spectra`` (float64), as in the chunk kernel.
 
