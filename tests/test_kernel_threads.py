@@ -1,4 +1,4 @@
-"""measure_run's default thread count: every core for an uncompressed run, the same numbers bit for bit.
+"""measure_run's default thread count: the idle cores for an uncompressed run, the same numbers bit for bit.
 
 Reference outside the default path: ``measure_run(threads=1)``, the single-threaded serial path
 (itself held to the NumPy reference and to pybaselines by tests/test_compiled.py and
@@ -60,8 +60,12 @@ def test_default_threads(runs, monkeypatch):
         assert default_threads(run, _Setup(run, m)) == 1  # decompression keeps the other cores busy
     with Run.open(runs["none"]) as run:
         cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
-        want = min(8, cores) if compiled.available() else 1  # every core the process may use, at most 8
-        assert default_threads(run, _Setup(run, m)) == want
+        # idle machine: every core the process may use, at most 8
+        monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))
+        assert default_threads(run, _Setup(run, m)) == (min(8, cores) if compiled.available() else 1)
+        # busy machine (load average above the core count): one thread, as GNU make -l would
+        monkeypatch.setattr(os, "getloadavg", lambda: (cores + 3.0, 0.0, 0.0))
+        assert default_threads(run, _Setup(run, m)) == 1
         monkeypatch.setenv("COMPQUANT_THREADS", "3")
         assert default_threads(run, _Setup(run, m)) == 3
         monkeypatch.setenv("COMPQUANT_KERNEL", "numpy")

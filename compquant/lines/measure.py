@@ -239,9 +239,10 @@ def measure_run(
         workers (:func:`compquant.parallel.chunk_mapper`); the results are the same.
     threads : worker threads for the serial path (each chunk split into ``threads`` row
         ranges processed concurrently; numpy and the compiled kernel release the GIL); the
-        results are the same.  None (default): :func:`default_threads` -- every core (at most
-        8) for a run stored uncompressed measured by the compiled kernel, else 1 (a gzip
-        run's decompression already runs on the other cores, docs/performance.md).
+        results are the same.  None (default): :func:`default_threads` -- the idle cores (at
+        most 8, by the load average) for a run stored uncompressed measured by the compiled
+        kernel, else 1 (a gzip run's decompression already runs on the other cores,
+        docs/performance.md).
     spill : write the per-shot x per-line arrays to a file as the chunks arrive and read them
         back in bounded blocks (:class:`compquant.lines.shotstore.ShotArray`), so peak memory does
         not grow with shots x lines; ``shot_intensity`` and ``shot_saturated`` are then read-only
@@ -322,12 +323,17 @@ MAX_DEFAULT_THREADS = 8
 def default_threads(run, setup) -> int:
     """Threads of the serial path when ``measure_run(threads=None)``.
 
-    Every core the process may use (at most :data:`MAX_DEFAULT_THREADS`) when the run's
-    spectra are stored unfiltered (:func:`compquant.run.fastread.stored_unfiltered`: reading
-    is a copy, the per-shot kernel is the work) and the compiled kernel runs (one shot at a
-    time: any split of a chunk gives the same bits); otherwise 1, because decompressing a
-    gzip run already keeps the other cores busy (:mod:`compquant.run.fastread`) and the NumPy
-    path's blocks are not split by default.  ``COMPQUANT_THREADS`` (an integer >= 1) overrides.
+    The cores that are idle, ``clamp(int(cores + 1 - load), 1, min(cores, 8))`` with ``load``
+    the 1-minute load average (counting this process's own thread, as GNU make's
+    ``--load-average`` limits its jobs), when the run's spectra are stored unfiltered
+    (:func:`compquant.run.fastread.stored_unfiltered`: reading is a copy, the per-shot kernel
+    is the work) and the compiled kernel runs (one shot at a time: any split of a chunk gives
+    the same bits); otherwise 1, because decompressing a gzip run already keeps the other cores
+    busy (:mod:`compquant.run.fastread`) and the NumPy path's blocks are not split by default.
+    Measured 2026-12-02 on a 2-core machine shared with other jobs (load average 5-8): a second
+    kernel thread there gave 0.8-1.0x the wall time of one and 3-30 % more CPU, so threads are
+    only worth starting on cores nobody else uses (docs/performance.md).
+    ``COMPQUANT_THREADS`` (an integer >= 1) overrides.  The numbers never depend on it.
     """
     env = os.environ.get("COMPQUANT_THREADS", "").strip()
     if env.isdigit() and int(env) >= 1:
@@ -341,7 +347,11 @@ def default_threads(run, setup) -> int:
         cores = len(os.sched_getaffinity(0))
     except (AttributeError, OSError):  # not on Linux
         cores = os.cpu_count() or 1
-    return max(1, min(MAX_DEFAULT_THREADS, cores))
+    try:
+        load = os.getloadavg()[0]
+    except (AttributeError, OSError):  # no load average on this system: assume idle cores
+        load = 0.0
+    return max(1, min(MAX_DEFAULT_THREADS, cores, int(cores + 1 - load)))
 
 
 def _hash_in_background(run):
