@@ -94,3 +94,14 @@ def test_warm_loads_the_kernel_signature():
     assert compiled.warm(("uint16", "float32"))
     raw_types = {str(sig[0]) for sig in _kernels.kernel.signatures}
     assert any("uint16" in t for t in raw_types) and any("float32" in t for t in raw_types)
+
+
+def test_one_thread_inside_a_dask_worker(runs, monkeypatch):
+    # distributed.get_worker() answers inside a worker (Dask's documented way to find the worker)
+    distributed = pytest.importorskip("distributed")
+    m = method(lines=[{"id": k} for k in LINES])
+    monkeypatch.delenv("COMPQUANT_THREADS", raising=False)
+    monkeypatch.setattr(os, "getloadavg", lambda: (0.0, 0.0, 0.0))
+    monkeypatch.setattr(distributed, "get_worker", lambda: object())
+    with Run.open(runs["none"]) as run:
+        assert default_threads(run, _Setup(run, m)) == 1

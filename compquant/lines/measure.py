@@ -333,7 +333,8 @@ def default_threads(run, setup) -> int:
     Measured 2026-12-02 on a 2-core machine shared with other jobs (load average 5-8): a second
     kernel thread there gave 0.8-1.0x the wall time of one and 3-30 % more CPU, so threads are
     only worth starting on cores nobody else uses (docs/performance.md).
-    ``COMPQUANT_THREADS`` (an integer >= 1) overrides.  The numbers never depend on it.
+    Inside a Dask worker (one per core already) it is 1.  ``COMPQUANT_THREADS`` (an integer
+    >= 1) overrides.  The numbers never depend on it.
     """
     env = os.environ.get("COMPQUANT_THREADS", "").strip()
     if env.isdigit() and int(env) >= 1:
@@ -341,7 +342,7 @@ def default_threads(run, setup) -> int:
     from compquant.lines.chunk import use_compiled
     from compquant.run.fastread import stored_unfiltered
 
-    if not (stored_unfiltered(run) and use_compiled(setup.base_plan())):
+    if not (stored_unfiltered(run) and use_compiled(setup.base_plan())) or _in_dask_worker():
         return 1
     try:
         cores = len(os.sched_getaffinity(0))
@@ -352,6 +353,20 @@ def default_threads(run, setup) -> int:
     except (AttributeError, OSError):  # no load average on this system: assume idle cores
         load = 0.0
     return max(1, min(MAX_DEFAULT_THREADS, cores, int(cores + 1 - load)))
+
+
+def _in_dask_worker() -> bool:
+    """True inside a Dask worker (each worker process has its core: no extra kernel threads)."""
+    import sys
+
+    dist = sys.modules.get("distributed")
+    if dist is None:
+        return False
+    try:
+        dist.get_worker()
+    except (ValueError, AttributeError):
+        return False
+    return True
 
 
 def _hash_in_background(run):
