@@ -123,11 +123,12 @@ def make_run(path: Path, n_shots: int, compression: str | None, seed: int = 11) 
 
 def serial_child(run_path: str, method_path: str, chunk: int, q) -> None:
     """Fresh process: serial measure_run; reports seconds, peak memory and the line table."""
-    from compquant.lines import measure_run
+    from compquant.lines import compiled, measure_run
     from compquant.method import load_method
     from compquant.parallel import peak_rss_bytes
     from compquant.run import Run
 
+    compiled.warm()  # the kernel's machine code loaded before timing, as on the workers (open_executor)
     method = load_method(method_path)
     with Run.open(run_path) as run:
         t0, c0 = time.perf_counter(), time.process_time()

@@ -17,7 +17,9 @@ so that every figure is a ratio against a baseline measured under the same machi
          (compquant.run.fastread), one thread and one per core;
 (a)      ``measure_run`` with the NumPy kernel and h5py reads (the path before issue 22);
 (b)      ``measure_run`` with the NumPy kernel and threaded decompression;
-(c)      ``measure_run`` with the compiled kernel and threaded decompression (the default);
+(c)      ``measure_run`` with the compiled kernel and threaded decompression (the default; on an
+         uncompressed run the default splits each chunk over every core, and (c1) is the same
+         with one thread);
 (lines)  the chunk function alone at 10, 50 and 200 lines, NumPy and compiled, and the
          compiled kernel in float32.
 
@@ -89,7 +91,7 @@ def inflate_floor(run: Run, chunk: int, threads: int) -> None:
         pass
 
 
-def measure(run, method, chunk: int, kernel: str, direct: bool):
+def measure(run, method, chunk: int, kernel: str, direct: bool, threads: int | None = None):
     from compquant.lines import measure_run
 
     os.environ["COMPQUANT_KERNEL"] = kernel
@@ -97,7 +99,7 @@ def measure(run, method, chunk: int, kernel: str, direct: bool):
     if not direct:
         fastread._layout = lambda run: None  # h5py reads with one prefetch thread (the old path)
     try:
-        return measure_run(run, method, chunk_shots=chunk)
+        return measure_run(run, method, chunk_shots=chunk, threads=threads)
     finally:
         fastread._layout = saved
 
@@ -170,13 +172,17 @@ def main(argv=None) -> int:
         cores = os.cpu_count() or 1
         rows[f"inflate, direct, {cores} threads"] = (best(lambda: inflate_floor(run, ch, cores), rep), n)
         results = {}
-        for key, kernel, direct in (("a", "numpy", False), ("b", "numpy", True), ("c", "auto", True)):
+        variants = [("a", "numpy", False, None), ("b", "numpy", True, None), ("c", "auto", True, None)]
+        if args.compression == "none":  # the default uses every core there (measure_run threads=None)
+            variants.append(("c1", "auto", True, 1))
+        for key, kernel, direct, threads in variants:
             label = {"a": "(a) numpy kernel, h5py read", "b": "(b) numpy kernel, threaded inflate",
-                     "c": "(c) compiled kernel, threaded inflate"}[key]  # fmt: skip
+                     "c": "(c) compiled kernel, threaded inflate",
+                     "c1": "(c1) compiled kernel, 1 thread"}[key]  # fmt: skip
             holder = {}
 
-            def job(k=kernel, d=direct, h=holder):
-                h["r"] = measure(run, method, ch, k, d)
+            def job(k=kernel, d=direct, h=holder, t=threads):
+                h["r"] = measure(run, method, ch, k, d, t)
 
             rows[label] = (best(job, rep), n)
             results[key] = holder["r"]
@@ -197,7 +203,10 @@ def main(argv=None) -> int:
         return getattr(t, attr) / k
 
     loop, floor = "per-spectrum loop (pybaselines)", "read floor, h5py, 1 thread"
-    for key, name in (("a", "(a) numpy kernel, h5py read"), ("c", "(c) compiled kernel, threaded inflate")):
+    pairs = [("a", "(a) numpy kernel, h5py read"), ("c", "(c) compiled kernel, threaded inflate")]
+    if "c1" in results:
+        pairs.append(("c1", "(c1) compiled kernel, 1 thread"))
+    for key, name in pairs:
         for attr in ("wall", "cpu"):
             speed = per(loop, attr) / per(name, attr)
             ratio = per(name, attr) / per(floor, attr)
@@ -206,6 +215,9 @@ def main(argv=None) -> int:
     a, c = results["a"].shot_intensity, results["c"].shot_intensity
     scale = np.nanmax(np.abs(a), axis=0)
     print(f"max |c - a| / line scale (compiled vs numpy, all shots): {np.nanmax(np.abs(c - a) / scale):.2e}")
+    if "c1" in results:
+        same = np.array_equal(np.asarray(c).view(np.int64), np.asarray(results["c1"].shot_intensity).view(np.int64))
+        print(f"(c) default threads and (c1) one thread identical bit for bit: {same}")
     print(f"line tables (a) and (c) identical in flags and n_shots: "
           f"{results['a'].table[['flags', 'n_shots']].equals(results['c'].table[['flags', 'n_shots']])}")  # fmt: skip
     rel = np.abs(c[sub] - loop_vals) / np.abs(loop_vals)

@@ -205,9 +205,9 @@ def _many_runs(run_paths, method, out_dir: Path, chunk_shots, workers, scheduler
 @click.option(
     "--threads",
     type=click.IntRange(1, 64),
-    default=1,
-    show_default=True,
-    help="Worker threads in this process (numpy releases the GIL; results are identical).",
+    default=None,
+    help="Worker threads in this process (results are identical). Default: the idle cores for a run stored "
+    "uncompressed measured by the compiled kernel, else 1.",
 )
 @click.option("--quiet", is_flag=True, help="No progress bar and no table on screen.")
 def command(

@@ -62,6 +62,51 @@ def _build():
     return kernel
 
 
+def warm(dtypes=("uint16",)) -> bool:
+    """Load the kernel's machine code for raw counts of each of ``dtypes`` now (float64 precision).
+
+    numba loads (or compiles) a signature's machine code on its first call, about 0.2-0.3 s of
+    CPU per process; a Dask worker would pay it inside its first task.  Calling this when a
+    process starts (:func:`compquant.parallel.open_executor` does, on every local worker) moves
+    that cost out of the measurement, as the serial path's process pays it once at its first
+    chunk.  Returns False when numba is missing (nothing to load).
+    """
+    if _kernel() is None:
+        return False
+    from compquant.lines.chunk import ChunkPlan, process_chunk
+
+    plan = ChunkPlan(n_pixels=16, baseline="snip", baseline_params={"max_half_window": 2}, kernel="compiled")
+    for dt in dtypes:
+        process_chunk(np.ones((2, 16), dtype=np.dtype(dt)), np.zeros(2, dtype=np.int64), plan)
+    return True
+
+
+def snip_baseline(spectra, max_half_window: int = 20, *, decreasing: bool = False, tile: int | None = None):
+    """The compiled kernel's SNIP baseline of every row of ``spectra`` (float64), as in the chunk kernel.
+
+    The same edge padding as :func:`compquant.preprocess.baseline.snip` (a least-squares
+    straight line through ``m`` edge pixels), then the clipping steps of
+    :func:`compquant.preprocess.baseline.clip_padded`,
+    ``v_p[i] = min(v_{p-1}[i], (v_{p-1}[i-p] + v_{p-1}[i+p]) / 2)``, in tiles of ``tile`` pixels
+    (default :data:`compquant.lines._kernels.TILE`; the result does not depend on it).
+    For tests and benchmarks; the chunk kernel calls the same machine code per shot.
+
+    References
+    ----------
+    Ryan, C. G. et al. (1988). Nucl. Instrum. Meth. B 34, 396-402 (SNIP).
+    """
+    if _kernel() is None:
+        raise RuntimeError(f"the compiled kernel needs numba ({_IMPORT_ERROR})")
+    from compquant.lines import _kernels
+
+    y = np.ascontiguousarray(np.atleast_2d(spectra), dtype=np.float64)
+    n = y.shape[1]
+    m = min(int(max_half_window), (n - 1) // 2)
+    out = np.empty_like(y)
+    _kernels.snip_rows(y, out, m, bool(decreasing), False, int(tile or _kernels.TILE))
+    return out[0] if np.ndim(spectra) == 1 else out
+
+
 def run_kernel(raw, slot, op_of_row, geo: dict, ops, n_slots: int, precision: str = "float64") -> dict:
     """Run the compiled kernel on one block of shots; returns the per-shot arrays and sums.
 

@@ -40,6 +40,7 @@ pixel-noise propagation ``sigma * ||w||`` (window) or the full fit covariance
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -215,8 +216,8 @@ class LineMeasurement:
 
 
 def measure_run(
-    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int = 1,
-    spill: bool | None = None, spill_dir=None,
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None,
+    threads: int | None = None, spill: bool | None = None, spill_dir=None,
 ) -> LineMeasurement:
     """Preprocess every shot of ``run`` and measure the method's lines (module docstring).
 
@@ -242,7 +243,11 @@ def measure_run(
         :func:`~compquant.lines.chunk.process_chunk` results in range order, e.g. on Dask
         workers (:func:`compquant.parallel.chunk_mapper`); the results are the same.
     threads : worker threads for the serial path (each chunk split into ``threads`` row
-        ranges processed concurrently; numpy releases the GIL); the results are the same.
+        ranges processed concurrently; numpy and the compiled kernel release the GIL); the
+        results are the same.  None (default): :func:`default_threads` -- the idle cores (at
+        most 8, by the load average) for a run stored uncompressed measured by the compiled
+        kernel, else 1 (a gzip run's decompression already runs on the other cores,
+        docs/performance.md).
     spill : write the per-shot x per-line arrays to a file as the chunks arrive and read them
         back in bounded blocks (:class:`compquant.lines.shotstore.ShotArray`), so peak memory does
         not grow with shots x lines; ``shot_intensity`` and ``shot_saturated`` are then read-only
@@ -292,7 +297,7 @@ def measure_run(
     ['sample_id', 'role', 'line_id', 'element']
     """
     setup = _Setup(run, method)
-    setup.threads = max(1, int(threads))
+    setup.threads = default_threads(run, setup) if threads is None else max(1, int(threads))
     chunk = _chunk_size(run, chunk_shots, method)
     hashing = _hash_in_background(run)  # the provenance's SHA-256, while the passes run
     if method.preprocess.shift != "none":  # pass 0: per-sample wavelength corrections
@@ -316,6 +321,59 @@ def measure_run(
             a.close()
 
 
+#: most threads :func:`default_threads` gives (each splits a chunk of 4,096 shots)
+MAX_DEFAULT_THREADS = 8
+
+
+def default_threads(run, setup) -> int:
+    """Threads of the serial path when ``measure_run(threads=None)``.
+
+    The cores that are idle, ``clamp(int(cores + 1 - load), 1, min(cores, 8))`` with ``load``
+    the 1-minute load average (counting this process's own thread, as GNU make's
+    ``--load-average`` limits its jobs), when the run's spectra are stored unfiltered
+    (:func:`compquant.run.fastread.stored_unfiltered`: reading is a copy, the per-shot kernel
+    is the work) and the compiled kernel runs (one shot at a time: any split of a chunk gives
+    the same bits); otherwise 1, because decompressing a gzip run already keeps the other cores
+    busy (:mod:`compquant.run.fastread`) and the NumPy path's blocks are not split by default.
+    Measured 2026-12-02 on a 2-core machine shared with other jobs (load average 5-8): a second
+    kernel thread there gave 0.8-1.0x the wall time of one and 3-30 % more CPU, so threads are
+    only worth starting on cores nobody else uses (docs/performance.md).
+    Inside a Dask worker (one per core already) it is 1.  ``COMPQUANT_THREADS`` (an integer
+    >= 1) overrides.  The numbers never depend on it.
+    """
+    env = os.environ.get("COMPQUANT_THREADS", "").strip()
+    if env.isdigit() and int(env) >= 1:
+        return int(env)
+    from compquant.lines.chunk import use_compiled
+    from compquant.run.fastread import stored_unfiltered
+
+    if not (stored_unfiltered(run) and use_compiled(setup.base_plan())) or _in_dask_worker():
+        return 1
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):  # not on Linux
+        cores = os.cpu_count() or 1
+    try:
+        load = os.getloadavg()[0]
+    except (AttributeError, OSError):  # no load average on this system: assume idle cores
+        load = 0.0
+    return max(1, min(MAX_DEFAULT_THREADS, cores, int(cores + 1 - load)))
+
+
+def _in_dask_worker() -> bool:
+    """True inside a Dask worker (each worker process has its core: no extra kernel threads)."""
+    import sys
+
+    dist = sys.modules.get("distributed")
+    if dist is None:
+        return False
+    try:
+        dist.get_worker()
+    except (ValueError, AttributeError):
+        return False
+    return True
+
+
 def _hash_in_background(run):
     """Start ``run.sha256()`` (cached by the run) in a thread: hashing releases the GIL, so the
     file's SHA-256 for the provenance costs no time on the critical path (about 2.4 ms per MB,
@@ -336,7 +394,7 @@ def _hash_in_background(run):
 
 
 def measure_lines(
-    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int = 1
+    run, method: Method, chunk_shots: int | None = None, progress=None, chunk_mapper=None, threads: int | None = None
 ) -> pd.DataFrame:
     """The line table of :func:`measure_run` (docs/architecture.md columns)."""
     return measure_run(

@@ -118,17 +118,27 @@ class SnipWorkspace:
         self.tmp = np.empty((rows, n + 2 * self.m))
 
 
-def snip_block(y: np.ndarray, ws: SnipWorkspace, *, decreasing: bool = False, lls: bool = False) -> np.ndarray:
-    """SNIP baseline of the rows of ``y`` (at most ``ws`` rows); returns a view into ``ws``.
+def clip_padded(b: np.ndarray, t: np.ndarray, m: int, *, decreasing: bool = False) -> None:
+    """SNIP's clipping steps on the edge-padded rows ``b`` (in place; ``t`` a buffer of its shape).
 
-    The returned array is overwritten by the next call with the same workspace.
+    Step ``p`` (``p = 1..m``, or ``m..1`` when ``decreasing``; Ryan et al. 1988, Morhac et al.
+    1997) sets, for ``p <= i < npad - p``,
+
+        v_p[i] = min(v_{p-1}[i], (v_{p-1}[i - p] + v_{p-1}[i + p]) / 2),
+
+    every new value from the previous step's values only (``(a + b) / 2`` is computed into
+    ``t`` before the minimum is taken); the first and last ``p`` values are kept.  A NaN
+    propagates (:func:`numpy.minimum`).  This is the reference of the compiled kernel's
+    clipping (:func:`compquant.lines._kernels.clip_tiled`), which gives the same values bit for bit.
+
+    References
+    ----------
+    Ryan, C. G. et al. (1988). SNIP, a statistics-sensitive background treatment for the
+    quantitative analysis of PIXE spectra in geoscience applications. Nucl. Instrum. Meth. B
+    34, 396-402.  Morhac, M. et al. (1997). Background elimination methods for
+    multidimensional coincidence gamma-ray spectra. Nucl. Instrum. Meth. A 401, 113-132.
     """
-    r, n = y.shape
-    m = ws.m
-    npad = n + 2 * m
-    b = ws.pad[:r]
-    t = ws.tmp[:r]
-    _fill_padded(lls_forward(y) if lls else y, m, m, b)
+    npad = b.shape[1]
     steps = range(m, 0, -1) if decreasing else range(1, m + 1)
     for p in steps:
         w = npad - 2 * p
@@ -136,6 +146,19 @@ def snip_block(y: np.ndarray, ws: SnipWorkspace, *, decreasing: bool = False, ll
         np.add(b[:, :w], b[:, 2 * p :], out=tv)
         tv *= 0.5
         np.minimum(b[:, p : npad - p], tv, out=b[:, p : npad - p])
+
+
+def snip_block(y: np.ndarray, ws: SnipWorkspace, *, decreasing: bool = False, lls: bool = False) -> np.ndarray:
+    """SNIP baseline of the rows of ``y`` (at most ``ws`` rows); returns a view into ``ws``.
+
+    The returned array is overwritten by the next call with the same workspace.
+    """
+    r, n = y.shape
+    m = ws.m
+    b = ws.pad[:r]
+    t = ws.tmp[:r]
+    _fill_padded(lls_forward(y) if lls else y, m, m, b)
+    clip_padded(b, t, m, decreasing=decreasing)
     res = b[:, m : m + n]
     if lls:
         res[...] = lls_inverse(res)

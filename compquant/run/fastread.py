@@ -59,6 +59,19 @@ def _layout(run):
     return ds, int(ds.chunks[0]), bool(ds.shuffle), ds.compression == "gzip"
 
 
+def stored_unfiltered(run) -> bool:
+    """True when the run's spectra are stored without filters (no compression, no shuffle):
+    reading them is a copy from the file cache, with no decompression to spread over the cores."""
+    lay = _layout(run)
+    if lay is not None:
+        return not (lay[2] or lay[3])
+    ds = getattr(run, "_spectra", None)
+    return (
+        isinstance(ds, h5py.Dataset) and ds.chunks is None and ds.compression is None
+        and not ds.shuffle and not ds.fletcher32 and ds.scaleoffset is None
+    )  # fmt: skip
+
+
 def _decode_chunk(ds, row0: int, rows: int, shuffle: bool, deflate: bool) -> np.ndarray:
     """One HDF5 chunk starting at ``row0`` as a (rows, n_pixels) array (filters undone here)."""
     npx = ds.shape[1]
@@ -231,4 +244,4 @@ def _iter_plain(run, bounds, prefetch: bool):
             yield a, b, raw
 
 
-__all__ = ["iter_raw", "read_range"]
+__all__ = ["iter_raw", "read_range", "stored_unfiltered"]
