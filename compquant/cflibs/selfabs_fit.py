@@ -9,6 +9,7 @@ import math
 
 import numpy as np
 
+from compquant.cflibs.fitting import paule_mandel_scatter
 from compquant.cflibs.selfabs import dln_sa_dln_tau0
 from compquant.cflibs.selfabs_cog import _charges
 from compquant.cflibs.solver import Model, Solution
@@ -189,7 +190,7 @@ class SelfAbsFit:
             evaluate(theta)  # keep the base point as the last evaluation
             return J
 
-        return resid, (jac if self.ANALYTIC_JACOBIAN else "2-point"), y_raw, (lo, hi)
+        return resid, jac, y_raw, (lo, hi)
 
     def _lsq(self, resid, theta0, bounds, coarse, jac="2-point"):
         from scipy.optimize import least_squares
@@ -199,7 +200,8 @@ class SelfAbsFit:
         th0 = np.clip(theta0, np.where(np.isfinite(lo), lo + 1e-6 * span, -np.inf),
                       np.where(np.isfinite(hi), hi - 1e-6 * span, np.inf))
         try:
-            res = least_squares(resid, th0, jac=jac, method="trf", bounds=(lo, hi), x_scale="jac",
+            res = least_squares(resid, th0, jac=jac if self.ANALYTIC_JACOBIAN else "2-point", method="trf",
+                                bounds=(lo, hi), x_scale="jac",
                                 max_nfev=60 if coarse else 200, xtol=1e-6 if coarse else 1e-10,
                                 ftol=1e-6 if coarse else 1e-12)
         except (ValueError, FloatingPointError):
@@ -236,8 +238,12 @@ class SelfAbsFit:
                 b0 = self.initial_beta(s.t_start_k, ne_est, X, y_raw)
             if fit_length:
                 chi2, beta, L_cm = self._fit_free_length(X, groups, ne_est, b0, coarse)
+                chi2, th = self._consistent_weights_sa(X, groups, ne_est, True, None,
+                                                       np.concatenate([beta, [math.log(L_cm)]]), chi2, coarse)
+                beta, L_cm = th[:-1], math.exp(th[-1])
             else:
                 chi2, beta = self._fit_known_length(X, groups, ne_est, b0, length_cm, coarse)
+                chi2, beta = self._consistent_weights_sa(X, groups, ne_est, False, length_cm, beta, chi2, coarse)
             sa_new = np.maximum(self.sa_of_beta(beta, L_cm, ne_est, groups)[0], 1e-300)
             step = float(np.max(np.abs(np.log(sa_new) - np.log(sa))))
             sa = sa_new
@@ -247,6 +253,40 @@ class SelfAbsFit:
         sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
         _, tau = self.sa_cog(sol, L_cm, sa)
         return sa, sol, tau, ne_name, ne_est, L_cm, chi2
+
+    def _consistent_weights_sa(self, X, groups, ne_est, fit_length, length_cm, theta, chi2, coarse):
+        """Paule–Mandel weights for the self-absorbed fit (docs/calibration-free.md §2, §6).
+
+        The thin modes' estimator (:func:`compquant.cflibs.fitting.paule_mandel_scatter`, Paule
+        & Mandel 1982) applied to the fit linearised at its optimum θ̂ (Gauss–Newton): design
+        X_lin = ∂ŷ/∂θ (the fit's Jacobian, :meth:`_residual_fn`, divided by −√w) and ordinate
+        y_lin = y − ŷ(θ̂) + X_lin θ̂, so ν = n − dim θ counts T, the intercepts, ln nₑ and ln L.
+        The extra variance s² (ln intensity) is the one for which χ² = Σ (y_i − ŷ_i)²/(u_i² + s²)
+        equals ν; the fit is then refined with the weights 1/(u_i² + s²) from θ̂ (twice at most,
+        as in the thin modes).  s (``self.u_model``) is drawn in the Monte Carlo (§8) and judged
+        by the ``fit_quality`` check (§4a): blends and atomic-data errors move lines by 10–30 %,
+        a slab model that needs much more has not found the plasma.  Returns ``(chi2, theta)``
+        with χ² under the final weights.
+        """
+        for _ in range(2):
+            resid, jac, _y, bounds = self._residual_fn(X, groups, ne_est, fit_length, length_cm)
+            r = resid(theta)
+            J = jac(theta)
+            if not np.any(J):
+                break  # an invalid point: nothing to weigh
+            sw = np.sqrt(self.w)
+            x_lin = -J / sw[:, None]
+            y_lin = r / sw + x_lin @ theta
+            s_new = paule_mandel_scatter(x_lin, y_lin, self.u_y)
+            if abs(s_new - self.u_model) <= 1e-4 * max(s_new, 1e-12):
+                break
+            self.u_model = s_new
+            self.w = 1.0 / (self.u_y**2 + s_new**2)
+            resid, jac, _y, bounds = self._residual_fn(X, groups, ne_est, fit_length, length_cm)
+            out = self._lsq(resid, theta, bounds, coarse, jac=jac)
+            chi2, theta = out if out is not None else (float(np.sum(resid(theta) ** 2)), theta)
+        self.sa_info.update(model_scatter_ln=float(self.u_model), dof_selfabs=int(self.L.n - theta.size))
+        return chi2, theta
 
     def _fit_free_length(self, X, groups, ne_est, b0, coarse):
         """Fit with the plasma length L free: continuation along a logarithmic grid of L (cm) from
