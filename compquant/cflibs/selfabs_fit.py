@@ -110,11 +110,11 @@ class SelfAbsFit:
         p = X.shape[1]
         n_par = p + fit_length
         big = np.full(self.L.n, 1e3)
-        last = {}
+        kept = {}  # the last few points: the base of a Jacobian and its difference points
 
         def evaluate(theta):
             key = theta.tobytes()
-            hit = last.get(key)
+            hit = kept.get(key)
             if hit is not None:
                 return hit
             beta = theta[:p]
@@ -136,8 +136,9 @@ class SelfAbsFit:
                     r = sw * (y_raw - pred)
                     if np.all(np.isfinite(r)):
                         out = (r, (tau, T, ne_, sol))
-            last.clear()
-            last[key] = out
+            if len(kept) >= 4:
+                kept.clear()
+            kept[key] = out
             return out
 
         def resid(theta):
@@ -187,7 +188,6 @@ class SelfAbsFit:
                 th[j] = theta[j] + h
                 h = th[j] - theta[j]
                 J[:, j] = (evaluate(th)[0] - r0) / h
-            evaluate(theta)  # keep the base point as the last evaluation
             return J
 
         return resid, jac, y_raw, (lo, hi)
