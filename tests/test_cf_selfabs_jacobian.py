@@ -73,7 +73,8 @@ def _captured_fits(monkeypatch, settings):
     return seen
 
 
-@pytest.mark.parametrize("settings", [{"ne_method": "stark"}, {"ne_method": "saha"}])
+@pytest.mark.parametrize("settings", [{"ne_method": "stark"}, {"ne_method": "saha"},
+                                      {"ne_method": "stark", "fit": "boltzmann"}])
 def test_columnar_fit_jacobian_against_central_differences(monkeypatch, settings):
     seen = _captured_fits(monkeypatch, settings)
     free = [s for s in seen if s[3][0][-1] == np.log(1e-6)]  # the fits with ln L free
@@ -109,9 +110,10 @@ def test_columnar_fit_jacobian_against_central_differences(monkeypatch, settings
         analytic = qcols + [n_par - 1]
         # analytic columns: 1e-6 of the column's size
         assert np.all(np.abs(J[:, analytic] - Jc[:, analytic]) <= 1e-6 * scale[None, analytic] + 1e-12)
-        # forward-difference columns (slope, ln nₑ): scipy's step; their own error is O(√ε)
+        # forward-difference columns (slope, ln nₑ): scipy's step √ε·max(1, |θ|); their own error
+        # is O(h·∂²r/∂θ²), up to ~10⁻⁵ of the column where T bends the curve of growth strongly
         fd = [j for j in range(n_par) if j not in analytic]
-        assert np.all(np.abs(J[:, fd] - Jc[:, fd]) <= 1e-5 * scale[None, fd] + 1e-9)
+        assert np.all(np.abs(J[:, fd] - Jc[:, fd]) <= 1e-4 * scale[None, fd] + 1e-9)
         # and the whole Jacobian against scipy's forward differences
         Jf = np.column_stack([approx_fprime(th, lambda t, i=i: resid(t)[i], h) for i in range(r0.size)]).T
         np.testing.assert_allclose(J, Jf, rtol=0, atol=1e-4 * np.max(scale))

@@ -250,7 +250,19 @@ class SelfAbsFit:
             if step < 1e-4 or ne_est is None:  # nₑ from the Saha balance does not depend on SA
                 break
         ne_name, ne_est = ne_pick(sa)
-        sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
+        try:
+            sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
+        except PhysicsError:
+            if not self.u_model or getattr(self, "_pm_off", False):
+                raise
+            # the Paule–Mandel weights leave the linear solve without a temperature: fit again
+            # with the stated u alone (the s it needed stays in sa_info, and fit_quality judges
+            # the stated χ², which then refuses the solution)
+            self._pm_off = True
+            self.u_model = 0.0
+            self.w = 1.0 / self.u_y**2
+            self.sa_info.update(scatter_weights_dropped=True)
+            return self.nls_selfabs(length_cm, ne_pick, fit_length, coarse)
         _, tau = self.sa_cog(sol, L_cm, sa)
         return sa, sol, tau, ne_name, ne_est, L_cm, chi2
 
@@ -266,8 +278,11 @@ class SelfAbsFit:
         as in the thin modes).  s (``self.u_model``) is drawn in the Monte Carlo (§8) and judged
         by the ``fit_quality`` check (§4a): blends and atomic-data errors move lines by 10–30 %,
         a slab model that needs much more has not found the plasma.  Returns ``(chi2, theta)``
-        with χ² under the final weights.
+        with χ² under the final weights.  Skipped once the weights have been dropped because the
+        linear solve at the weighted fit's SA had no temperature (:meth:`nls_selfabs`).
         """
+        if getattr(self, "_pm_off", False):
+            return chi2, theta
         for _ in range(2):
             resid, jac, _y, bounds = self._residual_fn(X, groups, ne_est, fit_length, length_cm)
             r = resid(theta)
