@@ -1,23 +1,27 @@
-"""Benchmark: calibration-free analysis per sample, with and without the partition-function and
-Voigt-profile memos (issue 22, item 6).
+"""Benchmark: calibration-free analysis per sample — the self-absorption fit's Jacobian
+(finite differences vs analytic), and the partition-function and Voigt-profile memos (issue 22,
+item 6).
 
 Usage::
 
     /work/venv/bin/python benchmarks/cf_speed.py [--run demo_runs/demo-day1.h5]
-        [--method demo_runs/method.toml] [--repeat 2]
+        [--method demo_runs/method.toml] [--repeat 2] [--modes fd,now]
 
 Measures the lines of the run once (not timed), then, in ONE process, times ``analyse_cf`` on
-every unknown and check sample (as ``compquant cf`` does, with the method's Monte Carlo draws):
+every unknown and check sample (as ``compquant cf`` does, with the method's Monte Carlo draws),
+interleaving the modes ``--repeat`` times:
 
 (base)  the memos switched off (U(T) recomputed at every call, Voigt profiles recomputed at
-        every self-absorption integral) — the arithmetic of the code before issue 22 (the
-        vectorised closure and the exception-free availability check stay on: before them the
-        demo took about 4 s CPU per sample);
-(memo)  the default.
+        every self-absorption integral) and finite-difference Jacobians;
+(fd)    memos on, scipy's finite-difference Jacobian in every column of the self-absorption
+        fit (the code before the analytic Jacobian);
+(now)   the default (memos on, analytic intercept and ln L columns).
 
-Prints CPU seconds per sample (process time, best of ``--repeat``), the ratio base/memo, the
-load average, and the largest relative difference between the two runs' mass fractions, T and
-nₑ and every other number of the results (0 means bit-identical).  Goal (issue 22): <= 0.5 s CPU per sample.
+Prints CPU seconds per sample (process time, best of ``--repeat``), the ratio of each mode to
+the last, the load average, and the largest relative difference between the first mode's and
+the last mode's T, nₑ, mass fractions, their U, and every other number of the results (0 means
+bit-identical; a different Jacobian moves the optimiser's path, so the fd/now difference is the
+fit's own tolerance, not 0).  Goal (issue 22): <= 0.5 s CPU per sample.
 """
 
 from __future__ import annotations
@@ -39,13 +43,15 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from compquant.cflibs import CFSettings, analyse_cf, run_intensity_basis, selfabs  # noqa: E402
 from compquant.cflibs.atomicdata import PackageAtomicData, default_atomic_data  # noqa: E402
 from compquant.cflibs.capture import method_windows  # noqa: E402
+from compquant.cflibs.selfabs_fit import SelfAbsFit  # noqa: E402
 from compquant.cflibs.solver import Model  # noqa: E402
 from compquant.lines import measure_run  # noqa: E402
 from compquant.method import load_method  # noqa: E402
 from compquant.run import Run  # noqa: E402
 
 
-def _memos(on: bool) -> None:
+def _memos(on: bool, analytic: bool = True) -> None:
+    SelfAbsFit.ANALYTIC_JACOBIAN = analytic
     atomic = default_atomic_data()
     atomic._u_memo.clear()
     atomic.MEMO_MAX_T = PackageAtomicData.MEMO_MAX_T if on else -1
@@ -83,7 +89,13 @@ def main(argv=None) -> int:
     ap.add_argument("--run", default=str(root / "demo_runs" / "demo-day1.h5"))
     ap.add_argument("--method", default=str(root / "demo_runs" / "method.toml"))
     ap.add_argument("--repeat", type=int, default=2)
+    ap.add_argument("--modes", default="fd,now", help="comma-separated: base, fd, now (default fd,now)")
     a = ap.parse_args(argv)
+    modes = [m.strip() for m in a.modes.split(",") if m.strip()]
+    known = {"base": (False, False), "fd": (True, False), "now": (True, True)}
+    if not modes or any(m not in known for m in modes):
+        print(f"error: --modes takes base, fd, now (got {a.modes!r})", file=sys.stderr)
+        return 2
     method = load_method(a.method)
     settings = CFSettings.from_section(method.sections.get("cf"), where="[cf]")
     with Run.open(a.run) as run:
@@ -94,25 +106,44 @@ def main(argv=None) -> int:
         windows = method_windows(method, run.wavelength)  # as `compquant cf` does
     ids = [s for s in dict.fromkeys(table["sample_id"].astype(str)) if roles.get(s) in ("unknown", "check")]
     print(f"{Path(a.run).name}: {len(ids)} samples, load average {os.getloadavg()[0]:.1f}")
-    cpu, docs = {}, {}
-    for name, on in (("base", False), ("memo", True)):
-        best = float("inf")
-        for _ in range(a.repeat):
-            _memos(on)
+    cpu, docs = {m: float("inf") for m in modes}, {}
+    for _ in range(a.repeat):
+        for name in modes:  # interleaved, so a change of load hits every mode alike
+            _memos(*known[name])
             t0 = time.process_time()
             docs[name] = _analyse_all(table, ids, settings, acq, instr, basis, windows)
-            best = min(best, time.process_time() - t0)
-        cpu[name] = best / len(ids)
-        print(f"({name:4s}) {cpu[name]:.3f} s CPU per sample   load average {os.getloadavg()[0]:.1f}")
+            cpu[name] = min(cpu[name], (time.process_time() - t0) / len(ids))
     _memos(True)
-    x, y = _numbers(docs["base"]), _numbers(docs["memo"])
-    both = np.isfinite(x) & np.isfinite(y)
-    rel = np.max(np.abs(x[both] - y[both]) / np.maximum(np.abs(x[both]), 1e-300), initial=0.0)
-    same_nan = bool(np.array_equal(np.isfinite(x), np.isfinite(y)))
-    print(f"base/memo = {cpu['base'] / cpu['memo']:.2f}x   goal <= 0.5 s per sample: "
-          f"{'met' if cpu['memo'] <= 0.5 else 'missed'}")
-    print(f"largest relative difference of all numbers of the results: {rel:.2e} over {both.sum()} numbers"
-          f" (same missing values: {same_nan})")
+    last = modes[-1]
+    for name in modes:
+        print(f"({name:4s}) {cpu[name]:.3f} s CPU per sample   {name}/{last} = {cpu[name] / cpu[last]:.2f}x")
+    print(f"load average at the end {os.getloadavg()[0]:.1f}; goal <= 0.5 s per sample: "
+          f"{'met' if cpu[last] <= 0.5 else 'missed'} ({last})")
+    for name in modes[:-1]:
+        x, y = _numbers(docs[name]), _numbers(docs[last])
+        if x.size != y.size:
+            print(f"{name} vs {last}: results differ in shape ({x.size} vs {y.size} numbers)")
+            continue
+        both = np.isfinite(x) & np.isfinite(y)
+        rel = np.abs(x[both] - y[both]) / np.maximum(np.abs(x[both]), 1e-300)
+        same_nan = bool(np.array_equal(np.isfinite(x), np.isfinite(y)))
+        print(f"{name} vs {last}: largest relative difference of all numbers {np.max(rel, initial=0.0):.2e} "
+              f"over {both.sum()} numbers (same missing values: {same_nan})")
+        for key in ("temperature_k", "electron_density_cm3"):
+            d = [abs(dy[key] / dx[key] - 1) for dx, dy in zip(docs[name], docs[last])
+                 if dx.get(key) and dy.get(key)]
+            print(f"  {key}: largest relative change {max(d, default=0.0):.2e}")
+        d = []
+        for dx, dy in zip(docs[name], docs[last]):
+            ex = {e["element"]: e for e in dx.get("elements", [])}
+            for e in dy.get("elements", []):
+                o = ex.get(e["element"])
+                for k in ("mass_fraction", "u", "uncertified_mass_fraction"):
+                    if o and isinstance(o.get(k), float) and isinstance(e.get(k), float) and o[k] and o[k] == o[k]:
+                        d.append((abs(e[k] / o[k] - 1), f"{e['element']} {k}"))
+        if d:
+            worst = max(d)
+            print(f"  mass fractions and u: largest relative change {worst[0]:.2e} ({worst[1]})")
     return 0
 
 

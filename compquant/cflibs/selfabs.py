@@ -42,9 +42,12 @@ from compquant.plasma.profiles import voigt
 EL_SHERBINI_ALPHA = -0.54
 
 # grid on a sinh scale: dense in the core, reaching 10⁴ widths into the wings
-_U = np.linspace(-math.asinh(2.0e4), math.asinh(2.0e4), 481)
+# (481 points, exactly symmetric about 0 so the profile is computed on the half x ≥ 0 and mirrored)
+_U_HALF = np.linspace(0.0, math.asinh(2.0e4), 241)
+_U = np.concatenate([-_U_HALF[:0:-1], _U_HALF])
+_XS_HALF = np.sinh(_U_HALF)
 _XS = np.sinh(_U)
-_DX = np.cosh(_U) * (_U[1] - _U[0])
+_DX = np.cosh(_U) * (_U_HALF[1] - _U_HALF[0])
 
 
 def sa_lorentz(tau0) -> np.ndarray:
@@ -79,6 +82,38 @@ def sa_factor(tau0, w_gauss_nm, w_lorentz_nm) -> np.ndarray:
     return np.clip(out, 0.0, 1.0).reshape(shape)
 
 
+def dln_sa_dln_tau0(tau0, w_gauss_nm, w_lorentz_nm) -> np.ndarray:
+    """Logarithmic slope ∂ln SA/∂ln τ₀ of :func:`sa_factor` at fixed widths (per line, 1-D).
+
+    Exact derivative of the same discrete integral (the sinh grid and the profile depend on the
+    widths only)::
+
+        SA = 1 − φ₀ N/τ₀,   N = Σ_k g(τ_k) Δx_k,   τ_k = τ₀ φ_k/φ₀,   g(τ) = τ − 1 + e^{−τ}
+        N' = ∂N/∂τ₀ = Σ_k (1 − e^{−τ_k}) (φ_k/φ₀) Δx_k
+        ∂ln SA/∂ln τ₀ = (τ₀/SA) ∂SA/∂τ₀ = −φ₀ (N' − N/τ₀) / SA
+
+    (dimensionless, ≤ 0; −τ₀/2·… → 0 as τ₀ → 0).  Where :func:`sa_factor` takes its flat
+    branches (τ₀ ≤ 10⁻⁹, or SA clipped to 0 or 1) the slope is 0, as is the function's.  The
+    tests check it against central finite differences of :func:`sa_factor`.
+    """
+    t0 = np.asarray(tau0, dtype=float).ravel()
+    wg = np.maximum(np.broadcast_to(np.asarray(w_gauss_nm, dtype=float), t0.shape).ravel(), 1e-12)
+    wl = np.maximum(np.broadcast_to(np.asarray(w_lorentz_nm, dtype=float), t0.shape).ravel(), 0.0)
+    out = np.zeros_like(t0)
+    todo = t0 > 1e-9
+    if np.any(todo):
+        phi, dx, phi0 = _profile_on_grid(wg[todo], wl[todo])
+        t = t0[todo]
+        ratio = phi / phi0[:, None]
+        tau = t[:, None] * ratio
+        num = np.sum((tau + np.expm1(-tau)) * dx, axis=1)
+        dnum = np.sum(-np.expm1(-tau) * ratio * dx, axis=1)
+        sa = 1.0 - num / (t / phi0)
+        inside = (sa > 0.0) & (sa < 1.0)
+        out[todo] = np.where(inside, -phi0 * (dnum - num / t) / np.where(inside, sa, 1.0), 0.0)
+    return out
+
+
 _PROFILE_MEMO: OrderedDict = OrderedDict()
 _PROFILE_MEMO_SIZE = 16
 
@@ -88,8 +123,9 @@ def _profile_on_grid(wg: np.ndarray, wl: np.ndarray):
     ``wg`` (Gaussian) and ``wl`` (Lorentzian).
 
     The profile depends on the widths only, not on τ₀; the self-absorption fit evaluates the same
-    widths for every parameter but T and nₑ of a finite-difference Jacobian, so the last few
-    results are kept (exact copies of the same computation; read-only arrays).
+    widths at every trial step that keeps T and nₑ, so the last few results are kept (exact
+    copies of the same computation; read-only arrays).  The grid is symmetric and φ even, so φ is
+    computed on x ≥ 0 and mirrored (half the Faddeeva evaluations).
     """
     key = (wg.tobytes(), wl.tobytes())
     hit = _PROFILE_MEMO.get(key)
@@ -100,9 +136,10 @@ def _profile_on_grid(wg: np.ndarray, wl: np.ndarray):
     sigma = wg / (2.0 * math.sqrt(2.0 * math.log(2.0)))
     gamma = wl / 2.0
     scale = wv[:, None] * 0.5
-    x = _XS[None, :] * scale
-    phi = voigt_profile(x, sigma[:, None], gamma[:, None])
-    phi0 = voigt_profile(0.0, sigma, gamma)
+    # the Voigt profile is even in x: evaluate x ≥ 0 only (φ(0) is its first point) and mirror
+    half = voigt_profile(_XS_HALF[None, :] * scale, sigma[:, None], gamma[:, None])
+    phi = np.concatenate([half[:, :0:-1], half], axis=1)
+    phi0 = half[:, 0].copy()
     out = (phi, _DX[None, :] * scale, phi0)
     for a in out:
         a.flags.writeable = False
@@ -151,6 +188,7 @@ def sa_reference_line(intensity, wavelength_nm, gk_aki, ek_ev, ref_index: int, T
 
 __all__ = [
     "EL_SHERBINI_ALPHA",
+    "dln_sa_dln_tau0",
     "sa_factor",
     "sa_from_width",
     "sa_lorentz",

@@ -9,6 +9,9 @@ import math
 
 import numpy as np
 
+from compquant.cflibs.fitting import paule_mandel_scatter
+from compquant.cflibs.selfabs import dln_sa_dln_tau0
+from compquant.cflibs.selfabs_cog import _charges
 from compquant.cflibs.solver import Model, Solution
 from compquant.errors import AtomicDataError, PhysicsError
 from compquant.plasma.constants import KB_EV as K_B_EV
@@ -18,8 +21,17 @@ from compquant.plasma.constants import LN_SAHA_PREFACTOR
 class SelfAbsFit:
     """Mixin of :class:`compquant.cflibs.analysis._Analysis`: the self-absorbed fit."""
 
+    #: Jacobian of the fit: analytic intercept and ln L columns (see :meth:`_residual_fn`); False
+    #: gives scipy's finite differences in every column (``benchmarks/cf_speed.py`` compares them)
+    ANALYTIC_JACOBIAN = True
+
     def sa_of_beta(self, beta, length_cm, ne_est, groups):
         """SA of every line implied by the fit parameters β (T, intercepts[, ln nₑ]) and L."""
+        sa, _tau, T, ne, _sol = self._slab_state(beta, length_cm, ne_est, groups)
+        return sa, T, ne
+
+    def _slab_state(self, beta, length_cm, ne_est, groups):
+        """SA and τ₀ of every line, T, nₑ and the (one-row) solution implied by β and L."""
         m = beta[0]
         T = np.array([-1.0 / (K_B_EV * m)])
         ne = np.exp(np.array([beta[-1]])) if ne_est is None else np.atleast_1d(ne_est(T))[:1]
@@ -28,7 +40,30 @@ class SelfAbsFit:
                         X=None, y=None, groups=groups, elements=self.model.elements, ln_n_el=ln_n_el,
                         ln_n_species=ln_sp, number_fraction=None, mass_fraction=None,
                         valid=np.ones(1, bool), iterations=0, ne_from_fit=ne_est is None)
-        return self.sa_cog(fake, length_cm, np.ones(self.L.n))[0], T[0], ne[0]
+        sa, tau = self.sa_cog(fake, length_cm, np.ones(self.L.n))
+        return sa, tau, T[0], ne[0], fake
+
+    def _species_columns(self, groups):
+        """Column of β whose intercept scales each species' relative density in
+        :meth:`compquant.cflibs.solver.Model._composition` (ln n_s = β_col + terms in T, nₑ only):
+        ``{species: column}``, built once per ``groups``."""
+        memo = getattr(self, "_sp_col_memo", None)
+        if memo is not None and memo[0] is self.model and memo[1] == tuple(groups):
+            return memo[2]
+        stages = self.model._stages()
+        _u3, _ie1, _ie2, idx1, idx2, has1, has2 = self.model._composition_indices(stages, groups)
+        cols = {}
+        for j, (s1, s2, s3, use3) in enumerate(stages):
+            if self.model.mode == "saha-boltzmann":
+                c1 = c2 = idx1[j]
+            else:
+                c1 = idx1[j] if has1[j] else idx2[j]
+                c2 = idx2[j] if has2[j] else c1
+            cols[s1], cols[s2] = c1, c2
+            if use3:
+                cols[s3] = c2
+        self._sp_col_memo = (self.model, tuple(groups), cols)
+        return cols
 
     def initial_beta(self, T0, ne_est, X, y_raw):
         """Fit parameters with the slope fixed at −1/kT0 (a start that needs no negative slope)."""
@@ -44,44 +79,120 @@ class SelfAbsFit:
         return np.concatenate([[m0], rest])
 
     def _residual_fn(self, X, groups, ne_est, fit_length, length_cm):
-        """Weighted residuals of the self-absorbed model for parameters θ (β[, ln L])."""
+        """Weighted residuals of the self-absorbed model for parameters θ = (β[, ln L]) and their
+        Jacobian.  Returns ``(resid, jac, y_raw, bounds)``.
+
+        Residual of line i (weights w_i = 1/(u_i² + s²), s the Paule–Mandel scatter, §2)::
+
+            r_i = √w_i (y_i − ŷ_i),   ŷ_i = x_iᵀβ + [ion] Σ(T, nₑ) + ln SA_i(τ₀ᵢ, w_G,i, w_L,i)
+            τ₀ᵢ = L n_s(i) φᵢ(λ₀) λ⁴/(8πc) g_k A_ki e^{−E_i/kT}(1 − e^{−hc/λkT}) / U_s(T)
+            n_s = nₑ e^{ℓ_s} / Σ_c z_c e^{ℓ_c},   ℓ_s = β_col(s) + f_s(T, nₑ)  (closure, charge balance)
+
+        with Σ the Saha shift of the ion rows (docs/calibration-free.md §2, §6).  The widths
+        depend on T and nₑ only, so for an intercept q_j and for ln L (Cristoforetti & Tognoni
+        2013: only the column density n·L enters)::
+
+            ∂r_i/∂q_j  = −√w_i [X_ij + σ_i (δ_col(s(i)),j − Σ_c π_c δ_col(c),j)]
+            ∂r_i/∂ln L = −√w_i σ_i
+
+        where σ_i = ∂ln SA/∂ln τ₀ at fixed widths (:func:`compquant.cflibs.selfabs.dln_sa_dln_tau0`)
+        and π_c = z_c n_c/nₑ the share of charged species c in the electrons.  The slope (T) and
+        ln nₑ columns, which also move the widths, U(T), the Saha and lowering terms, are forward
+        differences with scipy's step (√ε·max(1, |θ|), turned back at a bound) — two residual
+        evaluations per Jacobian instead of one per parameter.  The tests compare the whole
+        Jacobian with central differences.
+        """
         s = self.s
         ne_free = ne_est is None
         ion = self.model.is_ion
         y_raw = np.log(self.L.intensity) + self.model.y0 - self.ln_zeta
         sw = np.sqrt(self.w)
         p = X.shape[1]
+        n_par = p + fit_length
         big = np.full(self.L.n, 1e3)
+        kept = {}  # the last few points: the base of a Jacobian and its difference points
 
-        def resid(theta):
+        def evaluate(theta):
+            key = theta.tobytes()
+            hit = kept.get(key)
+            if hit is not None:
+                return hit
             beta = theta[:p]
             L_cm = math.exp(theta[-1]) if fit_length else length_cm
             m = beta[0]
-            if not (m < 0):
-                return big
-            T = -1.0 / (K_B_EV * m)
-            try:
-                sa_i, _T, ne_ = self.sa_of_beta(beta, L_cm, ne_est, groups)
-            except (PhysicsError, FloatingPointError, ValueError):
-                return big
-            shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T) + float(
-                self.model.lowering(np.array([T]), np.array([ne_]), 1)[0]) / (K_B_EV * T)
-            if not ne_free:
-                shift -= math.log(ne_)
-            pred = X @ beta + np.where(ion, shift, 0.0) + np.log(np.maximum(sa_i, 1e-300))
-            r = sw * (y_raw - pred)
-            return r if np.all(np.isfinite(r)) else big
+            out = (big, None)
+            if m < 0:
+                T = -1.0 / (K_B_EV * m)
+                try:
+                    sa_i, tau, _T, ne_, sol = self._slab_state(beta, L_cm, ne_est, groups)
+                except (PhysicsError, FloatingPointError, ValueError):
+                    sa_i = None
+                if sa_i is not None:
+                    shift = LN_SAHA_PREFACTOR + 1.5 * math.log(T) + float(
+                        self.model.lowering(np.array([T]), np.array([ne_]), 1)[0]) / (K_B_EV * T)
+                    if not ne_free:
+                        shift -= math.log(ne_)
+                    pred = X @ beta + np.where(ion, shift, 0.0) + np.log(np.maximum(sa_i, 1e-300))
+                    r = sw * (y_raw - pred)
+                    if np.all(np.isfinite(r)):
+                        out = (r, (tau, T, ne_, sol))
+            if len(kept) >= 4:
+                kept.clear()
+            kept[key] = out
+            return out
 
-        lo = np.full(p + fit_length, -np.inf)
-        hi = np.full(p + fit_length, np.inf)
+        def resid(theta):
+            return evaluate(theta)[0]
+
+        lo = np.full(n_par, -np.inf)
+        hi = np.full(n_par, np.inf)
         lo[0], hi[0] = -1.0 / (K_B_EV * 0.5 * s.t_min_k), -1.0 / (K_B_EV * 2.0 * s.t_max_k)
         if ne_free:
             lo[p - 1], hi[p - 1] = math.log(1e13), math.log(1e20)
         if fit_length:
             lo[-1], hi[-1] = math.log(1e-6), math.log(10.0)
-        return resid, y_raw, (lo, hi)
+        fd_cols = [0] + ([p - 1] if ne_free else [])
+        q_cols = [j for j in range(1, p) if j not in fd_cols]
 
-    def _lsq(self, resid, theta0, bounds, coarse):
+        def jac(theta):
+            theta = np.asarray(theta, dtype=float)
+            r0, state = evaluate(theta)
+            J = np.zeros((self.L.n, n_par))
+            if state is None:
+                return J  # the constant residual of an invalid point
+            tau, T, ne_, sol = state
+            u_sp, wg, wlz = self._cog_widths(T, ne_, np.ones(self.L.n))
+            sig = dln_sa_dln_tau0(tau, wg, wlz)
+            cols = self._species_columns(groups)
+            nabs = self.absolute_species(sol)
+            charged, ln_z = _charges(tuple(sol.ln_n_species))
+            names = list(sol.ln_n_species)
+            z = np.zeros(len(names))
+            z[charged] = np.exp(ln_z)
+            share = {}  # Σ_c π_c δ_col(c),j per column j
+            for k, nm in enumerate(names):
+                if z[k] > 0:
+                    share[cols[nm]] = share.get(cols[nm], 0.0) + z[k] * nabs[nm] / ne_
+            col_of_line = np.array([cols[str(sp)] for sp in self.L.species])
+            for j in q_cols:
+                dln_n = (col_of_line == j).astype(float) - share.get(j, 0.0)
+                J[:, j] = -sw * (X[:, j] + sig * dln_n)
+            if fit_length:
+                J[:, -1] = -sw * sig
+            eps = np.finfo(float).eps ** 0.5
+            for j in fd_cols:
+                h = eps * max(1.0, abs(theta[j])) * (1.0 if theta[j] >= 0 else -1.0)
+                if not (lo[j] <= theta[j] + h <= hi[j]):
+                    h = -h
+                th = theta.copy()
+                th[j] = theta[j] + h
+                h = th[j] - theta[j]
+                J[:, j] = (evaluate(th)[0] - r0) / h
+            return J
+
+        return resid, jac, y_raw, (lo, hi)
+
+    def _lsq(self, resid, theta0, bounds, coarse, jac="2-point"):
         from scipy.optimize import least_squares
 
         lo, hi = bounds
@@ -89,7 +200,8 @@ class SelfAbsFit:
         th0 = np.clip(theta0, np.where(np.isfinite(lo), lo + 1e-6 * span, -np.inf),
                       np.where(np.isfinite(hi), hi - 1e-6 * span, np.inf))
         try:
-            res = least_squares(resid, th0, method="trf", bounds=(lo, hi), x_scale="jac",
+            res = least_squares(resid, th0, jac=jac if self.ANALYTIC_JACOBIAN else "2-point", method="trf",
+                                bounds=(lo, hi), x_scale="jac",
                                 max_nfev=60 if coarse else 200, xtol=1e-6 if coarse else 1e-10,
                                 ftol=1e-6 if coarse else 1e-12)
         except (ValueError, FloatingPointError):
@@ -126,17 +238,70 @@ class SelfAbsFit:
                 b0 = self.initial_beta(s.t_start_k, ne_est, X, y_raw)
             if fit_length:
                 chi2, beta, L_cm = self._fit_free_length(X, groups, ne_est, b0, coarse)
+                chi2, th = self._consistent_weights_sa(X, groups, ne_est, True, None,
+                                                       np.concatenate([beta, [math.log(L_cm)]]), chi2, coarse)
+                beta, L_cm = th[:-1], math.exp(th[-1])
             else:
                 chi2, beta = self._fit_known_length(X, groups, ne_est, b0, length_cm, coarse)
+                chi2, beta = self._consistent_weights_sa(X, groups, ne_est, False, length_cm, beta, chi2, coarse)
             sa_new = np.maximum(self.sa_of_beta(beta, L_cm, ne_est, groups)[0], 1e-300)
             step = float(np.max(np.abs(np.log(sa_new) - np.log(sa))))
             sa = sa_new
             if step < 1e-4 or ne_est is None:  # nₑ from the Saha balance does not depend on SA
                 break
         ne_name, ne_est = ne_pick(sa)
-        sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
+        try:
+            sol = self.solve_central(np.maximum(sa, s.sa_min_factor), ne_name, ne_est)
+        except PhysicsError:
+            if not self.u_model or getattr(self, "_pm_off", False):
+                raise
+            # the Paule–Mandel weights leave the linear solve without a temperature: fit again
+            # with the stated u alone (the s it needed stays in sa_info, and fit_quality judges
+            # the stated χ², which then refuses the solution)
+            self._pm_off = True
+            self.u_model = 0.0
+            self.w = 1.0 / self.u_y**2
+            self.sa_info.update(scatter_weights_dropped=True)
+            return self.nls_selfabs(length_cm, ne_pick, fit_length, coarse)
         _, tau = self.sa_cog(sol, L_cm, sa)
         return sa, sol, tau, ne_name, ne_est, L_cm, chi2
+
+    def _consistent_weights_sa(self, X, groups, ne_est, fit_length, length_cm, theta, chi2, coarse):
+        """Paule–Mandel weights for the self-absorbed fit (docs/calibration-free.md §2, §6).
+
+        The thin modes' estimator (:func:`compquant.cflibs.fitting.paule_mandel_scatter`, Paule
+        & Mandel 1982) applied to the fit linearised at its optimum θ̂ (Gauss–Newton): design
+        X_lin = ∂ŷ/∂θ (the fit's Jacobian, :meth:`_residual_fn`, divided by −√w) and ordinate
+        y_lin = y − ŷ(θ̂) + X_lin θ̂, so ν = n − dim θ counts T, the intercepts, ln nₑ and ln L.
+        The extra variance s² (ln intensity) is the one for which χ² = Σ (y_i − ŷ_i)²/(u_i² + s²)
+        equals ν; the fit is then refined with the weights 1/(u_i² + s²) from θ̂ (twice at most,
+        as in the thin modes).  s (``self.u_model``) is drawn in the Monte Carlo (§8) and judged
+        by the ``fit_quality`` check (§4a): blends and atomic-data errors move lines by 10–30 %,
+        a slab model that needs much more has not found the plasma.  Returns ``(chi2, theta)``
+        with χ² under the final weights.  Skipped once the weights have been dropped because the
+        linear solve at the weighted fit's SA had no temperature (:meth:`nls_selfabs`).
+        """
+        if getattr(self, "_pm_off", False):
+            return chi2, theta
+        for _ in range(2):
+            resid, jac, _y, bounds = self._residual_fn(X, groups, ne_est, fit_length, length_cm)
+            r = resid(theta)
+            J = jac(theta)
+            if not np.any(J):
+                break  # an invalid point: nothing to weigh
+            sw = np.sqrt(self.w)
+            x_lin = -J / sw[:, None]
+            y_lin = r / sw + x_lin @ theta
+            s_new = paule_mandel_scatter(x_lin, y_lin, self.u_y)
+            if abs(s_new - self.u_model) <= 1e-4 * max(s_new, 1e-12):
+                break
+            self.u_model = s_new
+            self.w = 1.0 / (self.u_y**2 + s_new**2)
+            resid, jac, _y, bounds = self._residual_fn(X, groups, ne_est, fit_length, length_cm)
+            out = self._lsq(resid, theta, bounds, coarse, jac=jac)
+            chi2, theta = out if out is not None else (float(np.sum(resid(theta) ** 2)), theta)
+        self.sa_info.update(model_scatter_ln=float(self.u_model), dof_selfabs=int(self.L.n - theta.size))
+        return chi2, theta
 
     def _fit_free_length(self, X, groups, ne_est, b0, coarse):
         """Fit with the plasma length L free: continuation along a logarithmic grid of L (cm) from
@@ -146,8 +311,8 @@ class SelfAbsFit:
         beta = b0
         n_grid = 7 if coarse else 11
         for L_try in np.geomspace(1e-5, 1.0, n_grid):  # cm
-            resid_g, _, bounds_g = self._residual_fn(X, groups, ne_est, False, float(L_try))
-            out = self._lsq(resid_g, beta, bounds_g, coarse=True)
+            resid_g, jac_g, _, bounds_g = self._residual_fn(X, groups, ne_est, False, float(L_try))
+            out = self._lsq(resid_g, beta, bounds_g, coarse=True, jac=jac_g)
             if out is None:
                 continue
             chi_g, beta = out
@@ -157,9 +322,9 @@ class SelfAbsFit:
             raise PhysicsError("the self-absorbed Saha–Boltzmann fit found no solution",
                                where=f"{self.where}: self-absorption correction",
                                fix="use weaker lines, or set self_absorption = 'detect'")
-        resid, _, bounds = self._residual_fn(X, groups, ne_est, True, None)
+        resid, jac, _, bounds = self._residual_fn(X, groups, ne_est, True, None)
         th0 = np.concatenate([best[1], [math.log(best[2])]])
-        out = self._lsq(resid, th0, bounds, coarse)
+        out = self._lsq(resid, th0, bounds, coarse, jac=jac)
         chi2, th = out if out is not None and out[0] <= best[0] else (best[0], th0)
         return chi2, th[:-1], math.exp(th[-1])
 
@@ -167,13 +332,13 @@ class SelfAbsFit:
         """Fit at a given plasma length (cm) from the start ``b0`` and starts with the slope fixed
         at 1, 0.75 and 1.35 × ``t_start_k``; the lowest χ² wins.  Returns ``(chi2, beta)``."""
         s = self.s
-        resid, _, bounds = self._residual_fn(X, groups, ne_est, False, length_cm)
+        resid, jac, _, bounds = self._residual_fn(X, groups, ne_est, False, length_cm)
         cands = [b0] + [self.initial_beta(T0, ne_est, X, np.log(self.L.intensity) + self.model.y0
                                           - self.ln_zeta) for T0 in (s.t_start_k, 0.75 * s.t_start_k,
                                                                       1.35 * s.t_start_k)]
         best = None
         for c in cands[: 2 if coarse else None]:
-            out = self._lsq(resid, c, bounds, coarse)
+            out = self._lsq(resid, c, bounds, coarse, jac=jac)
             if out is not None and (best is None or out[0] < best[0]):
                 best = out
             # a start that fits within the noise (χ²/ν ≤ 2) needs no other start
