@@ -140,6 +140,15 @@ def test_interference_correction_recovers_coefficient():
     q0 = quantify((lt, st, sm), cal0, run_sha256="run-a")
     u0 = q0.results[(q0.results.role == "unknown") & (q0.results.element == "Zn")]
     assert np.max(np.abs(u0.mass_fraction.to_numpy() / tv - 1)) > 0.04
+    # the curve alone (interferent at 0) when no content is given, as the figures draw it; the
+    # additive term adds coefficient x r_Fe (the model above); the certificate's curve figure with
+    # the sample marked is drawn (it raised KeyError for an interference curve before 2026-12-02)
+    from compquant.calibrate.plots import curve_png
+
+    c = cal.curves["Zn"]
+    assert c.response(0.3)[0] == c.response(0.3, {"Fe": 0.0})[0]
+    assert c.response(0.3, {"Fe": 0.01})[0] - c.response(0.3)[0] == pytest.approx(it["coefficient"] * 0.01, rel=1e-9)
+    assert curve_png(c, sample_x=0.3).startswith(b"\x89PNG")
 
 
 def test_multiplicative_interference():

@@ -119,3 +119,49 @@ def test_matrix_part_closed_form_relative_scatter():
     large = c.predict_content(y0, 3 * rho * y0, 50)
     assert large["budget"]["matrix"] * large["dydx"] ** 2 == pytest.approx(c.sigma_m2 * (3 * rho * y0) ** 2,
                                                                            rel=1e-9)
+
+
+def test_profile_fit_part_of_a_line_u_reaches_the_paired_ratio():
+    # A profile-fitted analyte line (mode = "fit") has u^2 = sd^2/n + u_shape^2 (the fit's
+    # centre/width part does not average over shots; compquant/lines/measure.py).  The ratio
+    # R = f(P, a, s) = P * (1 + da/A) * (1 - ds/S) of the paired-shot mean ratio P and the two
+    # lines' shape errors da, ds (zero mean, u = u_shape) is propagated with the law of
+    # propagation of uncertainty for independent inputs, JCGM 100:2008 (GUM) 5.1.2 eq. (10):
+    # u^2(R) = u^2(P) + (R u_shape,a / A)^2 + (R u_shape,s / S)^2, with u^2(P) the paired part
+    # from GUM 5.2.2 eq. (16) and 5.2.3 eq. (17) computed here from the shot covariance.
+    rng = np.random.default_rng(18)
+    n = 60
+    common = rng.lognormal(0, 0.15, n)
+    a = 300 * common * (1 + rng.normal(0, 0.03, n))  # Pb I 405.781 (fitted)
+    s = 5000 * common * (1 + rng.normal(0, 0.01, n))  # Cu I 427.511 (window, internal standard)
+    ma, ms = a.mean(), s.mean()
+    sd_a, sd_s = a.std(ddof=1), s.std(ddof=1)
+    u_shape_a = 12.0  # intensity units: 4 % of the line, larger than sd_a / sqrt(n) (about 6)
+    assert u_shape_a > sd_a / np.sqrt(n)
+    lt = pd.DataFrame([
+        dict(sample_id="S", line_id="A", intensity=ma, u_intensity=np.sqrt(sd_a**2 / n + u_shape_a**2),
+             sd_shots=sd_a, n_shots=n, flags=""),
+        dict(sample_id="S", line_id="B", intensity=ms, u_intensity=sd_s / np.sqrt(n), sd_shots=sd_s,
+             n_shots=n, flags=""),
+    ])
+    st = pd.DataFrame([dict(sample_id="S", shot=k, line_id=lid, intensity=x, accepted=True)
+                       for lid, v in (("A", a), ("B", s)) for k, x in enumerate(v)])
+    r = sample_responses(lt, "A", "B", st).loc["S"]
+    R = ma / ms
+    c = np.cov(a, s, ddof=1)
+    u2_paired = R**2 * (c[0, 0] / (n * ma**2) + c[1, 1] / (n * ms**2) - 2 * c[0, 1] / (n * ma * ms))
+    expected = np.sqrt(u2_paired + (R * u_shape_a / ma) ** 2)  # the window line adds no shape term
+    assert r["y"] == pytest.approx(R, rel=1e-12)
+    assert r["u_y"] == pytest.approx(expected, rel=1e-9)
+    assert r["u_y"] > 1.5 * np.sqrt(u2_paired)  # the shape part is not dropped (it dominates here)
+    # the same shape term on the internal-standard side enters with its own sensitivity A/S^2
+    u_shape_s = 20.0
+    lt2 = lt.copy()
+    lt2.loc[1, "u_intensity"] = np.sqrt(sd_s**2 / n + u_shape_s**2)
+    r2 = sample_responses(lt2, "A", "B", st).loc["S"]
+    expected2 = np.sqrt(u2_paired + (u_shape_a / ms) ** 2 + (ma * u_shape_s / ms**2) ** 2)
+    assert r2["u_y"] == pytest.approx(expected2, rel=1e-9)
+    # window lines only (u = sd / sqrt(n)): nothing is added, the paired value stands
+    lt3 = lt.copy()
+    lt3.loc[0, "u_intensity"] = sd_a / np.sqrt(n)
+    assert sample_responses(lt3, "A", "B", st).loc["S"]["u_y"] == pytest.approx(np.sqrt(u2_paired), rel=1e-9)

@@ -79,11 +79,12 @@ def test_specutils_spectrum_has_astropy_units_and_medium():
 DEMO = Path(__file__).resolve().parents[1] / "demo_runs"
 
 #: SHA-256 of the values (dtype, shape, bytes: scripts/add_run_axes.py dataset_digests) of /spectra
-#: in the demo runs as shipped before they gained their axes (files 2fd4c7c0... and c8a9abcf...,
-#: commit a1cd959); the upgrade must not change them
+#: in the demo runs as shipped: regenerated on 2026-12-02 with the shipped atomic database
+#: (files e2bcbd51... and 279098e6..., demo_runs/README.md); the spectra of the files before
+#: (simulated with the 234-line list) were cd5c3f22... and 82473099...
 DEMO_SPECTRA_SHA256 = {
-    "demo-day1.h5": "cd5c3f226a6c7da6b72b5533c53c979a53078caebfa2e9a02721de7238475bae",
-    "demo-day2.h5": "824730999fc78ec5e6bf34685f45684dd39406b3591fcf6f93e2f4cd225f9889",
+    "demo-day1.h5": "2b904b78522856668fa7be7720ec71ee50a1d8fefeb0c0bbc9af57462bf7923d",
+    "demo-day2.h5": "10f955a481ace3cee4e43b69aea46d957199fad0e8c3b669d966156cf62fe17b",
 }
 
 

@@ -93,7 +93,11 @@ class Curve:
         return np.asarray(self.beta, float)
 
     def response(self, x, xi=None):
-        return design_matrix(self.terms, np.atleast_1d(np.asarray(x, float)), xi or {}) @ self._beta()
+        """Response ``y(x, xi)`` of the fitted curve at content(s) ``x``; ``xi``: ``{element: content}``
+        of the interfering analytes, those not given taken as 0 (the analyte's own curve, as the
+        figures draw it)."""
+        xi = {**{it["element"]: 0.0 for it in self.interferences}, **(xi or {})}
+        return design_matrix(self.terms, np.atleast_1d(np.asarray(x, float)), xi) @ self._beta()
 
     def predict_content(
         self, y0: float, u0: float, n_shots: int | None = None, xi=None, u_xi=None, where: str | None = None

@@ -8,7 +8,10 @@ Ratio of means with the per-shot covariance (first-order propagation, GUM 5.1.2)
 The covariance term is why an internal standard helps: shot-to-shot
 fluctuations of ablated mass and plasma affect both lines alike.  Without the
 per-shot table the lines are taken as independent:
-``u^2(R) = R^2 [(u_a/I_a)^2 + (u_s/I_s)^2]``.  Per-shot values of the response
+``u^2(R) = R^2 [(u_a/I_a)^2 + (u_s/I_s)^2]``.  With it, the part of each line's ``u`` that does
+not come from the shot spread (the profile-shape term of fitted lines, ``u^2 - sd^2/n``) is
+added to the paired-shot variance through the ratio, so no part of the line's own uncertainty
+is dropped.  Per-shot values of the response
 are the linearised ratios ``R + (I_a - Ibar_a)/Ibar_s - R (I_s - Ibar_s)/Ibar_s``,
 whose mean is ``R`` and whose spread matches ``u(R)``; they serve the
 lack-of-fit test and blank statistics.
@@ -31,6 +34,20 @@ def _by_shot(g: pd.DataFrame) -> pd.DataFrame:
     increase, which is the same frame: the identity order, whatever the sorting algorithm."""
     s = g["shot"]
     return g if s.is_monotonic_increasing and s.is_unique else g.sort_values("shot")
+
+
+def _non_shot_u(row) -> float:
+    """The part of a line's ``u_intensity`` that the shot-to-shot spread does not carry,
+    ``sqrt(max(u^2 - sd^2/n, 0))`` (intensity units) (the profile-fit shape
+    term of ``fit`` mode lines; 0 for ``window`` lines, where ``u = sd/sqrt(n)``).  0 when the
+    line table has no ``sd_shots`` column or fewer than two shots."""
+    try:
+        u, sd, n = float(row["u_intensity"]), float(row.get("sd_shots", np.nan)), int(row["n_shots"])
+    except (KeyError, TypeError, ValueError):
+        return 0.0
+    if not (np.isfinite(u) and np.isfinite(sd) and n >= 2):
+        return 0.0
+    return float(np.sqrt(max(u * u - sd * sd / n, 0.0)))
 
 
 def sample_responses(
@@ -110,7 +127,14 @@ def sample_responses(
                         if ms > 0:
                             y = ma / ms
                             shots = y + (xa - ma) / ms - y * (xs - ms) / ms
-                            uy = float(np.std(shots, ddof=1) / np.sqrt(len(shots)))
+                            # paired shots: the covariance term of GUM 5.2.2 (eq. 16) is in the
+                            # spread of the linearised ratios; the part of each line's u that does
+                            # not average over shots (profile-shape uncertainty of a fitted line) is
+                            # added back, propagated through the ratio
+                            ea = _non_shot_u(r) / Ia if Ia > 0 else 0.0  # relative
+                            es = _non_shot_u(rs) / Is
+                            uy = float(np.sqrt(np.var(shots, ddof=1) / len(shots) + (y * ea) ** 2
+                                               + (y * es) ** 2))
                             n = len(shots)
         rows.append({"sample_id": sid, "y": y, "u_y": uy, "n_shots": n, "flags": flags, "shots": shots})
     return pd.DataFrame(rows, columns=["sample_id", "y", "u_y", "n_shots", "flags", "shots"]).set_index(
