@@ -150,9 +150,7 @@ def iron_nickel_noise_free(tmp_path_factory):
 
 
 def _errors(comp, data, blend):
-    from compquant.cflibs import analyse_cf
-
-    from compquant.cflibs import CFSettings
+    from compquant.cflibs import CFSettings, analyse_cf
 
     s = CFSettings.from_section(data["settings"]).to_dict()
     s["blend_correction"] = blend
@@ -180,7 +178,8 @@ def test_blend_correction_recovers_a_noise_free_iron_nickel_composition(iron_nic
     assert abs(after["Mn"]) < 0.05
     assert abs(r1.temperature_k / T - 1) < 0.015
     info = r1.fit["blend_correction"]
-    assert info["applied"] and info["converged"] and 2 <= info["passes"] <= 4
+    assert info["applied"] and info["converged"] and 2 <= info["passes"] <= 6
+    assert info["changes"][-1] < 0.002 <= info["changes"][0]  # settled from a first correction above tolerance
     assert r0.fit["blend_correction"] == {"applied": False}
     # every dropped line is reported with its reason and predicted self share
     dropped = {d["line_id"] for d in info["dropped"]}

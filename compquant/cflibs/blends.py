@@ -65,6 +65,7 @@ import numpy as np
 
 from compquant.cflibs.capture import abs_cdf
 from compquant.cflibs.electron_density import gaussian_fwhm_nm
+from compquant.errors import PhysicsError
 from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR
 
 #: lines farther than this beyond a window's outer side-band edge are not counted (nm): at
@@ -272,11 +273,25 @@ class BlendCorrection:
             self.blend_share = corr / I0  # share of the measured (capture-corrected) area removed
             self.blend_self_share = share
             self._set_ordinate_weights()
-            ne_name, ne_est = ne_pick(None)
-            sol = self.solve_central(self.sa, ne_name, ne_est)
-            sol = self.consistent_weights(sol, ne_pick)
+            try:
+                ne_name, ne_est = ne_pick(None)
+                sol = self.solve_central(self.sa, ne_name, ne_est)
+                sol = self.consistent_weights(sol, ne_pick)
+            except PhysicsError as exc:  # the corrected lines have no physical solution: keep them uncorrected
+                self._warn(f"blend correction abandoned in pass {info['passes'] + 1} ({exc.one_line()}); "
+                           "lines left uncorrected")
+                self.L.intensity, self.L.u_intensity = I0, u0
+                self.blend_share = np.zeros(self.L.n)
+                self._set_ordinate_weights()
+                ne_name, ne_est = ne_pick(None)
+                sol = self.consistent_weights(self.solve_central(self.sa, ne_name, ne_est), ne_pick)
+                info["abandoned"] = exc.one_line()
+                break
             info["passes"] += 1
-            if prev is not None and float(np.max(np.abs(new - prev) / I0)) < s.blend_tolerance:
+            # change of the corrected areas since the last pass (pass 1: since no correction)
+            change = float(np.max(np.abs(new - (I0 if prev is None else prev)) / I0))
+            info.setdefault("changes", []).append(change)
+            if prev is not None and change < s.blend_tolerance:
                 info["converged"] = True
                 break
             prev = new

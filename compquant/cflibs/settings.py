@@ -160,7 +160,7 @@ CF_TABLE = Table("cf", (
        **_NONNEG),
     _s("blend_min_self_share", "float", 0.5, "lines whose window is predicted less than this share their own are "
        "dropped (§1b)", **_FRAC),
-    _s("blend_max_passes", "int", 4, "passes of the blend correction (§1b)", min=1, max=20, fix="e.g. 4"),
+    _s("blend_max_passes", "int", 6, "passes of the blend correction (§1b)", min=1, max=20, fix="e.g. 6"),
     _s("blend_tolerance", "float", 0.002, "the blend correction has settled when no line's area moves by more than "
        "this fraction (§1b)", **_POS),
     _s("response_basis", "str", None, "basis of the run's response when the run does not record it", choices=BASES),
