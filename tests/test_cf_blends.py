@@ -192,3 +192,26 @@ def test_blend_correction_recovers_a_noise_free_iron_nickel_composition(iron_nic
     for x in r1.lines:
         if x["line_id"] in by_id and abs(x["blend_share"]) > 0.05:
             assert x["u_intensity"] > by_id[x["line_id"]]["u_intensity"]
+
+
+@pytest.mark.slow
+def test_predicted_areas_reproduce_the_fitted_ordinates_of_the_measured_lines(iron_nickel_noise_free):
+    # consistency of eq. (ln Â) with the solver: for the measured lines, ln I − ln Â equals the fit's
+    # residual y − Xβ (neutral and ion rows, Saha shift with Debye–Hückel lowering); to rounding
+    from compquant.cflibs import CFSettings
+    from compquant.cflibs.analysis import _Analysis
+    from compquant.cflibs.atomicdata import default_atomic_data
+    from compquant.cflibs.blends import predicted_ln_area
+
+    _, _, data = iron_nickel_noise_free
+    rows = data["table"][data["table"]["sample_id"] == "FN"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        a = _Analysis(rows, "FN", CFSettings.from_section(data["settings"]), default_atomic_data(),
+                      data["acquisition"], data["instrument"], None, "test", windows=data["windows"])
+        a.solve()
+    L, sol = a.L, a.sol
+    assert set(L.ion) == {1, 2}
+    pred = predicted_ln_area(sol, a.model, L.element, L.ion, L.wl, L.gA, L.ek)
+    resid = sol.y[0] - sol.X @ sol.fit.beta[0]
+    assert np.log(L.intensity) - pred == pytest.approx(resid, abs=1e-9)
