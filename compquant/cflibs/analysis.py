@@ -83,6 +83,7 @@ class _Analysis(NeRoutes, TemperatureFit, WindowCapture, BlendCorrection, CurveO
             self.nd.intensity = self.nd.intensity * 500.0 / self.nd.wl
         self.basis = basis
         self.windows = dict(windows) if windows else None
+        self.window_axis = getattr(windows, "wavelength", None)  # the run's pixels (blend correction, §1b)
         self.ln_capture = np.zeros(self.L.n)  # ln of each line's window capture fraction (§1a)
         self.dln_capture = np.zeros(self.L.n)  # its change for a +u_rel change of the Stark widths
         self.blend_share = np.zeros(self.L.n)  # share of each line's area removed as interference (§1b)

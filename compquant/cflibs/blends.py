@@ -104,7 +104,42 @@ def window_response(offset_nm, window_nm, side_nm, gap_nm, w_gauss, w_lorentz) -
     return inside - bg
 
 
-def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorentz, cand_u_rel):
+def pixel_window_weights(axis, centre_nm, window_nm, side_nm, gap_nm):
+    """The line pipeline's weights of one window on the run's pixels (``pixels``, ``weights``):
+    N = Σ_p w_p y_p (:func:`compquant.lines.windows.build_window_weights` — interpolant integral
+    over the window less the least-squares line through the side pixels, integrated over it)."""
+    from compquant.lines.windows import build_window_weights, window_geometry
+
+    W = build_window_weights(axis, [window_geometry(float(centre_nm), float(window_nm), float(side_nm),
+                                                    float(gap_nm))])
+    return W.pixels[0], W.weights[0]
+
+
+def pixel_response(axis, pixels, weights, line_nm, w_gauss, w_lorentz) -> np.ndarray:
+    """c of eq. (1) on the pixels the measurement uses: c = Σ_p w_p v_p, with v_p the mean over
+    pixel p of a unit-area Voigt line at ``line_nm`` (nm⁻¹),
+
+        v_p = [F(e_p⁺ − λ_k) − F(e_p⁻ − λ_k)] / (e_p⁺ − e_p⁻),
+
+    F the Voigt CDF (:func:`voigt_cdf`) and e_p± the pixel edges midway between pixel centres (the
+    ends mirrored; as :attr:`compquant.plasma.forward.Instrument.pixel_edges`).  Unlike the
+    continuous geometry of eq. (1), the side bands hold whole pixels (the pipeline takes every pixel
+    whose centre lies in a band), which matters for a line near a band edge.  ``line_nm``,
+    ``w_gauss``, ``w_lorentz``: (m,) arrays; returns (m,).
+    """
+    x = np.asarray(axis, float)
+    p = np.asarray(pixels, int)
+    lo = np.where(p > 0, 0.5 * (x[np.maximum(p - 1, 0)] + x[p]), x[0] - 0.5 * (x[1] - x[0]))
+    hi = np.where(p < x.size - 1, 0.5 * (x[np.minimum(p + 1, x.size - 1)] + x[p]), x[-1] + 0.5 * (x[-1] - x[-2]))
+    lam = np.asarray(line_nm, float)[:, None]
+    wg = np.asarray(w_gauss, float)[:, None]
+    wl = np.asarray(w_lorentz, float)[:, None]
+    v = (voigt_cdf(hi[None, :] - lam, wg, wl) - voigt_cdf(lo[None, :] - lam, wg, wl)) / (hi - lo)[None, :]
+    return v @ np.asarray(weights, float)
+
+
+def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorentz, cand_u_rel, exclude=None,
+                axis=None, pixel_weights=None):
     """Δ, u(Δ) and Σ|Â c| of eq. (2) for each window from its candidate interfering lines.
 
     Parameters
@@ -116,23 +151,44 @@ def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorent
     cand_wl, cand_area, cand_wg, cand_wl_lorentz, cand_u_rel : (m,) arrays
         The interfering lines: wavelength (nm), predicted area Â, Gaussian and Lorentzian FWHM
         (nm), relative standard u of Â (eq. (2): √(u_A² + u_b²)).
-    Returns ``(delta, u_delta, abs_sum)``, each (n,); a candidate equal in wavelength to the window
-    centre is counted (an unresolved blend), so the caller must leave the measured line itself out.
+    exclude : (n,) array of int, optional
+        Index of the candidate that is window j's own line (−1: none), left out of window j.
+    axis, pixel_weights : optional
+        The run's pixel axis (nm) and, per window, its ``(pixels, weights)``
+        (:func:`pixel_window_weights`): c is then :func:`pixel_response`, else the continuous
+        eq. (1) (:func:`window_response`).
+
+    Returns ``(delta, u_delta, abs_sum)``, each (n,).  All (window, candidate) pairs within
+    reach are evaluated in one vectorised call.
     """
-    n = len(centre_nm)
-    delta, u2, absum = np.zeros(n), np.zeros(n), np.zeros(n)
+    centre = np.asarray(centre_nm, float)
+    geo = np.asarray(geometry, float).reshape(-1, 3)
+    n = centre.size
     cand_wl = np.asarray(cand_wl, float)
-    for j in range(n):
-        w, sd, gp = geometry[j]
-        reach = 0.5 * w + gp + sd + SEARCH_MARGIN_NM
-        k = np.nonzero(np.abs(cand_wl - centre_nm[j]) <= reach)[0]
-        if k.size == 0:
-            continue
-        c = window_response(cand_wl[k] - centre_nm[j], w, sd, gp, cand_wg[k], cand_wl_lorentz[k])
-        contrib = cand_area[k] * c
-        delta[j] = float(np.sum(contrib))
-        u2[j] = float(np.sum((contrib * cand_u_rel[k]) ** 2))
-        absum[j] = float(np.sum(np.abs(contrib)))
+    reach = 0.5 * geo[:, 0] + geo[:, 1] + geo[:, 2] + SEARCH_MARGIN_NM
+    order = np.argsort(cand_wl)
+    sw = cand_wl[order]
+    lo = np.searchsorted(sw, centre - reach, side="left")
+    hi = np.searchsorted(sw, centre + reach, side="right")
+    counts = hi - lo
+    jj = np.repeat(np.arange(n), counts)
+    kk = order[np.concatenate([np.arange(a, b) for a, b in zip(lo, hi)])] if counts.sum() else np.zeros(0, int)
+    if exclude is not None:
+        keep = kk != np.asarray(exclude)[jj]
+        jj, kk = jj[keep], kk[keep]
+    wg_all, wl_all = np.asarray(cand_wg, float), np.asarray(cand_wl_lorentz, float)
+    if axis is None:
+        c = window_response(cand_wl[kk] - centre[jj], geo[jj, 0], geo[jj, 1], geo[jj, 2], wg_all[kk], wl_all[kk])
+    else:
+        c = np.zeros(kk.size)
+        for j in np.unique(jj):
+            sel = jj == j
+            px, wt = pixel_weights[j]
+            c[sel] = pixel_response(axis, px, wt, cand_wl[kk[sel]], wg_all[kk[sel]], wl_all[kk[sel]])
+    contrib = np.asarray(cand_area, float)[kk] * c
+    delta = np.bincount(jj, contrib, minlength=n)
+    u2 = np.bincount(jj, (contrib * np.asarray(cand_u_rel, float)[kk]) ** 2, minlength=n)
+    absum = np.bincount(jj, np.abs(contrib), minlength=n)
     return delta, np.sqrt(u2), absum
 
 
@@ -214,7 +270,8 @@ class BlendCorrection:
         corr, u_corr, share = np.zeros(n), np.zeros(n), np.ones(n)
         if not np.any(have) or C.n == 0:
             return corr, u_corr, share
-        m_c = np.array([self.atomic.mass_u(e) for e in C.element])
+        mass = {e: self.atomic.mass_u(e) for e in dict.fromkeys(C.element)}
+        m_c = np.array([mass[e] for e in C.element])
         w_ins_c = np.asarray(self.w_instr_fn(C.wl), float) * np.ones(C.n)
         wg_c = gaussian_fwhm_nm(C.wl, T, m_c, w_ins_c)
         wl_c = self.lorentz_thin(T, ne, np.ones(C.n), lines=C, mass=m_c, w_instr=w_ins_c)
@@ -222,14 +279,26 @@ class BlendCorrection:
         u_c = np.sqrt(C.u_ln_a**2 + float(self.s.blend_u_rel) ** 2)  # A_ki grade ⊕ model, eq. (2)
         area_self = np.exp(predicted_ln_area(sol, self.model, L.element, L.ion, L.wl, L.gA, L.ek))
         f = np.exp(self.ln_capture)
-        for j in np.nonzero(have)[0]:
-            others = C.line_id != L.line_id[j]
-            delta, u_delta, absum = blend_terms(L.wl[j:j + 1], geo[j:j + 1], C.wl[others], area_c[others],
-                                                wg_c[others], wl_c[others], u_c[others])
-            own = area_self[j] * f[j]
-            corr[j] = delta[0] / f[j]
-            u_corr[j] = u_delta[0] / f[j]
-            share[j] = own / (own + absum[0]) if own + absum[0] > 0 else 0.0
+        idx = np.nonzero(have)[0]
+        pos = {lid: k for k, lid in enumerate(C.line_id)}
+        own_k = np.array([pos.get(str(L.line_id[j]), -1) for j in idx], int)
+        axis = getattr(self, "window_axis", None)
+        pw = None
+        if axis is not None:
+            memo = self.__dict__.setdefault("_blend_pixel_weights", {})
+            pw = []
+            for j in idx:
+                key = (str(L.line_id[j]), float(L.wl[j]), *map(float, geo[j]))
+                if key not in memo:
+                    memo[key] = pixel_window_weights(axis, L.wl[j], *geo[j])
+                pw.append(memo[key])
+        delta, u_delta, absum = blend_terms(L.wl[idx], geo[idx], C.wl, area_c, wg_c, wl_c, u_c, exclude=own_k,
+                                            axis=axis, pixel_weights=pw)
+        own = area_self[idx] * f[idx]
+        corr[idx] = delta / f[idx]
+        u_corr[idx] = u_delta / f[idx]
+        tot = own + absum
+        share[idx] = np.where(tot > 0, own / np.where(tot > 0, tot, 1.0), 0.0)
         return corr, u_corr, share
 
     def _set_ordinate_weights(self):
@@ -303,4 +372,5 @@ class BlendCorrection:
         return sol
 
 
-__all__ = ["BlendCorrection", "blend_terms", "predicted_ln_area", "voigt_cdf", "window_response"]
+__all__ = ["BlendCorrection", "blend_terms", "pixel_response", "pixel_window_weights", "predicted_ln_area",
+           "voigt_cdf", "window_response"]

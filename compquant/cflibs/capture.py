@@ -75,18 +75,28 @@ def window_capture_fraction(window_nm, side_nm, gap_nm, w_gauss, w_lorentz) -> n
     return inside - bg
 
 
-def method_windows(method, wavelength) -> dict[str, tuple[float, float, float]]:
+class WindowSet(dict):
+    """``line_id → (window_nm, side_nm, gap_nm)``, with the run's pixel axis as ``wavelength``
+    (nm; ``None`` when only a pitch was given) so that the blend correction
+    (:mod:`compquant.cflibs.blends`) can place every window's side bands on the pixels the line
+    pipeline uses."""
+
+    wavelength: np.ndarray | None = None
+
+
+def method_windows(method, wavelength) -> WindowSet:
     """``line_id → (window_nm, side_nm, gap_nm)`` of a method's window-integrated lines, as
     the line pipeline builds them (:func:`compquant.method.window_width_nm`, ``side_width_nm``).
 
     ``wavelength``: the run's wavelength axis (nm), or its pixel pitch (nm) — the default
-    window widths are counted in pixels."""
+    window widths are counted in pixels.  A :class:`WindowSet` (a dict) that keeps the axis."""
     from compquant.method import side_width_nm, window_width_nm
 
     w = np.asarray(wavelength, float)
     pitch_nm = float(np.median(np.diff(w))) if w.ndim and w.size > 1 else float(w)
 
-    out = {}
+    out = WindowSet()
+    out.wavelength = w.copy() if w.ndim and w.size > 1 else None
     for ln in method.lines:
         if getattr(ln, "mode", "window") != "window":
             continue
@@ -94,4 +104,4 @@ def method_windows(method, wavelength) -> dict[str, tuple[float, float, float]]:
     return out
 
 
-__all__ = ["abs_cdf", "method_windows", "window_capture_fraction"]
+__all__ = ["WindowSet", "abs_cdf", "method_windows", "window_capture_fraction"]
