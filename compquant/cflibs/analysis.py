@@ -264,8 +264,11 @@ def analyse_cf(
     windows : dict, optional
         ``line_id → (window_nm, side_nm, gap_nm)`` of the window-integrated lines
         (:func:`compquant.cflibs.capture.method_windows`); each such line is divided by the
-        fraction of its area the window measures (docs/calibration-free.md §1a).  Without it
-        the intensities are taken as whole line areas.
+        fraction of its area the window measures (docs/calibration-free.md §1a) and, in the
+        thin modes with ``[cf] blend_correction``, corrected for the predicted interference of
+        other lines (§1b; on the run's pixels when ``windows`` is the
+        :class:`~compquant.cflibs.capture.WindowSet` of ``method_windows``, which keeps the axis).
+        Without it the intensities are taken as whole line areas.
     measurement : LineMeasurement, optional
         The :class:`~compquant.lines.LineMeasurement` the line table came from; its
         per-shot intensities give the Monte Carlo the correlation of the line means (every line

@@ -12,7 +12,11 @@ window or a side band adds to N: for a line of area A_k and unit-area profile φ
 (X distributed as φ_k; the least-squares line through two symmetric side bands has the mean over
 both bands as its value at the window centre, times the window width 2h — the same geometry as
 :func:`compquant.cflibs.capture.window_capture_fraction`, which is c_jj).  A line inside a side
-band (c < 0) lowers N through the background; one inside the window (c > 0) raises it.
+band (c < 0) lowers N through the background; one inside the window (c > 0) raises it.  When the
+run's pixel axis is known, c is taken on the pixels the measurement uses (eq. (1′),
+:func:`pixel_response`): c_jk = Σ_p w_p v_p with the pipeline's window weights w_p and v_p the
+pixel mean of line k's profile — the side bands hold whole pixels, which matters for a line near
+a band edge.
 
 After a first plasma solution (T, nₑ and one intercept per element of the Saha–Boltzmann fit) the
 area of every line of the solution's elements (stages I and II of the shipped line list,
