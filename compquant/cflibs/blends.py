@@ -370,6 +370,10 @@ class BlendCorrection:
             prev = new
         info["lines"] = len(ids0)
         self.blend_info = info
+        if info["dropped"]:
+            self._warn("blend correction: dropped " + ", ".join(
+                f"{d['line_id']} (self share {d['self_share']:.2f})" for d in info["dropped"])
+                + f" — below blend_min_self_share = {s.blend_min_self_share:g}")
         if not info["converged"]:
             self._warn(f"blend correction did not settle within {info['passes']} passes "
                        f"(tolerance {s.blend_tolerance:g})")
