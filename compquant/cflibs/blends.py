@@ -75,6 +75,10 @@ from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR
 #: lines farther than this beyond a window's outer side-band edge are not counted (nm): at
 #: 0.5 nm a Lorentzian of FWHM 0.02 nm puts 0.6 % of its area beyond the offset, spread thinly
 SEARCH_MARGIN_NM = 0.5
+#: lines predicted weaker than this fraction of the measured line's own window signal are not
+#: counted (a thousand of them in one window could move it by 1 %; the iron-group spectra hold
+#: thousands of such lines near every window)
+NEGLIGIBLE_AREA = 1e-5
 
 
 def voigt_cdf(x, w_gauss, w_lorentz) -> np.ndarray:
@@ -138,12 +142,14 @@ def pixel_response(axis, pixels, weights, line_nm, w_gauss, w_lorentz) -> np.nda
     lam = np.asarray(line_nm, float)[:, None]
     wg = np.asarray(w_gauss, float)[:, None]
     wl = np.asarray(w_lorentz, float)[:, None]
-    v = (voigt_cdf(hi[None, :] - lam, wg, wl) - voigt_cdf(lo[None, :] - lam, wg, wl)) / (hi - lo)[None, :]
+    edges, inv = np.unique(np.concatenate([lo, hi]), return_inverse=True)  # neighbours share an edge
+    F = voigt_cdf(edges[None, :] - lam, wg, wl)
+    v = (F[:, inv[p.size:]] - F[:, inv[:p.size]]) / (hi - lo)[None, :]
     return v @ np.asarray(weights, float)
 
 
 def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorentz, cand_u_rel, exclude=None,
-                axis=None, pixel_weights=None):
+                axis=None, pixel_weights=None, min_area=None):
     """Δ, u(Δ) and Σ|Â c| of eq. (2) for each window from its candidate interfering lines.
 
     Parameters
@@ -161,6 +167,9 @@ def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorent
         The run's pixel axis (nm) and, per window, its ``(pixels, weights)``
         (:func:`pixel_window_weights`): c is then :func:`pixel_response`, else the continuous
         eq. (1) (:func:`window_response`).
+
+    min_area : (n,) array, optional
+        Candidates with a smaller predicted area are left out of window j (negligible lines).
 
     Returns ``(delta, u_delta, abs_sum)``, each (n,).  All (window, candidate) pairs within
     reach are evaluated in one vectorised call.
@@ -180,13 +189,25 @@ def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorent
     if exclude is not None:
         keep = kk != np.asarray(exclude)[jj]
         jj, kk = jj[keep], kk[keep]
+    if min_area is not None:
+        keep = np.asarray(cand_area, float)[kk] >= np.asarray(min_area, float)[jj]
+        jj, kk = jj[keep], kk[keep]
     wg_all, wl_all = np.asarray(cand_wg, float), np.asarray(cand_wl_lorentz, float)
     if axis is None:
         c = window_response(cand_wl[kk] - centre[jj], geo[jj, 0], geo[jj, 1], geo[jj, 2], wg_all[kk], wl_all[kk])
     else:
+        # on the pixels for lines whose core reaches the window or a band (centre within 5 FWHM of
+        # the outer band edge); the far wings of the others are smooth on the pixel scale
+        off = cand_wl[kk] - centre[jj]
+        outer = 0.5 * geo[jj, 0] + geo[jj, 1] + geo[jj, 2]
+        near = np.abs(off) <= outer + 5.0 * (wg_all[kk] + wl_all[kk])
         c = np.zeros(kk.size)
-        for j in np.unique(jj):
-            sel = jj == j
+        far = ~near
+        if np.any(far):
+            c[far] = window_response(off[far], geo[jj[far], 0], geo[jj[far], 1], geo[jj[far], 2], wg_all[kk[far]],
+                                     wl_all[kk[far]])
+        for j in np.unique(jj[near]):
+            sel = near & (jj == j)
             px, wt = pixel_weights[j]
             c[sel] = pixel_response(axis, px, wt, cand_wl[kk[sel]], wg_all[kk[sel]], wl_all[kk[sel]])
     contrib = np.asarray(cand_area, float)[kk] * c
@@ -296,9 +317,9 @@ class BlendCorrection:
                 if key not in memo:
                     memo[key] = pixel_window_weights(axis, L.wl[j], *geo[j])
                 pw.append(memo[key])
-        delta, u_delta, absum = blend_terms(L.wl[idx], geo[idx], C.wl, area_c, wg_c, wl_c, u_c, exclude=own_k,
-                                            axis=axis, pixel_weights=pw)
         own = area_self[idx] * f[idx]
+        delta, u_delta, absum = blend_terms(L.wl[idx], geo[idx], C.wl, area_c, wg_c, wl_c, u_c, exclude=own_k,
+                                            axis=axis, pixel_weights=pw, min_area=NEGLIGIBLE_AREA * own)
         corr[idx] = delta / f[idx]
         u_corr[idx] = u_delta / f[idx]
         tot = own + absum
