@@ -26,3 +26,56 @@ def test_partition_function_evaluator_keeps_errors():
         data.partition_function("Cu I", np.array([-5.0]))
     with pytest.raises(AtomicDataError):
         data.partition_function("Cu I", np.array([np.nan]))
+
+
+def test_partition_functions_of_a_group_are_bit_identical():
+    """Every shipped species (level sums, Barklem & Collet 2016 tables, bare nuclei), evaluated
+    together at a new temperature, gives the reference numbers of
+    compquant.atomic.partition_function bit for bit, whichever species is asked first."""
+    species = atomic.species_with_partition_function() + ["H II", "He III"]
+    rng = np.random.default_rng(22)
+    temps = [np.array([t]) for t in rng.uniform(1500.0, 24000.0, 12)] + [np.array([7000.0, 11234.5678]),
+                                                                          np.array(8765.4321)]
+    data = PackageAtomicData()
+    for sp in species:  # asked for at one temperature: the group of the next miss
+        data.partition_function(sp, np.array([5000.0]))
+    for i, T in enumerate(temps):
+        first = species[(7 * i) % len(species)]
+        order = [first] + [s for s in species if s != first]
+        for n, sp in enumerate(order):
+            assert n == 0 or (sp, T.shape, T.tobytes()) in data._u_memo  # filled by the first miss
+            got = data.partition_function(sp, T)
+            ref = np.asarray(atomic.partition_function(sp, T), dtype=float)
+            assert got.shape == ref.shape, sp
+            assert got.tobytes() == ref.tobytes(), (sp, T)
+    # a miss fills the memo for the whole group: one new temperature, then only hits
+    T = np.array([9876.54321])
+    data.partition_function(species[0], T)
+    assert all((sp, T.shape, T.tobytes()) in data._u_memo for sp in species)
+
+
+def test_partition_function_group_keeps_errors_and_copies():
+    data = PackageAtomicData()
+    data.partition_function("Cu I", np.array([6000.0]))
+    data.partition_function("Zn II", np.array([6000.0]))
+    with pytest.raises(AtomicDataError):
+        data.partition_function("Zn II", np.array([0.0]))
+    got = data.partition_function("Cu I", np.array([6000.0]))
+    got[:] = -1.0  # the caller's copy, not the memo
+    again = data.partition_function("Cu I", np.array([6000.0]))
+    assert again.tobytes() == np.asarray(atomic.partition_function("Cu I", np.array([6000.0]))).tobytes()
+
+
+def test_partition_function_group_is_the_species_asked_since_the_last_new_temperature():
+    data = PackageAtomicData()
+    for sp in ("Cu I", "Cu II", "Zn I"):  # 6000 K: one new temperature, each species a miss
+        data.partition_function(sp, np.array([6000.0]))
+    data.partition_function("Cu I", np.array([7000.0]))  # new T: Cu I, Cu II, Zn I at 7000 K
+    assert {k[0] for k in data._u_memo if k[2] == np.array([7000.0]).tobytes()} == {"Cu I", "Cu II", "Zn I"}
+    data.partition_function("Sn I", np.array([7000.0]))  # not in that group: evaluated alone
+    data.partition_function("Zn I", np.array([7000.0]))
+    data.partition_function("Sn I", np.array([8000.0]))  # new T: the species asked since 7000 K
+    assert {k[0] for k in data._u_memo if k[2] == np.array([8000.0]).tobytes()} == {"Cu I", "Sn I", "Zn I"}
+    T = np.array([8000.0])
+    for sp in ("Cu I", "Sn I", "Zn I"):
+        assert data.partition_function(sp, T).tobytes() == np.asarray(atomic.partition_function(sp, T)).tobytes()
