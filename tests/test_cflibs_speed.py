@@ -79,3 +79,51 @@ def test_partition_function_group_is_the_species_asked_since_the_last_new_temper
     T = np.array([8000.0])
     for sp in ("Cu I", "Sn I", "Zn I"):
         assert data.partition_function(sp, T).tobytes() == np.asarray(atomic.partition_function(sp, T)).tobytes()
+
+
+def test_partition_functions_columns_are_partition_function():
+    data = PackageAtomicData()
+    names = ("Cu I", "Fe II", "Sn I", "H II", "Zn III")
+    for T in (np.array([6543.21]), np.array([5000.0, 12000.0]), np.linspace(3000, 20000, 11)):
+        got = data.partition_functions(names, T)
+        assert got.shape == T.shape + (len(names),)
+        for k, sp in enumerate(names):
+            ref = np.asarray(atomic.partition_function(sp, T), dtype=float)  # the reference
+            assert got[..., k].tobytes() == ref.tobytes()
+
+
+def _model_like(atomic_data):
+    from types import SimpleNamespace
+
+    from compquant.cflibs.solver import Model
+
+    m = SimpleNamespace(atomic=atomic_data, ln_u_shift=None, LN_U_MEMO=0, _lu_memo={})
+    m.ln_u = lambda sp, T: Model.ln_u(m, sp, T)
+    return m
+
+
+class _OneAtATime:
+    """Atomic data offering only the per-species call (the path before the batched one)."""
+
+    def __init__(self):
+        self._d = PackageAtomicData()
+
+    def partition_function(self, species, T):
+        return self._d.partition_function(species, T)
+
+
+def test_solver_ln_u_stages_batched_equals_per_species():
+    from compquant.cflibs.solver import Model
+
+    stages = [("Cu I", "Cu II", "Cu III", True), ("Zn I", "Zn II", "Zn III", False), ("Sn I", "Sn II", "Sn III", True)]
+    for T in (np.array([7321.5]), np.array([6000.0, 9000.0, 15000.0])):
+        batched = Model._ln_u_stages(_model_like(PackageAtomicData()), stages, T)
+        loop = Model._ln_u_stages(_model_like(_OneAtATime()), stages, T)
+        for a, b in zip(batched, loop):
+            assert a.tobytes() == b.tobytes()
+        ref = np.log(np.asarray(atomic.partition_function("Cu III", T), dtype=float))  # the reference
+        assert batched[2][:, 0].tobytes() == ref.tobytes()
+        assert not batched[2][:, 1].any()  # Zn III does not enter
+    for data in (PackageAtomicData(), _OneAtATime()):  # the same error either way
+        with pytest.raises(AtomicDataError):
+            Model._ln_u_stages(_model_like(data), stages, np.array([-5.0]))

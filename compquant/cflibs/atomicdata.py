@@ -65,6 +65,26 @@ class PackageAtomicData:
             u = self._u_fill(species, T, key)
         return u.copy()
 
+    def partition_functions(self, names, T) -> np.ndarray:
+        """U(T) of each species of ``names``: shape ``T.shape + (len(names),)``, column k the
+        same numbers as ``partition_function(names[k], T)`` (one call for all the species of an
+        analysis; same memo)."""
+        T = np.asarray(T, dtype=float)
+        if T.size > self.MEMO_MAX_T or not names:
+            return np.stack([self.partition_function(sp, T) for sp in names], axis=-1) if names else (
+                np.empty(T.shape + (0,)))
+        tail = (T.shape, T.tobytes())
+        memo = self._u_memo
+        cols = []
+        for sp in names:
+            self._asked[sp] = None
+            key = (sp,) + tail
+            u = memo.get(key)
+            if u is None:
+                u = self._u_fill(sp, T, key)
+            cols.append(u)
+        return np.stack(cols, axis=-1)
+
     def _u_fill(self, species: str, T: np.ndarray, key) -> np.ndarray:
         """Compute U(T) of ``species`` — at a new temperature together with the species asked
         for since the previous new temperature — keep the values in the memo and return the
@@ -215,8 +235,8 @@ def _group_evaluator(species, evaluator: Callable):
     The level sums of all the species are one array operation: ``β = 1/(k_B T)``, the Boltzmann
     factors ``exp(-outer(β, E))`` of every species' levels concatenated (elementwise, so each
     factor is the same number as in the species' own call), then per species the same matrix
-    product with its g (on a contiguous copy of its columns, as in
-    :func:`compquant.atomic.partition_function`).  Tabulated species and bare nuclei use their
+    product with its g (on its columns, contiguous as in :func:`compquant.atomic.partition_function`).
+    The arrays returned are the memo's: callers hand out copies.  Tabulated species and bare nuclei use their
     own evaluators.  Same numbers as the per-species evaluators, bit for bit (the level sum of
     Irwin 1981, ApJS 45, 621; see :mod:`compquant.atomic.partition`).
     """
@@ -236,14 +256,14 @@ def _group_evaluator(species, evaluator: Callable):
         if sums:
             beta = 1.0 / (k_b * T.reshape(-1))
             w = np.exp(-np.outer(beta, e_all))
-            for sp, a, b, g in cols:
-                u = (np.ascontiguousarray(w[:, a:b]) @ g).reshape(T.shape)
-                u.flags.writeable = False
-                out[sp] = u
+            if T.ndim == 1 and T.size == 1:  # the usual case: w is one row, its slices contiguous
+                for sp, a, b, g in cols:
+                    out[sp] = w[:, a:b] @ g
+            else:
+                for sp, a, b, g in cols:
+                    out[sp] = (np.ascontiguousarray(w[:, a:b]) @ g).reshape(T.shape)
         for sp, ev in others:
-            u = np.asarray(ev(T), dtype=float)
-            u.flags.writeable = False
-            out[sp] = u
+            out[sp] = np.asarray(ev(T), dtype=float)
         return out
     return group
 

@@ -33,6 +33,16 @@ def _charges(names: tuple[str, ...]):
     return charged, ln_z
 
 
+@functools.lru_cache(maxsize=64)
+def _species_columns(species: tuple[str, ...]):
+    """The distinct species of ``species`` (first-seen order) and each entry's column among them."""
+    names = tuple(dict.fromkeys(species))
+    pos = {sp: k for k, sp in enumerate(names)}
+    col = np.array([pos[sp] for sp in species], dtype=np.intp)
+    col.flags.writeable = False
+    return names, col
+
+
 class CurveOfGrowth:
     """Mixin of :class:`compquant.cflibs.analysis._Analysis`: curve-of-growth self-absorption."""
 
@@ -75,9 +85,14 @@ class CurveOfGrowth:
         return wl
 
     def _u_per_line(self, atomic, T: float) -> np.ndarray:
-        """U(T) of each line's species (one partition-function call per species)."""
+        """U(T) of each line's species (one partition-function call for all the species where the
+        atomic data offers it, else one per species; the same numbers)."""
         species = self.L.species
-        u = {sp: float(atomic.partition_function(sp, np.array([T]))[0]) for sp in dict.fromkeys(species)}
+        names, col = _species_columns(tuple(species))
+        many = getattr(atomic, "partition_functions", None)
+        if many is not None:
+            return many(names, np.array([T]))[0][col]
+        u = {sp: float(atomic.partition_function(sp, np.array([T]))[0]) for sp in names}
         return np.array([u[sp] for sp in species])
 
     def _cog_widths(self, T: float, ne: float, sa_prev):
