@@ -127,3 +127,28 @@ def test_solver_ln_u_stages_batched_equals_per_species():
     for data in (PackageAtomicData(), _OneAtATime()):  # the same error either way
         with pytest.raises(AtomicDataError):
             Model._ln_u_stages(_model_like(data), stages, np.array([-5.0]))
+
+
+def test_sa_factor_on_the_half_grid_is_the_whole_grid_sum():
+    """sa_factor and dln_sa_dln_tau0 evaluate τ on x ≥ 0 and mirror it: the same numbers, bit for
+    bit, as the whole-grid formula SA = 1 − φ₀ Σ g(τ_k) Δx_k / τ₀ (docs/calibration-free.md §4),
+    which is checked against Ladenburg & Reiche 1913 in tests/test_cflibs.py."""
+    from compquant.cflibs import selfabs
+
+    rng = np.random.default_rng(6)
+    t0 = 10.0 ** rng.uniform(-6, 2, 40)
+    wg = rng.uniform(1e-3, 2e-2, 40)
+    wl = np.where(rng.random(40) < 0.2, 0.0, rng.uniform(1e-4, 2e-2, 40))
+    phi, dx, phi0 = selfabs._profile_on_grid(np.maximum(wg, 1e-12), wl)
+    tau = t0[:, None] * phi / phi0[:, None]
+    num = np.sum((tau + np.expm1(-tau)) * dx, axis=1)
+    ref = np.clip(1.0 - num / (t0 / phi0), 0.0, 1.0)
+    assert selfabs.sa_factor(t0, wg, wl).tobytes() == ref.tobytes()
+    ratio = phi / phi0[:, None]
+    tau = t0[:, None] * ratio  # the derivative's association, as before the half grid
+    num = np.sum((tau + np.expm1(-tau)) * dx, axis=1)
+    dnum = np.sum(-np.expm1(-tau) * ratio * dx, axis=1)
+    sa = 1.0 - num / (t0 / phi0)
+    inside = (sa > 0) & (sa < 1)
+    d_ref = np.where(inside, -phi0 * (dnum - num / t0) / np.where(inside, sa, 1.0), 0.0)
+    assert selfabs.dln_sa_dln_tau0(t0, wg, wl).tobytes() == d_ref.tobytes()

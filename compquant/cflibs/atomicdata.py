@@ -97,7 +97,7 @@ class PackageAtomicData:
             values = {species: u}
         else:
             asked, self._asked, self._epoch = self._asked, {species: None}, epoch
-            names = tuple(sp for sp in asked if self._evaluator(sp))
+            names = tuple(sorted(sp for sp in asked if self._evaluator(sp)))  # one group per set
             group = self._groups.get(names)
             if group is None:
                 if len(self._groups) >= self.GROUPS_KEPT:
