@@ -43,6 +43,7 @@ class PackageAtomicData:
         self._asked: dict[str, None] = {}
         self._epoch = None
         self._groups: dict[tuple, Callable] = {}
+        self._uu_memo: dict = {}
 
     def partition_function(self, species: str, T) -> np.ndarray:
         """U(T) by the level sum of :func:`compquant.atomic.partition_function` (vectorised over T),
@@ -66,14 +67,20 @@ class PackageAtomicData:
         return u.copy()
 
     def partition_functions(self, names, T) -> np.ndarray:
-        """U(T) of each species of ``names``: shape ``T.shape + (len(names),)``, column k the
-        same numbers as ``partition_function(names[k], T)`` (one call for all the species of an
-        analysis; same memo)."""
+        """U(T) of each species of ``names`` (a tuple): shape ``T.shape + (len(names),)``, column k
+        the same numbers as ``partition_function(names[k], T)`` (one call for all the species of
+        an analysis; same memo).  For small T the array is kept and returned read-only (the
+        solver and the curve of growth ask again at the same T)."""
         T = np.asarray(T, dtype=float)
         if T.size > self.MEMO_MAX_T or not names:
             return np.stack([self.partition_function(sp, T) for sp in names], axis=-1) if names else (
                 np.empty(T.shape + (0,)))
         tail = (T.shape, T.tobytes())
+        whole = self._uu_memo.get((names,) + tail)
+        if whole is not None:
+            for sp in names:
+                self._asked[sp] = None
+            return whole
         memo = self._u_memo
         cols = []
         for sp in names:
@@ -83,7 +90,12 @@ class PackageAtomicData:
             if u is None:
                 u = self._u_fill(sp, T, key)
             cols.append(u)
-        return np.stack(cols, axis=-1)
+        whole = np.concatenate(cols)[None, :] if T.shape == (1,) else np.stack(cols, axis=-1)
+        whole.flags.writeable = False
+        if len(self._uu_memo) >= 64:
+            self._uu_memo.clear()
+        self._uu_memo[(names,) + tail] = whole
+        return whole
 
     def _u_fill(self, species: str, T: np.ndarray, key) -> np.ndarray:
         """Compute U(T) of ``species`` — at a new temperature together with the species asked
