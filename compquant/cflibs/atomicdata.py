@@ -5,7 +5,9 @@ per element the atomic mass, and per line g_k, A_ki (with its accuracy grade), E
 and Stark parameters.  :class:`PackageAtomicData` reads them from :mod:`compquant.atomic`
 (the shipped tables); :class:`TableAtomicData` takes them from plain Python values (for
 users' own data and for the tests' hand calculations).  Both implement the same four
-methods, which is all the analysis uses.
+methods, which is all the analysis needs; :class:`PackageAtomicData` also offers
+``partition_functions(names, T)`` (all species in one call), which the analysis uses where
+present.
 """
 
 from __future__ import annotations
