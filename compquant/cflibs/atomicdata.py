@@ -111,6 +111,7 @@ class PackageAtomicData:
             values = {species: u}
         else:
             asked, self._asked, self._epoch = self._asked, {species: None}, epoch
+            asked[species] = None  # (also if another thread swapped the set in between)
             names = tuple(sorted(sp for sp in asked if self._evaluator(sp)))  # one group per set
             group = self._groups.get(names)
             if group is None:
