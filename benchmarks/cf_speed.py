@@ -54,6 +54,7 @@ def _memos(on: bool, analytic: bool = True) -> None:
     SelfAbsFit.ANALYTIC_JACOBIAN = analytic
     atomic = default_atomic_data()
     atomic._u_memo.clear()
+    atomic._uu_memo.clear()
     atomic.MEMO_MAX_T = PackageAtomicData.MEMO_MAX_T if on else -1
     selfabs._PROFILE_MEMO.clear()
     selfabs._PROFILE_MEMO_SIZE = 16 if on else 0

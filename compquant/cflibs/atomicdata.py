@@ -5,7 +5,9 @@ per element the atomic mass, and per line g_k, A_ki (with its accuracy grade), E
 and Stark parameters.  :class:`PackageAtomicData` reads them from :mod:`compquant.atomic`
 (the shipped tables); :class:`TableAtomicData` takes them from plain Python values (for
 users' own data and for the tests' hand calculations).  Both implement the same four
-methods, which is all the analysis uses.
+methods, which is all the analysis needs; :class:`PackageAtomicData` also offers
+``partition_functions(names, T)`` (all species in one call), which the analysis uses where
+present.
 """
 
 from __future__ import annotations
@@ -32,27 +34,105 @@ class PackageAtomicData:
 
     MEMO_SIZE = 4096
     MEMO_MAX_T = 8
+    #: group evaluators kept (one per set of species evaluated together)
+    GROUPS_KEPT = 16
 
     def __init__(self):
         self._atomic = atomic
         self._u_memo: dict = {}
         self._has_u: dict[str, bool] = {}
         self._u_eval: dict[str, Callable | None] = {}
+        self._asked: dict[str, None] = {}
+        self._epoch = None
+        self._groups: dict[tuple, Callable] = {}
+        self._uu_memo: dict = {}
 
     def partition_function(self, species: str, T) -> np.ndarray:
         """U(T) by the level sum of :func:`compquant.atomic.partition_function` (vectorised over T),
-        memoised for small T arrays."""
+        memoised for small T arrays.
+
+        On a miss at a new temperature, the species asked for since the previous new temperature
+        are evaluated at it together, in one vectorised pass (:func:`_group_evaluator`), and
+        kept: the analysis asks for all its species at each trial temperature, so the others
+        then hit.  Exact cache keyed on the temperatures'
+        bytes; the values are bit-identical to :func:`compquant.atomic.partition_function`
+        (tests/test_cflibs_speed.py).
+        """
         T = np.asarray(T, dtype=float)
         if T.size > self.MEMO_MAX_T:
             return self._u_uncached(species, T)
+        self._asked[species] = None
         key = (species, T.shape, T.tobytes())
         u = self._u_memo.get(key)
         if u is None:
-            u = self._u_uncached(species, T)
-            if len(self._u_memo) >= self.MEMO_SIZE:
-                self._u_memo.clear()
-            self._u_memo[key] = u
+            u = self._u_fill(species, T, key)
         return u.copy()
+
+    def partition_functions(self, names, T) -> np.ndarray:
+        """U(T) of each species of ``names`` (a tuple): shape ``T.shape + (len(names),)``, column k
+        the same numbers as ``partition_function(names[k], T)`` (one call for all the species of
+        an analysis; same memo).  For small T the array is kept and returned read-only (the
+        solver and the curve of growth ask again at the same T)."""
+        T = np.asarray(T, dtype=float)
+        if T.size > self.MEMO_MAX_T or not names:
+            return np.stack([self.partition_function(sp, T) for sp in names], axis=-1) if names else (
+                np.empty(T.shape + (0,)))
+        tail = (T.shape, T.tobytes())
+        whole = self._uu_memo.get((names,) + tail)
+        if whole is not None:
+            for sp in names:
+                self._asked[sp] = None
+            return whole
+        memo = self._u_memo
+        cols = []
+        for sp in names:
+            self._asked[sp] = None
+            key = (sp,) + tail
+            u = memo.get(key)
+            if u is None:
+                u = self._u_fill(sp, T, key)
+            cols.append(u)
+        whole = np.concatenate(cols)[None, :] if T.shape == (1,) else np.stack(cols, axis=-1)
+        whole.flags.writeable = False
+        if len(self._uu_memo) >= 64:
+            self._uu_memo.clear()
+        self._uu_memo[(names,) + tail] = whole
+        return whole
+
+    def _u_fill(self, species: str, T: np.ndarray, key) -> np.ndarray:
+        """Compute U(T) of ``species`` — at a new temperature together with the species asked
+        for since the previous new temperature — keep the values in the memo and return the
+        one asked for."""
+        memo = self._u_memo
+        epoch = key[1:]
+        ok = bool(self._evaluator(species)) and bool(np.isfinite(T).all() and (T > 0).all())
+        if not ok or epoch == self._epoch:
+            u = self._u_uncached(species, T)  # alone: the usual path and its usual errors
+            values = {species: u}
+        else:
+            asked, self._asked, self._epoch = self._asked, {species: None}, epoch
+            asked[species] = None  # (also if another thread swapped the set in between)
+            names = tuple(sorted(sp for sp in asked if self._evaluator(sp)))  # one group per set
+            group = self._groups.get(names)
+            if group is None:
+                if len(self._groups) >= self.GROUPS_KEPT:
+                    self._groups.clear()
+                group = self._groups[names] = _group_evaluator(names, self._evaluator)
+            values = group(T)
+        if len(memo) + len(values) > self.MEMO_SIZE:
+            memo.clear()
+        for sp, v in values.items():
+            memo[(sp,) + epoch] = v
+        return values[species]
+
+    def _evaluator(self, species: str):
+        """The per-species evaluator of :func:`_u_evaluator` (``None``: use
+        :func:`compquant.atomic.partition_function` itself), looked up once per species."""
+        ev = self._u_eval.get(species, False)
+        if ev is False:
+            ev = _u_evaluator(species) if self._atomic is atomic else None
+            self._u_eval[species] = ev
+        return ev
 
     def _u_uncached(self, species: str, T: np.ndarray) -> np.ndarray:
         """:func:`compquant.atomic.partition_function` of ``species`` at ``T`` (no lowering).
@@ -64,10 +144,7 @@ class PackageAtomicData:
         evaluator does not know go through :func:`compquant.atomic.partition_function` itself,
         which raises its usual error.
         """
-        ev = self._u_eval.get(species, False)
-        if ev is False:
-            ev = _u_evaluator(species) if self._atomic is atomic else None
-            self._u_eval[species] = ev
+        ev = self._evaluator(species)
         if ev is None:
             return np.asarray(self._atomic.partition_function(species, T), dtype=float)
         return np.asarray(ev(T), dtype=float)
@@ -163,7 +240,47 @@ def _u_evaluator(species: str):
         u = np.exp(-np.outer(beta, e)) @ g
         u = u.reshape(T_arr.shape)
         return u if u.ndim else float(u)
+    level_sum.levels = (e, g)  # for _group_evaluator
     return level_sum
+
+
+def _group_evaluator(species, evaluator: Callable):
+    """U(T) of several species at once: ``T -> {species: U(T)}`` for finite T > 0.
+
+    The level sums of all the species are one array operation: ``β = 1/(k_B T)``, the Boltzmann
+    factors ``exp(-outer(β, E))`` of every species' levels concatenated (elementwise, so each
+    factor is the same number as in the species' own call), then per species the same matrix
+    product with its g (on its columns, contiguous as in :func:`compquant.atomic.partition_function`).
+    The arrays returned are the memo's: callers hand out copies.  Tabulated species and bare nuclei use their
+    own evaluators.  Same numbers as the per-species evaluators, bit for bit (the level sum of
+    Irwin 1981, ApJS 45, 621; see :mod:`compquant.atomic.partition`).
+    """
+    from compquant.atomic import partition as part
+
+    evs = {sp: evaluator(sp) for sp in species}
+    sums = [sp for sp in species if getattr(evs[sp], "levels", None) is not None]
+    others = [(sp, evs[sp]) for sp in species if sp not in sums]
+    if sums:
+        e_all = np.concatenate([evs[sp].levels[0] for sp in sums])
+        bounds = np.cumsum([0] + [evs[sp].levels[0].size for sp in sums])
+        cols = [(sp, int(a), int(b), evs[sp].levels[1]) for sp, a, b in zip(sums, bounds[:-1], bounds[1:])]
+    k_b = part.K_B_EV
+
+    def group(T: np.ndarray) -> dict[str, np.ndarray]:
+        out = {}
+        if sums:
+            beta = 1.0 / (k_b * T.reshape(-1))
+            w = np.exp(-np.outer(beta, e_all))
+            if T.ndim == 1 and T.size == 1:  # the usual case: w is one row, its slices contiguous
+                for sp, a, b, g in cols:
+                    out[sp] = w[:, a:b] @ g
+            else:
+                for sp, a, b, g in cols:
+                    out[sp] = (np.ascontiguousarray(w[:, a:b]) @ g).reshape(T.shape)
+        for sp, ev in others:
+            out[sp] = np.asarray(ev(T), dtype=float)
+        return out
+    return group
 
 
 class TableAtomicData:

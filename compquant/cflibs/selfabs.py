@@ -48,6 +48,12 @@ _U = np.concatenate([-_U_HALF[:0:-1], _U_HALF])
 _XS_HALF = np.sinh(_U_HALF)
 _XS = np.sinh(_U)
 _DX = np.cosh(_U) * (_U_HALF[1] - _U_HALF[0])
+_MID = _U_HALF.size - 1  # column of x = 0 on the whole grid
+
+
+def _mirror(half: np.ndarray) -> np.ndarray:
+    """Rows given on x ≥ 0 of the grid, extended to the whole (symmetric) grid."""
+    return np.concatenate([half[:, :0:-1], half], axis=1)
 
 
 def sa_lorentz(tau0) -> np.ndarray:
@@ -74,8 +80,10 @@ def sa_factor(tau0, w_gauss_nm, w_lorentz_nm) -> np.ndarray:
     todo = t0 > 1e-9
     if np.any(todo):
         phi, dx, phi0 = _profile_on_grid(wg[todo], wl[todo])
-        tau = t0[todo][:, None] * phi / phi0[:, None]
-        g = tau + np.expm1(-tau)  # τ − 1 + e^{−τ} ≥ 0
+        # φ is mirrored about x = 0, so τ and g are too: evaluate them on x ≥ 0 and mirror
+        # (elementwise, so the same numbers as on the whole grid, summed in the same order)
+        tau = t0[todo][:, None] * phi[:, _MID:] / phi0[:, None]
+        g = _mirror(tau + np.expm1(-tau))  # τ − 1 + e^{−τ} ≥ 0
         num = np.sum(g * dx, axis=1)
         den = t0[todo] / phi0  # ∫τ dλ exactly, φ normalised
         out[todo] = 1.0 - num / den
@@ -104,10 +112,11 @@ def dln_sa_dln_tau0(tau0, w_gauss_nm, w_lorentz_nm) -> np.ndarray:
     if np.any(todo):
         phi, dx, phi0 = _profile_on_grid(wg[todo], wl[todo])
         t = t0[todo]
-        ratio = phi / phi0[:, None]
+        ratio = phi[:, _MID:] / phi0[:, None]  # on x ≥ 0, mirrored as in sa_factor
         tau = t[:, None] * ratio
-        num = np.sum((tau + np.expm1(-tau)) * dx, axis=1)
-        dnum = np.sum(-np.expm1(-tau) * ratio * dx, axis=1)
+        em1 = np.expm1(-tau)
+        num = np.sum(_mirror(tau + em1) * dx, axis=1)
+        dnum = np.sum(_mirror(-em1 * ratio) * dx, axis=1)
         sa = 1.0 - num / (t / phi0)
         inside = (sa > 0.0) & (sa < 1.0)
         out[todo] = np.where(inside, -phi0 * (dnum - num / t) / np.where(inside, sa, 1.0), 0.0)

@@ -33,6 +33,38 @@ def _charges(names: tuple[str, ...]):
     return charged, ln_z
 
 
+@functools.lru_cache(maxsize=64)
+def _species_columns(species: tuple[str, ...]):
+    """The distinct species of ``species`` (first-seen order) and each entry's column among them."""
+    names = tuple(dict.fromkeys(species))
+    pos = {sp: k for k, sp in enumerate(names)}
+    col = np.array([pos[sp] for sp in species], dtype=np.intp)
+    col.flags.writeable = False
+    return names, col
+
+
+_STARK_MEMO: dict = {}
+
+
+def _stark_columns(L):
+    """The lines of ``L`` with Stark parameters and their columns (``have``, w_ref, nₑ,ref,
+    finite-T_ref flags, T_ref, exponent), kept for the last few line sets while ``L`` holds the
+    same arrays (read-only, exactly the values indexed each time before)."""
+    src = (L, L.stark_w, L.stark_ne, L.stark_t, L.stark_p)
+    hit = _STARK_MEMO.get(id(L))
+    if hit is not None and all(a is b for a, b in zip(hit[0], src)):
+        return hit[1]
+    have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
+    t = L.stark_t[have]
+    out = (have, L.stark_w[have], L.stark_ne[have], np.isfinite(t), t, L.stark_p[have])
+    for a in out:
+        a.flags.writeable = False
+    if len(_STARK_MEMO) >= 8:
+        _STARK_MEMO.clear()
+    _STARK_MEMO[id(L)] = (src, out)
+    return out
+
+
 class CurveOfGrowth:
     """Mixin of :class:`compquant.cflibs.analysis._Analysis`: curve-of-growth self-absorption."""
 
@@ -60,10 +92,9 @@ class CurveOfGrowth:
         mass_line = self.mass_line if mass is None else mass
         w_ins = self.w_instr if w_instr is None else w_instr
         wl = np.zeros(L.n)
-        have = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
-        t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
-        wl[have] = stark_width_linear(ne, L.stark_w[have], L.stark_ne[have], T, t_ref[have],
-                                      self.s.stark_t_exponent, L.stark_p[have])
+        have, w_ref, ne_ref, t_fin, t_have, p_have = _stark_columns(L)
+        t_ref = np.where(t_fin, t_have, T)  # the line's T_ref, else T
+        wl[have] = stark_width_linear(ne, w_ref, ne_ref, T, t_ref, self.s.stark_t_exponent, p_have)
         if self.s.stark_fallback_fwhm_nm:
             # assumed Stark FWHM for lines without data, linear in nₑ ([cf] stark_fallback_*)
             wl[~have] = self.s.stark_fallback_fwhm_nm * ne / self.s.stark_fallback_ne_cm3
@@ -75,9 +106,14 @@ class CurveOfGrowth:
         return wl
 
     def _u_per_line(self, atomic, T: float) -> np.ndarray:
-        """U(T) of each line's species (one partition-function call per species)."""
+        """U(T) of each line's species (one partition-function call for all the species where the
+        atomic data offers it, else one per species; the same numbers)."""
         species = self.L.species
-        u = {sp: float(atomic.partition_function(sp, np.array([T]))[0]) for sp in dict.fromkeys(species)}
+        names, col = _species_columns(tuple(species))
+        many = getattr(atomic, "partition_functions", None)
+        if many is not None:
+            return many(names, np.array([T]))[0][col]
+        u = {sp: float(atomic.partition_function(sp, np.array([T]))[0]) for sp in names}
         return np.array([u[sp] for sp in species])
 
     def _cog_widths(self, T: float, ne: float, sa_prev):

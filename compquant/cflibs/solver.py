@@ -32,6 +32,7 @@ w_el = x_el M_el / Σ x M.  All in log space (log-sum-exp), so no exponential ov
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -75,6 +76,12 @@ class Solution:
     valid: np.ndarray  # (d,) bool
     iterations: int
     ne_from_fit: bool
+
+
+@functools.lru_cache(maxsize=64)
+def _stage_species(stages: tuple) -> tuple[str, ...]:
+    """Stage I species of every element, then stage II, then the stage III ones that enter."""
+    return tuple(r[0] for r in stages) + tuple(r[1] for r in stages) + tuple(r[2] for r in stages if r[3])
 
 
 class Model:
@@ -311,6 +318,15 @@ class Model:
             return hit
         d, n = T.shape[0], len(stages)
         lu1, lu2, lu3 = np.empty((d, n)), np.empty((d, n)), np.zeros((d, n))
+        many = getattr(self.atomic, "partition_functions", None) if self.ln_u_shift is None else None
+        u = many(_stage_species(tuple(stages)), T) if many is not None else None  # (d, 2n + n₃)
+        if u is not None and u.shape == (d, 2 * n + sum(r[3] for r in stages)) and (
+                np.isfinite(u).all() and (u > 0).all()):  # else ln_u below and its error
+            lu = np.log(u)  # the same numbers as ln_u per species (atomicdata.partition_functions)
+            lu1[:] = lu[:, :n]
+            lu2[:] = lu[:, n:2 * n]
+            lu3[:, [j for j, r in enumerate(stages) if r[3]]] = lu[:, 2 * n:]
+            stages = ()
         for j, (s1, s2, s3, use3) in enumerate(stages):  # same order as the per-element loop
             lu1[:, j] = self.ln_u(s1, T)
             lu2[:, j] = self.ln_u(s2, T)
