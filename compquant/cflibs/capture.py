@@ -45,19 +45,22 @@ def abs_cdf(x, w_gauss, w_lorentz) -> np.ndarray:
     from scipy.special import ndtr
 
     x, wg, wl = np.broadcast_arrays(np.asarray(x, float), np.asarray(w_gauss, float), np.asarray(w_lorentz, float))
+    shape = x.shape
+    x, wg, wl = x.ravel(), wg.ravel(), wl.ravel()
     sigma = wg / (2.0 * math.sqrt(2.0 * math.log(2.0)))
     gamma = 0.5 * wl
-    xx = x[..., None]
+    out = np.empty(x.shape)
+    lg = gamma >= sigma  # each element by the quadrature whose integrand is smooth there (only that one)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        g = math.sqrt(2.0) * sigma[..., None] * _GH_X
-        lor = (np.arctan((xx - g) / gamma[..., None]) - np.arctan((-xx - g) / gamma[..., None])) / math.pi
-        by_gauss = np.sum(lor * _GH_W, axis=-1) / math.sqrt(math.pi)
-        shift = gamma[..., None] * np.tan(_THETA)
-        sg = sigma[..., None]
+        xx, sg, gm = x[lg, None], sigma[lg, None], gamma[lg, None]
+        g = math.sqrt(2.0) * sg * _GH_X
+        lor = (np.arctan((xx - g) / gm) - np.arctan((-xx - g) / gm)) / math.pi
+        out[lg] = np.sum(lor * _GH_W, axis=-1) / math.sqrt(math.pi)
+        xx, sg, gm = x[~lg, None], sigma[~lg, None], gamma[~lg, None]
+        shift = gm * np.tan(_THETA)
         gau = ndtr((xx - shift) / sg) - ndtr((-xx - shift) / sg)
-        by_lorentz = np.sum(gau * _THETA_W, axis=-1) / math.pi
-    out = np.where(gamma >= sigma, by_gauss, by_lorentz)
-    return np.clip(np.nan_to_num(out, nan=0.0), 0.0, 1.0)
+        out[~lg] = np.sum(gau * _THETA_W, axis=-1) / math.pi
+    return np.clip(np.nan_to_num(out, nan=0.0), 0.0, 1.0).reshape(shape)
 
 
 def window_capture_fraction(window_nm, side_nm, gap_nm, w_gauss, w_lorentz) -> np.ndarray:
@@ -75,18 +78,28 @@ def window_capture_fraction(window_nm, side_nm, gap_nm, w_gauss, w_lorentz) -> n
     return inside - bg
 
 
-def method_windows(method, wavelength) -> dict[str, tuple[float, float, float]]:
+class WindowSet(dict):
+    """``line_id → (window_nm, side_nm, gap_nm)``, with the run's pixel axis as ``wavelength``
+    (nm; ``None`` when only a pitch was given) so that the blend correction
+    (:mod:`compquant.cflibs.blends`) can place every window's side bands on the pixels the line
+    pipeline uses."""
+
+    wavelength: np.ndarray | None = None
+
+
+def method_windows(method, wavelength) -> WindowSet:
     """``line_id → (window_nm, side_nm, gap_nm)`` of a method's window-integrated lines, as
     the line pipeline builds them (:func:`compquant.method.window_width_nm`, ``side_width_nm``).
 
     ``wavelength``: the run's wavelength axis (nm), or its pixel pitch (nm) — the default
-    window widths are counted in pixels."""
+    window widths are counted in pixels.  A :class:`WindowSet` (a dict) that keeps the axis."""
     from compquant.method import side_width_nm, window_width_nm
 
     w = np.asarray(wavelength, float)
     pitch_nm = float(np.median(np.diff(w))) if w.ndim and w.size > 1 else float(w)
 
-    out = {}
+    out = WindowSet()
+    out.wavelength = w.copy() if w.ndim and w.size > 1 else None
     for ln in method.lines:
         if getattr(ln, "mode", "window") != "window":
             continue
@@ -94,4 +107,4 @@ def method_windows(method, wavelength) -> dict[str, tuple[float, float, float]]:
     return out
 
 
-__all__ = ["abs_cdf", "method_windows", "window_capture_fraction"]
+__all__ = ["WindowSet", "abs_cdf", "method_windows", "window_capture_fraction"]

@@ -12,7 +12,7 @@ import numpy as np
 from scipy.special import chdtrc
 
 from compquant.cflibs.consistency import plasma_checks
-from compquant.cflibs.electron_density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
+from compquant.cflibs.electron_density import gaussian_fwhm_nm, lorentz_from_voigt, stark_width_linear
 from compquant.cflibs.inputs import _gate_delay_s
 from compquant.cflibs.lte import check_lte
 from compquant.cflibs.result import CFResult
@@ -102,7 +102,7 @@ class Certification:
                 "groups": [str(g) for g in sol.groups],
                 "intercepts": [float(x) for x in fit.beta[0, 1:1 + len(sol.groups)]],
                 "iterations": sol.iterations, "closure_sum": float(closure_sum[0]),
-                "model_scatter_ln": float(self.u_model)}
+                "model_scatter_ln": float(self.u_model), "blend_correction": dict(self.blend_info)}
 
     def _certify(self, T, u_T_fit, ne, u_ne, ne_estimates, lte, species_rows, elements, p, fit, dof):
         """Plasma checks (§4a); a failed one un-determines every element. Returns
@@ -176,7 +176,7 @@ class Certification:
             t_ref = np.where(np.isfinite(L.stark_t), L.stark_t, T)
             w_thin_l = stark_width_linear(ne, L.stark_w, L.stark_ne, T, t_ref, self.s.stark_t_exponent,
                                           L.stark_p)
-            wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(L.wl, T, self.mass_line) ** 2)
+            wg = gaussian_fwhm_nm(L.wl, T, self.mass_line, self.w_instr)
             with np.errstate(invalid="ignore", divide="ignore"):
                 w_obs_l = lorentz_from_voigt(L.fwhm, wg)
                 est = sa_from_width(np.maximum(w_obs_l, 1e-12), w_thin_l)
@@ -228,6 +228,7 @@ class Certification:
                 "one_point_factor": float(math.exp(self.ln_zeta[i])),
                 "tau0": None if self.tau is None else float(self.tau[i]),
                 "window_fraction": float(math.exp(self.ln_capture[i])),
+                "blend_share": float(self.blend_share[i]), "blend_self_share": float(self.blend_self_share[i]),
                 "sa_cog": float(det["sa_cog"][i]), "sa_ratio": float(det["sa_ratio"][i]),
                 "u_sa_ratio": float(det["u_sa_ratio"][i]), "sa_width": float(det["sa_width"][i]),
                 "u_sa_width": float(det["u_sa_width"][i]), "reference_line": det["ref_line"][i],

@@ -55,6 +55,25 @@ def doppler_fwhm_nm(wavelength_nm, T, mass_u) -> np.ndarray:
     return np.asarray(doppler_fwhm(wavelength_nm, T, mass_u), dtype=float)
 
 
+def gaussian_fwhm_nm(wavelength_nm, T, mass_u, w_instr_nm) -> np.ndarray:
+    """Gaussian part of a line's Voigt profile, FWHM in nm: instrument function ⊕ Doppler.
+
+    Two Gaussians convolve into a Gaussian whose variances add, so for FWHMs
+
+        w_G = √(w_instr² + w_D²),   w_D = λ·√(8 k T ln 2 / (M c²))
+
+    (λ in nm, T in K, M the emitter's mass in u; e.g. Griem, *Principles of Plasma
+    Spectroscopy*, 1997, §4; Thorne, *Spectrophysics*, 1988).  The one place this sum is
+    written for the calibration-free analysis (window capture, blends, Stark and H-alpha nₑ,
+    width-based self-absorption).  Broadcasts over all arguments.
+
+    References
+    ----------
+    .. [1] H. R. Griem, Principles of Plasma Spectroscopy, Cambridge University Press (1997).
+    """
+    return np.sqrt(w_instr_nm**2 + doppler_fwhm_nm(wavelength_nm, T, mass_u) ** 2)
+
+
 def ne_h_alpha(w_stark_nm) -> np.ndarray:
     """nₑ (cm⁻³) from the H-alpha Stark FWHM (nm), Gigosos, González & Cardeñoso 2003."""
     w = np.asarray(w_stark_nm, dtype=float)
@@ -125,7 +144,7 @@ class HAlphaNe:
         self.lines = [self.line_id]
 
     def w_gauss(self, T):
-        return np.sqrt(self.w_instr**2 + doppler_fwhm_nm(self.wl, T, H_MASS_U) ** 2)
+        return gaussian_fwhm_nm(self.wl, T, H_MASS_U, self.w_instr)
 
     def usable(self, T) -> bool:
         return bool(np.all(lorentz_from_voigt(self.fwhm, self.w_gauss(T)) > 0))
@@ -180,14 +199,14 @@ class StarkLinesNe:
         L = lines
         ok = np.isfinite(L.stark_w) & (L.stark_w > 0) & np.isfinite(L.stark_ne) & (L.stark_ne > 0)
         ok &= np.isfinite(L.fwhm) & (L.fwhm > 0)
-        wg = np.sqrt(w_instr_nm**2 + doppler_fwhm_nm(L.wl, T, mass_u) ** 2)
+        wg = gaussian_fwhm_nm(L.wl, T, mass_u, w_instr_nm)
         with np.errstate(invalid="ignore"):
             ok &= lorentz_from_voigt(np.where(np.isfinite(L.fwhm), L.fwhm, 0.0), wg) > 0
         return ok
 
     def _each(self, T, fwhm, wref):
         T = np.atleast_1d(np.asarray(T, dtype=float))
-        wg = np.sqrt(self.w_instr**2 + doppler_fwhm_nm(self.wl[None, :], T[:, None], self.mass[None, :]) ** 2)
+        wg = gaussian_fwhm_nm(self.wl[None, :], T[:, None], self.mass[None, :], self.w_instr)
         wl = np.maximum(lorentz_from_voigt(fwhm, wg), 1e-9) * self.sa_fac
         t_ref = np.where(np.isfinite(self.t_ref), self.t_ref, T[:, None])
         return ne_stark_linear(wl, wref, self.ne_ref, T[:, None], t_ref, self.alpha, self.p)
@@ -268,6 +287,7 @@ __all__ = [
     "HAlphaNe",
     "StarkLinesNe",
     "doppler_fwhm_nm",
+    "gaussian_fwhm_nm",
     "h_alpha_width",
     "lorentz_from_voigt",
     "ne_h_alpha",

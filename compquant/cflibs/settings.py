@@ -154,6 +154,15 @@ CF_TABLE = Table("cf", (
     _s("mc_partition_u_rel", "float", 0.03, "relative u of partition functions (Monte Carlo)", **_NONNEG),
     _s("mc_sa_u_rel", "float", 0.2, "relative u of self-absorption factors (Monte Carlo)", **_NONNEG),
     _s("response_u_rel", "float", 0.0, "relative u of the response curve (Monte Carlo)", **_NONNEG),
+    _s("blend_correction", "bool", True, "correct window-integrated lines for predicted interference of other lines "
+       "(thin modes, §1b)"),
+    _s("blend_u_rel", "float", 0.15, "relative u of a predicted interfering line's area beyond its A_ki grade (§1b)",
+       **_NONNEG),
+    _s("blend_min_self_share", "float", 0.5, "lines whose window is predicted less than this share their own are "
+       "dropped (§1b)", **_FRAC),
+    _s("blend_max_passes", "int", 6, "passes of the blend correction (§1b)", min=1, max=20, fix="e.g. 6"),
+    _s("blend_tolerance", "float", 0.002, "the blend correction has settled when no line's area moves by more than "
+       "this fraction (§1b)", **_POS),
     _s("response_basis", "str", None, "basis of the run's response when the run does not record it", choices=BASES),
 ), "Calibration-free analysis (docs/calibration-free.md).", "compquant.cflibs",
     notes=("ne_method = \"fixed\" needs ne_fixed_cm3; self_absorption = \"curve_of_growth\" needs "

@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from compquant.cflibs.capture import window_capture_fraction
-from compquant.cflibs.electron_density import doppler_fwhm_nm
+from compquant.cflibs.electron_density import gaussian_fwhm_nm
 from compquant.errors import PhysicsError
 
 #: smallest window capture fraction corrected for (a line that much wider than its window is
@@ -29,7 +29,7 @@ class WindowCapture:
         have = np.all(np.isfinite(geo), axis=1) & (geo[:, 0] > 0)
         if not np.any(have):
             return out
-        wg = np.sqrt(w_instr**2 + doppler_fwhm_nm(L.wl, T, mass) ** 2)
+        wg = gaussian_fwhm_nm(L.wl, T, mass, w_instr)
         wlz = self.lorentz_thin(T, ne, np.ones(L.n), lines=L, mass=mass, w_instr=w_instr) * stark_scale
         ok = have & ((wg > 0) | (wlz > 0))
         f = window_capture_fraction(geo[ok, 0], geo[ok, 1], geo[ok, 2], wg[ok], wlz[ok])
