@@ -112,8 +112,9 @@ def thin_t_check(T, thin, tol):
     Paule–Mandel scatter s of the solution being checked.  The reason: s is measured by the very
     slab fit under test — a false hot solution leaves the lines scattered about its model, which
     raises s, which widens the thin lines' u and so lets that fit pass its own check (circular;
-    the §11 magnesium case 1 was certified at T +14.5 %, nₑ ×3.6 this way, 10 707 ± 294 K from
-    the thin lines with s against 11 244 K, and is refused when judged by the stated u).  The
+    the §11 magnesium case 1 was certified at T +14.5 %, nₑ ×3.6 this way: its thin lines gave
+    10 707 K with s in the weights against 11 244 K, and by the stated u 10 096 ± 350 K, −10 % and
+    3.3 u, refused).  The
     scatter itself is judged separately by ``fit_quality``.  A single-temperature plasma in LTE
     must give one T from any subset of its lines (Cristoforetti et al. 2010, *Spectrochim.
     Acta B* 65, 86, on checking LTE beyond McWhirter's criterion).
