@@ -14,6 +14,7 @@ from scipy.special import chdtrc
 from compquant.cflibs.consistency import plasma_checks
 from compquant.cflibs.electron_density import gaussian_fwhm_nm, lorentz_from_voigt, stark_width_linear
 from compquant.cflibs.inputs import _gate_delay_s
+from compquant.cflibs.linewidths import line_width_check
 from compquant.cflibs.lte import check_lte
 from compquant.cflibs.result import CFResult
 from compquant.cflibs.selfabs import EL_SHERBINI_ALPHA, sa_from_width, sa_reference_line
@@ -115,7 +116,12 @@ class Certification:
                                        species=species_rows, sa_info=self.sa_info, settings=s,
                                        fit={"birge_ratio": float(fit.birge[0]) if dof > 0 else None,
                                             "p_value": p},
-                                       thin=self.thin_subset_temperature())
+                                       # judged by the lines' stated u: s is measured by the fit under test
+                                       thin=self.thin_subset_temperature(weights=1.0 / self.u_y**2),
+                                       widths=line_width_check(T=T, ne=ne, lines=self.L, w_instr_nm=self.w_instr,
+                                                               mass_u=self.mass_line, settings=s))
+        if any(c["check"] == "line_widths" and c["checked"] and not c["passed"] for c in checks):
+            self.flags.append("line_widths_inconsistent")
         if any(c["check"] == "species_temperatures" and c["checked"] and not c["passed"] for c in checks):
             self.flags.append("species_temperatures_disagree")
         if failed:

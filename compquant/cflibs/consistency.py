@@ -28,9 +28,16 @@ refuses makes the sample's
 * ``ne_plausible`` — nₑ inside ``plausible_ne_cm3`` (common practice for laser and spark
   plasmas at the usual delays: 10¹⁴–10¹⁹ cm⁻³);
 * ``thin_lines_temperature`` — for the self-absorption fits, the lines that the fit itself
-  finds nearly thin (SA ≥ ``sa_flag_below``) are fitted alone (same nₑ route): their T must
-  agree with the solution's within ``t_thin_tolerance`` (3 %) or 2 u — evidence that does
+  finds nearly thin (SA ≥ ``sa_flag_below``) are fitted alone (same nₑ route), weighted by
+  their stated u (not by the scatter s the checked fit measured: :func:`thin_t_check`): their T
+  must agree with the solution's within ``t_thin_tolerance`` (3 %) or 2 u — evidence that does
   not rest on the slab model;
+* ``line_widths`` — the measured line widths allow the solution's nₑ: the Stark widths the
+  analysis assumes at (T, nₑ), divided by ``width_stark_factor`` (2.5), convolved with the
+  instrument ⊕ Doppler width, must not make the lines wider than measured (median ratio
+  ≥ ``width_ratio_min`` 0.85 or within 3 u; :mod:`compquant.cflibs.linewidths`); it refuses
+  solutions whose nₑ is fitted (Saha balance, self-absorption fits), elsewhere the flag
+  ``line_widths_inconsistent``;
 * ``fit_quality`` — for the self-absorption fits, which weight each line by u_i² + s² with the
   Paule–Mandel scatter s (Paule & Mandel 1982, *J. Res. NBS* 87, 377; as the thin modes): s at
   most ``SA_SCATTER_MAX`` (0.25 in ln I, about 25 % of a line's intensity) and the χ² p-value
@@ -96,9 +103,39 @@ def species_t_check(T, u_T, species, tol):
                   note=f"joint {T:.0f} K; " + ", ".join(notes))
 
 
+def thin_t_check(T, thin, tol):
+    """``thin_lines_temperature``: the nearly thin lines' own T against the solution's.
+
+    Passes when |T_thin/T − 1| ≤ ``tol`` **or** ≤ 2 u, u = u(T_thin)/T with u(T_thin) from the
+    thin-line fit weighted by the lines' **stated** u alone (``u_temperature_k``; Birge-ratio
+    widened by the thin lines' own scatter when ``scale_by_chi2``), not by u_i² + s² with the
+    Paule–Mandel scatter s of the solution being checked.  The reason: s is measured by the very
+    slab fit under test — a false hot solution leaves the lines scattered about its model, which
+    raises s, which widens the thin lines' u and so lets that fit pass its own check (circular;
+    the §11 magnesium case 1 was certified at T +14.5 %, nₑ ×3.6 this way: its thin lines gave
+    10 707 K with s in the weights against 11 244 K, and by the stated u 10 096 ± 350 K, −10 % and
+    3.3 u, refused).  The
+    scatter itself is judged separately by ``fit_quality``.  A single-temperature plasma in LTE
+    must give one T from any subset of its lines (Cristoforetti et al. 2010, *Spectrochim.
+    Acta B* 65, 86, on checking LTE beyond McWhirter's criterion).
+    """
+    if thin is None:
+        return _check("thin_lines_temperature", False, True,
+                      note="self-absorption fits with ≥ 3 nearly thin lines only")
+    d = abs(thin["temperature_k"] / T - 1.0)
+    u = thin["u_temperature_k"] / T
+    return _check("thin_lines_temperature", True, not (d > tol and d > 2.0 * u),
+                  value=thin["temperature_k"], limit=tol,
+                  note=f"{thin['n_lines']} nearly thin lines alone (weighted by their stated u) give "
+                       f"{thin['temperature_k']:.0f} ± {thin['u_temperature_k']:.0f} K against {T:.0f} K")
+
+
 def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, sa_info, settings, fit=None,
-                  thin=None):
-    """All checks of one solution; returns ``(checks, failed_names)``."""
+                  thin=None, widths=None):
+    """All checks of one solution; returns ``(checks, failed_names)``.
+
+    ``thin``: the nearly thin lines' own fit (:func:`thin_t_check`); ``widths``: the
+    ``line_widths`` check already made (:func:`compquant.cflibs.linewidths.line_width_check`)."""
     corrected = settings.self_absorption in ("columnar", "curve_of_growth")
     out = [ne_route_check(ne, u_ln_ne, ne_used, ne_estimates, settings.ne_agreement_factor)]
     mw = next((c for c in (lte or {}).get("checks", []) if c.get("name") == "mcwhirter"), {})
@@ -126,16 +163,11 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
                           note="fitted length of the self-absorbing slab (mm)"))
     else:
         out.append(_check("slab_length", False, True, note="no slab length fitted"))
-    if thin is not None:
-        d = abs(thin["temperature_k"] / T - 1.0)
-        u = thin["u_temperature_k"] / T
-        out.append(_check("thin_lines_temperature", True, not (d > settings.t_thin_tolerance and d > 2.0 * u),
-                          value=thin["temperature_k"], limit=settings.t_thin_tolerance,
-                          note=f"{thin['n_lines']} nearly thin lines alone give {thin['temperature_k']:.0f} "
-                               f"± {thin['u_temperature_k']:.0f} K against {T:.0f} K"))
+    out.append(thin_t_check(T, thin, settings.t_thin_tolerance))
+    if widths is not None:
+        out.append({**widths, "refuses": bool(ne_fitted)})  # as McWhirter: a fitted nₑ is refused
     else:
-        out.append(_check("thin_lines_temperature", False, True,
-                          note="self-absorption fits with ≥ 3 nearly thin lines only"))
+        out.append(_check("line_widths", False, True, note="no measured widths given"))
     p = (fit or {}).get("p_value")
     s_ln = sa_info.get("model_scatter_ln")
     if corrected and s_ln is not None and p is not None and p == p:
@@ -157,4 +189,4 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
     return out, failed
 
 
-__all__ = ["SA_SCATTER_MAX", "ne_route_check", "plasma_checks", "species_t_check"]
+__all__ = ["SA_SCATTER_MAX", "ne_route_check", "plasma_checks", "species_t_check", "thin_t_check"]

@@ -164,6 +164,10 @@ CF_TABLE = Table("cf", (
     _s("blend_tolerance", "float", 0.002, "the blend correction has settled when no line's area moves by more than "
        "this fraction (§1b)", **_POS),
     _s("response_basis", "str", None, "basis of the run's response when the run does not record it", choices=BASES),
+    _s("width_stark_factor", "float", 2.5, "line_widths check: factor by which the assumed Stark widths may overstate "
+       "the true ones (§4a)", min=1, fix="e.g. 2.5"),
+    _s("width_ratio_min", "float", 0.85, "line_widths check: smallest median ratio of measured to least predicted "
+       "FWHM (§4a)", **_FRAC),
 ), "Calibration-free analysis (docs/calibration-free.md).", "compquant.cflibs",
     notes=("ne_method = \"fixed\" needs ne_fixed_cm3; self_absorption = \"curve_of_growth\" needs "
            "plasma_length_mm; t_min_k < t_max_k; plausible ranges are [low, high] with 0 < low < high; "

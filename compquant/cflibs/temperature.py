@@ -46,10 +46,11 @@ class TemperatureFit:
             sol = self.solve_central(self.sa, ne_name, ne_est)
         return sol
 
-    def thin_subset_temperature(self):
+    def thin_subset_temperature(self, weights=None):
         """T (and its fit u) from the nearly thin lines alone (SA ≥ ``sa_flag_below``), for the
         self-absorption fits: evidence that does not rest on the slab model (§4a); ``None``
-        when those lines cannot determine T."""
+        when those lines cannot determine T.  ``weights``: per-line weights (default the
+        solution's, 1/(u_i² + s²))."""
         if self.s.self_absorption not in ("columnar", "curve_of_growth"):
             return None
         keep = self.sa >= self.s.sa_flag_below
@@ -58,7 +59,8 @@ class TemperatureFit:
         try:
             sub = Model(self.L.subset(keep), self.atomic, self.s)
             ln_i = (np.log(self.L.intensity) - np.log(self.sa) - self.ln_zeta)[keep]
-            sol = sub.solve(ln_i[None], 0.0, self.w[keep], self.ne_est, strict=True,
+            sol = sub.solve(ln_i[None], 0.0, (self.w if weights is None else weights)[keep], self.ne_est,
+                            strict=True,
                             T0=np.array([float(self.sol.T[0])]))
         except (PhysicsError, AtomicDataError):
             return None
