@@ -541,16 +541,16 @@ def identify_spectrum(wavelength, spectrum, line_list: pd.DataFrame | None = Non
 
     Examples
     --------
-    The matrix (Cu 61 %, Zn 35 %) is missing from the detected list: the demo was simulated from
-    an older 234-line list and lacks strong lines of the shipped database (Cu I 223.009 nm ...),
-    which count as missing (docs/identification.md, section 7, "The matrix on the demo run").
+    Every element of the standard HRM-CA-101 (Cu 61 %, Zn 35 %, Pb, Fe, Sn, Ni, Al, Mn; the demo's
+    invented certificate) is detected on the demo run, simulated from the shipped database
+    (docs/identification.md, section 7, "The matrix on the demo run").
 
     >>> from compquant import Run, load_method, mean_spectrum, identify_spectrum
     >>> with Run.open("demo_runs/demo-day1.h5") as run:
     ...     wl, mean, _ = mean_spectrum(run, load_method("demo_runs/method.toml"), "HRM-CA-101")
     ...     ident = identify_spectrum(wl, mean, resolving_power=run.instrument.get("resolving_power"))
     >>> ident.elements().query("status == 'detected'").element.tolist()
-    ['Sn', 'Al', 'Mn', 'Ni', 'Fe', 'Pb']
+    ['Zn', 'Ni', 'Cu', 'Fe', 'Sn', 'Mn', 'Pb', 'Al']
     """
     st = settings or IdentifySettings()
     wl = np.asarray(wavelength, float)
