@@ -141,6 +141,21 @@ def all_finite(b):
 
 
 @jit
+def edge_design(m, n):
+    """Centred abscissae ``xc = k - xm`` (k = 0 .. w-1, ``w = max(1, min(m, n))``), their centre
+    ``xm`` and ``sxx = sum(xc**2)``: the least-squares straight line through the ``w`` pixels at
+    each end of a row, used to extend the row past its ends before SNIP."""
+    window = max(1, min(m, n))
+    xm = (window - 1) / 2.0
+    xc = np.empty(window)
+    sxx = 0.0
+    for k in range(window):
+        xc[k] = k - xm
+        sxx += xc[k] * xc[k]
+    return xc, xm, sxx
+
+
+@jit
 def snip_row(y, b, c, m, decreasing, lls, xc, xm, sxx, half, u, v, tile):
     """SNIP baseline of ``y`` left in ``c[m:m+n]`` (or ``b[m:m+n]`` when there are no steps);
     returns that buffer.  ``u`` / ``v``: tile buffers of at least ``min(npad, tile + m (m + 1))``
@@ -186,13 +201,7 @@ def snip_rows(ys, out, m, decreasing, lls, tile):
     """The kernel's SNIP baseline (before the inverse LLS transform) of every row of ``ys`` into
     ``out``, with tiles of ``tile`` pixels (for tests and benchmarks)."""
     n = ys.shape[1]
-    window = max(1, min(m, n))
-    xm = (window - 1) / 2.0
-    xc = np.empty(window)
-    sxx = 0.0
-    for k in range(window):
-        xc[k] = k - xm
-        sxx += xc[k] * xc[k]
+    xc, xm, sxx = edge_design(m, n)
     b = np.empty(n + 2 * m)
     c = np.empty(n + 2 * m)
     nt = max(1, min(n + 2 * m, tile + m * (m + 1)))
@@ -339,13 +348,7 @@ def kernel(
     msk = np.zeros(npx, np.bool_)
     nxt = np.empty(npx, np.int64)
     sat_row = np.zeros(npx, np.bool_)
-    window = max(1, min(m, npx))
-    xm = (window - 1) / 2.0
-    xc = np.empty(window)
-    sxx = 0.0
-    for k in range(window):
-        xc[k] = k - xm
-        sxx += xc[k] * xc[k]
+    xc, xm, sxx = edge_design(m, npx)
     any_sat = False
     any_mask = False
     in_block = np.zeros(s1.shape[0], np.int64)  # rows in each sample's float blocks
