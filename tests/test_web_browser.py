@@ -17,6 +17,7 @@ import os
 import re
 import sys
 import threading
+from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
@@ -52,36 +53,46 @@ def need_browser() -> None:
         pytest.skip(why)
 
 
-@pytest.fixture(scope="module")
-def served(tmp_path_factory):
-    need_browser()
+@contextmanager
+def browser_on(rec, folder: Path, *, page_timeout: float):
+    """The review page of record ``rec`` served on a free local port, and headless Chromium
+    (profile under ``folder``): yields ``(driver, base_url, screenshot_folder)``; the browser,
+    the server and the record are closed on exit."""
     from selenium import webdriver
     from selenium.webdriver.chrome.service import Service
     from werkzeug.serving import make_server
 
-    d = tmp_path_factory.mktemp("webbrowser")
-    db = str(d / "record.sqlite")
-    numbers = fill_record(db, d)
-    rec = open_record(db)
     server = make_server("127.0.0.1", 0, create_app(rec), threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
     thread.start()
     opts = webdriver.ChromeOptions()
     opts.binary_location = str(CHROMIUM)
-    for f in [*FLAGS, f"--user-data-dir={d / 'profile'}"]:
+    for f in [*FLAGS, f"--user-data-dir={folder / 'profile'}"]:
         opts.add_argument(f)
     opts.set_capability("goog:loggingPrefs", {"browser": "ALL"})
     driver = webdriver.Chrome(service=Service(executable_path=str(DRIVER)), options=opts)
-    driver.set_page_load_timeout(20)
-    shots = DOCS_IMAGES if os.environ.get("COMPQUANT_SCREENSHOTS") == "1" else d / "shots"
+    driver.set_page_load_timeout(page_timeout)
+    shots = DOCS_IMAGES if os.environ.get("COMPQUANT_SCREENSHOTS") == "1" else folder / "shots"
     shots.mkdir(parents=True, exist_ok=True)
     try:
-        yield driver, f"http://127.0.0.1:{server.server_port}", rec, numbers, d, shots
+        yield driver, f"http://127.0.0.1:{server.server_port}", shots
     finally:
         driver.quit()
         server.shutdown()
         thread.join(5)
         rec.dispose()
+
+
+@pytest.fixture(scope="module")
+def served(tmp_path_factory):
+    need_browser()
+
+    d = tmp_path_factory.mktemp("webbrowser")
+    db = str(d / "record.sqlite")
+    numbers = fill_record(db, d)
+    rec = open_record(db)
+    with browser_on(rec, d, page_timeout=20) as (driver, url, shots):
+        yield driver, url, rec, numbers, d, shots
 
 
 def console_errors(driver) -> list[str]:

@@ -13,10 +13,8 @@ Outside references: the browser itself (console log, image decoder, BokehJS's do
 
 from __future__ import annotations
 
-import os
 import re
 import sys
-import threading
 from pathlib import Path
 
 import pytest
@@ -25,20 +23,16 @@ import sqlalchemy as sa
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from record_helpers import real_analyses
-from test_web_browser import CHROMIUM, DOCS_IMAGES, DRIVER, FLAGS, console_errors, images_ok, need_browser
+from test_web_browser import browser_on, console_errors, images_ok, need_browser
 
 from compquant.record import open_record
 from compquant.record import schema as S
-from compquant.web.app import create_app
 from compquant.web.labels import CHAR_PX
 
 
 @pytest.fixture(scope="module")
 def served(tmp_path_factory):
     need_browser()
-    from selenium import webdriver
-    from selenium.webdriver.chrome.service import Service
-    from werkzeug.serving import make_server
 
     d = tmp_path_factory.mktemp("webevbrowser")
     db = str(d / "record.sqlite")
@@ -46,25 +40,8 @@ def served(tmp_path_factory):
     rec = open_record(db)
     with rec.transaction() as conn:
         rows = {(r.run_id, r.sample_id): r.id for r in conn.execute(sa.select(S.samples)).all()}
-    server = make_server("127.0.0.1", 0, create_app(rec), threaded=True)
-    thread = threading.Thread(target=server.serve_forever, daemon=True)
-    thread.start()
-    opts = webdriver.ChromeOptions()
-    opts.binary_location = str(CHROMIUM)
-    for f in [*FLAGS, f"--user-data-dir={d / 'profile'}"]:
-        opts.add_argument(f)
-    opts.set_capability("goog:loggingPrefs", {"browser": "ALL"})
-    driver = webdriver.Chrome(service=Service(executable_path=str(DRIVER)), options=opts)
-    driver.set_page_load_timeout(30)
-    shots = DOCS_IMAGES if os.environ.get("COMPQUANT_SCREENSHOTS") == "1" else d / "shots"
-    shots.mkdir(parents=True, exist_ok=True)
-    try:
-        yield driver, f"http://127.0.0.1:{server.server_port}", rows, out, shots
-    finally:
-        driver.quit()
-        server.shutdown()
-        thread.join(5)
-        rec.dispose()
+    with browser_on(rec, d, page_timeout=30) as (driver, url, shots):
+        yield driver, url, rows, out, shots
 
 
 def wait_drawn(driver, selector: str = ".bk-chart") -> None:
