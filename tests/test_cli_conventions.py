@@ -210,23 +210,28 @@ def test_bad_standard_input_is_one_error_line(tmp_path, data, expect):
     assert not out.parent.exists()
 
 
-def test_standard_input_that_is_a_terminal_is_refused(tmp_path):
-    # a real pseudo-terminal as standard input: the command must not wait for typing
+def _refused_with_terminal_stdin(argv: list[str], output) -> None:
+    """``compquant argv`` run with a real pseudo-terminal as standard input: it must not wait for
+    typing but refuse with one error line, exit 2, and leave ``output`` unwritten."""
     import pty
 
-    run, method, _ = _calib_files(tmp_path)
     master, slave = pty.openpty()
     env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
     try:
-        p = subprocess.run([sys.executable, "-m", "compquant", "calibrate", str(run), "--method", str(method),
-                            "--standards", "-", "-o", str(tmp_path / "cal.json")], stdin=slave,
-                           capture_output=True, text=True, env=env, timeout=120)
+        p = subprocess.run([sys.executable, "-m", "compquant", *argv], stdin=slave, capture_output=True, text=True,
+                           env=env, timeout=120)
     finally:
         os.close(master)
         os.close(slave)
     assert p.returncode == 2
     assert p.stderr.count("error:") == 1 and "standard input is a terminal" in p.stderr
-    assert not (tmp_path / "cal.json").exists()
+    assert not output.exists()
+
+
+def test_standard_input_that_is_a_terminal_is_refused(tmp_path):
+    run, method, _ = _calib_files(tmp_path)
+    _refused_with_terminal_stdin(["calibrate", str(run), "--method", str(method), "--standards", "-",
+                                  "-o", str(tmp_path / "cal.json")], tmp_path / "cal.json")
 
 
 def test_standard_input_is_bounded(monkeypatch):
@@ -426,24 +431,11 @@ def test_a_second_dash_is_refused(base_set, tmp_path, argv):
 
 @pytest.mark.parametrize("opt", ["--lab", "--calibration"])
 def test_terminal_as_standard_input_is_refused_for_lab_and_calibration(base_set, tmp_path, opt):
-    # a real pseudo-terminal as standard input: the command must not wait for typing
-    import pty
-
-    master, slave = pty.openpty()
-    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
     argv = ["analyse", str(base_set["run"]), "--method", str(base_set["method"]), opt, "-",
             "-o", str(tmp_path / "out")]
     if opt == "--lab":
         argv += ["--calibration", str(base_set["cal"])]
-    try:
-        p = subprocess.run([sys.executable, "-m", "compquant", *argv], stdin=slave, capture_output=True, text=True,
-                           env=env, timeout=120)
-    finally:
-        os.close(master)
-        os.close(slave)
-    assert p.returncode == 2
-    assert p.stderr.count("error:") == 1 and "standard input is a terminal" in p.stderr
-    assert not (tmp_path / "out").exists()
+    _refused_with_terminal_stdin(argv, tmp_path / "out")
 
 
 def test_lab_profile_from_standard_input_in_multi_run_mode(base_set, tmp_path):
