@@ -444,14 +444,14 @@ def boltzmann_figure(
             order = np.argsort(E[m])
             ok = np.isfinite(fy[order])
             ax.plot(E[m][order][ok], fy[order][ok], "-", color=c, lw=1)
-    for xi, yi, text in zip(E, Y, point_labels or ()):
-        ax.annotate(str(text), (xi, yi), xytext=(3, 3), textcoords="offset points", fontsize=5)
+    if point_labels is not None:
+        place_point_labels(ax, E, Y, list(point_labels), fontsize=5)
     if note:
         ax.text(0.98, 0.97, note, transform=ax.transAxes, ha="right", va="top", fontsize=6)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     if title:
-        ax.set_title(title, fontsize=9)
+        ax.set_title(title, fontsize=8)
     ax.legend(fontsize=6.5)
     ax.tick_params(labelsize=7)
     return fig
