@@ -277,13 +277,84 @@ def _points(ax, x, y, *, xerr=None, yerr=None, fmt="o", ms=4, color, ecolor=None
 
 
 def _mark_samples(ax, samples, label: str) -> None:
-    """Samples on a calibration curve: ``(name, x, y, x_err)`` each, a diamond with its name."""
-    for name, x, y, xerr in samples:
+    """Samples on a calibration curve: ``(name, x, y, x_err)`` each, a diamond (named by the caller,
+    with the standards, in one :func:`place_point_labels` layout)."""
+    for _name, x, y, xerr in samples:
         _points(ax, [float(x)], [float(y)], xerr=None if xerr is None else [float(xerr)], fmt="D", ms=5,
                 color="#b9770e", label=None)
-        ax.annotate(str(name), (float(x), float(y)), xytext=(4, -10), textcoords="offset points", fontsize=5.5)
     if samples:
         ax.plot([], [], "D", color="#b9770e", label=label)
+
+
+#: upper corners tried for a legend moved clear of the data (after matplotlib's "best")
+_LEGEND_CORNERS = ("upper right", "upper left")
+
+
+def _drawn_boxes(ax, renderer) -> list:
+    """Pixel boxes of what a legend must not cover: every marker, error bar and text of ``ax``.
+
+    Markers are boxes of their drawn size around each point; an error bar is the box of its
+    segment; texts (point labels, notes) their drawn extent.  Lines without markers (fits) and
+    shaded bands are left out: a legend over a line hides no value.
+    """
+    from matplotlib.transforms import Bbox
+
+    pt = ax.figure.dpi / 72.0
+    boxes = []
+    for line in ax.get_lines():
+        if line.get_marker() in (None, "None", "", " ") or not line.get_visible():
+            continue
+        xy = ax.transData.transform(np.column_stack([line.get_xdata(), line.get_ydata()]).astype(float))
+        r = 0.5 * line.get_markersize() * pt + 1.0
+        boxes += [Bbox([[x - r, y - r], [x + r, y + r]]) for x, y in xy if np.isfinite(x) and np.isfinite(y)]
+    for coll in ax.collections:
+        for seg in getattr(coll, "get_segments", lambda: [])():
+            xy = ax.transData.transform(np.asarray(seg, float))
+            if np.isfinite(xy).all():
+                boxes.append(Bbox([xy.min(axis=0) - 1.0, xy.max(axis=0) + 1.0]))
+    boxes += [t.get_window_extent(renderer) for t in ax.texts if t.get_visible() and t.get_text()]
+    return boxes
+
+
+def place_legend_clear(ax, fontsize: float = 6.5, relabel=None):
+    """A legend that covers no point, error bar or text of ``ax``; returns the Legend.
+
+    matplotlib's ``loc="best"`` picks the place least covering the plotted lines, but may still
+    sit over points and never looks at text.  Here the legend's drawn box is measured (Agg
+    renderer, with the figure's final fixed margins) against :func:`_drawn_boxes`.  If it covers
+    any, the top of the y range is raised until the band above everything drawn holds the
+    legend in an upper corner (at most four tries; the last one is kept).  ``relabel`` (no
+    arguments) re-draws texts laid out in data coordinates, such as :func:`place_point_labels`,
+    after a change of the y range; the texts it adds are removed and drawn again each try.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    fig = ax.figure
+    _fixed_margins(fig)
+    renderer = FigureCanvasAgg(fig).get_renderer()
+    n_fixed = len(ax.texts)
+    if relabel is not None:
+        relabel()
+    leg = ax.legend(fontsize=fontsize, loc="best")
+    for _ in range(4):
+        boxes = _drawn_boxes(ax, renderer)
+        for loc in ("best",) if _ == 0 else _LEGEND_CORNERS:
+            leg = ax.legend(fontsize=fontsize, loc=loc)
+            lb = leg.get_window_extent(renderer)
+            if not any(lb.overlaps(b) for b in boxes):
+                return leg
+        axb = ax.get_window_extent(renderer)
+        top = max(b.y1 for b in boxes)
+        room = axb.height - (lb.height + 2.0 * fontsize * fig.dpi / 72.0)
+        if room <= 0 or top <= axb.y0:
+            return leg
+        y0, y1 = ax.get_ylim()
+        ax.set_ylim(y0, y0 + (y1 - y0) * max((top - axb.y0) / room, 1.0) * 1.02)
+        if relabel is not None:
+            for t in ax.texts[n_fixed:]:
+                t.remove()
+            relabel()
+    return leg
 
 
 #: label offsets tried in turn (points from the marker): right-above first, then rows below and above
@@ -296,7 +367,8 @@ def place_point_labels(ax, x, y, labels, fontsize: float = 5.5) -> list[str]:
     Each label is a box of its text's estimated size (``0.55 * fontsize`` points per character,
     ``1.2 * fontsize`` high) beside its point.  Points are taken in order of their x position and
     each label takes the first offset of ``_LABEL_OFFSETS`` whose box overlaps no label placed
-    before (greedy first fit, as for the line labels of the review page: ``compquant.web.labels``).
+    before and no point's marker (a 2.5 pt box around each point; greedy first fit, as for the
+    line labels of the review page: ``compquant.web.labels``), inside the axes.
     A label that fits nowhere is left out rather than printed over another; the figure says how
     many were left out (their values are in the certificate's calibration table).
     """
@@ -304,17 +376,23 @@ def place_point_labels(ax, x, y, labels, fontsize: float = 5.5) -> list[str]:
     y = np.asarray(y, float)
     ax.autoscale_view()
     to_px = ax.transData.transform
+    frame = ax.get_window_extent()  # labels stay inside the axes, clear of the tick labels
     pt = ax.figure.dpi / 72.0  # pixels per point
-    placed: list[tuple[float, float, float, float]] = []
-    left_out: list[str] = []
     ok = np.isfinite(x) & np.isfinite(y)
+    r = 2.5 * pt  # the markers too: a label printed over a point hides it
+    placed: list[tuple[float, float, float, float]] = [
+        (u - r, v - r, u + r, v + r) for u, v in (to_px(xy) for xy in zip(x[ok], y[ok]))
+    ]
+    left_out: list[str] = []
     for i in sorted(np.flatnonzero(ok), key=lambda k: (x[k], y[k])):
         text = str(labels[i])
         w, h = 0.55 * fontsize * len(text) * pt, 1.2 * fontsize * pt
         px, py = to_px((x[i], y[i]))
-        for dx, dy in _LABEL_OFFSETS:
+        w_pt = w / pt  # then the same rows on the left of the point (near the right edge)
+        for dx, dy in _LABEL_OFFSETS + [(-dx - w_pt, dy) for dx, dy in _LABEL_OFFSETS]:
             box = (px + dx * pt, py + dy * pt, px + dx * pt + w, py + dy * pt + h)
-            if all(box[2] <= b[0] or b[2] <= box[0] or box[3] <= b[1] or b[3] <= box[1] for b in placed):
+            inside = frame.x0 <= box[0] and box[2] <= frame.x1 and frame.y0 <= box[1] and box[3] <= frame.y1
+            if inside and all(box[2] <= b[0] or b[2] <= box[0] or box[3] <= b[1] or b[3] <= box[1] for b in placed):
                 placed.append(box)
                 ax.annotate(text, (x[i], y[i]), xytext=(dx, dy), textcoords="offset points", fontsize=fontsize)
                 break
@@ -378,14 +456,17 @@ def calibration_figure(
         ax.axhline(sy, color="#b03a2e", lw=0.5, ls=":")
         ax.axvline(sx, color="#b03a2e", lw=0.5, ls=":")
     _mark_samples(ax, list(samples), samples_label)
-    if labels is not None:  # last: the label boxes are laid out on the final axis limits
-        place_point_labels(ax, xs, ys, labels)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     if title:
         ax.set_title(title, fontsize=9)
-    ax.legend(fontsize=6.5, loc="best")
     ax.tick_params(labelsize=7)
+    # last: the label boxes (standards and samples in one layout) are laid out on the final axis limits
+    samples = list(samples)
+    lx = np.concatenate([xs if labels is not None else [], [float(m[1]) for m in samples]])
+    ly = np.concatenate([ys if labels is not None else [], [float(m[2]) for m in samples]])
+    names = (list(labels) if labels is not None else []) + [str(m[0]) for m in samples]
+    place_legend_clear(ax, relabel=(lambda: place_point_labels(ax, lx, ly, names)) if names else None)
     return fig
 
 
@@ -444,16 +525,15 @@ def boltzmann_figure(
             order = np.argsort(E[m])
             ok = np.isfinite(fy[order])
             ax.plot(E[m][order][ok], fy[order][ok], "-", color=c, lw=1)
-    if point_labels is not None:
-        place_point_labels(ax, E, Y, list(point_labels), fontsize=5)
     if note:
         ax.text(0.98, 0.97, note, transform=ax.transAxes, ha="right", va="top", fontsize=6)
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     if title:
         ax.set_title(title, fontsize=8)
-    ax.legend(fontsize=6.5)
     ax.tick_params(labelsize=7)
+    relabel = None if point_labels is None else (lambda: place_point_labels(ax, E, Y, list(point_labels), fontsize=5))
+    place_legend_clear(ax, relabel=relabel)
     return fig
 
 

@@ -259,3 +259,39 @@ def test_crowded_spectrum_labels_do_not_overlap(case):
         assert len(texts) == len(names) and not left  # a few crowded lines all get a label
     else:
         assert len(texts) >= 3 and left  # twenty in 2 nm: as many rows as fit the axes, the rest counted
+
+
+@pytest.mark.parametrize("figure", ["boltzmann", "calibration"])
+def test_legend_covers_no_point_or_label(figure):
+    """Points in every corner of the axes (where matplotlib's "best" legend place must cover
+    some): the drawn legend box overlaps no point (marker of 4 pt) and no label, measured after
+    drawing with the saved figure's margins.  Common practice: a legend over a point hides a value."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    from compquant.plotting import boltzmann_figure, calibration_figure, figure_png
+
+    g = np.linspace(0.0, 1.0, 7)
+    gx, gy = np.meshgrid(g, g)
+    x, y = 3.0 + 6.0 * gx.ravel(), -14.0 + 6.0 * gy.ravel()
+    names = [f"{v:.1f}" for v in x]
+    if figure == "boltzmann":
+        sp = ["Cu I", "Cu II", "Zn I", "Zn II"] * 12 + ["Cu I"]
+        fig = boltzmann_figure(x, y, sp, yerr=0.1 + 0 * x, point_labels=names,
+                               species_labels={s: f"{s}  T = 10000 ± 300 K" for s in sp})
+    else:
+        fig = calibration_figure(x, y, fit_x=x, fit_y=y, labels=names, x_err=0 * x, y_err=0.1 + 0 * x)
+    figure_png(fig)  # the saved figure's margins
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    r = canvas.get_renderer()
+    ax = fig.axes[0]
+    legend = ax.get_legend().get_window_extent(r)
+    px = ax.transData.transform(np.column_stack([x, y]))
+    rad = 2.0 * fig.dpi / 72.0
+    inside = ax.get_window_extent(r)
+    for (u, v) in px:
+        assert inside.y0 - 1 <= v <= inside.y1 + 1  # every point still drawn inside the axes
+        assert not (legend.x0 - rad < u < legend.x1 + rad and legend.y0 - rad < v < legend.y1 + rad)
+    for t in ax.texts:
+        if t.get_text() in names:
+            assert not legend.overlaps(t.get_window_extent(r)), t.get_text()
