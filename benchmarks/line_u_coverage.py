@@ -3,7 +3,7 @@ them (benchmark, not a test; issue 18).
 
 Usage, from the repository root::
 
-    python benchmarks/line_u_coverage.py [--part lines|cf|both] [--seed 20261202] [--cf-runs 60]
+    python benchmarks/line_u_coverage.py [--part lines|cf|calib|all] [--seed 20261202] [--cf-runs 60]
 
 1. ``lines``: the invented brass-like samples of tests/cf_synth.py (LTE forward model,
    :func:`compquant.plasma.synthesize`, R = 6000, 0.015 nm pixels), their 17 window lines.
@@ -21,6 +21,11 @@ Usage, from the repository root::
    ``mc_partition_u_rel = 0``: the reference shares those inputs).  The reference is the CF
    result of the noise-free line means, weighted by their expected u for ``n`` shots.  Prints
    the coverage of the reported ``U = 2u`` for T and the mass fractions.
+3. ``calib``: the calibration route's inverse prediction (:meth:`Curve.predict_content`) for an
+   unknown measured with ``n`` shots (n = 4, 10, 30; its ``u0 = s/√n`` from the shots) on a
+   straight line through 8 standards of 40 shots each (per-shot sd 0.05, matrix scatter 0.003,
+   exact certificates), 1500 seeded cases per ``n``: coverage with ``k = 2`` and with
+   ``k = t₀.₉₇₅(ν_eff)`` (``coverage = "student"``, Welch–Satterthwaite, GUM G.4).
 
 Every figure is printed; docs/method-file.md ("What u means with few shots") and
 docs/calibration-free.md §8 quote them.
@@ -188,9 +193,38 @@ def cf_part(seed, d, runs):
               f"{za.size:8d} {time.time() - t0:5.0f}")
 
 
+def calib_part(seed):
+    from compquant.calibrate.apply import coverage_factor
+    from compquant.calibrate.build import curve_from_records
+    from compquant.calibrate.config import AnalyteConfig
+
+    def one(rng, n0, sig=0.05, n_std=8, s_matrix=0.003, n_std_shots=40):
+        xt = np.linspace(0.02, 0.3, n_std)
+        b0, b1 = 0.05, 10.0
+        recs = []
+        for i in range(n_std):
+            shots = b0 + b1 * xt[i] + rng.normal(0, s_matrix) + sig * rng.standard_normal(n_std_shots)
+            recs.append(dict(standard_id=f"S{i}", sample_id=f"S{i}", x=xt[i], u_x=0.0, y=shots.mean(),
+                             u_y=shots.std(ddof=1) / np.sqrt(n_std_shots), n_shots=n_std_shots, w=xt[i]))
+        cfg = AnalyteConfig(element="Zn", line="Zn I 481.053", model="linear", basis="intensity")
+        c = curve_from_records(cfg, recs)
+        x0 = 0.13
+        s0 = b0 + b1 * x0 + rng.normal(0, s_matrix) + sig * rng.standard_normal(n0)
+        p = c.predict_content(s0.mean(), s0.std(ddof=1) / np.sqrt(n0), n0)
+        return p["x"] - x0, p["u"], p["dof"]
+
+    print("\ncalibration route: coverage of U = k u for an unknown of n shots (8 standards, 40 shots each)")
+    print(f"{'n':>3s} {'k = 2':>7s} {'student':>8s} {'median nu_eff':>14s}")
+    for n0 in (4, 10, 30):
+        rng = np.random.default_rng(seed + n0)
+        d, u, dof = np.array([one(rng, n0) for _ in range(1500)]).T
+        cov = {m: np.mean(np.abs(d) <= np.array([coverage_factor(m, v) for v in dof]) * u) for m in ("k2", "student")}
+        print(f"{n0:3d} {100 * cov['k2']:6.1f}% {100 * cov['student']:7.1f}% {np.median(dof):14.1f}")
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    ap.add_argument("--part", choices=("lines", "cf", "both"), default="both")
+    ap.add_argument("--part", choices=("lines", "cf", "calib", "all"), default="all")
     ap.add_argument("--seed", type=int, default=20261202)
     ap.add_argument("--cf-runs", type=int, default=60, help="seeded runs per shot count (cf part)")
     a = ap.parse_args(argv)
@@ -198,10 +232,12 @@ def main(argv=None):
     with tempfile.TemporaryDirectory() as tmp:
         d = Path(tmp)
         (d / "method.toml").write_text(cf_synth.method_toml())
-        if a.part in ("lines", "both"):
+        if a.part in ("lines", "all"):
             lines_part(a.seed, d, load_method(d / "method.toml"))
-        if a.part in ("cf", "both"):
+        if a.part in ("cf", "all"):
             cf_part(a.seed, d, a.cf_runs)
+        if a.part in ("calib", "all"):
+            calib_part(a.seed)
 
 
 if __name__ == "__main__":
