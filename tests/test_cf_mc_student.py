@@ -81,3 +81,35 @@ def test_without_shots_the_draws_are_normal():
     I_d, nu = draw_line_means(rng, rng, eps, TRUTH, 0.01 * TRUTH, None)
     assert nu is None
     assert stats.kurtosis(I_d[:, 0]) == pytest.approx(0.0, abs=0.1)  # normal: excess kurtosis 0
+
+
+def test_three_shots_draw_with_three_dof_and_warn():
+    # t_2 has no variance (JCGM 101 §6.4.9.4 needs n > 3 for V): three shots are drawn with ν = 3,
+    # and the analysis says that u and U then understate
+    import math
+    import warnings
+    from types import SimpleNamespace
+
+    import cf_hand
+
+    from compquant import analyse_cf
+
+    rng = np.random.default_rng(8)
+    x = _shots(rng, 3)
+    _, nu = draw_line_means(rng, rng, rng.standard_normal((10, 3)), x.mean(0), x.std(0, ddof=1) / math.sqrt(3),
+                            x / x.mean(0) - 1.0)
+    assert nu == 3
+    w = {"Fe": 0.70, "Cr": 0.18, "Ni": 0.12}
+    tabs = [cf_hand.line_table(w, T, 8e16) for T in (9900.0, 10000.0, 10150.0)]
+    M = np.array([t["intensity"].to_numpy() for t in tabs])
+    lt = tabs[0].copy()
+    lt["intensity"] = M.mean(axis=0)
+    lt["u_intensity"] = M.std(axis=0, ddof=1) / math.sqrt(3)
+    meas = SimpleNamespace(sample_ids=["S1"], shot_sample=np.zeros(3, int), shot_accepted=np.ones(3, bool),
+                           line_ids=list(lt["line_id"]), shot_intensity=M)
+    with warnings.catch_warnings(record=True) as rec:
+        warnings.simplefilter("always")
+        r = analyse_cf(lt, atomic=cf_hand.atomic(), measurement=meas,
+                       settings={"mc_draws": 50, "ne_method": "fixed", "ne_fixed_cm3": 8e16})
+    assert any("only 3 shots" in str(m.message) for m in rec)
+    assert any("only 3 shots" in m for m in r.warnings)

@@ -67,7 +67,7 @@ class MonteCarlo:
         # (and with many shots the result, t -> normal) stay those of the seed
         I_d, nu = draw_line_means(rng, np.random.default_rng([int(seed), 1]), eps, L.intensity,
                                   L.u_intensity, self.shot_dev)
-        if nu is not None and nu < self.shot_dev.shape[0] - 1:
+        if nu is not None and nu > self.shot_dev.shape[0] - 1:
             self._warn(f"only {self.shot_dev.shape[0]} shots: the line means are drawn with a Student t of "
                        f"{nu} degrees of freedom instead of {self.shot_dev.shape[0] - 1} (whose variance is "
                        "infinite), so u and U understate the uncertainty; measure at least 4 shots")
