@@ -30,11 +30,11 @@ def draw_line_means(rng, rng_t, eps, intensity, u_intensity, shot_dev):
     with ``z ~ N(0, 1)`` per shot and one ``chi2_nu`` per draw (``rng_t``): a multivariate
     Student t with ``nu = n - 1`` degrees of freedom, location ``I`` and scale matrix
     ``S / n`` (``S`` the shots' sample covariance), the normal divided by an independent
-    ``sqrt(chi2_nu / nu)`` (Cornish 1954, Aust. J. Phys. 7, 531; Kotz & Nadarajah 2004,
+    ``sqrt(chi2_nu / nu)`` (Cornish 1954, Aust. J. Phys. 7, 531, from memory; Kotz & Nadarajah 2004,
     *Multivariate t distributions*, ch. 1).  Each line's marginal is then the scaled and shifted
     ``t_{n-1}(Ibar, s^2/n)`` that JCGM 101:2008 §6.4.9 assigns to the mean of ``n`` indications
     of unknown standard deviation: the draws' variance is ``(n-1)/(n-3) s^2/n`` (3 × for 4 shots,
-    1.04 × for 30), so that ``U = 2u`` covers about 95 % however few the shots (GUM G.3: a
+    1.07 × for 30), so that ``U = 2u`` covers about 95 % however few the shots (GUM G.3: a
     normal draw of the estimate ``s/sqrt(n)`` covered 86 % with 4 shots, ``P(|t_3| <= 2)``).
     JCGM 102:2011 §6.4.3 states the joint PDF of ``N`` quantities from ``n`` indications with
     ``nu = n - N`` (from memory, verify), which needs more shots than lines; one ``chi2``
