@@ -54,7 +54,12 @@ def test_cf_command_end_to_end(run_and_method):
         # now within 0.2 %; in LOT-1 the window of Cu I 249.215 reads 2.11 where the noise-free
         # spectrum gives 1.49 (a read-noise excursion of the 4 shots), which the uncorrected
         # side-band interference of Cu II 248.965 (-0.43) used to hide: 4 % instead of 3 % (and nₑ,
-        # d ln nₑ ≈ 9 d ln T, +60 % instead of +55 %).
+        # d ln nₑ ≈ 9 d ln T, +60 % instead of +55 %).  The excursion is chance, not an
+        # under-stated u: 2.8 σ of a 4-shot mean (σ = 0.223 from the 5-count read noise; one of the
+        # 34 line means beyond 2.8 σ: 17 %), and its stated u (0.110, half of σ) comes from 4 shots
+        # whose sd fell to 0.49 σ (χ² with 3 dof: 13 %).  benchmarks/line_u_coverage.py finds
+        # u = sd/√n unbiased, ±2u covering 86 % with 4 shots as Student t with 3 dof predicts and
+        # ±t₀.₉₇₅(3)u 95 %; the Monte Carlo draws the line means from that t (calibration-free.md §8).
         assert r["temperature_k"] == pytest.approx(11000.0, rel=0.045)
         assert r["electron_density_cm3"] == pytest.approx(5e16, rel=0.65)
     for sid in TRUE:

@@ -11,6 +11,50 @@ import numpy as np
 
 from compquant.atomic import species_name
 
+#: smallest degrees of freedom of the Student-t draws of the line means: ``t_nu`` has a finite
+#: variance only for ``nu > 2`` (JCGM 101:2008 §6.4.9.4), and u is the draws' standard deviation
+MIN_T_DOF = 3
+
+
+def draw_line_means(rng, rng_t, eps, intensity, u_intensity, shot_dev):
+    """Monte Carlo draws of a sample's line means: ``(I_d, nu)``, ``I_d`` of shape ``(n_draws, n_lines)``
+    and ``nu`` the degrees of freedom of their Student t (``None``: normal draws).
+
+    Without shot deviations every line is ``N(I, u_I)``, independently (``eps``: standard normal
+    draws, ``(n_draws, n_lines)``).  With the relative deviations ``D`` (``(n, n_lines)``) of the
+    sample's ``n`` accepted shots, the means share each shot's plasma and are drawn with the
+    shots' covariance over ``n`` (GUM 5.2 and C.3.4; JCGM 102:2011 §6.4.3)::
+
+        I_d = I (1 + z^T D / sqrt(n (n - 1)) * sqrt(nu / chi2_nu)) + u_rest eps,   nu = n - 1
+
+    with ``z ~ N(0, 1)`` per shot and one ``chi2_nu`` per draw (``rng_t``): a multivariate
+    Student t with ``nu = n - 1`` degrees of freedom, location ``I`` and scale matrix
+    ``S / n`` (``S`` the shots' sample covariance), the normal divided by an independent
+    ``sqrt(chi2_nu / nu)`` (Cornish 1954, Aust. J. Phys. 7, 531, from memory; Kotz & Nadarajah 2004,
+    *Multivariate t distributions*, ch. 1).  Each line's marginal is then the scaled and shifted
+    ``t_{n-1}(Ibar, s^2/n)`` that JCGM 101:2008 §6.4.9 assigns to the mean of ``n`` indications
+    of unknown standard deviation: the draws' variance is ``(n-1)/(n-3) s^2/n`` (3 × for 4 shots,
+    1.07 × for 30), so that ``U = 2u`` covers about 95 % however few the shots (GUM G.3: a
+    normal draw of the estimate ``s/sqrt(n)`` covered 86 % with 4 shots, ``P(|t_3| <= 2)``).
+    JCGM 102:2011 §6.4.3 states the joint PDF of ``N`` quantities from ``n`` indications with
+    ``nu = n - N`` (from memory, verify), which needs more shots than lines; one ``chi2``
+    shared by the lines keeps every marginal at JCGM 101's ``n - 1``.  ``nu`` is at least
+    :data:`MIN_T_DOF` (3 shots: ``t_2`` has no variance; the caller warns).  The part of
+    ``u_I`` the shot scatter does not explain (``u_rest``: a fitted profile's shape term, a
+    blend correction) is a stated uncertainty, drawn normal and independently.
+    """
+    if shot_dev is None:
+        return intensity[None, :] + u_intensity[None, :] * eps, None
+    D = shot_dev
+    k = D.shape[0]
+    nu = max(k - 1, MIN_T_DOF)
+    n = eps.shape[0]
+    scale = np.sqrt(nu / rng_t.chisquare(nu, size=(n, 1)))
+    rel = rng.standard_normal((n, k)) @ D / math.sqrt(k * (k - 1.0)) * scale
+    u_shot = intensity * np.sqrt(np.sum(D**2, axis=0) / (k * (k - 1.0)))
+    u_rest = np.sqrt(np.maximum(u_intensity**2 - u_shot**2, 0.0))
+    return intensity[None, :] * (1.0 + rel) + u_rest[None, :] * eps, nu
+
 
 class MonteCarlo:
     """Mixin of :class:`compquant.cflibs.analysis._Analysis`: Monte Carlo uncertainty."""
@@ -19,19 +63,14 @@ class MonteCarlo:
         L = self.L
         rng = np.random.default_rng(seed)
         eps = rng.standard_normal((n, L.n))
-        if self.shot_dev is None:
-            I_d = L.intensity[None, :] + L.u_intensity[None, :] * eps
-        else:
-            # the line means of one set of shots share every shot's plasma (T, nₑ, ablated mass):
-            # draw them from the shots' own covariance / n_shots (GUM 5.2 and C.3.4, correlation of
-            # input estimates from simultaneous observations; JCGM 102:2011 §6.4.3), the part of
-            # u_I not explained by the shot scatter independently
-            D = self.shot_dev
-            k = D.shape[0]
-            rel = rng.standard_normal((n, k)) @ D / math.sqrt(k * (k - 1.0))
-            u_shot = L.intensity * np.sqrt(np.sum(D**2, axis=0) / (k * (k - 1.0)))
-            u_rest = np.sqrt(np.maximum(L.u_intensity**2 - u_shot**2, 0.0))
-            I_d = L.intensity[None, :] * (1.0 + rel) + u_rest[None, :] * eps
+        # the Student-t scale of the shot draws has its own stream, so that the normal draws
+        # (and with many shots the result, t -> normal) stay those of the seed
+        I_d, nu = draw_line_means(rng, np.random.default_rng([int(seed), 1]), eps, L.intensity,
+                                  L.u_intensity, self.shot_dev)
+        if nu is not None and nu > self.shot_dev.shape[0] - 1:
+            self._warn(f"only {self.shot_dev.shape[0]} shots: the line means are drawn with a Student t of "
+                       f"{nu} degrees of freedom instead of {self.shot_dev.shape[0] - 1} (whose variance is "
+                       "infinite), so u and U understate the uncertainty; measure at least 4 shots")
         I_d = np.maximum(I_d, 1e-3 * L.intensity[None, :])
         dln_a = L.u_ln_a[None, :] * rng.standard_normal((n, L.n))
         if not self.s.mc_include_aki:

@@ -232,7 +232,20 @@ def _wider_than_window(setup: _Setup, s: int, mean_spec, lo: float, hi: float) -
 
 def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_noise_win, f_mean, fits,
               flag_nm) -> dict:
-    """One row of the line table: statistics over the accepted shots and the line's flags."""
+    """One row of the line table: statistics over the accepted shots and the line's flags.
+
+    ``intensity`` is the mean of the ``n`` accepted shots' values ``I_i`` and ``u_intensity`` its
+    standard uncertainty, a GUM Type A evaluation (JCGM 100:2008, 4.2.3): ``u = s / sqrt(n)``
+    with ``s`` the shots' standard deviation (``sd_shots``, ``ddof = 1``) for window lines,
+    ``u = sqrt(s^2 / n + u_shape^2)`` for fitted lines (``u_shape^2``: the part of the fit
+    covariance from centres and widths), and the pixel noise or the full fit covariance with one
+    shot (flag ``single_shot``).  ``s`` holds every shot-to-shot source at once (read and photon
+    noise of the pixels, plasma fluctuation); it has ``n - 1`` degrees of freedom, which the
+    users of ``u`` carry (``n_shots`` is in the row): a 95 % interval is
+    ``+- t_0.975(n - 1) u`` (GUM G.3), 3.18 u for 4 shots.  ``u`` is not inflated here: seeded
+    studies (benchmarks/line_u_coverage.py) find it unbiased for pixel and plasma noise alike,
+    ``+- 2u`` covering 86 / 92 / 95 % with 4 / 10 / 30 shots, exactly Student's P(|t| <= 2).
+    """
     meas, pre = setup.method.measure, setup.method.preprocess
     ln = setup.lines[li]
     ok = np.isfinite(vals)
