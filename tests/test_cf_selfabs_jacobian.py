@@ -2,7 +2,8 @@
 
 Outside references: central finite differences (common practice: error O(h²)) and
 ``scipy.optimize.approx_fprime`` (scipy's forward differences); the analytic columns of the
-fit's Jacobian must agree with them, the curve-of-growth slope ∂ln SA/∂ln τ₀ with the
+fit's Jacobian must agree with them (every column in closed form: to 10⁻⁶ of the column), the
+curve-of-growth slope ∂ln SA/∂ln τ₀ with the
 small-τ₀ limit of the Ladenburg–Reiche function (Ladenburg & Reiche 1913: for a Lorentzian,
 SA ≈ 1 − τ₀/4, so ∂ln SA/∂ln τ₀ → −τ₀/4).
 """
@@ -19,8 +20,10 @@ from test_cflibs import _self_absorbed_table
 
 from compquant.cflibs import analyse_cf
 from compquant.cflibs.analysis import _Analysis
-from compquant.cflibs.selfabs import dln_sa_dln_tau0, sa_factor
+from compquant.cflibs.selfabs import dln_sa_dln_tau0, sa_factor, sa_slopes
+from compquant.cflibs.selfabs_fit import SelfAbsFit
 from compquant.plasma.constants import KB_EV
+from compquant.plasma.profiles import voigt
 
 
 def _central(f, x, h):
@@ -107,13 +110,74 @@ def test_columnar_fit_jacobian_against_central_differences(monkeypatch, settings
         h = 1e-6 * np.maximum(1.0, np.abs(th))
         Jc = _central(resid, th, h)
         scale = np.max(np.abs(Jc), axis=0)
-        analytic = qcols + [n_par - 1]
-        # analytic columns: 1e-6 of the column's size
-        assert np.all(np.abs(J[:, analytic] - Jc[:, analytic]) <= 1e-6 * scale[None, analytic] + 1e-12)
-        # forward-difference columns (slope, ln nₑ): scipy's step √ε·max(1, |θ|); their own error
-        # is O(h·∂²r/∂θ²), up to ~10⁻⁵ of the column where T bends the curve of growth strongly
-        fd = [j for j in range(n_par) if j not in analytic]
-        assert np.all(np.abs(J[:, fd] - Jc[:, fd]) <= 1e-4 * scale[None, fd] + 1e-9)
+        # every column in closed form (intercepts, ln L, slope, ln nₑ): 10⁻⁶ of the column's size
+        # (central differences' own error at h = 10⁻⁶ is ~10⁻⁹..10⁻⁷ of the column here)
+        assert np.all(np.abs(J - Jc) <= 1e-6 * scale[None, :] + 1e-12)
         # and the whole Jacobian against scipy's forward differences
         Jf = np.column_stack([approx_fprime(th, lambda t, i=i: resid(t)[i], h) for i in range(r0.size)]).T
         np.testing.assert_allclose(J, Jf, rtol=0, atol=1e-4 * np.max(scale))
+
+
+@pytest.mark.parametrize("wg,wl", [(0.004, 0.0), (0.004, 0.01), (0.001, 0.05), (0.01, 0.002)])
+def test_width_slopes_of_sa_and_peak_against_finite_differences(wg, wl):
+    """∂ln SA/∂w_G, ∂ln SA/∂w_L (fixed τ₀) and ∂ln φ₀/∂w against central differences (common
+    practice, O(h²)) of sa_factor and of the Voigt peak (scipy.special.voigt_profile)."""
+    tau0 = np.array([0.05, 0.7, 3.0, 25.0])
+    s_tau, s_g, s_l, p_g, p_l = sa_slopes(tau0, wg, wl)
+    np.testing.assert_allclose(s_tau, dln_sa_dln_tau0(tau0, wg, wl), rtol=1e-12, atol=1e-15)
+    h = 1e-6 * max(wg, wl)
+
+    def ln_sa(t, a, b):
+        return float(np.log(sa_factor(np.array([t]), a, b))[0])
+
+    def ln_peak(a, b):
+        return float(np.log(voigt(0.0, 0.0, a, b)))
+
+    for k, t in enumerate(tau0):
+        cg = (ln_sa(t, wg + h, wl) - ln_sa(t, wg - h, wl)) / (2 * h)
+        assert s_g[k] == pytest.approx(cg, rel=1e-5, abs=1e-6 * abs(s_l[k]) + 1e-9)
+        if wl > h:
+            cl = (ln_sa(t, wg, wl + h) - ln_sa(t, wg, wl - h)) / (2 * h)
+            assert s_l[k] == pytest.approx(cl, rel=1e-5)
+        else:  # w_L = 0: one-sided (the Lorentzian width cannot go below 0)
+            cl = (ln_sa(t, wg, 2 * h) - ln_sa(t, wg, h)) / h
+            assert s_l[k] == pytest.approx(cl, rel=1e-3)
+        # Euler: SA is homogeneous of degree 0 in the widths
+        assert wg * s_g[k] + wl * s_l[k] == pytest.approx(0.0, abs=1e-12 * (1 + abs(s_l[k])))
+    assert p_g[0] == pytest.approx((ln_peak(wg + h, wl) - ln_peak(wg - h, wl)) / (2 * h), rel=1e-6)
+    if wl > h:
+        assert p_l[0] == pytest.approx((ln_peak(wg, wl + h) - ln_peak(wg, wl - h)) / (2 * h), rel=1e-6)
+    # a pure Gaussian line: SA depends on τ₀ alone, and φ₀ = √(4 ln 2/π)/w_G, ∂ln φ₀/∂w_G = −1/w_G
+    if wl == 0.0:
+        assert np.all(s_g == 0.0)
+        assert p_g[0] == pytest.approx(-1.0 / wg, rel=1e-12)
+
+
+@pytest.mark.parametrize("settings", [{"ne_method": "stark"}, {"ne_method": "saha"},
+                                      {"ne_method": "stark", "fit": "boltzmann"}])
+def test_closed_form_columns_leave_the_solution_where_the_differences_put_it(monkeypatch, settings):
+    """The closed-form T and ln nₑ columns against the forward differences they replace: both
+    are Jacobians of the same residual, so the optimiser stops at the same point within its
+    tolerances (xtol 10⁻¹⁰, ftol 10⁻¹²; here T, nₑ and every mass fraction within 10⁻⁷)."""
+    lt, _, w_instr = _self_absorbed_table()
+    out = {}
+    for tn in (False, True):
+        monkeypatch.setattr(SelfAbsFit, "ANALYTIC_TN", tn)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            out[tn] = analyse_cf(line_table=lt, atomic=cf_hand.atomic(),
+                                 settings={"mc_draws": 0, "instrument_fwhm_nm": w_instr,
+                                           "self_absorption": "columnar", **settings}).to_dict()
+    a, b = out[False], out[True]
+    assert b["temperature_k"] == pytest.approx(a["temperature_k"], rel=1e-7)
+    assert b["electron_density_cm3"] == pytest.approx(a["electron_density_cm3"], rel=1e-7)
+    checked = 0
+    for key in ("mass_fraction", "uncertified_mass_fraction"):  # withheld results keep the latter
+        fa = {e["element"]: e.get(key) for e in a["elements"]}
+        for e in b["elements"]:
+            if isinstance(fa[e["element"]], float):
+                assert e[key] == pytest.approx(fa[e["element"]], rel=1e-7)
+                checked += 1
+            else:
+                assert e.get(key) is None
+    assert checked
