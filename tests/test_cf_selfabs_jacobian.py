@@ -10,6 +10,7 @@ SA ≈ 1 − τ₀/4, so ∂ln SA/∂ln τ₀ → −τ₀/4).
 
 from __future__ import annotations
 
+import math
 import warnings
 
 import cf_hand
@@ -20,6 +21,7 @@ from test_cflibs import _self_absorbed_table
 
 from compquant.cflibs import analyse_cf
 from compquant.cflibs.analysis import _Analysis
+from compquant.cflibs.atomicdata import default_atomic_data
 from compquant.cflibs.selfabs import dln_sa_dln_tau0, sa_factor, sa_slopes
 from compquant.cflibs.selfabs_fit import SelfAbsFit
 from compquant.plasma.constants import KB_EV
@@ -57,7 +59,14 @@ def test_curve_of_growth_slope_against_finite_differences(wg, wl):
 
 
 def _captured_fits(monkeypatch, settings):
-    """Run a columnar analysis and keep every (resid, jac, bounds) the fit built, with θ at the end."""
+    """Run a columnar analysis and keep every (resid, jac, bounds) the fit built, with θ at the end.
+
+    ``settings`` may hold ``package_atomic`` (the shipped atomic data, whose ∂ln U/∂T is in closed
+    form, instead of the hand tables, differentiated numerically) and ``fallback`` (an assumed
+    Stark FWHM for the lines without Stark data, which then widens with nₑ)."""
+    settings = dict(settings)
+    package = settings.pop("package_atomic", False)
+    fallback = settings.pop("fallback", 0.0)
     seen = []
     real = _Analysis._residual_fn
 
@@ -67,17 +76,22 @@ def _captured_fits(monkeypatch, settings):
         return out
 
     monkeypatch.setattr(_Analysis, "_residual_fn", spy)
-    lt, _, w_instr = _self_absorbed_table()
+    lt, _, w_instr = _self_absorbed_table(fallback)
+    if fallback:
+        settings.update(stark_fallback_fwhm_nm=fallback, stark_fallback_ne_cm3=1e17)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        analyse_cf(line_table=lt, atomic=cf_hand.atomic(),
+        analyse_cf(line_table=lt, atomic=default_atomic_data() if package else cf_hand.atomic(),
                    settings={"mc_draws": 0, "instrument_fwhm_nm": w_instr, "self_absorption": "columnar",
                              **settings})
     return seen
 
 
 @pytest.mark.parametrize("settings", [{"ne_method": "stark"}, {"ne_method": "saha"},
-                                      {"ne_method": "stark", "fit": "boltzmann"}])
+                                      {"ne_method": "stark", "fit": "boltzmann"},
+                                      {"ne_method": "stark", "package_atomic": True},
+                                      {"ne_method": "saha", "package_atomic": True},
+                                      {"ne_method": "stark", "fallback": 0.01}])
 def test_columnar_fit_jacobian_against_central_differences(monkeypatch, settings):
     seen = _captured_fits(monkeypatch, settings)
     free = [s for s in seen if s[3][0][-1] == np.log(1e-6)]  # the fits with ln L free
@@ -181,3 +195,22 @@ def test_closed_form_columns_leave_the_solution_where_the_differences_put_it(mon
             else:
                 assert e.get(key) is None
     assert checked
+
+
+@pytest.mark.parametrize("T", [4321.0, 9876.5, 17654.3])
+def test_partition_function_log_derivative_against_central_differences(T):
+    """d ln U/d ln T of the shipped partition functions (level sums: ⟨E⟩/kT; tables: the slope of
+    the interpolant; bare nucleus: 0) against central differences of partition_function (common
+    practice, O(h²)), at temperatures between the tables' grid points."""
+    from compquant.atomic import partition as part
+
+    idx = part.partition_index()
+    tab = [n for n in idx.index if idx.loc[n, "method"] == "tabulated"][:3]
+    names = ("Fe I", "Fe II", "Cu I", "Cu II", "Al I", "H II", *tab)
+    got = part.dln_partition_functions_dln_t(names, T)
+    h = 1e-5
+    for sp, g in zip(names, got):
+        c = (math.log(part.partition_function(sp, T * math.exp(h)))
+             - math.log(part.partition_function(sp, T * math.exp(-h)))) / (2 * h)
+        assert g == pytest.approx(c, rel=1e-7, abs=1e-9), sp
+    assert got[names.index("H II")] == 0.0

@@ -9,6 +9,7 @@ import math
 
 import numpy as np
 
+from compquant.atomic.partition import dln_partition_functions_dln_t
 from compquant.cflibs.fitting import paule_mandel_scatter
 from compquant.cflibs.selfabs import sa_slopes
 from compquant.cflibs.selfabs_cog import _charges
@@ -69,18 +70,32 @@ class SelfAbsFit:
         return cols
 
     def _dln_u(self, T: float):
-        """∂ln U/∂T (K⁻¹) of the stages I, II, III per element (as :meth:`Model._ln_u_stages`)
-        and of each line's species (as :meth:`_u_per_line`): central differences in ln T with
-        step h = 10⁻⁵ (truncation error h²/6·∂³ln U/∂(ln T)³ and rounding ε·|ln U|/h, both
-        ~10⁻¹⁰), so the partition-function data of any kind (level sums, tables, plain values)
-        are differentiated the same way."""
-        h = 1e-5
+        """∂ln U/∂T (K⁻¹) of the stages I, II, III per element (as :meth:`Model._ln_u_stages`;
+        0 where stage III does not enter) and of each line's species (as :meth:`_u_per_line`).
+
+        With the shipped data (:class:`compquant.cflibs.atomicdata.PackageAtomicData` evaluating
+        :func:`compquant.atomic.partition_function`'s default path for every species) in closed
+        form, :func:`compquant.atomic.partition.dln_partition_functions_dln_t` (⟨E⟩/kT of the level
+        sums, the slope of the tables); for other atomic data by central differences in ln T with
+        step h = 10⁻⁵ (truncation h²/6·∂³ln U/∂(ln T)³ and rounding ε·|ln U|/h, both ~10⁻¹⁰).  A
+        Monte Carlo shift of ln U is constant in T and does not enter.
+        """
         stages = self.model._stages()
+        atomic = self.model.atomic
+        lines = tuple(str(sp) for sp in self.L.species)
+        names = tuple(dict.fromkeys([r[0] for r in stages] + [r[1] for r in stages]
+                                    + [r[2] for r in stages if r[3]] + list(lines)))
+        ev = getattr(atomic, "_evaluator", None)
+        if ev is not None and all(ev(sp) is not None for sp in names):
+            d = dict(zip(names, dln_partition_functions_dln_t(names, T) / T))
+            d_st = [np.array([d[r[0]] for r in stages]), np.array([d[r[1]] for r in stages]),
+                    np.array([d[r[2]] if r[3] else 0.0 for r in stages])]
+            return d_st, np.array([d[sp] for sp in lines])
+        h = 1e-5
         up, down = np.array([T * math.exp(h)]), np.array([T * math.exp(-h)])
         lu_up = self.model._ln_u_stages(stages, up)
         lu_dn = self.model._ln_u_stages(stages, down)
         d_st = [(a - b)[0] / (2.0 * h * T) for a, b in zip(lu_up, lu_dn)]
-        atomic = self.model.atomic
         d_line = (np.log(self._u_per_line(atomic, float(up[0]))) - np.log(self._u_per_line(atomic, float(down[0])))) / (
             2.0 * h * T)
         return d_st, d_line
@@ -121,7 +136,8 @@ class SelfAbsFit:
         * widths: w_G (Doppler) ∝ √T, w_L from :meth:`lorentz_thin_slopes`;
         * ln SA_i(τ₀, w_G, w_L) by :func:`compquant.cflibs.selfabs.sa_slopes`.
 
-        ∂ln U/∂T from :meth:`_dln_u`; everything else is in closed form.
+        ∂ln U/∂T from :meth:`_dln_u` (closed form for the shipped data); everything else is in
+        closed form.
         """
         tau, T, ne_, sol = state
         model = self.model
