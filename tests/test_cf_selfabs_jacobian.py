@@ -214,3 +214,34 @@ def test_partition_function_log_derivative_against_central_differences(T):
              - math.log(part.partition_function(sp, T * math.exp(-h)))) / (2 * h)
         assert g == pytest.approx(c, rel=1e-7, abs=1e-9), sp
     assert got[names.index("H II")] == 0.0
+
+
+def test_profile_from_the_kept_faddeeva_values_is_scipys_voigt_profile_bit_for_bit():
+    """The curve-of-growth grid's profile is computed from w(z) (kept for the Jacobian): the same
+    numbers, bit for bit, as scipy.special.voigt_profile (the outside reference), with and without a
+    Lorentzian part, and the kept w(z) is scipy.special.wofz at z = (x + iγ)/(σ√2) (to 1e-13)."""
+    from scipy.special import voigt_profile, wofz
+
+    from compquant.cflibs import selfabs
+
+    rng = np.random.default_rng(11)
+    wg = rng.uniform(1e-3, 2e-2, 60)
+    wl = np.where(rng.random(60) < 0.25, 0.0, 10.0 ** rng.uniform(-5, -1, 60))
+    selfabs._PROFILE_MEMO.clear()
+    phi, dx, phi0, w = selfabs._profile_and_faddeeva(wg, wl)
+    sigma = wg / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+    scale = 0.5 * (0.5346 * wl + np.sqrt(0.2166 * wl**2 + wg**2))
+    x = selfabs._XS_HALF[None, :] * scale[:, None]
+    ref = voigt_profile(x, sigma[:, None], wl[:, None] / 2.0)
+    assert phi[:, selfabs._MID:].tobytes() == ref.tobytes()
+    assert phi0.tobytes() == ref[:, 0].tobytes()
+    assert np.array_equal(phi[:, : selfabs._MID + 1], phi[:, selfabs._MID:][:, ::-1])  # even
+    lor = wl > 0
+    z = (x[lor] + 1j * wl[lor, None] / 2.0) / (sigma[lor, None] * math.sqrt(2.0))
+    np.testing.assert_allclose(w[lor], wofz(z), rtol=1e-13, atol=0)  # z rounded differently
+    assert np.all(np.isnan(w[~lor]))
+    # sa_factor and the slopes read the same memo entry: sa_factor's numbers are unchanged by it
+    tau0 = rng.uniform(0.01, 10.0, 60)
+    before = selfabs.sa_factor(tau0, wg, wl)
+    sa_slopes(tau0, wg, wl)
+    assert selfabs.sa_factor(tau0, wg, wl).tobytes() == before.tobytes()
