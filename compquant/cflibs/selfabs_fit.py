@@ -82,15 +82,27 @@ class SelfAbsFit:
         """
         stages = self.model._stages()
         atomic = self.model.atomic
-        lines = tuple(str(sp) for sp in self.L.species)
-        names = tuple(dict.fromkeys([r[0] for r in stages] + [r[1] for r in stages]
-                                    + [r[2] for r in stages if r[3]] + list(lines)))
-        ev = getattr(atomic, "_evaluator", None)
-        if ev is not None and all(ev(sp) is not None for sp in names):
-            d = dict(zip(names, dln_partition_functions_dln_t(names, T) / T))
-            d_st = [np.array([d[r[0]] for r in stages]), np.array([d[r[1]] for r in stages]),
-                    np.array([d[r[2]] if r[3] else 0.0 for r in stages])]
-            return d_st, np.array([d[sp] for sp in lines])
+        plan = getattr(self, "_dlnu_plan", None)
+        if plan is None or plan[0] is not self.model or plan[1] is not self.L:
+            # the species, where each stage and line finds its own, and whether the closed form
+            # applies; once per model and line set
+            lines = tuple(str(sp) for sp in self.L.species)
+            names = tuple(dict.fromkeys([r[0] for r in stages] + [r[1] for r in stages]
+                                        + [r[2] for r in stages if r[3]] + list(lines)))
+            ev = getattr(atomic, "_evaluator", None)
+            closed = ev is not None and all(ev(sp) is not None for sp in names)
+            pos = {sp: k for k, sp in enumerate(names)}
+            idx = (np.array([pos[r[0]] for r in stages], dtype=np.intp),
+                   np.array([pos[r[1]] for r in stages], dtype=np.intp),
+                   np.array([pos[r[2]] if r[3] else 0 for r in stages], dtype=np.intp),
+                   np.array([r[3] for r in stages], dtype=bool),
+                   np.array([pos[sp] for sp in lines], dtype=np.intp))
+            plan = (self.model, self.L, names, closed, idx)
+            self._dlnu_plan = plan
+        _m, _l, names, closed, (i1, i2, i3, use3, il) = plan
+        if closed:
+            d = dln_partition_functions_dln_t(names, T) / T
+            return [d[i1], d[i2], np.where(use3, d[i3], 0.0)], d[il]
         h = 1e-5
         up, down = np.array([T * math.exp(h)]), np.array([T * math.exp(-h)])
         lu_up = self.model._ln_u_stages(stages, up)
