@@ -11,7 +11,7 @@ import numpy as np
 
 from compquant.atomic.partition import dln_partition_functions_dln_t
 from compquant.cflibs.fitting import paule_mandel_scatter
-from compquant.cflibs.selfabs import sa_slopes
+from compquant.cflibs.selfabs import dln_sa_dln_tau0, sa_slopes
 from compquant.cflibs.selfabs_cog import _charges
 from compquant.cflibs.solver import Model, Solution
 from compquant.errors import AtomicDataError, PhysicsError
@@ -316,7 +316,7 @@ class SelfAbsFit:
                 d_t, d_n, sig = self._tn_partials(state, groups, ne_free)
             else:
                 u_sp, wg, wlz = self._cog_widths(T, ne_, np.ones(self.L.n))
-                sig = sa_slopes(tau, wg, wlz)[0]
+                sig = dln_sa_dln_tau0(tau, wg, wlz)
             cols = self._species_columns(groups)
             nabs = self.absolute_species(sol)
             charged, ln_z = _charges(tuple(sol.ln_n_species))
