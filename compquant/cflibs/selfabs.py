@@ -245,19 +245,24 @@ def _profile_and_faddeeva(wg: np.ndarray, wl: np.ndarray):
     scale = wv[:, None] * 0.5
     # the Voigt profile is even in x: evaluate x ≥ 0 only (φ(0) is its first point) and mirror
     x = _XS_HALF[None, :] * scale
-    w = np.full(x.shape, np.nan, dtype=complex)
     lor = gamma > 0
-    if np.all(lor):
-        half = np.empty(x.shape)
+    if np.all(lor):  # the usual case: every line has a Lorentzian part
+        s = sigma[:, None]
+        z = np.empty(x.shape, dtype=complex)
+        z.real = x / s * _INV_SQRT_2
+        z.imag = gamma[:, None] / s * _INV_SQRT_2
+        w = wofz(z)
+        half = w.real / s / _SQRT_2PI
     else:
+        w = np.full(x.shape, np.nan, dtype=complex)
         half = voigt_profile(x, sigma[:, None], gamma[:, None])
-    if np.any(lor):
-        s = sigma[lor, None]
-        z = np.empty((int(lor.sum()), x.shape[1]), dtype=complex)
-        z.real = x[lor] / s * _INV_SQRT_2
-        z.imag = gamma[lor, None] / s * _INV_SQRT_2
-        w[lor] = wofz(z)
-        half[lor] = w[lor].real / s / _SQRT_2PI
+        if np.any(lor):
+            s = sigma[lor, None]
+            z = np.empty((int(lor.sum()), x.shape[1]), dtype=complex)
+            z.real = x[lor] / s * _INV_SQRT_2
+            z.imag = gamma[lor, None] / s * _INV_SQRT_2
+            w[lor] = wofz(z)
+            half[lor] = w[lor].real / s / _SQRT_2PI
     phi = np.concatenate([half[:, :0:-1], half], axis=1)
     phi0 = half[:, 0].copy()
     out = (phi, _DX[None, :] * scale, phi0, w)
