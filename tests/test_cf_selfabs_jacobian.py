@@ -245,3 +245,44 @@ def test_profile_from_the_kept_faddeeva_values_is_scipys_voigt_profile_bit_for_b
     before = selfabs.sa_factor(tau0, wg, wl)
     sa_slopes(tau0, wg, wl)
     assert selfabs.sa_factor(tau0, wg, wl).tobytes() == before.tobytes()
+
+
+@pytest.mark.parametrize("case", ["stark", "fallback", "measured"])
+def test_lorentz_width_slopes_against_central_differences(case):
+    """∂w_L/∂ln T and ∂w_L/∂ln nₑ of CurveOfGrowth.lorentz_thin (Stark widths w_ref (nₑ/n_ref)^p
+    (T/T_ref)^a with and without T_ref, the fallback ∝ nₑ, the measured-width branch through the
+    Doppler width) against central differences (common practice, O(h²))."""
+    from types import SimpleNamespace
+
+    from compquant.cflibs.selfabs_cog import CurveOfGrowth
+
+    n = 6
+    nan = float("nan")
+    stark = case == "stark"
+    L = SimpleNamespace(
+        n=n, wl=np.array([324.7, 327.4, 404.6, 438.4, 510.6, 521.8]),
+        stark_w=np.array([0.01, 0.02, 0.015, nan, nan, 0.0]) if stark else np.full(n, nan),
+        stark_ne=np.array([1e16, 1e17, 1e16, nan, nan, 1e16]) if stark else np.full(n, nan),
+        stark_t=np.array([1e4, nan, 8e3, nan, nan, nan]), stark_p=np.array([1.0, 0.8, nan, nan, nan, 1.0]),
+        fwhm=np.array([0.05, 0.06, nan, 0.04, 0.045, 0.05]))
+    s = SimpleNamespace(stark_t_exponent=-0.35 if stark else 0.0,
+                        stark_fallback_fwhm_nm=0.012 if case == "fallback" else None,
+                        stark_fallback_ne_cm3=1e17, sa_width_from_measured=case == "measured")
+    cog = CurveOfGrowth()
+    cog.L, cog.s = L, s
+    cog.mass_line = np.array([63.5, 63.5, 55.8, 55.8, 63.5, 63.5])
+    cog.w_instr = np.full(n, 0.03)
+    T, ne = 9500.0, 4e16
+    ones = np.ones(n)
+    wl = cog.lorentz_thin(T, ne, ones)
+    d_t, d_n = cog.lorentz_thin_slopes(T, ne, wl)
+    h = 1e-5
+    c_t = (cog.lorentz_thin(T * math.exp(h), ne, ones) - cog.lorentz_thin(T * math.exp(-h), ne, ones)) / (2 * h)
+    c_n = (cog.lorentz_thin(T, ne * math.exp(h), ones) - cog.lorentz_thin(T, ne * math.exp(-h), ones)) / (2 * h)
+    assert np.any(wl > 0)
+    np.testing.assert_allclose(d_t, c_t, rtol=1e-6, atol=1e-14)
+    np.testing.assert_allclose(d_n, c_n, rtol=1e-6, atol=1e-14)
+    if case == "measured":
+        assert np.any(d_t != 0)  # the measured widths move with the Doppler width
+    if stark:
+        assert d_t[0] != 0 and d_t[1] == 0  # (T/T_ref)^a only where T_ref is given
