@@ -5,7 +5,7 @@ item 6).
 Usage::
 
     /work/venv/bin/python benchmarks/cf_speed.py [--run demo_runs/demo-day1.h5]
-        [--method demo_runs/method.toml] [--repeat 2] [--modes fd,now]
+        [--method demo_runs/method.toml] [--repeat 2] [--modes mixed,now]
 
 Measures the lines of the run once (not timed), then, in ONE process, times ``analyse_cf`` on
 every unknown and check sample (as ``compquant cf`` does, with the method's Monte Carlo draws),
@@ -15,7 +15,9 @@ interleaving the modes ``--repeat`` times:
         every self-absorption integral) and finite-difference Jacobians;
 (fd)    memos on, scipy's finite-difference Jacobian in every column of the self-absorption
         fit (the code before the analytic Jacobian);
-(now)   the default (memos on, analytic intercept and ln L columns).
+(mixed) memos on, analytic intercept and ln L columns, forward differences in the T and ln nₑ
+        columns (the code before the closed-form T and ln nₑ columns);
+(now)   the default (memos on, every column of the Jacobian in closed form).
 
 Prints CPU seconds per sample (process time, best of ``--repeat``), the ratio of each mode to
 the last, the load average, and the largest relative difference between the first mode's and
@@ -50,8 +52,9 @@ from compquant.method import load_method  # noqa: E402
 from compquant.run import Run  # noqa: E402
 
 
-def _memos(on: bool, analytic: bool = True) -> None:
+def _memos(on: bool, analytic: bool = True, analytic_tn: bool = True) -> None:
     SelfAbsFit.ANALYTIC_JACOBIAN = analytic
+    SelfAbsFit.ANALYTIC_TN = analytic_tn
     atomic = default_atomic_data()
     atomic._u_memo.clear()
     atomic._uu_memo.clear()
@@ -90,12 +93,14 @@ def main(argv=None) -> int:
     ap.add_argument("--run", default=str(root / "demo_runs" / "demo-day1.h5"))
     ap.add_argument("--method", default=str(root / "demo_runs" / "method.toml"))
     ap.add_argument("--repeat", type=int, default=2)
-    ap.add_argument("--modes", default="fd,now", help="comma-separated: base, fd, now (default fd,now)")
+    ap.add_argument("--modes", default="mixed,now",
+                    help="comma-separated: base, fd, mixed, now (default mixed,now)")
     a = ap.parse_args(argv)
     modes = [m.strip() for m in a.modes.split(",") if m.strip()]
-    known = {"base": (False, False), "fd": (True, False), "now": (True, True)}
+    known = {"base": (False, False, False), "fd": (True, False, False), "mixed": (True, True, False),
+             "now": (True, True, True)}
     if not modes or any(m not in known for m in modes):
-        print(f"error: --modes takes base, fd, now (got {a.modes!r})", file=sys.stderr)
+        print(f"error: --modes takes base, fd, mixed, now (got {a.modes!r})", file=sys.stderr)
         return 2
     method = load_method(a.method)
     settings = CFSettings.from_section(method.sections.get("cf"), where="[cf]")

@@ -48,6 +48,7 @@ __all__ = [
     "K_B_EV",
     "load_levels",
     "levels",
+    "dln_partition_functions_dln_t",
     "partition_function",
     "partition_function_completeness",
     "level_index",
@@ -297,6 +298,69 @@ def partition_function(
         w = np.exp(-np.outer(beta, e)) * (e[None, :] < (e_ion - low_b.reshape(-1))[:, None])
         u = (w @ g).reshape(T_b.shape)
     return u if u.ndim else float(u)
+
+
+@functools.lru_cache(maxsize=32)
+def _dlnu_plan(names: tuple[str, ...]):
+    """The data of :func:`dln_partition_functions_dln_t` for ``names``, looked up once: per species
+    its kind (0 bare nucleus, 1 tabulated, 2 level sum), the tables, and the level sums' levels
+    below the ionisation energy concatenated (as :func:`partition_function`'s default path)."""
+    kinds, tabs, e_parts, g_parts, starts = [], {}, [], [], []
+    n = 0
+    for k, sp in enumerate(names):
+        sym, ion = parse_species(sp)
+        name = species_name(sym, ion)
+        if ion == _atomic_number(sym) + 1:
+            kinds.append(0)
+        elif _method(name) == "tabulated":
+            kinds.append(1)
+            tabs[k] = _all_tabulated()[name]
+        else:
+            e, g = _shipped_arrays(name)
+            keep = e < ionisation_energy(name)
+            if not np.any(keep):
+                raise AtomicDataError(f"no level of {sp} below its ionisation energy",
+                                      where="partition function derivative", fix="check the level table")
+            kinds.append(2)
+            e_parts.append(e[keep])
+            g_parts.append(g[keep])
+            starts.append(n)
+            n += int(keep.sum())
+    e_all = np.concatenate(e_parts) if e_parts else np.empty(0)
+    g_all = np.concatenate(g_parts) if g_parts else np.empty(0)
+    return np.array(kinds), tabs, e_all, g_all, np.array(starts, dtype=np.intp)
+
+
+def dln_partition_functions_dln_t(names: tuple[str, ...], T: float) -> np.ndarray:
+    """Logarithmic temperature derivative d ln U/d ln T of each species of ``names`` at one
+    temperature T (K), for :func:`partition_function`'s default path (shipped data, no lowering).
+
+    Level sum U = Σ_j g_j e^{−E_j/kT} (Irwin 1981, ApJS 45, 621)::
+
+        d ln U/d ln T = ⟨E⟩/kT = Σ_j g_j E_j e^{−E_j/kT} / (kT · U)
+
+    (the mean excitation energy in units of kT; levels below the ionisation energy, as in the sum);
+    a tabulated species, U = exp(interp(T, t, ln U)) (linear in ln U between the table's
+    temperatures): T · (ln U_{k+1} − ln U_k)/(t_{k+1} − t_k) on the segment holding T (the right
+    one at a table temperature), 0 outside the table (held at its ends); a bare nucleus, 0.
+    Exact derivatives of the functions :func:`partition_function` evaluates; the tests compare
+    them with central differences of it.
+    """
+    T = float(T)
+    _check_t(np.array([T]), names[0] if names else "partition function derivative")
+    kinds, tabs, e_all, g_all, starts = _dlnu_plan(tuple(names))
+    out = np.zeros(len(names))
+    if e_all.size:
+        beta = 1.0 / (K_B_EV * T)
+        w = g_all * np.exp(-beta * e_all)
+        u = np.add.reduceat(w, starts)
+        eu = np.add.reduceat(w * e_all, starts)
+        out[kinds == 2] = beta * eu / u
+    for k, (t, lu) in tabs.items():
+        if t[0] <= T < t[-1]:
+            i = int(np.searchsorted(t, T, side="right")) - 1
+            out[k] = T * (lu[i + 1] - lu[i]) / (t[i + 1] - t[i])
+    return out
 
 
 def _method(name: str) -> str:

@@ -33,7 +33,7 @@ import math
 from collections import OrderedDict
 
 import numpy as np
-from scipy.special import i0e, i1e, voigt_profile
+from scipy.special import dawsn, i0e, i1e, voigt_profile, wofz
 
 from compquant.plasma.constants import KB_EV
 from compquant.plasma.emission import line_absorption_integrated
@@ -49,6 +49,8 @@ _XS_HALF = np.sinh(_U_HALF)
 _XS = np.sinh(_U)
 _DX = np.cosh(_U) * (_U_HALF[1] - _U_HALF[0])
 _MID = _U_HALF.size - 1  # column of x = 0 on the whole grid
+# weights of a sum over the whole grid of an even function given on x ≥ 0: Δx at 0, 2Δx beyond
+_DU_HALF = _DX[_MID:] * np.where(np.arange(_U_HALF.size) == 0, 1.0, 2.0)
 
 
 def _mirror(half: np.ndarray) -> np.ndarray:
@@ -123,6 +125,85 @@ def dln_sa_dln_tau0(tau0, w_gauss_nm, w_lorentz_nm) -> np.ndarray:
     return out
 
 
+def sa_slopes(tau0, w_gauss_nm, w_lorentz_nm):
+    """Partial derivatives of :func:`sa_factor` and of the profile peak φ(λ₀) (per line, 1-D).
+
+    Returns ``(s_tau, s_g, s_l, p_g, p_l)``: s_tau = ∂ln SA/∂ln τ₀ (:func:`dln_sa_dln_tau0`),
+    s_g = ∂ln SA/∂w_G and s_l = ∂ln SA/∂w_L at fixed τ₀ (nm⁻¹), p_g = ∂ln φ₀/∂w_G and
+    p_l = ∂ln φ₀/∂w_L (nm⁻¹) of the area-normalised Voigt peak φ₀ = V(0; σ, γ), σ = w_G/(2√(2 ln 2)),
+    γ = w_L/2.  Exact derivatives of the same discrete integral as :func:`sa_factor`: with
+    P = φ₀ s (s = w_V/2 the grid scale, w_V the Olivero–Longbothum width), ρ_k = φ_k/φ₀ and
+    M = Σ_k g(τ₀ ρ_k) Δu_k (Δu the unscaled grid steps), SA = 1 − P M/τ₀, so at fixed τ₀ and w_G::
+
+        ∂SA/∂w_L = −[∂P/∂w_L · M + P Σ_k (1 − e^{−τ_k}) τ₀ ∂ρ_k/∂w_L Δu_k] / τ₀
+
+    with the Voigt derivatives from the Faddeeva function w(z), z = (x + iγ)/(σ√2),
+    V = Re w(z)/(σ√(2π)), w′(z) = −2z w(z) + 2i/√π (Abramowitz & Stegun 7.1.20)::
+
+        ∂V/∂x = Re w′(z)/(2σ²√π),   ∂V/∂γ = −Im w′(z)/(2σ²√π)
+
+    and x = u·s moving with the grid (∂s/∂w_L = ½(0.5346 + 0.2166 w_L/√(0.2166 w_L² + w_G²))).
+    SA is homogeneous of degree 0 and φ₀ of degree −1 in (w_G, w_L) (both widths scale the grid
+    and the profile alike), so by Euler's theorem w_G s_g + w_L s_l = 0 and
+    w_G p_g + w_L p_l = −1, which give s_g and p_g.  Where :func:`sa_factor` takes its flat
+    branches (τ₀ ≤ 10⁻⁹, SA clipped) s_tau = s_g = s_l = 0.  The tests check every column
+    against central finite differences of :func:`sa_factor` and
+    :func:`compquant.plasma.profiles.voigt`.
+    """
+    t0 = np.asarray(tau0, dtype=float).ravel()
+    wg = np.maximum(np.broadcast_to(np.asarray(w_gauss_nm, dtype=float), t0.shape).ravel(), 1e-12)
+    wl = np.maximum(np.broadcast_to(np.asarray(w_lorentz_nm, dtype=float), t0.shape).ravel(), 0.0)
+    s_tau, s_l = np.zeros_like(t0), np.zeros_like(t0)
+    sigma = wg / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+    gamma = wl / 2.0
+    root = np.sqrt(0.2166 * wl**2 + wg**2)
+    scale = 0.5 * (0.5346 * wl + root)
+    ds_l = 0.5 * (0.5346 + 0.2166 * wl / root)
+    todo = t0 > 1e-9
+    # the profile and w(z) at the widths of the lines sa_factor integrates (its memo entry)
+    phi, _dx, f0, w = _profile_and_faddeeva(wg[todo], wl[todo])
+    sg, gm, sc, dsl = sigma[todo], gamma[todo], scale[todo], ds_l[todo]
+    z = (_XS_HALF[None, :] * sc[:, None] + 1j * gm[:, None]) / (sg[:, None] * math.sqrt(2.0))
+    gauss = gm == 0
+    if np.any(gauss):  # pure Gaussian rows: w(x) = e^{−x²} + 2i/√π·D(x) (Dawson's integral)
+        w = w.copy()
+        zr = z[gauss].real
+        w[gauss] = np.exp(-zr * zr) + 2j / math.sqrt(math.pi) * dawsn(zr)
+    wp = -2.0 * z * w + 2j / math.sqrt(math.pi)
+    c = 1.0 / (2.0 * sg**2 * math.sqrt(math.pi))
+    v_x = wp.real * c[:, None]
+    v_g = -wp.imag * c[:, None]
+    p_l = np.zeros_like(t0)
+    p_l[todo] = 0.5 * v_g[:, 0] / f0
+    if not np.all(todo):  # φ₀ alone for the lines sa_factor leaves at SA = 1: w at x = 0
+        rest = ~todo
+        z0 = 1j * gamma[rest] / (sigma[rest] * math.sqrt(2.0))
+        w0 = wofz(z0)
+        wp0 = -2.0 * z0 * w0 + 2j / math.sqrt(math.pi)
+        p_l[rest] = 0.5 * (-wp0.imag / (2.0 * sigma[rest] ** 2 * math.sqrt(math.pi))) / (
+            w0.real / (sigma[rest] * _SQRT_2PI))
+    p_g = (-1.0 - wl * p_l) / wg
+    if np.any(todo):
+        t = t0[todo]
+        ratio = phi[:, _MID:] / f0[:, None]
+        tau = t[:, None] * ratio
+        em1 = np.expm1(-tau)
+        num = np.sum(_mirror(tau + em1) * _DX[None, :], axis=1)  # M
+        dnum = np.sum(_mirror(-em1 * ratio) * _DX[None, :], axis=1)
+        sa = 1.0 - f0 * sc * num / t
+        inside = (sa > 0.0) & (sa < 1.0)
+        safe = np.where(inside, sa, 1.0)
+        s_tau[todo] = np.where(inside, -f0 * sc * (dnum - num / t) / safe, 0.0)
+        # ∂ρ_k/∂w_L on x ≥ 0; ρ and its derivative are even in x, so the whole grid's sum is the
+        # half grid's with the steps of x > 0 counted twice
+        dr = (v_x * _XS_HALF[None, :] * dsl[:, None] + 0.5 * v_g) / f0[:, None] - ratio * p_l[todo, None]
+        dm = (-em1 * t[:, None] * dr) @ _DU_HALF
+        dp = 0.5 * v_g[:, 0] * sc + f0 * dsl
+        s_l[todo] = np.where(inside, -(dp * num + f0 * sc * dm) / t / safe, 0.0)
+    s_g = -wl * s_l / wg
+    return s_tau, s_g, s_l, p_g, p_l
+
+
 _PROFILE_MEMO: OrderedDict = OrderedDict()
 _PROFILE_MEMO_SIZE = 16
 
@@ -136,6 +217,23 @@ def _profile_on_grid(wg: np.ndarray, wl: np.ndarray):
     copies of the same computation; read-only arrays).  The grid is symmetric and φ even, so φ is
     computed on x ≥ 0 and mirrored (half the Faddeeva evaluations).
     """
+    return _profile_and_faddeeva(wg, wl)[:3]
+
+
+_INV_SQRT_2 = 0.707106781186547524401
+_SQRT_2PI = 2.5066282746310002416123552393401042
+
+
+def _profile_and_faddeeva(wg: np.ndarray, wl: np.ndarray):
+    """:func:`_profile_on_grid`'s ``(φ, dx, φ₀)`` and the Faddeeva function w(z) on x ≥ 0 of the
+    grid, z = (x + iγ)/(σ√2), for the rows with a Lorentzian part (NaN on the other rows).
+
+    φ = Re w(z)/(σ√(2π)) is :func:`scipy.special.voigt_profile` (the same Faddeeva evaluation,
+    z formed and scaled in the same order, so the same numbers bit for bit; the tests check it),
+    so :func:`sa_slopes` needs no second Faddeeva evaluation at the widths of the last SA.  Rows
+    with γ = 0 (pure Gaussian) take :func:`scipy.special.voigt_profile` itself, whose Gaussian
+    branch numpy's exp does not reproduce to the last bit.
+    """
     key = (wg.tobytes(), wl.tobytes())
     hit = _PROFILE_MEMO.get(key)
     if hit is not None:
@@ -146,10 +244,28 @@ def _profile_on_grid(wg: np.ndarray, wl: np.ndarray):
     gamma = wl / 2.0
     scale = wv[:, None] * 0.5
     # the Voigt profile is even in x: evaluate x ≥ 0 only (φ(0) is its first point) and mirror
-    half = voigt_profile(_XS_HALF[None, :] * scale, sigma[:, None], gamma[:, None])
+    x = _XS_HALF[None, :] * scale
+    lor = gamma > 0
+    if np.all(lor):  # the usual case: every line has a Lorentzian part
+        s = sigma[:, None]
+        z = np.empty(x.shape, dtype=complex)
+        z.real = x / s * _INV_SQRT_2
+        z.imag = gamma[:, None] / s * _INV_SQRT_2
+        w = wofz(z)
+        half = w.real / s / _SQRT_2PI
+    else:
+        w = np.full(x.shape, np.nan, dtype=complex)
+        half = voigt_profile(x, sigma[:, None], gamma[:, None])
+        if np.any(lor):
+            s = sigma[lor, None]
+            z = np.empty((int(lor.sum()), x.shape[1]), dtype=complex)
+            z.real = x[lor] / s * _INV_SQRT_2
+            z.imag = gamma[lor, None] / s * _INV_SQRT_2
+            w[lor] = wofz(z)
+            half[lor] = w[lor].real / s / _SQRT_2PI
     phi = np.concatenate([half[:, :0:-1], half], axis=1)
     phi0 = half[:, 0].copy()
-    out = (phi, _DX[None, :] * scale, phi0)
+    out = (phi, _DX[None, :] * scale, phi0, w)
     for a in out:
         a.flags.writeable = False
     _PROFILE_MEMO[key] = out
@@ -202,5 +318,6 @@ __all__ = [
     "sa_from_width",
     "sa_lorentz",
     "sa_reference_line",
+    "sa_slopes",
     "tau0_slab",
 ]

@@ -12,6 +12,7 @@ import math
 import numpy as np
 from scipy.optimize import minimize_scalar
 
+from compquant.cflibs.electron_density import _p as _stark_p
 from compquant.cflibs.electron_density import doppler_fwhm_nm, lorentz_from_voigt, stark_width_linear
 from compquant.cflibs.fitting import wls_batch
 from compquant.cflibs.selfabs import EL_SHERBINI_ALPHA, sa_factor, sa_reference_line, tau0_slab
@@ -104,6 +105,37 @@ class CurveOfGrowth:
             wg = np.sqrt(w_ins[meas] ** 2 + doppler_fwhm_nm(L.wl[meas], T, mass_line[meas]) ** 2)
             wl[meas] = lorentz_from_voigt(L.fwhm[meas], wg) * sa[meas] ** (-EL_SHERBINI_ALPHA)
         return wl
+
+    def lorentz_thin_slopes(self, T: float, ne: float, wl: np.ndarray):
+        """∂w_L/∂ln T and ∂w_L/∂ln nₑ (nm) of :meth:`lorentz_thin` at SA = 1 (as the
+        self-absorption fit uses it), per line, given its value ``wl`` there.
+
+        Lines with Stark data: w_L = w_ref (nₑ/n_ref)^p (T/T_ref)^a
+        (:func:`compquant.cflibs.electron_density.stark_width_linear`), so ∂ln w_L/∂ln nₑ = p and
+        ∂ln w_L/∂ln T = a where the line has a finite T_ref > 0 (else (T/T)^a = 1: 0).  The
+        fallback width is linear in nₑ (∂ln w_L/∂ln nₑ = 1, none in T).  Lines whose width comes
+        from the measured FWHM (``sa_width_from_measured``) depend on T through the Doppler
+        width: central differences of :meth:`lorentz_thin` in ln T (step 10⁻⁴, error O(10⁻⁸)
+        relative); nₑ does not enter them.
+        """
+        L = self.L
+        d_t, d_n = np.zeros(L.n), np.zeros(L.n)
+        have, _w_ref, _ne_ref, t_fin, t_have, p_have = _stark_columns(L)
+        a = float(self.s.stark_t_exponent)
+        d_n[have] = _stark_p(p_have) * wl[have]
+        if a != 0.0:
+            d_t[have] = np.where(t_fin & (t_have > 0), a, 0.0) * wl[have]
+        if self.s.stark_fallback_fwhm_nm:
+            d_n[~have] = wl[~have]
+            return d_t, d_n
+        meas = ~have & np.isfinite(L.fwhm) & (L.fwhm > 0) & bool(self.s.sa_width_from_measured)
+        if np.any(meas):
+            h = 1e-4
+            ones = np.ones(L.n)
+            up = self.lorentz_thin(T * math.exp(h), ne, ones)
+            down = self.lorentz_thin(T * math.exp(-h), ne, ones)
+            d_t[meas] = ((up - down) / (2.0 * h))[meas]
+        return d_t, d_n
 
     def _u_per_line(self, atomic, T: float) -> np.ndarray:
         """U(T) of each line's species (one partition-function call for all the species where the

@@ -9,13 +9,14 @@ import math
 
 import numpy as np
 
+from compquant.atomic.partition import dln_partition_functions_dln_t
 from compquant.cflibs.fitting import paule_mandel_scatter
-from compquant.cflibs.selfabs import dln_sa_dln_tau0
+from compquant.cflibs.selfabs import dln_sa_dln_tau0, sa_slopes
 from compquant.cflibs.selfabs_cog import _charges
 from compquant.cflibs.solver import Model, Solution
 from compquant.errors import AtomicDataError, PhysicsError
+from compquant.plasma.constants import HC_EV_NM, LN_SAHA_PREFACTOR
 from compquant.plasma.constants import KB_EV as K_B_EV
-from compquant.plasma.constants import LN_SAHA_PREFACTOR
 
 
 class SelfAbsFit:
@@ -24,6 +25,9 @@ class SelfAbsFit:
     #: Jacobian of the fit: analytic intercept and ln L columns (see :meth:`_residual_fn`); False
     #: gives scipy's finite differences in every column (``benchmarks/cf_speed.py`` compares them)
     ANALYTIC_JACOBIAN = True
+    #: T and ln nₑ columns in closed form (:meth:`_tn_partials`); False gives forward differences
+    #: in those two columns only (the code before; ``benchmarks/cf_speed.py`` compares them)
+    ANALYTIC_TN = True
 
     def sa_of_beta(self, beta, length_cm, ne_est, groups):
         """SA of every line implied by the fit parameters β (T, intercepts[, ln nₑ]) and L."""
@@ -65,6 +69,151 @@ class SelfAbsFit:
         self._sp_col_memo = (self.model, tuple(groups), cols)
         return cols
 
+    def _dln_u(self, T: float):
+        """∂ln U/∂T (K⁻¹) of the stages I, II, III per element (as :meth:`Model._ln_u_stages`;
+        0 where stage III does not enter) and of each line's species (as :meth:`_u_per_line`).
+
+        With the shipped data (:class:`compquant.cflibs.atomicdata.PackageAtomicData` evaluating
+        :func:`compquant.atomic.partition_function`'s default path for every species) in closed
+        form, :func:`compquant.atomic.partition.dln_partition_functions_dln_t` (⟨E⟩/kT of the level
+        sums, the slope of the tables); for other atomic data by central differences in ln T with
+        step h = 10⁻⁵ (truncation h²/6·∂³ln U/∂(ln T)³ and rounding ε·|ln U|/h, both ~10⁻¹⁰).  A
+        Monte Carlo shift of ln U is constant in T and does not enter.
+        """
+        stages = self.model._stages()
+        atomic = self.model.atomic
+        plan = getattr(self, "_dlnu_plan", None)
+        if plan is None or plan[0] is not self.model or plan[1] is not self.L:
+            # the species, where each stage and line finds its own, and whether the closed form
+            # applies; once per model and line set
+            lines = tuple(str(sp) for sp in self.L.species)
+            names = tuple(dict.fromkeys([r[0] for r in stages] + [r[1] for r in stages]
+                                        + [r[2] for r in stages if r[3]] + list(lines)))
+            ev = getattr(atomic, "_evaluator", None)
+            closed = ev is not None and all(ev(sp) is not None for sp in names)
+            pos = {sp: k for k, sp in enumerate(names)}
+            idx = (np.array([pos[r[0]] for r in stages], dtype=np.intp),
+                   np.array([pos[r[1]] for r in stages], dtype=np.intp),
+                   np.array([pos[r[2]] if r[3] else 0 for r in stages], dtype=np.intp),
+                   np.array([r[3] for r in stages], dtype=bool),
+                   np.array([pos[sp] for sp in lines], dtype=np.intp))
+            plan = (self.model, self.L, names, closed, idx)
+            self._dlnu_plan = plan
+        _m, _l, names, closed, (i1, i2, i3, use3, il) = plan
+        if closed:
+            d = dln_partition_functions_dln_t(names, T) / T
+            return [d[i1], d[i2], np.where(use3, d[i3], 0.0)], d[il]
+        h = 1e-5
+        up, down = np.array([T * math.exp(h)]), np.array([T * math.exp(-h)])
+        lu_up = self.model._ln_u_stages(stages, up)
+        lu_dn = self.model._ln_u_stages(stages, down)
+        d_st = [(a - b)[0] / (2.0 * h * T) for a, b in zip(lu_up, lu_dn)]
+        d_line = (np.log(self._u_per_line(atomic, float(up[0]))) - np.log(self._u_per_line(atomic, float(down[0])))) / (
+            2.0 * h * T)
+        return d_st, d_line
+
+    @staticmethod
+    def _dln_ne_est_dt(ne_est, T: float) -> float:
+        """d ln nₑ/dT (K⁻¹) of an nₑ estimator nₑ(T) (line widths with a Doppler or (T/T_ref)^a
+        part): central differences in ln T, step 10⁻⁵ (error ~10⁻¹⁰ of the slope)."""
+        h = 1e-5
+        up = float(np.atleast_1d(ne_est(np.array([T * math.exp(h)])))[0])
+        down = float(np.atleast_1d(ne_est(np.array([T * math.exp(-h)])))[0])
+        if not (up > 0 and down > 0):
+            return 0.0
+        return (math.log(up) - math.log(down)) / (2.0 * h * T)
+
+    def _tn_partials(self, state, groups, ne_free):
+        """Partial derivatives of the non-linear part of the model ordinate,
+        ŷ_i − x_iᵀβ = [ion] Σ(T, nₑ) + ln SA_i, with respect to T (K⁻¹, at fixed nₑ) and to ln nₑ
+        (at fixed T), all intercepts and L fixed; also σ_i = ∂ln SA_i/∂ln τ₀ for the intercept and
+        ln L columns.  Returns ``(d_T, d_n, sig)``.
+
+        Chain rule through the quantities of :meth:`_slab_state` (docs/calibration-free.md §6):
+
+        * Saha shift of the ion rows, Σ = ln S₀ + 1.5 ln T + ΔE₁/kT [− ln nₑ when nₑ is not
+          fitted], with the Debye–Hückel lowering ΔE ∝ √(nₑ/T) (Griem 1964 §6-3):
+          ∂Σ/∂T = 1.5/T − 1.5 ΔE₁/(kT²), ∂Σ/∂ln nₑ = ΔE₁/(2kT) [− 1];
+        * relative stage densities (:meth:`compquant.cflibs.solver.Model._composition`):
+          ln n_I = β + ln U_I (or ln n_II − ln r₁ for an element seen only as ion, Boltzmann mode),
+          ln n_II = ln n_I + ln r₁, ln n_III = ln n_II + ln r₂ with the Saha ratio
+          ln r_z = ln S₀ + 1.5 ln T − ln nₑ + ln U_{z+1} − ln U_z − (E_z − ΔE_z)/kT, so
+          ∂ln r_z/∂T = 1.5/T + ∂ln U_{z+1}/∂T − ∂ln U_z/∂T + (E_z − 1.5 ΔE_z)/(kT²) and
+          ∂ln r_z/∂ln nₑ = −1 + ΔE_z/(2kT);
+        * absolute densities by charge neutrality (:meth:`absolute_species`),
+          ln n_s = ℓ_s + ln nₑ − ln Σ_c z_c e^{ℓ_c}: ∂ln n_s = ∂ℓ_s + ∂ln nₑ − Σ_c π_c ∂ℓ_c;
+        * peak optical depth (:func:`compquant.cflibs.selfabs.tau0_slab`),
+          ln τ₀ = ln n_s − ln U_s − E_i/kT + ln(1 − e^{−x}) + ln φ₀(w_G, w_L) + const,
+          x = hc/λkT: ∂/∂T adds E_i/(kT²) − x/(T(eˣ − 1));
+        * widths: w_G (Doppler) ∝ √T, w_L from :meth:`lorentz_thin_slopes`;
+        * ln SA_i(τ₀, w_G, w_L) by :func:`compquant.cflibs.selfabs.sa_slopes`.
+
+        ∂ln U/∂T from :meth:`_dln_u` (closed form for the shipped data); everything else is in
+        closed form.
+        """
+        tau, T, ne_, sol = state
+        model = self.model
+        L = self.L
+        kT = K_B_EV * T
+        u_sp, wg, wlz = self._cog_widths(T, ne_, np.ones(L.n))
+        s_tau, s_g, s_l, p_g, p_l = sa_slopes(tau, wg, wlz)
+        # widths: ∂w/∂T and ∂w/∂ln nₑ
+        wg_c = np.maximum(wg, 1e-12)
+        dwg_t = np.where(wg > 1e-12, 0.5 * wg_c / T, 0.0)
+        dwl_lt, dwl_n = self.lorentz_thin_slopes(T, ne_, wlz)
+        dwl_t = np.where(wlz > 0, dwl_lt / T, 0.0)
+        dwl_n = np.where(wlz > 0, dwl_n, 0.0)
+        # relative stage densities per element
+        stages = model._stages()
+        use3, ie1, ie2, _i1, _i2, has1, has2 = model._composition_indices(stages, groups)
+        ie1, ie2 = ie1[0], ie2[0]
+        Ta, na = np.array([T]), np.array([ne_])
+        low1 = model.lowering(Ta, na, 1)[0]
+        low2 = model.lowering(Ta, na, 2)[0]
+        (du1, du2, du3), du_line = self._dln_u(T)
+        dr1_t = 1.5 / T + du2 - du1 + (ie1 - 1.5 * low1) / (kT * T)
+        dr2_t = 1.5 / T + du3 - du2 + (ie2 - 1.5 * low2) / (kT * T)
+        dr1_n = -1.0 + low1 / (2.0 * kT)
+        dr2_n = -1.0 + low2 / (2.0 * kT)
+        if model.mode == "saha-boltzmann":
+            dn1_t, dn1_n = du1, np.zeros_like(du1)
+            dn2_t, dn2_n = dn1_t + dr1_t, dn1_n + dr1_n
+        else:
+            dn1_t = np.where(has1, du1, du2 - dr1_t)
+            dn1_n = np.where(has1, 0.0, -dr1_n)
+            dn2_t = np.where(has2, du2, dn1_t + dr1_t)
+            dn2_n = np.where(has2, 0.0, dn1_n + dr1_n)
+        dn3_t, dn3_n = dn2_t + dr2_t, dn2_n + dr2_n
+        dl_t, dl_n = {}, {}
+        for j, (s1, s2, s3, u3) in enumerate(stages):
+            dl_t[s1], dl_n[s1] = dn1_t[j], dn1_n[j]
+            dl_t[s2], dl_n[s2] = dn2_t[j], dn2_n[j]
+            if u3:
+                dl_t[s3], dl_n[s3] = dn3_t[j], dn3_n[j]
+        # charge neutrality: the electrons' shares π_c = z_c n_c/nₑ
+        nabs = self.absolute_species(sol)
+        names = list(sol.ln_n_species)
+        charged, ln_z = _charges(tuple(names))
+        zc = np.zeros(len(names))
+        zc[charged] = np.exp(ln_z)
+        pi = np.array([zc[k] * nabs[nm] / ne_ for k, nm in enumerate(names)])
+        mean_t = float(sum(pi[k] * dl_t[nm] for k, nm in enumerate(names)))
+        mean_n = float(sum(pi[k] * dl_n[nm] for k, nm in enumerate(names)))
+        dln_ns_t = np.array([dl_t[str(sp)] for sp in L.species]) - mean_t
+        dln_ns_n = np.array([dl_n[str(sp)] for sp in L.species]) + 1.0 - mean_n
+        # peak optical depth (the widths' share through φ₀ is added with the SA's own)
+        x = HC_EV_NM / (L.wl * kT)  # hc/λkT
+        dtau_t = dln_ns_t - du_line + L.ei / (kT * T) - x / (T * np.expm1(x))
+        dtau_n = dln_ns_n
+        g_w = s_g + s_tau * p_g  # total ∂ln SA/∂w_G through the SA and φ₀
+        l_w = s_l + s_tau * p_l
+        d_t = s_tau * dtau_t + g_w * dwg_t + l_w * dwl_t
+        d_n = s_tau * dtau_n + l_w * dwl_n
+        ion = model.is_ion
+        d_t = d_t + np.where(ion, 1.5 / T - 1.5 * low1 / (kT * T), 0.0)
+        d_n = d_n + np.where(ion, low1 / (2.0 * kT) - (0.0 if ne_free else 1.0), 0.0)
+        return d_t, d_n, s_tau
+
     def initial_beta(self, T0, ne_est, X, y_raw):
         """Fit parameters with the slope fixed at −1/kT0 (a start that needs no negative slope)."""
         m0 = -1.0 / (K_B_EV * T0)
@@ -96,11 +245,13 @@ class SelfAbsFit:
             ∂r_i/∂ln L = −√w_i σ_i
 
         where σ_i = ∂ln SA/∂ln τ₀ at fixed widths (:func:`compquant.cflibs.selfabs.dln_sa_dln_tau0`)
-        and π_c = z_c n_c/nₑ the share of charged species c in the electrons.  The slope (T) and
-        ln nₑ columns, which also move the widths, U(T), the Saha and lowering terms, are forward
-        differences with scipy's step (√ε·max(1, |θ|), turned back at a bound) — two residual
-        evaluations per Jacobian instead of one per parameter.  The tests compare the whole
-        Jacobian with central differences.
+        and π_c = z_c n_c/nₑ the share of charged species c in the electrons.  The slope (θ₀ = m =
+        −1/kT, so dT/dm = kT²) and ln nₑ columns, which also move the widths, U(T), the Saha and
+        lowering terms, are in closed form too (:meth:`_tn_partials`; ∂ln U/∂T and the slope of an
+        nₑ estimator nₑ(T) by central differences of those cheap functions alone), so a Jacobian
+        costs no evaluation of the model beyond its base point; with :attr:`ANALYTIC_TN` off they
+        are forward differences with scipy's step (√ε·max(1, |θ|), turned back at a bound).  The
+        tests compare the whole Jacobian with central differences.
         """
         s = self.s
         ne_free = ne_est is None
@@ -161,8 +312,11 @@ class SelfAbsFit:
             if state is None:
                 return J  # the constant residual of an invalid point
             tau, T, ne_, sol = state
-            u_sp, wg, wlz = self._cog_widths(T, ne_, np.ones(self.L.n))
-            sig = dln_sa_dln_tau0(tau, wg, wlz)
+            if self.ANALYTIC_TN:
+                d_t, d_n, sig = self._tn_partials(state, groups, ne_free)
+            else:
+                u_sp, wg, wlz = self._cog_widths(T, ne_, np.ones(self.L.n))
+                sig = dln_sa_dln_tau0(tau, wg, wlz)
             cols = self._species_columns(groups)
             nabs = self.absolute_species(sol)
             charged, ln_z = _charges(tuple(sol.ln_n_species))
@@ -179,6 +333,13 @@ class SelfAbsFit:
                 J[:, j] = -sw * (X[:, j] + sig * dln_n)
             if fit_length:
                 J[:, -1] = -sw * sig
+            if self.ANALYTIC_TN:
+                # θ₀ = m = −1/kT: dT/dm = kT²; nₑ from an estimator ne_est(T) moves with T
+                g = 0.0 if ne_free else self._dln_ne_est_dt(ne_est, T)
+                J[:, 0] = -sw * (X[:, 0] + K_B_EV * T * T * (d_t + g * d_n))
+                if ne_free:
+                    J[:, p - 1] = -sw * (X[:, p - 1] + d_n)
+                return J
             eps = np.finfo(float).eps ** 0.5
             for j in fd_cols:
                 h = eps * max(1.0, abs(theta[j])) * (1.0 if theta[j] >= 0 else -1.0)
