@@ -70,3 +70,24 @@ def test_saha_balance_ne_follows_the_neutral_slope_error(t_ratio):
     # is a 20–25 % nₑ error
     gain = math.log(r1.electron_density_cm3 / ne0) / math.log(T1 / T0)
     assert 10.0 < gain < 14.0
+
+
+def test_reported_coupling_and_t_share_match_the_hand_formulas():
+    T0, ne0 = 9000.0, 8.0e16
+    lt = cf_hand.line_table({"Fe": 1.0}, T0, ne0, lowering=False, stage3=False, lines=LINES)
+    r = _analyse(lt)
+    saha = next(e for e in r.ne_estimates if e["method"] == "saha")
+    neutral = lt["ion"] == 1
+    x = lt.loc[neutral, "ek_ev"].to_numpy()
+    xbar = float(x.mean())  # equal weights (one grade, one relative u)
+    d = cf_hand.IONISATION["Fe I"] + 4.768 - xbar
+    # d ln nₑ/d ln T = 1.5 + (x*_II − x̄)/kT (hand derivation above; k/e from scipy.constants)
+    assert saha["dln_ne_dln_t"] == pytest.approx(1.5 + d / (KB_EV * T0), rel=1e-6)
+    # ρ² of ln nₑ = q + m x*_II − y*_II with the straight-line variances of weighted least
+    # squares (Bevington & Robinson ch. 6): var(q + m x̄) = σ²/N, var(m) = σ²/S_xx, plus the
+    # ion line's own σ² — all lines carry the same ordinate u here
+    u = {row["line_id"]: row["u_ordinate"] for row in r.lines}
+    assert len(set(np.round(list(u.values()), 12))) == 1
+    sxx = float(np.sum((x - xbar) ** 2))
+    rho2 = (d**2 / sxx) / (1.0 / len(x) + d**2 / sxx + 1.0)
+    assert saha["t_share_of_u_ln_ne"] == pytest.approx(rho2, rel=1e-6)
