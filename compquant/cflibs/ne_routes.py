@@ -15,6 +15,28 @@ from compquant.cflibs.solver import Model
 from compquant.errors import PhysicsError
 
 
+def saha_t_coupling(sol) -> dict:
+    """How the Saha-balance nₑ follows the fitted T (docs/calibration-free.md §3).
+
+    With ln nₑ a fitted parameter the ion lines fix nₑ, and T rests on the neutral lines; a
+    slope error dm (m = −1/kT, so dm = −m d ln T) moves ln nₑ along the fit's covariance, and the
+    Saha shift adds its T^{3/2}:
+
+        d ln nₑ/d ln T = 1.5 + (−m) cov(ln nₑ, m)/var(m)  ≈ 1.5 + (x*_II − x̄)/kT,
+
+    x*_II = E_ion + E_k of the ion lines, x̄ the weighted mean E_k of the neutral lines (the
+    Debye–Hückel term's own, small T dependence left out).  ``t_share_of_u_ln_ne`` is the share of
+    the fit's var(ln nₑ) that the slope explains, ρ² = cov²/(var(m) var(ln nₑ)).  Returns
+    ``dln_ne_dln_t`` and ``t_share_of_u_ln_ne`` (empty when the covariance is degenerate).
+    """
+    c = np.asarray(sol.fit.cov[0], float)
+    v_m, v_n, c_mn = float(c[0, 0]), float(c[-1, -1]), float(c[0, -1])
+    if not (v_m > 0 and v_n > 0 and np.isfinite(c_mn)):
+        return {}
+    m = float(sol.slope[0])
+    return {"dln_ne_dln_t": 1.5 + (-m) * c_mn / v_m, "t_share_of_u_ln_ne": c_mn**2 / (v_m * v_n)}
+
+
 class NeRoutes:
     """Mixin of :class:`compquant.cflibs.analysis._Analysis`: the electron-density routes."""
 
@@ -97,7 +119,8 @@ class NeRoutes:
                             "u_ne_cm3": float(sb.ne[0] * sb.u_ln_ne_fit[0]),
                             "lines": [str(x) for x in self.L.line_id[np.isin(self.L.element,
                                                                          self.model.both_stage_elements)]],
-                            "used": self.ne_name == "saha", "temperature_k": float(sb.T[0])})
+                            "used": self.ne_name == "saha", "temperature_k": float(sb.T[0]),
+                            **saha_t_coupling(sb)})
             except PhysicsError as exc:
                 out.append({"method": "saha", "ne_cm3": None, "u_ne_cm3": None, "lines": [],
                             "used": False, "note": exc.what})
