@@ -195,14 +195,14 @@ def test_two_point_formula_and_one_point_fallback():
     from compquant.calibrate.drift import apply_drift, correct, drift_coefficients, two_point
 
     # two-point (common practice): references 100 / 10, measured 80 / 9 -> alpha = 90/71
-    c = two_point([(100.0, 80.0, 0.0, "H"), (10.0, 9.0, 0.0, "L")])
+    c = two_point([(100.0, 80.0, 0.0, "H", 0.0), (10.0, 9.0, 0.0, "L", 0.0)])
     assert c["kind"] == "two-point"
     assert c["alpha"] == pytest.approx(90 / 71)
     assert c["beta"] == pytest.approx(10 - 90 / 71 * 9)
     y, u = correct(np.array([80.0, 9.0]), np.array([0.0, 0.0]), c)
     np.testing.assert_allclose(y, [100.0, 10.0])
     # a matrix line, high in both setup samples: one-point factor sum R / sum M
-    c1 = two_point([(100.0, 90.0, 1.0, "H"), (80.0, 70.0, 1.0, "L")])
+    c1 = two_point([(100.0, 90.0, 1.0, "H", 0.5), (80.0, 70.0, 1.0, "L", 0.5)])
     assert c1["kind"] == "one-point" and c1["alpha"] == pytest.approx(180 / 160)
     lt = pd.DataFrame({"sample_id": ["H", "L", "X"], "role": ["setup", "setup", "unknown"],
                        "line_id": ["L1"] * 3, "intensity": [80.0, 9.0, 40.0], "u_intensity": [0.5, 0.2, 0.3]})

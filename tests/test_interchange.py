@@ -79,12 +79,13 @@ def test_specutils_spectrum_has_astropy_units_and_medium():
 DEMO = Path(__file__).resolve().parents[1] / "demo_runs"
 
 #: SHA-256 of the values (dtype, shape, bytes: scripts/add_run_axes.py dataset_digests) of /spectra
-#: in the demo runs as shipped: regenerated on 2026-12-02 with the shipped atomic database
-#: (files e2bcbd51... and 279098e6..., demo_runs/README.md); the spectra of the files before
-#: (simulated with the 234-line list) were cd5c3f22... and 82473099...
+#: in the demo runs as shipped: regenerated on 2026-12-02 with 120-shot setup samples of new
+#: compositions (files d552a13c... and 84e7beb5..., demo_runs/README.md); the spectra before were
+#: 2b904b78... and 10f955a4... (shipped database, 40-shot setup samples) and, simulated with the
+#: 234-line list, cd5c3f22... and 82473099...
 DEMO_SPECTRA_SHA256 = {
-    "demo-day1.h5": "2b904b78522856668fa7be7720ec71ee50a1d8fefeb0c0bbc9af57462bf7923d",
-    "demo-day2.h5": "10f955a481ace3cee4e43b69aea46d957199fad0e8c3b669d966156cf62fe17b",
+    "demo-day1.h5": "6eea485c589eb92b8d478b75458bb235d31a20e5f03f4532ecfde0e5d34daffb",
+    "demo-day2.h5": "e440a86a67a143f79f66d06866f9d374e166ff8c7073a444fb2d6dbfe0584373",
 }
 
 

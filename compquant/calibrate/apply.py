@@ -38,7 +38,7 @@ import pandas as pd
 from compquant import results as _results
 from compquant.calibrate.build import certified_table, standard_map
 from compquant.calibrate.checks import check_verdict, en_number, z_score, zeta_score
-from compquant.calibrate.drift import correct, reference_response, two_point
+from compquant.calibrate.drift import correct, reference_response, response_key, two_point
 from compquant.calibrate.model import Calibration
 from compquant.calibrate.predict import coverage_factor, pls_rows, predict_sample, sample_rows
 from compquant.calibrate.response import sample_responses
@@ -310,7 +310,7 @@ def _drift_standardise(curves, resp, calibration, smap, drift_mode, run_sha256) 
     coefs, missing = {}, []
     setups = [s for s, (role, _) in smap.items() if role == "setup"]
     for el, c in curves.items():
-        key = c.line_id + (f" / {c.internal_standard}" if c.internal_standard else "")
+        key = response_key(c.line_id, c.internal_standard)
         coef = two_point(_setup_points(c, resp[el], setups, calibration.setup_reference))
         if coef is None:
             missing.append(key)
@@ -340,10 +340,12 @@ def _drift_standardise(curves, resp, calibration, smap, drift_mode, run_sha256) 
 
 
 def _setup_points(c, resp_el, setups, setup_reference) -> list:
-    """``(reference, now, u_now, sample)`` of each setup sample measured now for curve ``c``.
+    """``(reference, now, u_now, sample, u_reference)`` of each setup sample measured now for curve ``c``.
 
-    A setup measurement scatters about its expected response like any sample: its repeatability
-    plus the curve's excess scatter sigma_m (docs/calibration.md).
+    A setup disc is compared with itself (calibration day against today): how far the material
+    lies off the curve (the curve's excess scatter sigma_m) is the same on both days and cancels,
+    so ``u_now`` is today's repeatability of the response and ``u_reference`` the one stored with
+    the reference (:mod:`compquant.calibrate.drift`, docs/calibration.md sec. 9).
     """
     pts = []
     for sid in setups:
@@ -351,9 +353,7 @@ def _setup_points(c, resp_el, setups, setup_reference) -> list:
         if ref is None or sid not in resp_el.index:
             continue
         m = resp_el.loc[sid]
-        uy = float(m["u_y"])
-        w0 = 1.0 / uy**2 if (c.weighted and uy > 0) else 1.0
-        pts.append((ref[0], float(m["y"]), float(np.sqrt(uy**2 + c.sigma_m2 / w0)), sid))
+        pts.append((float(ref[0]), float(m["y"]), float(m["u_y"]), sid, float(ref[1])))
     return pts
 
 

@@ -272,7 +272,7 @@ def calibrate(
         matrix_element=config.matrix_element,
         curves=curves,
         rejected=rejected,
-        setup_reference=reference_intensities(line_table),
+        setup_reference=reference_intensities(line_table, curves, shot_table),
         settings=config.to_dict(),
         lines=lines,
         pls=pls,

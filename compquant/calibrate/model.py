@@ -262,7 +262,8 @@ class Calibration:
     rejected : dict
         Element -> reason, for analytes whose curve could not be made.
     setup_reference : dict
-        Setup sample -> line -> ``[I, u]``, the references of drift standardisation.
+        Setup sample -> line -> ``[I, u]`` and, per ratio curve, ``"<line> / <internal standard>"``
+        -> ``[R, u]`` (its response), the references of drift standardisation.
     settings : dict
         The validated ``[calibration]`` section.
     lines : list of str
@@ -302,7 +303,7 @@ class Calibration:
     matrix_element: str | None
     curves: dict  # element -> Curve
     rejected: dict = field(default_factory=dict)  # element -> reason
-    setup_reference: dict = field(default_factory=dict)  # sample -> line -> [I, u]
+    setup_reference: dict = field(default_factory=dict)  # sample -> line or response key -> [value, u]
     settings: dict = field(default_factory=dict)  # validated [calibration] section
     lines: list = field(default_factory=list)
     pls: dict | None = None
