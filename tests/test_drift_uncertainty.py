@@ -137,3 +137,28 @@ def test_setup_points_carry_repeatability_only_and_stored_reference_u():
         legacy = reference_response(old, sid, c.line_id, c.internal_standard)
         assert legacy[0] == pytest.approx(stored[0], rel=1e-9)
         assert legacy[1] > stored[1]
+
+
+def test_drift_terms_do_not_scale_the_matrix_part():
+    """The matrix part of a prediction is sigma_m^2 / w_0 with w_0 the unknown's *repeatability*
+    weight, as the standards' weights are (the multiplicative between-standards model, Birge
+    1932): after a drift standardisation u_y also holds the setup terms, which must not widen it.
+    Checked on the curve itself: the matrix part with the corrected response equals the one the
+    repeatability alone (alpha u_y) gives, and the setup terms appear in the repeatability entry."""
+    lt, st, sm, std, _ = make_tables(2)
+    cfg = parse_calibration_section(config_dict(models={"Zn": "weighted"}))
+    cal = calibrate(lt, std, cfg, shot_table=st, samples=sm, run_sha256="run-a", method_id="m1", method_sha256="h1")
+    c = cal.curves["Zn"]
+    assert c.weighted and c.sigma_m2 > 0
+    hi, lo = CASES[0][2], CASES[0][3]
+    coef = two_point([(hi[0], hi[1], hi[2], "H", hi[3]), (lo[0], lo[1], lo[2], "L", lo[3])])
+    y_raw, u_raw = 0.8 * float(c.response(0.3)[0]), 0.004
+    y, u = correct(y_raw, u_raw, coef)
+    u_rep = abs(coef["alpha"]) * u_raw
+    assert float(u) > 1.5 * u_rep  # the setup terms are not negligible here
+    p = c.predict_content(float(y), float(u), 40, u_weight=u_rep)
+    p_rep = c.predict_content(float(y), u_rep, 40)
+    assert p["budget"]["matrix"] == pytest.approx(p_rep["budget"]["matrix"], rel=1e-12)
+    assert p["budget"]["repeatability"] == pytest.approx(float(u) ** 2 / p["dydx"] ** 2, rel=1e-12)
+    old = c.predict_content(float(y), float(u), 40)  # former behaviour: w_0 from the whole u
+    assert old["budget"]["matrix"] > 10 * p["budget"]["matrix"]

@@ -319,6 +319,9 @@ def _drift_standardise(curves, resp, calibration, smap, drift_mode, run_sha256) 
         coefs[key] = coef
         r = resp[el].copy()
         y, u = correct(r["y"].to_numpy(float), r["u_y"].to_numpy(float), coef)
+        # the repeatability part, scaled by the correction: it alone weights the matrix part
+        # of the prediction (Curve.predict_content, u_weight); u_y adds the setup terms
+        r["u_rep_y"] = np.abs(coef["alpha"]) * r["u_y"].to_numpy(float)
         r["y"], r["u_y"] = y, u
         resp[el] = r
     if coefs:

@@ -21,6 +21,10 @@ and interferer contents ``x_j`` (``u_j``), the content ``x0`` solves
   apart with a handful of standards), plus the unknown's own repeatability
   ``u0`` in place of the standards' (``w_0 = 1`` for unweighted fits,
   ``1/u0^2`` for weighted ones -- the statsmodels WLS prediction variance).
+  The weight ``w_0`` is the unknown's *repeatability* weight, as the standards'
+  weights are: after a drift standardisation ``u0`` also holds the setup
+  measurements' terms, which are not repeatability of the sample and do not
+  scale its matrix part (``u_weight``, docs/calibration.md sec. 9).
 
 For an OLS straight line with equal repeatabilities and exact certified values
 this is ISO 8466-1:1990, eq. (21) with one measurement of the sample::
@@ -100,16 +104,20 @@ class Curve:
         return design_matrix(self.terms, np.atleast_1d(np.asarray(x, float)), xi) @ self._beta()
 
     def predict_content(
-        self, y0: float, u0: float, n_shots: int | None = None, xi=None, u_xi=None, where: str | None = None
+        self, y0: float, u0: float, n_shots: int | None = None, xi=None, u_xi=None, where: str | None = None,
+        u_weight: float | None = None,
     ) -> dict:
         """Content ``x0`` of an unknown and its standard uncertainty (see module docstring).
+
+        ``u_weight``: the repeatability part of ``u0`` that sets the weight ``w_0`` of the matrix
+        part (default ``u0``; smaller after a drift standardisation, whose terms ``u0`` includes).
 
         Returns ``{x, u, dof, dydx, dx_dxi: {el: ...}, budget: {...}}``.  A curve whose numbers
         give no finite answer (zero slope at the sample, overflow: a degenerate or edited
         calibration) raises :class:`CalibrationError` instead of a bare arithmetic error.
         """
         try:
-            out = self._predict_content(y0, u0, n_shots, xi, u_xi, where)
+            out = self._predict_content(y0, u0, n_shots, xi, u_xi, where, u_weight)
         except (ZeroDivisionError, OverflowError, FloatingPointError, ValueError) as exc:
             raise CalibrationError(
                 f"the curve cannot be evaluated at this response ({exc})",
@@ -124,7 +132,7 @@ class Curve:
             )
         return out
 
-    def _predict_content(self, y0, u0, n_shots, xi, u_xi, where) -> dict:
+    def _predict_content(self, y0, u0, n_shots, xi, u_xi, where, u_weight=None) -> dict:
         xi = {k: float(v) for k, v in (xi or {}).items()}
         u_xi = {k: float(v) for k, v in (u_xi or {}).items()}
         beta = self._beta()
@@ -136,7 +144,8 @@ class Curve:
         C = np.asarray(self.cov, float)
         v_fit = float(g @ C @ g)
         u0 = float(u0) if np.isfinite(u0) else 0.0
-        w0 = 1.0 / u0**2 if (self.weighted and u0 > 0) else 1.0
+        uw = u0 if u_weight is None or not np.isfinite(u_weight) else min(float(u_weight), u0)
+        w0 = 1.0 / uw**2 if (self.weighted and uw > 0) else 1.0
         w0 = min(w0, self._matrix_weight(y0))
         v_matrix = self.sigma_m2 / w0
         v_rep = u0**2

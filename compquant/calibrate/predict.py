@@ -166,7 +166,7 @@ def predict_sample(sid, ok, curves, resp) -> tuple[dict, dict]:
             uxi = {it["element"]: ucur.get(it["element"], 0.0) for it in c.interferences}
             try:
                 p = c.predict_content(float(r["y"]), float(r["u_y"]), int(r["n_shots"]), xi, uxi,
-                                      where=f"sample {sid}, {el}")
+                                      where=f"sample {sid}, {el}", u_weight=float(r.get("u_rep_y", r["u_y"])))
             except CalibrationError as exc:
                 failed[el] = exc.one_line()
                 continue
