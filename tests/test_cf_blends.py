@@ -51,11 +51,48 @@ def test_window_response_of_a_voigt_line_matches_quadrature_of_scipy_voigt_profi
                               points=[offset] if lo < offset < hi else None, limit=200)[0]
 
     want = p(-h, h) - h / side * (p(-h - gap - side, -h - gap) + p(h + gap, h + gap + side))
-    # the Gauss–Legendre quadrature of abs_cdf resolves the far Lorentzian tail to a few 1e-5 of the area
-    assert float(window_response(offset, window, side, gap, wg, wl)) == pytest.approx(want, abs=1e-4)
+    assert float(window_response(offset, window, side, gap, wg, wl)) == pytest.approx(want, abs=1e-6)
     # at offset 0 the response is the capture fraction of §1a
     assert float(window_response(0.0, window, side, gap, wg, wl)) == pytest.approx(
         float(window_capture_fraction(window, side, gap, wg, wl)), abs=1e-12)
+
+
+def test_far_wing_response_matches_scipy_and_does_not_flip_sign():
+    # reference: scipy.special.voigt_profile integrated with scipy.integrate.quad.  The case of
+    # docs/calibration-free.md §11 (seed 7, MA02): Al I 308.215 (Gaussian FWHM 0.0618 nm, Stark
+    # 0.0084–0.0092 nm) 0.626 nm from the window of Zn I 307.590.  Its convex Lorentzian wing
+    # puts more into the side bands than the window: c < 0 for every width (the old quadrature
+    # gave c of either sign, ±3e-4, as the Stark width moved by 10 %).
+    window, side, gap, offset, wg = 0.2, 0.08, 0.02, 0.626, 0.0618
+    h = window / 2
+    for wl in (0.0084, 0.0088, 0.0092):
+        sigma, gamma = wg * FWHM_TO_SIGMA, wl / 2
+
+        def p(lo, hi, sigma=sigma, gamma=gamma):
+            return integrate.quad(lambda x: special.voigt_profile(x - offset, sigma, gamma), lo, hi,
+                                  epsabs=1e-14, epsrel=1e-10, limit=200)[0]
+
+        want = p(-h, h) - h / side * (p(-h - gap - side, -h - gap) + p(h + gap, h + gap + side))
+        got = float(window_response(offset, window, side, gap, wg, wl))
+        assert want < 0
+        assert got == pytest.approx(want, rel=1e-3, abs=1e-9)
+
+
+@pytest.mark.parametrize("ratio", [0.16, 0.5, 0.95])
+def test_abs_cdf_tail_against_scipy_out_to_forty_gaussian_sigma(ratio):
+    # P(|X| > x) = 2∫_x^∞ voigt_profile (scipy.special.voigt_profile, scipy.integrate.quad), γ/σ < 1
+    # (the Gauss–Legendre branch): the far wing is taken by the Gauss–Hermite form beyond 4σ
+    from compquant.cflibs.capture import abs_cdf
+
+    wg = 0.0618
+    sigma = wg * FWHM_TO_SIGMA
+    gamma = ratio * sigma
+    for k in (1.0, 3.0, 3.9, 4.1, 6.0, 10.0, 24.0, 40.0):
+        x = k * sigma
+        want = 2 * integrate.quad(lambda t: special.voigt_profile(t, sigma, gamma), x, np.inf,
+                                  epsabs=1e-15, epsrel=1e-11, limit=500)[0]
+        got = 1.0 - float(abs_cdf(x, wg, 2 * gamma))
+        assert got == pytest.approx(want, rel=1e-5, abs=1e-12), k
 
 
 def test_voigt_cdf_against_scipy_integration():
