@@ -79,13 +79,14 @@ def test_specutils_spectrum_has_astropy_units_and_medium():
 DEMO = Path(__file__).resolve().parents[1] / "demo_runs"
 
 #: SHA-256 of the values (dtype, shape, bytes: scripts/add_run_axes.py dataset_digests) of /spectra
-#: in the demo runs as shipped: regenerated on 2026-12-02 with 120-shot setup samples of new
-#: compositions (files d552a13c... and 84e7beb5..., demo_runs/README.md); the spectra before were
-#: 2b904b78... and 10f955a4... (shipped database, 40-shot setup samples) and, simulated with the
-#: 234-line list, cd5c3f22... and 82473099...
+#: in the demo runs as shipped: regenerated on 2026-12-02 (late evening) with a new SET-LO and a
+#: third setup disc SET-MN (files 35ef4254... and 96afbc60..., demo_runs/README.md); the spectra
+#: before were 6eea485c... and e440a86a... (two 120-shot setup samples), 2b904b78... and
+#: 10f955a4... (shipped database, 40-shot setup samples) and, simulated with the 234-line list,
+#: cd5c3f22... and 82473099...
 DEMO_SPECTRA_SHA256 = {
-    "demo-day1.h5": "6eea485c589eb92b8d478b75458bb235d31a20e5f03f4532ecfde0e5d34daffb",
-    "demo-day2.h5": "e440a86a67a143f79f66d06866f9d374e166ff8c7073a444fb2d6dbfe0584373",
+    "demo-day1.h5": "27b57378345909b90a9a37d0c02a889176cd0201c7e7563b1c802a78a8c33c5c",
+    "demo-day2.h5": "6be4e171f27a9449df46c6fe88020fc244cfb8e56d6a9fe05454f87945bccf0d",
 }
 
 

@@ -198,7 +198,7 @@ class Run:
     >>> from compquant import Run
     >>> with Run.open("demo_runs/demo-day1.h5") as run:
     ...     print(run.n_shots, run.wavelength.size, run.medium)
-    880 12288 air
+    1000 12288 air
     """
 
     def __init__(self, path: str | os.PathLike, memory_limit_bytes: int | None = None):
