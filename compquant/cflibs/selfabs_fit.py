@@ -123,11 +123,21 @@ class SelfAbsFit:
             return 0.0
         return (math.log(up) - math.log(down)) / (2.0 * h * T)
 
-    def _tn_partials(self, state, groups, ne_free):
+    def _electron_shares(self, sol, ne_) -> tuple[list, np.ndarray]:
+        """Species of the solution and their shares of the electrons, π_c = z_c n_c/nₑ (0 for
+        neutral species), from the absolute densities of charge neutrality."""
+        nabs = self.absolute_species(sol)
+        names = list(sol.ln_n_species)
+        charged, ln_z = _charges(tuple(names))
+        z = np.zeros(len(names))
+        z[charged] = np.exp(ln_z)
+        return names, np.array([z[k] * nabs[nm] / ne_ for k, nm in enumerate(names)])
+
+    def _tn_partials(self, state, groups, ne_free, shares):
         """Partial derivatives of the non-linear part of the model ordinate,
         ŷ_i − x_iᵀβ = [ion] Σ(T, nₑ) + ln SA_i, with respect to T (K⁻¹, at fixed nₑ) and to ln nₑ
         (at fixed T), all intercepts and L fixed; also σ_i = ∂ln SA_i/∂ln τ₀ for the intercept and
-        ln L columns.  Returns ``(d_T, d_n, sig)``.
+        ln L columns; ``shares`` is :meth:`_electron_shares` of the state.  Returns ``(d_T, d_n, sig)``.
 
         Chain rule through the quantities of :meth:`_slab_state` (docs/calibration-free.md §6):
 
@@ -191,12 +201,7 @@ class SelfAbsFit:
             if u3:
                 dl_t[s3], dl_n[s3] = dn3_t[j], dn3_n[j]
         # charge neutrality: the electrons' shares π_c = z_c n_c/nₑ
-        nabs = self.absolute_species(sol)
-        names = list(sol.ln_n_species)
-        charged, ln_z = _charges(tuple(names))
-        zc = np.zeros(len(names))
-        zc[charged] = np.exp(ln_z)
-        pi = np.array([zc[k] * nabs[nm] / ne_ for k, nm in enumerate(names)])
+        names, pi = shares
         mean_t = float(sum(pi[k] * dl_t[nm] for k, nm in enumerate(names)))
         mean_n = float(sum(pi[k] * dl_n[nm] for k, nm in enumerate(names)))
         dln_ns_t = np.array([dl_t[str(sp)] for sp in L.species]) - mean_t
@@ -312,21 +317,17 @@ class SelfAbsFit:
             if state is None:
                 return J  # the constant residual of an invalid point
             tau, T, ne_, sol = state
+            names, pi = shares = self._electron_shares(sol, ne_)
             if self.ANALYTIC_TN:
-                d_t, d_n, sig = self._tn_partials(state, groups, ne_free)
+                d_t, d_n, sig = self._tn_partials(state, groups, ne_free, shares)
             else:
                 u_sp, wg, wlz = self._cog_widths(T, ne_, np.ones(self.L.n))
                 sig = dln_sa_dln_tau0(tau, wg, wlz)
             cols = self._species_columns(groups)
-            nabs = self.absolute_species(sol)
-            charged, ln_z = _charges(tuple(sol.ln_n_species))
-            names = list(sol.ln_n_species)
-            z = np.zeros(len(names))
-            z[charged] = np.exp(ln_z)
             share = {}  # Σ_c π_c δ_col(c),j per column j
             for k, nm in enumerate(names):
-                if z[k] > 0:
-                    share[cols[nm]] = share.get(cols[nm], 0.0) + z[k] * nabs[nm] / ne_
+                if pi[k] > 0:
+                    share[cols[nm]] = share.get(cols[nm], 0.0) + pi[k]
             col_of_line = np.array([cols[str(sp)] for sp in self.L.species])
             for j in q_cols:
                 dln_n = (col_of_line == j).astype(float) - share.get(j, 0.0)
