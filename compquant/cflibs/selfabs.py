@@ -224,6 +224,16 @@ _INV_SQRT_2 = 0.707106781186547524401
 _SQRT_2PI = 2.5066282746310002416123552393401042
 
 
+def _faddeeva_voigt(x: np.ndarray, s: np.ndarray, g: np.ndarray):
+    """``(w(z), V)`` at ``x`` for Gaussian σ ``s`` and Lorentzian γ ``g`` > 0 (columns), with
+    z = (x + iγ)/(σ√2) and V = Re w(z)/(σ√(2π)), formed in scipy.special.voigt_profile's order."""
+    z = np.empty(x.shape, dtype=complex)
+    z.real = x / s * _INV_SQRT_2
+    z.imag = g / s * _INV_SQRT_2
+    w = wofz(z)
+    return w, w.real / s / _SQRT_2PI
+
+
 def _profile_and_faddeeva(wg: np.ndarray, wl: np.ndarray):
     """:func:`_profile_on_grid`'s ``(φ, dx, φ₀)`` and the Faddeeva function w(z) on x ≥ 0 of the
     grid, z = (x + iγ)/(σ√2), for the rows with a Lorentzian part (NaN on the other rows).
@@ -247,22 +257,12 @@ def _profile_and_faddeeva(wg: np.ndarray, wl: np.ndarray):
     x = _XS_HALF[None, :] * scale
     lor = gamma > 0
     if np.all(lor):  # the usual case: every line has a Lorentzian part
-        s = sigma[:, None]
-        z = np.empty(x.shape, dtype=complex)
-        z.real = x / s * _INV_SQRT_2
-        z.imag = gamma[:, None] / s * _INV_SQRT_2
-        w = wofz(z)
-        half = w.real / s / _SQRT_2PI
+        w, half = _faddeeva_voigt(x, sigma[:, None], gamma[:, None])
     else:
         w = np.full(x.shape, np.nan, dtype=complex)
         half = voigt_profile(x, sigma[:, None], gamma[:, None])
         if np.any(lor):
-            s = sigma[lor, None]
-            z = np.empty((int(lor.sum()), x.shape[1]), dtype=complex)
-            z.real = x[lor] / s * _INV_SQRT_2
-            z.imag = gamma[lor, None] / s * _INV_SQRT_2
-            w[lor] = wofz(z)
-            half[lor] = w[lor].real / s / _SQRT_2PI
+            w[lor], half[lor] = _faddeeva_voigt(x[lor], sigma[lor, None], gamma[lor, None])
     phi = np.concatenate([half[:, :0:-1], half], axis=1)
     phi0 = half[:, 0].copy()
     out = (phi, _DX[None, :] * scale, phi0, w)
