@@ -335,10 +335,9 @@ def place_legend_clear(ax, fontsize: float = 6.5, relabel=None):
     n_fixed = len(ax.texts)
     if relabel is not None:
         relabel()
-    leg = ax.legend(fontsize=fontsize, loc="best")
-    for _ in range(4):
+    for attempt in range(4):
         boxes = _drawn_boxes(ax, renderer)
-        for loc in ("best",) if _ == 0 else _LEGEND_CORNERS:
+        for loc in ("best",) if attempt == 0 else _LEGEND_CORNERS:
             leg = ax.legend(fontsize=fontsize, loc=loc)
             lb = leg.get_window_extent(renderer)
             if not any(lb.overlaps(b) for b in boxes):
