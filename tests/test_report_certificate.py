@@ -450,3 +450,31 @@ def test_lab_and_client_texts_are_literal_too():
     text = "\n".join(pdf_pages(render_pdf_bytes(c)[0]))
     for s in ("<font size=40>Big</font> & Co", "1 <i>Road</i>", "acc \\x1b[2J", "<para>X</para>", "ref <br/>"):
         assert s in text, s
+
+
+def test_flag_names_fit_their_column_on_one_line():
+    """The Flags table's first column is wide enough for the longest flag name used, so a name
+    such as ``interference_corrected`` is not split mid-word (it was at the former fixed 18 %).
+    Line breaking is reportlab's own (Paragraph.wrap); common practice for table layout."""
+    from reportlab.lib.pagesizes import A4
+
+    from reportlab.lib.units import mm
+
+    from compquant.report.pdf import MARGIN_MM
+    from compquant.report.pdfkit import Kit
+
+    kit = Kit(A4[0] - 2 * MARGIN_MM * mm)
+    flags = ["low_snr", "interference_corrected", "by_difference"]
+    share = kit.share_to_fit(flags, least=0.18, most=0.35)
+    table = kit.grid_table(["Flag", "Meaning"], [[f, "text"] for f in flags], [share, 1.0 - share])
+    table.wrapOn(None, kit.frame_w, 500)
+    col_w = table._colWidths[0] - 12.0  # the cell's left and right padding, 6 pt each
+    for row in table._cellvalues[1:]:
+        para = row[0][0] if isinstance(row[0], (list, tuple)) else row[0]
+        para.wrap(col_w, 500)
+        assert len(para.blPara.lines) == 1, para.text
+    narrow = kit.grid_table(["Flag", "Meaning"], [[f, "text"] for f in flags], [18, 82])
+    long_cell = narrow._cellvalues[2][0]
+    long_cell = long_cell[0] if isinstance(long_cell, (list, tuple)) else long_cell
+    long_cell.wrap(narrow._colWidths[0] - 12.0, 500)
+    assert len(long_cell.blPara.lines) > 1  # the former layout split it: the check can fail

@@ -204,7 +204,8 @@ def results_section(kit: Kit, cert: Certificate, sec: int) -> list:
     flags = cert.flags_used()
     if flags:
         out.append(P("Flags", "h3"))
-        out.append(kit.grid_table(["Flag", "Meaning"], [[f, flag_text(f)] for f in flags], [18, 82]))
+        key = kit.share_to_fit(flags, least=0.18, most=0.35)  # a flag's name on one line
+        out.append(kit.grid_table(["Flag", "Meaning"], [[f, flag_text(f)] for f in flags], [key, 1.0 - key]))
     out.append(P("Elements detected but not quantified", "h3"))
     out.append(P(E(", ".join(cert.detected_not_quantified)) if cert.detected_not_quantified else "none"))
     out.append(Spacer(1, 4))

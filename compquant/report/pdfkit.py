@@ -192,6 +192,15 @@ class Kit:
         t.setStyle(self.grid_style)
         return t
 
+    def share_to_fit(self, texts, style="cell", least=0.0, most=1.0):
+        """The share of the frame width a column needs to show the longest of ``texts`` on one
+        line in ``style`` (with the grid's cell padding), clamped to ``[least, most]``."""
+        from reportlab.pdfbase.pdfmetrics import stringWidth
+
+        st = self.st[style]
+        need = max((stringWidth(str(t), st.fontName, st.fontSize) for t in texts), default=0.0) + 2 * 6.0
+        return min(max(need / self.frame_w, least), most)
+
     def txt_or(self, v, default="not recorded"):
         """Escaped ``v``, or ``default`` in italics when ``v`` is empty."""
         return self.E(v) if v not in (None, "") else f"<i>{default}</i>"
