@@ -457,7 +457,6 @@ def test_flag_names_fit_their_column_on_one_line():
     such as ``interference_corrected`` is not split mid-word (it was at the former fixed 18 %).
     Line breaking is reportlab's own (Paragraph.wrap); common practice for table layout."""
     from reportlab.lib.pagesizes import A4
-
     from reportlab.lib.units import mm
 
     from compquant.report.pdf import MARGIN_MM
