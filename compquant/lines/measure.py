@@ -478,8 +478,9 @@ def _per_sample(setup: _Setup, run, inten, sat, qc_x, factor, means, fits, ww_sh
     reasons = np.full(n_shots, "", dtype=object)
     qc_rows, rows, shift_rows, ref_rows = [], [], [], []
     flag_nm = pre.shift_flag_nm if pre.shift_flag_nm else setup.pitch
+    roles = [str(r) for r in setup.samples["role"]]
     for s, sid in enumerate(setup.sample_ids):
-        role = str(setup.samples["role"].iloc[s])
+        role = roles[s]
         idx = np.flatnonzero(setup.sample_index == s)
         if idx.size == 0:
             continue
