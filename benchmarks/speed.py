@@ -21,7 +21,9 @@ so that every figure is a ratio against a baseline measured under the same machi
          uncompressed run the default splits each chunk over every core, and (c1) is the same
          with one thread);
 (lines)  the chunk function alone at 10, 50 and 200 lines, NumPy and compiled, and the
-         compiled kernel in float32.
+         compiled kernel in float32;
+(stages) (c) once more, with the CPU time of each stage (reads, chunk function, line table, the
+         rest) taken in the thread that ran it.
 
 Every row prints wall and CPU time per shot and the CPU share ``cpu / wall`` the process got;
 the load average is printed before and after each measurement.  Goals (issue 22): (c) >= 50x
@@ -102,6 +104,55 @@ def measure(run, method, chunk: int, kernel: str, direct: bool, threads: int | N
         return measure_run(run, method, chunk_shots=chunk, threads=threads)
     finally:
         fastread._layout = saved
+
+
+def stages(run, method, chunk: int, threads: int | None = None) -> dict:
+    """One default ``measure_run`` (compiled kernel, direct reads) with the CPU time of each stage
+    taken in the thread that ran it (``time.thread_time``), in seconds: the reads (reader or inflater
+    threads), the chunk function (kernel threads, or the main thread with one), the per-sample line
+    table (shot QC and rows, ``_per_sample``), the rest of ``_aggregate`` (normalisation, frames,
+    provenance) and whatever else ran; plus wall and process CPU time."""
+    import threading
+
+    from compquant.lines import _passes
+    from compquant.lines import chunk as chunk_mod
+    from compquant.lines import measure as measure_mod
+
+    lock, acc = threading.Lock(), {}
+
+    def timed(fn, key):
+        def inner(*a, **k):
+            t0 = time.thread_time()
+            try:
+                return fn(*a, **k)
+            finally:
+                with lock:
+                    acc[key] = acc.get(key, 0.0) + time.thread_time() - t0
+
+        return inner
+
+    saved = [
+        (fastread, "_read_into"),
+        (fastread, "_decode_chunk"),
+        (chunk_mod, "process_chunk"),
+        (_passes, "process_chunk"),
+        (measure_mod, "_per_sample"),
+        (measure_mod, "_aggregate"),
+    ]
+    keys = ["read", "read", "kernel", "kernel", "line table", "aggregate"]
+    originals = [getattr(m, name) for m, name in saved]
+    os.environ["COMPQUANT_KERNEL"] = "auto"
+    try:
+        for (m, name), fn, key in zip(saved, originals, keys):
+            setattr(m, name, timed(fn, key))
+        with Timer() as t:
+            measure_mod.measure_run(run, method, chunk_shots=chunk, threads=threads)
+    finally:
+        for (m, name), fn in zip(saved, originals):
+            setattr(m, name, fn)
+    acc["aggregate"] = acc.get("aggregate", 0.0) - acc.get("line table", 0.0)
+    acc["other"] = t.cpu - sum(acc.values())
+    return {"wall": t.wall, "cpu": t.cpu, **acc, "load": f"{t.load0} -> {t.load1}"}
 
 
 def lines_scaling(run: Run, method, repeat: int) -> list[tuple]:
@@ -192,6 +243,7 @@ def main(argv=None) -> int:
             _, loop_vals = user_loop(run, method, sub)
         rows["per-spectrum loop (pybaselines)"] = (t_loop, sub.size)
         scaling = lines_scaling(run, method, rep)
+        split = stages(run, method, ch)
     os.environ.pop("COMPQUANT_KERNEL", None)
     print(f"{'':42s} {'wall us/shot':>12s} {'cpu us/shot':>12s} {'cpu/wall':>9s}   load before -> after")
     for name, (t, k) in rows.items():
@@ -226,6 +278,11 @@ def main(argv=None) -> int:
           "relative to the value / to the line's largest |value|")  # fmt: skip
     for label, kernel, prec, cpu, wall, rel_v, rel_s in scaling:
         print(f"  {label:>11s} lines  {kernel:8s} {prec:7s} {cpu:8.2f} {wall:8.2f}   {rel_v:.1e} / {rel_s:.1e}")
+    print(
+        "(c) once more, CPU per stage in the thread that ran it (us/shot): "
+        + ", ".join(f"{k} {split[k] / n * 1e6:.1f}" for k in ("read", "kernel", "line table", "aggregate", "other"))
+        + f"; process CPU {split['cpu'] / n * 1e6:.1f}, wall {split['wall'] / n * 1e6:.1f}; load {split['load']}"
+    )
     print(f"load average at the end: {_load()}")
     return 0
 

@@ -6,13 +6,15 @@ pipeline (``Dataset.__getitem__``) must give the same bytes.
 
 from __future__ import annotations
 
+import os
+
 import h5py
 import numpy as np
 import pytest
 
 from compquant.errors import RunFormatError
 from compquant.run import Run, write_run
-from compquant.run.fastread import _layout, iter_raw, read_range
+from compquant.run.fastread import _chunk_places, _layout, iter_raw, read_range
 
 NPX = 300
 
@@ -89,3 +91,35 @@ def test_read_range_equals_h5py(tmp_path, dtype, compression):
         for a, b in [(0, 1), (5, 2701), (3999, 4000), (0, 4000)]:
             raw = read_range(run, a, b)
             assert raw.dtype == ref.dtype and np.array_equal(raw, ref[a:b])
+
+
+@pytest.mark.parametrize("dtype", ["uint16", "float32", ">u2"])
+def test_uncompressed_chunks_read_from_the_file_equal_h5py(tmp_path, dtype):
+    """An uncompressed run's chunks are read with pread at the offsets HDF5's chunk index gives
+    (H5Dget_chunk_info); the bytes equal h5py's read, for ranges across chunk boundaries."""
+    p = _write(tmp_path / "u.h5", dtype, None)
+    with Run.open(p) as run, h5py.File(p, "r") as f:
+        ds = run._spectra
+        places = _chunk_places(run, ds)
+        assert places is not None and places.rows == ds.chunks[0] and places.offsets.size == -(-4000 // places.rows)
+        ref = f["spectra"][()]
+        bounds = [(0, 1), (1, 2700), (2700, 2701), (2701, 4000)]
+        got = list(iter_raw(run, bounds, threads=2))
+        for a, b in [(3999, 4000), (0, 4000), (ds.chunks[0] - 1, ds.chunks[0] + 1)]:
+            raw = read_range(run, a, b)
+            assert raw.dtype == ref.dtype and np.array_equal(raw, ref[a:b])
+    for a, b, raw in got:
+        assert raw.dtype == ref.dtype and np.array_equal(raw, ref[a:b])
+
+
+def test_run_cut_short_while_open_is_a_run_format_error(tmp_path):
+    """A file truncated after it was opened (e.g. a copy overwritten meanwhile): the short read
+    is a clear error, not garbage or a crash."""
+    p = _write(tmp_path / "t.h5", "uint16", None)
+    with Run.open(p) as run:
+        places = _chunk_places(run, run._spectra)
+        assert places is not None
+        os.truncate(p, int(places.offsets[places.offsets.size // 2]) + 10)
+        with pytest.raises(RunFormatError, match="cannot be read"):
+            for _ in iter_raw(run, [(0, 2000), (2000, 4000)], threads=2):
+                pass

@@ -21,8 +21,9 @@ from compquant.lines.chunk import (
     ChunkPlan,
     ChunkResult,
     FitProjection,
+    merge_chunk_results,
     process_chunk,
-    process_chunk_threaded,
+    submit_chunk_threaded,
 )
 from compquant.lines.fit import GroupFit, fit_group, fit_group_fixed
 from compquant.lines.wavecal import WavecalResult, WavecalSettings, calibrate_wavelength
@@ -62,9 +63,18 @@ def _chunk_results(run, setup, chunk: int, plan: ChunkPlan, chunk_mapper=None):
             return
         from concurrent.futures import ThreadPoolExecutor
 
+        # pipelined: the next chunk's row ranges are queued before this chunk's results are
+        # merged and handed on, so the worker threads go on while the caller stores them (one
+        # more chunk in flight; the same ranges and the same merge as process_chunk_threaded)
         with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="compquant-work") as ex:
+            pending = None
             for start, stop, raw in _iter_raw(run, chunk):
-                yield start, stop, process_chunk_threaded(raw, setup.sample_index[start:stop], plan, ex, threads)
+                futs = submit_chunk_threaded(raw, setup.sample_index[start:stop], plan, ex, threads)
+                if pending is not None:
+                    yield pending[0], pending[1], merge_chunk_results([f.result() for f in pending[2]])
+                pending = (start, stop, futs)
+            if pending is not None:
+                yield pending[0], pending[1], merge_chunk_results([f.result() for f in pending[2]])
         return
     ranges = [(a, min(run.n_shots, a + chunk)) for a in range(0, run.n_shots, chunk)]
     for (start, stop), res in zip(ranges, chunk_mapper(run, ranges, plan), strict=True):

@@ -230,8 +230,77 @@ def _wider_than_window(setup: _Setup, s: int, mean_spec, lo: float, hi: float) -
     return bool(np.isfinite(w) and w > hi - lo)
 
 
-def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_noise_win, f_mean, fits,
-              flag_nm) -> dict:
+def column_stats(v: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per column of ``v`` (shots x lines): the number of finite values, their mean and their
+    standard deviation (``ddof = 1``; NaN below 2 values), for every column at once.
+
+    The same numbers, bit for bit, as ``np.mean(x)`` and ``np.std(x, ddof=1)`` of each column's
+    finite values ``x`` taken alone: the columns whose values are all finite are copied to the
+    contiguous rows of one array and reduced along that last axis, which NumPy sums with the same
+    pairwise summation, in the same order, as a 1-D array (checked bit for bit in
+    tests/test_measure_table.py for 1 to 300,001 values); the other columns are reduced one by one.
+    """
+    v = np.asarray(v, dtype=np.float64)
+    n, n_cols = v.shape
+    ok = np.isfinite(v)
+    nv = ok.sum(axis=0)
+    mean = np.full(n_cols, np.nan)
+    sd = np.full(n_cols, np.nan)
+    full = nv == n
+    if n and full.any():
+        rows = np.ascontiguousarray((v if full.all() else v[:, full]).T)
+        mean[full] = np.mean(rows, axis=1)
+        if n >= 2:
+            sd[full] = np.std(rows, axis=1, ddof=1)
+    for j in np.flatnonzero(~full & (nv > 0)):
+        x = v[ok[:, j], j]
+        mean[j] = np.mean(x)
+        if x.size >= 2:
+            sd[j] = np.std(x, ddof=1)
+    return nv, mean, sd
+
+
+class _SampleRows:
+    """What the rows of one sample share: every line's expected position (table wavelength plus the
+    sample's correction), the window lines' pixel-noise uncertainty (computed only when a line
+    has fewer than 2 shots: it is used nowhere else), the mean normalisation factor, the fits."""
+
+    def __init__(self, setup: _Setup, s: int, sid: str, role: str, mean_spec, ww, f_mean: float, fits,
+                 flag_nm: float):
+        self.setup, self.s, self.sid, self.role = setup, s, sid, role
+        self.mean_spec, self.ww, self.f_mean, self.fits, self.flag_nm = mean_spec, ww, f_mean, fits, flag_nm
+        self.pos = np.array([ln.wavelength_nm + setup.shift_of(s, ln.wavelength_nm) for ln in setup.lines],
+                            dtype=np.float64)
+        self._u_noise = False
+
+    def u_noise_win(self):
+        if self._u_noise is False:
+            ok = self.ww is not None and self.mean_spec is not None
+            self._u_noise = self.ww.u_noise(self.mean_spec) if ok else None
+        return self._u_noise
+
+    def overlapped(self, li: int, lo: float, hi: float) -> bool:
+        """Another line's expected position inside ``[lo, hi]``."""
+        ln = self.setup.lines[li]
+        hits = np.flatnonzero((lo <= self.pos) & (self.pos <= hi))
+        return any(self.setup.lines[j] is not ln for j in hits)
+
+
+def sample_rows(ctx: _SampleRows, cols, v: np.ndarray, sv: np.ndarray, mv: np.ndarray) -> list[dict]:
+    """Rows of the line table for the lines ``cols`` of one sample (:func:`_line_row`), from the
+    accepted shots' values ``v``, saturation ``sv`` and masked flags ``mv`` (shots x ``cols``);
+    the statistics of all the lines at once (:func:`column_stats`)."""
+    nv, mean, sd = column_stats(v)
+    sat_any = np.asarray(sv).any(axis=0)
+    masked_any = np.asarray(mv).any(axis=0)
+    return [
+        _line_row(ctx, li, int(nv[j]), float(mean[j]), float(sd[j]), bool(sat_any[j]), bool(masked_any[j]))
+        for j, li in enumerate(cols)
+    ]
+
+
+def _line_row(ctx: _SampleRows, li: int, nv: int, intensity: float, sd: float, saturated: bool,
+              masked: bool) -> dict:
     """One row of the line table: statistics over the accepted shots and the line's flags.
 
     ``intensity`` is the mean of the ``n`` accepted shots' values ``I_i`` and ``u_intensity`` its
@@ -245,24 +314,26 @@ def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_n
     ``+- t_0.975(n - 1) u`` (GUM G.3), 3.18 u for 4 shots.  ``u`` is not inflated here: seeded
     studies (benchmarks/line_u_coverage.py) find it unbiased for pixel and plasma noise alike,
     ``+- 2u`` covering 86 / 92 / 95 % with 4 / 10 / 30 shots, exactly Student's P(|t| <= 2).
+
+    ``nv``, ``intensity``, ``sd``: the number of finite accepted values, their mean and SD
+    (:func:`column_stats`); ``saturated`` / ``masked``: any accepted shot saturated / masked on
+    the line.
     """
+    setup, s, mean_spec, f_mean = ctx.setup, ctx.s, ctx.mean_spec, ctx.f_mean
     meas, pre = setup.method.measure, setup.method.preprocess
     ln = setup.lines[li]
-    ok = np.isfinite(vals)
-    nv = int(ok.sum())
     flags = set()
-    intensity = float(np.mean(vals[ok])) if nv else float("nan")
-    sd = float(np.std(vals[ok], ddof=1)) if nv >= 2 else float("nan")
-    if sat.any():
+    if saturated:
         flags.add("saturated")
-    if masked.any():
+    if masked:
         flags.add("masked")
-    expected = ln.wavelength_nm + setup.shift_of(s, ln.wavelength_nm)
+    expected = float(ctx.pos[li])
     if ln.mode == "window":
         k = setup.win_idx.index(li)
         if nv >= 2:
             u = sd / math.sqrt(nv)
         else:
+            u_noise_win = ctx.u_noise_win()
             u = float(u_noise_win[k]) / f_mean if u_noise_win is not None else float("nan")
         g = setup.geometry(li, s)
         centre = fwhm = float("nan")
@@ -270,13 +341,12 @@ def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_n
             centre, fwhm = peak_centre_fwhm(setup.wl, mean_spec, g.a, g.b)
         lo = g.left[0] if g.left else g.a
         hi = g.right[1] if g.right else g.b
-        for other in setup.lines:
-            if other is not ln and lo <= other.wavelength_nm + setup.shift_of(s, other.wavelength_nm) <= hi:
-                flags.add("overlapped")
+        if ctx.overlapped(li, lo, hi):
+            flags.add("overlapped")
         win_lo, win_hi = g.a, g.b
     else:
         gi = next(gx for gx, mem in enumerate(setup.groups) if li in mem)
-        gf = fits[(s, gi)]
+        gf = ctx.fits[(s, gi)]
         j = setup.groups[gi].index(li)
         var_full = float(gf.cov_areas[j, j])
         u_shape2 = max(var_full - float(gf.var_areas_linear[j]), 0.0)
@@ -291,23 +361,23 @@ def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_n
         if not gf.success:
             flags.add("not_found")
         win_lo, win_hi = float(setup.wl[gf.pixels[0]]), float(setup.wl[gf.pixels[-1]])
-    if np.isfinite(u) and u > 0:
+    if math.isfinite(u) and u > 0:
         snr = intensity / u
-    elif u == 0 and np.isfinite(intensity) and intensity > 0:
+    elif u == 0 and math.isfinite(intensity) and intensity > 0:
         snr = float("inf")  # exact by construction (the normalising line itself)
     else:
         snr = float("nan")
     if nv == 0 and "masked" in flags:
         pass  # not measured: every accepted shot has a masked pixel on the line ('masked' says why)
-    elif np.isnan(snr) or snr < meas.snr_detect:
+    elif math.isnan(snr) or snr < meas.snr_detect:
         flags.add("not_found")
     elif snr < meas.snr_min:
         flags.add("low_snr")
     if "not_found" in flags or nv == 0:
         centre = fwhm = float("nan")  # a position in noise means nothing, in any mode
-    well_measured = np.isfinite(snr) and snr >= meas.snr_min
+    well_measured = math.isfinite(snr) and snr >= meas.snr_min
     u_c = _centre_uncertainty(fwhm, snr, win_lo, win_hi)
-    if well_measured and np.isfinite(centre) and abs(centre - expected) > flag_nm + 2.0 * u_c:
+    if well_measured and math.isfinite(centre) and abs(centre - expected) > ctx.flag_nm + 2.0 * u_c:
         flags.add("shifted")
     single = ln.mode == "window" or len(next(g for g in setup.groups if li in g)) == 1  # blends: no
     if (well_measured and _window_clips(centre, fwhm, win_lo, win_hi, u_c)) or (
@@ -320,8 +390,8 @@ def _line_row(setup: _Setup, s, sid, role, li, vals, sat, masked, mean_spec, u_n
     if nv == 1:
         flags.add("single_shot")
     return {
-        "sample_id": sid,
-        "role": role,
+        "sample_id": ctx.sid,
+        "role": ctx.role,
         "line_id": ln.line_id,
         "element": ln.element,
         "ion": int(ln.ion),

@@ -553,12 +553,11 @@ def merge_chunk_results(parts: list[ChunkResult]) -> ChunkResult:
     )
 
 
-def process_chunk_threaded(raw, sample_index, plan: ChunkPlan, executor, parts: int, pixel_mask=None) -> ChunkResult:
-    """:func:`process_chunk` on ``parts`` row ranges of one chunk in a thread pool, merged.
-
-    numpy and the compiled kernel release the GIL, so the ranges run on separate cores;
-    the result equals :func:`process_chunk` on the whole chunk.
-    """
+def submit_chunk_threaded(raw, sample_index, plan: ChunkPlan, executor, parts: int, pixel_mask=None) -> list:
+    """Submit :func:`process_chunk` on ``parts`` row ranges of one chunk to ``executor`` and return
+    the futures, in row order (:func:`process_chunk_threaded` waits for them and merges them).
+    A caller can submit the next chunk's ranges before it collects this one's, so that the threads
+    never wait for the caller between chunks."""
     n = np.shape(raw)[0]
     edges = np.linspace(0, n, max(1, parts) + 1).astype(int)
     plan_operators(plan)  # build the cached operators once, before the threads share the plan
@@ -566,9 +565,18 @@ def process_chunk_threaded(raw, sample_index, plan: ChunkPlan, executor, parts: 
     def mask_of(a, b):
         return pixel_mask if pixel_mask is None or np.ndim(pixel_mask) < 2 else pixel_mask[a:b]
 
-    futs = [
+    return [
         executor.submit(process_chunk, raw[a:b], sample_index[a:b], plan, mask_of(a, b))
         for a, b in zip(edges[:-1], edges[1:])
         if b > a
     ]
+
+
+def process_chunk_threaded(raw, sample_index, plan: ChunkPlan, executor, parts: int, pixel_mask=None) -> ChunkResult:
+    """:func:`process_chunk` on ``parts`` row ranges of one chunk in a thread pool, merged.
+
+    numpy and the compiled kernel release the GIL, so the ranges run on separate cores;
+    the result equals :func:`process_chunk` on the whole chunk.
+    """
+    futs = submit_chunk_threaded(raw, sample_index, plan, executor, parts, pixel_mask)
     return merge_chunk_results([f.result() for f in futs])

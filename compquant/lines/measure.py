@@ -61,14 +61,15 @@ from compquant.lines._table import (
     SHIFT_TABLE_COLUMNS,
     SHOT_TABLE_COLUMNS,
     _all_rejected_error,
-    _line_row,
     _masked_notes,
     _masked_table,
     _provenance,
     _qc_decide,
     _qc_row,
     _reference_rows,
+    _SampleRows,
     _shift_row,
+    sample_rows,
 )
 from compquant.lines.mean import mean_spectrum
 from compquant.lines.shotstore import ShotArray, spill_cells
@@ -468,39 +469,36 @@ def _line_blocks(n_lines: int, n_rows: int) -> list[range]:
 
 def _per_sample(setup: _Setup, run, inten, sat, qc_x, factor, means, fits, ww_shared, ww_by_sample):
     """Shot QC and the line-table rows of every sample: ``(accepted, reasons, qc_rows, rows,
-    shift_rows, ref_rows)``.  DataQualityError when a sample has no accepted shot."""
+    shift_rows, ref_rows)``.  DataQualityError when a sample has no accepted shot.  The rows of a
+    sample's lines are made together (:func:`compquant.lines._table.sample_rows`: the statistics of
+    every line at once, the same numbers as line by line)."""
     pre = setup.method.preprocess
     n_shots = inten.shape[0]
     accepted = np.zeros(n_shots, dtype=bool)
-    reasons = [""] * n_shots
+    reasons = np.full(n_shots, "", dtype=object)
     qc_rows, rows, shift_rows, ref_rows = [], [], [], []
     flag_nm = pre.shift_flag_nm if pre.shift_flag_nm else setup.pitch
+    roles = [str(r) for r in setup.samples["role"]]
     for s, sid in enumerate(setup.sample_ids):
-        role = str(setup.samples["role"].iloc[s])
+        role = roles[s]
         idx = np.flatnonzero(setup.sample_index == s)
         if idx.size == 0:
             continue
         dec = _qc_decide(pre, qc_x[idx], setup.pulse, idx)
         accepted[idx] = dec.accepted
-        for j, i in enumerate(idx):
-            reasons[i] = dec.reasons[j]
+        reasons[idx] = dec.reasons
         qc_rows.append(_qc_row(pre, sid, role, idx, dec))
         if not dec.accepted.any():
             raise _all_rejected_error(setup, run, s, idx, dec)
         shift_rows.append(_shift_row(setup, s, sid, flag_nm))
         ref_rows += _reference_rows(setup, s, sid)
         acc = idx[dec.accepted]
-        mean_spec = means.get(s)
-        ww = ww_by_sample.get(s, ww_shared)
-        u_noise_win = ww.u_noise(mean_spec) if (ww is not None and mean_spec is not None) else None
         f_mean = float(np.mean(factor[acc])) if pre.normalise != "none" or pre.pulse_energy_normalise else 1.0
+        ctx = _SampleRows(setup, s, sid, role, means.get(s), ww_by_sample.get(s, ww_shared), f_mean, fits, flag_nm)
         for cols in _line_blocks(len(setup.lines), acc.size):
             sel = slice(cols.start, cols.stop)
-            v, sv, mv = inten.take(acc, sel), sat.take(acc, sel), setup.masked_line.take(acc, sel)
-            for j, li in enumerate(cols):
-                rows.append(_line_row(setup, s, sid, role, li, v[:, j], sv[:, j], mv[:, j],
-                                      mean_spec, u_noise_win, f_mean, fits, flag_nm))
-    return accepted, reasons, qc_rows, rows, shift_rows, ref_rows
+            rows += sample_rows(ctx, cols, inten.take(acc, sel), sat.take(acc, sel), setup.masked_line.take(acc, sel))
+    return accepted, reasons.tolist(), qc_rows, rows, shift_rows, ref_rows
 
 
 def _aggregate(setup: _Setup, run, per_shot: ShotArray, sat: ShotArray, p1: WindowPass, fits,
