@@ -17,10 +17,10 @@ interleaving the modes ``--repeat`` times:
         fit (the code before the analytic Jacobian);
 (mixed) memos on, analytic intercept and ln L columns, forward differences in the T and ln nₑ
         columns (the code before the closed-form T and ln nₑ columns);
-(grid)  every column in closed form, the length continuation over the whole grid to 1 cm (the
-        code before the continuation stopped once the χ² minimum is bracketed);
+(grid)  every column in closed form, the length continuation over the whole grid to 1 cm with
+        its points fitted to xtol = ftol = 10⁻⁶ (the code before branch cffits);
 (now)   the default (memos on, every column of the Jacobian in closed form, the continuation
-        stopped after 2 rises of χ²).
+        stopped after 2 rises of χ², grid points to 10⁻⁴).
 
 The modes before ``grid`` also follow the whole grid.
 
@@ -29,7 +29,7 @@ the last, the number of ``least_squares`` calls of the self-absorption fit, the 
 and the largest relative difference between the first mode's and the last mode's T, nₑ, mass
 fractions, their U, and every other number of the results (0 means bit-identical; a different
 Jacobian moves the optimiser's path, so the fd/now difference is the fit's own tolerance, not
-0; grid/now is 0 when every χ²(L) profile has one minimum).  Goal (issue 22): <= 0.5 s CPU per sample.
+0; so is the grid/now difference, from the grid points' tolerance).  Goal (issue 22): <= 0.5 s CPU per sample.
 """
 
 from __future__ import annotations
@@ -62,6 +62,7 @@ def _memos(on: bool, analytic: bool = True, analytic_tn: bool = True, stop: bool
     SelfAbsFit.ANALYTIC_JACOBIAN = analytic
     SelfAbsFit.ANALYTIC_TN = analytic_tn
     SelfAbsFit.GRID_STOP_AFTER_RISES = 2 if stop else None
+    SelfAbsFit.GRID_TOL = 1e-4 if stop else 1e-6
     atomic = default_atomic_data()
     atomic._u_memo.clear()
     atomic._uu_memo.clear()
@@ -158,10 +159,24 @@ def main(argv=None) -> int:
         same_nan = bool(np.array_equal(np.isfinite(x), np.isfinite(y)))
         print(f"{name} vs {last}: largest relative difference of all numbers {np.max(rel, initial=0.0):.2e} "
               f"over {both.sum()} numbers (same missing values: {same_nan})")
+        tiny = np.abs(x[both]) < 1e-9  # e.g. the residual of a line alone in its group, ~1e-13
+        if np.any(tiny & (rel > 0)):
+            print(f"  of the {np.sum(~tiny)} numbers above 1e-9: {np.max(rel[~tiny], initial=0.0):.2e}; the others "
+                  f"moved by at most {np.max(np.abs(x[both] - y[both])[tiny]):.1e} absolute")
         for key in ("temperature_k", "electron_density_cm3"):
             d = [abs(dy[key] / dx[key] - 1) for dx, dy in zip(docs[name], docs[last])
                  if dx.get(key) and dy.get(key)]
             print(f"  {key}: largest relative change {max(d, default=0.0):.2e}")
+        d = [abs(dy["self_absorption"]["plasma_length_mm"] / dx["self_absorption"]["plasma_length_mm"] - 1)
+             for dx, dy in zip(docs[name], docs[last])
+             if (dx.get("self_absorption") or {}).get("plasma_length_mm") and (dy.get("self_absorption") or {}).get(
+                 "plasma_length_mm")]
+        if d:
+            print(f"  plasma length: largest relative change {max(d):.2e}")
+        d = [(dx.get("flags"), [(e.get("determined"), e.get("flags")) for e in dx.get("elements", [])]) !=
+             (dy.get("flags"), [(e.get("determined"), e.get("flags")) for e in dy.get("elements", [])])
+             for dx, dy in zip(docs[name], docs[last])]
+        print(f"  flags or reported (determined) elements changed in {sum(d)} of {len(d)} samples")
         d = []
         for dx, dy in zip(docs[name], docs[last]):
             ex = {e["element"]: e for e in dx.get("elements", [])}

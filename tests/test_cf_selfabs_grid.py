@@ -61,7 +61,7 @@ class _Profile(SelfAbsFit):
     def _residual_fn(self, X, groups, ne_est, fit_length, length_cm):
         return None, None, None, length_cm
 
-    def _lsq(self, resid, theta0, bounds, coarse, jac="2-point"):
+    def _lsq(self, resid, theta0, bounds, coarse, jac="2-point", tol=None):
         if not coarse:  # the refinement with L free: keep the start
             return None
         self.lengths.append(bounds)
@@ -97,3 +97,27 @@ def test_stopping_rule_on_made_up_profiles():
     far_all.GRID_STOP_AFTER_RISES = None
     _, _, L = far_all._fit_free_length(None, None, None, np.zeros(1), coarse=False)
     assert L == pytest.approx(grid[6], rel=1e-12) and far_all.lengths == list(grid)
+
+
+@pytest.mark.parametrize("settings", [{"ne_method": "stark"}, {"ne_method": "saha"}])
+def test_looser_grid_points_leave_the_refined_solution_where_it_was(monkeypatch, settings):
+    """The grid points fitted to xtol = ftol = 10⁻⁴ (now) or 10⁻⁶ (before): the refinement with
+    L free (xtol 10⁻¹⁰, ftol 10⁻¹²) ends at the same optimum within its own tolerance (here T,
+    nₑ, L and every mass fraction and u within 10⁻⁸), with the same flags."""
+    out = {}
+    for tol in (1e-6, 1e-4):
+        monkeypatch.setattr(SelfAbsFit, "GRID_TOL", tol)
+        out[tol], _ = _run(monkeypatch, 2, settings)
+    a, b = out[1e-6], out[1e-4]
+    assert b["flags"] == a["flags"]
+    for key in ("temperature_k", "electron_density_cm3"):
+        assert b[key] == pytest.approx(a[key], rel=1e-8)
+    assert b["self_absorption"]["plasma_length_mm"] == pytest.approx(a["self_absorption"]["plasma_length_mm"], rel=1e-8)
+    checked = 0
+    ea = {e["element"]: e for e in a["elements"]}
+    for e in b["elements"]:
+        for key in ("mass_fraction", "uncertified_mass_fraction", "u"):
+            if isinstance(ea[e["element"]].get(key), float):
+                assert e[key] == pytest.approx(ea[e["element"]][key], rel=1e-8), (e["element"], key)
+                checked += 1
+    assert checked
