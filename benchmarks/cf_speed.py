@@ -17,13 +17,19 @@ interleaving the modes ``--repeat`` times:
         fit (the code before the analytic Jacobian);
 (mixed) memos on, analytic intercept and ln L columns, forward differences in the T and ln nₑ
         columns (the code before the closed-form T and ln nₑ columns);
-(now)   the default (memos on, every column of the Jacobian in closed form).
+(grid)  every column in closed form, the length continuation over the whole grid to 1 cm with
+        its points fitted to xtol = ftol = 10⁻⁶ (the code before branch cffits);
+(now)   the default (memos on, every column of the Jacobian in closed form, the continuation
+        stopped after 2 rises of χ², grid points to 10⁻⁴).
+
+The modes before ``grid`` also follow the whole grid.
 
 Prints CPU seconds per sample (process time, best of ``--repeat``), the ratio of each mode to
-the last, the load average, and the largest relative difference between the first mode's and
-the last mode's T, nₑ, mass fractions, their U, and every other number of the results (0 means
-bit-identical; a different Jacobian moves the optimiser's path, so the fd/now difference is the
-fit's own tolerance, not 0).  Goal (issue 22): <= 0.5 s CPU per sample.
+the last, the number of ``least_squares`` calls of the self-absorption fit, the load average,
+and the largest relative difference between the first mode's and the last mode's T, nₑ, mass
+fractions, their U, and every other number of the results (0 means bit-identical; a different
+Jacobian moves the optimiser's path, so the fd/now difference is the fit's own tolerance, not
+0; so is the grid/now difference, from the grid points' tolerance).  Goal (issue 22): <= 0.5 s CPU per sample.
 """
 
 from __future__ import annotations
@@ -52,9 +58,11 @@ from compquant.method import load_method  # noqa: E402
 from compquant.run import Run  # noqa: E402
 
 
-def _memos(on: bool, analytic: bool = True, analytic_tn: bool = True) -> None:
+def _memos(on: bool, analytic: bool = True, analytic_tn: bool = True, stop: bool = True) -> None:
     SelfAbsFit.ANALYTIC_JACOBIAN = analytic
     SelfAbsFit.ANALYTIC_TN = analytic_tn
+    SelfAbsFit.GRID_STOP_AFTER_RISES = 2 if stop else None
+    SelfAbsFit.GRID_TOL = 1e-4 if stop else 1e-6
     atomic = default_atomic_data()
     atomic._u_memo.clear()
     atomic._uu_memo.clear()
@@ -62,6 +70,19 @@ def _memos(on: bool, analytic: bool = True, analytic_tn: bool = True) -> None:
     selfabs._PROFILE_MEMO.clear()
     selfabs._PROFILE_MEMO_SIZE = 16 if on else 0
     Model.LN_U_MEMO = 16 if on else 0
+
+
+_LSQ = SelfAbsFit._lsq
+_N_LSQ = [0]
+
+
+def _counted_lsq(self, *args, **kw):
+    """:meth:`SelfAbsFit._lsq`, counting the ``least_squares`` calls of the self-absorption fit."""
+    _N_LSQ[0] += 1
+    return _LSQ(self, *args, **kw)
+
+
+SelfAbsFit._lsq = _counted_lsq
 
 
 def _analyse_all(table, ids, settings, acq, instr, basis, windows=None):
@@ -94,13 +115,13 @@ def main(argv=None) -> int:
     ap.add_argument("--method", default=str(root / "demo_runs" / "method.toml"))
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--modes", default="mixed,now",
-                    help="comma-separated: base, fd, mixed, now (default mixed,now)")
+                    help="comma-separated: base, fd, mixed, grid, now (default mixed,now)")
     a = ap.parse_args(argv)
     modes = [m.strip() for m in a.modes.split(",") if m.strip()]
-    known = {"base": (False, False, False), "fd": (True, False, False), "mixed": (True, True, False),
-             "now": (True, True, True)}
+    known = {"base": (False, False, False, False), "fd": (True, False, False, False),
+             "mixed": (True, True, False, False), "grid": (True, True, True, False), "now": (True, True, True, True)}
     if not modes or any(m not in known for m in modes):
-        print(f"error: --modes takes base, fd, mixed, now (got {a.modes!r})", file=sys.stderr)
+        print(f"error: --modes takes base, fd, mixed, grid, now (got {a.modes!r})", file=sys.stderr)
         return 2
     method = load_method(a.method)
     settings = CFSettings.from_section(method.sections.get("cf"), where="[cf]")
@@ -112,17 +133,20 @@ def main(argv=None) -> int:
         windows = method_windows(method, run.wavelength)  # as `compquant cf` does
     ids = [s for s in dict.fromkeys(table["sample_id"].astype(str)) if roles.get(s) in ("unknown", "check")]
     print(f"{Path(a.run).name}: {len(ids)} samples, load average {os.getloadavg()[0]:.1f}")
-    cpu, docs = {m: float("inf") for m in modes}, {}
+    cpu, docs, n_lsq = {m: float("inf") for m in modes}, {}, {}
     for _ in range(a.repeat):
         for name in modes:  # interleaved, so a change of load hits every mode alike
             _memos(*known[name])
+            _N_LSQ[0] = 0
             t0 = time.process_time()
             docs[name] = _analyse_all(table, ids, settings, acq, instr, basis, windows)
             cpu[name] = min(cpu[name], (time.process_time() - t0) / len(ids))
+            n_lsq[name] = _N_LSQ[0]
     _memos(True)
     last = modes[-1]
     for name in modes:
-        print(f"({name:4s}) {cpu[name]:.3f} s CPU per sample   {name}/{last} = {cpu[name] / cpu[last]:.2f}x")
+        print(f"({name:4s}) {cpu[name]:.3f} s CPU per sample   {name}/{last} = {cpu[name] / cpu[last]:.2f}x   "
+              f"{n_lsq[name]} least_squares calls for {len(ids)} samples")
     print(f"load average at the end {os.getloadavg()[0]:.1f}; goal <= 0.5 s per sample: "
           f"{'met' if cpu[last] <= 0.5 else 'missed'} ({last})")
     for name in modes[:-1]:
@@ -135,10 +159,24 @@ def main(argv=None) -> int:
         same_nan = bool(np.array_equal(np.isfinite(x), np.isfinite(y)))
         print(f"{name} vs {last}: largest relative difference of all numbers {np.max(rel, initial=0.0):.2e} "
               f"over {both.sum()} numbers (same missing values: {same_nan})")
+        tiny = np.abs(x[both]) < 1e-9  # e.g. the residual of a line alone in its group, ~1e-13
+        if np.any(tiny & (rel > 0)):
+            print(f"  of the {np.sum(~tiny)} numbers above 1e-9: {np.max(rel[~tiny], initial=0.0):.2e}; the others "
+                  f"moved by at most {np.max(np.abs(x[both] - y[both])[tiny]):.1e} absolute")
         for key in ("temperature_k", "electron_density_cm3"):
             d = [abs(dy[key] / dx[key] - 1) for dx, dy in zip(docs[name], docs[last])
                  if dx.get(key) and dy.get(key)]
             print(f"  {key}: largest relative change {max(d, default=0.0):.2e}")
+        d = [abs(dy["self_absorption"]["plasma_length_mm"] / dx["self_absorption"]["plasma_length_mm"] - 1)
+             for dx, dy in zip(docs[name], docs[last])
+             if (dx.get("self_absorption") or {}).get("plasma_length_mm") and (dy.get("self_absorption") or {}).get(
+                 "plasma_length_mm")]
+        if d:
+            print(f"  plasma length: largest relative change {max(d):.2e}")
+        d = [(dx.get("flags"), [(e.get("determined"), e.get("flags")) for e in dx.get("elements", [])]) !=
+             (dy.get("flags"), [(e.get("determined"), e.get("flags")) for e in dy.get("elements", [])])
+             for dx, dy in zip(docs[name], docs[last])]
+        print(f"  flags or reported (determined) elements changed in {sum(d)} of {len(d)} samples")
         d = []
         for dx, dy in zip(docs[name], docs[last]):
             ex = {e["element"]: e for e in dx.get("elements", [])}
