@@ -421,3 +421,36 @@ def test_blend_correction_with_self_absorbed_interferers_removes_the_blend_bias(
     monkeypatch.setattr(BlendCorrection, "blend_prediction", lambda self, sol, length_cm=None: orig(self, sol))
     r2, _ = _errors(comp, data, True)
     assert abs(r2.electron_density_cm3 / ne - 1) > abs(r1.electron_density_cm3 / ne - 1) + 0.03
+
+
+@pytest.mark.slow
+def test_slab_mode_without_interference_leaves_the_fit_as_it_is():
+    # The demo runs (compquant.simulate, invented brasses) emit the method's lines only, so the predicted
+    # interference of every window is below blend_tolerance: the columnar result must be the one without the
+    # correction, to the last bit, with 0 passes (and no second slab fit). Internal consistency check.
+    from compquant import Run, load_method, measure_run
+    from compquant.cflibs import CFSettings, analyse_cf
+    from compquant.cflibs.capture import method_windows
+
+    root = Path(__file__).resolve().parents[1] / "demo_runs"
+    method = load_method(root / "method.toml")
+    with Run.open(root / "demo-day1.h5") as run:
+        m = measure_run(run, method)
+        windows = method_windows(method, run.wavelength)
+        acq, ins = dict(run.acquisition), dict(run.instrument)
+    out = []
+    for blend in (True, False):
+        s = CFSettings.from_section(method.sections["cf"]).to_dict()
+        s["blend_correction"] = blend
+        assert s["self_absorption"] == "columnar"
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            out.append(analyse_cf(m.table, sample_id="LOT-2611-A", settings=s, windows=windows, acquisition=acq,
+                                  instrument=ins, measurement=m, mc_draws=0))
+    on, off = out
+    info = on.fit["blend_correction"]
+    assert info["applied"] and info["self_absorbed"] and info["negligible"] and info["passes"] == 0
+    assert info["changes"][0] < 0.002
+    assert on.temperature_k == off.temperature_k and on.electron_density_cm3 == off.electron_density_cm3
+    np.testing.assert_array_equal([e.mass_fraction for e in on.elements], [e.mass_fraction for e in off.elements])
+    np.testing.assert_array_equal([e.u for e in on.elements], [e.u for e in off.elements])

@@ -570,7 +570,9 @@ class BlendCorrection:
         solution (its T, nₑ, intercepts and slab length: every line's area self-absorbed, eq. (5))
         and re-running the whole self-absorption fit on the corrected areas.  The measured areas
         are kept by line id, so lines the fit removes as too optically thick leave the iteration
-        with their correction.  Returns the last fit's tuple.
+        with their correction.  A first prediction that drops no line and moves none by more than
+        ``blend_tolerance`` leaves the lines and the fit as they are (``negligible``, 0 passes).
+        Returns the last fit's tuple.
         """
         s = self.s
         meas = {str(lid): (float(i), float(u)) for lid, i, u in zip(self.L.line_id, self.L.intensity,
@@ -595,6 +597,12 @@ class BlendCorrection:
                 I0, u0, corr, u_corr, share = I0[keep], u0[keep], corr[keep], u_corr[keep], share[keep]
                 ids = [k for k, kp in zip(ids, keep) if kp]
                 self._blend_cands = None
+            if prev is None and not info["dropped"] and float(np.max(np.abs(corr) / I0)) < s.blend_tolerance:
+                # the first prediction moves no line by more than the tolerance the iteration stops
+                # at: the lines and the fit stay as they are (a re-fit costs a whole slab fit)
+                self.blend_self_share = share
+                info.update(converged=True, changes=[float(np.max(np.abs(corr) / I0))], negligible=True)
+                break
             new = I0 - corr
             self.L.intensity = new
             self.L.u_intensity = np.sqrt(u0**2 + u_corr**2)
