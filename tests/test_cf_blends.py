@@ -273,3 +273,184 @@ def test_pixel_response_matches_the_line_pipeline_on_a_pixel_averaged_gaussian()
     got = float(pixel_response(wl, px, w, np.array([line]), np.array([fwhm]), np.array([0.0]))[0])
     assert got == pytest.approx(want, rel=1e-9, abs=1e-12)
     assert abs(float(window_response(line - centre, 0.24, 0.1, 0.02, fwhm, 0.0)) - got) > 0.05
+
+
+# --- self-absorption modes (eq. (5) of compquant.cflibs.blends) -----------------------------------
+
+
+def _slab_window_response(offset, tau0, w_doppler, w_lorentz, w_instr, kernel):
+    """Net window signal of a self-absorbed line per unit optically thin area, by direct quadrature.
+
+    Emergent spectral radiance of a homogeneous slab in LTE, I(λ) = S(λ)(1 − e^{−τ(λ)}) (formal
+    solution of the transfer equation; Cowan & Dieke 1948, Rev. Mod. Phys. 20, 418), with
+    τ(λ) = τ₀ V(λ)/V(0), V = scipy.special.voigt_profile; the thin area is S∫τ = S τ₀/V(0).  The
+    instrument spreads light emitted at μ by a Gaussian, so the window sees
+    ∫ (1 − e^{−τ(μ)}) K(μ) dμ / (τ₀/V(0)) with K the window's response to light emitted at μ
+    (``kernel``); integrated by scipy.integrate.quad."""
+    sg, gm = w_doppler * FWHM_TO_SIGMA, w_lorentz / 2
+    v0 = special.voigt_profile(0.0, sg, gm)
+
+    def f(mu):
+        return -math.expm1(-tau0 * special.voigt_profile(mu - offset, sg, gm) / v0) * kernel(mu)
+
+    num = integrate.quad(f, offset - 1.5, offset + 1.5, points=[offset], limit=1000, epsabs=1e-13)[0]
+    return num / (tau0 / v0)
+
+
+@pytest.mark.parametrize("offset,tau0,w_lorentz", [(0.13, 5.0, 0.01), (0.0, 20.0, 0.02), (-0.16, 50.0, 0.01),
+                                                    (0.3, 3.0, 0.01), (0.05, 0.3, 0.01)])
+def test_self_absorbed_interferer_matches_slab_transfer_quadrature(offset, tau0, w_lorentz):
+    # window and side bands (continuous geometry), instrument 0.05 nm, Doppler 0.004 nm: blend_terms with
+    # the absorption of eq. (5) against the direct quadrature of the slab's emergent profile (above);
+    # K(μ) = window part − (h/s)·band parts of the instrument Gaussian, each an erf difference
+    # (Abramowitz & Stegun 7.1.1 / 26.2.29)
+    window, side, gap, w_d, w_ins = 0.2, 0.08, 0.02, 0.004, 0.05
+    h = window / 2
+
+    def kernel(mu):
+        return (_gauss_interval(-h, h, mu, w_ins) - h / side * (_gauss_interval(-h - gap - side, -h - gap, mu, w_ins)
+                                                                + _gauss_interval(h + gap, h + gap + side, mu, w_ins)))
+
+    want = _slab_window_response(offset, tau0, w_d, w_lorentz, w_ins, kernel)
+    args = (np.array([300.0]), np.array([[window, side, gap]]), np.array([300.0 + offset]), np.array([1.0]),
+            np.array([math.hypot(w_ins, w_d)]), np.array([w_lorentz]), np.array([0.0]))
+    got = blend_terms(*args, absorption=(np.array([tau0]), np.array([w_d]), np.array([w_ins])))[0][0]
+    thin = blend_terms(*args)[0][0]
+    assert got == pytest.approx(want, abs=1e-8)
+    if abs(offset) < 0.25:  # the core in the window or a band: the thin prediction is far off
+        assert abs(thin - want) > 0.02
+    else:  # only the far wing reaches the band, and the wing (τ ≪ 1) is not absorbed: thin is right there
+        assert thin == pytest.approx(want, rel=0.01)
+
+
+def test_self_absorbed_interferer_on_pixels_matches_the_line_pipeline():
+    # a thick line (τ₀ = 8) just beside a side band on 0.015 nm pixels: the pixel means of its emergent
+    # profile (slab transfer as above, instrument Gaussian over each pixel: erf differences) put through the
+    # pipeline's window weights (compquant.lines.windows) must equal eq. (5) on the pixels (eq. (1′))
+    from compquant.cflibs.blends import pixel_window_weights
+    from compquant.lines.windows import build_window_weights, integrate_windows, window_geometry
+
+    wl = np.arange(240.0, 260.0, 0.015)
+    edges = np.concatenate([[wl[0] - 0.0075], 0.5 * (wl[1:] + wl[:-1]), [wl[-1] + 0.0075]])
+    centre, line, tau0, w_d, w_l, w_ins = 249.215, 249.05, 8.0, 0.0035, 0.012, 0.05
+    W = build_window_weights(wl, [window_geometry(centre, 0.24, 0.1, 0.02)])
+    pix = np.zeros(wl.size)
+    for p in W.pixels[0]:
+        pix[p] = _slab_window_response(line, tau0, w_d, w_l, w_ins,
+                                       lambda mu, p=p: _gauss_interval(edges[p], edges[p + 1], mu, w_ins)
+                                       ) / (edges[p + 1] - edges[p])
+    want = float(integrate_windows(pix[None, :], W)[0, 0])
+    px, w = pixel_window_weights(wl, centre, 0.24, 0.1, 0.02)
+    got = blend_terms(np.array([centre]), np.array([[0.24, 0.1, 0.02]]), np.array([line]), np.array([1.0]),
+                      np.array([math.hypot(w_ins, w_d)]), np.array([w_l]), np.array([0.0]), axis=wl,
+                      pixel_weights=[(px, w)], absorption=(np.array([tau0]), np.array([w_d]), np.array([w_ins])))[0][0]
+    assert got == pytest.approx(want, abs=1e-8)
+
+
+def test_absorbed_part_holds_exactly_what_the_fit_takes_as_self_absorption():
+    # Σ a = 1 − SA with SA the fit's own sa_factor (same grid; eq. (5)); for a Lorentzian line SA is the
+    # Ladenburg–Reiche function e^{−τ₀/2}[I₀(τ₀/2) + I₁(τ₀/2)] (Ladenburg & Reiche 1913), scipy.special.ive
+    from compquant.cflibs.blends import absorbed_part
+    from compquant.cflibs.selfabs import sa_factor
+
+    tau0 = np.array([1e-3, 0.5, 5.0, 80.0])
+    wg, wl = np.array([0.004, 0.003, 1e-7, 0.004]), np.array([0.01, 0.02, 0.01, 0.005])
+    _x, a = absorbed_part(tau0, wg, wl)
+    assert a.sum(axis=1) == pytest.approx(1.0 - sa_factor(tau0, wg, wl), rel=1e-12, abs=1e-15)
+    lr = special.ive(0, 2.5) + special.ive(1, 2.5)
+    assert 1.0 - a[2].sum() == pytest.approx(lr, rel=2e-4)
+
+
+@pytest.fixture(scope="module")
+def iron_nickel_slab(tmp_path_factory):
+    """One noise-free, self-absorbed (0.1 mm slab) iron–nickel spectrum of the forward model, every shipped
+    line of Fe, Ni, Cr, Mn emitted (the method measures 34), with the Stark widths the analysis assumes
+    (0.01 nm at 10¹⁷ cm⁻³, no T scaling) and full partition functions, so that the slab physics is the
+    analysis' own and what is left is the blends (and the continuum); measured once by the line pipeline."""
+    from compquant.cflibs.capture import method_windows
+    from compquant.fileio import tomllib
+    from compquant.lines import measure_run
+    from compquant.method import method_from_dict
+    from compquant.plasma import synthesize
+    from compquant.plasma.forward import default_lines
+    from compquant.run import Run, write_run
+
+    af = _benchmark_module()
+    comp = {"Fe": 0.544, "Ni": 0.369, "Cr": 0.0733, "Mn": 0.0137}
+    T, ne = 9458.0, 8.5e16
+    wl = np.arange(200.0, 560.0, 0.02)
+    lines = default_lines(elements=list(comp)).with_default_stark(0.01, 1e17)
+    spec = synthesize(wl, comp, np.full(2, T), np.full(2, ne), length_mm=0.1, resolving_power=5000.0,
+                      self_absorption=True, continuum=True, lines=lines, stark_t_exponent=0.0)
+    spec = spec / spec.max() * 4e4
+    path = tmp_path_factory.mktemp("blend_sa") / "feni_sa.h5"
+    write_run(path, wl, spec, [{"sample_id": "FN", "role": "unknown", "standard_ref": "", "description": "x"}],
+              np.zeros(2, int), instrument={"resolving_power": 5000.0, "model": "forward model (test)"},
+              acquisition={"gate_delay_us": 1.0, "gate_width_us": 2.0})
+    cf = ('mc_draws = 0\nstark_fallback_fwhm_nm = 0.01\nself_absorption = "curve_of_growth"\n'
+          'plasma_length_mm = 0.1\n')
+    method = method_from_dict(tomllib.loads(af.method_toml(af.LINES["iron-nickel"], cf)), source="test")
+    with Run.open(path) as run:
+        lm = measure_run(run, method)
+        out = dict(table=lm.table, windows=method_windows(method, run.wavelength), acquisition=dict(run.acquisition),
+                   instrument=dict(run.instrument), settings=method.sections["cf"])
+    return comp, T, ne, out
+
+
+@pytest.mark.slow
+def test_blend_correction_with_self_absorbed_interferers_removes_the_blend_bias(iron_nickel_slab, monkeypatch):
+    # Truth: the composition, T and nₑ given to the forward model (above).  Measured when written
+    # (2026-12-03): without the correction T −0.08 %, nₑ +23.9 %, Fe +4.2 %, Ni −3.3 %, Cr −14.1 %,
+    # Mn −1.7 %; with it (eq. (5)) T −0.36 %, nₑ +3.9 %, Fe −0.4 %, Ni +0.7 %, Cr −1.1 %, Mn +2.1 %; with
+    # the interferers predicted optically thin instead nₑ +10.7 % (Fe −0.7 %, Ni +1.1 %, Cr −0.6 %).
+    from compquant.cflibs.blends import BlendCorrection
+
+    comp, T, ne, data = iron_nickel_slab
+    r0, before = _errors(comp, data, False)
+    r1, after = _errors(comp, data, True)
+    assert max(abs(before[e]) for e in ("Fe", "Ni", "Cr")) > 0.04  # the blend bias is there
+    assert max(abs(after[e]) for e in ("Fe", "Ni", "Cr")) < 0.015  # and gone with the correction
+    assert abs(after["Mn"]) < 0.04
+    assert abs(r1.temperature_k / T - 1) < 0.01
+    assert abs(r1.electron_density_cm3 / ne - 1) < 0.06 < abs(r0.electron_density_cm3 / ne - 1)
+    info = r1.fit["blend_correction"]
+    assert info["applied"] and info["self_absorbed"] and info["converged"] and 2 <= info["passes"] <= 6
+    assert r0.fit["blend_correction"] == {"applied": False}
+    # the interferers' own self-absorption matters: predicted optically thin they leave nₑ further off
+    orig = BlendCorrection.blend_prediction
+    monkeypatch.setattr(BlendCorrection, "blend_prediction", lambda self, sol, length_cm=None: orig(self, sol))
+    r2, _ = _errors(comp, data, True)
+    assert abs(r2.electron_density_cm3 / ne - 1) > abs(r1.electron_density_cm3 / ne - 1) + 0.03
+
+
+@pytest.mark.slow
+def test_slab_mode_without_interference_leaves_the_fit_as_it_is():
+    # The demo runs (compquant.simulate, invented brasses) emit the method's lines only, so the predicted
+    # interference of every window is below blend_tolerance: the columnar result must be the one without the
+    # correction, to the last bit, with 0 passes (and no second slab fit). Internal consistency check.
+    from compquant import Run, load_method, measure_run
+    from compquant.cflibs import CFSettings, analyse_cf
+    from compquant.cflibs.capture import method_windows
+
+    root = Path(__file__).resolve().parents[1] / "demo_runs"
+    method = load_method(root / "method.toml")
+    with Run.open(root / "demo-day1.h5") as run:
+        m = measure_run(run, method)
+        windows = method_windows(method, run.wavelength)
+        acq, ins = dict(run.acquisition), dict(run.instrument)
+    out = []
+    for blend in (True, False):
+        s = CFSettings.from_section(method.sections["cf"]).to_dict()
+        s["blend_correction"] = blend
+        assert s["self_absorption"] == "columnar"
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            out.append(analyse_cf(m.table, sample_id="LOT-2611-A", settings=s, windows=windows, acquisition=acq,
+                                  instrument=ins, measurement=m, mc_draws=0))
+    on, off = out
+    info = on.fit["blend_correction"]
+    assert info["applied"] and info["self_absorbed"] and info["negligible"] and info["passes"] == 0
+    assert info["changes"][0] < 0.002
+    assert on.temperature_k == off.temperature_k and on.electron_density_cm3 == off.electron_density_cm3
+    np.testing.assert_array_equal([e.mass_fraction for e in on.elements], [e.mass_fraction for e in off.elements])
+    np.testing.assert_array_equal([e.u for e in on.elements], [e.u for e in off.elements])

@@ -183,13 +183,20 @@ class _Analysis(NeRoutes, TemperatureFit, WindowCapture, BlendCorrection, CurveO
         tau = None
         length_cm = None
         mode = s.self_absorption
+        blend_sa = bool(self.windows and s.blend_correction)  # §1b, eq. (5): with the lines' self-absorption
         if mode == "curve_of_growth":
             length_cm = s.plasma_length_mm / 10.0
-            self.sa, sol, tau, ne_name, ne_est, _, _ = self.selfabs_corrected(length_cm, ne_pick, False)
+            out = self.selfabs_corrected(length_cm, ne_pick, False)
+            if blend_sa:
+                out = self.apply_blend_correction_sa(out, lambda: self.selfabs_corrected(length_cm, ne_pick, False))
+            self.sa, sol, tau, ne_name, ne_est, _, _ = out
             self.sa_info.update(plasma_length_mm=s.plasma_length_mm, fitted=False)
         elif mode == "columnar":
             chi_thin = float(sol.fit.chi2[0]) if sol is not None else float("inf")
-            self.sa, sol, tau, ne_name, ne_est, length_cm, chi = self.selfabs_corrected(None, ne_pick, True)
+            out = self.selfabs_corrected(None, ne_pick, True)
+            if blend_sa:
+                out = self.apply_blend_correction_sa(out, lambda: self.selfabs_corrected(None, ne_pick, True))
+            self.sa, sol, tau, ne_name, ne_est, length_cm, chi = out
             self.sa_info.update(plasma_length_mm=length_cm * 10.0, fitted=True,
                                 chi2_thin=chi_thin, chi2_fitted=chi)
             if not (1.01e-6 < length_cm < 0.99 * 10.0):
@@ -265,7 +272,8 @@ def analyse_cf(
         ``line_id → (window_nm, side_nm, gap_nm)`` of the window-integrated lines
         (:func:`compquant.cflibs.capture.method_windows`); each such line is divided by the
         fraction of its area the window measures (docs/calibration-free.md §1a) and, in the
-        thin modes with ``[cf] blend_correction``, corrected for the predicted interference of
+        thin modes and the slab modes ``curve_of_growth`` and ``columnar`` (interfering lines
+        self-absorbed) with ``[cf] blend_correction``, corrected for the predicted interference of
         other lines (§1b; on the run's pixels when ``windows`` is the
         :class:`~compquant.cflibs.capture.WindowSet` of ``method_windows``, which keeps the axis).
         Without it the intensities are taken as whole line areas.

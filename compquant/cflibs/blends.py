@@ -48,6 +48,29 @@ corrected areas and the prediction redone from the original N_j until no correct
 more than ``[cf] blend_tolerance`` (relative) or ``blend_max_passes`` passes have run — the
 iterative interference correction of CF-LIBS practice (Tognoni et al. 2010 review §4).
 
+Self-absorption modes ``curve_of_growth`` and ``columnar`` (eq. (5)).  There the solution is a
+homogeneous slab in LTE of length L (given or fitted) whose emergent spectral radiance is
+S(1 − e^{−τ(λ)}) (the formal solution of the transfer equation for a uniform slab; Cowan & Dieke
+1948, Rev. Mod. Phys. 20, 418; the curve-of-growth model of :mod:`compquant.cflibs.selfabs`),
+τ(λ) = τ₀ φ(λ)/φ₀ with φ the Voigt of the absorbing atoms (Doppler ⊕ Stark, no instrument) and τ₀
+from :func:`compquant.cflibs.selfabs.tau0_slab` at the solution's T, nₑ, absolute species
+densities (charge neutrality) and L.  A strong interfering line is then itself optically thick
+and its thin area Â_k overstates what reaches the window; but only its core is absorbed, its
+wings (τ ≪ 1) arrive whole.  Writing the emergent profile as the thin one less an absorbed part,
+
+    Â_k φ_k(μ)(1 − e^{−τ})/τ = Â_k [φ_k(μ) − a_k(μ)],   a_k = (φ₀/τ₀)(τ − 1 + e^{−τ}),
+    ∫ a_k dμ = 1 − SA_k,
+    c_jk → c_jk − c^abs_jk,   c^abs_jk = ∫ a_k(μ) K_j(μ) dμ                                    (5)
+
+with K_j(μ) the window's net response (eq. (1) or (1′)) to light emitted at μ and spread by the
+instrument's Gaussian alone (:func:`instrument_kernel`).  a_k is taken on the sinh grid of
+:func:`compquant.cflibs.selfabs.sa_factor` (:func:`absorbed_part`), so Σ a_k = 1 − SA_k of the fit
+itself and each line's total predicted area is Â_k·SA_k.  The measured line's own predicted area
+in σ_j (eq. (4)) is Â_j SA_j c_jj.  Each pass re-runs the whole self-absorption fit on the
+corrected areas (:meth:`BlendCorrection.apply_blend_correction_sa`).  Not in ``reference_line``
+mode: its SA factors are ratios to a reference line (Sun & Yu 2009), with no slab, τ₀ or length
+from which another line's self-absorption could be predicted.
+
 Units: wavelengths and widths nm; areas in the line table's intensity units; energies eV; T K;
 nₑ cm⁻³.
 
@@ -59,6 +82,8 @@ References
 .. [3] C. Aragón, J. A. Aguilera, Spectrochim. Acta B 63 (2008) 893 (Saha–Boltzmann plot).
 .. [4] M. Abramowitz, I. A. Stegun, Handbook of Mathematical Functions (1964), 25.4.46
    (Gauss–Hermite quadrature of the Voigt CDF, :func:`compquant.cflibs.capture.abs_cdf`).
+.. [5] R. D. Cowan, G. H. Dieke, Rev. Mod. Phys. 20 (1948) 418 (self-absorption of spectrum lines:
+   the emergent intensity of a uniform slab, S(1 − e^{−τ})).
 """
 
 from __future__ import annotations
@@ -148,8 +173,70 @@ def pixel_response(axis, pixels, weights, line_nm, w_gauss, w_lorentz) -> np.nda
     return v @ np.asarray(weights, float)
 
 
+def absorbed_part(tau0, w_gauss_abs, w_lorentz):
+    """The absorbed part of self-absorbed lines as quadrature nodes (eq. (5)): ``(x, a)``, each
+    (m, 481), with x the offsets from the line centre (nm) and a the weights (dimensionless) of
+
+        a(x) = (φ₀/τ₀)·(τ(x) − 1 + e^{−τ(x)}),   τ(x) = τ₀ φ(x)/φ₀,   ∫ a dx = 1 − SA
+
+    on the sinh grid of :func:`compquant.cflibs.selfabs.sa_factor` (the same profile φ — the Voigt
+    of the absorbing atoms, Doppler ⊕ Stark FWHMs ``w_gauss_abs``, ``w_lorentz`` in nm — the same
+    nodes and steps), so Σ a = 1 − SA of the fit to rounding.  Rows with τ₀ ≤ 10⁻⁹ are 0 (SA = 1).
+    """
+    from compquant.cflibs.selfabs import _XS, _profile_on_grid
+
+    t0 = np.asarray(tau0, float)
+    wg = np.maximum(np.asarray(w_gauss_abs, float) * np.ones_like(t0), 1e-12)
+    wl = np.maximum(np.asarray(w_lorentz, float) * np.ones_like(t0), 0.0)
+    phi, dx, phi0 = _profile_on_grid(wg, wl)
+    scale = 0.5 * (0.5346 * wl + np.sqrt(0.2166 * wl**2 + wg**2))  # as selfabs._profile_on_grid
+    x = _XS[None, :] * scale[:, None]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tau = t0[:, None] * phi / phi0[:, None]
+        a = np.where(t0[:, None] > 1e-9, (phi0 / t0)[:, None] * (tau + np.expm1(-tau)) * dx, 0.0)
+    return x, a
+
+
+def _gauss_cdf(x, sigma):
+    from scipy.special import ndtr
+
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return ndtr(x / sigma)
+
+
+def instrument_kernel(mu_nm, centre_nm, geometry, w_instr, axis=None, pixels=None, weights=None) -> np.ndarray:
+    """K(μ) of eq. (5): net window signal of unit-area light emitted at wavelength ``mu_nm`` (any
+    shape) and spread by the instrument's Gaussian of FWHM ``w_instr`` (broadcast with ``mu_nm``)
+    — eq. (1) for a Gaussian of the instrument width alone, continuous geometry, or with ``axis``
+    and the window's ``pixels``/``weights`` eq. (1′) (pixel means of the Gaussian, as
+    :func:`pixel_response`).  One window (``centre_nm``, ``geometry`` = (window, side, gap) nm)."""
+    mu = np.asarray(mu_nm, float)
+    fwhm = np.maximum(np.broadcast_to(np.asarray(w_instr, float), mu.shape), 1e-9)
+    sig = fwhm / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+    if axis is None:
+        window, side, gap = (float(v) for v in geometry)
+        h, d = 0.5 * window, mu - float(centre_nm)
+
+        def prob(lo, hi):
+            return _gauss_cdf(hi - d, sig) - _gauss_cdf(lo - d, sig)
+
+        out = prob(-h, h)
+        if side > 0:
+            out = out - h / side * (prob(-h - gap - side, -h - gap) + prob(h + gap, h + gap + side))
+        return out
+    x = np.asarray(axis, float)
+    p = np.asarray(pixels, int)
+    lo = np.where(p > 0, 0.5 * (x[np.maximum(p - 1, 0)] + x[p]), x[0] - 0.5 * (x[1] - x[0]))
+    hi = np.where(p < x.size - 1, 0.5 * (x[np.minimum(p + 1, x.size - 1)] + x[p]), x[-1] + 0.5 * (x[-1] - x[-2]))
+    edges, inv = np.unique(np.concatenate([lo, hi]), return_inverse=True)
+    m, s = mu.reshape(-1, 1), sig.reshape(-1, 1)
+    F = _gauss_cdf(edges[None, :] - m, s)
+    v = (F[:, inv[p.size:]] - F[:, inv[:p.size]]) / (hi - lo)[None, :]
+    return (v @ np.asarray(weights, float)).reshape(mu.shape)
+
+
 def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorentz, cand_u_rel, exclude=None,
-                axis=None, pixel_weights=None, min_area=None):
+                axis=None, pixel_weights=None, min_area=None, absorption=None):
     """Δ, u(Δ) and Σ|Â c| of eq. (2) for each window from its candidate interfering lines.
 
     Parameters
@@ -170,6 +257,12 @@ def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorent
 
     min_area : (n,) array, optional
         Candidates with a smaller predicted area are left out of window j (negligible lines).
+    absorption : tuple, optional
+        ``(tau0, w_gauss_abs, w_instr)`` per candidate: peak optical depth of the slab, Doppler
+        FWHM of the absorbing atoms and instrument FWHM (nm).  Each (window, candidate) pair then
+        responds with c_jk − c^abs_jk of eq. (5) (``cand_area`` stays the optically thin area;
+        the absorbed part is taken for pairs whose absorbed area (1 − SA)·Â reaches ``min_area``).
+        Without it (the thin modes) c_jk alone.
 
     Returns ``(delta, u_delta, abs_sum)``, each (n,).  All (window, candidate) pairs within
     reach are evaluated in one vectorised call.
@@ -210,11 +303,47 @@ def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorent
             sel = near & (jj == j)
             px, wt = pixel_weights[j]
             c[sel] = pixel_response(axis, px, wt, cand_wl[kk[sel]], wg_all[kk[sel]], wl_all[kk[sel]])
+    if absorption is not None:
+        c = c - _absorbed_response(centre, geo, jj, kk, cand_wl, np.asarray(cand_area, float), wl_all, absorption,
+                                   axis, pixel_weights, min_area)
     contrib = np.asarray(cand_area, float)[kk] * c
     delta = np.bincount(jj, contrib, minlength=n)
     u2 = np.bincount(jj, (contrib * np.asarray(cand_u_rel, float)[kk]) ** 2, minlength=n)
     absum = np.bincount(jj, np.abs(contrib), minlength=n)
     return delta, np.sqrt(u2), absum
+
+
+def _absorbed_response(centre, geo, jj, kk, cand_wl, area, wl_all, absorption, axis, pixel_weights, min_area):
+    """c^abs_jk of eq. (5) for the pairs (jj, kk) (0 where negligible): Σ_m a_km K_j(λ_k + x_km)."""
+    tau0, wg_abs, w_ins = (np.asarray(v, float) * np.ones(cand_wl.size) for v in absorption)
+    out = np.zeros(kk.size)
+    # 1 − SA ≤ min(1, τ₀/2) (1 − e^{−τ} ≥ τ − τ²/2 and φ ≤ φ₀): pairs whose absorbed area cannot
+    # reach min_area are not evaluated
+    cand = tau0[kk] > 1e-9
+    if min_area is not None:
+        cand &= area[kk] * np.minimum(1.0, 0.5 * tau0[kk]) >= np.asarray(min_area, float)[jj]
+    thick = np.unique(kk[cand])
+    if thick.size == 0:
+        return out
+    x, a = absorbed_part(tau0[thick], wg_abs[thick], wl_all[thick])
+    lost = area[thick] * a.sum(axis=1)  # (1 − SA)·Â: the area the slab absorbs
+    row = np.full(cand_wl.size, -1)
+    row[thick] = np.arange(thick.size)
+    sel = np.nonzero(cand)[0]
+    if min_area is not None:
+        sel = sel[lost[row[kk[sel]]] >= np.asarray(min_area, float)[jj[sel]]]
+    keep = a > 1e-14 * a.max(axis=1, keepdims=True)  # nodes that carry weight (at most 481·10⁻¹⁴ of it lost)
+    for j in np.unique(jj[sel]):
+        pairs = sel[jj[sel] == j]
+        r = row[kk[pairs]]
+        mu = cand_wl[kk[pairs], None] + x[r]
+        px, wt = (None, None) if axis is None else pixel_weights[j]
+        K = np.zeros(mu.shape)
+        K[keep[r]] = instrument_kernel(mu[keep[r]], centre[j], geo[j], np.broadcast_to(w_ins[kk[pairs], None],
+                                                                                        mu.shape)[keep[r]],
+                                       axis=axis, pixels=px, weights=wt)
+        out[pairs] = np.sum(a[r] * K, axis=1)
+    return out
 
 
 def predicted_ln_area(sol, model, element, ion, wl, gA, ek) -> np.ndarray:
@@ -285,8 +414,32 @@ class BlendCorrection:
         geo = np.array([self.windows.get(str(x), (np.nan, np.nan, np.nan)) for x in L.line_id], float)
         return geo.reshape(-1, 3)
 
-    def blend_prediction(self, sol):
-        """Per measured line: Δ_j/c_jj, u(Δ_j)/c_jj (in corrected-area units) and σ_j (eqs. 2–4)."""
+    def _slab_sa(self, sol, lines, mass, w_lorentz, length_cm, with_sa=True):
+        """Peak optical depth τ₀, SA and the absorbing atoms' Doppler FWHM of ``lines`` in the slab
+        of the self-absorption solution (``length_cm``; absolute densities from nₑ and charge
+        neutrality, :meth:`~compquant.cflibs.selfabs_cog.CurveOfGrowth.absolute_species`) — the
+        fit's own :func:`~compquant.cflibs.selfabs.tau0_slab` and
+        :func:`~compquant.cflibs.selfabs.sa_factor`, the Lorentzian part ``w_lorentz`` as the fit's
+        (:meth:`lorentz_thin` at SA = 1).  Species without a density get τ₀ = 0."""
+        from compquant.cflibs.electron_density import doppler_fwhm_nm
+        from compquant.cflibs.selfabs import sa_factor, tau0_slab
+
+        T = float(sol.T[0])
+        nabs = self.absolute_species(sol)
+        names = list(dict.fromkeys(lines.species))
+        u = {sp: float(self.atomic.partition_function(sp, np.array([T]))[0]) for sp in names if sp in nabs}
+        n_sp = np.array([nabs.get(sp, 0.0) for sp in lines.species])
+        u_sp = np.array([u.get(sp, 1.0) for sp in lines.species])
+        wg_abs = doppler_fwhm_nm(lines.wl, T, mass)
+        tau = tau0_slab(lines.wl, lines.gA, lines.ei, T, n_sp, u_sp, length_cm, wg_abs, w_lorentz)
+        return tau, (sa_factor(tau, wg_abs, w_lorentz) if with_sa else None), wg_abs
+
+    def blend_prediction(self, sol, length_cm=None):
+        """Per measured line: Δ_j/c_jj, u(Δ_j)/c_jj (in corrected-area units) and σ_j (eqs. 2–4).
+
+        ``length_cm``: the slab length of a self-absorption solution (modes ``curve_of_growth``
+        and ``columnar``): every line's predicted area is then its observed, self-absorbed one,
+        eq. (5); ``None`` (the thin modes): optically thin."""
         L, C = self.L, self._blend_candidates()
         T, ne = float(sol.T[0]), float(sol.ne[0])
         geo = self._blend_geometry(L)
@@ -318,8 +471,15 @@ class BlendCorrection:
                     memo[key] = pixel_window_weights(axis, L.wl[j], *geo[j])
                 pw.append(memo[key])
         own = area_self[idx] * f[idx]
+        absorption = None
+        if length_cm is not None:  # eq. (5): the interfering lines and the line itself self-absorbed
+            tau_c, _, wga_c = self._slab_sa(sol, C, m_c, wl_c, length_cm, with_sa=False)
+            absorption = (tau_c, wga_c, w_ins_c)
+            wl_l = self.lorentz_thin(T, ne, np.ones(L.n))
+            own = own * self._slab_sa(sol, L, self.mass_line, wl_l, length_cm)[1][idx]
         delta, u_delta, absum = blend_terms(L.wl[idx], geo[idx], C.wl, area_c, wg_c, wl_c, u_c, exclude=own_k,
-                                            axis=axis, pixel_weights=pw, min_area=NEGLIGIBLE_AREA * own)
+                                            axis=axis, pixel_weights=pw, min_area=NEGLIGIBLE_AREA * own,
+                                            absorption=absorption)
         corr[idx] = delta / f[idx]
         u_corr[idx] = u_delta / f[idx]
         tot = own + absum
@@ -400,6 +560,87 @@ class BlendCorrection:
                        f"(tolerance {s.blend_tolerance:g})")
         return sol
 
+    def apply_blend_correction_sa(self, out, refit):
+        """The blend correction of the self-absorption modes ``curve_of_growth`` and ``columnar``
+        (§1b, eq. (5)): ``out`` is the tuple of
+        :meth:`~compquant.cflibs.selfabs_fit.SelfAbsFit.selfabs_corrected` (SA, solution, τ₀, nₑ
+        route, nₑ estimator, slab length, χ²) and ``refit()`` repeats that fit on the current lines.
 
-__all__ = ["BlendCorrection", "blend_terms", "pixel_response", "pixel_window_weights", "predicted_ln_area",
+        Passes as :meth:`apply_blend_correction`, each predicting from the current self-absorption
+        solution (its T, nₑ, intercepts and slab length: every line's area self-absorbed, eq. (5))
+        and re-running the whole self-absorption fit on the corrected areas.  The measured areas
+        are kept by line id, so lines the fit removes as too optically thick leave the iteration
+        with their correction.  A first prediction that drops no line and moves none by more than
+        ``blend_tolerance`` leaves the lines and the fit as they are (``negligible``, 0 passes).
+        Returns the last fit's tuple.
+        """
+        s = self.s
+        meas = {str(lid): (float(i), float(u)) for lid, i, u in zip(self.L.line_id, self.L.intensity,
+                                                                    self.L.u_intensity)}
+        prev: dict[str, float] | None = None
+        info = {"applied": True, "self_absorbed": True, "passes": 0, "converged": False,
+                "tolerance": float(s.blend_tolerance), "dropped": []}
+        n_lines = self.L.n
+        for _ in range(int(s.blend_max_passes)):
+            sol, length_cm = out[1], float(out[5])
+            corr, u_corr, share = self.blend_prediction(sol, length_cm=length_cm)
+            ids = [str(x) for x in self.L.line_id]
+            I0 = np.array([meas[k][0] for k in ids])
+            u0 = np.array([meas[k][1] for k in ids])
+            low = (share < s.blend_min_self_share) | (I0 - corr <= 0)
+            if np.any(low) and np.sum(~low) >= 2:
+                for i in np.nonzero(low)[0]:
+                    info["dropped"].append({"line_id": ids[i], "self_share": float(share[i])})
+                keep = ~low
+                self.drop_lines(low, f"blend: predicted self share below blend_min_self_share = "
+                                     f"{s.blend_min_self_share:g} (§1b)")
+                I0, u0, corr, u_corr, share = I0[keep], u0[keep], corr[keep], u_corr[keep], share[keep]
+                ids = [k for k, kp in zip(ids, keep) if kp]
+                self._blend_cands = None
+            if prev is None and not info["dropped"] and float(np.max(np.abs(corr) / I0)) < s.blend_tolerance:
+                # the first prediction moves no line by more than the tolerance the iteration stops
+                # at: the lines and the fit stay as they are (a re-fit costs a whole slab fit)
+                self.blend_self_share = share
+                info.update(converged=True, changes=[float(np.max(np.abs(corr) / I0))], negligible=True)
+                break
+            new = I0 - corr
+            self.L.intensity = new
+            self.L.u_intensity = np.sqrt(u0**2 + u_corr**2)
+            self.blend_share = corr / I0
+            self.blend_self_share = share
+            self._set_ordinate_weights()
+            try:
+                out = refit()
+            except PhysicsError as exc:  # no self-absorption solution for the corrected lines
+                self._warn(f"blend correction abandoned in pass {info['passes'] + 1} ({exc.one_line()}); "
+                           "lines left uncorrected")
+                self.L.intensity, self.L.u_intensity = I0, u0
+                self.blend_share = np.zeros(self.L.n)
+                self.blend_self_share = np.ones(self.L.n)
+                self._set_ordinate_weights()
+                out = refit()
+                info["abandoned"] = exc.one_line()
+                break
+            info["passes"] += 1
+            change = max(abs(v - (meas[k][0] if prev is None else prev.get(k, meas[k][0]))) / meas[k][0]
+                         for k, v in zip(ids, new))
+            info.setdefault("changes", []).append(float(change))
+            if prev is not None and change < s.blend_tolerance:
+                info["converged"] = True
+                break
+            prev = dict(zip(ids, new))
+        info["lines"] = n_lines
+        self.blend_info = info
+        if info["dropped"]:
+            self._warn("blend correction: dropped " + ", ".join(
+                f"{d['line_id']} (self share {d['self_share']:.2f})" for d in info["dropped"])
+                + f" — below blend_min_self_share = {s.blend_min_self_share:g}")
+        if not info["converged"]:
+            self._warn(f"blend correction did not settle within {info['passes']} passes "
+                       f"(tolerance {s.blend_tolerance:g})")
+        return out
+
+
+__all__ = ["BlendCorrection", "absorbed_part", "blend_terms", "instrument_kernel", "pixel_response",
+           "pixel_window_weights", "predicted_ln_area",
            "voigt_cdf", "window_response"]

@@ -155,7 +155,7 @@ CF_TABLE = Table("cf", (
     _s("mc_sa_u_rel", "float", 0.2, "relative u of self-absorption factors (Monte Carlo)", **_NONNEG),
     _s("response_u_rel", "float", 0.0, "relative u of the response curve (Monte Carlo)", **_NONNEG),
     _s("blend_correction", "bool", True, "correct window-integrated lines for predicted interference of other lines "
-       "(thin modes, §1b)"),
+       "(thin modes and the slab self-absorption modes, §1b)"),
     _s("blend_u_rel", "float", 0.15, "relative u of a predicted interfering line's area beyond its A_ki grade (§1b)",
        **_NONNEG),
     _s("blend_min_self_share", "float", 0.5, "lines whose window is predicted less than this share their own are "
