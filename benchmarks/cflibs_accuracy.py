@@ -6,7 +6,9 @@ What it does (all seeded by this script, ``--seed``):
    nₑ in 1e16–1e17 cm⁻³;
 2. synthesises each sample's shots with :func:`compquant.plasma.synthesize` (LTE, Voigt
    profiles, instrument function R = 6000, continuum on), optically thin and as a
-   homogeneous self-absorbing slab; adds noise: shot-to-shot intensity fluctuation,
+   homogeneous self-absorbing slab, each line's profile out to where its Lorentzian far wing
+   leaves less than ``WING_TAIL_FRACTION`` = 10⁻³ of its area (complete wings; before
+   2026-12-03 cut at ±max(25 FWHM, 0.3 nm)); adds noise: shot-to-shot intensity fluctuation,
    photon (Poisson-like) noise and detector read noise;
 3. writes one run per regime (:func:`compquant.run.write_run`) and sends it through the
    **line pipeline** (:func:`compquant.lines.measure_run`: SNIP baseline, per-shot
@@ -36,6 +38,8 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+WING_TAIL_FRACTION = 1e-3  # complete wings (compquant.plasma.forward.SpectrumModel)
 
 LINES = ["Cu I 324.754", "Cu I 327.396", "Cu I 296.117", "Cu I 282.437", "Cu I 261.837", "Cu I 249.215",
          "Cu II 224.700", "Cu II 227.626", "Cu II 224.262",
@@ -96,7 +100,8 @@ def make_run(path, cases, *, self_absorption, length_mm, rng, shots=10, resolvin
     spectra, index, table = [], [], []
     for k, c in enumerate(cases):
         spec = synthesize(wl, c["comp"], np.full(shots, c["T"]), np.full(shots, c["ne"]), length_mm=length_mm,
-                          resolving_power=resolving_power, self_absorption=self_absorption, continuum=True)
+                          resolving_power=resolving_power, self_absorption=self_absorption, continuum=True,
+                          wing_tail_fraction=WING_TAIL_FRACTION)
         spec = spec / spec.max() * gain_peak  # detector counts
         spec = spec * (1.0 + fluct * rng.standard_normal((shots, 1)))  # pulse-to-pulse fluctuation
         spec = spec + np.sqrt(np.maximum(spec, 0.0)) * rng.standard_normal(spec.shape)  # photon noise

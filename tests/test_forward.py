@@ -296,3 +296,125 @@ def test_thin_threshold_switches_paths_consistently():
     b = thin.radiance({"Cu": 1.0}, 1e4, 1e17, length_mm=1e-6)
     assert np.abs(a - b).max() <= 1e-3 * b.max()  # same shape, through either path
     assert a.sum() == pytest.approx(b.sum(), rel=1e-4)
+
+
+# ----------------------------------------------------------------------------- line wings
+def test_voigt_tail_matches_quadrature_of_scipy_voigt_profile():
+    # reference: scipy.integrate.quad of scipy.special.voigt_profile (a unit-area profile,
+    # scipy documentation), out to infinity; Gaussian-only: the normal tail Phi(-x/sigma)
+    from scipy.integrate import quad
+    from scipy.special import ndtr, voigt_profile
+
+    from compquant.plasma.forward import voigt_tail
+
+    for s in (1e-3, 4e-3):
+        for g in (0.0, 1e-5, 2e-4, 1e-3, 1e-2):
+            for x in (-0.01, 0.0, 1e-3, 7.9 * s, 8.1 * s, 0.05, 0.6, 5.0, 40.0):
+                if g == 0.0:
+                    ref = ndtr(-x / s)
+                else:
+                    a, sg = abs(x), (s, g)
+                    one = quad(voigt_profile, a, a + 1.0, args=sg, limit=500, epsabs=1e-14)[0]
+                    one += quad(voigt_profile, a + 1.0, np.inf, args=sg, epsabs=1e-14)[0]
+                    ref = one if x >= 0 else 1.0 - one
+                assert float(voigt_tail(x, s, g)) == pytest.approx(ref, abs=1e-12), (s, g, x)
+
+
+def test_default_wings_are_the_stated_cut():
+    # the default is the cut at +-max(25 FWHM, 0.3 nm) (the demo runs; their bit-for-bit check
+    # against the stored runs is tests/test_simulate.py::test_demo_runs_regenerate_identically)
+    kw = {"continuum": False, "nominal_temperature_k": 1e4, "nominal_ne_cm3": 1e17}
+    a = model(one_line(), **kw)
+    b = model(one_line(), wing_cut_fwhm=25.0, wing_min_nm=0.3, **kw)
+    ra = a.radiance({"Cu": 1.0}, [9e3, 1e4], [8e16, 1e17])
+    np.testing.assert_array_equal(ra, b.radiance({"Cu": 1.0}, [9e3, 1e4], [8e16, 1e17]))
+    # window edges: 25 Voigt FWHM (Olivero-Longbothum of Doppler and Stark) from the centre
+    from compquant.plasma.profiles import voigt_fwhm
+
+    wg, wl, sh = a._broadening(a.lines, slice(None), 1e4, 1e17, shift=True)
+    half = 25.0 * voigt_fwhm(wg, wl)[0]
+    assert half > 0.3
+    lo, hi = a._window_edges[0]
+    c = 510.554 + sh[0]
+    assert c - lo == pytest.approx(half, abs=a.cell_width.max())
+    assert hi - c == pytest.approx(half, abs=a.cell_width.max())
+    wide = model(one_line(), wing_cut_fwhm=50.0, **kw)
+    assert wide._window_edges[0, 1] - wide._window_edges[0, 0] > 1.9 * (hi - lo)
+    with pytest.raises(PhysicsError, match="wing_tail_fraction"):
+        model(one_line(), wing_tail_fraction=0.0)
+    with pytest.raises(PhysicsError, match="wing_cut_fwhm"):
+        model(one_line(), wing_cut_fwhm=-1.0)
+
+
+@pytest.mark.parametrize("delta", [1e-3, 1e-4])
+def test_complete_wings_keep_the_line_area_and_the_lorentzian_wing(delta):
+    # one line, Stark FWHM 0.02 nm at 1e17 cm^-3, in a 60 nm detector
+    from scipy.integrate import quad
+    from scipy.special import voigt_profile
+
+    kw = {"continuum": False, "nominal_temperature_k": 1e4, "nominal_ne_cm3": 1e17}
+    wl = np.linspace(480.0, 540.0, 4000)
+    full = model(one_line(), wl=wl, wing_tail_fraction=delta, **kw)
+    cut = model(one_line(), wl=wl, **kw)
+    st = full.lte_state({"Cu": 1.0}, np.array([1e4]), np.array([1e17]))
+    eps, _ = full.line_quantities(st)
+    length_m = 1e-3
+    emitted = eps[0, 0] * length_m  # the line's total emitted radiance (W m^-2 sr^-1)
+    r_full = full.radiance({"Cu": 1.0}, 1e4, 1e17, length_mm=1.0)[0]
+    r_cut = cut.radiance({"Cu": 1.0}, 1e4, 1e17, length_mm=1.0)[0]
+    wg, wlor, sh = full._broadening(full.lines, slice(None), 1e4, 1e17, shift=True)
+    s, g, c = wg[0] * 0.5 / math.sqrt(2 * math.log(2)), 0.5 * wlor[0], 510.554 + sh[0]
+    # window from the Lorentzian tail formula: x = gamma cot(pi delta / 2)
+    # (1e-4: 64 nm, bounded by the fine grid, which ends 1 nm + 6 instrument sigma past the pixels)
+    a, b = full._window_edges[0]
+    x_delta = g / math.tan(0.5 * math.pi * delta)
+    grid_lo = full.cell_mid[0] - 0.5 * full.cell_width[0]
+    grid_hi = full.cell_mid[-1] + 0.5 * full.cell_width[-1]
+    assert a == pytest.approx(max(c - x_delta, grid_lo), abs=full.cell_width.max())
+    assert b == pytest.approx(min(c + x_delta, grid_hi), abs=full.cell_width.max())
+    clipped = c - x_delta < grid_lo
+    # area inside the window by quadrature of the unit-area scipy Voigt profile (scipy docs)
+    f = lambda u: voigt_profile(u - c, s, g)  # noqa: E731
+    inside = sum(
+        quad(f, lo, hi, limit=400, points=[c] if lo < c < hi else None, epsabs=1e-13)[0]
+        for lo, hi in ((a, c - 1.0), (c - 1.0, c + 1.0), (c + 1.0, b))
+    )
+    if not clipped:
+        assert 1.0 - inside == pytest.approx(delta, rel=2e-3)  # what is left outside is delta
+    else:
+        assert 1.0 - inside > delta  # the wing beyond the grid is lost too (here 2e-4)
+    # the pixels hold exactly the emitted area inside the window (the pixel matrix conserves it);
+    # a window reaching past the pixels: the area over the pixel range (the light of the grid's
+    # extension that the instrument function spills in balances what it spills out)
+    if not clipped:
+        assert r_full.sum() == pytest.approx(emitted * inside, rel=1e-9)
+    else:
+        pe = full.instrument.pixel_edges
+        on_pixels = quad(f, pe[0], c - 1.0, limit=400)[0] + quad(f, c - 1.0, c + 1.0, limit=400, points=[c])[0]
+        on_pixels += quad(f, c + 1.0, pe[-1], limit=400)[0]
+        assert r_full.sum() == pytest.approx(emitted * on_pixels, rel=1e-7)
+    if not clipped:
+        assert 0.0 < 1.0 - r_full.sum() / emitted <= delta * 1.002  # the line's area less <= delta
+    # the cut model moves the wing beyond +-max(25 FWHM, 0.3 nm) into the window: area emitted
+    assert r_cut.sum() == pytest.approx(emitted, rel=1e-8)
+    # far wing, 1.5-5 nm from the line (>> instrument sigma 0.072 nm at R = 3000): the physical
+    # Voigt (the Gaussian instrument changes a 1/x^2 wing by about 3 sigma^2/x^2 < 0.7 %)
+    pw = np.diff(full.instrument.pixel_edges)
+    far = (np.abs(wl - c) > 1.5) & (np.abs(wl - c) < 5.0)
+    np.testing.assert_allclose(r_full[far] / pw[far], emitted * voigt_profile(wl[far] - c, s, g), rtol=8e-3)
+    assert np.all(r_cut[far] == 0.0)  # the cut wing is missing there
+
+
+def test_complete_wings_slab_thin_limit_matches_the_thin_path():
+    # the slab path (thin_tau = 0) scales each shot's profile to the same analytic window area
+    kw = {"continuum": False, "nominal_temperature_k": 1e4, "nominal_ne_cm3": 1e17, "wing_tail_fraction": 1e-3}
+    wl = np.linspace(495.0, 526.0, 3100)
+    slab = model(one_line(), wl=wl, self_absorption=True, thin_tau=0.0, **kw)
+    thin = model(one_line(), wl=wl, **kw)
+    t, ne = np.array([9.5e3, 1e4, 1.05e4]), np.array([9e16, 1e17, 1.1e17])
+    a = slab.radiance({"Cu": 1.0}, t, ne, length_mm=1e-6)
+    b = thin.radiance({"Cu": 1.0}, t, ne, length_mm=1e-6)
+    # per shot the areas agree to the 1 - tau/2 slab correction (tau < 1e-4) plus the shot's
+    # own dropped wing (delta scaled by its n_e, against the nominal width of the thin path)
+    np.testing.assert_allclose(a.sum(axis=1), b.sum(axis=1), rtol=2e-4)
+    assert np.abs(a[1] - b[1]).max() <= 1e-3 * b[1].max()
