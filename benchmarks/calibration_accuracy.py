@@ -189,6 +189,9 @@ def main(argv=None) -> int:
     ap.add_argument("--repeats", type=int, default=4, help="extra seeded calibration days (default 4)")
     ap.add_argument("--method", default=str(ROOT / "demo_runs" / "method.toml"))
     ap.add_argument("--standards", default=str(ROOT / "standards" / "demo-copper-alloys.csv"))
+    ap.add_argument("--results-csv", default=None,
+                    help="write the per-result table of day 1 and of every seeded repeat finished so far to "
+                         "this CSV (rewritten after each repeat, so a run cut short keeps its repeats)")
     args = ap.parse_args(argv)
     t0 = time.perf_counter()
     method = load_method(args.method)
@@ -236,7 +239,9 @@ def main(argv=None) -> int:
 
         if args.repeats > 0:
             print(f"\nSeeded repeats of the calibration day: {args.repeats}")
-            allr = [r1]
+            allr = [r1.assign(day=0)]
+            if args.results_csv:
+                pd.concat(allr, ignore_index=True).to_csv(args.results_csv, index=False)
             for k in range(1, args.repeats + 1):
                 ts = 20261116 + 7919 * k
                 samples = tuple(
@@ -250,8 +255,10 @@ def main(argv=None) -> int:
                 rk = compare(quantify(lmk, calk, run_sha256=shak, samples=smk), truth_of(sck))
                 print(f"  repeat {k}: truth seed {ts}; coverage k=2 {rk['cover_k2'].mean() * 100:.1f} %, "
                       f"t95 {rk['cover_t95'].mean() * 100:.1f} %; rejected {list(calk.rejected) or 'none'}")
-                allr.append(rk)
+                allr.append(rk.assign(day=k))
                 runk.unlink()
+                if args.results_csv:
+                    pd.concat(allr, ignore_index=True).to_csv(args.results_csv, index=False)
             summary(pd.concat(allr, ignore_index=True),
                     f"All {len(allr)} calibration days pooled (day 1 + {args.repeats} repeats)")
     print(f"\ntotal time {time.perf_counter() - t0:.0f} s")
