@@ -192,7 +192,17 @@ def main(argv=None) -> int:
     ap.add_argument("--results-csv", default=None,
                     help="write the per-result table of day 1 and of every seeded repeat finished so far to "
                          "this CSV (rewritten after each repeat, so a run cut short keeps its repeats)")
+    ap.add_argument("--summarise", default=None, metavar="CSV",
+                    help="only print the pooled summary of a --results-csv table (e.g. of a run cut short)")
     args = ap.parse_args(argv)
+    if args.summarise:
+        r = pd.read_csv(args.summarise)
+        for col in ("above_loq", "cover_k2", "cover_t95"):
+            r[col] = r[col].astype(str).str.lower().eq("true")
+        days = sorted(r["day"].unique())
+        summary(r, f"{len(days)} calibration days pooled from {args.summarise} (day 1 + repeats "
+                   f"{', '.join(str(d) for d in days if d) or 'none'})")
+        return 0
     t0 = time.perf_counter()
     method = load_method(args.method)
     standards = load_standards(args.standards)

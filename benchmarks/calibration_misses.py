@@ -71,10 +71,15 @@ def scenario_truth(k: int) -> dict:
     return {(s.sample_id, el): w for s in samples for el, w in s.composition.items()}
 
 
-def variant_method(method_path: Path, istd: str | None, lines: dict, models: dict, interf: dict | None = None):
-    """The method with the internal standard / analyte lines / models / additive interferers replaced."""
+def variant_method(method_path: Path, istd: str | None, lines: dict, models: dict, interf: dict | None = None,
+                   windows: dict | None = None):
+    """The method with the internal standard / analyte lines / models / additive interferers /
+    line windows (line id -> (window_nm, side_nm)) replaced."""
     interf = interf or {}
+    windows = windows or {}
     raw = load_toml(method_path)
+    raw["lines"] = [dict(ln, window_nm=windows[ln["id"]][0], side_nm=windows[ln["id"]][1]) if ln["id"] in windows
+                    else ln for ln in raw["lines"]]
     have = {ln["id"] for ln in raw["lines"]}
     want = ([istd] if istd else []) + list(lines.values())
     for lid in want:
@@ -93,7 +98,8 @@ def variant_method(method_path: Path, istd: str | None, lines: dict, models: dic
     raw["calibration"] = sec
     label = " ".join([f"istd={istd}" if istd else ""] + [f"{k}={v}" for k, v in lines.items()]
                      + [f"{k}:{v}" for k, v in models.items()]
-                     + [f"{k}+{','.join(v) or 'none'}" for k, v in interf.items()]).strip() or "demo method"
+                     + [f"{k}+{','.join(v) or 'none'}" for k, v in interf.items()]
+                     + [f"[{k}: {v[0]:g}/{v[1]:g} nm]" for k, v in windows.items()]).strip() or "demo method"
     return method_from_dict(raw, source=f"{method_path} ({label})"), sec, label
 
 
@@ -190,12 +196,15 @@ def main(argv=None) -> int:
     ap.add_argument("--model", action="append", default=[], help="El=MODEL (repeatable)")
     ap.add_argument("--interf", action="append", default=[],
                     help="El=Mn,Fe: the analyte's additive interferers (El= for none; repeatable)")
+    ap.add_argument("--window", action="append", default=[],
+                    help="LINE ID=WINDOW_NM,SIDE_NM: a line's window and side windows (repeatable)")
     ap.add_argument("--quiet", action="store_true", help="pooled summary only")
     args = ap.parse_args(argv)
     lines = dict(s.split("=", 1) for s in args.line)
     models = dict(s.split("=", 1) for s in args.model)
     interf = {k: [e for e in v.split(",") if e] for k, v in (s.split("=", 1) for s in args.interf)}
-    method, sec, label = variant_method(Path(args.method), args.istd, lines, models, interf)
+    windows = {k: tuple(float(x) for x in v.split(",")) for k, v in (s.rsplit("=", 1) for s in args.window)}
+    method, sec, label = variant_method(Path(args.method), args.istd, lines, models, interf, windows)
     standards = load_standards(args.standards)
     runs = args.run or [str(ROOT / "demo_runs" / "demo-day1.h5")]
     allr = []
