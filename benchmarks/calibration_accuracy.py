@@ -2,7 +2,14 @@
 
 Usage, from the repository root::
 
-    python benchmarks/calibration_accuracy.py [--repeats 4] [--method demo_runs/method.toml]
+    python benchmarks/calibration_accuracy.py [--repeats 4] [--method demo_runs/method.toml] \
+        [--results-csv results.csv]
+    python benchmarks/calibration_accuracy.py --summarise results.csv   # pooled figures of a CSV
+
+Each seeded repeat simulates a whole calibration day (11-15 min of one core on the 2-core
+machine; more under load): ``--results-csv`` rewrites the per-result table (day 1 and every
+repeat finished so far, column ``day``) after each repeat, so a run cut short keeps its repeats
+and ``--summarise`` pools them.
 
 1. Calibrates on the calibration-day run (``demo_runs/demo-day1.h5``, simulated into a
    temporary folder when absent) with the demo method, quantifies its check sample and
