@@ -2,7 +2,14 @@
 
 Usage, from the repository root::
 
-    python benchmarks/calibration_accuracy.py [--repeats 4] [--method demo_runs/method.toml]
+    python benchmarks/calibration_accuracy.py [--repeats 4] [--method demo_runs/method.toml] \
+        [--results-csv results.csv]
+    python benchmarks/calibration_accuracy.py --summarise results.csv   # pooled figures of a CSV
+
+Each seeded repeat simulates a whole calibration day (11-15 min of one core on the 2-core
+machine; more under load): ``--results-csv`` rewrites the per-result table (day 1 and every
+repeat finished so far, column ``day``) after each repeat, so a run cut short keeps its repeats
+and ``--summarise`` pools them.
 
 1. Calibrates on the calibration-day run (``demo_runs/demo-day1.h5``, simulated into a
    temporary folder when absent) with the demo method, quantifies its check sample and
@@ -189,7 +196,25 @@ def main(argv=None) -> int:
     ap.add_argument("--repeats", type=int, default=4, help="extra seeded calibration days (default 4)")
     ap.add_argument("--method", default=str(ROOT / "demo_runs" / "method.toml"))
     ap.add_argument("--standards", default=str(ROOT / "standards" / "demo-copper-alloys.csv"))
+    ap.add_argument("--results-csv", default=None,
+                    help="write the per-result table of day 1 and of every seeded repeat finished so far to "
+                         "this CSV (rewritten after each repeat, so a run cut short keeps its repeats)")
+    ap.add_argument("--first-repeat", type=int, default=1,
+                    help="number of the first seeded repeat (its seeds follow from it; default 1)")
+    ap.add_argument("--skip-days", action="store_true",
+                    help="seeded repeats only: skip the day-1, day-2 and interference sections")
+    ap.add_argument("--summarise", nargs="+", default=None, metavar="CSV",
+                    help="only print the pooled summary of --results-csv tables (e.g. of runs cut short)")
     args = ap.parse_args(argv)
+    if args.summarise:
+        r = pd.concat([pd.read_csv(f) for f in args.summarise], ignore_index=True)
+        for col in ("above_loq", "cover_k2", "cover_t95"):
+            r[col] = r[col].astype(str).str.lower().eq("true")
+        r = r.drop_duplicates(["day", "sample_id", "element"])
+        days = sorted(int(d) for d in r["day"].unique())
+        summary(r, f"{len(days)} calibration days pooled from {', '.join(args.summarise)} "
+                   f"({'day 1, ' if 0 in days else ''}repeats {', '.join(str(d) for d in days if d) or 'none'})")
+        return 0
     t0 = time.perf_counter()
     method = load_method(args.method)
     standards = load_standards(args.standards)
@@ -197,47 +222,50 @@ def main(argv=None) -> int:
     sc2 = load_scenario(ROOT / "demo_runs" / "scenario-day2.toml")
     with tempfile.TemporaryDirectory(prefix="cq-calbench-") as tmp:
         work = Path(tmp)
-        print("Calibration day (demo-day1)")
-        run1 = get_run("demo-day1.h5", sc1.path, 1, work)
-        t = time.perf_counter()
-        cal, lm1, samples1, sha1 = calibrate_run(run1, method, standards)
-        print(f"  measured and calibrated in {time.perf_counter() - t:.1f} s")
-        curve_lines(cal)
-        q1 = quantify(lm1, cal, run_sha256=sha1, samples=samples1)
-        r1 = compare(q1, truth_of(sc1))
-        print_table(r1, "Day 1: check sample and unknowns")
-        print("\nCheck sample:")
-        for c in q1.checks.itertuples(index=False):
-            print(f"  {c.sample_id} {c.element}: En = {c.En:+.2f}, zeta = {c.zeta:+.2f} -> "
-                  f"{'pass' if c.passed else 'FAIL'}")
-        print(f"  run valid for release: {q1.valid_for_release}")
-        summary(r1, "Day 1 summary")
-        cal_path = work / "cal.json"
-        cal.save(cal_path)
-        cal = Calibration.load(cal_path, method_id=method.id, method_sha256=method.sha256)
+        if not args.skip_days:
+            print("Calibration day (demo-day1)")
+            run1 = get_run("demo-day1.h5", sc1.path, 1, work)
+            t = time.perf_counter()
+            cal, lm1, samples1, sha1 = calibrate_run(run1, method, standards)
+            print(f"  measured and calibrated in {time.perf_counter() - t:.1f} s")
+            curve_lines(cal)
+            q1 = quantify(lm1, cal, run_sha256=sha1, samples=samples1)
+            r1 = compare(q1, truth_of(sc1))
+            print_table(r1, "Day 1: check sample and unknowns")
+            print("\nCheck sample:")
+            for c in q1.checks.itertuples(index=False):
+                print(f"  {c.sample_id} {c.element}: En = {c.En:+.2f}, zeta = {c.zeta:+.2f} -> "
+                      f"{'pass' if c.passed else 'FAIL'}")
+            print(f"  run valid for release: {q1.valid_for_release}")
+            summary(r1, "Day 1 summary")
+            cal_path = work / "cal.json"
+            cal.save(cal_path)
+            cal = Calibration.load(cal_path, method_id=method.id, method_sha256=method.sha256)
 
-        print("\nLater day with instrument drift (demo-day2), calibration of day 1")
-        run2 = get_run("demo-day2.h5", sc2.path, 2, work)
-        lm2, samples2, sha2 = measure(run2, method)
-        q2 = quantify(lm2, cal, run_sha256=sha2, samples=samples2)
-        d = q2.drift
-        print(f"  drift standardisation applied: {d['applied']}; setup samples {d.get('setup_samples')}")
-        for lid, c in sorted(d.get("coefficients", {}).items()):
-            print(f"    {lid:<14} {c['kind']:<9} alpha = {c['alpha']:.4f}  beta = {c['beta']:+.4g}")
-        r2 = compare(q2, truth_of(sc2))
-        print_table(r2, "Day 2 with drift standardisation")
-        summary(r2, "Day 2 summary (drift-corrected)")
-        cal_off = Calibration.from_dict(cal.to_dict())
-        cal_off.settings["drift"] = "off"
-        r2o = compare(quantify(lm2, cal_off, run_sha256=sha2, samples=samples2), truth_of(sc2))
-        summary(r2o, "Day 2 summary WITHOUT drift standardisation (for comparison)")
+            print("\nLater day with instrument drift (demo-day2), calibration of day 1")
+            run2 = get_run("demo-day2.h5", sc2.path, 2, work)
+            lm2, samples2, sha2 = measure(run2, method)
+            q2 = quantify(lm2, cal, run_sha256=sha2, samples=samples2)
+            d = q2.drift
+            print(f"  drift standardisation applied: {d['applied']}; setup samples {d.get('setup_samples')}")
+            for lid, c in sorted(d.get("coefficients", {}).items()):
+                print(f"    {lid:<14} {c['kind']:<9} alpha = {c['alpha']:.4f}  beta = {c['beta']:+.4g}")
+            r2 = compare(q2, truth_of(sc2))
+            print_table(r2, "Day 2 with drift standardisation")
+            summary(r2, "Day 2 summary (drift-corrected)")
+            cal_off = Calibration.from_dict(cal.to_dict())
+            cal_off.settings["drift"] = "off"
+            r2o = compare(quantify(lm2, cal_off, run_sha256=sha2, samples=samples2), truth_of(sc2))
+            summary(r2o, "Day 2 summary WITHOUT drift standardisation (for comparison)")
 
-        interference_demo(Path(args.method), run1, standards, truth_of(sc1))
+            interference_demo(Path(args.method), run1, standards, truth_of(sc1))
 
         if args.repeats > 0:
-            print(f"\nSeeded repeats of the calibration day: {args.repeats}")
-            allr = [r1]
-            for k in range(1, args.repeats + 1):
+            print(f"\nSeeded repeats of the calibration day: {args.repeats} (from repeat {args.first_repeat})")
+            allr = [] if args.skip_days else [r1.assign(day=0)]
+            if args.results_csv and allr:
+                pd.concat(allr, ignore_index=True).to_csv(args.results_csv, index=False)
+            for k in range(args.first_repeat, args.first_repeat + args.repeats):
                 ts = 20261116 + 7919 * k
                 samples = tuple(
                     dataclasses.replace(s, composition=draw_true_composition(
@@ -250,10 +278,13 @@ def main(argv=None) -> int:
                 rk = compare(quantify(lmk, calk, run_sha256=shak, samples=smk), truth_of(sck))
                 print(f"  repeat {k}: truth seed {ts}; coverage k=2 {rk['cover_k2'].mean() * 100:.1f} %, "
                       f"t95 {rk['cover_t95'].mean() * 100:.1f} %; rejected {list(calk.rejected) or 'none'}")
-                allr.append(rk)
+                allr.append(rk.assign(day=k))
                 runk.unlink()
+                if args.results_csv:
+                    pd.concat(allr, ignore_index=True).to_csv(args.results_csv, index=False)
             summary(pd.concat(allr, ignore_index=True),
-                    f"All {len(allr)} calibration days pooled (day 1 + {args.repeats} repeats)")
+                    f"All {len(allr)} calibration days pooled ({'' if args.skip_days else 'day 1 + '}"
+                    f"{args.repeats} repeats)")
     print(f"\ntotal time {time.perf_counter() - t0:.0f} s")
     return 0
 
