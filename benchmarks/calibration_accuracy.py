@@ -55,6 +55,23 @@ from compquant.simulate.scenario import draw_true_composition  # noqa: E402
 MAJOR = 0.01
 
 
+def truth_seed(k: int) -> int:
+    """The seed of seeded repeat ``k``'s true compositions."""
+    return 20261116 + 7919 * k
+
+
+def repeat_samples(sc1, k: int):
+    """The samples of seeded repeat ``k`` of the calibration day: every certified material
+    (standards, check, blank) gets a true composition drawn within its certificate (seed
+    :func:`truth_seed`); the unknowns keep theirs."""
+    ts = truth_seed(k)
+    return tuple(
+        dataclasses.replace(s, composition=draw_true_composition(
+            s.standard_ref, sc1.certified[s.standard_ref], sc1.matrix, ts))
+        if s.role in ("standard", "check", "blank") and s.standard_ref in sc1.certified else s
+        for s in sc1.samples)
+
+
 def measure(path, method):
     with Run.open(path) as run:
         lm = measure_run(run, method)
@@ -266,17 +283,11 @@ def main(argv=None) -> int:
             if args.results_csv and allr:
                 pd.concat(allr, ignore_index=True).to_csv(args.results_csv, index=False)
             for k in range(args.first_repeat, args.first_repeat + args.repeats):
-                ts = 20261116 + 7919 * k
-                samples = tuple(
-                    dataclasses.replace(s, composition=draw_true_composition(
-                        s.standard_ref, sc1.certified[s.standard_ref], sc1.matrix, ts))
-                    if s.role in ("standard", "check", "blank") and s.standard_ref in sc1.certified else s
-                    for s in sc1.samples)
-                sck = dataclasses.replace(sc1, samples=samples)
+                sck = dataclasses.replace(sc1, samples=repeat_samples(sc1, k))
                 runk = get_run(f"repeat-{k}.h5", sc1.path, 1000 + k, work, scenario=sck)
                 calk, lmk, smk, shak = calibrate_run(runk, method, standards)
                 rk = compare(quantify(lmk, calk, run_sha256=shak, samples=smk), truth_of(sck))
-                print(f"  repeat {k}: truth seed {ts}; coverage k=2 {rk['cover_k2'].mean() * 100:.1f} %, "
+                print(f"  repeat {k}: truth seed {truth_seed(k)}; coverage k=2 {rk['cover_k2'].mean() * 100:.1f} %, "
                       f"t95 {rk['cover_t95'].mean() * 100:.1f} %; rejected {list(calk.rejected) or 'none'}")
                 allr.append(rk.assign(day=k))
                 runk.unlink()

@@ -30,7 +30,6 @@ with that line and internal standard.
 from __future__ import annotations
 
 import argparse
-import dataclasses
 import sys
 from pathlib import Path
 
@@ -42,7 +41,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "benchmarks"))
 
-from calibration_accuracy import MAJOR, compare, summary  # noqa: E402
+from calibration_accuracy import MAJOR, compare, repeat_samples, summary  # noqa: E402
 
 from compquant.calibrate import calibrate, load_standards, parse_calibration_section  # noqa: E402
 from compquant.calibrate.apply import quantify  # noqa: E402
@@ -53,7 +52,6 @@ from compquant.lines import measure_run  # noqa: E402
 from compquant.method import method_from_dict  # noqa: E402
 from compquant.run import Run  # noqa: E402
 from compquant.simulate import load_scenario  # noqa: E402
-from compquant.simulate.scenario import draw_true_composition  # noqa: E402
 
 
 def scenario_truth(k: int) -> dict:
@@ -62,12 +60,7 @@ def scenario_truth(k: int) -> dict:
     sc1 = load_scenario(ROOT / "demo_runs" / "scenario-day1.toml")
     samples = sc1.samples
     if k > 0:
-        ts = 20261116 + 7919 * k
-        samples = tuple(
-            dataclasses.replace(s, composition=draw_true_composition(
-                s.standard_ref, sc1.certified[s.standard_ref], sc1.matrix, ts))
-            if s.role in ("standard", "check", "blank") and s.standard_ref in sc1.certified else s
-            for s in sc1.samples)
+        samples = repeat_samples(sc1, k)
     return {(s.sample_id, el): w for s in samples for el, w in s.composition.items()}
 
 

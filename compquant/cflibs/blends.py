@@ -550,6 +550,13 @@ class BlendCorrection:
                 break
             prev = new
         info["lines"] = len(ids0)
+        self._report_blend_passes(info)
+        return sol
+
+    def _report_blend_passes(self, info):
+        """Keep ``info`` as ``blend_info`` and warn of dropped lines and of passes that did not
+        settle (both modes' passes end here)."""
+        s = self.s
         self.blend_info = info
         if info["dropped"]:
             self._warn("blend correction: dropped " + ", ".join(
@@ -558,7 +565,6 @@ class BlendCorrection:
         if not info["converged"]:
             self._warn(f"blend correction did not settle within {info['passes']} passes "
                        f"(tolerance {s.blend_tolerance:g})")
-        return sol
 
     def apply_blend_correction_sa(self, out, refit):
         """The blend correction of the self-absorption modes ``curve_of_growth`` and ``columnar``
@@ -630,14 +636,7 @@ class BlendCorrection:
                 break
             prev = dict(zip(ids, new))
         info["lines"] = n_lines
-        self.blend_info = info
-        if info["dropped"]:
-            self._warn("blend correction: dropped " + ", ".join(
-                f"{d['line_id']} (self share {d['self_share']:.2f})" for d in info["dropped"])
-                + f" — below blend_min_self_share = {s.blend_min_self_share:g}")
-        if not info["converged"]:
-            self._warn(f"blend correction did not settle within {info['passes']} passes "
-                       f"(tolerance {s.blend_tolerance:g})")
+        self._report_blend_passes(info)
         return out
 
 
