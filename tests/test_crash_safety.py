@@ -177,3 +177,24 @@ def test_two_concurrent_analyses_into_one_folder(setup):
         check_complete(p)
         assert p.read_bytes() == ref[p.relative_to(out)], p
     assert not [p for p in out.rglob("*.part")]
+
+
+@pytest.mark.parametrize("left", ["json only", "json and pdf"])
+def test_rerun_restores_the_files_of_a_certificate_killed_mid_move(setup, left):
+    """A kill while the staged set is moved in could leave a certificate's JSON without its PDF or
+    figures (the move went in name order: ``LOT-1.json`` before ``LOT-1.pdf`` and ``figures/``).
+    A rerun finds that JSON, keeps the certificate as issued, and must still bring the missing
+    files back: the folder ends as a clean run's set (nothing lost; common practice of atomic
+    output sets). Failed on the former code, whose rerun wrote nothing for a kept certificate."""
+    d, files, ref = setup
+    out = d / f"half-moved-{left.replace(' ', '-')}"
+    out.mkdir()
+    keep = (".json",) if left == "json only" else (".json", ".pdf")
+    for rel, data in ref.items():
+        if len(rel.parts) == 1 and rel.suffix in keep and rel.name not in ("manifest.json",):
+            (out / rel).write_bytes(data)
+    r = subprocess.run(_argv(files, out), capture_output=True, text=True, env=_env(), timeout=600)
+    assert r.returncode == COMPLETED, r.stderr
+    got = {p.relative_to(out): p.read_bytes() for p in final_files(out)}
+    assert set(got) == set(ref)
+    assert got == ref

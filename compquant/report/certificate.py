@@ -59,7 +59,9 @@ FLAG_TEXT = {
     "below_range": "below the calibrated range: the value is extrapolated below the lowest standard",
     "saturated": "a detector pixel of the line reached saturation in some shots; affected shots were "
     "treated as the method prescribes",
-    "not_found": "the analytical line was not found at its expected position",
+    "not_found": "the line's net signal did not stand out from its own noise (signal-to-noise ratio below "
+    "the method's detection threshold), or its profile fit failed; with a calibration curve the "
+    "blank-based LOD decides detection",
     "overlapped": "the analytical line overlaps a line of another element; the overlap was corrected "
     "or the value is less reliable",
     "low_snr": "the line's signal-to-noise ratio is low",

@@ -303,6 +303,10 @@ def _stage_certificates(staging: Path, outdir: Path, plan, figures_for, tick, re
             assemble.write_figures(staging, cert.figures)
             write_certificate_json(cert, staging / f"{it.stem}.json", review=review)
             write_bytes_atomic(staging / f"{it.stem}.pdf", data)
+        else:  # kept as issued: restore only its files a killed earlier run did not move in
+            assemble.write_figures(staging, [f for f in cert.figures if not (outdir / f.path).exists()])
+            if not (outdir / f"{it.stem}.pdf").exists():
+                write_bytes_atomic(staging / f"{it.stem}.pdf", data)
         certs.append(cert)
         reasons = cert.release_reasons()
         outputs.append(
@@ -366,23 +370,37 @@ def _render_pdf(cert, review=None) -> tuple[bytes, int]:
                           fix="shorten the long texts (lab profile, client, sample description)") from None
 
 
+def _is_certificate_json(p: Path) -> bool:
+    """True for a staged certificate's JSON document (schema ``compquant-certificate``)."""
+    import json
+
+    try:
+        return json.loads(p.read_text("utf-8")).get("schema") == "compquant-certificate"
+    except (OSError, UnicodeDecodeError, ValueError, AttributeError):
+        return False
+
+
 def _commit(staging: Path, outdir: Path) -> None:
     """Move the staged files into ``outdir`` and write the manifest last.
 
     The old manifest is removed first, so a kill part-way leaves a folder without a manifest,
-    which :func:`verify_output_set` reports as incomplete; the new manifest lists every file of
-    the folder with its SHA-256.
+    which :func:`verify_output_set` reports as incomplete; certificates' JSON documents are moved
+    after every other file, so a certificate a rerun finds issued has its PDF and figures beside
+    it; the new manifest lists every file of the folder with its SHA-256.
     """
     import os
 
     man = outdir / MANIFEST
     if man.exists():
         man.unlink()
-    for p in sorted(staging.rglob("*")):
-        if p.is_file():
-            dest = outdir / p.relative_to(staging)
-            dest.parent.mkdir(parents=True, exist_ok=True)
-            os.replace(p, dest)
+    staged = [p for p in sorted(staging.rglob("*")) if p.is_file()]
+    # a certificate's JSON goes in after every other file (PDFs, figures, run files): a rerun keeps
+    # a certificate whose JSON it finds (compquant.workflow.issue), so its other files must be there
+    last = {p for p in staged if p.suffix == ".json" and p.parent == staging and _is_certificate_json(p)}
+    for p in [p for p in staged if p not in last] + [p for p in staged if p in last]:
+        dest = outdir / p.relative_to(staging)
+        dest.parent.mkdir(parents=True, exist_ok=True)
+        os.replace(p, dest)
     files = {}
     for p in sorted(outdir.rglob("*")):
         rel = p.relative_to(outdir)
