@@ -12,8 +12,9 @@ from the analysis**:
   limit (``lowering_ev = 0.5``); the analysis uses the full shipped level sums;
 * continuum: on in the generator (free–free and free–bound); the analysis removes a SNIP
   baseline and integrates windows with side bands;
-* broadening: every line gets a Stark FWHM of 0.015 nm at 10¹⁷ cm⁻³ with a (T/T_ref)^0.3
-  scaling in the generator; the analysis assumes 0.01 nm without T scaling;
+* broadening: every line gets a Stark FWHM of 0.015 nm × nₑ/10¹⁷ cm⁻³ in the generator, the
+  analysis assumes 0.01 nm; neither scales it with T (the generator's ``stark_t_exponent = 0.3``
+  acts only on lines with a reference temperature, and the default width has none);
 * plasma and detector: per-shot T (±3 %) and nₑ (±10 %) jitter, pulse-to-pulse intensity
   fluctuation, photon noise and read noise.
 
