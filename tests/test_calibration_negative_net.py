@@ -126,3 +126,21 @@ def test_same_background_as_standards_is_still_right():
     unk = r.loc[("UNK-1", "Zn")]
     assert "negative_net" in unk["flags"]
     assert abs(unk["mass_fraction"] - truth["UNK-1"]["Zn"]) <= unk["U"]
+
+
+def test_response_carries_net_and_scale():
+    # the response table gives the analyte line's own net and u (the line table's) and the factor from
+    # net intensity to response units: 1 / mean internal-standard intensity of the paired shots (ratio
+    # of means, GUM 5.1.2 as in docs/calibration.md sec. 3), 1 for the intensity basis (arithmetic)
+    from compquant.calibrate.response import sample_responses
+
+    lt, st, sm, std, truth = make_tables(0)
+    ratio = sample_responses(lt, ZN, CU, st)
+    inten = sample_responses(lt, ZN, None, st)
+    for sid in ("STD-1", "UNK-1"):
+        zn = lt[(lt.sample_id == sid) & (lt.line_id == ZN)].iloc[0]
+        cu = st[(st.sample_id == sid) & (st.line_id == CU)]["intensity"].mean()
+        assert ratio.loc[sid, "net"] == zn.intensity and ratio.loc[sid, "u_net"] == zn.u_intensity
+        assert ratio.loc[sid, "per_net"] == pytest.approx(1.0 / cu, rel=1e-12)
+        assert ratio.loc[sid, "y"] == pytest.approx(zn.intensity * ratio.loc[sid, "per_net"], rel=1e-9)
+        assert inten.loc[sid, "per_net"] == 1.0
