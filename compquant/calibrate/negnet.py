@@ -18,8 +18,11 @@ the interfering line's wing through the side-window background.  In the demo (Zn
 in the bronze LOT-2611-B, five calibration days, docs/calibration.md sec. 12) the same sample's
 net was -27, -25, -26, -27 and -16 (counts): on the fifth day its background error departed from
 the standards' by 0.70 of its own size and the result, 2.07 +- 0.19 % for a true 1.18 %, was
-9 standard uncertainties off, while the bracketing bronze standard sat on the curve.  No
-within-run check (bracketing standards, their residuals) would have caught it.
+9 standard uncertainties off, while the bracketing bronze standard sat on the curve.  The cause
+that day: the sample's measured wavelength shift (0.00133 nm, u 0.00068 nm) moved the side window's
+outer edge past a pixel on the Cu line's shoulder, and side windows take whole pixels, so the
+background stepped by 11.5 counts.  No within-run check (bracketing standards, their residuals)
+would have caught it.
 
 The rule (``negative-net``): such a result is reported with the flag ``negative_net`` and a Type B
 component for the departure of its background error from the standards', taken as rectangular
