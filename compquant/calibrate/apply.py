@@ -322,6 +322,7 @@ def _drift_standardise(curves, resp, calibration, smap, drift_mode, run_sha256) 
         # the repeatability part, scaled by the correction: it alone weights the matrix part
         # of the prediction (Curve.predict_content, u_weight); u_y adds the setup terms
         r["u_rep_y"] = np.abs(coef["alpha"]) * r["u_y"].to_numpy(float)
+        r["per_net"] = np.abs(coef["alpha"]) * r["per_net"].to_numpy(float)  # net intensity -> corrected response
         r["y"], r["u_y"] = y, u
         resp[el] = r
     if coefs:

@@ -82,6 +82,8 @@ def _curve_for(a: AnalyteConfig, cfg: CalibrationConfig, line_table, shot_table,
             "u_y": float(r["u_y"]),
             "n_shots": int(r["n_shots"]),
             "line_flags": ";".join(r["flags"]),
+            "net": float(r["net"]),  # the analyte line's own net intensity (negative-net check)
+            "u_net": float(r["u_net"]),
             "used": True,
             "reason": "",
             "shots": r["shots"],
@@ -163,7 +165,10 @@ def calibrate(
     :class:`CalibrationError` is raised.  An internal-standard line that is a resonance line or
     self-absorbed over the standards (:func:`compquant.calibrate.istd_check.check_calibration`)
     gives an :class:`~compquant.calibrate.istd_check.InternalStandardWarning` with alternatives,
-    kept in each curve's ``diagnostics["internal_standard"]``.
+    kept in each curve's ``diagnostics["internal_standard"]``.  Standards whose analyte net is
+    significantly negative (:func:`compquant.calibrate.negnet.check_standards`) give a
+    :class:`~compquant.calibrate.negnet.NegativeNetWarning` naming candidate interfering lines,
+    kept in ``diagnostics["negative_net"]``.
 
     Parameters
     ----------
@@ -254,6 +259,10 @@ def calibrate(
         for c in curves.values():
             if c.internal_standard == istd:
                 c.diagnostics["internal_standard"] = rec
+    # standards whose analyte net is significantly negative: a side window holds another line
+    from compquant.calibrate.negnet import check_standards
+
+    check_standards(curves, certs)
     refs = {ref for role, ref in smap.values() if ref}
     std_rows = standards[standards["standard_id"].isin(refs)].to_dict(orient="records")
     lines = sorted(

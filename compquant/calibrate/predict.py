@@ -19,6 +19,7 @@ import math
 import numpy as np
 from scipy import stats
 
+from compquant.calibrate.negnet import widen_negative_net
 from compquant.errors import CalibrationError
 
 
@@ -171,6 +172,7 @@ def predict_sample(sid, ok, curves, resp) -> tuple[dict, dict]:
                 failed[el] = exc.one_line()
                 continue
             failed.pop(el, None)
+            p = widen_negative_net(p, r)  # a side window holds another line: Type B component
             change = max(change, abs(p["x"] - xcur[el]) / max(abs(p["x"]), 1e-12))
             xcur[el], ucur[el] = p["x"], p["u"]
             preds[el] = p
@@ -200,8 +202,13 @@ def sample_rows(sid, role, good, preds, curves, resp, allow_above, coverage, run
             continue
         wmul = wm if c.basis == "ratio" else 1.0
         lod, loq = c.lod_x * wmul, c.loq_x * wmul
-        below = bool(w[i] < lod)
-        flags = list(resp[el].loc[sid]["flags"]) + _content_flags(w[i], p["x"], lod, loq, c) + run_flags
+        # a line whose background is over-estimated (negative net, rule negative-net) cannot show
+        # absence: no "< LOD" / "below LOQ" claim from it; the value is given with its widened U
+        negnet = "background" in p["budget"]
+        below = bool(w[i] < lod) and not negnet
+        flags = list(resp[el].loc[sid]["flags"]) + _content_flags(w[i], p["x"], lod, loq, c, negnet) + run_flags
+        if negnet:
+            flags.append("negative_net")
         k = coverage_factor(coverage, p["dof"])
         rows.append(
             {
@@ -224,13 +231,14 @@ def sample_rows(sid, role, good, preds, curves, resp, allow_above, coverage, run
     return rows
 
 
-def _content_flags(w, x, lod, loq, c) -> list[str]:
-    """``below_lod`` / ``below_loq``, ``above_range`` / ``below_range``, ``interference_corrected``."""
+def _content_flags(w, x, lod, loq, c, negnet: bool = False) -> list[str]:
+    """``below_lod`` / ``below_loq`` (not with ``negnet``: a negative-net line cannot show absence),
+    ``above_range`` / ``below_range``, ``interference_corrected``."""
     flags = []
-    below = bool(w < lod)
+    below = bool(w < lod) and not negnet
     if below:
         flags.append("below_lod")
-    elif w < loq:
+    elif w < loq and not negnet:
         flags.append("below_loq")
     if x > c.range_x[1] * (1 + 1e-9):
         flags.append("above_range")

@@ -50,6 +50,12 @@ def _non_shot_u(row) -> float:
     return float(np.sqrt(max(u * u - sd * sd / n, 0.0)))
 
 
+#: columns of :func:`sample_responses`; ``net`` / ``u_net``: the analyte line's own net intensity and
+#: its standard uncertainty (line table ``intensity`` / ``u_intensity``), whatever the basis, and
+#: ``per_net``: response units per unit of net intensity (1, or 1 / the internal standard's mean)
+RESPONSE_COLUMNS = ["sample_id", "y", "u_y", "n_shots", "flags", "shots", "net", "u_net", "per_net"]
+
+
 def sample_responses(
     line_table: pd.DataFrame,
     line_id: str,
@@ -57,7 +63,9 @@ def sample_responses(
     shot_table=None,
     where: str = "calibration",
 ) -> pd.DataFrame:
-    """Per sample: ``y, u_y, n_shots, flags`` and ``shots`` (array of per-shot responses or None).
+    """Per sample: ``y, u_y, n_shots, flags``, ``shots`` (array of per-shot responses or None) and the
+    analyte line's own ``net`` intensity with its ``u_net`` (for the negative-net rule,
+    :mod:`compquant.calibrate.negnet`).
 
     ``shot_table``: the long per-shot table (``sample_id, shot, line_id, intensity[, accepted]``),
     or a :class:`compquant.lines.shotview.ShotView` (``LineMeasurement.shot_view``), which gives the
@@ -101,6 +109,7 @@ def sample_responses(
         flags = [f for f in str(r.get("flags", "") or "").split(";") if f]
         Ia, ua, n = float(r["intensity"]), float(r["u_intensity"]), int(r["n_shots"])
         shots = None
+        per_net = 1.0  # response units per unit of net intensity (1 / internal-standard intensity)
         if s is None:
             y, uy = Ia, ua
             if shots_a is not None and sid in shots_a:
@@ -116,6 +125,7 @@ def sample_responses(
                 y, uy = np.nan, np.nan
             else:
                 y = Ia / Is
+                per_net = 1.0 / Is
                 uy = float(np.sqrt((ua / Is) ** 2 + (Ia * us / Is**2) ** 2))
                 if shots_a is not None and shots_s is not None and sid in shots_a and sid in shots_s:
                     ga, gs = shots_a[sid], shots_s[sid]
@@ -126,6 +136,7 @@ def sample_responses(
                         ma, ms = xa.mean(), xs.mean()
                         if ms > 0:
                             y = ma / ms
+                            per_net = 1.0 / ms
                             shots = y + (xa - ma) / ms - y * (xs - ms) / ms
                             # paired shots: the covariance term of GUM 5.2.2 (eq. 16) is in the
                             # spread of the linearised ratios; the part of each line's u that does
@@ -136,10 +147,11 @@ def sample_responses(
                             uy = float(np.sqrt(np.var(shots, ddof=1) / len(shots) + (y * ea) ** 2
                                                + (y * es) ** 2))
                             n = len(shots)
-        rows.append({"sample_id": sid, "y": y, "u_y": uy, "n_shots": n, "flags": flags, "shots": shots})
-    return pd.DataFrame(rows, columns=["sample_id", "y", "u_y", "n_shots", "flags", "shots"]).set_index(
+        rows.append({"sample_id": sid, "y": y, "u_y": uy, "n_shots": n, "flags": flags, "shots": shots,
+                     "net": Ia, "u_net": ua, "per_net": per_net})
+    return pd.DataFrame(rows, columns=RESPONSE_COLUMNS).set_index(
         "sample_id", drop=False
     )
 
 
-__all__ = ["sample_responses"]
+__all__ = ["RESPONSE_COLUMNS", "sample_responses"]

@@ -73,6 +73,10 @@ FLAG_TEXT = {
     "no_uncertainty": "no expanded uncertainty could be evaluated for this value",
     "closure": "calibration-free value: concentrations are normalised so that all quantified elements sum to 100 %",
     "interference_corrected": "the value is corrected for a spectral interference from another element",
+    "negative_net": "the line's net signal is below zero in this sample: another element's line lies in the "
+    "line's background windows, so the background was over-estimated; the calibration corrects this only "
+    "as far as the sample resembles the standards, and U includes the size of that over-estimate (the value "
+    "is indicative; measure on another line for a firm value)",
     "check_failed": "a check sample of this run failed its acceptance criterion; results are not valid for release",
     "no_drift_correction": "no drift standardisation: the run has no usable setup samples",
     "partial_drift_correction": "drift standardisation was possible for only some lines",
