@@ -146,3 +146,31 @@ def test_coincident_identical_lines_follow_the_joint_curve_of_growth(tau1, tau2)
         W_DOPPLER = keep
     assert got == pytest.approx(want, rel=3e-4)
     assert abs(a2 * lr(tau2) - lost - want) > 0.05 * want  # line 2 self-absorbed alone (eq. (5)) is not it
+
+
+def test_coincident_interferer_on_pixels_matches_the_line_pipeline():
+    # the CO01 pair on 0.015 nm pixels: a thick own line (τ₀ = 60) and a τ₀ = 3 interferer 0.0005 nm from it.
+    # The pixel means of what the interferer adds in the shared slab (quadrature as above, the instrument
+    # Gaussian over each pixel by erf differences) put through the line pipeline's window weights
+    # (compquant.lines.windows) must equal eq. (6) on the pixels (eq. (1′))
+    from compquant.cflibs.blends import pixel_window_weights
+    from compquant.lines.windows import build_window_weights, integrate_windows, window_geometry
+
+    wl = np.arange(195.0, 210.0, 0.015)
+    edges = np.concatenate([[wl[0] - 0.0075], 0.5 * (wl[1:] + wl[:-1]), [wl[-1] + 0.0075]])
+    centre, offset, tau1, tau2, w_l = 202.548, 0.0005, 60.0, 3.0, 0.0025
+    W = build_window_weights(wl, [window_geometry(centre, WINDOW, SIDE, GAP)])
+    pix = np.zeros(wl.size)
+    for p in W.pixels[0]:
+        pix[p] = _slab_quadrature(offset, tau1, tau2, w_l, w_l,
+                                  kernel=lambda mu, p=p: _gauss_interval(edges[p] - centre, edges[p + 1] - centre, mu,
+                                                                         W_INSTR)) / (edges[p + 1] - edges[p])
+    want = float(integrate_windows(pix[None, :], W)[0, 0])
+    _S, a1, a2, _v1, _v2 = _lines(offset, tau1, tau2, w_l, w_l)
+    px, w = pixel_window_weights(wl, centre, WINDOW, SIDE, GAP)
+    got = blend_terms(np.array([centre]), np.array([[WINDOW, SIDE, GAP]]), np.array([centre, centre + offset]),
+                      np.array([a1, a2]), np.hypot(W_INSTR, W_DOPPLER) * np.ones(2), np.full(2, w_l), np.zeros(2),
+                      exclude=np.array([0]), axis=wl, pixel_weights=[(px, w)],
+                      absorption=(np.array([tau1, tau2]), np.full(2, W_DOPPLER), np.full(2, W_INSTR)))[0][0]
+    assert got == pytest.approx(want, abs=1e-6)
+    assert abs(want) < 0.1  # beside the thick line it adds 0.04 of its thin area; alone (eq. (5)) 0.51
