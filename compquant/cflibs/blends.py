@@ -67,7 +67,28 @@ instrument's Gaussian alone (:func:`instrument_kernel`).  a_k is taken on the si
 :func:`compquant.cflibs.selfabs.sa_factor` (:func:`absorbed_part`), so Σ a_k = 1 − SA_k of the fit
 itself and each line's total predicted area is Â_k·SA_k.  The measured line's own predicted area
 in σ_j (eq. (4)) is Â_j SA_j c_jj.  Each pass re-runs the whole self-absorption fit on the
-corrected areas (:meth:`BlendCorrection.apply_blend_correction_sa`).  Not in ``reference_line``
+corrected areas (:meth:`BlendCorrection.apply_blend_correction_sa`).
+
+Mutual absorption of coincident lines (eq. (6)).  Eq. (5) self-absorbs each interfering line on its
+own; lines whose profiles overlap share the slab, where opacities add and the emergent radiance is
+S(1 − e^{−Σ_k τ_k}) (one source function S for all lines at the slab's T in LTE; the formal
+solution of the transfer equation for a homogeneous slab, Rybicki & Lightman 1979, §1.4; the
+slab model of the self-absorption literature, Bulajic et al. 2002, El Sherbini et al. 2005).  The
+part of window j's signal that is not line j's own (the line alone in the slab, which the fit
+models) is then
+
+    Δ_j(λ) = S[(1 − e^{−Σ_k τ_k}) − (1 − e^{−τ_j})] = S e^{−τ_j}(1 − e^{−Σ_{k≠j} τ_k}),
+    Δ_j = ∫ Δ_j(λ) K_j(λ) dλ                                                                      (6)
+
+(K_j as in eq. (5)).  It is applied to the group of line j and the interferers k within
+r_j + r_k of it, r the distance beyond which a line's τ stays below ``MUTUAL_TAU_MIN`` = 0.01
+(:func:`optical_reach`); then at every λ at least one line of a pair left to eq. (5) has τ < 0.01,
+and eq. (5)'s error for that pair, −∫S(1 − e^{−τ_k})(1 − e^{−τ_l}) K_j, is at most 1 % of their
+emergent areas (times |K_j|).  Δ_j(λ) is split among the group's interferers by their share of the
+opacity at λ, τ_k/Σ_{i≠j} τ_i (for u(Δ_j) and σ_j), with each line's thin emission Â_k φ_k in
+place of S τ_k (:func:`mutual_absorbed`); for τ_j → 0 and one interferer it is eq. (5).  Where no
+interferer lies within reach of the window's own line eq. (5) stands unchanged; overlaps of
+interferers with each other away from line j are left to eq. (5).  Not in ``reference_line``
 mode: its SA factors are ratios to a reference line (Sun & Yu 2009), with no slab, τ₀ or length
 from which another line's self-absorption could be predicted.
 
@@ -84,6 +105,11 @@ References
    (Gauss–Hermite quadrature of the Voigt CDF, :func:`compquant.cflibs.capture.abs_cdf`).
 .. [5] R. D. Cowan, G. H. Dieke, Rev. Mod. Phys. 20 (1948) 418 (self-absorption of spectrum lines:
    the emergent intensity of a uniform slab, S(1 − e^{−τ})).
+.. [6] G. B. Rybicki, A. P. Lightman, Radiative Processes in Astrophysics (Wiley, 1979), §1.4
+   (formal solution of the transfer equation: I = S(1 − e^{−τ}) for a uniform slab; opacities add).
+.. [7] D. Bulajic et al., Spectrochim. Acta B 57 (2002) 339; A. M. El Sherbini et al.,
+   Spectrochim. Acta B 60 (2005) 1573 (the homogeneous LTE slab of self-absorption, as
+   :mod:`compquant.cflibs.selfabs`).
 """
 
 from __future__ import annotations
@@ -104,6 +130,12 @@ SEARCH_MARGIN_NM = 0.5
 #: counted (a thousand of them in one window could move it by 1 %; the iron-group spectra hold
 #: thousands of such lines near every window)
 NEGLIGIBLE_AREA = 1e-5
+#: optical depth below which a line is taken not to absorb its neighbours' light (eq. (6)): lines
+#: farther apart than the sum of their reaches at this τ are left to eq. (5), which then errs by at
+#: most this fraction of their emergent areas
+MUTUAL_TAU_MIN = 0.01
+# nodes (in half-widths) on which optical_reach looks for τ < MUTUAL_TAU_MIN
+_REACH_GRID = np.geomspace(1e-2, 1e6, 321)
 
 
 def voigt_cdf(x, w_gauss, w_lorentz) -> np.ndarray:
@@ -262,7 +294,8 @@ def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorent
         FWHM of the absorbing atoms and instrument FWHM (nm).  Each (window, candidate) pair then
         responds with c_jk − c^abs_jk of eq. (5) (``cand_area`` stays the optically thin area;
         the absorbed part is taken for pairs whose absorbed area (1 − SA)·Â reaches ``min_area``).
-        Without it (the thin modes) c_jk alone.
+        Without it (the thin modes) c_jk alone.  With ``exclude`` too, the pairs of a window whose own
+        line (a candidate with its τ₀) shares the slab with them take eq. (6) instead.
 
     Returns ``(delta, u_delta, abs_sum)``, each (n,).  All (window, candidate) pairs within
     reach are evaluated in one vectorised call.
@@ -304,8 +337,12 @@ def blend_terms(centre_nm, geometry, cand_wl, cand_area, cand_wg, cand_wl_lorent
             px, wt = pixel_weights[j]
             c[sel] = pixel_response(axis, px, wt, cand_wl[kk[sel]], wg_all[kk[sel]], wl_all[kk[sel]])
     if absorption is not None:
+        c_thin = c
         c = c - _absorbed_response(centre, geo, jj, kk, cand_wl, np.asarray(cand_area, float), wl_all, absorption,
                                    axis, pixel_weights, min_area)
+        if exclude is not None:  # eq. (6): interferers that share the slab with a window's own line
+            _mutual_absorption(c, c_thin, centre, geo, jj, kk, np.asarray(exclude, int), cand_wl,
+                               np.asarray(cand_area, float), wl_all, absorption, axis, pixel_weights)
     contrib = np.asarray(cand_area, float)[kk] * c
     delta = np.bincount(jj, contrib, minlength=n)
     u2 = np.bincount(jj, (contrib * np.asarray(cand_u_rel, float)[kk]) ** 2, minlength=n)
@@ -344,6 +381,114 @@ def _absorbed_response(centre, geo, jj, kk, cand_wl, area, wl_all, absorption, a
                                        axis=axis, pixels=px, weights=wt)
         out[pairs] = np.sum(a[r] * K, axis=1)
     return out
+
+
+def optical_reach(tau0, w_gauss_abs, w_lorentz, tau_min=MUTUAL_TAU_MIN) -> np.ndarray:
+    """Distance (nm) from a line's centre beyond which its slab optical depth stays below ``tau_min``:
+    the smallest node x of a geometric grid (ratio 1.06, 10⁻² to 10⁶ half-widths) with
+    τ₀ φ(x)/φ(0) < ``tau_min`` (φ the absorbing atoms' Voigt, FWHMs ``w_gauss_abs``, ``w_lorentz``;
+    monotone in |x|, so the true distance is at most this node, and at least 1/1.06 of it).  0 where
+    τ₀ < ``tau_min`` (τ < ``tau_min`` everywhere).  Broadcasts to 1-D."""
+    from scipy.special import voigt_profile
+
+    t0 = np.atleast_1d(np.asarray(tau0, float))
+    wg = np.maximum(np.asarray(w_gauss_abs, float) * np.ones_like(t0), 1e-12)
+    wl = np.maximum(np.asarray(w_lorentz, float) * np.ones_like(t0), 0.0)
+    out = np.zeros(t0.size)
+    thick = t0 >= tau_min
+    if not np.any(thick):
+        return out
+    sig = wg[thick] / (2.0 * math.sqrt(2.0 * math.log(2.0)))
+    gam = 0.5 * wl[thick]
+    hw = 0.5 * (0.5346 * wl[thick] + np.sqrt(0.2166 * wl[thick] ** 2 + wg[thick] ** 2))  # Voigt HWHM (Olivero)
+    x = hw[:, None] * _REACH_GRID[None, :]
+    ratio = voigt_profile(x, sig[:, None], gam[:, None]) / voigt_profile(0.0, sig, gam)[:, None]
+    below = t0[thick, None] * ratio < tau_min
+    first = np.where(below.any(axis=1), np.argmax(below, axis=1), x.shape[1] - 1)
+    out[thick] = x[np.arange(first.size), first]
+    return out
+
+
+def mutual_absorbed(grid, centres, tau0, w_gauss_abs, w_lorentz, area, own=0):
+    """Absorbed part a_k(λ) (area units, on ``grid``) of each line k ≠ ``own`` of a group of lines that
+    share one homogeneous slab with line ``own`` (eq. (6)): rows for the lines other than ``own``, in
+    their order.
+
+    With e_k = Â_k φ_k(λ) = S_k τ_k(λ) the optically thin emission (φ_k the absorbing atoms' unit-area
+    Voigt, τ_k = τ₀_k φ_k/φ_k(0)), T = Σ τ_k and h(τ) = (1 − e^{−τ})/τ, the slab's emergent
+    radiance is Σ_k e_k h(T) (= S(1 − e^{−T}) for one source function S) and that of line ``own``
+    alone e_own h(τ_own); the difference, the other lines' share of the window, is split among them
+    by their share of the opacity at λ, τ_k/(T − τ_own):
+
+        D_k = τ_k/(T − τ_own) · [Σ_i e_i h(T) − e_own h(τ_own)]  → S e^{−τ_own}(1 − e^{−Σ_{i≠own} τ_i}) τ_k/Σ,
+        a_k = e_k − D_k
+
+    For τ_own → 0 and one line k this is eq. (5)'s Â_k a_k.  Widths in nm, ``area`` the thin Â."""
+    from scipy.special import voigt_profile
+
+    lam = np.asarray(grid, float)[None, :]
+    sig = (np.asarray(w_gauss_abs, float) / (2.0 * math.sqrt(2.0 * math.log(2.0))))[:, None]
+    gam = 0.5 * np.asarray(w_lorentz, float)[:, None]
+    phi = voigt_profile(lam - np.asarray(centres, float)[:, None], sig, gam)
+    tau = np.asarray(tau0, float)[:, None] * phi / voigt_profile(0.0, sig, gam)
+    e = np.asarray(area, float)[:, None] * phi
+
+    def h(t):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(t > 1e-12, -np.expm1(-t) / np.where(t > 1e-12, t, 1.0), 1.0 - 0.5 * t)
+
+    T = tau.sum(axis=0)
+    others = e.sum(axis=0) * h(T) - e[own] * h(tau[own])
+    rest = np.delete(np.arange(tau.shape[0]), own)
+    R = T - tau[own]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(R > 0, tau[rest] / np.where(R > 0, R, 1.0), 0.0)
+    return e[rest] - share * others[None, :]
+
+
+def _mutual_absorption(c, c_thin, centre, geo, jj, kk, own, cand_wl, area, wl_all, absorption, axis, pixel_weights):
+    """Eq. (6) in place: for each window j whose own line (candidate ``own[j]``) shares the slab with
+    interferers — |λ_k − λ_j| < r_j + r_k, r the :func:`optical_reach` at τ = ``MUTUAL_TAU_MIN`` — the
+    c_jk of those pairs become c_jk(thin) − ∫ a_k K_j dλ / Â_k with a_k of :func:`mutual_absorbed`,
+    integrated by Simpson's rule (uneven nodes) on the union of the group's sinh grids (those of
+    :func:`absorbed_part`) and their midpoints, where K_j reaches (the window and its side bands, 10
+    instrument FWHM and two pixels beyond).  Other pairs keep eq. (5)."""
+    from scipy.integrate import simpson
+
+    from compquant.cflibs.selfabs import _XS
+
+    tau0, wg_abs, w_ins = (np.asarray(v, float) * np.ones(cand_wl.size) for v in absorption)
+    if kk.size == 0:
+        return
+    need = np.unique(np.concatenate([kk, own[own >= 0]]))
+    step = 0.0 if axis is None else 2.0 * float(np.max(np.abs(np.diff(np.asarray(axis, float)))))
+    reach = np.zeros(cand_wl.size)
+    reach[need] = optical_reach(tau0[need], wg_abs[need], wl_all[need])
+    for j in np.unique(jj):
+        o = int(own[j])
+        if o < 0:
+            continue
+        pairs = np.nonzero(jj == j)[0]
+        d = np.abs(cand_wl[kk[pairs]] - cand_wl[o])
+        pairs = pairs[(d < reach[o] + reach[kk[pairs]]) & (area[kk[pairs]] > 0)]
+        if pairs.size == 0:
+            continue
+        grp = np.concatenate([[o], kk[pairs]])
+        wg, wl = np.maximum(wg_abs[grp], 1e-12), np.maximum(wl_all[grp], 0.0)
+        scale = 0.5 * (0.5346 * wl + np.sqrt(0.2166 * wl**2 + wg**2))
+        grid = np.unique((cand_wl[grp, None] + _XS[None, :] * scale[:, None]).ravel())
+        # K_j vanishes (< 10⁻²⁰) beyond 10 instrument FWHM (and two pixels) outside the outer band edges
+        edge = 0.5 * geo[j, 0] + geo[j, 1] + geo[j, 2] + 10.0 * w_ins[o] + step
+        grid = grid[np.abs(grid - centre[j]) <= edge]
+        if grid.size < 3:
+            continue
+        grid = np.sort(np.concatenate([grid, 0.5 * (grid[1:] + grid[:-1])]))  # and the midpoints
+        a = mutual_absorbed(grid, cand_wl[grp], tau0[grp], wg, wl, area[grp], own=0)
+        px, wt = (None, None) if axis is None else pixel_weights[j]
+        # one instrument width for the group, the own line's (its members lie within a few reaches,
+        # well under 1 nm: λ/R changes by under 0.5 %)
+        K = instrument_kernel(grid, centre[j], geo[j], w_ins[o], axis=axis, pixels=px, weights=wt)
+        c[pairs] = c_thin[pairs] - simpson(a * K[None, :], x=grid, axis=1) / area[kk[pairs]]
 
 
 def predicted_ln_area(sol, model, element, ion, wl, gA, ek) -> np.ndarray:
@@ -640,6 +785,6 @@ class BlendCorrection:
         return out
 
 
-__all__ = ["BlendCorrection", "absorbed_part", "blend_terms", "instrument_kernel", "pixel_response",
-           "pixel_window_weights", "predicted_ln_area",
+__all__ = ["BlendCorrection", "absorbed_part", "blend_terms", "instrument_kernel", "mutual_absorbed",
+           "optical_reach", "pixel_response", "pixel_window_weights", "predicted_ln_area",
            "voigt_cdf", "window_response"]
