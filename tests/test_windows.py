@@ -9,6 +9,7 @@ from compquant.lines.windows import (
     WindowLine,
     build_window_weights,
     interpolant_integral_weights,
+    side_background,
     window_geometry,
 )
 
@@ -111,3 +112,23 @@ def test_dense_matrix_equals_the_sparse_weights():
         col = ww.W[:, j]
         assert np.array_equal(np.flatnonzero(col), ww.pixels[j])
         assert np.array_equal(col[ww.pixels[j]], ww.weights[j])
+
+
+def test_side_background_is_the_line_the_weights_remove():
+    # the background drawn on the review page (side_background) must be the one the weights remove:
+    # I = int_a^b y - int_a^b (alpha + beta (l - c)) dl (module docstring), for an arbitrary spectrum;
+    # and for a straight-line spectrum the continuous least-squares line is that line itself
+    # (arithmetic of a linear function)
+    y = _spectrum(_WL)
+    for g in (window_geometry(468.014, 0.3, 0.2, 0.2), window_geometry(float(_WL[-1]) - 0.2, 0.1, 0.15, 0.02)):
+        kind, alpha, beta = side_background(_WL, y, g)
+        ww = build_window_weights(_WL, [g])
+        assert kind == ww.background[0]
+        ua, ub = g.a - g.centre_nm, g.b - g.centre_nm
+        area = float(interpolant_integral_weights(_WL, g.a, g.b) @ y)
+        want = area - (alpha * (ub - ua) + 0.5 * beta * (ub**2 - ua**2))
+        assert float(ww.integrate(y)[0]) == pytest.approx(want, rel=1e-12)
+    g = window_geometry(468.014, 0.3, 0.2, 0.2)
+    kind, alpha, beta = side_background(_WL, 250.0 - 37.5 * (_WL - 468.0), g)
+    assert (kind, alpha, beta) == ("linear", pytest.approx(250.0 - 37.5 * (g.centre_nm - 468.0), rel=1e-12),
+                                   pytest.approx(-37.5, rel=1e-10))

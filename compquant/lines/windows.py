@@ -220,6 +220,49 @@ class WindowWeights:
         return self.noise_sigma(spectrum) * norms
 
 
+def _side_normal_equations(wl, intervals, brackets, c: float, sup: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``M`` (2 x 2) and ``R`` (2 x len(sup)) of the continuous least-squares background, ``M theta = R @ y[sup]``.
+
+    ``M = sum over side intervals [p, q] of int_p^q [[1, x], [x, x^2]] dx`` with ``x = l - c``
+    (closed form: ``q - p``, ``(x_q^2 - x_p^2)/2``, ``(x_q^3 - x_p^3)/3``); ``R``'s rows are the
+    interpolant's zeroth and first moments ``int y dl`` and ``int (l - c) y dl`` over the intervals.
+    """
+    R = np.zeros((2, sup.size))
+    M = np.zeros((2, 2))
+    for (p, q), (p0, p1) in zip(intervals, brackets):
+        pos = np.searchsorted(sup, np.arange(p0, p1))
+        R[0, pos] += _local_interpolant_weights(wl[p0:p1], p, q)
+        R[1, pos] += _local_first_moment_weights(wl[p0:p1], p, q, c)
+        xp, xq = p - c, q - c
+        m1 = 0.5 * (xq - xp) * (xq + xp)
+        M += np.array([[xq - xp, m1], [m1, (xq - xp) * (xq * xq + xq * xp + xp * xp) / 3.0]])
+    return M, R
+
+
+def side_background(wavelength, spectrum, g: WindowLine) -> tuple[str, float, float]:
+    """The background line that window integration removes for geometry ``g`` on one spectrum.
+
+    Returns ``(kind, alpha, beta)`` with the background ``alpha + beta (l - g.centre_nm)``
+    [counts]: the continuous least-squares line over both side intervals (``"linear"``), the
+    interpolant's mean over the one side interval inside the spectrum (``"constant"``, beta = 0),
+    or ``("none", nan, nan)`` (module docstring).
+    """
+    wl = np.asarray(wavelength, dtype=np.float64)
+    y = np.asarray(spectrum, dtype=np.float64)
+    c = float(g.centre_nm)
+    intervals = [iv for iv in (_side_interval(wl, g.left), _side_interval(wl, g.right)) if iv is not None]
+    brackets = [_bracket(wl, p, q) for p, q in intervals]
+    if not intervals:
+        return "none", float("nan"), float("nan")
+    sup = np.unique(np.concatenate([np.arange(p0, p1) for p0, p1 in brackets])).astype(np.intp)
+    M, R = _side_normal_equations(wl, intervals, brackets, c, sup)
+    r = R @ y[sup]
+    if len(intervals) == 1:
+        return "constant", float(r[0] / M[0, 0]), 0.0
+    alpha, beta = np.linalg.solve(M, r)
+    return "linear", float(alpha), float(beta)
+
+
 def build_window_weights(wavelength, geometries: list[WindowLine]) -> WindowWeights:
     """Weight vectors for window integration minus local linear background (module docstring).
 
@@ -250,16 +293,7 @@ def build_window_weights(wavelength, geometries: list[WindowLine]) -> WindowWeig
         w = np.zeros(sup.size)
         w[np.searchsorted(sup, np.arange(lo, hi))] = _local_interpolant_weights(wl[lo:hi], g.a, g.b)
         if len(intervals) == 2:
-            # R: rows (int_S y dl, int_S (l - c) y dl) as weights on the support; M closed form
-            R = np.zeros((2, sup.size))
-            M = np.zeros((2, 2))
-            for (p, q), (p0, p1) in zip(intervals, brackets):
-                pos = np.searchsorted(sup, np.arange(p0, p1))
-                R[0, pos] += _local_interpolant_weights(wl[p0:p1], p, q)
-                R[1, pos] += _local_first_moment_weights(wl[p0:p1], p, q, c)
-                xp, xq = p - c, q - c
-                m1 = 0.5 * (xq - xp) * (xq + xp)
-                M += np.array([[xq - xp, m1], [m1, (xq - xp) * (xq * xq + xq * xp + xp * xp) / 3.0]])
+            M, R = _side_normal_equations(wl, intervals, brackets, c, sup)
             ua, ub = g.a - c, g.b - c
             g_row = np.array([ub - ua, 0.5 * (ub - ua) * (ub + ua)])
             w -= np.linalg.solve(M.T, g_row) @ R  # g M^-1 R
