@@ -110,12 +110,12 @@ def _local_first_moment_weights(x: np.ndarray, a: float, b: float, c: float) -> 
     u = np.clip(a, x0, x1)
     v = np.clip(b, x0, x1)
     h = x1 - x0
-    mid, half = 0.5 * (u + v), v - u
+    mid, width = 0.5 * (u + v), v - u
     left = np.zeros_like(h)
     right = np.zeros_like(h)
-    for t in (mid - _GL2 * half, mid + _GL2 * half):
-        left += 0.5 * half * (t - c) * (x1 - t) / h
-        right += 0.5 * half * (t - c) * (t - x0) / h
+    for t in (mid - _GL2 * width, mid + _GL2 * width):
+        left += 0.5 * width * (t - c) * (x1 - t) / h
+        right += 0.5 * width * (t - c) * (t - x0) / h
     w[:-1] += left
     w[1:] += right
     return w
