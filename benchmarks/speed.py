@@ -10,7 +10,7 @@ Makes (once, then reuses; never committed) the synthetic run of ``benchmarks/pre
 so that every figure is a ratio against a baseline measured under the same machine load:
 
 (loop)   the per-spectrum loop a user would write (pybaselines ``smooth.snip``, ``np.interp``
-         + ``np.trapezoid`` per line, ``np.polyfit`` side background), on ``--subset`` shots;
+         + ``np.trapezoid`` per line, least-squares side background), on ``--subset`` shots;
 (read)   the read floor: ``Run.read_raw`` chunk by chunk through h5py, one thread, plus one
          NumPy pass over the counts (a per-shot sum);
 (inflate) the decompression floor: the stored chunks read directly and inflated

@@ -57,10 +57,21 @@ def test_window_integration_matches_quad_on_analytic_shapes(shape):
         assert got == pytest.approx(line_only, rel=1e-5)
     else:
         # Lorentzian wings in the side windows raise the fitted background; compare with quad of
-        # the line minus the straight line fitted to the same side pixels
-        idx = ww.side[0]
-        p = np.polyfit(wl[idx] - c, f(wl[idx]), 1)
-        wing, _ = integrate.quad(lambda t: np.polyval(p, t - c), g.a, g.b)
+        # the line minus the straight line fitted by continuous least squares to the interpolant of
+        # the line's pixel values over the side intervals (normal equations with integral inner
+        # product, Burden & Faires, Numerical Analysis, sec. 8.2), every integral by scipy.integrate.quad
+        def yi(t):
+            return np.interp(t, wl, f(wl))
+
+        M, r = np.zeros((2, 2)), np.zeros(2)
+        for lo, hi in (g.left, g.right):
+            pts = wl[(wl > lo) & (wl < hi)]
+            for i in range(2):  # basis (l - c)^i
+                r[i] += integrate.quad(lambda t, i=i: (t - c) ** i * yi(t), lo, hi, points=pts, limit=500)[0]
+                for k in range(2):
+                    M[i, k] += integrate.quad(lambda t, n=i + k: (t - c) ** n, lo, hi)[0]
+        alpha, beta = np.linalg.solve(M, r)
+        wing, _ = integrate.quad(lambda t: alpha + beta * (t - c), g.a, g.b)
         assert got == pytest.approx(line_only - wing, rel=1e-5)
 
 

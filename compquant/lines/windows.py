@@ -1,29 +1,50 @@
 """Window integration of emission lines with a local linear background.
 
 For a line window ``[a, b]`` the intensity is the integral of the spectrum
-minus a straight background fitted by least squares to the pixels of two side
-windows ``[a - g - s, a - g]`` and ``[b + g, b + g + s]``::
+minus a straight background fitted by least squares to two side windows
+``S = [a - g - s, a - g] U [b + g, b + g + s]``::
 
-    I = int_a^b ( y(l) - (alpha + beta (l - l0)) ) dl        [counts * nm]
+    I = int_a^b ( y(l) - (alpha + beta (l - c)) ) dl        [counts * nm]
 
 where ``y(l)`` is the piecewise-linear interpolant through the pixel values
-(so window edges need not fall on pixel centres) and ``(alpha, beta)`` the
-least-squares line through the side pixels.  Both terms are linear in the
-pixel values, so every line reduces to one weight vector ``w``.  Each vector is
-non-zero only on the line's own pixels (window, bracketing pixels and side
-windows), so it is stored sparse, per line (pixel indices and weights): measuring
-``L`` lines costs ``O(L x pixels per line)`` per spectrum, linear in the number of
-lines, where a dense ``(n_pixels, L)`` matrix would cost ``O(n_pixels x L)``.  The
-dense matrix ``W`` (``I = Y @ W``) is still available, built on demand.
+(so window edges need not fall on pixel centres) and ``c`` the line centre.
+The background line is the continuous least-squares fit of the same
+interpolant over the side intervals (not a fit through whole side pixels)::
+
+    minimise  int_S ( y(l) - alpha - beta (l - c) )^2 dl
+    =>  M theta = r,   theta = (alpha, beta),
+        M = int_S [[1, x], [x, x^2]] dx,   r = ( int_S y dl, int_S (l - c) y dl ),   x = l - c
+
+(the normal equations of least squares with the integral as inner product:
+continuous least-squares approximation, e.g. Burden & Faires, *Numerical
+Analysis*, 9th ed., sec. 8.2; Press et al., *Numerical Recipes*, 3rd ed.,
+sec. 15.4).  ``M`` has a closed form in the interval ends; both moments in
+``r`` are linear in the pixel values, with weights from the interpolant
+(zeroth moment: the trapezoid-type segment integral below; first moment: the
+same segments integrated against ``l - c``, exact by two-point
+Gauss-Legendre quadrature because the integrand is quadratic, Abramowitz &
+Stegun 1964, 25.4.29).  So the background, and hence ``I``, is continuous in
+the window and side-window edges: a wavelength shift that moves a side edge
+across a pixel moves the result smoothly, as it does for the line window.
+Because all terms are linear in the pixel values, every line reduces to one
+weight vector ``w``.  Each vector is non-zero only on the line's own pixels
+(window, side windows and the pixels bracketing their edges), so it is stored
+sparse, per line (pixel indices and weights): measuring ``L`` lines costs
+``O(L x pixels per line)`` per spectrum, linear in the number of lines, where
+a dense ``(n_pixels, L)`` matrix would cost ``O(n_pixels x L)``.  The dense
+matrix ``W`` (``I = Y @ W``) is still available, built on demand.
 
 When only one side window lies inside the spectrum the background is the
-constant mean of that side; without side pixels there is no background
-subtraction (the preceding baseline removal must then carry it).
+constant mean of the interpolant over that side, ``B = int_side y dl / s``
+(the same least squares with ``alpha`` alone); without a side window inside
+the spectrum there is no background subtraction (the preceding baseline
+removal must then carry it).
 
 The noise of a spectrum near the line is the standard deviation of the side
-pixels about their fitted line, ``sigma^2 = RSS / (m - 2)``; for white pixel
-noise the intensity's standard uncertainty is ``sigma * ||w||_2`` (propagation
-of independent errors, JCGM 100:2008 eq. 10).
+pixels (pixel centres inside the side windows) about their least-squares
+line, ``sigma^2 = RSS / (m - 2)``; for white pixel noise the intensity's
+standard uncertainty is ``sigma * ||w||_2`` (propagation of independent
+errors, JCGM 100:2008 eq. 10).
 """
 
 from __future__ import annotations
@@ -71,6 +92,46 @@ def _local_interpolant_weights(x: np.ndarray, a: float, b: float) -> np.ndarray:
     return w
 
 
+_GL2 = 0.5 / np.sqrt(3.0)  # two-point Gauss-Legendre nodes on [0, 1]: 1/2 -+ 1/(2 sqrt 3), weights 1/2 each
+
+
+def _local_first_moment_weights(x: np.ndarray, a: float, b: float, c: float) -> np.ndarray:
+    """Weights ``v`` with ``v @ y = int_a^b (l - c) y(l) dl`` for the interpolant on the pixels ``x``.
+
+    On segment ``[x_i, x_{i+1}]`` (width h) overlapping ``[u, v]`` the interpolant is
+    ``y_i (x_{i+1} - l)/h + y_{i+1} (l - x_i)/h``; each term times ``(l - c)`` is a quadratic
+    in ``l``, integrated exactly by the two-point Gauss-Legendre rule on ``[u, v]``
+    (Abramowitz & Stegun 1964, 25.4.29: exact for polynomials of degree <= 3).
+    """
+    w = np.zeros_like(x)
+    if b <= a or x.size < 2:
+        return w
+    x0, x1 = x[:-1], x[1:]
+    u = np.clip(a, x0, x1)
+    v = np.clip(b, x0, x1)
+    h = x1 - x0
+    mid, width = 0.5 * (u + v), v - u
+    left = np.zeros_like(h)
+    right = np.zeros_like(h)
+    for t in (mid - _GL2 * width, mid + _GL2 * width):
+        left += 0.5 * width * (t - c) * (x1 - t) / h
+        right += 0.5 * width * (t - c) * (t - x0) / h
+    w[:-1] += left
+    w[1:] += right
+    return w
+
+
+def _side_interval(wl: np.ndarray, rng: tuple[float, float] | None) -> tuple[float, float] | None:
+    """The side window as an integration interval, or None if it is empty or leaves the spectrum."""
+    if rng is None:
+        return None
+    lo, hi = rng
+    if not hi > lo or lo < wl[0] - 1e-12 or hi > wl[-1] + 1e-12:
+        return None  # side window leaves the spectrum: unusable
+    lo, hi = max(float(lo), float(wl[0])), min(float(hi), float(wl[-1]))
+    return (lo, hi) if hi > lo else None
+
+
 @dataclass
 class WindowLine:
     """Integration geometry of one line (all wavelengths in nm)."""
@@ -91,6 +152,7 @@ def window_geometry(centre_nm: float, window_nm: float, side_nm: float, gap_nm: 
 
 
 def _side_pixels(wl: np.ndarray, rng: tuple[float, float] | None) -> np.ndarray:
+    """Pixels whose centres lie in a side window inside the spectrum (for the noise estimate only)."""
     if rng is None:
         return np.zeros(0, dtype=np.intp)
     lo, hi = rng
@@ -111,7 +173,7 @@ class WindowWeights:
     pixels: list[np.ndarray]  # per line: pixel indices with non-zero weight
     weights: list[np.ndarray]  # per line: the weights on those pixels
     support: list[np.ndarray]  # pixel indices each line touches (line + side windows)
-    side: list[np.ndarray]  # side pixel indices
+    side: list[np.ndarray]  # side pixel indices (centres inside the side windows): noise estimate
     background: list[str]  # "linear", "constant" or "none"
     geometry: list[WindowLine]
     n_pixels: int = 0
@@ -158,39 +220,88 @@ class WindowWeights:
         return self.noise_sigma(spectrum) * norms
 
 
+def _side_normal_equations(wl, intervals, brackets, c: float, sup: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``M`` (2 x 2) and ``R`` (2 x len(sup)) of the continuous least-squares background, ``M theta = R @ y[sup]``.
+
+    ``M = sum over side intervals [p, q] of int_p^q [[1, x], [x, x^2]] dx`` with ``x = l - c``
+    (closed form: ``q - p``, ``(x_q^2 - x_p^2)/2``, ``(x_q^3 - x_p^3)/3``); ``R``'s rows are the
+    interpolant's zeroth and first moments ``int y dl`` and ``int (l - c) y dl`` over the intervals.
+    """
+    R = np.zeros((2, sup.size))
+    M = np.zeros((2, 2))
+    for (p, q), (p0, p1) in zip(intervals, brackets):
+        pos = np.searchsorted(sup, np.arange(p0, p1))
+        R[0, pos] += _local_interpolant_weights(wl[p0:p1], p, q)
+        R[1, pos] += _local_first_moment_weights(wl[p0:p1], p, q, c)
+        xp, xq = p - c, q - c
+        m1 = 0.5 * (xq - xp) * (xq + xp)
+        M += np.array([[xq - xp, m1], [m1, (xq - xp) * (xq * xq + xq * xp + xp * xp) / 3.0]])
+    return M, R
+
+
+def side_background(wavelength, spectrum, g: WindowLine) -> tuple[str, float, float]:
+    """The background line that window integration removes for geometry ``g`` on one spectrum.
+
+    Returns ``(kind, alpha, beta)`` with the background ``alpha + beta (l - g.centre_nm)``
+    [counts]: the continuous least-squares line over both side intervals (``"linear"``), the
+    interpolant's mean over the one side interval inside the spectrum (``"constant"``, beta = 0),
+    or ``("none", nan, nan)`` (module docstring).
+    """
+    wl = np.asarray(wavelength, dtype=np.float64)
+    y = np.asarray(spectrum, dtype=np.float64)
+    c = float(g.centre_nm)
+    intervals = [iv for iv in (_side_interval(wl, g.left), _side_interval(wl, g.right)) if iv is not None]
+    brackets = [_bracket(wl, p, q) for p, q in intervals]
+    if not intervals:
+        return "none", float("nan"), float("nan")
+    sup = np.unique(np.concatenate([np.arange(p0, p1) for p0, p1 in brackets])).astype(np.intp)
+    M, R = _side_normal_equations(wl, intervals, brackets, c, sup)
+    r = R @ y[sup]
+    if len(intervals) == 1:
+        return "constant", float(r[0] / M[0, 0]), 0.0
+    alpha, beta = np.linalg.solve(M, r)
+    return "linear", float(alpha), float(beta)
+
+
 def build_window_weights(wavelength, geometries: list[WindowLine]) -> WindowWeights:
     """Weight vectors for window integration minus local linear background (module docstring).
 
-    Each line's weights are computed on its own pixels only (window, bracketing pixels,
-    side windows): the cost is linear in the number of lines.
+    With ``x = l - c`` (``c`` the line centre) and the side intervals ``S`` inside the spectrum,
+    the background ``alpha + beta x`` solves ``M theta = r`` with ``M = int_S [[1, x], [x, x^2]] dx``
+    (closed form) and ``r = R @ y`` (zeroth and first interpolant moments over ``S``); the line's
+    weights are ``w = u_[a,b] - g M^-1 R`` with ``g = (b - a, ((b-c)^2 - (a-c)^2)/2)`` the window
+    integral of ``(1, x)`` (continuous least squares, Burden & Faires sec. 8.2).  With one side
+    interval of width ``s`` the background is its interpolant mean: ``w = u_[a,b] - (b - a)/s * u_S``.
+    Each line's weights are computed on its own pixels only (window, side windows and their bracketing
+    pixels): the cost is linear in the number of lines.
     """
     wl = np.asarray(wavelength, dtype=np.float64)
     n = wl.size
     pixels, weights, supports, sides, kinds = [], [], [], [], []
     for g in geometries:
+        c = float(g.centre_nm)
         lo, hi = _bracket(wl, g.a, g.b)
-        li = _side_pixels(wl, g.left)
-        ri = _side_pixels(wl, g.right)
-        idx = np.concatenate([li, ri])
-        # support: pixels inside the window and those bracketing its edges, and the side pixels
+        intervals = [iv for iv in (_side_interval(wl, g.left), _side_interval(wl, g.right)) if iv is not None]
+        brackets = [_bracket(wl, p, q) for p, q in intervals]
+        idx = np.concatenate([_side_pixels(wl, g.left), _side_pixels(wl, g.right)]).astype(np.intp)
+        # support: pixels inside the window and those bracketing its edges, the side intervals' pixels
+        # with their bracketing pixels (every pixel the weights can touch)
         s_lo = max(0, int(np.searchsorted(wl, g.a)) - 1)
         s_hi = min(n, int(np.searchsorted(wl, g.b, side="right")) + 1)
-        sup = np.union1d(np.arange(s_lo, s_hi), idx).astype(np.intp)  # sorted, unique; holds [lo, hi)
+        parts = [np.arange(s_lo, s_hi), np.arange(lo, hi), idx] + [np.arange(p0, p1) for p0, p1 in brackets]
+        sup = np.unique(np.concatenate(parts)).astype(np.intp)  # sorted, unique
         w = np.zeros(sup.size)
-        pos = np.searchsorted(sup, np.arange(lo, hi))
-        w[pos] = _local_interpolant_weights(wl[lo:hi], g.a, g.b)
-        side_pos = np.searchsorted(sup, idx)
-        if li.size and ri.size and idx.size >= 2:
-            x = wl[idx] - g.centre_nm
-            A = np.column_stack([np.ones(idx.size), x])
-            P = np.linalg.pinv(A)  # (2, m): (alpha, beta) = P @ y_side
-            # int_a^b alpha + beta (l - c) dl
-            ua, ub = g.a - g.centre_nm, g.b - g.centre_nm
-            g_row = np.array([ub - ua, 0.5 * (ub**2 - ua**2)])
-            w[side_pos] -= g_row @ P
+        w[np.searchsorted(sup, np.arange(lo, hi))] = _local_interpolant_weights(wl[lo:hi], g.a, g.b)
+        if len(intervals) == 2:
+            M, R = _side_normal_equations(wl, intervals, brackets, c, sup)
+            ua, ub = g.a - c, g.b - c
+            g_row = np.array([ub - ua, 0.5 * (ub - ua) * (ub + ua)])
+            w -= np.linalg.solve(M.T, g_row) @ R  # g M^-1 R
             kind = "linear"
-        elif idx.size >= 1:
-            w[side_pos] -= (g.b - g.a) / idx.size
+        elif len(intervals) == 1:
+            (p, q), (p0, p1) = intervals[0], brackets[0]
+            pos = np.searchsorted(sup, np.arange(p0, p1))
+            w[pos] -= (g.b - g.a) / (q - p) * _local_interpolant_weights(wl[p0:p1], p, q)
             kind = "constant"
         else:
             kind = "none"
@@ -198,7 +309,7 @@ def build_window_weights(wavelength, geometries: list[WindowLine]) -> WindowWeig
         pixels.append(sup[nz])
         weights.append(w[nz])
         supports.append(sup)
-        sides.append(idx.astype(np.intp))
+        sides.append(idx)
         kinds.append(kind)
     out = WindowWeights(
         pixels=pixels, weights=weights, support=supports, side=sides, background=kinds, geometry=geometries, n_pixels=n

@@ -119,7 +119,7 @@ def _shift_of(meas, sid: str) -> float:
 
 
 def _window_line(ln, wl, y, shift: float) -> dict:
-    from compquant.lines.windows import window_geometry
+    from compquant.lines.windows import side_background, window_geometry
     from compquant.method import side_width_nm, window_width_nm
 
     pitch = float(np.median(np.diff(wl))) if wl.size > 1 else 1.0
@@ -129,14 +129,10 @@ def _window_line(ln, wl, y, shift: float) -> dict:
     hi = g.right[1] if g.right else g.b
     m = (wl >= lo - pitch) & (wl <= hi + pitch)
     x, yy = wl[m], y[m]
-    side = np.zeros(x.size, bool)
-    for rng in (g.left, g.right):
-        if rng:
-            side |= (x >= rng[0]) & (x <= rng[1])
     background = None
-    if side.sum() >= 2:  # the straight background through the side windows (what the window integral removes)
-        c = np.polyfit(x[side], yy[side], 1)
-        background = np.polyval(c, x)
+    kind, alpha, beta = side_background(wl, y, g)  # the straight background the window integral removes
+    if kind != "none":
+        background = alpha + beta * (x - g.centre_nm)
     return {"x": _floats(x), "y": _floats(yy), "window": [g.a, g.b], "sides": [list(r) for r in (g.left, g.right) if r],
             "background": None if background is None else _floats(background), "model": None, "residual": None}
 
