@@ -124,6 +124,8 @@ class Certification:
             self.flags.append("line_widths_inconsistent")
         if any(c["check"] == "species_temperatures" and c["checked"] and not c["passed"] for c in checks):
             self.flags.append("species_temperatures_disagree")
+        if any(c["check"] == "species_mean_temperature" and c["checked"] and not c["passed"] for c in checks):
+            self.flags.append("species_mean_temperature_disagrees")
         if failed:
             self.flags.append("plasma_inconsistent")
             notes = "; ".join(f"{c['check']}: {c['note'] or c['value']}" for c in checks if c["check"] in failed)

@@ -25,6 +25,13 @@ refuses makes the sample's
   ``species_temperatures_disagree``) each species' own Boltzmann-plot temperature (≥ 3 lines over
   ≥ 1 eV of E_k) agrees with the joint T within ``t_species_tolerance`` (7 %) or 3 combined u
   (common practice: a single LTE temperature must describe every species);
+* ``species_mean_temperature`` — (refuses self-absorption fits; elsewhere the flag
+  ``species_mean_temperature_disagrees``) the species' own Boltzmann slopes *together*: their
+  inverse-variance weighted mean against the joint slope, z with the variance of the
+  difference u²(m̄) − u²_raw(m_J) (Hausman 1978); refused when |z| > ``t_species_mean_z`` (3,
+  two-sided) and the two temperatures differ by more than ``t_species_tolerance`` (7 %)
+  (:func:`species_mean_t_check`): every species a little on one side of a joint T that the
+  ion/atom balance carries is a solution no single species refutes;
 * ``ne_plausible`` — nₑ inside ``plausible_ne_cm3`` (common practice for laser and spark
   plasmas at the usual delays: 10¹⁴–10¹⁹ cm⁻³);
 * ``thin_lines_temperature`` — for the self-absorption fits, the lines that the fit itself
@@ -52,6 +59,8 @@ refuses makes the sample's
 from __future__ import annotations
 
 import math
+
+from compquant.plasma.constants import KB_EV as K_B_EV
 
 #: Largest Paule–Mandel scatter s (standard deviation of ln I beyond the lines' stated u) that a
 #: self-absorption fit may need and still be certified: 0.25, i.e. about 25 % of a line's
@@ -101,6 +110,66 @@ def species_t_check(T, u_T, species, tol):
         notes.append(f"{s['species']} {s['temperature_k']:.0f} K")
     return _check("species_temperatures", True, passed, value=worst, limit=tol,
                   note=f"joint {T:.0f} K; " + ", ".join(notes))
+
+
+def species_mean_t_check(T, u_T, species, tol, z_max, birge=None, scale_by_chi2=True):
+    """``species_mean_temperature``: the species' own Boltzmann slopes, taken together, against
+    the joint fit's slope (a two-sided weighted-mean test).
+
+    In LTE one temperature describes every species (Cristoforetti et al. 2010, *Spectrochim.
+    Acta B* 65, 86), so the species' own Boltzmann-plot slopes m_s = −1/(k T_s) (rows as in
+    :func:`species_t_check`: ≥ 3 lines over ≥ 1 eV of E_k, with a stated u) and the joint slope
+    m_J = −1/(k T) estimate one number.  Their inverse-variance weighted mean (GUM, JCGM
+    100:2008, as in Birge 1932)
+
+        m̄ = Σ m_s/u_s² / Σ 1/u_s²,   u²(m̄) = 1/Σ 1/u_s²,   u_s = u(T_s)/(k T_s²)  [eV⁻¹]
+
+    treats the species as independent (disjoint line sets).  The joint fit uses the same lines
+    and weights plus the ion/atom (Saha) coupling, so it is not independent of m̄: for weighted
+    least squares with common weights, the fit with per-species intercepts (whose slope is m̄)
+    nests the Saha–Boltzmann model, and the efficient estimate's covariance with the nested
+    one equals its own variance (Hausman 1978, *Econometrica* 46, 1251), so
+
+        z = (m̄ − m_J) / √(u²(m̄) − u²_raw(m_J)),
+
+    which is the Boltzmann slopes tested against the temperature information the ion/atom
+    balance adds — two independent pieces of the data.  Conservative choices: u_s carry their
+    own Birge-ratio widening (only ever up) while u_raw(m_J) is the joint u *without* its Birge
+    widening (u_T/√max(1, χ²/ν) when ``scale_by_chi2``), both of which make the denominator
+    larger; and a refusal needs |z| > ``z_max`` (3, two-sided: p = 0.0027, the 3 u of the other
+    checks) **and** |T̄/T − 1| > ``tol`` (``t_species_tolerance``, 7 %), T̄ = −1/(k m̄).
+    Two-sided because the LTE principle has no direction: a Saha coupling with a wrong nₑ can
+    pull the joint T either way.  Not checked when no species qualifies, or when u²(m̄) ≤
+    u²_raw(m_J) (the species' slopes then hold all the joint fit's information on T).
+
+    It sees what :func:`species_t_check` cannot: every species a little below a joint T
+    carried by the ion/atom balance with a too-high nₑ (docs/calibration-free.md §11, magnesium
+    MA02: Al I 10 669, Mg I 11 920, Zn I 9 660 K, each within 3 u of 13 471 K; together
+    11 287 K, z = −3.6).
+    """
+    rows = [s for s in species if s.get("temperature_k") and s.get("u_temperature_k") and s["n_lines"] >= 3
+            and s["e_k_range_ev"][1] - s["e_k_range_ev"][0] >= 1.0]
+    if not rows or not (T > 0 and u_T and u_T > 0):
+        return _check("species_mean_temperature", False, True,
+                      note="no species with ≥ 3 lines over ≥ 1 eV and a stated u, or no u of the joint T")
+    m_j = -1.0 / (K_B_EV * T)
+    u_j = u_T / (K_B_EV * T * T)
+    if scale_by_chi2 and birge is not None and birge == birge:
+        u_j /= math.sqrt(max(1.0, float(birge)))
+    w = [(K_B_EV * s["temperature_k"] ** 2 / s["u_temperature_k"]) ** 2 for s in rows]  # 1/u_s²
+    m_bar = sum(wi * (-1.0 / (K_B_EV * s["temperature_k"])) for wi, s in zip(w, rows)) / sum(w)
+    var_d = 1.0 / sum(w) - u_j**2
+    names = ", ".join(f"{s['species']} {s['temperature_k']:.0f} ± {s['u_temperature_k']:.0f} K" for s in rows)
+    if var_d <= 0.0:
+        return _check("species_mean_temperature", False, True,
+                      note=f"the species' slopes hold all the joint fit's information on T ({names})")
+    z = (m_bar - m_j) / math.sqrt(var_d)
+    t_bar = -1.0 / (K_B_EV * m_bar)
+    d = t_bar / T - 1.0
+    passed = not (abs(d) > tol and abs(z) > z_max)
+    return _check("species_mean_temperature", True, passed, value=z, limit=z_max,
+                  note=f"species' weighted-mean Boltzmann T {t_bar:.0f} K ({100 * d:+.1f} %) against joint {T:.0f} K, "
+                       f"z = {z:+.2f} (refused beyond ±{z_max:g} and ±{100 * tol:g} %); {names}")
 
 
 def thin_t_check(T, thin, tol):
@@ -153,6 +222,10 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
     st = species_t_check(T, u_T, species, settings.t_species_tolerance)
     st["refuses"] = corrected  # without a slab model a disagreement is reported, not refused
     out.append(st)
+    sm = species_mean_t_check(T, u_T, species, settings.t_species_tolerance, settings.t_species_mean_z,
+                              birge=(fit or {}).get("birge_ratio"), scale_by_chi2=settings.scale_by_chi2)
+    sm["refuses"] = corrected  # as species_temperatures: elsewhere the flag species_mean_temperature_disagrees
+    out.append(sm)
     lo, hi = settings.plausible_ne_cm3
     out.append(_check("ne_plausible", True, lo <= ne <= hi, value=ne, limit=[lo, hi]))
     length = sa_info.get("plasma_length_mm")
@@ -189,4 +262,5 @@ def plasma_checks(*, T, u_T, ne, u_ln_ne, ne_used, ne_estimates, lte, species, s
     return out, failed
 
 
-__all__ = ["SA_SCATTER_MAX", "ne_route_check", "plasma_checks", "species_t_check", "thin_t_check"]
+__all__ = ["SA_SCATTER_MAX", "ne_route_check", "plasma_checks", "species_mean_t_check", "species_t_check",
+           "thin_t_check"]

@@ -144,6 +144,9 @@ CF_TABLE = Table("cf", (
     _s("max_line_fwhm_nm", "float", None, "a fitted FWHM above this failed", "nm", **_POS),
     _s("ne_agreement_factor", "float", 2.0, "nₑ routes agree within this factor (§4a)", **_POS),
     _s("t_species_tolerance", "float", 0.07, "species temperatures agree within this fraction", **_POS),
+    _s("t_species_mean_z", "float", 3.0, "largest |z| of the species' weighted-mean Boltzmann slope against the joint "
+       "one (two-sided; 3: p = 0.0027), when the two temperatures also differ by more than t_species_tolerance (§4a)",
+       **_POS),
     _s("t_thin_tolerance", "float", 0.03, "thin-line temperature agrees within this fraction", **_POS),
     _s("sa_fit_p_min", "float", 0.001, "smallest χ² p-value of a self-absorption fit", **_POS),
     _s("plausible_length_mm", "list", [0.01, 5.0], "[low, high] plausible slab length", "mm", item="float",
