@@ -15,8 +15,9 @@ both bands as its value at the window centre, times the window width 2h — the 
 band (c < 0) lowers N through the background; one inside the window (c > 0) raises it.  When the
 run's pixel axis is known, c is taken on the pixels the measurement uses (eq. (1′),
 :func:`pixel_response`): c_jk = Σ_p w_p v_p with the pipeline's window weights w_p and v_p the
-pixel mean of line k's profile — the side bands hold whole pixels, which matters for a line near
-a band edge.
+pixel mean of line k's profile — the pipeline's side bands are continuous intervals of the
+pixel interpolant (so the pixel form differs from eq. (1) by the interpolation, most for a line
+near a band edge).
 
 After a first plasma solution (T, nₑ and one intercept per element of the Saha–Boltzmann fit) the
 area of every line of the solution's elements (stages I and II of the shipped line list,
@@ -172,7 +173,8 @@ def window_response(offset_nm, window_nm, side_nm, gap_nm, w_gauss, w_lorentz) -
 def pixel_window_weights(axis, centre_nm, window_nm, side_nm, gap_nm):
     """The line pipeline's weights of one window on the run's pixels (``pixels``, ``weights``):
     N = Σ_p w_p y_p (:func:`compquant.lines.windows.build_window_weights` — interpolant integral
-    over the window less the least-squares line through the side pixels, integrated over it)."""
+    over the window less the least-squares line over the side bands' interpolant, integrated over
+    it)."""
     from compquant.lines.windows import build_window_weights, window_geometry
 
     W = build_window_weights(axis, [window_geometry(float(centre_nm), float(window_nm), float(side_nm),
@@ -188,8 +190,9 @@ def pixel_response(axis, pixels, weights, line_nm, w_gauss, w_lorentz) -> np.nda
 
     F the Voigt CDF (:func:`voigt_cdf`) and e_p± the pixel edges midway between pixel centres (the
     ends mirrored; as :attr:`compquant.plasma.forward.Instrument.pixel_edges`).  Unlike the
-    continuous geometry of eq. (1), the side bands hold whole pixels (the pipeline takes every pixel
-    whose centre lies in a band), which matters for a line near a band edge.  ``line_nm``,
+    continuous geometry of eq. (1), the pixels are the run's: the line's profile is averaged over
+    each pixel and the side bands are intervals of the pixel interpolant, which matters for a line
+    near a band edge.  ``line_nm``,
     ``w_gauss``, ``w_lorentz``: (m,) arrays; returns (m,).
     """
     x = np.asarray(axis, float)
