@@ -76,15 +76,19 @@ def _bracket(x: np.ndarray, a: float, b: float) -> tuple[int, int]:
     return lo, max(hi, lo)
 
 
+def _segments(x: np.ndarray, a: float, b: float):
+    """The segments ``[x_i, x_{i+1}]`` of the pixels ``x``, their overlap ``[u, v]`` with ``[a, b]``
+    (empty where ``u = v``) and widths ``h``: ``(x0, x1, u, v, h)``."""
+    x0, x1 = x[:-1], x[1:]
+    return x0, x1, np.clip(a, x0, x1), np.clip(b, x0, x1), x1 - x0
+
+
 def _local_interpolant_weights(x: np.ndarray, a: float, b: float) -> np.ndarray:
     """:func:`interpolant_integral_weights` on the pixels ``x`` only (the segments between them)."""
     w = np.zeros_like(x)
     if b <= a or x.size < 2:
         return w
-    x0, x1 = x[:-1], x[1:]
-    u = np.clip(a, x0, x1)
-    v = np.clip(b, x0, x1)
-    h = x1 - x0
+    x0, x1, u, v, h = _segments(x, a, b)
     left = ((x1 - u) ** 2 - (x1 - v) ** 2) / (2 * h)
     right = ((v - x0) ** 2 - (u - x0) ** 2) / (2 * h)
     w[:-1] += left
@@ -106,10 +110,7 @@ def _local_first_moment_weights(x: np.ndarray, a: float, b: float, c: float) -> 
     w = np.zeros_like(x)
     if b <= a or x.size < 2:
         return w
-    x0, x1 = x[:-1], x[1:]
-    u = np.clip(a, x0, x1)
-    v = np.clip(b, x0, x1)
-    h = x1 - x0
+    x0, x1, u, v, h = _segments(x, a, b)
     mid, width = 0.5 * (u + v), v - u
     left = np.zeros_like(h)
     right = np.zeros_like(h)
