@@ -477,3 +477,39 @@ def test_flag_names_fit_their_column_on_one_line():
     long_cell = long_cell[0] if isinstance(long_cell, (list, tuple)) else long_cell
     long_cell.wrap(narrow._colWidths[0] - 12.0, 500)
     assert len(long_cell.blPara.lines) > 1  # the former layout split it: the check can fail
+
+
+def test_every_flag_the_analysis_sets_has_plain_words_and_fits_on_one_line():
+    """Every flag name the code sets (``flags.append("…")`` / ``flags.add("…")`` in compquant/)
+    has plain words on the certificate (an analyst does not read flag names; common practice:
+    ISO/IEC 17025:2017 7.8.2.1 asks for information needed to interpret the results), and the
+    longest name fits the Flags table's and the results table's Flags column on one line
+    (reportlab's own Paragraph.wrap)."""
+    import re
+    from pathlib import Path
+
+    from reportlab.lib.pagesizes import A4
+    from reportlab.lib.units import mm
+
+    import compquant
+    from compquant.report.certificate import FLAG_TEXT
+    from compquant.report.pdf import MARGIN_MM
+    from compquant.report.pdfkit import Kit
+
+    root = Path(compquant.__file__).parent
+    set_by_code = set()
+    for f in root.rglob("*.py"):
+        src = f.read_text(encoding="utf-8")
+        set_by_code |= set(re.findall(r'flags?\.(?:append|add)\(\s*"([a-z_]+)"', src))
+    assert len(set_by_code) > 20  # the scan finds the flags (else the check below is empty)
+    assert sorted(set_by_code - set(FLAG_TEXT)) == []
+    kit = Kit(A4[0] - 2 * MARGIN_MM * mm)
+    longest = max(FLAG_TEXT, key=len)
+    for least, most in ((0.18, 0.35), (20 / 102, 0.34)):  # Flags table; results table (pdf_front)
+        share = kit.share_to_fit([longest], least=least, most=most)
+        table = kit.grid_table(["Flag", "Meaning"], [[longest, "text"]], [share, 1.0 - share])
+        table.wrapOn(None, kit.frame_w, 500)
+        cell = table._cellvalues[1][0]
+        cell = cell[0] if isinstance(cell, (list, tuple)) else cell
+        cell.wrap(table._colWidths[0] - 12.0, 500)
+        assert len(cell.blPara.lines) == 1, (longest, most)

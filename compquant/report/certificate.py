@@ -101,6 +101,24 @@ FLAG_TEXT = {
     "lte_mcwhirter_failed": "the McWhirter criterion for local thermodynamic equilibrium is not met",
     "lte_transient_failed": "the plasma changes faster than it relaxes to equilibrium (transient criterion not met)",
     "lte_inhomogeneous_failed": "the plasma is too inhomogeneous for local equilibrium (diffusion criterion not met)",
+    "masked": "a detector pixel of the line is marked bad in some shots; those shots were left out of this line",
+    "window_clips": "part of the line lies outside its integration window, so its intensity may be low",
+    "wavelength_refs_disagree": "the sample's wavelength reference lines disagree about its wavelength shift; "
+    "line positions are less certain",
+    "not_determined": "calibration-free: the element could not be determined in this sample (too few or "
+    "too weak lines, or lines that contradict each other); no value is given",
+    "plasma_inconsistent": "calibration-free: the fitted plasma failed a physical check (see remarks); no "
+    "mass fraction of this sample is certified",
+    "closure_incomplete": "calibration-free: an element was left out of the 100 % closure, so the other "
+    "values are high by its share",
+    "species_temperatures_disagree": "calibration-free: one species' own temperature disagrees with the "
+    "plasma temperature, so the single-temperature (equilibrium) model is in doubt",
+    "species_mean_temperature_disagrees": "calibration-free: the species' own temperatures, taken together, "
+    "disagree with the plasma temperature, so the single-temperature (equilibrium) model is in doubt",
+    "line_widths_inconsistent": "calibration-free: the measured line widths are narrower than the fitted "
+    "electron density allows; the electron density is in doubt",
+    "sa_length_at_bound": "calibration-free: the fitted self-absorbing plasma length reached its search "
+    "limit; the self-absorption model may not describe the lines",
 }
 
 

@@ -179,7 +179,7 @@ def results_section(kit: Kit, cert: Certificate, sec: int) -> list:
     rows = _results_rows(cert, k_all_2)
     if rows:
         base = [11, 14, 12, 8, 10, 10, 17]  # relative widths; the Flags column fits its longest flag name
-        flag = kit.share_to_fit([f for r in rows for f in r[-1].split(", ")], least=20 / 102, most=0.30)
+        flag = kit.share_to_fit([f for r in rows for f in r[-1].split(", ")], least=20 / 102, most=0.34)
         out.append(
             kit.grid_table(
                 ["Element", "Mass fraction", "U (k = 2)" if k_all_2 else "U", "Unit", "LOD", "LOQ", "Line", "Flags"],
