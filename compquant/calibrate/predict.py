@@ -205,8 +205,9 @@ def sample_rows(sid, role, good, preds, curves, resp, allow_above, coverage, run
         # a line whose background is over-estimated (negative net, rule negative-net) cannot show
         # absence: no "< LOD" / "below LOQ" claim from it; the value is given with its widened U
         negnet = "background" in p["budget"]
-        below = bool(w[i] < lod) and not negnet
-        flags = list(resp[el].loc[sid]["flags"]) + _content_flags(w[i], p["x"], lod, loq, c, negnet) + run_flags
+        content = _content_flags(w[i], p["x"], lod, loq, c, negnet)
+        below = "below_lod" in content
+        flags = list(resp[el].loc[sid]["flags"]) + content + run_flags
         if negnet:
             flags.append("negative_net")
         k = coverage_factor(coverage, p["dof"])

@@ -123,6 +123,7 @@ from compquant.cflibs.capture import abs_cdf
 from compquant.cflibs.electron_density import gaussian_fwhm_nm
 from compquant.errors import PhysicsError
 from compquant.plasma.constants import KB_EV, LN_SAHA_PREFACTOR
+from compquant.plasma.profiles import voigt_fwhm
 
 #: lines farther than this beyond a window's outer side-band edge are not counted (nm): at
 #: 0.5 nm a Lorentzian of FWHM 0.02 nm puts 0.6 % of its area beyond the offset, spread thinly
@@ -403,7 +404,7 @@ def optical_reach(tau0, w_gauss_abs, w_lorentz, tau_min=MUTUAL_TAU_MIN) -> np.nd
         return out
     sig = wg[thick] / (2.0 * math.sqrt(2.0 * math.log(2.0)))
     gam = 0.5 * wl[thick]
-    hw = 0.5 * (0.5346 * wl[thick] + np.sqrt(0.2166 * wl[thick] ** 2 + wg[thick] ** 2))  # Voigt HWHM (Olivero)
+    hw = 0.5 * voigt_fwhm(wg[thick], wl[thick])  # Voigt HWHM (Olivero & Longbothum)
     x = hw[:, None] * _REACH_GRID[None, :]
     ratio = voigt_profile(x, sig[:, None], gam[:, None]) / voigt_profile(0.0, sig, gam)[:, None]
     below = t0[thick, None] * ratio < tau_min
@@ -478,7 +479,7 @@ def _mutual_absorption(c, c_thin, centre, geo, jj, kk, own, cand_wl, area, wl_al
             continue
         grp = np.concatenate([[o], kk[pairs]])
         wg, wl = np.maximum(wg_abs[grp], 1e-12), np.maximum(wl_all[grp], 0.0)
-        scale = 0.5 * (0.5346 * wl + np.sqrt(0.2166 * wl**2 + wg**2))
+        scale = 0.5 * voigt_fwhm(wg, wl)  # the sinh grids' scale, as absorbed_part's
         grid = np.unique((cand_wl[grp, None] + _XS[None, :] * scale[:, None]).ravel())
         # K_j vanishes (< 10⁻²⁰) beyond 10 instrument FWHM (and two pixels) outside the outer band edges
         edge = 0.5 * geo[j, 0] + geo[j, 1] + geo[j, 2] + 10.0 * w_ins[o] + step

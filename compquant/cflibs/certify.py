@@ -120,12 +120,12 @@ class Certification:
                                        thin=self.thin_subset_temperature(weights=1.0 / self.u_y**2),
                                        widths=line_width_check(T=T, ne=ne, lines=self.L, w_instr_nm=self.w_instr,
                                                                mass_u=self.mass_line, settings=s))
-        if any(c["check"] == "line_widths" and c["checked"] and not c["passed"] for c in checks):
-            self.flags.append("line_widths_inconsistent")
-        if any(c["check"] == "species_temperatures" and c["checked"] and not c["passed"] for c in checks):
-            self.flags.append("species_temperatures_disagree")
-        if any(c["check"] == "species_mean_temperature" and c["checked"] and not c["passed"] for c in checks):
-            self.flags.append("species_mean_temperature_disagrees")
+        failed_any = {c["check"] for c in checks if c["checked"] and not c["passed"]}  # refusing or not
+        for check, flag in (("line_widths", "line_widths_inconsistent"),
+                            ("species_temperatures", "species_temperatures_disagree"),
+                            ("species_mean_temperature", "species_mean_temperature_disagrees")):
+            if check in failed_any:
+                self.flags.append(flag)
         if failed:
             self.flags.append("plasma_inconsistent")
             notes = "; ".join(f"{c['check']}: {c['note'] or c['value']}" for c in checks if c["check"] in failed)

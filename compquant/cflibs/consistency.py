@@ -95,9 +95,14 @@ def ne_route_check(ne, u_ln_ne, used, estimates, factor):
                   note=f"used {used} {ne:.3g} cm⁻³; " + "; ".join(notes))
 
 
-def species_t_check(T, u_T, species, tol):
-    rows = [s for s in species if s.get("temperature_k") and s["n_lines"] >= 3
+def _species_rows(species):
+    """Species whose own Boltzmann temperature counts: a T from ≥ 3 lines over ≥ 1 eV of E_k."""
+    return [s for s in species if s.get("temperature_k") and s["n_lines"] >= 3
             and s["e_k_range_ev"][1] - s["e_k_range_ev"][0] >= 1.0]
+
+
+def species_t_check(T, u_T, species, tol):
+    rows = _species_rows(species)
     if not rows:
         return _check("species_temperatures", False, True, note="no species with ≥ 3 lines over ≥ 1 eV")
     passed, worst, notes = True, 0.0, []
@@ -147,8 +152,7 @@ def species_mean_t_check(T, u_T, species, tol, z_max, birge=None, scale_by_chi2=
     MA02: Al I 10 669, Mg I 11 920, Zn I 9 660 K, each within 3 u of 13 471 K; together
     11 287 K, z = −3.6).
     """
-    rows = [s for s in species if s.get("temperature_k") and s.get("u_temperature_k") and s["n_lines"] >= 3
-            and s["e_k_range_ev"][1] - s["e_k_range_ev"][0] >= 1.0]
+    rows = [s for s in _species_rows(species) if s.get("u_temperature_k")]
     if not rows or not (T > 0 and u_T and u_T > 0):
         return _check("species_mean_temperature", False, True,
                       note="no species with ≥ 3 lines over ≥ 1 eV and a stated u, or no u of the joint T")

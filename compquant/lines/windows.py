@@ -133,6 +133,13 @@ def _side_interval(wl: np.ndarray, rng: tuple[float, float] | None) -> tuple[flo
     return (lo, hi) if hi > lo else None
 
 
+def _side_intervals(wl: np.ndarray, g) -> tuple[list, list]:
+    """The side windows of geometry ``g`` inside the spectrum as intervals ``[(p, q), ...]`` and
+    the pixel range ``[p0, p1)`` bracketing each (:func:`_bracket`)."""
+    intervals = [iv for iv in (_side_interval(wl, g.left), _side_interval(wl, g.right)) if iv is not None]
+    return intervals, [_bracket(wl, p, q) for p, q in intervals]
+
+
 @dataclass
 class WindowLine:
     """Integration geometry of one line (all wavelengths in nm)."""
@@ -251,8 +258,7 @@ def side_background(wavelength, spectrum, g: WindowLine) -> tuple[str, float, fl
     wl = np.asarray(wavelength, dtype=np.float64)
     y = np.asarray(spectrum, dtype=np.float64)
     c = float(g.centre_nm)
-    intervals = [iv for iv in (_side_interval(wl, g.left), _side_interval(wl, g.right)) if iv is not None]
-    brackets = [_bracket(wl, p, q) for p, q in intervals]
+    intervals, brackets = _side_intervals(wl, g)
     if not intervals:
         return "none", float("nan"), float("nan")
     sup = np.unique(np.concatenate([np.arange(p0, p1) for p0, p1 in brackets])).astype(np.intp)
@@ -282,8 +288,7 @@ def build_window_weights(wavelength, geometries: list[WindowLine]) -> WindowWeig
     for g in geometries:
         c = float(g.centre_nm)
         lo, hi = _bracket(wl, g.a, g.b)
-        intervals = [iv for iv in (_side_interval(wl, g.left), _side_interval(wl, g.right)) if iv is not None]
-        brackets = [_bracket(wl, p, q) for p, q in intervals]
+        intervals, brackets = _side_intervals(wl, g)
         idx = np.concatenate([_side_pixels(wl, g.left), _side_pixels(wl, g.right)]).astype(np.intp)
         # support: pixels inside the window and those bracketing its edges, the side intervals' pixels
         # with their bracketing pixels (every pixel the weights can touch)
