@@ -66,3 +66,19 @@ def test_draft_says_its_date_is_not_a_date_of_issue(tmp_path):
     found = re.findall(r"Date of issue:?\s*(\S+)( \(draft\))?", text)
     assert found and all(d == "2026-12-01" and mark for d, mark in found), found
     assert "Time of issue" not in text and "Draft made (UTC)" in text
+
+
+def test_sample_history_gives_the_sample_s_own_time_of_measurement(tmp_path):
+    """The history (record history, review page) shows when the sample was measured, the time its
+    certificate gives as "Date of measurement", not the start of the run it was measured in."""
+    from compquant.record.queries import sample_history
+
+    kw = fake_analysis(tmp_path / "out", "RUN-H", n_samples=2, measured_at=MEASURED)
+    # invented shot times: the run starts with the check and setup samples, the unknowns follow
+    later = {"RUN-H-S000": "2026-11-16T08:47:38Z", "RUN-H-S001": "2026-11-16T08:53:54Z"}
+    kw["measured"] = {**kw["measured"], **later}
+    with open_record(str(tmp_path / "record.sqlite")) as rec:
+        store_analysis(rec, **kw)
+        for sid, t in later.items():
+            hist = sample_history(rec, sid)
+            assert len(hist) == 6 and set(hist["measured_at"]) == {t}, (sid, set(hist["measured_at"]))
