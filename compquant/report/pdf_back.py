@@ -18,7 +18,7 @@ from compquant.report.release import check_state, sigma_pt_rel_of
 
 #: the note under the check-sample table: what the scores and states mean
 CHECK_NOTE = (
-    "Found: value measured in this run with its U (k = 2); Certified: the reference "
+    "Found: value measured in this run with its U ({k_found}); Certified: the reference "
     "value with its U. En = (found - certified) / sqrt(U_found² + U_certified²); "
     "z = (found - certified) / σ_pt, with σ_pt the target standard deviation set in the "
     "method (– when none is set) (ISO 13528). "
@@ -84,7 +84,9 @@ def qc_section(kit: Kit, cert: Certificate, sec: int) -> list:
             )
         )
         crits = sorted({ck.criterion for ck in qc.check_samples})
-        out.append(P(CHECK_NOTE.format(criteria=E("; ".join(crits))), "small"))
+        # the check's U has the coverage the run's results have (k = 2, or Student t)
+        k_found = "k = 2" if cert.coverage_factors() in ([], [2.0]) else "coverage factor k as for the results"
+        out.append(P(CHECK_NOTE.format(criteria=E("; ".join(crits)), k_found=k_found), "small"))
     elif not qc.not_evaluated:
         out.append(P("<i>No check sample was measured in this run.</i>"))
     for n in qc.not_evaluated:

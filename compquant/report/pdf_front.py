@@ -228,8 +228,9 @@ def results_section(kit: Kit, cert: Certificate, sec: int) -> list:
     return out
 
 
-def _conformity_result(e, r) -> tuple[str, str]:
-    """(result, U) texts of one element of a specification, in the specification's unit."""
+def _conformity_result(e, r, k_all_2: bool = True) -> tuple[str, str]:
+    """(result, U) texts of one element of a specification, in the specification's unit (U with
+    its coverage factor when the certificate's results do not all use k = 2)."""
     f = UNIT_FACTOR.get(e.unit, 100.0)
     if e.outcome == "remainder":
         return "remainder", ""
@@ -239,6 +240,8 @@ def _conformity_result(e, r) -> tuple[str, str]:
         lod = fmt_sig(r.lod * f, 2) if finite(r.lod) else ""
         return f"< LOD ({lod})", ""
     val, uu, _ = fmt_mf(r.mass_fraction, r.U, e.unit)
+    if uu and not k_all_2 and finite(r.k):
+        uu += f" (k = {r.k:.2f})"
     return val, uu
 
 
@@ -259,15 +262,16 @@ def conformity_section(kit: Kit, cert: Certificate, sec: int) -> list:
     out.append(Spacer(1, 3))
     crow = []
     by_el = {r.element: r for r in cert.results}
+    k_all_2 = cert.coverage_factors() in ([], [2.0])
     for e in cs.elements:
         f = UNIT_FACTOR.get(e.unit, 100.0)
         lo = f"{e.lower * f:.6g}" if e.lower is not None else "–"
         hi = f"{e.upper * f:.6g}" if e.upper is not None else "–"
-        val, uu = _conformity_result(e, by_el.get(e.element))
+        val, uu = _conformity_result(e, by_el.get(e.element), k_all_2)
         crow.append([e.element, e.unit, lo, hi, val, uu or "–", e.outcome])
     out.append(
         kit.grid_table(
-            ["Element", "Unit", "Min", "Max", "Result", "U (k = 2)", "Outcome"],
+            ["Element", "Unit", "Min", "Max", "Result", "U (k = 2)" if k_all_2 else "U", "Outcome"],
             crow,
             [10, 8, 11, 11, 16, 12, 20],
             right_cols=(2, 3, 4, 5),
