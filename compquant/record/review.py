@@ -7,9 +7,9 @@ certificate cannot be edited and nothing in the audit trail can be edited or del
 - :func:`awaiting_review`: drafts with their flags, the reasons they are not valid for release
   and the control-chart tests their run broke;
 - :func:`release`: renders the final PDF and JSON from the recorded draft with the reviewer's
-  authorisation (name, role, time, statement) into the draft's folder (the released files
-  replace the draft files there; the draft's hashes stay in the record), and supersedes the
-  revision an amendment replaces;
+  authorisation (name, role, time, statement) and the day of release as date of issue into the
+  draft's folder (the released files replace the draft files there; the draft's hashes stay in
+  the record), and supersedes the revision an amendment replaces;
 - :func:`reject`: a draft is rejected with a reason;
 - :func:`amend`: a new revision of a released certificate (ISO/IEC 17025:2017, 7.8.8), issued as
   a draft that names the revision it replaces and why; releasing it supersedes the earlier one;
@@ -18,6 +18,7 @@ certificate cannot be edited and nothing in the audit trail can be edited or del
 
 from __future__ import annotations
 
+import datetime as _dt
 import hashlib
 import json
 from pathlib import Path
@@ -124,6 +125,19 @@ def _write_files(conn, cid: int, kind: str, folder: Path, stem: str, pdf: bytes,
     return {"pdf": str(pdf_path), "json": str(json_path)}
 
 
+def release_day(at: str) -> str:
+    """The UTC day (YYYY-MM-DD) of a release time given as ISO 8601 (``...Z`` or with an offset;
+    without one it is taken as UTC)."""
+    try:
+        t = _dt.datetime.fromisoformat(str(at).strip().replace("Z", "+00:00"))
+    except ValueError as exc:
+        raise RecordError(f"release time {at!r} is not ISO 8601", where="release",
+                          fix="give the time as YYYY-MM-DDTHH:MM:SSZ") from exc
+    if t.tzinfo is not None:
+        t = t.astimezone(_dt.timezone.utc)
+    return t.date().isoformat()
+
+
 def release(rec: Record, number: str, *, reviewer: str, role: str = "", statement: str = "",
             outdir=None, at: str | None = None, who: str | None = None) -> dict:
     """Release a draft (see the module docstring); return the written files and the review."""
@@ -133,6 +147,7 @@ def release(rec: Record, number: str, *, reviewer: str, role: str = "", statemen
     if not reviewer.strip():
         raise RecordError("a release needs the reviewer's name", where=number, fix="give --reviewer NAME")
     at = at or now_utc()
+    day = release_day(at)
     with rec.transaction() as conn:
         row = _cert_row(conn, number, rec)
         _need(row["state"] == DRAFT, rec, number, f"certificate is {row['state']}, not a draft awaiting review",
@@ -144,6 +159,9 @@ def release(rec: Record, number: str, *, reviewer: str, role: str = "", statemen
         _need(not blocking, rec, number, "a control-chart test is broken and the method blocks release: "
               + "; ".join(chart_msgs), "reject it with a reason, investigate the check material's chart")
         cert = certificate_from_dict(json.loads(row["document"]))
+        # the report is issued when it is authorised (ISO/IEC 17025:2017, 7.8.2.1): the released
+        # files carry the day of release as date of issue; the recorded draft keeps its own
+        cert.issue_date = day
         _load_figures(cert, row, rec)
         review = Review(RELEASED, reviewer.strip(), role.strip(), at, statement.strip())
         pdf, text = _render(cert, review)

@@ -73,6 +73,28 @@ RULES = {
     ),
 }
 
+#: how the rule texts name the coverage of U when every result used k = 2, and the words for
+#: results whose U used another factor (Student t at the effective degrees of freedom)
+_K2_PHRASES = (("expanded uncertainty U (k = 2)", "expanded uncertainty U (with the coverage factor k given with "
+                "each result)"), ("(U expanded uncertainty, k = 2)", "(U expanded uncertainty, with the coverage "
+                                  "factor k given with each result)"))
+
+
+def rule_text(rule: str, coverage_factors=()) -> str:
+    """The decision rule in words, naming the coverage factor the results' U used.
+
+    :data:`RULES` states k = 2; when any decided result's U used another k (``coverage =
+    "student"``: k = t_0.975(nu_eff), JCGM 100:2008 G.4), the text says U carries the k given
+    with each result instead, so it never calls a Student-t U "k = 2".
+    """
+    text = RULES[rule]
+    ks = {round(float(k), 2) for k in coverage_factors if _finite(k)}
+    if ks and ks != {2.0}:
+        for k2, other in _K2_PHRASES:
+            text = text.replace(k2, other)
+    return text
+
+
 #: Plain-word meaning of each outcome, for certificates.
 OUTCOME_TEXT = {
     PASS: "conforms",
@@ -289,7 +311,8 @@ def assess_conformity(spec, results) -> ConformityStatement:
         spec.name,
         spec.grade,
         spec.decision_rule,
-        RULES[spec.decision_rule],
+        rule_text(spec.decision_rule, [e.k for e in (by_el.get(lim.element) for lim in spec.limits)
+                                       if e is not None and not e.below_lod and _finite(e.U)]),
         elems,
         overall,
         text,
@@ -305,6 +328,7 @@ __all__ = [
     "FAIL",
     "NOT_DECIDED",
     "RULES",
+    "rule_text",
     "OUTCOME_TEXT",
     "Decision",
     "ElementConformity",

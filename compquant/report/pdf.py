@@ -62,7 +62,7 @@ def draw_review_watermark(canvas, review, page_w: float, page_h: float, font: st
 def _numbered_sections(review) -> list:
     """The numbered sections in order; each returns its flowables, an empty list when absent."""
     return [
-        pdf_front.identification,
+        partial(pdf_front.identification, review=review),
         pdf_front.method_section,
         pdf_front.results_section,
         pdf_front.conformity_section,
@@ -73,14 +73,14 @@ def _numbered_sections(review) -> list:
         partial(pdf_back.authorisation_section, review=review),
         pdf_figures.figures_section,
         pdf_back.safety_section,
-        pdf_back.provenance_section,
+        partial(pdf_back.provenance_section, review=review),
     ]
 
 
 def certificate_story(cert: Certificate, kit: Kit, review=None) -> list:
     """Every flowable of the certificate: title block, release banner, then the numbered sections
     (a section the certificate does not have takes no number)."""
-    story = pdf_front.title_block(kit, cert) + pdf_front.release_banner(kit, cert.release_reasons())
+    story = pdf_front.title_block(kit, cert, review) + pdf_front.release_banner(kit, cert.release_reasons())
     sec = 1
     for section in _numbered_sections(review):
         part = section(kit, cert, sec)

@@ -12,12 +12,13 @@ from __future__ import annotations
 
 from compquant.report.certificate import Certificate
 from compquant.report.numbers import UNIT_FACTOR, choose_unit, finite, sci_text, value_and_u
+from compquant.report.pdf_front import issue_date_text
 from compquant.report.pdfkit import Kit, fmt_2dp, fmt_mf, fmt_sig
 from compquant.report.release import check_state, sigma_pt_rel_of
 
 #: the note under the check-sample table: what the scores and states mean
 CHECK_NOTE = (
-    "Found: value measured in this run with its U (k = 2); Certified: the reference "
+    "Found: value measured in this run with its U ({k_found}); Certified: the reference "
     "value with its U. En = (found - certified) / sqrt(U_found² + U_certified²); "
     "z = (found - certified) / σ_pt, with σ_pt the target standard deviation set in the "
     "method (– when none is set) (ISO 13528). "
@@ -83,7 +84,9 @@ def qc_section(kit: Kit, cert: Certificate, sec: int) -> list:
             )
         )
         crits = sorted({ck.criterion for ck in qc.check_samples})
-        out.append(P(CHECK_NOTE.format(criteria=E("; ".join(crits))), "small"))
+        # the check's U has the coverage the run's results have (k = 2, or Student t)
+        k_found = "k = 2" if cert.coverage_factors() in ([], [2.0]) else "coverage factor k as for the results"
+        out.append(P(CHECK_NOTE.format(criteria=E("; ".join(crits)), k_found=k_found), "small"))
     elif not qc.not_evaluated:
         out.append(P("<i>No check sample was measured in this run.</i>"))
     for n in qc.not_evaluated:
@@ -241,7 +244,7 @@ def authorisation_rows(cert: Certificate, review, E) -> list[tuple[str, str]]:
         return [
             ("Review state", f"<b>{E(review.state.upper())}</b>: not reviewed, not authorised for release"),
             ("Authorised by", "<i>nobody yet: a certificate is authorised when a reviewer releases it</i>"),
-            ("Date of issue", E(cert.issue_date) + " (draft)"),
+            ("Date of issue", issue_date_text(cert, review, E)),
         ]
     rows = [
         ("Authorised by", f"<b>{E(review.reviewer)}</b>" + (f", {E(review.role)}" if review.role else "")),
@@ -272,8 +275,22 @@ def safety_section(kit: Kit, cert: Certificate, sec: int) -> list:
     return out
 
 
-def provenance_section(kit: Kit, cert: Certificate, sec: int) -> list:
-    """Software and version, time of issue, SHA-256 of the run and every input file, parameters."""
+def issued_at_label(issued_at: str, review) -> str:
+    """The label of ``provenance.issued_at``: "Time of issue (UTC)" when the certificate was issued
+    then (no review state, or released at that very time), else "Draft made (UTC)"."""
+    if review is None or (review.state == "released" and review.at == issued_at):
+        return "Time of issue (UTC)"
+    return "Draft made (UTC)"
+
+
+def provenance_section(kit: Kit, cert: Certificate, sec: int, review=None) -> list:
+    """Software and version, time of issue, SHA-256 of the run and every input file, parameters.
+
+    ``provenance.issued_at`` is the time the analysis made the certificate.  It is the time of
+    issue only when no reviewer released it later (no review step, or issued released under
+    ``[review] required = false``); otherwise it is the time the draft was made, and the release
+    time is in the authorisation block.
+    """
     from reportlab.platypus import Spacer, Table, TableStyle
 
     E, P, frame_w = kit.E, kit.P, kit.frame_w
@@ -283,7 +300,7 @@ def provenance_section(kit: Kit, cert: Certificate, sec: int) -> list:
         kit.kv_table(
             [
                 ("Software", E(f"{pv.software} {pv.version}")),
-                ("Time of issue (UTC)", E(pv.issued_at)),
+                (issued_at_label(pv.issued_at, review), E(pv.issued_at)),
                 ("Run file SHA-256", f"<font face='{kit.fonts['mono']}' size=6.8>{E(pv.run_sha256)}</font>"),
             ]
         )
@@ -317,6 +334,7 @@ __all__ = [
     "authorisation_section",
     "calibration_section",
     "plasma_section",
+    "issued_at_label",
     "provenance_section",
     "qc_section",
     "remarks_section",

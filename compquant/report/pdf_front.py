@@ -32,7 +32,20 @@ BASIS_TEXT = {
 }
 
 
-def title_block(kit: Kit, cert: Certificate) -> list:
+def is_draft(review) -> bool:
+    """True for a certificate under review that no reviewer has released yet (``review``: a
+    :class:`compquant.record.states.Review`, or None for a certificate made without a review state)."""
+    return review is not None and review.state != "released"
+
+
+def issue_date_text(cert: Certificate, review, E) -> str:
+    """The date of issue as printed: on a draft marked "(draft)", since a draft is not an issued
+    report (ISO/IEC 17025:2017, 7.8.2.1: the date of issue is that of the authorised report; a
+    released certificate carries the day of its release, :func:`compquant.record.review.release`)."""
+    return E(cert.issue_date) + (" (draft)" if is_draft(review) else "")
+
+
+def title_block(kit: Kit, cert: Certificate, review=None) -> list:
     """Laboratory name and address beside the title, number, date of issue and revision (7.8.2.1 a, b, d)."""
     from reportlab.lib import colors
     from reportlab.platypus import Spacer, Table, TableStyle
@@ -46,7 +59,7 @@ def title_block(kit: Kit, cert: Certificate) -> list:
     right = [
         P(E(cert.title), "h1"),
         P(f"No. <b>{E(cert.number)}</b>", "cellr"),
-        P(f"Date of issue: {E(cert.issue_date)}", "cellr"),
+        P(f"Date of issue: {issue_date_text(cert, review, E)}", "cellr"),
     ]
     if cert.revision:
         sup = f" {E(cert.supersedes)}" if cert.supersedes else " earlier issues"
@@ -101,7 +114,7 @@ def release_banner(kit: Kit, reasons: list[str]) -> list:
     return [bt, Spacer(1, 4)]
 
 
-def identification(kit: Kit, cert: Certificate, sec: int) -> list:
+def identification(kit: Kit, cert: Certificate, sec: int, review=None) -> list:
     """Certificate, client and item identification, dates and place of work (7.8.2.1 c, e, g-l)."""
     E, P = kit.E, kit.P
     s, c, lab = cert.sample, cert.client, cert.lab
@@ -120,7 +133,7 @@ def identification(kit: Kit, cert: Certificate, sec: int) -> list:
         ("Condition of the item", kit.txt_or(s.condition)),
         ("Date of receipt", kit.txt_or(s.received)),
         ("Date of measurement", kit.txt_or(s.measured)),
-        ("Date of issue", E(cert.issue_date)),
+        ("Date of issue", issue_date_text(cert, review, E)),
         ("Place of work", E(lab.site) if lab.site else "at the laboratory address above"),
     ]
     if s.run_file:
@@ -215,8 +228,9 @@ def results_section(kit: Kit, cert: Certificate, sec: int) -> list:
     return out
 
 
-def _conformity_result(e, r) -> tuple[str, str]:
-    """(result, U) texts of one element of a specification, in the specification's unit."""
+def _conformity_result(e, r, k_all_2: bool = True) -> tuple[str, str]:
+    """(result, U) texts of one element of a specification, in the specification's unit (U with
+    its coverage factor when the certificate's results do not all use k = 2)."""
     f = UNIT_FACTOR.get(e.unit, 100.0)
     if e.outcome == "remainder":
         return "remainder", ""
@@ -226,6 +240,8 @@ def _conformity_result(e, r) -> tuple[str, str]:
         lod = fmt_sig(r.lod * f, 2) if finite(r.lod) else ""
         return f"< LOD ({lod})", ""
     val, uu, _ = fmt_mf(r.mass_fraction, r.U, e.unit)
+    if uu and not k_all_2 and finite(r.k):
+        uu += f" (k = {r.k:.2f})"
     return val, uu
 
 
@@ -246,15 +262,16 @@ def conformity_section(kit: Kit, cert: Certificate, sec: int) -> list:
     out.append(Spacer(1, 3))
     crow = []
     by_el = {r.element: r for r in cert.results}
+    k_all_2 = cert.coverage_factors() in ([], [2.0])
     for e in cs.elements:
         f = UNIT_FACTOR.get(e.unit, 100.0)
         lo = f"{e.lower * f:.6g}" if e.lower is not None else "–"
         hi = f"{e.upper * f:.6g}" if e.upper is not None else "–"
-        val, uu = _conformity_result(e, by_el.get(e.element))
+        val, uu = _conformity_result(e, by_el.get(e.element), k_all_2)
         crow.append([e.element, e.unit, lo, hi, val, uu or "–", e.outcome])
     out.append(
         kit.grid_table(
-            ["Element", "Unit", "Min", "Max", "Result", "U (k = 2)", "Outcome"],
+            ["Element", "Unit", "Min", "Max", "Result", "U (k = 2)" if k_all_2 else "U", "Outcome"],
             crow,
             [10, 8, 11, 11, 16, 12, 20],
             right_cols=(2, 3, 4, 5),
@@ -270,6 +287,8 @@ __all__ = [
     "RELEASE_BLOCKED",
     "conformity_section",
     "identification",
+    "is_draft",
+    "issue_date_text",
     "method_section",
     "release_banner",
     "results_section",
