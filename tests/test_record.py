@@ -376,7 +376,7 @@ def test_export_whole_record(db, tmp_path):
     assert r.exit_code == 0, r.output
     man = json.loads((tmp_path / "exp" / "manifest.json").read_text())
     assert set(man["tables"]) == {t.name for t in S.TABLES}
-    assert man["tables"]["results"]["rows"] == 15 and man["schema_revision"] == "0002"
+    assert man["tables"]["results"]["rows"] == 15 and man["schema_revision"] == "0003"
     res = pd.read_csv(tmp_path / "exp" / "results.csv")
     assert sorted(res["element"].unique()) == sorted("Cu Zn Pb Sn Fe".split())
     for t in man["tables"].values():

@@ -24,6 +24,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from record_helpers import fake_analysis, real_analyses
 from test_record import db  # noqa: F401  (the SQLite / PostgreSQL record fixture)
+from test_record_views import OLD_CHECK_COLUMNS, store_as_before_0003
 
 from compquant.record import db as record_db
 from compquant.record import open_record
@@ -55,8 +56,13 @@ OLD_TABLES = ("record_info", "audit", "runs", "samples", "results", "calibration
 
 
 def _dump(rec) -> dict:
+    """Every row of the tables of revision 0001, with that revision's columns."""
+    def columns(t):
+        table = S.metadata.tables[t]
+        return [table.c[c] for c in OLD_CHECK_COLUMNS] if t == "checks" else [table]
+
     with rec.transaction() as conn:
-        return {t: [tuple(r) for r in conn.execute(sa.select(S.metadata.tables[t]).order_by(
+        return {t: [tuple(r) for r in conn.execute(sa.select(*columns(t)).order_by(
             *S.metadata.tables[t].primary_key.columns)).all()] for t in OLD_TABLES}
 
 
@@ -65,7 +71,7 @@ def test_upgrade_from_r0001_keeps_every_row_and_adds_append_only_evidence(db, tm
     from alembic.migration import MigrationContext
 
     old = _r0001(db)
-    store_analysis(old, **fake_analysis(tmp_path / "a", "RUN-OLD", n_samples=2))
+    store_as_before_0003(old, fake_analysis(tmp_path / "a", "RUN-OLD", n_samples=2))
     with old.engine.connect() as conn:
         assert MigrationContext.configure(conn).get_current_revision() == "0001"
         assert "evidence" not in sa.inspect(conn).get_table_names()
@@ -74,13 +80,13 @@ def test_upgrade_from_r0001_keeps_every_row_and_adds_append_only_evidence(db, tm
 
     rec = open_record(db)  # upgrades to the head revision
     try:
-        assert record_db.schema_revision(rec) == "0002"
+        assert record_db.schema_revision(rec) == "0003"  # the head (0003: checks' state and LOQ)
         after = _dump(rec)
         for t in OLD_TABLES:
             if t == "audit":
                 assert after[t][:len(before[t])] == before[t]  # the trail kept, the upgrade appended
                 last = after[t][-1]
-                assert last[3] == "upgrade" and json.loads(last[6]) == {"from": "0001", "to": "0002"}
+                assert last[3] == "upgrade" and json.loads(last[6]) == {"from": "0001", "to": "0003"}
             else:
                 assert after[t] == before[t], t
         with rec.engine.connect() as conn:  # the upgraded schema is the live one (Alembic's comparison)

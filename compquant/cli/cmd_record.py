@@ -152,7 +152,12 @@ def verify_cmd(files, db):
 @file_option("--csv", "csv_path", help="Also write the history as CSV.")
 @_db_option
 def history_cmd(sample_id, csv_path, db):
-    """A sample's results across runs, with its certificates and their states."""
+    """A sample's results across runs, with its certificates and their states.
+
+    Value and U as on the certificate (U to two significant digits, the value to the same decimal
+    place), in g/g; "< LOD" for a result below the LOD, "not determined" for one without a value.
+    """
+    from compquant.record.display import result_text
     from compquant.record.queries import sample_history
 
     with _open(db) as rec:
@@ -162,8 +167,8 @@ def history_cmd(sample_id, csv_path, db):
         return
     rows = [["measured", "run", "element", "value (g/g)", "U (g/g)", "flags", "certificate", "state"]]
     for r in df.itertuples(index=False):
-        rows.append([r.measured_at, r.run, r.element, "< LOD" if r.value != r.value else f"{r.value:.6g}",
-                     "" if r.U != r.U else f"{r.U:.3g}", r.flags or "-", getattr(r, "certificate", ""),
+        value, U = result_text(r.value, r.U, r.below_lod)
+        rows.append([r.measured_at, r.run, r.element, value, U, r.flags or "-", getattr(r, "certificate", ""),
                      getattr(r, "state", "")])
     click.echo(format_columns(rows, right=(3, 4)))
     if csv_path:

@@ -102,12 +102,13 @@ def sample_history(rec: Record, sample_id: str) -> pd.DataFrame:
 
     ``measured_at`` is the sample's own time of measurement (the run's start plus its first shot,
     as its certificate's "Date of measurement"), the run's time only when the sample has none.
+    ``value`` is empty for a result below the LOD (``below_lod`` true) and for one not determined.
     """
     measured = sa.case((S.samples.c.measured_at != "", S.samples.c.measured_at), else_=R.c.measured_at)
     q = (sa.select(measured.label("measured_at"), R.c.file_name.label("run"), R.c.sha256.label("run_sha256"),
                    R.c.id.label("run_id"),
                    S.results.c.element, S.results.c.value, S.results.c.U_expanded.label("U"), S.results.c.k,
-                   S.results.c.lod, S.results.c.flags, S.results.c.basis)
+                   S.results.c.lod, S.results.c.below_lod, S.results.c.flags, S.results.c.basis)
          .join(S.samples, S.samples.c.id == S.results.c.sample_row).join(R, R.c.id == S.results.c.run_id)
          .where(S.samples.c.sample_id == sample_id).order_by(R.c.measured_at, R.c.id, S.results.c.element))
     cq = (sa.select(S.certificates.c.run_id, S.certificates.c.number, S.certificates.c.state)

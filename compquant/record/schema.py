@@ -115,7 +115,9 @@ drift_factors = sa.Table(
     sa.Index("ix_drift_line", "line"),
 )
 
-#: check-sample evaluations (ISO 13528 En and z)
+#: check-sample evaluations (ISO 13528 En and z); ``passed`` is only whether the criterion was met,
+#: ``state`` (revision 0003) the check's result as the certificate prints it (pass, FAIL, flagged,
+#: cannot fail, not counted: certified content below ``loq``, the element's LOQ in the check sample)
 checks = sa.Table(
     "checks",
     metadata,
@@ -132,6 +134,8 @@ checks = sa.Table(
     sa.Column("En", sa.Float),
     sa.Column("passed", sa.Boolean, nullable=False),
     sa.Column("criterion", sa.Text, nullable=False, server_default=""),
+    sa.Column("state", sa.String(16)),
+    sa.Column("loq", sa.Float),
     sa.Index("ix_checks_material", "standard_ref", "element"),
 )
 

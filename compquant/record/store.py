@@ -179,6 +179,19 @@ def _result_rows(run_id, sample_row, cert) -> list[dict]:
                  line_id=r.line_id, basis=r.basis) for r in cert.results]
 
 
+def _check_rows(run_id, checks, certificates) -> list[dict]:
+    """The check-sample rows, each with its state as its certificates print it
+    (:func:`compquant.report.release.check_state`, with the certificates' sigma_pt_rel) and its LOQ."""
+    from compquant.report.release import check_state, sigma_pt_rel_of
+
+    sigma_pt = sigma_pt_rel_of(certificates[0]) if certificates else None
+    return [dict(run_id=run_id, sample_id=c.sample_id, standard_ref=c.standard_ref, element=c.element,
+                 measured=_f(c.measured), U_measured=_f(c.U_measured), certified=float(c.certified),
+                 U_certified=_f(c.U_certified), z=_f(c.z), En=_f(c.En), passed=bool(c.passed),
+                 criterion=c.criterion, state=check_state(c, sigma_pt), loq=_f(getattr(c, "loq", None)))
+            for c in checks]
+
+
 def _figures(cert, outdir: Path) -> list[dict]:
     out = []
     for f in cert.figures:
@@ -288,10 +301,7 @@ def store_analysis(rec: Record, *, run_file, run_sha256: str, instrument: dict, 
         if drift is not None and drift.factors:
             conn.execute(S.drift_factors.insert(), [dict(run_id=run_id, line=str(k), factor=float(v))
                                                     for k, v in drift.factors.items() if _f(v) is not None])
-        chk = [dict(run_id=run_id, sample_id=c.sample_id, standard_ref=c.standard_ref, element=c.element,
-                    measured=_f(c.measured), U_measured=_f(c.U_measured), certified=float(c.certified),
-                    U_certified=_f(c.U_certified), z=_f(c.z), En=_f(c.En), passed=bool(c.passed),
-                    criterion=c.criterion) for c in checks]
+        chk = _check_rows(run_id, checks, certificates)
         if chk:
             conn.execute(S.checks.insert(), chk)
         store_evidence(conn, evidence, run_id, sample_ids, certificates)

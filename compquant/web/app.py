@@ -27,6 +27,7 @@ from urllib.parse import urlsplit
 from flask import Flask, Response, abort, flash, g, redirect, render_template, request, session, url_for
 
 from compquant.errors import CompquantError
+from compquant.record import display
 from compquant.web import data, interactive
 
 _SHA = re.compile(r"[0-9a-f]{64}")
@@ -91,6 +92,9 @@ def create_app(rec, trusted_hosts: list[str] | None = LOOPBACK_HOSTS) -> Flask:
     app.config.update(SESSION_COOKIE_SAMESITE="Strict", SESSION_COOKIE_HTTPONLY=True, MAX_CONTENT_LENGTH=64 * 1024)
     app.jinja_env.autoescape = True
     app.jinja_env.filters["g"] = _g
+    # the record's numbers and check states as the certificate prints them (compquant.record.display)
+    app.jinja_env.globals.update(vu=display.value_u_text, result=display.result_text, limit=display.limit_text,
+                                 check_state=display.check_state_text, bad_states=display.BAD_CHECK_STATES)
     app.jinja_env.globals.update(csrf_token=csrf_token, where=rec.where)
     app.before_request(_check_post)
     app.after_request(_headers)

@@ -133,7 +133,10 @@ class AnalysisOutput:
         return 0 if self.valid_for_release and not self.failures else release.EXIT_NOT_VALID
 
 def _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_info, files, drift_info, checks,
-                  not_evaluated) -> dict:
+                  not_evaluated, sigma_pt_rel=None) -> dict:
+    """The run summary's head.  Each check sample carries ``state``, its result as the certificates
+    print it (:func:`compquant.report.release.check_state`: pass, FAIL, flagged, cannot fail, not
+    counted); ``passed`` is only whether its criterion was met (true for a check not counted)."""
     return {
         "schema": SUMMARY_SCHEMA,
         "schema_version": SUMMARY_VERSION,
@@ -168,6 +171,7 @@ def _summary_head(issued, run_path, run_sha, method, method_path, basis, cal_inf
                 "En": c.En,
                 "z": c.z,
                 "passed": c.passed,
+                "state": release.check_state(c, sigma_pt_rel),
             }
             for c in checks
         ],
@@ -244,7 +248,8 @@ def stage_outputs(job, m, qd, drafts, recorder=None, review=None):
                 if it.write:
                     recorder.check_number(it.cert.number)
         summary = _summary_head(job.issued, job.run_path, m.run_sha, job.method, job.method_path, job.basis,
-                                qd.cal_info, job.files, qd.drift_info, qd.checks, qd.not_evaluated)
+                                qd.cal_info, job.files, qd.drift_info, qd.checks, qd.not_evaluated,
+                                release.sigma_pt_rel_of(drafts.certificates[0]) if drafts.certificates else None)
         return _write_output_set(
             outdir, plan, figures_for, qd.cal_json_path, qd.cal_text if qd.cal_json_path is not None else None,
             summary, drafts.missing_all, qd.not_reported, qd.failures, drafts.skipped, job.basis, job.lims_dialect,
