@@ -30,7 +30,8 @@ def test_welch_satterthwaite_hand_example():
 
 
 def _curve(el, basis="ratio"):
-    return SimpleNamespace(basis=basis, range_x=[0.001, 0.5], lod_x=1e-5, loq_x=3e-5, interferences=[],
+    return SimpleNamespace(basis=basis, range_x=[0.001, 0.5], range_mass_fraction=[0.0005, 0.4], lod_x=1e-5,
+                           loq_x=3e-5, interferences=[],
                            line_id=f"{el} I line")
 
 

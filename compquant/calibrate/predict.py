@@ -256,16 +256,25 @@ def sample_rows(sid, role, good, preds, curves, resp, allow_above, coverage, run
 
 def _content_flags(w, x, lod, loq, c, negnet: bool = False) -> list[str]:
     """``below_lod`` / ``below_loq`` (not with ``negnet``: a negative-net line cannot show absence),
-    ``above_range`` / ``below_range``, ``interference_corrected``."""
+    ``above_range`` / ``below_range``, ``interference_corrected``.
+
+    The calibrated range is that of the reference materials' certified mass fractions
+    (``c.range_mass_fraction``, ISO 11095:1996; the certificate prints it so): a result ``w``
+    outside it is flagged.  So is one whose content on the curve's own axis ``x`` (for a ratio
+    curve, the ratio to the internal-standard element) lies outside the standards' ``c.range_x``:
+    the curve is extrapolated there even when ``w`` is inside (a different matrix fraction).
+    Until 2026-12-03 only ``x`` was tested, and a result below the printed lower end carried
+    no flag (demo LOT-2611-E Sn 0.0496 % under 0.0500 %)."""
     flags = []
     below = bool(w < lod) and not negnet
     if below:
         flags.append("below_lod")
     elif w < loq and not negnet:
         flags.append("below_loq")
-    if x > c.range_x[1] * (1 + 1e-9):
+    lo_w, hi_w = (float(v) for v in c.range_mass_fraction)
+    if w > hi_w * (1 + 1e-9) or x > c.range_x[1] * (1 + 1e-9):
         flags.append("above_range")
-    elif x < c.range_x[0] * (1 - 1e-9) and not below:
+    elif (w < lo_w * (1 - 1e-9) or x < c.range_x[0] * (1 - 1e-9)) and not below:
         flags.append("below_range")
     if c.interferences:
         flags.append("interference_corrected")
