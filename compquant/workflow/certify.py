@@ -194,11 +194,14 @@ def _certificate(sid, job, m, sc, qd, parts, out: Drafts):
     if job.lab is None:
         remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
     labp = job.labp
+    # the items' condition and date of receipt: the lab profile's only for the runs its [samples]
+    # names (ISO/IEC 17025:2017 7.8.2.1 e, f); --received states the date for this run's items
+    condition, received = labp.sample_facts(job.run_path.name, m.run_sha or "")
     cert = Certificate(
         number="", issue_date=job.issue_date, lab=parts["lab"], signatory=parts["signatory"], client=parts["client"],
         method=parts["method"],
-        sample=SampleInfo(sid, sc.descriptions.get(sid, ""), labp.sample_condition,
-                          job.received if job.received else labp.sample_received, m.measured_at.get(sid, ""),
+        sample=SampleInfo(sid, sc.descriptions.get(sid, ""), condition, job.received or received,
+                          m.measured_at.get(sid, ""),
                           m.n_shots_by_sample.get(sid), job.run_path.name),
         results=rows,
         provenance=Provenance("compquant", __version__, job.issued, m.run_sha, list(job.files), dict(sc.parameters)),
