@@ -30,8 +30,25 @@ def coverage_factor(mode: str, dof: float) -> float:
     return 2.0
 
 
+def effective_dof(c, u, dof) -> float:
+    """Welch-Satterthwaite effective degrees of freedom of ``y = f(x_1..x_n)`` with independent
+    inputs (GUM G.4.1, eq. G.2b): ``nu_eff = u_c^4(y) / sum_i (c_i u(x_i))^4 / nu_i``, with
+    ``u_c^2(y) = sum_i (c_i u(x_i))^2``; sensitivity coefficients ``c``, standard uncertainties
+    ``u`` and degrees of freedom ``dof`` of the inputs.  Inputs with infinite ``nu`` add nothing
+    to the denominator; ``inf`` when no input has a finite one (then ``k = 2``)."""
+    parts = [(float(ci) * float(ui)) ** 2 for ci, ui in zip(c, u)]
+    den = sum(v**2 / float(nu) for v, nu in zip(parts, dof) if v > 0 and math.isfinite(float(nu)))
+    var = sum(parts)
+    return var**2 / den if den > 0 else math.inf
+
+
 def closure(elements, x, ux, bases):
-    """Mass fractions from contents (ratios or mass fractions) with the matrix by difference."""
+    """Mass fractions from contents (ratios or mass fractions) with the matrix by difference.
+
+    ``w_m = (1 - sum w_i) / (1 + sum r_j)`` over the mass-fraction contents ``w_i`` and the
+    ratios ``r_j`` to the matrix element (``w_j = r_j w_m``); uncertainties by the law of
+    propagation (GUM 5.1.2) with the numerical Jacobian ``J`` (rows: the ``w``, then ``w_m``;
+    columns: the contents), returned for :func:`effective_dof`."""
     x = np.asarray(x, float)
 
     def f(v):
@@ -186,12 +203,17 @@ def sample_rows(sid, role, good, preds, curves, resp, allow_above, coverage, run
     """One sample's result rows: closure with the matrix by difference, LOD/LOQ, range flags, ``U = k u``.
 
     Contents extrapolated beyond the calibrated range by more than the method allows get no row
-    (a reason in ``not_reported``); the matrix by difference goes to ``matrix_fraction``.
+    (a reason in ``not_reported``); the matrix by difference goes to ``matrix_fraction`` as
+    ``(w_m, u, k, nu_eff)``: its coverage factor by the same rule as the results' (``k = 2``, or
+    ``t_0.975(nu_eff)`` with ``coverage = "student"``), ``nu_eff`` by Welch-Satterthwaite over
+    the contents the closure combines (:func:`effective_dof`, GUM G.4.1).
     """
     bases = np.array([curves[el].basis for el in good])
-    w, uw, wm, uwm, _ = closure(good, [preds[el]["x"] for el in good], [preds[el]["u"] for el in good], bases)
+    ux = [preds[el]["u"] for el in good]
+    w, uw, wm, uwm, J = closure(good, [preds[el]["x"] for el in good], ux, bases)
     if np.any(bases == "ratio"):
-        matrix_fraction[sid] = (wm, uwm)
+        dof_m = effective_dof(J[-1], ux, [preds[el]["dof"] for el in good])
+        matrix_fraction[sid] = (wm, uwm, coverage_factor(coverage, dof_m), dof_m)
     rows = []
     for i, el in enumerate(good):
         c = curves[el]
@@ -234,20 +256,29 @@ def sample_rows(sid, role, good, preds, curves, resp, allow_above, coverage, run
 
 def _content_flags(w, x, lod, loq, c, negnet: bool = False) -> list[str]:
     """``below_lod`` / ``below_loq`` (not with ``negnet``: a negative-net line cannot show absence),
-    ``above_range`` / ``below_range``, ``interference_corrected``."""
+    ``above_range`` / ``below_range``, ``interference_corrected``.
+
+    The calibrated range is that of the reference materials' certified mass fractions
+    (``c.range_mass_fraction``, ISO 11095:1996; the certificate prints it so): a result ``w``
+    outside it is flagged.  So is one whose content on the curve's own axis ``x`` (for a ratio
+    curve, the ratio to the internal-standard element) lies outside the standards' ``c.range_x``:
+    the curve is extrapolated there even when ``w`` is inside (a different matrix fraction).
+    Until 2026-12-03 only ``x`` was tested, and a result below the printed lower end carried
+    no flag (demo LOT-2611-E Sn 0.0496 % under 0.0500 %)."""
     flags = []
     below = bool(w < lod) and not negnet
     if below:
         flags.append("below_lod")
     elif w < loq and not negnet:
         flags.append("below_loq")
-    if x > c.range_x[1] * (1 + 1e-9):
+    lo_w, hi_w = (float(v) for v in c.range_mass_fraction)
+    if w > hi_w * (1 + 1e-9) or x > c.range_x[1] * (1 + 1e-9):
         flags.append("above_range")
-    elif x < c.range_x[0] * (1 - 1e-9) and not below:
+    elif (w < lo_w * (1 - 1e-9) or x < c.range_x[0] * (1 - 1e-9)) and not below:
         flags.append("below_range")
     if c.interferences:
         flags.append("interference_corrected")
     return flags
 
 
-__all__ = ["closure", "coverage_factor", "pls_rows", "predict_sample", "sample_rows"]
+__all__ = ["closure", "coverage_factor", "effective_dof", "pls_rows", "predict_sample", "sample_rows"]

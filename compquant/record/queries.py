@@ -27,11 +27,18 @@ def _dedupe(rows: list[dict], key=("sha256", "sample_id")) -> list[dict]:
 
 
 def check_series(conn, standard_ref: str, element: str, upto_run: int | None = None) -> list[dict]:
-    """Check-sample results of one material and element, one point per run, in run order."""
-    q = (sa.select(R.c.id.label("run_id"), R.c.measured_at, R.c.file_name.label("file"), R.c.sha256,
+    """Check-sample results of one material and element, one point per run, in run order.
+
+    ``measured_at`` is the check sample's own time of measurement (``samples.measured_at``, the
+    run's start plus its first shot, as on the certificates), the run's time only when the sample
+    has none; the points stay in run order."""
+    smp = S.samples
+    measured = sa.case((smp.c.measured_at != "", smp.c.measured_at), else_=R.c.measured_at)
+    q = (sa.select(R.c.id.label("run_id"), measured.label("measured_at"), R.c.file_name.label("file"), R.c.sha256,
                    S.checks.c.sample_id, S.checks.c.measured.label("value"), S.checks.c.certified,
                    S.checks.c.U_certified)
          .join(R, R.c.id == S.checks.c.run_id)
+         .outerjoin(smp, sa.and_(smp.c.run_id == S.checks.c.run_id, smp.c.sample_id == S.checks.c.sample_id))
          .where(S.checks.c.standard_ref == standard_ref, S.checks.c.element == element,
                 S.checks.c.measured.is_not(None))
          .order_by(R.c.measured_at, R.c.id))

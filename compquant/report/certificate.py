@@ -54,9 +54,10 @@ FLAG_TEXT = {
     "below_lod": "not detected: the signal is below the limit of detection; the LOD is given instead of a value",
     "below_loq": "detected but below the limit of quantification: the value is indicative and has a "
     "large relative uncertainty",
-    "above_range": "above the calibrated range: the value is extrapolated beyond the highest standard "
-    "and is less reliable",
-    "below_range": "below the calibrated range: the value is extrapolated below the lowest standard",
+    "above_range": "above the calibrated range: the value is above the highest standard's mass fraction "
+    "(calibration section), or the curve is extrapolated beyond the highest standard, and is less reliable",
+    "below_range": "below the calibrated range: the value is below the lowest standard's mass fraction "
+    "(calibration section), or the curve is extrapolated below the lowest standard",
     "saturated": "a detector pixel of the line reached saturation in some shots; affected shots were "
     "treated as the method prescribes",
     "not_found": "the line's net signal did not stand out from its own noise (signal-to-noise ratio below "

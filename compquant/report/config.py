@@ -16,8 +16,8 @@ Lab profile (``lab.toml``, see ``docs/certificate.md``)::
     [client]                          # optional defaults for the certificate's client block
     name = "..."  address = [...]  reference = "..."
 
-    [samples]                         # optional defaults for the sample block
-    condition = "..."  received = "YYYY-MM-DD"
+    [samples]                         # optional: facts of the items of the runs named
+    condition = "..."  received = "YYYY-MM-DD"  runs = ["run.h5", "<SHA-256 of a run>"]
 
     [review]                          # optional (compquant.record, docs/record.md)
     required = true                   # false: issue certificates authorised by the signatory, no DRAFT
@@ -117,9 +117,22 @@ class LabProfile:
     client_reference: str = ""
     sample_condition: str = ""
     sample_received: str = ""
+    sample_runs: list[str] = field(default_factory=list)  # run file names / SHA-256 they hold for
     source: str = ""
     sha256: str = ""
     review_required: bool = True  # certificates are issued as DRAFT until a reviewer releases them
+
+
+    def sample_facts(self, run_name: str, run_sha256: str) -> tuple[str, str]:
+        """``(condition, received)`` of the items of the run ``run_name`` (file name) / ``run_sha256``:
+        the ``[samples]`` values when its ``runs`` names that run, else ``("", "")`` (not recorded).
+
+        A lab profile serves every run; the condition and date of receipt are facts of the items
+        (ISO/IEC 17025:2017, 7.8.2.1 e, f), so they are stated only for the runs they are given for."""
+        if run_name in self.sample_runs or (run_sha256 and run_sha256.lower() in
+                                             (r.lower() for r in self.sample_runs)):
+            return self.sample_condition, self.sample_received
+        return "", ""
 
 
 def _text_check(required: bool):
@@ -191,8 +204,10 @@ CLIENT_TABLE = Table("client", (_text("name", "client"), _lines_s("address", "cl
                                 _text("reference", "client's reference")),
                      "Optional defaults for the certificate's client block.", _LAB)
 SAMPLES_TABLE = Table("samples", (_text("condition", "condition of the items on receipt"),
-                                  Setting("received", "any", "", "date of receipt YYYY-MM-DD", check=_date_check)),
-                      "Optional defaults for the sample block.", _LAB)
+                                  Setting("received", "any", "", "date of receipt YYYY-MM-DD", check=_date_check),
+                                  _lines_s("runs", "the runs (file name or SHA-256) whose items the condition "
+                                           "and date of receipt are true of; required with either")),
+                      "Optional: the items' condition and date of receipt, for the runs named.", _LAB)
 REVIEW_TABLE = Table("review", (
     Setting("required", "bool", True, "issue certificates as DRAFT until a reviewer releases them",
             fix="write required = true (certificates issued as DRAFT until released)"),
@@ -236,6 +251,14 @@ def load_lab_profile(path) -> LabProfile:
     # LabProfile's fields are the tables' keys, prefixed by their table (signatory_name ...)
     kw = {_FIELD_PREFIX[t] + k: x for t, vals in v.items() if t in _FIELD_PREFIX for k, x in vals.items()}
     kw["certificate_prefix"] = prefix.upper()
+    smp = v["samples"]
+    if (smp["condition"] or smp["received"]) and not smp["runs"]:
+        raise ConfigError(
+            "[samples] states a condition or date of receipt but names no run: they are facts of the items, "
+            "not of the laboratory, and would be printed on every certificate",
+            where=f"{w} [samples]",
+            fix='add runs = ["RUN.h5"] (the run files they are true of), or give analyse --received per run',
+        )
     return LabProfile(**kw, source=_source_name(src), sha256=src.sha256, review_required=v["review"]["required"])
 
 

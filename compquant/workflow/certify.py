@@ -57,6 +57,8 @@ def _complete_rows(rows, missing, dependent, matrix_el, matrix, checks, basis, c
 
     The matrix by difference is *not determined* when any analyte is missing: it is never closed
     over a subset of the analytes; nor are the results that are ratios to it (``dependent``).
+    ``matrix`` is ``(w, u, k, nu_eff)`` from :func:`compquant.calibrate.predict.sample_rows`:
+    ``U = k u`` with the coverage factor of the other results' rule (GUM G.3-G.4).
     """
     rows = list(rows)
     for r in rows:
@@ -70,13 +72,14 @@ def _complete_rows(rows, missing, dependent, matrix_el, matrix, checks, basis, c
             line = curves[el].line_id if el in curves else ""
             rows.append(ResultRow(el, None, None, flags=["not_reported"], line_id=line, basis=basis))
     if matrix_el and matrix_el not in have and (matrix is not None or missing):
-        w, uw = matrix if matrix is not None else (None, None)
+        w, uw, k = (tuple(matrix) + (None,))[:3] if matrix is not None else (None, None, None)
         fl = ["by_difference"] + (["check_failed"] if any(not c.passed for c in checks) else [])
         if missing or not finite(w):
             rows.append(ResultRow(matrix_el, None, None, flags=fl + ["not_reported"], line_id="by difference",
                                   basis=basis))
         else:
-            rows.append(ResultRow(matrix_el, float(w), U=2.0 * float(uw), u=float(uw), k=2.0, flags=fl,
+            k = float(k) if finite(k) else 2.0  # the closure's coverage rule (calibrate.predict.sample_rows)
+            rows.append(ResultRow(matrix_el, float(w), U=k * float(uw), u=float(uw), k=k, flags=fl,
                                   line_id="by difference", basis=basis))
     return rows
 
@@ -191,11 +194,14 @@ def _certificate(sid, job, m, sc, qd, parts, out: Drafts):
     if job.lab is None:
         remarks.append("No lab profile was given: laboratory, signatory and client are not stated.")
     labp = job.labp
+    # the items' condition and date of receipt: the lab profile's only for the runs its [samples]
+    # names (ISO/IEC 17025:2017 7.8.2.1 e, f); --received states the date for this run's items
+    condition, received = labp.sample_facts(job.run_path.name, m.run_sha or "")
     cert = Certificate(
         number="", issue_date=job.issue_date, lab=parts["lab"], signatory=parts["signatory"], client=parts["client"],
         method=parts["method"],
-        sample=SampleInfo(sid, sc.descriptions.get(sid, ""), labp.sample_condition,
-                          job.received if job.received else labp.sample_received, m.measured_at.get(sid, ""),
+        sample=SampleInfo(sid, sc.descriptions.get(sid, ""), condition, job.received or received,
+                          m.measured_at.get(sid, ""),
                           m.n_shots_by_sample.get(sid), job.run_path.name),
         results=rows,
         provenance=Provenance("compquant", __version__, job.issued, m.run_sha, list(job.files), dict(sc.parameters)),
