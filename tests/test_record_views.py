@@ -239,8 +239,10 @@ def test_upgrade_to_0003_fills_check_states_from_the_issued_certificates(db, tmp
     with old.transaction() as conn:
         before = {t.name: [tuple(r) for r in conn.execute(sa.select(t).order_by(*t.primary_key.columns))]
                   for t in S.TABLES if t.name not in ("checks", "audit")}
-        old_checks = [tuple(r) for r in conn.execute(sa.text(
-            f"SELECT {', '.join(OLD_CHECK_COLUMNS)} FROM checks ORDER BY id"))]
+        # columns named through SQLAlchemy, so that PostgreSQL gets "U_measured" quoted
+        old_checks = [tuple(r) for r in conn.execute(
+            sa.select(*[sa.column(c) for c in OLD_CHECK_COLUMNS]).select_from(sa.table("checks"))
+            .order_by(sa.column("id")))]
     old.dispose()
 
     rec = open_record(db)  # upgrades to the head revision
