@@ -45,6 +45,7 @@ Run:  /work/venv/bin/python benchmarks/accuracy_families.py [--cases 3] [--seed 
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import sys
 import tempfile
@@ -248,42 +249,57 @@ def _failed(r):
     return [c["check"] for c in r.plasma_checks if c["checked"] and not c["passed"]]
 
 
+def slim(o) -> dict:
+    """One analysed case as plain numbers (what :func:`score` needs; JSON for ``--save-json``)."""
+    r = o["result"]
+    if r is None:
+        return {"case": o["case"], "shots": o["shots"], "why": o["why"], "result": None}
+    return {"case": o["case"], "shots": o["shots"], "why": o["why"], "result": {
+        "plasma_consistent": bool(r.plasma_consistent), "failed_checks": _failed(r),
+        "temperature_k": float(r.temperature_k), "u_temperature_k": float(r.u_temperature_k),
+        "electron_density_cm3": float(r.electron_density_cm3),
+        "u_electron_density_cm3": float(r.u_electron_density_cm3),
+        "elements": {e.element: {"mass_fraction": float(e.mass_fraction), "u": float(e.u),
+                                 "determined": bool(e.determined)} for e in r.elements}}}
+
+
 def score(out, major_target):
-    """Scores of one family and regime (fractions in %, errors relative)."""
+    """Scores of one family and regime (fractions in %, errors relative) from :func:`slim` cases."""
     res = [o for o in out if o["result"] is not None]
-    s = {"n": len(out), "results": len(res), "uncertified": sum(not o["result"].plasma_consistent for o in res)}
-    res = [o for o in res if o["result"].plasma_consistent]  # a refused solution is not scored
-    dT = [abs(o["result"].temperature_k / o["case"]["T"] - 1) for o in res]
-    dne = [abs(o["result"].electron_density_cm3 / o["case"]["ne"] - 1) for o in res]
+    s = {"n": len(out), "results": len(res), "uncertified": sum(not o["result"]["plasma_consistent"] for o in res)}
+    res = [o for o in res if o["result"]["plasma_consistent"]]  # a refused solution is not scored
+    dT = [abs(o["result"]["temperature_k"] / o["case"]["T"] - 1) for o in res]
+    dne = [abs(o["result"]["electron_density_cm3"] / o["case"]["ne"] - 1) for o in res]
     # against the shots' mean plasma (diagnostic: the draw of the per-shot jitter taken out)
-    dT_sh = [abs(o["result"].temperature_k / o["shots"]["T"] - 1) for o in res]
-    dne_sh = [abs(o["result"].electron_density_cm3 / o["shots"]["ne"] - 1) for o in res]
+    dT_sh = [abs(o["result"]["temperature_k"] / o["shots"]["T"] - 1) for o in res]
+    dne_sh = [abs(o["result"]["electron_density_cm3"] / o["shots"]["ne"] - 1) for o in res]
     dT_draw = [abs(o["shots"]["T"] / o["case"]["T"] - 1) for o in res]
-    covT = [abs(o["result"].temperature_k - o["case"]["T"]) <= 2 * o["result"].u_temperature_k for o in res]
-    covne = [abs(o["result"].electron_density_cm3 - o["case"]["ne"]) <= 2 * o["result"].u_electron_density_cm3
+    covT = [abs(o["result"]["temperature_k"] - o["case"]["T"]) <= 2 * o["result"]["u_temperature_k"] for o in res]
+    covne = [abs(o["result"]["electron_density_cm3"] - o["case"]["ne"]) <= 2 * o["result"]["u_electron_density_cm3"]
              for o in res]
     # what the stated standard uncertainties allow: an unbiased normal estimate with sd u lands
     # within ±g·truth with probability erf(g·truth / (√2 u)) (the mean over results is the
     # fraction within the goal to expect from a tool whose errors are exactly its stated u)
-    att_T = [_p_within(0.02, o["result"].u_temperature_k / o["case"]["T"]) for o in res]
-    att_ne = [_p_within(0.15, o["result"].u_electron_density_cm3 / o["case"]["ne"]) for o in res]
+    att_T = [_p_within(0.02, o["result"]["u_temperature_k"] / o["case"]["T"]) for o in res]
+    att_ne = [_p_within(0.15, o["result"]["u_electron_density_cm3"] / o["case"]["ne"]) for o in res]
     att_maj, att_min = [], []
     maj, mino, cov_maj, cov_min, nd = [], [], [], [], 0
     for o in res:
         r = o["result"]
         for e, w in o["case"]["comp"].items():
-            if w < MINOR or not _has(r, e):
+            if w < MINOR or e not in r["elements"]:
                 continue
-            er = r.element(e)
-            if not er.determined or not np.isfinite(er.mass_fraction):
+            er = r["elements"][e]
+            wf, u = er["mass_fraction"], er["u"]
+            if not er["determined"] or not np.isfinite(wf):
                 nd += 1
                 continue
-            d = abs(er.mass_fraction / w - 1)
-            inside = abs(er.mass_fraction - w) <= 2 * er.u if np.isfinite(er.u) else False
+            d = abs(wf / w - 1)
+            inside = abs(wf - w) <= 2 * u if np.isfinite(u) else False
             (maj if w >= MAJOR else mino).append(d)
             (cov_maj if w >= MAJOR else cov_min).append(inside)
             (att_maj if w >= MAJOR else att_min).append(
-                _p_within(major_target if w >= MAJOR else 0.10, er.u / w))
+                _p_within(major_target if w >= MAJOR else 0.10, u / w))
 
     def pct(x, lim=None):
         if not x:
@@ -357,6 +373,23 @@ def print_tables(scores):
             print(row(k, cols))
 
 
+def pool(paths) -> int:
+    """Tables over the cases of several ``--save-json`` files (e.g. seeds), cell by cell."""
+    cells, seeds = {}, []
+    for p in paths:
+        d = json.loads(Path(p).read_text())
+        seeds.append(f"{d['seed']}{' (noise-only u)' if d.get('noise_only_u') else ''}")
+        for k, v in d["cells"].items():
+            cells.setdefault(k, []).extend(v)
+    print(f"pooled: seeds {', '.join(seeds)}")
+    scores = {}
+    for k, v in cells.items():
+        family, regime = k.split("|")
+        scores[(family, regime)] = score(v, 0.02 if regime == "thin" else 0.05)
+    print_tables(scores)
+    return 0
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--cases", type=int, default=3, help="samples per family and regime")
@@ -372,13 +405,19 @@ def main(argv=None):
                     "tool's own A_ki, so u is then the part of the uncertainty the benchmark's errors can have "
                     "(measurement noise, jitter, partition functions, self-absorption inputs), and 'allowed by "
                     "the stated u' the fraction within a goal a tool at that limit would reach")
+    ap.add_argument("--save-json", default=None, metavar="PATH",
+                    help="also write every case (truth, shots' mean, result in plain numbers) to this JSON file")
+    ap.add_argument("--pool", nargs="+", default=None, metavar="JSON",
+                    help="only print the tables of the cases of these --save-json files together (several seeds)")
     args = ap.parse_args(argv)
     regimes = [r for r in args.regimes.split(",") if r]
     if not regimes or any(r not in ("thin", "self-absorbed") for r in regimes):
         print("error: --regimes takes thin and/or self-absorbed", file=sys.stderr)
         return 2
+    if args.pool:
+        return pool(args.pool)
     rng = np.random.default_rng(args.seed)
-    scores = {}
+    scores, cells = {}, {}
     with tempfile.TemporaryDirectory() as tmp:
         for family in args.families.split(","):
             cases = draw_cases(rng, family, args.cases)
@@ -388,7 +427,11 @@ def main(argv=None):
                 out = analyse_family(family, regime, cases, rng=rng, draws=args.draws, seed=args.seed,
                                      workdir=Path(tmp), length_mm=args.length_mm,
                                      noise_only_u=args.noise_only_u)
-                scores[(family, regime)] = score(out, target)
+                cells[f"{family}|{regime}"] = [slim(o) for o in out]
+                scores[(family, regime)] = score(cells[f"{family}|{regime}"], target)
+    if args.save_json:
+        Path(args.save_json).write_text(json.dumps({"seed": args.seed, "cases": args.cases, "draws": args.draws,
+                                                    "noise_only_u": args.noise_only_u, "cells": cells}, indent=1))
     print_tables(scores)
     print(f"\n{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}; load average (1, 5, 15 min) at the end: "
           + ", ".join(f"{x:.1f}" for x in os.getloadavg()) + f" on {os.cpu_count()} CPUs")
