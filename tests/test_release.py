@@ -559,3 +559,40 @@ def test_result_far_above_the_calibrated_range_is_not_reported(tmp_path, allow):
         zn = next(x for x in doc["results"] if x["element"] == "Zn")
         assert "above_range" in str(zn.get("flags")), zn
         assert not any(x["element"] == "Zn" and x["sample_id"] == "LOT-1" for x in summary["not_reported"])
+
+
+def test_a_check_below_its_loq_neither_fails_the_run_nor_reads_pass():
+    """A check element whose certified content is below its LOQ in the check sample is *not
+    counted* (common practice; docs/certificate.md): before, ``quantify`` counted its failure
+    (|En| > 1) against the run — every result flagged ``check_failed``, "NOT VALID FOR RELEASE" on
+    the screen — while the certificates' rules ignored it, and the screen printed "pass" for a
+    check the certificate calls "not counted"."""
+    from types import SimpleNamespace as NS
+
+    import pandas as pd
+
+    from compquant.calibrate.apply import CHECK_COLUMNS, checks_valid
+    from compquant.calibrate.checks import counted
+    from compquant.cli.cmd_quantify import results_text
+
+    assert counted(0.0006, 0.00096) is False and counted(0.002, 0.00096) is True
+    assert counted(0.0006, float("nan")) is True and counted(0.0006, None) is True
+    row = dict(sample_id="CHK-1", standard_id="REF-1", measured=0.0009, u=0.0001, U=0.0002, certified=0.0006,
+               u_certified=0.00001, U_certified=0.00002, En=1.49, zeta=2.9, z=float("nan"), passed=False,
+               loq=0.00096, counted=False)
+    fe = {**row, "element": "Fe"}
+    zn = {**row, "element": "Zn", "measured": 0.372, "certified": 0.372, "U": 0.006, "U_certified": 0.0017,
+          "En": 0.0, "passed": True, "loq": 0.0023, "counted": True}
+    checks = pd.DataFrame([fe, zn], columns=CHECK_COLUMNS)
+    assert checks_valid(checks)  # the failed Fe check is below its LOQ: the run stays valid
+    assert not checks_valid(pd.DataFrame([{**fe, "certified": 0.002, "counted": True}, zn], columns=CHECK_COLUMNS))
+    res = pd.DataFrame({
+        "sample_id": ["CHK-1", "CHK-1"], "element": ["Fe", "Zn"], "mass_fraction": [0.0009, 0.372],
+        "U": [0.0002, 0.006], "lod": [0.0003, 0.0007], "loq": [0.00096, 0.0023], "below_lod": [False, False],
+        "basis": ["calibration"] * 2, "flags": ["", ""], "role": ["check", "check"],
+    })
+    q = NS(results=res, checks=checks, valid_for_release=True, drift={"applied": False, "reason": "calibration run"},
+           provenance={})
+    text = results_text(q)
+    assert "check CHK-1 (REF-1) Fe: En = +1.49 not counted" in text
+    assert "check CHK-1 (REF-1) Zn: En = +0.00 pass" in text and "NOT VALID" not in text

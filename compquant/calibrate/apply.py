@@ -37,7 +37,7 @@ import pandas as pd
 
 from compquant import results as _results
 from compquant.calibrate.build import certified_table, standard_map
-from compquant.calibrate.checks import check_verdict, en_number, z_score, zeta_score
+from compquant.calibrate.checks import check_verdict, counted, en_number, z_score, zeta_score
 from compquant.calibrate.drift import correct, reference_response, response_key, two_point
 from compquant.calibrate.model import Calibration
 from compquant.calibrate.predict import coverage_factor, pls_rows, predict_sample, sample_rows
@@ -60,6 +60,8 @@ CHECK_COLUMNS = [
     "zeta",
     "z",
     "passed",
+    "loq",
+    "counted",
 ]
 
 
@@ -74,7 +76,8 @@ class QuantifyResult:
         :mod:`compquant.results`), mass fractions in g/g, ``U = k u``.
     checks : DataFrame
         One row per (check sample, element): measured and certified values with the ISO 13528
-        ``E_n``, ``zeta`` and ``z`` scores and ``passed`` (:data:`CHECK_COLUMNS`).
+        ``E_n``, ``zeta`` and ``z`` scores, ``passed``, the element's ``loq`` in the check sample and
+        whether the check ``counted`` (certified content at least that LOQ; :data:`CHECK_COLUMNS`).
     drift : dict
         The drift standardisation record (``applied``, or the ``reason`` it was not).
     provenance : dict
@@ -264,7 +267,7 @@ def quantify(
         certified_table(standards) if standards is not None else certified_table(pd.DataFrame(calibration.standards))
     )
     checks = _check_table(results, smap, certs, cfg.get("sigma_pt_rel"))
-    valid = bool(checks["passed"].all()) if len(checks) else True
+    valid = checks_valid(checks)
     if not valid:
         results["flags"] = [
             ";".join([f for f in (fl.split(";") if fl else [])] + ["check_failed"]) for fl in results["flags"]
@@ -279,6 +282,7 @@ def quantify(
         "not_reported": not_reported,
         "rejected_analytes": dict(calibration.rejected),
         "checks_passed": valid,
+        "sigma_pt_rel": cfg.get("sigma_pt_rel"),
         "n_checks": int(len(checks)),
         "matrix_element": calibration.matrix_element,
     }
@@ -361,6 +365,16 @@ def _setup_points(c, resp_el, setups, setup_reference) -> list:
     return pts
 
 
+def checks_valid(checks: pd.DataFrame) -> bool:
+    """True unless a check element that counts (certified content at least its LOQ,
+    :func:`compquant.calibrate.checks.counted`) failed: the run's results are then not valid for
+    release.  A check below its LOQ neither passes nor fails the run, as on the certificate
+    (:func:`compquant.report.release.check_reasons`)."""
+    if not len(checks):
+        return True
+    return bool((checks["passed"].astype(bool) | ~checks["counted"].astype(bool)).all())
+
+
 def _check_table(results: pd.DataFrame, smap: dict, certs: dict, spt) -> pd.DataFrame:
     """Check samples against their certified values: E_n, zeta and z (ISO 13528), pass or fail."""
     chk = []
@@ -389,6 +403,8 @@ def _check_table(results: pd.DataFrame, smap: dict, certs: dict, spt) -> pd.Data
                 "zeta": zeta,
                 "z": math.nan if z is None else z,
                 "passed": check_verdict(en, z),
+                "loq": r.loq,
+                "counted": counted(X, r.loq),
             }
         )
     return pd.DataFrame(chk, columns=CHECK_COLUMNS)

@@ -45,4 +45,16 @@ def check_verdict(en: float, z: float | None = None) -> bool:
     return not (z is not None and abs(z) >= 3.0)
 
 
-__all__ = ["en_number", "zeta_score", "z_score", "check_verdict"]
+def counted(certified: float, loq) -> bool:
+    """True when a check element counts: its certified content is at least the LOQ in the check
+    sample (no LOQ known: it counts).  Below the LOQ a found value is only indicative, so the
+    comparison verifies nothing and neither passes nor fails the run (common practice; the
+    certificate prints such an element as *not counted*, docs/certificate.md)."""
+    try:
+        q = float(loq)
+    except (TypeError, ValueError):
+        return True
+    return not (math.isfinite(q) and certified < q)
+
+
+__all__ = ["en_number", "zeta_score", "z_score", "check_verdict", "counted"]

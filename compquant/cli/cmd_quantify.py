@@ -55,11 +55,14 @@ def results_text(q) -> str:
             v, U = value_and_u(row.mass_fraction * f, row.U * f if finite(row.U) else None)
             val = f"{v} +- {U} {unit}" if U else f"{v} {unit}"
         lines.append(f"{terminal_text(row.sample_id):<14} {row.element:<3} {row.basis:<11} {val:<32} {row.flags or ''}")
-    for c in q.checks.itertuples(index=False):
-        lines.append(
-            f"check {terminal_text(c.sample_id)} ({c.standard_id}) {c.element}: "
-            f"En = {c.En:+.2f} {'pass' if c.passed else 'FAIL'}"
-        )
+    from compquant.report.assemble import check_results
+    from compquant.report.release import check_state
+
+    spt = (q.provenance or {}).get("sigma_pt_rel")
+    for c in check_results(q.checks, q.results) if len(q.checks) else []:  # states as on the certificate
+        en = f"{c.En:+.2f}" if c.En is not None else "n/a"
+        lines.append(f"check {terminal_text(c.sample_id)} ({c.standard_ref}) {c.element}: En = {en} "
+                     f"{check_state(c, spt)}")
     if not q.valid_for_release:
         lines.append("a check sample failed: the run's results are NOT VALID FOR RELEASE")
     d = q.drift

@@ -221,8 +221,9 @@ def in_scope(c) -> bool:
     Below the LOQ a found value is only indicative (the certificate says so of any result), so
     a comparison there verifies nothing; such elements are listed as not verified by the check.
     """
-    loq = getattr(c, "loq", None)
-    return not (_finite(loq) and c.certified < loq)
+    from compquant.calibrate.checks import counted
+
+    return counted(c.certified, getattr(c, "loq", None))
 
 
 def check_reasons(checks, sigma_pt_rel: float | None = None) -> list[str]:

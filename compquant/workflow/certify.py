@@ -73,7 +73,8 @@ def _complete_rows(rows, missing, dependent, matrix_el, matrix, checks, basis, c
             rows.append(ResultRow(el, None, None, flags=["not_reported"], line_id=line, basis=basis))
     if matrix_el and matrix_el not in have and (matrix is not None or missing):
         w, uw, k = (tuple(matrix) + (None,))[:3] if matrix is not None else (None, None, None)
-        fl = ["by_difference"] + (["check_failed"] if any(not c.passed for c in checks) else [])
+        # as on the results (calibrate.apply.checks_valid): a check below its LOQ does not count
+        fl = ["by_difference"] + (["check_failed"] if any(not c.passed and release.in_scope(c) for c in checks) else [])
         if missing or not finite(w):
             rows.append(ResultRow(matrix_el, None, None, flags=fl + ["not_reported"], line_id="by difference",
                                   basis=basis))
