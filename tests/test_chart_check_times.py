@@ -44,3 +44,20 @@ def test_chart_falls_back_to_the_run_time_without_a_sample_time(tmp_path):
         out = write_charts(rec, tmp_path / "charts", drift=False)
     with open(out[0]["csv"], newline="") as fh:
         assert [r["measured_at"] for r in csv.DictReader(fh)] == ["2026-11-30T10:00:00Z"]
+
+
+def test_a_check_not_counted_is_no_point_of_its_chart(tmp_path):
+    """A check element certified below its LOQ in the check sample is *not counted* on the
+    certificate (docs/certificate.md "Scope of a check"; common practice: below the LOQ a value
+    is only indicative), so it is no point of the control chart either: before, its points were
+    charted and a broken chart test could warn about or block a release."""
+    import dataclasses
+
+    with open_record(str(tmp_path / "record.sqlite")) as rec:
+        for run, (start, _) in RUNS.items():
+            kw = fake_analysis(tmp_path / run, run, n_samples=1, measured_at=start)
+            if run == "RUN-2":  # certified 0.019 below an LOQ of 0.03: not counted
+                kw["checks"] = [dataclasses.replace(c, loq=0.03) for c in kw["checks"]]
+            store_analysis(rec, **kw)
+        out = write_charts(rec, tmp_path / "charts", drift=False)
+    assert len(out) == 1 and out[0]["points"] == 1  # RUN-1's counted check only

@@ -31,7 +31,10 @@ def check_series(conn, standard_ref: str, element: str, upto_run: int | None = N
 
     ``measured_at`` is the check sample's own time of measurement (``samples.measured_at``, the
     run's start plus its first shot, as on the certificates), the run's time only when the sample
-    has none; the points stay in run order."""
+    has none; the points stay in run order.  A check *not counted* (certified content below its LOQ
+    in the check sample, :func:`compquant.calibrate.checks.counted`) is no point: its found value
+    is only indicative, the certificate does not count it, and so its chart may not warn about or
+    block a release either (rows stored before revision 0003 have no state and stay)."""
     smp = S.samples
     measured = sa.case((smp.c.measured_at != "", smp.c.measured_at), else_=R.c.measured_at)
     q = (sa.select(R.c.id.label("run_id"), measured.label("measured_at"), R.c.file_name.label("file"), R.c.sha256,
@@ -40,7 +43,8 @@ def check_series(conn, standard_ref: str, element: str, upto_run: int | None = N
          .join(R, R.c.id == S.checks.c.run_id)
          .outerjoin(smp, sa.and_(smp.c.run_id == S.checks.c.run_id, smp.c.sample_id == S.checks.c.sample_id))
          .where(S.checks.c.standard_ref == standard_ref, S.checks.c.element == element,
-                S.checks.c.measured.is_not(None))
+                S.checks.c.measured.is_not(None),
+                sa.or_(S.checks.c.state.is_(None), S.checks.c.state != "not counted"))
          .order_by(R.c.measured_at, R.c.id))
     if upto_run is not None:
         this = conn.execute(sa.select(R.c.measured_at).where(R.c.id == upto_run)).scalar_one()
