@@ -14,21 +14,14 @@ from pathlib import Path
 import pytest
 from pypdf import PdfReader
 from report_helpers import make_certificate
+from test_report_config import LAB_OK
 
 from compquant.errors import ConfigError
 from compquant.report.config import load_lab_profile
 from compquant.report.pdf import write_pdf
 
 DEMO = Path(__file__).resolve().parents[1] / "demo_runs"
-LAB = """
-[lab]
-name = "X Lab"
-address = "1 Road"
-certificate_prefix = "XL"
-[signatory]
-name = "A. Person"
-title = "Manager"
-[samples]
+LAB = LAB_OK + """[samples]
 condition = "coupons, milled"
 received = 2026-11-13
 """

@@ -24,7 +24,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from record_helpers import fake_analysis, real_analyses
 from test_record import db  # noqa: F401  (the SQLite / PostgreSQL record fixture)
-from test_record_views import OLD_CHECK_COLUMNS, store_as_before_0003
+from test_record_views import OLD_CHECK_COLUMNS, _record_at, store_as_before_0003
 
 from compquant.record import db as record_db
 from compquant.record import open_record
@@ -33,22 +33,6 @@ from compquant.record.evidence import map_item, masked_below_lod, read_array, re
 from compquant.record.store import store_analysis
 
 K_B_EV = constants.k / constants.e  # eV/K (CODATA, scipy.constants)
-
-
-def _r0001(location) -> record_db.Record:
-    """A record created as compquant did before revision 0002 (migration 0001 only)."""
-    from alembic import command
-
-    engine, where, _ = record_db._engine_for(location)
-    rec = record_db.Record(engine, where)
-    with rec.transaction() as conn:
-        command.upgrade(record_db._alembic_config(conn), "0001")
-        if rec.dialect == "sqlite":
-            conn.exec_driver_sql(f"PRAGMA application_id = {record_db.SQLITE_APPLICATION_ID}")
-        conn.execute(S.record_info.insert(), [{"key": "application", "value": record_db.APPLICATION},
-                                              {"key": "created_at", "value": "2026-11-01T00:00:00Z"},
-                                              {"key": "created_by", "value": "test"}])
-    return rec
 
 
 OLD_TABLES = ("record_info", "audit", "runs", "samples", "results", "calibrations", "drift_factors", "checks",
@@ -70,7 +54,7 @@ def test_upgrade_from_r0001_keeps_every_row_and_adds_append_only_evidence(db, tm
     from alembic.autogenerate import compare_metadata
     from alembic.migration import MigrationContext
 
-    old = _r0001(db)
+    old = _record_at(db, "0001")
     store_as_before_0003(old, fake_analysis(tmp_path / "a", "RUN-OLD", n_samples=2))
     with old.engine.connect() as conn:
         assert MigrationContext.configure(conn).get_current_revision() == "0001"
