@@ -225,14 +225,20 @@ def store_as_before_0003(rec, kw: dict) -> None:
                                          passed=c.passed, criterion=c.criterion) for c in kw["checks"]])
 
 
-def test_upgrade_to_0003_fills_check_states_from_the_issued_certificates(db, tmp_path):  # noqa: F811
+def test_upgrade_to_0003_fills_check_states_from_the_issued_certificates(db, tmp_path, monkeypatch):  # noqa: F811
     from alembic.autogenerate import compare_metadata
     from alembic.migration import MigrationContext
+
+    import compquant.record.queries as queries
 
     old = _record_at(db, "0002")
     kw = _analysis(tmp_path / "a", "RUN-OLD")
     store_as_before_0003(old, kw)
-    released = release(old, kw["certificates"][0].number, reviewer=REVIEWER, at="2026-12-05T10:00:00Z")
+    # released as before 0003: today's chart query reads checks.state, which a 0002 record lacks;
+    # the run's one point per chart cannot break a chart test, so the release then saw none
+    with monkeypatch.context() as m:
+        m.setattr(queries, "run_chart_violations", lambda conn, run_id: ([], False))
+        released = release(old, kw["certificates"][0].number, reviewer=REVIEWER, at="2026-12-05T10:00:00Z")
     # a run without certificates: its check has no issued state to take
     bare = fake_analysis(tmp_path / "b", "RUN-BARE", n_samples=1)
     store_as_before_0003(old, {**bare, "certificates": [], "outputs": []})
