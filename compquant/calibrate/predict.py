@@ -233,6 +233,15 @@ def sample_rows(sid, role, good, preds, curves, resp, allow_above, coverage, run
         if negnet:
             flags.append("negative_net")
         k = coverage_factor(coverage, p["dof"])
+        if below and w[i] + k * uw[i] > lod:
+            # "< LOD" must be true of this result: where its own expanded interval reaches above
+            # the method's blank-based LOD (its u at this level is larger than the blank's
+            # scatter the LOD assumes: matrix, curve, background), the limit printed is the upper
+            # end of that interval, w + U (docs/calibration.md sec. 8; demo day 2 LOT-2612-H Zn
+            # was "< 0.090 %" for a true 0.288 %)
+            lod = float(w[i] + k * uw[i])
+            loq = max(loq, lod)
+            flags.append("lod_from_result")
         rows.append(
             {
                 "sample_id": sid,

@@ -52,6 +52,9 @@ LOD_STATEMENT = (
 #: plain-word meanings of result and line flags
 FLAG_TEXT = {
     "below_lod": "not detected: the signal is below the limit of detection; the LOD is given instead of a value",
+    "lod_from_result": "not detected, but this result's own uncertainty is larger than the method's detection "
+    "limit assumes (blank scatter only): the limit given is the upper end of its expanded uncertainty "
+    "interval, not the method's LOD",
     "below_loq": "detected but below the limit of quantification: the value is indicative and has a "
     "large relative uncertainty",
     "above_range": "above the calibrated range: the value is above the highest standard's mass fraction "
