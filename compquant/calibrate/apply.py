@@ -105,7 +105,7 @@ class QuantifyResult:
     drift: dict
     provenance: dict
     valid_for_release: bool = True
-    matrix_fraction: dict = field(default_factory=dict)  # sample -> (w, u) by difference
+    matrix_fraction: dict = field(default_factory=dict)  # sample -> (w, u, k, nu_eff) by difference
 
     def to_frame(self) -> pd.DataFrame:
         """The results as the declared contract (:mod:`compquant.results`: columns, order, dtypes)."""

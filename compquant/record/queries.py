@@ -16,6 +16,8 @@ from compquant.record.charts import RULE_TEXT, ChartSettings, build_chart
 from compquant.record.db import Record
 
 R = S.runs
+#: a sample's own time of measurement, the run's when the sample has none (as on its certificate)
+SAMPLE_TIME = sa.case((S.samples.c.measured_at != "", S.samples.c.measured_at), else_=R.c.measured_at)
 
 
 def _dedupe(rows: list[dict], key=("sha256", "sample_id")) -> list[dict]:
@@ -36,8 +38,7 @@ def check_series(conn, standard_ref: str, element: str, upto_run: int | None = N
     is only indicative, the certificate does not count it, and so its chart may not warn about or
     block a release either (rows stored before revision 0003 have no state and stay)."""
     smp = S.samples
-    measured = sa.case((smp.c.measured_at != "", smp.c.measured_at), else_=R.c.measured_at)
-    q = (sa.select(R.c.id.label("run_id"), measured.label("measured_at"), R.c.file_name.label("file"), R.c.sha256,
+    q = (sa.select(R.c.id.label("run_id"), SAMPLE_TIME.label("measured_at"), R.c.file_name.label("file"), R.c.sha256,
                    S.checks.c.sample_id, S.checks.c.measured.label("value"), S.checks.c.certified,
                    S.checks.c.U_certified)
          .join(R, R.c.id == S.checks.c.run_id)
@@ -115,8 +116,7 @@ def sample_history(rec: Record, sample_id: str) -> pd.DataFrame:
     as its certificate's "Date of measurement"), the run's time only when the sample has none.
     ``value`` is empty for a result below the LOD (``below_lod`` true) and for one not determined.
     """
-    measured = sa.case((S.samples.c.measured_at != "", S.samples.c.measured_at), else_=R.c.measured_at)
-    q = (sa.select(measured.label("measured_at"), R.c.file_name.label("run"), R.c.sha256.label("run_sha256"),
+    q = (sa.select(SAMPLE_TIME.label("measured_at"), R.c.file_name.label("run"), R.c.sha256.label("run_sha256"),
                    R.c.id.label("run_id"),
                    S.results.c.element, S.results.c.value, S.results.c.U_expanded.label("U"), S.results.c.k,
                    S.results.c.lod, S.results.c.below_lod, S.results.c.flags, S.results.c.basis)

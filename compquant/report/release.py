@@ -221,6 +221,8 @@ def in_scope(c) -> bool:
     Below the LOQ a found value is only indicative (the certificate says so of any result), so
     a comparison there verifies nothing; such elements are listed as not verified by the check.
     """
+    # imported here: importing compquant.calibrate.checks runs the whole calibrate package's
+    # imports (about 2 s), which the report should not pay on import
     from compquant.calibrate.checks import counted
 
     return counted(c.certified, getattr(c, "loq", None))
